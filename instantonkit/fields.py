@@ -1,0 +1,260 @@
+"""The evaluation engine: a field and points in, float64/complex128 arrays out.
+
+A *field* is anything with a method ``potential(x)`` mapping one point ``(4,)`` to the four
+anti-Hermitian matrices ``A_mu`` ``(4, N, N)`` (jax-traceable), optionally with closed forms
+``field_strength(x) -> (4, 4, N, N)``, ``action_density(x) -> ()`` and ``charge_density(x) -> ()``.
+:class:`instantonkit.adhm.ADHMData` and the ansatz objects of :mod:`instantonkit.ansatz` are fields; a
+bare callable ``A(x)`` is wrapped by :func:`as_field`.  Fields should be pytrees (frozen dataclasses
+registered with jax) so that one compiled kernel serves every field of the same structure.
+
+The public functions validate the points once, flatten the leading shape, pick the closed form when
+the field has one (``method="auto"``) or differentiate the potential with ``jax.jacfwd``
+(``method="autodiff"``), map over fixed-size chunks with ``jit(vmap(...))`` so that memory stays
+bounded, and restore the leading shape.  Formulas follow :mod:`instantonkit.conventions`.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import functools
+from typing import Any, Callable
+
+import jax
+import jax.numpy as jnp
+import numpy as np
+
+from .conventions import ACTION_DENSITY_FACTOR, CHARGE_DENSITY_FACTOR, LEVI_CIVITA
+
+__all__ = [
+    "CallableField",
+    "as_field",
+    "as_points",
+    "potential",
+    "field_strength",
+    "action_density",
+    "charge_density",
+    "self_duality_residual",
+    "evaluate",
+    "dual",
+    "field_strength_from_potential",
+    "DEFAULT_CHUNK",
+]
+
+#: Points per compiled call; memory per call is about DEFAULT_CHUNK times the per-point work.
+DEFAULT_CHUNK = 16384
+
+_METHODS = ("auto", "closed", "autodiff")
+
+
+# -- inputs -----------------------------------------------------------------------------------------
+
+
+def as_points(points) -> tuple[np.ndarray, tuple[int, ...]]:
+    """Validate points and flatten them: (..., 4) -> ((M, 4) float64 numpy array, leading shape).
+
+    Raises TypeError for non-real input and ValueError for a wrong last axis or non-finite values.
+    """
+    if isinstance(points, jax.core.Tracer):
+        raise TypeError("points must be concrete arrays here; call a field's methods directly under jit")
+    arr = np.asarray(points)
+    if arr.dtype == object or not (np.issubdtype(arr.dtype, np.floating) or np.issubdtype(arr.dtype, np.integer)):
+        raise TypeError(f"points must be a real numeric array; found dtype {arr.dtype}")
+    if arr.ndim < 1 or arr.shape[-1] != 4:
+        raise ValueError(f"points must have shape (..., 4); found {arr.shape}")
+    arr = arr.astype(np.float64, copy=False)
+    finite = np.isfinite(arr)
+    if not np.all(finite):
+        bad = int(np.sum(~np.all(finite, axis=-1)))
+        raise ValueError(f"points must be finite; found {bad} point(s) with NaN or inf")
+    lead = arr.shape[:-1]
+    return arr.reshape(-1, 4), lead
+
+
+@jax.tree_util.register_pytree_node_class
+@dataclasses.dataclass(frozen=True)
+class CallableField:
+    """A user callable ``A(x): (4,) -> (4, N, N)`` (anti-Hermitian, jax.numpy) seen as a field.
+
+    The callable is static pytree data: one compiled kernel per callable object.
+    """
+
+    fn: Callable[[Any], Any]
+
+    def potential(self, x):
+        return jnp.asarray(self.fn(x)).astype(jnp.complex128)
+
+    def tree_flatten(self):
+        return (), (self.fn,)
+
+    @classmethod
+    def tree_unflatten(cls, aux, children):
+        return cls(aux[0])
+
+
+def as_field(obj):
+    """Return ``obj`` if it has a ``potential`` method, wrap it if it is a plain callable, else TypeError."""
+    if hasattr(obj, "potential") and callable(getattr(obj, "potential")):
+        return obj
+    if callable(obj):
+        return CallableField(obj)
+    raise TypeError(f"a field must have a potential(x) method or be a callable A(x); found {type(obj).__name__}")
+
+
+# -- per-point formulas (conventions module) --------------------------------------------------------
+
+
+def field_strength_from_potential(pot: Callable) -> Callable:
+    """F_mu nu = d_mu A_nu - d_nu A_mu + [A_mu, A_nu] by one forward-mode jacobian of ``pot`` at a point."""
+
+    def fs(x):
+        a = pot(x)  # (4, N, N)
+        da = jax.jacfwd(lambda y: pot(y))(x)  # (nu, N, N, mu) = d_mu A_nu
+        d = jnp.moveaxis(da, -1, 0)  # (mu, nu, N, N)
+        comm = jnp.einsum("mij,njk->mnik", a, a)
+        return d - jnp.swapaxes(d, 0, 1) + comm - jnp.swapaxes(comm, 0, 1)
+
+    return fs
+
+
+def dual(f):
+    """(*F)_mu nu = 1/2 eps_{mu nu rho sigma} F_rho sigma; f: (..., 4, 4, N, N) -> same shape."""
+    return 0.5 * jnp.einsum("mnrs,...rsij->...mnij", LEVI_CIVITA, f)
+
+
+def _action_from_f(f):
+    """s = -1/2 sum tr F_mu nu F_mu nu (conventions.ACTION_DENSITY_FACTOR); f: (4, 4, N, N) -> ()."""
+    return ACTION_DENSITY_FACTOR * jnp.real(jnp.einsum("mnij,mnji->", f, f))
+
+
+def _charge_from_f(f):
+    """q = -1/(32 pi^2) eps tr F F (conventions.CHARGE_DENSITY_FACTOR); f: (4, 4, N, N) -> ()."""
+    return CHARGE_DENSITY_FACTOR * jnp.real(jnp.einsum("mnrs,mnij,rsji->", LEVI_CIVITA, f, f))
+
+
+def _residual_from_f(f):
+    """|F - *F| / |F| with |F|^2 = sum_{mu nu} tr(F_mu nu^dag F_mu nu); 0 where F = 0."""
+    diff = f - dual(f)
+    num = jnp.sqrt(jnp.real(jnp.sum(diff * jnp.conj(diff))))
+    den = jnp.sqrt(jnp.real(jnp.sum(f * jnp.conj(f))))
+    return jnp.where(den > 0, num / jnp.where(den > 0, den, 1.0), 0.0)
+
+
+def _point_fn(field, quantity: str, method: str) -> Callable:
+    """Per-point function x -> value for the field (traced inside the compiled kernel)."""
+
+    def fs(x):
+        if method != "autodiff" and hasattr(field, "field_strength"):
+            return field.field_strength(x)
+        return field_strength_from_potential(field.potential)(x)
+
+    if quantity == "potential":
+        return field.potential
+    if quantity == "field_strength":
+        return fs
+    if quantity == "action_density":
+        if method == "auto" and hasattr(field, "action_density"):
+            return field.action_density
+        return lambda x: _action_from_f(fs(x))
+    if quantity == "charge_density":
+        if method == "auto" and hasattr(field, "charge_density"):
+            return field.charge_density
+        return lambda x: _charge_from_f(fs(x))
+    if quantity == "self_duality_residual":
+        return lambda x: _residual_from_f(fs(x))
+    raise ValueError(f"unknown quantity {quantity!r}")
+
+
+@functools.lru_cache(maxsize=None)
+def _kernel(quantity: str, method: str):
+    """One jitted, vmapped kernel per (quantity, method); jax caches it per field structure."""
+
+    def run(field, pts):
+        return jax.vmap(lambda x: _point_fn(field, quantity, method)(x))(pts)
+
+    return jax.jit(run)
+
+
+def _check_callable(field, x0: np.ndarray) -> None:
+    """For a wrapped callable: shape (4, N, N) and anti-Hermitian at the first point, else a clear error."""
+    try:
+        shape = jax.eval_shape(field.potential, jax.ShapeDtypeStruct((4,), jnp.float64)).shape
+    except Exception as err:  # the callable cannot be traced
+        raise TypeError(f"the potential callable failed on a (4,) point: {type(err).__name__}: {err}") from err
+    if len(shape) != 3 or shape[0] != 4 or shape[1] != shape[2]:
+        raise ValueError(f"the potential callable must return shape (4, N, N); found {tuple(shape)}")
+    a = np.asarray(field.potential(jnp.asarray(x0)))
+    herm = float(np.max(np.abs(a + np.conj(np.swapaxes(a, -1, -2)))))
+    scale = 1.0 + float(np.max(np.abs(a)))
+    if herm > 1e-10 * scale:
+        raise ValueError(f"the potential must be anti-Hermitian (A^dag = -A); max |A + A^dag| = {herm:.3e} at {x0}")
+
+
+def evaluate(field, points, quantity: str, *, method: str = "auto", chunk_size: int = DEFAULT_CHUNK):
+    """Evaluate ``quantity`` of ``field`` on ``points`` (..., 4) in chunks; returns a numpy array.
+
+    quantity: 'potential' | 'field_strength' | 'action_density' | 'charge_density' |
+    'self_duality_residual'.  method: 'auto' (closed forms when present), 'closed' (closed-form
+    field strength, densities computed from it), 'autodiff' (jax.jacfwd of the potential).
+    Raises ValueError when the result is not finite at some point (a singular point of the field,
+    e.g. the centre of a singular gauge), naming how many points and the first one.
+    """
+    if method not in _METHODS:
+        raise ValueError(f"method must be one of {_METHODS}; found {method!r}")
+    if not isinstance(chunk_size, (int, np.integer)) or chunk_size < 1:
+        raise ValueError(f"chunk_size must be a positive integer; found {chunk_size!r}")
+    field = as_field(field)
+    pts, lead = as_points(points)
+    m = pts.shape[0]
+    if isinstance(field, CallableField) and m:
+        _check_callable(field, pts[0])
+    kern = _kernel(quantity, method)
+    probe = jax.eval_shape(lambda f, p: kern(f, p), field, jax.ShapeDtypeStruct((1, 4), jnp.float64))
+    out = np.empty((m,) + probe.shape[1:], dtype=probe.dtype)
+    if m:
+        size = min(int(chunk_size), 1 << int(np.ceil(np.log2(m))))  # few distinct compiled sizes
+        for start in range(0, m, size):
+            stop = min(start + size, m)
+            chunk = pts[start:stop]
+            if stop - start < size:  # pad with the first point (a regular point of the set)
+                chunk = np.concatenate([chunk, np.broadcast_to(pts[start], (size - (stop - start), 4))])
+            out[start:stop] = np.asarray(kern(field, chunk))[: stop - start]
+        flat = out.reshape(m, -1)
+        bad = ~np.all(np.isfinite(flat), axis=1)
+        if np.any(bad):
+            first = pts[np.argmax(bad)]
+            raise ValueError(
+                f"{quantity} is not finite at {int(bad.sum())} of {m} points (first: {first.tolist()}); "
+                "the field is singular there (for example the centre of a singular gauge)"
+            )
+    return out.reshape(lead + probe.shape[1:])
+
+
+def potential(field, points, **kw):
+    """Gauge potential A_mu at points: (..., 4) -> (..., 4, N, N) complex128 (anti-Hermitian)."""
+    return evaluate(field, points, "potential", **kw)
+
+
+def field_strength(field, points, **kw):
+    """Field strength F_mu nu at points: (..., 4) -> (..., 4, 4, N, N) complex128.
+
+    Closed form when the field has one, else jax.jacfwd of the potential (``method="autodiff"`` forces it).
+    """
+    return evaluate(field, points, "field_strength", **kw)
+
+
+def action_density(field, points, **kw):
+    """Action density s(x) = -1/2 sum_{mu nu} tr F_mu nu F_mu nu at points: (..., 4) -> (...,) float64."""
+    return evaluate(field, points, "action_density", **kw)
+
+
+def charge_density(field, points, **kw):
+    """Charge density q(x) = -1/(32 pi^2) eps_{mu nu rho sigma} tr F_mu nu F_rho sigma: (..., 4) -> (...,) float64."""
+    return evaluate(field, points, "charge_density", **kw)
+
+
+def self_duality_residual(field, points, **kw):
+    """Pointwise |F - *F| / |F|, |F|^2 = sum_{mu nu} tr(F_mu nu^dag F_mu nu): (..., 4) -> (...,) float64.
+
+    0 for self-dual fields, 2 for anti-self-dual ones, and 0 by definition where F vanishes.
+    """
+    return evaluate(field, points, "self_duality_residual", **kw)
