@@ -269,6 +269,8 @@ class ADHMData:
         """f = (Delta^dag Delta)^-1, real (k, k), and B - p(x)."""
         bp = self._b_minus_p(x)
         gram = _constraint_matrix(jnp.asarray(self.lam), bp)[..., 0]
+        if self.k == 1:  # a 1 x 1 real matrix: skip the batched LU
+            return 1.0 / gram, bp
         return jnp.linalg.inv(gram), bp
 
     def log_det(self, x):
