@@ -98,7 +98,7 @@ class ADHMData:
     def __post_init__(self):
         lam = _as_float_array("lam", self.lam, 3)
         b = _as_float_array("B", self.B, 3)
-        if self.chirality not in (1, -1):
+        if isinstance(self.chirality, bool) or not isinstance(self.chirality, (int, np.integer)) or self.chirality not in (1, -1):
             raise ValueError(f"chirality must be +1 or -1; found {self.chirality!r}")
         if self.gauge not in _GAUGES:
             raise ValueError(f"gauge must be one of {_GAUGES}; found {self.gauge!r}")
@@ -520,6 +520,8 @@ def _solve_offdiagonal(lam: np.ndarray, diag: np.ndarray, *, tol: float, max_ite
     k = lam.shape[1]
     pairs = _offdiag_index(k)
     m = len(pairs)
+    if m == 0:  # k = 1: no off-diagonal entries and no constraint equations
+        return _assemble_b(diag, np.zeros((0, 4)), k), 0.0, 0
     off = np.zeros((m, 4))
     basis = []
     for p in range(m):
@@ -529,12 +531,15 @@ def _solve_offdiagonal(lam: np.ndarray, diag: np.ndarray, *, tol: float, max_ite
             basis.append(_assemble_b(np.zeros((k, 4)), e, k))
     basis = np.stack(basis)  # (4m, k, k, 4)
     res = np.inf
+    converged = None  # (B, residual) once within tol; one more step polishes it to rounding level
     for it in range(max_iter):
         b = _assemble_b(diag, off, k)
         r = _constraint_vector(lam, b, pairs)
         res = float(np.max(np.abs(r))) if r.size else 0.0
+        if converged is not None:
+            return (b, res, it) if res < converged[1] else (converged[0], converged[1], it)
         if res <= tol:
-            return b, res, it
+            converged = (b, res)
         bd = np.asarray(qt.qmat_dagger(b))
         prod = np.asarray(qt.qmat_mul(bd[None], basis))
         lin = prod + np.asarray(qt.qmat_dagger(prod))
@@ -543,6 +548,8 @@ def _solve_offdiagonal(lam: np.ndarray, diag: np.ndarray, *, tol: float, max_ite
         off = off + step.reshape(m, 4)
         if not np.all(np.isfinite(off)):
             break
+    if converged is not None:
+        return converged[0], converged[1], max_iter
     return _assemble_b(diag, off, k), res, max_iter
 
 

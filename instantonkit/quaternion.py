@@ -140,7 +140,7 @@ def from_matrix(m):
     quaternion part ``(1/2) Re tr(basis_a^dag m)``.  m: (..., 2, 2) -> (..., 4) float64.
     """
     m = jnp.asarray(m)
-    return 0.5 * jnp.real(jnp.einsum("aji,...ij->...a", QUATERNION_BASIS.conj(), m))
+    return 0.5 * jnp.real(jnp.einsum("aij,...ij->...a", QUATERNION_BASIS.conj(), m))  # tr(b_a^dag m)
 
 
 def qmat_mul(a, b):
