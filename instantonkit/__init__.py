@@ -6,6 +6,10 @@ starts.  Conventions: :mod:`instantonkit.conventions` and docs/conventions.md.
 from . import _config  # noqa: F401  (float64 before anything is traced)
 from . import conventions, quaternion
 from .adhm import ADHMData, block_sum, bpst, embed_sp, multi_instanton, random_adhm
+from .ansatz import anti, bpst_field, caloron, jnr, thooft
+from .transforms import dilate, gauge_transform, parity, rotate, translate
+from .zero_modes import zero_mode_density, zero_mode_overlap, zero_modes
+from .finder import InstantonFit, find_instantons
 from .fields import (
     action_density,
     as_field,
@@ -32,4 +36,19 @@ __all__ = [
     "action_density",
     "charge_density",
     "self_duality_residual",
+    "thooft",
+    "jnr",
+    "caloron",
+    "bpst_field",
+    "anti",
+    "gauge_transform",
+    "translate",
+    "rotate",
+    "dilate",
+    "parity",
+    "zero_modes",
+    "zero_mode_density",
+    "zero_mode_overlap",
+    "find_instantons",
+    "InstantonFit",
 ]

@@ -1,0 +1,112 @@
+"""Time and peak memory of lattice starts (BPST, closed-form links) for SU(2) and SU(3).
+
+Goals (issue 5): a 32^4 SU(2) BPST start in <= 30 s on two cores, cost linear in the volume, peak
+memory <= 1.5x the output array.  Usage: ``python benchmarks/bench_lattice.py [--quick] [--sizes 16 24 32]``.
+Quick mode uses 8^4 only.  Peak memory is the growth of the resident set (resource.getrusage) over
+the run, measured in a fresh child process per start so earlier runs do not hide it.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import multiprocessing as mp
+import resource
+import sys
+import time
+
+
+def _one(size: int, group: str, queue) -> None:
+    import numpy as np
+
+    import instantonkit as ik
+    from instantonkit import lattice as lat
+
+    data = ik.bpst(size=2.0)  # rho / a = 4, singular gauge (periodic start)
+    lat.lattice_links(data, (2, 2, 2, 2), 0.5, group=group)  # compile outside the timing
+    base = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    n = 3 if group == "su3" else 2
+    out = np.empty((size,) * 4 + (4, n, n), dtype=np.complex128)
+    out.fill(0)  # touch the output pages so they count in the baseline, not as overhead
+    base_out = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    t0 = time.perf_counter()
+    lat.lattice_links(data, (size,) * 4, 0.5, group=group, out=out)
+    sec = time.perf_counter() - t0
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    queue.put({"seconds": sec, "out_bytes": out.nbytes, "extra_kib": peak - base_out, "base_kib": base_out - base})
+
+
+def _measure(size: int, group: str) -> dict:
+    ctx = mp.get_context("spawn")
+    q = ctx.Queue()
+    p = ctx.Process(target=_one, args=(size, group, q))
+    p.start()
+    res = q.get()
+    p.join()
+    return res
+
+
+def run(quick: bool = False, sizes=None) -> list[dict]:
+    """Rows {figure, value, unit, ratio, reference}; ratio = value / goal where a goal exists."""
+    sizes = [8] if quick else (sizes or [16, 24, 32])
+    rows = []
+    per_site = {}
+    for group in ("su2", "su3"):
+        for size in sizes:
+            r = _measure(size, group)
+            vol = size**4
+            per_site[(group, size)] = r["seconds"] / vol
+            goal = 30.0 if (group == "su2" and size == 32) else None
+            rows.append(
+                {
+                    "figure": f"{group} {size}^4 BPST start time",
+                    "value": round(r["seconds"], 3),
+                    "unit": "s",
+                    "ratio": round(r["seconds"] / goal, 3) if goal else None,
+                    "reference": "goal <= 30 s (32^4 SU(2))" if goal else "",
+                }
+            )
+            total = r["out_bytes"] + 1024 * max(r["extra_kib"], 0)
+            rows.append(
+                {
+                    "figure": f"{group} {size}^4 peak memory / output array",
+                    "value": round(total / r["out_bytes"], 3),
+                    "unit": "x",
+                    "ratio": round(total / r["out_bytes"] / 1.5, 3),
+                    "reference": "goal <= 1.5x the output (extra resident memory beyond it)",
+                }
+            )
+        smallest = min(sizes)
+        for size in sizes:
+            if size != smallest:
+                rows.append(
+                    {
+                        "figure": f"{group} time per site {size}^4 / {smallest}^4",
+                        "value": round(per_site[(group, size)] / per_site[(group, smallest)], 3),
+                        "unit": "x",
+                        "ratio": None,
+                        "reference": "1.0 for cost linear in volume",
+                    }
+                )
+    return rows
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--quick", action="store_true", help="8^4 only")
+    ap.add_argument("--sizes", type=int, nargs="*", default=None)
+    ap.add_argument("--json", action="store_true", help="print the rows as JSON")
+    args = ap.parse_args(argv)
+    rows = run(args.quick, args.sizes)
+    if args.json:
+        print(json.dumps(rows, indent=1))
+        return 0
+    print(f"{'figure':48s} {'value':>10s} {'unit':>5s} {'ratio':>7s}  reference")
+    for r in rows:
+        ratio = "" if r["ratio"] is None else f"{r['ratio']:.3f}"
+        print(f"{r['figure']:48s} {r['value']:>10} {r['unit']:>5s} {ratio:>7s}  {r['reference']}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

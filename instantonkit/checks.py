@@ -1,0 +1,828 @@
+"""Integrals over R^4 (or R^3 x one period) with error estimates, and the one-call ``verify`` report.
+
+``total_action(field)`` and ``total_charge(field)`` integrate the action density
+``s = -1/2 sum tr F F`` and the charge density ``q = -1/(32 pi^2) eps tr F F`` (conventions module)
+with the rules of :mod:`instantonkit.quadrature`: one hyperspherical rule per centre, glued by a smooth
+partition of unity, refined piece by piece until the estimated error meets
+``max(atol, rtol |value|)`` or the ``max_points`` budget is spent.  The error estimate of a piece is
+the difference of its last two levels (the value reported is the finer one, whose own error is much
+smaller for the geometrically converging rules used here), plus a rounding floor.
+
+Before integrating, the density is sampled along rays at large radius; if it falls no faster than
+about ``|x|^-(d + 1)`` (``d`` = 4, or 3 for periodic fields) the integral diverges or converges too
+slowly for an honest estimate and :class:`DivergentIntegralError` says so.  A field whose evaluation
+fails (an exception in a user callable, a non-finite value) raises :class:`FieldEvaluationError` with
+the original message.
+
+``verify(field)`` combines both integrals with the self-duality residual, the Bogomolny bound
+``S >= 8 pi^2 |Q|`` and independent routes to the charge:
+
+* ADHM data: the integral of Osborn's density ``s = -1/2 box box log det(Delta^dag Delta)``
+  (Osborn, Nucl. Phys. B 159 (1979) 497 and Ann. Phys. 135 (1981) 373, from memory), fourth
+  derivatives in the closed form of :func:`osborn_density` (derived here);
+* the 't Hooft and JNR ansaetze: the pole count (k centres; JNR: poles minus one);
+* potentials that are pure gauge at infinity: the Chern-Simons flux through a large S^3,
+  ``Q = oint K_mu n_mu dS`` with ``K_mu = -(1/8 pi^2) eps_{mu nu rho sigma} tr(1/2 A_nu F_rho sigma
+  - 1/3 A_nu A_rho A_sigma)``, ``q = d_mu K_mu`` (derived here from
+  ``eps tr F F = 4 d_mu [eps tr(A d A + 2/3 A A A)]``, common practice); equal to ``Q`` for a
+  potential that is smooth everywhere, and to the winding number of the asymptotic gauge map ``g``
+  (``A -> g d g^-1``) as the radius grows.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import sys
+from typing import Any, Callable
+
+import jax
+import jax.numpy as jnp
+import numpy as np
+
+from . import fields as _fields
+from . import quadrature as _quad
+from .conventions import INSTANTON_ACTION, LEVI_CIVITA, PI
+
+__all__ = [
+    "IntegralResult",
+    "Route",
+    "Verification",
+    "DivergentIntegralError",
+    "FieldEvaluationError",
+    "total_action",
+    "total_charge",
+    "integrate_density",
+    "osborn_density",
+    "surface_winding",
+    "verify",
+    "DEFAULT_MAX_POINTS",
+]
+
+#: Default budget of density evaluations for one integral (all refinement rounds together).
+DEFAULT_MAX_POINTS = 4_000_000
+
+#: Points per compiled call of the engine (one compiled size serves every round).
+_CHUNK = 8192
+
+#: Level l of a piece: (n_radial, n_angular) for R^4, (n_radial, n_angular, n_time) for R^3 x S^1.
+_MAX_LEVEL = 24
+
+_EPS = float(np.finfo(np.float64).eps)
+
+
+def _level_r4(level: int) -> tuple[int, int]:
+    return 16 + 6 * level, 6 + 2 * level
+
+
+def _level_periodic(level: int) -> tuple[int, int, int]:
+    return 16 + 6 * level, 4 + 2 * level, 8 + 4 * level
+
+
+# -- errors and results ----------------------------------------------------------------------------
+
+
+class DivergentIntegralError(ValueError):
+    """The density falls too slowly at infinity for its integral to exist (or to be estimated)."""
+
+
+class FieldEvaluationError(RuntimeError):
+    """Evaluating the field failed (an exception inside the field, or a non-finite value)."""
+
+
+@dataclasses.dataclass(frozen=True)
+class IntegralResult:
+    """An integral with its error estimate.
+
+    quantity: what was integrated; value, error: the estimate and its estimated absolute error;
+    evaluations: density evaluations used (all rounds); rule: the rule of the final round;
+    converged: whether ``error <= max(atol, rtol |value|)``; message: why not (budget), else "".
+    """
+
+    quantity: str
+    value: float
+    error: float
+    evaluations: int
+    rule: str
+    converged: bool
+    message: str = ""
+
+    def __float__(self) -> float:
+        return float(self.value)
+
+    def __str__(self) -> str:
+        state = "converged" if self.converged else "NOT converged"
+        text = f"{self.quantity} = {self.value:.12g} +- {self.error:.1e} ({state}, {self.evaluations:,} points)"
+        return text + (f"; {self.message}" if self.message else "")
+
+    def to_dict(self) -> dict:
+        """Plain-dict form (floats, ints, strings, bools)."""
+        return dataclasses.asdict(self)
+
+
+# -- where the field lives ---------------------------------------------------------------------------
+
+
+def _centres_of(field):
+    """(centres (k, 4), scales (k,)) from the field's own data where it has them, else None."""
+    if hasattr(field, "constraint_residual") and hasattr(field, "centers") and callable(field.centers):
+        return np.asarray(field.centers(), dtype=np.float64), np.asarray(field.sizes(), dtype=np.float64)
+    c = getattr(field, "centers", None)
+    s = getattr(field, "sizes", None)
+    if c is not None and s is not None and not callable(c) and not callable(s):
+        c = np.asarray(c, dtype=np.float64).reshape(-1, 4)
+        s = np.broadcast_to(np.asarray(s, dtype=np.float64), (c.shape[0],)).copy()
+        return c, s
+    inner = getattr(field, "field", None)
+    if inner is not None and type(field).__name__ == "ParityImage":
+        got = _centres_of(inner)
+        if got is not None:
+            return got[0] * np.array([-1.0, -1.0, -1.0, 1.0]), got[1]
+    if inner is not None and hasattr(field, "shift"):
+        got = _centres_of(inner)
+        if got is not None:
+            return got[0] + np.asarray(field.shift, dtype=np.float64), got[1]
+    return None
+
+
+def _layout(field, center, scale, period):
+    """Centres (k, 4), scales (k,), period or None, and a note on where they came from."""
+    if period is None:
+        p = getattr(field, "period", None)
+        period = None if p is None else float(np.asarray(p))
+    elif not (np.isfinite(float(period)) and float(period) > 0):
+        raise ValueError(f"period must be finite and > 0; found {period!r}")
+    if center is not None or scale is not None:
+        base_c, base_s = (np.zeros(4), 1.0)
+        if hasattr(field, "hint") and (center is None or scale is None):
+            base_c, base_s = field.hint()
+        c = np.asarray(base_c if center is None else center, dtype=np.float64)
+        c = c.reshape(-1, 4) if c.size % 4 == 0 and c.size > 0 else c
+        if c.ndim != 2 or c.shape[1] != 4:
+            raise ValueError(f"center must have shape (4,) or (k, 4); found {np.shape(center)}")
+        s = np.asarray(base_s if scale is None else scale, dtype=np.float64)
+        if s.ndim == 0:
+            s = np.full(c.shape[0], float(s))
+        if s.shape != (c.shape[0],):
+            raise ValueError(f"scale must be a number or have shape ({c.shape[0]},); found {s.shape}")
+        if not np.all(np.isfinite(s)) or np.any(s <= 0):
+            raise ValueError(f"scale must be finite and > 0; found {s.tolist()}")
+        return c, s, period, "user hints"
+    got = _centres_of(field)
+    if got is not None and period is None:
+        return got[0], got[1], period, "centres and sizes of the field"
+    if hasattr(field, "hint"):
+        c, s = field.hint()
+        return np.asarray(c, dtype=np.float64).reshape(1, 4), np.array([float(s)]), period, "field.hint()"
+    return np.zeros((1, 4)), np.ones(1), period, "defaults (centre 0, scale 1)"
+
+
+def _describe(field) -> str:
+    if hasattr(field, "constraint_residual") and hasattr(field, "group"):
+        kind = "instanton" if field.charge > 0 else "anti-instanton"
+        return f"ADHM {field.group} data, k = {field.k} ({kind}, {field.gauge} gauge)"
+    if isinstance(field, _fields.CallableField):
+        name = getattr(field.fn, "__name__", type(field.fn).__name__)
+        return f"callable potential {name}"
+    return type(field).__name__
+
+
+# -- evaluation with clear failures ------------------------------------------------------------------
+
+
+def _evaluator(field, quantity: str, method: str, label: str) -> Callable[[np.ndarray], np.ndarray]:
+    def run(points: np.ndarray) -> np.ndarray:
+        try:
+            out = _fields.evaluate(field, points, quantity, method=method, chunk_size=_CHUNK)
+        except (ValueError, TypeError, RuntimeError, ArithmeticError, AttributeError, IndexError, KeyError) as err:
+            raise FieldEvaluationError(
+                f"evaluating the {label} of {_describe(field)} failed: {type(err).__name__}: {err}"
+            ) from err
+        return np.asarray(out, dtype=np.float64)
+
+    return run
+
+
+# -- progress ------------------------------------------------------------------------------------------
+
+
+def _progress_sink(progress):
+    """None: a line on stderr when it is a terminal; True/False: force; a callable gets a dict per round."""
+    if callable(progress):
+        return progress
+    on = sys.stderr.isatty() if progress is None else bool(progress)
+    if not on:
+        return None
+
+    def show(info: dict) -> None:
+        end = "\n" if info.get("done") else ""
+        sys.stderr.write(
+            f"\r[instantonkit] {info['quantity']}: round {info['round']}, {info['evaluations']:,} points, "
+            f"{info['value']:.12g} +- {info['error']:.1e}   {end}"
+        )
+        sys.stderr.flush()
+
+    return show
+
+
+# -- decay at infinity -----------------------------------------------------------------------------
+
+
+def _probe_points(centres: np.ndarray, scales: np.ndarray, period) -> tuple[np.ndarray, np.ndarray, int]:
+    """Points along rays at radii R_j = 16 L 2^j (j = 0..3) about the mean centre; (points, radii, dim)."""
+    c0 = centres.mean(axis=0)
+    big = float(np.max(scales) + np.max(np.linalg.norm(centres - c0, axis=1)))
+    radii = 16.0 * big * 2.0 ** np.arange(4)
+    rng = np.random.default_rng(12345)
+    dim = 3 if period is not None else 4
+    dirs = rng.normal(size=(8, dim))
+    dirs /= np.linalg.norm(dirs, axis=1, keepdims=True)
+    if dim == 3:
+        dirs = np.concatenate([dirs, np.zeros((8, 1))], axis=1)
+    pts = c0[None, None, :] + radii[:, None, None] * dirs[None, :, :]
+    return pts.reshape(-1, 4), radii, dim
+
+
+def _decay_exponent(values: np.ndarray, radii: np.ndarray) -> float | None:
+    """p in |f| ~ r^-p from the largest |f| over rays at the two largest radii; None if f vanishes there."""
+    v = np.max(np.abs(values.reshape(radii.shape[0], -1)), axis=1)
+    if v[-1] <= 1e-290 or v[-2] <= 1e-290:
+        return None
+    p = [-math.log(v[j + 1] / v[j]) / math.log(radii[j + 1] / radii[j]) for j in range(len(radii) - 1) if v[j] > 0]
+    return float(min(p[-2:])) if p else None
+
+
+# -- the integrator ------------------------------------------------------------------------------------
+
+
+@dataclasses.dataclass
+class _Piece:
+    index: int
+    level: int
+    value: float = 0.0
+    error: float = math.inf
+    rule: Any = None
+    values: Any = None
+    last_diff: float = math.nan
+
+
+def _piece_error(diff: float, previous: float, magnitude: float) -> tuple[float, float]:
+    """Error estimate of the finer of two levels, and |diff| to remember.
+
+    |diff| bounds the error of the coarser level; for the finer one it is safe when the levels
+    converge fast (ratio q = |diff| / |previous diff| small).  When they converge slowly the geometric
+    tail |diff| q / (1 - q) is larger, so the estimate is |diff| max(1, 2 q / (1 - q)), q <= 0.9,
+    plus a rounding floor 64 eps sum |w f|.
+    """
+    d = abs(diff)
+    factor = 1.0
+    if np.isfinite(previous) and previous > 0:
+        q = min(d / previous, 0.9)
+        factor = max(1.0, 2.0 * q / (1.0 - q))
+    return d * factor + 64 * _EPS * magnitude, d
+
+
+def _piece_rule(i: int, level: int, centres, scales, period):
+    if period is None:
+        nr, na = _level_r4(level)
+        return _quad.rule_r4_piece(i, centres, scales, nr, na)
+    nr, na, nt = _level_periodic(level)
+    return _quad.rule_r3_circle_piece(i, centres, scales, period, nr, na, nt)
+
+
+def _integrate(
+    density: Callable[[np.ndarray], np.ndarray],
+    quantity: str,
+    centres: np.ndarray,
+    scales: np.ndarray,
+    period,
+    *,
+    rtol: float,
+    atol: float,
+    max_points: int,
+    progress,
+):
+    """Refine pieces until the summed error meets the tolerance; returns (result, pieces)."""
+    for name, v in (("rtol", rtol), ("atol", atol)):
+        if not (np.isfinite(v) and v >= 0):
+            raise ValueError(f"{name} must be finite and >= 0; found {v!r}")
+    if rtol == 0 and atol == 0:
+        raise ValueError("rtol and atol cannot both be 0")
+    if not isinstance(max_points, (int, np.integer)) or max_points < 1:
+        raise ValueError(f"max_points must be a positive integer; found {max_points!r}")
+    sink = _progress_sink(progress)
+    k = centres.shape[0]
+    pieces = [_Piece(i, 0) for i in range(k)]
+    probe, radii, dim = _probe_points(centres, scales, period)
+
+    # round 0: levels 0 and 1 of every piece plus the probe points, in one call
+    first = [_piece_rule(p.index, 0, centres, scales, period) for p in pieces]
+    second = [_piece_rule(p.index, 1, centres, scales, period) for p in pieces]
+    sizes = [r.size for r in first + second]
+    total0 = sum(sizes) + probe.shape[0]
+    if total0 > max_points:
+        raise ValueError(f"max_points = {max_points:,} is below the first round of this rule ({total0:,} points)")
+    vals = density(np.concatenate([r.points for r in first + second] + [probe]))
+    p_exp = _decay_exponent(vals[-probe.shape[0] :], radii)
+    if p_exp is not None and p_exp < dim + 0.75:
+        verdict = "diverges" if p_exp <= dim + 0.05 else "converges too slowly to estimate"
+        raise DivergentIntegralError(
+            f"the {quantity} falls like |x|^-{p_exp:.2f} along rays at radii {radii[0]:.3g}..{radii[-1]:.3g} "
+            f"about {np.round(centres.mean(0), 6).tolist()}; its integral over "
+            f"{'R^3 x S^1' if period is not None else 'R^4'} {verdict} (it needs a fall faster than "
+            f"|x|^-{dim + 1})"
+        )
+    offs = np.cumsum([0] + sizes)
+    evaluations = int(total0)
+    for j, p in enumerate(pieces):
+        v0 = first[j].integrate(vals[offs[j] : offs[j + 1]])
+        jj = j + k
+        v1 = second[j].integrate(vals[offs[jj] : offs[jj + 1]])
+        p.level, p.value, p.rule, p.values = 1, v1, second[j], vals[offs[jj] : offs[jj + 1]]
+        p.error, p.last_diff = _piece_error(v1 - v0, math.nan, second[j].magnitude(p.values))
+
+    rnd = 0
+    message = ""
+    while True:
+        value = math.fsum(p.value for p in pieces)
+        error = math.fsum(p.error for p in pieces)
+        tol = max(atol, rtol * abs(value))
+        if sink is not None:
+            sink(dict(quantity=quantity, round=rnd, evaluations=evaluations, value=value, error=error, done=False))
+        if error <= tol:
+            converged = True
+            break
+        # refine the pieces carrying the error, largest first, until the rest sums to <= tol / 2
+        order = sorted(pieces, key=lambda p: -p.error)
+        chosen, rest = [], error
+        for p in order:
+            if rest <= 0.5 * tol:
+                break
+            chosen.append(p)
+            rest -= p.error
+        chosen = [p for p in chosen if p.level < _MAX_LEVEL]
+        new_rules = [_piece_rule(p.index, p.level + 1, centres, scales, period) for p in chosen]
+        need = sum(r.size for r in new_rules)
+        if not chosen or evaluations + need > max_points:
+            converged = False
+            message = (
+                f"budget spent: the next round needs {need:,} more points, beyond max_points = {max_points:,} "
+                f"({evaluations:,} used); estimated error {error:.1e} > tolerance {tol:.1e}"
+                if chosen
+                else f"finest level reached; estimated error {error:.1e} > tolerance {tol:.1e}"
+            )
+            break
+        vals = density(np.concatenate([r.points for r in new_rules]))
+        evaluations += need
+        start = 0
+        for p, r in zip(chosen, new_rules):
+            v = vals[start : start + r.size]
+            start += r.size
+            new = r.integrate(v)
+            p.error, p.last_diff = _piece_error(new - p.value, p.last_diff, r.magnitude(v))
+            p.level, p.value, p.rule, p.values = p.level + 1, new, r, v
+        rnd += 1
+    if sink is not None:
+        sink(dict(quantity=quantity, round=rnd, evaluations=evaluations, value=value, error=error, done=True))
+    desc = "; ".join(p.rule.description for p in pieces) if k <= 3 else (
+        f"{k} pieces, levels {[p.level for p in pieces]}; first: {pieces[0].rule.description}"
+    )
+    res = IntegralResult(quantity, float(value), float(error), evaluations, desc, converged, message)
+    return res, pieces
+
+
+def integrate_density(
+    field,
+    quantity: str = "action_density",
+    *,
+    rtol: float = 1e-10,
+    atol: float = 1e-10,
+    center=None,
+    scale=None,
+    period=None,
+    max_points: int = DEFAULT_MAX_POINTS,
+    method: str = "auto",
+    progress=None,
+) -> IntegralResult:
+    """Integral of a density of ``field`` over R^4 (or R^3 x one period of x4) with an error estimate.
+
+    quantity: 'action_density' or 'charge_density' (of :mod:`instantonkit.fields`); method: the engine's
+    'auto' | 'closed' | 'autodiff'.  Centres and scales come from ``center=``/``scale=`` ((4,) or (k, 4);
+    number or (k,)), else from the field (ADHM centres and sizes, 't Hooft centres and sizes,
+    ``hint()``), else (0, 1).  ``period=`` (or a ``period`` attribute of the field) integrates x4 over
+    one period.  Refines until ``error <= max(atol, rtol |value|)`` or ``max_points`` evaluations are
+    spent (then ``converged`` is False and ``message`` says so).
+    Raises DivergentIntegralError for a density that falls too slowly and FieldEvaluationError when
+    the field cannot be evaluated.
+    """
+    if quantity not in ("action_density", "charge_density"):
+        raise ValueError(f"quantity must be 'action_density' or 'charge_density'; found {quantity!r}")
+    field = _fields.as_field(field)
+    centres, scales, per, _ = _layout(field, center, scale, period)
+    label = quantity.replace("_", " ")
+    density = _evaluator(field, quantity, method, label)
+    name = "action" if quantity == "action_density" else "charge"
+    res, _ = _integrate(density, name, centres, scales, per, rtol=rtol, atol=atol, max_points=max_points, progress=progress)
+    return res
+
+
+def total_action(field, *, rtol=1e-10, atol=1e-10, center=None, scale=None, period=None,
+                 max_points=DEFAULT_MAX_POINTS, method="auto", progress=None) -> IntegralResult:
+    """S = int s d^4x (per period for periodic fields) with error estimate; 8 pi^2 |Q| for (anti-)instantons.
+
+    Keywords as in :func:`integrate_density`.
+    """
+    return integrate_density(field, "action_density", rtol=rtol, atol=atol, center=center, scale=scale,
+                             period=period, max_points=max_points, method=method, progress=progress)
+
+
+def total_charge(field, *, rtol=1e-10, atol=1e-10, center=None, scale=None, period=None,
+                 max_points=DEFAULT_MAX_POINTS, method="auto", progress=None) -> IntegralResult:
+    """Q = int q d^4x (per period for periodic fields) with error estimate; +k for k instantons.
+
+    Keywords as in :func:`integrate_density`; ``method='closed'`` computes q from the closed-form F
+    (eps tr F F) even where the field has a closed-form q.
+    """
+    return integrate_density(field, "charge_density", rtol=rtol, atol=atol, center=center, scale=scale,
+                             period=period, max_points=max_points, method=method, progress=progress)
+
+
+# -- Osborn's density --------------------------------------------------------------------------------
+
+
+def _gram_coefficients(data):
+    """G(x) = G0 + sum_mu x_mu G_mu + |x|^2 1 for G = Re(Delta^dag Delta) of ADHM data: (G0 (k,k), Gmu (4,k,k))."""
+    from . import quaternion as qt  # local: keeps the import graph flat
+
+    def gram(x):
+        bp = data._b_minus_p(jnp.asarray(x, dtype=jnp.float64))
+        lam = jnp.asarray(data.lam)
+        m = qt.qmat_mul(qt.qmat_dagger(lam), lam) + qt.qmat_mul(qt.qmat_dagger(bp), bp)
+        return m[..., 0]
+
+    g0 = gram(jnp.zeros(4))
+    e = jnp.eye(4)
+    gmu = jnp.stack([(gram(e[m]) - gram(-e[m])) / 2.0 for m in range(4)])
+    return g0, gmu
+
+
+def osborn_density(data, x):
+    """Osborn's action density s = -1/2 box box log det G, G = Delta^dag Delta, at one point (4,) -> ().
+
+    For ADHM data G(x) = G0 + x_mu G_mu + |x|^2 1 is a real symmetric k x k matrix with
+    d_mu d_nu G = 2 delta_mu nu 1.  With H = G^-1 and P_mu = H d_mu G (derived here by repeated use of
+    d H = -H (dG) H):
+
+        box box log det G = 48 sum_mu tr(H P_mu^2) - 96 tr H^2 - 2 sum_mu nu tr(P_mu P_nu P_mu P_nu)
+                            - 4 tr((sum_mu P_mu^2)^2),
+
+    which for k = 1 is -96 rho^4 / (|x - a|^2 + rho^2)^4, i.e. s = 48 rho^4 / (...)^4 (BPST).
+    Formula s = -1/2 box box log det: Osborn, Nucl. Phys. B 159 (1979) 497 (from memory).
+    """
+    g0, gmu = _gram_coefficients(data)
+    x = jnp.asarray(x, dtype=jnp.float64)
+    k = g0.shape[0]
+    g = g0 + jnp.einsum("m,mij->ij", x, gmu) + jnp.sum(x * x) * jnp.eye(k)
+    dg = gmu + 2.0 * x[:, None, None] * jnp.eye(k)[None]
+    h = jnp.linalg.inv(g)
+    p = jnp.einsum("ij,mjk->mik", h, dg)
+    pp = jnp.einsum("mij,mjk->mik", p, p)  # P_mu^2 per mu
+    sp = jnp.sum(pp, axis=0)
+    t1 = jnp.einsum("ij,mji->", h, pp)
+    t2 = jnp.trace(h @ h)
+    pq = jnp.einsum("mij,njk->mnik", p, p)  # P_mu P_nu
+    t3 = jnp.einsum("mnij,mnji->", pq, pq)
+    t4 = jnp.trace(sp @ sp)
+    bb = 48.0 * t1 - 96.0 * t2 - 2.0 * t3 - 4.0 * t4
+    return -0.5 * bb
+
+
+@jax.tree_util.register_pytree_node_class
+@dataclasses.dataclass(frozen=True)
+class _OsbornField:
+    """ADHM data seen through Osborn's density only (action_density is :func:`osborn_density`)."""
+
+    data: Any
+
+    def potential(self, x):
+        return self.data.potential(x)
+
+    def action_density(self, x):
+        return osborn_density(self.data, x)
+
+    def tree_flatten(self):
+        return (self.data,), None
+
+    @classmethod
+    def tree_unflatten(cls, aux, children):
+        return cls(children[0])
+
+
+# -- Chern-Simons flux through a large sphere -------------------------------------------------------
+
+
+def _cs_flux(field, centre: np.ndarray, radius: float, n_angular: int, method: str) -> float:
+    """oint_{|x - c| = R} K_mu n_mu dS with K_mu = -(1/8 pi^2) eps tr(1/2 A_nu F_rs - 1/3 A_nu A_r A_s)."""
+    dirs, w = _quad.sphere3_nodes(n_angular)
+    pts = centre[None, :] + radius * dirs
+    a = np.asarray(_fields.evaluate(field, pts, "potential", method=method, chunk_size=_CHUNK))
+    f = np.asarray(_fields.evaluate(field, pts, "field_strength", method=method, chunk_size=_CHUNK))
+    af = np.einsum("pnij,prsji->pnrs", a, f)  # tr(A_nu F_rs)
+    aa = np.einsum("prij,psjk->prsik", a, a)
+    aaa = np.einsum("pnij,prsji->pnrs", a, aa)  # tr(A_nu A_r A_s)
+    k = -(1.0 / (8.0 * PI**2)) * np.einsum("mnrs,pnrs->pm", LEVI_CIVITA, 0.5 * af - aaa / 3.0)
+    flux = np.real(np.einsum("pm,pm->p", k, dirs)) * radius**3
+    return float(np.sum(w * flux))
+
+
+def surface_winding(field, *, center=None, radius=None, n_angular: int = 10, method: str = "auto") -> tuple[float, float]:
+    """Chern-Simons flux through a large S^3 about ``center``: (value, error estimate).
+
+    The flux at radii R and 2R (R = 200 x the field's scale unless given); the value is the one at 2R
+    and the error their difference plus a rounding floor.  Equals Q for potentials smooth everywhere
+    (the regular-gauge BPST gives +1) and tends to the winding number of the gauge map at infinity.
+    """
+    field = _fields.as_field(field)
+    centres, scales, _, _ = _layout(field, None, None, None)
+    c = centres.mean(axis=0) if center is None else np.asarray(center, dtype=np.float64)
+    big = float(np.max(scales) + np.max(np.linalg.norm(centres - centres.mean(0), axis=1)))
+    r = 200.0 * big if radius is None else float(radius)
+    try:
+        w1 = _cs_flux(field, c, r, n_angular, method)
+        w2 = _cs_flux(field, c, 2.0 * r, n_angular, method)
+    except (ValueError, TypeError, RuntimeError, ArithmeticError) as err:
+        raise FieldEvaluationError(f"evaluating the potential of {_describe(field)} failed: {type(err).__name__}: {err}") from err
+    return w2, abs(w2 - w1) + 1e-12
+
+
+# -- verify ------------------------------------------------------------------------------------------
+
+
+@dataclasses.dataclass(frozen=True)
+class Route:
+    """An independent determination of the charge, reported beside the integral of q.
+
+    name: what was computed; value, error: its result (None when not available); decisive: whether
+    a disagreement fails the verification; agrees: |value - Q| within errors and tolerance (None when
+    not compared); note: caveats.
+    """
+
+    name: str
+    value: float | None
+    error: float | None
+    decisive: bool
+    agrees: bool | None
+    note: str = ""
+
+
+@dataclasses.dataclass(frozen=True)
+class Verification:
+    """The answer to "is this a charge-k (anti-)instanton?", with every number behind it.
+
+    Fields hold floats (or None where a step failed); ``passed`` with ``reasons`` when it is False.
+    ``str(report)`` is a table; :meth:`to_dict` gives a plain dict.
+    """
+
+    field: str
+    charge: IntegralResult | None
+    action: IntegralResult | None
+    nearest_integer: int | None
+    distance: float | None
+    distance_error: float | None
+    action_units: float | None
+    action_units_error: float | None
+    bogomolny_margin: float | None
+    bogomolny_margin_error: float | None
+    bound_holds: bool | None
+    saturated: bool | None
+    duality: str
+    residual_max: float | None
+    residual_mean: float | None
+    constraint_residual: float | None
+    routes: tuple
+    passed: bool
+    reasons: tuple
+    period: float | None = None
+    expected_charge: int | None = None
+
+    def to_dict(self) -> dict:
+        """Plain dict (numbers, strings, bools, lists and nested dicts) for scripts and JSON."""
+        d = dataclasses.asdict(self)
+        d["routes"] = [dataclasses.asdict(r) for r in self.routes]
+        d["reasons"] = list(self.reasons)
+        return d
+
+    def __str__(self) -> str:
+        def num(v, fmt=".12f"):
+            return "-" if v is None else format(v, fmt)
+
+        def err(v):
+            return "" if v is None else f"+- {v:.1e}"
+
+        per = f" per period {self.period:g}" if self.period is not None else ""
+        rows = [("topological charge Q" + per, num(self.charge.value if self.charge else None),
+                 err(self.charge.error if self.charge else None))]
+        if self.nearest_integer is not None:
+            rows.append(("nearest integer", str(self.nearest_integer), ""))
+            rows.append((f"Q - ({self.nearest_integer})", num(self.distance, ".3e"), err(self.distance_error)))
+        rows.append(("action / 8 pi^2" + per, num(self.action_units), err(self.action_units_error)))
+        rows.append(("Bogomolny margin S/8pi^2 - |Q|", num(self.bogomolny_margin, ".3e"), err(self.bogomolny_margin_error)))
+        rows.append((f"{self.duality} residual, max", num(self.residual_max, ".3e"), ""))
+        rows.append((f"{self.duality} residual, weighted mean", num(self.residual_mean, ".3e"), ""))
+        if self.constraint_residual is not None:
+            rows.append(("ADHM constraint residual", num(self.constraint_residual, ".3e"), ""))
+        for r in self.routes:
+            mark = {True: "agrees", False: "DISAGREES", None: "(not compared)"}[r.agrees]
+            rows.append((f"route: {r.name}", num(r.value), f"{err(r.error)} {mark}".strip()))
+        width = max(len(a) for a, _, _ in rows) + 2
+        lines = [f"instantonkit verification of {self.field}"]
+        lines.append("-" * (width + 40))
+        for a, b, c in rows:
+            lines.append(f"  {a:<{width}}{b:>20}  {c}")
+        lines.append("-" * (width + 40))
+        if self.charge is not None:
+            lines.append(f"  rule: {self.charge.rule}")
+            lines.append(f"  points: charge {self.charge.evaluations:,}" +
+                         (f", action {self.action.evaluations:,}" if self.action else ""))
+        verdict = "PASSED" if self.passed else "FAILED"
+        lines.append(f"  verdict: {verdict}")
+        for reason in self.reasons:
+            lines.append(f"    - {reason}")
+        return "\n".join(lines)
+
+
+def _residual_stats(field, pieces, sign: int, method: str, max_samples: int = 65536) -> tuple[float, float]:
+    """(max, s-weighted mean) of |F - sign *F| / |F| over (a subsample of) the final integration points."""
+    pts = np.concatenate([p.rule.points for p in pieces])
+    wts = np.concatenate([p.rule.weights * p.values for p in pieces])
+    step = max(1, int(math.ceil(pts.shape[0] / max_samples)))
+    pts, wts = pts[::step], wts[::step]
+    res = np.empty(pts.shape[0])
+    for start in range(0, pts.shape[0], _CHUNK):
+        f = np.asarray(_fields.field_strength(field, pts[start : start + _CHUNK], method=method, chunk_size=_CHUNK))
+        fd = np.einsum("mnrs,prsij->pmnij", LEVI_CIVITA, f) * 0.5
+        diff = f - sign * fd
+        num = np.sqrt(np.sum(np.abs(diff) ** 2, axis=(1, 2, 3, 4)))
+        den = np.sqrt(np.sum(np.abs(f) ** 2, axis=(1, 2, 3, 4)))
+        res[start : start + _CHUNK] = np.where(den > 0, num / np.where(den > 0, den, 1.0), 0.0)
+    mean = float(np.sum(np.abs(wts) * res) / np.sum(np.abs(wts))) if np.sum(np.abs(wts)) > 0 else 0.0
+    return float(np.max(res)), mean
+
+
+def _pole_count(field):
+    """Instanton number read off a scalar ansatz: (count, description) or None."""
+    name = type(field).__name__
+    if name == "ThooftField":
+        return int(np.asarray(field.centers).reshape(-1, 4).shape[0]), "'t Hooft poles (number of centres)"
+    if name == "JNRField":
+        return int(np.asarray(field.poles).reshape(-1, 4).shape[0]) - 1, "JNR poles minus one"
+    if name == "ParityImage" and hasattr(field, "field"):
+        got = _pole_count(field.field)
+        if got is not None:
+            return -got[0], got[1] + ", parity image"
+    return None
+
+
+def verify(
+    field,
+    *,
+    expected_charge: int | None = None,
+    rtol: float = 1e-10,
+    atol: float = 1e-10,
+    center=None,
+    scale=None,
+    period=None,
+    max_points: int = DEFAULT_MAX_POINTS,
+    charge_tol: float = 1e-6,
+    duality_tol: float = 1e-6,
+    constraint_tol: float = 1e-10,
+    routes: bool = True,
+    winding: bool | None = None,
+    progress=None,
+) -> Verification:
+    """Check that ``field`` is a charge-k (anti-)instanton and report every number behind the verdict.
+
+    Integrates q (from eps tr F F with the closed-form F where there is one, else autodiff) and s,
+    then reports the nearest integer n to Q and Q - n with its error, S/8pi^2, the Bogomolny margin
+    S/8pi^2 - |Q| (>= 0 always; 0 for (anti-)self-dual fields), the (anti-)self-duality residual
+    |F -+ *F|/|F| (sign from Q) as max and s-weighted mean over the integration points, the ADHM
+    constraint residual where the field has data, and the independent routes of the module docstring.
+    ``passed`` requires: both integrals converged to within ``charge_tol``, |Q - n| <= charge_tol,
+    n == expected_charge (if given) and n != 0, |margin| <= duality_tol and mean residual
+    <= duality_tol, constraint residual <= constraint_tol, decisive routes agreeing.
+    ``winding``: compute the sphere flux (None: for potentials declared 'regular' and for callables).
+    Divergent densities and failing fields give passed = False with the reason, not numbers.
+    """
+    field = _fields.as_field(field)
+    desc = _describe(field)
+    reasons: list[str] = []
+    kw = dict(rtol=rtol, atol=atol, max_points=max_points, progress=progress)
+    charge = action = None
+    pieces = None
+    try:
+        centres, scales, per, _ = _layout(field, center, scale, period)
+        q_method = "closed"
+        charge, _ = _integrate(_evaluator(field, "charge_density", q_method, "charge density"), "charge",
+                               centres, scales, per, **kw)
+        action, pieces = _integrate(_evaluator(field, "action_density", "auto", "action density"), "action",
+                                    centres, scales, per, **kw)
+    except (DivergentIntegralError, FieldEvaluationError) as err:
+        reasons.append(str(err))
+        per = period
+    nearest = distance = dist_err = units = units_err = margin = margin_err = None
+    bound = saturated = None
+    rmax = rmean = None
+    duality = "self-duality"
+    if charge is not None:
+        nearest = int(round(charge.value))
+        distance = charge.value - nearest
+        dist_err = charge.error
+        if not charge.converged and charge.error > charge_tol:
+            reasons.append(f"charge integral not converged: {charge.message}")
+        if abs(distance) > max(charge_tol, 0.0):
+            reasons.append(f"charge is not an integer: Q = {charge.value:.10g}, |Q - {nearest}| = {abs(distance):.2e} > {charge_tol:.0e}")
+        if expected_charge is not None and nearest != int(expected_charge):
+            reasons.append(f"charge {nearest} differs from the expected {int(expected_charge)}")
+        if nearest == 0:
+            reasons.append("charge 0: not an instanton")
+        if nearest < 0:
+            duality = "anti-self-duality"
+    if action is not None:
+        units = action.value / INSTANTON_ACTION
+        units_err = action.error / INSTANTON_ACTION
+        if not action.converged and units_err > charge_tol:
+            reasons.append(f"action integral not converged: {action.message}")
+    if charge is not None and action is not None:
+        margin = units - abs(charge.value)
+        margin_err = units_err + charge.error
+        bound = margin >= -max(margin_err, 1e-12)
+        saturated = abs(margin) <= max(duality_tol, margin_err)
+        if not bound:
+            reasons.append(f"Bogomolny bound violated: S/8pi^2 - |Q| = {margin:.3e} (error {margin_err:.1e})")
+        elif not saturated:
+            reasons.append(f"not {duality.replace('-duality', '-dual')}: S/8pi^2 - |Q| = {margin:.3e} > {duality_tol:.0e}")
+        sign = -1 if (nearest is not None and nearest < 0) else 1
+        try:
+            rmax, rmean = _residual_stats(field, pieces, sign, "auto")
+        except (ValueError, TypeError, RuntimeError) as err:
+            reasons.append(f"duality residual could not be evaluated: {type(err).__name__}: {err}")
+        if rmean is not None and rmean > duality_tol:
+            reasons.append(f"{duality} residual (weighted mean) {rmean:.3e} > {duality_tol:.0e}")
+    cres = None
+    if hasattr(field, "constraint_residual"):
+        cres = float(field.constraint_residual())
+        if cres > constraint_tol:
+            reasons.append(f"ADHM constraint residual {cres:.3e} > {constraint_tol:.0e}")
+    found: list[Route] = []
+    if routes and charge is not None:
+        found = _routes(field, charge, centres, scales, per, kw, charge_tol, winding)
+        for r in found:
+            if r.decisive and r.agrees is False:
+                reasons.append(f"independent route disagrees: {r.name} gives {r.value} ({r.note})".strip())
+    return Verification(
+        field=desc, charge=charge, action=action, nearest_integer=nearest, distance=distance,
+        distance_error=dist_err, action_units=units, action_units_error=units_err, bogomolny_margin=margin,
+        bogomolny_margin_error=margin_err, bound_holds=bound, saturated=saturated, duality=duality,
+        residual_max=rmax, residual_mean=rmean, constraint_residual=cres, routes=tuple(found),
+        passed=not reasons, reasons=tuple(reasons), period=per,
+        expected_charge=None if expected_charge is None else int(expected_charge),
+    )
+
+
+def _agree(value, error, charge, tol) -> bool | None:
+    if value is None or charge is None:
+        return None
+    return abs(value - charge.value) <= max(tol, 10.0 * (error + charge.error))
+
+
+def _routes(field, charge, centres, scales, per, kw, tol, winding) -> list[Route]:
+    out: list[Route] = []
+    if hasattr(field, "constraint_residual") and hasattr(field, "log_det") and centres is not None:
+        name = "Osborn density -1/2 box box log det(Delta^dag Delta)"
+        try:
+            res, _ = _integrate(_evaluator(_OsbornField(field), "action_density", "auto", "Osborn density"),
+                                "Osborn action", centres, scales, per, **kw)
+            sign = 1 if field.chirality > 0 else -1
+            val, err = sign * res.value / INSTANTON_ACTION, res.error / INSTANTON_ACTION
+            out.append(Route(name, val, err, True, _agree(val, err, charge, tol),
+                             "" if res.converged else res.message))
+        except (DivergentIntegralError, FieldEvaluationError) as e:
+            out.append(Route(name, None, None, True, False, str(e)))
+    poles = _pole_count(field)
+    if poles is not None:
+        val = float(poles[0])
+        out.append(Route(poles[1], val, 0.0, True, _agree(val, 0.0, charge, tol)))
+    gauge = getattr(field, "gauge", None)
+    is_adhm = hasattr(field, "constraint_residual")
+    smooth = gauge == "regular" and (not is_adhm or field.k == 1)
+    if winding is None:
+        winding = smooth or isinstance(field, _fields.CallableField)
+    if winding and per is None:
+        name = "Chern-Simons flux through a large S^3 (winding at infinity)"
+        note = "" if smooth else "equals Q only for a potential smooth everywhere"
+        try:
+            val, err = surface_winding(field)
+            out.append(Route(name, val, err, bool(smooth), _agree(val, err, charge, tol), note))
+        except FieldEvaluationError as e:
+            out.append(Route(name, None, None, bool(smooth), None, str(e)))
+    return out

@@ -1,0 +1,286 @@
+"""Lattice files: numpy ``.npz`` with the generation parameters, and ILDG (LIME records) for SU(3).
+
+ILDG layout written and read here (the open ILDG/LIME standard, from memory):
+
+* A LIME file is a sequence of records.  Each record has a 144-byte big-endian header: magic number
+  ``0x456789ab`` (uint32), format version ``1`` (uint16), a 16-bit flag word whose top bit is MB
+  (message begin) and next bit ME (message end), the data length in bytes (uint64) and a 128-byte
+  NUL-padded ASCII type string; the data follow, padded with zeros to a multiple of 8 bytes.
+* Records, in one message: ``ildg-format`` (XML: field ``su3gauge``, precision ``64``, ``lx ly lz lt``),
+  ``ildg-binary-data`` (big-endian IEEE float64; sites with t slowest, then z, y, x fastest; at each
+  site the directions x, y, z, t; each link a 3 x 3 complex matrix, row-major, (re, im) pairs) and
+  optionally ``ildg-data-lfn`` (the logical file name).  instantonkit adds its JSON metadata as a
+  separate message with one record ``instantonkit-metadata``; readers of the standard skip it.
+
+Our link arrays are ``(L1, L2, L3, L4, 4, N, N)`` with ``(n1, n2, n3, n4) = (x, y, z, t)``, so the
+binary payload is the array transposed to ``(t, z, y, x, mu, a, b)``.  Writes go to a temporary file
+in the target directory that replaces the target only when complete (``os.replace``).
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import re
+import struct
+import tempfile
+import zipfile
+
+import numpy as np
+
+__all__ = [
+    "save_lattice",
+    "load_lattice",
+    "read_lime_records",
+    "LIME_MAGIC",
+    "LIME_HEADER_BYTES",
+]
+
+LIME_MAGIC = 0x456789AB
+LIME_VERSION = 1
+LIME_HEADER_BYTES = 144
+_MB, _ME = 0x8000, 0x4000
+_TYPE_BYTES = 128
+_NPZ_VERSION = 1
+_META_TYPE = "instantonkit-metadata"
+_FORMATS = ("npz", "ildg")
+
+
+def _atomic_write(path, write):
+    """Call ``write(fileobj)`` on a temporary file beside ``path``, then rename it onto ``path``."""
+    path = os.fspath(path)
+    directory = os.path.dirname(os.path.abspath(path))
+    fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=".part", dir=directory)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            write(fh)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.remove(tmp)
+        raise
+
+
+def _check_links(links):
+    u = links if isinstance(links, np.memmap) else np.asarray(links)
+    if u.ndim != 7 or u.shape[4] != 4 or u.shape[5] != u.shape[6]:
+        raise ValueError(f"links must have shape (L1, L2, L3, L4, 4, N, N); found {u.shape}")
+    if not np.iscomplexobj(u):
+        raise TypeError(f"links must be complex; found dtype {u.dtype}")
+    return u
+
+
+# -- LIME -------------------------------------------------------------------------------------------
+
+
+def _lime_header(type_str: str, length: int, mb: bool, me: bool) -> bytes:
+    t = type_str.encode("ascii")
+    if len(t) >= _TYPE_BYTES:
+        raise ValueError(f"LIME type string must be shorter than {_TYPE_BYTES} bytes; found {len(t)}")
+    flags = (_MB if mb else 0) | (_ME if me else 0)
+    return struct.pack(">IHHQ", LIME_MAGIC, LIME_VERSION, flags, length) + t.ljust(_TYPE_BYTES, b"\0")
+
+
+def _pad(n: int) -> int:
+    return (-n) % 8
+
+
+def _write_record(fh, type_str, payload: bytes, mb: bool, me: bool):
+    fh.write(_lime_header(type_str, len(payload), mb, me))
+    fh.write(payload)
+    fh.write(b"\0" * _pad(len(payload)))
+
+
+def read_lime_records(path) -> list[dict]:
+    """Headers of all LIME records in a file: list of dicts type, offset (of the data), length, mb, me, version.
+
+    Raises ValueError for a bad magic number, a header cut short or data running past the end of the file.
+    """
+    size = os.path.getsize(path)
+    out = []
+    with open(path, "rb") as fh:
+        pos = 0
+        while pos < size:
+            head = fh.read(LIME_HEADER_BYTES)
+            if len(head) < LIME_HEADER_BYTES:
+                raise ValueError(
+                    f"truncated LIME file {os.fspath(path)!r}: record header at byte {pos} has "
+                    f"{len(head)} of {LIME_HEADER_BYTES} bytes"
+                )
+            magic, version, flags, length = struct.unpack(">IHHQ", head[:16])
+            if magic != LIME_MAGIC:
+                raise ValueError(f"not a LIME record at byte {pos}: magic {magic:#010x}, expected {LIME_MAGIC:#010x}")
+            type_str = head[16:].split(b"\0", 1)[0].decode("ascii", errors="replace")
+            data_at = pos + LIME_HEADER_BYTES
+            end = data_at + length + _pad(length)
+            if data_at + length > size:
+                raise ValueError(
+                    f"truncated LIME file: record {type_str!r} declares {length} data bytes at byte {data_at} "
+                    f"but the file has {size} bytes"
+                )
+            out.append(
+                {"type": type_str, "offset": data_at, "length": length, "mb": bool(flags & _MB), "me": bool(flags & _ME), "version": version}
+            )
+            pos = min(end, size)
+            fh.seek(pos)
+    return out
+
+
+def _ildg_xml(shape, precision: int = 64) -> str:
+    lx, ly, lz, lt = shape
+    return (
+        '<?xml version="1.0" encoding="UTF-8"?>\n'
+        '<ildgFormat xmlns="http://www.lqcd.org/ildg" '
+        'xmlns:xsi="http://www.w3.org/2001/XMLSchema-instance" '
+        'xsi:schemaLocation="http://www.lqcd.org/ildg http://www.lqcd.org/ildg/filefmt.xsd">\n'
+        "  <version>1.0</version>\n"
+        "  <field>su3gauge</field>\n"
+        f"  <precision>{precision}</precision>\n"
+        f"  <lx>{lx}</lx>\n  <ly>{ly}</ly>\n  <lz>{lz}</lz>\n  <lt>{lt}</lt>\n"
+        "</ildgFormat>\n"
+    )
+
+
+def _parse_ildg_xml(text: str) -> dict:
+    def tag(name):
+        m = re.search(rf"<{name}>\s*([^<]*?)\s*</{name}>", text)
+        if m is None:
+            raise ValueError(f"ildg-format record has no <{name}> element")
+        return m.group(1)
+
+    info = {"field": tag("field"), "precision": int(tag("precision"))}
+    for k in ("lx", "ly", "lz", "lt"):
+        info[k] = int(tag(k))
+    return info
+
+
+def _save_ildg(fh, u, metadata, lfn):
+    if u.shape[-1] != 3:
+        raise ValueError(
+            f"ILDG stores SU(3) links (3 x 3); found {u.shape[-1]} x {u.shape[-1]} (make the start with group='su3')"
+        )
+    shape = u.shape[:4]
+    nbytes = int(np.prod(shape)) * 4 * 9 * 16
+    records = [("ildg-format", _ildg_xml(shape).encode())]
+    _write_record(fh, records[0][0], records[0][1], mb=True, me=False)
+    fh.write(_lime_header("ildg-binary-data", nbytes, mb=False, me=lfn is None))
+    for t in range(shape[3]):  # t slowest; within a time slice (z, y, x, mu, a, b)
+        block = np.asarray(u[:, :, :, t]).transpose(2, 1, 0, 3, 4, 5)
+        fh.write(np.ascontiguousarray(block, dtype=">c16").tobytes())
+    fh.write(b"\0" * _pad(nbytes))
+    if lfn is not None:
+        _write_record(fh, "ildg-data-lfn", str(lfn).encode(), mb=False, me=True)
+    if metadata is not None:
+        _write_record(fh, _META_TYPE, json.dumps(metadata, sort_keys=True).encode(), mb=True, me=True)
+
+
+def _load_ildg(path, mmap: bool):
+    recs = read_lime_records(path)
+    types = [r["type"] for r in recs]
+    for need in ("ildg-format", "ildg-binary-data"):
+        if need not in types:
+            raise ValueError(f"ILDG file has no {need!r} record; found records {types}")
+    with open(path, "rb") as fh:
+
+        def payload(rec):
+            fh.seek(rec["offset"])
+            return fh.read(rec["length"])
+
+        fmt = recs[types.index("ildg-format")]
+        info = _parse_ildg_xml(payload(fmt).decode("utf-8", errors="replace"))
+        meta = {"format": "ildg", "ildg": info}
+        if "ildg-data-lfn" in types:
+            meta["lfn"] = payload(recs[types.index("ildg-data-lfn")]).decode("utf-8", errors="replace")
+        if _META_TYPE in types:
+            try:
+                meta["metadata"] = json.loads(payload(recs[types.index(_META_TYPE)]).decode())
+            except ValueError as err:
+                raise ValueError(f"corrupt {_META_TYPE} record: {err}") from err
+    if info["field"] != "su3gauge":
+        raise ValueError(f"ILDG field must be 'su3gauge'; found {info['field']!r}")
+    if info["precision"] not in (32, 64):
+        raise ValueError(f"ILDG precision must be 32 or 64; found {info['precision']}")
+    dtype = np.dtype(">c16" if info["precision"] == 64 else ">c8")
+    lx, ly, lz, lt = info["lx"], info["ly"], info["lz"], info["lt"]
+    binrec = recs[types.index("ildg-binary-data")]
+    expect = lx * ly * lz * lt * 4 * 9 * dtype.itemsize
+    if binrec["length"] != expect:
+        raise ValueError(
+            f"ildg-binary-data has {binrec['length']} bytes; expected {expect} for {lx}x{ly}x{lz}x{lt} "
+            f"at precision {info['precision']}"
+        )
+    raw = np.memmap(path, dtype=dtype, mode="r", offset=binrec["offset"], shape=(lt, lz, ly, lx, 4, 3, 3))
+    view = raw.transpose(3, 2, 1, 0, 4, 5, 6)
+    if mmap:
+        return view, meta
+    return np.ascontiguousarray(view, dtype=np.complex128), meta
+
+
+# -- npz ----------------------------------------------------------------------------------------------
+
+
+def _save_npz(fh, u, metadata):
+    meta = json.dumps(metadata if metadata is not None else {}, sort_keys=True)
+    np.savez(fh, links=np.asarray(u), metadata=np.array(meta), instantonkit_npz_version=np.array(_NPZ_VERSION))
+
+
+def _load_npz(path):
+    try:
+        with np.load(path, allow_pickle=False) as z:
+            if "links" not in z.files:
+                raise ValueError(f"npz lattice file has no 'links' array; found {z.files}")
+            links = z["links"]
+            meta = json.loads(str(z["metadata"])) if "metadata" in z.files else {}
+    except (zipfile.BadZipFile, EOFError, OSError, KeyError) as err:
+        raise ValueError(f"corrupt or truncated npz lattice file {os.fspath(path)!r}: {type(err).__name__}: {err}") from err
+    except ValueError as err:
+        if "npz lattice file" in str(err):
+            raise
+        raise ValueError(f"corrupt or truncated npz lattice file {os.fspath(path)!r}: {err}") from err
+    _check_links(links)
+    return links, {"format": "npz", "metadata": meta}
+
+
+# -- public ---------------------------------------------------------------------------------------------
+
+
+def save_lattice(path, links, format: str = "npz", metadata: dict | None = None, *, lfn: str | None = None) -> None:
+    """Write link variables (L1, L2, L3, L4, 4, N, N) to ``path`` atomically.
+
+    format 'npz': the array (bit-exact) and ``metadata`` (a JSON-serialisable dict, e.g.
+    ``LinkReport.as_metadata()``); 'ildg': SU(3) links as LIME records ildg-format,
+    ildg-binary-data (big-endian float64) and, if given, ildg-data-lfn ``lfn``; ``metadata`` then goes
+    into an extra instantonkit-metadata record.  np.memmap inputs are streamed one time slice at a time.
+    """
+    if format not in _FORMATS:
+        raise ValueError(f"format must be one of {_FORMATS}; found {format!r}")
+    u = _check_links(links)
+    if metadata is not None:
+        try:
+            json.dumps(metadata)
+        except TypeError as err:
+            raise TypeError(f"metadata must be JSON-serialisable: {err}") from err
+    if format == "npz":
+        _atomic_write(path, lambda fh: _save_npz(fh, u, metadata))
+    else:
+        _atomic_write(path, lambda fh: _save_ildg(fh, u, metadata, lfn))
+
+
+def load_lattice(path, *, mmap: bool = False):
+    """Read a lattice file written by :func:`save_lattice` (or any ILDG file); returns (links, info).
+
+    The format is recognised from the first bytes (zip: npz; LIME magic: ILDG).  info holds 'format'
+    and 'metadata' (npz; for ILDG also 'ildg' with the XML fields and 'lfn' when present).  With
+    ``mmap=True`` an ILDG file is returned as a read-only big-endian memory-mapped view (no copy).
+    Raises ValueError for truncated or corrupt files.
+    """
+    path = os.fspath(path)
+    with open(path, "rb") as fh:
+        head = fh.read(4)
+    if head[:2] == b"PK":
+        return _load_npz(path)
+    if len(head) == 4 and struct.unpack(">I", head)[0] == LIME_MAGIC:
+        return _load_ildg(path, mmap)
+    raise ValueError(f"{path!r} is neither an npz nor a LIME/ILDG lattice file (first bytes {head!r})")

@@ -1,0 +1,341 @@
+"""Quadrature rules for integrals over R^4 and over R^3 x [t0, t0 + beta), as point and weight arrays.
+
+A rule is a set of points ``(M, 4)`` (ordered ``(x1, x2, x3, x4)``, conventions module) and weights
+``(M,)`` with ``int f d^4x ~ sum_i w_i f(x_i)``.  The rules here are built for instanton densities:
+smooth, concentrated near a few centres, and falling like a power of ``|x|`` at infinity.
+
+* Radial direction: the algebraic map ``r = L u / (1 - u)``, ``u in (0, 1)``, with Gauss-Legendre
+  nodes in ``u``.  A density ``~ r^-p`` gives an integrand ``~ (1 - u)^(p - d - 1)`` near ``u = 1``
+  (``d`` the dimension), so the ``|x|^-8`` tail of an instanton becomes the smooth factor
+  ``(1 - u)^3`` and Gauss-Legendre converges geometrically (the BPST radial integrand is a rational
+  function of ``u`` with poles at ``u = (1 +- i) / 2``; common practice for semi-infinite intervals).
+* Angles on S^3: ``n = (sin psi sin th cos ph, sin psi sin th sin ph, sin psi cos th, cos psi)`` with
+  measure ``sin^2 psi sin th dpsi dth dph`` (total ``2 pi^2``).  A product rule of Gauss-Chebyshev
+  (second kind) in ``cos psi``, Gauss-Legendre in ``cos th`` and the trapezoid rule in ``ph`` with
+  ``n``, ``n`` and ``2n`` nodes integrates every polynomial on S^3 of degree ``<= 2n - 1`` exactly
+  (the harmonics of degree ``l`` reduce, after the ``ph`` and ``th`` integrals, to a Gegenbauer
+  polynomial ``C_l^1(cos psi)`` against ``sqrt(1 - t^2) dt``; derived here, the S^2 analogue is
+  common practice).
+* Several centres ``a_i`` with scales ``rho_i``: a smooth partition of unity
+  ``w_i(x) = phi_i(x) / sum_j phi_j(x)``, ``phi_i = (rho_i / (|x - a_i|^2 + rho_i^2))^m`` (m = 4: the
+  shape of a BPST density, so a sum of separated lumps is split into its lumps), and each piece
+  ``w_i f`` integrated with the rule centred at ``a_i`` with radial scale ``rho_i``.  Since
+  ``sum_i w_i = 1`` exactly, this only changes efficiency, never the integral.
+* Periodic directions: ``x4`` over one period by the trapezoid rule (spectrally accurate for smooth
+  periodic integrands; common practice), times the radial rule in ``R^3`` and the S^2 product rule.
+  The partition of unity then uses the periodic distance
+  ``|x_vec - a_vec|^2 + (beta / pi)^2 sin^2(pi (x4 - a4) / beta)``.
+
+Nodes come from :func:`scipy.special.roots_legendre` and :func:`scipy.special.roots_chebyu`.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import functools
+
+import numpy as np
+from scipy.special import roots_chebyu, roots_legendre
+
+__all__ = [
+    "Rule",
+    "radial_nodes",
+    "sphere2_nodes",
+    "sphere3_nodes",
+    "partition_weights",
+    "rule_r4",
+    "rule_r4_piece",
+    "rule_r3_circle",
+    "rule_r3_circle_piece",
+    "DEFAULT_PARTITION_POWER",
+]
+
+#: Exponent m of the partition-of-unity weights (|x - a_i|^2 + rho_i^2)^-m.
+DEFAULT_PARTITION_POWER = 4
+
+
+
+@dataclasses.dataclass(frozen=True)
+class Rule:
+    """A quadrature rule: ``int f ~ sum_i weights[i] f(points[i])``.
+
+    points: (M, 4) float64 (x1, x2, x3, x4); weights: (M,) float64;
+    description: one line naming the construction and its node counts.
+    """
+
+    points: np.ndarray
+    weights: np.ndarray
+    description: str
+
+    def __post_init__(self):
+        pts = np.asarray(self.points, dtype=np.float64)
+        w = np.asarray(self.weights, dtype=np.float64)
+        if pts.ndim != 2 or pts.shape[1] != 4:
+            raise ValueError(f"rule points must have shape (M, 4); found {pts.shape}")
+        if w.shape != (pts.shape[0],):
+            raise ValueError(f"rule weights must have shape ({pts.shape[0]},); found {w.shape}")
+        object.__setattr__(self, "points", pts)
+        object.__setattr__(self, "weights", w)
+
+    @property
+    def size(self) -> int:
+        """Number of points M."""
+        return int(self.weights.shape[0])
+
+    def integrate(self, values) -> float:
+        """sum_i w_i values_i for values (M,) float64 (pairwise summation of numpy)."""
+        v = np.asarray(values, dtype=np.float64)
+        if v.shape != self.weights.shape:
+            raise ValueError(f"values must have shape {self.weights.shape}; found {v.shape}")
+        return float(np.sum(self.weights * v))
+
+    def magnitude(self, values) -> float:
+        """sum_i |w_i values_i|, the scale of the rounding error of :meth:`integrate`."""
+        v = np.asarray(values, dtype=np.float64)
+        return float(np.sum(np.abs(self.weights * v)))
+
+
+# -- one-dimensional and spherical pieces ------------------------------------------------------------
+
+
+def _check_count(name: str, n) -> int:
+    if not isinstance(n, (int, np.integer)) or n < 1:
+        raise ValueError(f"{name} must be a positive integer; found {n!r}")
+    return int(n)
+
+
+def _check_scale(name: str, value) -> float:
+    v = float(value)
+    if not np.isfinite(v) or v <= 0:
+        raise ValueError(f"{name} must be finite and > 0; found {value!r}")
+    return v
+
+
+@functools.lru_cache(maxsize=64)
+def _legendre01(n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Gauss-Legendre nodes and weights on (0, 1)."""
+    t, w = roots_legendre(n)
+    return 0.5 * (t + 1.0), 0.5 * w
+
+
+def radial_nodes(n: int, scale: float, dim: int) -> tuple[np.ndarray, np.ndarray]:
+    """Nodes r (n,) and weights (n,) for int_0^inf g(r) r^(dim-1) dr, r = L u / (1 - u).
+
+    The weights include the Jacobian L / (1 - u)^2 and the factor r^(dim - 1).
+    """
+    n = _check_count("n", n)
+    L = _check_scale("scale", scale)
+    u, wu = _legendre01(n)
+    r = L * u / (1.0 - u)
+    w = wu * L / (1.0 - u) ** 2 * r ** (dim - 1)
+    return r, w
+
+
+@functools.lru_cache(maxsize=64)
+def _sphere2(n: int) -> tuple[np.ndarray, np.ndarray]:
+    ct, wt = roots_legendre(n)
+    nph = 2 * n
+    ph = 2.0 * np.pi * (np.arange(nph) + 0.5) / nph
+    st = np.sqrt(1.0 - ct**2)
+    dirs = np.stack(
+        [
+            st[:, None] * np.cos(ph)[None, :],
+            st[:, None] * np.sin(ph)[None, :],
+            np.broadcast_to(ct[:, None], (n, nph)),
+        ],
+        axis=-1,
+    ).reshape(-1, 3)
+    w = (wt[:, None] * np.full(nph, 2.0 * np.pi / nph)[None, :]).reshape(-1)
+    return dirs, w
+
+
+def sphere2_nodes(n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Product rule on the unit S^2: directions (2n^2, 3) and weights (2n^2,) summing to 4 pi.
+
+    Gauss-Legendre in cos(theta) (n nodes) times the trapezoid rule in phi (2n nodes); exact for
+    polynomials of degree <= 2n - 1 (common practice).
+    """
+    d, w = _sphere2(_check_count("n", n))
+    return d.copy(), w.copy()
+
+
+@functools.lru_cache(maxsize=64)
+def _sphere3(n: int) -> tuple[np.ndarray, np.ndarray]:
+    cp, wp = roots_chebyu(n)  # int_-1^1 sqrt(1 - t^2) g(t) dt
+    sp = np.sqrt(1.0 - cp**2)
+    d2, w2 = _sphere2(n)
+    dirs = np.concatenate(
+        [
+            (sp[:, None, None] * d2[None, :, :]),
+            np.broadcast_to(cp[:, None, None], (n, d2.shape[0], 1)),
+        ],
+        axis=-1,
+    ).reshape(-1, 4)
+    w = (wp[:, None] * w2[None, :]).reshape(-1)
+    return dirs, w
+
+
+def sphere3_nodes(n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Product rule on the unit S^3 in R^4: directions (2n^3, 4) and weights (2n^3,) summing to 2 pi^2.
+
+    Gauss-Chebyshev (second kind) in cos(psi), Gauss-Legendre in cos(theta), trapezoid in phi with
+    n, n, 2n nodes; exact for polynomials on S^3 of degree <= 2n - 1 (see the module docstring).
+    """
+    d, w = _sphere3(_check_count("n", n))
+    return d.copy(), w.copy()
+
+
+# -- partition of unity -------------------------------------------------------------------------------
+
+
+def _distance2(points: np.ndarray, centers: np.ndarray, period: float | None) -> np.ndarray:
+    """Squared (periodic in x4 when ``period``) distances: points (M, 4), centers (k, 4) -> (M, k)."""
+    diff = points[:, None, :] - centers[None, :, :]
+    if period is None:
+        return np.sum(diff**2, axis=-1)
+    spatial = np.sum(diff[..., :3] ** 2, axis=-1)
+    chord = (period / np.pi) * np.sin(np.pi * diff[..., 3] / period)
+    return spatial + chord**2
+
+
+def partition_weights(points, centers, scales, *, power: int | None = None, period=None) -> np.ndarray:
+    """Smooth partition of unity w_i(x) = phi_i / sum_j phi_j, phi_i = (rho_i / (d(x, a_i)^2 + rho_i^2))^power.
+
+    points: (M, 4); centers: (k, 4); scales: (k,) rho_i > 0; returns (M, k) float64, rows summing to 1.
+    ``period`` makes the distance periodic in x4 (see the module docstring).  Computed in log space so
+    that no phi underflows.
+    """
+    pts = np.asarray(points, dtype=np.float64).reshape(-1, 4)
+    c = np.asarray(centers, dtype=np.float64).reshape(-1, 4)
+    power = DEFAULT_PARTITION_POWER if power is None else int(power)
+    rho = np.asarray(scales, dtype=np.float64).reshape(-1)
+    if rho.shape[0] != c.shape[0]:
+        raise ValueError(f"scales must have shape ({c.shape[0]},) to match centers; found {rho.shape}")
+    logphi = power * np.log(rho[None, :]) - power * np.log(_distance2(pts, c, period) + rho[None, :] ** 2)
+    logphi -= np.max(logphi, axis=1, keepdims=True)
+    phi = np.exp(logphi)
+    return phi / np.sum(phi, axis=1, keepdims=True)
+
+
+def _as_centers(centers, scales) -> tuple[np.ndarray, np.ndarray]:
+    c = np.asarray(centers, dtype=np.float64)
+    if c.shape == (4,):
+        c = c[None]
+    if c.ndim != 2 or c.shape[1] != 4 or c.shape[0] < 1:
+        raise ValueError(f"centers must have shape (4,) or (k, 4); found {np.shape(centers)}")
+    if not np.all(np.isfinite(c)):
+        raise ValueError("centers must be finite")
+    s = np.asarray(scales, dtype=np.float64)
+    if s.ndim == 0:
+        s = np.full(c.shape[0], float(s))
+    if s.shape != (c.shape[0],):
+        raise ValueError(f"scales must be a number or have shape ({c.shape[0]},); found {s.shape}")
+    if not np.all(np.isfinite(s)) or np.any(s <= 0):
+        raise ValueError(f"scales must be finite and > 0; found {s.tolist()}")
+    return c, s
+
+
+# -- full rules ------------------------------------------------------------------------------------
+
+
+def rule_r4_piece(i: int, centers, scales, n_radial: int, n_angular: int, *, power: int | None = None) -> Rule:
+    """Piece i of :func:`rule_r4`: the rule centred at a_i with scale L_i, weights times w_i(x).
+
+    Size n_radial * 2 n_angular^3.
+    """
+    power = DEFAULT_PARTITION_POWER if power is None else int(power)
+    c, s = _as_centers(centers, scales)
+    if not 0 <= i < c.shape[0]:
+        raise ValueError(f"piece index must be in [0, {c.shape[0]}); found {i}")
+    n_radial = _check_count("n_radial", n_radial)
+    dirs, wd = _sphere3(_check_count("n_angular", n_angular))
+    r, wr = radial_nodes(n_radial, s[i], 4)
+    pts = (c[i][None, None, :] + r[:, None, None] * dirs[None, :, :]).reshape(-1, 4)
+    wts = (wr[:, None] * wd[None, :]).reshape(-1)
+    if c.shape[0] > 1:
+        wts = wts * partition_weights(pts, c, s, power=power)[:, i]
+    desc = (
+        f"R^4 piece {i + 1}/{c.shape[0]}: {n_radial} Gauss-Legendre radial nodes (r = L u/(1-u), L = {s[i]:.4g}) x "
+        f"{2 * n_angular**3} S^3 product nodes (degree {2 * n_angular - 1})"
+        + (f", partition of unity power {power}" if c.shape[0] > 1 else "")
+    )
+    return Rule(pts, wts, desc)
+
+
+def rule_r4(centers, scales, n_radial: int, n_angular: int, *, power: int | None = None) -> Rule:
+    """Rule for int over R^4: hyperspherical rules about each centre, glued by the partition of unity.
+
+    centers: (4,) or (k, 4); scales: number or (k,) (radial scale L_i of each piece);
+    n_radial: Gauss-Legendre nodes in u; n_angular: the S^3 parameter n (2n^3 directions).
+    Size k * n_radial * 2 n_angular^3.
+    """
+    power = DEFAULT_PARTITION_POWER if power is None else int(power)
+    c, s = _as_centers(centers, scales)
+    pieces = [rule_r4_piece(i, c, s, n_radial, n_angular, power=power) for i in range(c.shape[0])]
+    desc = (
+        f"R^4: {c.shape[0]} centre(s) x [{n_radial} Gauss-Legendre radial nodes (r = L u/(1-u)) x "
+        f"{2 * n_angular**3} S^3 product nodes (degree {2 * n_angular - 1})]"
+        + (f", partition of unity power {power}" if c.shape[0] > 1 else "")
+    )
+    return Rule(np.concatenate([p.points for p in pieces]), np.concatenate([p.weights for p in pieces]), desc)
+
+
+def rule_r3_circle_piece(
+    i: int, centers, scales, period: float, n_radial: int, n_angular: int, n_time: int,
+    *, power: int | None = None,
+) -> Rule:
+    """Piece i of :func:`rule_r3_circle`: centred at a_i (space) with a time node at a4_i.
+
+    Size n_radial * 2 n_angular^2 * n_time.
+    """
+    power = DEFAULT_PARTITION_POWER if power is None else int(power)
+    c, s = _as_centers(centers, scales)
+    if not 0 <= i < c.shape[0]:
+        raise ValueError(f"piece index must be in [0, {c.shape[0]}); found {i}")
+    beta = _check_scale("period", period)
+    n_radial = _check_count("n_radial", n_radial)
+    n_time = _check_count("n_time", n_time)
+    dirs, wd = _sphere2(_check_count("n_angular", n_angular))
+    a = c[i]
+    r, wr = radial_nodes(n_radial, s[i], 3)
+    t = a[3] - 0.5 * beta + beta * np.arange(n_time) / n_time
+    if n_time % 2:
+        t = t + 0.5 * beta / n_time  # keep a node at a4
+    xs = a[None, None, :3] + r[:, None, None] * dirs[None, :, :]  # (nr, nd, 3)
+    nd = dirs.shape[0]
+    pts = np.concatenate(
+        [
+            np.broadcast_to(xs[:, :, None, :], (n_radial, nd, n_time, 3)),
+            np.broadcast_to(t[None, None, :, None], (n_radial, nd, n_time, 1)),
+        ],
+        axis=-1,
+    ).reshape(-1, 4)
+    wts = (wr[:, None, None] * wd[None, :, None] * np.full(n_time, beta / n_time)[None, None, :]).reshape(-1)
+    if c.shape[0] > 1:
+        wts = wts * partition_weights(pts, c, s, power=power, period=beta)[:, i]
+    desc = (
+        f"R^3 x S^1 (period {beta:g}) piece {i + 1}/{c.shape[0]}: {n_radial} Gauss-Legendre radial nodes "
+        f"(r = L u/(1-u), L = {s[i]:.4g}) x {2 * n_angular**2} S^2 product nodes x {n_time} trapezoid nodes in x4"
+        + (f", periodic partition of unity power {power}" if c.shape[0] > 1 else "")
+    )
+    return Rule(pts, wts, desc)
+
+
+def rule_r3_circle(
+    centers, scales, period: float, n_radial: int, n_angular: int, n_time: int, *, power: int | None = None
+) -> Rule:
+    """Rule for int over R^3 x one period of x4 (each piece covers [a4_i - beta/2, a4_i + beta/2)).
+
+    centers: (4,) or (k, 4); scales: number or (k,); period: beta > 0; n_radial: radial nodes in R^3;
+    n_angular: S^2 parameter n (2n^2 directions); n_time: trapezoid nodes in x4.
+    Size k * n_radial * 2 n_angular^2 * n_time.
+    """
+    power = DEFAULT_PARTITION_POWER if power is None else int(power)
+    c, s = _as_centers(centers, scales)
+    pieces = [rule_r3_circle_piece(i, c, s, period, n_radial, n_angular, n_time, power=power) for i in range(c.shape[0])]
+    desc = (
+        f"R^3 x S^1 (period {float(period):g}): {c.shape[0]} centre(s) x [{n_radial} Gauss-Legendre radial nodes "
+        f"(r = L u/(1-u)) x {2 * n_angular**2} S^2 product nodes x {n_time} trapezoid nodes in x4]"
+        + (f", periodic partition of unity power {power}" if c.shape[0] > 1 else "")
+    )
+    return Rule(np.concatenate([p.points for p in pieces]), np.concatenate([p.weights for p in pieces]), desc)

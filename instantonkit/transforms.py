@@ -1,0 +1,476 @@
+"""Gauge and space-time symmetry tools: fields wrapping fields (gauge, translation, rotation, dilation, parity).
+
+Each wrapper is a frozen dataclass registered as a jax pytree whose children are the wrapped field and
+the numeric parameters, so one compiled kernel serves all wrappers of the same structure.  Each
+implements the field protocol of :mod:`instantonkit.fields`: ``potential`` transforms the wrapped
+potential, and ``field_strength``, ``action_density``, ``charge_density`` transform the wrapped closed
+forms (or, when the wrapped field has none, its autodiff field strength).  ``method="autodiff"`` in the
+engine differentiates the transformed potential instead, which is how the tests check the covariance.
+
+Maps (conventions of :mod:`instantonkit.conventions`; ``R`` orthogonal, ``g`` unitary):
+
+* gauge:     A'_mu = g A_mu g^-1 + g d_mu g^-1 = g A_mu g^dag - (d_mu g) g^dag,  F' = g F g^dag,  s' = s, q' = q;
+* translate: A'(x) = A(x - shift);
+* rotate:    p(R x) = l p(x) r-bar (unit quaternions l, r; an SO(4) rotation),
+             A'_mu(x) = R_mu nu A_nu(R^T x),  F'_mu nu(x) = R_mu a R_nu b F_ab(R^T x),  s'(x) = s(R^T x);
+* dilate:    A'(x) = A(x / c) / c,  F'(x) = F(x / c) / c^2,  s'(x) = s(x / c) / c^4;
+* parity:    A'_mu(x) = P_mu nu A_nu(P x), P = diag(-1, -1, -1, 1): s'(x) = s(Px), q'(x) = -q(Px)
+             (det P = -1 flips the sign of eps, so self-dual becomes anti-self-dual).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+import jax
+import jax.numpy as jnp
+import numpy as np
+
+from . import quaternion as qt
+from .conventions import ACTION_DENSITY_FACTOR, CHARGE_DENSITY_FACTOR, E_MU, LEVI_CIVITA
+from .fields import as_field, field_strength_from_potential
+
+__all__ = [
+    "GaugeTransformed",
+    "Translated",
+    "Rotated",
+    "Dilated",
+    "ParityImage",
+    "gauge_transform",
+    "translate",
+    "rotate",
+    "dilate",
+    "parity",
+    "rotation_matrix",
+    "PARITY",
+]
+
+#: The parity matrix P = diag(-1, -1, -1, 1) (space reflection); (4,).
+PARITY = np.array([-1.0, -1.0, -1.0, 1.0])
+
+#: A generic point used to probe a gauge function at construction (unlikely to be singular).
+_PROBE = np.array([0.3127, -0.4481, 0.2719, 0.5867])
+
+
+def _is_tracer(*values) -> bool:
+    return any(isinstance(v, jax.core.Tracer) for v in values)
+
+
+# -- per-point helpers for any field ----------------------------------------------------------------
+
+
+def _fs(field):
+    """The field's per-point F: its closed form if it has one, else jax.jacfwd of its potential."""
+    if hasattr(field, "field_strength"):
+        return field.field_strength
+    return field_strength_from_potential(field.potential)
+
+
+def _s(field, x):
+    """s(x) = -1/2 sum tr F F (conventions.ACTION_DENSITY_FACTOR), closed form when available."""
+    if hasattr(field, "action_density"):
+        return field.action_density(x)
+    f = _fs(field)(x)
+    return ACTION_DENSITY_FACTOR * jnp.real(jnp.einsum("mnij,mnji->", f, f))
+
+
+def _q(field, x):
+    """q(x) = -1/(32 pi^2) eps tr F F (conventions.CHARGE_DENSITY_FACTOR), closed form when available."""
+    if hasattr(field, "charge_density"):
+        return field.charge_density(x)
+    f = _fs(field)(x)
+    return CHARGE_DENSITY_FACTOR * jnp.real(jnp.einsum("mnrs,mnij,rsji->", LEVI_CIVITA, f, f))
+
+
+def _missing(name: str):
+    """Raise AttributeError (so ``hasattr`` is False) when the wrapped field lacks ``name``."""
+    raise AttributeError(f"the wrapped field has no {name!r}")
+
+
+def _real(name: str, value, shape: tuple) -> np.ndarray:
+    arr = np.asarray(value)
+    if arr.dtype == object or np.iscomplexobj(arr) or not np.issubdtype(arr.dtype, np.number):
+        raise TypeError(f"{name} must be a real array of shape {shape}; found dtype {arr.dtype}")
+    arr = arr.astype(np.float64)
+    if arr.shape != shape:
+        raise ValueError(f"{name} must have shape {shape}; found {arr.shape}")
+    if not np.all(np.isfinite(arr)):
+        raise ValueError(f"{name} must be finite; found {arr.tolist()}")
+    return arr
+
+
+class _Wrapper:
+    """Shared forwarding of ``hint``/``charge``/``period`` through the ``_map_*`` hooks of a subclass."""
+
+    field: object
+
+    def _map_hint(self, centre, scale):
+        return centre, scale
+
+    def _map_charge(self, charge):
+        return charge
+
+    def _map_period(self, period):
+        return period
+
+    @property
+    def hint(self):
+        if not hasattr(self.field, "hint"):
+            _missing("hint")
+
+        def hint():
+            centre, scale = self.field.hint()
+            return self._map_hint(np.asarray(centre, dtype=np.float64), float(scale))
+
+        return hint
+
+    @property
+    def charge(self):
+        if not hasattr(self.field, "charge"):
+            _missing("charge")
+        return self._map_charge(self.field.charge)
+
+    @property
+    def period(self):
+        if not hasattr(self.field, "period"):
+            _missing("period")
+        return self._map_period(self.field.period)
+
+
+# -- gauge transformation ---------------------------------------------------------------------------
+
+
+def _is_static(g) -> bool:
+    """True when g is an opaque callable (a pytree leaf): it then goes into the static aux data."""
+    return jax.tree_util.treedef_is_leaf(jax.tree_util.tree_structure(g))
+
+
+@jax.tree_util.register_pytree_node_class
+@dataclasses.dataclass(frozen=True)
+class GaugeTransformed(_Wrapper):
+    """The field ``field`` gauge transformed by ``g``: A' = g A g^-1 + g d g^-1, F' = g F g^-1.
+
+    g: callable x (4,) -> (N, N) unitary, written with jax.numpy.  A plain function is static pytree
+    data (one compile per function); a registered pytree callable (e.g. a frozen dataclass with a
+    ``__call__`` and array leaves) is a child, so one kernel serves all its parameter values.
+    d g is taken by jax.jacfwd.  Densities are gauge invariant and forwarded unchanged.
+    """
+
+    field: object
+    g: object
+
+    def __post_init__(self):
+        object.__setattr__(self, "field", as_field(self.field))
+        if not callable(self.g):
+            raise TypeError(f"g must be a callable x -> (N, N) unitary; found {type(self.g).__name__}")
+        leaves = jax.tree_util.tree_leaves(self.field) + (
+            [] if _is_static(self.g) else jax.tree_util.tree_leaves(self.g)
+        )
+        if _is_tracer(*leaves):
+            return
+        spec = jax.ShapeDtypeStruct((4,), jnp.float64)
+        try:
+            a_shape = jax.eval_shape(self.field.potential, spec).shape
+            g_shape = jax.eval_shape(self.g, spec).shape
+        except Exception as err:
+            raise TypeError(f"g or the field failed on a (4,) point: {type(err).__name__}: {err}") from err
+        n = a_shape[-1]
+        if tuple(g_shape) != (n, n):
+            raise ValueError(f"g(x) must have shape (N, N) = ({n}, {n}) to match the field; found {tuple(g_shape)}")
+        gm = np.asarray(self.g(jnp.asarray(_PROBE)))
+        if np.all(np.isfinite(gm)):
+            dev = float(np.max(np.abs(gm @ gm.conj().T - np.eye(n))))
+            if dev > 1e-10:
+                raise ValueError(f"g(x) must be unitary; max |g g^dag - 1| = {dev:.3e} at x = {_PROBE.tolist()}")
+
+    def tree_flatten(self):
+        if _is_static(self.g):
+            return (self.field, None), self.g
+        return (self.field, self.g), None
+
+    @classmethod
+    def tree_unflatten(cls, aux, children):
+        obj = object.__new__(cls)
+        object.__setattr__(obj, "field", children[0])
+        object.__setattr__(obj, "g", aux if children[1] is None else children[1])
+        return obj
+
+    def _g(self, x):
+        return jnp.asarray(self.g(x)).astype(jnp.complex128)
+
+    def potential(self, x):
+        """A'_mu = g A_mu g^dag - (d_mu g) g^dag at one point (4,) -> (4, N, N)."""
+        x = jnp.asarray(x, dtype=jnp.float64)
+        g = self._g(x)
+        gd = jnp.conj(g.T)
+        dg = jnp.moveaxis(jax.jacfwd(self._g)(x), -1, 0)  # (mu, N, N)
+        a = self.field.potential(x)
+        return jnp.einsum("ij,mjk,kl->mil", g, a, gd) - jnp.einsum("mij,jk->mik", dg, gd)
+
+    def field_strength(self, x):
+        """F'_mu nu = g F_mu nu g^dag at one point -> (4, 4, N, N)."""
+        x = jnp.asarray(x, dtype=jnp.float64)
+        g = self._g(x)
+        return jnp.einsum("ij,mnjk,kl->mnil", g, _fs(self.field)(x), jnp.conj(g.T))
+
+    def action_density(self, x):
+        return _s(self.field, x)
+
+    def charge_density(self, x):
+        return _q(self.field, x)
+
+
+def gauge_transform(field, g) -> GaugeTransformed:
+    """Gauge transform ``field`` by ``g(x)`` (N, N) unitary: A' = g A g^-1 + g d g^-1 (returns a field)."""
+    return GaugeTransformed(field, g)
+
+
+# -- translation ------------------------------------------------------------------------------------
+
+
+@jax.tree_util.register_pytree_node_class
+@dataclasses.dataclass(frozen=True)
+class Translated(_Wrapper):
+    """The field moved by ``shift`` (4,): A'(x) = A(x - shift), likewise F, s, q."""
+
+    field: object
+    shift: jax.Array
+
+    def __post_init__(self):
+        object.__setattr__(self, "field", as_field(self.field))
+        if not _is_tracer(self.shift):
+            object.__setattr__(self, "shift", _real("shift", self.shift, (4,)))
+
+    def tree_flatten(self):
+        return (self.field, self.shift), None
+
+    @classmethod
+    def tree_unflatten(cls, aux, children):
+        obj = object.__new__(cls)
+        object.__setattr__(obj, "field", children[0])
+        object.__setattr__(obj, "shift", children[1])
+        return obj
+
+    def _y(self, x):
+        return jnp.asarray(x, dtype=jnp.float64) - jnp.asarray(self.shift)
+
+    def potential(self, x):
+        return self.field.potential(self._y(x))
+
+    def field_strength(self, x):
+        return _fs(self.field)(self._y(x))
+
+    def action_density(self, x):
+        return _s(self.field, self._y(x))
+
+    def charge_density(self, x):
+        return _q(self.field, self._y(x))
+
+    def _map_hint(self, centre, scale):
+        return centre + np.asarray(self.shift), scale
+
+
+def translate(field, shift) -> Translated:
+    """Translate ``field`` by ``shift`` (4,): A'(x) = A(x - shift) (returns a field)."""
+    return Translated(field, shift)
+
+
+# -- rotation ---------------------------------------------------------------------------------------
+
+
+def rotation_matrix(left, right):
+    """The SO(4) matrix R with p(R x) = l p(x) r-bar; left, right: (4,) unit quaternions -> (4, 4).
+
+    R_mu nu = Re(e-bar_mu l e_nu r-bar) = e_mu . (l e_nu r-bar) (E_MU is orthonormal).  (l, r) and
+    (-l, -r) give the same R; every R in SO(4) arises (common practice).  jax-traceable.
+    """
+    e = jnp.asarray(E_MU)
+    ler = qt.qmul(qt.qmul(jnp.asarray(left)[None], e), qt.qconj(jnp.asarray(right))[None])  # (nu, 4)
+    return e @ ler.T
+
+
+def _unit(name: str, value) -> np.ndarray:
+    arr = _real(name, value, (4,))
+    dev = abs(float(np.linalg.norm(arr)) - 1.0)
+    if dev > 1e-10:
+        raise ValueError(f"{name} must be a unit quaternion; found | |q| - 1 | = {dev:.3e}")
+    return arr
+
+
+@jax.tree_util.register_pytree_node_class
+@dataclasses.dataclass(frozen=True)
+class Rotated(_Wrapper):
+    """The field rotated by R in SO(4), p(R x) = l p(x) r-bar: A'_mu(x) = R_mu nu A_nu(R^T x).
+
+    left, right: (4,) unit quaternions l, r.  F' = R R F(R^T x) on both indices; s, q scalars.
+    """
+
+    field: object
+    left: jax.Array
+    right: jax.Array
+
+    def __post_init__(self):
+        object.__setattr__(self, "field", as_field(self.field))
+        if not _is_tracer(self.left, self.right):
+            object.__setattr__(self, "left", _unit("left", self.left))
+            object.__setattr__(self, "right", _unit("right", self.right))
+
+    def tree_flatten(self):
+        return (self.field, self.left, self.right), None
+
+    @classmethod
+    def tree_unflatten(cls, aux, children):
+        obj = object.__new__(cls)
+        for name, value in zip(("field", "left", "right"), children):
+            object.__setattr__(obj, name, value)
+        return obj
+
+    @property
+    def matrix(self):
+        """R, (4, 4)."""
+        return rotation_matrix(self.left, self.right)
+
+    def _back(self, x):
+        r = self.matrix
+        return r, r.T @ jnp.asarray(x, dtype=jnp.float64)
+
+    def potential(self, x):
+        r, y = self._back(x)
+        return jnp.einsum("mn,nij->mij", r, self.field.potential(y))
+
+    def field_strength(self, x):
+        r, y = self._back(x)
+        return jnp.einsum("ma,nb,abij->mnij", r, r, _fs(self.field)(y))
+
+    def action_density(self, x):
+        return _s(self.field, self._back(x)[1])
+
+    def charge_density(self, x):
+        return _q(self.field, self._back(x)[1])
+
+    def _map_hint(self, centre, scale):
+        return np.asarray(self.matrix) @ centre, scale
+
+    @property
+    def period(self):
+        raise AttributeError("a rotated field has no period along x4 in general")
+
+
+def rotate(field, left, right=(1.0, 0.0, 0.0, 0.0)) -> Rotated:
+    """Rotate ``field`` by the SO(4) map p(x) -> l p(x) r-bar (unit quaternions l, r) (returns a field)."""
+    return Rotated(field, left, right)
+
+
+# -- dilation ---------------------------------------------------------------------------------------
+
+
+@jax.tree_util.register_pytree_node_class
+@dataclasses.dataclass(frozen=True)
+class Dilated(_Wrapper):
+    """The field dilated about the origin by c > 0: A'(x) = A(x/c)/c, F'(x) = F(x/c)/c^2, s'(x) = s(x/c)/c^4."""
+
+    field: object
+    factor: jax.Array
+
+    def __post_init__(self):
+        object.__setattr__(self, "field", as_field(self.field))
+        if not _is_tracer(self.factor):
+            c = _real("factor", self.factor, ())
+            if not c > 0:
+                raise ValueError(f"dilation factor must be > 0; found {float(c)!r}")
+            object.__setattr__(self, "factor", c)
+
+    def tree_flatten(self):
+        return (self.field, self.factor), None
+
+    @classmethod
+    def tree_unflatten(cls, aux, children):
+        obj = object.__new__(cls)
+        object.__setattr__(obj, "field", children[0])
+        object.__setattr__(obj, "factor", children[1])
+        return obj
+
+    def _y(self, x):
+        c = jnp.asarray(self.factor)
+        return c, jnp.asarray(x, dtype=jnp.float64) / c
+
+    def potential(self, x):
+        c, y = self._y(x)
+        return self.field.potential(y) / c
+
+    def field_strength(self, x):
+        c, y = self._y(x)
+        return _fs(self.field)(y) / c**2
+
+    def action_density(self, x):
+        c, y = self._y(x)
+        return _s(self.field, y) / c**4
+
+    def charge_density(self, x):
+        c, y = self._y(x)
+        return _q(self.field, y) / c**4
+
+    def _map_hint(self, centre, scale):
+        c = float(self.factor)
+        return c * centre, c * scale
+
+    def _map_period(self, period):
+        return float(self.factor) * period
+
+
+def dilate(field, factor) -> Dilated:
+    """Dilate ``field`` about the origin by ``factor`` c > 0: A'(x) = A(x / c) / c (returns a field)."""
+    return Dilated(field, factor)
+
+
+# -- parity -----------------------------------------------------------------------------------------
+
+
+@jax.tree_util.register_pytree_node_class
+@dataclasses.dataclass(frozen=True)
+class ParityImage(_Wrapper):
+    """The parity image: A'_mu(x) = P_mu A_mu(Px), P = diag(-1, -1, -1, 1); s'(x) = s(Px), q'(x) = -q(Px).
+
+    Turns an instanton (self-dual) into an anti-instanton (anti-self-dual) and back; charge -> -charge.
+    """
+
+    field: object
+
+    def __post_init__(self):
+        object.__setattr__(self, "field", as_field(self.field))
+
+    def tree_flatten(self):
+        return (self.field,), None
+
+    @classmethod
+    def tree_unflatten(cls, aux, children):
+        obj = object.__new__(cls)
+        object.__setattr__(obj, "field", children[0])
+        return obj
+
+    @staticmethod
+    def _px(x):
+        return jnp.asarray(x, dtype=jnp.float64) * PARITY
+
+    def potential(self, x):
+        return PARITY[:, None, None] * self.field.potential(self._px(x))
+
+    def field_strength(self, x):
+        return (PARITY[:, None] * PARITY[None, :])[:, :, None, None] * _fs(self.field)(self._px(x))
+
+    def action_density(self, x):
+        return _s(self.field, self._px(x))
+
+    def charge_density(self, x):
+        return -_q(self.field, self._px(x))
+
+    def _map_hint(self, centre, scale):
+        return PARITY * centre, scale
+
+    def _map_charge(self, charge):
+        return -charge
+
+
+def parity(field) -> ParityImage:
+    """Parity image of ``field`` (x -> (-x1, -x2, -x3, x4)), its anti-self-dual partner (returns a field)."""
+    return ParityImage(field)

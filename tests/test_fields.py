@@ -1,0 +1,293 @@
+"""Specification of the evaluation engine (instantonkit.fields) for user callables and point sets.
+
+Two parts:
+
+* a user-written JAX potential ``A_mu = f(r) g^-1 d_mu g`` with a non-BPST profile, whose field
+  strength and densities are checked against an independent symbolic computation with sympy;
+* engine behaviour: leading shapes, numpy/jax input, float64 output, chunking, singular points and
+  clear errors for bad input.
+"""
+
+from __future__ import annotations
+
+import re
+
+import jax.numpy as jnp
+import mpmath
+import numpy as np
+import pytest
+import sympy as sp
+
+import instantonkit as ik
+from instantonkit import fields
+from instantonkit.conventions import E_MU, QUATERNION_BASIS, point_to_quaternion
+
+RHO = 0.7  # profile scale of the user potential (sympy uses the exact rational 7/10)
+
+# -- reference formulas (conventions module) --------------------------------------------------------
+
+# eps_{mu nu rho sigma} with eps_1234 = +1, built by sympy (independent of conventions.LEVI_CIVITA).
+EPS = np.array(
+    [[[[float(sp.LeviCivita(a, b, c, d)) for d in range(4)] for c in range(4)] for b in range(4)] for a in range(4)]
+)
+
+
+def s_from_f(f):
+    """s = -1/2 sum_{mu nu} tr F_mu nu F_mu nu (the action density of the conventions); f: (..., 4, 4, N, N)."""
+    return -0.5 * np.real(np.einsum("...mnij,...mnji->...", f, f))
+
+
+def q_from_f(f):
+    """q = -1/(32 pi^2) eps_{mu nu rho sigma} tr F_mu nu F_rho sigma (the charge density of the conventions)."""
+    return -np.real(np.einsum("mnrs,...mnij,...rsji->...", EPS, f, f)) / (32.0 * np.pi**2)
+
+
+# -- the user potential: a non-BPST profile times the pure gauge g^-1 dg, g = p(x)/|x| -----------------
+
+_E_MAT = jnp.einsum("ma,aij->mij", E_MU, QUATERNION_BASIS)  # d p(x) / d x_mu as 2x2 matrices
+
+
+def user_potential(x):
+    """A_mu = f(r) g^-1 d_mu g with f = r^4/(r^2+rho^2)^2 and g = p(x)/|x|, written out by hand.
+
+    With P = matrix of p(x) (P^dag P = r^2): g^-1 d_mu g = (P^dag E_mu - x_mu)/r^2, so
+    A_mu = r^2/(r^2+rho^2)^2 (P^dag E_mu - x_mu); smooth everywhere.  x: (4,) -> (4, 2, 2).
+    """
+    r2 = jnp.sum(x**2)
+    pmat = jnp.einsum("a,aij->ij", point_to_quaternion(x), QUATERNION_BASIS)
+    pure = jnp.einsum("ji,mjk->mik", jnp.conj(pmat), _E_MAT) - x[:, None, None] * jnp.eye(2)
+    return r2 / (r2 + RHO**2) ** 2 * pure
+
+
+SYMBOLIC_POINTS = np.array(
+    [[0.3, -0.4, 0.5, 0.2], [1.1, 0.2, -0.7, 0.9], [-0.25, 0.6, 0.15, -1.3]]
+)
+
+
+@pytest.fixture(scope="module")
+def symbolic_f():
+    """F_mu nu of the user potential from sympy: A and d_mu A_nu symbolic, evaluated at 30 digits.
+
+    sympy builds g = (x4 1 + i x.sigma)/r, A_mu = f(r) g^-1 d_mu g by symbolic differentiation of g
+    (no hand simplification), differentiates A again symbolically, and F_mu nu = d_mu A_nu - d_nu A_mu +
+    [A_mu, A_nu] is assembled from the exact values.  Returns (3, 4, 4, 2, 2) complex.
+    """
+    xs = sp.symbols("x1:5", real=True)
+    rho = sp.Rational(7, 10)
+    sig = [sp.Matrix([[0, 1], [1, 0]]), sp.Matrix([[0, -sp.I], [sp.I, 0]]), sp.Matrix([[1, 0], [0, -1]])]
+    pmat = xs[3] * sp.eye(2) + sp.I * (xs[0] * sig[0] + xs[1] * sig[1] + xs[2] * sig[2])
+    r2 = sum(v**2 for v in xs)
+    r = sp.sqrt(r2)
+    g = pmat / r
+    g_inv = pmat.H / r  # g is unitary: g^-1 = g^dag
+    prof = r2**2 / (r2 + rho**2) ** 2
+    a = [prof * g_inv * g.diff(xs[m]) for m in range(4)]
+    da = [[a[n].diff(xs[m]) for n in range(4)] for m in range(4)]  # da[m][n] = d_m A_n
+    out = []
+    with mpmath.workdps(30):
+        for p in SYMBOLIC_POINTS:
+            vals = {xs[i]: sp.Float(repr(float(p[i])), 30) for i in range(4)}
+            an = np.array([np.array(a[m].xreplace(vals).evalf(30).tolist(), dtype=complex) for m in range(4)])
+            dan = np.array(
+                [[np.array(da[m][n].xreplace(vals).evalf(30).tolist(), dtype=complex) for n in range(4)] for m in range(4)]
+            )
+            comm = np.einsum("mij,njk->mnik", an, an)
+            out.append(dan - dan.transpose(1, 0, 2, 3) + comm - comm.transpose(1, 0, 2, 3))
+    return np.array(out)
+
+
+def test_user_potential_field_strength_matches_sympy(symbolic_f):
+    # Reference: symbolic differentiation with sympy (fixture symbolic_f); F formula of the conventions.
+    f = ik.field_strength(user_potential, SYMBOLIC_POINTS)
+    assert np.max(np.abs(f - symbolic_f)) <= 1e-10 * np.max(np.abs(symbolic_f))
+
+
+def test_user_potential_action_density_matches_sympy(symbolic_f):
+    # Reference: s from the sympy field strength, s = -1/2 sum tr F F (conventions module).
+    s = ik.action_density(user_potential, SYMBOLIC_POINTS)
+    ref = s_from_f(symbolic_f)
+    np.testing.assert_allclose(s, ref, rtol=1e-10, atol=0)
+
+
+def test_user_potential_charge_density_matches_sympy(symbolic_f):
+    # Reference: q from the sympy field strength with sympy's Levi-Civita symbol, eps_1234 = +1.
+    q = ik.charge_density(user_potential, SYMBOLIC_POINTS)
+    ref = q_from_f(symbolic_f)
+    np.testing.assert_allclose(q, ref, rtol=1e-10, atol=0)
+
+
+def test_user_potential_is_not_self_dual(symbolic_f):
+    # A profile other than BPST's r^2/(r^2+rho^2) is not (anti-)self-dual (Belavin, Polyakov, Schwartz,
+    # Tyupkin, Phys. Lett. B 59 (1975) 85): s != 8 pi^2 |q|, checked on the sympy reference values.
+    s, q = s_from_f(symbolic_f), q_from_f(symbolic_f)
+    assert np.all(np.abs(s - 8 * np.pi**2 * np.abs(q)) > 1e-3 * s)
+
+
+# -- engine behaviour ----------------------------------------------------------------------------------
+
+CENTER = np.array([1.0, 2.0, 3.0, 4.0])
+SIZE = 0.5
+
+
+@pytest.fixture(scope="module")
+def bpst_data():
+    return ik.bpst(CENTER, SIZE)
+
+
+def bpst_density(x):
+    # Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85: s = 48 rho^4/(|x-a|^2+rho^2)^4.
+    return 48 * SIZE**4 / (np.sum((np.asarray(x) - CENTER) ** 2, axis=-1) + SIZE**2) ** 4
+
+
+@pytest.fixture(scope="module")
+def grid():
+    return CENTER + np.random.default_rng(7).normal(size=(3, 5, 4))
+
+
+def test_single_point_gives_scalar(bpst_data):
+    s = ik.action_density(bpst_data, CENTER + 0.1)
+    assert s.shape == ()
+    np.testing.assert_allclose(s, bpst_density(CENTER + 0.1), rtol=1e-12)
+
+
+def test_leading_shape_kept_for_densities(bpst_data, grid):
+    assert ik.action_density(bpst_data, grid).shape == (3, 5)
+    assert ik.charge_density(bpst_data, grid).shape == (3, 5)
+
+
+def test_leading_shape_kept_for_matrices(bpst_data, grid):
+    assert ik.potential(bpst_data, grid).shape == (3, 5, 4, 2, 2)
+    assert ik.field_strength(bpst_data, grid).shape == (3, 5, 4, 4, 2, 2)
+
+
+def test_empty_point_set(bpst_data):
+    assert ik.action_density(bpst_data, np.zeros((0, 4))).shape == (0,)
+    assert ik.field_strength(bpst_data, np.zeros((0, 4))).shape == (0, 4, 4, 2, 2)
+
+
+def test_output_dtypes_are_double_precision(bpst_data, grid):
+    assert ik.action_density(bpst_data, grid).dtype == np.float64
+    assert ik.charge_density(bpst_data, grid).dtype == np.float64
+    assert ik.potential(bpst_data, grid).dtype == np.complex128
+    assert ik.field_strength(bpst_data, grid).dtype == np.complex128
+
+
+def test_float32_points_are_computed_in_float64(bpst_data, grid):
+    x32 = grid.astype(np.float32)
+    s = ik.action_density(bpst_data, x32)
+    assert s.dtype == np.float64
+    np.testing.assert_allclose(s, bpst_density(x32.astype(np.float64)), rtol=1e-12)
+
+
+def test_integer_points_accepted(bpst_data):
+    x = np.array([[1, 2, 3, 5], [2, 2, 3, 4]])
+    np.testing.assert_allclose(ik.action_density(bpst_data, x), bpst_density(x), rtol=1e-12)
+
+
+def test_numpy_and_jax_points_agree(bpst_data, grid):
+    np.testing.assert_array_equal(ik.action_density(bpst_data, grid), ik.action_density(bpst_data, jnp.asarray(grid)))
+
+
+def test_results_match_bpst_formula_on_grid(bpst_data, grid):
+    np.testing.assert_allclose(ik.action_density(bpst_data, grid), bpst_density(grid), rtol=1e-12)
+
+
+def test_chunking_does_not_change_results(bpst_data):
+    x = CENTER + np.random.default_rng(3).normal(size=(20, 4))
+    np.testing.assert_array_equal(
+        ik.action_density(bpst_data, x, chunk_size=7), ik.action_density(bpst_data, x)
+    )
+
+
+def test_singular_gauge_centre_raises_naming_the_point(bpst_data, grid):
+    x = grid.copy()
+    x[1, 2] = CENTER
+    with pytest.raises(ValueError, match=re.escape(str(CENTER.tolist()))):
+        ik.potential(bpst_data, x)
+
+
+def test_regular_gauge_is_finite_at_the_centre(bpst_data):
+    # BPST regular gauge A_mu ~ x_nu / (x^2 + rho^2) vanishes at the centre (Belavin et al. 1975, from memory).
+    a = ik.potential(bpst_data.with_gauge("regular"), CENTER)
+    np.testing.assert_allclose(a, 0.0, atol=1e-14)
+
+
+def test_action_density_finite_at_singular_gauge_centre(bpst_data):
+    # Gauge-invariant densities are smooth at the centre: s(a) = 48/rho^4 (Belavin et al. 1975).
+    np.testing.assert_allclose(ik.action_density(bpst_data, CENTER), 48 / SIZE**4, rtol=1e-12)
+
+
+# -- bad input -----------------------------------------------------------------------------------------
+
+
+def test_points_with_wrong_last_axis_rejected(bpst_data):
+    with pytest.raises(ValueError, match=r"\(\.\.\., 4\).*\(5, 3\)"):
+        ik.action_density(bpst_data, np.zeros((5, 3)))
+
+
+def test_zero_dimensional_points_rejected(bpst_data):
+    with pytest.raises(ValueError, match=r"\(\.\.\., 4\)"):
+        ik.action_density(bpst_data, np.float64(1.0))
+
+
+def test_nan_points_rejected(bpst_data):
+    x = np.zeros((3, 4))
+    x[1, 2] = np.nan
+    with pytest.raises(ValueError, match="finite.*1 point"):
+        ik.action_density(bpst_data, x)
+
+
+def test_infinite_points_rejected(bpst_data):
+    with pytest.raises(ValueError, match="finite"):
+        ik.action_density(bpst_data, np.array([0.0, np.inf, 0.0, 0.0]))
+
+
+def test_complex_points_rejected(bpst_data):
+    with pytest.raises(TypeError, match="real.*complex"):
+        ik.action_density(bpst_data, np.zeros((2, 4), dtype=complex))
+
+
+def test_callable_with_wrong_output_shape_rejected():
+    def bad(x):
+        return jnp.zeros((3, 2, 2), dtype=complex) * x[0]
+
+    with pytest.raises(ValueError, match=r"\(4, N, N\).*\(3, 2, 2\)"):
+        ik.action_density(bad, np.zeros((2, 4)))
+
+
+def test_callable_with_non_square_matrices_rejected():
+    def bad(x):
+        return jnp.zeros((4, 2, 3), dtype=complex) * x[0]
+
+    with pytest.raises(ValueError, match=r"\(4, N, N\).*\(4, 2, 3\)"):
+        ik.field_strength(bad, np.zeros((2, 4)))
+
+
+def test_non_anti_hermitian_callable_rejected():
+    sigma3 = jnp.array([[1.0, 0.0], [0.0, -1.0]], dtype=complex)
+
+    def hermitian(x):  # Hermitian, not anti-Hermitian
+        return x[:, None, None] * sigma3
+
+    with pytest.raises(ValueError, match="anti-Hermitian"):
+        ik.action_density(hermitian, np.ones((2, 4)))
+
+
+def test_non_field_object_rejected():
+    with pytest.raises(TypeError, match="potential"):
+        ik.action_density(3.0, np.zeros((1, 4)))
+
+
+def test_unknown_method_rejected(bpst_data):
+    with pytest.raises(ValueError, match="method.*'numerical'"):
+        ik.action_density(bpst_data, np.zeros((1, 4)), method="numerical")
+
+
+def test_bad_chunk_size_rejected(bpst_data):
+    with pytest.raises(ValueError, match="chunk_size.*0"):
+        ik.action_density(bpst_data, np.zeros((1, 4)), chunk_size=0)
+
+
+def test_unknown_quantity_rejected(bpst_data):
+    with pytest.raises(ValueError, match="quantity.*'energy'"):
+        fields.evaluate(bpst_data, np.zeros((1, 4)), "energy")

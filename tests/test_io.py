@@ -1,0 +1,142 @@
+"""Specification of lattice files: npz with parameters, ILDG (LIME records), atomic writes, corrupt files."""
+
+import os
+import struct
+
+import numpy as np
+import pytest
+
+from instantonkit import io as lio
+from instantonkit import lattice as lat
+
+
+def _su3_links(shape, seed=0):
+    g = lat.random_gauge(shape, 3, seed=seed)  # Haar SU(3) matrices, reused as links
+    h = lat.random_gauge(shape, 3, seed=seed + 1)
+    return np.stack([g, h, g @ h, h @ g], axis=4)
+
+
+@pytest.fixture(scope="module")
+def links3():
+    return _su3_links((3, 4, 2, 5))
+
+
+def test_npz_round_trip_is_bit_exact_and_keeps_metadata(tmp_path, links3):
+    meta = {"field": "bpst", "spacing": 0.5, "shape": [3, 4, 2, 5]}
+    lio.save_lattice(tmp_path / "a.npz", links3, metadata=meta)
+    back, info = lio.load_lattice(tmp_path / "a.npz")
+    assert back.dtype == np.complex128 and np.array_equal(back.view(np.uint8), links3.view(np.uint8))
+    assert info["format"] == "npz" and info["metadata"] == meta
+
+
+def test_ildg_records_and_headers_follow_the_lime_standard(tmp_path, links3):
+    # LIME header: magic 0x456789ab, version 1, MB/ME flag bits, 64-bit length, 128-byte type,
+    # data padded to 8 bytes; records ildg-format, ildg-binary-data, ildg-data-lfn (ILDG file format
+    # and LIME specifications, from memory)
+    path = tmp_path / "a.ildg"
+    lio.save_lattice(path, links3, format="ildg", lfn="lfn://test/a", metadata={"k": 1})
+    raw = path.read_bytes()
+    recs = lio.read_lime_records(path)
+    assert [r["type"] for r in recs] == ["ildg-format", "ildg-binary-data", "ildg-data-lfn", "instantonkit-metadata"]
+    assert [(r["mb"], r["me"]) for r in recs] == [(True, False), (False, False), (False, True), (True, True)]
+    pos = 0
+    for r in recs:
+        magic, version, flags, length = struct.unpack(">IHHQ", raw[pos : pos + 16])
+        assert magic == 0x456789AB and version == 1 and length == r["length"]
+        assert raw[pos + 16 : pos + 144].rstrip(b"\0").decode() == r["type"]
+        assert r["offset"] == pos + 144
+        pos = r["offset"] + length + (-length) % 8
+        assert raw[r["offset"] + length : pos] == b"\0" * ((-length) % 8)
+    assert pos == len(raw)
+    xml = raw[recs[0]["offset"] : recs[0]["offset"] + recs[0]["length"]].decode()
+    for tag in ("<field>su3gauge</field>", "<precision>64</precision>", "<lx>3</lx>", "<ly>4</ly>", "<lz>2</lz>", "<lt>5</lt>"):
+        assert tag in xml
+    assert recs[1]["length"] == 3 * 4 * 2 * 5 * 4 * 9 * 16
+
+
+def test_ildg_binary_order_is_t_z_y_x_then_direction_then_row_major(tmp_path, links3):
+    # site index ((t lz + z) ly + y) lx + x, four directions x, y, z, t, 3x3 row-major (re, im),
+    # big-endian float64 (ILDG binary format, from memory)
+    path = tmp_path / "b.ildg"
+    lio.save_lattice(path, links3, format="ildg")
+    rec = lio.read_lime_records(path)[1]
+    raw = path.read_bytes()
+    lx, ly, lz, lt = links3.shape[:4]
+    x, y, z, t, mu, i, j = 2, 1, 1, 3, 2, 1, 0
+    site = ((t * lz + z) * ly + y) * lx + x
+    off = rec["offset"] + ((site * 4 + mu) * 9 + i * 3 + j) * 16
+    re, im = struct.unpack(">dd", raw[off : off + 16])
+    assert complex(re, im) == links3[x, y, z, t, mu, i, j]
+
+
+def test_ildg_round_trip_is_bit_exact(tmp_path, links3):
+    path = tmp_path / "c.ildg"
+    lio.save_lattice(path, links3, format="ildg", metadata={"note": "demo"})
+    back, info = lio.load_lattice(path)
+    assert np.array_equal(back.view(np.uint8), np.ascontiguousarray(links3).view(np.uint8))
+    assert info["ildg"] == {"field": "su3gauge", "precision": 64, "lx": 3, "ly": 4, "lz": 2, "lt": 5}
+    assert info["metadata"] == {"note": "demo"}
+    view, _ = lio.load_lattice(path, mmap=True)
+    assert np.array_equal(np.asarray(view), links3)
+
+
+def test_ildg_from_memmap_input(tmp_path, links3):
+    mm = np.lib.format.open_memmap(tmp_path / "u.npy", mode="w+", dtype=np.complex128, shape=links3.shape)
+    mm[:] = links3
+    lio.save_lattice(tmp_path / "m.ildg", mm, format="ildg")
+    assert np.array_equal(lio.load_lattice(tmp_path / "m.ildg")[0], links3)
+
+
+@pytest.mark.parametrize("fmt", ["ildg", "npz"])
+def test_truncated_file_is_rejected(tmp_path, links3, fmt):
+    path = tmp_path / f"t.{fmt}"
+    lio.save_lattice(path, links3, format=fmt)
+    data = path.read_bytes()
+    for cut in (len(data) // 2, len(data) - 9, 100):
+        path.write_bytes(data[:cut])
+        with pytest.raises(ValueError, match="truncated|corrupt"):
+            lio.load_lattice(path)
+
+
+def test_corrupt_magic_and_unknown_files_are_rejected(tmp_path, links3):
+    path = tmp_path / "d.ildg"
+    lio.save_lattice(path, links3, format="ildg")
+    data = bytearray(path.read_bytes())
+    rec = lio.read_lime_records(path)[1]
+    data[rec["offset"] - 144] ^= 0xFF  # break the second record's magic
+    path.write_bytes(bytes(data))
+    with pytest.raises(ValueError, match="magic"):
+        lio.load_lattice(path)
+    (tmp_path / "e.bin").write_bytes(b"hello world")
+    with pytest.raises(ValueError, match="neither"):
+        lio.load_lattice(tmp_path / "e.bin")
+
+
+def test_ildg_needs_su3_links_and_failed_writes_leave_nothing(tmp_path):
+    u2 = lat.random_gauge((2, 2, 2, 2), 2)[..., None, :, :].repeat(4, axis=4)
+    with pytest.raises(ValueError, match="3 x 3"):
+        lio.save_lattice(tmp_path / "f.ildg", u2, format="ildg")
+    assert os.listdir(tmp_path) == []
+
+
+def test_existing_file_is_replaced_whole(tmp_path, links3):
+    path = tmp_path / "g.npz"
+    lio.save_lattice(path, links3[:1], metadata={"v": 1})
+    lio.save_lattice(path, links3, metadata={"v": 2})
+    back, info = lio.load_lattice(path)
+    assert back.shape == links3.shape and info["metadata"] == {"v": 2}
+    assert sorted(os.listdir(tmp_path)) == ["g.npz"]
+
+
+@pytest.mark.parametrize(
+    "args,exc,match",
+    [
+        ((np.zeros((2, 2, 2, 2, 4, 3, 3), complex),), ValueError, "format must be"),
+        ((np.zeros((2, 2, 2, 4, 3, 3), complex),), ValueError, "shape"),
+        ((np.zeros((2, 2, 2, 2, 4, 3, 3)),), TypeError, "complex"),
+    ],
+)
+def test_bad_save_arguments(tmp_path, args, exc, match):
+    fmt = "hdf5" if match == "format must be" else "npz"
+    with pytest.raises(exc, match=match):
+        lio.save_lattice(tmp_path / "h", *args, format=fmt)

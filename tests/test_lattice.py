@@ -1,0 +1,332 @@
+"""Specification of lattice starts: transporters, link variables and gauge-invariant observables."""
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from scipy import integrate, special
+
+import instantonkit as ik
+from instantonkit import fields
+from instantonkit import lattice as lat
+
+EIGHT_PI2 = 8.0 * np.pi**2
+
+
+# -- references ---------------------------------------------------------------------------------------
+
+
+def bpst_box_action(rho, lo, hi):
+    """Integral of the BPST density 48 rho^4 / (x^2 + rho^2)^4 (BPST, Phys. Lett. B 59 (1975) 85) over a box.
+
+    Schwinger's parametrisation 1/X^4 = (1/3!) int_0^inf u^3 e^{-u X} du (common practice) turns the
+    box integral into one scipy quad over u of u^3 e^{-u rho^2} prod_i (sqrt(pi/u)/2)(erf(sqrt(u) hi_i) - erf(sqrt(u) lo_i)).
+    """
+    lo, hi = np.asarray(lo, float), np.asarray(hi, float)
+
+    def integrand(u):
+        su = np.sqrt(u)
+        box = np.prod(0.5 * np.sqrt(np.pi / u) * (special.erf(su * hi) - special.erf(su * lo)))
+        return u**3 * np.exp(-u * rho**2) * box
+
+    val, _ = integrate.quad(integrand, 0.0, np.inf, epsabs=0.0, epsrel=1e-12, limit=200)
+    return 8.0 * rho**4 * val
+
+
+def wilson_box_action(rho, origin, n, a):
+    """Continuum action over the region covered by the inside plaquettes of an open n^4 lattice.
+
+    A plaquette in plane (mu, nu) stands for the cell [x, x + a] in mu, nu and [x - a/2, x + a/2] in the
+    other two directions (midpoint rule), and the BPST density is shared equally by the six planes.
+    """
+    xlo, xhi = np.asarray(origin, float), np.asarray(origin, float) + a * (n - 1)
+    total = 0.0
+    for mu, nu in lat.PLANES:
+        lo, hi = xlo - a / 2, xhi + a / 2
+        lo[[mu, nu]], hi[[mu, nu]] = xlo[[mu, nu]], xhi[[mu, nu]]
+        total += bpst_box_action(rho, lo, hi) / 6.0
+    return total
+
+
+def test_box_reference_gives_the_full_instanton_action():
+    # int s = 8 pi^2 for a unit instanton (conventions module; BPST 1975)
+    assert bpst_box_action(1.3, [-1e4] * 4, [1e4] * 4) == pytest.approx(EIGHT_PI2, rel=1e-10)
+
+
+# -- transporters ------------------------------------------------------------------------------------
+
+
+def _random_antihermitian(rng, n):
+    z = rng.normal(size=(n, n)) + 1j * rng.normal(size=(n, n))
+    z = z - z.conj().T
+    return z - np.trace(z) / n * np.eye(n)
+
+
+def test_magnus_steps_are_sixth_order_against_scipy():
+    # reference: scipy's DOP853 on dW/dt = W G(t) at rtol 1e-13; the three-node Gauss-Legendre Magnus
+    # scheme is of order six (Blanes, Casas, Oteo, Ros, Phys. Rep. 470 (2009) 151, from memory)
+    import jax.numpy as jnp
+
+    rng = np.random.default_rng(0)
+    c = [0.5 * _random_antihermitian(rng, 3) for _ in range(3)]
+
+    def g(t):
+        return c[0] + np.sin(2 * t) * c[1] + t**2 * c[2]
+
+    ref = integrate.solve_ivp(
+        lambda t, w: (w.reshape(3, 3) @ g(t)).ravel(), (0, 1), np.eye(3, dtype=complex).ravel(),
+        method="DOP853", rtol=1e-13, atol=1e-14,
+    ).y[:, -1].reshape(3, 3)
+
+    def run(m):
+        w = np.eye(3, dtype=complex)
+        for s in range(m):
+            gs = [g((s + node) / m) for node in lat._GL3]
+            w = w @ np.asarray(lat._expm_antihermitian(jnp.asarray(lat._magnus6(*[jnp.asarray(x) for x in gs], 1.0 / m))))
+        return w
+
+    errs = [np.max(np.abs(run(m) - ref)) for m in (2, 4)]
+    assert errs[0] / errs[1] > 40.0  # 2^6 = 64 for order six; 2^4 = 16 would mean order four
+
+
+@pytest.fixture(scope="module")
+def segments():
+    rng = np.random.default_rng(3)
+    starts = rng.uniform(-2.0, 2.0, size=(24, 4)) + 0.05
+    steps = 0.5 * np.eye(4)[rng.integers(0, 4, size=24)]
+    return starts, steps
+
+
+@pytest.mark.parametrize("gauge,chirality", [("regular", 1), ("singular", 1), ("singular", -1)])
+def test_bpst_closed_form_link_equals_magnus_quadrature(segments, gauge, chirality):
+    # the closed form (lattice.bpst_link) against the independent quadrature of the ADHM potential
+    data = ik.bpst([0.1, -0.2, 0.3, 0.15], 1.1, orientation=np.array([0.5, -0.5, 0.5, 0.5])).with_gauge(gauge)
+    if chirality == -1:
+        data = data.conjugate()
+    starts, steps = segments
+    rep = {}
+    closed = lat.parallel_transporter(data, starts, steps, report=rep)
+    quad = lat.parallel_transporter(data, starts, steps, method="magnus", rtol=1e-13)
+    assert rep["method"] == "closed"
+    assert np.max(np.abs(closed - quad)) < 1e-13
+
+
+@pytest.fixture(scope="module")
+def pair():
+    """Charge-2 ADHM data (multi_instanton) and the 't Hooft field with the same centres and sizes."""
+    centers = np.array([[1.2, 0.0, 0.0, 0.0], [-1.2, 0.0, 0.0, 0.0]])
+    from instantonkit import ansatz
+
+    return ik.multi_instanton(centers, [1.2, 1.2]), ansatz.thooft(centers, [1.2, 1.2])
+
+
+def test_transporter_agrees_with_ten_times_finer_quadrature(pair, segments):
+    # self-convergence: the refined result against a fixed-step run with ten times more steps
+    data = pair[0]
+    starts, steps = segments
+    rep = {}
+    w = lat.parallel_transporter(data, starts[:8], steps[:8], rtol=1e-12, report=rep)
+    fine = np.asarray(lat._magnus_kernel()(data, starts[:8], steps[:8], 10 * rep["max_steps"]))
+    assert rep["method"] == "magnus"
+    assert np.max(np.abs(w - fine)) < 1e-12
+
+
+# -- link variables ------------------------------------------------------------------------------------
+
+
+def test_links_are_special_unitary_in_su2_and_su3():
+    data = ik.bpst(size=1.5)
+    for group, n in (("su2", 2), ("su3", 3)):
+        links, rep = lat.lattice_links(data, (4, 4, 4, 4), 0.5, group=group, return_report=True)
+        assert links.shape == (4, 4, 4, 4, 4, n, n)
+        assert lat.unitarity_deviation(links) <= 1e-13
+        assert rep.unitarity_after <= 1e-13 and rep.unitarity_before <= 1e-13
+
+
+def test_link_is_the_straight_line_transporter_from_the_site():
+    data = ik.bpst([0.2, 0.0, -0.1, 0.3], 1.0)
+    origin = np.array([-1.0, -1.1, -0.9, -1.05])
+    links = lat.lattice_links(data, (3, 3, 3, 3), 0.7, origin=origin)
+    x = origin + 0.7 * np.array([1, 2, 0, 1])
+    direct = lat.parallel_transporter(data, x, 0.7 * np.eye(4)[2])
+    assert np.max(np.abs(links[1, 2, 0, 1, 2] - direct)) < 1e-14
+
+
+def test_default_origin_puts_the_centre_in_the_middle_of_a_hypercube():
+    data = ik.bpst([0.3, -0.4, 0.1, 2.0], 1.0)
+    org = lat.default_origin(data, (8, 8, 8, 8), 0.5)
+    rel = (data.hint()[0] - org) / 0.5
+    assert np.allclose(rel, 3.5)
+
+
+def test_su3_embedding_places_the_su2_block_and_keeps_the_action():
+    # embedded U = diag-block(U2, 1): 6 (1 - Re tr U / 3) = 4 (1 - Re tr U2 / 2) (algebra; common practice)
+    data = ik.bpst(size=1.0)
+    u2 = lat.lattice_links(data, (4,) * 4, 0.5)
+    u3 = lat.lattice_links(data, (4,) * 4, 0.5, group="su3", embedding=(0, 2))
+    assert np.array_equal(u3[..., [0, 2], :][..., :, [0, 2]], u2)
+    assert np.all(u3[..., 1, 1] == 1.0)
+    assert lat.wilson_action(u3) == pytest.approx(lat.wilson_action(u2), rel=1e-12)
+
+
+def test_out_memmap_and_progress(tmp_path):
+    data = ik.bpst(size=1.0)
+    mm = np.lib.format.open_memmap(tmp_path / "u.npy", mode="w+", dtype=np.complex128, shape=(4, 4, 4, 3, 4, 2, 2))
+    calls = []
+    res = lat.lattice_links(data, (4, 4, 4, 3), 0.5, out=mm, progress=lambda d, t: calls.append((d, t)))
+    assert res is mm
+    assert calls == [(1, 3), (2, 3), (3, 3)]
+    assert np.array_equal(np.asarray(mm), lat.lattice_links(data, (4, 4, 4, 3), 0.5))
+
+
+@pytest.mark.parametrize(
+    "kwargs,match",
+    [
+        ({"shape": (4, 4, 4)}, "shape must be 4"),
+        ({"spacing": -1.0}, "spacing must be"),
+        ({"group": "su4"}, "group must be"),
+        ({"boundary": "twisted"}, "boundary must be"),
+        ({"origin": [0.0, 0.0]}, "origin must be"),
+        ({"out": np.zeros((2, 2, 2, 2, 4, 2, 2))}, "out must have shape"),
+    ],
+)
+def test_bad_arguments_are_rejected(kwargs, match):
+    args = {"shape": (2, 2, 2, 2), "spacing": 0.5}
+    args.update(kwargs)
+    with pytest.raises(ValueError, match=match):
+        lat.lattice_links(ik.bpst(), args.pop("shape"), args.pop("spacing"), **args)
+
+
+def test_singular_point_on_a_link_is_reported():
+    # the singular-gauge centre on a site: the closed form is infinite there
+    with pytest.raises(ValueError, match="singular point"):
+        lat.lattice_links(ik.bpst(), (2, 2, 2, 2), 0.5, origin=np.zeros(4))
+
+
+def test_periodic_boundary_mismatch_is_small_in_singular_gauge_and_shrinks_with_the_box():
+    # singular gauge: A ~ rho^2/|x|^3 far away, regular gauge A ~ 1/|x| (common practice), so a
+    # torus start needs the singular gauge; the mismatch and its action error fall with the box
+    data = ik.bpst(size=1.0)
+    rep = {n: lat.lattice_links(data, (n,) * 4, 0.5, return_report=True)[1] for n in (6, 10)}
+    _, reg = lat.lattice_links(data.with_gauge("regular"), (10,) * 4, 0.5, return_report=True)
+    assert rep[10].boundary_link_mismatch < 0.5 * rep[6].boundary_link_mismatch
+    assert 0 < rep[10].boundary_action_error < 0.5 * rep[6].boundary_action_error
+    assert reg.boundary_link_mismatch > 3 * rep[10].boundary_link_mismatch
+    assert reg.boundary_action_error > 20 * rep[10].boundary_action_error
+
+
+# -- observables ------------------------------------------------------------------------------------------
+
+
+def test_plaquette_trace_matches_the_plaquette_matrix():
+    u = lat.lattice_links(ik.bpst(size=1.0), (4,) * 4, 0.6)
+    p = lat.plaquettes(u)
+    tr = lat.plaquette_traces(u)
+    assert np.allclose(np.real(np.trace(p, axis1=-2, axis2=-1)) / 2, tr, atol=1e-14, rtol=0)
+    # U_p = U_mu(n) U_nu(n+mu) U_mu(n+nu)^dag U_nu(n)^dag written out at one site (conventions module)
+    n, (mu, nu) = (1, 3, 0, 2), lat.PLANES[4]
+    up = lambda v, d: tuple((np.array(v) + np.eye(4, dtype=int)[d]) % 4)  # noqa: E731
+    ref = u[n][mu] @ u[up(n, mu)][nu] @ u[up(n, nu)][mu].conj().T @ u[n][nu].conj().T
+    assert np.allclose(p[n][4], ref, atol=1e-14)
+
+
+@given(seed=st.integers(0, 10_000))
+@settings(max_examples=5, deadline=None)
+def test_gauge_transformation_leaves_plaquette_traces_and_clover_charge_unchanged(seed):
+    # gauge covariance U -> g(n) U g(n + mu)^dag (conventions module; Wilson 1974)
+    u = _small_lattice()
+    g = lat.random_gauge(u.shape[:4], 2, seed=seed)
+    v = lat.gauge_transform(u, g)
+    assert np.max(np.abs(lat.plaquette_traces(v) - lat.plaquette_traces(u))) < 1e-13
+    assert np.max(np.abs(lat.clover_charge_density(v) - lat.clover_charge_density(u))) < 1e-13
+
+
+_SMALL = {}
+
+
+def _small_lattice():
+    if "u" not in _SMALL:
+        _SMALL["u"] = lat.lattice_links(ik.bpst(size=1.2), (4, 4, 4, 4), 0.6)
+    return _SMALL["u"]
+
+
+def test_regular_and_singular_gauge_give_the_same_lattice_action():
+    # the two gauges differ by g(x) = p(x - a)/|x - a|, smooth at every site: a lattice gauge transformation
+    data = ik.bpst(size=1.5)
+    ur = lat.lattice_links(data.with_gauge("regular"), (6,) * 4, 0.5)
+    us = lat.lattice_links(data, (6,) * 4, 0.5)
+    diff = lat.plaquette_traces(ur, boundary="open") - lat.plaquette_traces(us, boundary="open")
+    assert np.nanmax(np.abs(diff)) < 1e-13
+    assert lat.wilson_action(ur, boundary="open") == pytest.approx(lat.wilson_action(us, boundary="open"), rel=1e-11)
+
+
+def test_clover_field_strength_approaches_the_continuum_field_as_a_squared():
+    # clover F = a^2 F_mu nu + O(a^4) at the site (regular gauge, the gauge of the links at the site)
+    errs = []
+    for a in (0.4, 0.2):
+        data = ik.bpst(size=1.0).with_gauge("regular")
+        org = np.full(4, -a * 1.5) + 0.05
+        u = lat.lattice_links(data, (4,) * 4, a, origin=org)
+        f = lat.clover_field_strength(u, spacing=a, boundary="open")[1:3, 1:3, 1:3, 1:3]
+        ref = fields.field_strength(data, lat.site_points((4,) * 4, a, org)[1:3, 1:3, 1:3, 1:3])
+        errs.append(np.max(np.abs(f - ref)))
+    assert 3.5 < errs[0] / errs[1] < 4.5
+
+
+@pytest.fixture(scope="module")
+def bpst_starts():
+    """Open-boundary BPST starts (regular gauge) at rho/a = 2, 3, 4 in boxes of half-width about 2.5 rho."""
+    out = {}
+    for ratio in (2, 3, 4):
+        n = 2 * int(np.ceil(2.5 * ratio))
+        data = ik.bpst(size=float(ratio)).with_gauge("regular")
+        links = lat.lattice_links(data, (n,) * 4, 1.0, boundary="open")
+        out[ratio] = (links, lat.default_origin(data, (n,) * 4, 1.0), n)
+    return out
+
+
+@pytest.mark.parametrize("ratio", [2, 3, 4])
+def test_wilson_action_of_bpst_start_has_the_known_lattice_artefact(bpst_starts, ratio):
+    # S_W / S_cont = 1 - (1/5)(a/rho)^2 - (1/70)(a/rho)^4 (Garcia Perez, Gonzalez-Arroyo, Snippe,
+    # van Baal, Nucl. Phys. B 413 (1994) 535; from memory), S_cont over the same box, within 5% of the correction
+    links, origin, n = bpst_starts[ratio]
+    s_w = lat.wilson_action(links, boundary="open")
+    s_c = wilson_box_action(float(ratio), origin, n, 1.0)
+    corr = (1 / 5) / ratio**2 + (1 / 70) / ratio**4
+    assert abs((1.0 - s_w / s_c) - corr) < 0.05 * corr
+
+
+def test_clover_charge_tends_to_one_with_order_a_squared_corrections(bpst_starts):
+    # Q -> 1 (BPST 1975) with O(a^2) lattice artefacts (Symanzik; common practice): the charge over the
+    # region of the clovers divided by the continuum charge there, fitted to r0 + c (a/rho)^2 + d (a/rho)^4
+    xs, rs = [], []
+    for ratio, (links, origin, n) in sorted(bpst_starts.items()):
+        q = lat.clover_charge(links, boundary="open")
+        q_box = bpst_box_action(float(ratio), origin + 0.5, origin + (n - 1.5)) / EIGHT_PI2
+        xs.append(1.0 / ratio**2)
+        rs.append(q / q_box)
+    d, c, r0 = np.polyfit(xs, rs, 2)
+    assert abs(r0 - 1.0) < 2e-3  # the continuum limit is the integer charge
+    assert -1.0 < c < -0.6  # measured slope about -0.8 (a/rho)^2: a genuine O(a^2) approach
+    assert np.all(np.diff(rs) > 0)  # monotone in a
+
+
+def test_charge_two_adhm_and_thooft_starts(pair):
+    # lattice action / 8 pi^2 and clover charge near Q = 2 (ADHM 1978; 't Hooft ansatz, from memory),
+    # compared with the continuum action over the same box (quadrature of the closed-form density)
+    a, n = 0.6, 10
+    for field in pair:
+        links = lat.lattice_links(field, (n,) * 4, a, boundary="open", rtol=1e-8)
+        org = lat.default_origin(field, (n,) * 4, a)
+        nodes, weights = np.polynomial.legendre.leggauss(14)
+        lo, hi = org, org + a * (n - 1)
+        g = [0.5 * (hi[i] - lo[i]) * nodes + 0.5 * (hi[i] + lo[i]) for i in range(4)]
+        w = [0.5 * (hi[i] - lo[i]) * weights for i in range(4)]
+        pts = np.stack(np.meshgrid(*g, indexing="ij"), axis=-1)
+        wt = np.einsum("i,j,k,l->ijkl", *w)
+        s_box = float(np.sum(wt * fields.action_density(field, pts)))
+        s_w = lat.wilson_action(links, boundary="open")
+        q = lat.clover_charge(links, boundary="open")
+        assert 1.7 < s_box / EIGHT_PI2 < 2.0
+        assert 0.9 < s_w / s_box < 0.97  # about 1 - (1/5)(a/rho)^2 for two separated instantons
+        assert 1.4 < q < 2.0
