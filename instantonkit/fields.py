@@ -205,8 +205,11 @@ def evaluate(field, points, quantity: str, *, method: str = "auto", chunk_size: 
     field = as_field(field)
     pts, lead = as_points(points)
     m = pts.shape[0]
-    if isinstance(field, CallableField) and m:
-        _check_callable(field, pts[0])
+    inner = field  # a bare callable may sit inside wrappers (transforms keep it in ``.field``)
+    while not isinstance(inner, CallableField) and hasattr(inner, "field"):
+        inner = inner.field
+    if isinstance(inner, CallableField) and m:
+        _check_callable(inner, pts[0])
     kern = _kernel(quantity, method)
     probe = jax.eval_shape(lambda f, p: kern(f, p), field, jax.ShapeDtypeStruct((1, 4), jnp.float64))
     out = np.empty((m,) + probe.shape[1:], dtype=probe.dtype)

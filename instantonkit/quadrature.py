@@ -235,12 +235,33 @@ def _as_centers(centers, scales) -> tuple[np.ndarray, np.ndarray]:
     return c, s
 
 
+def radial_scales(centers, scales) -> np.ndarray:
+    """Radial scale L_i of piece i: max(rho_i, RADIAL_SPREAD * distance to the nearest other centre).
+
+    A lone lump is best served by L = rho (its density is then a rational function of u with poles at
+    u = (1 +- i)/2); a piece that reaches out to a neighbour at distance d needs nodes out to d,
+    which the larger L provides (measured here on two- and three-instanton data).
+    """
+    c, s = _as_centers(centers, scales)
+    if c.shape[0] == 1:
+        return s.copy()
+    d = np.linalg.norm(c[:, None] - c[None], axis=-1) + np.diag(np.full(c.shape[0], np.inf))
+    return np.maximum(s, RADIAL_SPREAD * np.min(d, axis=1))
+
+
+#: Fraction of the nearest-neighbour distance used as radial scale (see :func:`radial_scales`).
+RADIAL_SPREAD = 0.3
+
+
 # -- full rules ------------------------------------------------------------------------------------
 
 
-def rule_r4_piece(i: int, centers, scales, n_radial: int, n_angular: int, *, power: int | None = None) -> Rule:
-    """Piece i of :func:`rule_r4`: the rule centred at a_i with scale L_i, weights times w_i(x).
+def rule_r4_piece(
+    i: int, centers, scales, n_radial: int, n_angular: int, *, power: int | None = None, radial_scale: float | None = None
+) -> Rule:
+    """Piece i of :func:`rule_r4`: the rule centred at a_i with radial scale L_i, weights times w_i(x).
 
+    scales: (k,) rho_i of the partition of unity; radial_scale: L_i (default :func:`radial_scales`).
     Size n_radial * 2 n_angular^3.
     """
     power = DEFAULT_PARTITION_POWER if power is None else int(power)
@@ -249,13 +270,14 @@ def rule_r4_piece(i: int, centers, scales, n_radial: int, n_angular: int, *, pow
         raise ValueError(f"piece index must be in [0, {c.shape[0]}); found {i}")
     n_radial = _check_count("n_radial", n_radial)
     dirs, wd = _sphere3(_check_count("n_angular", n_angular))
-    r, wr = radial_nodes(n_radial, s[i], 4)
+    L = radial_scales(c, s)[i] if radial_scale is None else _check_scale("radial_scale", radial_scale)
+    r, wr = radial_nodes(n_radial, L, 4)
     pts = (c[i][None, None, :] + r[:, None, None] * dirs[None, :, :]).reshape(-1, 4)
     wts = (wr[:, None] * wd[None, :]).reshape(-1)
     if c.shape[0] > 1:
         wts = wts * partition_weights(pts, c, s, power=power)[:, i]
     desc = (
-        f"R^4 piece {i + 1}/{c.shape[0]}: {n_radial} Gauss-Legendre radial nodes (r = L u/(1-u), L = {s[i]:.4g}) x "
+        f"R^4 piece {i + 1}/{c.shape[0]}: {n_radial} Gauss-Legendre radial nodes (r = L u/(1-u), L = {L:.4g}) x "
         f"{2 * n_angular**3} S^3 product nodes (degree {2 * n_angular - 1})"
         + (f", partition of unity power {power}" if c.shape[0] > 1 else "")
     )
@@ -297,7 +319,8 @@ def rule_r3_circle_piece(
     n_time = _check_count("n_time", n_time)
     dirs, wd = _sphere2(_check_count("n_angular", n_angular))
     a = c[i]
-    r, wr = radial_nodes(n_radial, s[i], 3)
+    L = radial_scales(c, s)[i]
+    r, wr = radial_nodes(n_radial, L, 3)
     t = a[3] - 0.5 * beta + beta * np.arange(n_time) / n_time
     if n_time % 2:
         t = t + 0.5 * beta / n_time  # keep a node at a4
@@ -315,7 +338,7 @@ def rule_r3_circle_piece(
         wts = wts * partition_weights(pts, c, s, power=power, period=beta)[:, i]
     desc = (
         f"R^3 x S^1 (period {beta:g}) piece {i + 1}/{c.shape[0]}: {n_radial} Gauss-Legendre radial nodes "
-        f"(r = L u/(1-u), L = {s[i]:.4g}) x {2 * n_angular**2} S^2 product nodes x {n_time} trapezoid nodes in x4"
+        f"(r = L u/(1-u), L = {L:.4g}) x {2 * n_angular**2} S^2 product nodes x {n_time} trapezoid nodes in x4"
         + (f", periodic partition of unity power {power}" if c.shape[0] > 1 else "")
     )
     return Rule(pts, wts, desc)

@@ -262,7 +262,7 @@ def test_translation_covariance(shift):
 @FEW
 @given(shift=st.lists(st.floats(-3.0, 3.0), min_size=4, max_size=4))
 def test_translation_moves_the_potential(shift):
-    # A'(x) = A(x - shift) (ADHMData.translate): Delta'(x + shift) = Delta(x).
+    # Translations act on the point only (common practice): Delta'(x + shift) = Delta(x), so A'(x) = A(x - shift).
     cfg = config("SU2-k2")
     shift = np.asarray(shift)
     a = ik.potential(cfg["data"].translate(shift), cfg["x"] + shift)
