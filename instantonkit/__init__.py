@@ -10,6 +10,18 @@ from .ansatz import anti, bpst_field, caloron, jnr, thooft
 from .transforms import dilate, gauge_transform, parity, rotate, translate
 from .zero_modes import zero_mode_density, zero_mode_overlap, zero_modes
 from .finder import InstantonFit, find_instantons
+from .checks import (
+    DivergentIntegralError,
+    FieldEvaluationError,
+    IntegralResult,
+    Verification,
+    total_action,
+    total_charge,
+    verify,
+)
+from . import io, lattice
+from .lattice import average_plaquette, clover_charge, lattice_links, wilson_action
+from .io import load_lattice, save_lattice
 from .fields import (
     action_density,
     as_field,
@@ -21,9 +33,27 @@ from .fields import (
 
 __version__ = "0.1.0"
 
+
+def __getattr__(name):
+    """Lazy submodules: ``instantonkit.plot`` imports matplotlib only when first used."""
+    if name == "plot":
+        import importlib
+
+        return importlib.import_module(".plot", __name__)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+
+
 __all__ = [
     "conventions",
     "quaternion",
+    "lattice",
+    "io",
+    "lattice_links",
+    "average_plaquette",
+    "wilson_action",
+    "clover_charge",
+    "save_lattice",
+    "load_lattice",
     "ADHMData",
     "bpst",
     "multi_instanton",
@@ -51,4 +81,11 @@ __all__ = [
     "zero_mode_overlap",
     "find_instantons",
     "InstantonFit",
+    "total_action",
+    "total_charge",
+    "verify",
+    "IntegralResult",
+    "Verification",
+    "DivergentIntegralError",
+    "FieldEvaluationError",
 ]

@@ -36,7 +36,7 @@ def _parser() -> argparse.ArgumentParser:
         prog="python -m instantonkit",
         description="Verify a default three-instanton configuration: charge, action/8pi^2, self-duality, ADHM constraint.",
     )
-    p.add_argument("--rtol", type=float, default=1e-9, help="relative tolerance of the integrals (default 1e-9)")
+    p.add_argument("--rtol", type=float, default=1e-6, help="tolerance of the integrals, relative and absolute (default 1e-6)")
     p.add_argument("--budget", type=int, default=4_000_000, help="max density evaluations per integral")
     p.add_argument("--no-routes", action="store_true", help="skip the independent routes (Osborn's density)")
     p.add_argument("--json", action="store_true", help="print the report as JSON instead of a table")

@@ -268,7 +268,7 @@ class ADHMData:
     def _f(self, x):
         """f = (Delta^dag Delta)^-1, real (k, k), and B - p(x)."""
         bp = self._b_minus_p(x)
-        gram = _constraint_matrix(jnp.asarray(self.lam), bp)[..., 0]
+        gram = _real_gram(jnp.asarray(self.lam), bp)
         if self.k == 1:  # a 1 x 1 real matrix: skip the batched LU
             return 1.0 / gram, bp
         return jnp.linalg.inv(gram), bp
@@ -276,7 +276,7 @@ class ADHMData:
     def log_det(self, x):
         """log det(Delta^dag Delta) at one point (4,) -> () (for Osborn's formula)."""
         bp = self._b_minus_p(x)
-        gram = _constraint_matrix(jnp.asarray(self.lam), bp)[..., 0]
+        gram = _real_gram(jnp.asarray(self.lam), bp)
         return jnp.linalg.slogdet(gram)[1]
 
     def _frame(self, x):
@@ -353,6 +353,11 @@ class ADHMData:
         rho = self.sizes()
         spread = float(np.max(np.linalg.norm(c - c.mean(0), axis=1))) if self.k > 1 else 0.0
         return c.mean(axis=0), float(max(np.max(rho), spread, 1e-300))
+
+
+def _real_gram(lam, bp):
+    """Re(Delta^dag Delta)_ij = sum_{l,a} Delta_li^a Delta_lj^a, the real k x k matrix, without the imaginary parts."""
+    return jnp.einsum("lia,lja->ij", lam, lam) + jnp.einsum("lia,lja->ij", bp, bp)
 
 
 def _real_mul(f, q):

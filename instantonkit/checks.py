@@ -252,16 +252,16 @@ def _decay_exponent(values: np.ndarray, radii: np.ndarray) -> float | None:
 def _piece_error(diff: float, previous: float, magnitude: float) -> tuple[float, float]:
     """Error estimate of the finer of two levels, and |diff| to remember.
 
-    |diff| bounds the error of the coarser level; for the finer one it is safe when the levels
-    converge fast (ratio q = |diff| / |previous diff| small).  When they converge slowly the geometric
-    tail |diff| q / (1 - q) is larger, so the estimate is |diff| max(1, 2 q / (1 - q)), q <= 0.9,
-    plus a rounding floor 64 eps sum |w f|.
+    |diff| bounds the error of the coarser level and, when the levels converge fast, generously that
+    of the finer one.  To stay an upper bound when they converge slowly or erratically, the estimate is
+    |diff| max(2, 3 q / (1 - q)) with q = |diff| / |previous diff| (<= 0.9; the geometric tail is
+    |diff| q / (1 - q)), or 3 |diff| without history, plus a rounding floor 64 eps sum |w f|.
     """
     d = abs(diff)
-    factor = 1.0
+    factor = 3.0
     if np.isfinite(previous) and previous > 0:
         q = min(d / previous, 0.9)
-        factor = max(1.0, 2.0 * q / (1.0 - q))
+        factor = max(2.0, 3.0 * q / (1.0 - q))
     return d * factor + 64 * _EPS * magnitude, d
 
 
@@ -348,6 +348,11 @@ def _shell_rule(piece: _Piece, j: int, level: int, centres, scales, period):
     return pts, w
 
 
+def _shell_size(level: int, periodic: bool) -> int:
+    n, nt = _angular_counts(level, periodic)
+    return 2 * n * n * nt if periodic else 2 * n**3
+
+
 def _greedy(errors: np.ndarray, target: float) -> list[int]:
     """Indices of the largest errors, largest first, until the rest sums to <= target."""
     errors = np.asarray(errors, dtype=np.float64)
@@ -416,7 +421,7 @@ def _integrate(
         p.set_radial_level(lr, init)
         reqs = []
         for j in range(p.r.shape[0]):
-            lo = max(int(p.la[j]) - 1, 0)
+            lo = max(int(p.la[j]) - 1, 0)  # the pair (lo, lo + 1) gives the first error estimate
             p.la[j] = lo + 1
             reqs += [(p, "lo", j, lo), (p, "hi", j, lo + 1)]
         return reqs
@@ -474,29 +479,36 @@ def _integrate(
         errs = np.array([p.error for p in pieces])
         chosen = [pieces[i] for i in _greedy(errs, 0.5 * tol)]
         share = tol / k
-        reqs = []
-        for p in chosen:
-            if p.angular_err > 0.25 * share or p.angular_err > p.radial_err:
-                idx = [j for j in _greedy(p.err, 0.1 * share) if p.la[j] < _MAX_ANGULAR_LEVEL]
-                reqs += [(p, "up", j, int(p.la[j]) + 1) for j in idx]
-            elif p.lr < _MAX_RADIAL_LEVEL:
-                old = p.value
-                p.last_radial_diff = abs(old - p.prev_value) if np.isfinite(p.prev_value) else math.nan
-                p.prev_value = old
-                init = p.levels_for(_quad.radial_nodes(_radial_count(p.lr + 1), p.L, dim)[0])
-                reqs += new_level_requests(p, p.lr + 1, init)
+        plans = []  # (piece, 'angular', shell indices) or (piece, 'radial', initial levels)
         need = 0
-        for req in reqs:
-            n, nt = _angular_counts(req[3], periodic)
-            need += (2 * n**3) if not periodic else (2 * n * n * nt)
-        if not reqs or evaluations + need > max_points:
+        for p in chosen:
+            # shells first while their error is not small beside the radial one, then the next radial level
+            if p.angular_err > max(0.25 * share, 0.1 * p.radial_err) or p.lr >= _MAX_RADIAL_LEVEL:
+                idx = [j for j in _greedy(p.err, 0.5 * p.angular_err) if p.la[j] < _MAX_ANGULAR_LEVEL]
+                plans.append((p, "angular", idx))
+                need += sum(_shell_size(int(p.la[j]) + 1, periodic) for j in idx)
+            elif p.lr < _MAX_RADIAL_LEVEL:
+                init = p.levels_for(_quad.radial_nodes(_radial_count(p.lr + 1), p.L, dim)[0])
+                plans.append((p, "radial", init))
+                need += sum(_shell_size(int(max(lev - 1, 0)), periodic) + _shell_size(int(max(lev, 1)), periodic)
+                            for lev in init)
+        if not plans or evaluations + need > max_points:
             message = (
                 f"budget spent: the next round needs {need:,} more points, beyond max_points = {max_points:,} "
                 f"({evaluations:,} used); estimated error {error:.1e} > tolerance {tol:.1e}"
-                if reqs
+                if plans
                 else f"finest levels reached; estimated error {error:.1e} > tolerance {tol:.1e}"
             )
             break
+        reqs = []
+        for p, kind, arg in plans:
+            if kind == "angular":
+                reqs += [(p, "up", j, int(p.la[j]) + 1) for j in arg]
+            else:
+                old = p.value
+                p.last_radial_diff = abs(old - p.prev_value) if np.isfinite(p.prev_value) else math.nan
+                p.prev_value = old
+                reqs += new_level_requests(p, p.lr + 1, arg)
         res, _, n_used = run(reqs)
         evaluations += n_used
         apply(res, reqs)
@@ -863,7 +875,7 @@ def verify(
     S/8pi^2 - |Q| (>= 0 always; 0 for (anti-)self-dual fields), the (anti-)self-duality residual
     |F -+ *F|/|F| (sign from Q) as max and s-weighted mean over the integration points, the ADHM
     constraint residual where the field has data, and the independent routes of the module docstring.
-    ``passed`` requires: both integrals converged to within ``charge_tol``, |Q - n| <= charge_tol,
+    ``rtol``/``atol`` apply to Q and to S / 8 pi^2.  ``passed`` requires: both integrals converged to within ``charge_tol``, |Q - n| <= charge_tol,
     n == expected_charge (if given) and n != 0, |margin| <= duality_tol and mean residual
     <= duality_tol, constraint residual <= constraint_tol, decisive routes agreeing.
     ``winding``: compute the sphere flux (None: for potentials declared 'regular' and for callables).
@@ -879,8 +891,9 @@ def verify(
         centres, scales, per, _ = _layout(field, center, scale, period)
         charge, _ = _integrate(_evaluator(field, "charge_density", charge_method, "charge density"), "charge",
                                centres, scales, per, **kw)
+        kw_s = dict(kw, atol=atol * INSTANTON_ACTION)  # atol is for Q and for S / 8 pi^2
         action, pieces = _integrate(_evaluator(field, "action_density", "auto", "action density"), "action",
-                                    centres, scales, per, **kw)
+                                    centres, scales, per, **kw_s)
     except (DivergentIntegralError, FieldEvaluationError) as err:
         reasons.append(str(err))
         per = period
@@ -955,8 +968,9 @@ def _routes(field, charge, centres, scales, per, kw, tol, winding) -> list[Route
     if hasattr(field, "constraint_residual") and hasattr(field, "log_det") and centres is not None:
         name = "Osborn density -1/2 box box log det(Delta^dag Delta)"
         try:
+            kw_s = dict(kw, atol=kw["atol"] * INSTANTON_ACTION)
             res, _ = _integrate(_evaluator(_OsbornField(field), "action_density", "auto", "Osborn density"),
-                                "Osborn action", centres, scales, per, **kw)
+                                "Osborn action", centres, scales, per, **kw_s)
             sign = 1 if field.chirality > 0 else -1
             val, err = sign * res.value / INSTANTON_ACTION, res.error / INSTANTON_ACTION
             out.append(Route(name, val, err, True, _agree(val, err, charge, tol),

@@ -189,6 +189,24 @@ def _check_callable(field, x0: np.ndarray) -> None:
         raise ValueError(f"the potential must be anti-Hermitian (A^dag = -A); max |A + A^dag| = {herm:.3e} at {x0}")
 
 
+_STRUCT_CACHE: dict = {}
+
+
+def _output_struct(kern, field):
+    """Shape/dtype of the kernel output for one point, memoised per kernel and field structure."""
+    leaves, treedef = jax.tree_util.tree_flatten(field)
+    key = (kern, treedef, tuple((np.shape(l), np.result_type(l)) for l in leaves))
+    try:
+        hit = _STRUCT_CACHE.get(key)
+    except TypeError:  # unhashable static data: no memo
+        hit, key = None, None
+    if hit is None:
+        hit = jax.eval_shape(lambda f, p: kern(f, p), field, jax.ShapeDtypeStruct((1, 4), jnp.float64))
+        if key is not None:
+            _STRUCT_CACHE[key] = hit
+    return hit
+
+
 def evaluate(field, points, quantity: str, *, method: str = "auto", chunk_size: int = DEFAULT_CHUNK):
     """Evaluate ``quantity`` of ``field`` on ``points`` (..., 4) in chunks; returns a numpy array.
 
@@ -211,14 +229,14 @@ def evaluate(field, points, quantity: str, *, method: str = "auto", chunk_size: 
     if isinstance(inner, CallableField) and m:
         _check_callable(inner, pts[0])
     kern = _kernel(quantity, method)
-    probe = jax.eval_shape(lambda f, p: kern(f, p), field, jax.ShapeDtypeStruct((1, 4), jnp.float64))
+    probe = _output_struct(kern, field)
     out = np.empty((m,) + probe.shape[1:], dtype=probe.dtype)
     if m:
-        size = min(int(chunk_size), 1 << int(np.ceil(np.log2(m))))  # few distinct compiled sizes
-        for start in range(0, m, size):
-            stop = min(start + size, m)
+        for start in range(0, m, chunk_size):
+            stop = min(start + chunk_size, m)
             chunk = pts[start:stop]
-            if stop - start < size:  # pad with the first point (a regular point of the set)
+            size = chunk_size if stop - start == chunk_size else max(16, 1 << int(np.ceil(np.log2(stop - start))))
+            if size > stop - start:  # pad the last chunk to a power of two with a point of the set
                 chunk = np.concatenate([chunk, np.broadcast_to(pts[start], (size - (stop - start), 4))])
             out[start:stop] = np.asarray(kern(field, chunk))[: stop - start]
         flat = out.reshape(m, -1)

@@ -163,8 +163,7 @@ def _save_ildg(fh, u, metadata, lfn):
         )
     shape = u.shape[:4]
     nbytes = int(np.prod(shape)) * 4 * 9 * 16
-    records = [("ildg-format", _ildg_xml(shape).encode())]
-    _write_record(fh, records[0][0], records[0][1], mb=True, me=False)
+    _write_record(fh, "ildg-format", _ildg_xml(shape).encode(), mb=True, me=False)
     fh.write(_lime_header("ildg-binary-data", nbytes, mb=False, me=lfn is None))
     for t in range(shape[3]):  # t slowest; within a time slice (z, y, x, mu, a, b)
         block = np.asarray(u[:, :, :, t]).transpose(2, 1, 0, 3, 4, 5)

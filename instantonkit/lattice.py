@@ -64,11 +64,11 @@ _GROUPS = ("su2", "su3", None)
 _BOUNDARIES = ("periodic", "open")
 _METHODS = ("auto", "closed", "magnus")
 #: Links per compiled call of the transporter kernels.
-LINK_CHUNK = 16384
+LINK_CHUNK = 4096
 #: Bytes of link data handled at once by the observables (time slabs).
-SLAB_BYTES = 1 << 27
+SLAB_BYTES = 1 << 26
 _MAX_STEPS = 1 << 10
-_CHUNK_SIZES = (256, 2048)
+_CHUNK_SIZES = (256,)
 
 
 # -- the closed form for charge-1 SU(2) ADHM data ------------------------------------------------------
@@ -222,10 +222,15 @@ def _closed_kernel(fn):
     return jax.jit(jax.vmap(fn, in_axes=(None, 0, 0)))
 
 
-def _chunked(kern, field, xs, ds, *extra, chunk=LINK_CHUNK):
-    """Run a vmapped link kernel over (M, 4) starts and steps in padded chunks; (M, N, N) numpy."""
+def _chunk_size(m: int, chunk: int = LINK_CHUNK) -> int:
+    """Padded batch size for m links: one of a few sizes, so few kernels are compiled."""
+    return next((c for c in _CHUNK_SIZES if c >= m), chunk) if m < chunk else chunk
+
+
+def _chunked(kern, field, xs, ds, *extra, size=None):
+    """Run a vmapped link kernel over (M, 4) starts and steps in padded chunks of ``size``; (M, N, N) numpy."""
     m = xs.shape[0]
-    size = next((c for c in _CHUNK_SIZES if c >= m), chunk) if m < chunk else chunk  # few compiled sizes
+    size = _chunk_size(m) if size is None else size
     parts = []
     for start in range(0, m, size):
         stop = min(start + size, m)
@@ -242,7 +247,8 @@ def _magnus_refined(field, xs, ds, rtol, stats):
     """Magnus transporters refined by halving the step until two refinements differ by <= rtol."""
     kern = _magnus_kernel()
     steps = 1
-    prev = _chunked(kern, field, xs, ds, steps)
+    size = _chunk_size(xs.shape[0])  # kept for the refinements: one compiled batch size per call
+    prev = _chunked(kern, field, xs, ds, steps, size=size)
     out = prev.copy()
     todo = np.arange(xs.shape[0])
     diff_max = 0.0
@@ -254,7 +260,7 @@ def _magnus_refined(field, xs, ds, rtol, stats):
                 f"steps on {todo.size} link(s) (first start {xs[todo[0]].tolist()}, step {ds[todo[0]].tolist()}); "
                 "the field may be singular near those links"
             )
-        cur = _chunked(kern, field, xs[todo], ds[todo], steps)
+        cur = _chunked(kern, field, xs[todo], ds[todo], steps, size=size)
         diff = np.max(np.abs(cur - prev), axis=(-2, -1))
         diff = np.where(np.isfinite(diff), diff, np.inf)
         done = diff <= rtol
@@ -702,21 +708,26 @@ def _slabs(u, margin: int):
 
 def _shift(arr, mu, s):
     """arr[n + s mu_hat] (periodic roll within the slab); arr: (N, N, L1, L2, L3, T)."""
-    return jnp.roll(arr, -s, axis=2 + mu) if s else arr
+    return _xp(arr).roll(arr, -s, axis=2 + mu) if s else arr
+
+
+def _xp(arr):
+    """numpy for numpy arrays, jax.numpy otherwise (the slab helpers serve both)."""
+    return np if isinstance(arr, np.ndarray) else jnp
 
 
 def _mm(a, b):
-    """Matrix product of fields of matrices (N, N, ...) written as a broadcast sum (fuses well)."""
-    return jnp.sum(a[:, :, None] * b[None, :, :], axis=1)
+    """Matrix product of fields of matrices (N, N, ...): an explicit sum over the inner index of
+    contiguous site arrays (structure-of-arrays layout vectorises well)."""
+    n = a.shape[1]
+    out = a[:, 0:1] * b[0:1, :]
+    for j in range(1, n):
+        out = out + a[:, j : j + 1] * b[j : j + 1, :]
+    return out
 
 
 def _dag(m):
-    return jnp.conj(jnp.swapaxes(m, 0, 1))
-
-
-def _to_aos(x):
-    """(N, N, ...) -> (..., N, N)."""
-    return jnp.moveaxis(x, (0, 1), (-2, -1))
+    return _xp(m).conj(_xp(m).swapaxes(m, 0, 1))
 
 
 def _plane_plaquette(ext, mu, nu):
@@ -730,19 +741,18 @@ def _plane_retrace(ext, mu, nu):
     umu, unu = ext[mu], ext[nu]
     left = _mm(umu, _shift(unu, mu, 1))
     right = _mm(unu, _shift(umu, nu, 1))
-    return jnp.real(jnp.sum(left * jnp.conj(right), axis=(0, 1)))
+    return np.real(np.sum(left * np.conj(right), axis=(0, 1)))
 
 
-@jax.jit
 def _slab_retraces(ext):
     """Re tr U_p for the six planes on the core times of a slab with margin 1; (L1, L2, L3, T, 6)."""
-    return jnp.stack([_plane_retrace(ext, mu, nu) for mu, nu in PLANES], axis=-1)[:, :, :, 1:-1]
+    return np.stack([_plane_retrace(ext, mu, nu)[:, :, :, 1:-1] for mu, nu in PLANES], axis=-1)
 
 
-@jax.jit
 def _slab_plaquettes(ext):
-    p = jnp.stack([_plane_plaquette(ext, mu, nu) for mu, nu in PLANES], axis=2)  # (N, N, 6, L1, L2, L3, T)
-    return jnp.moveaxis(p, (0, 1, 2), (-2, -1, -3))[:, :, :, 1:-1]
+    """Plaquette matrices on the core times; (L1, L2, L3, T, 6, N, N)."""
+    p = np.stack([_plane_plaquette(ext, mu, nu)[..., 1:-1] for mu, nu in PLANES], axis=2)
+    return np.moveaxis(p, (0, 1, 2), (-2, -1, -3))
 
 
 def _open_mask(shape, t0, t1, planes_need, lo: int):
@@ -814,7 +824,7 @@ def wilson_action(links, beta: float | None = None, *, boundary: str = "periodic
 
 
 def _clover_planes(ext):
-    """Clover F_mu nu (lattice units) on a slab array for the six planes; (L1, L2, L3, T, 6, N, N).
+    """Clover F_mu nu (lattice units) on a slab array for the six planes; (N, N, 6, L1, L2, L3, T).
 
     Q = sum of the four plaquettes in the (mu, nu) plane that start and end at n, all with the
     orientation mu -> nu; F = [(Q - Q^dag) - tr(Q - Q^dag) / N] / 8, anti-Hermitian and traceless,
@@ -823,7 +833,7 @@ def _clover_planes(ext):
     """
     res = []
     n = ext.shape[1]
-    eye = jnp.eye(n).reshape((n, n) + (1,) * (ext.ndim - 3))
+    eye = np.eye(n).reshape((n, n) + (1,) * (ext.ndim - 3))
     for mu, nu in PLANES:
         umu, unu = ext[mu], ext[nu]
         umu_m = _shift(umu, mu, -1)  # U_mu(n - mu)
@@ -833,24 +843,22 @@ def _clover_planes(ext):
         q = q + _mm(_mm(_dag(umu_m), _dag(_shift(unu_m, mu, -1))), _mm(_shift(umu_m, nu, -1), unu_m))
         q = q + _mm(_mm(_dag(unu_m), _shift(umu, nu, -1)), _mm(_shift(_shift(unu, nu, -1), mu, 1), _dag(umu)))
         aq = q - _dag(q)
-        tr = jnp.trace(aq, axis1=0, axis2=1)
+        tr = np.trace(aq, axis1=0, axis2=1)
         res.append((aq - tr[None, None] * eye / n) / 8.0)
-    return jnp.stack(res, axis=2)  # (N, N, 6, L1, L2, L3, T)
+    return np.stack(res, axis=2)
 
 
-@jax.jit
 def _slab_clover(ext):
     """(L1, L2, L3, T, 6, N, N) on the core times."""
-    return jnp.moveaxis(_clover_planes(ext), (0, 1, 2), (-2, -1, -3))[:, :, :, 1:-1]
+    return np.moveaxis(_clover_planes(ext), (0, 1, 2), (-2, -1, -3))[:, :, :, 1:-1]
 
 
-@jax.jit
 def _slab_charge(ext):
     """-1/(32 pi^2) eps tr F F = -(8/(32 pi^2)) (tr F12 F34 - tr F13 F24 + tr F14 F23); (L1, L2, L3, T)."""
     f = _clover_planes(ext)[..., 1:-1]
 
     def trf(p, r):
-        return jnp.real(jnp.sum(f[:, :, p] * jnp.swapaxes(f[:, :, r], 0, 1), axis=(0, 1)))
+        return np.real(np.sum(f[:, :, p] * np.swapaxes(f[:, :, r], 0, 1), axis=(0, 1)))
 
     return 8.0 * CHARGE_DENSITY_FACTOR * (trf(0, 5) - trf(1, 4) + trf(2, 3))
 

@@ -38,7 +38,8 @@ QUANTITIES = {
 
 #: Points per compiled call when evaluating a picture.
 _CHUNK = 4096
-_SUPERSCRIPT4 = {"action": 4, "charge": 4, "residual": 0}
+#: Power of the length unit that makes each quantity dimensionless (s, q ~ length^-4).
+_LENGTH_POWER = {"action": 4, "charge": 4, "residual": 0}
 
 
 def _pyplot():
@@ -207,7 +208,7 @@ def _limits(arrays, diverging: bool) -> tuple[float, float]:
 
 
 def _dimensionless(values, quantity, L):
-    return values * L ** _SUPERSCRIPT4[quantity]
+    return values * L ** _LENGTH_POWER[quantity]
 
 
 def _position_text(base, fixed, L, unit) -> str:

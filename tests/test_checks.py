@@ -136,8 +136,8 @@ def test_anti_instanton_charge_is_minus_one(bpst_data):
 
 
 #: Tolerances that give |Q - k| <= 1e-8 and |S / 8 pi^2 - k| <= 1e-8 (the issue's targets).
-TIGHT = dict(rtol=0.0, atol=5e-9)
-TIGHT_S = dict(rtol=0.0, atol=5e-9 * EIGHT_PI2)
+TIGHT = dict(rtol=0.0, atol=8e-9)
+TIGHT_S = dict(rtol=0.0, atol=8e-9 * EIGHT_PI2)
 
 
 def test_bpst_charge_from_eps_tr_ff_of_the_closed_form_f(bpst_data):
@@ -152,6 +152,7 @@ def test_random_adhm_k2_action_and_charge():
     _within(checks.total_charge(data, **TIGHT), 2.0)
 
 
+@pytest.mark.slow
 def test_random_adhm_k3_action_and_charge():
     # S = 8 pi^2 k, Q = k (ADHM 1978)
     data = ik.random_adhm(3, seed=3, spread=3.0)
@@ -167,7 +168,7 @@ def test_sp2_data_action_and_charge():
     _within(checks.total_charge(data, **TIGHT), 2.0)
 
 
-@pytest.mark.parametrize("k", [2, 3])
+@pytest.mark.parametrize("k", [2, pytest.param(3, marks=pytest.mark.slow)])
 def test_thooft_charge_is_the_number_of_poles(k):
     # 't Hooft ansatz phi = 1 + sum rho_i^2/|x - a_i|^2 has Q = k ('t Hooft 1976; Jackiw, Nohl, Rebbi,
     # Phys. Rev. D 15 (1977) 1642; from memory)
@@ -200,20 +201,33 @@ def test_harrington_shepard_caloron_action_per_period_is_8pi2():
 # -- Osborn's density and the sphere flux ----------------------------------------------------------
 
 
-def test_osborn_density_matches_sympy_box_box_log_det_for_k2():
+def test_osborn_density_matches_mpmath_box_box_log_det_for_k2():
     # s = -1/2 box box log det(Delta^dag Delta) (Osborn, Nucl. Phys. B 159 (1979) 497, from memory);
-    # the closed form of checks.osborn_density against sympy's fourth derivatives of the exact det
+    # the closed form of checks.osborn_density against mpmath's numerical fourth partial derivatives
+    import mpmath
+
     data = ik.random_adhm(2, seed=4)
     g0, gmu = (np.asarray(a) for a in checks._gram_coefficients(data))
-    xs = sp.symbols("y1:5", real=True)
-    gram = sp.Matrix(g0) + sum((sp.Matrix(gmu[m]) * xs[m] for m in range(4)), sp.zeros(2, 2))
-    gram += sum(x**2 for x in xs) * sp.eye(2)
-    logdet = sp.log(gram.det())
-    lap = lambda e: sum(sp.diff(e, x, 2) for x in xs)  # noqa: E731
-    point = np.array([0.3, -0.4, 0.2, 0.5])
-    expr = -sp.Rational(1, 2) * lap(lap(logdet))
-    ref = float(expr.subs(dict(zip(xs, point))))
-    assert abs(float(checks.osborn_density(data, jnp.asarray(point))) - ref) <= 1e-9 * abs(ref)
+    mpmath.mp.dps = 30
+
+    def logdet(*y):
+        g = mpmath.matrix(g0.tolist())
+        for m in range(4):
+            g += mpmath.matrix(gmu[m].tolist()) * y[m]
+        g += mpmath.eye(2) * sum(v**2 for v in y)
+        return mpmath.log(mpmath.det(g))
+
+    point = [mpmath.mpf("0.3"), mpmath.mpf("-0.4"), mpmath.mpf("0.2"), mpmath.mpf("0.5")]
+    total = mpmath.mpf(0)
+    for m in range(4):
+        for n in range(4):
+            order = [0, 0, 0, 0]
+            order[m] += 2
+            order[n] += 2
+            total += mpmath.diff(logdet, point, tuple(order))
+    ref = float(-total / 2)
+    val = float(checks.osborn_density(data, jnp.asarray([float(v) for v in point])))
+    assert abs(val - ref) <= 1e-9 * abs(ref)
 
 
 def test_osborn_density_equals_the_closed_form_action_density():
@@ -334,8 +348,8 @@ def test_slowly_decaying_density_raises_a_divergence_error():
 
 def test_slowly_decaying_density_fails_verification_with_the_reason():
     rep = checks.verify(_slow_abelian)
-    assert not rep.passed and rep.charge is None
-    assert any("diverges" in r for r in rep.reasons)
+    assert not rep.passed and rep.action is None
+    assert any("action density falls like" in r and "diverges" in r for r in rep.reasons)
 
 
 def _failing(x):
@@ -386,7 +400,7 @@ def test_silent_when_stderr_is_not_a_terminal(bpst_data, capsys):
 
 @pytest.fixture(scope="module")
 def report_k2():
-    return checks.verify(ik.random_adhm(2, seed=2, spread=3.0), expected_charge=2, rtol=1e-10, atol=5e-9)
+    return checks.verify(ik.random_adhm(2, seed=2, spread=3.0), expected_charge=2, rtol=0.0, atol=8e-9)
 
 
 def test_verify_passes_for_adhm_k2(report_k2):

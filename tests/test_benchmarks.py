@@ -1,0 +1,98 @@
+"""The benchmark entry point runs and prints one table; timings are printed, never checked."""
+
+import os
+import subprocess
+import sys
+import textwrap
+
+import pytest
+
+ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+sys.path.insert(0, ROOT)
+
+from benchmarks import run as bench_run  # noqa: E402
+
+
+def test_every_benchmark_module_is_discovered():
+    assert {"bench_fields", "bench_lattice"} <= set(bench_run.discover())
+
+
+def test_smoke_run_from_the_repository_root_prints_a_markdown_table_with_rows():
+    out = subprocess.run(
+        [sys.executable, "-m", "benchmarks", "--smoke", "--markdown"],
+        cwd=ROOT, capture_output=True, text=True, timeout=900,
+    )
+    assert out.returncode == 0, out.stderr[-3000:]
+    lines = out.stdout.splitlines()
+    assert lines[0].startswith("Machine: ") and "mode: smoke" in lines[0]
+    head = lines.index("| figure | value | unit | ratio | reference |")
+    rows = [ln for ln in lines[head + 2 :] if ln.startswith("| ")]
+    assert any(r.startswith("| fields: ") for r in rows)
+    assert any(r.startswith("| lattice: ") for r in rows)
+    assert all(r.count(" | ") == 4 for r in rows)  # five cells per row
+    assert not any("FAILED" in r for r in rows)
+
+
+@pytest.fixture
+def fake_package(tmp_path, monkeypatch):
+    pkg = tmp_path / "fakebench"
+    pkg.mkdir()
+    (pkg / "__init__.py").write_text("")
+    (pkg / "bench_ok.py").write_text(textwrap.dedent('''
+        def run(quick=False):
+            n = 10 if quick else 1000
+            return [{"figure": "points", "value": float(n), "unit": "n", "ratio": 0.5, "reference": "a | b"},
+                    {"figure": "bare", "value": 3.0}]
+    '''))
+    (pkg / "bench_broken.py").write_text("def run(quick=False):\n    raise RuntimeError('no luck')\n")
+    (pkg / "bench_norun.py").write_text("X = 1\n")
+    monkeypatch.syspath_prepend(str(tmp_path))
+    return "fakebench"
+
+
+def test_collect_passes_quick_and_tags_rows_with_their_module(fake_package):
+    rows = bench_run.collect(quick=True, package=fake_package, names=["bench_ok"])
+    assert [r["benchmark"] for r in rows] == ["ok", "ok"]
+    assert rows[0]["value"] == 10.0
+
+
+def test_collect_fills_missing_columns(fake_package):
+    bare = bench_run.collect(package=fake_package, names=["bench_ok"])[1]
+    assert (bare["unit"], bare["ratio"], bare["reference"]) == ("", None, "")
+
+
+def test_a_failing_module_becomes_a_failed_row_and_the_others_still_run(fake_package):
+    rows = bench_run.collect(package=fake_package, names=["bench_broken", "bench_norun", "bench_ok"])
+    figures = [r["figure"] for r in rows]
+    assert figures[0] == "FAILED: RuntimeError: no luck"
+    assert figures[1].startswith("FAILED: AttributeError") and "no run(quick)" in figures[1]
+    assert figures[2:] == ["points", "bare"]
+
+
+def test_only_selects_by_short_name_and_rejects_unknown_names(fake_package):
+    names = ["bench_ok", "bench_broken"]
+    assert len(bench_run.collect(package=fake_package, names=names, only=["ok"])) == 2
+    with pytest.raises(ValueError, match="unknown benchmark 'nope'"):
+        bench_run.collect(package=fake_package, names=names, only=["nope"])
+
+
+def test_text_table_has_a_header_and_one_line_per_row(fake_package):
+    rows = bench_run.collect(package=fake_package, names=["bench_ok"])
+    lines = bench_run.format_table(rows).splitlines()
+    assert lines[0].split() == ["figure", "value", "unit", "ratio", "reference"]
+    assert len(lines) == 2 + len(rows) and "ok: points" in lines[2]
+
+
+def test_markdown_table_escapes_pipes(fake_package):
+    rows = bench_run.collect(package=fake_package, names=["bench_ok"])
+    md = bench_run.format_markdown(rows).splitlines()
+    assert md[1] == "| --- | ---: | --- | ---: | --- |"
+    assert md[2] == "| ok: points | 1000 | n | 0.5 | a \\| b |"
+
+
+def test_main_exits_nonzero_when_a_benchmark_failed(fake_package, monkeypatch, capsys):
+    real = bench_run.collect
+    monkeypatch.setattr(bench_run, "collect",
+                        lambda quick, **kw: real(quick, package=fake_package, names=["bench_broken"]))
+    assert bench_run.main(["--quick"]) == 1
+    assert "FAILED: RuntimeError: no luck" in capsys.readouterr().out
