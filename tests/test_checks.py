@@ -172,10 +172,11 @@ def test_sp2_data_action_and_charge():
 def test_thooft_charge_is_the_number_of_poles(k):
     # 't Hooft ansatz phi = 1 + sum rho_i^2/|x - a_i|^2 has Q = k ('t Hooft 1976; Jackiw, Nohl, Rebbi,
     # Phys. Rev. D 15 (1977) 1642; from memory)
-    centers = np.array([[0.0, 0, 0, 0], [3.5, 0.5, 0, 0.5], [-0.5, 3.0, 1.0, -2.0]])[:k]
+    centers = np.array([[0.0, 0, 0, 0], [4.5, 0.5, 0, 0.5], [-0.5, 4.0, 1.0, -2.0]])[:k]
     field = ansatz.thooft(centers, [1.0, 0.8, 1.1][:k])
-    _within(checks.total_charge(field, **TIGHT), float(k))
-    _within(checks.total_action(field, **TIGHT_S), k * EIGHT_PI2, 1e-8 * EIGHT_PI2)
+    budget = dict(max_points=12_000_000)  # the closed-form density is noisy next to the poles
+    _within(checks.total_charge(field, **TIGHT, **budget), float(k))
+    _within(checks.total_action(field, **TIGHT_S, **budget), k * EIGHT_PI2, 1e-8 * EIGHT_PI2)
 
 
 def test_jnr_k2_charge():
