@@ -10,7 +10,6 @@ from __future__ import annotations
 import argparse
 import time
 
-import numpy as np
 
 import instantonkit as ik
 from instantonkit import ansatz, checks

@@ -2,11 +2,13 @@
 
 ``total_action(field)`` and ``total_charge(field)`` integrate the action density
 ``s = -1/2 sum tr F F`` and the charge density ``q = -1/(32 pi^2) eps tr F F`` (conventions module)
-with the rules of :mod:`instantonkit.quadrature`: one hyperspherical rule per centre, glued by a smooth
-partition of unity, refined piece by piece until the estimated error meets
-``max(atol, rtol |value|)`` or the ``max_points`` budget is spent.  The error estimate of a piece is
-the difference of its last two levels (the value reported is the finer one, whose own error is much
-smaller for the geometrically converging rules used here), plus a rounding floor.
+with the building blocks of :mod:`instantonkit.quadrature`: one hyperspherical rule per centre, glued
+by a smooth partition of unity.  Each piece is adaptive in two ways: Gauss-Legendre radial levels in
+``u`` (``r = L u / (1 - u)``), and for every radial node (a shell) its own angular level of the product
+rule on S^3 (or S^2 x the x4 circle).  Refinement goes to the pieces and shells that carry the error
+until it meets ``max(atol, rtol |value|)`` or the ``max_points`` budget is spent (then ``converged`` is
+False and ``message`` says so).  Error estimates are differences of the last two levels, enlarged when
+the levels converge slowly (see ``_piece_error``), plus a rounding floor.
 
 Before integrating, the density is sampled along rays at large radius; if it falls no faster than
 about ``|x|^-(d + 1)`` (``d`` = 4, or 3 for periodic fields) the integral diverges or converges too

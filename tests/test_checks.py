@@ -20,7 +20,7 @@ from hypothesis import strategies as st
 import instantonkit as ik
 from instantonkit import ansatz, checks, quadrature as qd
 from instantonkit import quaternion as qt
-from instantonkit.conventions import INSTANTON_ACTION, point_to_quaternion
+from instantonkit.conventions import point_to_quaternion
 
 PI = math.pi
 EIGHT_PI2 = 8.0 * PI**2
