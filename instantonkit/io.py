@@ -63,7 +63,8 @@ def _atomic_write(path, write):
         raise
 
 
-def _check_links(links):
+def check_links(links):
+    """Validate link variables: shape (L1, L2, L3, L4, 4, N, N) and complex dtype; returns the array."""
     u = links if isinstance(links, np.memmap) else np.asarray(links)
     if u.ndim != 7 or u.shape[4] != 4 or u.shape[5] != u.shape[6]:
         raise ValueError(f"links must have shape (L1, L2, L3, L4, 4, N, N); found {u.shape}")
@@ -238,7 +239,7 @@ def _load_npz(path):
         if "npz lattice file" in str(err):
             raise
         raise ValueError(f"corrupt or truncated npz lattice file {os.fspath(path)!r}: {err}") from err
-    _check_links(links)
+    check_links(links)
     return links, {"format": "npz", "metadata": meta}
 
 
@@ -255,7 +256,7 @@ def save_lattice(path, links, format: str = "npz", metadata: dict | None = None,
     """
     if format not in _FORMATS:
         raise ValueError(f"format must be one of {_FORMATS}; found {format!r}")
-    u = _check_links(links)
+    u = check_links(links)
     if metadata is not None:
         try:
             json.dumps(metadata)

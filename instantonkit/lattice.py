@@ -34,6 +34,7 @@ import jax.numpy as jnp
 import numpy as np
 
 from . import quaternion as qt
+from .io import check_links as _check_links
 from .conventions import CHARGE_DENSITY_FACTOR, point_to_quaternion
 
 __all__ = [
@@ -677,15 +678,6 @@ def gauge_transform(links, g, *, boundary: str = "periodic") -> np.ndarray:
 
 
 # -- observables ------------------------------------------------------------------------------------------
-
-
-def _check_links(links):
-    u = links if isinstance(links, np.memmap) else np.asarray(links)
-    if u.ndim != 7 or u.shape[4] != 4 or u.shape[5] != u.shape[6]:
-        raise ValueError(f"links must have shape (L1, L2, L3, L4, 4, N, N); found {u.shape}")
-    if not np.iscomplexobj(u):
-        raise TypeError(f"links must be complex; found dtype {u.dtype}")
-    return u
 
 
 def _check_boundary(boundary):

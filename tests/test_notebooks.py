@@ -30,9 +30,14 @@ def _kernel_missing() -> str | None:
     return None
 
 
-def test_there_are_three_example_notebooks():
+def test_there_are_four_example_notebooks():
     names = [os.path.basename(p) for p in NOTEBOOKS]
-    assert names == ["01_handwritten_ansatz.ipynb", "02_charge3_adhm.ipynb", "03_lattice_start.ipynb"]
+    assert names == [
+        "01_handwritten_ansatz.ipynb",
+        "02_charge3_adhm.ipynb",
+        "03_lattice_start.ipynb",
+        "04_zero_modes_and_finder.ipynb",
+    ]
 
 
 @pytest.mark.parametrize("path", NOTEBOOKS, ids=os.path.basename)
