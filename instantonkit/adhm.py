@@ -300,15 +300,11 @@ class ADHMData:
         return qt.qmat_mul(pv, qt.qmat_dagger(linv))
 
     # -- the field protocol ------------------------------------------------------------------
-    @property
-    def matrix_shape(self):
-        return (self.matrix_size, self.matrix_size)
-
     def potential(self, x):
         """A_mu(x) = U^dag d_mu U at one point (4,) -> (4, 2n, 2n) complex (gauge: ``self.gauge``)."""
         x = jnp.asarray(x, dtype=jnp.float64)
-        u = self._frame(x)
-        jac = jax.jacfwd(self._frame)(x)  # (n + k, n, 4, mu): d_mu U, exact (forward-mode AD)
+        # d_mu U by forward-mode AD (exact), U itself as the auxiliary output of the same pass
+        jac, u = jax.jacfwd(lambda y: (self._frame(y),) * 2, has_aux=True)(x)  # (n + k, n, 4, mu)
         a = jnp.stack([qt.qmat_mul(qt.qmat_dagger(u), jac[..., mu]) for mu in range(4)])
         return qt.qmat_to_complex(a)
 
