@@ -239,10 +239,17 @@ def _probe_points(centres: np.ndarray, scales: np.ndarray, period) -> tuple[np.n
     return pts.reshape(-1, 4), radii, dim
 
 
-def _decay_exponent(values: np.ndarray, radii: np.ndarray) -> float | None:
-    """p in |f| ~ r^-p from the largest |f| over rays at the two largest radii; None if f vanishes there."""
+def _decay_exponent(values: np.ndarray, radii: np.ndarray, dim: int = 4, magnitude: float = 0.0) -> float | None:
+    """p in |f| ~ r^-p from the largest |f| over rays at the two largest radii.
+
+    None if f vanishes there, or if the tail it implies, about |f| R^dim times the area of the unit
+    sphere, is below double-precision rounding of ``magnitude`` (the size of the integral seen so far):
+    then the decay seen is rounding noise of a field that has already gone to zero.
+    """
     v = np.max(np.abs(values.reshape(radii.shape[0], -1)), axis=1)
     if v[-1] <= 1e-290 or v[-2] <= 1e-290:
+        return None
+    if max(v[-2], v[-1]) * radii[-2] ** dim * 20.0 <= 1e-15 * magnitude:
         return None
     p = [-math.log(v[j + 1] / v[j]) / math.log(radii[j + 1] / radii[j]) for j in range(len(radii) - 1) if v[j] > 0]
     return float(min(p[-2:])) if p else None
@@ -446,7 +453,8 @@ def _integrate(
     for p in pieces:
         reqs0 += new_level_requests(p, 0, np.ones(_radial_count(0), dtype=int))
     res0, probe_vals, evaluations = run(reqs0, probe)
-    p_exp = _decay_exponent(probe_vals, radii)
+    magnitude = float(sum(mag for (_, kind, _, _), (_, mag) in zip(reqs0, res0) if kind == "hi"))
+    p_exp = _decay_exponent(probe_vals, radii, dim, magnitude)
     if p_exp is not None and p_exp < dim + 0.75:
         verdict = "diverges" if p_exp <= dim + 0.05 else "converges too slowly to estimate"
         raise DivergentIntegralError(
