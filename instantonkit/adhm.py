@@ -28,6 +28,7 @@ import jax.numpy as jnp
 import numpy as np
 
 from . import quaternion as qt
+from ._pytree import PytreeFields
 from .conventions import CHARGE_DENSITY_FACTOR, E_MU, PI, point_to_quaternion
 
 __all__ = [
@@ -73,7 +74,7 @@ def _constraint_matrix(lam, b):
 
 @jax.tree_util.register_pytree_node_class
 @dataclasses.dataclass(frozen=True)
-class ADHMData:
+class ADHMData(PytreeFields):
     """Validated ADHM data ``(Lambda, B)`` of a charge-k Sp(n) (anti-)instanton.
 
     lam: (n, k, 4) float64 -- Lambda, an n x k quaternionic matrix (n = 1 is SU(2)).
@@ -121,19 +122,8 @@ class ADHMData:
             object.__setattr__(self, "lam", lam)
             object.__setattr__(self, "B", b)
 
-    # -- pytree -------------------------------------------------------------------------------
-    def tree_flatten(self):
-        return (self.lam, self.B), (self.chirality, self.tol, self.gauge)
-
-    @classmethod
-    def tree_unflatten(cls, aux, children):
-        obj = object.__new__(cls)
-        object.__setattr__(obj, "lam", children[0])
-        object.__setattr__(obj, "B", children[1])
-        object.__setattr__(obj, "chirality", aux[0])
-        object.__setattr__(obj, "tol", aux[1])
-        object.__setattr__(obj, "gauge", aux[2])
-        return obj
+    _leaves = ("lam", "B")
+    _static = ("chirality", "tol", "gauge")
 
     # -- simple properties --------------------------------------------------------------------
     @property

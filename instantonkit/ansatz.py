@@ -50,6 +50,7 @@ import jax.numpy as jnp
 import numpy as np
 
 from . import quaternion as qt
+from ._pytree import PytreeFields
 from .conventions import LEVI_CIVITA, PI, QUATERNION_BASIS, point_to_quaternion
 
 __all__ = [
@@ -175,7 +176,7 @@ def _components(phi, grad, hess):
     return v, f
 
 
-class _ScalarAnsatz:
+class _ScalarAnsatz(PytreeFields):
     """Field protocol for A_mu = c eta-bar_{a mu nu} d_nu log(phi) u_a; subclasses give ``_derivs``."""
 
     def _derivs(self, x):  # pragma: no cover - abstract
@@ -242,15 +243,7 @@ class ThooftField(_ScalarAnsatz):
         object.__setattr__(self, "centers", c)
         object.__setattr__(self, "sizes", _positive_vector("sizes", self.sizes, c.shape[0]))
 
-    def tree_flatten(self):
-        return (self.centers, self.sizes), None
-
-    @classmethod
-    def tree_unflatten(cls, aux, children):
-        obj = object.__new__(cls)
-        object.__setattr__(obj, "centers", children[0])
-        object.__setattr__(obj, "sizes", children[1])
-        return obj
+    _leaves = ("centers", "sizes")
 
     @property
     def k(self) -> int:
@@ -289,15 +282,7 @@ class JNRField(_ScalarAnsatz):
         object.__setattr__(self, "poles", p)
         object.__setattr__(self, "weights", _positive_vector("weights", self.weights, p.shape[0]))
 
-    def tree_flatten(self):
-        return (self.poles, self.weights), None
-
-    @classmethod
-    def tree_unflatten(cls, aux, children):
-        obj = object.__new__(cls)
-        object.__setattr__(obj, "poles", children[0])
-        object.__setattr__(obj, "weights", children[1])
-        return obj
+    _leaves = ("poles", "weights")
 
     @property
     def k(self) -> int:
@@ -422,15 +407,7 @@ class CaloronField(_ScalarAnsatz):
         object.__setattr__(self, "period", _positive_scalar("period", self.period))
         object.__setattr__(self, "center", _point("center", self.center))
 
-    def tree_flatten(self):
-        return (self.size, self.period, self.center), None
-
-    @classmethod
-    def tree_unflatten(cls, aux, children):
-        obj = object.__new__(cls)
-        for name, value in zip(("size", "period", "center"), children):
-            object.__setattr__(obj, name, value)
-        return obj
+    _leaves = ("size", "period", "center")
 
     @property
     def charge(self) -> int:
@@ -452,7 +429,7 @@ class CaloronField(_ScalarAnsatz):
 
 @jax.tree_util.register_pytree_node_class
 @dataclasses.dataclass(frozen=True)
-class BPSTField:
+class BPSTField(PytreeFields):
     """Closed-form BPST instanton (Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85).
 
     With y = x - a, g = p(y)/|y| and Omega the orientation (unit quaternion), in our conventions
@@ -477,16 +454,8 @@ class BPSTField:
         object.__setattr__(self, "size", _positive_scalar("size", self.size))
         object.__setattr__(self, "orientation", _unit_quaternion(self.orientation))
 
-    def tree_flatten(self):
-        return (self.center, self.size, self.orientation), self.gauge
-
-    @classmethod
-    def tree_unflatten(cls, aux, children):
-        obj = object.__new__(cls)
-        for name, value in zip(("center", "size", "orientation"), children):
-            object.__setattr__(obj, name, value)
-        object.__setattr__(obj, "gauge", aux)
-        return obj
+    _leaves = ("center", "size", "orientation")
+    _static = ("gauge",)
 
     @property
     def charge(self) -> int:

@@ -27,6 +27,7 @@ import jax.numpy as jnp
 import numpy as np
 
 from . import quaternion as qt
+from ._pytree import PytreeFields
 from .conventions import ACTION_DENSITY_FACTOR, CHARGE_DENSITY_FACTOR, E_MU, LEVI_CIVITA
 from .fields import as_field, field_strength_from_potential
 
@@ -99,7 +100,7 @@ def _real(name: str, value, shape: tuple) -> np.ndarray:
     return arr
 
 
-class _Wrapper:
+class _Wrapper(PytreeFields):
     """Shared forwarding of ``hint``/``charge``/``period`` through the ``_map_*`` hooks of a subclass."""
 
     field: object
@@ -241,15 +242,7 @@ class Translated(_Wrapper):
         if not _is_tracer(self.shift):
             object.__setattr__(self, "shift", _real("shift", self.shift, (4,)))
 
-    def tree_flatten(self):
-        return (self.field, self.shift), None
-
-    @classmethod
-    def tree_unflatten(cls, aux, children):
-        obj = object.__new__(cls)
-        object.__setattr__(obj, "field", children[0])
-        object.__setattr__(obj, "shift", children[1])
-        return obj
+    _leaves = ("field", "shift")
 
     def _y(self, x):
         return jnp.asarray(x, dtype=jnp.float64) - jnp.asarray(self.shift)
@@ -315,15 +308,7 @@ class Rotated(_Wrapper):
             object.__setattr__(self, "left", _unit("left", self.left))
             object.__setattr__(self, "right", _unit("right", self.right))
 
-    def tree_flatten(self):
-        return (self.field, self.left, self.right), None
-
-    @classmethod
-    def tree_unflatten(cls, aux, children):
-        obj = object.__new__(cls)
-        for name, value in zip(("field", "left", "right"), children):
-            object.__setattr__(obj, name, value)
-        return obj
+    _leaves = ("field", "left", "right")
 
     @property
     def matrix(self):
@@ -380,15 +365,7 @@ class Dilated(_Wrapper):
                 raise ValueError(f"dilation factor must be > 0; found {float(c)!r}")
             object.__setattr__(self, "factor", c)
 
-    def tree_flatten(self):
-        return (self.field, self.factor), None
-
-    @classmethod
-    def tree_unflatten(cls, aux, children):
-        obj = object.__new__(cls)
-        object.__setattr__(obj, "field", children[0])
-        object.__setattr__(obj, "factor", children[1])
-        return obj
+    _leaves = ("field", "factor")
 
     def _y(self, x):
         c = jnp.asarray(self.factor)
@@ -439,14 +416,7 @@ class ParityImage(_Wrapper):
     def __post_init__(self):
         object.__setattr__(self, "field", as_field(self.field))
 
-    def tree_flatten(self):
-        return (self.field,), None
-
-    @classmethod
-    def tree_unflatten(cls, aux, children):
-        obj = object.__new__(cls)
-        object.__setattr__(obj, "field", children[0])
-        return obj
+    _leaves = ("field",)
 
     @staticmethod
     def _px(x):
