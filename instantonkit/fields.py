@@ -38,6 +38,7 @@ __all__ = [
     "dual",
     "field_strength_from_potential",
     "DEFAULT_CHUNK",
+    "output_shape",
 ]
 
 #: Points per compiled call; memory per call is about DEFAULT_CHUNK times the per-point work.
@@ -205,6 +206,14 @@ def _output_struct(kern, field):
         if key is not None:
             _STRUCT_CACHE[key] = hit
     return hit
+
+
+def output_shape(field, quantity: str, method: str = "auto") -> tuple[tuple[int, ...], np.dtype]:
+    """Shape and dtype of ``quantity`` at one point, e.g. ((4, 4, 2, 2), complex128) for the field strength."""
+    if method not in _METHODS:
+        raise ValueError(f"method must be one of {_METHODS}; found {method!r}")
+    st = _output_struct(_kernel(quantity, method), as_field(field))
+    return tuple(st.shape[1:]), np.dtype(st.dtype)
 
 
 def evaluate(field, points, quantity: str, *, method: str = "auto", chunk_size: int = DEFAULT_CHUNK):

@@ -40,6 +40,8 @@ from .conventions import CHARGE_DENSITY_FACTOR, point_to_quaternion
 __all__ = [
     "PLANES",
     "LinkReport",
+    "StartSpec",
+    "block_links",
     "lattice_links",
     "parallel_transporter",
     "bpst_link",
@@ -64,6 +66,7 @@ PLANES = ((0, 1), (0, 2), (0, 3), (1, 2), (1, 3), (2, 3))
 _GROUPS = ("su2", "su3", None)
 _BOUNDARIES = ("periodic", "open")
 _METHODS = ("auto", "closed", "magnus")
+_BACKENDS = ("local", "dask")
 #: Links per compiled call of the transporter kernels.
 LINK_CHUNK = 4096
 #: Bytes of link data handled at once by the observables (time slabs).
@@ -480,6 +483,119 @@ def _slice_links(field, sites_t, a, method, rtol, stats):
     return u.reshape(s, 4, u.shape[-2], u.shape[-1])
 
 
+@dataclasses.dataclass(frozen=True)
+class StartSpec:
+    """The validated parameters of one lattice start (what :func:`lattice_links` was asked for).
+
+    field: a field object; shape: (L1, L2, L3, L4); spacing: a; origin: (4,) float64 (site 0);
+    group / embedding / boundary / rtol / method: as in :func:`lattice_links`; n_field: N of the
+    field; n_out: N of the links (3 for 'su3').  Build it with :meth:`make`, which raises
+    ValueError/TypeError naming the bad argument and the value found.
+    """
+
+    field: object
+    shape: tuple
+    spacing: float
+    origin: np.ndarray
+    group: str | None
+    embedding: tuple
+    boundary: str
+    rtol: float
+    method: str
+    n_field: int
+    n_out: int
+
+    @classmethod
+    def make(cls, field, shape, spacing, *, origin=None, group="su2", embedding=(0, 1), boundary="periodic", rtol=1e-12, method="auto"):
+        from .fields import as_field
+
+        field = as_field(field)
+        shape = _check_shape(shape)
+        a = _check_spacing(spacing)
+        if group not in _GROUPS:
+            raise ValueError(f"group must be one of {_GROUPS}; found {group!r}")
+        if boundary not in _BOUNDARIES:
+            raise ValueError(f"boundary must be one of {_BOUNDARIES}; found {boundary!r}")
+        if method not in _METHODS:
+            raise ValueError(f"method must be one of {_METHODS}; found {method!r}")
+        if isinstance(rtol, bool) or not (isinstance(rtol, (int, float, np.floating)) and rtol > 0):
+            raise ValueError(f"rtol must be a positive number; found {rtol!r}")
+        n_field = jax.eval_shape(field.potential, jax.ShapeDtypeStruct((4,), jnp.float64)).shape[-1]
+        if group in ("su2", "su3") and n_field != 2:
+            raise ValueError(f"group {group!r} needs a 2 x 2 (SU(2)) field; found N = {n_field} (use group=None)")
+        emb = tuple(int(v) for v in embedding)
+        if group == "su3" and (len(emb) != 2 or emb[0] == emb[1] or not all(0 <= v < 3 for v in emb)):
+            raise ValueError(f"embedding must be two distinct indices in 0..2; found {embedding!r}")
+        n_out = 3 if group == "su3" else n_field
+        org = default_origin(field, shape, a) if origin is None else np.asarray(origin, dtype=np.float64)
+        if org.shape != (4,) or not np.all(np.isfinite(org)):
+            raise ValueError(f"origin must be a finite point of shape (4,); found {np.shape(origin)}")
+        return cls(field, shape, a, org, group, emb, boundary, float(rtol), method, int(n_field), int(n_out))
+
+    @property
+    def links_shape(self) -> tuple:
+        """(L1, L2, L3, L4, 4, N, N) of the links."""
+        return self.shape + (4, self.n_out, self.n_out)
+
+    def block(self, lo, hi, stats: dict):
+        """Links of the sites lo <= n < hi; see :func:`block_links`."""
+        return block_links(
+            self.field, lo, hi, self.origin, self.spacing, n_field=self.n_field, group=self.group,
+            embedding=self.embedding, method=self.method, rtol=self.rtol, stats=stats,
+        )
+
+    def boundary_figures(self, links):
+        """(link_mismatch, action_error) of :func:`boundary_mismatch` for periodic starts, (None, None) for open ones."""
+        if self.boundary != "periodic":
+            return None, None
+        bm = boundary_mismatch(
+            self.field, links, self.spacing, origin=self.origin, group=self.group, embedding=self.embedding, rtol=self.rtol, method=self.method
+        )
+        return bm["link_mismatch"], bm["action_error"]
+
+    def report(self, stats: dict, before: float, after: float, seconds: float, mismatch=None, action_err=None) -> "LinkReport":
+        """The :class:`LinkReport` of a finished start."""
+        return LinkReport(
+            shape=self.shape,
+            spacing=self.spacing,
+            origin=tuple(float(v) for v in self.origin),
+            group=self.group,
+            embedding=self.embedding,
+            boundary=self.boundary,
+            rtol=self.rtol,
+            method=stats.get("method", "closed"),
+            max_steps=int(stats.get("max_steps", 0)),
+            refinement_diff=float(stats.get("refinement_diff", 0.0)),
+            unitarity_before=float(before),
+            unitarity_after=float(after),
+            boundary_link_mismatch=mismatch,
+            boundary_action_error=action_err,
+            seconds=float(seconds),
+        )
+
+
+def block_links(field, lo, hi, origin, spacing, *, n_field, group, embedding, method, rtol, stats):
+    """Links of the sites lo <= n < hi (a box of the lattice); ((h1, h2, h3, h4, 4, N, N), dev_before, dev_after).
+
+    The one kernel path of every lattice start: :func:`lattice_links` calls it per time slice and the
+    chunked backends (:mod:`instantonkit.cluster`) per chunk, so both give the same bits.  Sites
+    x_n = origin + a n (n float64); the transporters of a box are computed together, projected
+    (:func:`_finish`) and embedded for group 'su3'.  ``stats`` collects the Magnus figures.
+    """
+    lo, hi = tuple(int(v) for v in lo), tuple(int(v) for v in hi)
+    ext = tuple(h - l for l, h in zip(lo, hi))
+    grids = np.meshgrid(*[np.arange(l, h, dtype=np.float64) for l, h in zip(lo, hi)], indexing="ij")
+    n = np.stack(grids, axis=-1).reshape(-1, 4)
+    sites = np.asarray(origin, dtype=np.float64) + spacing * n
+    u = _slice_links(field, sites, spacing, method, rtol, stats).reshape(-1, n_field, n_field)
+    p, dev0, dev1 = _finish(jnp.asarray(u))
+    u = np.asarray(p)
+    n_out = n_field
+    if group == "su3":
+        u, n_out = _embed(u, 3, embedding), 3
+    return u.reshape(ext + (4, n_out, n_out)), float(dev0), float(dev1)
+
+
 def lattice_links(
     field,
     shape,
@@ -494,6 +610,11 @@ def lattice_links(
     out=None,
     progress: Callable[[int, int], None] | None = None,
     return_report: bool = False,
+    backend: str = "local",
+    chunks=None,
+    store=None,
+    client=None,
+    overwrite: bool = False,
 ):
     """Link variables of ``field`` on an L1 x L2 x L3 x L4 lattice; (L1, L2, L3, L4, 4, N, N) complex128.
 
@@ -509,74 +630,48 @@ def lattice_links(
     np.memmap of the result shape and complex128 dtype, filled one time slice at a time;
     progress(done, total) is called after each time slice.  With ``return_report=True`` returns
     ``(links, LinkReport)``.
-    """
-    from .fields import as_field
 
+    backend: 'local' (this process, one time slice at a time) or 'dask' (chunks of ``chunks`` =
+    (c1, c2, c3, c4) sites computed by the same kernels on a Dask cluster, bit-identical to 'local';
+    ``store`` a Zarr directory written chunk by chunk and resumable, else a lazy dask array is
+    returned; ``client`` a dask.distributed.Client, None for a temporary local cluster, or 'sync'
+    for this process; ``overwrite`` replaces a store made with other parameters).  See
+    :func:`instantonkit.cluster.start_links`; needs the optional extra ``distributed``.
+    """
     t_start = time.perf_counter()
-    field = as_field(field)
-    shape = _check_shape(shape)
-    a = _check_spacing(spacing)
-    if group not in _GROUPS:
-        raise ValueError(f"group must be one of {_GROUPS}; found {group!r}")
-    if boundary not in _BOUNDARIES:
-        raise ValueError(f"boundary must be one of {_BOUNDARIES}; found {boundary!r}")
-    n_field = jax.eval_shape(field.potential, jax.ShapeDtypeStruct((4,), jnp.float64)).shape[-1]
-    if group in ("su2", "su3") and n_field != 2:
-        raise ValueError(f"group {group!r} needs a 2 x 2 (SU(2)) field; found N = {n_field} (use group=None)")
-    emb = tuple(int(v) for v in embedding)
-    if group == "su3" and (len(emb) != 2 or emb[0] == emb[1] or not all(0 <= v < 3 for v in emb)):
-        raise ValueError(f"embedding must be two distinct indices in 0..2; found {embedding!r}")
-    n_out = 3 if group == "su3" else n_field
-    org = default_origin(field, shape, a) if origin is None else np.asarray(origin, dtype=np.float64)
-    if org.shape != (4,) or not np.all(np.isfinite(org)):
-        raise ValueError(f"origin must be a finite point of shape (4,); found {np.shape(origin)}")
+    if backend not in _BACKENDS:
+        raise ValueError(f"backend must be one of {_BACKENDS}; found {backend!r}")
+    spec = StartSpec.make(field, shape, spacing, origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method)
+    if backend == "dask":
+        if out is not None:
+            raise ValueError("out= is for the local backend; the dask backend writes to store= (a Zarr path) or returns a dask array")
+        from . import cluster
+
+        return cluster.start_links(spec, chunks=chunks, store=store, client=client, overwrite=overwrite, progress=progress, return_report=return_report)
+    if chunks is not None or store is not None or client is not None:
+        raise ValueError("chunks=, store= and client= need backend='dask'")
+    field, shape, a, org, emb = spec.field, spec.shape, spec.spacing, spec.origin, spec.embedding
+    n_field, n_out = spec.n_field, spec.n_out
     full = shape + (4, n_out, n_out)
     if out is None:
         out = np.empty(full, dtype=np.complex128)
     else:
         if tuple(out.shape) != full or out.dtype != np.complex128:
             raise ValueError(f"out must have shape {full} and dtype complex128; found {tuple(out.shape)} {out.dtype}")
-    grids = np.meshgrid(*[np.arange(n, dtype=np.float64) for n in shape[:3]], indexing="ij")
-    spatial = np.stack(grids, axis=-1).reshape(-1, 3)
     stats: dict = {}
     before = after = 0.0
     for t in range(shape[3]):
-        sites = org + a * np.concatenate([spatial, np.full((spatial.shape[0], 1), float(t))], axis=1)
-        u = _slice_links(field, sites, a, method, rtol, stats).reshape(-1, n_field, n_field)
-        p, dev0, dev1 = _finish(jnp.asarray(u))
-        before, after = max(before, float(dev0)), max(after, float(dev1))
-        u = np.asarray(p)
-        if group == "su3":
-            u = _embed(u, 3, emb)
-        out[:, :, :, t] = u.reshape(shape[:3] + (4, n_out, n_out))
+        block, dev0, dev1 = spec.block((0, 0, 0, t), shape[:3] + (t + 1,), stats)
+        before, after = max(before, dev0), max(after, dev1)
+        out[:, :, :, t : t + 1] = block
         if progress is not None:
             progress(t + 1, shape[3])
     if hasattr(out, "flush"):
         out.flush()
-    mismatch = action_err = None
-    if boundary == "periodic" and return_report:
-        bm = boundary_mismatch(field, out, a, origin=org, group=group, embedding=emb, rtol=rtol, method=method)
-        mismatch, action_err = bm["link_mismatch"], bm["action_error"]
     if not return_report:
         return out
-    report = LinkReport(
-        shape=shape,
-        spacing=a,
-        origin=tuple(float(v) for v in org),
-        group=group,
-        embedding=emb,
-        boundary=boundary,
-        rtol=float(rtol),
-        method=stats.get("method", "closed"),
-        max_steps=int(stats.get("max_steps", 0)),
-        refinement_diff=float(stats.get("refinement_diff", 0.0)),
-        unitarity_before=before,
-        unitarity_after=after,
-        boundary_link_mismatch=mismatch,
-        boundary_action_error=action_err,
-        seconds=time.perf_counter() - t_start,
-    )
-    return out, report
+    mismatch, action_err = spec.boundary_figures(out)
+    return out, spec.report(stats, before, after, time.perf_counter() - t_start, mismatch, action_err)
 
 
 def boundary_mismatch(field, links, spacing, *, origin=None, group="su2", embedding=(0, 1), rtol=1e-12, method="auto") -> dict:
@@ -588,9 +683,11 @@ def boundary_mismatch(field, links, spacing, *, origin=None, group="su2", embedd
     'action_error': sum over the plaquettes crossing one face (n_mu = L - 1, n_nu <= L_nu - 2) of the
     Wilson action (beta = 2N) with the wrapped link minus that with the exact link, and
     'boundary_action': the wrapped plaquettes' Wilson action itself.
-    links: (L1, L2, L3, L4, 4, N, N) from :func:`lattice_links` with the same parameters.
+    links: (L1, L2, L3, L4, 4, N, N) from :func:`lattice_links` with the same parameters (any array
+    with numpy slicing: numpy, memmap, Zarr; only the faces are read).
     """
-    links = np.asarray(links) if not isinstance(links, np.memmap) else links
+    if not (hasattr(links, "shape") and hasattr(links, "__getitem__")):
+        links = np.asarray(links)
     shape = tuple(links.shape[:4])
     n = links.shape[-1]
     a = _check_spacing(spacing)
@@ -615,9 +712,9 @@ def boundary_mismatch(field, links, spacing, *, origin=None, group="su2", embedd
         face_shape = list(shape)
         face_shape[mu] = 1
         exact = u.reshape(tuple(face_shape) + (3, n, n))
-        wrap = np.take(links, [0], axis=mu)[..., others, :, :]
+        wrap = np.asarray(links[(slice(None),) * mu + (slice(0, 1),)])[..., others, :, :]
         link_mis = max(link_mis, float(np.max(np.abs(exact - wrap))))
-        last = np.take(links, [lm - 1], axis=mu)  # sites n_mu = L - 1
+        last = np.asarray(links[(slice(None),) * mu + (slice(lm - 1, lm),)])  # sites n_mu = L - 1
         for j, nu in enumerate(others):
             ln = shape[nu]
             if ln < 2:
