@@ -357,7 +357,7 @@ def _scheduler(client, n_workers):
     n = int(n_workers or os.cpu_count() or 1)
     if n < 1:
         raise ValueError(f"n_workers must be >= 1; found {n_workers!r}")
-    with distributed.LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address=None) as cluster:
+    with distributed.LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address=":0") as cluster:
         with distributed.Client(cluster) as c:
             yield c
 

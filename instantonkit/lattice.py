@@ -247,11 +247,11 @@ def _chunked(kern, field, xs, ds, *extra, size=None):
     return np.concatenate(parts) if parts else None
 
 
-def _magnus_refined(field, xs, ds, rtol, stats):
+def _magnus_refined(field, xs, ds, rtol, stats, batch=None):
     """Magnus transporters refined by halving the step until two refinements differ by <= rtol."""
     kern = _magnus_kernel()
     steps = 1
-    size = _chunk_size(xs.shape[0])  # kept for the refinements: one compiled batch size per call
+    size = _chunk_size(xs.shape[0]) if batch is None else batch  # kept for the refinements: one compiled batch size
     prev = _chunked(kern, field, xs, ds, steps, size=size)
     out = prev.copy()
     todo = np.arange(xs.shape[0])
@@ -283,16 +283,22 @@ def _magnus_refined(field, xs, ds, rtol, stats):
     return out
 
 
-def parallel_transporter(field, starts, steps, *, method: str = "auto", rtol: float = 1e-12, report: dict | None = None):
+def parallel_transporter(
+    field, starts, steps, *, method: str = "auto", rtol: float = 1e-12, report: dict | None = None, batch: int | None = None
+):
     """Parallel transporters W(1) of ``dW/dt = W A(x + t d).d``, W(0) = 1, for many straight segments.
 
     starts, steps: (..., 4) float64 (start point x, displacement d) -> (..., N, N) complex128, before
     any unitary projection.  method: 'auto' (closed form when the field has one), 'closed' (error if
     none), 'magnus' (Gauss-Legendre Magnus steps refined to ``rtol``).  ``report`` (a dict) receives
-    'method', 'max_steps' and 'refinement_diff'.
+    'method', 'max_steps' and 'refinement_diff'.  batch: links per compiled kernel call (default from
+    the number of links); XLA's code, hence the last bit of a result, can depend on it, so callers
+    that must agree bit for bit (lattice starts in chunks) fix it.
     """
     from .fields import as_field, as_points
 
+    if batch is not None and (isinstance(batch, bool) or not isinstance(batch, (int, np.integer)) or batch < 1):
+        raise ValueError(f"batch must be a positive integer; found {batch!r}")
     if method not in _METHODS:
         raise ValueError(f"method must be one of {_METHODS}; found {method!r}")
     if not (isinstance(rtol, (int, float)) and rtol > 0):
@@ -310,7 +316,7 @@ def parallel_transporter(field, starts, steps, *, method: str = "auto", rtol: fl
         n = jax.eval_shape(field.potential, jax.ShapeDtypeStruct((4,), jnp.float64)).shape[-1]
         return np.zeros(lead + (n, n), dtype=np.complex128)
     if closed is not None:
-        out = _chunked(_closed_kernel(closed), field, xs, ds)
+        out = _chunked(_closed_kernel(closed), field, xs, ds, size=batch)
         stats["method"] = "closed"
         bad = ~np.all(np.isfinite(out), axis=(-2, -1))
         if np.any(bad):
@@ -320,7 +326,7 @@ def parallel_transporter(field, starts, steps, *, method: str = "auto", rtol: fl
                 f"step {ds[i].tolist()}); the segment passes through a singular point of the field"
             )
     else:
-        out = _magnus_refined(field, xs, ds, float(rtol), stats)
+        out = _magnus_refined(field, xs, ds, float(rtol), stats, batch)
         stats["method"] = "magnus"
     return out.reshape(lead + out.shape[-2:])
 
@@ -474,12 +480,12 @@ class LinkReport:
         return {k: (list(v) if isinstance(v, tuple) else v) for k, v in dataclasses.asdict(self).items()}
 
 
-def _slice_links(field, sites_t, a, method, rtol, stats):
+def _slice_links(field, sites_t, a, method, rtol, stats, batch=None):
     """Links of one set of sites (S, 4) in the four directions: (S, 4, N, N), unprojected."""
     s = sites_t.shape[0]
     xs = np.repeat(sites_t, 4, axis=0)
     ds = np.tile(a * np.eye(4), (s, 1))
-    u = parallel_transporter(field, xs, ds, method=method, rtol=rtol, report=stats)
+    u = parallel_transporter(field, xs, ds, method=method, rtol=rtol, report=stats, batch=batch)
     return u.reshape(s, 4, u.shape[-2], u.shape[-1])
 
 
@@ -541,7 +547,7 @@ class StartSpec:
         """Links of the sites lo <= n < hi; see :func:`block_links`."""
         return block_links(
             self.field, lo, hi, self.origin, self.spacing, n_field=self.n_field, group=self.group,
-            embedding=self.embedding, method=self.method, rtol=self.rtol, stats=stats,
+            embedding=self.embedding, method=self.method, rtol=self.rtol, stats=stats, batch=link_batch(self.shape),
         )
 
     def boundary_figures(self, links):
@@ -574,22 +580,44 @@ class StartSpec:
         )
 
 
-def block_links(field, lo, hi, origin, spacing, *, n_field, group, embedding, method, rtol, stats):
+def _finish_batched(u, batch: int):
+    """:func:`_finish` in padded pieces of ``batch`` links (one compiled size); (projected, before, after)."""
+    m = u.shape[0]
+    out = np.empty_like(u)
+    before = after = 0.0
+    for start in range(0, m, batch):
+        piece = u[start : start + batch]
+        k = piece.shape[0]
+        if k < batch:
+            piece = np.concatenate([piece, np.broadcast_to(piece[:1], (batch - k,) + piece.shape[1:])])
+        p, d0, d1 = _finish(jnp.asarray(piece))
+        out[start : start + k] = np.asarray(p)[:k]
+        before, after = max(before, float(d0)), max(after, float(d1))
+    return out, before, after
+
+
+def link_batch(shape) -> int:
+    """Links per compiled kernel call for a start of ``shape``: fixed by the time-slice size, so the
+    local path (one slice at a time) and any chunking of the same start run the same compiled code."""
+    return _chunk_size(4 * shape[0] * shape[1] * shape[2])
+
+
+def block_links(field, lo, hi, origin, spacing, *, n_field, group, embedding, method, rtol, stats, batch):
     """Links of the sites lo <= n < hi (a box of the lattice); ((h1, h2, h3, h4, 4, N, N), dev_before, dev_after).
 
     The one kernel path of every lattice start: :func:`lattice_links` calls it per time slice and the
     chunked backends (:mod:`instantonkit.cluster`) per chunk, so both give the same bits.  Sites
     x_n = origin + a n (n float64); the transporters of a box are computed together, projected
-    (:func:`_finish`) and embedded for group 'su3'.  ``stats`` collects the Magnus figures.
+    (:func:`_finish`) and embedded for group 'su3'.  ``stats`` collects the Magnus figures; ``batch``
+    (:func:`link_batch` of the lattice) fixes the compiled kernel size, which keeps the bits equal.
     """
     lo, hi = tuple(int(v) for v in lo), tuple(int(v) for v in hi)
     ext = tuple(h - l for l, h in zip(lo, hi))
     grids = np.meshgrid(*[np.arange(l, h, dtype=np.float64) for l, h in zip(lo, hi)], indexing="ij")
     n = np.stack(grids, axis=-1).reshape(-1, 4)
     sites = np.asarray(origin, dtype=np.float64) + spacing * n
-    u = _slice_links(field, sites, spacing, method, rtol, stats).reshape(-1, n_field, n_field)
-    p, dev0, dev1 = _finish(jnp.asarray(u))
-    u = np.asarray(p)
+    u = _slice_links(field, sites, spacing, method, rtol, stats, batch).reshape(-1, n_field, n_field)
+    u, dev0, dev1 = _finish_batched(u, batch)
     n_out = n_field
     if group == "su3":
         u, n_out = _embed(u, 3, embedding), 3

@@ -1,0 +1,288 @@
+"""The chunked Dask/Zarr backend: scaling from one to two workers, and worker memory per chunk.
+
+Scaling: one charge-2 ADHM start (``multi_instanton``, singular gauge, no closed form, so the Magnus
+path with rtol 1e-8; 8^4 sites in quick mode, 12^4 in full mode, SU(2), spacing 0.5) computed by
+``lattice_links(backend="dask", store=..., client=c)`` on a ``LocalCluster`` of W = 1 and W = 2
+worker processes (one thread each), and by ``backend="local"`` in this process for reference.
+The chunks are single time slices (L, L, L, 1), the boxes the local path computes one at a time,
+so every path runs the same kernel calls and the figures compare the parallel runs, not chunk
+shapes.  Cluster start-up and JIT compilation are not timed: before the timed call each worker
+computes a throw-away start of one chunk (same field, same chunk shape and origin, through the same
+store-writing path) into its own scratch store, and this process computes one time slice and one
+periodic boundary check first.  The wall time of the whole call is reported and, separately, its
+chunk phase (store opened, chunks computed and written: ``LinkReport.seconds``); the rest is the
+part the calling process does alone (mainly the periodic boundary check, read back from the store).
+Every chunked result is checked bit for bit against the local one.
+
+Memory: a BPST start (closed-form links, ``group="su3"``, size 2, spacing 0.5) on a fresh
+2-worker cluster per configuration: two lattice sizes with the same chunk shape and one with a chunk
+twice as large (quick: 16^4 and 32^4 with 8^4-site chunks, then 16 sites on the last axis; full:
+16^4, 32^4 and 48^4 with 8 x 8 x 16 x 16 chunks, then 16 on the second axis).  Each worker is
+warmed as above, then (``client.run``) releases free heap to the system (glibc ``malloc_trim``),
+resets its peak resident set (Linux: ``"5"`` to ``/proc/self/clear_refs``) and records its resident
+set; after the run its peak resident set (``VmHWM``) is read.  The growth, peak minus the resident
+set before, is the memory the run needed on that worker; the larger of the two workers is reported,
+in MiB and as a multiple of the chunk's result bytes (sites x 4 x 3 x 3 x 16).  Where the peak cannot
+be reset, ``ru_maxrss`` is used instead (it then includes the warm-up's peak; the rows say so).
+
+Usage: ``python benchmarks/bench_cluster.py [--quick] [--part scaling|memory] [--json]``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import contextlib
+import json
+import math
+import os
+import sys
+import tempfile
+import time
+
+SPACING = 0.5
+SCALING_RTOL = 1e-8
+MiB = float(1 << 20)
+
+
+# -- worker-side helpers (run in the worker processes through client.submit / client.run) -------------
+
+
+def _warm_worker(field, extents, spacing, options: dict, directory: str) -> int:
+    """Compute one throw-away start per chunk extent in this process (JIT, imports, store path)."""
+    import instantonkit as ik
+
+    for i, ext in enumerate(extents):
+        path = os.path.join(directory, f"warm-{os.getpid()}-{i}")
+        ik.lattice_links(field, ext, spacing, backend="dask", chunks=ext, store=path, client="sync", boundary="open", **options)
+    return os.getpid()
+
+
+def _status_kib(key: str) -> int:
+    with open("/proc/self/status") as fh:
+        for line in fh:
+            if line.startswith(key + ":"):
+                return int(line.split()[1])
+    raise RuntimeError(f"{key} not found in /proc/self/status")
+
+
+def _mem_mark() -> tuple:
+    """Free heap back to the system, reset the peak resident set; (resident KiB now, method)."""
+    import ctypes
+    import gc
+
+    gc.collect()
+    with contextlib.suppress(OSError, AttributeError):
+        ctypes.CDLL("libc.so.6").malloc_trim(0)
+    try:
+        with open("/proc/self/clear_refs", "w") as fh:
+            fh.write("5")
+        method = "VmHWM"
+    except OSError:
+        method = "ru_maxrss"
+    return _status_kib("VmRSS"), method
+
+
+def _mem_peak(method: str) -> int:
+    """Peak resident set in KiB since :func:`_mem_mark` (VmHWM), or over the process life (ru_maxrss)."""
+    if method == "VmHWM":
+        return _status_kib("VmHWM")
+    import resource
+
+    return int(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)
+
+
+# -- helpers in this process ---------------------------------------------------------------------------
+
+
+@contextlib.contextmanager
+def _cluster(n_workers: int):
+    """A LocalCluster of ``n_workers`` processes, one thread each, and its Client (logs below ERROR silenced)."""
+    import logging
+
+    from distributed import Client, LocalCluster
+
+    with LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=True, dashboard_address=None,
+                      silence_logs=logging.ERROR) as cluster, Client(cluster) as client:
+        client.wait_for_workers(n_workers)
+        yield client
+
+
+def _extents(shape, chunks) -> list:
+    """The distinct box shapes of the chunks of ``shape`` (edge chunks may be smaller)."""
+    import itertools
+
+    per_axis = [sorted({c} | ({s % c} if s % c else set())) for s, c in zip(shape, chunks)]
+    return [tuple(e) for e in itertools.product(*per_axis)]
+
+
+def _warm_all(client, field, shape, chunks, options: dict, directory: str) -> None:
+    """Run :func:`_warm_worker` once on every worker of ``client`` (pinned to that worker)."""
+    workers = list(client.scheduler_info()["workers"])
+    futures = [
+        client.submit(_warm_worker, field, _extents(shape, chunks), SPACING, options, directory,
+                      workers=[w], allow_other_workers=False, pure=False)
+        for w in workers
+    ]
+    pids = client.gather(futures)
+    if len(set(pids)) != len(workers):
+        raise RuntimeError(f"warm-up ran in {len(set(pids))} processes for {len(workers)} workers")
+
+
+def _timed(fn):
+    t = time.perf_counter()
+    out = fn()
+    return out, time.perf_counter() - t
+
+
+def _fmt_chunks(chunks) -> str:
+    return "x".join(str(c) for c in chunks)
+
+
+# -- 1. scaling ---------------------------------------------------------------------------------------
+
+
+def scaling(size: int) -> list[dict]:
+    """Rows: a charge-2 ADHM Magnus start of size^4 sites on 1 and 2 workers and in this process."""
+    import numpy as np
+
+    import instantonkit as ik
+    from instantonkit import lattice as lat
+
+    field = ik.multi_instanton([[1.0, 0.0, 0.0, 0.0], [-1.0, 0.0, 0.0, 0.0]], [1.0, 1.0])
+    shape = (size,) * 4
+    chunks = (size, size, size, 1)
+    spec = lat.StartSpec.make(field, shape, SPACING, rtol=SCALING_RTOL)
+    options = {"rtol": SCALING_RTOL, "origin": spec.origin}
+    name = f"k=2 ADHM {size}^4 SU(2) Magnus start (rtol {SCALING_RTOL:.0e})"
+
+    # this process: compile the time-slice kernels and the boundary check outside the timings
+    stats: dict = {}
+    spec.block((0, 0, 0, 0), chunks, stats)
+    spec.boundary_figures(np.zeros(spec.links_shape, dtype=np.complex128))
+    local, t_local = _timed(lambda: ik.lattice_links(field, shape, SPACING, rtol=SCALING_RTOL))
+    _, t_boundary = _timed(lambda: spec.boundary_figures(local))
+
+    total, phase = {}, {}
+    for n in (1, 2):
+        with tempfile.TemporaryDirectory() as tmp, _cluster(n) as client:
+            _warm_all(client, field, shape, chunks, options, tmp)
+            (links, report), total[n] = _timed(lambda: ik.lattice_links(
+                field, shape, SPACING, rtol=SCALING_RTOL, backend="dask", chunks=chunks,
+                store=os.path.join(tmp, "start"), client=client, return_report=True))
+            phase[n] = report.seconds
+            if not np.array_equal(np.asarray(links[...]), local):
+                raise RuntimeError(f"the {n}-worker start differs from the local one")
+            del links
+    n_chunks = size
+    return [
+        {"figure": f"{name}: local, one process", "value": round(t_local, 3), "unit": "s", "ratio": None,
+         "reference": f"lattice_links(backend='local'), compiled; max {report.max_steps} Magnus steps"},
+        {"figure": f"{name}: dask, 1 worker", "value": round(total[1], 3), "unit": "s",
+         "ratio": round(total[1] / t_local, 3), "reference": "x the local path (1.0 = no overhead)"},
+        {"figure": f"{name}: dask, 2 workers", "value": round(total[2], 3), "unit": "s",
+         "ratio": round(total[1] / total[2], 3), "reference": "speedup over 1 worker (ideal 2)"},
+        {"figure": f"{name}: chunk phase, 1 worker", "value": round(phase[1], 3), "unit": "s",
+         "ratio": round(phase[1] / t_local, 3),
+         "reference": f"{n_chunks} chunks {_fmt_chunks(chunks)}, store writes included; x the local path"},
+        {"figure": f"{name}: chunk phase, 2 workers", "value": round(phase[2], 3), "unit": "s",
+         "ratio": round(phase[1] / phase[2], 3), "reference": "speedup over 1 worker (ideal 2)"},
+        {"figure": f"{name}: serial part, 2 workers", "value": round(total[2] - phase[2], 3), "unit": "s",
+         "ratio": round((total[2] - phase[2]) / total[2], 3),
+         "reference": f"call minus chunk phase, fraction of the call; boundary check alone {t_boundary:.2f} s"},
+    ]
+
+
+# -- 2. memory per chunk ------------------------------------------------------------------------------
+
+
+def _memory_run(size: int, chunks: tuple) -> dict:
+    """One BPST SU(3) start of size^4 sites in ``chunks`` on a fresh 2-worker cluster: time and worker peaks."""
+    import instantonkit as ik
+
+    field = ik.bpst(size=2.0)
+    shape = (size,) * 4
+    options = {"group": "su3"}
+    with tempfile.TemporaryDirectory() as tmp, _cluster(2) as client:
+        _warm_all(client, field, shape, chunks, options, tmp)
+        before = client.run(_mem_mark)
+        methods = {m for _, m in before.values()}
+        method = "VmHWM" if methods == {"VmHWM"} else "ru_maxrss"
+        _, seconds = _timed(lambda: ik.lattice_links(
+            field, shape, SPACING, group="su3", backend="dask", chunks=chunks, store=os.path.join(tmp, "start"), client=client))
+        peak = client.run(_mem_peak, method)
+    growth = sorted((max(peak[w] - before[w][0], 0) * 1024 for w in before), reverse=True)
+    return {"seconds": seconds, "growth": growth, "method": method}
+
+
+def memory(sizes, chunks: tuple, big_chunks: tuple) -> list[dict]:
+    """Rows: peak worker memory growth for ``sizes`` with ``chunks``, and for the largest size with ``big_chunks``."""
+    site_bytes = 4 * 3 * 3 * 16
+    runs = [(s, chunks) for s in sizes] + [(max(sizes), big_chunks)]
+    rows, growth = [], {}
+    for size, ch in runs:
+        r = _memory_run(size, ch)
+        chunk_bytes = math.prod(ch) * site_bytes
+        array_bytes = size**4 * site_bytes
+        n_chunks = math.prod(-(-size // c) for c in ch)
+        growth[(size, ch)] = r["growth"][0]
+        note = "" if r["method"] == "VmHWM" else "; ru_maxrss, warm-up peak included"
+        rows.append({
+            "figure": f"BPST SU(3) {size}^4, chunks {_fmt_chunks(ch)}: peak worker memory growth",
+            "value": round(r["growth"][0] / MiB, 2), "unit": "MiB", "ratio": round(r["growth"][0] / chunk_bytes, 3),
+            "reference": (f"x chunk {chunk_bytes / MiB:.2f} MiB; array {array_bytes / MiB:.0f} MiB in {n_chunks} chunks, "
+                          f"{r['seconds']:.1f} s; other worker {r['growth'][-1] / MiB:.2f} MiB{note}"),
+        })
+    small, big = min(sizes), max(sizes)
+    rows.append({
+        "figure": f"memory growth {big}^4 / {small}^4, chunks {_fmt_chunks(chunks)}",
+        "value": round(growth[(big, chunks)] / growth[(small, chunks)], 3), "unit": "x", "ratio": None,
+        "reference": f"1.0 = independent of the lattice (arrays differ {big**4 / small**4:.0f}x)",
+    })
+    rows.append({
+        "figure": f"memory growth chunks {_fmt_chunks(big_chunks)} / {_fmt_chunks(chunks)}, {big}^4",
+        "value": round(growth[(big, big_chunks)] / growth[(big, chunks)], 3), "unit": "x", "ratio": None,
+        "reference": f"{math.prod(big_chunks) / math.prod(chunks):.0f} = proportional to the chunk",
+    })
+    return rows
+
+
+# -- protocol ------------------------------------------------------------------------------------------
+
+PARTS = ("scaling", "memory")
+
+
+def run(quick: bool = False, parts=PARTS, scaling_size: int | None = None, memory_sizes=None) -> list[dict]:
+    """Rows {figure, value, unit, ratio, reference} of the parts asked for (see the module notes)."""
+    unknown = set(parts) - set(PARTS)
+    if unknown:
+        raise ValueError(f"parts must be among {PARTS}; found {sorted(unknown)}")
+    rows = []
+    if "scaling" in parts:
+        rows += scaling(scaling_size or (8 if quick else 12))
+    if "memory" in parts:
+        if quick:
+            rows += memory(memory_sizes or (16, 32), (8, 8, 8, 8), (8, 8, 8, 16))
+        else:
+            rows += memory(memory_sizes or (16, 32, 48), (8, 8, 16, 16), (8, 16, 16, 16))
+    return rows
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--quick", action="store_true", help="8^4 scaling start; 16^4 and 32^4 memory runs")
+    ap.add_argument("--part", choices=PARTS, action="append", help="run only this part (repeatable)")
+    ap.add_argument("--json", action="store_true", help="print the rows as JSON")
+    args = ap.parse_args(argv)
+    rows = run(args.quick, tuple(args.part) if args.part else PARTS)
+    if args.json:
+        print(json.dumps(rows, indent=1))
+        return 0
+    print(f"{'figure':72s} {'value':>9s} {'unit':>4s} {'ratio':>7s}  reference")
+    for r in rows:
+        ratio = "" if r["ratio"] is None else f"{r['ratio']:.3f}"
+        print(f"{r['figure']:72s} {r['value']:>9} {r['unit']:>4s} {ratio:>7s}  {r['reference']}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,369 @@
+"""Specification of the chunked backend (Dask scheduling, Zarr stores, resumption, ensembles).
+
+The physics of the links and densities is specified against published formulas in test_lattice.py
+and test_fields.py for the local path; here the chunked path is required to reproduce the local
+path bit for bit, so those checks carry over.
+"""
+
+import os
+import signal
+import subprocess
+import sys
+import textwrap
+
+import numpy as np
+import pytest
+
+import instantonkit as ik
+from instantonkit import cluster
+from instantonkit import lattice as lat
+
+import dask.array as da
+import distributed
+import zarr
+
+TWO = ik.multi_instanton([[0.0, 0.0, 0.0, 0.0], [1.4, 0.3, -0.5, 0.7]], [1.1, 0.8])
+SHAPE = (4, 4, 4, 6)
+RTOL = 1e-8
+
+
+@pytest.fixture(scope="module")
+def client():
+    """A two-worker local cluster (one thread per worker), shared by the tests of this module."""
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, dashboard_address=":0") as lc:
+        with distributed.Client(lc) as c:
+            yield c
+
+
+@pytest.fixture(scope="module")
+def two_local():
+    """The single-process reference start of the charge-2 field (Magnus path) and its report."""
+    return ik.lattice_links(TWO, SHAPE, 1.0, rtol=RTOL, return_report=True)
+
+
+def _report_without_time(rep):
+    d = rep.as_metadata()
+    d.pop("seconds")
+    return d
+
+
+# -- bit identity with the local path --------------------------------------------------------------
+
+
+@pytest.mark.slow
+def test_two_worker_cluster_start_is_bit_identical_to_local(client, two_local, tmp_path):
+    ref, _ = two_local
+    z = ik.lattice_links(TWO, SHAPE, 1.0, rtol=RTOL, backend="dask", chunks=(2, 4, 3, 4), store=tmp_path / "s.zarr", client=client)
+    assert np.array_equal(np.asarray(z[...]), ref)
+
+
+@pytest.mark.slow
+def test_chunked_report_equals_local_report(client, two_local, tmp_path):
+    _, rep = two_local
+    _, rep2 = ik.lattice_links(
+        TWO, SHAPE, 1.0, rtol=RTOL, backend="dask", chunks=(4, 2, 4, 3), store=tmp_path / "s.zarr", client=client, return_report=True
+    )
+    assert _report_without_time(rep2) == _report_without_time(rep)
+
+
+def test_closed_form_su3_start_in_this_process_is_bit_identical(tmp_path):
+    field = ik.bpst(size=1.5)
+    ref = ik.lattice_links(field, (5, 4, 4, 6), 0.8, group="su3", embedding=(0, 2))
+    z = ik.lattice_links(field, (5, 4, 4, 6), 0.8, group="su3", embedding=(0, 2), backend="dask", chunks=(2, 3, 4, 5), store=tmp_path / "s", client="sync")
+    assert z.shape == (5, 4, 4, 6, 4, 3, 3) and z.dtype == np.complex128
+    assert np.array_equal(np.asarray(z[...]), ref)
+
+
+def test_without_store_a_lazy_dask_array_is_returned():
+    field = ik.bpst(size=1.2)
+    lazy = ik.lattice_links(field, (4, 4, 4, 4), 1.0, backend="dask", chunks=(2, 4, 4, 3))
+    assert isinstance(lazy, da.Array)
+    assert lazy.chunks[:4] == ((2, 2), (4,), (4,), (3, 1))
+    assert np.array_equal(lazy.compute(scheduler="sync"), ik.lattice_links(field, (4, 4, 4, 4), 1.0))
+
+
+def test_sp2_start_uses_the_fields_own_group(tmp_path):
+    field = ik.embed_sp(ik.bpst(size=1.3), 2)
+    ref = ik.lattice_links(field, (3, 3, 3, 4), 1.0, group=None, rtol=1e-6)
+    z = ik.lattice_links(field, (3, 3, 3, 4), 1.0, group=None, rtol=1e-6, backend="dask", chunks=(3, 2, 3, 2), store=tmp_path / "s", client="sync")
+    assert z.shape[-2:] == (4, 4)
+    assert np.array_equal(np.asarray(z[...]), ref)
+
+
+# -- stores: parameters, reuse, refusal ------------------------------------------------------------
+
+
+def test_store_records_the_generation_parameters_and_report(tmp_path):
+    field = ik.bpst(center=(0.1, 0.0, 0.0, 0.0), size=1.2)
+    ik.lattice_links(field, (4, 4, 4, 4), 0.9, backend="dask", chunks=(4, 4, 2, 2), store=tmp_path / "s", client="sync")
+    st = cluster.store_status(tmp_path / "s")
+    assert st.kind == "lattice_links" and st.complete and (st.chunks_done, st.chunks_total) == (4, 4)
+    assert st.params["shape"] == [4, 4, 4, 4] and st.params["spacing"] == 0.9 and st.params["group"] == "su2"
+    assert st.params["field"]["type"].endswith("ADHMData")
+    assert st.report["method"] == "closed" and st.report["unitarity_after"] < 1e-14
+    meta = zarr.open_group(str(tmp_path / "s"), mode="r").attrs["instantonkit"]
+    assert meta["runs"][-1]["chunks_computed"] == 4
+
+
+def test_complete_store_is_returned_without_computing(tmp_path):
+    field = ik.bpst(size=1.2)
+    kw = dict(backend="dask", chunks=(2, 4, 4, 4), store=tmp_path / "s", client="sync")
+    first = np.asarray(ik.lattice_links(field, (4, 4, 4, 4), 1.0, **kw)[...])
+    calls = []
+    again = ik.lattice_links(field, (4, 4, 4, 4), 1.0, progress=lambda d, t: calls.append(d), **kw)
+    assert calls == [] and np.array_equal(np.asarray(again[...]), first)
+    last = zarr.open_group(str(tmp_path / "s"), mode="r").attrs["instantonkit"]["runs"][-1]
+    assert (last["chunks_computed"], last["chunks_reused"]) == (0, 2)
+
+
+def test_store_made_with_other_parameters_is_refused_naming_them(tmp_path):
+    field = ik.bpst(size=1.2)
+    ik.lattice_links(field, (4, 4, 4, 4), 1.0, backend="dask", chunks=4, store=tmp_path / "s", client="sync")
+    with pytest.raises(ValueError, match="spacing"):
+        ik.lattice_links(field, (4, 4, 4, 4), 0.5, backend="dask", chunks=4, store=tmp_path / "s", client="sync")
+    with pytest.raises(ValueError, match="field_probe"):  # same parameters, another field
+        ik.lattice_links(ik.bpst(size=1.3), (4, 4, 4, 4), 1.0, backend="dask", chunks=4, store=tmp_path / "s", client="sync")
+
+
+def test_overwrite_replaces_a_store_made_with_other_parameters(tmp_path):
+    field = ik.bpst(size=1.2)
+    ik.lattice_links(field, (4, 4, 4, 4), 1.0, backend="dask", chunks=4, store=tmp_path / "s", client="sync")
+    z = ik.lattice_links(field, (4, 4, 4, 4), 0.5, backend="dask", chunks=4, store=tmp_path / "s", client="sync", overwrite=True)
+    assert cluster.store_status(tmp_path / "s").params["spacing"] == 0.5
+    assert np.array_equal(np.asarray(z[...]), ik.lattice_links(field, (4, 4, 4, 4), 0.5))
+
+
+def test_resuming_with_other_chunks_is_refused(tmp_path):
+    field = ik.bpst(size=1.2)
+    ik.lattice_links(field, (4, 4, 4, 4), 1.0, backend="dask", chunks=(4, 4, 4, 2), store=tmp_path / "s", client="sync")
+    with pytest.raises(ValueError, match=r"chunks \(4, 4, 4, 2\)"):
+        ik.lattice_links(field, (4, 4, 4, 4), 1.0, backend="dask", chunks=(4, 4, 2, 4), store=tmp_path / "s", client="sync")
+
+
+def test_a_directory_that_is_not_a_store_is_never_touched(tmp_path):
+    d = tmp_path / "mine"
+    d.mkdir()
+    (d / "notes.txt").write_text("keep me")
+    for overwrite in (False, True):
+        with pytest.raises(ValueError, match="not an instantonkit store"):
+            ik.lattice_links(ik.bpst(), (2, 2, 2, 2), 1.0, backend="dask", store=d, client="sync", overwrite=overwrite)
+    assert (d / "notes.txt").read_text() == "keep me"
+
+
+def test_store_status_of_a_foreign_path_is_a_clear_error(tmp_path):
+    with pytest.raises(ValueError, match="not a Zarr store"):
+        cluster.store_status(tmp_path / "nothing-here")
+
+
+# -- resumption ---------------------------------------------------------------------------------------
+
+_KILLED_RUN = """
+import os, signal
+import instantonkit as ik
+
+field = ik.multi_instanton([[0.0, 0.0, 0.0, 0.0], [1.4, 0.3, -0.5, 0.7]], [1.1, 0.8])
+
+def die_after_two(done, total):
+    if done == 2:
+        os.kill(os.getpid(), signal.SIGKILL)  # a hard stop: no clean-up runs
+
+ik.lattice_links(field, {shape}, 1.0, rtol={rtol}, backend="dask", chunks={chunks}, store={store!r}, client="sync", progress=die_after_two)
+"""
+
+
+@pytest.mark.slow
+def test_a_killed_run_is_completed_by_the_next_call_with_nothing_lost(two_local, tmp_path):
+    ref, _ = two_local
+    store, chunks = str(tmp_path / "s"), (2, 2, 4, 6)
+    script = _KILLED_RUN.format(shape=SHAPE, rtol=RTOL, chunks=chunks, store=store)
+    proc = subprocess.run([sys.executable, "-c", textwrap.dedent(script)], capture_output=True, timeout=600)
+    assert proc.returncode == -signal.SIGKILL, proc.stderr.decode()[-2000:]
+    st = cluster.store_status(store)
+    assert not st.complete and st.chunks_done == 2 and st.chunks_total == 4
+    calls = []
+    z = ik.lattice_links(TWO, SHAPE, 1.0, rtol=RTOL, backend="dask", chunks=chunks, store=store, client="sync", progress=lambda d, t: calls.append((d, t)))
+    assert calls == [(3, 4), (4, 4)]  # only the two missing chunks were computed
+    assert np.array_equal(np.asarray(z[...]), ref)
+    meta = zarr.open_group(store, mode="r").attrs["instantonkit"]
+    assert meta["runs"][-1]["chunks_reused"] == 2 and meta["runs"][-1]["chunks_computed"] == 2
+
+
+def test_a_chunk_written_but_not_marked_done_is_recomputed(tmp_path):
+    field = ik.bpst(size=1.2)
+    kw = dict(backend="dask", chunks=(2, 4, 4, 4), store=tmp_path / "s", client="sync")
+    ik.lattice_links(field, (4, 4, 4, 4), 1.0, **kw)
+    links = zarr.open_array(str(tmp_path / "s"), path="links", mode="r+")
+    links[2:4] = np.zeros((2, 4, 4, 4, 4, 2, 2))  # as if a task died after its data and before its row
+    rows = zarr.open_array(str(tmp_path / "s"), path="chunk_report", mode="r+")
+    rows[1, 0, 0, 0] = np.zeros(5)
+    assert cluster.store_status(tmp_path / "s").chunks_done == 1
+    z = ik.lattice_links(field, (4, 4, 4, 4), 1.0, **kw)
+    assert np.array_equal(np.asarray(z[...]), ik.lattice_links(field, (4, 4, 4, 4), 1.0))
+
+
+@pytest.mark.slow
+def test_killing_a_worker_mid_run_completes_the_store_without_duplicates(two_local, tmp_path):
+    ref, _ = two_local
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, dashboard_address=":0") as lc, distributed.Client(lc) as c:
+        pids = sorted(c.run(os.getpid).values())
+        killed = []
+
+        def kill_one(done, total):
+            if done == 1 and not killed:
+                os.kill(pids[0], signal.SIGKILL)
+                killed.append(pids[0])
+
+        store = tmp_path / "s"
+        z = ik.lattice_links(TWO, SHAPE, 1.0, rtol=RTOL, backend="dask", chunks=(1, 2, 4, 3), store=store, client=c, progress=kill_one)
+        assert killed and killed[0] not in c.run(os.getpid).values()  # the nanny started a new worker process
+    assert np.array_equal(np.asarray(z[...]), ref)
+    chunk_files = [f for _, _, files in os.walk(store / "links" / "c") for f in files]
+    assert len(chunk_files) == 4 * 2 * 1 * 2  # one file per chunk, no leftovers of interrupted writes
+    assert cluster.store_status(store).complete
+
+
+# -- point sets and grids -------------------------------------------------------------------------
+
+
+def test_grid_values_are_bit_identical_to_the_local_evaluation(tmp_path):
+    shape, a = (4, 3, 5, 4), 0.7
+    z = cluster.evaluate_grid(TWO, shape, a, "action_density", chunks=(2, 3, 2, 4), store=tmp_path / "g", client="sync")
+    pts = lat.site_points(shape, a, lat.default_origin(TWO, shape, a))
+    assert z.shape == shape and np.array_equal(np.asarray(z[...]), ik.action_density(TWO, pts))
+
+
+def test_grid_field_strength_keeps_the_trailing_axes():
+    field = ik.bpst(size=1.0)
+    lazy = cluster.evaluate_grid(field, (2, 2, 3, 2), 0.5, "field_strength", chunks=(1, 2, 2, 2))
+    pts = lat.site_points((2, 2, 3, 2), 0.5, lat.default_origin(field, (2, 2, 3, 2), 0.5))
+    assert lazy.shape == (2, 2, 3, 2, 4, 4, 2, 2)
+    assert np.array_equal(lazy.compute(scheduler="sync"), ik.field_strength(field, pts))
+
+
+def test_points_from_numpy_zarr_and_dask_give_the_local_values(tmp_path):
+    rng = np.random.default_rng(3)
+    pts = rng.normal(scale=2.0, size=(7, 9, 4))
+    ref = ik.charge_density(TWO, pts)
+    z = cluster.evaluate(TWO, pts, "charge_density", chunks=(3, 4), store=tmp_path / "a", client="sync")
+    assert np.array_equal(np.asarray(z[...]), ref)
+    zp = zarr.create_array(str(tmp_path / "pts"), shape=pts.shape, chunks=(4, 9, 4), dtype="f8")
+    zp[...] = pts
+    z2 = cluster.evaluate(TWO, zp, "charge_density", chunks=(4, 9), store=tmp_path / "b", client="sync")
+    assert np.array_equal(np.asarray(z2[...]), ref)
+    lazy = cluster.evaluate(TWO, da.from_array(pts, chunks=(2, 5, 4)), "charge_density")
+    assert np.array_equal(lazy.compute(scheduler="sync"), ref)
+
+
+@pytest.mark.slow
+def test_grid_values_on_the_cluster_match(client, tmp_path):
+    shape = (3, 4, 4, 5)
+    z = cluster.evaluate_grid(TWO, shape, 0.6, "self_duality_residual", chunks=(3, 2, 4, 2), store=tmp_path / "g", client=client)
+    pts = lat.site_points(shape, 0.6, lat.default_origin(TWO, shape, 0.6))
+    assert np.array_equal(np.asarray(z[...]), ik.self_duality_residual(TWO, pts))
+
+
+def test_dask_points_cannot_go_to_a_store(tmp_path):
+    with pytest.raises(ValueError, match="numpy or Zarr points"):
+        cluster.evaluate(TWO, da.zeros((4, 4)), "action_density", store=tmp_path / "x")
+
+
+def test_unknown_quantity_is_refused():
+    with pytest.raises(ValueError, match="quantity must be one of"):
+        cluster.evaluate_grid(TWO, (2, 2, 2, 2), 1.0, "energy")
+
+
+def test_points_with_a_wrong_last_axis_are_refused():
+    with pytest.raises(ValueError, match=r"\(\.\.\., 4\); found shape \(5, 3\)"):
+        cluster.evaluate(TWO, np.zeros((5, 3)), "action_density")
+
+
+# -- ensembles -------------------------------------------------------------------------------------
+
+
+def test_member_seed_is_the_spawned_child_of_numpy():
+    # numpy's SeedSequence.spawn(n) gives children with spawn_key (i,) (numpy documentation, common practice)
+    children = np.random.SeedSequence(42).spawn(5)
+    for i, child in enumerate(children):
+        assert np.array_equal(cluster.member_seed(42, i).generate_state(4), child.generate_state(4))
+
+
+def test_ensemble_members_do_not_depend_on_the_ensemble_size():
+    small = cluster.ensemble(2, 2, (4, 4, 4, 4), 1.0, seed=11, rtol=1e-6)
+    large = cluster.ensemble(3, 2, (4, 4, 4, 4), 1.0, seed=11, rtol=1e-6)
+    for a, b in zip(small.members, large.members):
+        assert np.array_equal(np.asarray(a.lam), np.asarray(b.lam)) and np.array_equal(np.asarray(a.B), np.asarray(b.B))
+    other = cluster.ensemble(2, 2, (4, 4, 4, 4), 1.0, seed=12, rtol=1e-6)
+    assert not np.array_equal(np.asarray(other.members[0].B), np.asarray(small.members[0].B))
+
+
+def test_ensemble_members_are_valid_charge_k_data_inside_the_box():
+    ens = cluster.ensemble(4, 3, (8, 8, 8, 8), 1.0, seed=5)
+    assert len(ens) == 4 and isinstance(ens.links, da.Array) and ens.links.shape == (4, 8, 8, 8, 8, 4, 2, 2)
+    for m in ens.members:
+        assert m.k == 3 and m.constraint_residual() < 1e-12
+        assert np.all((np.asarray(m.sizes()) >= 0.5) & (np.asarray(m.sizes()) <= 1.0))  # (L a / 16, L a / 8)
+
+
+@pytest.mark.slow
+def test_ensemble_on_the_cluster_matches_each_members_local_start(client, tmp_path):
+    ens = cluster.ensemble(3, 2, (4, 4, 4, 4), 1.0, seed=9, rtol=1e-6, chunks=(2, 4, 4, 4), store=tmp_path / "e", client=client)
+    assert ens.links.shape == (3, 4, 4, 4, 4, 4, 2, 2) and len(ens.reports) == 3
+    for i in range(3):
+        links, data = cluster.load_member(tmp_path / "e", i)
+        assert np.array_equal(np.asarray(data.B), np.asarray(ens.members[i].B))
+        assert np.array_equal(links, ik.lattice_links(data, (4, 4, 4, 4), 1.0, origin=np.full(4, -1.5), rtol=1e-6))
+        assert ens.reports[i].method == "magnus"
+
+
+def test_load_member_of_a_partial_ensemble_is_a_clear_error(tmp_path):
+    store = tmp_path / "e"
+
+    def stop(done, total):
+        if done == 1:
+            raise KeyboardInterrupt
+
+    with pytest.raises(KeyboardInterrupt):
+        cluster.ensemble(2, 1, (2, 2, 2, 2), 1.0, chunks=2, store=store, client="sync", progress=stop)
+    with pytest.raises(ValueError, match="member 1 .* not complete"):
+        cluster.load_member(store, 1)
+    with pytest.raises(ValueError, match="0..1"):
+        cluster.load_member(store, 2)
+
+
+# -- argument checks --------------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize(
+    "kw, match",
+    [
+        (dict(backend="spark"), "backend must be one of"),
+        (dict(backend="dask", chunks=(2, 2, 2)), r"4 positive integers .* found \(2, 2, 2\)"),
+        (dict(backend="dask", chunks=(2, 0, 2, 2)), "positive integers"),
+        (dict(backend="dask", return_report=True), "needs store="),
+        (dict(chunks=(2, 2, 2, 2)), "need backend='dask'"),
+        (dict(backend="dask", out=np.empty(1)), "out= is for the local backend"),
+    ],
+)
+def test_bad_backend_arguments_are_refused(kw, match):
+    with pytest.raises(ValueError, match=match):
+        ik.lattice_links(ik.bpst(), (2, 2, 2, 2), 1.0, **kw)
+
+
+def test_a_bad_client_is_refused(tmp_path):
+    with pytest.raises(ValueError, match="client must be"):
+        ik.lattice_links(ik.bpst(), (2, 2, 2, 2), 1.0, backend="dask", store=tmp_path / "s", client="threads")
+    with pytest.raises(TypeError, match="client must be"):
+        ik.lattice_links(ik.bpst(), (2, 2, 2, 2), 1.0, backend="dask", store=tmp_path / "t", client=3)
+
+
+def test_missing_optional_extra_names_it(monkeypatch):
+    monkeypatch.setitem(sys.modules, "zarr", None)
+    with pytest.raises(ImportError, match=r"instantonkit\[distributed\]"):
+        cluster.store_status("anything")
+
+
+def test_default_chunks_stay_under_the_byte_target():
+    c = cluster.default_chunks((64, 64, 64, 64), 4 * 9 * 16)
+    assert np.prod(c) * 4 * 9 * 16 <= cluster.CHUNK_BYTES
+    assert all(64 % v == 0 for v in c)
+    assert cluster.default_chunks((3, 3, 3, 3), 16) == (3, 3, 3, 3)
