@@ -96,13 +96,17 @@ def _mem_peak(method: str) -> int:
 
 @contextlib.contextmanager
 def _cluster(n_workers: int):
-    """A LocalCluster of ``n_workers`` processes, one thread each, and its Client (logs below ERROR silenced)."""
+    """A LocalCluster of ``n_workers`` processes, one thread each, and its Client (logs below ERROR silenced).
+
+    No dashboard; the scheduler's small HTTP server (which it starts anyway) gets a free local port
+    instead of the default one, which may be taken."""
     import logging
 
     from distributed import Client, LocalCluster
 
+    http = {"dashboard": False, "dashboard_address": "127.0.0.1:0"}
     with LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=True, dashboard_address=None,
-                      silence_logs=logging.ERROR) as cluster, Client(cluster) as client:
+                      scheduler_kwargs=http, silence_logs=logging.ERROR) as cluster, Client(cluster) as client:
         client.wait_for_workers(n_workers)
         yield client
 
@@ -128,6 +132,15 @@ def _warm_all(client, field, shape, chunks, options: dict, directory: str) -> No
         raise RuntimeError(f"warm-up ran in {len(set(pids))} processes for {len(workers)} workers")
 
 
+def _warm_here(spec, chunks, options: dict, directory: str) -> None:
+    """Warm this process: the chunked call's own steps (field probe, store) and the periodic boundary
+    check of the full lattice (run on zero links: the same shapes, so the same compiled kernels)."""
+    import numpy as np
+
+    _warm_worker(spec.field, _extents(spec.shape, chunks), spec.spacing, options, directory)
+    spec.boundary_figures(np.zeros(spec.links_shape, dtype=np.complex128))
+
+
 def _timed(fn):
     t = time.perf_counter()
     out = fn()
@@ -148,6 +161,7 @@ def scaling(size: int) -> list[dict]:
     import instantonkit as ik
     from instantonkit import lattice as lat
 
+    load = os.getloadavg()[0] if hasattr(os, "getloadavg") else math.nan  # other work skews a 2-core figure
     field = ik.multi_instanton([[1.0, 0.0, 0.0, 0.0], [-1.0, 0.0, 0.0, 0.0]], [1.0, 1.0])
     shape = (size,) * 4
     chunks = (size, size, size, 1)
@@ -155,10 +169,8 @@ def scaling(size: int) -> list[dict]:
     options = {"rtol": SCALING_RTOL, "origin": spec.origin}
     name = f"k=2 ADHM {size}^4 SU(2) Magnus start (rtol {SCALING_RTOL:.0e})"
 
-    # this process: compile the time-slice kernels and the boundary check outside the timings
-    stats: dict = {}
-    spec.block((0, 0, 0, 0), chunks, stats)
-    spec.boundary_figures(np.zeros(spec.links_shape, dtype=np.complex128))
+    with tempfile.TemporaryDirectory() as tmp:
+        _warm_here(spec, chunks, options, tmp)
     local, t_local = _timed(lambda: ik.lattice_links(field, shape, SPACING, rtol=SCALING_RTOL))
     _, t_boundary = _timed(lambda: spec.boundary_figures(local))
 
@@ -176,7 +188,8 @@ def scaling(size: int) -> list[dict]:
     n_chunks = size
     return [
         {"figure": f"{name}: local, one process", "value": round(t_local, 3), "unit": "s", "ratio": None,
-         "reference": f"lattice_links(backend='local'), compiled; max {report.max_steps} Magnus steps"},
+         "reference": (f"lattice_links(backend='local'), compiled; max {report.max_steps} Magnus steps; "
+                       f"load average {load:.2f} before")},
         {"figure": f"{name}: dask, 1 worker", "value": round(total[1], 3), "unit": "s",
          "ratio": round(total[1] / t_local, 3), "reference": "x the local path (1.0 = no overhead)"},
         {"figure": f"{name}: dask, 2 workers", "value": round(total[2], 3), "unit": "s",
@@ -198,20 +211,24 @@ def scaling(size: int) -> list[dict]:
 def _memory_run(size: int, chunks: tuple) -> dict:
     """One BPST SU(3) start of size^4 sites in ``chunks`` on a fresh 2-worker cluster: time and worker peaks."""
     import instantonkit as ik
+    from instantonkit import lattice as lat
 
     field = ik.bpst(size=2.0)
     shape = (size,) * 4
-    options = {"group": "su3"}
+    spec = lat.StartSpec.make(field, shape, SPACING, group="su3")
+    options = {"group": "su3", "origin": spec.origin}
     with tempfile.TemporaryDirectory() as tmp, _cluster(2) as client:
+        _warm_here(spec, chunks, options, tmp)
         _warm_all(client, field, shape, chunks, options, tmp)
         before = client.run(_mem_mark)
         methods = {m for _, m in before.values()}
         method = "VmHWM" if methods == {"VmHWM"} else "ru_maxrss"
-        _, seconds = _timed(lambda: ik.lattice_links(
-            field, shape, SPACING, group="su3", backend="dask", chunks=chunks, store=os.path.join(tmp, "start"), client=client))
+        (_, report), seconds = _timed(lambda: ik.lattice_links(
+            field, shape, SPACING, group="su3", backend="dask", chunks=chunks, store=os.path.join(tmp, "start"),
+            client=client, return_report=True))
         peak = client.run(_mem_peak, method)
     growth = sorted((max(peak[w] - before[w][0], 0) * 1024 for w in before), reverse=True)
-    return {"seconds": seconds, "growth": growth, "method": method}
+    return {"seconds": seconds, "phase": report.seconds, "growth": growth, "method": method}
 
 
 def memory(sizes, chunks: tuple, big_chunks: tuple) -> list[dict]:
@@ -230,17 +247,17 @@ def memory(sizes, chunks: tuple, big_chunks: tuple) -> list[dict]:
             "figure": f"BPST SU(3) {size}^4, chunks {_fmt_chunks(ch)}: peak worker memory growth",
             "value": round(r["growth"][0] / MiB, 2), "unit": "MiB", "ratio": round(r["growth"][0] / chunk_bytes, 3),
             "reference": (f"x chunk {chunk_bytes / MiB:.2f} MiB; array {array_bytes / MiB:.0f} MiB in {n_chunks} chunks, "
-                          f"{r['seconds']:.1f} s; other worker {r['growth'][-1] / MiB:.2f} MiB{note}"),
+                          f"call {r['seconds']:.1f} s (chunks {r['phase']:.1f} s); other worker {r['growth'][-1] / MiB:.2f} MiB{note}"),
         })
     small, big = min(sizes), max(sizes)
     rows.append({
         "figure": f"memory growth {big}^4 / {small}^4, chunks {_fmt_chunks(chunks)}",
-        "value": round(growth[(big, chunks)] / growth[(small, chunks)], 3), "unit": "x", "ratio": None,
+        "value": round(growth[(big, chunks)] / max(growth[(small, chunks)], 1), 3), "unit": "x", "ratio": None,
         "reference": f"1.0 = independent of the lattice (arrays differ {big**4 / small**4:.0f}x)",
     })
     rows.append({
         "figure": f"memory growth chunks {_fmt_chunks(big_chunks)} / {_fmt_chunks(chunks)}, {big}^4",
-        "value": round(growth[(big, big_chunks)] / growth[(big, chunks)], 3), "unit": "x", "ratio": None,
+        "value": round(growth[(big, big_chunks)] / max(growth[(big, chunks)], 1), 3), "unit": "x", "ratio": None,
         "reference": f"{math.prod(big_chunks) / math.prod(chunks):.0f} = proportional to the chunk",
     })
     return rows

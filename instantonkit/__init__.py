@@ -22,6 +22,8 @@ from .checks import (
 from . import io, lattice
 from .lattice import average_plaquette, clover_charge, lattice_links, wilson_action
 from .io import load_lattice, save_lattice
+from . import cluster  # dask and zarr are imported only when a chunked run starts
+from .cluster import ensemble
 from .fields import (
     action_density,
     as_field,
@@ -48,6 +50,8 @@ __all__ = [
     "quaternion",
     "lattice",
     "io",
+    "cluster",
+    "ensemble",
     "lattice_links",
     "average_plaquette",
     "wilson_action",

@@ -4,7 +4,7 @@ Every chunk is computed by the kernels of the local path (:func:`instantonkit.la
 for links, :func:`instantonkit.fields.evaluate` for densities), so a chunked result is
 bit-identical to the single-process one.
 
-Stores are Zarr (format 3) directories on a file system every worker sees.  A store holds the
+Stores are Zarr (format 3) directories on a file system every worker sees under the same absolute path.  A store holds the
 result array (``links`` or ``values``) and a small array ``chunk_report`` with one row per chunk:
 ``[done, unitarity before, unitarity after, Magnus steps, refinement difference]``.  A task writes
 its chunk (Zarr's local store writes a temporary file and renames it, so a chunk is either all there
@@ -425,7 +425,7 @@ def _lazy(job: _Job):
 def _store_path(store) -> str:
     if not isinstance(store, (str, os.PathLike)):
         raise TypeError(f"store must be a path (str or os.PathLike) of a Zarr directory; found {type(store).__name__}")
-    return os.fspath(store)
+    return os.path.abspath(os.fspath(store))  # workers may start elsewhere: they get the absolute path
 
 
 # -- lattice starts -------------------------------------------------------------------------------

@@ -663,7 +663,8 @@ def lattice_links(
     (c1, c2, c3, c4) sites computed by the same kernels on a Dask cluster, bit-identical to 'local';
     ``store`` a Zarr directory written chunk by chunk and resumable, else a lazy dask array is
     returned; ``client`` a dask.distributed.Client, None for a temporary local cluster, or 'sync'
-    for this process; ``overwrite`` replaces a store made with other parameters).  See
+    for this process; ``overwrite`` replaces a store made with other parameters; ``progress`` then
+    counts chunks).  See
     :func:`instantonkit.cluster.start_links`; needs the optional extra ``distributed``.
     """
     t_start = time.perf_counter()

@@ -262,6 +262,14 @@ def test_grid_values_on_the_cluster_match(client, tmp_path):
     assert np.array_equal(np.asarray(z[...]), ik.self_duality_residual(TWO, pts))
 
 
+@pytest.mark.slow
+def test_without_a_client_a_temporary_local_cluster_is_used(tmp_path):
+    shape = (2, 3, 2, 4)
+    z = cluster.evaluate_grid(TWO, shape, 0.9, "action_density", chunks=(1, 3, 2, 4), store=tmp_path / "g", n_workers=1)
+    pts = lat.site_points(shape, 0.9, lat.default_origin(TWO, shape, 0.9))
+    assert np.array_equal(np.asarray(z[...]), ik.action_density(TWO, pts))
+
+
 def test_dask_points_cannot_go_to_a_store(tmp_path):
     with pytest.raises(ValueError, match="numpy or Zarr points"):
         cluster.evaluate(TWO, da.zeros((4, 4)), "action_density", store=tmp_path / "x")
