@@ -21,7 +21,6 @@ with ``Q = +k`` in the conventions of :mod:`instantonkit.conventions`.  The anti
 from __future__ import annotations
 
 import dataclasses
-from typing import Sequence
 
 import jax
 import jax.numpy as jnp
@@ -29,7 +28,7 @@ import numpy as np
 
 from . import quaternion as qt
 from ._pytree import PytreeFields
-from .conventions import CHARGE_DENSITY_FACTOR, E_MU, PI, point_to_quaternion
+from .conventions import CHARGE_DENSITY_FACTOR, E_MU, point_to_quaternion
 
 __all__ = [
     "ADHMData",
