@@ -16,16 +16,23 @@ Every chunked result is checked bit for bit against the local one.
 
 Memory: a BPST start (closed-form links, ``group="su3"``, size 2, spacing 0.5) on a fresh
 2-worker cluster per configuration: two lattice sizes with the same chunk shape and one with a chunk
-twice as large (quick: 16^4 and 32^4 with 8^4-site chunks, then 16 sites on the last axis; full:
-16^4, 32^4 and 48^4 with 8 x 8 x 16 x 16 chunks, then 16 on the second axis).  Each worker is
+twice as large (quick: 16^4 and 24^4 with 8^4-site chunks, then 16^4 with 16 sites on the last
+axis; full: 16^4, 32^4 and 48^4 with 8 x 8 x 16 x 16 chunks, then 48^4 with 16 on the second axis;
+the larger chunk runs on the largest lattice it divides).  Each worker is
 warmed as above, then (``client.run``) releases free heap to the system (glibc ``malloc_trim``),
 resets its peak resident set (Linux: ``"5"`` to ``/proc/self/clear_refs``) and records its resident
 set; after the run its peak resident set (``VmHWM``) is read.  The growth, peak minus the resident
 set before, is the memory the run needed on that worker; the larger of the two workers is reported,
 in MiB and as a multiple of the chunk's result bytes (sites x 4 x 3 x 3 x 16).  Where the peak cannot
 be reset, ``ru_maxrss`` is used instead (it then includes the warm-up's peak; the rows say so).
+The growth includes what the workers keep per finished chunk until the call returns (dask's task
+records), so it can rise a little with the number of chunks per worker.
 
-Usage: ``python benchmarks/bench_cluster.py [--quick] [--part scaling|memory] [--json]``.
+Workers run with dask's default environment, which includes ``MALLOC_TRIM_THRESHOLD_=65536``;
+``--no-malloc-trim`` (``run(malloc_trim=False)``) leaves it out, for comparison.  The 1-minute load
+average before the scaling part is in the first row: on two cores any other work skews the figures.
+
+Usage: ``python benchmarks/bench_cluster.py [--quick] [--part scaling|memory] [--no-malloc-trim] [--json]``.
 """
 
 from __future__ import annotations
@@ -42,6 +49,7 @@ import time
 SPACING = 0.5
 SCALING_RTOL = 1e-8
 MiB = float(1 << 20)
+_TRIM_KEY = "distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_"
 
 
 # -- worker-side helpers (run in the worker processes through client.submit / client.run) -------------
@@ -95,17 +103,20 @@ def _mem_peak(method: str) -> int:
 
 
 @contextlib.contextmanager
-def _cluster(n_workers: int):
+def _cluster(n_workers: int, malloc_trim: bool = True):
     """A LocalCluster of ``n_workers`` processes, one thread each, and its Client (logs below ERROR silenced).
 
     No dashboard; the scheduler's small HTTP server (which it starts anyway) gets a free local port
-    instead of the default one, which may be taken."""
+    instead of the default one, which may be taken.  ``malloc_trim=False`` leaves out the
+    ``MALLOC_TRIM_THRESHOLD_`` that dask's nanny puts in every worker's environment by default."""
     import logging
 
+    import dask
     from distributed import Client, LocalCluster
 
     http = {"dashboard": False, "dashboard_address": "127.0.0.1:0"}
-    with LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=True, dashboard_address=None,
+    env = contextlib.nullcontext() if malloc_trim else dask.config.set({_TRIM_KEY: None})
+    with env, LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=True, dashboard_address=None,
                       scheduler_kwargs=http, silence_logs=logging.ERROR) as cluster, Client(cluster) as client:
         client.wait_for_workers(n_workers)
         yield client
@@ -154,7 +165,7 @@ def _fmt_chunks(chunks) -> str:
 # -- 1. scaling ---------------------------------------------------------------------------------------
 
 
-def scaling(size: int) -> list[dict]:
+def scaling(size: int, malloc_trim: bool = True) -> list[dict]:
     """Rows: a charge-2 ADHM Magnus start of size^4 sites on 1 and 2 workers and in this process."""
     import numpy as np
 
@@ -167,7 +178,7 @@ def scaling(size: int) -> list[dict]:
     chunks = (size, size, size, 1)
     spec = lat.StartSpec.make(field, shape, SPACING, rtol=SCALING_RTOL)
     options = {"rtol": SCALING_RTOL, "origin": spec.origin}
-    name = f"k=2 ADHM {size}^4 SU(2) Magnus start (rtol {SCALING_RTOL:.0e})"
+    name = f"k=2 ADHM {size}^4 SU(2) Magnus start (rtol {SCALING_RTOL:.0e}){_tag(malloc_trim)}"
 
     with tempfile.TemporaryDirectory() as tmp:
         _warm_here(spec, chunks, options, tmp)
@@ -176,7 +187,7 @@ def scaling(size: int) -> list[dict]:
 
     total, phase = {}, {}
     for n in (1, 2):
-        with tempfile.TemporaryDirectory() as tmp, _cluster(n) as client:
+        with tempfile.TemporaryDirectory() as tmp, _cluster(n, malloc_trim) as client:
             _warm_all(client, field, shape, chunks, options, tmp)
             (links, report), total[n] = _timed(lambda: ik.lattice_links(
                 field, shape, SPACING, rtol=SCALING_RTOL, backend="dask", chunks=chunks,
@@ -208,7 +219,7 @@ def scaling(size: int) -> list[dict]:
 # -- 2. memory per chunk ------------------------------------------------------------------------------
 
 
-def _memory_run(size: int, chunks: tuple) -> dict:
+def _memory_run(size: int, chunks: tuple, malloc_trim: bool = True) -> dict:
     """One BPST SU(3) start of size^4 sites in ``chunks`` on a fresh 2-worker cluster: time and worker peaks."""
     import instantonkit as ik
     from instantonkit import lattice as lat
@@ -217,7 +228,7 @@ def _memory_run(size: int, chunks: tuple) -> dict:
     shape = (size,) * 4
     spec = lat.StartSpec.make(field, shape, SPACING, group="su3")
     options = {"group": "su3", "origin": spec.origin}
-    with tempfile.TemporaryDirectory() as tmp, _cluster(2) as client:
+    with tempfile.TemporaryDirectory() as tmp, _cluster(2, malloc_trim) as client:
         _warm_here(spec, chunks, options, tmp)
         _warm_all(client, field, shape, chunks, options, tmp)
         before = client.run(_mem_mark)
@@ -231,20 +242,23 @@ def _memory_run(size: int, chunks: tuple) -> dict:
     return {"seconds": seconds, "phase": report.seconds, "growth": growth, "method": method}
 
 
-def memory(sizes, chunks: tuple, big_chunks: tuple) -> list[dict]:
-    """Rows: peak worker memory growth for ``sizes`` with ``chunks``, and for the largest size with ``big_chunks``."""
+def memory(sizes, chunks: tuple, big_chunks: tuple, malloc_trim: bool = True) -> list[dict]:
+    """Rows: peak worker memory growth for ``sizes`` with ``chunks``, and with ``big_chunks`` for the
+    largest size they divide (else the largest size)."""
     site_bytes = 4 * 3 * 3 * 16
-    runs = [(s, chunks) for s in sizes] + [(max(sizes), big_chunks)]
+    fits = [s for s in sizes if all(s % c == 0 for c in big_chunks)]
+    big_size = max(fits or sizes)
+    runs = [(s, chunks) for s in sizes] + [(big_size, big_chunks)]
     rows, growth = [], {}
     for size, ch in runs:
-        r = _memory_run(size, ch)
+        r = _memory_run(size, ch, malloc_trim)
         chunk_bytes = math.prod(ch) * site_bytes
         array_bytes = size**4 * site_bytes
         n_chunks = math.prod(-(-size // c) for c in ch)
         growth[(size, ch)] = r["growth"][0]
         note = "" if r["method"] == "VmHWM" else "; ru_maxrss, warm-up peak included"
         rows.append({
-            "figure": f"BPST SU(3) {size}^4, chunks {_fmt_chunks(ch)}: peak worker memory growth",
+            "figure": f"BPST SU(3) {size}^4, chunks {_fmt_chunks(ch)}: peak worker memory growth{_tag(malloc_trim)}",
             "value": round(r["growth"][0] / MiB, 2), "unit": "MiB", "ratio": round(r["growth"][0] / chunk_bytes, 3),
             "reference": (f"x chunk {chunk_bytes / MiB:.2f} MiB; array {array_bytes / MiB:.0f} MiB in {n_chunks} chunks, "
                           f"call {r['seconds']:.1f} s (chunks {r['phase']:.1f} s); other worker {r['growth'][-1] / MiB:.2f} MiB{note}"),
@@ -256,8 +270,8 @@ def memory(sizes, chunks: tuple, big_chunks: tuple) -> list[dict]:
         "reference": f"1.0 = independent of the lattice (arrays differ {big**4 / small**4:.0f}x)",
     })
     rows.append({
-        "figure": f"memory growth chunks {_fmt_chunks(big_chunks)} / {_fmt_chunks(chunks)}, {big}^4",
-        "value": round(growth[(big, big_chunks)] / max(growth[(big, chunks)], 1), 3), "unit": "x", "ratio": None,
+        "figure": f"memory growth chunks {_fmt_chunks(big_chunks)} / {_fmt_chunks(chunks)}, {big_size}^4",
+        "value": round(growth[(big_size, big_chunks)] / max(growth[(big_size, chunks)], 1), 3), "unit": "x", "ratio": None,
         "reference": f"{math.prod(big_chunks) / math.prod(chunks):.0f} = proportional to the chunk",
     })
     return rows
@@ -268,29 +282,40 @@ def memory(sizes, chunks: tuple, big_chunks: tuple) -> list[dict]:
 PARTS = ("scaling", "memory")
 
 
-def run(quick: bool = False, parts=PARTS, scaling_size: int | None = None, memory_sizes=None) -> list[dict]:
-    """Rows {figure, value, unit, ratio, reference} of the parts asked for (see the module notes)."""
+def _tag(malloc_trim: bool) -> str:
+    return "" if malloc_trim else " [workers without MALLOC_TRIM_THRESHOLD_]"
+
+
+def run(quick: bool = False, parts=PARTS, scaling_size: int | None = None, memory_sizes=None,
+        malloc_trim: bool = True) -> list[dict]:
+    """Rows {figure, value, unit, ratio, reference} of the parts asked for (see the module notes).
+
+    scaling_size: L of the scaling start (default 8 quick, 12 full); memory_sizes: the L of the
+    memory runs (default (16, 24) quick, (16, 32, 48) full); malloc_trim=False: workers without the
+    MALLOC_TRIM_THRESHOLD_ that dask's nanny sets by default (for comparison)."""
     unknown = set(parts) - set(PARTS)
     if unknown:
         raise ValueError(f"parts must be among {PARTS}; found {sorted(unknown)}")
     rows = []
     if "scaling" in parts:
-        rows += scaling(scaling_size or (8 if quick else 12))
+        rows += scaling(scaling_size or (8 if quick else 12), malloc_trim)
     if "memory" in parts:
         if quick:
-            rows += memory(memory_sizes or (16, 32), (8, 8, 8, 8), (8, 8, 8, 16))
+            rows += memory(memory_sizes or (16, 24), (8, 8, 8, 8), (8, 8, 8, 16), malloc_trim)
         else:
-            rows += memory(memory_sizes or (16, 32, 48), (8, 8, 16, 16), (8, 16, 16, 16))
+            rows += memory(memory_sizes or (16, 32, 48), (8, 8, 16, 16), (8, 16, 16, 16), malloc_trim)
     return rows
 
 
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--quick", action="store_true", help="8^4 scaling start; 16^4 and 32^4 memory runs")
+    ap.add_argument("--quick", action="store_true", help="8^4 scaling start; 16^4 and 24^4 memory runs")
     ap.add_argument("--part", choices=PARTS, action="append", help="run only this part (repeatable)")
+    ap.add_argument("--no-malloc-trim", action="store_true",
+                    help="workers without the MALLOC_TRIM_THRESHOLD_ that dask's nanny sets by default")
     ap.add_argument("--json", action="store_true", help="print the rows as JSON")
     args = ap.parse_args(argv)
-    rows = run(args.quick, tuple(args.part) if args.part else PARTS)
+    rows = run(args.quick, tuple(args.part) if args.part else PARTS, malloc_trim=not args.no_malloc_trim)
     if args.json:
         print(json.dumps(rows, indent=1))
         return 0

@@ -19,7 +19,7 @@ from .checks import (
     total_charge,
     verify,
 )
-from . import io, lattice
+from . import io, lattice, observables
 from .lattice import average_plaquette, clover_charge, lattice_links, wilson_action
 from .io import load_lattice, save_lattice
 from . import cluster  # dask and zarr are imported only when a chunked run starts
@@ -49,6 +49,7 @@ __all__ = [
     "conventions",
     "quaternion",
     "lattice",
+    "observables",
     "io",
     "cluster",
     "ensemble",
