@@ -42,6 +42,7 @@ __all__ = ["discover", "collect", "machine_description", "format_table", "format
 #: Extra keyword arguments for ``--smoke``, per module, used only where ``run`` accepts them.
 SMOKE = {
     "bench_fields": {"points": 1024, "ks": (1,), "ranks": (1,)},
+    "bench_cluster": {"parts": ("scaling",), "scaling_size": 4},
 }
 
 COLUMNS = ("figure", "value", "unit", "ratio", "reference")

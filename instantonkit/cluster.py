@@ -383,15 +383,20 @@ def _run(job: _Job, path: str, client, overwrite: bool, progress, n_workers):
                 from distributed import as_completed
 
                 token = f"{os.getpid()}-{time.time_ns()}"
-                futures = [c.submit(_write_chunk, *a, key=f"instantonkit-chunk-{token}-{'-'.join(map(str, a[3]))}", pure=False) for a in args]
+                pending = {
+                    c.submit(_write_chunk, *a, key=f"instantonkit-chunk-{token}-{'-'.join(map(str, a[3]))}", pure=False)
+                    for a in args
+                }
                 try:
-                    for fut in as_completed(futures):
+                    for fut in as_completed(list(pending)):
                         fut.result()
+                        pending.discard(fut)
+                        fut.release()  # workers drop the finished task's record: memory stays flat over many chunks
                         done += 1
                         if progress is not None:
                             progress(done, total)
                 finally:
-                    for fut in futures:
+                    for fut in pending:
                         fut.cancel()
     rows_now = np.asarray(rows[...])
     missing = int(np.sum(rows_now[..., 0] != 1.0))
@@ -446,14 +451,15 @@ def _spec_params(spec) -> dict:
     }
 
 
-def _link_report(spec, rows, seconds, links):
-    """LinkReport of a finished chunked start from its chunk rows (and its faces for periodic starts)."""
+def _link_report(spec, rows, seconds, links, boundary: bool):
+    """LinkReport of a finished chunked start from its chunk rows; with ``boundary`` the periodic
+    boundary figures too (read from the faces in this process, as the local path does when asked)."""
     stats = {
         "method": "magnus" if float(np.max(rows[..., 3])) > 0 else "closed",
         "max_steps": int(np.max(rows[..., 3])),
         "refinement_diff": float(np.max(rows[..., 4])),
     }
-    mismatch, action_err = spec.boundary_figures(links)
+    mismatch, action_err = spec.boundary_figures(links) if boundary else (None, None)
     return spec.report(stats, float(np.max(rows[..., 1])), float(np.max(rows[..., 2])), seconds, mismatch, action_err)
 
 
@@ -464,8 +470,9 @@ def start_links(spec, *, chunks=None, store=None, client=None, overwrite=False, 
     about 32 MiB).  store: Zarr directory to write (resumable, see the module notes) -> returns the
     read-only ``zarr.Array`` (L1, L2, L3, L4, 4, N, N) complex128; None -> a dask array of that shape
     and chunking, computed when asked.  client / n_workers: see the module notes.  progress(done,
-    total) after each chunk.  With ``return_report=True`` (store needed) returns ``(links, LinkReport)``;
-    the report is also the store's attribute.  Usually called as ``lattice_links(..., backend="dask")``.
+    total) after each chunk.  With ``return_report=True`` (store needed) returns ``(links, LinkReport)``
+    with the periodic boundary figures, as the local path does; the report (without them unless asked)
+    is also the store's attribute.  Usually called as ``lattice_links(..., backend="dask")``.
     """
     site_bytes = 4 * spec.n_out * spec.n_out * 16
     chunks = default_chunks(spec.shape, site_bytes) if chunks is None else _check_chunks(chunks, spec.shape, "the lattice")
@@ -479,7 +486,7 @@ def start_links(spec, *, chunks=None, store=None, client=None, overwrite=False, 
     path = _store_path(store)
     group, rows, computed, reused, seconds = _run(job, path, client, overwrite, progress, n_workers)
     links = zarr.open_array(path, path="links", mode="r")
-    report = _link_report(spec, rows, seconds, links)
+    report = _link_report(spec, rows, seconds, links, return_report)
     _finish_store(group, report.as_metadata(), computed, reused, seconds)
     return (links, report) if return_report else links
 
@@ -640,6 +647,7 @@ def ensemble(
     overwrite: bool = False,
     progress=None,
     n_workers=None,
+    boundary_figures: bool = False,
 ) -> Ensemble:
     """``n`` random charge-``k`` Sp(``rank``) multi-instanton lattice starts, computed in parallel.
 
@@ -649,7 +657,8 @@ def ensemble(
     the lattice: origin -a (floor(L / 2) - 1/2), so the middle hypercube is centred on 0.  Links as
     in :func:`instantonkit.lattice.lattice_links`; chunks: (c1, c2, c3, c4) per member.  store:
     Zarr directory (resumable; members' ADHM data and seeds in its attributes) or None for a dask
-    array.  Rebuild member i from a store with :func:`load_member`.
+    array.  Rebuild member i from a store with :func:`load_member`.  ``boundary_figures=True`` adds
+    each periodic member's boundary mismatch to its report (read in this process, member by member).
     """
     from .adhm import random_adhm
 
@@ -687,7 +696,7 @@ def ensemble(
     path = _store_path(store)
     group_, rows, computed, reused, seconds = _run(job, path, client, overwrite, progress, n_workers)
     links = zarr.open_array(path, path="links", mode="r")
-    reports = tuple(_link_report(s, rows[i], seconds, _MemberView(links, i)) for i, s in enumerate(specs))
+    reports = tuple(_link_report(s, rows[i], seconds, _MemberView(links, i), boundary_figures) for i, s in enumerate(specs))
     _finish_store(group_, {"members": [r.as_metadata() for r in reports]}, computed, reused, seconds)
     return Ensemble(links, members, seeds, reports)
 
