@@ -151,15 +151,18 @@ class _GridChunk:
 
 @dataclasses.dataclass(frozen=True)
 class _PointChunk:
-    """A quantity on one block of a point array (numpy or Zarr) of shape (..., 4)."""
+    """A quantity on one block of a point array of shape (..., 4): a Zarr array read at the region
+    (cheap to ship to a worker), or, for numpy points, just the block itself (``sliced``)."""
 
     field: object
     quantity: str
     method: str
     points: object
+    sliced: bool = False
 
     def __call__(self, region):
-        return _evaluate(self.field, np.asarray(self.points[region]), self.quantity, method=self.method), [0.0, 0.0, 0.0, 0.0]
+        pts = self.points if self.sliced else self.points[region]
+        return _evaluate(self.field, np.asarray(pts), self.quantity, method=self.method), [0.0, 0.0, 0.0, 0.0]
 
 
 @dataclasses.dataclass(frozen=True)
@@ -510,13 +513,27 @@ def _value_bytes(trail, dtype) -> int:
     return int(np.prod(trail, dtype=np.int64)) * np.dtype(dtype).itemsize
 
 
+def _points_fingerprint(pts) -> dict:
+    """What a resumed point evaluation must match: the sha256 of numpy points; for Zarr points their
+    location, shape and the sha256 of their first and last rows (reading every point is not worth it)."""
+    import hashlib
+
+    if isinstance(pts, np.ndarray):
+        return {"sha256": hashlib.sha256(np.ascontiguousarray(pts, dtype=np.float64).tobytes()).hexdigest()}
+    flat_first = np.asarray(pts[(0,) * (len(pts.shape) - 1)], dtype=np.float64)
+    flat_last = np.asarray(pts[tuple(n - 1 for n in pts.shape[:-1])], dtype=np.float64)
+    ends = hashlib.sha256(flat_first.tobytes() + flat_last.tobytes()).hexdigest()
+    return {"zarr": f"{getattr(pts, 'store', '')}/{getattr(pts, 'path', '')}", "ends_sha256": ends}
+
+
 def evaluate(field, points, quantity: str, *, method: str = "auto", chunks=None, store=None, client=None, overwrite=False, progress=None, n_workers=None):
     """``quantity`` of ``field`` on a large point array (..., 4) in chunks of its leading axes.
 
     points: numpy array, Zarr array or dask array of shape (..., 4) float.  quantity and method as in
     :func:`instantonkit.fields.evaluate`.  chunks: one size per leading axis (default about 32 MiB
     of result).  store: Zarr directory to write (numpy or Zarr points; resumable) -> ``zarr.Array``
-    (..., *trailing); None -> a dask array.  Values are bit-identical to ``fields.evaluate``.
+    (..., *trailing); None -> a dask array.  Values are bit-identical to ``fields.evaluate``.  A resumed
+    store must have the same points: numpy points are hashed whole, Zarr points by location and ends.
     """
     _check_quantity(quantity)
     field = as_field(field)
@@ -546,9 +563,21 @@ def evaluate(field, points, quantity: str, *, method: str = "auto", chunks=None,
 
         as_points(pts)  # dtype / finiteness checks with their messages
     chunks = default_chunks(lead, _value_bytes(trail, dtype)) if chunks is None else _check_chunks(chunks, lead, "the points")
-    task = _PointChunk(field, quantity, method, pts)
-    params = {"field": _describe(field), "field_probe": _probe(field), "quantity": quantity, "method": method, "points_shape": list(lead) + [4]}
-    job = _Job("evaluate", "values", lead + tuple(trail), len(lead), chunks, np.dtype(dtype).name, params, lambda idx: task)
+    if isinstance(pts, np.ndarray):  # each task gets its own block, not the whole array
+
+        def tasks(idx):
+            return _PointChunk(field, quantity, method, pts[_region(idx, lead, chunks)], sliced=True)
+    else:
+        shared = _PointChunk(field, quantity, method, pts)
+
+        def tasks(idx):
+            return shared
+
+    params = {
+        "field": _describe(field), "field_probe": _probe(field), "quantity": quantity, "method": method,
+        "points_shape": list(lead) + [4], "points": _points_fingerprint(pts),
+    }
+    job = _Job("evaluate", "values", lead + tuple(trail), len(lead), chunks, np.dtype(dtype).name, params, tasks)
     return _run_values(job, store, client, overwrite, progress, n_workers)
 
 

@@ -271,6 +271,13 @@ def test_without_a_client_a_temporary_local_cluster_is_used(tmp_path):
     assert np.array_equal(np.asarray(z[...]), ik.action_density(TWO, pts))
 
 
+def test_a_store_of_other_points_is_refused(tmp_path):
+    pts = np.random.default_rng(4).normal(size=(6, 4))
+    cluster.evaluate(TWO, pts, "action_density", chunks=(3,), store=tmp_path / "a", client="sync")
+    with pytest.raises(ValueError, match="differs in: points"):
+        cluster.evaluate(TWO, pts + 1.0, "action_density", chunks=(3,), store=tmp_path / "a", client="sync")
+
+
 def test_dask_points_cannot_go_to_a_store(tmp_path):
     with pytest.raises(ValueError, match="numpy or Zarr points"):
         cluster.evaluate(TWO, da.zeros((4, 4)), "action_density", store=tmp_path / "x")
