@@ -1,8 +1,10 @@
 """Past one machine: lattice starts, point-set evaluations and ensembles in chunks on Dask, stored in Zarr.
 
 Every chunk is computed by the kernels of the local path (:func:`instantonkit.lattice.block_links`
-for links, :func:`instantonkit.fields.evaluate` for densities), so a chunked result is
-bit-identical to the single-process one.
+for links, :func:`instantonkit.fields.evaluate` for densities).  Links are bit-identical to the
+single-process start (the compiled batch size is fixed per lattice, :func:`instantonkit.lattice.link_batch`);
+densities agree with ``fields.evaluate`` on the same points to rounding (about 1e-15 relative: XLA's
+code for the last, padded batch of a call depends on its size, which depends on the chunk).
 
 Stores are Zarr (format 3) directories on a file system every worker sees under the same absolute path.  A store holds the
 result array (``links`` or ``values``) and a small array ``chunk_report`` with one row per chunk:
@@ -28,6 +30,7 @@ import math
 import os
 import shutil
 import time
+import uuid
 from pathlib import Path
 from typing import Callable
 
@@ -89,6 +92,8 @@ def _check_chunks(chunks, shape, what: str) -> tuple:
     if isinstance(chunks, (int, np.integer)) and not isinstance(chunks, bool):
         chunks = (int(chunks),) * len(shape)
     try:
+        if any(isinstance(v, bool) for v in chunks):
+            raise TypeError("booleans are not chunk sizes")
         c = tuple(int(v) for v in chunks)
     except TypeError as err:
         raise TypeError(f"chunks must be {len(shape)} positive integers (one per axis of {what}); found {chunks!r}") from err
@@ -193,7 +198,7 @@ class _Job:
 
 def _describe(obj, depth: int = 0):
     """A JSON description of a field: its type and its dataclass fields, arrays as nested lists."""
-    if depth > 6:
+    if depth > 32:
         return repr(type(obj).__name__)
     if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
         out = {"type": f"{type(obj).__module__}.{type(obj).__qualname__}"}
@@ -205,7 +210,8 @@ def _describe(obj, depth: int = 0):
     if isinstance(obj, (tuple, list)):
         return [_describe(v, depth + 1) for v in obj]
     if callable(obj):
-        return f"callable {getattr(obj, '__module__', '?')}.{getattr(obj, '__qualname__', type(obj).__name__)}"
+        name = f"{getattr(obj, '__module__', '?')}.{getattr(obj, '__qualname__', type(obj).__name__)}"
+        return {"callable": name, "code": _code_fingerprint(obj)}
     try:
         arr = np.asarray(obj)
     except Exception:  # pragma: no cover - exotic leaves
@@ -217,15 +223,64 @@ def _describe(obj, depth: int = 0):
     return repr(type(obj).__name__)
 
 
+def _code_fingerprint(fn, depth: int = 0) -> str | None:
+    """sha256 of a Python function's bytecode, constants, names, defaults and closure values (nested
+    functions followed), so a rebuilt callable with other captured numbers is told apart; None for
+    objects without code (their module globals are not looked at)."""
+    import hashlib
+
+    code = getattr(fn, "__code__", None)
+    if code is None or depth > 8:
+        return None
+    h = hashlib.sha256()
+
+    def feed(v):
+        if hasattr(v, "co_code"):
+            h.update(v.co_code)
+            h.update(repr(v.co_names).encode())
+            for c in v.co_consts:
+                feed(c)
+        elif callable(v) and hasattr(v, "__code__"):
+            h.update(str(_code_fingerprint(v, depth + 1)).encode())
+        elif isinstance(v, (bool, int, float, complex, str, bytes, type(None))):
+            h.update(repr(v).encode())
+        elif isinstance(v, (tuple, list)):
+            for x in v:
+                feed(x)
+        else:
+            try:
+                arr = np.asarray(v)
+                h.update(arr.tobytes() if arr.dtype.kind in "biufc" else type(v).__qualname__.encode())
+            except Exception:
+                h.update(type(v).__qualname__.encode())
+
+    feed(code)
+    feed(fn.__defaults__ or ())
+    for cell in fn.__closure__ or ():
+        try:
+            feed(cell.cell_contents)
+        except ValueError:  # an empty cell
+            h.update(b"<empty>")
+    return h.hexdigest()
+
+
+def _domain_probe(field, origin, spacing, shape) -> list | None:
+    """The potential at three points inside the region of a lattice or grid (between sites), so a
+    field that changed only there is told apart from the stored one."""
+    t = np.array([0.21, 0.5, 0.83])[:, None]
+    pts = np.asarray(origin) + spacing * ((np.asarray(shape) - 1) * t + 0.137)
+    return _probe(field, pts)
+
+
 _PROBES = np.array([[0.3127, -0.4711, 0.5903, 0.7321], [-1.1731, 0.2237, -0.6183, 0.4142], [2.2361, 1.7321, -1.4142, -0.5772]])
 
 
-def _probe(field) -> list | None:
-    """The potential at three fixed points (re, im parts), or None where the field is not finite there."""
+def _probe(field, points=None) -> list | None:
+    """The potential at three fixed points (or ``points``; re, im parts), or None where it is not finite there."""
     from .fields import potential
 
     try:
-        a = potential(field, _PROBES)
+        a = potential(field, _PROBES if points is None else points)
     except (ValueError, TypeError):
         return None
     return [a.real.ravel().tolist(), a.imag.ravel().tolist()]
@@ -236,7 +291,7 @@ def _same_params(stored: dict, asked: dict) -> list:
     diff = []
     for key in sorted(set(stored) | set(asked)):
         a, b = stored.get(key), asked.get(key)
-        if key == "field_probe" and a is not None and b is not None:
+        if key.endswith("_probe") and a is not None and b is not None:
             a, b = np.asarray(a), np.asarray(b)
             if a.shape != b.shape or not np.allclose(a, b, rtol=1e-10, atol=1e-12):
                 diff.append(key)
@@ -306,16 +361,20 @@ def _prepare(job: _Job, path: str, overwrite: bool):
             raise ValueError(f"{path!r} exists and is not an instantonkit store; refusing to touch it (choose another path)")
         if meta["kind"] != job.kind or _same_params(meta["params"], job.params):
             if not overwrite:
-                what = meta["kind"] if meta["kind"] != job.kind else ", ".join(_same_params(meta["params"], job.params))
+                if meta["kind"] != job.kind:
+                    raise ValueError(
+                        f"the store {path!r} holds a {meta['kind']!r} result, not {job.kind!r}; "
+                        "pass overwrite=True to replace it, or choose another path"
+                    )
                 raise ValueError(
-                    f"the store {path!r} was made with other parameters (differs in: {what}); "
+                    f"the store {path!r} was made with other parameters (differs in: {', '.join(_same_params(meta['params'], job.params))}); "
                     "pass overwrite=True to replace it, or choose another path"
                 )
         elif not overwrite:
             rows = group[_REPORT]
             if tuple(rows.shape[:-1]) != job.grid or meta.get("chunks") != list(job.chunks):
                 raise ValueError(
-                    f"the store {path!r} holds the same start in chunks {tuple(meta.get('chunks', ()))}; "
+                    f"the store {path!r} holds this {job.kind} result in chunks {tuple(meta.get('chunks', ()))}; "
                     f"asked for chunks {job.chunks} (resume with the stored chunks, or pass overwrite=True)"
                 )
             return group, rows
@@ -329,16 +388,39 @@ def _prepare(job: _Job, path: str, overwrite: bool):
         _REPORT, shape=job.grid + (5,), chunks=(1,) * len(job.grid) + (5,), dtype="f8", fill_value=0.0,
         config={"write_empty_chunks": True},
     )
-    group.attrs[_ATTR] = {"format": _FORMAT, "kind": job.kind, "name": job.name, "params": job.params, "chunks": list(job.chunks), "complete": False}
+    group.attrs[_ATTR] = {
+        "format": _FORMAT, "kind": job.kind, "name": job.name, "params": job.params, "chunks": list(job.chunks),
+        "complete": False, "store_id": uuid.uuid4().hex,
+    }
     return group, rows
 
 
-def _write_chunk(path: str, name: str, task, index: tuple, shape: tuple, chunks: tuple):
-    """Worker task: compute chunk ``index``, write it, then mark it done; returns (index, stats row)."""
+class StaleTaskError(RuntimeError):
+    """A chunk task of an earlier run found its store replaced (``overwrite=True``) and wrote nothing."""
+
+
+def _check_store_id(path: str, store_id: str) -> None:
+    import zarr
+
+    try:
+        now = zarr.open_group(path, mode="r").attrs[_ATTR].get("store_id")
+    except Exception:  # the store is gone or being replaced
+        now = None
+    if now != store_id:
+        raise StaleTaskError(f"the store {path!r} was replaced since this task was submitted; its chunk was not written")
+
+
+def _write_chunk(path: str, name: str, task, index: tuple, shape: tuple, chunks: tuple, store_id: str):
+    """Worker task: compute chunk ``index``, write it, then mark it done; returns (index, stats row).
+
+    The store's identity is checked before each write, so a task left running by an interrupted run
+    cannot write into a store that has since been replaced."""
     import zarr
 
     arr, row = task(_region(index, shape, chunks))
+    _check_store_id(path, store_id)
     zarr.open_array(path, path=name, mode="r+")[_region(index, shape, chunks)] = arr
+    _check_store_id(path, store_id)
     zarr.open_array(path, path=_REPORT, mode="r+")[tuple(index)] = np.asarray([1.0] + list(row))
     return tuple(index), row
 
@@ -357,7 +439,9 @@ def _scheduler(client, n_workers):
         yield client
         return
     distributed = _require("distributed")
-    n = int(n_workers or os.cpu_count() or 1)
+    if n_workers is not None and (isinstance(n_workers, bool) or not isinstance(n_workers, (int, np.integer))):
+        raise TypeError(f"n_workers must be an integer >= 1 or None; found {n_workers!r}")
+    n = int(os.cpu_count() or 1) if n_workers is None else int(n_workers)
     if n < 1:
         raise ValueError(f"n_workers must be >= 1; found {n_workers!r}")
     with distributed.LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address=":0") as cluster:
@@ -375,7 +459,8 @@ def _run(job: _Job, path: str, client, overwrite: bool, progress, n_workers):
     done = reused
     if todo:
         with _scheduler(client, n_workers) as c:
-            args = [(path, job.name, job.tasks(idx), idx, job.shape[: job.lead], job.chunks) for idx in todo]
+            store_id = group.attrs[_ATTR].get("store_id")
+            args = [(path, job.name, job.tasks(idx), idx, job.shape[: job.lead], job.chunks, store_id) for idx in todo]
             if c is None:
                 for a in args:
                     _write_chunk(*a)
@@ -410,6 +495,9 @@ def _run(job: _Job, path: str, client, overwrite: bool, progress, n_workers):
 
 def _finish_store(group, report: dict | None, computed: int, reused: int, seconds: float):
     meta = dict(group.attrs[_ATTR])
+    old = meta.get("report")
+    if computed == 0 and isinstance(old, dict) and isinstance(report, dict):  # nothing new: keep what was measured
+        report = {**report, **{k: v for k, v in old.items() if report.get(k) is None or k == "seconds"}}
     runs = list(meta.get("runs", [])) + [{"chunks_computed": computed, "chunks_reused": reused, "seconds": seconds}]
     meta.update(complete=True, report=report, runs=runs)
     group.attrs[_ATTR] = meta
@@ -443,6 +531,7 @@ def _spec_params(spec) -> dict:
     return {
         "field": _describe(spec.field),
         "field_probe": _probe(spec.field),
+        "domain_probe": _domain_probe(spec.field, spec.origin, spec.spacing, spec.shape),
         "shape": list(spec.shape),
         "spacing": spec.spacing,
         "origin": [float(v) for v in spec.origin],
@@ -513,6 +602,24 @@ def _value_bytes(trail, dtype) -> int:
     return int(np.prod(trail, dtype=np.int64)) * np.dtype(dtype).itemsize
 
 
+def _absolute_zarr(arr):
+    """The Zarr array reopened by its absolute path when it lives in a local store opened by a relative
+    one: a worker started in another directory would otherwise read missing chunks as fill values."""
+    zarr = _require("zarr")
+    root = getattr(getattr(arr, "store", None), "root", None)
+    if root is not None:
+        full = os.path.abspath(os.fspath(root))
+        if not os.path.isdir(full):
+            raise ValueError(
+                f"the Zarr points' store {os.fspath(root)!r} is not found from this directory; open them by an absolute path"
+            )
+        arr = zarr.open_array(full, path=arr.path, mode="r")
+    done, total = arr.nchunks_initialized, arr.nchunks
+    if done < total:
+        raise ValueError(f"the Zarr points have {done} of {total} chunks written; the missing ones would read as fill values")
+    return arr
+
+
 def _points_fingerprint(pts) -> dict:
     """What a resumed point evaluation must match: the sha256 of numpy points; for Zarr points their
     location, shape and the sha256 of their first and last rows (reading every point is not worth it)."""
@@ -532,7 +639,7 @@ def evaluate(field, points, quantity: str, *, method: str = "auto", chunks=None,
     points: numpy array, Zarr array or dask array of shape (..., 4) float.  quantity and method as in
     :func:`instantonkit.fields.evaluate`.  chunks: one size per leading axis (default about 32 MiB
     of result).  store: Zarr directory to write (numpy or Zarr points; resumable) -> ``zarr.Array``
-    (..., *trailing); None -> a dask array.  Values are bit-identical to ``fields.evaluate``.  A resumed
+    (..., *trailing); None -> a dask array.  Values equal ``fields.evaluate`` to rounding (module notes).  A resumed
     store must have the same points: numpy points are hashed whole, Zarr points by location and ends.
     """
     _check_quantity(quantity)
@@ -540,8 +647,19 @@ def evaluate(field, points, quantity: str, *, method: str = "auto", chunks=None,
     if not hasattr(points, "shape") or len(points.shape) < 1 or points.shape[-1] != 4:
         raise ValueError(f"points must be an array of shape (..., 4); found shape {getattr(points, 'shape', None)}")
     lead = tuple(int(v) for v in points.shape[:-1])
+    if math.prod(lead) == 0:
+        raise ValueError(f"nothing to evaluate: points has shape {tuple(points.shape)}")
     trail, dtype = _trailing(field, quantity, method)
     is_dask = type(points).__module__.startswith("dask")
+    if store is None and not is_dask:  # lazily: dask slices the points, each task gets its own block
+        da = _require("dask.array")
+        arr = _absolute_zarr(points) if type(points).__module__.startswith("zarr") else np.array(points)
+        if not type(points).__module__.startswith("zarr"):
+            from .fields import as_points
+
+            as_points(arr)
+        ch = default_chunks(lead, _value_bytes(trail, dtype)) if chunks is None else _check_chunks(chunks, lead, "the points")
+        points, chunks, is_dask = da.from_array(arr, chunks=ch + (4,)), None, True
     if is_dask:
         if store is not None:
             raise ValueError("store= needs numpy or Zarr points (write the dask points with .to_zarr first)")
@@ -556,7 +674,7 @@ def evaluate(field, points, quantity: str, *, method: str = "auto", chunks=None,
     if not hasattr(points, "__getitem__"):
         raise TypeError(f"points must be a numpy, Zarr or dask array; found {type(points).__name__}")
     if type(points).__module__.startswith("zarr"):
-        pts = points
+        pts = _absolute_zarr(points)
     else:
         pts = np.asarray(points)
         from .fields import as_points
@@ -586,8 +704,8 @@ def evaluate_grid(field, shape, spacing, quantity: str, *, origin=None, method: 
 
     shape, spacing, origin: as in :func:`instantonkit.lattice.lattice_links` (default origin puts the
     field's centre in the middle of the central hypercube).  Returns a ``zarr.Array`` (store given)
-    or a dask array of shape (L1, L2, L3, L4, *trailing); values bit-identical to
-    ``fields.evaluate(field, lattice.site_points(shape, spacing, origin), quantity)``.
+    or a dask array of shape (L1, L2, L3, L4, *trailing); values equal
+    ``fields.evaluate(field, lattice.site_points(shape, spacing, origin), quantity)`` to rounding.
     """
     _check_quantity(quantity)
     field = as_field(field)
@@ -595,13 +713,13 @@ def evaluate_grid(field, shape, spacing, quantity: str, *, origin=None, method: 
     a = _lat._check_spacing(spacing)
     org = _lat.default_origin(field, shape, a) if origin is None else np.asarray(origin, dtype=np.float64)
     if org.shape != (4,) or not np.all(np.isfinite(org)):
-        raise ValueError(f"origin must be a finite point of shape (4,); found {np.shape(origin)}")
+        raise ValueError(f"origin must be a finite point of shape (4,); found {np.asarray(origin).tolist()!r}")
     trail, dtype = _trailing(field, quantity, method)
     chunks = default_chunks(shape, _value_bytes(trail, dtype)) if chunks is None else _check_chunks(chunks, shape, "the grid")
     task = _GridChunk(field, quantity, method, org, a)
     params = {
-        "field": _describe(field), "field_probe": _probe(field), "quantity": quantity, "method": method,
-        "shape": list(shape), "spacing": a, "origin": [float(v) for v in org],
+        "field": _describe(field), "field_probe": _probe(field), "domain_probe": _domain_probe(field, org, a, shape),
+        "quantity": quantity, "method": method, "shape": list(shape), "spacing": a, "origin": [float(v) for v in org],
     }
     job = _Job("evaluate_grid", "values", shape + tuple(trail), 4, chunks, np.dtype(dtype).name, params, lambda idx: task)
     return _run_values(job, store, client, overwrite, progress, n_workers)

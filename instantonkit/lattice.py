@@ -520,13 +520,19 @@ class StartSpec:
         n_field = jax.eval_shape(field.potential, jax.ShapeDtypeStruct((4,), jnp.float64)).shape[-1]
         if group in ("su2", "su3") and n_field != 2:
             raise ValueError(f"group {group!r} needs a 2 x 2 (SU(2)) field; found N = {n_field} (use group=None)")
-        emb = tuple(int(v) for v in embedding)
+        try:
+            emb = tuple(embedding)
+        except TypeError as err:
+            raise TypeError(f"embedding must be two distinct indices in 0..2; found {embedding!r}") from err
+        if not all(isinstance(v, (int, np.integer)) and not isinstance(v, bool) for v in emb):
+            raise TypeError(f"embedding must be two distinct indices in 0..2; found {embedding!r}")
+        emb = tuple(int(v) for v in emb)
         if group == "su3" and (len(emb) != 2 or emb[0] == emb[1] or not all(0 <= v < 3 for v in emb)):
             raise ValueError(f"embedding must be two distinct indices in 0..2; found {embedding!r}")
         n_out = 3 if group == "su3" else n_field
         org = default_origin(field, shape, a) if origin is None else np.asarray(origin, dtype=np.float64)
         if org.shape != (4,) or not np.all(np.isfinite(org)):
-            raise ValueError(f"origin must be a finite point of shape (4,); found {np.shape(origin)}")
+            raise ValueError(f"origin must be a finite point of shape (4,); found {np.asarray(origin).tolist()!r}")
         return cls(field, shape, a, org, group, emb, boundary, float(rtol), method, int(n_field), int(n_out))
 
     @property
