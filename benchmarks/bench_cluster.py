@@ -42,12 +42,14 @@ from __future__ import annotations
 
 import argparse
 import contextlib
-import json
 import math
 import os
 import sys
 import tempfile
 import time
+
+if __package__ in (None, ""):  # run as a script: make ``import benchmarks`` work from anywhere
+    sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
 SPACING = 0.5
 SCALING_RTOL = 1e-8
@@ -339,13 +341,9 @@ def main(argv=None) -> int:
     ap.add_argument("--json", action="store_true", help="print the rows as JSON")
     args = ap.parse_args(argv)
     rows = run(args.quick, tuple(args.part) if args.part else PARTS, malloc_trim=not args.no_malloc_trim)
-    if args.json:
-        print(json.dumps(rows, indent=1))
-        return 0
-    print(f"{'figure':72s} {'value':>9s} {'unit':>4s} {'ratio':>7s}  reference")
-    for r in rows:
-        ratio = "" if r["ratio"] is None else f"{r['ratio']:.3f}"
-        print(f"{r['figure']:72s} {r['value']:>9} {r['unit']:>4s} {ratio:>7s}  {r['reference']}")
+    from benchmarks.run import print_rows
+
+    print_rows(rows, args.json)
     return 0
 
 

@@ -17,12 +17,17 @@ Figures vary with machine load; run on an idle machine.
 from __future__ import annotations
 
 import argparse
+import os
+import sys
 import time
 
 import numpy as np
 
 import instantonkit as ik
 from instantonkit import fields
+
+if __package__ in (None, ""):  # run as a script: make ``import benchmarks`` work from anywhere
+    sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
 FULL_POINTS = 1_000_000
 QUICK_POINTS = 10_000
@@ -145,24 +150,6 @@ def run(quick: bool = False, points: int | None = None, ks=KS, ranks=RANKS) -> l
     return rows + _numpy_rows(n, repeats)
 
 
-def format_table(rows: list[dict]) -> str:
-    """Rows as an aligned text table."""
-    head = ("figure", "value", "unit", "ratio", "reference")
-    body = [
-        (
-            r["figure"],
-            f"{r['value']:.3g}",
-            r["unit"],
-            "" if r["ratio"] is None else f"{r['ratio']:.3g}",
-            r["reference"] or "",
-        )
-        for r in rows
-    ]
-    widths = [max(len(str(c)) for c in col) for col in zip(head, *body)]
-    line = lambda cells: "  ".join(str(c).ljust(w) for c, w in zip(cells, widths)).rstrip()  # noqa: E731
-    return "\n".join([line(head), line(["-" * w for w in widths])] + [line(b) for b in body])
-
-
 def main(argv=None) -> None:
     parser = argparse.ArgumentParser(description="Field-layer throughput and compile latency.")
     parser.add_argument("--quick", action="store_true", help=f"{QUICK_POINTS} points instead of {FULL_POINTS}")
@@ -170,7 +157,9 @@ def main(argv=None) -> None:
     parser.add_argument("--ks", type=int, nargs="+", default=list(KS), help="instanton numbers k")
     parser.add_argument("--ranks", type=int, nargs="+", default=list(RANKS), help="n of Sp(n); 1 is SU(2)")
     args = parser.parse_args(argv)
-    print(format_table(run(quick=args.quick, points=args.points, ks=args.ks, ranks=args.ranks)))
+    from benchmarks.run import print_rows
+
+    print_rows(run(quick=args.quick, points=args.points, ks=args.ks, ranks=args.ranks))
 
 
 if __name__ == "__main__":

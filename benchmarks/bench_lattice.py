@@ -9,11 +9,15 @@ the run, measured in a fresh child process per start so earlier runs do not hide
 from __future__ import annotations
 
 import argparse
-import json
 import multiprocessing as mp
+import os
 import resource
 import sys
 import time
+
+if __package__ in (None, ""):  # run as a script: make ``import benchmarks`` work from anywhere
+    sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+
 
 
 def _one(size: int, group: str, queue) -> None:
@@ -142,13 +146,9 @@ def main(argv=None) -> int:
                     help="only write an L^4 SU(3) start to a memmap on disk (e.g. 64) and report time and memory")
     args = ap.parse_args(argv)
     rows = disk_start(args.disk) if args.disk else run(args.quick, args.sizes)
-    if args.json:
-        print(json.dumps(rows, indent=1))
-        return 0
-    print(f"{'figure':48s} {'value':>10s} {'unit':>5s} {'ratio':>7s}  reference")
-    for r in rows:
-        ratio = "" if r["ratio"] is None else f"{r['ratio']:.3f}"
-        print(f"{r['figure']:48s} {r['value']:>10} {r['unit']:>5s} {ratio:>7s}  {r['reference']}")
+    from benchmarks.run import print_rows
+
+    print_rows(rows, args.json)
     return 0
 
 

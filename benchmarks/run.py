@@ -37,7 +37,7 @@ import traceback
 if __package__ in (None, ""):  # run as a script: make ``import benchmarks`` work from anywhere
     sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
-__all__ = ["discover", "collect", "machine_description", "format_table", "format_markdown", "main", "SMOKE"]
+__all__ = ["discover", "collect", "machine_description", "format_table", "format_markdown", "print_rows", "main", "SMOKE"]
 
 #: Extra keyword arguments for ``--smoke``, per module, used only where ``run`` accepts them.
 SMOKE = {
@@ -162,8 +162,9 @@ def _fmt_ratio(r) -> str:
 
 
 def _cells(rows: list[dict]) -> list[tuple[str, ...]]:
-    return [(f"{r['benchmark']}: {r['figure']}", _fmt_value(r["value"]), r["unit"], _fmt_ratio(r["ratio"]),
-             r["reference"]) for r in rows]
+    """Cells of the rows; the figure is prefixed with its module name when the runner tagged it."""
+    return [(f"{r['benchmark']}: {r['figure']}" if "benchmark" in r else str(r["figure"]), _fmt_value(r["value"]),
+             r.get("unit") or "", _fmt_ratio(r.get("ratio")), r.get("reference") or "") for r in rows]
 
 
 def format_table(rows: list[dict]) -> str:
@@ -177,6 +178,11 @@ def format_table(rows: list[dict]) -> str:
 
     sep = "  ".join("-" * w for w in width)
     return "\n".join([line(COLUMNS), sep] + [line(c) for c in cells])
+
+
+def print_rows(rows: list[dict], as_json: bool = False) -> None:
+    """Print one module's rows: the aligned table of :func:`format_table`, or JSON (the scripts' own ``main``)."""
+    print(json.dumps(rows, indent=1) if as_json else format_table(rows))
 
 
 def format_markdown(rows: list[dict]) -> str:
