@@ -37,7 +37,8 @@ from typing import Callable
 import numpy as np
 
 from . import lattice as _lat
-from .fields import as_field, evaluate as _evaluate
+from .fields import as_field, as_points, output_shape
+from .fields import evaluate as _evaluate
 
 __all__ = [
     "start_links",
@@ -591,13 +592,6 @@ def _check_quantity(quantity):
         raise ValueError(f"quantity must be one of {_QUANTITIES}; found {quantity!r}")
 
 
-def _trailing(field, quantity, method):
-    """Trailing shape and dtype of ``quantity`` at one point."""
-    from .fields import output_shape
-
-    return output_shape(field, quantity, method)
-
-
 def _value_bytes(trail, dtype) -> int:
     return int(np.prod(trail, dtype=np.int64)) * np.dtype(dtype).itemsize
 
@@ -649,38 +643,29 @@ def evaluate(field, points, quantity: str, *, method: str = "auto", chunks=None,
     lead = tuple(int(v) for v in points.shape[:-1])
     if math.prod(lead) == 0:
         raise ValueError(f"nothing to evaluate: points has shape {tuple(points.shape)}")
-    trail, dtype = _trailing(field, quantity, method)
+    trail, dtype = output_shape(field, quantity, method)
     is_dask = type(points).__module__.startswith("dask")
-    if store is None and not is_dask:  # lazily: dask slices the points, each task gets its own block
-        da = _require("dask.array")
-        arr = _absolute_zarr(points) if type(points).__module__.startswith("zarr") else np.array(points)
-        if not type(points).__module__.startswith("zarr"):
-            from .fields import as_points
-
-            as_points(arr)
-        ch = default_chunks(lead, _value_bytes(trail, dtype)) if chunks is None else _check_chunks(chunks, lead, "the points")
-        points, chunks, is_dask = da.from_array(arr, chunks=ch + (4,)), None, True
+    if not is_dask:
+        if not hasattr(points, "__getitem__"):
+            raise TypeError(f"points must be a numpy, Zarr or dask array; found {type(points).__name__}")
+        if type(points).__module__.startswith("zarr"):
+            pts = _absolute_zarr(points)
+        else:  # a copy for the lazy array, which must not see later changes of the caller's array
+            pts = np.array(points) if store is None else np.asarray(points)
+            as_points(pts)  # dtype / finiteness checks with their messages
+        chunks = default_chunks(lead, _value_bytes(trail, dtype)) if chunks is None else _check_chunks(chunks, lead, "the points")
+        if store is None:  # lazily: dask slices the points, each task gets its own block
+            points, is_dask = _require("dask.array").from_array(pts, chunks=chunks + (4,)), True
     if is_dask:
         if store is not None:
             raise ValueError("store= needs numpy or Zarr points (write the dask points with .to_zarr first)")
-        da = _require("dask.array")
         pts = points.rechunk(points.chunks[:-1] + ((4,),)) if chunks is None else points.rechunk(_check_chunks(chunks, lead, "the points") + (4,))
         fn = lambda blk: _evaluate(field, blk, quantity, method=method)  # noqa: E731
         new = len(trail)
-        return da.map_blocks(
+        return _require("dask.array").map_blocks(
             fn, pts, dtype=dtype, drop_axis=pts.ndim - 1, new_axis=list(range(pts.ndim - 1, pts.ndim - 1 + new)) or None,
             chunks=pts.chunks[:-1] + tuple((s,) for s in trail),
         )
-    if not hasattr(points, "__getitem__"):
-        raise TypeError(f"points must be a numpy, Zarr or dask array; found {type(points).__name__}")
-    if type(points).__module__.startswith("zarr"):
-        pts = _absolute_zarr(points)
-    else:
-        pts = np.asarray(points)
-        from .fields import as_points
-
-        as_points(pts)  # dtype / finiteness checks with their messages
-    chunks = default_chunks(lead, _value_bytes(trail, dtype)) if chunks is None else _check_chunks(chunks, lead, "the points")
     if isinstance(pts, np.ndarray):  # each task gets its own block, not the whole array
 
         def tasks(idx):
@@ -711,10 +696,8 @@ def evaluate_grid(field, shape, spacing, quantity: str, *, origin=None, method: 
     field = as_field(field)
     shape = _lat._check_shape(shape)
     a = _lat._check_spacing(spacing)
-    org = _lat.default_origin(field, shape, a) if origin is None else np.asarray(origin, dtype=np.float64)
-    if org.shape != (4,) or not np.all(np.isfinite(org)):
-        raise ValueError(f"origin must be a finite point of shape (4,); found {np.asarray(origin).tolist()!r}")
-    trail, dtype = _trailing(field, quantity, method)
+    org = _lat.resolve_origin(field, shape, a, origin)
+    trail, dtype = output_shape(field, quantity, method)
     chunks = default_chunks(shape, _value_bytes(trail, dtype)) if chunks is None else _check_chunks(chunks, shape, "the grid")
     task = _GridChunk(field, quantity, method, org, a)
     params = {
@@ -816,7 +799,7 @@ def ensemble(
     shape = _lat._check_shape(shape)
     a = _lat._check_spacing(spacing)
     spread, size_range = _ensemble_defaults(shape, a, spread, size_range)
-    origin = -a * (np.floor(np.asarray(shape) / 2.0) - 0.5)
+    origin = _lat.default_origin(None, shape, a)  # no field: the middle hypercube is centred on 0
     seeds = tuple(member_seed(seed, i) for i in range(int(n)))
     members = tuple(
         dataclasses.replace(random_adhm(k, rank, seed=np.random.default_rng(s), spread=spread, size_range=size_range), gauge=gauge)

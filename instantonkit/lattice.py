@@ -34,7 +34,8 @@ import jax.numpy as jnp
 import numpy as np
 
 from . import quaternion as qt
-from .observables import (  # re-exported: the lattice namespace offers the observables of its starts
+from . import observables as _obs
+from .observables import (  # noqa: F401  (re-exported: the lattice namespace offers the observables of its starts)
     _BOUNDARIES,
     PLANES,
     _check_shape,
@@ -52,7 +53,6 @@ from .observables import (  # re-exported: the lattice namespace offers the obse
 from .conventions import point_to_quaternion
 
 __all__ = [
-    "PLANES",
     "LinkReport",
     "StartSpec",
     "block_links",
@@ -61,18 +61,10 @@ __all__ = [
     "bpst_link",
     "site_points",
     "default_origin",
+    "resolve_origin",
     "boundary_mismatch",
-    "gauge_transform",
-    "random_gauge",
-    "plaquettes",
-    "plaquette_traces",
-    "average_plaquette",
-    "wilson_action",
-    "clover_field_strength",
-    "clover_charge_density",
-    "clover_charge",
     "unitarity_deviation",
-]
+] + _obs.__all__
 
 _GROUPS = ("su2", "su3", None)
 _METHODS = ("auto", "closed", "magnus")
@@ -431,6 +423,14 @@ def default_origin(field, shape, spacing) -> np.ndarray:
     return centre - a * (np.floor(np.asarray(shape) / 2.0) - 0.5)
 
 
+def resolve_origin(field, shape, spacing, origin) -> np.ndarray:
+    """``origin`` as a checked (4,) float64 point, or :func:`default_origin` when it is None; ValueError naming the value."""
+    org = default_origin(field, shape, spacing) if origin is None else np.asarray(origin, dtype=np.float64)
+    if org.shape != (4,) or not np.all(np.isfinite(org)):
+        raise ValueError(f"origin must be a finite point of shape (4,); found {np.asarray(origin).tolist()!r}")
+    return org
+
+
 def site_points(shape, spacing, origin) -> np.ndarray:
     """Positions of the sites, x_n = origin + a n; (L1, L2, L3, L4, 4) float64."""
     shape = _check_shape(shape)
@@ -530,9 +530,7 @@ class StartSpec:
         if group == "su3" and (len(emb) != 2 or emb[0] == emb[1] or not all(0 <= v < 3 for v in emb)):
             raise ValueError(f"embedding must be two distinct indices in 0..2; found {embedding!r}")
         n_out = 3 if group == "su3" else n_field
-        org = default_origin(field, shape, a) if origin is None else np.asarray(origin, dtype=np.float64)
-        if org.shape != (4,) or not np.all(np.isfinite(org)):
-            raise ValueError(f"origin must be a finite point of shape (4,); found {np.asarray(origin).tolist()!r}")
+        org = resolve_origin(field, shape, a, origin)
         return cls(field, shape, a, org, group, emb, boundary, float(rtol), method, int(n_field), int(n_out))
 
     @property
