@@ -163,6 +163,15 @@ class ADHMData(PytreeFields):
         """Column norms of Lambda, rho_i = |Lambda_i|; (k,) float64."""
         return np.sqrt(np.sum(np.asarray(self.lam) ** 2, axis=(0, 2)))
 
+    def layout(self) -> tuple[np.ndarray, np.ndarray]:
+        """Field hook: the centres (k, 4) and sizes (k,) read off the data, where the action sits."""
+        return self.centers(), self.sizes()
+
+    def describe(self) -> str:
+        """Field hook: one line for reports."""
+        kind = "instanton" if self.chirality == 1 else "anti-instanton"
+        return f"ADHM {self.group} data, k = {self.k} ({kind}, {self.gauge} gauge)"
+
     def constraint_residual(self) -> float:
         """Max |Im(Lambda^dag Lambda + B^dag B)| and max |B - B^T| (the larger of the two)."""
         res = np.max(np.abs(np.asarray(_constraint_matrix(self.lam, self.B))[..., 1:]))

@@ -258,6 +258,17 @@ class ThooftField(_ScalarAnsatz):
         val, grad, hess = _pole_sums(x, jnp.asarray(self.centers), jnp.asarray(self.sizes) ** 2, hessian)
         return 1.0 + val, grad, hess
 
+    def layout(self) -> tuple[np.ndarray, np.ndarray]:
+        """Field hook: the poles (k, 4) and their sizes (k,), where the action sits."""
+        return np.asarray(self.centers, dtype=np.float64).reshape(-1, 4), np.asarray(self.sizes, dtype=np.float64).reshape(-1)
+
+    def pole_count(self) -> tuple[int, str]:
+        """Field hook: the charge read off the ansatz, k = number of poles (an input, not a check)."""
+        return self.k, "'t Hooft poles (number of centres)"
+
+    def describe(self) -> str:
+        return f"'t Hooft ansatz, k = {self.k}"
+
     def hint(self):
         """(mean of the centres (4,), max(largest size, spread of the centres))."""
         c = np.asarray(self.centers)
@@ -295,6 +306,13 @@ class JNRField(_ScalarAnsatz):
 
     def _derivs(self, x, hessian: bool = True):
         return _pole_sums(x, jnp.asarray(self.poles), jnp.asarray(self.weights) ** 2, hessian)
+
+    def pole_count(self) -> tuple[int, str]:
+        """Field hook: the charge read off the ansatz, k = number of poles - 1 (an input, not a check)."""
+        return self.k, "JNR poles minus one"
+
+    def describe(self) -> str:
+        return f"JNR ansatz, k = {self.k}"
 
     def hint(self):
         """(mean of the poles (4,), max(largest weight, spread of the poles))."""
@@ -417,6 +435,9 @@ class CaloronField(_ScalarAnsatz):
     def _derivs(self, x, hessian: bool = True):
         args = (jnp.asarray(self.size), jnp.asarray(self.period), jnp.asarray(self.center))
         return _caloron_derivs(x, *args, hessian)
+
+    def describe(self) -> str:
+        return f"Harrington-Shepard caloron, rho = {float(self.size):g}, period = {float(self.period):g}"
 
     def hint(self):
         """(centre (4,), rho * max(1, pi rho / beta)): the core size (pi rho^2/beta is the monopole scale)."""

@@ -17,7 +17,7 @@ from __future__ import annotations
 
 import dataclasses
 import functools
-from typing import Any, Callable
+from typing import Any, Callable, Protocol, runtime_checkable
 
 import jax
 import jax.numpy as jnp
@@ -26,6 +26,10 @@ import numpy as np
 from .conventions import ACTION_DENSITY_FACTOR, CHARGE_DENSITY_FACTOR, LEVI_CIVITA
 
 __all__ = [
+    "Field",
+    "FieldHooks",
+    "HOOKS",
+    "hook",
     "CallableField",
     "as_field",
     "as_points",
@@ -37,6 +41,9 @@ __all__ = [
     "evaluate",
     "dual",
     "field_strength_from_potential",
+    "action_from_f",
+    "charge_from_f",
+    "residual_from_f",
     "DEFAULT_CHUNK",
     "output_shape",
 ]
@@ -45,6 +52,86 @@ __all__ = [
 DEFAULT_CHUNK = 16384
 
 _METHODS = ("auto", "closed", "autodiff")
+
+
+# -- the field protocol -----------------------------------------------------------------------------
+
+
+@runtime_checkable
+class Field(Protocol):
+    """What the engine needs of a field: the potential at one point, jax-traceable.
+
+    ``potential(x)``: x (4,) float64 -> A_mu (4, N, N) complex128, anti-Hermitian (conventions module).
+    Everything else a field may offer is an optional hook, listed in :class:`FieldHooks` and asked for
+    with :func:`hook`; the engine and the checks never look at a field's class.
+    """
+
+    def potential(self, x: Any) -> Any: ...
+
+
+class FieldHooks(Protocol):
+    """The optional hooks a field may implement (a reference for implementers and type checkers).
+
+    Closed forms, used by the engine when present (``method="auto"``); all jax-traceable, one point:
+      ``field_strength(x) -> (4, 4, N, N)``, ``action_density(x) -> ()``, ``charge_density(x) -> ()``.
+    Layout, used by the integrals and the lattice (host-side numpy):
+      ``hint() -> (centre (4,), scale)``: one centre and length scale for the whole field;
+      ``layout() -> (centres (m, 4), scales (m,))``: where the action sits (one entry per lump), for
+      the quadrature's per-centre rules.  Without it the integrals use ``hint()``.
+    Facts known from the construction (shown by ``verify`` as inputs, never as checks):
+      ``charge``: the instanton number the construction gives (int attribute or property);
+      ``pole_count() -> (int, str)``: the charge read off the ansatz's poles, with a description;
+      ``constraint_residual() -> float``: the residual of the field's defining constraint (ADHM);
+      ``period``: the period in x4 for fields on R^3 x S^1 (float attribute or property).
+    Other routes and kernels:
+      ``log_det(x) -> ()``: log det of the ADHM Gram matrix, for Osborn's density s = -box box log det f;
+      ``closed_link(x, d) -> (N, N)``: the closed-form parallel transporter from x to x + d
+      (jax-traceable, one link), used by the lattice instead of Magnus steps;
+      ``describe() -> str``: a one-line description for reports.
+    """
+
+    def field_strength(self, x: Any) -> Any: ...
+    def action_density(self, x: Any) -> Any: ...
+    def charge_density(self, x: Any) -> Any: ...
+    def hint(self) -> tuple[Any, float]: ...
+    def layout(self) -> tuple[np.ndarray, np.ndarray]: ...
+    def pole_count(self) -> tuple[int, str]: ...
+    def constraint_residual(self) -> float: ...
+    def log_det(self, x: Any) -> Any: ...
+    def closed_link(self, x: Any, d: Any) -> Any: ...
+    def describe(self) -> str: ...
+
+
+#: Names of the optional hooks (methods or attributes), documented in :class:`FieldHooks`.
+HOOKS = (
+    "field_strength",
+    "action_density",
+    "charge_density",
+    "hint",
+    "layout",
+    "charge",
+    "pole_count",
+    "constraint_residual",
+    "period",
+    "log_det",
+    "closed_link",
+    "describe",
+)
+
+
+def hook(field, name: str):
+    """The field's hook ``name`` (bound method or attribute value), or None when it does not offer it.
+
+    Wrappers (:mod:`instantonkit.transforms`) offer a hook exactly when the field they wrap does and
+    they can map it; asking is the only way modules learn what a field can do.
+    """
+    if name not in HOOKS:
+        raise ValueError(f"unknown field hook {name!r}; the hooks are {HOOKS}")
+    try:
+        value = getattr(field, name)
+    except AttributeError:
+        return None
+    return value
 
 
 # -- inputs -----------------------------------------------------------------------------------------
@@ -84,6 +171,10 @@ class CallableField:
     def potential(self, x):
         return jnp.asarray(self.fn(x)).astype(jnp.complex128)
 
+    def describe(self) -> str:
+        """Field hook: one line for reports."""
+        return f"callable potential {getattr(self.fn, '__name__', type(self.fn).__name__)}"
+
     def tree_flatten(self):
         return (), (self.fn,)
 
@@ -122,17 +213,17 @@ def dual(f):
     return 0.5 * jnp.einsum("mnrs,...rsij->...mnij", LEVI_CIVITA, f)
 
 
-def _action_from_f(f):
+def action_from_f(f):
     """s = -1/2 sum tr F_mu nu F_mu nu (conventions.ACTION_DENSITY_FACTOR); f: (4, 4, N, N) -> ()."""
     return ACTION_DENSITY_FACTOR * jnp.real(jnp.einsum("mnij,mnji->", f, f))
 
 
-def _charge_from_f(f):
+def charge_from_f(f):
     """q = -1/(32 pi^2) eps tr F F (conventions.CHARGE_DENSITY_FACTOR); f: (4, 4, N, N) -> ()."""
     return CHARGE_DENSITY_FACTOR * jnp.real(jnp.einsum("mnrs,mnij,rsji->", LEVI_CIVITA, f, f))
 
 
-def _residual_from_f(f):
+def residual_from_f(f):
     """|F - *F| / |F| with |F|^2 = sum_{mu nu} tr(F_mu nu^dag F_mu nu); 0 where F = 0."""
     diff = f - dual(f)
     num = jnp.sqrt(jnp.real(jnp.sum(diff * jnp.conj(diff))))
@@ -143,25 +234,21 @@ def _residual_from_f(f):
 def _point_fn(field, quantity: str, method: str) -> Callable:
     """Per-point function x -> value for the field (traced inside the compiled kernel)."""
 
-    def fs(x):
-        if method != "autodiff" and hasattr(field, "field_strength"):
-            return field.field_strength(x)
-        return field_strength_from_potential(field.potential)(x)
+    closed_f = hook(field, "field_strength") if method != "autodiff" else None
+    fs = closed_f if closed_f is not None else field_strength_from_potential(field.potential)
 
     if quantity == "potential":
         return field.potential
     if quantity == "field_strength":
         return fs
     if quantity == "action_density":
-        if method == "auto" and hasattr(field, "action_density"):
-            return field.action_density
-        return lambda x: _action_from_f(fs(x))
+        closed_s = hook(field, "action_density") if method == "auto" else None
+        return closed_s if closed_s is not None else (lambda x: action_from_f(fs(x)))
     if quantity == "charge_density":
-        if method == "auto" and hasattr(field, "charge_density"):
-            return field.charge_density
-        return lambda x: _charge_from_f(fs(x))
+        closed_q = hook(field, "charge_density") if method == "auto" else None
+        return closed_q if closed_q is not None else (lambda x: charge_from_f(fs(x)))
     if quantity == "self_duality_residual":
-        return lambda x: _residual_from_f(fs(x))
+        return lambda x: residual_from_f(fs(x))
     raise ValueError(f"unknown quantity {quantity!r}")
 
 

@@ -137,6 +137,48 @@ class _Wrapper(PytreeFields):
             _missing("period")
         return self._map_period(self.field.period)
 
+    def _map_layout(self, centres, scales):
+        """Centres (m, 4) and scales (m,) of the wrapped field -> those of this one (default: via _map_hint)."""
+        mapped = [self._map_hint(c, float(s)) for c, s in zip(centres, scales)]
+        return np.array([m[0] for m in mapped]).reshape(-1, 4), np.array([m[1] for m in mapped], dtype=np.float64)
+
+    @property
+    def layout(self):
+        if not hasattr(self.field, "layout"):
+            _missing("layout")
+
+        def layout():
+            centres, scales = self.field.layout()
+            return self._map_layout(np.asarray(centres, dtype=np.float64).reshape(-1, 4), np.asarray(scales, dtype=np.float64).reshape(-1))
+
+        return layout
+
+    @property
+    def pole_count(self):
+        if not hasattr(self.field, "pole_count"):
+            _missing("pole_count")
+
+        def pole_count():
+            count, text = self.field.pole_count()
+            return self._map_charge(count), text + self._pole_note
+
+        return pole_count
+
+    _pole_note = ""
+
+    @property
+    def constraint_residual(self):
+        """The wrapped field's constraint residual (gauge, translation, rotation and dilation invariant)."""
+        if not hasattr(self.field, "constraint_residual"):
+            _missing("constraint_residual")
+        return self.field.constraint_residual
+
+    def describe(self) -> str:
+        inner = self.field.describe() if hasattr(self.field, "describe") else type(self.field).__name__
+        return f"{inner}, {self._verb}"
+
+    _verb = "transformed"
+
 
 # -- gauge transformation ---------------------------------------------------------------------------
 
@@ -159,6 +201,8 @@ class GaugeTransformed(_Wrapper):
 
     field: object
     g: object
+
+    _verb = "gauge transformed"
 
     def __post_init__(self):
         object.__setattr__(self, "field", as_field(self.field))
@@ -243,6 +287,7 @@ class Translated(_Wrapper):
             object.__setattr__(self, "shift", _real("shift", self.shift, (4,)))
 
     _leaves = ("field", "shift")
+    _verb = "translated"
 
     def _y(self, x):
         return jnp.asarray(x, dtype=jnp.float64) - jnp.asarray(self.shift)
@@ -309,6 +354,7 @@ class Rotated(_Wrapper):
             object.__setattr__(self, "right", _unit("right", self.right))
 
     _leaves = ("field", "left", "right")
+    _verb = "rotated"
 
     @property
     def matrix(self):
@@ -366,6 +412,7 @@ class Dilated(_Wrapper):
             object.__setattr__(self, "factor", c)
 
     _leaves = ("field", "factor")
+    _verb = "dilated"
 
     def _y(self, x):
         c = jnp.asarray(self.factor)
@@ -417,6 +464,8 @@ class ParityImage(_Wrapper):
         object.__setattr__(self, "field", as_field(self.field))
 
     _leaves = ("field",)
+    _verb = "parity image"
+    _pole_note = ", parity image"
 
     @staticmethod
     def _px(x):

@@ -1,0 +1,125 @@
+"""Argument checks shared by every module (floor 0): one wording, one result for the same input.
+
+Each check returns the normalised value or raises ``TypeError`` (wrong kind of object) or
+``ValueError`` (right kind, wrong value) naming the argument, what was expected and what was found.
+Booleans are never accepted as numbers (``rtol=True`` is refused everywhere).
+"""
+
+from __future__ import annotations
+
+import numbers
+
+import jax
+import numpy as np
+
+__all__ = [
+    "is_tracer",
+    "positive_int",
+    "nonnegative_int",
+    "positive_float",
+    "finite_float",
+    "real_array",
+    "point",
+    "points_array",
+    "positive_vector",
+    "choice",
+]
+
+
+def is_tracer(*values) -> bool:
+    """True when any value is a jax tracer (value checks are skipped under tracing)."""
+    return any(isinstance(v, jax.core.Tracer) for v in values)
+
+
+def _is_bool(value) -> bool:
+    return isinstance(value, (bool, np.bool_))
+
+
+def positive_int(name: str, value) -> int:
+    """An integer >= 1 (numpy integers accepted, booleans and floats refused)."""
+    if _is_bool(value) or not isinstance(value, numbers.Integral):
+        raise TypeError(f"{name} must be a positive integer; found {value!r} ({type(value).__name__})")
+    if value < 1:
+        raise ValueError(f"{name} must be a positive integer; found {value!r}")
+    return int(value)
+
+
+def nonnegative_int(name: str, value) -> int:
+    """An integer >= 0 (booleans refused)."""
+    if _is_bool(value) or not isinstance(value, numbers.Integral):
+        raise TypeError(f"{name} must be a non-negative integer; found {value!r} ({type(value).__name__})")
+    if value < 0:
+        raise ValueError(f"{name} must be a non-negative integer; found {value!r}")
+    return int(value)
+
+
+def finite_float(name: str, value) -> float:
+    """A finite real number (booleans refused)."""
+    if _is_bool(value) or not isinstance(value, numbers.Real):
+        if not (isinstance(value, np.ndarray) and value.shape == () and np.issubdtype(value.dtype, np.number)
+                and not np.issubdtype(value.dtype, np.complexfloating)):
+            raise TypeError(f"{name} must be a real number; found {value!r} ({type(value).__name__})")
+    out = float(value)
+    if not np.isfinite(out):
+        raise ValueError(f"{name} must be finite; found {out!r}")
+    return out
+
+
+def positive_float(name: str, value) -> float:
+    """A finite real number > 0 (booleans refused)."""
+    out = finite_float(name, value)
+    if out <= 0:
+        raise ValueError(f"{name} must be > 0; found {out!r}")
+    return out
+
+
+def real_array(name: str, value, shape: tuple | None = None, *, shape_text: str | None = None) -> np.ndarray:
+    """A finite float64 array; ``shape`` entries of ``None`` match any length."""
+    arr = np.asarray(value)
+    if arr.dtype == object or not (np.issubdtype(arr.dtype, np.floating) or np.issubdtype(arr.dtype, np.integer)):
+        raise TypeError(f"{name} must be a real numeric array; found dtype {arr.dtype}")
+    if arr.dtype == np.bool_:
+        raise TypeError(f"{name} must be a real numeric array; found dtype bool")
+    if shape is not None:
+        ok = arr.ndim == len(shape) and all(s is None or s == n for s, n in zip(shape, arr.shape))
+        if not ok:
+            want = shape_text or "(" + ", ".join("n" if s is None else str(s) for s in shape) + ("," if len(shape) == 1 else "") + ")"
+            raise ValueError(f"{name} must have shape {want}; found {arr.shape}")
+    arr = arr.astype(np.float64)
+    if not np.all(np.isfinite(arr)):
+        raise ValueError(f"{name} must be finite; found {int(np.sum(~np.isfinite(arr)))} NaN or inf value(s)")
+    return arr
+
+
+def point(name: str, value) -> np.ndarray:
+    """One point of R^4: a finite (4,) float64 array."""
+    return real_array(name, value, (4,))
+
+
+def points_array(name: str, value, *, min_count: int = 1) -> np.ndarray:
+    """A list of points: (m, 4) float64 with m >= min_count; a single (4,) point is promoted to (1, 4)."""
+    arr = np.asarray(value)
+    if arr.ndim == 1:
+        arr = arr.reshape(1, -1)
+    arr = real_array(name, arr, (None, 4), shape_text="(m, 4)")
+    if arr.shape[0] < min_count:
+        raise ValueError(f"{name} must hold at least {min_count} point(s); found {arr.shape[0]}")
+    return arr
+
+
+def positive_vector(name: str, value, length: int) -> np.ndarray:
+    """A (length,) float64 array of finite values > 0; a scalar is broadcast."""
+    arr = np.asarray(value)
+    if arr.ndim == 0:
+        arr = np.full(length, arr)
+    arr = real_array(name, arr, (length,))
+    if np.any(arr <= 0):
+        raise ValueError(f"{name} must be > 0; found {arr.tolist()}")
+    return arr
+
+
+def choice(name: str, value, options: tuple):
+    """One of ``options`` (compared with ==), else ValueError listing them."""
+    if not any(value == o and type(value) is type(o) for o in options):
+        raise ValueError(f"{name} must be one of {options}; found {value!r}")
+    return value
