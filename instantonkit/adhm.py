@@ -246,8 +246,8 @@ class ADHMData(PytreeFields):
         p = point_to_quaternion(jnp.asarray(x))
         return qt.qconj(p) if self.chirality == -1 else p
 
-    def _b_minus_p(self, x):
-        """B - p(x) 1_k at one point; (k, k, 4)."""
+    def b_minus_p(self, x):
+        """B - p(x) 1_k at one point x (4,) -> (k, k, 4) quaternionic (package-internal seam, jax-traceable)."""
         p = self._pq(x)
         eye = jnp.eye(self.k)[:, :, None]
         return jnp.asarray(self.B) - eye * p
@@ -261,11 +261,11 @@ class ADHMData(PytreeFields):
         return np.asarray(out).reshape(lead + out.shape[1:])
 
     def _delta_at(self, x):
-        return jnp.concatenate([jnp.asarray(self.lam), self._b_minus_p(x)], axis=0)
+        return jnp.concatenate([jnp.asarray(self.lam), self.b_minus_p(x)], axis=0)
 
-    def _f(self, x):
-        """f = (Delta^dag Delta)^-1, real (k, k), and B - p(x)."""
-        bp = self._b_minus_p(x)
+    def gram_inverse(self, x):
+        """f = (Delta^dag Delta)^-1, real (k, k), and B - p(x) (k, k, 4) at one point (package-internal seam)."""
+        bp = self.b_minus_p(x)
         gram = _real_gram(jnp.asarray(self.lam), bp)
         if self.k == 1:  # a 1 x 1 real matrix: skip the batched LU
             return 1.0 / gram, bp
@@ -273,19 +273,19 @@ class ADHMData(PytreeFields):
 
     def log_det(self, x):
         """log det(Delta^dag Delta) at one point (4,) -> () (for Osborn's formula)."""
-        bp = self._b_minus_p(x)
+        bp = self.b_minus_p(x)
         gram = _real_gram(jnp.asarray(self.lam), bp)
         return jnp.linalg.slogdet(gram)[1]
 
-    def _frame(self, x):
-        """U(x), (n + k, n, 4): orthonormal null space of Delta^dag in the projection gauge.
+    def frame(self, x):
+        """U(x), (n + k, n, 4): orthonormal null space of Delta^dag in the projection gauge (package-internal seam).
 
         U = P V0 L^-dag with P = 1 - Delta f Delta^dag, V0^dag P V0 = L L^dag (quaternionic Cholesky).
         gauge 'singular': V0 = [1_n ; 0] (for k = 1 the singular gauge, singular at the centre);
         gauge 'regular':  V0 = [0 ; Lambda^dag] (for k = 1 the regular gauge, smooth everywhere).
         """
         n, k = self.rank, self.k
-        f, bp = self._f(x)
+        f, bp = self.gram_inverse(x)
         delta = jnp.concatenate([jnp.asarray(self.lam), bp], axis=0)
         if self.gauge == "singular":
             v0 = jnp.concatenate([qt.qmat_identity(n), jnp.zeros((k, n, 4))], axis=0)
@@ -302,7 +302,7 @@ class ADHMData(PytreeFields):
         """A_mu(x) = U^dag d_mu U at one point (4,) -> (4, 2n, 2n) complex (gauge: ``self.gauge``)."""
         x = jnp.asarray(x, dtype=jnp.float64)
         # d_mu U by forward-mode AD (exact), U itself as the auxiliary output of the same pass
-        jac, u = jax.jacfwd(lambda y: (self._frame(y),) * 2, has_aux=True)(x)  # (n + k, n, 4, mu)
+        jac, u = jax.jacfwd(lambda y: (self.frame(y),) * 2, has_aux=True)(x)  # (n + k, n, 4, mu)
         a = jnp.stack([qt.qmat_mul(qt.qmat_dagger(u), jac[..., mu]) for mu in range(4)])
         return qt.qmat_to_complex(a)
 
@@ -313,8 +313,8 @@ class ADHMData(PytreeFields):
         (anti-instanton).  No derivatives are taken.
         """
         x = jnp.asarray(x, dtype=jnp.float64)
-        u = self._frame(x)
-        f, _ = self._f(x)
+        u = self.frame(x)
+        f, _ = self.gram_inverse(x)
         ub = u[self.rank :]  # b^dag U, (k, n, 4)
         sig = _sigma_munu(self.chirality)  # (4, 4, 4)
         # (sigma f)_{ij} = sigma * f_ij: a (4, 4, k, k, 4) quaternionic matrix
@@ -330,7 +330,7 @@ class ADHMData(PytreeFields):
         (Uses sum_{mu nu} sigma_mu nu X sigma_mu nu = 16 sum_a u_a X u_a and
         sum_a u_a q u_a = -q - 2 q-bar; for k = 1 it gives 48 rho^4 f^4, the BPST density.)
         """
-        f, bp = self._f(jnp.asarray(x, dtype=jnp.float64))
+        f, bp = self.gram_inverse(jnp.asarray(x, dtype=jnp.float64))
         m = qt.qmat_identity(self.k) - qt.qmat_mul(bp, qt.qmat_mul(_real_mul_left(f), qt.qmat_dagger(bp)))
         g = _real_mul(f, m)
         gg = qt.qmat_real_trace(qt.qmat_mul(g, g))

@@ -69,7 +69,7 @@ def _gram_coefficients(data):
     from . import quaternion as qt  # local: keeps the import graph flat
 
     def gram(x):
-        bp = data._b_minus_p(jnp.asarray(x, dtype=jnp.float64))
+        bp = data.b_minus_p(jnp.asarray(x, dtype=jnp.float64))
         lam = jnp.asarray(data.lam)
         m = qt.qmat_mul(qt.qmat_dagger(lam), lam) + qt.qmat_mul(qt.qmat_dagger(bp), bp)
         return m[..., 0]

@@ -86,8 +86,8 @@ def _check_data(data) -> ADHMData:
 
 def _psi_quat(data: ADHMData, x):
     """psi = (1/pi) U^dag b f at one point: (n, k, 4) quaternionic."""
-    u = data._frame(x)
-    f, _ = data._f(x)
+    u = data.frame(x)
+    f, _ = data.gram_inverse(x)
     ub = u[data.rank :]  # b^dag U, (k, n, 4)
     return jnp.einsum("nja,jk->nka", qt.qmat_dagger(ub), f) / PI
 
@@ -104,7 +104,7 @@ def _gram_at(data: ADHMData, x):
 
     M = 1 - (B - p) f (B - p)^dag; only its real part enters since f is real.
     """
-    bp = data._b_minus_p(jnp.asarray(x, dtype=jnp.float64))  # (k, k, 4)
+    bp = data.b_minus_p(jnp.asarray(x, dtype=jnp.float64))  # (k, k, 4)
     lam = jnp.asarray(data.lam)
     # Re(q-bar r) = q . r (4-vector dot product), so only real contractions are needed:
     # Delta^dag Delta = Re(Lambda^dag Lambda + (B - p)^dag (B - p)) (real by the ADHM constraint)

@@ -148,7 +148,7 @@ def _covariant_derivative(data, x):
 @jax.jit
 def _box_trace_f(data, pts):
     """box tr f at points (M, 4) by jax.hessian of f = (Delta^dag Delta)^-1 (the private adhm helper)."""
-    return jax.vmap(lambda y: jnp.einsum("iimm->", jax.hessian(lambda z: data._f(z)[0])(y)))(pts)
+    return jax.vmap(lambda y: jnp.einsum("iimm->", jax.hessian(lambda z: data.gram_inverse(z)[0])(y)))(pts)
 
 
 def test_instanton_modes_are_not_annihilated_by_the_other_operator():
