@@ -11,15 +11,19 @@ memmaps alike).
 
 from __future__ import annotations
 
+import warnings
+
 import jax.numpy as jnp
 import numpy as np
 
+from . import _validate as _v
 from .conventions import CHARGE_DENSITY_FACTOR
 from .io import check_links as _check_links
 
 __all__ = [
     "PLANES",
-    "gauge_transform",
+    "BOUNDARIES",
+    "gauge_transform_links",
     "random_gauge",
     "plaquettes",
     "plaquette_traces",
@@ -33,7 +37,8 @@ __all__ = [
 #: The six lattice planes (mu, nu), mu < nu, zero-based; the order of the plane axis of :func:`plaquettes`.
 PLANES = ((0, 1), (0, 2), (0, 3), (1, 2), (1, 3), (2, 3))
 
-_BOUNDARIES = ("periodic", "open")
+#: The boundary conditions of link arrays: wrap around, or use only what lies inside.
+BOUNDARIES = ("periodic", "open")
 #: Bytes of link data handled at once by the observables (time slabs).
 SLAB_BYTES = 1 << 26
 
@@ -42,20 +47,13 @@ SLAB_BYTES = 1 << 26
 
 
 def _check_shape(shape):
-    try:
-        s = tuple(int(v) for v in shape)
-    except TypeError as err:
-        raise TypeError(f"shape must be a sequence of 4 integers (L1, L2, L3, L4); found {shape!r}") from err
-    if len(s) != 4 or any(v < 1 for v in s) or any(int(v) != v for v in shape):
-        raise ValueError(f"shape must be 4 positive integers (L1, L2, L3, L4); found {tuple(shape)!r}")
-    return s
+    """(L1, L2, L3, L4) as ints (:func:`instantonkit._validate.lattice_shape`)."""
+    return _v.lattice_shape("shape", shape)
 
 
 def _check_spacing(spacing) -> float:
-    a = float(spacing)
-    if not (np.isfinite(a) and a > 0):
-        raise ValueError(f"spacing must be finite and > 0; found {spacing!r}")
-    return a
+    """The lattice spacing a > 0 (:func:`instantonkit._validate.positive_float`)."""
+    return _v.positive_float("spacing", spacing)
 
 
 # -- gauge transformations ------------------------------------------------------------------------------
@@ -74,12 +72,24 @@ def random_gauge(shape, n: int = 2, *, seed=0) -> np.ndarray:
     return q * (det ** (-1.0 / n))[..., None, None]
 
 
-def gauge_transform(links, g, *, boundary: str = "periodic") -> np.ndarray:
-    """U_mu(n) -> g(n) U_mu(n) g(n + mu)^dag (conventions module); g: (L1, L2, L3, L4, N, N).
+def gauge_transform_links(links, g, *, boundary: str = "periodic") -> np.ndarray:
+    """Gauge transformation of a link array: U_mu(n) -> g(n) U_mu(n) g(n + mu)^dag (conventions module).
 
-    Periodic: n + mu wraps.  Open: the outward links of the last sites are left multiplied only.
+    Args:
+      links: (L1, L2, L3, L4, 4, N, N) complex link array.
+      g: (L1, L2, L3, L4, N, N) unitary matrices, one per site (e.g. :func:`random_gauge`).
+      boundary: 'periodic' (n + mu wraps) or 'open' (the outward links of the last sites are only
+        left multiplied).
+    Returns:
+      (L1, L2, L3, L4, 4, N, N) complex128, the transformed links.
+    Raises:
+      ValueError: g of the wrong shape, or an unknown boundary.
+
+    (The continuum gauge transformation of a field is :func:`instantonkit.transforms.gauge_transform`.)
     """
     u = np.asarray(links)
+    g = np.asarray(g)
+    _check_boundary(boundary)
     if g.shape != u.shape[:4] + u.shape[-2:]:
         raise ValueError(f"g must have shape {u.shape[:4] + u.shape[-2:]}; found {g.shape}")
     out = np.empty_like(u)
@@ -94,12 +104,22 @@ def gauge_transform(links, g, *, boundary: str = "periodic") -> np.ndarray:
     return out
 
 
+def gauge_transform(links, g, *, boundary: str = "periodic") -> np.ndarray:
+    """Deprecated name of :func:`gauge_transform_links` (the public ``ik.gauge_transform`` is the continuum one)."""
+    warnings.warn(
+        "observables.gauge_transform / lattice.gauge_transform is deprecated; use gauge_transform_links "
+        "(instantonkit.gauge_transform transforms continuum fields)",
+        DeprecationWarning,
+        stacklevel=2,
+    )
+    return gauge_transform_links(links, g, boundary=boundary)
+
+
 # -- observables ------------------------------------------------------------------------------------------
 
 
 def _check_boundary(boundary):
-    if boundary not in _BOUNDARIES:
-        raise ValueError(f"boundary must be one of {_BOUNDARIES}; found {boundary!r}")
+    _v.choice("boundary", boundary, BOUNDARIES)
 
 
 def _slabs(u, margin: int):
