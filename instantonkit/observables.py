@@ -203,6 +203,14 @@ def plaquette_traces(links, *, boundary: str = "periodic") -> np.ndarray:
     """Re tr U_p / N for every site and plane; (L1, L2, L3, L4, 6) float64 (plane order :data:`PLANES`).
 
     Open boundaries: NaN for plaquettes that leave the lattice (n_mu or n_nu = L - 1).
+
+    Args:
+      links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
+      boundary: 'periodic' or 'open'.
+    Returns:
+      (L1, L2, L3, L4, 6) float64, Re tr U_p / N per site and plane.
+    Raises:
+      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
     """
     u = _check_links(links)
     _check_boundary(boundary)
@@ -221,6 +229,14 @@ def plaquettes(links, *, boundary: str = "periodic") -> np.ndarray:
 
     Plane order :data:`PLANES`; ``plaquette = exp(a^2 F_mu nu + O(a^3))`` (conventions module).
     Open boundaries: NaN for plaquettes that leave the lattice.
+
+    Args:
+      links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
+      boundary: 'periodic' or 'open'.
+    Returns:
+      (L1, L2, L3, L4, 6, N, N) complex128 plaquette matrices.
+    Raises:
+      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
     """
     u = _check_links(links)
     _check_boundary(boundary)
@@ -234,7 +250,16 @@ def plaquettes(links, *, boundary: str = "periodic") -> np.ndarray:
 
 
 def average_plaquette(links, *, boundary: str = "periodic") -> float:
-    """Mean of Re tr U_p / N over all (for open boundaries: all inside) plaquettes."""
+    """Mean of Re tr U_p / N over all (for open boundaries: all inside) plaquettes.
+
+    Args:
+      links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
+      boundary: 'periodic' or 'open'.
+    Returns:
+      float, the mean of Re tr U_p / N.
+    Raises:
+      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
+    """
     return float(np.nanmean(plaquette_traces(links, boundary=boundary)))
 
 
@@ -244,6 +269,15 @@ def wilson_action(links, beta: float | None = None, *, boundary: str = "periodic
 
     Sums 1 - Re tr / N directly (no cancellation against a large total); open boundaries: only
     plaquettes fully inside the lattice.
+
+    Args:
+      links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
+      beta: coupling (default 2N).
+      boundary: 'periodic' or 'open'.
+    Returns:
+      float, S_W.
+    Raises:
+      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
     """
     u = _check_links(links)
     n = u.shape[-1]
@@ -297,6 +331,15 @@ def clover_field_strength(links, *, spacing: float = 1.0, boundary: str = "perio
 
     Antisymmetric in (mu, nu), anti-Hermitian and traceless; open boundaries: NaN where a clover
     leaves the lattice (n_mu or n_nu at 0 or L - 1).
+
+    Args:
+      links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
+      spacing: lattice spacing a > 0 (results in physical units).
+      boundary: 'periodic' or 'open'.
+    Returns:
+      (L1, L2, L3, L4, 4, 4, N, N) complex128, F_mu nu / a^2.
+    Raises:
+      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
     """
     u = _check_links(links)
     _check_boundary(boundary)
@@ -321,6 +364,15 @@ def clover_charge_density(links, *, spacing: float = 1.0, boundary: str = "perio
     eps_{mu nu rho sigma} tr F_mu nu F_rho sigma = 8 (tr F12 F34 - tr F13 F24 + tr F14 F23)
     (conventions.CHARGE_DENSITY_FACTOR, eps_1234 = +1).  Open boundaries: NaN at sites whose clovers
     leave the lattice; the sum of spacing^4 q is :func:`clover_charge`.
+
+    Args:
+      links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
+      spacing: lattice spacing a > 0 (results in physical units).
+      boundary: 'periodic' or 'open'.
+    Returns:
+      (L1, L2, L3, L4) float64, q(n) / a^4.
+    Raises:
+      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
     """
     u = _check_links(links)
     _check_boundary(boundary)
@@ -336,5 +388,14 @@ def clover_charge_density(links, *, spacing: float = 1.0, boundary: str = "perio
 
 
 def clover_charge(links, *, boundary: str = "periodic") -> float:
-    """Total clover charge Q = sum_n a^4 q(n) (open boundaries: over the sites whose clovers fit inside)."""
+    """Total clover charge Q = sum_n a^4 q(n) (open boundaries: over the sites whose clovers fit inside).
+
+    Args:
+      links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
+      boundary: 'periodic' or 'open'.
+    Returns:
+      float, Q.
+    Raises:
+      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
+    """
     return float(np.nansum(clover_charge_density(links, boundary=boundary)))

@@ -370,6 +370,7 @@ def test_load_member_of_a_partial_ensemble_is_a_clear_error(tmp_path):
         (dict(backend="dask", out=np.empty(1)), "out= is for the local backend"),
     ],
 )
+@pytest.mark.filterwarnings("ignore::DeprecationWarning")  # the deprecated backend= call, still checked
 def test_bad_backend_arguments_are_refused(kw, match):
     with pytest.raises(ValueError, match=match):
         ik.lattice_links(ik.bpst(), (2, 2, 2, 2), 1.0, **kw)

@@ -384,3 +384,15 @@ def test_charge_two_starts_give_action_and_charge_near_two(pair, which):
     q = lat.clover_charge(links, boundary="open")
     assert 1.2 < q < 2.0
     assert 0.7 < q / q_box < 0.85  # the single BPST at rho/a = 2 measures 0.805 (test above)
+
+
+def test_lattice_never_imports_the_distributed_layer():
+    # the chunked backend registers itself with lattice (register_chunked_backend); lattice asks nobody above it
+    import ast
+    import inspect
+
+    tree = ast.parse(inspect.getsource(lat))
+    names = {n.module or "" for n in ast.walk(tree) if isinstance(n, ast.ImportFrom)}
+    names |= {a.name for n in ast.walk(tree) if isinstance(n, ast.Import) for a in n.names}
+    names |= {a.name for n in ast.walk(tree) if isinstance(n, ast.ImportFrom) for a in n.names}
+    assert not any("cluster" in n for n in names)

@@ -88,6 +88,20 @@ def ensemble(
     Zarr directory (resumable; members' ADHM data and seeds in its attributes) or None for a dask
     array.  Rebuild member i from a store with :func:`load_member`.  ``boundary_figures=True`` adds
     each periodic member's boundary mismatch to its report (read in this process, member by member).
+
+    Args:
+      n: members (>= 1); k: charge (>= 1); shape: (L1, L2, L3, L4); spacing: a > 0.
+      seed, rank, gauge, spread, size_range: the random ADHM data (see above).
+      group, embedding, boundary, rtol, method: as in :func:`instantonkit.lattice.lattice_links`.
+      chunks, store: as in :func:`instantonkit.cluster.lattice_links` (chunks per member).
+      client, n_workers, overwrite, progress: as in :func:`instantonkit.cluster.lattice_links`.
+      boundary_figures: add the periodic boundary figures to each member's report.
+    Returns:
+      Ensemble: ``links`` (n, L1, L2, L3, L4, 4, N, N) complex128 (Zarr or dask array), ``members``,
+      ``seeds`` and ``reports`` (None without a store).
+    Raises:
+      ValueError / TypeError: a bad argument (naming it); a store made with other parameters.
+      ImportError: without the optional extra ``distributed``.
     """
     n = _v.positive_int("n (members)", n)
     k = _v.positive_int("k (charge)", k)
@@ -141,7 +155,15 @@ class MemberView:
 
 
 def load_member(path, i: int):
-    """Member ``i`` of an ensemble store: (links (L1, L2, L3, L4, 4, N, N) numpy, ADHMData)."""
+    """Member ``i`` of an ensemble store: (links (L1, L2, L3, L4, 4, N, N) numpy, ADHMData).
+
+    Args:
+      path: an ensemble store; i: member index, 0 <= i < n.
+    Returns:
+      (links (L1, L2, L3, L4, 4, N, N) complex128 numpy, the member's ADHMData).
+    Raises:
+      ValueError: not an ensemble store, a bad index, or a member whose chunks are not all done.
+    """
     st = store_status(path)
     if st.kind != "ensemble":
         raise ValueError(f"{os.fspath(path)!r} holds a {st.kind!r} store, not an ensemble")

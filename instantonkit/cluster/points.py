@@ -59,6 +59,21 @@ def evaluate(field, points, quantity: str, *, method: str = "auto", chunks=None,
     of result).  store: Zarr directory to write (numpy or Zarr points; resumable) -> ``zarr.Array``
     (..., *trailing); None -> a dask array.  Values equal ``fields.evaluate`` to rounding (module notes).  A resumed
     store must have the same points: numpy points are hashed whole, Zarr points by location and ends.
+
+    Args:
+      field: a field or a callable A(x).
+      points: (..., 4) float numpy, Zarr or dask array.
+      quantity: 'potential', 'field_strength', 'action_density', 'charge_density' or 'self_duality_residual'.
+      method: as in :func:`instantonkit.fields.evaluate`.
+      chunks: one size per leading axis of the points (default about CHUNK_BYTES of result).
+      store: Zarr directory (numpy or Zarr points) or None for a dask array.
+      client, n_workers, overwrite, progress: as in :func:`instantonkit.cluster.lattice_links`.
+    Returns:
+      (..., *trailing) values (e.g. (...,) for densities, (..., 4, N, N) for the potential): a
+      read-only ``zarr.Array`` (store given) or a dask array.
+    Raises:
+      ValueError / TypeError: bad points, quantity, chunks or store; a store made from other points.
+      ImportError: without the optional extra ``distributed``.
     """
     check_quantity(quantity)
     field = as_field(field)
@@ -115,6 +130,19 @@ def evaluate_grid(field, shape, spacing, quantity: str, *, origin=None, method: 
     field's centre in the middle of the central hypercube).  Returns a ``zarr.Array`` (store given)
     or a dask array of shape (L1, L2, L3, L4, *trailing); values equal
     ``fields.evaluate(field, lattice.site_points(shape, spacing, origin), quantity)`` to rounding.
+
+    Args:
+      field: a field or a callable A(x).
+      shape: (L1, L2, L3, L4); spacing: a > 0; origin: (4,) or None (the default origin).
+      quantity, method: as in :func:`evaluate`.
+      chunks: (c1, c2, c3, c4) sites per chunk (default about CHUNK_BYTES of result).
+      store: Zarr directory or None for a dask array.
+      client, n_workers, overwrite, progress: as in :func:`instantonkit.cluster.lattice_links`.
+    Returns:
+      (L1, L2, L3, L4, *trailing) values: ``zarr.Array`` or dask array.
+    Raises:
+      ValueError / TypeError: a bad argument (naming it); a store made with other parameters.
+      ImportError: without the optional extra ``distributed``.
     """
     check_quantity(quantity)
     field = as_field(field)

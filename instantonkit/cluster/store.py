@@ -95,7 +95,16 @@ def read_meta(group) -> dict | None:
 
 
 def store_status(path) -> StoreStatus:
-    """Read a store's state without computing anything; ValueError if ``path`` is not an instantonkit store."""
+    """Read a store's state without computing anything; ValueError if ``path`` is not an instantonkit store.
+
+    Args:
+      path: a store directory.
+    Returns:
+      StoreStatus: kind, parameters, chunks done / total, completeness and the report.
+    Raises:
+      ValueError: ``path`` is not a Zarr store written by instantonkit.
+      ImportError: without the optional extra ``distributed``.
+    """
     zarr = require("zarr")
     path = os.fspath(path)
     try:
