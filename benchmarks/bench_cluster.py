@@ -2,8 +2,8 @@
 
 Scaling: one charge-2 ADHM start (``multi_instanton``, singular gauge, no closed form, so the Magnus
 path with rtol 1e-8; 8^4 sites in quick mode, 12^4 in full mode, SU(2), spacing 0.5) computed by
-``lattice_links(backend="dask", store=..., client=c)`` on a ``LocalCluster`` of W = 1 and W = 2
-worker processes (one thread each), and by ``backend="local"`` in this process for reference.
+``cluster.lattice_start(..., store=..., client=c)`` on a ``LocalCluster`` of W = 1 and W = 2
+worker processes (one thread each), and by ``lattice.lattice_links`` in this process for reference.
 The chunks are single time slices (L, L, L, 1), the boxes the local path computes one at a time,
 so every path runs the same kernel calls and the figures compare the parallel runs, not chunk
 shapes.  Cluster start-up and JIT compilation are not timed: before the timed call each worker
@@ -66,7 +66,7 @@ def _warm_worker(field, extents, spacing, options: dict, directory: str) -> int:
 
     for i, ext in enumerate(extents):
         path = os.path.join(directory, f"warm-{os.getpid()}-{i}")
-        ik.lattice_links(field, ext, spacing, backend="dask", chunks=ext, store=path, client="sync", boundary="open", **options)
+        ik.cluster.lattice_links(field, ext, spacing, chunks=ext, store=path, client="sync", boundary="open", **options)
     return os.getpid()
 
 
@@ -203,9 +203,10 @@ def scaling(size: int, malloc_trim: bool = True) -> list[dict]:
     for n in (1, 2):
         with tempfile.TemporaryDirectory() as tmp, _cluster(n, malloc_trim) as client:
             _warm_all(client, field, shape, chunks, options, tmp)
-            (links, report), total[n] = _timed(lambda: ik.lattice_links(
-                field, shape, SPACING, rtol=SCALING_RTOL, backend="dask", chunks=chunks,
-                store=os.path.join(tmp, "start"), client=client, return_report=True))
+            start, total[n] = _timed(lambda: ik.cluster.lattice_start(
+                field, shape, SPACING, rtol=SCALING_RTOL, chunks=chunks,
+                store=os.path.join(tmp, "start"), client=client))
+            links, report = start.links, start.report
             phase[n] = report.seconds
             if not np.array_equal(np.asarray(links[...]), local):
                 raise RuntimeError(f"the {n}-worker start differs from the local one")
@@ -259,9 +260,9 @@ def _memory_run(size: int, chunks: tuple, malloc_trim: bool = True) -> dict:
         before = client.run(_mem_mark)
         methods = {m for _, m in before.values()}
         method = "VmHWM" if methods == {"VmHWM"} else "ru_maxrss"
-        (_, report), seconds = _timed(lambda: ik.lattice_links(
-            field, shape, SPACING, group="su3", backend="dask", chunks=chunks, store=os.path.join(tmp, "start"),
-            client=client, return_report=True))
+        start, seconds = _timed(lambda: ik.cluster.lattice_start(
+            field, shape, SPACING, group="su3", chunks=chunks, store=os.path.join(tmp, "start"), client=client))
+        report = start.report
         peak = client.run(_mem_peak, method)
     growth = sorted((max(peak[w] - before[w][0], 0) * 1024 for w in before), reverse=True)
     return {"seconds": seconds, "phase": report.seconds, "growth": growth, "method": method}

@@ -23,6 +23,7 @@ __all__ = [
     "points_array",
     "positive_vector",
     "choice",
+    "lattice_shape",
 ]
 
 
@@ -123,3 +124,15 @@ def choice(name: str, value, options: tuple):
     if not any(value == o and type(value) is type(o) for o in options):
         raise ValueError(f"{name} must be one of {options}; found {value!r}")
     return value
+
+
+def lattice_shape(name: str, value) -> tuple:
+    """Four positive integers (L1, L2, L3, L4) as a tuple of ints (integral floats accepted, booleans refused)."""
+    try:
+        items = tuple(value)
+        s = tuple(int(v) for v in items)
+    except (TypeError, ValueError) as err:
+        raise TypeError(f"{name} must be a sequence of 4 integers (L1, L2, L3, L4); found {value!r}") from err
+    if len(s) != 4 or any(v < 1 for v in s) or any(_is_bool(v) or int(v) != v for v in items):
+        raise ValueError(f"{name} must be 4 positive integers (L1, L2, L3, L4); found {items!r}")
+    return s

@@ -348,6 +348,21 @@ class ADHMData(PytreeFields):
         spread = float(np.max(np.linalg.norm(c - c.mean(0), axis=1))) if self.k > 1 else 0.0
         return c.mean(axis=0), float(max(np.max(rho), spread, 1e-300))
 
+    @property
+    def closed_link(self):
+        """The closed-form link hook ``closed_link(x, d) -> (2, 2)`` of charge-1 SU(2) data (k = n = 1).
+
+        Absent (AttributeError, so ``fields.hook(data, "closed_link")`` is None) for k > 1 or Sp(n > 1),
+        whose transporters need Magnus steps.  Formula: :func:`charge_one_link`.
+        """
+        if self.k != 1 or self.rank != 1:
+            raise AttributeError("closed_link exists only for charge-1 SU(2) ADHM data (k = 1, n = 1)")
+
+        def closed_link(x, d):
+            return charge_one_link(jnp.asarray(self.lam)[0, 0], jnp.asarray(self.B)[0, 0], self.chirality, self.gauge, x, d)
+
+        return closed_link
+
 
 def _real_gram(lam, bp):
     """Re(Delta^dag Delta)_ij = sum_{l,a} Delta_li^a Delta_lj^a, the real k x k matrix, without the imaginary parts."""
@@ -641,3 +656,67 @@ def block_sum(first: ADHMData, second: ADHMData, *, stack_ranks: bool = False, t
     b[:k1, :k1] = np.asarray(first.B)
     b[k1:, k1:] = np.asarray(second.B)
     return ADHMData(lam, b, chirality=first.chirality, tol=tol)
+
+
+# -- the closed-form link of charge 1 (package seam: ADHMData.closed_link, ansatz.BPSTField.closed_link) --
+
+#: Below this ratio sqrt(disc) / |w| the arctan quotient is replaced by its two-term series
+#: (the relative error of the series, ~(s/w)^4 / 5, is then below 1e-24; the quotient would lose digits).
+_SERIES_RATIO = 1e-6
+
+
+def _line_integral(alpha, beta, gamma, wedge2, c):
+    """Integral_0^1 dt / (alpha t^2 + beta t + gamma + c) for alpha t^2 + beta t + gamma = |y0 + t d|^2.
+
+    alpha = |d|^2, beta = 2 y0.d, gamma = |y0|^2, wedge2 = |y0 ^ d|^2 = alpha gamma - (y0.d)^2 >= 0.
+    With disc = 4 alpha (gamma + c) - beta^2 = 4 (wedge2 + alpha c) (no cancellation) the integral is
+    2 atan2(sqrt(disc), 2 (gamma + c) + beta) / sqrt(disc) (the arctan antiderivative with the
+    difference of two arctans folded into one atan2), and 2 / (2 (gamma + c) + beta) as disc -> 0.
+    Infinite when the segment meets a zero of the denominator (a singular point of the field).
+    """
+    s = jnp.sqrt(4.0 * (wedge2 + alpha * c))
+    w = 2.0 * (gamma + c) + beta
+    small = s <= _SERIES_RATIO * jnp.abs(w)
+    safe_s = jnp.where(small, 1.0, s)
+    safe_w = jnp.where(w == 0, 1.0, w)
+    series = 2.0 / safe_w * (1.0 - (s / safe_w) ** 2 / 3.0)  # atan2(s, w) / s for s << w > 0
+    series = jnp.where(w > 0, series, jnp.inf)
+    return jnp.where(small, series, 2.0 * jnp.arctan2(s, w) / safe_s)
+
+
+def charge_one_link(lam, b, chirality: int, gauge: str, x, d):
+    """Exact transporter of a charge-1 SU(2) instanton (BPST, either gauge) along x -> x + d; (2, 2) complex128.
+
+    Package-internal seam (not in ``__all__``): the one formula behind the ``closed_link`` hooks of
+    :class:`ADHMData` (k = n = 1) and ``ansatz.BPSTField``.  lam: Lambda (4,) quaternion, b: B (4,)
+    quaternion, chirality: +1 / -1, gauge: 'regular' / 'singular', x, d: (4,) start and displacement.
+
+    For k = 1, n = 1 the ADHM frame gives, with y = p(x) - B (p-bar(x) for chirality -1),
+    rho = |Lambda| and l = Lambda / rho (derivation from the frame of this module):
+
+        regular gauge:  A = l Im(y dy-bar) l-bar / (|y|^2 + rho^2),
+        singular gauge: A = l Im(y-bar dy) l-bar rho^2 / (|y|^2 (|y|^2 + rho^2))
+
+    (Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85; 't Hooft, Phys. Rev. D 14
+    (1976) 3432, in quaternion form).  On the straight line y = y0 + t dq the imaginary quaternion
+    Im(y dy-bar/dt) = Im(y0 dq-bar) (resp. Im(y-bar dy/dt) = Im(y0-bar dq)) does not depend on t, so all
+    A(z(t)) commute and U = exp(l M l-bar * integral of the scalar factor), an arctan closed form.
+    """
+    rho2 = jnp.sum(lam**2)
+    lhat = lam / jnp.sqrt(rho2)
+    px, pd = point_to_quaternion(jnp.asarray(x)), point_to_quaternion(jnp.asarray(d))
+    if chirality == -1:
+        px, pd = qt.qconj(px), qt.qconj(pd)
+    y0 = px - b
+    alpha, beta, gamma = jnp.sum(pd**2), 2.0 * jnp.sum(y0 * pd), jnp.sum(y0**2)
+    wedge = y0[:, None] * pd[None, :] - y0[None, :] * pd[:, None]
+    wedge2 = 0.5 * jnp.sum(wedge**2)
+    if gauge == "regular":
+        gen = qt.qmul(y0, qt.qconj(pd))
+        scalar = _line_integral(alpha, beta, gamma, wedge2, rho2)
+    else:
+        gen = qt.qmul(qt.qconj(y0), pd)
+        scalar = _line_integral(alpha, beta, gamma, wedge2, 0.0) - _line_integral(alpha, beta, gamma, wedge2, rho2)
+    gen = gen.at[0].set(0.0)
+    omega = qt.qmul(qt.qmul(lhat, gen), qt.qconj(lhat)) * scalar
+    return qt.to_matrix(qt.qexp(omega))

@@ -51,6 +51,7 @@ import numpy as np
 
 from . import quaternion as qt
 from ._pytree import PytreeFields
+from .adhm import charge_one_link
 from .conventions import LEVI_CIVITA, PI, QUATERNION_BASIS, point_to_quaternion
 
 __all__ = [
@@ -527,6 +528,13 @@ class BPSTField(PytreeFields):
     def hint(self):
         """(centre (4,), size)."""
         return np.asarray(self.center), float(self.size)
+
+    def closed_link(self, x, d):
+        """Closed-form transporter x -> x + d, (4,), (4,) -> (2, 2): BPST with Lambda = rho Omega, B = p(center)
+        in the same gauge (:func:`instantonkit.adhm.charge_one_link`)."""
+        return charge_one_link(
+            jnp.asarray(self.size) * jnp.asarray(self.orientation), point_to_quaternion(jnp.asarray(self.center)), 1, self.gauge, x, d
+        )
 
 
 # -- constructors -----------------------------------------------------------------------------------

@@ -253,6 +253,18 @@ def save_lattice(path, links, format: str = "npz", metadata: dict | None = None,
     ``LinkReport.as_metadata()``); 'ildg': SU(3) links as LIME records ildg-format,
     ildg-binary-data (big-endian float64) and, if given, ildg-data-lfn ``lfn``; ``metadata`` then goes
     into an extra instantonkit-metadata record.  np.memmap inputs are streamed one time slice at a time.
+
+    Args:
+      path: file to write (written to a temporary file in the same directory, then renamed).
+      links: (L1, L2, L3, L4, 4, N, N) complex array (numpy or np.memmap); N = 3 for 'ildg'.
+      format: 'npz' or 'ildg'.
+      metadata: optional JSON-serialisable dict stored with the links.
+      lfn: optional logical file name (ILDG only).
+    Returns:
+      None.
+    Raises:
+      ValueError: unknown format, links of the wrong shape (or not 3 x 3 for 'ildg').
+      TypeError: non-complex links, metadata that is not JSON-serialisable.
     """
     if format not in _FORMATS:
         raise ValueError(f"format must be one of {_FORMATS}; found {format!r}")
@@ -274,7 +286,15 @@ def load_lattice(path, *, mmap: bool = False):
     The format is recognised from the first bytes (zip: npz; LIME magic: ILDG).  info holds 'format'
     and 'metadata' (npz; for ILDG also 'ildg' with the XML fields and 'lfn' when present).  With
     ``mmap=True`` an ILDG file is returned as a read-only big-endian memory-mapped view (no copy).
-    Raises ValueError for truncated or corrupt files.
+
+    Args:
+      path: an npz or LIME/ILDG file.
+      mmap: return ILDG links as a read-only memory map instead of reading them.
+    Returns:
+      (links, info): links (L1, L2, L3, L4, 4, N, N) complex128 (numpy array or memory map) and the
+      dict info ('format', 'metadata', and for ILDG 'ildg' and 'lfn' when present).
+    Raises:
+      ValueError: a file that is neither format, truncated or corrupt.
     """
     path = os.fspath(path)
     with open(path, "rb") as fh:

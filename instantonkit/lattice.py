@@ -8,9 +8,10 @@ Links (conventions module): ``U_mu(n)`` is the parallel transporter along the st
 
 Transporters are computed in one of two ways:
 
-* closed form, when the field offers a per-link hook ``link(x, d) -> (N, N)`` (jax-traceable, ``x`` the
-  start and ``d`` the displacement, both ``(4,)``), or when it is charge-1 SU(2) ADHM data (BPST in
-  either gauge, see :func:`bpst_link`);
+* closed form, when the field offers the hook ``closed_link(x, d) -> (N, N)`` (:class:`instantonkit.fields.FieldHooks`;
+  jax-traceable, ``x`` the start and ``d`` the displacement, both ``(4,)``): charge-1 SU(2) ADHM data
+  and ``ansatz.BPSTField`` (BPST in either gauge, see :func:`bpst_link`), and the translations and
+  gauge transformations of such fields;
 * Gauss-Legendre Magnus steps of order six (three nodes per step; Blanes, Casas, Ros, BIT 40 (2000)
   434 and Blanes, Casas, Oteo, Ros, Phys. Rep. 470 (2009) 151, from memory; the order is checked in
   the tests against scipy), halving the step until two successive results differ by less than
@@ -19,6 +20,15 @@ Transporters are computed in one of two ways:
 A unitary (and det-1) projection is applied at the end only as rounding cleanup; the deviation found
 before it is reported in :class:`LinkReport`.  The observables of link arrays (plaquettes, Wilson
 action, clover) live in :mod:`instantonkit.observables` and are re-exported here.
+
+Results and reports: :func:`lattice_links` always returns the links; :func:`lattice_start` returns a
+frozen :class:`LatticeStart` (``.links`` and ``.report``, a :class:`LinkReport`).  The old
+``lattice_links(..., return_report=True)`` still returns ``(links, report)`` with a DeprecationWarning.
+
+Chunked starts belong to the distributed layer: ``instantonkit.cluster.lattice_links`` /
+``cluster.lattice_start``.  This module never imports it; the old ``lattice_links(..., backend="dask")``
+still works (DeprecationWarning) through the executor that ``instantonkit.cluster`` registers with
+:func:`register_chunked_backend` when it is imported (the :class:`ChunkedExecutor` protocol).
 """
 
 from __future__ import annotations
@@ -27,36 +37,45 @@ import dataclasses
 import functools
 import math
 import time
-from typing import Callable
+import warnings
+from typing import Callable, Protocol
 
 import jax
 import jax.numpy as jnp
 import numpy as np
 
-from . import quaternion as qt
+from . import _validate as _v
 from . import observables as _obs
+from . import quaternion as qt
+from ._batching import run_batched
+from .adhm import charge_one_link
+from .fields import as_field, as_points, hook
 from .observables import (  # noqa: F401  (re-exported: the lattice namespace offers the observables of its starts)
-    _BOUNDARIES,
+    BOUNDARIES,
     PLANES,
-    _check_shape,
-    _check_spacing,
     average_plaquette,
     clover_charge,
     clover_charge_density,
     clover_field_strength,
     gauge_transform,
+    gauge_transform_links,
     plaquette_traces,
     plaquettes,
     random_gauge,
     wilson_action,
 )
-from .conventions import point_to_quaternion
 
 __all__ = [
     "LinkReport",
+    "LinkStats",
+    "LatticeStart",
     "StartSpec",
+    "ChunkedExecutor",
+    "register_chunked_backend",
     "block_links",
+    "link_batch",
     "lattice_links",
+    "lattice_start",
     "parallel_transporter",
     "bpst_link",
     "site_points",
@@ -69,91 +88,32 @@ __all__ = [
 _GROUPS = ("su2", "su3", None)
 _METHODS = ("auto", "closed", "magnus")
 _BACKENDS = ("local", "dask")
-#: Links per compiled call of the transporter kernels.
+#: Links per compiled call of the transporter kernels (memory per call ~ LINK_CHUNK x one link's work;
+#: large enough that the per-call overhead is negligible).
 LINK_CHUNK = 4096
+#: Most Magnus steps per link before giving up (a smooth field converges to 1e-12 in far fewer).
 _MAX_STEPS = 1 << 10
+#: Padded batch sizes below LINK_CHUNK (one small size keeps the number of compiled kernels at two).
 _CHUNK_SIZES = (256,)
+#: Matrices per call of the unitarity check (bounds its temporary memory to ~16 M complex entries).
+_UNITARITY_ENTRIES = 1 << 24
 
 
-# -- the closed form for charge-1 SU(2) ADHM data ------------------------------------------------------
-
-
-def _line_integral(alpha, beta, gamma, wedge2, c):
-    """Integral_0^1 dt / (alpha t^2 + beta t + gamma + c) for alpha t^2 + beta t + gamma = |y0 + t d|^2.
-
-    alpha = |d|^2, beta = 2 y0.d, gamma = |y0|^2, wedge2 = |y0 ^ d|^2 = alpha gamma - (y0.d)^2 >= 0.
-    With disc = 4 alpha (gamma + c) - beta^2 = 4 (wedge2 + alpha c) (no cancellation) the integral is
-    2 atan2(sqrt(disc), 2 (gamma + c) + beta) / sqrt(disc) (the arctan antiderivative with the
-    difference of two arctans folded into one atan2), and 2 / (2 (gamma + c) + beta) as disc -> 0.
-    Infinite when the segment meets a zero of the denominator (a singular point of the field).
-    """
-    s = jnp.sqrt(4.0 * (wedge2 + alpha * c))
-    w = 2.0 * (gamma + c) + beta
-    small = s <= 1e-6 * jnp.abs(w)
-    safe_s = jnp.where(small, 1.0, s)
-    safe_w = jnp.where(w == 0, 1.0, w)
-    series = 2.0 / safe_w * (1.0 - (s / safe_w) ** 2 / 3.0)  # atan2(s, w) / s for s << w > 0
-    series = jnp.where(w > 0, series, jnp.inf)
-    return jnp.where(small, series, 2.0 * jnp.arctan2(s, w) / safe_s)
+# -- the closed form --------------------------------------------------------------------------------
 
 
 def bpst_link(data, x, d):
     """Exact transporter of charge-1 SU(2) ADHM data (BPST, either gauge) along x -> x + d; (N, N) = (2, 2).
 
-    For k = 1, n = 1 the ADHM frame gives, with y = p(x) - B (p-bar(x) for chirality -1),
-    rho = |Lambda| and l = Lambda / rho (derivation from the frame of :mod:`instantonkit.adhm`):
-
-        regular gauge:  A = l Im(y dy-bar) l-bar / (|y|^2 + rho^2),
-        singular gauge: A = l Im(y-bar dy) l-bar rho^2 / (|y|^2 (|y|^2 + rho^2))
-
-    (Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85; 't Hooft, Phys. Rev. D 14
-    (1976) 3432, in quaternion form).  On the straight line y = y0 + t dq the imaginary quaternion
-    Im(y dy-bar/dt) = Im(y0 dq-bar) (resp. Im(y-bar dy/dt) = Im(y0-bar dq)) does not depend on t, so all
-    A(z(t)) commute and U = exp(l M l-bar * integral of the scalar factor), an arctan closed form.
-    x, d: (4,) -> (2, 2) complex128.
+    The formula (:func:`instantonkit.adhm.charge_one_link`) is what the field's own ``closed_link``
+    hook computes; kept here as a function of the data.  x, d: (4,) -> (2, 2) complex128.
     """
-    return _k1_link(jnp.asarray(data.lam)[0, 0], jnp.asarray(data.B)[0, 0], data.chirality, data.gauge, x, d)
+    return charge_one_link(jnp.asarray(data.lam)[0, 0], jnp.asarray(data.B)[0, 0], data.chirality, data.gauge, x, d)
 
 
-def _k1_link(lam, b, chirality: int, gauge: str, x, d):
-    """bpst_link from the quaternions Lambda (4,) and B (4,) of charge-1 SU(2) data; (2, 2)."""
-    rho2 = jnp.sum(lam**2)
-    lhat = lam / jnp.sqrt(rho2)
-    px, pd = point_to_quaternion(jnp.asarray(x)), point_to_quaternion(jnp.asarray(d))
-    if chirality == -1:
-        px, pd = qt.qconj(px), qt.qconj(pd)
-    y0 = px - b
-    alpha, beta, gamma = jnp.sum(pd**2), 2.0 * jnp.sum(y0 * pd), jnp.sum(y0**2)
-    wedge = y0[:, None] * pd[None, :] - y0[None, :] * pd[:, None]
-    wedge2 = 0.5 * jnp.sum(wedge**2)
-    if gauge == "regular":
-        gen = qt.qmul(y0, qt.qconj(pd))
-        scalar = _line_integral(alpha, beta, gamma, wedge2, rho2)
-    else:
-        gen = qt.qmul(qt.qconj(y0), pd)
-        scalar = _line_integral(alpha, beta, gamma, wedge2, 0.0) - _line_integral(alpha, beta, gamma, wedge2, rho2)
-    gen = gen.at[0].set(0.0)
-    omega = qt.qmul(qt.qmul(lhat, gen), qt.qconj(lhat)) * scalar
-    return qt.to_matrix(qt.qexp(omega))
-
-
-def _closed_link_fn(field) -> Callable | None:
-    """The per-link closed form of ``field`` if it has one: its ``link`` hook, or BPST for k = 1 SU(2) ADHM data."""
-    if hasattr(field, "link") and callable(getattr(field, "link")):
-        return lambda f, x, d: f.link(x, d)
-    from .adhm import ADHMData
-
-    if isinstance(field, ADHMData) and field.k == 1 and field.rank == 1:
-        return bpst_link
-    try:  # the closed-form BPST of the ansatz module is bpst(center, size, orientation) in the same gauge
-        from .ansatz import BPSTField
-    except ImportError:  # pragma: no cover
-        return None
-    if isinstance(field, BPSTField):
-        return lambda f, x, d: _k1_link(
-            jnp.asarray(f.size) * jnp.asarray(f.orientation), point_to_quaternion(jnp.asarray(f.center)), 1, f.gauge, x, d
-        )
-    return None
+def _closed_link_of(field, x, d):
+    """One link by the field's ``closed_link`` hook (the function the closed kernel vmaps)."""
+    return field.closed_link(x, d)
 
 
 # -- Magnus steps -------------------------------------------------------------------------------------
@@ -222,8 +182,9 @@ def _magnus_kernel():
 
 
 @functools.lru_cache(maxsize=None)
-def _closed_kernel(fn):
-    return jax.jit(jax.vmap(fn, in_axes=(None, 0, 0)))
+def _closed_kernel():
+    """One compiled closed-form kernel for every field (jax caches it per pytree structure)."""
+    return jax.jit(jax.vmap(_closed_link_of, in_axes=(None, 0, 0)))
 
 
 def _chunk_size(m: int, chunk: int = LINK_CHUNK) -> int:
@@ -232,23 +193,40 @@ def _chunk_size(m: int, chunk: int = LINK_CHUNK) -> int:
 
 
 def _chunked(kern, field, xs, ds, *extra, size=None):
-    """Run a vmapped link kernel over (M, 4) starts and steps in padded chunks of ``size``; (M, N, N) numpy."""
-    m = xs.shape[0]
-    size = _chunk_size(m) if size is None else size
-    parts = []
-    for start in range(0, m, size):
-        stop = min(start + size, m)
-        cx, cd = xs[start:stop], ds[start:stop]
-        if stop - start < size:
-            pad = size - (stop - start)
-            cx = np.concatenate([cx, np.broadcast_to(xs[start], (pad, 4))])
-            cd = np.concatenate([cd, np.broadcast_to(ds[start], (pad, 4))])
-        parts.append(np.asarray(kern(field, cx, cd, *extra))[: stop - start])
-    return np.concatenate(parts) if parts else None
+    """Run a vmapped link kernel over (M, 4) starts and steps in padded batches of one fixed ``size``
+    (:func:`instantonkit._batching.run_batched`, whose notes give the bit-reproducibility rule); (M, N, N) numpy."""
+    size = _chunk_size(xs.shape[0]) if size is None else size
+    return run_batched(kern, [xs, ds], size, args_before=(field,), args_after=extra)
 
 
-def _magnus_refined(field, xs, ds, rtol, stats, batch=None):
-    """Magnus transporters refined by halving the step until two refinements differ by <= rtol."""
+@dataclasses.dataclass(frozen=True)
+class LinkStats:
+    """What computing some links did (an immutable record, combined with :meth:`merge`).
+
+    method: 'closed', 'magnus' or None (nothing computed yet); max_steps: most Magnus steps on one
+    link (0 for closed forms); refinement_diff: largest accepted difference of two refinements;
+    unitarity_before / unitarity_after: :func:`unitarity_deviation` before and after the projection.
+    """
+
+    method: str | None = None
+    max_steps: int = 0
+    refinement_diff: float = 0.0
+    unitarity_before: float = 0.0
+    unitarity_after: float = 0.0
+
+    def merge(self, other: "LinkStats") -> "LinkStats":
+        """The record of both computations: maxima of the figures, the later method when both have one."""
+        return LinkStats(
+            method=other.method if other.method is not None else self.method,
+            max_steps=max(self.max_steps, other.max_steps),
+            refinement_diff=max(self.refinement_diff, other.refinement_diff),
+            unitarity_before=max(self.unitarity_before, other.unitarity_before),
+            unitarity_after=max(self.unitarity_after, other.unitarity_after),
+        )
+
+
+def _magnus_refined(field, xs, ds, rtol, batch=None):
+    """Magnus transporters refined by halving the step until two refinements differ by <= rtol; (out, LinkStats)."""
     kern = _magnus_kernel()
     steps = 1
     size = _chunk_size(xs.shape[0]) if batch is None else batch  # kept for the refinements: one compiled batch size
@@ -256,6 +234,7 @@ def _magnus_refined(field, xs, ds, rtol, stats, batch=None):
     out = prev.copy()
     todo = np.arange(xs.shape[0])
     diff_max = 0.0
+    max_steps = 0
     while todo.size:
         steps *= 2
         if steps > _MAX_STEPS:
@@ -271,7 +250,7 @@ def _magnus_refined(field, xs, ds, rtol, stats, batch=None):
         out[todo[done]] = cur[done]
         if np.any(done):
             diff_max = max(diff_max, float(np.max(diff[done])))
-            stats["max_steps"] = max(stats.get("max_steps", 0), steps)
+            max_steps = steps
         if not np.all(np.isfinite(cur)):
             bad = todo[~np.all(np.isfinite(cur), axis=(-2, -1))]
             raise ValueError(
@@ -279,45 +258,16 @@ def _magnus_refined(field, xs, ds, rtol, stats, batch=None):
                 f"step {ds[bad[0]].tolist()}); the field is singular there (e.g. the centre of a singular gauge)"
             )
         todo, prev = todo[~done], cur[~done]
-    stats["refinement_diff"] = max(stats.get("refinement_diff", 0.0), diff_max)
-    return out
+    return out, LinkStats(method="magnus", max_steps=max_steps, refinement_diff=diff_max)
 
 
-def parallel_transporter(
-    field, starts, steps, *, method: str = "auto", rtol: float = 1e-12, report: dict | None = None, batch: int | None = None
-):
-    """Parallel transporters W(1) of ``dW/dt = W A(x + t d).d``, W(0) = 1, for many straight segments.
-
-    starts, steps: (..., 4) float64 (start point x, displacement d) -> (..., N, N) complex128, before
-    any unitary projection.  method: 'auto' (closed form when the field has one), 'closed' (error if
-    none), 'magnus' (Gauss-Legendre Magnus steps refined to ``rtol``).  ``report`` (a dict) receives
-    'method', 'max_steps' and 'refinement_diff'.  batch: links per compiled kernel call (default from
-    the number of links); XLA's code, hence the last bit of a result, can depend on it, so callers
-    that must agree bit for bit (lattice starts in chunks) fix it.
-    """
-    from .fields import as_field, as_points
-
-    if batch is not None and (isinstance(batch, bool) or not isinstance(batch, (int, np.integer)) or batch < 1):
-        raise ValueError(f"batch must be a positive integer; found {batch!r}")
-    if method not in _METHODS:
-        raise ValueError(f"method must be one of {_METHODS}; found {method!r}")
-    if not (isinstance(rtol, (int, float)) and rtol > 0):
-        raise ValueError(f"rtol must be a positive number; found {rtol!r}")
-    field = as_field(field)
-    xs, lead = as_points(starts)
-    ds, lead_d = as_points(steps)
-    if lead != lead_d:
-        raise ValueError(f"starts and steps must have the same shape; found {lead + (4,)} and {lead_d + (4,)}")
-    stats = report if report is not None else {}
-    closed = _closed_link_fn(field) if method != "magnus" else None
+def _transporters(field, xs, ds, method: str, rtol: float, batch: int | None):
+    """Validated (M, 4) starts and steps -> ((M, N, N) transporters, LinkStats); the one link path."""
+    closed = hook(field, "closed_link") if method != "magnus" else None
     if method == "closed" and closed is None:
-        raise ValueError(f"the field {type(field).__name__} has no closed-form link (no link(x, d) hook)")
-    if xs.shape[0] == 0:
-        n = jax.eval_shape(field.potential, jax.ShapeDtypeStruct((4,), jnp.float64)).shape[-1]
-        return np.zeros(lead + (n, n), dtype=np.complex128)
+        raise ValueError(f"the field {type(field).__name__} has no closed-form link (no closed_link(x, d) hook)")
     if closed is not None:
-        out = _chunked(_closed_kernel(closed), field, xs, ds, size=batch)
-        stats["method"] = "closed"
+        out = _chunked(_closed_kernel(), field, xs, ds, size=batch)
         bad = ~np.all(np.isfinite(out), axis=(-2, -1))
         if np.any(bad):
             i = int(np.argmax(bad))
@@ -325,9 +275,52 @@ def parallel_transporter(
                 f"the closed-form link is not finite on {int(bad.sum())} link(s) (first start {xs[i].tolist()}, "
                 f"step {ds[i].tolist()}); the segment passes through a singular point of the field"
             )
-    else:
-        out = _magnus_refined(field, xs, ds, float(rtol), stats, batch)
-        stats["method"] = "magnus"
+        return out, LinkStats(method="closed")
+    return _magnus_refined(field, xs, ds, rtol, batch)
+
+
+def parallel_transporter(
+    field, starts, steps, *, method: str = "auto", rtol: float = 1e-12, report: dict | None = None, batch: int | None = None
+):
+    """Parallel transporters W(1) of ``dW/dt = W A(x + t d).d``, W(0) = 1, for many straight segments.
+
+    Args:
+      field: a field (:class:`instantonkit.fields.Field`) or a callable A(x) -> (4, N, N).
+      starts, steps: (..., 4) float64, the start points x and displacements d (same shape).
+      method: 'auto' (the field's ``closed_link`` hook when it has one, else Magnus), 'closed'
+        (error if none) or 'magnus' (Gauss-Legendre Magnus steps refined to ``rtol``).
+      rtol: refinement target of the Magnus steps (> 0; booleans refused).
+      report: optional dict that receives 'method' (and for Magnus 'max_steps', 'refinement_diff';
+        values already there are combined by maximum).
+      batch: links per compiled kernel call (default from the number of links).  XLA's code, hence the
+        last bit of a result, can depend on it, so callers that must agree bit for bit fix it
+        (:mod:`instantonkit._batching`).
+    Returns:
+      (..., N, N) complex128 transporters, before any unitary projection.
+    Raises:
+      ValueError / TypeError: bad points, method, rtol or batch (naming the argument); no closed form
+        for method='closed'; a segment through a singular point; Magnus steps not converging.
+    """
+    if batch is not None:
+        batch = _v.positive_int("batch", batch)
+    _v.choice("method", method, _METHODS)
+    rtol = _v.positive_float("rtol", rtol)
+    field = as_field(field)
+    xs, lead = as_points(starts)
+    ds, lead_d = as_points(steps)
+    if lead != lead_d:
+        raise ValueError(f"starts and steps must have the same shape; found {lead + (4,)} and {lead_d + (4,)}")
+    if method == "closed" and hook(field, "closed_link") is None:
+        raise ValueError(f"the field {type(field).__name__} has no closed-form link (no closed_link(x, d) hook)")
+    if xs.shape[0] == 0:
+        n = jax.eval_shape(field.potential, jax.ShapeDtypeStruct((4,), jnp.float64)).shape[-1]
+        return np.zeros(lead + (n, n), dtype=np.complex128)
+    out, stats = _transporters(field, xs, ds, method, rtol, batch)
+    if report is not None:
+        report["method"] = stats.method
+        if stats.method == "magnus":
+            report["max_steps"] = max(int(report.get("max_steps", 0)), stats.max_steps)
+            report["refinement_diff"] = max(float(report.get("refinement_diff", 0.0)), stats.refinement_diff)
     return out.reshape(lead + out.shape[-2:])
 
 
@@ -367,7 +360,7 @@ def unitarity_deviation(links) -> float:
         return 0.0
     n = u.shape[-1]
     flat = u.reshape(-1, n, n)
-    step = max(1, (1 << 24) // (n * n))
+    step = max(1, _UNITARITY_ENTRIES // (n * n))
     return float(max(float(_unitarity_dev(flat[i : i + step])) for i in range(0, flat.shape[0], step)))
 
 
@@ -415,11 +408,12 @@ def default_origin(field, shape, spacing) -> np.ndarray:
 
     origin_i = centre_i - a (floor(L_i / 2) - 1/2); (4,) float64.
     """
-    shape = _check_shape(shape)
-    a = _check_spacing(spacing)
+    shape = _v.lattice_shape("shape", shape)
+    a = _v.positive_float("spacing", spacing)
     centre = np.zeros(4)
-    if hasattr(field, "hint"):
-        centre = np.asarray(field.hint()[0], dtype=np.float64).reshape(4)
+    hint = hook(field, "hint")
+    if hint is not None:
+        centre = np.asarray(hint()[0], dtype=np.float64).reshape(4)
     return centre - a * (np.floor(np.asarray(shape) / 2.0) - 0.5)
 
 
@@ -433,8 +427,8 @@ def resolve_origin(field, shape, spacing, origin) -> np.ndarray:
 
 def site_points(shape, spacing, origin) -> np.ndarray:
     """Positions of the sites, x_n = origin + a n; (L1, L2, L3, L4, 4) float64."""
-    shape = _check_shape(shape)
-    a = _check_spacing(spacing)
+    shape = _v.lattice_shape("shape", shape)
+    a = _v.positive_float("spacing", spacing)
     grids = np.meshgrid(*[np.arange(n, dtype=np.float64) for n in shape], indexing="ij")
     return np.asarray(origin, dtype=np.float64) + a * np.stack(grids, axis=-1)
 
@@ -471,18 +465,21 @@ class LinkReport:
         return {k: (list(v) if isinstance(v, tuple) else v) for k, v in dataclasses.asdict(self).items()}
 
 
-def _slice_links(field, sites_t, a, method, rtol, stats, batch=None):
-    """Links of one set of sites (S, 4) in the four directions: (S, 4, N, N), unprojected."""
+def _slice_links(field, sites_t, a, method, rtol, batch=None):
+    """Links of one set of sites (S, 4) in the four directions: ((S, 4, N, N) unprojected, LinkStats)."""
     s = sites_t.shape[0]
     xs = np.repeat(sites_t, 4, axis=0)
     ds = np.tile(a * np.eye(4), (s, 1))
-    u = parallel_transporter(field, xs, ds, method=method, rtol=rtol, report=stats, batch=batch)
-    return u.reshape(s, 4, u.shape[-2], u.shape[-1])
+    u, stats = _transporters(field, xs, ds, method, rtol, batch)
+    return u.reshape(s, 4, u.shape[-2], u.shape[-1]), stats
 
 
 @dataclasses.dataclass(frozen=True)
 class StartSpec:
     """The validated parameters of one lattice start (what :func:`lattice_links` was asked for).
+
+    Documented seam of the chunked layer (:mod:`instantonkit.cluster`): it builds a spec with
+    :meth:`make`, computes boxes with :meth:`block` and assembles the report with :meth:`report`.
 
     field: a field object; shape: (L1, L2, L3, L4); spacing: a; origin: (4,) float64 (site 0);
     group / embedding / boundary / rtol / method: as in :func:`lattice_links`; n_field: N of the
@@ -504,19 +501,14 @@ class StartSpec:
 
     @classmethod
     def make(cls, field, shape, spacing, *, origin=None, group="su2", embedding=(0, 1), boundary="periodic", rtol=1e-12, method="auto"):
-        from .fields import as_field
-
         field = as_field(field)
-        shape = _check_shape(shape)
-        a = _check_spacing(spacing)
+        shape = _v.lattice_shape("shape", shape)
+        a = _v.positive_float("spacing", spacing)
         if group not in _GROUPS:
             raise ValueError(f"group must be one of {_GROUPS}; found {group!r}")
-        if boundary not in _BOUNDARIES:
-            raise ValueError(f"boundary must be one of {_BOUNDARIES}; found {boundary!r}")
-        if method not in _METHODS:
-            raise ValueError(f"method must be one of {_METHODS}; found {method!r}")
-        if isinstance(rtol, bool) or not (isinstance(rtol, (int, float, np.floating)) and rtol > 0):
-            raise ValueError(f"rtol must be a positive number; found {rtol!r}")
+        _v.choice("boundary", boundary, BOUNDARIES)
+        _v.choice("method", method, _METHODS)
+        rtol = _v.positive_float("rtol", rtol)
         n_field = jax.eval_shape(field.potential, jax.ShapeDtypeStruct((4,), jnp.float64)).shape[-1]
         if group in ("su2", "su3") and n_field != 2:
             raise ValueError(f"group {group!r} needs a 2 x 2 (SU(2)) field; found N = {n_field} (use group=None)")
@@ -538,11 +530,11 @@ class StartSpec:
         """(L1, L2, L3, L4, 4, N, N) of the links."""
         return self.shape + (4, self.n_out, self.n_out)
 
-    def block(self, lo, hi, stats: dict):
-        """Links of the sites lo <= n < hi; see :func:`block_links`."""
+    def block(self, lo, hi) -> tuple:
+        """Links of the sites lo <= n < hi; ((h1, h2, h3, h4, 4, N, N), LinkStats), see :func:`block_links`."""
         return block_links(
             self.field, lo, hi, self.origin, self.spacing, n_field=self.n_field, group=self.group,
-            embedding=self.embedding, method=self.method, rtol=self.rtol, stats=stats, batch=link_batch(self.shape),
+            embedding=self.embedding, method=self.method, rtol=self.rtol, batch=link_batch(self.shape),
         )
 
     def boundary_figures(self, links):
@@ -554,8 +546,8 @@ class StartSpec:
         )
         return bm["link_mismatch"], bm["action_error"]
 
-    def report(self, stats: dict, before: float, after: float, seconds: float, mismatch=None, action_err=None) -> "LinkReport":
-        """The :class:`LinkReport` of a finished start."""
+    def report(self, stats: LinkStats, seconds: float, mismatch=None, action_err=None) -> "LinkReport":
+        """The :class:`LinkReport` of a finished start from its combined :class:`LinkStats`."""
         return LinkReport(
             shape=self.shape,
             spacing=self.spacing,
@@ -564,11 +556,11 @@ class StartSpec:
             embedding=self.embedding,
             boundary=self.boundary,
             rtol=self.rtol,
-            method=stats.get("method", "closed"),
-            max_steps=int(stats.get("max_steps", 0)),
-            refinement_diff=float(stats.get("refinement_diff", 0.0)),
-            unitarity_before=float(before),
-            unitarity_after=float(after),
+            method=stats.method or "closed",
+            max_steps=int(stats.max_steps),
+            refinement_diff=float(stats.refinement_diff),
+            unitarity_before=float(stats.unitarity_before),
+            unitarity_after=float(stats.unitarity_after),
             boundary_link_mismatch=mismatch,
             boundary_action_error=action_err,
             seconds=float(seconds),
@@ -576,19 +568,17 @@ class StartSpec:
 
 
 def _finish_batched(u, batch: int):
-    """:func:`_finish` in padded pieces of ``batch`` links (one compiled size); (projected, before, after)."""
-    m = u.shape[0]
-    out = np.empty_like(u)
-    before = after = 0.0
-    for start in range(0, m, batch):
-        piece = u[start : start + batch]
-        k = piece.shape[0]
-        if k < batch:
-            piece = np.concatenate([piece, np.broadcast_to(piece[:1], (batch - k,) + piece.shape[1:])])
+    """:func:`_finish` in padded pieces of ``batch`` links (one compiled size, :mod:`instantonkit._batching`);
+    (projected (M, N, N), dev_before, dev_after).  Padding rows copy a real row, so the maxima are unchanged."""
+    devs = []
+
+    def kernel(piece):
         p, d0, d1 = _finish(jnp.asarray(piece))
-        out[start : start + k] = np.asarray(p)[:k]
-        before, after = max(before, float(d0)), max(after, float(d1))
-    return out, before, after
+        devs.append((float(d0), float(d1)))
+        return p
+
+    out = run_batched(kernel, [u], batch, out=np.empty_like(u))
+    return out, max((d[0] for d in devs), default=0.0), max((d[1] for d in devs), default=0.0)
 
 
 def link_batch(shape) -> int:
@@ -597,26 +587,123 @@ def link_batch(shape) -> int:
     return _chunk_size(4 * shape[0] * shape[1] * shape[2])
 
 
-def block_links(field, lo, hi, origin, spacing, *, n_field, group, embedding, method, rtol, stats, batch):
-    """Links of the sites lo <= n < hi (a box of the lattice); ((h1, h2, h3, h4, 4, N, N), dev_before, dev_after).
+def block_links(field, lo, hi, origin, spacing, *, n_field, group, embedding, method, rtol, batch):
+    """Links of the sites lo <= n < hi (a box of the lattice); ((h1, h2, h3, h4, 4, N, N), LinkStats).
 
-    The one kernel path of every lattice start: :func:`lattice_links` calls it per time slice and the
-    chunked backends (:mod:`instantonkit.cluster`) per chunk, so both give the same bits.  Sites
-    x_n = origin + a n (n float64); the transporters of a box are computed together, projected
-    (:func:`_finish`) and embedded for group 'su3'.  ``stats`` collects the Magnus figures; ``batch``
-    (:func:`link_batch` of the lattice) fixes the compiled kernel size, which keeps the bits equal.
+    The one kernel path of every lattice start (documented seam of the chunked layer):
+    :func:`lattice_links` calls it per time slice and :mod:`instantonkit.cluster` per chunk, so both
+    give the same bits.  Sites x_n = origin + a n (n float64); the transporters of a box are computed
+    together, projected (:func:`_finish`) and embedded for group 'su3'.  The returned
+    :class:`LinkStats` holds the Magnus figures and the unitarity before/after the projection;
+    ``batch`` (:func:`link_batch` of the lattice) fixes the compiled kernel size, which keeps the bits equal.
     """
     lo, hi = tuple(int(v) for v in lo), tuple(int(v) for v in hi)
     ext = tuple(h - l for l, h in zip(lo, hi))
     grids = np.meshgrid(*[np.arange(l, h, dtype=np.float64) for l, h in zip(lo, hi)], indexing="ij")
     n = np.stack(grids, axis=-1).reshape(-1, 4)
     sites = np.asarray(origin, dtype=np.float64) + spacing * n
-    u = _slice_links(field, sites, spacing, method, rtol, stats, batch).reshape(-1, n_field, n_field)
-    u, dev0, dev1 = _finish_batched(u, batch)
+    u, stats = _slice_links(field, sites, spacing, method, rtol, batch)
+    u, dev0, dev1 = _finish_batched(u.reshape(-1, n_field, n_field), batch)
     n_out = n_field
     if group == "su3":
         u, n_out = _embed(u, 3, embedding), 3
-    return u.reshape(ext + (4, n_out, n_out)), float(dev0), float(dev1)
+    stats = dataclasses.replace(stats, unitarity_before=float(dev0), unitarity_after=float(dev1))
+    return u.reshape(ext + (4, n_out, n_out)), stats
+
+
+# -- the chunked backend, registered by the distributed layer -------------------------------------------
+
+
+class ChunkedExecutor(Protocol):
+    """What a chunked backend offers :func:`lattice_links` (``instantonkit.cluster`` registers one as 'dask').
+
+    ``executor(spec, *, chunks, store, client, overwrite, progress, return_report)`` computes the start
+    ``spec`` (:class:`StartSpec`) in chunks and returns the links (or ``(links, LinkReport)`` with
+    ``return_report=True``); it must use :meth:`StartSpec.block` so that the bits equal the local path's.
+    """
+
+    def __call__(self, spec: StartSpec, *, chunks, store, client, overwrite: bool, progress, return_report: bool): ...
+
+
+_EXECUTORS: dict = {}
+
+
+def register_chunked_backend(name: str, executor: ChunkedExecutor) -> None:
+    """Make ``executor`` the chunked backend ``name`` of :func:`lattice_links` (called by ``instantonkit.cluster``)."""
+    _v.choice("name", name, tuple(b for b in _BACKENDS if b != "local"))
+    if not callable(executor):
+        raise TypeError(f"executor must be callable; found {type(executor).__name__}")
+    _EXECUTORS[name] = executor
+
+
+@dataclasses.dataclass(frozen=True)
+class LatticeStart:
+    """A finished lattice start: ``links`` (L1, L2, L3, L4, 4, N, N) and its :class:`LinkReport` ``report``."""
+
+    links: object
+    report: "LinkReport"
+
+
+def _local_start(spec: StartSpec, out, progress) -> tuple:
+    """Fill the links of ``spec`` one time slice at a time; (links, combined LinkStats)."""
+    shape = spec.shape
+    full = spec.links_shape
+    if out is None:
+        out = np.empty(full, dtype=np.complex128)
+    elif tuple(out.shape) != full or out.dtype != np.complex128:
+        raise ValueError(f"out must have shape {full} and dtype complex128; found {tuple(out.shape)} {out.dtype}")
+    stats = LinkStats()
+    for t in range(shape[3]):
+        block, block_stats = spec.block((0, 0, 0, t), shape[:3] + (t + 1,))
+        stats = stats.merge(block_stats)
+        out[:, :, :, t : t + 1] = block
+        if progress is not None:
+            progress(t + 1, shape[3])
+    if hasattr(out, "flush"):
+        out.flush()
+    return out, stats
+
+
+_START_DOC_ARGS = """
+    Args:
+      field: a field (:class:`instantonkit.fields.Field`) or a callable A(x) -> (4, N, N).
+      shape: (L1, L2, L3, L4) positive integers.
+      spacing: a > 0.
+      origin: (4,) position of site 0 (default :func:`default_origin`: the field's centre in the
+        middle of the central hypercube, so no link touches it).
+      group: 'su2' (N = 2), 'su3' (the SU(2) links embedded in the ``embedding`` = (i, j) rows and
+        columns of 3 x 3 identity matrices) or None (the field's own N, e.g. Sp(n)).
+      boundary: 'periodic' (the link from the last site points to site 0; use a field that decays
+        fast, e.g. singular gauge; the mismatch is measured, see :func:`boundary_mismatch`) or 'open'
+        (every link is the exact transporter to x + a mu_hat; observables then use only plaquettes inside).
+      rtol: refinement target of the Magnus quadrature (unused by closed forms).
+      method: 'auto', 'closed' or 'magnus' (see :func:`parallel_transporter`).
+      out: optional preallocated array or np.memmap of shape (L1, L2, L3, L4, 4, N, N), complex128,
+        filled one time slice at a time.
+      progress: progress(done, total) after each time slice.
+"""
+
+
+def lattice_start(field, shape, spacing, *, origin=None, group: str | None = "su2", embedding=(0, 1), boundary: str = "periodic",
+                  rtol: float = 1e-12, method: str = "auto", out=None, progress: Callable[[int, int], None] | None = None) -> LatticeStart:
+    """A lattice start with its quality report: :class:`LatticeStart` (``.links``, ``.report``).
+    {args}
+    Returns:
+      LatticeStart: ``links`` (L1, L2, L3, L4, 4, N, N) complex128 (``out`` when given) and ``report``
+      (a :class:`LinkReport`, with the periodic boundary figures of :func:`boundary_mismatch`).
+    Raises:
+      ValueError / TypeError: a bad argument (naming it and the value found); a link through a
+        singular point; Magnus steps not converging.
+    """
+    t_start = time.perf_counter()
+    spec = StartSpec.make(field, shape, spacing, origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method)
+    links, stats = _local_start(spec, out, progress)
+    mismatch, action_err = spec.boundary_figures(links)
+    return LatticeStart(links, spec.report(stats, time.perf_counter() - t_start, mismatch, action_err))
+
+
+if lattice_start.__doc__:  # (absent under python -OO)
+    lattice_start.__doc__ = lattice_start.__doc__.format(args=_START_DOC_ARGS)
 
 
 def lattice_links(
@@ -640,61 +727,52 @@ def lattice_links(
     overwrite: bool = False,
 ):
     """Link variables of ``field`` on an L1 x L2 x L3 x L4 lattice; (L1, L2, L3, L4, 4, N, N) complex128.
-
-    shape: (L1, L2, L3, L4); spacing: a > 0; origin: (4,) position of site 0 (default
-    :func:`default_origin`: the field's centre in the middle of the central hypercube).
-    group: 'su2' (N = 2), 'su3' (the SU(2) links embedded in the ``embedding`` = (i, j) rows and
-    columns of 3 x 3 identity matrices) or None (the field's own N, e.g. Sp(n)).
-    boundary: 'periodic' (the link from the last site points to site 0; use a field that decays fast,
-    e.g. singular gauge; the mismatch is measured, see :func:`boundary_mismatch`) or 'open' (every
-    link is the exact transporter to x + a mu_hat; observables then use only plaquettes inside).
-    rtol: refinement target of the Magnus quadrature (unused by closed forms); method: 'auto',
-    'closed' or 'magnus' (see :func:`parallel_transporter`).  out: optional preallocated array or
-    np.memmap of the result shape and complex128 dtype, filled one time slice at a time;
-    progress(done, total) is called after each time slice.  With ``return_report=True`` returns
-    ``(links, LinkReport)``.
-
-    backend: 'local' (this process, one time slice at a time) or 'dask' (chunks of ``chunks`` =
-    (c1, c2, c3, c4) sites computed by the same kernels on a Dask cluster, bit-identical to 'local';
-    ``store`` a Zarr directory written chunk by chunk and resumable, else a lazy dask array is
-    returned; ``client`` a dask.distributed.Client, None for a temporary local cluster, or 'sync'
-    for this process; ``overwrite`` replaces a store made with other parameters; ``progress`` then
-    counts chunks).  See
-    :func:`instantonkit.cluster.start_links`; needs the optional extra ``distributed``.
+    {args}
+      return_report: deprecated; ``True`` returns ``(links, LinkReport)`` with a DeprecationWarning
+        (use :func:`lattice_start`, whose result has ``.links`` and ``.report``).
+      backend, chunks, store, client, overwrite: deprecated; ``backend="dask"`` (DeprecationWarning)
+        runs the chunked start of ``instantonkit.cluster.lattice_links`` (which takes the other four).
+    Returns:
+      The links (L1, L2, L3, L4, 4, N, N) complex128: a numpy array (``out`` when given); with the
+      deprecated ``backend="dask"`` a ``zarr.Array`` (store given) or a lazy dask array.
+    Raises:
+      ValueError / TypeError: a bad argument (naming it and the value found); a link through a
+        singular point; Magnus steps not converging.
+      ImportError: ``backend="dask"`` without the optional extra ``distributed``.
     """
-    t_start = time.perf_counter()
-    if backend not in _BACKENDS:
-        raise ValueError(f"backend must be one of {_BACKENDS}; found {backend!r}")
-    spec = StartSpec.make(field, shape, spacing, origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method)
-    if backend == "dask":
+    _v.choice("backend", backend, _BACKENDS)
+    if return_report:
+        warnings.warn(
+            "lattice_links(..., return_report=True) is deprecated; use lattice_start(...), whose result has .links and .report",
+            DeprecationWarning,
+            stacklevel=2,
+        )
+    if backend != "local":
         if out is not None:
             raise ValueError("out= is for the local backend; the dask backend writes to store= (a Zarr path) or returns a dask array")
-        from . import cluster
-
-        return cluster.start_links(spec, chunks=chunks, store=store, client=client, overwrite=overwrite, progress=progress, return_report=return_report)
+        spec = StartSpec.make(field, shape, spacing, origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method)
+        warnings.warn(
+            f"lattice_links(..., backend={backend!r}) is deprecated; use instantonkit.cluster.lattice_links(...) "
+            "(or cluster.lattice_start(...) for the report)",
+            DeprecationWarning,
+            stacklevel=2,
+        )
+        executor = _EXECUTORS.get(backend)
+        if executor is None:
+            raise ImportError(f"no chunked backend {backend!r} is registered; import instantonkit.cluster (needs the extra 'distributed')")
+        return executor(spec, chunks=chunks, store=store, client=client, overwrite=overwrite, progress=progress, return_report=return_report)
     if chunks is not None or store is not None or client is not None:
         raise ValueError("chunks=, store= and client= need backend='dask'")
-    shape = spec.shape
-    full = spec.links_shape
-    if out is None:
-        out = np.empty(full, dtype=np.complex128)
-    else:
-        if tuple(out.shape) != full or out.dtype != np.complex128:
-            raise ValueError(f"out must have shape {full} and dtype complex128; found {tuple(out.shape)} {out.dtype}")
-    stats: dict = {}
-    before = after = 0.0
-    for t in range(shape[3]):
-        block, dev0, dev1 = spec.block((0, 0, 0, t), shape[:3] + (t + 1,), stats)
-        before, after = max(before, dev0), max(after, dev1)
-        out[:, :, :, t : t + 1] = block
-        if progress is not None:
-            progress(t + 1, shape[3])
-    if hasattr(out, "flush"):
-        out.flush()
-    if not return_report:
-        return out
-    mismatch, action_err = spec.boundary_figures(out)
-    return out, spec.report(stats, before, after, time.perf_counter() - t_start, mismatch, action_err)
+    kw = dict(origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method, out=out, progress=progress)
+    if return_report:
+        res = lattice_start(field, shape, spacing, **kw)
+        return res.links, res.report
+    spec = StartSpec.make(field, shape, spacing, origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method)
+    return _local_start(spec, out, progress)[0]
+
+
+if lattice_links.__doc__:
+    lattice_links.__doc__ = lattice_links.__doc__.format(args=_START_DOC_ARGS)
 
 
 def boundary_mismatch(field, links, spacing, *, origin=None, group="su2", embedding=(0, 1), rtol=1e-12, method="auto") -> dict:
@@ -713,7 +791,7 @@ def boundary_mismatch(field, links, spacing, *, origin=None, group="su2", embedd
         links = np.asarray(links)
     shape = tuple(links.shape[:4])
     n = links.shape[-1]
-    a = _check_spacing(spacing)
+    a = _v.positive_float("spacing", spacing)
     org = default_origin(field, shape, a) if origin is None else np.asarray(origin, dtype=np.float64)
     beta = 2.0 * n
     link_mis, err, wrapped_total = 0.0, 0.0, 0.0

@@ -11,15 +11,19 @@ memmaps alike).
 
 from __future__ import annotations
 
+import warnings
+
 import jax.numpy as jnp
 import numpy as np
 
+from . import _validate as _v
 from .conventions import CHARGE_DENSITY_FACTOR
 from .io import check_links as _check_links
 
 __all__ = [
     "PLANES",
-    "gauge_transform",
+    "BOUNDARIES",
+    "gauge_transform_links",
     "random_gauge",
     "plaquettes",
     "plaquette_traces",
@@ -33,7 +37,8 @@ __all__ = [
 #: The six lattice planes (mu, nu), mu < nu, zero-based; the order of the plane axis of :func:`plaquettes`.
 PLANES = ((0, 1), (0, 2), (0, 3), (1, 2), (1, 3), (2, 3))
 
-_BOUNDARIES = ("periodic", "open")
+#: The boundary conditions of link arrays: wrap around, or use only what lies inside.
+BOUNDARIES = ("periodic", "open")
 #: Bytes of link data handled at once by the observables (time slabs).
 SLAB_BYTES = 1 << 26
 
@@ -42,20 +47,13 @@ SLAB_BYTES = 1 << 26
 
 
 def _check_shape(shape):
-    try:
-        s = tuple(int(v) for v in shape)
-    except TypeError as err:
-        raise TypeError(f"shape must be a sequence of 4 integers (L1, L2, L3, L4); found {shape!r}") from err
-    if len(s) != 4 or any(v < 1 for v in s) or any(int(v) != v for v in shape):
-        raise ValueError(f"shape must be 4 positive integers (L1, L2, L3, L4); found {tuple(shape)!r}")
-    return s
+    """(L1, L2, L3, L4) as ints (:func:`instantonkit._validate.lattice_shape`)."""
+    return _v.lattice_shape("shape", shape)
 
 
 def _check_spacing(spacing) -> float:
-    a = float(spacing)
-    if not (np.isfinite(a) and a > 0):
-        raise ValueError(f"spacing must be finite and > 0; found {spacing!r}")
-    return a
+    """The lattice spacing a > 0 (:func:`instantonkit._validate.positive_float`)."""
+    return _v.positive_float("spacing", spacing)
 
 
 # -- gauge transformations ------------------------------------------------------------------------------
@@ -74,12 +72,24 @@ def random_gauge(shape, n: int = 2, *, seed=0) -> np.ndarray:
     return q * (det ** (-1.0 / n))[..., None, None]
 
 
-def gauge_transform(links, g, *, boundary: str = "periodic") -> np.ndarray:
-    """U_mu(n) -> g(n) U_mu(n) g(n + mu)^dag (conventions module); g: (L1, L2, L3, L4, N, N).
+def gauge_transform_links(links, g, *, boundary: str = "periodic") -> np.ndarray:
+    """Gauge transformation of a link array: U_mu(n) -> g(n) U_mu(n) g(n + mu)^dag (conventions module).
 
-    Periodic: n + mu wraps.  Open: the outward links of the last sites are left multiplied only.
+    Args:
+      links: (L1, L2, L3, L4, 4, N, N) complex link array.
+      g: (L1, L2, L3, L4, N, N) unitary matrices, one per site (e.g. :func:`random_gauge`).
+      boundary: 'periodic' (n + mu wraps) or 'open' (the outward links of the last sites are only
+        left multiplied).
+    Returns:
+      (L1, L2, L3, L4, 4, N, N) complex128, the transformed links.
+    Raises:
+      ValueError: g of the wrong shape, or an unknown boundary.
+
+    (The continuum gauge transformation of a field is :func:`instantonkit.transforms.gauge_transform`.)
     """
     u = np.asarray(links)
+    g = np.asarray(g)
+    _check_boundary(boundary)
     if g.shape != u.shape[:4] + u.shape[-2:]:
         raise ValueError(f"g must have shape {u.shape[:4] + u.shape[-2:]}; found {g.shape}")
     out = np.empty_like(u)
@@ -94,12 +104,22 @@ def gauge_transform(links, g, *, boundary: str = "periodic") -> np.ndarray:
     return out
 
 
+def gauge_transform(links, g, *, boundary: str = "periodic") -> np.ndarray:
+    """Deprecated name of :func:`gauge_transform_links` (the public ``ik.gauge_transform`` is the continuum one)."""
+    warnings.warn(
+        "observables.gauge_transform / lattice.gauge_transform is deprecated; use gauge_transform_links "
+        "(instantonkit.gauge_transform transforms continuum fields)",
+        DeprecationWarning,
+        stacklevel=2,
+    )
+    return gauge_transform_links(links, g, boundary=boundary)
+
+
 # -- observables ------------------------------------------------------------------------------------------
 
 
 def _check_boundary(boundary):
-    if boundary not in _BOUNDARIES:
-        raise ValueError(f"boundary must be one of {_BOUNDARIES}; found {boundary!r}")
+    _v.choice("boundary", boundary, BOUNDARIES)
 
 
 def _slabs(u, margin: int):
@@ -183,6 +203,14 @@ def plaquette_traces(links, *, boundary: str = "periodic") -> np.ndarray:
     """Re tr U_p / N for every site and plane; (L1, L2, L3, L4, 6) float64 (plane order :data:`PLANES`).
 
     Open boundaries: NaN for plaquettes that leave the lattice (n_mu or n_nu = L - 1).
+
+    Args:
+      links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
+      boundary: 'periodic' or 'open'.
+    Returns:
+      (L1, L2, L3, L4, 6) float64, Re tr U_p / N per site and plane.
+    Raises:
+      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
     """
     u = _check_links(links)
     _check_boundary(boundary)
@@ -201,6 +229,14 @@ def plaquettes(links, *, boundary: str = "periodic") -> np.ndarray:
 
     Plane order :data:`PLANES`; ``plaquette = exp(a^2 F_mu nu + O(a^3))`` (conventions module).
     Open boundaries: NaN for plaquettes that leave the lattice.
+
+    Args:
+      links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
+      boundary: 'periodic' or 'open'.
+    Returns:
+      (L1, L2, L3, L4, 6, N, N) complex128 plaquette matrices.
+    Raises:
+      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
     """
     u = _check_links(links)
     _check_boundary(boundary)
@@ -214,7 +250,16 @@ def plaquettes(links, *, boundary: str = "periodic") -> np.ndarray:
 
 
 def average_plaquette(links, *, boundary: str = "periodic") -> float:
-    """Mean of Re tr U_p / N over all (for open boundaries: all inside) plaquettes."""
+    """Mean of Re tr U_p / N over all (for open boundaries: all inside) plaquettes.
+
+    Args:
+      links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
+      boundary: 'periodic' or 'open'.
+    Returns:
+      float, the mean of Re tr U_p / N.
+    Raises:
+      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
+    """
     return float(np.nanmean(plaquette_traces(links, boundary=boundary)))
 
 
@@ -224,6 +269,15 @@ def wilson_action(links, beta: float | None = None, *, boundary: str = "periodic
 
     Sums 1 - Re tr / N directly (no cancellation against a large total); open boundaries: only
     plaquettes fully inside the lattice.
+
+    Args:
+      links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
+      beta: coupling (default 2N).
+      boundary: 'periodic' or 'open'.
+    Returns:
+      float, S_W.
+    Raises:
+      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
     """
     u = _check_links(links)
     n = u.shape[-1]
@@ -277,6 +331,15 @@ def clover_field_strength(links, *, spacing: float = 1.0, boundary: str = "perio
 
     Antisymmetric in (mu, nu), anti-Hermitian and traceless; open boundaries: NaN where a clover
     leaves the lattice (n_mu or n_nu at 0 or L - 1).
+
+    Args:
+      links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
+      spacing: lattice spacing a > 0 (results in physical units).
+      boundary: 'periodic' or 'open'.
+    Returns:
+      (L1, L2, L3, L4, 4, 4, N, N) complex128, F_mu nu / a^2.
+    Raises:
+      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
     """
     u = _check_links(links)
     _check_boundary(boundary)
@@ -301,6 +364,15 @@ def clover_charge_density(links, *, spacing: float = 1.0, boundary: str = "perio
     eps_{mu nu rho sigma} tr F_mu nu F_rho sigma = 8 (tr F12 F34 - tr F13 F24 + tr F14 F23)
     (conventions.CHARGE_DENSITY_FACTOR, eps_1234 = +1).  Open boundaries: NaN at sites whose clovers
     leave the lattice; the sum of spacing^4 q is :func:`clover_charge`.
+
+    Args:
+      links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
+      spacing: lattice spacing a > 0 (results in physical units).
+      boundary: 'periodic' or 'open'.
+    Returns:
+      (L1, L2, L3, L4) float64, q(n) / a^4.
+    Raises:
+      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
     """
     u = _check_links(links)
     _check_boundary(boundary)
@@ -316,5 +388,14 @@ def clover_charge_density(links, *, spacing: float = 1.0, boundary: str = "perio
 
 
 def clover_charge(links, *, boundary: str = "periodic") -> float:
-    """Total clover charge Q = sum_n a^4 q(n) (open boundaries: over the sites whose clovers fit inside)."""
+    """Total clover charge Q = sum_n a^4 q(n) (open boundaries: over the sites whose clovers fit inside).
+
+    Args:
+      links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
+      boundary: 'periodic' or 'open'.
+    Returns:
+      float, Q.
+    Raises:
+      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
+    """
     return float(np.nansum(clover_charge_density(links, boundary=boundary)))

@@ -264,6 +264,19 @@ class GaugeTransformed(_Wrapper):
     def charge_density(self, x):
         return _q(self.field, x)
 
+    @property
+    def closed_link(self):
+        """U'(x, d) = g(x) U(x, d) g(x + d)^dag from the wrapped field's closed-form link (when it has one)."""
+        if not hasattr(self.field, "closed_link"):
+            _missing("closed_link")
+
+        def closed_link(x, d):
+            x = jnp.asarray(x, dtype=jnp.float64)
+            x1 = x + jnp.asarray(d, dtype=jnp.float64)
+            return self._g(x) @ self.field.closed_link(x, d) @ jnp.conj(self._g(x1).T)
+
+        return closed_link
+
 
 def gauge_transform(field, g) -> GaugeTransformed:
     """Gauge transform ``field`` by ``g(x)`` (N, N) unitary: A' = g A g^-1 + g d g^-1 (returns a field)."""
@@ -306,6 +319,17 @@ class Translated(_Wrapper):
 
     def _map_hint(self, centre, scale):
         return centre + np.asarray(self.shift), scale
+
+    @property
+    def closed_link(self):
+        """U'(x, d) = U(x - shift, d) from the wrapped field's closed-form link (when it has one)."""
+        if not hasattr(self.field, "closed_link"):
+            _missing("closed_link")
+
+        def closed_link(x, d):
+            return self.field.closed_link(self._y(x), d)
+
+        return closed_link
 
 
 def translate(field, shift) -> Translated:

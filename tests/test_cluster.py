@@ -38,7 +38,8 @@ def client():
 @pytest.fixture(scope="module")
 def two_local():
     """The single-process reference start of the charge-2 field (Magnus path) and its report."""
-    return ik.lattice_links(TWO, SHAPE, 1.0, rtol=RTOL, return_report=True)
+    res = lat.lattice_start(TWO, SHAPE, 1.0, rtol=RTOL)
+    return res.links, res.report
 
 
 def _report_without_time(rep):
@@ -53,30 +54,28 @@ def _report_without_time(rep):
 @pytest.mark.slow
 def test_two_worker_cluster_start_is_bit_identical_to_local(client, two_local, tmp_path):
     ref, _ = two_local
-    z = ik.lattice_links(TWO, SHAPE, 1.0, rtol=RTOL, backend="dask", chunks=(2, 4, 3, 4), store=tmp_path / "s.zarr", client=client)
+    z = cluster.lattice_links(TWO, SHAPE, 1.0, rtol=RTOL, chunks=(2, 4, 3, 4), store=tmp_path / "s.zarr", client=client)
     assert np.array_equal(np.asarray(z[...]), ref)
 
 
 @pytest.mark.slow
 def test_chunked_report_equals_local_report(client, two_local, tmp_path):
     _, rep = two_local
-    _, rep2 = ik.lattice_links(
-        TWO, SHAPE, 1.0, rtol=RTOL, backend="dask", chunks=(4, 2, 4, 3), store=tmp_path / "s.zarr", client=client, return_report=True
-    )
+    rep2 = cluster.lattice_start(TWO, SHAPE, 1.0, rtol=RTOL, chunks=(4, 2, 4, 3), store=tmp_path / "s.zarr", client=client).report
     assert _report_without_time(rep2) == _report_without_time(rep)
 
 
 def test_closed_form_su3_start_in_this_process_is_bit_identical(tmp_path):
     field = ik.bpst(size=1.5)
     ref = ik.lattice_links(field, (5, 4, 4, 6), 0.8, group="su3", embedding=(0, 2))
-    z = ik.lattice_links(field, (5, 4, 4, 6), 0.8, group="su3", embedding=(0, 2), backend="dask", chunks=(2, 3, 4, 5), store=tmp_path / "s", client="sync")
+    z = cluster.lattice_links(field, (5, 4, 4, 6), 0.8, group="su3", embedding=(0, 2), chunks=(2, 3, 4, 5), store=tmp_path / "s", client="sync")
     assert z.shape == (5, 4, 4, 6, 4, 3, 3) and z.dtype == np.complex128
     assert np.array_equal(np.asarray(z[...]), ref)
 
 
 def test_without_store_a_lazy_dask_array_is_returned():
     field = ik.bpst(size=1.2)
-    lazy = ik.lattice_links(field, (4, 4, 4, 4), 1.0, backend="dask", chunks=(2, 4, 4, 3))
+    lazy = cluster.lattice_links(field, (4, 4, 4, 4), 1.0, chunks=(2, 4, 4, 3))
     assert isinstance(lazy, da.Array)
     assert lazy.chunks[:4] == ((2, 2), (4,), (4,), (3, 1))
     assert np.array_equal(lazy.compute(scheduler="sync"), ik.lattice_links(field, (4, 4, 4, 4), 1.0))
@@ -85,7 +84,7 @@ def test_without_store_a_lazy_dask_array_is_returned():
 def test_sp2_start_uses_the_fields_own_group(tmp_path):
     field = ik.embed_sp(ik.bpst(size=1.3), 2)
     ref = ik.lattice_links(field, (3, 3, 3, 4), 1.0, group=None, rtol=1e-6)
-    z = ik.lattice_links(field, (3, 3, 3, 4), 1.0, group=None, rtol=1e-6, backend="dask", chunks=(3, 2, 3, 2), store=tmp_path / "s", client="sync")
+    z = cluster.lattice_links(field, (3, 3, 3, 4), 1.0, group=None, rtol=1e-6, chunks=(3, 2, 3, 2), store=tmp_path / "s", client="sync")
     assert z.shape[-2:] == (4, 4)
     assert np.array_equal(np.asarray(z[...]), ref)
 
@@ -95,7 +94,7 @@ def test_sp2_start_uses_the_fields_own_group(tmp_path):
 
 def test_store_records_the_generation_parameters_and_report(tmp_path):
     field = ik.bpst(center=(0.1, 0.0, 0.0, 0.0), size=1.2)
-    ik.lattice_links(field, (4, 4, 4, 4), 0.9, backend="dask", chunks=(4, 4, 2, 2), store=tmp_path / "s", client="sync")
+    cluster.lattice_links(field, (4, 4, 4, 4), 0.9, chunks=(4, 4, 2, 2), store=tmp_path / "s", client="sync")
     st = cluster.store_status(tmp_path / "s")
     assert st.kind == "lattice_links" and st.complete and (st.chunks_done, st.chunks_total) == (4, 4)
     assert st.params["shape"] == [4, 4, 4, 4] and st.params["spacing"] == 0.9 and st.params["group"] == "su2"
@@ -108,10 +107,10 @@ def test_store_records_the_generation_parameters_and_report(tmp_path):
 
 def test_complete_store_is_returned_without_computing(tmp_path):
     field = ik.bpst(size=1.2)
-    kw = dict(backend="dask", chunks=(2, 4, 4, 4), store=tmp_path / "s", client="sync")
-    first = np.asarray(ik.lattice_links(field, (4, 4, 4, 4), 1.0, **kw)[...])
+    kw = dict(chunks=(2, 4, 4, 4), store=tmp_path / "s", client="sync")
+    first = np.asarray(cluster.lattice_links(field, (4, 4, 4, 4), 1.0, **kw)[...])
     calls = []
-    again = ik.lattice_links(field, (4, 4, 4, 4), 1.0, progress=lambda d, t: calls.append(d), **kw)
+    again = cluster.lattice_links(field, (4, 4, 4, 4), 1.0, progress=lambda d, t: calls.append(d), **kw)
     assert calls == [] and np.array_equal(np.asarray(again[...]), first)
     last = zarr.open_group(str(tmp_path / "s"), mode="r").attrs["instantonkit"]["runs"][-1]
     assert (last["chunks_computed"], last["chunks_reused"]) == (0, 2)
@@ -119,26 +118,26 @@ def test_complete_store_is_returned_without_computing(tmp_path):
 
 def test_store_made_with_other_parameters_is_refused_naming_them(tmp_path):
     field = ik.bpst(size=1.2)
-    ik.lattice_links(field, (4, 4, 4, 4), 1.0, backend="dask", chunks=4, store=tmp_path / "s", client="sync")
+    cluster.lattice_links(field, (4, 4, 4, 4), 1.0, chunks=4, store=tmp_path / "s", client="sync")
     with pytest.raises(ValueError, match="spacing"):
-        ik.lattice_links(field, (4, 4, 4, 4), 0.5, backend="dask", chunks=4, store=tmp_path / "s", client="sync")
+        cluster.lattice_links(field, (4, 4, 4, 4), 0.5, chunks=4, store=tmp_path / "s", client="sync")
     with pytest.raises(ValueError, match="field_probe"):  # same parameters, another field
-        ik.lattice_links(ik.bpst(size=1.3), (4, 4, 4, 4), 1.0, backend="dask", chunks=4, store=tmp_path / "s", client="sync")
+        cluster.lattice_links(ik.bpst(size=1.3), (4, 4, 4, 4), 1.0, chunks=4, store=tmp_path / "s", client="sync")
 
 
 def test_overwrite_replaces_a_store_made_with_other_parameters(tmp_path):
     field = ik.bpst(size=1.2)
-    ik.lattice_links(field, (4, 4, 4, 4), 1.0, backend="dask", chunks=4, store=tmp_path / "s", client="sync")
-    z = ik.lattice_links(field, (4, 4, 4, 4), 0.5, backend="dask", chunks=4, store=tmp_path / "s", client="sync", overwrite=True)
+    cluster.lattice_links(field, (4, 4, 4, 4), 1.0, chunks=4, store=tmp_path / "s", client="sync")
+    z = cluster.lattice_links(field, (4, 4, 4, 4), 0.5, chunks=4, store=tmp_path / "s", client="sync", overwrite=True)
     assert cluster.store_status(tmp_path / "s").params["spacing"] == 0.5
     assert np.array_equal(np.asarray(z[...]), ik.lattice_links(field, (4, 4, 4, 4), 0.5))
 
 
 def test_resuming_with_other_chunks_is_refused(tmp_path):
     field = ik.bpst(size=1.2)
-    ik.lattice_links(field, (4, 4, 4, 4), 1.0, backend="dask", chunks=(4, 4, 4, 2), store=tmp_path / "s", client="sync")
+    cluster.lattice_links(field, (4, 4, 4, 4), 1.0, chunks=(4, 4, 4, 2), store=tmp_path / "s", client="sync")
     with pytest.raises(ValueError, match=r"chunks \(4, 4, 4, 2\)"):
-        ik.lattice_links(field, (4, 4, 4, 4), 1.0, backend="dask", chunks=(4, 4, 2, 4), store=tmp_path / "s", client="sync")
+        cluster.lattice_links(field, (4, 4, 4, 4), 1.0, chunks=(4, 4, 2, 4), store=tmp_path / "s", client="sync")
 
 
 def test_a_directory_that_is_not_a_store_is_never_touched(tmp_path):
@@ -147,7 +146,7 @@ def test_a_directory_that_is_not_a_store_is_never_touched(tmp_path):
     (d / "notes.txt").write_text("keep me")
     for overwrite in (False, True):
         with pytest.raises(ValueError, match="not an instantonkit store"):
-            ik.lattice_links(ik.bpst(), (2, 2, 2, 2), 1.0, backend="dask", store=d, client="sync", overwrite=overwrite)
+            cluster.lattice_links(ik.bpst(), (2, 2, 2, 2), 1.0, store=d, client="sync", overwrite=overwrite)
     assert (d / "notes.txt").read_text() == "keep me"
 
 
@@ -168,7 +167,7 @@ def die_after_two(done, total):
     if done == 2:
         os.kill(os.getpid(), signal.SIGKILL)  # a hard stop: no clean-up runs
 
-ik.lattice_links(field, {shape}, 1.0, rtol={rtol}, backend="dask", chunks={chunks}, store={store!r}, client="sync", progress=die_after_two)
+ik.cluster.lattice_links(field, {shape}, 1.0, rtol={rtol}, chunks={chunks}, store={store!r}, client="sync", progress=die_after_two)
 """
 
 
@@ -182,7 +181,7 @@ def test_a_killed_run_is_completed_by_the_next_call_with_nothing_lost(two_local,
     st = cluster.store_status(store)
     assert not st.complete and st.chunks_done == 2 and st.chunks_total == 4
     calls = []
-    z = ik.lattice_links(TWO, SHAPE, 1.0, rtol=RTOL, backend="dask", chunks=chunks, store=store, client="sync", progress=lambda d, t: calls.append((d, t)))
+    z = cluster.lattice_links(TWO, SHAPE, 1.0, rtol=RTOL, chunks=chunks, store=store, client="sync", progress=lambda d, t: calls.append((d, t)))
     assert calls == [(3, 4), (4, 4)]  # only the two missing chunks were computed
     assert np.array_equal(np.asarray(z[...]), ref)
     meta = zarr.open_group(store, mode="r").attrs["instantonkit"]
@@ -191,14 +190,14 @@ def test_a_killed_run_is_completed_by_the_next_call_with_nothing_lost(two_local,
 
 def test_a_chunk_written_but_not_marked_done_is_recomputed(tmp_path):
     field = ik.bpst(size=1.2)
-    kw = dict(backend="dask", chunks=(2, 4, 4, 4), store=tmp_path / "s", client="sync")
-    ik.lattice_links(field, (4, 4, 4, 4), 1.0, **kw)
+    kw = dict(chunks=(2, 4, 4, 4), store=tmp_path / "s", client="sync")
+    cluster.lattice_links(field, (4, 4, 4, 4), 1.0, **kw)
     links = zarr.open_array(str(tmp_path / "s"), path="links", mode="r+")
     links[2:4] = np.zeros((2, 4, 4, 4, 4, 2, 2))  # as if a task died after its data and before its row
     rows = zarr.open_array(str(tmp_path / "s"), path="chunk_report", mode="r+")
     rows[1, 0, 0, 0] = np.zeros(5)
     assert cluster.store_status(tmp_path / "s").chunks_done == 1
-    z = ik.lattice_links(field, (4, 4, 4, 4), 1.0, **kw)
+    z = cluster.lattice_links(field, (4, 4, 4, 4), 1.0, **kw)
     assert np.array_equal(np.asarray(z[...]), ik.lattice_links(field, (4, 4, 4, 4), 1.0))
 
 
@@ -215,7 +214,7 @@ def test_killing_a_worker_mid_run_completes_the_store_without_duplicates(two_loc
                 killed.append(pids[0])
 
         store = tmp_path / "s"
-        z = ik.lattice_links(TWO, SHAPE, 1.0, rtol=RTOL, backend="dask", chunks=(1, 2, 4, 3), store=store, client=c, progress=kill_one)
+        z = cluster.lattice_links(TWO, SHAPE, 1.0, rtol=RTOL, chunks=(1, 2, 4, 3), store=store, client=c, progress=kill_one)
         assert killed and killed[0] not in c.run(os.getpid).values()  # the nanny started a new worker process
     assert np.array_equal(np.asarray(z[...]), ref)
     chunk_files = [f for _, _, files in os.walk(store / "links" / "c") for f in files]
@@ -336,7 +335,8 @@ def test_ensemble_on_the_cluster_matches_each_members_local_start(client, tmp_pa
     for i in range(3):
         links, data = cluster.load_member(tmp_path / "e", i)
         assert np.array_equal(np.asarray(data.B), np.asarray(ens.members[i].B))
-        ref, rep = ik.lattice_links(data, (4, 4, 4, 4), 1.0, origin=np.full(4, -1.5), rtol=1e-6, return_report=True)
+        res = lat.lattice_start(data, (4, 4, 4, 4), 1.0, origin=np.full(4, -1.5), rtol=1e-6)
+        ref, rep = res.links, res.report
         assert np.array_equal(links, ref)
         assert _report_without_time(ens.reports[i]) == _report_without_time(rep)
 
@@ -370,16 +370,34 @@ def test_load_member_of_a_partial_ensemble_is_a_clear_error(tmp_path):
         (dict(backend="dask", out=np.empty(1)), "out= is for the local backend"),
     ],
 )
+@pytest.mark.filterwarnings("ignore::DeprecationWarning")  # the deprecated backend= call, still checked
 def test_bad_backend_arguments_are_refused(kw, match):
     with pytest.raises(ValueError, match=match):
         ik.lattice_links(ik.bpst(), (2, 2, 2, 2), 1.0, **kw)
 
 
+def test_the_deprecated_dask_backend_call_still_gives_the_chunked_links(tmp_path):
+    field = ik.bpst(size=1.2)
+    with pytest.deprecated_call(match="cluster.lattice_links"):
+        z = ik.lattice_links(field, (4, 4, 4, 4), 1.0, backend="dask", chunks=(2, 4, 4, 4), store=tmp_path / "s", client="sync")
+    with pytest.deprecated_call(match="lattice_start"):
+        z2, rep = ik.lattice_links(field, (4, 4, 4, 4), 1.0, backend="dask", chunks=(2, 4, 4, 4), store=tmp_path / "s", client="sync", return_report=True)
+    ref = cluster.lattice_start(field, (4, 4, 4, 4), 1.0, chunks=(2, 4, 4, 4), store=tmp_path / "s", client="sync")
+    assert np.array_equal(np.asarray(z[...]), np.asarray(ref.links[...])) and np.array_equal(np.asarray(z2[...]), np.asarray(ref.links[...]))
+    assert _report_without_time(rep) == _report_without_time(ref.report)
+    assert np.array_equal(np.asarray(z[...]), ik.lattice_links(field, (4, 4, 4, 4), 1.0))
+
+
+def test_a_lattice_start_needs_a_store():
+    with pytest.raises(ValueError, match="needs store="):
+        cluster.lattice_start(ik.bpst(), (2, 2, 2, 2), 1.0, store=None)
+
+
 def test_a_bad_client_is_refused(tmp_path):
     with pytest.raises(ValueError, match="client must be"):
-        ik.lattice_links(ik.bpst(), (2, 2, 2, 2), 1.0, backend="dask", store=tmp_path / "s", client="threads")
+        cluster.lattice_links(ik.bpst(), (2, 2, 2, 2), 1.0, store=tmp_path / "s", client="threads")
     with pytest.raises(TypeError, match="client must be"):
-        ik.lattice_links(ik.bpst(), (2, 2, 2, 2), 1.0, backend="dask", store=tmp_path / "t", client=3)
+        cluster.lattice_links(ik.bpst(), (2, 2, 2, 2), 1.0, store=tmp_path / "t", client=3)
 
 
 def test_missing_optional_extra_names_it(monkeypatch):
@@ -401,11 +419,11 @@ def test_default_chunks_stay_under_the_byte_target():
 def test_a_task_of_a_replaced_store_writes_nothing(tmp_path):
     field = ik.bpst(size=1.2)
     store = str(tmp_path / "s")
-    ik.lattice_links(field, (2, 2, 2, 2), 1.0, backend="dask", chunks=(1, 2, 2, 2), store=store, client="sync")
+    cluster.lattice_links(field, (2, 2, 2, 2), 1.0, chunks=(1, 2, 2, 2), store=store, client="sync")
     before = np.asarray(zarr.open_array(store, path="links", mode="r")[...])
-    task = cluster._LinkChunk(lat.StartSpec.make(ik.bpst(size=2.0), (2, 2, 2, 2), 1.0))
+    task = cluster.tasks.LinkChunk(lat.StartSpec.make(ik.bpst(size=2.0), (2, 2, 2, 2), 1.0))
     with pytest.raises(cluster.StaleTaskError, match="replaced"):  # a task of an earlier store's run
-        cluster._write_chunk(store, "links", task, (0, 0, 0, 0), (2, 2, 2, 2), (1, 2, 2, 2), "an-old-store-id")
+        cluster.store.write_chunk(store, "links", task, (0, 0, 0, 0), (2, 2, 2, 2), (1, 2, 2, 2), "an-old-store-id")
     assert np.array_equal(np.asarray(zarr.open_array(store, path="links", mode="r")[...]), before)
 
 
@@ -458,10 +476,10 @@ def test_lazy_evaluation_on_numpy_points_ships_blocks_not_the_array():
 
 def test_asking_again_keeps_the_boundary_figures_of_the_stored_report(tmp_path):
     field = ik.bpst(size=1.2)
-    kw = dict(backend="dask", chunks=(2, 4, 4, 4), store=tmp_path / "s", client="sync")
-    ik.lattice_links(field, (4, 4, 4, 4), 1.0, return_report=True, **kw)
+    kw = dict(chunks=(2, 4, 4, 4), store=tmp_path / "s", client="sync")
+    cluster.lattice_start(field, (4, 4, 4, 4), 1.0, **kw)
     first = cluster.store_status(tmp_path / "s").report["boundary_link_mismatch"]
-    ik.lattice_links(field, (4, 4, 4, 4), 1.0, **kw)
+    cluster.lattice_links(field, (4, 4, 4, 4), 1.0, **kw)
     assert first is not None and cluster.store_status(tmp_path / "s").report["boundary_link_mismatch"] == first
 
 
@@ -472,6 +490,6 @@ def test_bad_worker_counts_are_refused(tmp_path, n_workers):
 
 
 def test_another_kind_of_store_is_named_in_the_refusal(tmp_path):
-    ik.lattice_links(ik.bpst(), (2, 2, 2, 2), 1.0, backend="dask", store=tmp_path / "s", client="sync")
+    cluster.lattice_links(ik.bpst(), (2, 2, 2, 2), 1.0, store=tmp_path / "s", client="sync")
     with pytest.raises(ValueError, match="holds a 'lattice_links' result, not 'evaluate_grid'"):
         cluster.evaluate_grid(ik.bpst(), (2, 2, 2, 2), 1.0, "action_density", store=tmp_path / "s", client="sync")

@@ -131,13 +131,61 @@ def test_transporter_agrees_with_ten_times_finer_quadrature(pair, segments):
     assert np.max(np.abs(w - fine)) < 1e-12
 
 
+def test_closed_link_hooks_are_asked_of_the_field_and_forwarded_by_exact_wrappers(segments):
+    # the closed forms of BPSTField and of translated / gauge-transformed charge-1 data against the
+    # Magnus quadrature of their own potentials (no closed form involved on that side)
+    import jax.numpy as jnp
+
+    starts, steps = segments
+    orient = np.array([0.5, -0.5, 0.5, 0.5])
+    bf = ik.bpst_field([0.1, -0.2, 0.3, 0.15], 1.1, gauge="singular", orientation=orient)
+    shifted = ik.translate(ik.bpst(size=1.1), [0.2, 0.1, -0.3, 0.05])
+    gauged = ik.gauge_transform(ik.bpst(size=1.1).with_gauge("regular"), lambda x: jnp.asarray(ik.quaternion.to_matrix(
+        jnp.array([jnp.cos(0.3 * x[0]), jnp.sin(0.3 * x[0]), 0.0, 0.0]))))
+    for field in (bf, shifted, gauged):
+        assert fields.hook(field, "closed_link") is not None
+        rep = {}
+        closed = lat.parallel_transporter(field, starts, steps, report=rep)
+        quad = lat.parallel_transporter(field, starts, steps, method="magnus", rtol=1e-13)
+        assert rep["method"] == "closed" and np.max(np.abs(closed - quad)) < 1e-12
+    # no closed form: charge 2, Sp(2), and wrappers that cannot map it exactly
+    two = ik.multi_instanton([[1.0, 0, 0, 0], [-1.0, 0, 0, 0]], [1.0, 1.0])
+    for field in (two, ik.embed_sp(ik.bpst(), 2), ik.dilate(ik.bpst(), 2.0), ik.rotate(ik.bpst(), [1.0, 0, 0, 0], [0, 1.0, 0, 0])):
+        assert fields.hook(field, "closed_link") is None
+    with pytest.raises(ValueError, match="no closed-form link"):
+        lat.parallel_transporter(two, starts[:2], steps[:2], method="closed")
+
+
+def test_bad_transporter_arguments_are_refused_like_the_lattice_ones():
+    x = np.zeros((1, 4)) + 0.3
+    for call in (lambda: lat.parallel_transporter(ik.bpst(), x, x, rtol=True), lambda: lat.lattice_links(ik.bpst(), (2,) * 4, 0.5, rtol=True)):
+        with pytest.raises(TypeError, match="rtol must be a real number"):
+            call()
+    with pytest.raises(TypeError, match="batch must be a positive integer"):
+        lat.parallel_transporter(ik.bpst(), x, x, batch=True)
+
+
+def test_deprecated_names_still_work():
+    u = _small_lattice()
+    g = lat.random_gauge(u.shape[:4], 2, seed=1)
+    with pytest.deprecated_call(match="gauge_transform_links"):
+        v = lat.gauge_transform(u, g)
+    assert np.array_equal(v, lat.gauge_transform_links(u, g))
+    assert ik.gauge_transform is ik.transforms.gauge_transform  # the public name is the continuum one
+    with pytest.deprecated_call(match="lattice_start"):
+        links, rep = lat.lattice_links(ik.bpst(size=1.2), (2, 2, 2, 2), 0.6, return_report=True)
+    res = lat.lattice_start(ik.bpst(size=1.2), (2, 2, 2, 2), 0.6)
+    assert np.array_equal(links, res.links) and rep.unitarity_after == res.report.unitarity_after
+
+
 # -- link variables ------------------------------------------------------------------------------------
 
 
 def test_links_are_special_unitary_in_su2_and_su3():
     data = ik.bpst(size=1.5)
     for group, n in (("su2", 2), ("su3", 3)):
-        links, rep = lat.lattice_links(data, (4, 4, 4, 4), 0.5, group=group, return_report=True)
+        res = lat.lattice_start(data, (4, 4, 4, 4), 0.5, group=group)
+        links, rep = res.links, res.report
         assert links.shape == (4, 4, 4, 4, 4, n, n)
         assert lat.unitarity_deviation(links) <= 1e-13
         assert rep.unitarity_after <= 1e-13 and rep.unitarity_before <= 1e-13
@@ -207,8 +255,8 @@ def test_periodic_boundary_mismatch_is_small_in_singular_gauge_and_shrinks_with_
     # singular gauge: A ~ rho^2/|x|^3 far away, regular gauge A ~ 1/|x| (common practice), so a
     # torus start needs the singular gauge; the mismatch and its action error fall with the box
     data = ik.bpst(size=1.0)
-    rep = {n: lat.lattice_links(data, (n,) * 4, 0.5, return_report=True)[1] for n in (6, 10)}
-    _, reg = lat.lattice_links(data.with_gauge("regular"), (10,) * 4, 0.5, return_report=True)
+    rep = {n: lat.lattice_start(data, (n,) * 4, 0.5).report for n in (6, 10)}
+    reg = lat.lattice_start(data.with_gauge("regular"), (10,) * 4, 0.5).report
     assert rep[10].boundary_link_mismatch < 0.5 * rep[6].boundary_link_mismatch
     assert 0 < rep[10].boundary_action_error < 0.5 * rep[6].boundary_action_error
     assert reg.boundary_link_mismatch > 3 * rep[10].boundary_link_mismatch
@@ -236,7 +284,7 @@ def test_gauge_transformation_leaves_plaquette_traces_and_clover_charge_unchange
     # gauge covariance U -> g(n) U g(n + mu)^dag (conventions module; Wilson 1974)
     u = _small_lattice()
     g = lat.random_gauge(u.shape[:4], 2, seed=seed)
-    v = lat.gauge_transform(u, g)
+    v = lat.gauge_transform_links(u, g)
     assert np.max(np.abs(lat.plaquette_traces(v) - lat.plaquette_traces(u))) < 1e-13
     assert np.max(np.abs(lat.clover_charge_density(v) - lat.clover_charge_density(u))) < 1e-13
 
@@ -336,3 +384,15 @@ def test_charge_two_starts_give_action_and_charge_near_two(pair, which):
     q = lat.clover_charge(links, boundary="open")
     assert 1.2 < q < 2.0
     assert 0.7 < q / q_box < 0.85  # the single BPST at rho/a = 2 measures 0.805 (test above)
+
+
+def test_lattice_never_imports_the_distributed_layer():
+    # the chunked backend registers itself with lattice (register_chunked_backend); lattice asks nobody above it
+    import ast
+    import inspect
+
+    tree = ast.parse(inspect.getsource(lat))
+    names = {n.module or "" for n in ast.walk(tree) if isinstance(n, ast.ImportFrom)}
+    names |= {a.name for n in ast.walk(tree) if isinstance(n, ast.Import) for a in n.names}
+    names |= {a.name for n in ast.walk(tree) if isinstance(n, ast.ImportFrom) for a in n.names}
+    assert not any("cluster" in n for n in names)

@@ -1,0 +1,143 @@
+"""Lattice starts in chunks: the front doors ``lattice_links`` / ``lattice_start`` and the executor
+registered with :func:`instantonkit.lattice.register_chunked_backend` for the deprecated
+``lattice_links(..., backend="dask")``."""
+
+from __future__ import annotations
+
+
+from .. import lattice as _lat
+from ..lattice import LatticeStart, StartSpec
+from ._optional import require
+from .fingerprint import describe, domain_probe, probe
+from .geometry import Job, check_chunks, default_chunks
+from .schedule import lazy, run
+from .store import finish_store, rows_stats, store_path
+from .tasks import LinkChunk
+
+__all__ = ["start_links", "lattice_links", "lattice_start"]
+
+#: Bytes of one site's links per (output) matrix entry: four directions, complex128.
+_SITE_ENTRY_BYTES = 4 * 16
+
+
+def site_bytes(spec: StartSpec) -> int:
+    """Bytes of the links of one site of ``spec``: 4 directions x N x N complex128."""
+    return _SITE_ENTRY_BYTES * spec.n_out * spec.n_out
+
+
+def spec_params(spec: StartSpec) -> dict:
+    """The generation parameters of a start as stored (and compared on resume)."""
+    return {
+        "field": describe(spec.field),
+        "field_probe": probe(spec.field),
+        "domain_probe": domain_probe(spec.field, spec.origin, spec.spacing, spec.shape),
+        "shape": list(spec.shape),
+        "spacing": spec.spacing,
+        "origin": [float(v) for v in spec.origin],
+        "group": spec.group,
+        "embedding": list(spec.embedding),
+        "boundary": spec.boundary,
+        "rtol": spec.rtol,
+        "method": spec.method,
+    }
+
+
+def link_report(spec: StartSpec, rows, seconds, links, boundary: bool):
+    """LinkReport of a finished chunked start from its chunk rows; with ``boundary`` the periodic
+    boundary figures too (read from the faces in this process, as the local path does when asked)."""
+    mismatch, action_err = spec.boundary_figures(links) if boundary else (None, None)
+    return spec.report(rows_stats(rows), seconds, mismatch, action_err)
+
+
+def _start(spec: StartSpec, *, chunks, store, client, overwrite, progress, n_workers, boundary: bool):
+    """Links of ``spec`` in chunks: (links, report or None); the one implementation of the front doors."""
+    chunks = default_chunks(spec.shape, site_bytes(spec)) if chunks is None else check_chunks(chunks, spec.shape, "the lattice")
+    task = LinkChunk(spec)
+    job = Job("lattice_links", "links", spec.links_shape, 4, chunks, "complex128", spec_params(spec), lambda idx: task)
+    if store is None:
+        return lazy(job), None
+    zarr = require("zarr")
+    path = store_path(store)
+    group, rows, computed, reused, seconds = run(job, path, client, overwrite, progress, n_workers)
+    links = zarr.open_array(path, path="links", mode="r")
+    report = link_report(spec, rows, seconds, links, boundary)
+    finish_store(group, report.as_metadata(), computed, reused, seconds)
+    return links, report
+
+
+def start_links(spec, *, chunks=None, store=None, client=None, overwrite=False, progress=None, return_report=False, n_workers=None):
+    """A validated lattice start (:class:`instantonkit.lattice.StartSpec`) in chunks: Zarr array or lazy dask array.
+
+    The executor behind the deprecated ``lattice.lattice_links(..., backend="dask")`` (registered with
+    :func:`instantonkit.lattice.register_chunked_backend`); new code calls :func:`lattice_links` or
+    :func:`lattice_start`.  Arguments as in :func:`lattice_links`; with ``return_report=True`` (store
+    needed) returns ``(links, LinkReport)`` with the periodic boundary figures.
+    """
+    if store is None and return_report:
+        raise ValueError("return_report=True needs store= (the report is made from the written chunks)")
+    links, report = _start(spec, chunks=chunks, store=store, client=client, overwrite=overwrite, progress=progress,
+                           n_workers=n_workers, boundary=bool(return_report))
+    return (links, report) if return_report else links
+
+
+_DOC_ARGS = """
+    Args:
+      field, shape, spacing, origin, group, embedding, boundary, rtol, method: as in
+        :func:`instantonkit.lattice.lattice_links` (validated the same way, by ``lattice.StartSpec.make``).
+      chunks: (c1, c2, c3, c4) sites per chunk, or one int for all four (default
+        :func:`instantonkit.cluster.default_chunks`, about CHUNK_BYTES = 32 MiB of links).
+      store: path of a Zarr directory to write chunk by chunk (resumable; see the package notes), or
+        None for a lazy dask array.
+      client: a ``dask.distributed.Client``, None for a temporary local cluster of ``n_workers``
+        processes, or 'sync' to run the chunks in this process.
+      overwrite: replace a store made with other parameters (else it is refused).
+      progress: progress(done, total) after each chunk.
+      n_workers: workers of the temporary local cluster (default: the number of CPUs).
+"""
+
+
+def lattice_links(field, shape, spacing, *, origin=None, group="su2", embedding=(0, 1), boundary="periodic", rtol=1e-12,
+                  method="auto", chunks=None, store=None, client=None, overwrite=False, progress=None, n_workers=None):
+    """Link variables of ``field`` computed in chunks, bit-identical to :func:`instantonkit.lattice.lattice_links`.
+    {args}
+    Returns:
+      (L1, L2, L3, L4, 4, N, N) complex128 links: the read-only ``zarr.Array`` of the store, or a lazy
+      dask array of that shape and chunking (store=None).  The report (without the boundary figures)
+      is the store's attribute; :func:`lattice_start` returns it.
+    Raises:
+      ValueError / TypeError: a bad argument (naming it); a store made with other parameters or chunks.
+      ImportError: without the optional extra ``distributed``.
+    """
+    spec = StartSpec.make(field, shape, spacing, origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method)
+    return _start(spec, chunks=chunks, store=store, client=client, overwrite=overwrite, progress=progress,
+                  n_workers=n_workers, boundary=False)[0]
+
+
+def lattice_start(field, shape, spacing, *, store, origin=None, group="su2", embedding=(0, 1), boundary="periodic", rtol=1e-12,
+                  method="auto", chunks=None, client=None, overwrite=False, progress=None, n_workers=None) -> LatticeStart:
+    """A chunked lattice start with its report: :class:`instantonkit.lattice.LatticeStart` (``.links``, ``.report``).
+    {args}
+    Returns:
+      LatticeStart: ``links`` the read-only ``zarr.Array`` (L1, L2, L3, L4, 4, N, N) complex128 and
+      ``report`` its :class:`instantonkit.lattice.LinkReport` (with the periodic boundary figures, read
+      from the store's faces in this process, as the local :func:`instantonkit.lattice.lattice_start`).
+    Raises:
+      ValueError / TypeError: a bad argument; store=None (the report is made from the written chunks).
+      ImportError: without the optional extra ``distributed``.
+    """
+    if store is None:
+        raise ValueError("lattice_start needs store= (the report is made from the written chunks); use lattice_links for a lazy array")
+    spec = StartSpec.make(field, shape, spacing, origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method)
+    links, report = _start(spec, chunks=chunks, store=store, client=client, overwrite=overwrite, progress=progress,
+                           n_workers=n_workers, boundary=True)
+    return LatticeStart(links, report)
+
+
+for _fn in (lattice_links, lattice_start):
+    if _fn.__doc__:  # (absent under python -OO)
+        _fn.__doc__ = _fn.__doc__.format(args=_DOC_ARGS)
+
+
+def register() -> None:
+    """Register :func:`start_links` as the 'dask' backend of :func:`instantonkit.lattice.lattice_links` (deprecated path)."""
+    _lat.register_chunked_backend("dask", start_links)
