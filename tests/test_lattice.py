@@ -9,6 +9,7 @@ from scipy import integrate, special
 import instantonkit as ik
 from instantonkit import fields
 from instantonkit import lattice as lat
+from instantonkit import transport  # the Magnus step itself, checked against scipy
 
 EIGHT_PI2 = 8.0 * np.pi**2
 
@@ -81,8 +82,8 @@ def test_magnus_steps_are_sixth_order_against_scipy():
     def run(m):
         w = np.eye(3, dtype=complex)
         for s in range(m):
-            gs = [g((s + node) / m) for node in lat._GL3]
-            w = w @ np.asarray(lat._expm_antihermitian(jnp.asarray(lat._magnus6(*[jnp.asarray(x) for x in gs], 1.0 / m))))
+            gs = [g((s + node) / m) for node in transport._GL3]
+            w = w @ np.asarray(transport._expm_antihermitian(jnp.asarray(transport._magnus6(*[jnp.asarray(x) for x in gs], 1.0 / m))))
         return w
 
     errs = [np.max(np.abs(run(m) - ref)) for m in (2, 4)]
@@ -126,7 +127,7 @@ def test_transporter_agrees_with_ten_times_finer_quadrature(pair, segments):
     starts, steps = segments
     rep = {}
     w = lat.parallel_transporter(data, starts[:8], steps[:8], rtol=1e-12, report=rep)
-    fine = np.asarray(lat._magnus_kernel()(data, starts[:8], steps[:8], 10 * rep["max_steps"]))
+    fine = np.asarray(transport._magnus_kernel()(data, starts[:8], steps[:8], 10 * rep["max_steps"]))
     assert rep["method"] == "magnus"
     assert np.max(np.abs(w - fine)) < 1e-12
 
