@@ -21,6 +21,7 @@ __all__ = [
     "real_array",
     "point",
     "points_array",
+    "points",
     "positive_vector",
     "choice",
 ]
@@ -105,6 +106,29 @@ def points_array(name: str, value, *, min_count: int = 1) -> np.ndarray:
     if arr.shape[0] < min_count:
         raise ValueError(f"{name} must hold at least {min_count} point(s); found {arr.shape[0]}")
     return arr
+
+
+def points(value, name: str = "points") -> tuple[np.ndarray, tuple[int, ...]]:
+    """Points (..., 4) flattened: ((M, 4) float64 numpy array, leading shape).
+
+    Raises TypeError for a jax tracer (points must be concrete here) or non-real input, and
+    ValueError for a wrong last axis or non-finite values (counting the bad points).
+    """
+    if is_tracer(value):
+        raise TypeError(f"{name} must be concrete arrays here; call a field's methods directly under jit")
+    arr = np.asarray(value)
+    if arr.dtype == object or arr.dtype == np.bool_ or not (
+        np.issubdtype(arr.dtype, np.floating) or np.issubdtype(arr.dtype, np.integer)
+    ):
+        raise TypeError(f"{name} must be a real numeric array; found dtype {arr.dtype}")
+    if arr.ndim < 1 or arr.shape[-1] != 4:
+        raise ValueError(f"{name} must have shape (..., 4); found {arr.shape}")
+    arr = arr.astype(np.float64, copy=False)
+    finite = np.isfinite(arr)
+    if not np.all(finite):
+        bad = int(np.sum(~np.all(finite, axis=-1)))
+        raise ValueError(f"{name} must be finite; found {bad} point(s) with NaN or inf")
+    return arr.reshape(-1, 4), arr.shape[:-1]
 
 
 def positive_vector(name: str, value, length: int) -> np.ndarray:

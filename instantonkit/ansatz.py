@@ -1,4 +1,4 @@
-"""Classic instanton ansaetze as fields: 't Hooft, Jackiw-Nohl-Rebbi, Harrington-Shepard, BPST, and anti().
+"""Classic instanton ansaetze as fields: 't Hooft, Jackiw-Nohl-Rebbi, Harrington-Shepard, BPST.
 
 Every object here is a frozen dataclass registered as a jax pytree (numeric parameters are leaves),
 implements the field protocol of :mod:`instantonkit.fields` with closed forms, and has ``hint()``
@@ -37,7 +37,9 @@ at a pole the potential, field strength and the scalar-ansatz densities evaluate
 (:func:`instantonkit.fields.evaluate`) raises a ValueError naming the point.  The closed-form BPST
 densities are gauge invariant and return their finite value ``48 / rho^4`` at the centre in both gauges.
 
-The anti-self-dual partners are the parity images (:func:`anti`, :func:`instantonkit.transforms.parity`).
+The anti-self-dual partners are the parity images (:func:`instantonkit.transforms.anti`, which wraps
+these fields in :func:`instantonkit.transforms.parity`; for the scalar ansaetze the image is the
+eta-form ansatz A'_mu = -1/2 eta_{a mu nu} d_nu log(phi o P) u_a, since P eta-bar_a P = eta_a).
 """
 
 from __future__ import annotations
@@ -62,7 +64,6 @@ __all__ = [
     "jnr",
     "caloron",
     "bpst_field",
-    "anti",
     "ANSATZ_COUPLING",
 ]
 
@@ -557,21 +558,3 @@ def bpst_field(center=(0.0, 0.0, 0.0, 0.0), size=1.0, gauge: str = "regular", or
     """
     return BPSTField(center, size, orientation, gauge)
 
-
-def anti(field):
-    """Anti-self-dual partner: the parity image x -> Px, P = diag(-1, -1, -1, 1).
-
-    A'_mu(x) = P_mu nu A_nu(Px), so F' is anti-self-dual, s'(x) = s(Px), q'(x) = -q(Px) and the centres
-    move to P a_i.  ADHM data return ``data.conjugate()`` (the same map); ``anti(anti(f))`` gives ``f``
-    back.  For the scalar ansaetze the image is the eta-form ansatz A'_mu = -1/2 eta_{a mu nu}
-    d_nu log(phi o P) u_a (since P eta-bar_a P = eta_a).  Any other field is wrapped by
-    :func:`instantonkit.transforms.parity`.
-    """
-    from .adhm import ADHMData
-    from .transforms import ParityImage, parity
-
-    if isinstance(field, ADHMData):
-        return field.conjugate()
-    if isinstance(field, ParityImage):
-        return field.field
-    return parity(field)
