@@ -23,6 +23,8 @@ __all__ = [
     "points_array",
     "points",
     "positive_vector",
+    "distinct_points",
+    "sign",
     "choice",
 ]
 
@@ -97,12 +99,15 @@ def point(name: str, value) -> np.ndarray:
     return real_array(name, value, (4,))
 
 
-def points_array(name: str, value, *, min_count: int = 1) -> np.ndarray:
-    """A list of points: (m, 4) float64 with m >= min_count; a single (4,) point is promoted to (1, 4)."""
+def points_array(name: str, value, *, min_count: int = 1, shape_text: str = "(m, 4)") -> np.ndarray:
+    """A list of points: (m, 4) float64 with m >= min_count; a single (4,) point is promoted to (1, 4).
+
+    ``shape_text`` names the expected shape in messages (e.g. "(k, 4)" for k centres).
+    """
     arr = np.asarray(value)
     if arr.ndim == 1:
         arr = arr.reshape(1, -1)
-    arr = real_array(name, arr, (None, 4), shape_text="(m, 4)")
+    arr = real_array(name, arr, (None, 4), shape_text=shape_text)
     if arr.shape[0] < min_count:
         raise ValueError(f"{name} must hold at least {min_count} point(s); found {arr.shape[0]}")
     return arr
@@ -129,6 +134,27 @@ def points(value, name: str = "points") -> tuple[np.ndarray, tuple[int, ...]]:
         bad = int(np.sum(~np.all(finite, axis=-1)))
         raise ValueError(f"{name} must be finite; found {bad} point(s) with NaN or inf")
     return arr.reshape(-1, 4), arr.shape[:-1]
+
+
+def distinct_points(name: str, arr: np.ndarray, min_distance: float, *, noun: str = "points") -> np.ndarray:
+    """``arr`` (m, 4) unchanged when no two rows are closer than ``min_distance``, else ValueError.
+
+    The message names the closest pair: "centers 0 and 2 coincide (distance 0.000e+00); give distinct centers".
+    """
+    m = arr.shape[0]
+    if m > 1:
+        d = np.linalg.norm(arr[:, None] - arr[None], axis=-1) + np.diag(np.full(m, np.inf))
+        i, j = np.unravel_index(np.argmin(d), d.shape)
+        if d[i, j] < min_distance:
+            raise ValueError(f"{name} {i} and {j} coincide (distance {d[i, j]:.3e}); give distinct {noun}")
+    return arr
+
+
+def sign(name: str, value) -> int:
+    """+1 or -1 as an int (numpy integers accepted; booleans, floats and other values refused)."""
+    if _is_bool(value) or not isinstance(value, numbers.Integral) or value not in (1, -1):
+        raise ValueError(f"{name} must be +1 or -1; found {value!r}")
+    return int(value)
 
 
 def positive_vector(name: str, value, length: int) -> np.ndarray:
