@@ -259,7 +259,17 @@ class GaugeTransformed(_Wrapper):
 
 
 def gauge_transform(field, g) -> GaugeTransformed:
-    """Gauge transform ``field`` by ``g(x)`` (N, N) unitary: A' = g A g^-1 + g d g^-1 (returns a field)."""
+    """Gauge transform ``field`` by ``g(x)`` (N, N) unitary: A' = g A g^-1 + g d g^-1.
+
+    Args:
+      field: a field or a bare callable A(x) with A: (4,) -> (4, N, N).
+      g: callable x (4,) -> (N, N) unitary (jax.numpy); a plain function or a pytree callable.
+    Returns:
+      GaugeTransformed, a field with the same N; densities unchanged.
+    Raises:
+      TypeError when g is not callable or g / the field fail on a (4,) point; ValueError when g(x)
+      has the wrong shape or is not unitary at a probe point.
+    """
     return GaugeTransformed(field, g)
 
 
@@ -302,7 +312,16 @@ class Translated(_Wrapper):
 
 
 def translate(field, shift) -> Translated:
-    """Translate ``field`` by ``shift`` (4,): A'(x) = A(x - shift) (returns a field)."""
+    """Translate ``field`` by ``shift``: A'(x) = A(x - shift).
+
+    Args:
+      field: a field or a bare callable A(x).
+      shift: (4,) float64.
+    Returns:
+      Translated, a field with the same N.
+    Raises:
+      ValueError for a shift not of shape (4,) or not finite; TypeError for non-real values.
+    """
     return Translated(field, shift)
 
 
@@ -382,7 +401,17 @@ class Rotated(_Wrapper):
 
 
 def rotate(field, left, right=(1.0, 0.0, 0.0, 0.0)) -> Rotated:
-    """Rotate ``field`` by the SO(4) map p(x) -> l p(x) r-bar (unit quaternions l, r) (returns a field)."""
+    """Rotate ``field`` by the SO(4) map p(x) -> l p(x) r-bar: A'_mu(x) = R_mu nu A_nu(R^T x).
+
+    Args:
+      field: a field or a bare callable A(x).
+      left, right: (4,) float64 unit quaternions l, r.
+    Returns:
+      Rotated, a field with the same N (R = rotation_matrix(l, r)).
+    Raises:
+      ValueError for quaternions not of shape (4,), not finite or not of unit length (UNIT_TOL);
+      TypeError for non-real values.
+    """
     return Rotated(field, left, right)
 
 
@@ -435,7 +464,16 @@ class Dilated(_Wrapper):
 
 
 def dilate(field, factor) -> Dilated:
-    """Dilate ``field`` about the origin by ``factor`` c > 0: A'(x) = A(x / c) / c (returns a field)."""
+    """Dilate ``field`` about the origin by ``factor`` c > 0: A'(x) = A(x / c) / c.
+
+    Args:
+      field: a field or a bare callable A(x).
+      factor: c > 0, a real number.
+    Returns:
+      Dilated, a field with the same N; s'(x) = s(x / c) / c^4.
+    Raises:
+      ValueError for c <= 0 or not finite; TypeError for non-real (or boolean) values.
+    """
     return Dilated(field, factor)
 
 
