@@ -48,16 +48,16 @@ __all__ = [
 CONSTRAINT_TOL = 1e-10
 
 #: Accepted deviation of orthogonal, Sp(n), SU(2) and unit-quaternion inputs (float64 rounding is ~1e-16).
-UNIT_TOL = 1e-10
+_UNIT_TOL = 1e-10
 
 #: Centres closer than this times max(1, largest size) count as coinciding (the constraint solve degenerates).
-COINCIDENT_CENTRES = 1e-8
+_COINCIDENT_CENTRES = 1e-8
 
 #: Fresh draws random_adhm tries when the constraint solver fails for a draw (failures are rare).
-RANDOM_DRAWS = 20
+_RANDOM_DRAWS = 20
 
 #: Gauss-Newton steps of the off-diagonal constraint solve (it converges quadratically in a few).
-SOLVER_STEPS = 60
+_SOLVER_STEPS = 60
 
 _GAUGES = ("singular", "regular")
 
@@ -189,7 +189,7 @@ class ADHMData(PytreeFields):
         """O(k) redundancy: ``Lambda -> Lambda O``, ``B -> O^T B O`` (same field); orth: (k, k) real orthogonal."""
         o = _validate.real_array("orth", orth, (self.k, self.k))
         dev = float(np.max(np.abs(o.T @ o - np.eye(self.k))))
-        if dev > UNIT_TOL:
+        if dev > _UNIT_TOL:
             raise ValueError(f"orth must be orthogonal; max |O^T O - 1| = {dev:.3e}")
         lam = np.einsum("nja,jk->nka", self.lam, o)
         b = np.einsum("ji,jla,lk->ika", o, self.B, o)
@@ -206,7 +206,7 @@ class ADHMData(PytreeFields):
         if q.shape != (self.rank, self.rank, 4):
             raise ValueError(f"q must have shape {(self.rank, self.rank, 4)}; found {q.shape}")
         dev = float(np.max(np.abs(np.asarray(qt.qmat_mul(qt.qmat_dagger(q), q)) - np.asarray(qt.qmat_identity(self.rank)))))
-        if dev > UNIT_TOL:
+        if dev > _UNIT_TOL:
             raise ValueError(f"q must be in Sp({self.rank}); max |Q^dag Q - 1| = {dev:.3e}")
         return self._replace(lam=np.asarray(qt.qmat_mul(q, self.lam)))
 
@@ -406,7 +406,7 @@ def _check_centers_sizes(centers, sizes):
     """centers (k, 4) (a single (4,) point promoted) and sizes (k,) > 0 (one number broadcast), distinct centres."""
     c = _validate.points_array("centers", centers, shape_text="(k, 4)")
     r = _validate.positive_vector("sizes", sizes, c.shape[0])
-    _validate.distinct_points("centers", c, COINCIDENT_CENTRES * max(1.0, float(np.max(r))), noun="centers")
+    _validate.distinct_points("centers", c, _COINCIDENT_CENTRES * max(1.0, float(np.max(r))), noun="centers")
     return c, r
 
 
@@ -424,7 +424,7 @@ def _unit_orientations(orientations, k: int, rank: int) -> np.ndarray:
             raise ValueError(f"SU(2) orientations must have shape (k, 2, 2) = ({k}, 2, 2); found {o.shape}")
         dev = float(np.max(np.abs(np.einsum("kji,kjl->kil", o.conj(), o) - np.eye(2))))
         det = float(np.max(np.abs(np.linalg.det(o) - 1.0)))
-        if max(dev, det) > UNIT_TOL:
+        if max(dev, det) > _UNIT_TOL:
             raise ValueError(f"orientation matrices must be in SU(2); max deviation {max(dev, det):.3e}")
         q = np.asarray(qt.from_matrix(o))
         o = np.zeros((k, rank, 4))
@@ -441,7 +441,7 @@ def _unit_orientations(orientations, k: int, rank: int) -> np.ndarray:
         raise ValueError(f"orientations must have shape (k, 4) or (k, n, 4) = ({k}, {rank}, 4); found {o.shape}")
     norms = np.sqrt(np.sum(o**2, axis=(1, 2)))
     dev = float(np.max(np.abs(norms - 1.0)))
-    if dev > UNIT_TOL:
+    if dev > _UNIT_TOL:
         raise ValueError(f"orientations must be unit quaternions (vectors); max | |u| - 1 | = {dev:.3e}")
     return o
 
@@ -488,7 +488,7 @@ def _constraint_vector(lam, b, pairs):
     return np.concatenate([c[i, j, 1:] for (i, j) in pairs]) if pairs else np.zeros(0)
 
 
-def _solve_offdiagonal(lam: np.ndarray, diag: np.ndarray, *, tol: float, max_iter: int = SOLVER_STEPS):
+def _solve_offdiagonal(lam: np.ndarray, diag: np.ndarray, *, tol: float, max_iter: int = _SOLVER_STEPS):
     """Solve Im(Lambda^dag Lambda + B^dag B)_{i<j} = 0 for the off-diagonal quaternions of B.
 
     Gauss-Newton with minimum-norm steps (numpy lstsq) from B_off = 0; the residual is quadratic in
@@ -574,7 +574,7 @@ def random_adhm(k: int, rank: int = 1, *, seed=0, spread: float = 2.0, size_rang
     """Random valid charge-k Sp(n) data: centres ~ N(0, spread^2), sizes ~ U(size_range), Haar orientations.
 
     Reproducible for a given ``seed`` (int or numpy Generator).  Retries new draws (up to
-    RANDOM_DRAWS) when the constraint solver fails for a draw.
+    _RANDOM_DRAWS) when the constraint solver fails for a draw.
 
     Args:
       k: charge, an integer >= 1.
@@ -595,7 +595,7 @@ def random_adhm(k: int, rank: int = 1, *, seed=0, spread: float = 2.0, size_rang
         raise ValueError(f"size_range must be (low, high) with low <= high; found {tuple(size_range)!r}")
     rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)
     last = None
-    for _ in range(RANDOM_DRAWS):
+    for _ in range(_RANDOM_DRAWS):
         centers = rng.normal(scale=spread, size=(k, 4))
         sizes = rng.uniform(low, high, size=k)
         o = rng.normal(size=(k, rank, 4))
@@ -604,7 +604,7 @@ def random_adhm(k: int, rank: int = 1, *, seed=0, spread: float = 2.0, size_rang
             return multi_instanton(centers, sizes, o, rank=rank)
         except ValueError as err:  # pragma: no cover - rare
             last = err
-    raise ValueError(f"random_adhm failed to find valid data in {RANDOM_DRAWS} draws: {last}")
+    raise ValueError(f"random_adhm failed to find valid data in {_RANDOM_DRAWS} draws: {last}")
 
 
 def embed_sp(data: ADHMData, rank: int, row: int = 0) -> ADHMData:

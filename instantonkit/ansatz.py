@@ -83,17 +83,17 @@ _GAUGES = ("regular", "singular")
 # -- validation helpers ---------------------------------------------------------------------------
 
 #: Poles closer than this times max(1, max |coordinate|) count as coinciding (phi would lose a pole).
-COINCIDENT_POLES = 1e-12
+_COINCIDENT_POLES = 1e-12
 
 #: Accepted deviation of an orientation from SU(2) / from |u| = 1 (float64 rounding is ~1e-16).
-UNIT_TOL = 1e-10
+_UNIT_TOL = 1e-10
 
 
 def _poles(name: str, value, min_count: int) -> np.ndarray:
     """(k, 4) float64 distinct points (a single (4,) point promoted), at least ``min_count`` of them."""
     arr = _validate.points_array(name, value, min_count=min_count, shape_text="(k, 4)")
     scale = max(1.0, float(np.max(np.abs(arr))))
-    return _validate.distinct_points(name, arr, COINCIDENT_POLES * scale)
+    return _validate.distinct_points(name, arr, _COINCIDENT_POLES * scale)
 
 
 def _positive_scalar(name: str, value) -> np.ndarray:
@@ -108,14 +108,14 @@ def _unit_quaternion(value) -> np.ndarray:
         if arr.shape != (2, 2):
             raise ValueError(f"an SU(2) orientation must have shape (2, 2); found {arr.shape}")
         dev = float(np.max(np.abs(arr.conj().T @ arr - np.eye(2))) + abs(np.linalg.det(arr) - 1.0))
-        if dev > UNIT_TOL:
+        if dev > _UNIT_TOL:
             raise ValueError(f"orientation matrix must be in SU(2); deviation {dev:.3e}")
         return np.asarray(qt.from_matrix(arr))
     arr = _validate.real_array("orientation", arr)
     if arr.shape != (4,):
         raise ValueError(f"orientation must be a unit quaternion of shape (4,) or an SU(2) matrix; found {arr.shape}")
     dev = abs(float(np.sqrt(np.sum(arr**2))) - 1.0)
-    if dev > UNIT_TOL:
+    if dev > _UNIT_TOL:
         raise ValueError(f"orientation must be a unit quaternion; found | |u| - 1 | = {dev:.3e}")
     return arr
 

@@ -57,7 +57,7 @@ __all__ = [
 DEFAULT_CHUNK = 16384
 
 #: Relative size of A + A^dag accepted for a user callable (rounding of a float64 potential is ~1e-16).
-ANTI_HERMITIAN_TOL = 1e-10
+_ANTI_HERMITIAN_TOL = 1e-10
 
 _METHODS = ("auto", "closed", "autodiff")
 
@@ -287,7 +287,7 @@ def _check_callable(field, x0: np.ndarray) -> None:
     a = np.asarray(field.potential(jnp.asarray(x0)))
     herm = float(np.max(np.abs(a + np.conj(np.swapaxes(a, -1, -2)))))
     scale = 1.0 + float(np.max(np.abs(a)))
-    if herm > ANTI_HERMITIAN_TOL * scale:
+    if herm > _ANTI_HERMITIAN_TOL * scale:
         raise ValueError(f"the potential must be anti-Hermitian (A^dag = -A); max |A + A^dag| = {herm:.3e} at {x0}")
 
 

@@ -49,7 +49,6 @@ __all__ = [
     "rotation_matrix",
     "anti",
     "PARITY",
-    "UNIT_TOL",
 ]
 
 #: The parity matrix P = diag(-1, -1, -1, 1) (space reflection); (4,).
@@ -59,7 +58,7 @@ PARITY = np.array([-1.0, -1.0, -1.0, 1.0])
 _PROBE = np.array([0.3127, -0.4481, 0.2719, 0.5867])
 
 #: Accepted deviation from unitarity of g(x) and from |q| = 1 of rotation quaternions (float64 rounding is ~1e-16).
-UNIT_TOL = 1e-10
+_UNIT_TOL = 1e-10
 
 
 # -- per-point helpers for any field ----------------------------------------------------------------
@@ -218,7 +217,7 @@ class GaugeTransformed(_Wrapper):
         gm = np.asarray(self.g(jnp.asarray(_PROBE)))
         if np.all(np.isfinite(gm)):
             dev = float(np.max(np.abs(gm @ gm.conj().T - np.eye(n))))
-            if dev > UNIT_TOL:
+            if dev > _UNIT_TOL:
                 raise ValueError(f"g(x) must be unitary; max |g g^dag - 1| = {dev:.3e} at x = {_PROBE.tolist()}")
 
     def tree_flatten(self):
@@ -340,10 +339,10 @@ def rotation_matrix(left, right):
 
 
 def _unit(name: str, value) -> np.ndarray:
-    """A unit quaternion (4,) float64 (|q| = 1 to UNIT_TOL), else ValueError naming the deviation."""
+    """A unit quaternion (4,) float64 (|q| = 1 to _UNIT_TOL), else ValueError naming the deviation."""
     arr = _validate.point(name, value)
     dev = abs(float(np.linalg.norm(arr)) - 1.0)
-    if dev > UNIT_TOL:
+    if dev > _UNIT_TOL:
         raise ValueError(f"{name} must be a unit quaternion; found | |q| - 1 | = {dev:.3e}")
     return arr
 
@@ -409,7 +408,7 @@ def rotate(field, left, right=(1.0, 0.0, 0.0, 0.0)) -> Rotated:
     Returns:
       Rotated, a field with the same N (R = rotation_matrix(l, r)).
     Raises:
-      ValueError for quaternions not of shape (4,), not finite or not of unit length (UNIT_TOL);
+      ValueError for quaternions not of shape (4,), not finite or not of unit length (_UNIT_TOL);
       TypeError for non-real values.
     """
     return Rotated(field, left, right)
