@@ -58,10 +58,14 @@ def nonnegative_int(name: str, value) -> int:
 
 def finite_float(name: str, value) -> float:
     """A finite real number (booleans refused)."""
-    if _is_bool(value) or not isinstance(value, numbers.Real):
-        if not (isinstance(value, np.ndarray) and value.shape == () and np.issubdtype(value.dtype, np.number)
-                and not np.issubdtype(value.dtype, np.complexfloating)):
-            raise TypeError(f"{name} must be a real number; found {value!r} ({type(value).__name__})")
+    real_0d = (
+        isinstance(value, np.ndarray)
+        and value.shape == ()
+        and np.issubdtype(value.dtype, np.number)
+        and not np.issubdtype(value.dtype, np.complexfloating)
+    )
+    if (_is_bool(value) or not isinstance(value, numbers.Real)) and not real_0d:
+        raise TypeError(f"{name} must be a real number; found {value!r} ({type(value).__name__})")
     out = float(value)
     if not np.isfinite(out):
         raise ValueError(f"{name} must be finite; found {out!r}")

@@ -29,7 +29,12 @@ import numpy as np
 from . import _validate
 from . import quaternion as qt
 from ._pytree import PytreeFields
-from .conventions import CHARGE_DENSITY_FACTOR, E_MU, point_to_quaternion, quaternion_to_point
+from .conventions import (
+    CHARGE_DENSITY_FACTOR,
+    E_MU,
+    point_to_quaternion,
+    quaternion_to_point,
+)
 
 #: ADHM moduli as arrays (numpy, or jax tracers under jit/grad).
 Array = jax.Array | np.ndarray
@@ -178,14 +183,14 @@ class ADHMData(PytreeFields):
         return float(max(res, asym))
 
     # -- transformations (each returns new data) ---------------------------------------------
-    def _replace(self, **kw) -> "ADHMData":
+    def _replace(self, **kw) -> ADHMData:
         return dataclasses.replace(self, **kw)
 
-    def with_gauge(self, gauge: str) -> "ADHMData":
+    def with_gauge(self, gauge: str) -> ADHMData:
         """Same data, potential evaluated in the other gauge ('singular' or 'regular')."""
         return self._replace(gauge=gauge)
 
-    def rotate_gauge(self, orth) -> "ADHMData":
+    def rotate_gauge(self, orth) -> ADHMData:
         """O(k) redundancy: ``Lambda -> Lambda O``, ``B -> O^T B O`` (same field); orth: (k, k) real orthogonal."""
         o = _validate.real_array("orth", orth, (self.k, self.k))
         dev = float(np.max(np.abs(o.T @ o - np.eye(self.k))))
@@ -195,7 +200,7 @@ class ADHMData(PytreeFields):
         b = np.einsum("ji,jla,lk->ika", o, self.B, o)
         return self._replace(lam=lam, B=b)
 
-    def rotate_sp(self, q) -> "ADHMData":
+    def rotate_sp(self, q) -> ADHMData:
         """Global Sp(n) rotation ``Lambda -> Q Lambda``; q: (n, n, 4) quaternionic unitary, or (4,) unit quaternion for n = 1.
 
         The field changes by the constant gauge transformation Q (densities are unchanged).
@@ -210,7 +215,7 @@ class ADHMData(PytreeFields):
             raise ValueError(f"q must be in Sp({self.rank}); max |Q^dag Q - 1| = {dev:.3e}")
         return self._replace(lam=np.asarray(qt.qmat_mul(q, self.lam)))
 
-    def translate(self, shift) -> "ADHMData":
+    def translate(self, shift) -> ADHMData:
         """Data of the field translated by ``shift`` (4,): A'(x) = A(x - shift); B -> B + p(shift) 1."""
         s = _validate.point("shift", shift)
         ps = np.asarray(point_to_quaternion(s))
@@ -220,12 +225,12 @@ class ADHMData(PytreeFields):
         b[np.arange(self.k), np.arange(self.k)] += ps
         return self._replace(B=b)
 
-    def dilate(self, factor: float) -> "ADHMData":
+    def dilate(self, factor: float) -> ADHMData:
         """Data of the field dilated about the origin: A'(x) = A(x / c) / c; Lambda, B -> c Lambda, c B."""
         c = _validate.positive_float("factor", factor)
         return self._replace(lam=c * np.asarray(self.lam), B=c * np.asarray(self.B))
 
-    def conjugate(self) -> "ADHMData":
+    def conjugate(self) -> ADHMData:
         """The anti-self-dual partner (charge -k): the parity image x -> (-x1, -x2, -x3, x4).
 
         Same Lambda and B, chirality flipped, so Delta'(x) = Delta(Px) uses p-bar(x) = p(Px) and

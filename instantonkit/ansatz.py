@@ -323,7 +323,7 @@ def _caloron_ratio(z, b):
     ch = 0.5 * (1.0 + e * e)
     l1 = (ch - l0) / (2.0 * zl)
     l2 = (0.5 * l0 - 3.0 * l1) / (2.0 * zl)
-    sel = lambda p, q: jnp.where(small, p, q)  # noqa: E731
+    sel = lambda p, q: jnp.where(small, p, q)
     s0, s1, s2 = sel(s0, l0), sel(s1, l1), sel(s2, l2)
     d = sel(d_small, ch - e * jnp.cos(b))
     db = sel(jnp.sin(b), e * jnp.sin(b))
@@ -443,7 +443,7 @@ class BPSTField(PytreeFields):
     def charge(self) -> int:
         return 1
 
-    def with_gauge(self, gauge: str) -> "BPSTField":
+    def with_gauge(self, gauge: str) -> BPSTField:
         """Same instanton in the other gauge ('regular' or 'singular')."""
         return dataclasses.replace(self, gauge=gauge)
 

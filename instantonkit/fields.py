@@ -17,7 +17,8 @@ from __future__ import annotations
 
 import dataclasses
 import functools
-from typing import Any, Callable, Protocol, runtime_checkable
+from collections.abc import Callable
+from typing import Any, Protocol, runtime_checkable
 
 import jax
 import jax.numpy as jnp
@@ -185,7 +186,7 @@ class CallableField:
         """Field hook: one line for reports."""
         return f"callable potential {getattr(self.fn, '__name__', type(self.fn).__name__)}"
 
-    def wrapped_callable(self) -> "CallableField":
+    def wrapped_callable(self) -> CallableField:
         """Field hook: the bare callable at the core of a wrapper chain is this object."""
         return self
 
@@ -199,7 +200,7 @@ class CallableField:
 
 def as_field(obj):
     """Return ``obj`` if it has a ``potential`` method, wrap it if it is a plain callable, else TypeError."""
-    if hasattr(obj, "potential") and callable(getattr(obj, "potential")):
+    if hasattr(obj, "potential") and callable(obj.potential):
         return obj
     if callable(obj):
         return CallableField(obj)
@@ -266,7 +267,7 @@ def _point_fn(field, quantity: str, method: str) -> Callable:
     raise ValueError(f"unknown quantity {quantity!r}")
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def _kernel(quantity: str, method: str):
     """One jitted, vmapped kernel per (quantity, method); jax caches it per field structure."""
 

@@ -105,8 +105,10 @@ class InstantonFit:
         """A readable table: one row per instanton with centre, size and their one-sigma errors."""
         kind = "instanton" if self.sign == 1 else "anti-instanton"
         lines = [
-            f"{self.k} {kind}(s) fitted to {self.quantity} density samples "
-            f"(BPST superposition model; relative rms residual {self.rms:.2e}; {self.n_peaks} distinct peak(s))",
+            (
+                f"{self.k} {kind}(s) fitted to {self.quantity} density samples "
+                f"(BPST superposition model; relative rms residual {self.rms:.2e}; {self.n_peaks} distinct peak(s))"
+            ),
             f"{'#':>3} {'x1':>10} {'x2':>10} {'x3':>10} {'x4':>10} {'size':>10} {'+-centre':>10} {'+-size':>10}",
         ]
         dc = self.uncertainties["centers"]

@@ -132,8 +132,12 @@ def _adhm_from_moduli(draw, k: int, rank: int, spread: float, size_range):
         assume(False)
 
 
+#: Default charges drawn by :func:`adhm_data` (small k keeps the constraint solve fast).
+_DEFAULT_K = st.integers(1, 3)
+
+
 def adhm_data(
-    k=st.integers(1, 3),
+    k=_DEFAULT_K,
     rank=1,
     *,
     chirality=1,

@@ -30,7 +30,13 @@ from . import _validate
 from . import quaternion as qt
 from ._pytree import PytreeFields
 from .conventions import E_MU
-from .fields import action_from_f, as_field, charge_from_f, field_strength_from_potential, hook
+from .fields import (
+    action_from_f,
+    as_field,
+    charge_from_f,
+    field_strength_from_potential,
+    hook,
+)
 
 #: A point or parameter array the constructors accept (numpy or jax).
 Array = jax.Array | np.ndarray
