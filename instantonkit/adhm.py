@@ -64,6 +64,12 @@ _RANDOM_DRAWS = 20
 #: Gauss-Newton steps of the off-diagonal constraint solve (it converges quadratically in a few).
 _SOLVER_STEPS = 60
 
+#: Default target of the constraint solve: 100 times below CONSTRAINT_TOL, so solved data always validate.
+_SOLVE_TOL = 1e-12
+
+#: Floor of the length scale given by hint() (callers divide by it; real data never get near it).
+_MIN_SCALE = 1e-300
+
 _GAUGES = ("singular", "regular")
 
 
@@ -342,7 +348,7 @@ class ADHMData(PytreeFields):
         c = self.centers()
         rho = self.sizes()
         spread = float(np.max(np.linalg.norm(c - c.mean(0), axis=1))) if self.k > 1 else 0.0
-        return c.mean(axis=0), float(max(np.max(rho), spread, 1e-300))
+        return c.mean(axis=0), float(max(np.max(rho), spread, _MIN_SCALE))
 
 
 def _real_gram(lam, bp):
@@ -536,7 +542,7 @@ def _solve_offdiagonal(lam: np.ndarray, diag: np.ndarray, *, tol: float, max_ite
     return _assemble_b(diag, off, k), res, max_iter
 
 
-def multi_instanton(centers, sizes, orientations=None, *, rank: int = 1, tol: float = 1e-12) -> ADHMData:
+def multi_instanton(centers, sizes, orientations=None, *, rank: int = 1, tol: float = _SOLVE_TOL) -> ADHMData:
     """Exact charge-k Sp(n) ADHM data with given centres, sizes and orientations.
 
     centers: (k, 4) points a_i (the diagonal of B is p(a_i)); sizes: (k,) rho_i > 0 (or one number);

@@ -156,7 +156,7 @@ def hook(field, name: str):
 # -- inputs -----------------------------------------------------------------------------------------
 
 
-def as_points(points) -> tuple[np.ndarray, tuple[int, ...]]:
+def as_points(points: Array) -> tuple[np.ndarray, tuple[int, ...]]:
     """Validate points and flatten them: (..., 4) -> ((M, 4) float64 numpy array, leading shape).
 
     Args:
@@ -318,7 +318,7 @@ def output_shape(field, quantity: str, method: str = "auto") -> tuple[tuple[int,
     return tuple(st.shape[1:]), np.dtype(st.dtype)
 
 
-def evaluate(field, points, quantity: str, *, method: str = "auto", chunk_size: int = DEFAULT_CHUNK) -> np.ndarray:
+def evaluate(field, points: Array, quantity: str, *, method: str = "auto", chunk_size: int = DEFAULT_CHUNK) -> np.ndarray:
     """Evaluate ``quantity`` of ``field`` on ``points`` in chunks of compiled work.
 
     Args:
@@ -364,7 +364,7 @@ def evaluate(field, points, quantity: str, *, method: str = "auto", chunk_size: 
     return out.reshape(lead + probe.shape[1:])
 
 
-def potential(field, points, **kw) -> np.ndarray:
+def potential(field, points: Array, **kw) -> np.ndarray:
     """Gauge potential A_mu at points (anti-Hermitian, conventions module).
 
     Args:
@@ -379,7 +379,7 @@ def potential(field, points, **kw) -> np.ndarray:
     return evaluate(field, points, "potential", **kw)
 
 
-def field_strength(field, points, **kw) -> np.ndarray:
+def field_strength(field, points: Array, **kw) -> np.ndarray:
     """Field strength F_mu nu = d_mu A_nu - d_nu A_mu + [A_mu, A_nu] at points.
 
     Closed form when the field has one, else jax.jacfwd of the potential (``method="autodiff"`` forces it).
@@ -396,7 +396,7 @@ def field_strength(field, points, **kw) -> np.ndarray:
     return evaluate(field, points, "field_strength", **kw)
 
 
-def action_density(field, points, **kw) -> np.ndarray:
+def action_density(field, points: Array, **kw) -> np.ndarray:
     """Action density s(x) = -1/2 sum_{mu nu} tr F_mu nu F_mu nu at points (closed form when present).
 
     Args:
@@ -411,7 +411,7 @@ def action_density(field, points, **kw) -> np.ndarray:
     return evaluate(field, points, "action_density", **kw)
 
 
-def charge_density(field, points, **kw) -> np.ndarray:
+def charge_density(field, points: Array, **kw) -> np.ndarray:
     """Charge density q(x) = -1/(32 pi^2) eps_{mu nu rho sigma} tr F_mu nu F_rho sigma at points.
 
     Args:
@@ -426,7 +426,7 @@ def charge_density(field, points, **kw) -> np.ndarray:
     return evaluate(field, points, "charge_density", **kw)
 
 
-def self_duality_residual(field, points, **kw) -> np.ndarray:
+def self_duality_residual(field, points: Array, **kw) -> np.ndarray:
     """Pointwise |F - *F| / |F|, |F|^2 = sum_{mu nu} tr(F_mu nu^dag F_mu nu).
 
     0 for self-dual fields, 2 for anti-self-dual ones, and 0 by definition where F vanishes.

@@ -316,7 +316,7 @@ class Translated(_Wrapper):
         return centre + np.asarray(self.shift), scale
 
 
-def translate(field, shift) -> Translated:
+def translate(field, shift: Array) -> Translated:
     """Translate ``field`` by ``shift``: A'(x) = A(x - shift).
 
     Args:
@@ -405,7 +405,7 @@ class Rotated(_Wrapper):
         raise AttributeError("a rotated field has no period along x4 in general")
 
 
-def rotate(field, left, right=(1.0, 0.0, 0.0, 0.0)) -> Rotated:
+def rotate(field, left: Array, right: Array = (1.0, 0.0, 0.0, 0.0)) -> Rotated:
     """Rotate ``field`` by the SO(4) map p(x) -> l p(x) r-bar: A'_mu(x) = R_mu nu A_nu(R^T x).
 
     Args:
