@@ -6,8 +6,8 @@ starts.  Conventions: :mod:`instantonkit.conventions` and docs/conventions.md.
 from . import _config  # noqa: F401  (float64 before anything is traced)
 from . import conventions, quaternion
 from .adhm import ADHMData, block_sum, bpst, embed_sp, multi_instanton, random_adhm
-from .ansatz import anti, bpst_field, caloron, jnr, thooft
-from .transforms import dilate, gauge_transform, parity, rotate, translate
+from .ansatz import bpst_field, caloron, jnr, thooft
+from .transforms import anti, dilate, gauge_transform, parity, rotate, translate
 from .zero_modes import zero_mode_density, zero_mode_overlap, zero_modes
 from .finder import InstantonFit, find_instantons
 from .checks import (

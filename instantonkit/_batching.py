@@ -14,7 +14,7 @@ problem.  Callers that only need results to rounding may let the last batch shri
 
 from __future__ import annotations
 
-from typing import Callable, Sequence
+from collections.abc import Callable, Sequence
 
 import numpy as np
 

@@ -21,7 +21,10 @@ __all__ = [
     "real_array",
     "point",
     "points_array",
+    "points",
     "positive_vector",
+    "distinct_points",
+    "sign",
     "choice",
     "lattice_shape",
 ]
@@ -56,10 +59,14 @@ def nonnegative_int(name: str, value) -> int:
 
 def finite_float(name: str, value) -> float:
     """A finite real number (booleans refused)."""
-    if _is_bool(value) or not isinstance(value, numbers.Real):
-        if not (isinstance(value, np.ndarray) and value.shape == () and np.issubdtype(value.dtype, np.number)
-                and not np.issubdtype(value.dtype, np.complexfloating)):
-            raise TypeError(f"{name} must be a real number; found {value!r} ({type(value).__name__})")
+    real_0d = (
+        isinstance(value, np.ndarray)
+        and value.shape == ()
+        and np.issubdtype(value.dtype, np.number)
+        and not np.issubdtype(value.dtype, np.complexfloating)
+    )
+    if (_is_bool(value) or not isinstance(value, numbers.Real)) and not real_0d:
+        raise TypeError(f"{name} must be a real number; found {value!r} ({type(value).__name__})")
     out = float(value)
     if not np.isfinite(out):
         raise ValueError(f"{name} must be finite; found {out!r}")
@@ -97,15 +104,62 @@ def point(name: str, value) -> np.ndarray:
     return real_array(name, value, (4,))
 
 
-def points_array(name: str, value, *, min_count: int = 1) -> np.ndarray:
-    """A list of points: (m, 4) float64 with m >= min_count; a single (4,) point is promoted to (1, 4)."""
+def points_array(name: str, value, *, min_count: int = 1, shape_text: str = "(m, 4)") -> np.ndarray:
+    """A list of points: (m, 4) float64 with m >= min_count; a single (4,) point is promoted to (1, 4).
+
+    ``shape_text`` names the expected shape in messages (e.g. "(k, 4)" for k centres).
+    """
     arr = np.asarray(value)
     if arr.ndim == 1:
         arr = arr.reshape(1, -1)
-    arr = real_array(name, arr, (None, 4), shape_text="(m, 4)")
+    arr = real_array(name, arr, (None, 4), shape_text=shape_text)
     if arr.shape[0] < min_count:
         raise ValueError(f"{name} must hold at least {min_count} point(s); found {arr.shape[0]}")
     return arr
+
+
+def points(value, name: str = "points") -> tuple[np.ndarray, tuple[int, ...]]:
+    """Points (..., 4) flattened: ((M, 4) float64 numpy array, leading shape).
+
+    Raises TypeError for a jax tracer (points must be concrete here) or non-real input, and
+    ValueError for a wrong last axis or non-finite values (counting the bad points).
+    """
+    if is_tracer(value):
+        raise TypeError(f"{name} must be concrete arrays here; call a field's methods directly under jit")
+    arr = np.asarray(value)
+    if arr.dtype == object or arr.dtype == np.bool_ or not (
+        np.issubdtype(arr.dtype, np.floating) or np.issubdtype(arr.dtype, np.integer)
+    ):
+        raise TypeError(f"{name} must be a real numeric array; found dtype {arr.dtype}")
+    if arr.ndim < 1 or arr.shape[-1] != 4:
+        raise ValueError(f"{name} must have shape (..., 4); found {arr.shape}")
+    arr = arr.astype(np.float64, copy=False)
+    finite = np.isfinite(arr)
+    if not np.all(finite):
+        bad = int(np.sum(~np.all(finite, axis=-1)))
+        raise ValueError(f"{name} must be finite; found {bad} point(s) with NaN or inf")
+    return arr.reshape(-1, 4), arr.shape[:-1]
+
+
+def distinct_points(name: str, arr: np.ndarray, min_distance: float, *, noun: str = "points") -> np.ndarray:
+    """``arr`` (m, 4) unchanged when no two rows are closer than ``min_distance``, else ValueError.
+
+    The message names the closest pair: "centers 0 and 2 coincide (distance 0.000e+00); give distinct centers".
+    """
+    m = arr.shape[0]
+    if m > 1:
+        d = np.linalg.norm(arr[:, None] - arr[None], axis=-1) + np.diag(np.full(m, np.inf))
+        i, j = np.unravel_index(np.argmin(d), d.shape)
+        if d[i, j] < min_distance:
+            raise ValueError(f"{name} {i} and {j} coincide (distance {d[i, j]:.3e}); give distinct {noun}")
+    return arr
+
+
+def sign(name: str, value) -> int:
+    """+1 or -1 as an int (numpy integers accepted; booleans, floats and other values refused)."""
+    if _is_bool(value) or not isinstance(value, numbers.Integral) or value not in (1, -1):
+        raise ValueError(f"{name} must be +1 or -1; found {value!r}")
+    return int(value)
 
 
 def positive_vector(name: str, value, length: int) -> np.ndarray:

@@ -26,9 +26,18 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
+from . import _validate
 from . import quaternion as qt
 from ._pytree import PytreeFields
-from .conventions import CHARGE_DENSITY_FACTOR, E_MU, point_to_quaternion
+from .conventions import (
+    CHARGE_DENSITY_FACTOR,
+    E_MU,
+    point_to_quaternion,
+    quaternion_to_point,
+)
+
+#: ADHM moduli as arrays (numpy, or jax tracers under jit/grad).
+Array = jax.Array | np.ndarray
 
 __all__ = [
     "ADHMData",
@@ -43,27 +52,32 @@ __all__ = [
 #: Default tolerance on the ADHM constraint residual accepted at construction.
 CONSTRAINT_TOL = 1e-10
 
+#: Accepted deviation of orthogonal, Sp(n), SU(2) and unit-quaternion inputs (float64 rounding is ~1e-16).
+_UNIT_TOL = 1e-10
+
+#: Centres closer than this times max(1, largest size) count as coinciding (the constraint solve degenerates).
+_COINCIDENT_CENTRES = 1e-8
+
+#: Fresh draws random_adhm tries when the constraint solver fails for a draw (failures are rare).
+_RANDOM_DRAWS = 20
+
+#: Gauss-Newton steps of the off-diagonal constraint solve (it converges quadratically in a few).
+_SOLVER_STEPS = 60
+
+#: Default target of the constraint solve: 100 times below CONSTRAINT_TOL, so solved data always validate.
+_SOLVE_TOL = 1e-12
+
+#: Floor of the length scale given by hint() (callers divide by it; real data never get near it).
+_MIN_SCALE = 1e-300
+
 _GAUGES = ("singular", "regular")
 
 
-def _is_tracer(x) -> bool:
-    return isinstance(x, jax.core.Tracer)
-
-
-def _as_float_array(name: str, value, ndim: int) -> np.ndarray | jax.Array:
-    if _is_tracer(value):
+def _moduli(name: str, value, shape_text: str) -> Array:
+    """lam (n, k, 4) or B (k, k, 4) as a finite float64 array; a tracer passes unchecked."""
+    if _validate.is_tracer(value):
         return value
-    arr = np.asarray(value)
-    if not np.issubdtype(arr.dtype, np.number) or np.iscomplexobj(arr):
-        raise TypeError(f"{name} must be a real array; found dtype {arr.dtype}")
-    arr = arr.astype(np.float64)
-    if arr.ndim != ndim or arr.shape[-1] != 4:
-        expect = "(n, k, 4)" if name == "lam" else "(k, k, 4)"
-        raise ValueError(f"{name} must have shape {expect}; found {arr.shape}")
-    if not np.all(np.isfinite(arr)):
-        bad = int(np.sum(~np.isfinite(arr)))
-        raise ValueError(f"{name} must be finite; found {bad} non-finite entries")
-    return arr
+    return _validate.real_array(name, value, (None, None, 4), shape_text=shape_text)
 
 
 def _constraint_matrix(lam, b):
@@ -96,13 +110,11 @@ class ADHMData(PytreeFields):
     gauge: str = "singular"
 
     def __post_init__(self):
-        lam = _as_float_array("lam", self.lam, 3)
-        b = _as_float_array("B", self.B, 3)
-        if isinstance(self.chirality, bool) or not isinstance(self.chirality, (int, np.integer)) or self.chirality not in (1, -1):
-            raise ValueError(f"chirality must be +1 or -1; found {self.chirality!r}")
-        if self.gauge not in _GAUGES:
-            raise ValueError(f"gauge must be one of {_GAUGES}; found {self.gauge!r}")
-        if not (_is_tracer(lam) or _is_tracer(b)):
+        lam = _moduli("lam", self.lam, "(n, k, 4)")
+        b = _moduli("B", self.B, "(k, k, 4)")
+        object.__setattr__(self, "chirality", _validate.sign("chirality", self.chirality))
+        _validate.choice("gauge", self.gauge, _GAUGES)
+        if not _validate.is_tracer(lam, b):
             n, k = lam.shape[0], lam.shape[1]
             if n < 1 or k < 1:
                 raise ValueError(f"lam must have n >= 1 rows and k >= 1 columns; found {lam.shape}")
@@ -155,8 +167,6 @@ class ADHMData(PytreeFields):
         diag = np.asarray(self.B)[np.arange(self.k), np.arange(self.k)]
         if self.chirality == -1:
             diag = np.asarray(qt.qconj(diag))
-        from .conventions import quaternion_to_point
-
         return np.asarray(quaternion_to_point(diag))
 
     def sizes(self) -> np.ndarray:
@@ -179,45 +189,41 @@ class ADHMData(PytreeFields):
         return float(max(res, asym))
 
     # -- transformations (each returns new data) ---------------------------------------------
-    def _replace(self, **kw) -> "ADHMData":
+    def _replace(self, **kw) -> ADHMData:
         return dataclasses.replace(self, **kw)
 
-    def with_gauge(self, gauge: str) -> "ADHMData":
+    def with_gauge(self, gauge: str) -> ADHMData:
         """Same data, potential evaluated in the other gauge ('singular' or 'regular')."""
         return self._replace(gauge=gauge)
 
-    def rotate_gauge(self, orth) -> "ADHMData":
+    def rotate_gauge(self, orth) -> ADHMData:
         """O(k) redundancy: ``Lambda -> Lambda O``, ``B -> O^T B O`` (same field); orth: (k, k) real orthogonal."""
-        o = np.asarray(orth, dtype=np.float64)
-        if o.shape != (self.k, self.k):
-            raise ValueError(f"orth must have shape {(self.k, self.k)}; found {o.shape}")
+        o = _validate.real_array("orth", orth, (self.k, self.k))
         dev = float(np.max(np.abs(o.T @ o - np.eye(self.k))))
-        if dev > 1e-10:
+        if dev > _UNIT_TOL:
             raise ValueError(f"orth must be orthogonal; max |O^T O - 1| = {dev:.3e}")
         lam = np.einsum("nja,jk->nka", self.lam, o)
         b = np.einsum("ji,jla,lk->ika", o, self.B, o)
         return self._replace(lam=lam, B=b)
 
-    def rotate_sp(self, q) -> "ADHMData":
+    def rotate_sp(self, q) -> ADHMData:
         """Global Sp(n) rotation ``Lambda -> Q Lambda``; q: (n, n, 4) quaternionic unitary, or (4,) unit quaternion for n = 1.
 
         The field changes by the constant gauge transformation Q (densities are unchanged).
         """
-        q = np.asarray(q, dtype=np.float64)
+        q = _validate.real_array("q", q)
         if q.shape == (4,) and self.rank == 1:
             q = q[None, None]
         if q.shape != (self.rank, self.rank, 4):
             raise ValueError(f"q must have shape {(self.rank, self.rank, 4)}; found {q.shape}")
         dev = float(np.max(np.abs(np.asarray(qt.qmat_mul(qt.qmat_dagger(q), q)) - np.asarray(qt.qmat_identity(self.rank)))))
-        if dev > 1e-10:
+        if dev > _UNIT_TOL:
             raise ValueError(f"q must be in Sp({self.rank}); max |Q^dag Q - 1| = {dev:.3e}")
         return self._replace(lam=np.asarray(qt.qmat_mul(q, self.lam)))
 
-    def translate(self, shift) -> "ADHMData":
+    def translate(self, shift) -> ADHMData:
         """Data of the field translated by ``shift`` (4,): A'(x) = A(x - shift); B -> B + p(shift) 1."""
-        s = np.asarray(shift, dtype=np.float64)
-        if s.shape != (4,) or not np.all(np.isfinite(s)):
-            raise ValueError(f"shift must be a finite point of shape (4,); found {s.shape}")
+        s = _validate.point("shift", shift)
         ps = np.asarray(point_to_quaternion(s))
         if self.chirality == -1:
             ps = np.asarray(qt.qconj(ps))
@@ -225,14 +231,12 @@ class ADHMData(PytreeFields):
         b[np.arange(self.k), np.arange(self.k)] += ps
         return self._replace(B=b)
 
-    def dilate(self, factor: float) -> "ADHMData":
+    def dilate(self, factor: float) -> ADHMData:
         """Data of the field dilated about the origin: A'(x) = A(x / c) / c; Lambda, B -> c Lambda, c B."""
-        c = float(factor)
-        if not np.isfinite(c) or c <= 0:
-            raise ValueError(f"dilation factor must be finite and > 0; found {factor!r}")
+        c = _validate.positive_float("factor", factor)
         return self._replace(lam=c * np.asarray(self.lam), B=c * np.asarray(self.B))
 
-    def conjugate(self) -> "ADHMData":
+    def conjugate(self) -> ADHMData:
         """The anti-self-dual partner (charge -k): the parity image x -> (-x1, -x2, -x3, x4).
 
         Same Lambda and B, chirality flipped, so Delta'(x) = Delta(Px) uses p-bar(x) = p(Px) and
@@ -254,9 +258,7 @@ class ADHMData(PytreeFields):
 
     def delta(self, points):
         """Delta(x) = [Lambda ; B - p(x) 1_k] at points (..., 4) -> (..., n + k, k, 4) float64."""
-        from .fields import as_points
-
-        pts, lead = as_points(points)
+        pts, lead = _validate.points(points)
         out = jax.vmap(self._delta_at)(pts)
         return np.asarray(out).reshape(lead + out.shape[1:])
 
@@ -346,7 +348,7 @@ class ADHMData(PytreeFields):
         c = self.centers()
         rho = self.sizes()
         spread = float(np.max(np.linalg.norm(c - c.mean(0), axis=1))) if self.k > 1 else 0.0
-        return c.mean(axis=0), float(max(np.max(rho), spread, 1e-300))
+        return c.mean(axis=0), float(max(np.max(rho), spread, _MIN_SCALE))
 
     @property
     def closed_link(self):
@@ -427,26 +429,10 @@ def _quat_cholesky_inverse(gram):
 
 
 def _check_centers_sizes(centers, sizes):
-    c = np.asarray(centers, dtype=np.float64)
-    if c.ndim == 1 and c.shape == (4,):
-        c = c[None]
-    if c.ndim != 2 or c.shape[1] != 4 or c.shape[0] < 1:
-        raise ValueError(f"centers must have shape (k, 4); found {np.shape(centers)}")
-    if not np.all(np.isfinite(c)):
-        raise ValueError(f"centers must be finite; found {int(np.sum(~np.isfinite(c)))} non-finite entries")
-    k = c.shape[0]
-    r = np.asarray(sizes, dtype=np.float64)
-    if r.ndim == 0:
-        r = np.full(k, float(r))
-    if r.shape != (k,):
-        raise ValueError(f"sizes must have shape (k,) = ({k},); found {r.shape}")
-    if not np.all(np.isfinite(r)) or np.any(r <= 0):
-        raise ValueError(f"sizes must be finite and > 0; found min {np.min(r)!r}")
-    if k > 1:
-        d = np.linalg.norm(c[:, None] - c[None], axis=-1) + np.diag(np.full(k, np.inf))
-        i, j = np.unravel_index(np.argmin(d), d.shape)
-        if d[i, j] < 1e-8 * max(1.0, float(np.max(r))):
-            raise ValueError(f"centers {i} and {j} coincide (distance {d[i, j]:.3e}); give distinct centers")
+    """centers (k, 4) (a single (4,) point promoted) and sizes (k,) > 0 (one number broadcast), distinct centres."""
+    c = _validate.points_array("centers", centers, shape_text="(k, 4)")
+    r = _validate.positive_vector("sizes", sizes, c.shape[0])
+    _validate.distinct_points("centers", c, _COINCIDENT_CENTRES * max(1.0, float(np.max(r))), noun="centers")
     return c, r
 
 
@@ -464,13 +450,13 @@ def _unit_orientations(orientations, k: int, rank: int) -> np.ndarray:
             raise ValueError(f"SU(2) orientations must have shape (k, 2, 2) = ({k}, 2, 2); found {o.shape}")
         dev = float(np.max(np.abs(np.einsum("kji,kjl->kil", o.conj(), o) - np.eye(2))))
         det = float(np.max(np.abs(np.linalg.det(o) - 1.0)))
-        if max(dev, det) > 1e-10:
+        if max(dev, det) > _UNIT_TOL:
             raise ValueError(f"orientation matrices must be in SU(2); max deviation {max(dev, det):.3e}")
         q = np.asarray(qt.from_matrix(o))
         o = np.zeros((k, rank, 4))
         o[:, 0] = q
         return o
-    o = o.astype(np.float64)
+    o = _validate.real_array("orientations", o)
     if o.shape == (4,) and k == 1:
         o = o[None]
     if o.shape == (k, 4):
@@ -479,11 +465,9 @@ def _unit_orientations(orientations, k: int, rank: int) -> np.ndarray:
         o = full
     if o.shape != (k, rank, 4):
         raise ValueError(f"orientations must have shape (k, 4) or (k, n, 4) = ({k}, {rank}, 4); found {o.shape}")
-    if not np.all(np.isfinite(o)):
-        raise ValueError("orientations must be finite")
     norms = np.sqrt(np.sum(o**2, axis=(1, 2)))
     dev = float(np.max(np.abs(norms - 1.0)))
-    if dev > 1e-10:
+    if dev > _UNIT_TOL:
         raise ValueError(f"orientations must be unit quaternions (vectors); max | |u| - 1 | = {dev:.3e}")
     return o
 
@@ -491,15 +475,21 @@ def _unit_orientations(orientations, k: int, rank: int) -> np.ndarray:
 def bpst(center=(0.0, 0.0, 0.0, 0.0), size: float = 1.0, orientation=(1.0, 0.0, 0.0, 0.0)) -> ADHMData:
     """Charge-1 SU(2) ADHM data of the BPST instanton: Lambda = rho u, B = p(a).
 
-    center: (4,) point a; size: rho > 0; orientation: unit quaternion (4,) or SU(2) matrix (2, 2).
     Then Delta^dag Delta = (|x - a|^2 + rho^2) 1 (Belavin, Polyakov, Schwartz, Tyupkin,
     Phys. Lett. B 59 (1975) 85).
+
+    Args:
+      center: (4,) point a.
+      size: rho > 0, a real number.
+      orientation: unit quaternion (4,) or SU(2) matrix (2, 2).
+    Returns:
+      ADHMData with lam (1, 1, 4) and B (1, 1, 4); charge +1.
+    Raises:
+      ValueError for a centre not of shape (4,) or not finite, rho <= 0 or not finite, or an
+      orientation that is not a unit quaternion / SU(2) matrix; TypeError for non-real input.
     """
-    if np.shape(center) != (4,):
-        raise ValueError(f"center must have shape (4,); found {np.shape(center)}")
-    if np.ndim(size) != 0:
-        raise ValueError(f"size must be a number; found shape {np.shape(size)}")
-    c, r = _check_centers_sizes(np.reshape(center, (1, 4)), [size])
+    c = _validate.point("center", center)[None]
+    r = np.array([_validate.positive_float("size", size)])
     o = np.asarray(orientation)
     u = _unit_orientations(o[None] if o.shape == (4,) else o, 1, 1)
     lam = r[None, :, None] * np.swapaxes(u, 0, 1)
@@ -524,7 +514,7 @@ def _constraint_vector(lam, b, pairs):
     return np.concatenate([c[i, j, 1:] for (i, j) in pairs]) if pairs else np.zeros(0)
 
 
-def _solve_offdiagonal(lam: np.ndarray, diag: np.ndarray, *, tol: float, max_iter: int = 60):
+def _solve_offdiagonal(lam: np.ndarray, diag: np.ndarray, *, tol: float, max_iter: int = _SOLVER_STEPS):
     """Solve Im(Lambda^dag Lambda + B^dag B)_{i<j} = 0 for the off-diagonal quaternions of B.
 
     Gauss-Newton with minimum-norm steps (numpy lstsq) from B_off = 0; the residual is quadratic in
@@ -567,7 +557,7 @@ def _solve_offdiagonal(lam: np.ndarray, diag: np.ndarray, *, tol: float, max_ite
     return _assemble_b(diag, off, k), res, max_iter
 
 
-def multi_instanton(centers, sizes, orientations=None, *, rank: int = 1, tol: float = 1e-12) -> ADHMData:
+def multi_instanton(centers, sizes, orientations=None, *, rank: int = 1, tol: float = _SOLVE_TOL) -> ADHMData:
     """Exact charge-k Sp(n) ADHM data with given centres, sizes and orientations.
 
     centers: (k, 4) points a_i (the diagonal of B is p(a_i)); sizes: (k,) rho_i > 0 (or one number);
@@ -575,13 +565,25 @@ def multi_instanton(centers, sizes, orientations=None, *, rank: int = 1, tol: fl
     quaternionic unit vectors (the directions of the columns of Lambda); rank: n of Sp(n).
     The 2k(k-1) real off-diagonal entries of B are solved (minimum-norm Gauss-Newton) so that the
     3k(k-1)/2 real constraint equations hold to ``tol`` (scaled by 1 + max rho^2 + max |a|^2).
-    Raises ValueError when no solution is found (for example centres too close for the sizes).
+
+    Args:
+      centers: (k, 4) float64 points a_i, distinct (a single (4,) point means k = 1).
+      sizes: (k,) float64 rho_i > 0, or one number for all.
+      orientations: None, (k, 4), (k, 2, 2) complex or (k, n, 4) (see above).
+      rank: n >= 1 of Sp(n) (1 is SU(2)).
+      tol: tolerance > 0 of the constraint solve (relative, see above).
+    Returns:
+      ADHMData with lam (n, k, 4) and B (k, k, 4); charge +k.
+    Raises:
+      ValueError for bad shapes, non-finite or non-positive values, coinciding centres,
+      non-unit orientations, or when no solution is found (for example centres too close for the
+      sizes); TypeError for a non-integer (or boolean) rank or non-real arrays.
     """
-    if not isinstance(rank, (int, np.integer)) or rank < 1:
-        raise ValueError(f"rank must be an integer >= 1; found {rank!r}")
+    rank = _validate.positive_int("rank", rank)
+    tol = _validate.positive_float("tol", tol)
     c, r = _check_centers_sizes(centers, sizes)
     k = c.shape[0]
-    u = _unit_orientations(orientations, k, int(rank))  # (k, n, 4)
+    u = _unit_orientations(orientations, k, rank)  # (k, n, 4)
     lam = np.swapaxes(u, 0, 1) * r[None, :, None]
     diag = np.asarray(point_to_quaternion(c))
     scale = 1.0 + float(np.max(r) ** 2 + np.max(np.sum(c**2, axis=1)))
@@ -597,27 +599,55 @@ def multi_instanton(centers, sizes, orientations=None, *, rank: int = 1, tol: fl
 def random_adhm(k: int, rank: int = 1, *, seed=0, spread: float = 2.0, size_range=(0.5, 1.5)) -> ADHMData:
     """Random valid charge-k Sp(n) data: centres ~ N(0, spread^2), sizes ~ U(size_range), Haar orientations.
 
-    Reproducible for a given ``seed`` (int or numpy Generator).  Retries new draws (up to 20)
-    when the constraint solver fails for a draw.
+    Reproducible for a given ``seed`` (int or numpy Generator).  Retries new draws (up to
+    _RANDOM_DRAWS) when the constraint solver fails for a draw.
+
+    Args:
+      k: charge, an integer >= 1.
+      rank: n >= 1 of Sp(n).
+      seed: int, None or numpy Generator.
+      spread: standard deviation > 0 of the centres.
+      size_range: (low, high) of the uniform sizes, 0 < low <= high.
+    Returns:
+      ADHMData with lam (n, k, 4) and B (k, k, 4); charge +k.
+    Raises:
+      TypeError / ValueError for bad arguments (naming them); ValueError when no draw succeeds.
     """
-    if not isinstance(k, (int, np.integer)) or k < 1:
-        raise ValueError(f"k must be an integer >= 1; found {k!r}")
+    k = _validate.positive_int("k", k)
+    rank = _validate.positive_int("rank", rank)
+    spread = _validate.positive_float("spread", spread)
+    low, high = (_validate.positive_float("size_range", v) for v in size_range)
+    if low > high:
+        raise ValueError(f"size_range must be (low, high) with low <= high; found {tuple(size_range)!r}")
     rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)
     last = None
-    for _ in range(20):
+    for _ in range(_RANDOM_DRAWS):
         centers = rng.normal(scale=spread, size=(k, 4))
-        sizes = rng.uniform(*size_range, size=k)
+        sizes = rng.uniform(low, high, size=k)
         o = rng.normal(size=(k, rank, 4))
         o /= np.sqrt(np.sum(o**2, axis=(1, 2), keepdims=True))
         try:
             return multi_instanton(centers, sizes, o, rank=rank)
         except ValueError as err:  # pragma: no cover - rare
             last = err
-    raise ValueError(f"random_adhm failed to find valid data in 20 draws: {last}")
+    raise ValueError(f"random_adhm failed to find valid data in {_RANDOM_DRAWS} draws: {last}")
 
 
 def embed_sp(data: ADHMData, rank: int, row: int = 0) -> ADHMData:
-    """Embed Sp(n) data into Sp(rank), rank >= n, by padding Lambda with zero rows (rows row..row+n-1 hold it)."""
+    """Embed Sp(n) data into Sp(rank), rank >= n, by padding Lambda with zero rows (rows row..row+n-1 hold it).
+
+    Args:
+      data: ADHMData of Sp(n), lam (n, k, 4).
+      rank: target rank >= n (an integer).
+      row: first row of Lambda holding the data, 0 <= row <= rank - n.
+    Returns:
+      ADHMData with lam (rank, k, 4), the same B, chirality and gauge; the field is the Sp(n) one
+      in the block of colours 2 row .. 2 (row + n) - 1, zero elsewhere.
+    Raises:
+      TypeError for a non-integer (or boolean) rank or row; ValueError when the data do not fit.
+    """
+    rank = _validate.positive_int("rank", rank)
+    row = _validate.nonnegative_int("row", row)
     if rank < data.rank or row < 0 or row + data.rank > rank:
         raise ValueError(f"cannot embed Sp({data.rank}) data at row {row} into Sp({rank})")
     lam = np.zeros((rank, data.k, 4))
@@ -632,7 +662,17 @@ def block_sum(first: ADHMData, second: ADHMData, *, stack_ranks: bool = False, t
     always exact.  Otherwise both must have the same rank and the sum is exact only when
     Lambda_1^dag Lambda_2 is real; if not, a ValueError reports the violation (use
     :func:`multi_instanton` to re-solve the combined constraint).
+
+    Args:
+      first, second: ADHMData with lam (n1, k1, 4), (n2, k2, 4) of the same chirality.
+      stack_ranks: put the two in separate colour blocks (Sp(n1 + n2)) instead of side by side.
+      tol: accepted |Im(Lambda_1^dag Lambda_2)| (> 0), also the tolerance of the result.
+    Returns:
+      ADHMData with lam (n, k1 + k2, 4) (n = n1 = n2, or n1 + n2 when stacked) and B (k1 + k2, k1 + k2, 4).
+    Raises:
+      ValueError for different chiralities, different ranks (unstacked) or an inexact sum.
     """
+    tol = _validate.positive_float("tol", tol)
     if first.chirality != second.chirality:
         raise ValueError("block_sum needs data of the same chirality")
     k1, k2 = first.k, second.k

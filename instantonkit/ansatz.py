@@ -1,4 +1,4 @@
-"""Classic instanton ansaetze as fields: 't Hooft, Jackiw-Nohl-Rebbi, Harrington-Shepard, BPST, and anti().
+"""Classic instanton ansaetze as fields: 't Hooft, Jackiw-Nohl-Rebbi, Harrington-Shepard, BPST.
 
 Every object here is a frozen dataclass registered as a jax pytree (numeric parameters are leaves),
 implements the field protocol of :mod:`instantonkit.fields` with closed forms, and has ``hint()``
@@ -37,7 +37,9 @@ at a pole the potential, field strength and the scalar-ansatz densities evaluate
 (:func:`instantonkit.fields.evaluate`) raises a ValueError naming the point.  The closed-form BPST
 densities are gauge invariant and return their finite value ``48 / rho^4`` at the centre in both gauges.
 
-The anti-self-dual partners are the parity images (:func:`anti`, :func:`instantonkit.transforms.parity`).
+The anti-self-dual partners are the parity images (:func:`instantonkit.transforms.anti`, which wraps
+these fields in :func:`instantonkit.transforms.parity`; for the scalar ansaetze the image is the
+eta-form ansatz A'_mu = -1/2 eta_{a mu nu} d_nu log(phi o P) u_a, since P eta-bar_a P = eta_a).
 """
 
 from __future__ import annotations
@@ -49,6 +51,7 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
+from . import _validate
 from . import quaternion as qt
 from ._pytree import PytreeFields
 from .adhm import charge_one_link
@@ -63,7 +66,6 @@ __all__ = [
     "jnr",
     "caloron",
     "bpst_field",
-    "anti",
     "ANSATZ_COUPLING",
 ]
 
@@ -79,65 +81,25 @@ _UNITS_C = QUATERNION_BASIS[1:]  # (3, 2, 2): images of i, j, k
 _GAUGES = ("regular", "singular")
 
 
-def _is_tracer(*values) -> bool:
-    return any(isinstance(v, jax.core.Tracer) for v in values)
-
-
 # -- validation helpers ---------------------------------------------------------------------------
 
+#: Poles closer than this times max(1, max |coordinate|) count as coinciding (phi would lose a pole).
+_COINCIDENT_POLES = 1e-12
 
-def _real_array(name: str, value, shape_text: str) -> np.ndarray:
-    arr = np.asarray(value)
-    if arr.dtype == object or np.iscomplexobj(arr) or not np.issubdtype(arr.dtype, np.number):
-        raise TypeError(f"{name} must be a real array {shape_text}; found dtype {arr.dtype}")
-    arr = arr.astype(np.float64)
-    if not np.all(np.isfinite(arr)):
-        raise ValueError(f"{name} must be finite; found {int(np.sum(~np.isfinite(arr)))} non-finite entries")
-    return arr
+#: Accepted deviation of an orientation from SU(2) / from |u| = 1 (float64 rounding is ~1e-16).
+_UNIT_TOL = 1e-10
 
 
-def _points_array(name: str, value, min_count: int) -> np.ndarray:
-    arr = _real_array(name, value, "(k, 4)")
-    if arr.ndim == 1 and arr.shape == (4,):
-        arr = arr[None]
-    if arr.ndim != 2 or arr.shape[1] != 4:
-        raise ValueError(f"{name} must have shape (k, 4); found {arr.shape}")
-    if arr.shape[0] < min_count:
-        raise ValueError(f"{name} needs at least {min_count} point(s); found {arr.shape[0]}")
-    k = arr.shape[0]
-    if k > 1:
-        d = np.linalg.norm(arr[:, None] - arr[None], axis=-1) + np.diag(np.full(k, np.inf))
-        i, j = np.unravel_index(np.argmin(d), d.shape)
-        if d[i, j] < 1e-12 * max(1.0, float(np.max(np.abs(arr)))):
-            raise ValueError(f"{name} {i} and {j} coincide (distance {d[i, j]:.3e}); give distinct points")
-    return arr
-
-
-def _positive_vector(name: str, value, k: int) -> np.ndarray:
-    arr = _real_array(name, value, f"({k},)")
-    if arr.ndim == 0:
-        arr = np.full(k, float(arr))
-    if arr.shape != (k,):
-        raise ValueError(f"{name} must have shape ({k},) to match the points; found {arr.shape}")
-    if np.any(arr <= 0):
-        raise ValueError(f"{name} must be > 0; found min {float(np.min(arr))!r}")
-    return arr
+def _poles(name: str, value, min_count: int) -> np.ndarray:
+    """(k, 4) float64 distinct points (a single (4,) point promoted), at least ``min_count`` of them."""
+    arr = _validate.points_array(name, value, min_count=min_count, shape_text="(k, 4)")
+    scale = max(1.0, float(np.max(np.abs(arr))))
+    return _validate.distinct_points(name, arr, _COINCIDENT_POLES * scale)
 
 
 def _positive_scalar(name: str, value) -> np.ndarray:
-    arr = _real_array(name, value, "()")
-    if arr.ndim != 0:
-        raise ValueError(f"{name} must be a number; found shape {arr.shape}")
-    if not arr > 0:
-        raise ValueError(f"{name} must be > 0; found {float(arr)!r}")
-    return arr
-
-
-def _point(name: str, value) -> np.ndarray:
-    arr = _real_array(name, value, "(4,)")
-    if arr.shape != (4,):
-        raise ValueError(f"{name} must have shape (4,); found {arr.shape}")
-    return arr
+    """A number > 0 as a 0-d float64 array (the pytree leaf)."""
+    return np.asarray(_validate.positive_float(name, _validate.real_array(name, value, ())))
 
 
 def _unit_quaternion(value) -> np.ndarray:
@@ -147,14 +109,14 @@ def _unit_quaternion(value) -> np.ndarray:
         if arr.shape != (2, 2):
             raise ValueError(f"an SU(2) orientation must have shape (2, 2); found {arr.shape}")
         dev = float(np.max(np.abs(arr.conj().T @ arr - np.eye(2))) + abs(np.linalg.det(arr) - 1.0))
-        if dev > 1e-10:
+        if dev > _UNIT_TOL:
             raise ValueError(f"orientation matrix must be in SU(2); deviation {dev:.3e}")
         return np.asarray(qt.from_matrix(arr))
-    arr = _real_array("orientation", arr, "(4,)")
+    arr = _validate.real_array("orientation", arr)
     if arr.shape != (4,):
         raise ValueError(f"orientation must be a unit quaternion of shape (4,) or an SU(2) matrix; found {arr.shape}")
     dev = abs(float(np.sqrt(np.sum(arr**2))) - 1.0)
-    if dev > 1e-10:
+    if dev > _UNIT_TOL:
         raise ValueError(f"orientation must be a unit quaternion; found | |u| - 1 | = {dev:.3e}")
     return arr
 
@@ -238,11 +200,11 @@ class ThooftField(_ScalarAnsatz):
     sizes: jax.Array
 
     def __post_init__(self):
-        if _is_tracer(self.centers, self.sizes):
+        if _validate.is_tracer(self.centers, self.sizes):
             return
-        c = _points_array("centers", self.centers, 1)
+        c = _poles("centers", self.centers, 1)
         object.__setattr__(self, "centers", c)
-        object.__setattr__(self, "sizes", _positive_vector("sizes", self.sizes, c.shape[0]))
+        object.__setattr__(self, "sizes", _validate.positive_vector("sizes", self.sizes, c.shape[0]))
 
     _leaves = ("centers", "sizes")
 
@@ -288,11 +250,11 @@ class JNRField(_ScalarAnsatz):
     weights: jax.Array
 
     def __post_init__(self):
-        if _is_tracer(self.poles, self.weights):
+        if _validate.is_tracer(self.poles, self.weights):
             return
-        p = _points_array("poles", self.poles, 2)
+        p = _poles("poles", self.poles, 2)
         object.__setattr__(self, "poles", p)
-        object.__setattr__(self, "weights", _positive_vector("weights", self.weights, p.shape[0]))
+        object.__setattr__(self, "weights", _validate.positive_vector("weights", self.weights, p.shape[0]))
 
     _leaves = ("poles", "weights")
 
@@ -362,7 +324,7 @@ def _caloron_ratio(z, b):
     ch = 0.5 * (1.0 + e * e)
     l1 = (ch - l0) / (2.0 * zl)
     l2 = (0.5 * l0 - 3.0 * l1) / (2.0 * zl)
-    sel = lambda p, q: jnp.where(small, p, q)  # noqa: E731
+    sel = lambda p, q: jnp.where(small, p, q)
     s0, s1, s2 = sel(s0, l0), sel(s1, l1), sel(s2, l2)
     d = sel(d_small, ch - e * jnp.cos(b))
     db = sel(jnp.sin(b), e * jnp.sin(b))
@@ -420,11 +382,11 @@ class CaloronField(_ScalarAnsatz):
     center: jax.Array
 
     def __post_init__(self):
-        if _is_tracer(self.size, self.period, self.center):
+        if _validate.is_tracer(self.size, self.period, self.center):
             return
         object.__setattr__(self, "size", _positive_scalar("size", self.size))
         object.__setattr__(self, "period", _positive_scalar("period", self.period))
-        object.__setattr__(self, "center", _point("center", self.center))
+        object.__setattr__(self, "center", _validate.point("center", self.center))
 
     _leaves = ("size", "period", "center")
 
@@ -468,11 +430,10 @@ class BPSTField(PytreeFields):
     gauge: str = "regular"
 
     def __post_init__(self):
-        if self.gauge not in _GAUGES:
-            raise ValueError(f"gauge must be one of {_GAUGES}; found {self.gauge!r}")
-        if _is_tracer(self.center, self.size, self.orientation):
+        _validate.choice("gauge", self.gauge, _GAUGES)
+        if _validate.is_tracer(self.center, self.size, self.orientation):
             return
-        object.__setattr__(self, "center", _point("center", self.center))
+        object.__setattr__(self, "center", _validate.point("center", self.center))
         object.__setattr__(self, "size", _positive_scalar("size", self.size))
         object.__setattr__(self, "orientation", _unit_quaternion(self.orientation))
 
@@ -483,7 +444,7 @@ class BPSTField(PytreeFields):
     def charge(self) -> int:
         return 1
 
-    def with_gauge(self, gauge: str) -> "BPSTField":
+    def with_gauge(self, gauge: str) -> BPSTField:
         """Same instanton in the other gauge ('regular' or 'singular')."""
         return dataclasses.replace(self, gauge=gauge)
 
@@ -541,45 +502,65 @@ class BPSTField(PytreeFields):
 
 
 def thooft(centers, sizes) -> ThooftField:
-    """'t Hooft ansatz with poles at ``centers`` (k, 4) and sizes ``sizes`` (k,) (or one number); charge +k."""
+    """'t Hooft ansatz phi = 1 + sum_i rho_i^2 / |x - a_i|^2 (singular gauge); charge +k.
+
+    Args:
+      centers: (k, 4) float64 distinct poles a_i (a single (4,) point means k = 1).
+      sizes: (k,) float64 rho_i > 0, or one number for all.
+    Returns:
+      ThooftField, a field of N = 2 with closed forms.
+    Raises:
+      ValueError for bad shapes, non-finite values, sizes <= 0 or coinciding centres;
+      TypeError for non-real (complex, boolean) arrays.
+    """
     return ThooftField(centers, sizes)
 
 
 def jnr(poles, weights) -> JNRField:
-    """Jackiw-Nohl-Rebbi ansatz with ``poles`` (k + 1, 4), k + 1 >= 2, and ``weights`` lambda_i (k + 1,); charge +k.
+    """Jackiw-Nohl-Rebbi ansatz phi = sum_i lambda_i^2 / |x - y_i|^2 over k + 1 poles; charge +k.
 
-    phi = sum_i lambda_i^2 / |x - y_i|^2 (Jackiw, Nohl, Rebbi, Phys. Rev. D 15 (1977) 1642).
+    (Jackiw, Nohl, Rebbi, Phys. Rev. D 15 (1977) 1642.)
+
+    Args:
+      poles: (k + 1, 4) float64 distinct points y_i, k + 1 >= 2.
+      weights: (k + 1,) float64 lambda_i > 0, or one number for all.
+    Returns:
+      JNRField, a field of N = 2 with closed forms.
+    Raises:
+      ValueError for fewer than 2 poles, bad shapes, non-finite values, weights <= 0 or coinciding
+      poles; TypeError for non-real arrays.
     """
     return JNRField(poles, weights)
 
 
 def caloron(size, period, center=(0.0, 0.0, 0.0, 0.0)) -> CaloronField:
-    """Harrington-Shepard caloron of size rho and period beta in x4 about ``center``; charge +1 per period."""
+    """Harrington-Shepard caloron of size rho and period beta in x4 about ``center``; charge +1 per period.
+
+    Args:
+      size: rho > 0, a real number.
+      period: beta > 0, a real number.
+      center: (4,) float64 point c.
+    Returns:
+      CaloronField, a field of N = 2 with closed forms, periodic in x4.
+    Raises:
+      ValueError for rho or beta <= 0 or not finite, or a centre not of shape (4,);
+      TypeError for non-real (or boolean) values.
+    """
     return CaloronField(size, period, center)
 
 
 def bpst_field(center=(0.0, 0.0, 0.0, 0.0), size=1.0, gauge: str = "regular", orientation=(1.0, 0.0, 0.0, 0.0)) -> BPSTField:
     """Closed-form BPST instanton; gauge 'regular' (smooth) or 'singular' (singular at the centre).
 
-    orientation: unit quaternion (4,) or SU(2) matrix (2, 2), acting as the global gauge rotation Omega.
+    Args:
+      center: (4,) float64 point a.
+      size: rho > 0, a real number.
+      gauge: 'regular' or 'singular'.
+      orientation: unit quaternion (4,) or SU(2) matrix (2, 2), acting as the global gauge rotation Omega.
+    Returns:
+      BPSTField, a field of N = 2 with closed forms; charge +1.
+    Raises:
+      ValueError for a bad centre, rho <= 0, an unknown gauge or a non-unit orientation;
+      TypeError for non-real (or boolean) values.
     """
     return BPSTField(center, size, orientation, gauge)
-
-
-def anti(field):
-    """Anti-self-dual partner: the parity image x -> Px, P = diag(-1, -1, -1, 1).
-
-    A'_mu(x) = P_mu nu A_nu(Px), so F' is anti-self-dual, s'(x) = s(Px), q'(x) = -q(Px) and the centres
-    move to P a_i.  ADHM data return ``data.conjugate()`` (the same map); ``anti(anti(f))`` gives ``f``
-    back.  For the scalar ansaetze the image is the eta-form ansatz A'_mu = -1/2 eta_{a mu nu}
-    d_nu log(phi o P) u_a (since P eta-bar_a P = eta_a).  Any other field is wrapped by
-    :func:`instantonkit.transforms.parity`.
-    """
-    from .adhm import ADHMData
-    from .transforms import ParityImage, parity
-
-    if isinstance(field, ADHMData):
-        return field.conjugate()
-    if isinstance(field, ParityImage):
-        return field.field
-    return parity(field)

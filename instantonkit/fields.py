@@ -17,13 +17,19 @@ from __future__ import annotations
 
 import dataclasses
 import functools
-from typing import Any, Callable, Protocol, runtime_checkable
+from collections.abc import Callable
+from typing import Any, Protocol, runtime_checkable
 
 import jax
 import jax.numpy as jnp
 import numpy as np
 
+from . import _validate
+from ._batching import run_batched
 from .conventions import ACTION_DENSITY_FACTOR, CHARGE_DENSITY_FACTOR, LEVI_CIVITA
+
+#: An array the public functions accept (numpy or jax); results are numpy arrays.
+Array = jax.Array | np.ndarray
 
 __all__ = [
     "Field",
@@ -50,6 +56,9 @@ __all__ = [
 
 #: Points per compiled call; memory per call is about DEFAULT_CHUNK times the per-point work.
 DEFAULT_CHUNK = 16384
+
+#: Relative size of A + A^dag accepted for a user callable (rounding of a float64 potential is ~1e-16).
+_ANTI_HERMITIAN_TOL = 1e-10
 
 _METHODS = ("auto", "closed", "autodiff")
 
@@ -87,7 +96,13 @@ class FieldHooks(Protocol):
       ``log_det(x) -> ()``: log det of the ADHM Gram matrix, for Osborn's density s = -box box log det f;
       ``closed_link(x, d) -> (N, N)``: the closed-form parallel transporter from x to x + d
       (jax-traceable, one link), used by the lattice instead of Magnus steps;
-      ``describe() -> str``: a one-line description for reports.
+      ``describe() -> str``: a one-line description for reports;
+      ``conjugate() -> field``: the field's own anti-self-dual partner (the parity image), used by
+      :func:`instantonkit.transforms.anti` instead of a parity wrapper (ADHM data flip chirality,
+      a parity image gives back the field it wraps);
+      ``wrapped_callable() -> CallableField | None``: the bare user callable at the core of a wrapper
+      chain (a :class:`CallableField` returns itself, wrappers ask the field they wrap), so the engine
+      can check its shape and anti-Hermiticity once before compiling.
     """
 
     def field_strength(self, x: Any) -> Any: ...
@@ -100,6 +115,8 @@ class FieldHooks(Protocol):
     def log_det(self, x: Any) -> Any: ...
     def closed_link(self, x: Any, d: Any) -> Any: ...
     def describe(self) -> str: ...
+    def conjugate(self) -> Any: ...
+    def wrapped_callable(self) -> Any: ...
 
 
 #: Names of the optional hooks (methods or attributes), documented in :class:`FieldHooks`.
@@ -116,6 +133,8 @@ HOOKS = (
     "log_det",
     "closed_link",
     "describe",
+    "conjugate",
+    "wrapped_callable",
 )
 
 
@@ -137,25 +156,17 @@ def hook(field, name: str):
 # -- inputs -----------------------------------------------------------------------------------------
 
 
-def as_points(points) -> tuple[np.ndarray, tuple[int, ...]]:
+def as_points(points: Array) -> tuple[np.ndarray, tuple[int, ...]]:
     """Validate points and flatten them: (..., 4) -> ((M, 4) float64 numpy array, leading shape).
 
-    Raises TypeError for non-real input and ValueError for a wrong last axis or non-finite values.
+    Args:
+      points: (..., 4) real array (numpy, jax or nested lists); not a jax tracer.
+    Returns:
+      ((M, 4) float64 numpy array, leading shape ``...``), M the product of the leading shape.
+    Raises:
+      TypeError for a tracer or non-real input; ValueError for a wrong last axis or non-finite values.
     """
-    if isinstance(points, jax.core.Tracer):
-        raise TypeError("points must be concrete arrays here; call a field's methods directly under jit")
-    arr = np.asarray(points)
-    if arr.dtype == object or not (np.issubdtype(arr.dtype, np.floating) or np.issubdtype(arr.dtype, np.integer)):
-        raise TypeError(f"points must be a real numeric array; found dtype {arr.dtype}")
-    if arr.ndim < 1 or arr.shape[-1] != 4:
-        raise ValueError(f"points must have shape (..., 4); found {arr.shape}")
-    arr = arr.astype(np.float64, copy=False)
-    finite = np.isfinite(arr)
-    if not np.all(finite):
-        bad = int(np.sum(~np.all(finite, axis=-1)))
-        raise ValueError(f"points must be finite; found {bad} point(s) with NaN or inf")
-    lead = arr.shape[:-1]
-    return arr.reshape(-1, 4), lead
+    return _validate.points(points)
 
 
 @jax.tree_util.register_pytree_node_class
@@ -175,6 +186,10 @@ class CallableField:
         """Field hook: one line for reports."""
         return f"callable potential {getattr(self.fn, '__name__', type(self.fn).__name__)}"
 
+    def wrapped_callable(self) -> CallableField:
+        """Field hook: the bare callable at the core of a wrapper chain is this object."""
+        return self
+
     def tree_flatten(self):
         return (), (self.fn,)
 
@@ -185,7 +200,7 @@ class CallableField:
 
 def as_field(obj):
     """Return ``obj`` if it has a ``potential`` method, wrap it if it is a plain callable, else TypeError."""
-    if hasattr(obj, "potential") and callable(getattr(obj, "potential")):
+    if hasattr(obj, "potential") and callable(obj.potential):
         return obj
     if callable(obj):
         return CallableField(obj)
@@ -252,7 +267,7 @@ def _point_fn(field, quantity: str, method: str) -> Callable:
     raise ValueError(f"unknown quantity {quantity!r}")
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def _kernel(quantity: str, method: str):
     """One jitted, vmapped kernel per (quantity, method); jax caches it per field structure."""
 
@@ -273,7 +288,7 @@ def _check_callable(field, x0: np.ndarray) -> None:
     a = np.asarray(field.potential(jnp.asarray(x0)))
     herm = float(np.max(np.abs(a + np.conj(np.swapaxes(a, -1, -2)))))
     scale = 1.0 + float(np.max(np.abs(a)))
-    if herm > 1e-10 * scale:
+    if herm > _ANTI_HERMITIAN_TOL * scale:
         raise ValueError(f"the potential must be anti-Hermitian (A^dag = -A); max |A + A^dag| = {herm:.3e} at {x0}")
 
 
@@ -303,38 +318,41 @@ def output_shape(field, quantity: str, method: str = "auto") -> tuple[tuple[int,
     return tuple(st.shape[1:]), np.dtype(st.dtype)
 
 
-def evaluate(field, points, quantity: str, *, method: str = "auto", chunk_size: int = DEFAULT_CHUNK):
-    """Evaluate ``quantity`` of ``field`` on ``points`` (..., 4) in chunks; returns a numpy array.
+def evaluate(field, points: Array, quantity: str, *, method: str = "auto", chunk_size: int = DEFAULT_CHUNK) -> np.ndarray:
+    """Evaluate ``quantity`` of ``field`` on ``points`` in chunks of compiled work.
 
-    quantity: 'potential' | 'field_strength' | 'action_density' | 'charge_density' |
-    'self_duality_residual'.  method: 'auto' (closed forms when present), 'closed' (closed-form
-    field strength, densities computed from it), 'autodiff' (jax.jacfwd of the potential).
-    Raises ValueError when the result is not finite at some point (a singular point of the field,
-    e.g. the centre of a singular gauge), naming how many points and the first one.
+    Args:
+      field: a field (an object with ``potential(x)``) or a bare callable ``A(x): (4,) -> (4, N, N)``.
+      points: (..., 4) float64 (numpy or jax, not a tracer).
+      quantity: 'potential' | 'field_strength' | 'action_density' | 'charge_density' |
+        'self_duality_residual'.
+      method: 'auto' (closed forms when present), 'closed' (closed-form field strength, densities
+        computed from it), 'autodiff' (jax.jacfwd of the potential).
+      chunk_size: points per compiled call (a positive integer; the last chunk shrinks to a power of two).
+    Returns:
+      numpy array (..., *per-point shape): (..., 4, N, N) complex128 for the potential,
+      (..., 4, 4, N, N) complex128 for the field strength, (...,) float64 for the densities.
+    Raises:
+      ValueError for an unknown method or quantity, chunk_size < 1, bad points, a callable of the
+      wrong shape or not anti-Hermitian, or a result that is not finite at some point (a singular
+      point of the field, e.g. the centre of a singular gauge), naming how many points and the first.
+      TypeError for non-real points, a non-integer (or boolean) chunk_size, or an object that is not a field.
     """
     if method not in _METHODS:
         raise ValueError(f"method must be one of {_METHODS}; found {method!r}")
-    if not isinstance(chunk_size, (int, np.integer)) or chunk_size < 1:
-        raise ValueError(f"chunk_size must be a positive integer; found {chunk_size!r}")
+    chunk_size = _validate.positive_int("chunk_size", chunk_size)
     field = as_field(field)
     pts, lead = as_points(points)
     m = pts.shape[0]
-    inner = field  # a bare callable may sit inside wrappers (transforms keep it in ``.field``)
-    while not isinstance(inner, CallableField) and hasattr(inner, "field"):
-        inner = inner.field
-    if isinstance(inner, CallableField) and m:
+    core = hook(field, "wrapped_callable")
+    inner = core() if core is not None else None
+    if inner is not None and m:
         _check_callable(inner, pts[0])
     kern = _kernel(quantity, method)
     probe = _output_struct(kern, field)
     out = np.empty((m,) + probe.shape[1:], dtype=probe.dtype)
     if m:
-        for start in range(0, m, chunk_size):
-            stop = min(start + chunk_size, m)
-            chunk = pts[start:stop]
-            size = chunk_size if stop - start == chunk_size else max(16, 1 << int(np.ceil(np.log2(stop - start))))
-            if size > stop - start:  # pad the last chunk to a power of two with a point of the set
-                chunk = np.concatenate([chunk, np.broadcast_to(pts[start], (size - (stop - start), 4))])
-            out[start:stop] = np.asarray(kern(field, chunk))[: stop - start]
+        run_batched(kern, [pts], chunk_size, shrink_last=True, out=out, args_before=(field,))
         flat = out.reshape(m, -1)
         bad = ~np.all(np.isfinite(flat), axis=1)
         if np.any(bad):
@@ -346,32 +364,80 @@ def evaluate(field, points, quantity: str, *, method: str = "auto", chunk_size: 
     return out.reshape(lead + probe.shape[1:])
 
 
-def potential(field, points, **kw):
-    """Gauge potential A_mu at points: (..., 4) -> (..., 4, N, N) complex128 (anti-Hermitian)."""
+def potential(field, points: Array, **kw) -> np.ndarray:
+    """Gauge potential A_mu at points (anti-Hermitian, conventions module).
+
+    Args:
+      field: a field or a bare callable ``A(x)`` (see :func:`evaluate`).
+      points: (..., 4) float64 (numpy or jax).
+      **kw: ``method`` and ``chunk_size`` of :func:`evaluate`.
+    Returns:
+      numpy array (..., 4, N, N) complex128.
+    Raises:
+      ValueError / TypeError as :func:`evaluate` (bad points or options, non-finite results).
+    """
     return evaluate(field, points, "potential", **kw)
 
 
-def field_strength(field, points, **kw):
-    """Field strength F_mu nu at points: (..., 4) -> (..., 4, 4, N, N) complex128.
+def field_strength(field, points: Array, **kw) -> np.ndarray:
+    """Field strength F_mu nu = d_mu A_nu - d_nu A_mu + [A_mu, A_nu] at points.
 
     Closed form when the field has one, else jax.jacfwd of the potential (``method="autodiff"`` forces it).
+
+    Args:
+      field: a field or a bare callable ``A(x)`` (see :func:`evaluate`).
+      points: (..., 4) float64 (numpy or jax).
+      **kw: ``method`` and ``chunk_size`` of :func:`evaluate`.
+    Returns:
+      numpy array (..., 4, 4, N, N) complex128.
+    Raises:
+      ValueError / TypeError as :func:`evaluate` (bad points or options, non-finite results).
     """
     return evaluate(field, points, "field_strength", **kw)
 
 
-def action_density(field, points, **kw):
-    """Action density s(x) = -1/2 sum_{mu nu} tr F_mu nu F_mu nu at points: (..., 4) -> (...,) float64."""
+def action_density(field, points: Array, **kw) -> np.ndarray:
+    """Action density s(x) = -1/2 sum_{mu nu} tr F_mu nu F_mu nu at points (closed form when present).
+
+    Args:
+      field: a field or a bare callable ``A(x)`` (see :func:`evaluate`).
+      points: (..., 4) float64 (numpy or jax).
+      **kw: ``method`` and ``chunk_size`` of :func:`evaluate`.
+    Returns:
+      numpy array (...,) float64.
+    Raises:
+      ValueError / TypeError as :func:`evaluate` (bad points or options, non-finite results).
+    """
     return evaluate(field, points, "action_density", **kw)
 
 
-def charge_density(field, points, **kw):
-    """Charge density q(x) = -1/(32 pi^2) eps_{mu nu rho sigma} tr F_mu nu F_rho sigma: (..., 4) -> (...,) float64."""
+def charge_density(field, points: Array, **kw) -> np.ndarray:
+    """Charge density q(x) = -1/(32 pi^2) eps_{mu nu rho sigma} tr F_mu nu F_rho sigma at points.
+
+    Args:
+      field: a field or a bare callable ``A(x)`` (see :func:`evaluate`).
+      points: (..., 4) float64 (numpy or jax).
+      **kw: ``method`` and ``chunk_size`` of :func:`evaluate`.
+    Returns:
+      numpy array (...,) float64.
+    Raises:
+      ValueError / TypeError as :func:`evaluate` (bad points or options, non-finite results).
+    """
     return evaluate(field, points, "charge_density", **kw)
 
 
-def self_duality_residual(field, points, **kw):
-    """Pointwise |F - *F| / |F|, |F|^2 = sum_{mu nu} tr(F_mu nu^dag F_mu nu): (..., 4) -> (...,) float64.
+def self_duality_residual(field, points: Array, **kw) -> np.ndarray:
+    """Pointwise |F - *F| / |F|, |F|^2 = sum_{mu nu} tr(F_mu nu^dag F_mu nu).
 
     0 for self-dual fields, 2 for anti-self-dual ones, and 0 by definition where F vanishes.
+
+    Args:
+      field: a field or a bare callable ``A(x)`` (see :func:`evaluate`).
+      points: (..., 4) float64 (numpy or jax).
+      **kw: ``method`` and ``chunk_size`` of :func:`evaluate`.
+    Returns:
+      numpy array (...,) float64.
+    Raises:
+      ValueError / TypeError as :func:`evaluate` (bad points or options, non-finite results).
     """
     return evaluate(field, points, "self_duality_residual", **kw)

@@ -31,11 +31,36 @@ import numpy as np
 import scipy.optimize
 import scipy.spatial
 
+from . import _validate
+from .adhm import multi_instanton
 from .conventions import INSTANTON_ACTION
+from .fields import as_points
+from .transforms import PARITY
 
 __all__ = ["InstantonFit", "find_instantons", "superposition_density", "count_peaks"]
 
 _QUANTITIES = ("action", "charge")
+
+#: Peak of one BPST action density: s(a) = _BPST_PEAK / rho^4 (Belavin et al. 1975), used to read a size off a peak.
+_BPST_PEAK = 48.0
+
+#: Fitted parameters per instanton: the centre (4) and log rho (1); the fit needs more samples than 5 k.
+_PARAMS_PER_INSTANTON = 5
+
+#: Samples compared with each sample to call it a local maximum (a lattice site has 8 nearest neighbours).
+_PEAK_NEIGHBOURS = 16
+
+#: xtol, ftol and gtol of the least-squares fit: near float64 rounding, so the fit stops at the optimum.
+_FIT_TOL = 1e-14
+
+#: Function evaluations allowed per fitted parameter (the Levenberg-Marquardt fit needs a few tens).
+_NFEV_PER_PARAM = 200
+
+#: Floor of a peak height before dividing by it (an exhausted residual density gives a huge size, not inf).
+_TINY = 1e-300
+
+#: Condition number of J^T J above which the curvature counts as near-singular (ambiguous fit).
+_MAX_CONDITION = 1e12
 
 
 def superposition_density(points, centers, sizes):
@@ -45,7 +70,7 @@ def superposition_density(points, centers, sizes):
     """
     d2 = jnp.sum((points[:, None, :] - centers[None, :, :]) ** 2, axis=-1)
     r2 = sizes[None, :] ** 2
-    return jnp.sum(48.0 * r2**2 / (d2 + r2) ** 4, axis=1)
+    return jnp.sum(_BPST_PEAK * r2**2 / (d2 + r2) ** 4, axis=1)
 
 
 @dataclasses.dataclass(frozen=True)
@@ -80,8 +105,10 @@ class InstantonFit:
         """A readable table: one row per instanton with centre, size and their one-sigma errors."""
         kind = "instanton" if self.sign == 1 else "anti-instanton"
         lines = [
-            f"{self.k} {kind}(s) fitted to {self.quantity} density samples "
-            f"(BPST superposition model; relative rms residual {self.rms:.2e}; {self.n_peaks} distinct peak(s))",
+            (
+                f"{self.k} {kind}(s) fitted to {self.quantity} density samples "
+                f"(BPST superposition model; relative rms residual {self.rms:.2e}; {self.n_peaks} distinct peak(s))"
+            ),
             f"{'#':>3} {'x1':>10} {'x2':>10} {'x3':>10} {'x4':>10} {'size':>10} {'+-centre':>10} {'+-size':>10}",
         ]
         dc = self.uncertainties["centers"]
@@ -105,31 +132,24 @@ class InstantonFit:
 
 
 def _check_inputs(points, density, k, weights, quantity):
-    from .fields import as_points
-
+    """Validated (points (M, 4), density (M,), weights (M,)) float64, or TypeError / ValueError naming the argument."""
     pts, _ = as_points(points)
-    d = np.asarray(density)
-    if not (np.issubdtype(d.dtype, np.floating) or np.issubdtype(d.dtype, np.integer)):
-        raise TypeError(f"density must be a real array; found dtype {d.dtype}")
-    d = d.astype(np.float64).reshape(-1)
+    d = _validate.real_array("density", density).reshape(-1)
     if d.shape[0] != pts.shape[0]:
         raise ValueError(f"density must have one value per point ({pts.shape[0]}); found {d.shape[0]}")
-    if not np.all(np.isfinite(d)):
-        raise ValueError(f"density must be finite; found {int(np.sum(~np.isfinite(d)))} non-finite values")
-    if isinstance(k, bool) or not isinstance(k, (int, np.integer)) or k < 1:
-        raise ValueError(f"k must be an integer >= 1; found {k!r}")
-    if pts.shape[0] < 5 * k + 1:
-        raise ValueError(f"need more than 5 k = {5 * k} samples for k = {k}; found {pts.shape[0]}")
-    if quantity not in _QUANTITIES:
-        raise ValueError(f"quantity must be one of {_QUANTITIES}; found {quantity!r}")
+    k = _validate.positive_int("k", k)
+    need = _PARAMS_PER_INSTANTON * k
+    if pts.shape[0] < need + 1:
+        raise ValueError(f"need more than {_PARAMS_PER_INSTANTON} k = {need} samples for k = {k}; found {pts.shape[0]}")
+    _validate.choice("quantity", quantity, _QUANTITIES)
     if weights is None:
         w = np.ones_like(d)
     else:
-        w = np.asarray(weights, dtype=np.float64).reshape(-1)
+        w = _validate.real_array("weights", weights).reshape(-1)
         if w.shape != d.shape:
             raise ValueError(f"weights must have shape {d.shape}; found {w.shape}")
-        if not np.all(np.isfinite(w)) or np.any(w < 0):
-            raise ValueError("weights must be finite and >= 0")
+        if np.any(w < 0):
+            raise ValueError(f"weights must be >= 0; found min {float(np.min(w))!r}")
     return pts, d, w
 
 
@@ -144,7 +164,7 @@ def _to_action(d: np.ndarray, quantity: str) -> tuple[np.ndarray, int]:
 # -- peaks ------------------------------------------------------------------------------------------
 
 
-def _neighbours(pts: np.ndarray, n_nb: int = 16):
+def _neighbours(pts: np.ndarray, n_nb: int = _PEAK_NEIGHBOURS):
     tree = scipy.spatial.cKDTree(pts)
     dist, idx = tree.query(pts, k=min(n_nb + 1, pts.shape[0]))
     return dist[:, 1:], idx[:, 1:]
@@ -153,20 +173,22 @@ def _neighbours(pts: np.ndarray, n_nb: int = 16):
 def count_peaks(points, density, *, min_fraction: float = 0.05) -> tuple[np.ndarray, np.ndarray]:
     """Distinct local maxima of sampled density: (centres (p, 4), heights (p,)), tallest first.
 
-    A sample is a local maximum when it exceeds its 16 nearest samples; maxima above
+    A sample is a local maximum when it exceeds its _PEAK_NEIGHBOURS nearest samples; maxima above
     ``min_fraction`` of the tallest are merged when closer than the BPST size of the taller one
-    (rho = (48 / height)^(1/4)).
+    (rho = (_BPST_PEAK / height)^(1/4)).  points: (..., 4); density: (...,) with one value per point.
     """
-    pts = np.asarray(points, dtype=np.float64).reshape(-1, 4)
-    d = np.asarray(density, dtype=np.float64).reshape(-1)
+    pts, _ = as_points(points)
+    d = _validate.real_array("density", density).reshape(-1)
+    if d.shape[0] != pts.shape[0]:
+        raise ValueError(f"density must have one value per point ({pts.shape[0]}); found {d.shape[0]}")
     _, idx = _neighbours(pts)
     is_max = np.all(d[:, None] > d[idx], axis=1) & (d > min_fraction * np.max(d))
     cand = np.flatnonzero(is_max)
     cand = cand[np.argsort(-d[cand])]
     kept: list[int] = []
     for c in cand:
-        rho = (48.0 / d[c]) ** 0.25
-        if all(np.linalg.norm(pts[c] - pts[j]) > max(rho, (48.0 / d[j]) ** 0.25) for j in kept):
+        rho = (_BPST_PEAK / d[c]) ** 0.25
+        if all(np.linalg.norm(pts[c] - pts[j]) > max(rho, (_BPST_PEAK / d[j]) ** 0.25) for j in kept):
             kept.append(int(c))
     return pts[kept], d[kept]
 
@@ -176,7 +198,7 @@ def _greedy_start(pts: np.ndarray, s: np.ndarray, k: int):
     centers, sizes = [], []
     for _ in range(k):
         i = int(np.argmax(rest))
-        rho = (48.0 / max(rest[i], 1e-300)) ** 0.25
+        rho = (_BPST_PEAK / max(rest[i], _TINY)) ** 0.25
         centers.append(pts[i])
         sizes.append(rho)
         rest = rest - np.asarray(superposition_density(pts, pts[i][None], np.array([rho])))
@@ -187,7 +209,7 @@ def _greedy_start(pts: np.ndarray, s: np.ndarray, k: int):
 
 
 def _unpack(theta, k):
-    t = theta.reshape(k, 5)
+    t = theta.reshape(k, _PARAMS_PER_INSTANTON)
     return t[:, :4], jnp.exp(t[:, 4])
 
 
@@ -198,7 +220,20 @@ def find_instantons(points, density, k: int, *, weights=None, init=None, quantit
     s (quantity='action') or charge density q (quantity='charge', its sign picks instantons or
     anti-instantons); weights: optional (...,) >= 0 per-sample weights of the squared residuals;
     init: optional (centres (k, 4), sizes (k,)) start instead of the peak picking.
-    Residuals are sqrt(w) (model - s) / max|s|.  Raises ValueError/TypeError on bad input.
+    Residuals are sqrt(w) (model - s) / max|s|.
+
+    Args:
+      points: (..., 4) float64 sample positions.
+      density: (...,) float64, one value per point (action or charge density).
+      k: number of (anti-)instantons, a positive integer; more than 5 k samples are needed.
+      weights: None or (...,) float64 >= 0.
+      init: None or (centres (k, 4), sizes (k,) > 0).
+      quantity: 'action' or 'charge'.
+    Returns:
+      InstantonFit with centers (k, 4), sizes (k,), one-sigma uncertainties, ADHM data and the
+      reasons the fit may be ambiguous.
+    Raises:
+      ValueError / TypeError naming the bad argument; ValueError when the density is zero everywhere.
     """
     pts, d, w = _check_inputs(points, density, k, weights, quantity)
     s, sign = _to_action(d, quantity)
@@ -209,8 +244,8 @@ def find_instantons(points, density, k: int, *, weights=None, init=None, quantit
     if init is None:
         c0, r0 = _greedy_start(pts, s, k)
     else:
-        c0 = np.asarray(init[0], dtype=np.float64)
-        r0 = np.asarray(init[1], dtype=np.float64)
+        c0 = _validate.real_array("init centres", init[0])
+        r0 = _validate.real_array("init sizes", init[1])
         if c0.shape != (k, 4) or r0.shape != (k,) or np.any(r0 <= 0):
             raise ValueError(f"init must be (centres (k, 4), sizes (k,) > 0) with k = {k}; found {c0.shape}, {r0.shape}")
     theta0 = np.concatenate([c0, np.log(r0)[:, None]], axis=1).reshape(-1)
@@ -227,24 +262,24 @@ def find_instantons(points, density, k: int, *, weights=None, init=None, quantit
         lambda t: np.asarray(f(jnp.asarray(t))),
         theta0,
         jac=lambda t: np.asarray(jac(jnp.asarray(t))),
-        method="lm" if pts.shape[0] >= 5 * k else "trf",
-        xtol=1e-14,
-        ftol=1e-14,
-        gtol=1e-14,
-        max_nfev=200 * (5 * k + 1),
+        method="lm" if pts.shape[0] >= _PARAMS_PER_INSTANTON * k else "trf",
+        xtol=_FIT_TOL,
+        ftol=_FIT_TOL,
+        gtol=_FIT_TOL,
+        max_nfev=_NFEV_PER_PARAM * (_PARAMS_PER_INSTANTON * k + 1),
     )
     c, r = (np.asarray(a) for a in _unpack(jnp.asarray(sol.x), k))
-    m, npar = pts.shape[0], 5 * k
+    m, npar = pts.shape[0], _PARAMS_PER_INSTANTON * k
     var = float(np.sum(sol.fun**2)) / max(m - npar, 1)
     jtj = sol.jac.T @ sol.jac
     reasons = []
     cond = np.linalg.cond(jtj)
-    if not np.isfinite(cond) or cond > 1e12:
+    if not np.isfinite(cond) or cond > _MAX_CONDITION:
         reasons.append(f"curvature J^T J is near-singular (condition number {cond:.1e})")
         cov = np.linalg.pinv(jtj) * var
     else:
         cov = np.linalg.inv(jtj) * var
-    err = np.sqrt(np.abs(np.diag(cov))).reshape(k, 5)
+    err = np.sqrt(np.abs(np.diag(cov))).reshape(k, _PARAMS_PER_INSTANTON)
     dc, ds = err[:, :4], err[:, 4] * r  # d rho = rho d log rho
     if not sol.success:
         reasons.append(f"least squares did not converge ({sol.message})")
@@ -265,8 +300,6 @@ def find_instantons(points, density, k: int, *, weights=None, init=None, quantit
             reasons.append(f"size {i} exploded to {r[i]:.3g}, beyond half the sample extent {extent:.3g}")
     data = None
     try:
-        from .adhm import multi_instanton
-
         data = _anti_data(c, r) if sign == -1 else multi_instanton(c, r)
     except ValueError as err_adhm:
         reasons.append(f"no ADHM data for the fitted moduli ({err_adhm})")
@@ -287,7 +320,4 @@ def find_instantons(points, density, k: int, *, weights=None, init=None, quantit
 
 def _anti_data(centers, sizes):
     """Anti-instanton ADHM data with centres ``centers``: the parity image of data centred at P a_i."""
-    from .adhm import multi_instanton
-
-    parity = np.array([-1.0, -1.0, -1.0, 1.0])
-    return multi_instanton(np.asarray(centers) * parity, sizes).conjugate()
+    return multi_instanton(np.asarray(centers) * PARITY, sizes).conjugate()

@@ -19,6 +19,7 @@ import numpy as np
 from hypothesis import assume
 from hypothesis import strategies as st
 
+from . import _validate
 from . import quaternion as qt
 from .adhm import ADHMData, multi_instanton, random_adhm
 
@@ -36,6 +37,9 @@ __all__ = [
 #: Quaternions drawn by :func:`unit_quaternions` come from vectors at least this long (then normalised).
 _MIN_RAW_NORM = 1e-3
 
+#: Drawn centres closer than this are redrawn (nearly coinciding centres make the constraint solve fail).
+_MIN_CENTRE_DISTANCE = 1e-3
+
 
 def _as_strategy(value) -> st.SearchStrategy:
     """A strategy stays a strategy; a plain value becomes ``st.just(value)``."""
@@ -44,8 +48,7 @@ def _as_strategy(value) -> st.SearchStrategy:
 
 def finite_floats(bound: float = 10.0) -> st.SearchStrategy:
     """Finite float64 numbers in ``[-bound, bound]`` (no NaN, no inf, no subnormals)."""
-    if not (np.isfinite(bound) and bound > 0):
-        raise ValueError(f"bound must be finite and > 0; found {bound!r}")
+    bound = _validate.positive_float("bound", bound)
     return st.floats(-bound, bound, allow_nan=False, allow_infinity=False, allow_subnormal=False)
 
 
@@ -103,8 +106,7 @@ def su2_matrices() -> st.SearchStrategy:
 
 def orthogonal_matrices(k: int) -> st.SearchStrategy:
     """Real orthogonal ``k x k`` matrices (both determinants) from the QR of a seeded Gaussian; (k, k)."""
-    if not isinstance(k, (int, np.integer)) or k < 1:
-        raise ValueError(f"k must be an integer >= 1; found {k!r}")
+    k = _validate.positive_int("k", k)
 
     def build(seed):
         rng = np.random.default_rng(seed)
@@ -125,15 +127,19 @@ def _adhm_from_moduli(draw, k: int, rank: int, spread: float, size_range):
     assume(bool(np.all(norms >= _MIN_RAW_NORM)))
     if k > 1:
         dist = np.linalg.norm(centers[:, None] - centers[None], axis=-1) + np.diag(np.full(k, np.inf))
-        assume(float(np.min(dist)) > 1e-3)
+        assume(float(np.min(dist)) > _MIN_CENTRE_DISTANCE)
     try:
         return multi_instanton(centers, sizes, raw / norms[:, None, None], rank=rank)
     except ValueError:  # no exact solution found for this draw: let hypothesis draw another
         assume(False)
 
 
+#: Default charges drawn by :func:`adhm_data` (small k keeps the constraint solve fast).
+_DEFAULT_K = st.integers(1, 3)
+
+
 def adhm_data(
-    k=st.integers(1, 3),
+    k=_DEFAULT_K,
     rank=1,
     *,
     chirality=1,
@@ -149,8 +155,7 @@ def adhm_data(
     ``size_range`` and orientations, and solves with :func:`instantonkit.adhm.multi_instanton`.
     ``chirality=-1`` returns the anti-instanton partner (:meth:`ADHMData.conjugate`).
     """
-    if source not in ("seed", "moduli"):
-        raise ValueError(f"source must be 'seed' or 'moduli'; found {source!r}")
+    _validate.choice("source", source, ("seed", "moduli"))
     lo, hi = size_range
     if not (0 < lo <= hi and np.isfinite(hi)):
         raise ValueError(f"size_range must satisfy 0 < low <= high < inf; found {size_range!r}")
@@ -160,8 +165,7 @@ def adhm_data(
         kk = draw(_as_strategy(k))
         nn = draw(_as_strategy(rank))
         ch = draw(_as_strategy(chirality))
-        if ch not in (1, -1):
-            raise ValueError(f"chirality must be +1 or -1; found {ch!r}")
+        ch = _validate.sign("chirality", ch)
         if source == "seed":
             seed = draw(st.integers(0, 2**32 - 1))
             data = random_adhm(kk, nn, seed=seed, spread=spread, size_range=size_range)

@@ -26,10 +26,20 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
+from . import _validate
 from . import quaternion as qt
 from ._pytree import PytreeFields
-from .conventions import ACTION_DENSITY_FACTOR, CHARGE_DENSITY_FACTOR, E_MU, LEVI_CIVITA
-from .fields import as_field, field_strength_from_potential
+from .conventions import E_MU
+from .fields import (
+    action_from_f,
+    as_field,
+    charge_from_f,
+    field_strength_from_potential,
+    hook,
+)
+
+#: A point or parameter array the constructors accept (numpy or jax).
+Array = jax.Array | np.ndarray
 
 __all__ = [
     "GaugeTransformed",
@@ -43,6 +53,7 @@ __all__ = [
     "dilate",
     "parity",
     "rotation_matrix",
+    "anti",
     "PARITY",
 ]
 
@@ -52,9 +63,8 @@ PARITY = np.array([-1.0, -1.0, -1.0, 1.0])
 #: A generic point used to probe a gauge function at construction (unlikely to be singular).
 _PROBE = np.array([0.3127, -0.4481, 0.2719, 0.5867])
 
-
-def _is_tracer(*values) -> bool:
-    return any(isinstance(v, jax.core.Tracer) for v in values)
+#: Accepted deviation from unitarity of g(x) and from |q| = 1 of rotation quaternions (float64 rounding is ~1e-16).
+_UNIT_TOL = 1e-10
 
 
 # -- per-point helpers for any field ----------------------------------------------------------------
@@ -62,42 +72,25 @@ def _is_tracer(*values) -> bool:
 
 def _fs(field):
     """The field's per-point F: its closed form if it has one, else jax.jacfwd of its potential."""
-    if hasattr(field, "field_strength"):
-        return field.field_strength
-    return field_strength_from_potential(field.potential)
+    closed = hook(field, "field_strength")
+    return closed if closed is not None else field_strength_from_potential(field.potential)
 
 
 def _s(field, x):
-    """s(x) = -1/2 sum tr F F (conventions.ACTION_DENSITY_FACTOR), closed form when available."""
-    if hasattr(field, "action_density"):
-        return field.action_density(x)
-    f = _fs(field)(x)
-    return ACTION_DENSITY_FACTOR * jnp.real(jnp.einsum("mnij,mnji->", f, f))
+    """s(x): the field's closed form when it has one, else fields.action_from_f of its F."""
+    closed = hook(field, "action_density")
+    return closed(x) if closed is not None else action_from_f(_fs(field)(x))
 
 
 def _q(field, x):
-    """q(x) = -1/(32 pi^2) eps tr F F (conventions.CHARGE_DENSITY_FACTOR), closed form when available."""
-    if hasattr(field, "charge_density"):
-        return field.charge_density(x)
-    f = _fs(field)(x)
-    return CHARGE_DENSITY_FACTOR * jnp.real(jnp.einsum("mnrs,mnij,rsji->", LEVI_CIVITA, f, f))
+    """q(x): the field's closed form when it has one, else fields.charge_from_f of its F."""
+    closed = hook(field, "charge_density")
+    return closed(x) if closed is not None else charge_from_f(_fs(field)(x))
 
 
 def _missing(name: str):
     """Raise AttributeError (so ``hasattr`` is False) when the wrapped field lacks ``name``."""
     raise AttributeError(f"the wrapped field has no {name!r}")
-
-
-def _real(name: str, value, shape: tuple) -> np.ndarray:
-    arr = np.asarray(value)
-    if arr.dtype == object or np.iscomplexobj(arr) or not np.issubdtype(arr.dtype, np.number):
-        raise TypeError(f"{name} must be a real array of shape {shape}; found dtype {arr.dtype}")
-    arr = arr.astype(np.float64)
-    if arr.shape != shape:
-        raise ValueError(f"{name} must have shape {shape}; found {arr.shape}")
-    if not np.all(np.isfinite(arr)):
-        raise ValueError(f"{name} must be finite; found {arr.tolist()}")
-    return arr
 
 
 class _Wrapper(PytreeFields):
@@ -177,6 +170,11 @@ class _Wrapper(PytreeFields):
         inner = self.field.describe() if hasattr(self.field, "describe") else type(self.field).__name__
         return f"{inner}, {self._verb}"
 
+    def wrapped_callable(self):
+        """Field hook: the bare user callable at the core of the wrapped chain, or None."""
+        inner = hook(self.field, "wrapped_callable")
+        return inner() if inner is not None else None
+
     _verb = "transformed"
 
 
@@ -211,7 +209,7 @@ class GaugeTransformed(_Wrapper):
         leaves = jax.tree_util.tree_leaves(self.field) + (
             [] if _is_static(self.g) else jax.tree_util.tree_leaves(self.g)
         )
-        if _is_tracer(*leaves):
+        if _validate.is_tracer(*leaves):
             return
         spec = jax.ShapeDtypeStruct((4,), jnp.float64)
         try:
@@ -225,7 +223,7 @@ class GaugeTransformed(_Wrapper):
         gm = np.asarray(self.g(jnp.asarray(_PROBE)))
         if np.all(np.isfinite(gm)):
             dev = float(np.max(np.abs(gm @ gm.conj().T - np.eye(n))))
-            if dev > 1e-10:
+            if dev > _UNIT_TOL:
                 raise ValueError(f"g(x) must be unitary; max |g g^dag - 1| = {dev:.3e} at x = {_PROBE.tolist()}")
 
     def tree_flatten(self):
@@ -279,7 +277,17 @@ class GaugeTransformed(_Wrapper):
 
 
 def gauge_transform(field, g) -> GaugeTransformed:
-    """Gauge transform ``field`` by ``g(x)`` (N, N) unitary: A' = g A g^-1 + g d g^-1 (returns a field)."""
+    """Gauge transform ``field`` by ``g(x)`` (N, N) unitary: A' = g A g^-1 + g d g^-1.
+
+    Args:
+      field: a field or a bare callable A(x) with A: (4,) -> (4, N, N).
+      g: callable x (4,) -> (N, N) unitary (jax.numpy); a plain function or a pytree callable.
+    Returns:
+      GaugeTransformed, a field with the same N; densities unchanged.
+    Raises:
+      TypeError when g is not callable or g / the field fail on a (4,) point; ValueError when g(x)
+      has the wrong shape or is not unitary at a probe point.
+    """
     return GaugeTransformed(field, g)
 
 
@@ -296,8 +304,8 @@ class Translated(_Wrapper):
 
     def __post_init__(self):
         object.__setattr__(self, "field", as_field(self.field))
-        if not _is_tracer(self.shift):
-            object.__setattr__(self, "shift", _real("shift", self.shift, (4,)))
+        if not _validate.is_tracer(self.shift):
+            object.__setattr__(self, "shift", _validate.point("shift", self.shift))
 
     _leaves = ("field", "shift")
     _verb = "translated"
@@ -332,8 +340,17 @@ class Translated(_Wrapper):
         return closed_link
 
 
-def translate(field, shift) -> Translated:
-    """Translate ``field`` by ``shift`` (4,): A'(x) = A(x - shift) (returns a field)."""
+def translate(field, shift: Array) -> Translated:
+    """Translate ``field`` by ``shift``: A'(x) = A(x - shift).
+
+    Args:
+      field: a field or a bare callable A(x).
+      shift: (4,) float64.
+    Returns:
+      Translated, a field with the same N.
+    Raises:
+      ValueError for a shift not of shape (4,) or not finite; TypeError for non-real values.
+    """
     return Translated(field, shift)
 
 
@@ -352,9 +369,10 @@ def rotation_matrix(left, right):
 
 
 def _unit(name: str, value) -> np.ndarray:
-    arr = _real(name, value, (4,))
+    """A unit quaternion (4,) float64 (|q| = 1 to _UNIT_TOL), else ValueError naming the deviation."""
+    arr = _validate.point(name, value)
     dev = abs(float(np.linalg.norm(arr)) - 1.0)
-    if dev > 1e-10:
+    if dev > _UNIT_TOL:
         raise ValueError(f"{name} must be a unit quaternion; found | |q| - 1 | = {dev:.3e}")
     return arr
 
@@ -373,7 +391,7 @@ class Rotated(_Wrapper):
 
     def __post_init__(self):
         object.__setattr__(self, "field", as_field(self.field))
-        if not _is_tracer(self.left, self.right):
+        if not _validate.is_tracer(self.left, self.right):
             object.__setattr__(self, "left", _unit("left", self.left))
             object.__setattr__(self, "right", _unit("right", self.right))
 
@@ -411,8 +429,18 @@ class Rotated(_Wrapper):
         raise AttributeError("a rotated field has no period along x4 in general")
 
 
-def rotate(field, left, right=(1.0, 0.0, 0.0, 0.0)) -> Rotated:
-    """Rotate ``field`` by the SO(4) map p(x) -> l p(x) r-bar (unit quaternions l, r) (returns a field)."""
+def rotate(field, left: Array, right: Array = (1.0, 0.0, 0.0, 0.0)) -> Rotated:
+    """Rotate ``field`` by the SO(4) map p(x) -> l p(x) r-bar: A'_mu(x) = R_mu nu A_nu(R^T x).
+
+    Args:
+      field: a field or a bare callable A(x).
+      left, right: (4,) float64 unit quaternions l, r.
+    Returns:
+      Rotated, a field with the same N (R = rotation_matrix(l, r)).
+    Raises:
+      ValueError for quaternions not of shape (4,), not finite or not of unit length (_UNIT_TOL);
+      TypeError for non-real values.
+    """
     return Rotated(field, left, right)
 
 
@@ -429,11 +457,9 @@ class Dilated(_Wrapper):
 
     def __post_init__(self):
         object.__setattr__(self, "field", as_field(self.field))
-        if not _is_tracer(self.factor):
-            c = _real("factor", self.factor, ())
-            if not c > 0:
-                raise ValueError(f"dilation factor must be > 0; found {float(c)!r}")
-            object.__setattr__(self, "factor", c)
+        if not _validate.is_tracer(self.factor):
+            c = _validate.real_array("factor", self.factor, ())
+            object.__setattr__(self, "factor", np.asarray(_validate.positive_float("factor", c)))
 
     _leaves = ("field", "factor")
     _verb = "dilated"
@@ -467,7 +493,16 @@ class Dilated(_Wrapper):
 
 
 def dilate(field, factor) -> Dilated:
-    """Dilate ``field`` about the origin by ``factor`` c > 0: A'(x) = A(x / c) / c (returns a field)."""
+    """Dilate ``field`` about the origin by ``factor`` c > 0: A'(x) = A(x / c) / c.
+
+    Args:
+      field: a field or a bare callable A(x).
+      factor: c > 0, a real number.
+    Returns:
+      Dilated, a field with the same N; s'(x) = s(x / c) / c^4.
+    Raises:
+      ValueError for c <= 0 or not finite; TypeError for non-real (or boolean) values.
+    """
     return Dilated(field, factor)
 
 
@@ -513,7 +548,39 @@ class ParityImage(_Wrapper):
     def _map_charge(self, charge):
         return -charge
 
+    def conjugate(self):
+        """Field hook: the partner of a parity image is the field it wraps (P^2 = 1)."""
+        return self.field
+
 
 def parity(field) -> ParityImage:
-    """Parity image of ``field`` (x -> (-x1, -x2, -x3, x4)), its anti-self-dual partner (returns a field)."""
+    """Parity image of ``field`` (x -> (-x1, -x2, -x3, x4)), its anti-self-dual partner.
+
+    Args:
+      field: a field or a bare callable A(x).
+    Returns:
+      ParityImage, a field with A'_mu(x) = P_mu A_mu(Px); charge -> -charge.
+    Raises:
+      TypeError when ``field`` is neither a field nor a callable.
+    """
     return ParityImage(field)
+
+
+def anti(field):
+    """Anti-self-dual partner of ``field``: its parity image x -> Px, P = diag(-1, -1, -1, 1).
+
+    A'_mu(x) = P_mu nu A_nu(Px), so F' is anti-self-dual, s'(x) = s(Px), q'(x) = -q(Px) and the centres
+    move to P a_i.  The field is asked first: when it offers the ``conjugate`` hook (ADHM data flip
+    their chirality, the same map; a parity image returns the field it wraps, so ``anti(anti(f))``
+    gives ``f`` back) that is the answer; any other field is wrapped by :func:`parity`.
+
+    Args:
+      field: a field or a bare callable A(x).
+    Returns:
+      a field of opposite charge (same type as ``field.conjugate()`` or a ParityImage).
+    Raises:
+      TypeError when ``field`` is neither a field nor a callable.
+    """
+    field = as_field(field)
+    conjugate = hook(field, "conjugate")
+    return conjugate() if conjugate is not None else ParityImage(field)

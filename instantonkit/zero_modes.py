@@ -53,9 +53,13 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
+from . import _validate
 from . import quaternion as qt
+from ._batching import run_batched
 from .adhm import ADHMData
 from .conventions import E_MU, PI, QUATERNION_BASIS
+from .fields import as_points
+from .quadrature import rule_r4
 
 __all__ = [
     "SIGMA",
@@ -72,6 +76,7 @@ SIGMA = np.einsum("ma,aij->mij", E_MU, QUATERNION_BASIS)
 #: sigma-bar_mu = image of e-bar_mu = (-i sigma_1, -i sigma_2, -i sigma_3, 1) = sigma_mu^dag; (4, 2, 2).
 SIGMA_BAR = np.conj(np.swapaxes(SIGMA, -1, -2))
 
+#: Points per compiled call (memory per call is about _CHUNK times the per-point k x k and frame work).
 _CHUNK = 8192
 
 
@@ -132,56 +137,68 @@ def _dirac_at(data: ADHMData, x):
     cov = dpsi + jnp.einsum("mcd,kdb->mkcb", a, psi)
     s = SIGMA if data.chirality == 1 else SIGMA_BAR
     res = jnp.einsum("mkca,mab->kcb", cov, s)
-    norm = lambda z: jnp.sqrt(jnp.sum(jnp.abs(z) ** 2))  # noqa: E731
-    return norm(res), sum(norm(cov[m]) for m in range(4))
+    return _frobenius(res), sum(_frobenius(cov[m]) for m in range(4))
+
+
+def _frobenius(z):
+    """Frobenius norm of a complex array -> ()."""
+    return jnp.sqrt(jnp.sum(jnp.abs(z) ** 2))
 
 
 # -- vectorised evaluation --------------------------------------------------------------------------
 
 
-@functools.lru_cache(maxsize=None)
+def _dirac_stacked(data: ADHMData, x):
+    """(residual, scale) of :func:`_dirac_at` as one (2,) array, so the batching loop sees one output."""
+    return jnp.stack(_dirac_at(data, x))
+
+
+_POINT_FNS = {"modes": _psi_at, "gram": _gram_at, "density": _density_at, "dirac": _dirac_stacked}
+
+
+@functools.cache
 def _kernel(name: str):
-    fn = {"modes": _psi_at, "gram": _gram_at, "density": _density_at, "dirac": _dirac_at}[name]
-    return jax.jit(jax.vmap(fn, in_axes=(None, 0)))
+    return jax.jit(jax.vmap(_POINT_FNS[name], in_axes=(None, 0)))
 
 
 def _map(name: str, data: ADHMData, points, chunk_size: int):
-    from .fields import as_points
-
-    if not isinstance(chunk_size, (int, np.integer)) or chunk_size < 1:
-        raise ValueError(f"chunk_size must be a positive integer; found {chunk_size!r}")
+    """Evaluate the per-point function ``name`` on points (..., 4) in compiled batches; numpy out."""
+    chunk_size = _validate.positive_int("chunk_size", chunk_size)
     pts, lead = as_points(points)
     m = pts.shape[0]
     kern = _kernel(name)
     probe = jax.eval_shape(kern, data, jax.ShapeDtypeStruct((1, 4), jnp.float64))
-    outs = [np.empty((m,) + p.shape[1:], dtype=p.dtype) for p in jax.tree_util.tree_leaves(probe)]
+    out = np.empty((m,) + probe.shape[1:], dtype=probe.dtype)
     if m:
-        size = min(int(chunk_size), 1 << int(np.ceil(np.log2(m))))  # few distinct compiled sizes
-        for start in range(0, m, size):
-            stop = min(start + size, m)
-            chunk = pts[start:stop]
-            if stop - start < size:
-                chunk = np.concatenate([chunk, np.broadcast_to(pts[start], (size - (stop - start), 4))])
-            vals = jax.tree_util.tree_leaves(kern(data, chunk))
-            for o, v in zip(outs, vals):
-                o[start:stop] = np.asarray(v)[: stop - start]
-        for o in outs:
-            bad = ~np.all(np.isfinite(o.reshape(m, -1)), axis=1)
-            if np.any(bad):
-                raise ValueError(
-                    f"zero-mode {name} is not finite at {int(bad.sum())} of {m} points (first: "
-                    f"{pts[np.argmax(bad)].tolist()}); the frame U is singular there (try the other gauge)"
-                )
-    outs = [o.reshape(lead + o.shape[1:]) for o in outs]
-    return outs[0] if len(outs) == 1 else tuple(outs)
+        size = min(chunk_size, 1 << int(np.ceil(np.log2(m))))  # one batch size per call: few compiled shapes
+        run_batched(kern, [pts], size, out=out, args_before=(data,))
+        bad = ~np.all(np.isfinite(out.reshape(m, -1)), axis=1)
+        if np.any(bad):
+            raise ValueError(
+                f"zero-mode {name} is not finite at {int(bad.sum())} of {m} points (first: "
+                f"{pts[np.argmax(bad)].tolist()}); the frame U is singular there (try the other gauge)"
+            )
+    out = out.reshape(lead + out.shape[1:])
+    if name == "dirac":
+        return out[..., 0], out[..., 1]
+    return out
 
 
 def zero_modes(data: ADHMData, points, *, chunk_size: int = _CHUNK) -> np.ndarray:
     """The k normalisable zero modes psi = (1/pi) U^dag b f at points, in the gauge ``data.gauge``.
 
-    points: (..., 4) -> (..., k, 2n, 2) complex128, axes (mode i, colour c, spinor alpha).
     Instanton modes obey sum_mu (D_mu psi_i) SIGMA[mu] = 0, anti-instanton modes the same with
     SIGMA_BAR (module docstring); they are orthonormal, int sum_{c, alpha} conj(psi_i) psi_j = delta_ij.
+
+    Args:
+      data: ADHMData of Sp(n), charge k.
+      points: (..., 4) float64.
+      chunk_size: points per compiled call, a positive integer.
+    Returns:
+      (..., k, 2n, 2) complex128, axes (mode i, colour c, spinor alpha).
+    Raises:
+      TypeError when data is not ADHMData, for non-real points or a non-integer chunk_size;
+      ValueError for bad points, chunk_size < 1, or points where the frame is singular.
     """
     return _map("modes", _check_data(data), points, chunk_size)
 
@@ -189,7 +206,7 @@ def zero_modes(data: ADHMData, points, *, chunk_size: int = _CHUNK) -> np.ndarra
 def zero_mode_gram(data: ADHMData, points, *, chunk_size: int = _CHUNK) -> np.ndarray:
     """Pointwise overlap G_ij(x) = sum_{c, alpha} conj(psi_i) psi_j = (2/pi^2) Re(f M f)_ij (k x k work only).
 
-    points: (..., 4) -> (..., k, k) float64 (real symmetric, gauge invariant).
+    points: (..., 4) -> (..., k, k) float64 (real symmetric, gauge invariant).  Raises as :func:`zero_modes`.
     """
     return _map("gram", _check_data(data), points, chunk_size)
 
@@ -197,7 +214,16 @@ def zero_mode_gram(data: ADHMData, points, *, chunk_size: int = _CHUNK) -> np.nd
 def zero_mode_density(data: ADHMData, points, *, chunk_size: int = _CHUNK) -> np.ndarray:
     """Total zero-mode density sum_i |psi_i|^2 (colour and spinor summed) = (2/pi^2) Re tr(f M f).
 
-    points: (..., 4) -> (...,) float64; M = 1 - (B - p) f (B - p)^dag.  Integrates to k.
+    M = 1 - (B - p) f (B - p)^dag.  Integrates to k.
+
+    Args:
+      data: ADHMData of Sp(n), charge k.
+      points: (..., 4) float64.
+      chunk_size: points per compiled call, a positive integer.
+    Returns:
+      (...,) float64, gauge invariant.
+    Raises:
+      as :func:`zero_modes`.
     """
     return _map("density", _check_data(data), points, chunk_size)
 
@@ -222,11 +248,20 @@ def zero_mode_overlap(
     ``weights`` (M,)) or by default quadrature.rule_r4 about the data's centres with radial scales
     equal to the sizes (the integrand falls like |x|^-6, which the radial map makes smooth).
     The exact answer is the identity (orthonormal modes).
+
+    Args:
+      data: ADHMData of Sp(n), charge k.
+      n_radial, n_angular: positive integers, nodes of the default rule (ignored with ``rule``).
+      rule: None or an object with ``points`` (M, 4) and ``weights`` (M,).
+    Returns:
+      (k, k) float64, the identity up to quadrature error.
+    Raises:
+      TypeError when data is not ADHMData; ValueError for a rule of the wrong shapes.
     """
     data = _check_data(data)
     if rule is None:
-        from .quadrature import rule_r4
-
+        n_radial = _validate.positive_int("n_radial", n_radial)
+        n_angular = _validate.positive_int("n_angular", n_angular)
         rule = rule_r4(data.centers(), data.sizes(), n_radial, n_angular)
     pts = np.asarray(rule.points, dtype=np.float64)
     w = np.asarray(rule.weights, dtype=np.float64)

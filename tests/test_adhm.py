@@ -468,7 +468,7 @@ def test_last_axis_must_be_a_quaternion():
 def test_non_finite_data_is_rejected(bad):
     lam = np.ones((1, 1, 4))
     lam[0, 0, 2] = bad
-    with pytest.raises(ValueError, match="lam must be finite; found 1 non-finite entries"):
+    with pytest.raises(ValueError, match=r"lam must be finite; found 1 NaN or inf value\(s\)"):
         ik.ADHMData(lam, np.zeros((1, 1, 4)))
     b = np.zeros((1, 1, 4))
     b[0, 0, 0] = bad
@@ -477,7 +477,7 @@ def test_non_finite_data_is_rejected(bad):
 
 
 def test_complex_lam_is_a_type_error():
-    with pytest.raises(TypeError, match="lam must be a real array; found dtype complex128"):
+    with pytest.raises(TypeError, match="lam must be a real numeric array; found dtype complex128"):
         ik.ADHMData(np.ones((1, 1, 4), complex), np.zeros((1, 1, 4)))
 
 
@@ -506,16 +506,16 @@ def test_non_su2_orientation_matrix_is_rejected():
 
 @pytest.mark.parametrize("size", [0.0, -1.0, np.nan, np.inf])
 def test_non_positive_or_non_finite_size_is_rejected(size):
-    with pytest.raises(ValueError, match="sizes must be finite and > 0"):
+    with pytest.raises(ValueError, match=r"size must be (finite|> 0)"):
         ik.bpst(size=size)
-    with pytest.raises(ValueError, match="sizes must be finite and > 0"):
+    with pytest.raises(ValueError, match=r"sizes must be (finite|> 0)"):
         ik.multi_instanton([[0, 0, 0, 0], [3, 0, 0, 0]], [1.0, size])
 
 
 def test_bad_centres_are_rejected():
     with pytest.raises(ValueError, match=r"center must have shape \(4,\); found \(3,\)"):
         ik.bpst(center=(0, 0, 0))
-    with pytest.raises(ValueError, match="centers must be finite"):
+    with pytest.raises(ValueError, match="center must be finite"):
         ik.bpst(center=(0, np.nan, 0, 0))
     with pytest.raises(ValueError, match=r"centers must have shape \(k, 4\); found \(2, 3\)"):
         ik.multi_instanton(np.zeros((2, 3)), [1.0, 1.0])
@@ -527,14 +527,14 @@ def test_coincident_centres_are_rejected():
 
 
 def test_sizes_of_wrong_length_are_rejected():
-    with pytest.raises(ValueError, match=r"sizes must have shape \(k,\) = \(2,\); found \(3,\)"):
+    with pytest.raises(ValueError, match=r"sizes must have shape \(2,\); found \(3,\)"):
         ik.multi_instanton([[0, 0, 0, 0], [3, 0, 0, 0]], [1.0, 1.0, 1.0])
 
 
 def test_bad_rank_and_k_are_rejected():
-    with pytest.raises(ValueError, match="rank must be an integer >= 1; found 0"):
+    with pytest.raises(ValueError, match="rank must be a positive integer; found 0"):
         ik.multi_instanton([[0, 0, 0, 0]], [1.0], rank=0)
-    with pytest.raises(ValueError, match="k must be an integer >= 1; found 0"):
+    with pytest.raises(ValueError, match="k must be a positive integer; found 0"):
         ik.random_adhm(0)
 
 
@@ -548,10 +548,24 @@ def test_bad_transformation_arguments_are_rejected():
         d.rotate_sp([2.0, 0.0, 0.0, 0.0])
     with pytest.raises(ValueError, match=r"q must have shape \(1, 1, 4\); found \(2, 2, 4\)"):
         d.rotate_sp(np.zeros((2, 2, 4)))
-    with pytest.raises(ValueError, match=r"shift must be a finite point of shape \(4,\)"):
+    with pytest.raises(ValueError, match=r"shift must have shape \(4,\)"):
         d.translate([1.0, 2.0])
     for c in (0.0, -2.0, np.inf):
-        with pytest.raises(ValueError, match="dilation factor must be finite and > 0"):
+        with pytest.raises(ValueError, match=r"factor must be (finite|> 0)"):
             d.dilate(c)
     with pytest.raises(ValueError, match=r"cannot embed Sp\(2\) data at row 0 into Sp\(1\)"):
         adhm.embed_sp(ik.random_adhm(1, rank=2, seed=1), 1)
+
+
+def test_booleans_are_refused_as_numbers():
+    # common practice of the house: True is not 1 for an argument (_validate refuses booleans everywhere)
+    with pytest.raises(TypeError, match="rank must be a positive integer; found True"):
+        ik.multi_instanton([[0, 0, 0, 0]], [1.0], rank=True)
+    with pytest.raises(TypeError, match="k must be a positive integer"):
+        ik.random_adhm(True)
+    with pytest.raises(TypeError, match="size must be a real number"):
+        ik.bpst(size=True)
+    with pytest.raises(ValueError, match=r"chirality must be \+1 or -1; found True"):
+        ik.ADHMData(np.ones((1, 1, 4)), np.zeros((1, 1, 4)), chirality=True)
+    with pytest.raises(TypeError, match="lam must be a real numeric array; found dtype bool"):
+        ik.ADHMData(np.ones((1, 1, 4), bool), np.zeros((1, 1, 4)))

@@ -467,7 +467,7 @@ def test_bad_input_raises_value_error_naming_the_problem(build, match):
 
 
 def test_complex_parameters_raise_type_error():
-    with pytest.raises(TypeError, match="real array"):
+    with pytest.raises(TypeError, match="real numeric array"):
         ik.thooft(TH_C.astype(complex), TH_R)
 
 
@@ -477,3 +477,13 @@ def test_fields_are_frozen_pytrees():
     assert len(leaves) == 2 and jax.tree_util.tree_unflatten(tree, leaves).k == 3
     with pytest.raises(dataclasses.FrozenInstanceError):
         f.sizes = TH_R
+
+
+def test_booleans_are_refused_as_numbers():
+    # common practice of the house: True is not 1 for a size or a period (_validate refuses booleans)
+    with pytest.raises(TypeError, match="size must be a real"):
+        ik.caloron(True, 2.0)
+    with pytest.raises(TypeError, match="bool"):
+        ik.thooft(TH_C, np.ones(TH_C.shape[0], bool))
+    with pytest.raises(TypeError, match="size must be a real"):
+        ik.bpst_field(CENTER, True)

@@ -18,7 +18,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import instantonkit as ik
-from instantonkit import ansatz, checks, quadrature as qd
+from instantonkit import ansatz, checks, transforms, quadrature as qd
 from instantonkit import quaternion as qt
 from instantonkit.conventions import point_to_quaternion
 
@@ -187,7 +187,7 @@ def test_jnr_k2_charge():
 
 def test_anti_thooft_k2_gives_minus_two():
     # parity image of a charge-2 't Hooft field has Q = -2 (conventions module)
-    field = ansatz.anti(ansatz.thooft([[0.0, 0, 0, 0], [3.5, 0.5, 0, 0.5]], [1.0, 0.8]))
+    field = transforms.anti(ansatz.thooft([[0.0, 0, 0, 0], [3.5, 0.5, 0, 0.5]], [1.0, 0.8]))
     _within(checks.total_charge(field, **TIGHT), -2.0)
 
 

@@ -286,6 +286,17 @@ def test_unknown_method_rejected(bpst_data):
 def test_bad_chunk_size_rejected(bpst_data):
     with pytest.raises(ValueError, match="chunk_size.*0"):
         ik.action_density(bpst_data, np.zeros((1, 4)), chunk_size=0)
+    # booleans are not numbers (common practice of the house, _validate)
+    with pytest.raises(TypeError, match="chunk_size must be a positive integer; found True"):
+        ik.action_density(bpst_data, np.zeros((1, 4)), chunk_size=True)
+
+
+def test_as_points_and_adhm_delta_share_one_points_check(bpst_data):
+    # one wording for points everywhere: fields.as_points delegates to _validate.points
+    with pytest.raises(ValueError, match=r"points must have shape \(\.\.\., 4\); found \(5, 3\)"):
+        bpst_data.delta(np.zeros((5, 3)))
+    pts, lead = fields.as_points(np.zeros((2, 3, 4)))
+    assert pts.shape == (6, 4) and lead == (2, 3) and pts.dtype == np.float64
 
 
 def test_unknown_quantity_rejected(bpst_data):

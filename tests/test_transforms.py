@@ -298,3 +298,21 @@ def test_gradient_through_a_dilation_factor():
 def test_bad_input_raises_naming_the_problem(build, error, match):
     with pytest.raises(error, match=match):
         build()
+
+
+def test_anti_asks_the_field_and_lives_in_transforms():
+    # anti dispatches on the conjugate hook: ADHM data flip chirality, a parity image unwraps, the rest is wrapped
+    data = ik.bpst()
+    assert ik.anti is tr.anti
+    assert tr.anti(data).chirality == -1
+    wrapped = tr.anti(FIELD)
+    assert isinstance(wrapped, tr.ParityImage) and tr.anti(wrapped) is wrapped.field
+    with pytest.raises(TypeError, match="field"):
+        tr.anti(42)
+
+
+def test_a_wrapped_callable_is_checked_by_the_engine():
+    # the engine finds the bare callable through the wrapped_callable hook of the wrappers
+    bad = lambda x: jnp.ones((4, 2, 2), dtype=complex)  # noqa: E731  (Hermitian, not anti-Hermitian)
+    with pytest.raises(ValueError, match="anti-Hermitian"):
+        ik.potential(tr.translate(tr.dilate(bad, 2.0), (1.0, 0, 0, 0)), np.zeros((1, 4)))
