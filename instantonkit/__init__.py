@@ -5,7 +5,9 @@ starts.  Conventions: :mod:`instantonkit.conventions` and docs/conventions.md.
 
 from . import _config  # noqa: F401  (float64 before anything is traced)
 from . import conventions, quaternion
-from .adhm import ADHMData, block_sum, bpst, embed_sp, multi_instanton, random_adhm
+from . import moduli
+from .adhm import ADHMData
+from .moduli import block_sum, bpst, embed_sp, multi_instanton, random_adhm
 from .ansatz import bpst_field, caloron, jnr, thooft
 from .transforms import anti, dilate, gauge_transform, parity, rotate, translate
 from .zero_modes import zero_mode_density, zero_mode_overlap, zero_modes
@@ -20,7 +22,8 @@ from .checks import (
     verify,
 )
 from . import io, lattice, observables
-from .lattice import average_plaquette, clover_charge, lattice_links, wilson_action
+from . import transport
+from .lattice import average_plaquette, clover_charge, lattice_links, lattice_start, wilson_action
 from .io import load_lattice, save_lattice
 from . import cluster  # dask and zarr are imported only when a chunked run starts
 from .cluster import ensemble
@@ -48,12 +51,15 @@ def __getattr__(name):
 __all__ = [
     "conventions",
     "quaternion",
+    "moduli",
+    "transport",
     "lattice",
     "observables",
     "io",
     "cluster",
     "ensemble",
     "lattice_links",
+    "lattice_start",
     "average_plaquette",
     "wilson_action",
     "clover_charge",

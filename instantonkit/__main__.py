@@ -26,7 +26,7 @@ DEMO_ORIENTATIONS = np.array(
 
 def demo_configuration():
     """The default three-instanton ADHM data (charge 3, SU(2))."""
-    from .adhm import multi_instanton
+    from .moduli import multi_instanton
 
     return multi_instanton(DEMO_CENTERS, DEMO_SIZES, DEMO_ORIENTATIONS)
 

@@ -32,7 +32,7 @@ import scipy.optimize
 import scipy.spatial
 
 from . import _validate
-from .adhm import multi_instanton
+from .moduli import multi_instanton
 from .conventions import INSTANTON_ACTION
 from .fields import as_points
 from .transforms import PARITY

@@ -21,7 +21,8 @@ from hypothesis import strategies as st
 
 from . import _validate
 from . import quaternion as qt
-from .adhm import ADHMData, multi_instanton, random_adhm
+from .adhm import ADHMData
+from .moduli import multi_instanton, random_adhm
 
 __all__ = [
     "finite_floats",

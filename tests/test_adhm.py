@@ -15,7 +15,7 @@ from hypothesis import strategies as st
 from scipy.linalg import expm
 
 import instantonkit as ik
-from instantonkit import adhm
+from instantonkit import adhm, moduli
 from instantonkit import conventions as cv
 from instantonkit import fields
 from instantonkit import quaternion as qt
@@ -387,7 +387,7 @@ def test_embed_sp_keeps_the_field():
     # Padding Lambda with zero rows embeds Sp(n) in Sp(m) (Christ, Weinberg, Stanton, Phys. Rev. D 18 (1978)
     # 2013; from memory): the densities are unchanged.
     d = ik.random_adhm(2, seed=10)
-    e = adhm.embed_sp(d, 3, row=1)
+    e = moduli.embed_sp(d, 3, row=1)
     assert (e.rank, e.group, e.k) == (3, "Sp(3)", 2)
     assert np.array_equal(e.lam[1], d.lam[0]) and not np.any(e.lam[[0, 2]])
     assert e.constraint_residual() <= 1e-12
@@ -554,7 +554,7 @@ def test_bad_transformation_arguments_are_rejected():
         with pytest.raises(ValueError, match=r"factor must be (finite|> 0)"):
             d.dilate(c)
     with pytest.raises(ValueError, match=r"cannot embed Sp\(2\) data at row 0 into Sp\(1\)"):
-        adhm.embed_sp(ik.random_adhm(1, rank=2, seed=1), 1)
+        moduli.embed_sp(ik.random_adhm(1, rank=2, seed=1), 1)
 
 
 def test_booleans_are_refused_as_numbers():

@@ -8,7 +8,8 @@ import os
 import numpy as np
 
 from .. import _validate as _v
-from ..adhm import ADHMData, random_adhm
+from ..adhm import ADHMData
+from ..moduli import random_adhm
 from ..lattice import StartSpec, default_origin
 from ._optional import require
 from .geometry import Job, check_chunks, default_chunks
