@@ -90,8 +90,8 @@ class ADHMData(PytreeFields):
     :mod:`instantonkit.fields` (methods ``potential``, ``field_strength``, ``action_density``).
     """
 
-    lam: jax.Array
-    B: jax.Array
+    lam: Array
+    B: Array
     chirality: int = 1
     tol: float = CONSTRAINT_TOL
     gauge: str = "singular"

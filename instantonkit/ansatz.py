@@ -57,6 +57,9 @@ from ._pytree import PytreeFields
 from .adhm import charge_one_link
 from .conventions import LEVI_CIVITA, PI, QUATERNION_BASIS, point_to_quaternion
 
+#: Parameters as arrays (numpy, or jax tracers under jit/grad).
+Array = jax.Array | np.ndarray
+
 __all__ = [
     "ThooftField",
     "JNRField",
@@ -196,8 +199,8 @@ class ThooftField(_ScalarAnsatz):
     centers: (k, 4) float64 points a_i (the poles, singular points of the gauge); sizes: (k,) float64 rho_i > 0.
     """
 
-    centers: jax.Array
-    sizes: jax.Array
+    centers: Array
+    sizes: Array
 
     def __post_init__(self):
         if _validate.is_tracer(self.centers, self.sizes):
@@ -246,8 +249,8 @@ class JNRField(_ScalarAnsatz):
     poles: (k + 1, 4) float64 points y_i (singular points of the gauge); weights: (k + 1,) float64 lambda_i > 0.
     """
 
-    poles: jax.Array
-    weights: jax.Array
+    poles: Array
+    weights: Array
 
     def __post_init__(self):
         if _validate.is_tracer(self.poles, self.weights):
@@ -377,9 +380,9 @@ class CaloronField(_ScalarAnsatz):
     Singular points: c + n beta e_4.
     """
 
-    size: jax.Array
-    period: jax.Array
-    center: jax.Array
+    size: Array
+    period: Array
+    center: Array
 
     def __post_init__(self):
         if _validate.is_tracer(self.size, self.period, self.center):
@@ -424,9 +427,9 @@ class BPSTField(PytreeFields):
     (Derivation in the module docstring.)  center: (4,), size: rho > 0, orientation: (4,) unit quaternion.
     """
 
-    center: jax.Array
-    size: jax.Array
-    orientation: jax.Array
+    center: Array
+    size: Array
+    orientation: Array
     gauge: str = "regular"
 
     def __post_init__(self):

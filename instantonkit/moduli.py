@@ -139,7 +139,7 @@ def _solve_offdiagonal(lam: np.ndarray, diag: np.ndarray, *, tol: float, max_ite
             e = np.zeros((m, 4))
             e[p, a] = 1.0
             basis.append(_assemble_b(np.zeros((k, 4)), e, k))
-    basis = np.stack(basis)  # (4m, k, k, 4)
+    basis_arr = np.stack(basis)  # (4m, k, k, 4)
     res = np.inf
     converged = None  # (B, residual) once within tol; one more step polishes it to rounding level
     for it in range(max_iter):
@@ -151,7 +151,7 @@ def _solve_offdiagonal(lam: np.ndarray, diag: np.ndarray, *, tol: float, max_ite
         if res <= tol:
             converged = (b, res)
         bd = np.asarray(qt.qmat_dagger(b))
-        prod = np.asarray(qt.qmat_mul(bd[None], basis))
+        prod = np.asarray(qt.qmat_mul(bd[None], basis_arr))
         lin = prod + np.asarray(qt.qmat_dagger(prod))
         jac = np.stack([np.concatenate([lin[c, i, j, 1:] for (i, j) in pairs]) for c in range(4 * m)], axis=1)
         step, *_ = np.linalg.lstsq(jac, -r, rcond=None)

@@ -96,7 +96,7 @@ def gauge_transform_links(links, g, *, boundary: str = "periodic") -> np.ndarray
     for mu in range(4):
         g_up = np.roll(g, -1, axis=mu)
         if boundary == "open":
-            sl = [slice(None)] * 4
+            sl: list[slice | int] = [slice(None)] * 4
             sl[mu] = -1
             g_up = g_up.copy()
             g_up[tuple(sl)] = np.eye(u.shape[-1])

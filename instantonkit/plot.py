@@ -135,7 +135,7 @@ def _extent(extent, base: np.ndarray, i: int, j: int, L: float) -> tuple[float, 
         raise ValueError(f"extent must be a half-width or (lo1, hi1, lo2, hi2); found shape {np.shape(extent)}")
     if not np.all(np.isfinite(arr)) or arr[1] <= arr[0] or arr[3] <= arr[2]:
         raise ValueError(f"extent (lo1, hi1, lo2, hi2) needs finite lo < hi; found {arr.tolist()}")
-    return tuple(float(v) for v in arr)
+    return float(arr[0]), float(arr[1]), float(arr[2]), float(arr[3])
 
 
 def _grid(base, i, j, ext, n) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -268,7 +268,7 @@ def density_slice(
     if log and not diverging:
         pos = vals[np.isfinite(vals) & (vals > 0)]
         low = float(pos.min()) if pos.size else 1e-12
-        norm = colors.LogNorm(vmin=max(low, hi * 1e-8), vmax=hi if hi > 0 else 1.0)
+        norm: colors.Normalize = colors.LogNorm(vmin=max(low, hi * 1e-8), vmax=hi if hi > 0 else 1.0)
     else:
         norm = colors.Normalize(vmin=lo, vmax=hi)
     im = ax.imshow(
@@ -400,7 +400,7 @@ def _series(obj) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         except KeyError as err:
             raise ValueError(f"each convergence record needs 'evaluations', 'value' and 'error'; missing {err}") from err
     elif isinstance(obj, Sequence) and len(obj) == 3:
-        triple = obj
+        triple = tuple(obj)
     else:
         raise TypeError(
             "convergence data must be a sequence of results (with .evaluations, .value, .error), a list of "
@@ -440,7 +440,7 @@ def convergence(
     if isinstance(data, Mapping) and not ("value" in data and "error" in data):
         if not data:
             raise ValueError("convergence data mapping is empty")
-        curves = [(str(label), _series(s)) for label, s in data.items()]
+        curves: list[tuple[str | None, tuple]] = [(str(label), _series(s)) for label, s in data.items()]
     else:
         curves = [(None, _series(data))]
     if reference is not None:

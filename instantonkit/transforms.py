@@ -40,6 +40,8 @@ from .fields import (
 
 #: A point or parameter array the constructors accept (numpy or jax).
 Array = jax.Array | np.ndarray
+#: Anything numpy turns into an array (lists and tuples of numbers included).
+ArrayLike = jax.typing.ArrayLike | tuple | list
 
 __all__ = [
     "GaugeTransformed",
@@ -300,7 +302,7 @@ class Translated(_Wrapper):
     """The field moved by ``shift`` (4,): A'(x) = A(x - shift), likewise F, s, q."""
 
     field: object
-    shift: jax.Array
+    shift: Array
 
     def __post_init__(self):
         object.__setattr__(self, "field", as_field(self.field))
@@ -386,8 +388,8 @@ class Rotated(_Wrapper):
     """
 
     field: object
-    left: jax.Array
-    right: jax.Array
+    left: ArrayLike
+    right: ArrayLike
 
     def __post_init__(self):
         object.__setattr__(self, "field", as_field(self.field))
@@ -429,7 +431,7 @@ class Rotated(_Wrapper):
         raise AttributeError("a rotated field has no period along x4 in general")
 
 
-def rotate(field, left: Array, right: Array = (1.0, 0.0, 0.0, 0.0)) -> Rotated:
+def rotate(field, left: ArrayLike, right: ArrayLike = (1.0, 0.0, 0.0, 0.0)) -> Rotated:
     """Rotate ``field`` by the SO(4) map p(x) -> l p(x) r-bar: A'_mu(x) = R_mu nu A_nu(R^T x).
 
     Args:
@@ -453,7 +455,7 @@ class Dilated(_Wrapper):
     """The field dilated about the origin by c > 0: A'(x) = A(x/c)/c, F'(x) = F(x/c)/c^2, s'(x) = s(x/c)/c^4."""
 
     field: object
-    factor: jax.Array
+    factor: Array
 
     def __post_init__(self):
         object.__setattr__(self, "field", as_field(self.field))
