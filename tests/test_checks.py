@@ -97,7 +97,7 @@ def test_periodic_rule_integrates_a_periodic_gaussian_shell():
 def test_rule_validates_its_arrays():
     with pytest.raises(ValueError, match=r"shape \(M, 4\)"):
         qd.Rule(np.zeros((3, 3)), np.zeros(3), "bad")
-    with pytest.raises(ValueError, match="scales must be finite and > 0"):
+    with pytest.raises(ValueError, match=r"scales must be (finite and )?> 0"):
         qd.rule_r4(np.zeros(4), -1.0, 4, 2)
 
 
@@ -401,7 +401,7 @@ def test_budget_exhaustion_is_reported(bpst_data):
 def test_bad_tolerances_are_rejected(bpst_data):
     with pytest.raises(ValueError, match="rtol must be finite and >= 0"):
         checks.total_action(bpst_data, rtol=-1.0)
-    with pytest.raises(ValueError, match="period must be finite and > 0"):
+    with pytest.raises(ValueError, match=r"period must be (finite and )?> 0"):
         checks.total_action(bpst_data, period=0.0)
 
 
