@@ -29,6 +29,7 @@ from . import fields as _fields
 from . import quadrature as _quad
 from . import quaternion as qt
 from . import transforms as _transforms
+from ._batching import run_batched
 from .conventions import INSTANTON_ACTION, LEVI_CIVITA, PI
 from .integrals import (  # re-exported: checks is the one place for "is it what it claims to be?"
     DEFAULT_MAX_POINTS,
@@ -298,6 +299,12 @@ class Verification:
         return "\n".join(lines)
 
 
+def _whole_chunks(quantity_fn, field, points: np.ndarray) -> np.ndarray:
+    """quantity_fn(field, points) (M,) float64 in whole ENGINE_CHUNK batches: the integrals' compiled size."""
+    out = run_batched(lambda p: quantity_fn(field, p, chunk_size=ENGINE_CHUNK), [points], ENGINE_CHUNK)
+    return np.zeros(0) if out is None else np.asarray(out, dtype=np.float64)
+
+
 def _residual_stats(field, rule: _quad.Rule, sign: int) -> tuple[float, float]:
     """(max, s-weighted mean) of the (anti-)self-duality residual over the points of ``rule``, by the engine.
 
@@ -309,8 +316,8 @@ def _residual_stats(field, rule: _quad.Rule, sign: int) -> tuple[float, float]:
     pts, target = rule.points, field
     if sign < 0:
         pts, target = pts * _transforms.PARITY, _transforms.parity(field)
-    res = np.asarray(_fields.self_duality_residual(target, pts, chunk_size=ENGINE_CHUNK), dtype=np.float64)
-    dens = np.asarray(_fields.action_density(target, pts, chunk_size=ENGINE_CHUNK), dtype=np.float64)
+    res = _whole_chunks(_fields.self_duality_residual, target, pts)
+    dens = _whole_chunks(_fields.action_density, target, pts)
     wd = np.abs(rule.weights * dens)
     mean = float(np.sum(wd * res) / np.sum(wd)) if np.sum(wd) > 0 else 0.0
     return float(np.max(res)), mean
