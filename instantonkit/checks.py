@@ -165,9 +165,9 @@ def _cs_flux(field, centre: np.ndarray, radius: float, n_angular: int, method: s
 
 
 #: Default sphere radius of surface_winding, in units of the field's extent (far out in the pure gauge).
-WINDING_RADIUS = 200.0
+_WINDING_RADIUS = 200.0
 #: Rounding floor added to the winding's error estimate (the flux is a sum of O(1) terms).
-WINDING_FLOOR = 1e-12
+_WINDING_FLOOR = 1e-12
 
 
 def surface_winding(field, *, center=None, radius=None, n_angular: int = 10, method: str = "auto") -> tuple[float, float]:
@@ -180,7 +180,7 @@ def surface_winding(field, *, center=None, radius=None, n_angular: int = 10, met
     Args:
       field: a field or callable potential.
       center: (4,) centre of the sphere (default the mean of the field's layout centres).
-      radius: R (default WINDING_RADIUS x the field's extent, see :class:`Layout`).
+      radius: R (default 200 x the field's extent, see :class:`Layout`).
       n_angular: S^3 parameter n of the angular rule (2 n^3 points per sphere).
       method: the engine's 'auto' | 'closed' | 'autodiff' for A and F.
     Returns:
@@ -192,7 +192,7 @@ def surface_winding(field, *, center=None, radius=None, n_angular: int = 10, met
     field = _fields.as_field(field)
     layout = layout_of(field)
     c = layout.centres.mean(axis=0) if center is None else _validate.point("center", center)
-    r = WINDING_RADIUS * layout.extent if radius is None else float(radius)
+    r = _WINDING_RADIUS * layout.extent if radius is None else float(radius)
     try:
         w1 = _cs_flux(field, c, r, n_angular, method)
         w2 = _cs_flux(field, c, 2.0 * r, n_angular, method)
@@ -200,7 +200,7 @@ def surface_winding(field, *, center=None, radius=None, n_angular: int = 10, met
         raise FieldEvaluationError(
             f"evaluating the potential of {field_description(field)} failed: {type(err).__name__}: {err}"
         ) from err
-    return w2, abs(w2 - w1) + WINDING_FLOOR
+    return w2, abs(w2 - w1) + _WINDING_FLOOR
 
 
 # -- verify ------------------------------------------------------------------------------------------

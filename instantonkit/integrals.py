@@ -28,7 +28,8 @@ from __future__ import annotations
 import dataclasses
 import math
 import sys
-from typing import Callable, NamedTuple, Sequence
+from collections.abc import Callable, Sequence
+from typing import NamedTuple
 
 import numpy as np
 
@@ -54,6 +55,7 @@ __all__ = [
     "ENGINE_CHUNK",
     "MAX_RADIAL_LEVEL",
     "MAX_ANGULAR_LEVEL",
+    "RULE_SAMPLE_POINTS",
 ]
 
 #: Default budget of density evaluations for one integral (all refinement rounds together).
@@ -63,45 +65,45 @@ DEFAULT_MAX_POINTS = 4_000_000
 ENGINE_CHUNK = 8192
 
 #: Radial Gauss-Legendre nodes per radial level: slow growth first (most lumps converge by 48-64).
-RADIAL_COUNTS = (16, 24, 32, 40, 48, 64, 80, 96, 128, 160, 192, 256)
+_RADIAL_COUNTS = (16, 24, 32, 40, 48, 64, 80, 96, 128, 160, 192, 256)
 
-#: Finest radial level (the last entry of RADIAL_COUNTS): 256 nodes in u resolve any lump we build.
-MAX_RADIAL_LEVEL = len(RADIAL_COUNTS) - 1
+#: Finest radial level: the last entry of _RADIAL_COUNTS (256 nodes in u).
+MAX_RADIAL_LEVEL = len(_RADIAL_COUNTS) - 1
 
 #: Finest angular level: S^3 parameter 3 + 2 * 20 = 43 (2 * 43^3 = 159,014 points per shell).
 MAX_ANGULAR_LEVEL = 20
 
-#: Decay probe: radii PROBE_RADIUS x (field extent) x 2^j, j < PROBE_RADII, far outside every lump.
-PROBE_RADIUS = 16.0
-PROBE_RADII = 4
+#: Decay probe: radii _PROBE_RADIUS x (field extent) x 2^j, j < _PROBE_RADII, far outside every lump.
+_PROBE_RADIUS = 16.0
+_PROBE_RADII = 4
 #: Decay probe: rays per radius, directions drawn with a fixed seed (the same probe on every run).
-PROBE_RAYS = 8
-PROBE_SEED = 12345
-#: A density falling slower than |x|^-(d + DECAY_MARGIN) is refused: its tail error is not estimable.
-DECAY_MARGIN = 0.75
-#: ... and called divergent (rather than too slow) when it falls no faster than |x|^-(d + DIVERGENCE_MARGIN).
-DIVERGENCE_MARGIN = 0.05
+_PROBE_RAYS = 8
+_PROBE_SEED = 12345
+#: A density falling slower than |x|^-(d + _DECAY_MARGIN) is refused: its tail error is not estimable.
+_DECAY_MARGIN = 0.75
+#: ... and called divergent (rather than too slow) when it falls no faster than |x|^-(d + _DIVERGENCE_MARGIN).
+_DIVERGENCE_MARGIN = 0.05
 #: Values below this are zero for the decay probe (far below any density that matters, above denormals).
-PROBE_ZERO = 1e-290
-#: The probed tail counts as rounding noise when |f| R^d x PROBE_AREA <= PROBE_NOISE x (integral so far).
-PROBE_AREA = 20.0
-PROBE_NOISE = 1e-15
+_PROBE_ZERO = 1e-290
+#: The probed tail counts as rounding noise when |f| R^d x _PROBE_AREA <= _PROBE_NOISE x (integral so far).
+_PROBE_AREA = 20.0
+_PROBE_NOISE = 1e-15
 
 #: Error factor without history (no earlier difference): the difference of two levels, times 3.
-ERROR_FACTOR = 3.0
+_ERROR_FACTOR = 3.0
 #: Smallest error factor with history: never claim better than twice the last difference.
-MIN_ERROR_FACTOR = 2.0
+_MIN_ERROR_FACTOR = 2.0
 #: Largest convergence ratio q used in the geometric tail q / (1 - q) (keeps the factor finite).
-MAX_ERROR_RATIO = 0.9
+_MAX_ERROR_RATIO = 0.9
 #: Rounding floor of an error estimate, in units of eps sum |w f|.
-ROUNDING_FLOOR = 64
+_ROUNDING_FLOOR = 64
 
 #: A round refines the largest errors until the rest is below this fraction of the tolerance.
-REFINE_TARGET = 0.5
+_REFINE_TARGET = 0.5
 #: A piece refines its shells (not its radial level) while their error exceeds this share of its tolerance ...
-ANGULAR_SHARE = 0.25
+_ANGULAR_SHARE = 0.25
 #: ... or this fraction of its radial error.
-ANGULAR_OVER_RADIAL = 0.1
+_ANGULAR_OVER_RADIAL = 0.1
 
 #: Default number of points of the sampled final rule (angular levels capped to fit): a fast sample.
 RULE_SAMPLE_POINTS = 65536
@@ -327,15 +329,15 @@ def _progress_sink(progress):
 
 
 def _probe_points(layout: Layout) -> tuple[np.ndarray, np.ndarray]:
-    """Points along PROBE_RAYS rays at radii PROBE_RADIUS L 2^j about the mean centre: (points (P, 4), radii)."""
+    """Points along _PROBE_RAYS rays at radii _PROBE_RADIUS L 2^j about the mean centre: (points (P, 4), radii)."""
     c0 = layout.centres.mean(axis=0)
-    radii = PROBE_RADIUS * layout.extent * 2.0 ** np.arange(PROBE_RADII)
-    rng = np.random.default_rng(PROBE_SEED)
+    radii = _PROBE_RADIUS * layout.extent * 2.0 ** np.arange(_PROBE_RADII)
+    rng = np.random.default_rng(_PROBE_SEED)
     dim = layout.dim
-    dirs = rng.normal(size=(PROBE_RAYS, dim))
+    dirs = rng.normal(size=(_PROBE_RAYS, dim))
     dirs /= np.linalg.norm(dirs, axis=1, keepdims=True)
     if dim == 3:
-        dirs = np.concatenate([dirs, np.zeros((PROBE_RAYS, 1))], axis=1)
+        dirs = np.concatenate([dirs, np.zeros((_PROBE_RAYS, 1))], axis=1)
     pts = c0[None, None, :] + radii[:, None, None] * dirs[None, :, :]
     return pts.reshape(-1, 4), radii
 
@@ -348,21 +350,21 @@ def _decay_exponent(values: np.ndarray, radii: np.ndarray, dim: int = 4, magnitu
     then the decay seen is rounding noise of a field that has already gone to zero.
     """
     v = np.max(np.abs(values.reshape(radii.shape[0], -1)), axis=1)
-    if v[-1] <= PROBE_ZERO or v[-2] <= PROBE_ZERO:
+    if v[-1] <= _PROBE_ZERO or v[-2] <= _PROBE_ZERO:
         return None
-    if max(v[-2], v[-1]) * radii[-2] ** dim * PROBE_AREA <= PROBE_NOISE * magnitude:
+    if max(v[-2], v[-1]) * radii[-2] ** dim * _PROBE_AREA <= _PROBE_NOISE * magnitude:
         return None
     p = [-math.log(v[j + 1] / v[j]) / math.log(radii[j + 1] / radii[j]) for j in range(len(radii) - 1) if v[j] > 0]
     return float(min(p[-2:])) if p else None
 
 
 def _check_decay(name: str, values: np.ndarray, radii: np.ndarray, layout: Layout, magnitude: float) -> None:
-    """Raise DivergentIntegralError when the probed density falls slower than |x|^-(d + DECAY_MARGIN)."""
+    """Raise DivergentIntegralError when the probed density falls slower than |x|^-(d + _DECAY_MARGIN)."""
     dim = layout.dim
     p_exp = _decay_exponent(values, radii, dim, magnitude)
-    if p_exp is None or p_exp >= dim + DECAY_MARGIN:
+    if p_exp is None or p_exp >= dim + _DECAY_MARGIN:
         return
-    verdict = "diverges" if p_exp <= dim + DIVERGENCE_MARGIN else "converges too slowly to estimate"
+    verdict = "diverges" if p_exp <= dim + _DIVERGENCE_MARGIN else "converges too slowly to estimate"
     raise DivergentIntegralError(
         f"the {name} density falls like |x|^-{p_exp:.2f} along rays at radii {radii[0]:.3g}..{radii[-1]:.3g} "
         f"about {np.round(layout.centres.mean(0), 6).tolist()}; its integral over "
@@ -382,16 +384,16 @@ def _piece_error(diff: float, previous: float, magnitude: float) -> tuple[float,
     |diff| q / (1 - q)), or 3 |diff| without history, plus a rounding floor 64 eps sum |w f|.
     """
     d = abs(diff)
-    factor = ERROR_FACTOR
+    factor = _ERROR_FACTOR
     if np.isfinite(previous) and previous > 0:
-        q = min(d / previous, MAX_ERROR_RATIO)
-        factor = max(MIN_ERROR_FACTOR, ERROR_FACTOR * q / (1.0 - q))
-    return d * factor + ROUNDING_FLOOR * _EPS * magnitude, d
+        q = min(d / previous, _MAX_ERROR_RATIO)
+        factor = max(_MIN_ERROR_FACTOR, _ERROR_FACTOR * q / (1.0 - q))
+    return d * factor + _ROUNDING_FLOOR * _EPS * magnitude, d
 
 
 def _radial_count(level: int) -> int:
-    """Radial Gauss-Legendre nodes of radial level l (RADIAL_COUNTS, the last entry beyond)."""
-    return RADIAL_COUNTS[min(level, len(RADIAL_COUNTS) - 1)]
+    """Radial Gauss-Legendre nodes of radial level l (_RADIAL_COUNTS, the last entry beyond)."""
+    return _RADIAL_COUNTS[min(level, len(_RADIAL_COUNTS) - 1)]
 
 
 def _angular_counts(level: int, periodic: bool) -> tuple[int, int]:
@@ -502,7 +504,7 @@ class _State:
     rounds: int = 0
 
     @classmethod
-    def start(cls, layout: Layout) -> "_State":
+    def start(cls, layout: Layout) -> _State:
         lsc = _quad.radial_scales(layout.centres, layout.scales)
         pieces = [_Piece(i, layout.centres[i], float(lsc[i]), layout.dim) for i in range(layout.centres.shape[0])]
         return cls(layout, pieces)
@@ -615,12 +617,12 @@ def _plan_round(state: _State, tol: float) -> tuple[list[_Piece], list[_Plan], i
     """
     periodic = state.layout.periodic
     errs = np.array([p.error for p in state.pieces])
-    chosen = [state.pieces[i] for i in _greedy(errs, REFINE_TARGET * tol)]
+    chosen = [state.pieces[i] for i in _greedy(errs, _REFINE_TARGET * tol)]
     share = tol / len(state.pieces)
     plans, need = [], 0
     for p in chosen:
-        if p.angular_err > max(ANGULAR_SHARE * share, ANGULAR_OVER_RADIAL * p.radial_err) or p.lr >= MAX_RADIAL_LEVEL:
-            idx = [j for j in _greedy(p.err, REFINE_TARGET * p.angular_err) if p.la[j] < MAX_ANGULAR_LEVEL]
+        if p.angular_err > max(_ANGULAR_SHARE * share, _ANGULAR_OVER_RADIAL * p.radial_err) or p.lr >= MAX_RADIAL_LEVEL:
+            idx = [j for j in _greedy(p.err, _REFINE_TARGET * p.angular_err) if p.la[j] < MAX_ANGULAR_LEVEL]
             plans.append(_Plan(p, "angular", idx))
             need += sum(_shell_size(int(p.la[j]) + 1, periodic) for j in idx)
         elif p.lr < MAX_RADIAL_LEVEL:
@@ -658,7 +660,7 @@ def _stop_message(plans, need: int, state: _State, max_points: int, error: float
 def _rule_description(state: _State) -> str:
     """One line naming the final rule: domain, pieces, radial nodes and angular parameters per piece."""
     layout, periodic = state.layout, state.layout.periodic
-    kind = "R^3 x S^1 (period %g)" % layout.period if periodic else "R^4"
+    kind = f"R^3 x S^1 (period {layout.period:g})" if periodic else "R^4"
     parts = []
     for p in state.pieces:
         lo, hi = int(p.la.min()), int(p.la.max())
