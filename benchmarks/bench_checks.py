@@ -10,9 +10,9 @@ from __future__ import annotations
 import argparse
 import time
 
-
 import instantonkit as ik
 from instantonkit import ansatz, checks
+from instantonkit.__main__ import DEMO_CHARGE, demo_configuration
 from instantonkit.conventions import INSTANTON_ACTION
 
 
@@ -58,9 +58,7 @@ def run(quick: bool = False) -> list[dict]:
                      reference="Harrington, Shepard, Phys. Rev. D 17 (1978) 2122"))
     rows.append(dict(figure="caloron action time", value=dt, unit="s", ratio=None, reference=f"{r.evaluations:,} points"))
     if not quick:
-        from instantonkit.__main__ import demo_configuration
-
-        rep, dt = _timed(lambda: checks.verify(demo_configuration(), expected_charge=3, rtol=1e-9, atol=1e-9))
+        rep, dt = _timed(lambda: checks.verify(demo_configuration(), expected_charge=DEMO_CHARGE, rtol=1e-9, atol=1e-9))
         rows.append(dict(figure="verify(demo k = 3): time", value=dt, unit="s", ratio=dt / 60.0,
                          reference="python -m instantonkit goal: well under a minute"))
         rows.append(dict(figure="verify(demo k = 3): passed", value=float(rep.passed), unit="", ratio=None, reference=""))
@@ -70,13 +68,11 @@ def run(quick: bool = False) -> list[dict]:
 def main(argv=None) -> None:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--quick", action="store_true", help="small cases only")
+    p.add_argument("--json", action="store_true", help="print the rows as JSON")
     args = p.parse_args(argv)
-    rows = run(args.quick)
-    w = max(len(r["figure"]) for r in rows) + 2
-    print(f"{'figure':<{w}}{'value':>14} {'unit':<7}{'ratio':>10}  reference")
-    for r in rows:
-        ratio = "" if r["ratio"] is None else f"{r['ratio']:.3g}"
-        print(f"{r['figure']:<{w}}{r['value']:>14.4g} {r['unit']:<7}{ratio:>10}  {r['reference']}")
+    from benchmarks.run import print_rows  # deferred as in the other scripts: run() works without the package
+
+    print_rows(run(args.quick), args.json)
 
 
 if __name__ == "__main__":

@@ -24,23 +24,26 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
+from . import _validate
 from . import fields as _fields
 from . import quadrature as _quad
+from . import quaternion as qt
+from . import transforms as _transforms
+from ._batching import run_batched
 from .conventions import INSTANTON_ACTION, LEVI_CIVITA, PI
 from .integrals import (  # re-exported: checks is the one place for "is it what it claims to be?"
-    _CHUNK,
-    _MAX_ANGULAR_LEVEL,
     DEFAULT_MAX_POINTS,
+    ENGINE_CHUNK,
+    RULE_SAMPLE_POINTS,
+    DensityRequest,
     DivergentIntegralError,
     FieldEvaluationError,
     IntegralResult,
-    _angular_counts,
-    _describe,
-    _evaluator,
-    _integrate,
-    _layout,
-    _shell_rule,
+    Layout,
+    field_description,
+    integrate,
     integrate_density,
+    layout_of,
     total_action,
     total_charge,
 )
@@ -65,9 +68,10 @@ __all__ = [
 
 
 def _gram_coefficients(data):
-    """G(x) = G0 + sum_mu x_mu G_mu + |x|^2 1 for G = Re(Delta^dag Delta) of ADHM data: (G0 (k,k), Gmu (4,k,k))."""
-    from . import quaternion as qt  # local: keeps the import graph flat
+    """G(x) = G0 + sum_mu x_mu G_mu + |x|^2 1 for G = Re(Delta^dag Delta) of ADHM data: (G0 (k,k), Gmu (4,k,k)).
 
+    Reads the data through ADHMData's package-internal seams ``b_minus_p(x)`` and ``lam``.
+    """
     def gram(x):
         bp = data.b_minus_p(jnp.asarray(x, dtype=jnp.float64))
         lam = jnp.asarray(data.lam)
@@ -83,6 +87,12 @@ def _gram_coefficients(data):
 def osborn_density(data, x):
     """Osborn's action density s = -1/2 box box log det G, G = Delta^dag Delta, at one point (4,) -> ().
 
+    Args:
+      data: ADHM data (:class:`instantonkit.adhm.ADHMData`, k instantons).
+      x: one point (4,) float64 (jax-traceable).
+    Returns:
+      s(x), a () float64 jax array.
+
     For ADHM data G(x) = G0 + x_mu G_mu + |x|^2 1 is a real symmetric k x k matrix with
     d_mu d_nu G = 2 delta_mu nu 1.  With H = G^-1 and P_mu = H d_mu G (derived here by repeated use of
     d H = -H (dG) H):
@@ -92,6 +102,7 @@ def osborn_density(data, x):
 
     which for k = 1 is -96 rho^4 / (|x - a|^2 + rho^2)^4, i.e. s = 48 rho^4 / (...)^4 (BPST).
     Formula s = -1/2 box box log det: Osborn, Nucl. Phys. B 159 (1979) 497 (from memory).
+    Raises nothing itself; the data's own seams raise for points of the wrong shape.
     """
     g0, gmu = _gram_coefficients(data)
     x = jnp.asarray(x, dtype=jnp.float64)
@@ -124,6 +135,10 @@ class _OsbornField:
     def action_density(self, x):
         return osborn_density(self.data, x)
 
+    def describe(self) -> str:
+        """Field hook: one line for reports."""
+        return f"Osborn's density of {field_description(self.data)}"
+
     def tree_flatten(self):
         return (self.data,), None
 
@@ -139,8 +154,8 @@ def _cs_flux(field, centre: np.ndarray, radius: float, n_angular: int, method: s
     """oint_{|x - c| = R} K_mu n_mu dS with K_mu = -(1/8 pi^2) eps tr(1/2 A_nu F_rs - 1/3 A_nu A_r A_s)."""
     dirs, w = _quad.sphere3_nodes(n_angular)
     pts = centre[None, :] + radius * dirs
-    a = np.asarray(_fields.evaluate(field, pts, "potential", method=method, chunk_size=_CHUNK))
-    f = np.asarray(_fields.evaluate(field, pts, "field_strength", method=method, chunk_size=_CHUNK))
+    a = np.asarray(_fields.evaluate(field, pts, "potential", method=method, chunk_size=ENGINE_CHUNK))
+    f = np.asarray(_fields.evaluate(field, pts, "field_strength", method=method, chunk_size=ENGINE_CHUNK))
     af = np.einsum("pnij,prsji->pnrs", a, f)  # tr(A_nu F_rs)
     aa = np.einsum("prij,psjk->prsik", a, a)
     aaa = np.einsum("pnij,prsji->pnrs", a, aa)  # tr(A_nu A_r A_s)
@@ -149,24 +164,43 @@ def _cs_flux(field, centre: np.ndarray, radius: float, n_angular: int, method: s
     return float(np.sum(w * flux))
 
 
+#: Default sphere radius of surface_winding, in units of the field's extent (far out in the pure gauge).
+_WINDING_RADIUS = 200.0
+#: Rounding floor added to the winding's error estimate (the flux is a sum of O(1) terms).
+_WINDING_FLOOR = 1e-12
+
+
 def surface_winding(field, *, center=None, radius=None, n_angular: int = 10, method: str = "auto") -> tuple[float, float]:
     """Chern-Simons flux through a large S^3 about ``center``: (value, error estimate).
 
-    The flux at radii R and 2R (R = 200 x the field's scale unless given); the value is the one at 2R
-    and the error their difference plus a rounding floor.  Equals Q for potentials smooth everywhere
-    (the regular-gauge BPST gives +1) and tends to the winding number of the gauge map at infinity.
+    The flux at radii R and 2R; the value is the one at 2R and the error their difference plus a
+    rounding floor.  Equals Q for potentials smooth everywhere (the regular-gauge BPST gives +1) and
+    tends to the winding number of the gauge map at infinity.
+
+    Args:
+      field: a field or callable potential.
+      center: (4,) centre of the sphere (default the mean of the field's layout centres).
+      radius: R (default 200 x the field's extent, see :class:`Layout`).
+      n_angular: S^3 parameter n of the angular rule (2 n^3 points per sphere).
+      method: the engine's 'auto' | 'closed' | 'autodiff' for A and F.
+    Returns:
+      (value, error) floats.
+    Raises:
+      FieldEvaluationError when the potential or F cannot be evaluated on the spheres;
+      ValueError for a bad ``center``.
     """
     field = _fields.as_field(field)
-    centres, scales, _, _ = _layout(field, None, None, None)
-    c = centres.mean(axis=0) if center is None else np.asarray(center, dtype=np.float64)
-    big = float(np.max(scales) + np.max(np.linalg.norm(centres - centres.mean(0), axis=1)))
-    r = 200.0 * big if radius is None else float(radius)
+    layout = layout_of(field)
+    c = layout.centres.mean(axis=0) if center is None else _validate.point("center", center)
+    r = _WINDING_RADIUS * layout.extent if radius is None else float(radius)
     try:
         w1 = _cs_flux(field, c, r, n_angular, method)
         w2 = _cs_flux(field, c, 2.0 * r, n_angular, method)
     except (ValueError, TypeError, RuntimeError, ArithmeticError) as err:
-        raise FieldEvaluationError(f"evaluating the potential of {_describe(field)} failed: {type(err).__name__}: {err}") from err
-    return w2, abs(w2 - w1) + 1e-12
+        raise FieldEvaluationError(
+            f"evaluating the potential of {field_description(field)} failed: {type(err).__name__}: {err}"
+        ) from err
+    return w2, abs(w2 - w1) + _WINDING_FLOOR
 
 
 # -- verify ------------------------------------------------------------------------------------------
@@ -265,61 +299,28 @@ class Verification:
         return "\n".join(lines)
 
 
-def _residual_stats(field, pieces, centres, scales, period, sign: int, method: str,
-                    max_samples: int = 65536) -> tuple[float, float]:
-    """(max, s-weighted mean) of |F - sign *F| / |F| over the final shells (angular levels capped).
+def _whole_chunks(quantity_fn, field, points: np.ndarray) -> np.ndarray:
+    """quantity_fn(field, points) (M,) float64 in whole ENGINE_CHUNK batches: the integrals' compiled size."""
+    out = run_batched(lambda p: quantity_fn(field, p, chunk_size=ENGINE_CHUNK), [points], ENGINE_CHUNK)
+    return np.zeros(0) if out is None else np.asarray(out, dtype=np.float64)
 
-    Each final shell of each piece is sampled at min(its angular level, cap), the cap chosen so that
-    at most ``max_samples`` points are used; weights are the rule weights times s = -1/2 sum tr F F.
+
+def _residual_stats(field, rule: _quad.Rule, sign: int) -> tuple[float, float]:
+    """(max, s-weighted mean) of the (anti-)self-duality residual over the points of ``rule``, by the engine.
+
+    sign +1: |F - *F| / |F| from :func:`fields.self_duality_residual`; sign -1: |F + *F| / |F|, the
+    self-duality residual of the parity image (evaluated at the parity-mapped points, where its F is
+    F with the index signs of P, so the value is exact).  Weights |w s| with s from
+    :func:`fields.action_density` of the same field.
     """
-    periodic = period is not None
-    cap = _MAX_ANGULAR_LEVEL
-    while cap > 0:
-        total = 0
-        for p in pieces:
-            for lev in np.minimum(p.la, cap):
-                n, nt = _angular_counts(int(lev), periodic)
-                total += 2 * n**3 if not periodic else 2 * n * n * nt
-        if total <= max_samples:
-            break
-        cap -= 1
-    pts, wts = [], []
-    for p in pieces:
-        for j, lev in enumerate(np.minimum(p.la, cap)):
-            a, w = _shell_rule(p, j, int(lev), centres, scales, period)
-            pts.append(a)
-            wts.append(w)
-    pts, wts = np.concatenate(pts), np.concatenate(wts)
-    res = np.empty(pts.shape[0])
-    dens = np.empty(pts.shape[0])
-    for start in range(0, pts.shape[0], _CHUNK):
-        chunk = pts[start : start + _CHUNK]
-        m = chunk.shape[0]
-        if m < _CHUNK:  # one compiled size for every call
-            chunk = np.concatenate([chunk, np.broadcast_to(chunk[0], (_CHUNK - m, 4))])
-        f = np.asarray(_fields.field_strength(field, chunk, method=method, chunk_size=_CHUNK))[:m]
-        fd = 0.5 * np.einsum("mnrs,prsij->pmnij", LEVI_CIVITA, f)
-        num = np.sqrt(np.sum(np.abs(f - sign * fd) ** 2, axis=(1, 2, 3, 4)))
-        den = np.sqrt(np.sum(np.abs(f) ** 2, axis=(1, 2, 3, 4)))
-        res[start : start + m] = np.where(den > 0, num / np.where(den > 0, den, 1.0), 0.0)
-        dens[start : start + m] = -0.5 * np.real(np.einsum("pmnij,pmnji->p", f, f))
-    wd = np.abs(wts * dens)
+    pts, target = rule.points, field
+    if sign < 0:
+        pts, target = pts * _transforms.PARITY, _transforms.parity(field)
+    res = _whole_chunks(_fields.self_duality_residual, target, pts)
+    dens = _whole_chunks(_fields.action_density, target, pts)
+    wd = np.abs(rule.weights * dens)
     mean = float(np.sum(wd * res) / np.sum(wd)) if np.sum(wd) > 0 else 0.0
     return float(np.max(res)), mean
-
-
-def _pole_count(field):
-    """Instanton number read off a scalar ansatz: (count, description) or None."""
-    name = type(field).__name__
-    if name == "ThooftField":
-        return int(np.asarray(field.centers).reshape(-1, 4).shape[0]), "'t Hooft poles (number of centres)"
-    if name == "JNRField":
-        return int(np.asarray(field.poles).reshape(-1, 4).shape[0]) - 1, "JNR poles minus one"
-    if name == "ParityImage" and hasattr(field, "field"):
-        got = _pole_count(field.field)
-        if got is not None:
-            return -got[0], got[1] + ", parity image"
-    return None
 
 
 def verify(
@@ -342,92 +343,152 @@ def verify(
 ) -> Verification:
     """Check that ``field`` is a charge-k (anti-)instanton and report every number behind the verdict.
 
-    Integrates q (``charge_method``: 'auto' uses the field's closed-form q where it has one, 'closed'
-    forces eps tr F F from the closed-form F, 'autodiff' differentiates the potential) and s,
-    then reports the nearest integer n to Q and Q - n with its error, S/8pi^2, the Bogomolny margin
-    S/8pi^2 - |Q| (>= 0 always; 0 for (anti-)self-dual fields), the (anti-)self-duality residual
-    |F -+ *F|/|F| (sign from Q) as max and s-weighted mean over the integration points, the ADHM
-    constraint residual where the field has data, and the independent routes of the module docstring.
-    ``rtol``/``atol`` apply to Q and to S / 8 pi^2.  ``passed`` requires: both integrals converged to within ``charge_tol``, |Q - n| <= charge_tol,
-    n == expected_charge (if given) and n != 0, |margin| <= duality_tol and mean residual
-    <= duality_tol, constraint residual <= constraint_tol, decisive routes agreeing.
-    ``winding``: compute the sphere flux (None: for potentials declared 'regular' and for callables).
-    Divergent densities and failing fields give passed = False with the reason, not numbers.
+    Integrates q and s, then reports the nearest integer n to Q and Q - n with its error, S/8pi^2,
+    the Bogomolny margin S/8pi^2 - |Q| (>= 0 always; 0 for (anti-)self-dual fields), the
+    (anti-)self-duality residual |F -+ *F|/|F| (sign from Q) as max and s-weighted mean over a sample
+    of the final rule of the action integral, the constraint residual where the field has the
+    ``constraint_residual`` hook, and the independent routes of the module docstring.
+
+    Args:
+      field: a field or callable potential.
+      expected_charge: the instanton number the field should have (None: any nonzero integer).
+      rtol, atol: tolerances of both integrals; ``atol`` is for Q and for S / 8 pi^2.
+      center, scale, period: the integration layout (see :func:`instantonkit.integrals.layout_of`).
+      max_points: budget of density evaluations per integral.
+      charge_tol: tolerance of |Q - n| (and of unconverged errors); duality_tol: of the Bogomolny
+        margin and the mean residual; constraint_tol: of the constraint residual.
+      routes: compute the independent routes; winding: the sphere-flux route (None: for potentials
+        declared 'regular' and for fields that offer no hook beyond a potential, see :func:`_routes`).
+      charge_method: 'auto' (the field's closed-form q where it has one), 'closed' (eps tr F F from
+        the closed-form F) or 'autodiff' (differentiate the potential).
+      progress: as in :func:`instantonkit.integrals.integrate_density`.
+    Returns:
+      Verification; ``passed`` requires both integrals converged to within ``charge_tol``,
+      |Q - n| <= charge_tol, n == expected_charge (if given) and n != 0, |margin| <= duality_tol and
+      mean residual <= duality_tol, constraint residual <= constraint_tol, decisive routes agreeing.
+    Raises:
+      ValueError for bad tolerances, budget, centre, scale or period.  Divergent densities and
+      failing fields give passed = False with the reason, not an exception.
     """
     field = _fields.as_field(field)
-    desc = _describe(field)
-    reasons: list[str] = []
+    layout = layout_of(field, center, scale, period)
     kw = dict(rtol=rtol, atol=atol, max_points=max_points, progress=progress)
-    charge = action = None
-    pieces = None
-    try:
-        centres, scales, per, _ = _layout(field, center, scale, period)
-        charge, _ = _integrate(_evaluator(field, "charge_density", charge_method, "charge density"), "charge",
-                               centres, scales, per, **kw)
-        kw_s = dict(kw, atol=atol * INSTANTON_ACTION)  # atol is for Q and for S / 8 pi^2
-        action, pieces = _integrate(_evaluator(field, "action_density", "auto", "action density"), "action",
-                                    centres, scales, per, **kw_s)
-    except (DivergentIntegralError, FieldEvaluationError) as err:
-        reasons.append(str(err))
-        per = period
-    nearest = distance = dist_err = units = units_err = margin = margin_err = None
-    bound = saturated = None
-    rmax = rmean = None
-    duality = "self-duality"
+    reasons: list[str] = []
+    charge, action, rule = _integrals(field, layout, charge_method, kw, reasons)
+    found = _Findings()
     if charge is not None:
-        nearest = int(round(charge.value))
-        distance = charge.value - nearest
-        dist_err = charge.error
-        if not charge.converged and charge.error > charge_tol:
-            reasons.append(f"charge integral not converged: {charge.message}")
-        if abs(distance) > max(charge_tol, 0.0):
-            reasons.append(f"charge is not an integer: Q = {charge.value:.10g}, |Q - {nearest}| = {abs(distance):.2e} > {charge_tol:.0e}")
-        if expected_charge is not None and nearest != int(expected_charge):
-            reasons.append(f"charge {nearest} differs from the expected {int(expected_charge)}")
-        if nearest == 0:
-            reasons.append("charge 0: not an instanton")
-        if nearest < 0:
-            duality = "anti-self-duality"
+        _charge_findings(found, charge, expected_charge, charge_tol, reasons)
     if action is not None:
-        units = action.value / INSTANTON_ACTION
-        units_err = action.error / INSTANTON_ACTION
-        if not action.converged and units_err > charge_tol:
-            reasons.append(f"action integral not converged: {action.message}")
+        _action_findings(found, action, charge_tol, reasons)
     if charge is not None and action is not None:
-        margin = units - abs(charge.value)
-        margin_err = units_err + charge.error
-        bound = margin >= -max(margin_err, 1e-12)
-        saturated = abs(margin) <= max(duality_tol, margin_err)
-        if not bound:
-            reasons.append(f"Bogomolny bound violated: S/8pi^2 - |Q| = {margin:.3e} (error {margin_err:.1e})")
-        elif not saturated:
-            reasons.append(f"not {duality.replace('-duality', '-dual')}: S/8pi^2 - |Q| = {margin:.3e} > {duality_tol:.0e}")
-        sign = -1 if (nearest is not None and nearest < 0) else 1
-        try:
-            rmax, rmean = _residual_stats(field, pieces, centres, scales, per, sign, "auto")
-        except (ValueError, TypeError, RuntimeError) as err:
-            reasons.append(f"duality residual could not be evaluated: {type(err).__name__}: {err}")
-        if rmean is not None and rmean > duality_tol:
-            reasons.append(f"{duality} residual (weighted mean) {rmean:.3e} > {duality_tol:.0e}")
-    cres = None
-    if hasattr(field, "constraint_residual"):
-        cres = float(field.constraint_residual())
-        if cres > constraint_tol:
-            reasons.append(f"ADHM constraint residual {cres:.3e} > {constraint_tol:.0e}")
-    found: list[Route] = []
+        _duality_findings(found, field, charge, rule, duality_tol, reasons)
+    cres = _constraint_findings(field, constraint_tol, reasons)
+    route_list: list[Route] = []
     if routes and charge is not None:
-        found = _routes(field, charge, centres, scales, per, kw, charge_tol, winding)
-        for r in found:
+        route_list = _routes(field, charge, layout, kw, charge_tol, winding)
+        for r in route_list:
             if r.decisive and r.agrees is False:
                 reasons.append(f"independent route disagrees: {r.name} gives {r.value} ({r.note})".strip())
     return Verification(
-        field=desc, charge=charge, action=action, nearest_integer=nearest, distance=distance,
-        distance_error=dist_err, action_units=units, action_units_error=units_err, bogomolny_margin=margin,
-        bogomolny_margin_error=margin_err, bound_holds=bound, saturated=saturated, duality=duality,
-        residual_max=rmax, residual_mean=rmean, constraint_residual=cres, routes=tuple(found),
-        passed=not reasons, reasons=tuple(reasons), period=per,
-        expected_charge=None if expected_charge is None else int(expected_charge),
+        field=field_description(field), charge=charge, action=action, nearest_integer=found.nearest,
+        distance=found.distance, distance_error=found.distance_error, action_units=found.units,
+        action_units_error=found.units_error, bogomolny_margin=found.margin,
+        bogomolny_margin_error=found.margin_error, bound_holds=found.bound, saturated=found.saturated,
+        duality=found.duality, residual_max=found.residual_max, residual_mean=found.residual_mean,
+        constraint_residual=cres, routes=tuple(route_list), passed=not reasons, reasons=tuple(reasons),
+        period=layout.period, expected_charge=None if expected_charge is None else int(expected_charge),
     )
+
+
+@dataclasses.dataclass
+class _Findings:
+    """The numbers verify derives from the integrals, filled in step by step (None where not reached)."""
+
+    nearest: int | None = None
+    distance: float | None = None
+    distance_error: float | None = None
+    units: float | None = None
+    units_error: float | None = None
+    margin: float | None = None
+    margin_error: float | None = None
+    bound: bool | None = None
+    saturated: bool | None = None
+    duality: str = "self-duality"
+    residual_max: float | None = None
+    residual_mean: float | None = None
+
+
+def _integrals(field, layout: Layout, charge_method: str, kw: dict, reasons: list):
+    """(charge, action, sampled final rule of the action) as far as they can be computed.
+
+    A divergent density or a failing field ends the step with its message in ``reasons``; a charge
+    computed before the action failed is kept.
+    """
+    charge = action = rule = None
+    try:
+        charge = integrate(field, (DensityRequest("charge_density", charge_method),), layout, **kw).results[0]
+        outcome = integrate(field, (DensityRequest("action_density", atol=kw["atol"] * INSTANTON_ACTION),), layout,
+                            rule_points=RULE_SAMPLE_POINTS, **kw)  # atol is for Q and for S / 8 pi^2
+        action, rule = outcome.results[0], outcome.rule
+    except (DivergentIntegralError, FieldEvaluationError) as err:
+        reasons.append(str(err))
+    return charge, action, rule
+
+
+def _charge_findings(found: _Findings, charge: IntegralResult, expected, charge_tol: float, reasons: list) -> None:
+    """Nearest integer, distance to it, and the charge's reasons to fail."""
+    found.nearest = nearest = int(round(charge.value))
+    found.distance = distance = charge.value - nearest
+    found.distance_error = charge.error
+    if not charge.converged and charge.error > charge_tol:
+        reasons.append(f"charge integral not converged: {charge.message}")
+    if abs(distance) > max(charge_tol, 0.0):
+        reasons.append(f"charge is not an integer: Q = {charge.value:.10g}, |Q - {nearest}| = {abs(distance):.2e} > {charge_tol:.0e}")
+    if expected is not None and nearest != int(expected):
+        reasons.append(f"charge {nearest} differs from the expected {int(expected)}")
+    if nearest == 0:
+        reasons.append("charge 0: not an instanton")
+    if nearest < 0:
+        found.duality = "anti-self-duality"
+
+
+def _action_findings(found: _Findings, action: IntegralResult, charge_tol: float, reasons: list) -> None:
+    """S / 8 pi^2 with its error, and the action's reason to fail."""
+    found.units = action.value / INSTANTON_ACTION
+    found.units_error = action.error / INSTANTON_ACTION
+    if not action.converged and found.units_error > charge_tol:
+        reasons.append(f"action integral not converged: {action.message}")
+
+
+def _duality_findings(found: _Findings, field, charge: IntegralResult, rule, duality_tol: float, reasons: list) -> None:
+    """The Bogomolny margin and the (anti-)self-duality residual on the sampled final rule."""
+    found.margin = margin = found.units - abs(charge.value)
+    found.margin_error = margin_err = found.units_error + charge.error
+    found.bound = margin >= -max(margin_err, 1e-12)
+    found.saturated = abs(margin) <= max(duality_tol, margin_err)
+    duality = found.duality
+    if not found.bound:
+        reasons.append(f"Bogomolny bound violated: S/8pi^2 - |Q| = {margin:.3e} (error {margin_err:.1e})")
+    elif not found.saturated:
+        reasons.append(f"not {duality.replace('-duality', '-dual')}: S/8pi^2 - |Q| = {margin:.3e} > {duality_tol:.0e}")
+    sign = -1 if (found.nearest is not None and found.nearest < 0) else 1
+    try:
+        found.residual_max, found.residual_mean = _residual_stats(field, rule, sign)
+    except (ValueError, TypeError, RuntimeError) as err:
+        reasons.append(f"duality residual could not be evaluated: {type(err).__name__}: {err}")
+    if found.residual_mean is not None and found.residual_mean > duality_tol:
+        reasons.append(f"{duality} residual (weighted mean) {found.residual_mean:.3e} > {duality_tol:.0e}")
+
+
+def _constraint_findings(field, constraint_tol: float, reasons: list) -> float | None:
+    """The field's constraint residual (``constraint_residual`` hook) and its reason to fail, or None."""
+    residual = _fields.hook(field, "constraint_residual")
+    if residual is None:
+        return None
+    cres = float(residual())
+    if cres > constraint_tol:
+        reasons.append(f"ADHM constraint residual {cres:.3e} > {constraint_tol:.0e}")
+    return cres
 
 
 def _agree(value, error, charge, tol) -> bool | None:
@@ -436,30 +497,51 @@ def _agree(value, error, charge, tol) -> bool | None:
     return abs(value - charge.value) <= max(tol, 10.0 * (error + charge.error))
 
 
-def _routes(field, charge, centres, scales, per, kw, tol, winding) -> list[Route]:
+def _only_potential(field) -> bool:
+    """True when the field offers no hook beyond ``describe``: a bare potential (a user callable, say).
+
+    For such a field the sphere flux is the only other route to the charge, so it is on by default.
+    """
+    return all(_fields.hook(field, name) is None for name in _fields.HOOKS if name != "describe")
+
+
+def _osborn_route(field, charge, layout: Layout, kw: dict, tol: float) -> Route:
+    """Q from the integral of Osborn's density, for fields with the ``log_det`` hook (ADHM data)."""
+    name = "Osborn density -1/2 box box log det(Delta^dag Delta)"
+    try:
+        req = DensityRequest("action_density", name="Osborn action", label="Osborn density",
+                             atol=kw["atol"] * INSTANTON_ACTION)
+        res = integrate(_OsbornField(field), (req,), layout, **kw).results[0]
+    except (DivergentIntegralError, FieldEvaluationError) as e:
+        return Route(name, None, None, True, False, str(e))
+    declared = _fields.hook(field, "charge")
+    sign = -1 if declared is not None and declared < 0 else 1  # s = 8 pi^2 |q|: the sign is the construction's
+    val, err = sign * res.value / INSTANTON_ACTION, res.error / INSTANTON_ACTION
+    return Route(name, val, err, True, _agree(val, err, charge, tol), "" if res.converged else res.message)
+
+
+def _routes(field, charge, layout: Layout, kw, tol, winding) -> list[Route]:
+    """The independent routes to the charge that the field's hooks allow.
+
+    Osborn's density: fields with ``log_det``.  Pole count: fields with ``pole_count``.  Sphere flux
+    (R^4 only): when ``winding`` is True, or by default for potentials declared smooth (attribute
+    ``gauge == 'regular'`` and, for ADHM data with ``constraint_residual``, |charge| 1) and for fields
+    that offer no hook beyond a potential; decisive only for the smooth ones.
+    """
     out: list[Route] = []
-    if hasattr(field, "constraint_residual") and hasattr(field, "log_det") and centres is not None:
-        name = "Osborn density -1/2 box box log det(Delta^dag Delta)"
-        try:
-            kw_s = dict(kw, atol=kw["atol"] * INSTANTON_ACTION)
-            res, _ = _integrate(_evaluator(_OsbornField(field), "action_density", "auto", "Osborn density"),
-                                "Osborn action", centres, scales, per, **kw_s)
-            sign = 1 if field.chirality > 0 else -1
-            val, err = sign * res.value / INSTANTON_ACTION, res.error / INSTANTON_ACTION
-            out.append(Route(name, val, err, True, _agree(val, err, charge, tol),
-                             "" if res.converged else res.message))
-        except (DivergentIntegralError, FieldEvaluationError) as e:
-            out.append(Route(name, None, None, True, False, str(e)))
-    poles = _pole_count(field)
-    if poles is not None:
-        val = float(poles[0])
-        out.append(Route(poles[1], val, 0.0, True, _agree(val, 0.0, charge, tol)))
-    gauge = getattr(field, "gauge", None)
-    is_adhm = hasattr(field, "constraint_residual")
-    smooth = gauge == "regular" and (not is_adhm or field.k == 1)
+    if _fields.hook(field, "log_det") is not None:
+        out.append(_osborn_route(field, charge, layout, kw, tol))
+    pole_count = _fields.hook(field, "pole_count")
+    if pole_count is not None:
+        count, text = pole_count()
+        val = float(count)
+        out.append(Route(text, val, 0.0, True, _agree(val, 0.0, charge, tol)))
+    declared = _fields.hook(field, "charge")
+    is_adhm = _fields.hook(field, "constraint_residual") is not None
+    smooth = getattr(field, "gauge", None) == "regular" and (not is_adhm or (declared is not None and abs(declared) == 1))
     if winding is None:
-        winding = smooth or isinstance(field, _fields.CallableField)
-    if winding and per is None:
+        winding = smooth or _only_potential(field)
+    if winding and layout.period is None:
         name = "Chern-Simons flux through a large S^3 (winding at infinity)"
         note = "" if smooth else "equals Q only for a potential smooth everywhere"
         try:

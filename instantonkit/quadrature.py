@@ -37,6 +37,8 @@ import functools
 import numpy as np
 from scipy.special import roots_chebyu, roots_legendre
 
+from . import _validate
+
 __all__ = [
     "Rule",
     "radial_nodes",
@@ -52,7 +54,6 @@ __all__ = [
 
 #: Exponent m of the partition-of-unity weights (|x - a_i|^2 + rho_i^2)^-m.
 DEFAULT_PARTITION_POWER = 4
-
 
 
 @dataclasses.dataclass(frozen=True)
@@ -99,16 +100,13 @@ class Rule:
 
 
 def _check_count(name: str, n) -> int:
-    if not isinstance(n, (int, np.integer)) or n < 1:
-        raise ValueError(f"{name} must be a positive integer; found {n!r}")
-    return int(n)
+    """A node count: a positive integer (see :func:`instantonkit._validate.positive_int`)."""
+    return _validate.positive_int(name, n)
 
 
 def _check_scale(name: str, value) -> float:
-    v = float(value)
-    if not np.isfinite(v) or v <= 0:
-        raise ValueError(f"{name} must be finite and > 0; found {value!r}")
-    return v
+    """A length or period: a finite number > 0 (see :func:`instantonkit._validate.positive_float`)."""
+    return _validate.positive_float(name, value)
 
 
 @functools.lru_cache(maxsize=64)
@@ -218,21 +216,9 @@ def partition_weights(points, centers, scales, *, power: int | None = None, peri
 
 
 def _as_centers(centers, scales) -> tuple[np.ndarray, np.ndarray]:
-    c = np.asarray(centers, dtype=np.float64)
-    if c.shape == (4,):
-        c = c[None]
-    if c.ndim != 2 or c.shape[1] != 4 or c.shape[0] < 1:
-        raise ValueError(f"centers must have shape (4,) or (k, 4); found {np.shape(centers)}")
-    if not np.all(np.isfinite(c)):
-        raise ValueError("centers must be finite")
-    s = np.asarray(scales, dtype=np.float64)
-    if s.ndim == 0:
-        s = np.full(c.shape[0], float(s))
-    if s.shape != (c.shape[0],):
-        raise ValueError(f"scales must be a number or have shape ({c.shape[0]},); found {s.shape}")
-    if not np.all(np.isfinite(s)) or np.any(s <= 0):
-        raise ValueError(f"scales must be finite and > 0; found {s.tolist()}")
-    return c, s
+    """Centres (k, 4) (a (4,) centre promoted) and scales (k,) > 0 (a number broadcast), validated."""
+    c = _validate.points_array("centers", centers)
+    return c, _validate.positive_vector("scales", scales, c.shape[0])
 
 
 def radial_scales(centers, scales) -> np.ndarray:

@@ -1,0 +1,550 @@
+"""The adaptive integrator under :mod:`instantonkit.integrals` (floor 4): per-centre hyperspherical
+rules refined where the error is, with error estimates and a decay probe at infinity.
+
+It knows densities (callables ``points (M, 4) -> (M,) float64``) and layouts, not fields: the front
+doors in :mod:`instantonkit.integrals` turn a field into a density through the engine.  Each piece of
+the partition of unity (one per centre of the :class:`Layout`) is adaptive in two ways: Gauss-Legendre
+radial levels in ``u`` (``r = L u / (1 - u)``), and for every radial node (a shell) its own angular
+level of the product rule on S^3 (or S^2 x the x4 circle).  Error estimates are differences of the last
+two levels, enlarged when the levels converge slowly (``_piece_error``), plus a rounding floor.
+:func:`integrate_adaptive` runs one integral; :func:`final_rule` gives its final rule as points and
+weights, for sampling the field there.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from collections.abc import Sequence
+from typing import NamedTuple
+
+import numpy as np
+
+from . import quadrature as _quad
+
+__all__ = [
+    "IntegralResult",
+    "DivergentIntegralError",
+    "FieldEvaluationError",
+    "Layout",
+    "integrate_adaptive",
+    "final_rule",
+    "MAX_RADIAL_LEVEL",
+    "MAX_ANGULAR_LEVEL",
+]
+
+#: Radial Gauss-Legendre nodes per radial level: slow growth first (most lumps converge by 48-64).
+_RADIAL_COUNTS = (16, 24, 32, 40, 48, 64, 80, 96, 128, 160, 192, 256)
+
+#: Finest radial level: the last entry of _RADIAL_COUNTS (256 nodes in u).
+MAX_RADIAL_LEVEL = len(_RADIAL_COUNTS) - 1
+
+#: Finest angular level: S^3 parameter 3 + 2 * 20 = 43 (2 * 43^3 = 159,014 points per shell).
+MAX_ANGULAR_LEVEL = 20
+
+#: Decay probe: radii _PROBE_RADIUS x (field extent) x 2^j, j < _PROBE_RADII, far outside every lump.
+_PROBE_RADIUS = 16.0
+_PROBE_RADII = 4
+#: Decay probe: rays per radius, directions drawn with a fixed seed (the same probe on every run).
+_PROBE_RAYS = 8
+_PROBE_SEED = 12345
+#: A density falling slower than |x|^-(d + _DECAY_MARGIN) is refused: its tail error is not estimable.
+_DECAY_MARGIN = 0.75
+#: ... and called divergent (rather than too slow) when it falls no faster than |x|^-(d + _DIVERGENCE_MARGIN).
+_DIVERGENCE_MARGIN = 0.05
+#: Values below this are zero for the decay probe (far below any density that matters, above denormals).
+_PROBE_ZERO = 1e-290
+#: The probed tail counts as rounding noise when |f| R^d x _PROBE_AREA <= _PROBE_NOISE x (integral so far).
+_PROBE_AREA = 20.0
+_PROBE_NOISE = 1e-15
+
+#: Error factor without history (no earlier difference): the difference of two levels, times 3.
+_ERROR_FACTOR = 3.0
+#: Smallest error factor with history: never claim better than twice the last difference.
+_MIN_ERROR_FACTOR = 2.0
+#: Largest convergence ratio q used in the geometric tail q / (1 - q) (keeps the factor finite).
+_MAX_ERROR_RATIO = 0.9
+#: Rounding floor of an error estimate, in units of eps sum |w f|.
+_ROUNDING_FLOOR = 64
+
+#: A round refines the largest errors until the rest is below this fraction of the tolerance.
+_REFINE_TARGET = 0.5
+#: A piece refines its shells (not its radial level) while their error exceeds this share of its tolerance ...
+_ANGULAR_SHARE = 0.25
+#: ... or this fraction of its radial error.
+_ANGULAR_OVER_RADIAL = 0.1
+
+_EPS = float(np.finfo(np.float64).eps)
+
+
+# -- errors and results ----------------------------------------------------------------------------
+
+
+class DivergentIntegralError(ValueError):
+    """The density falls too slowly at infinity for its integral to exist (or to be estimated)."""
+
+
+class FieldEvaluationError(RuntimeError):
+    """Evaluating the field failed (an exception inside the field, or a non-finite value)."""
+
+
+@dataclasses.dataclass(frozen=True)
+class IntegralResult:
+    """An integral with its error estimate.
+
+    quantity: what was integrated; value, error: the estimate and its estimated absolute error;
+    evaluations: density evaluations used (all rounds); rule: the rule of the final round;
+    converged: whether ``error <= max(atol, rtol |value|)``; message: why not (budget), else "".
+    """
+
+    quantity: str
+    value: float
+    error: float
+    evaluations: int
+    rule: str
+    converged: bool
+    message: str = ""
+
+    def __float__(self) -> float:
+        return float(self.value)
+
+    def __str__(self) -> str:
+        state = "converged" if self.converged else "NOT converged"
+        text = f"{self.quantity} = {self.value:.12g} +- {self.error:.1e} ({state}, {self.evaluations:,} points)"
+        return text + (f"; {self.message}" if self.message else "")
+
+    def to_dict(self) -> dict:
+        """Plain-dict form (floats, ints, strings, bools)."""
+        return dataclasses.asdict(self)
+
+
+# -- where the field lives ---------------------------------------------------------------------------
+
+
+@dataclasses.dataclass(frozen=True)
+class Layout:
+    """Where a field's action sits, for the quadrature: one rule per centre.
+
+    centres: (m, 4) float64; scales: (m,) float64 > 0; period: the x4 period (float) or None on R^4;
+    source: where the numbers came from ('user hints', "the field's layout()", ...).
+    """
+
+    centres: np.ndarray
+    scales: np.ndarray
+    period: float | None
+    source: str
+
+    @property
+    def periodic(self) -> bool:
+        return self.period is not None
+
+    @property
+    def dim(self) -> int:
+        """Dimension of the non-compact directions: 4 on R^4, 3 on R^3 x S^1."""
+        return 3 if self.period is not None else 4
+
+    @property
+    def extent(self) -> float:
+        """Largest scale plus the largest distance of a centre from the mean centre."""
+        c0 = self.centres.mean(axis=0)
+        return float(np.max(self.scales) + np.max(np.linalg.norm(self.centres - c0, axis=1)))
+
+
+# -- decay at infinity -----------------------------------------------------------------------------
+
+
+def _probe_points(layout: Layout) -> tuple[np.ndarray, np.ndarray]:
+    """Points along _PROBE_RAYS rays at radii _PROBE_RADIUS L 2^j about the mean centre: (points (P, 4), radii)."""
+    c0 = layout.centres.mean(axis=0)
+    radii = _PROBE_RADIUS * layout.extent * 2.0 ** np.arange(_PROBE_RADII)
+    rng = np.random.default_rng(_PROBE_SEED)
+    dim = layout.dim
+    dirs = rng.normal(size=(_PROBE_RAYS, dim))
+    dirs /= np.linalg.norm(dirs, axis=1, keepdims=True)
+    if dim == 3:
+        dirs = np.concatenate([dirs, np.zeros((_PROBE_RAYS, 1))], axis=1)
+    pts = c0[None, None, :] + radii[:, None, None] * dirs[None, :, :]
+    return pts.reshape(-1, 4), radii
+
+
+def _decay_exponent(values: np.ndarray, radii: np.ndarray, dim: int = 4, magnitude: float = 0.0) -> float | None:
+    """p in |f| ~ r^-p from the largest |f| over rays at the two largest radii.
+
+    None if f vanishes there, or if the tail it implies, about |f| R^dim times the area of the unit
+    sphere, is below double-precision rounding of ``magnitude`` (the size of the integral seen so far):
+    then the decay seen is rounding noise of a field that has already gone to zero.
+    """
+    v = np.max(np.abs(values.reshape(radii.shape[0], -1)), axis=1)
+    if v[-1] <= _PROBE_ZERO or v[-2] <= _PROBE_ZERO:
+        return None
+    if max(v[-2], v[-1]) * radii[-2] ** dim * _PROBE_AREA <= _PROBE_NOISE * magnitude:
+        return None
+    p = [-math.log(v[j + 1] / v[j]) / math.log(radii[j + 1] / radii[j]) for j in range(len(radii) - 1) if v[j] > 0]
+    return float(min(p[-2:])) if p else None
+
+
+def _check_decay(name: str, values: np.ndarray, radii: np.ndarray, layout: Layout, magnitude: float) -> None:
+    """Raise DivergentIntegralError when the probed density falls slower than |x|^-(d + _DECAY_MARGIN)."""
+    dim = layout.dim
+    p_exp = _decay_exponent(values, radii, dim, magnitude)
+    if p_exp is None or p_exp >= dim + _DECAY_MARGIN:
+        return
+    verdict = "diverges" if p_exp <= dim + _DIVERGENCE_MARGIN else "converges too slowly to estimate"
+    raise DivergentIntegralError(
+        f"the {name} density falls like |x|^-{p_exp:.2f} along rays at radii {radii[0]:.3g}..{radii[-1]:.3g} "
+        f"about {np.round(layout.centres.mean(0), 6).tolist()}; its integral over "
+        f"{'R^3 x S^1' if layout.periodic else 'R^4'} {verdict} (it needs a fall faster than |x|^-{dim + 1})"
+    )
+
+
+# -- levels and error estimates ------------------------------------------------------------------------
+
+
+def _piece_error(diff: float, previous: float, magnitude: float) -> tuple[float, float]:
+    """Error estimate of the finer of two levels, and |diff| to remember.
+
+    |diff| bounds the error of the coarser level and, when the levels converge fast, generously that
+    of the finer one.  To stay an upper bound when they converge slowly or erratically, the estimate is
+    |diff| max(2, 3 q / (1 - q)) with q = |diff| / |previous diff| (<= 0.9; the geometric tail is
+    |diff| q / (1 - q)), or 3 |diff| without history, plus a rounding floor 64 eps sum |w f|.
+    """
+    d = abs(diff)
+    factor = _ERROR_FACTOR
+    if np.isfinite(previous) and previous > 0:
+        q = min(d / previous, _MAX_ERROR_RATIO)
+        factor = max(_MIN_ERROR_FACTOR, _ERROR_FACTOR * q / (1.0 - q))
+    return d * factor + _ROUNDING_FLOOR * _EPS * magnitude, d
+
+
+def _radial_count(level: int) -> int:
+    """Radial Gauss-Legendre nodes of radial level l (_RADIAL_COUNTS, the last entry beyond)."""
+    return _RADIAL_COUNTS[min(level, len(_RADIAL_COUNTS) - 1)]
+
+
+def _angular_counts(level: int, periodic: bool) -> tuple[int, int]:
+    """Angular level a: S^3 parameter n = 3 + 2a (R^4), or (S^2 parameter 2 + 2a, time nodes 8 + 4a)."""
+    if periodic:
+        return 2 + 2 * level, 8 + 4 * level
+    return 3 + 2 * level, 0
+
+
+def _shell_size(level: int, periodic: bool) -> int:
+    """Points of one shell at angular level ``level``."""
+    n, nt = _angular_counts(level, periodic)
+    return 2 * n * n * nt if periodic else 2 * n**3
+
+
+def _greedy(errors: np.ndarray, target: float) -> list[int]:
+    """Indices of the largest errors, largest first, until the rest sums to <= target."""
+    errors = np.asarray(errors, dtype=np.float64)
+    rest = float(np.sum(errors))
+    out = []
+    for j in np.argsort(-errors):
+        if rest <= target:
+            break
+        out.append(int(j))
+        rest = float(np.sum(np.delete(errors, out)))
+    return out
+
+
+# -- the adaptive state ----------------------------------------------------------------------------------
+
+
+class _Piece:
+    """Adaptive state of one piece: radial nodes, and per radial node (shell) its angular level and value.
+
+    r, wr: (n,) radial nodes and weights of level ``lr``; la: (n,) angular level per shell; val, mag,
+    err, diff: (n,) value, sum |w f|, error estimate and last difference per shell; prev_value and
+    last_radial_diff: the piece's value at the previous radial level and the difference before that.
+    """
+
+    def __init__(self, index, centre, radial_scale, dim):
+        self.index, self.centre, self.L, self.dim = index, centre, radial_scale, dim
+        self.lr = -1
+        self.prev_value = math.nan  # value of the previous radial level
+        self.last_radial_diff = math.nan
+        self.radial_err = math.inf
+        self.r = self.wr = None
+        self.la = self.val = self.err = self.diff = self.mag = None
+
+    def set_radial_level(self, lr: int, init_levels: np.ndarray) -> None:
+        self.lr = lr
+        self.r, self.wr = _quad.radial_nodes(_radial_count(lr), self.L, self.dim)
+        self.la = np.asarray(init_levels, dtype=int)
+        n = self.r.shape[0]
+        self.val = np.zeros(n)
+        self.err = np.full(n, math.inf)
+        self.diff = np.full(n, math.nan)
+        self.mag = np.zeros(n)
+
+    def levels_for(self, lr: int) -> np.ndarray:
+        """Angular levels for the shells of radial level lr: the larger level of the neighbouring old shells."""
+        r_new = _quad.radial_nodes(_radial_count(lr), self.L, self.dim)[0]
+        j = np.clip(np.searchsorted(self.r, r_new), 1, self.r.shape[0] - 1)
+        return np.maximum(self.la[j - 1], self.la[j])
+
+    @property
+    def value(self) -> float:
+        return math.fsum(self.val)
+
+    @property
+    def angular_err(self) -> float:
+        return float(np.sum(self.err))
+
+    @property
+    def error(self) -> float:
+        return self.radial_err + self.angular_err
+
+    def update_radial_error(self) -> None:
+        if np.isfinite(self.prev_value):
+            self.radial_err, _ = _piece_error(self.value - self.prev_value, self.last_radial_diff, 0.0)
+        else:
+            self.radial_err = math.inf
+
+
+class _ShellRequest(NamedTuple):
+    """One shell to evaluate: kind 'lo'/'hi' (the first pair of levels of a new shell) or 'up' (next level)."""
+
+    piece: _Piece
+    kind: str
+    shell: int
+    level: int
+
+
+class _Plan(NamedTuple):
+    """A piece's refinement in one round: kind 'angular' (shells: indices) or 'radial' (shells: initial levels)."""
+
+    piece: _Piece
+    kind: str
+    shells: object
+
+
+@dataclasses.dataclass
+class _State:
+    """The state of one adaptive integral: its layout, pieces and the points spent."""
+
+    layout: Layout
+    pieces: list
+    evaluations: int = 0
+    rounds: int = 0
+
+    @classmethod
+    def start(cls, layout: Layout) -> _State:
+        lsc = _quad.radial_scales(layout.centres, layout.scales)
+        pieces = [_Piece(i, layout.centres[i], float(lsc[i]), layout.dim) for i in range(layout.centres.shape[0])]
+        return cls(layout, pieces)
+
+    @property
+    def value(self) -> float:
+        return math.fsum(p.value for p in self.pieces)
+
+    @property
+    def error(self) -> float:
+        return math.fsum(p.error for p in self.pieces)
+
+
+def _shell_rule(piece: _Piece, j: int, level: int, layout: Layout) -> tuple[np.ndarray, np.ndarray]:
+    """Points (M, 4) and weights (M,) of shell j of ``piece`` at angular level ``level``."""
+    period = layout.period
+    n, nt = _angular_counts(level, layout.periodic)
+    a, r, wr = piece.centre, piece.r[j], piece.wr[j]
+    if period is None:
+        dirs, wd = _quad.sphere3_nodes(n)
+        pts = a[None, :] + r * dirs
+        w = wr * wd
+    else:
+        dirs, wd = _quad.sphere2_nodes(n)
+        t = a[3] - 0.5 * period + period * (np.arange(nt) + 0.5 * (nt % 2)) / nt
+        xs = np.broadcast_to((a[:3][None, :] + r * dirs)[:, None, :], (dirs.shape[0], nt, 3))
+        tt = np.broadcast_to(t[None, :, None], (dirs.shape[0], nt, 1))
+        pts = np.concatenate([xs, tt], axis=-1).reshape(-1, 4)
+        w = (wr * wd[:, None] * np.full(nt, period / nt)[None, :]).reshape(-1)
+    if layout.centres.shape[0] > 1:
+        w = w * _quad.partition_weights(pts, layout.centres, layout.scales, period=period)[:, piece.index]
+    return pts, w
+
+
+# -- the steps of one integral ---------------------------------------------------------------------------
+
+
+def _new_level_requests(piece: _Piece, lr: int, init) -> list[_ShellRequest]:
+    """Move ``piece`` to radial level lr; each new shell is evaluated at two angular levels (lo, lo + 1)."""
+    piece.set_radial_level(lr, init)
+    reqs = []
+    for j in range(piece.r.shape[0]):
+        lo = max(int(piece.la[j]) - 1, 0)  # the pair (lo, lo + 1) gives the first error estimate
+        piece.la[j] = lo + 1
+        reqs += [_ShellRequest(piece, "lo", j, lo), _ShellRequest(piece, "hi", j, lo + 1)]
+    return reqs
+
+
+def _evaluate(state: _State, density, requests: Sequence[_ShellRequest], extra=None):
+    """All shells of a round (and ``extra`` points) in one density call.
+
+    Returns ([(sum w f, sum |w f|) per request], density at ``extra``); adds the points to the state.
+    """
+    chunks = [_shell_rule(q.piece, q.shell, q.level, state.layout) for q in requests]
+    sizes = [c[0].shape[0] for c in chunks]
+    allpts = [c[0] for c in chunks] + ([extra] if extra is not None else [])
+    vals = density(np.concatenate(allpts)) if allpts else np.zeros(0)
+    out, start = [], 0
+    for (_, w), m in zip(chunks, sizes):
+        v = vals[start : start + m]
+        out.append((float(np.sum(w * v)), float(np.sum(np.abs(w * v)))))
+        start += m
+    state.evaluations += int(sum(sizes) + (0 if extra is None else extra.shape[0]))
+    return out, vals[start:]
+
+
+def _apply(requests: Sequence[_ShellRequest], sums) -> None:
+    """Store the shell sums in their pieces, with the error estimate of each shell's last two levels."""
+    lows = {}
+    for (p, kind, j, lev), (v, mag) in zip(requests, sums):
+        if kind == "lo":
+            lows[(id(p), j)] = v
+        elif kind == "hi":
+            v0 = lows[(id(p), j)]
+            p.err[j], p.diff[j] = _piece_error(v - v0, math.nan, mag)
+            p.val[j], p.mag[j] = v, mag
+        else:  # 'up'
+            p.err[j], p.diff[j] = _piece_error(v - p.val[j], p.diff[j], mag)
+            p.val[j], p.mag[j], p.la[j] = v, mag, lev
+
+
+def _initial_rounds(state: _State, density, name: str) -> None:
+    """Radial levels 0 and 1 of every piece (each shell at two angular levels), and the decay probe."""
+    probe, radii = _probe_points(state.layout)
+    reqs0 = []
+    for p in state.pieces:
+        reqs0 += _new_level_requests(p, 0, np.ones(_radial_count(0), dtype=int))
+    res0, probe_vals = _evaluate(state, density, reqs0, probe)
+    magnitude = float(sum(mag for q, (_, mag) in zip(reqs0, res0) if q.kind == "hi"))
+    _check_decay(name, probe_vals, radii, state.layout, magnitude)
+    _apply(reqs0, res0)
+    for p in state.pieces:
+        p.prev_value = p.value
+    reqs1 = []
+    for p in state.pieces:
+        reqs1 += _new_level_requests(p, 1, p.levels_for(1))
+    res1, _ = _evaluate(state, density, reqs1)
+    _apply(reqs1, res1)
+    for p in state.pieces:
+        p.update_radial_error()
+    state.rounds = 1
+
+
+def _plan_round(state: _State, tol: float) -> tuple[list[_Piece], list[_Plan], int]:
+    """Choose the pieces that carry the error and how each refines: (chosen, plans, points needed).
+
+    A piece refines the angular level of its worst shells while their error is not small beside its
+    share of the tolerance and its radial error (or at the finest radial level); else it moves to the
+    next radial level, whose new shells start at the levels of their old neighbours.
+    """
+    periodic = state.layout.periodic
+    errs = np.array([p.error for p in state.pieces])
+    chosen = [state.pieces[i] for i in _greedy(errs, _REFINE_TARGET * tol)]
+    share = tol / len(state.pieces)
+    plans, need = [], 0
+    for p in chosen:
+        if p.angular_err > max(_ANGULAR_SHARE * share, _ANGULAR_OVER_RADIAL * p.radial_err) or p.lr >= MAX_RADIAL_LEVEL:
+            idx = [j for j in _greedy(p.err, _REFINE_TARGET * p.angular_err) if p.la[j] < MAX_ANGULAR_LEVEL]
+            plans.append(_Plan(p, "angular", idx))
+            need += sum(_shell_size(int(p.la[j]) + 1, periodic) for j in idx)
+        elif p.lr < MAX_RADIAL_LEVEL:
+            init = p.levels_for(p.lr + 1)
+            plans.append(_Plan(p, "radial", init))
+            need += sum(_shell_size(int(max(lev - 1, 0)), periodic) + _shell_size(int(max(lev, 1)), periodic)
+                        for lev in init)
+    return chosen, plans, need
+
+
+def _plan_requests(plans: Sequence[_Plan]) -> list[_ShellRequest]:
+    """The shells of a round's plans (a radial step also remembers the piece's value before it)."""
+    reqs: list[_ShellRequest] = []
+    for p, kind, arg in plans:
+        if kind == "angular":
+            reqs += [_ShellRequest(p, "up", j, int(p.la[j]) + 1) for j in arg]
+        else:
+            old = p.value
+            p.last_radial_diff = abs(old - p.prev_value) if np.isfinite(p.prev_value) else math.nan
+            p.prev_value = old
+            reqs += _new_level_requests(p, p.lr + 1, arg)
+    return reqs
+
+
+def _stop_message(plans, need: int, state: _State, max_points: int, error: float, tol: float) -> str:
+    """Why refinement stops short of the tolerance ("" when the next round fits the budget)."""
+    if plans and state.evaluations + need <= max_points:
+        return ""
+    if plans:
+        return (f"budget spent: the next round needs {need:,} more points, beyond max_points = {max_points:,} "
+                f"({state.evaluations:,} used); estimated error {error:.1e} > tolerance {tol:.1e}")
+    return f"finest levels reached; estimated error {error:.1e} > tolerance {tol:.1e}"
+
+
+def _rule_description(state: _State) -> str:
+    """One line naming the final rule: domain, pieces, radial nodes and angular parameters per piece."""
+    layout, periodic = state.layout, state.layout.periodic
+    kind = f"R^3 x S^1 (period {layout.period:g})" if periodic else "R^4"
+    parts = []
+    for p in state.pieces:
+        lo, hi = int(p.la.min()), int(p.la.max())
+        n_lo, n_hi = _angular_counts(lo, periodic)[0], _angular_counts(hi, periodic)[0]
+        sphere = "S^2 x circle" if periodic else "S^3"
+        parts.append(f"{p.r.shape[0]} radial nodes (L = {p.L:.3g}), {sphere} parameter {n_lo}..{n_hi}")
+    k = len(state.pieces)
+    return (
+        f"{kind}, {k} piece(s) glued by a partition of unity; Gauss-Legendre in u, r = L u/(1-u), "
+        f"product rules per shell, adaptive per shell: " + "; ".join(parts[:4]) + ("; ..." if k > 4 else "")
+    )
+
+
+def final_rule(state: _State, max_points: int) -> _quad.Rule:
+    """The final rule with every shell at min(its angular level, cap), the largest cap giving <= max_points."""
+    periodic = state.layout.periodic
+    cap = MAX_ANGULAR_LEVEL
+    while cap > 0:
+        total = sum(_shell_size(int(lev), periodic) for p in state.pieces for lev in np.minimum(p.la, cap))
+        if total <= max_points:
+            break
+        cap -= 1
+    pts, wts = [], []
+    for p in state.pieces:
+        for j, lev in enumerate(np.minimum(p.la, cap)):
+            a, w = _shell_rule(p, j, int(lev), state.layout)
+            pts.append(a)
+            wts.append(w)
+    desc = _rule_description(state) + (f"; angular levels capped at {cap}" if cap < MAX_ANGULAR_LEVEL else "")
+    return _quad.Rule(np.concatenate(pts), np.concatenate(wts), desc)
+
+
+def integrate_adaptive(density, name: str, layout: Layout, *, rtol: float, atol: float, max_points: int,
+                   sink) -> tuple[IntegralResult, _State]:
+    """One adaptive integral: the initial rounds, then planned rounds until converged or stopped."""
+    state = _State.start(layout)
+    _initial_rounds(state, density, name)
+    converged, message = False, ""
+    while True:
+        value, error = state.value, state.error
+        tol = max(atol, rtol * abs(value))
+        if sink is not None:
+            sink(dict(quantity=name, round=state.rounds, evaluations=state.evaluations, value=value, error=error, done=False))
+        if error <= tol:
+            converged = True
+            break
+        chosen, plans, need = _plan_round(state, tol)
+        message = _stop_message(plans, need, state, max_points, error, tol)
+        if message:
+            break
+        reqs = _plan_requests(plans)
+        sums, _ = _evaluate(state, density, reqs)
+        _apply(reqs, sums)
+        for p in chosen:
+            p.update_radial_error()
+        state.rounds += 1
+    if sink is not None:
+        sink(dict(quantity=name, round=state.rounds, evaluations=state.evaluations, value=value, error=error, done=True))
+    res = IntegralResult(name, float(value), float(error), state.evaluations, _rule_description(state), converged, message)
+    return res, state
+
+
