@@ -253,7 +253,8 @@ assert abs(fit_q[-1] - 1) < 0.05'''),
 
 An SU(3) start (the SU(2) links embedded in rows and columns 1, 2) written as numpy `.npz` with
 its generation report as metadata, and as an ILDG file (LIME records); both read back exactly."""),
-        code('''links3, report = lattice.lattice_links(bpst, (6, 6, 6, 6), 0.75, group="su3", return_report=True)
+        code('''start3 = lattice.lattice_start(bpst, (6, 6, 6, 6), 0.75, group="su3")
+links3, report = start3.links, start3.report
 print("unitarity deviation before / after the final projection:",
       report.unitarity_before, report.unitarity_after)
 with tempfile.TemporaryDirectory() as tmp:
