@@ -130,8 +130,18 @@ def _cluster(n_workers: int, malloc_trim: bool = True):
 
     http = {"dashboard": False, "dashboard_address": "127.0.0.1:0"}
     env = contextlib.nullcontext() if malloc_trim else dask.config.set({_TRIM_KEY: None})
-    with env, LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=True, dashboard_address=None,
-                      scheduler_kwargs=http, silence_logs=logging.ERROR) as cluster, Client(cluster) as client:
+    with (
+        env,
+        LocalCluster(
+            n_workers=n_workers,
+            threads_per_worker=1,
+            processes=True,
+            dashboard_address=None,
+            scheduler_kwargs=http,
+            silence_logs=logging.ERROR,
+        ) as cluster,
+        Client(cluster) as client,
+    ):
         client.wait_for_workers(n_workers)
         yield client
 
@@ -148,8 +158,17 @@ def _warm_all(client, field, shape, chunks, options: dict, directory: str) -> No
     """Run :func:`_warm_worker` once on every worker of ``client`` (pinned to that worker)."""
     workers = list(client.scheduler_info()["workers"])
     futures = [
-        client.submit(_warm_worker, field, _extents(shape, chunks), SPACING, options, directory,
-                      workers=[w], allow_other_workers=False, pure=False)
+        client.submit(
+            _warm_worker,
+            field,
+            _extents(shape, chunks),
+            SPACING,
+            options,
+            directory,
+            workers=[w],
+            allow_other_workers=False,
+            pure=False,
+        )
         for w in workers
     ]
     pids = client.gather(futures)
@@ -203,9 +222,17 @@ def scaling(size: int, malloc_trim: bool = True) -> list[dict]:
     for n in (1, 2):
         with tempfile.TemporaryDirectory() as tmp, _cluster(n, malloc_trim) as client:
             _warm_all(client, field, shape, chunks, options, tmp)
-            start, total[n] = _timed(lambda: ik.cluster.lattice_start(
-                field, shape, SPACING, rtol=SCALING_RTOL, chunks=chunks,
-                store=os.path.join(tmp, "start"), client=client))
+            start, total[n] = _timed(
+                lambda: ik.cluster.lattice_start(
+                    field,
+                    shape,
+                    SPACING,
+                    rtol=SCALING_RTOL,
+                    chunks=chunks,
+                    store=os.path.join(tmp, "start"),
+                    client=client,
+                )
+            )
             links, report = start.links, start.report
             phase[n] = report.seconds
             if not np.array_equal(np.asarray(links[...]), local):
@@ -213,32 +240,81 @@ def scaling(size: int, malloc_trim: bool = True) -> list[dict]:
             del links
             # the same whole start with backend='local' in every worker at once: what this machine
             # gives two processes that share nothing (its ceiling for the 2-worker speedup)
-            alone[n] = max(client.gather([
-                client.submit(_local_in_worker, field, shape, SPACING, SCALING_RTOL, workers=[w],
-                              allow_other_workers=False, pure=False)
-                for w in client.scheduler_info()["workers"]]))
+            alone[n] = max(
+                client.gather(
+                    [
+                        client.submit(
+                            _local_in_worker,
+                            field,
+                            shape,
+                            SPACING,
+                            SCALING_RTOL,
+                            workers=[w],
+                            allow_other_workers=False,
+                            pure=False,
+                        )
+                        for w in client.scheduler_info()["workers"]
+                    ]
+                )
+            )
     n_chunks = size
     ceiling = 2.0 * alone[1] / alone[2]
     return [
-        {"figure": f"{name}: local, one process", "value": round(t_local, 3), "unit": "s", "ratio": None,
-         "reference": (f"lattice_links(backend='local'), compiled; max {report.max_steps} Magnus steps; "
-                       f"load average {load:.2f} before")},
-        {"figure": f"{name}: dask, 1 worker", "value": round(total[1], 3), "unit": "s",
-         "ratio": round(total[1] / t_local, 3), "reference": "x the local path (1.0 = no overhead)"},
-        {"figure": f"{name}: dask, 2 workers", "value": round(total[2], 3), "unit": "s",
-         "ratio": round(total[1] / total[2], 3), "reference": "speedup over 1 worker (ideal 2)"},
-        {"figure": f"{name}: chunk phase, 1 worker", "value": round(phase[1], 3), "unit": "s",
-         "ratio": round(phase[1] / t_local, 3),
-         "reference": f"{n_chunks} chunks {_fmt_chunks(chunks)}, store writes included; x the local path"},
-        {"figure": f"{name}: chunk phase, 2 workers", "value": round(phase[2], 3), "unit": "s",
-         "ratio": round(phase[1] / phase[2], 3), "reference": "speedup over 1 worker (ideal 2)"},
-        {"figure": f"{name}: serial part, 2 workers", "value": round(total[2] - phase[2], 3), "unit": "s",
-         "ratio": round((total[2] - phase[2]) / total[2], 3),
-         "reference": f"call minus chunk phase, fraction of the call; boundary check alone {t_boundary:.2f} s"},
-        {"figure": f"{name}: 2 independent local starts at once, throughput", "value": round(ceiling, 3), "unit": "x",
-         "ratio": round(phase[1] / phase[2] / ceiling, 3),
-         "reference": (f"2 x {alone[1]:.2f} s alone / {alone[2]:.2f} s side by side, one per worker (the machine's ceiling); "
-                       "ratio = chunk-phase speedup / this")},
+        {
+            "figure": f"{name}: local, one process",
+            "value": round(t_local, 3),
+            "unit": "s",
+            "ratio": None,
+            "reference": (
+                f"lattice_links(backend='local'), compiled; max {report.max_steps} Magnus steps; "
+                f"load average {load:.2f} before"
+            ),
+        },
+        {
+            "figure": f"{name}: dask, 1 worker",
+            "value": round(total[1], 3),
+            "unit": "s",
+            "ratio": round(total[1] / t_local, 3),
+            "reference": "x the local path (1.0 = no overhead)",
+        },
+        {
+            "figure": f"{name}: dask, 2 workers",
+            "value": round(total[2], 3),
+            "unit": "s",
+            "ratio": round(total[1] / total[2], 3),
+            "reference": "speedup over 1 worker (ideal 2)",
+        },
+        {
+            "figure": f"{name}: chunk phase, 1 worker",
+            "value": round(phase[1], 3),
+            "unit": "s",
+            "ratio": round(phase[1] / t_local, 3),
+            "reference": f"{n_chunks} chunks {_fmt_chunks(chunks)}, store writes included; x the local path",
+        },
+        {
+            "figure": f"{name}: chunk phase, 2 workers",
+            "value": round(phase[2], 3),
+            "unit": "s",
+            "ratio": round(phase[1] / phase[2], 3),
+            "reference": "speedup over 1 worker (ideal 2)",
+        },
+        {
+            "figure": f"{name}: serial part, 2 workers",
+            "value": round(total[2] - phase[2], 3),
+            "unit": "s",
+            "ratio": round((total[2] - phase[2]) / total[2], 3),
+            "reference": f"call minus chunk phase, fraction of the call; boundary check alone {t_boundary:.2f} s",
+        },
+        {
+            "figure": f"{name}: 2 independent local starts at once, throughput",
+            "value": round(ceiling, 3),
+            "unit": "x",
+            "ratio": round(phase[1] / phase[2] / ceiling, 3),
+            "reference": (
+                f"2 x {alone[1]:.2f} s alone / {alone[2]:.2f} s side by side, one per worker (the machine's ceiling); "
+                "ratio = chunk-phase speedup / this"
+            ),
+        },
     ]
 
 
@@ -260,8 +336,11 @@ def _memory_run(size: int, chunks: tuple, malloc_trim: bool = True) -> dict:
         before = client.run(_mem_mark)
         methods = {m for _, m in before.values()}
         method = "VmHWM" if methods == {"VmHWM"} else "ru_maxrss"
-        start, seconds = _timed(lambda: ik.cluster.lattice_start(
-            field, shape, SPACING, group="su3", chunks=chunks, store=os.path.join(tmp, "start"), client=client))
+        start, seconds = _timed(
+            lambda: ik.cluster.lattice_start(
+                field, shape, SPACING, group="su3", chunks=chunks, store=os.path.join(tmp, "start"), client=client
+            )
+        )
         report = start.report
         peak = client.run(_mem_peak, method)
     growth = sorted((max(peak[w] - before[w][0], 0) * 1024 for w in before), reverse=True)
@@ -283,23 +362,37 @@ def memory(sizes, chunks: tuple, big_chunks: tuple, malloc_trim: bool = True) ->
         n_chunks = math.prod(-(-size // c) for c in ch)
         growth[(size, ch)] = r["growth"][0]
         note = "" if r["method"] == "VmHWM" else "; ru_maxrss, warm-up peak included"
-        rows.append({
-            "figure": f"BPST SU(3) {size}^4, chunks {_fmt_chunks(ch)}: peak worker memory growth{_tag(malloc_trim)}",
-            "value": round(r["growth"][0] / MiB, 2), "unit": "MiB", "ratio": round(r["growth"][0] / chunk_bytes, 3),
-            "reference": (f"x chunk {chunk_bytes / MiB:.2f} MiB; array {array_bytes / MiB:.0f} MiB in {n_chunks} chunks, "
-                          f"call {r['seconds']:.1f} s (chunks {r['phase']:.1f} s); other worker {r['growth'][-1] / MiB:.2f} MiB{note}"),
-        })
+        rows.append(
+            {
+                "figure": f"BPST SU(3) {size}^4, chunks {_fmt_chunks(ch)}: peak worker memory growth{_tag(malloc_trim)}",
+                "value": round(r["growth"][0] / MiB, 2),
+                "unit": "MiB",
+                "ratio": round(r["growth"][0] / chunk_bytes, 3),
+                "reference": (
+                    f"x chunk {chunk_bytes / MiB:.2f} MiB; array {array_bytes / MiB:.0f} MiB in {n_chunks} chunks, "
+                    f"call {r['seconds']:.1f} s (chunks {r['phase']:.1f} s); other worker {r['growth'][-1] / MiB:.2f} MiB{note}"
+                ),
+            }
+        )
     small, big = min(sizes), max(sizes)
-    rows.append({
-        "figure": f"memory growth {big}^4 / {small}^4, chunks {_fmt_chunks(chunks)}",
-        "value": round(growth[(big, chunks)] / max(growth[(small, chunks)], 1), 3), "unit": "x", "ratio": None,
-        "reference": f"1.0 = independent of the lattice (arrays differ {big**4 / small**4:.0f}x)",
-    })
-    rows.append({
-        "figure": f"memory growth chunks {_fmt_chunks(big_chunks)} / {_fmt_chunks(chunks)}, {big_size}^4",
-        "value": round(growth[(big_size, big_chunks)] / max(growth[(big_size, chunks)], 1), 3), "unit": "x", "ratio": None,
-        "reference": f"{math.prod(big_chunks) / math.prod(chunks):.0f} = proportional to the chunk",
-    })
+    rows.append(
+        {
+            "figure": f"memory growth {big}^4 / {small}^4, chunks {_fmt_chunks(chunks)}",
+            "value": round(growth[(big, chunks)] / max(growth[(small, chunks)], 1), 3),
+            "unit": "x",
+            "ratio": None,
+            "reference": f"1.0 = independent of the lattice (arrays differ {big**4 / small**4:.0f}x)",
+        }
+    )
+    rows.append(
+        {
+            "figure": f"memory growth chunks {_fmt_chunks(big_chunks)} / {_fmt_chunks(chunks)}, {big_size}^4",
+            "value": round(growth[(big_size, big_chunks)] / max(growth[(big_size, chunks)], 1), 3),
+            "unit": "x",
+            "ratio": None,
+            "reference": f"{math.prod(big_chunks) / math.prod(chunks):.0f} = proportional to the chunk",
+        }
+    )
     return rows
 
 
@@ -312,8 +405,9 @@ def _tag(malloc_trim: bool) -> str:
     return "" if malloc_trim else " [no malloc trim]"
 
 
-def run(quick: bool = False, parts=PARTS, scaling_size: int | None = None, memory_sizes=None,
-        malloc_trim: bool = True) -> list[dict]:
+def run(
+    quick: bool = False, parts=PARTS, scaling_size: int | None = None, memory_sizes=None, malloc_trim: bool = True
+) -> list[dict]:
     """Rows {figure, value, unit, ratio, reference} of the parts asked for (see the module notes).
 
     scaling_size: L of the scaling start (default 8 quick, 12 full); memory_sizes: the L of the
@@ -337,8 +431,11 @@ def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="8^4 scaling start; 16^4 and 24^4 memory runs")
     ap.add_argument("--part", choices=PARTS, action="append", help="run only this part (repeatable)")
-    ap.add_argument("--no-malloc-trim", action="store_true",
-                    help="workers without the MALLOC_TRIM_THRESHOLD_ that dask's nanny sets by default")
+    ap.add_argument(
+        "--no-malloc-trim",
+        action="store_true",
+        help="workers without the MALLOC_TRIM_THRESHOLD_ that dask's nanny sets by default",
+    )
     ap.add_argument("--json", action="store_true", help="print the rows as JSON")
     args = ap.parse_args(argv)
     rows = run(args.quick, tuple(args.part) if args.part else PARTS, malloc_trim=not args.no_malloc_trim)

@@ -37,7 +37,16 @@ import traceback
 if __package__ in (None, ""):  # run as a script: make ``import benchmarks`` work from anywhere
     sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
-__all__ = ["discover", "collect", "machine_description", "format_table", "format_markdown", "print_rows", "main", "SMOKE"]
+__all__ = [
+    "discover",
+    "collect",
+    "machine_description",
+    "format_table",
+    "format_markdown",
+    "print_rows",
+    "main",
+    "SMOKE",
+]
 
 #: Extra keyword arguments for ``--smoke``, per module, used only where ``run`` accepts them.
 SMOKE = {
@@ -100,8 +109,15 @@ def _failure_row(module: str, err: BaseException, seconds: float) -> dict:
     }
 
 
-def collect(quick: bool = False, *, only=None, smoke: bool = False, package: str = "benchmarks",
-            names: list[str] | None = None, log=None) -> list[dict]:
+def collect(
+    quick: bool = False,
+    *,
+    only=None,
+    smoke: bool = False,
+    package: str = "benchmarks",
+    names: list[str] | None = None,
+    log=None,
+) -> list[dict]:
     """Run the selected benchmark modules and return all their rows (failures become FAILED rows).
 
     quick / smoke: see the module docstring; only: short names ('fields') or module names; names:
@@ -163,8 +179,16 @@ def _fmt_ratio(r) -> str:
 
 def _cells(rows: list[dict]) -> list[tuple[str, ...]]:
     """Cells of the rows; the figure is prefixed with its module name when the runner tagged it."""
-    return [(f"{r['benchmark']}: {r['figure']}" if "benchmark" in r else str(r["figure"]), _fmt_value(r["value"]),
-             r.get("unit") or "", _fmt_ratio(r.get("ratio")), r.get("reference") or "") for r in rows]
+    return [
+        (
+            f"{r['benchmark']}: {r['figure']}" if "benchmark" in r else str(r["figure"]),
+            _fmt_value(r["value"]),
+            r.get("unit") or "",
+            _fmt_ratio(r.get("ratio")),
+            r.get("reference") or "",
+        )
+        for r in rows
+    ]
 
 
 def format_table(rows: list[dict]) -> str:
@@ -187,6 +211,7 @@ def print_rows(rows: list[dict], as_json: bool = False) -> None:
 
 def format_markdown(rows: list[dict]) -> str:
     """The rows as a GitHub-flavoured markdown table (pipes in cells escaped)."""
+
     def esc(s):
         return s.replace("|", "\\|")
 

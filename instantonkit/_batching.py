@@ -31,8 +31,16 @@ def padded_size(rows: int, size: int, *, shrink_last: bool) -> int:
     return min(size, max(MIN_BATCH, 1 << int(np.ceil(np.log2(max(rows, 1))))))
 
 
-def run_batched(kernel: Callable, arrays: Sequence[np.ndarray], size: int, *, shrink_last: bool = False,
-                out: np.ndarray | None = None, args_before: tuple = (), args_after: tuple = ()):
+def run_batched(
+    kernel: Callable,
+    arrays: Sequence[np.ndarray],
+    size: int,
+    *,
+    shrink_last: bool = False,
+    out: np.ndarray | None = None,
+    args_before: tuple = (),
+    args_after: tuple = (),
+):
     """Run ``kernel(*args_before, *batches, *args_after)`` over the rows of ``arrays`` in batches of ``size``.
 
     arrays: equal-length (m, ...) numpy arrays batched together (row i of each belongs together).

@@ -91,7 +91,10 @@ def real_array(name: str, value, shape: tuple | None = None, *, shape_text: str 
     if shape is not None:
         ok = arr.ndim == len(shape) and all(s is None or s == n for s, n in zip(shape, arr.shape))
         if not ok:
-            want = shape_text or "(" + ", ".join("n" if s is None else str(s) for s in shape) + ("," if len(shape) == 1 else "") + ")"
+            want = (
+                shape_text
+                or "(" + ", ".join("n" if s is None else str(s) for s in shape) + ("," if len(shape) == 1 else "") + ")"
+            )
             raise ValueError(f"{name} must have shape {want}; found {arr.shape}")
     arr = arr.astype(np.float64)
     if not np.all(np.isfinite(arr)):
@@ -127,8 +130,10 @@ def points(value, name: str = "points") -> tuple[np.ndarray, tuple[int, ...]]:
     if is_tracer(value):
         raise TypeError(f"{name} must be concrete arrays here; call a field's methods directly under jit")
     arr = np.asarray(value)
-    if arr.dtype == object or arr.dtype == np.bool_ or not (
-        np.issubdtype(arr.dtype, np.floating) or np.issubdtype(arr.dtype, np.integer)
+    if (
+        arr.dtype == object
+        or arr.dtype == np.bool_
+        or not (np.issubdtype(arr.dtype, np.floating) or np.issubdtype(arr.dtype, np.integer))
     ):
         raise TypeError(f"{name} must be a real numeric array; found dtype {arr.dtype}")
     if arr.ndim < 1 or arr.shape[-1] != 4:

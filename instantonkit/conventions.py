@@ -72,17 +72,13 @@ def _levi_civita() -> np.ndarray:
 #: ``LEVI_CIVITA[m, n, r, s] = eps_{m+1, n+1, r+1, s+1}`` with ``eps_1234 = +1``; shape (4, 4, 4, 4).
 LEVI_CIVITA = _levi_civita()
 
-_SIGMA = np.array(
-    [[[0, 1], [1, 0]], [[0, -1j], [1j, 0]], [[1, 0], [0, -1]]], dtype=np.complex128
-)
+_SIGMA = np.array([[[0, 1], [1, 0]], [[0, -1j], [1j, 0]], [[1, 0], [0, -1]]], dtype=np.complex128)
 
 #: Matrices of the quaternion units ``(1, i, j, k) -> (1, -i sigma_1, -i sigma_2, -i sigma_3)``; (4, 2, 2).
 QUATERNION_BASIS = np.concatenate([np.eye(2, dtype=np.complex128)[None], -1j * _SIGMA])
 
 #: ``E_MU[mu] = d p(x) / d x_mu`` as quaternions: ``e_1 = -i, e_2 = -j, e_3 = -k, e_4 = 1``; (4, 4).
-E_MU = np.array(
-    [[0.0, -1.0, 0.0, 0.0], [0.0, 0.0, -1.0, 0.0], [0.0, 0.0, 0.0, -1.0], [1.0, 0.0, 0.0, 0.0]]
-)
+E_MU = np.array([[0.0, -1.0, 0.0, 0.0], [0.0, 0.0, -1.0, 0.0], [0.0, 0.0, 0.0, -1.0], [1.0, 0.0, 0.0, 0.0]])
 
 
 def point_to_quaternion(x):

@@ -158,6 +158,7 @@ def _evaluate_masked(field, pts: np.ndarray, quantity: str, method: str) -> np.n
     The engine raises ValueError for a non-finite result anywhere in a call; the failing calls are
     split (blocks of 64, then single points) so only the singular points are lost.
     """
+
     def run(p, chunk):
         return np.asarray(_fields.evaluate(field, p, quantity, method=method, chunk_size=chunk), dtype=np.float64)
 
@@ -325,7 +326,9 @@ def slice_panels(
     n = _resolution(resolution)
     vals_along = np.asarray(values, dtype=np.float64).reshape(-1)
     if vals_along.size < 1 or not np.all(np.isfinite(vals_along)):
-        raise ValueError(f"values must be one or more finite positions along {axis}; found {np.asarray(values).tolist()}")
+        raise ValueError(
+            f"values must be one or more finite positions along {axis}; found {np.asarray(values).tolist()}"
+        )
     lev = np.asarray(contours if contours is not None else (), dtype=np.float64).reshape(-1)
     if np.any((lev <= 0) | (lev >= 1)):
         raise ValueError(f"contours must be fractions in (0, 1) of the largest value; found {lev.tolist()}")
@@ -346,8 +349,15 @@ def slice_panels(
     if isinstance(ncols, bool) or not isinstance(ncols, (int, np.integer)) or ncols < 1:
         raise ValueError(f"ncols must be a positive integer; found {ncols!r}")
     nrows = -(-npan // ncols)
-    fig, axes = plt.subplots(nrows, ncols, figsize=(3.0 * ncols + 1.2, 3.0 * nrows + 0.4), squeeze=False,
-                             layout="constrained", sharex=True, sharey=True)
+    fig, axes = plt.subplots(
+        nrows,
+        ncols,
+        figsize=(3.0 * ncols + 1.2, 3.0 * nrows + 0.4),
+        squeeze=False,
+        layout="constrained",
+        sharex=True,
+        sharey=True,
+    )
     norm = colors.Normalize(vmin=lo, vmax=hi)
     top = max(abs(lo), abs(hi))
     shown = tuple(v / L for v in ext)
@@ -356,8 +366,14 @@ def slice_panels(
     im = None
     for p, (value, m) in enumerate(zip(vals_along, maps)):
         a = axes[p // ncols, p % ncols]
-        im = a.imshow(m, origin="lower", extent=shown, cmap=cmap or ("RdBu_r" if diverging else "magma"),
-                      norm=norm, interpolation="nearest")
+        im = a.imshow(
+            m,
+            origin="lower",
+            extent=shown,
+            cmap=cmap or ("RdBu_r" if diverging else "magma"),
+            norm=norm,
+            interpolation="nearest",
+        )
         levels = sorted(set((lev * top).tolist()))
         if diverging:
             levels = sorted(set([-v for v in levels] + levels))
@@ -387,7 +403,9 @@ def _series(obj) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """(n, value, error) arrays sorted by n from results, progress dicts, a mapping of arrays or a triple."""
     if isinstance(obj, Mapping):
         if "value" not in obj or "error" not in obj:
-            raise ValueError(f"a convergence mapping needs keys 'value', 'error' and 'evaluations' (or 'n'); found {sorted(obj)}")
+            raise ValueError(
+                f"a convergence mapping needs keys 'value', 'error' and 'evaluations' (or 'n'); found {sorted(obj)}"
+            )
         n = obj.get("evaluations", obj.get("n"))
         if n is None:
             raise ValueError("a convergence mapping needs 'evaluations' (or 'n') beside 'value' and 'error'")
@@ -398,7 +416,9 @@ def _series(obj) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         try:
             triple = ([r["evaluations"] for r in obj], [r["value"] for r in obj], [r["error"] for r in obj])
         except KeyError as err:
-            raise ValueError(f"each convergence record needs 'evaluations', 'value' and 'error'; missing {err}") from err
+            raise ValueError(
+                f"each convergence record needs 'evaluations', 'value' and 'error'; missing {err}"
+            ) from err
     elif isinstance(obj, Sequence) and len(obj) == 3:
         triple = tuple(obj)
     else:
@@ -459,11 +479,24 @@ def convergence(
     for label, (n, v, e) in curves:
         line = left.errorbar(n, v, yerr=e, marker="o", ms=3.5, capsize=2.5, label=label)
         colour = line[0].get_color()
-        right.loglog(n, np.maximum(e, tiny), marker="o", ms=3.5, color=colour,
-                     label="estimated error" + (f" ({label})" if label else ""))
+        right.loglog(
+            n,
+            np.maximum(e, tiny),
+            marker="o",
+            ms=3.5,
+            color=colour,
+            label="estimated error" + (f" ({label})" if label else ""),
+        )
         if reference is not None:
-            right.loglog(n, np.maximum(np.abs(v - reference), tiny), marker="s", ms=3.5, ls="--", color=colour,
-                         label=f"|value − {reference:g}|" + (f" ({label})" if label else ""))
+            right.loglog(
+                n,
+                np.maximum(np.abs(v - reference), tiny),
+                marker="s",
+                ms=3.5,
+                ls="--",
+                color=colour,
+                label=f"|value − {reference:g}|" + (f" ({label})" if label else ""),
+            )
     if reference is not None:
         left.axhline(reference, color="0.4", lw=0.8, ls=":", label=f"reference {reference:g}")
     left.set_xscale("log")

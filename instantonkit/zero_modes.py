@@ -239,9 +239,7 @@ def dirac_residual(data: ADHMData, points, *, chunk_size: int = _CHUNK) -> tuple
     return _map("dirac", _check_data(data), points, chunk_size)
 
 
-def zero_mode_overlap(
-    data: ADHMData, *, n_radial: int = 64, n_angular: int = 16, rule=None
-) -> np.ndarray:
+def zero_mode_overlap(data: ADHMData, *, n_radial: int = 64, n_angular: int = 16, rule=None) -> np.ndarray:
     """Overlap matrix O_ij = int d^4x sum_{c, alpha} conj(psi_i) psi_j by quadrature; (k, k) float64.
 
     Uses :func:`zero_mode_gram` on a quadrature rule: ``rule`` (an object with ``points`` (M, 4) and

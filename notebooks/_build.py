@@ -50,7 +50,9 @@ instantonkit evaluates any gauge potential you write as a JAX function `A(x): (4
 We write the hedgehog family `A_μ = f(r) η_aμν x_ν u_a` ourselves (η are 't Hooft's symbols and
 `u_a` the quaternion units `i, j, k` as 2×2 matrices), once with the BPST profile and once with a
 profile that is *not* self-dual."""),
-        code(COMMON + '''
+        code(
+            COMMON
+            + """
 
 from instantonkit.checks import verify
 from instantonkit.conventions import QUATERNION_BASIS
@@ -58,7 +60,8 @@ import jax.numpy as jnp
 
 ETA = jnp.asarray(ik.quaternion.thooft_eta())  # (3, 4, 4), eta_{a mu nu}, zero-based
 U = jnp.asarray(QUATERNION_BASIS[1:])          # (3, 2, 2): images of i, j, k (u_a = -i sigma_a)
-RHO = 1.0'''),
+RHO = 1.0"""
+        ),
         md("""## 1. The BPST profile `f = 1/(r² + ρ²)` (regular gauge)
 
 This is the one-instanton of Belavin, Polyakov, Schwartz and Tyupkin (1975) in our conventions;
@@ -74,9 +77,9 @@ s = ik.action_density(bpst_regular, pts)            # autodiff of our function
 s_published = 48 * RHO**4 / (np.sum(pts**2, axis=-1) + RHO**2) ** 4
 print("max relative difference to 48 rho^4/(r^2+rho^2)^4:", np.max(np.abs(s / s_published - 1)))
 assert np.allclose(s, s_published, rtol=1e-12)'''),
-        code('''report = verify(bpst_regular, center=np.zeros(4), scale=RHO, rtol=1e-9, atol=1e-9)
+        code("""report = verify(bpst_regular, center=np.zeros(4), scale=RHO, rtol=1e-9, atol=1e-9)
 print(report)
-assert report.passed'''),
+assert report.passed"""),
         md("""How to read it: **Q** is the integral of q with its error estimate and distance to the
 nearest integer; **action / 8π²** must equal |Q| for an (anti-)self-dual field, so the
 **Bogomolny margin** `S/8π² − |Q|` (never negative) is zero; the **self-duality residual**
@@ -109,7 +112,7 @@ assert not bad.passed'''),
 
 The action is a radial integral here (the density depends only on r), so `scipy.integrate.quad`
 of `2π² r³ s(r)` along one ray is an independent check of the 4-D quadrature."""),
-        code('''from scipy.integrate import quad
+        code("""from scipy.integrate import quad
 
 ray = np.array([0.6, -0.2, 0.5, 0.59])
 ray /= np.linalg.norm(ray)
@@ -117,16 +120,16 @@ radial = lambda r: 2 * np.pi**2 * r**3 * float(ik.action_density(quartic_profile
 S_radial = quad(radial, 0, 5, limit=200)[0] + quad(radial, 5, np.inf, limit=200)[0]
 print("S/8pi^2, radial quad:", S_radial / (8 * np.pi**2), "  verify:", bad.action_units)
 print("reasons:", *bad.reasons, sep="\\n  ")
-assert abs(S_radial / (8 * np.pi**2) - bad.action_units) < 1e-6'''),
+assert abs(S_radial / (8 * np.pi**2) - bad.action_units) < 1e-6"""),
         md("""## 3. Where it fails: density and residual maps
 
 `plot.density_slice` draws a 2-D slice through any plane; lengths are in units of ρ (our `scale`)."""),
-        code('''fig, axes = plt.subplots(1, 2, figsize=(10, 4.2), layout="constrained")
+        code("""fig, axes = plt.subplots(1, 2, figsize=(10, 4.2), layout="constrained")
 plot.density_slice(quartic_profile, ("x1", "x4"), extent=2.5, resolution=101, scale=RHO, ax=axes[0],
                    title="action density, quartic profile")
 plot.density_slice(quartic_profile, ("x1", "x4"), extent=2.5, resolution=101, scale=RHO, ax=axes[1],
                    quantity="residual", title="self-duality residual |F − ⋆F| / |F|")
-keep(fig, "ansatz_residual.png");'''),
+keep(fig, "ansatz_residual.png");"""),
     ]
 
 
@@ -137,7 +140,9 @@ def charge3_notebook():
 
 `multi_instanton` solves the ADHM constraints for given centres and sizes (the off-diagonal
 entries of B are found numerically), so the data describe an exact charge-3 SU(2) instanton."""),
-        code(COMMON + '''
+        code(
+            COMMON
+            + """
 
 from instantonkit import checks
 
@@ -148,36 +153,37 @@ print(f"group {data.group}, k = {data.k}, charge {data.charge}, matrix size {dat
 print("centres (diagonal of B):\\n", np.round(data.centers(), 6))
 print("sizes |Lambda_i|:", np.round(data.sizes(), 6))
 print("ADHM constraint residual:", data.constraint_residual())
-print("lam", np.shape(data.lam), " B", np.shape(data.B), " (quaternion entries)")'''),
+print("lam", np.shape(data.lam), " B", np.shape(data.B), " (quaternion entries)")"""
+        ),
         md("""## Action density slices
 
 Three (x1, x2) slices at x4 = −0.8, 0, 0.8 (in units of the mean size ρ̄) with one colour scale;
 the white level lines at 10 % and 50 % of the maximum are cuts through the same isosurfaces.
 The third lump, centred at x4 = 0.8, appears in the last panel only."""),
-        code('''rho = float(np.mean(data.sizes()))
+        code("""rho = float(np.mean(data.sizes()))
 fig = plot.slice_panels(data, ("x1", "x2"), "x4", [-0.8, 0.0, 0.8], at=[0.1],
                         extent=3.2, resolution=71, scale=rho, unit_label="ρ̄")
-keep(fig, "charge3_density.png");'''),
+keep(fig, "charge3_density.png");"""),
         md("""For a self-dual field q = s / 8π² at every point; the charge-density slice through the
 (x1, x4) plane shows it, and a spot check confirms it on random points."""),
-        code('''fig = plot.density_slice(data, ("x1", "x4"), at=(0.0, 0.0), extent=3.2, resolution=71,
+        code("""fig = plot.density_slice(data, ("x1", "x4"), at=(0.0, 0.0), extent=3.2, resolution=71,
                          quantity="charge", scale=rho, unit_label="ρ̄")
 pts = np.random.default_rng(3).normal(scale=1.5, size=(2000, 4))
 s, q = ik.action_density(data, pts), ik.charge_density(data, pts)
 print("max |8 pi^2 q - s| / max s:", np.max(np.abs(8 * np.pi**2 * q - s)) / np.max(s))
-assert np.allclose(8 * np.pi**2 * q, s, rtol=1e-9, atol=1e-12 * np.max(s))'''),
+assert np.allclose(8 * np.pi**2 * q, s, rtol=1e-9, atol=1e-12 * np.max(s))"""),
         md("""## Convergence of the total charge
 
 `total_charge` refines its quadrature round by round; the `progress=` callback receives
 `{round, evaluations, value, error}` after every round, which `plot.convergence` draws: the value
 with error bars, and on the right the estimated error against the true distance to 3."""),
-        code('''rounds = []
+        code("""rounds = []
 Q = checks.total_charge(data, rtol=1e-9, atol=1e-9, max_points=300_000, progress=rounds.append)
 S = checks.total_action(data, rtol=1e-9, atol=1e-9, max_points=300_000)
 print(Q)
 print("S / 8 pi^2 =", S.value / (8 * np.pi**2), "+-", S.error / (8 * np.pi**2))
 fig = plot.convergence(rounds, reference=3, ylabel="Q", title="charge of the 3-instanton")
-assert abs(Q.value - 3) < 1e-3 and abs(S.value / (8 * np.pi**2) - 3) < 1e-3'''),
+assert abs(Q.value - 3) < 1e-3 and abs(S.value / (8 * np.pi**2) - 3) < 1e-3"""),
         md("""Reading it: the estimated error (solid) should lie above the true deviation |Q − 3|
 (dashed); when the integrator's budget is spent before the tolerance, the result says
 `NOT converged` with the reason instead of pretending."""),
@@ -193,7 +199,9 @@ The links `U_μ(n)` are the exact parallel transporters of a BPST instanton (sin
 the lattice edges.  With open boundaries only plaquettes inside the lattice count, so the continuum
 reference is the action inside the same box, integrated here with numpy from the published density
 `48 ρ⁴/(r² + ρ²)⁴` (Belavin, Polyakov, Schwartz, Tyupkin 1975)."""),
-        code(COMMON + '''
+        code(
+            COMMON
+            + '''
 
 import tempfile
 from numpy.polynomial.legendre import leggauss
@@ -211,12 +219,13 @@ def box_integral(h1, h2, n=64):
         return (x[:, None] ** 2 + x[None, :] ** 2).ravel(), np.outer(w, w).ravel()
     r1, w1 = pair(h1)
     r2, w2 = pair(h2)
-    return float(w1 @ (48 * RHO**4 / (r1[:, None] + r2[None, :] + RHO**2) ** 4) @ w2)'''),
+    return float(w1 @ (48 * RHO**4 / (r1[:, None] + r2[None, :] + RHO**2) ** 4) @ w2)'''
+        ),
         md("""A fixed box of side 6ρ, cut ever finer.  A plaquette in the (μ, ν) plane spans
 (L − 1) a along μ and ν and stands for a cell of width a along the other two directions, so the
 Wilson sum approximates the action over |x_μ|, |x_ν| < (L−1)a/2, |x_ρ|, |x_σ| < La/2 (the BPST
 density gives each plane one sixth of s); the clover charge uses sites 1..L−2 (half-width (L−1)a/2)."""),
-        code('''E = 8 * np.pi**2
+        code("""E = 8 * np.pi**2
 rows = []
 for L in (6, 8, 10, 12):
     a = 6 * RHO / L
@@ -228,12 +237,12 @@ for L in (6, 8, 10, 12):
     rows.append(((a / RHO) ** 2, S_W / S_box, Q_cl / Q_box))
     print(f"L = {L:2d}  a/rho = {a / RHO:.3f}  S_W/8pi^2 = {S_W / E:.5f}  S_W/S_box = {S_W / S_box:.5f}  "
           f"Q_clover = {Q_cl:.5f}  Q_clover/Q_box = {Q_cl / Q_box:.5f}")
-x, s_ratio, q_ratio = map(np.array, zip(*rows))'''),
+x, s_ratio, q_ratio = map(np.array, zip(*rows))"""),
         md("""The Wilson action of a smooth field approaches the continuum action as a² → 0.  For the
 BPST instanton García Pérez, González-Arroyo, Snippe and van Baal (Nucl. Phys. B 413 (1994) 535,
 quoted from memory) give `S_W = 8π² [1 − (a/ρ)²/5 − (a/ρ)⁴/70 + …]`; the measured ratios follow it.
 The naive clover charge has its own O(a²) error; a quadratic fit in (a/ρ)² extrapolates it."""),
-        code('''xs = np.linspace(0, x.max() * 1.05, 100)
+        code("""xs = np.linspace(0, x.max() * 1.05, 100)
 fit_q = np.polyfit(x, q_ratio, 2)
 fig, ax = plt.subplots(figsize=(6.2, 4.0), layout="constrained")
 ax.plot(x, s_ratio, "o", label="Wilson action / continuum action in the box")
@@ -248,12 +257,12 @@ ax.legend(fontsize="small")
 keep(fig, "lattice_scaling.png")
 fine = x < 0.7  # the expansion holds for a well below rho
 assert np.all(np.abs(s_ratio - (1 - x / 5 - x**2 / 70))[fine] < 0.05 * x[fine] ** 2 + 1e-3)
-assert abs(fit_q[-1] - 1) < 0.05'''),
+assert abs(fit_q[-1] - 1) < 0.05"""),
         md("""## Writing the start to files
 
 An SU(3) start (the SU(2) links embedded in rows and columns 1, 2) written as numpy `.npz` with
 its generation report as metadata, and as an ILDG file (LIME records); both read back exactly."""),
-        code('''start3 = lattice.lattice_start(bpst, (6, 6, 6, 6), 0.75, group="su3")
+        code("""start3 = lattice.lattice_start(bpst, (6, 6, 6, 6), 0.75, group="su3")
 links3, report = start3.links, start3.report
 print("unitarity deviation before / after the final projection:",
       report.unitarity_before, report.unitarity_after)
@@ -266,7 +275,7 @@ with tempfile.TemporaryDirectory() as tmp:
     print("records:", [r["type"] for r in io.read_lime_records(ildg)])
     print("sizes (bytes):", os.path.getsize(npz), os.path.getsize(ildg))
     print("metadata spacing:", info_npz["metadata"]["spacing"])
-    assert np.array_equal(back_npz, links3) and np.array_equal(back_ildg, links3)'''),
+    assert np.array_equal(back_npz, links3) and np.array_equal(back_ildg, links3)"""),
     ]
 
 
@@ -282,20 +291,23 @@ from sampled action density it recovers centres and sizes by least squares.
 
 The charge-2 configuration below is invented for this demo: two well separated instantons of
 sizes 0.9 and 0.7, the second shifted off the (x1, x2) plane along x3."""),
-        code(COMMON + '''
+        code(
+            COMMON
+            + """
 
 centres = [[-1.5, 0.3, 0.0, 0.0], [1.4, -0.4, 0.5, 0.0]]
 sizes = [0.9, 0.7]
 data = ik.multi_instanton(centres, sizes)
 print(f"group {data.group}, k = {data.k}, charge {data.charge}")
 print("centres:\\n", np.round(data.centers(), 6), "\\nsizes:", np.round(data.sizes(), 6))
-print("ADHM constraint residual:", data.constraint_residual())'''),
+print("ADHM constraint residual:", data.constraint_residual())"""
+        ),
         md("""## 1. One instanton: the published zero-mode density
 
 For a BPST instanton of size ρ at a the single zero mode has density
 `2ρ² / (π² (|x − a|² + ρ²)³)` ('t Hooft, Phys. Rev. D 14 (1976) 3432; quoted from memory).
 It is normalised: `∫ d⁴x` of it is `2π² ∫ r³ dr (...)` = 1, which `scipy.integrate.quad` confirms."""),
-        code('''from scipy.integrate import quad
+        code("""from scipy.integrate import quad
 
 a, rho1 = np.array([0.3, -0.2, 0.1, 0.4]), 0.8
 one = ik.bpst(a, rho1)
@@ -309,13 +321,13 @@ ray = np.array([0.5, 0.5, -0.5, 0.5])
 radial = lambda r: 2 * np.pi**2 * r**3 * float(ik.zero_mode_density(one, a + r * ray))
 norm = quad(radial, 0, 5 * rho1, limit=200)[0] + quad(radial, 5 * rho1, np.inf, limit=200)[0]
 print("integral of the density along one ray times the 3-sphere area:", norm)
-assert abs(norm - 1) < 1e-8'''),
+assert abs(norm - 1) < 1e-8"""),
         md("""## 2. Zero-mode density slices of the charge-2 configuration
 
 Three (x1, x2) slices at x3 = 0, 0.25, 0.5 (the second instanton sits at x3 = 0.5), drawn with
 matplotlib's `imshow` on one colour scale; the density is shown as the dimensionless `ψ†ψ · ρ̄⁴`
 (ρ̄ the mean size).  Both modes together integrate to k = 2 (tests/test_zero_modes.py checks the overlap matrix by quadrature)."""),
-        code('''rho = float(np.mean(data.sizes()))
+        code("""rho = float(np.mean(data.sizes()))
 n, half = 81, 3.0
 g = (np.arange(n) + 0.5) / n * 2 * half - half      # cell-centred grid, as plot.density_slice uses
 X1, X2 = np.meshgrid(g, g, indexing="xy")
@@ -333,14 +345,14 @@ for ax, x3, z in zip(axes, x3s, slices):
     ax.set_xlabel("x1 / ρ̄")
 axes[0].set_ylabel("x2 / ρ̄")
 fig.colorbar(im, ax=axes, label="zero-mode density  ψ†ψ · ρ̄⁴", shrink=0.9)
-keep(fig, "zero_mode_slices.png");'''),
+keep(fig, "zero_mode_slices.png");"""),
         md("""## 3. The instanton finder on a coarse lattice
 
 We sample the exact action density of the charge-2 data on a 9⁴ lattice of spacing 0.8 (6561
 sites) and ask for k = 2 instantons.  The model is a superposition of BPST profiles, so for two
 instantons the fitted sizes carry a model error of a few per cent where the lumps interact; the
 centres come out far better.  We require every centre within 0.1 of its size."""),
-        code('''g9 = np.linspace(-3.2, 3.2, 9)
+        code("""g9 = np.linspace(-3.2, 3.2, 9)
 sites = np.stack(np.meshgrid(g9, g9, g9, g9, indexing="ij"), axis=-1).reshape(-1, 4)
 s_sites = ik.action_density(data, sites)
 fit = ik.find_instantons(sites, s_sites, 2)
@@ -351,12 +363,12 @@ order = [int(np.argmin(np.linalg.norm(fit.centers - c, axis=1))) for c in true_c
 shift = np.linalg.norm(fit.centers[order] - true_c, axis=1) / true_r
 print("centre error / size:", np.round(shift, 4), "  size ratio:", np.round(fit.sizes[order] / true_r, 4))
 assert sorted(order) == [0, 1] and not fit.ambiguous
-assert np.all(shift < 0.1)  # invented data, recovered within 0.1 rho (task tolerance)'''),
+assert np.all(shift < 0.1)  # invented data, recovered within 0.1 rho (task tolerance)"""),
         md("""## 4. The recovered configuration over the input density
 
 The input action density in the (x1, x2) plane at x3 = 0.25, x4 = 0 with the fitted centres
 (crosses; the x3 of each is printed beside it) and circles of the fitted sizes."""),
-        code('''from matplotlib.patches import Circle
+        code("""from matplotlib.patches import Circle
 
 fig = plot.density_slice(data, ("x1", "x2"), at=(0.25, 0.0), extent=3.0, resolution=71, scale=rho,
                          unit_label="ρ̄", title="input action density with the fitted instantons")
@@ -366,7 +378,7 @@ for c, r in zip(fit.centers, fit.sizes):
     ax.add_patch(Circle((c[0] / rho, c[1] / rho), r / rho, fill=False, color="cyan", lw=1.2))
     ax.annotate(f"x3 = {c[2]:.2f}", (c[0] / rho, (c[1] + r) / rho), color="cyan",
                 ha="center", va="bottom", fontsize="small")
-keep(fig, "finder_overlay.png");'''),
+keep(fig, "finder_overlay.png");"""),
     ]
 
 

@@ -15,9 +15,8 @@ from hypothesis import strategies as st
 from scipy.linalg import expm
 
 import instantonkit as ik
-from instantonkit import adhm, moduli
 from instantonkit import conventions as cv
-from instantonkit import fields
+from instantonkit import fields, moduli
 from instantonkit import quaternion as qt
 from instantonkit.testing import adhm_data, orthogonal_matrices, points, unit_quaternions
 
@@ -230,7 +229,9 @@ def _constraint_jacobian(lam, b):
     upper = dirs[:, 4 * n * k :].reshape(size, -1, 4)
     db[:, iu[0], iu[1]] = upper
     db[:, iu[1], iu[0]] = upper
-    lin = np.asarray(qt.qmat_mul(qt.qmat_dagger(lam)[None], dlam)) + np.asarray(qt.qmat_mul(qt.qmat_dagger(b)[None], db))
+    lin = np.asarray(qt.qmat_mul(qt.qmat_dagger(lam)[None], dlam)) + np.asarray(
+        qt.qmat_mul(qt.qmat_dagger(b)[None], db)
+    )
     lin = lin + np.asarray(qt.qmat_dagger(lin))
     i, j = np.triu_indices(k, 1)
     return lin[:, i, j, 1:].reshape(size, -1).T
@@ -308,7 +309,11 @@ def test_sp2_moduli_count_is_4k_n_plus_1(k):
 def test_rotate_gauge_keeps_det_of_gram_and_validity(d, o3):
     # O(k) acts as Lambda -> Lambda O, B -> O^T B O, so Delta^dag Delta -> O^T (Delta^dag Delta) O and its
     # determinant is unchanged (ADHM 1978; common practice).
-    o = o3[: d.k, : d.k] if d.k == 3 else np.array([[np.cos(o3[0, 0]), -np.sin(o3[0, 0])], [np.sin(o3[0, 0]), np.cos(o3[0, 0])]])
+    o = (
+        o3[: d.k, : d.k]
+        if d.k == 3
+        else np.array([[np.cos(o3[0, 0]), -np.sin(o3[0, 0])], [np.sin(o3[0, 0]), np.cos(o3[0, 0])]])
+    )
     r = d.rotate_gauge(o)
     assert r.constraint_residual() <= 1e-12
     assert np.allclose(_log_dets(r, SAMPLE), _log_dets(d, SAMPLE), rtol=1e-12, atol=1e-12)
@@ -455,7 +460,9 @@ def test_lam_of_wrong_rank_is_rejected():
 
 
 def test_b_not_matching_lam_is_rejected():
-    with pytest.raises(ValueError, match=r"B must have shape \(k, k, 4\) = \(2, 2, 4\) for lam \(1, 2, 4\); found \(1, 1, 4\)"):
+    with pytest.raises(
+        ValueError, match=r"B must have shape \(k, k, 4\) = \(2, 2, 4\) for lam \(1, 2, 4\); found \(1, 1, 4\)"
+    ):
         ik.ADHMData(np.ones((1, 2, 4)), np.zeros((1, 1, 4)))
 
 

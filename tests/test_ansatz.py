@@ -135,7 +135,7 @@ def test_thooft_k1_density_equals_adhm_bpst():
     assert _rel(mine, fl.action_density(ik.bpst(CENTER, RHO), PTS)) <= 1e-12
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def _thooft_bilaplacian_reference():
     def log_phi(x):
         return jnp.log(1.0 + jnp.sum(TH_R**2 / jnp.sum((x - TH_C) ** 2, axis=-1)))
@@ -185,7 +185,7 @@ JNR_W = np.array([0.7, 1.2, 0.5, 0.9])
 JNR_PTS = _away(RNG.normal(size=(24, 4)) * 1.5, JNR_P, 0.2)[:16]
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def _jnr_bilaplacian_reference():
     def log_phi(x):
         return jnp.log(jnp.sum(JNR_W**2 / jnp.sum((x - JNR_P) ** 2, axis=-1)))
@@ -243,8 +243,15 @@ def test_caloron_phi_equals_the_periodic_sum_of_thooft_poles():
     f = ik.caloron(**CAL)
     c = np.asarray(CAL["center"])
     r_star = CAL["period"] / (2 * PI)
-    offsets = [(0, 0, 0, 0.5), (1e-8, 0, 0, 0.5), (r_star, 0, 0, 0.1), (0, r_star * (1 + 1e-9), 0, -0.3),
-               (0.3, 0.1, 0.0, -0.4), (2.3, 0.1, -1.0, 3.4), (0.0, 0.0, 0.0, 2.0)]
+    offsets = [
+        (0, 0, 0, 0.5),
+        (1e-8, 0, 0, 0.5),
+        (r_star, 0, 0, 0.1),
+        (0, r_star * (1 + 1e-9), 0, -0.3),
+        (0.3, 0.1, 0.0, -0.4),
+        (2.3, 0.1, -1.0, 3.4),
+        (0.0, 0.0, 0.0, 2.0),
+    ]
     for off in offsets:
         x = c + np.array(off)
         assert abs(float(f.phi(x)) / _cal_phi_series(x, **CAL) - 1) <= 1e-13
@@ -274,7 +281,14 @@ def test_caloron_action_density_is_minus_half_bilaplacian_of_log_phi():
     kappa = 2 * mpmath.pi / beta
 
     def log_phi(r, t):
-        return mpmath.log(1 + mpmath.pi * rho**2 / (beta * r) * mpmath.sinh(kappa * r) / (mpmath.cosh(kappa * r) - mpmath.cos(kappa * t)))
+        return mpmath.log(
+            1
+            + mpmath.pi
+            * rho**2
+            / (beta * r)
+            * mpmath.sinh(kappa * r)
+            / (mpmath.cosh(kappa * r) - mpmath.cos(kappa * t))
+        )
 
     def ref(r, t):
         with mpmath.workdps(30):
@@ -297,7 +311,10 @@ def test_caloron_is_smooth_across_the_axis_and_the_series_threshold():
     f = ik.caloron(**CAL)
     c = np.asarray(CAL["center"])
     r_star = CAL["period"] / (2 * PI)
-    pairs = [((0, 0, 0, 0.4), (1e-7, 0, 0, 0.4)), ((r_star * (1 - 1e-12), 0, 0, 0.4), (r_star * (1 + 1e-12), 0, 0, 0.4))]
+    pairs = [
+        ((0, 0, 0, 0.4), (1e-7, 0, 0, 0.4)),
+        ((r_star * (1 - 1e-12), 0, 0, 0.4), (r_star * (1 + 1e-12), 0, 0, 0.4)),
+    ]
     pts = np.tile(c + np.array(pairs).reshape(4, 4), (4, 1))  # 16 points: reuses the compiled kernel
     s = fl.action_density(f, pts).reshape(4, 2, 2)
     assert np.max(np.abs(s[..., 0] / s[..., 1] - 1)) <= 1e-10
@@ -359,13 +376,20 @@ _ANTI_CASES = {
 }
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def _anti_data(name):
     """(points, s and q of the field, autodiff F of anti(field) at the mirrored points)."""
     f = _ANTI_CASES[name]()
     pts = _away(PTS, [CENTER], 0.1)
     g = ik.anti(f)
-    return f, g, pts, fl.action_density(f, pts), fl.charge_density(f, pts), fl.field_strength(g, pts * P, method="autodiff")
+    return (
+        f,
+        g,
+        pts,
+        fl.action_density(f, pts),
+        fl.charge_density(f, pts),
+        fl.field_strength(g, pts * P, method="autodiff"),
+    )
 
 
 def _s_q_res(f):

@@ -139,7 +139,7 @@ def test_no_import_cycle():
         stack.append(m)
         for n in sorted(graph[m]):
             if state.get(n) == 1:
-                raise AssertionError("import cycle: " + " -> ".join(stack[stack.index(n):] + [n]))
+                raise AssertionError("import cycle: " + " -> ".join(stack[stack.index(n) :] + [n]))
             if n not in state:
                 visit(n)
         stack.pop()

@@ -20,7 +20,10 @@ def test_every_benchmark_module_is_discovered():
 def test_smoke_run_from_the_repository_root_prints_a_markdown_table_with_rows():
     out = subprocess.run(
         [sys.executable, "-m", "benchmarks", "--smoke", "--markdown"],
-        cwd=ROOT, capture_output=True, text=True, timeout=900,
+        cwd=ROOT,
+        capture_output=True,
+        text=True,
+        timeout=900,
     )
     assert out.returncode == 0, out.stderr[-3000:]
     lines = out.stdout.splitlines()
@@ -38,12 +41,14 @@ def fake_package(tmp_path, monkeypatch):
     pkg = tmp_path / "fakebench"
     pkg.mkdir()
     (pkg / "__init__.py").write_text("")
-    (pkg / "bench_ok.py").write_text(textwrap.dedent('''
+    (pkg / "bench_ok.py").write_text(
+        textwrap.dedent("""
         def run(quick=False):
             n = 10 if quick else 1000
             return [{"figure": "points", "value": float(n), "unit": "n", "ratio": 0.5, "reference": "a | b"},
                     {"figure": "bare", "value": 3.0}]
-    '''))
+    """)
+    )
     (pkg / "bench_broken.py").write_text("def run(quick=False):\n    raise RuntimeError('no luck')\n")
     (pkg / "bench_norun.py").write_text("X = 1\n")
     monkeypatch.syspath_prepend(str(tmp_path))
@@ -92,7 +97,8 @@ def test_markdown_table_escapes_pipes(fake_package):
 
 def test_main_exits_nonzero_when_a_benchmark_failed(fake_package, monkeypatch, capsys):
     real = bench_run.collect
-    monkeypatch.setattr(bench_run, "collect",
-                        lambda quick, **kw: real(quick, package=fake_package, names=["bench_broken"]))
+    monkeypatch.setattr(
+        bench_run, "collect", lambda quick, **kw: real(quick, package=fake_package, names=["bench_broken"])
+    )
     assert bench_run.main(["--quick"]) == 1
     assert "FAILED: RuntimeError: no luck" in capsys.readouterr().out

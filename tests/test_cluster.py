@@ -11,16 +11,15 @@ import subprocess
 import sys
 import textwrap
 
+import dask.array as da
+import distributed
 import numpy as np
 import pytest
+import zarr
 
 import instantonkit as ik
 from instantonkit import cluster
 from instantonkit import lattice as lat
-
-import dask.array as da
-import distributed
-import zarr
 
 TWO = ik.multi_instanton([[0.0, 0.0, 0.0, 0.0], [1.4, 0.3, -0.5, 0.7]], [1.1, 0.8])
 SHAPE = (4, 4, 4, 6)
@@ -61,14 +60,25 @@ def test_two_worker_cluster_start_is_bit_identical_to_local(client, two_local, t
 @pytest.mark.slow
 def test_chunked_report_equals_local_report(client, two_local, tmp_path):
     _, rep = two_local
-    rep2 = cluster.lattice_start(TWO, SHAPE, 1.0, rtol=RTOL, chunks=(4, 2, 4, 3), store=tmp_path / "s.zarr", client=client).report
+    rep2 = cluster.lattice_start(
+        TWO, SHAPE, 1.0, rtol=RTOL, chunks=(4, 2, 4, 3), store=tmp_path / "s.zarr", client=client
+    ).report
     assert _report_without_time(rep2) == _report_without_time(rep)
 
 
 def test_closed_form_su3_start_in_this_process_is_bit_identical(tmp_path):
     field = ik.bpst(size=1.5)
     ref = ik.lattice_links(field, (5, 4, 4, 6), 0.8, group="su3", embedding=(0, 2))
-    z = cluster.lattice_links(field, (5, 4, 4, 6), 0.8, group="su3", embedding=(0, 2), chunks=(2, 3, 4, 5), store=tmp_path / "s", client="sync")
+    z = cluster.lattice_links(
+        field,
+        (5, 4, 4, 6),
+        0.8,
+        group="su3",
+        embedding=(0, 2),
+        chunks=(2, 3, 4, 5),
+        store=tmp_path / "s",
+        client="sync",
+    )
     assert z.shape == (5, 4, 4, 6, 4, 3, 3) and z.dtype == np.complex128
     assert np.array_equal(np.asarray(z[...]), ref)
 
@@ -84,7 +94,9 @@ def test_without_store_a_lazy_dask_array_is_returned():
 def test_sp2_start_uses_the_fields_own_group(tmp_path):
     field = ik.embed_sp(ik.bpst(size=1.3), 2)
     ref = ik.lattice_links(field, (3, 3, 3, 4), 1.0, group=None, rtol=1e-6)
-    z = cluster.lattice_links(field, (3, 3, 3, 4), 1.0, group=None, rtol=1e-6, chunks=(3, 2, 3, 2), store=tmp_path / "s", client="sync")
+    z = cluster.lattice_links(
+        field, (3, 3, 3, 4), 1.0, group=None, rtol=1e-6, chunks=(3, 2, 3, 2), store=tmp_path / "s", client="sync"
+    )
     assert z.shape[-2:] == (4, 4)
     assert np.array_equal(np.asarray(z[...]), ref)
 
@@ -181,7 +193,16 @@ def test_a_killed_run_is_completed_by_the_next_call_with_nothing_lost(two_local,
     st = cluster.store_status(store)
     assert not st.complete and st.chunks_done == 2 and st.chunks_total == 4
     calls = []
-    z = cluster.lattice_links(TWO, SHAPE, 1.0, rtol=RTOL, chunks=chunks, store=store, client="sync", progress=lambda d, t: calls.append((d, t)))
+    z = cluster.lattice_links(
+        TWO,
+        SHAPE,
+        1.0,
+        rtol=RTOL,
+        chunks=chunks,
+        store=store,
+        client="sync",
+        progress=lambda d, t: calls.append((d, t)),
+    )
     assert calls == [(3, 4), (4, 4)]  # only the two missing chunks were computed
     assert np.array_equal(np.asarray(z[...]), ref)
     meta = zarr.open_group(store, mode="r").attrs["instantonkit"]
@@ -204,7 +225,10 @@ def test_a_chunk_written_but_not_marked_done_is_recomputed(tmp_path):
 @pytest.mark.slow
 def test_killing_a_worker_mid_run_completes_the_store_without_duplicates(two_local, tmp_path):
     ref, _ = two_local
-    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, dashboard_address=":0") as lc, distributed.Client(lc) as c:
+    with (
+        distributed.LocalCluster(n_workers=2, threads_per_worker=1, dashboard_address=":0") as lc,
+        distributed.Client(lc) as c,
+    ):
         pids = sorted(c.run(os.getpid).values())
         killed = []
 
@@ -214,7 +238,9 @@ def test_killing_a_worker_mid_run_completes_the_store_without_duplicates(two_loc
                 killed.append(pids[0])
 
         store = tmp_path / "s"
-        z = cluster.lattice_links(TWO, SHAPE, 1.0, rtol=RTOL, chunks=(1, 2, 4, 3), store=store, client=c, progress=kill_one)
+        z = cluster.lattice_links(
+            TWO, SHAPE, 1.0, rtol=RTOL, chunks=(1, 2, 4, 3), store=store, client=c, progress=kill_one
+        )
         assert killed and killed[0] not in c.run(os.getpid).values()  # the nanny started a new worker process
     assert np.array_equal(np.asarray(z[...]), ref)
     chunk_files = [f for _, _, files in os.walk(store / "links" / "c") for f in files]
@@ -264,7 +290,9 @@ def test_points_from_numpy_zarr_and_dask_give_the_local_values(tmp_path):
 @pytest.mark.slow
 def test_grid_values_on_the_cluster_match(client, tmp_path):
     shape = (3, 4, 4, 5)
-    z = cluster.evaluate_grid(TWO, shape, 0.6, "self_duality_residual", chunks=(3, 2, 4, 2), store=tmp_path / "g", client=client)
+    z = cluster.evaluate_grid(
+        TWO, shape, 0.6, "self_duality_residual", chunks=(3, 2, 4, 2), store=tmp_path / "g", client=client
+    )
     pts = lat.site_points(shape, 0.6, lat.default_origin(TWO, shape, 0.6))
     assert _to_rounding(np.asarray(z[...]), ik.self_duality_residual(TWO, pts))
 
@@ -329,7 +357,16 @@ def test_ensemble_members_are_valid_charge_k_data_inside_the_box():
 @pytest.mark.slow
 def test_ensemble_on_the_cluster_matches_each_members_local_start(client, tmp_path):
     ens = cluster.ensemble(
-        3, 2, (4, 4, 4, 4), 1.0, seed=9, rtol=1e-6, chunks=(2, 4, 4, 4), store=tmp_path / "e", client=client, boundary_figures=True
+        3,
+        2,
+        (4, 4, 4, 4),
+        1.0,
+        seed=9,
+        rtol=1e-6,
+        chunks=(2, 4, 4, 4),
+        store=tmp_path / "e",
+        client=client,
+        boundary_figures=True,
     )
     assert ens.links.shape == (3, 4, 4, 4, 4, 4, 2, 2) and len(ens.reports) == 3
     for i in range(3):
@@ -379,11 +416,24 @@ def test_bad_backend_arguments_are_refused(kw, match):
 def test_the_deprecated_dask_backend_call_still_gives_the_chunked_links(tmp_path):
     field = ik.bpst(size=1.2)
     with pytest.deprecated_call(match="cluster.lattice_links"):
-        z = ik.lattice_links(field, (4, 4, 4, 4), 1.0, backend="dask", chunks=(2, 4, 4, 4), store=tmp_path / "s", client="sync")
+        z = ik.lattice_links(
+            field, (4, 4, 4, 4), 1.0, backend="dask", chunks=(2, 4, 4, 4), store=tmp_path / "s", client="sync"
+        )
     with pytest.deprecated_call(match="lattice_start"):
-        z2, rep = ik.lattice_links(field, (4, 4, 4, 4), 1.0, backend="dask", chunks=(2, 4, 4, 4), store=tmp_path / "s", client="sync", return_report=True)
+        z2, rep = ik.lattice_links(
+            field,
+            (4, 4, 4, 4),
+            1.0,
+            backend="dask",
+            chunks=(2, 4, 4, 4),
+            store=tmp_path / "s",
+            client="sync",
+            return_report=True,
+        )
     ref = cluster.lattice_start(field, (4, 4, 4, 4), 1.0, chunks=(2, 4, 4, 4), store=tmp_path / "s", client="sync")
-    assert np.array_equal(np.asarray(z[...]), np.asarray(ref.links[...])) and np.array_equal(np.asarray(z2[...]), np.asarray(ref.links[...]))
+    assert np.array_equal(np.asarray(z[...]), np.asarray(ref.links[...])) and np.array_equal(
+        np.asarray(z2[...]), np.asarray(ref.links[...])
+    )
     assert _report_without_time(rep) == _report_without_time(ref.report)
     assert np.array_equal(np.asarray(z[...]), ik.lattice_links(field, (4, 4, 4, 4), 1.0))
 
@@ -471,7 +521,9 @@ def test_lazy_evaluation_on_numpy_points_ships_blocks_not_the_array():
     lazy = cluster.evaluate(TWO, pts, "action_density", chunks=(16,))
     pts[:] = 0.0  # the lazy array holds its own copy
     assert lazy.numblocks == (4,)
-    assert _to_rounding(lazy.compute(scheduler="sync"), ik.action_density(TWO, np.random.default_rng(2).normal(size=(64, 4))))
+    assert _to_rounding(
+        lazy.compute(scheduler="sync"), ik.action_density(TWO, np.random.default_rng(2).normal(size=(64, 4)))
+    )
 
 
 def test_asking_again_keeps_the_boundary_figures_of_the_stored_report(tmp_path):

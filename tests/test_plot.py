@@ -82,8 +82,10 @@ def test_density_slice_extent_is_shown_in_units_of_the_hint_scale(field):
     fig = plot.density_slice(field, extent=2.0, resolution=8)
     lo1, hi1, lo2, hi2 = fig.axes[0].get_images()[0].get_extent()
     # field.hint() gives (centre, rho) for BPST; the square is +-2 about the centre, shown / rho
-    assert np.allclose([lo1, hi1, lo2, hi2], [(CENTRE[0] - 2) / RHO, (CENTRE[0] + 2) / RHO,
-                                             (CENTRE[1] - 2) / RHO, (CENTRE[1] + 2) / RHO])
+    assert np.allclose(
+        [lo1, hi1, lo2, hi2],
+        [(CENTRE[0] - 2) / RHO, (CENTRE[0] + 2) / RHO, (CENTRE[1] - 2) / RHO, (CENTRE[1] + 2) / RHO],
+    )
 
 
 def test_density_slice_pixels_are_the_published_bpst_density_times_rho4(field):
@@ -265,7 +267,9 @@ def test_convergence_plots_the_true_deviation_from_the_reference():
 def test_convergence_accepts_integral_results_and_progress_dicts():
     n, v, e = geometric_series(4)
     results = [IntegralResult("charge", float(b), float(c), int(a), "rule", True) for a, b, c in zip(n, v, e)]
-    dicts = [dict(round=i, evaluations=int(a), value=float(b), error=float(c)) for i, (a, b, c) in enumerate(zip(n, v, e))]
+    dicts = [
+        dict(round=i, evaluations=int(a), value=float(b), error=float(c)) for i, (a, b, c) in enumerate(zip(n, v, e))
+    ]
     for data in (results, dicts, dict(evaluations=n, value=v, error=e)):
         fig = plot.convergence(data)
         assert np.allclose(fig.axes[1].get_lines()[0].get_ydata(), e)

@@ -199,7 +199,10 @@ def test_rotation_covariance_of_adhm_densities(seed):
 def test_rotation_keeps_self_duality():
     # SO(4) rotations preserve eps, so a self-dual field stays self-dual (common practice).
     g = ik.rotate(FIELD, _unit(RNG), _unit(RNG))
-    assert np.max(fl.self_duality_residual(g, _points(RNG, avoid=TH_C @ np.asarray(g.matrix).T), method="autodiff")) <= 1e-11
+    assert (
+        np.max(fl.self_duality_residual(g, _points(RNG, avoid=TH_C @ np.asarray(g.matrix).T), method="autodiff"))
+        <= 1e-11
+    )
 
 
 # -- dilations --------------------------------------------------------------------------------------

@@ -6,6 +6,8 @@ Point sets have N_POINTS points so that compiled kernels are reused across tests
 
 from __future__ import annotations
 
+import importlib
+
 import jax
 import jax.numpy as jnp
 import numpy as np
@@ -14,13 +16,11 @@ import scipy.integrate
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-import importlib
-
 import instantonkit as ik
+from instantonkit.quadrature import rule_r4
 
 # the package exports the function ik.zero_modes, which shadows the submodule attribute of the same name
 zm = importlib.import_module("instantonkit.zero_modes")
-from instantonkit.quadrature import rule_r4
 
 N_POINTS = 16
 FEW = settings(max_examples=10, deadline=None)
@@ -181,8 +181,10 @@ def test_chiral_dirac_spinor_solves_gamma_d_and_has_definite_gamma5(chirality):
         chi = np.einsum("ab,kcb->kac", S2, psi)
         dchi = np.einsum("ab,mkcb->mkac", S2, cov)
         zero = np.zeros_like(chi)
-        big = (lambda u: np.concatenate([u, np.zeros_like(u)], axis=-2)) if chirality == 1 else (
-            lambda u: np.concatenate([np.zeros_like(u), u], axis=-2)
+        big = (
+            (lambda u: np.concatenate([u, np.zeros_like(u)], axis=-2))
+            if chirality == 1
+            else (lambda u: np.concatenate([np.zeros_like(u), u], axis=-2))
         )
         dirac = sum(np.einsum("ab,kbc->kac", gam[m], big(dchi[m])) for m in range(4))
         assert np.max(np.abs(dirac)) < 1e-12 * np.max(np.abs(cov))
@@ -226,7 +228,9 @@ def test_anti_instanton_density_is_the_parity_image():
     # conjugate() is the parity image (adhm module): n'(x) = n(P x)
     data = ik.random_adhm(2, seed=9)
     x = points_near(data, 6)
-    np.testing.assert_allclose(zm.zero_mode_density(data.conjugate(), x), zm.zero_mode_density(data, x * PARITY), rtol=1e-12)
+    np.testing.assert_allclose(
+        zm.zero_mode_density(data.conjugate(), x), zm.zero_mode_density(data, x * PARITY), rtol=1e-12
+    )
 
 
 # -- orthonormality and the index ---------------------------------------------------------------------

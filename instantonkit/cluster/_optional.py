@@ -15,5 +15,7 @@ def require(*modules):
         try:
             out.append(importlib.import_module(name))
         except ImportError as err:
-            raise ImportError(f"the chunked backend needs the optional extra 'distributed' ({EXTRA}); {name!r} is not installed") from err
+            raise ImportError(
+                f"the chunked backend needs the optional extra 'distributed' ({EXTRA}); {name!r} is not installed"
+            ) from err
     return out[0] if len(out) == 1 else out

@@ -9,8 +9,8 @@ import numpy as np
 
 from .. import _validate as _v
 from ..adhm import ADHMData
-from ..moduli import random_adhm
 from ..lattice import StartSpec, default_origin
+from ..moduli import random_adhm
 from ._optional import require
 from .geometry import Job, check_chunks, default_chunks
 from .links import link_report, site_bytes
@@ -112,29 +112,58 @@ def ensemble(
     origin = default_origin(None, shape, a)  # no field: the middle hypercube is centred on 0
     seeds = tuple(member_seed(seed, i) for i in range(int(n)))
     members = tuple(
-        dataclasses.replace(random_adhm(k, rank, seed=np.random.default_rng(s), spread=spread, size_range=size_range), gauge=gauge)
+        dataclasses.replace(
+            random_adhm(k, rank, seed=np.random.default_rng(s), spread=spread, size_range=size_range), gauge=gauge
+        )
         for s in seeds
     )
     specs = [
-        StartSpec.make(m, shape, a, origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method)
+        StartSpec.make(
+            m, shape, a, origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method
+        )
         for m in members
     ]
-    chunks = default_chunks(shape, site_bytes(specs[0])) if chunks is None else check_chunks(chunks, shape, "the lattice")
+    chunks = (
+        default_chunks(shape, site_bytes(specs[0])) if chunks is None else check_chunks(chunks, shape, "the lattice")
+    )
     params = {
-        "n": int(n), "k": int(k), "seed": int(seed), "rank": int(rank), "gauge": gauge, "spread": spread,
-        "size_range": list(size_range), "shape": list(shape), "spacing": a, "origin": origin.tolist(),
-        "group": group, "embedding": list(specs[0].embedding), "boundary": boundary, "rtol": float(rtol), "method": method,
+        "n": int(n),
+        "k": int(k),
+        "seed": int(seed),
+        "rank": int(rank),
+        "gauge": gauge,
+        "spread": spread,
+        "size_range": list(size_range),
+        "shape": list(shape),
+        "spacing": a,
+        "origin": origin.tolist(),
+        "group": group,
+        "embedding": list(specs[0].embedding),
+        "boundary": boundary,
+        "rtol": float(rtol),
+        "method": method,
         "members": [{"lam": np.asarray(m.lam).tolist(), "B": np.asarray(m.B).tolist()} for m in members],
     }
     tasks = [MemberChunk(s) for s in specs]
-    job = Job("ensemble", "links", (int(n),) + specs[0].links_shape, 5, (1,) + chunks, "complex128", params, lambda idx: tasks[idx[0]])
+    job = Job(
+        "ensemble",
+        "links",
+        (int(n),) + specs[0].links_shape,
+        5,
+        (1,) + chunks,
+        "complex128",
+        params,
+        lambda idx: tasks[idx[0]],
+    )
     if store is None:
         return Ensemble(lazy(job), members, seeds, None)
     zarr = require("zarr")
     path = store_path(store)
     group_, rows, computed, reused, seconds = run(job, path, client, overwrite, progress, n_workers)
     links = zarr.open_array(path, path="links", mode="r")
-    reports = tuple(link_report(s, rows[i], seconds, MemberView(links, i), boundary_figures) for i, s in enumerate(specs))
+    reports = tuple(
+        link_report(s, rows[i], seconds, MemberView(links, i), boundary_figures) for i, s in enumerate(specs)
+    )
     finish_store(group_, {"members": [r.as_metadata() for r in reports]}, computed, reused, seconds)
     return Ensemble(links, members, seeds, reports)
 
@@ -174,7 +203,9 @@ def load_member(path, i: int):
     zarr = require("zarr")
     rows = np.asarray(zarr.open_array(os.fspath(path), path=REPORT, mode="r")[i])
     if not np.all(rows[..., Column.DONE] == 1.0):
-        raise ValueError(f"member {i} of {os.fspath(path)!r} is not complete ({int(np.sum(rows[..., Column.DONE] == 1.0))} of {rows[..., Column.DONE].size} chunks); run ensemble(...) again to finish it")
+        raise ValueError(
+            f"member {i} of {os.fspath(path)!r} is not complete ({int(np.sum(rows[..., Column.DONE] == 1.0))} of {rows[..., Column.DONE].size} chunks); run ensemble(...) again to finish it"
+        )
     m = st.params["members"][i]
     data = ADHMData(np.asarray(m["lam"]), np.asarray(m["B"]), gauge=st.params["gauge"])
     return np.asarray(zarr.open_array(os.fspath(path), path="links", mode="r")[i]), data

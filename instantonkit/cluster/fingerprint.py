@@ -92,7 +92,9 @@ def domain_probe(field, origin, spacing, shape) -> list | None:
     return probe(field, pts)
 
 
-PROBES = np.array([[0.3127, -0.4711, 0.5903, 0.7321], [-1.1731, 0.2237, -0.6183, 0.4142], [2.2361, 1.7321, -1.4142, -0.5772]])
+PROBES = np.array(
+    [[0.3127, -0.4711, 0.5903, 0.7321], [-1.1731, 0.2237, -0.6183, 0.4142], [2.2361, 1.7321, -1.4142, -0.5772]]
+)
 
 
 def probe(field, points=None) -> list | None:

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
-from typing import Callable
+from collections.abc import Callable
 
 import numpy as np
 
@@ -34,9 +34,13 @@ def check_chunks(chunks, shape, what: str) -> tuple:
             raise TypeError("booleans are not chunk sizes")
         c = tuple(int(v) for v in chunks)
     except TypeError as err:
-        raise TypeError(f"chunks must be {len(shape)} positive integers (one per axis of {what}); found {chunks!r}") from err
+        raise TypeError(
+            f"chunks must be {len(shape)} positive integers (one per axis of {what}); found {chunks!r}"
+        ) from err
     if len(c) != len(shape) or any(v < 1 for v in c) or any(int(v) != v for v in chunks):
-        raise ValueError(f"chunks must be {len(shape)} positive integers (one per axis of {what} {tuple(shape)}); found {tuple(chunks)!r}")
+        raise ValueError(
+            f"chunks must be {len(shape)} positive integers (one per axis of {what} {tuple(shape)}); found {tuple(chunks)!r}"
+        )
     return tuple(min(v, s) for v, s in zip(c, shape))
 
 

@@ -4,7 +4,6 @@ registered with :func:`instantonkit.lattice.register_chunked_backend` for the de
 
 from __future__ import annotations
 
-
 from .. import lattice as _lat
 from ..lattice import LatticeStart, StartSpec
 from ._optional import require
@@ -51,7 +50,11 @@ def link_report(spec: StartSpec, rows, seconds, links, boundary: bool):
 
 def _start(spec: StartSpec, *, chunks, store, client, overwrite, progress, n_workers, boundary: bool):
     """Links of ``spec`` in chunks: (links, report or None); the one implementation of the front doors."""
-    chunks = default_chunks(spec.shape, site_bytes(spec)) if chunks is None else check_chunks(chunks, spec.shape, "the lattice")
+    chunks = (
+        default_chunks(spec.shape, site_bytes(spec))
+        if chunks is None
+        else check_chunks(chunks, spec.shape, "the lattice")
+    )
     task = LinkChunk(spec)
     job = Job("lattice_links", "links", spec.links_shape, 4, chunks, "complex128", spec_params(spec), lambda idx: task)
     if store is None:
@@ -65,7 +68,9 @@ def _start(spec: StartSpec, *, chunks, store, client, overwrite, progress, n_wor
     return links, report
 
 
-def start_links(spec, *, chunks=None, store=None, client=None, overwrite=False, progress=None, return_report=False, n_workers=None):
+def start_links(
+    spec, *, chunks=None, store=None, client=None, overwrite=False, progress=None, return_report=False, n_workers=None
+):
     """A validated lattice start (:class:`instantonkit.lattice.StartSpec`) in chunks: Zarr array or lazy dask array.
 
     The executor behind the deprecated ``lattice.lattice_links(..., backend="dask")`` (registered with
@@ -75,8 +80,16 @@ def start_links(spec, *, chunks=None, store=None, client=None, overwrite=False, 
     """
     if store is None and return_report:
         raise ValueError("return_report=True needs store= (the report is made from the written chunks)")
-    links, report = _start(spec, chunks=chunks, store=store, client=client, overwrite=overwrite, progress=progress,
-                           n_workers=n_workers, boundary=bool(return_report))
+    links, report = _start(
+        spec,
+        chunks=chunks,
+        store=store,
+        client=client,
+        overwrite=overwrite,
+        progress=progress,
+        n_workers=n_workers,
+        boundary=bool(return_report),
+    )
     return (links, report) if return_report else links
 
 
@@ -96,8 +109,24 @@ _DOC_ARGS = """
 """
 
 
-def lattice_links(field, shape, spacing, *, origin=None, group="su2", embedding=(0, 1), boundary="periodic", rtol=1e-12,
-                  method="auto", chunks=None, store=None, client=None, overwrite=False, progress=None, n_workers=None):
+def lattice_links(
+    field,
+    shape,
+    spacing,
+    *,
+    origin=None,
+    group="su2",
+    embedding=(0, 1),
+    boundary="periodic",
+    rtol=1e-12,
+    method="auto",
+    chunks=None,
+    store=None,
+    client=None,
+    overwrite=False,
+    progress=None,
+    n_workers=None,
+):
     """Link variables of ``field`` computed in chunks, bit-identical to :func:`instantonkit.lattice.lattice_links`.
     {args}
     Returns:
@@ -108,13 +137,47 @@ def lattice_links(field, shape, spacing, *, origin=None, group="su2", embedding=
       ValueError / TypeError: a bad argument (naming it); a store made with other parameters or chunks.
       ImportError: without the optional extra ``distributed``.
     """
-    spec = StartSpec.make(field, shape, spacing, origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method)
-    return _start(spec, chunks=chunks, store=store, client=client, overwrite=overwrite, progress=progress,
-                  n_workers=n_workers, boundary=False)[0]
+    spec = StartSpec.make(
+        field,
+        shape,
+        spacing,
+        origin=origin,
+        group=group,
+        embedding=embedding,
+        boundary=boundary,
+        rtol=rtol,
+        method=method,
+    )
+    return _start(
+        spec,
+        chunks=chunks,
+        store=store,
+        client=client,
+        overwrite=overwrite,
+        progress=progress,
+        n_workers=n_workers,
+        boundary=False,
+    )[0]
 
 
-def lattice_start(field, shape, spacing, *, store, origin=None, group="su2", embedding=(0, 1), boundary="periodic", rtol=1e-12,
-                  method="auto", chunks=None, client=None, overwrite=False, progress=None, n_workers=None) -> LatticeStart:
+def lattice_start(
+    field,
+    shape,
+    spacing,
+    *,
+    store,
+    origin=None,
+    group="su2",
+    embedding=(0, 1),
+    boundary="periodic",
+    rtol=1e-12,
+    method="auto",
+    chunks=None,
+    client=None,
+    overwrite=False,
+    progress=None,
+    n_workers=None,
+) -> LatticeStart:
     """A chunked lattice start with its report: :class:`instantonkit.lattice.LatticeStart` (``.links``, ``.report``).
     {args}
     Returns:
@@ -126,10 +189,30 @@ def lattice_start(field, shape, spacing, *, store, origin=None, group="su2", emb
       ImportError: without the optional extra ``distributed``.
     """
     if store is None:
-        raise ValueError("lattice_start needs store= (the report is made from the written chunks); use lattice_links for a lazy array")
-    spec = StartSpec.make(field, shape, spacing, origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method)
-    links, report = _start(spec, chunks=chunks, store=store, client=client, overwrite=overwrite, progress=progress,
-                           n_workers=n_workers, boundary=True)
+        raise ValueError(
+            "lattice_start needs store= (the report is made from the written chunks); use lattice_links for a lazy array"
+        )
+    spec = StartSpec.make(
+        field,
+        shape,
+        spacing,
+        origin=origin,
+        group=group,
+        embedding=embedding,
+        boundary=boundary,
+        rtol=rtol,
+        method=method,
+    )
+    links, report = _start(
+        spec,
+        chunks=chunks,
+        store=store,
+        client=client,
+        overwrite=overwrite,
+        progress=progress,
+        n_workers=n_workers,
+        boundary=True,
+    )
     return LatticeStart(links, report)
 
 

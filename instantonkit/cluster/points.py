@@ -47,11 +47,25 @@ def absolute_zarr(arr):
         arr = zarr.open_array(full, path=arr.path, mode="r")
     done, total = arr.nchunks_initialized, arr.nchunks
     if done < total:
-        raise ValueError(f"the Zarr points have {done} of {total} chunks written; the missing ones would read as fill values")
+        raise ValueError(
+            f"the Zarr points have {done} of {total} chunks written; the missing ones would read as fill values"
+        )
     return arr
 
 
-def evaluate(field, points, quantity: str, *, method: str = "auto", chunks=None, store=None, client=None, overwrite=False, progress=None, n_workers=None):
+def evaluate(
+    field,
+    points,
+    quantity: str,
+    *,
+    method: str = "auto",
+    chunks=None,
+    store=None,
+    client=None,
+    overwrite=False,
+    progress=None,
+    n_workers=None,
+):
     """``quantity`` of ``field`` on a large point array (..., 4) in chunks of its leading axes.
 
     points: numpy array, Zarr array or dask array of shape (..., 4) float.  quantity and method as in
@@ -92,17 +106,29 @@ def evaluate(field, points, quantity: str, *, method: str = "auto", chunks=None,
         else:  # a copy for the lazy array, which must not see later changes of the caller's array
             pts = np.array(points) if store is None else np.asarray(points)
             as_points(pts)  # dtype / finiteness checks with their messages
-        chunks = default_chunks(lead, value_bytes(trail, dtype)) if chunks is None else check_chunks(chunks, lead, "the points")
+        chunks = (
+            default_chunks(lead, value_bytes(trail, dtype))
+            if chunks is None
+            else check_chunks(chunks, lead, "the points")
+        )
         if store is None:  # lazily: dask slices the points, each task gets its own block
             points, is_dask = require("dask.array").from_array(pts, chunks=chunks + (4,)), True
     if is_dask:
         if store is not None:
             raise ValueError("store= needs numpy or Zarr points (write the dask points with .to_zarr first)")
-        pts = points.rechunk(points.chunks[:-1] + ((4,),)) if chunks is None else points.rechunk(check_chunks(chunks, lead, "the points") + (4,))
+        pts = (
+            points.rechunk(points.chunks[:-1] + ((4,),))
+            if chunks is None
+            else points.rechunk(check_chunks(chunks, lead, "the points") + (4,))
+        )
         fn = lambda blk: _evaluate(field, blk, quantity, method=method)  # noqa: E731
         new = len(trail)
         return require("dask.array").map_blocks(
-            fn, pts, dtype=dtype, drop_axis=pts.ndim - 1, new_axis=list(range(pts.ndim - 1, pts.ndim - 1 + new)) or None,
+            fn,
+            pts,
+            dtype=dtype,
+            drop_axis=pts.ndim - 1,
+            new_axis=list(range(pts.ndim - 1, pts.ndim - 1 + new)) or None,
             chunks=pts.chunks[:-1] + tuple((s,) for s in trail),
         )
     if isinstance(pts, np.ndarray):  # each task gets its own block, not the whole array
@@ -116,14 +142,32 @@ def evaluate(field, points, quantity: str, *, method: str = "auto", chunks=None,
             return shared
 
     params = {
-        "field": describe(field), "field_probe": probe(field), "quantity": quantity, "method": method,
-        "points_shape": list(lead) + [4], "points": points_fingerprint(pts),
+        "field": describe(field),
+        "field_probe": probe(field),
+        "quantity": quantity,
+        "method": method,
+        "points_shape": list(lead) + [4],
+        "points": points_fingerprint(pts),
     }
     job = Job("evaluate", "values", lead + tuple(trail), len(lead), chunks, np.dtype(dtype).name, params, tasks)
     return run_values(job, store, client, overwrite, progress, n_workers)
 
 
-def evaluate_grid(field, shape, spacing, quantity: str, *, origin=None, method: str = "auto", chunks=None, store=None, client=None, overwrite=False, progress=None, n_workers=None):
+def evaluate_grid(
+    field,
+    shape,
+    spacing,
+    quantity: str,
+    *,
+    origin=None,
+    method: str = "auto",
+    chunks=None,
+    store=None,
+    client=None,
+    overwrite=False,
+    progress=None,
+    n_workers=None,
+):
     """``quantity`` of ``field`` on the sites origin + a n of an L1 x L2 x L3 x L4 grid, never holding all points.
 
     shape, spacing, origin: as in :func:`instantonkit.lattice.lattice_links` (default origin puts the
@@ -150,13 +194,23 @@ def evaluate_grid(field, shape, spacing, quantity: str, *, origin=None, method: 
     a = _v.positive_float("spacing", spacing)
     org = resolve_origin(field, shape, a, origin)
     trail, dtype = output_shape(field, quantity, method)
-    chunks = default_chunks(shape, value_bytes(trail, dtype)) if chunks is None else check_chunks(chunks, shape, "the grid")
+    chunks = (
+        default_chunks(shape, value_bytes(trail, dtype)) if chunks is None else check_chunks(chunks, shape, "the grid")
+    )
     task = GridChunk(field, quantity, method, org, a)
     params = {
-        "field": describe(field), "field_probe": probe(field), "domain_probe": domain_probe(field, org, a, shape),
-        "quantity": quantity, "method": method, "shape": list(shape), "spacing": a, "origin": [float(v) for v in org],
+        "field": describe(field),
+        "field_probe": probe(field),
+        "domain_probe": domain_probe(field, org, a, shape),
+        "quantity": quantity,
+        "method": method,
+        "shape": list(shape),
+        "spacing": a,
+        "origin": [float(v) for v in org],
     }
-    job = Job("evaluate_grid", "values", shape + tuple(trail), 4, chunks, np.dtype(dtype).name, params, lambda idx: task)
+    job = Job(
+        "evaluate_grid", "values", shape + tuple(trail), 4, chunks, np.dtype(dtype).name, params, lambda idx: task
+    )
     return run_values(job, store, client, overwrite, progress, n_workers)
 
 

@@ -94,4 +94,6 @@ def lazy(job: Job):
     chunks = tuple(
         tuple(min(c, s - i * c) for i in range(g)) for s, c, g in zip(shape_lead, job.chunks, job.grid)
     ) + tuple((s,) for s in job.shape[job.lead :])
-    return da.map_blocks(block, dtype=np.dtype(job.dtype), chunks=chunks, meta=np.empty((0,) * len(job.shape), dtype=job.dtype))
+    return da.map_blocks(
+        block, dtype=np.dtype(job.dtype), chunks=chunks, meta=np.empty((0,) * len(job.shape), dtype=job.dtype)
+    )

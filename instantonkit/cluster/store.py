@@ -24,9 +24,23 @@ from .fingerprint import same_params
 from .geometry import Job, region
 
 __all__ = [
-    "ATTR", "REPORT", "FORMAT", "Column", "REPORT_COLUMNS", "NO_STATS", "stats_row", "rows_stats",
-    "StoreStatus", "store_status", "read_meta", "prepare", "StaleTaskError", "check_store_id",
-    "write_chunk", "finish_store", "store_path",
+    "ATTR",
+    "REPORT",
+    "FORMAT",
+    "Column",
+    "REPORT_COLUMNS",
+    "NO_STATS",
+    "stats_row",
+    "rows_stats",
+    "StoreStatus",
+    "store_status",
+    "read_meta",
+    "prepare",
+    "StaleTaskError",
+    "check_store_id",
+    "write_chunk",
+    "finish_store",
+    "store_path",
 ]
 
 #: Name of the store attribute that holds instantonkit's metadata.
@@ -55,7 +69,12 @@ NO_STATS = [0.0] * (len(Column) - 1)
 
 def stats_row(stats: LinkStats) -> list:
     """The report columns after DONE for one chunk's :class:`instantonkit.lattice.LinkStats`."""
-    return [float(stats.unitarity_before), float(stats.unitarity_after), float(stats.max_steps), float(stats.refinement_diff)]
+    return [
+        float(stats.unitarity_before),
+        float(stats.unitarity_after),
+        float(stats.max_steps),
+        float(stats.refinement_diff),
+    ]
 
 
 def rows_stats(rows) -> LinkStats:
@@ -135,7 +154,9 @@ def prepare(job: Job, path: str, overwrite: bool):
         except Exception:
             group, meta = None, None
         if meta is None:
-            raise ValueError(f"{path!r} exists and is not an instantonkit store; refusing to touch it (choose another path)")
+            raise ValueError(
+                f"{path!r} exists and is not an instantonkit store; refusing to touch it (choose another path)"
+            )
         if meta["kind"] != job.kind or same_params(meta["params"], job.params):
             if not overwrite:
                 if meta["kind"] != job.kind:
@@ -158,16 +179,30 @@ def prepare(job: Job, path: str, overwrite: bool):
         shutil.rmtree(p)
     group = zarr.open_group(path, mode="w")
     group.create_array(
-        job.name, shape=job.shape, chunks=job.zchunks, dtype=job.dtype, fill_value=0, compressors=None,
+        job.name,
+        shape=job.shape,
+        chunks=job.zchunks,
+        dtype=job.dtype,
+        fill_value=0,
+        compressors=None,
         config={"write_empty_chunks": True},
     )
     rows = group.create_array(
-        REPORT, shape=job.grid + (len(Column),), chunks=(1,) * len(job.grid) + (len(Column),), dtype="f8", fill_value=0.0,
+        REPORT,
+        shape=job.grid + (len(Column),),
+        chunks=(1,) * len(job.grid) + (len(Column),),
+        dtype="f8",
+        fill_value=0.0,
         config={"write_empty_chunks": True},
     )
     group.attrs[ATTR] = {
-        "format": FORMAT, "kind": job.kind, "name": job.name, "params": job.params, "chunks": list(job.chunks),
-        "complete": False, "store_id": uuid.uuid4().hex,
+        "format": FORMAT,
+        "kind": job.kind,
+        "name": job.name,
+        "params": job.params,
+        "chunks": list(job.chunks),
+        "complete": False,
+        "store_id": uuid.uuid4().hex,
     }
     return group, rows
 
@@ -183,7 +218,9 @@ def check_store_id(path: str, store_id: str) -> None:
     except Exception:  # the store is gone or being replaced
         now = None
     if now != store_id:
-        raise StaleTaskError(f"the store {path!r} was replaced since this task was submitted; its chunk was not written")
+        raise StaleTaskError(
+            f"the store {path!r} was replaced since this task was submitted; its chunk was not written"
+        )
 
 
 def write_chunk(path: str, name: str, task, index: tuple, shape: tuple, chunks: tuple, store_id: str):
