@@ -43,6 +43,7 @@ __all__ = ["discover", "collect", "machine_description", "format_table", "format
 SMOKE = {
     "bench_fields": {"points": 1024, "ks": (1,), "ranks": (1,)},
     "bench_cluster": {"parts": ("scaling",), "scaling_size": 4},
+    "bench_smoothing": {"size": 4, "parts": ("timing",), "groups": ("su2",)},
 }
 
 COLUMNS = ("figure", "value", "unit", "ratio", "reference")

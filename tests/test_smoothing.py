@@ -57,8 +57,8 @@ def open_starts():
 
 @pytest.fixture(scope="module")
 def periodic_12():
-    """A periodic 12^4 singular-gauge start at rho/a = 2 (carries the boundary jump of issue 14, about
-    3 % of 8 pi^2 here; cooling and flow remove it in the first steps)."""
+    """A periodic 12^4 singular-gauge start at rho/a = 2.  It carries the boundary jump of issue 14
+    (S_W / 8 pi^2 = 1.031 against 0.95 for the instanton alone), which the first cooling sweeps remove."""
     return lat.lattice_links(ik.bpst(size=2.0), (12,) * 4, 1.0)
 
 
@@ -91,7 +91,7 @@ def test_open_one_by_one_quantities_equal_the_observables(open_starts):
 
 @pytest.mark.parametrize("eps", [1.0, -1.0, 0.0])
 def test_force_is_minus_the_lie_derivative_of_the_action(eps):
-    # Z = -g0^2 dS (Luescher, JHEP 08 (2010) 071, eq. (2.4)), i.e. d/ds S(exp(s X) U) = 2 tr(X Z), checked
+    # Z = -g0^2 dS (Luescher, JHEP 08 (2010) 071, section 2, from memory), i.e. d/ds S(exp(s X) U) = 2 tr(X Z), checked
     # against a central finite difference with scipy's expm on one link of a rough SU(2) lattice
     u = _noisy(lat.lattice_links(ik.bpst(size=1.5), (4,) * 4, 1.0), 0.3, 1)
     c1, c2 = sm.improved_coefficients(eps)
@@ -153,7 +153,7 @@ def test_improved_action_a2_coefficient_is_minus_eps_over_5(open_starts):
 
 
 def test_runge_kutta_integrator_is_third_order():
-    # Luescher's RK3 scheme (JHEP 08 (2010) 071, appendix C) has a global error O(h^3): halving the step
+    # Luescher's RK3 scheme (JHEP 08 (2010) 071, appendix C, from memory) has a global error O(h^3): halving the step
     # divides the distance to a fine-step reference by about 8 (measured 10.8, 9.6, 8.8 for 4 -> 8 -> 16 -> 32
     # steps; a second-order scheme would give 4)
     u = _noisy(lat.lattice_links(ik.bpst(size=1.5), (4,) * 4, 1.0), 0.4, 3)
@@ -209,7 +209,7 @@ def test_su3_flow_of_an_embedded_start_equals_the_su2_flow():
 
 def test_su3_cooling_lowers_the_wilson_action_every_sweep_and_keeps_links_in_su3():
     # each Cabibbo-Marinari subgroup step maximises Re tr(U Sigma) in its SU(2) subgroup, so no update
-    # raises the action (Cabibbo and Marinari, Phys. Lett. B 119 (1982) 387; common practice)
+    # raises the action (Cabibbo and Marinari, Phys. Lett. B 119 (1982) 387, from memory; common practice)
     u = lat.lattice_links(ik.bpst(size=1.5), (4,) * 4, 1.0, group="su3")
     u = _noisy(lat.gauge_transform(u, lat.random_gauge((4,) * 4, 3, seed=2)), 0.3, 4)
     v, rec = sm.cool(u, 4, hits=2)
