@@ -52,6 +52,7 @@ __all__ = [
 SMOKE = {
     "bench_fields": {"points": 1024, "ks": (1,), "ranks": (1,)},
     "bench_cluster": {"parts": ("scaling",), "scaling_size": 4},
+    "bench_smoothing": {"size": 4, "parts": ("timing",), "groups": ("su2",)},
 }
 
 COLUMNS = ("figure", "value", "unit", "ratio", "reference")

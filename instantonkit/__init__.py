@@ -35,6 +35,8 @@ from .fields import (
     potential,
     self_duality_residual,
 )
+from . import smoothing
+from .smoothing import cool, gradient_flow, improved_action, improved_charge, wilson_flow
 
 __version__ = "0.1.0"
 
@@ -99,4 +101,10 @@ __all__ = [
     "Verification",
     "DivergentIntegralError",
     "FieldEvaluationError",
+    "smoothing",
+    "wilson_flow",
+    "gradient_flow",
+    "cool",
+    "improved_action",
+    "improved_charge",
 ]
