@@ -87,7 +87,13 @@ class FieldHooks(Protocol):
       ``log_det(x) -> ()``: log det of the ADHM Gram matrix, for Osborn's density s = -box box log det f;
       ``closed_link(x, d) -> (N, N)``: the closed-form parallel transporter from x to x + d
       (jax-traceable, one link), used by the lattice instead of Magnus steps;
-      ``describe() -> str``: a one-line description for reports.
+      ``describe() -> str``: a one-line description for reports;
+      ``gauge_twin() -> (twin, g)``: the same field in another gauge and the transition g(x) -> (N, N)
+      (jax-traceable) with A = g^dag A_twin g + g^dag dg, so links U(x, d) = g(x)^dag U_twin(x, d) g(x + d);
+      g is not finite where this field's gauge is singular (the lattice builds links touching such
+      points in the twin's gauge, :func:`instantonkit.lattice.block_links`);
+      ``record() -> dict``: a JSON-ready description with a 'kind' key from which
+      :func:`instantonkit.lattice.field_from_record` rebuilds the field (stored in lattice files).
     """
 
     def field_strength(self, x: Any) -> Any: ...
@@ -100,6 +106,8 @@ class FieldHooks(Protocol):
     def log_det(self, x: Any) -> Any: ...
     def closed_link(self, x: Any, d: Any) -> Any: ...
     def describe(self) -> str: ...
+    def gauge_twin(self) -> tuple[Any, Callable]: ...
+    def record(self) -> dict: ...
 
 
 #: Names of the optional hooks (methods or attributes), documented in :class:`FieldHooks`.
@@ -116,6 +124,8 @@ HOOKS = (
     "log_det",
     "closed_link",
     "describe",
+    "gauge_twin",
+    "record",
 )
 
 

@@ -175,7 +175,7 @@ class LinkStats:
         )
 
 
-def _magnus_refined(field, xs, ds, rtol, batch=None):
+def _magnus_refined(field, xs, ds, rtol, batch=None, allow_bad=False):
     """Magnus transporters refined by halving the step until two refinements differ by <= rtol; (out, LinkStats)."""
     kern = _magnus_kernel()
     steps = 1
@@ -194,6 +194,11 @@ def _magnus_refined(field, xs, ds, rtol, batch=None):
                 "the field may be singular near those links"
             )
         cur = _chunked(kern, field, xs[todo], ds[todo], steps, size=size)
+        if allow_bad:  # links through a singular point: NaN rows for the caller to rebuild in another gauge
+            nan_rows = ~np.all(np.isfinite(cur), axis=(-2, -1))
+            if np.any(nan_rows):
+                out[todo[nan_rows]] = np.nan
+                todo, prev, cur = todo[~nan_rows], prev[~nan_rows], cur[~nan_rows]
         diff = np.max(np.abs(cur - prev), axis=(-2, -1))
         diff = np.where(np.isfinite(diff), diff, np.inf)
         done = diff <= rtol
@@ -211,22 +216,25 @@ def _magnus_refined(field, xs, ds, rtol, batch=None):
     return out, LinkStats(method="magnus", max_steps=max_steps, refinement_diff=diff_max)
 
 
-def transporters(field, xs, ds, method: str, rtol: float, batch: int | None):
-    """Validated (M, 4) starts and steps -> ((M, N, N) transporters, LinkStats); the one link path."""
+def transporters(field, xs, ds, method: str, rtol: float, batch: int | None, allow_bad: bool = False):
+    """Validated (M, 4) starts and steps -> ((M, N, N) transporters, LinkStats); the one link path.
+
+    allow_bad: links through a singular point come back as NaN rows instead of raising ValueError.
+    """
     closed = hook(field, "closed_link") if method != "magnus" else None
     if method == "closed" and closed is None:
         raise ValueError(f"the field {type(field).__name__} has no closed-form link (no closed_link(x, d) hook)")
     if closed is not None:
         out = _chunked(_closed_kernel(), field, xs, ds, size=batch)
         bad = ~np.all(np.isfinite(out), axis=(-2, -1))
-        if np.any(bad):
+        if np.any(bad) and not allow_bad:
             i = int(np.argmax(bad))
             raise ValueError(
                 f"the closed-form link is not finite on {int(bad.sum())} link(s) (first start {xs[i].tolist()}, "
                 f"step {ds[i].tolist()}); the segment passes through a singular point of the field"
             )
         return out, LinkStats(method="closed")
-    return _magnus_refined(field, xs, ds, rtol, batch)
+    return _magnus_refined(field, xs, ds, rtol, batch, allow_bad)
 
 
 def parallel_transporter(
