@@ -45,7 +45,11 @@ import jax.numpy as jnp
 import numpy as np
 
 from . import _validate as _v
+from . import io as _io
 from . import observables as _obs
+from .adhm import ADHMData
+from .ansatz import BPSTField
+from .periodic import TorusWindow
 from ._batching import run_batched
 from .fields import as_field, evaluate, hook
 from .periodic import DEFAULT_WINDOW_WIDTH, window_field
@@ -100,6 +104,9 @@ __all__ = [
     "START_BOUNDARIES",
     "continuum_reference",
     "wilson_artefact",
+    "field_from_record",
+    "field_from_file",
+    "regenerate",
 ] + _obs.__all__
 
 _GROUPS = ("su2", "su3", None)
@@ -161,7 +168,9 @@ class LinkReport:
     projection; boundary_link_mismatch / boundary_action_error: see :func:`boundary_mismatch`
     (None for open boundaries); seconds: wall time; boundary_action_fraction: boundary_action_error
     / 8 pi^2 (None for open boundaries; above BOUNDARY_WARN_FRACTION a BoundaryActionWarning is
-    raised); window: the layer width of boundary='window' (fraction of the half-box), else None.
+    raised); window: the layer width of boundary='window' (fraction of the half-box), else None;
+    field: the field's ``record()`` (JSON-ready, rebuilt by :func:`field_from_record`; None when the
+    field has no record hook).
     """
 
     shape: tuple
@@ -181,10 +190,16 @@ class LinkReport:
     seconds: float
     boundary_action_fraction: float | None = None
     window: float | None = None
+    field: dict | None = None
 
     def as_metadata(self) -> dict:
         """A JSON-ready dict of the generation parameters and quality figures."""
         return {k: (list(v) if isinstance(v, tuple) else v) for k, v in dataclasses.asdict(self).items()}
+
+
+def _record_of(field):
+    rec = hook(field, "record")
+    return None if rec is None else rec()
 
 
 @functools.cache
@@ -332,6 +347,7 @@ class StartSpec:
             seconds=float(seconds),
             boundary_action_fraction=None if action_err is None else float(action_err) / _EIGHT_PI2,
             window=self.window,
+            field=_record_of(self.field),
         )
 
 
@@ -702,3 +718,69 @@ def continuum_reference(field, shape, spacing, *, origin=None, boundary: str = "
         "hi": np.asarray(hi),
         "nodes": nodes,
     }
+
+
+
+# -- fields from their records (lattice files) -----------------------------------------------------------
+
+
+def _adhm_from_record(rec):
+    return ADHMData(np.asarray(rec["lam"], dtype=np.float64), np.asarray(rec["B"], dtype=np.float64), chirality=int(rec["chirality"]),
+                    tol=float(rec["tol"]), gauge=rec["gauge"])
+
+
+def _bpst_from_record(rec):
+    return BPSTField(np.asarray(rec["center"], dtype=np.float64), float(rec["size"]), np.asarray(rec["orientation"], dtype=np.float64),
+                     rec["gauge"])
+
+
+#: Rebuilders of field records by their 'kind' (the ``record()`` hooks of ADHM data and ``ansatz.BPSTField``).
+RECORD_KINDS = {"adhm": _adhm_from_record, "bpst": _bpst_from_record}
+
+
+def field_from_record(record: dict, *, window: bool = True):
+    """The field a ``record()`` hook described (as stored in lattice files and in ``LinkReport.field``).
+
+    Args:
+      record: dict with a 'kind' in RECORD_KINDS ('adhm': Lambda, B, chirality, gauge, tol; 'bpst':
+        center, size, orientation, gauge) and optionally 'window' (lo, box, width of :class:`TorusWindow`).
+      window: rebuild the window too (False: the field before windowing, to pass with boundary='window').
+    Returns:
+      The field (ADHMData, ansatz.BPSTField or a TorusWindow of one); floats are those of the record
+      (JSON keeps float64 exactly), so np.array_equal holds on Lambda and B.
+    Raises:
+      ValueError: no record, or an unknown kind.
+    """
+    if not isinstance(record, dict) or "kind" not in record:
+        raise ValueError(f"record must be a dict with a 'kind' key; found {record!r:.80}")
+    build = RECORD_KINDS.get(record["kind"])
+    if build is None:
+        raise ValueError(f"record kind must be one of {tuple(RECORD_KINDS)}; found {record['kind']!r}")
+    field = build(record)
+    win = record.get("window")
+    if window and win is not None:
+        field = TorusWindow(field, np.asarray(win["lo"]), np.asarray(win["box"]), np.asarray(win["width"]))
+    return field
+
+
+def field_from_file(path, *, window: bool = True):
+    """The field described in a lattice file (npz or ILDG written by ``save_lattice`` of a start); see :func:`field_from_record`.
+
+    Raises ValueError when the file holds no field description.
+    """
+    desc = _io.read_description(path)
+    if desc["field"] is None:
+        raise ValueError(f"{path!s} holds no field description (save a lattice_start(...) result, or pass description=)")
+    return field_from_record(desc["field"], window=window)
+
+
+def regenerate(path) -> LatticeStart:
+    """Compute again the start a lattice file holds, from the file's description and metadata alone (a LatticeStart)."""
+    desc = _io.read_description(path)
+    meta = desc["metadata"]
+    if desc["field"] is None or "shape" not in meta:
+        raise ValueError(f"{path!s} lacks the field description or the start's metadata needed to regenerate it")
+    field = field_from_record(desc["field"], window=False)
+    return lattice_start(field, tuple(meta["shape"]), meta["spacing"], origin=np.asarray(meta["origin"]), group=meta["group"],
+                         embedding=tuple(meta["embedding"]), boundary=meta["boundary"], rtol=meta["rtol"],
+                         window=meta.get("window") or DEFAULT_WINDOW_WIDTH)

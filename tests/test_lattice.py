@@ -246,10 +246,50 @@ def test_bad_arguments_are_rejected(kwargs, match):
         lat.lattice_links(ik.bpst(), args.pop("shape"), args.pop("spacing"), **args)
 
 
-def test_singular_point_on_a_link_is_reported():
-    # the singular-gauge centre on a site: the closed form is infinite there
+def test_singular_point_on_a_link_is_reported_for_a_field_without_a_gauge_twin():
+    # the singular-gauge centre on a site of a field that offers no gauge_twin hook (a translated
+    # BPST forwards closed_link only): the closed form is infinite there and the start says so
+    field = ik.transforms.translate(ik.bpst(), np.zeros(4))
     with pytest.raises(ValueError, match="singular point"):
-        lat.lattice_links(ik.bpst(), (2, 2, 2, 2), 0.5, origin=np.zeros(4))
+        lat.lattice_links(field, (2, 2, 2, 2), 0.5, origin=np.zeros(4), boundary="open")
+
+
+@pytest.mark.parametrize("make", [lambda: ik.bpst(size=1.0), lambda: ik.bpst_field(size=1.0, gauge="singular")], ids=["adhm", "bpst_field"])
+@pytest.mark.parametrize("shift", [0.0, 0.25], ids=["site", "link"])
+def test_singular_centre_on_a_site_or_link_gives_the_regular_start_up_to_a_lattice_gauge_transformation(make, shift):
+    # the links are built in the regular gauge and transformed by g = U_reg^dag U_sing at every other
+    # site (free at the singular one), so every plaquette is a conjugate of the regular start's and all
+    # gauge-invariant observables agree to rounding (gauge invariance of tr U_p: Wilson, Phys. Rev. D 10
+    # (1974) 2445)
+    sing = make()
+    reg = sing.with_gauge("regular")
+    n, a = 8, 0.5
+    origin = -a * 4 + np.array([shift, 0.0, 0.0, 0.0])  # centre 0 on site (4, 4, 4, 4), or mid-link
+    us = lat.lattice_links(sing, (n,) * 4, a, origin=origin, boundary="open")
+    ur = lat.lattice_links(reg, (n,) * 4, a, origin=origin, boundary="open")
+    assert np.all(np.isfinite(us)) and lat.unitarity_deviation(us) < 1e-13
+    ps, pr = lat.plaquette_traces(us, boundary="open"), lat.plaquette_traces(ur, boundary="open")
+    assert np.nanmax(np.abs(ps - pr)) < 1e-12
+    assert lat.wilson_action(us, boundary="open") == pytest.approx(lat.wilson_action(ur, boundary="open"), rel=1e-12)
+    assert lat.clover_charge(us, boundary="open") == pytest.approx(lat.clover_charge(ur, boundary="open"), abs=1e-12)
+    # and away from the singular site the links are the singular-gauge ones themselves
+    far = lat.lattice_links(sing, (2,) * 4, a, origin=origin, boundary="open")
+    assert np.allclose(us[:2, :2, :2, :2], far, atol=1e-12)
+
+
+def test_gauge_twin_transition_relates_the_two_potentials():
+    # A_sing = g^dag A_reg g + g^dag dg with g = U_reg^dag U_sing (ADHM frames; Atiyah, Hitchin,
+    # Drinfeld, Manin, Phys. Lett. A 65 (1978) 185; common practice), checked by autodiff at a point
+    import jax
+
+    data = ik.multi_instanton(centers=[[-1.0, 0, 0, 0], [1.0, 0.5, 0, 0]], sizes=[0.8, 1.1])
+    twin, g = fields.hook(data, "gauge_twin")()
+    x = np.array([0.3, -0.2, 0.4, 0.1])
+    gx = np.asarray(g(x))
+    dg = np.moveaxis(np.asarray(jax.jacfwd(g)(x)), -1, 0)
+    expect = np.einsum("ij,mjk,kl->mil", gx.conj().T, np.asarray(twin.potential(x)), gx) + np.einsum("ij,mjk->mik", gx.conj().T, dg)
+    assert np.allclose(np.asarray(data.potential(x)), expect, atol=1e-12)
+    assert fields.hook(twin, "gauge_twin") is None  # the regular gauge needs no twin
 
 
 def test_periodic_boundary_mismatch_is_small_in_singular_gauge_and_shrinks_with_the_box():
