@@ -277,8 +277,8 @@ def save_lattice(path, links, format: str = "npz", metadata: dict | None = None,
       format: 'npz' or 'ildg'.
       metadata: optional JSON-serialisable dict stored with the links (default: the start's report).
       lfn: optional logical file name (ILDG only).
-      description: optional JSON-serialisable description of the field (default: ``metadata['field']``,
-        which is then stored only as the description); :func:`instantonkit.lattice.field_from_record`
+      description: optional JSON-serialisable description of the field (default: ``metadata['field']``
+        when that is a dict, which is then stored only as the description, read back as info['field']); :func:`instantonkit.lattice.field_from_record`
         rebuilds the field from it.
     Returns:
       None.
@@ -293,7 +293,7 @@ def save_lattice(path, links, format: str = "npz", metadata: dict | None = None,
         metadata = report.as_metadata() if metadata is None else metadata
         links = links.links
     u = check_links(links)
-    if isinstance(metadata, dict) and "field" in metadata:
+    if isinstance(metadata, dict) and isinstance(metadata.get("field"), dict):  # a field record: stored as the description
         description = metadata["field"] if description is None else description
         metadata = {k: v for k, v in metadata.items() if k != "field"}
     for name, value in (("metadata", metadata), ("description", description)):

@@ -667,7 +667,7 @@ def continuum_reference(field, shape, spacing, *, origin=None, boundary: str = "
 
     The field put on the lattice (the windowed field for boundary='window', the field itself
     otherwise) has its action integrated over the lattice's box by a tensor Gauss-Legendre rule
-    (``nodes`` per axis): the periodic box [origin - a/2, origin + a (L - 1/2)] for 'periodic' and
+    (``nodes`` per panel): the periodic box [origin - a/2, origin + a (L - 1/2)] for 'periodic' and
     'window', the region [origin, origin + a (L - 1)] that the inside plaquettes cover for 'open'.
     The expected Wilson action applies the lattice artefact of each lump,
     S_W = S_box - 8 pi^2 sum_i (1 - wilson_artefact(a / rho_i))  (García Pérez, González-Arroyo,
@@ -676,7 +676,8 @@ def continuum_reference(field, shape, spacing, *, origin=None, boundary: str = "
 
     Args:
       field, shape, spacing, origin, boundary, window: as in :func:`lattice_links`.
-      nodes: Gauss-Legendre nodes per axis (default from the box and the smallest size, 16..48).
+      nodes: Gauss-Legendre nodes per panel (default 8); each axis is cut into panels at the window's
+        layers and into pieces of about 2 rho_min.
     Returns:
       dict: 'box_action' and 'box_fraction' (/ 8 pi^2), 'expected_wilson' and 'expected_fraction',
       'excess_fraction' (box_fraction - k for 'window': the window's action excess), 'sizes' (m,),
@@ -691,12 +692,21 @@ def continuum_reference(field, shape, spacing, *, origin=None, boundary: str = "
     else:
         lo, hi = org - a / 2.0, org + a * (shp - 0.5)
     sizes = _field_sizes(spec.field)
-    if nodes is None:
-        nodes = int(np.clip(np.ceil(6.0 * np.max(hi - lo) / np.min(sizes)), 16, 48))
-    nodes = _v.positive_int("nodes", nodes)
+    nodes = 8 if nodes is None else _v.positive_int("nodes", nodes)
     t, wt = np.polynomial.legendre.leggauss(nodes)
-    xs = [0.5 * (l + h) + 0.5 * (h - l) * t for l, h in zip(lo, hi)]
-    ws = [0.5 * (h - l) * wt for l, h in zip(lo, hi)]
+    xs, ws = [], []
+    for i in range(4):  # panels: the window's layers (where it is not analytic at the ends) and bulk pieces of ~ 2 rho_min
+        cuts = [lo[i], hi[i]]
+        if boundary == "window":
+            d = float(np.asarray(spec.field.width)[i])
+            cuts = [lo[i], lo[i] + d, hi[i] - d, hi[i]] if hi[i] - lo[i] > 2 * d + 1e-12 else [lo[i], lo[i] + d, hi[i]]
+        edges = [cuts[0]]
+        for l, h in zip(cuts[:-1], cuts[1:]):
+            m = max(1, int(np.ceil((h - l) / (2.0 * np.min(sizes)))))
+            edges += list(np.linspace(l, h, m + 1)[1:])
+        e = np.asarray(edges)
+        xs.append((0.5 * (e[:-1] + e[1:])[:, None] + 0.5 * np.diff(e)[:, None] * t[None, :]).reshape(-1))
+        ws.append((0.5 * np.diff(e)[:, None] * wt[None, :]).reshape(-1))
     g = np.stack(np.meshgrid(xs[0], xs[1], xs[2], indexing="ij"), axis=-1).reshape(-1, 3)
     w3 = np.einsum("i,j,k->ijk", ws[0], ws[1], ws[2]).reshape(-1)
     total = 0.0
