@@ -25,6 +25,22 @@ Results and reports: :func:`lattice_links` always returns the links; :func:`latt
 frozen :class:`LatticeStart` (``.links`` and ``.report``, a :class:`LinkReport`).  The old
 ``lattice_links(..., return_report=True)`` still returns ``(links, report)`` with a DeprecationWarning.
 
+Boundaries (issue 14): 'periodic' wraps the field's own links (the jump of A across the faces is
+measured for every periodic start, :func:`boundary_mismatch`, and a :class:`BoundaryActionWarning`
+names the remedies when it exceeds BOUNDARY_WARN_FRACTION = 1 % of 8 pi^2); 'window' puts the field
+times a smooth window on the torus (:mod:`instantonkit.periodic`: no mismatch, the same sector, a
+small action excess); 'open' uses exact links everywhere.  :func:`continuum_reference` gives the
+matched continuum figures (the action of the field put on the lattice, in the same box, and the
+expected Wilson action with the artefact :func:`wilson_artefact`).
+
+Singular points on sites or links: fields with the ``gauge_twin`` hook (singular-gauge ADHM data and
+BPST) have the links that touch a singular point built in the twin's regular gauge and transformed
+back at every other site (:func:`_slice_links`), so every plaquette is right.
+
+Files: a start's report carries the field's ``record()`` (``LinkReport.field``); ``io.save_lattice(path,
+start)`` stores it, :func:`field_from_record` / :func:`field_from_file` rebuild the field and
+:func:`regenerate` the start.
+
 Chunked starts belong to the distributed layer: ``instantonkit.cluster.lattice_links`` /
 ``cluster.lattice_start``.  This module never imports it; the old ``lattice_links(..., backend="dask")``
 still works (DeprecationWarning) through the executor that ``instantonkit.cluster`` registers with
@@ -197,9 +213,29 @@ class LinkReport:
         return {k: (list(v) if isinstance(v, tuple) else v) for k, v in dataclasses.asdict(self).items()}
 
 
+def _near_centres(field, pts, a):
+    """Points (M, 4) within scale / 2 + a of a centre of the field's layout (all points without a layout hook).
+
+    The singular points of a singular gauge sit at the instanton centres (k = 1) or close to them
+    (k > 1), so the transition g of the gauge_twin hook is evaluated only there.
+    """
+    lay = hook(field, "layout")
+    if lay is None:
+        return np.ones(pts.shape[0], dtype=bool)
+    centres, scales = lay()
+    centres = np.asarray(centres, dtype=np.float64).reshape(-1, 4)
+    radius = 0.5 * np.asarray(scales, dtype=np.float64).reshape(-1) + a
+    d2 = np.sum((pts[:, None, :] - centres[None]) ** 2, axis=-1)
+    return np.any(d2 <= radius[None] ** 2, axis=1)
+
+
 def _record_of(field):
     rec = hook(field, "record")
     return None if rec is None else rec()
+
+
+#: Points per compiled call of the gauge_twin transition (few points per block: those near a centre).
+_TRANSITION_BATCH = 256
 
 
 @functools.cache
@@ -208,11 +244,11 @@ def _transition_kernel():
     return jax.jit(jax.vmap(lambda f, x: f.gauge_twin()[1](x), in_axes=(None, 0)))
 
 
-def _slice_links(field, sites_t, a, method, rtol, batch=None):
+def _slice_links(field, sites_t, a, method, rtol, batch=None, n_field=None):
     """Links of one set of sites (S, 4) in the four directions: ((S, 4, N, N) unprojected, LinkStats).
 
     Singular points on sites or links: when the field has the ``gauge_twin`` hook (twin, g), g is
-    evaluated at both ends of every link; a link that starts or ends at a site where g is not finite
+    evaluated at both ends of every link near a centre (:func:`_near_centres`); a link that starts or ends at a site where g is not finite
     (a singular point of the field's gauge), or whose transporter is not finite (a singular point
     on the link), is computed in the twin's gauge and transformed back, U = G(x)^dag U_twin G(x + d),
     with G = g except G = 1 at the singular sites (the transformation there is free).  So the links
@@ -225,13 +261,18 @@ def _slice_links(field, sites_t, a, method, rtol, batch=None):
     if twin_hook is None:
         u, stats = transporters(field, xs, ds, method, rtol, batch)
         return u.reshape(s, 4, u.shape[-2], u.shape[-1]), stats
-    size = batch if batch is not None else chunk_size(xs.shape[0])
-    g0 = np.repeat(run_batched(_transition_kernel(), [np.asarray(sites_t, dtype=np.float64)], size, args_before=(field,)), 4, axis=0)
-    g1 = run_batched(_transition_kernel(), [xs + ds], size, args_before=(field,))
-    sing0 = ~np.all(np.isfinite(g0), axis=(-2, -1))
-    sing1 = ~np.all(np.isfinite(g1), axis=(-2, -1))
+    size = _TRANSITION_BATCH  # one compiled size whatever the block: the bits do not depend on the chunking
+    ends = xs + ds
+    near0, near1 = _near_centres(field, xs, a), _near_centres(field, ends, a)
+    sing0, sing1 = np.zeros(xs.shape[0], dtype=bool), np.zeros(xs.shape[0], dtype=bool)
+    for near, sing, pts in ((near0, sing0, xs), (near1, sing1, ends)):
+        idx = np.flatnonzero(near)
+        if idx.size:
+            g = run_batched(_transition_kernel(), [pts[idx]], size, args_before=(field,))
+            sing[idx] = ~np.all(np.isfinite(g), axis=(-2, -1))
     touch = sing0 | sing1
-    u = np.full((xs.shape[0],) + g0.shape[-2:], np.nan, dtype=np.complex128)
+    n = n_field if n_field is not None else jax.eval_shape(field.potential, jax.ShapeDtypeStruct((4,), jnp.float64)).shape[-1]
+    u = np.full((xs.shape[0], n, n), np.nan, dtype=np.complex128)
     stats = LinkStats()
     keep = np.flatnonzero(~touch)
     if keep.size:
@@ -241,9 +282,11 @@ def _slice_links(field, sites_t, a, method, rtol, batch=None):
     if redo.size:
         twin = twin_hook()[0]
         ut, st = transporters(twin, xs[redo], ds[redo], method, rtol, batch)
-        eye = np.eye(g0.shape[-1])
-        ga = np.where(sing0[redo, None, None], eye, g0[redo])
-        gb = np.where(sing1[redo, None, None], eye, g1[redo])
+        eye = np.eye(n)
+        ga = run_batched(_transition_kernel(), [xs[redo]], size, args_before=(field,))
+        gb = run_batched(_transition_kernel(), [ends[redo]], size, args_before=(field,))
+        ga = np.where(np.all(np.isfinite(ga), axis=(-2, -1))[:, None, None], ga, eye)
+        gb = np.where(np.all(np.isfinite(gb), axis=(-2, -1))[:, None, None], gb, eye)
         u[redo] = np.conj(np.swapaxes(ga, -1, -2)) @ ut @ gb
         stats = stats.merge(st)
     return u.reshape(s, 4, u.shape[-2], u.shape[-1]), stats
@@ -382,7 +425,7 @@ def block_links(field, lo, hi, origin, spacing, *, n_field, group, embedding, me
     grids = np.meshgrid(*[np.arange(l, h, dtype=np.float64) for l, h in zip(lo, hi)], indexing="ij")
     n = np.stack(grids, axis=-1).reshape(-1, 4)
     sites = np.asarray(origin, dtype=np.float64) + spacing * n
-    u, stats = _slice_links(field, sites, spacing, method, rtol, batch)
+    u, stats = _slice_links(field, sites, spacing, method, rtol, batch, n_field)
     u, dev0, dev1 = finish_batched(u.reshape(-1, n_field, n_field), batch)
     n_out = n_field
     if group == "su3":
