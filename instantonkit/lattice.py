@@ -63,12 +63,10 @@ import numpy as np
 from . import _validate as _v
 from . import io as _io
 from . import observables as _obs
+from ._batching import run_batched
 from .adhm import ADHMData
 from .ansatz import BPSTField
-from .periodic import TorusWindow
-from ._batching import run_batched
 from .fields import as_field, evaluate, hook
-from .periodic import DEFAULT_WINDOW_WIDTH, window_field
 from .observables import (  # noqa: F401  (re-exported: the lattice namespace offers the observables of its starts)
     BOUNDARIES,
     PLANES,
@@ -83,6 +81,7 @@ from .observables import (  # noqa: F401  (re-exported: the lattice namespace of
     random_gauge,
     wilson_action,
 )
+from .periodic import DEFAULT_WINDOW_WIDTH, TorusWindow, window_field
 from .transport import (  # noqa: F401  (re-exported: the transporters and link figures belong to the lattice namespace too)
     LINK_CHUNK,
     LinkStats,
