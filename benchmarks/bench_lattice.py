@@ -2,7 +2,8 @@
 
 Goals (issue 5): a 32^4 SU(2) BPST start in <= 30 s on two cores, cost linear in the volume, peak
 memory <= 1.5x the output array.  Usage: ``python benchmarks/bench_lattice.py [--quick] [--sizes 16 24 32]``.
-Quick mode uses 8^4 only; ``--disk 64`` writes the 64^4 SU(3) start to a memmap on disk.  Peak memory is the growth of the resident set (resource.getrusage) over
+Quick mode uses 8^4 only; ``--periodic [--quick] [--charge-two]`` measures the periodic starts of issue 14
+(wrapped against windowed boundary, the window's excess against the box); ``--disk 64`` writes the 64^4 SU(3) start to a memmap on disk.  Peak memory is the growth of the resident set (resource.getrusage) over
 the run, measured in a fresh child process per start so earlier runs do not hide it.
 """
 
@@ -137,6 +138,44 @@ def run(quick: bool = False, sizes=None) -> list[dict]:
     return rows
 
 
+def periodic_figures(quick: bool = False, charge_two: bool = False) -> list[dict]:
+    """Rows of issue 14: boundary action of the wrapped periodic start against boundary='window', the window's
+    action excess against the box, and (``charge_two``) the README's 24^4 charge-2 start both ways (minutes)."""
+    import warnings
+
+    import numpy as np
+
+    import instantonkit as ik
+    from instantonkit import lattice as lat
+    from instantonkit import references
+
+    e = 8 * np.pi**2
+    rows = []
+
+    def row(figure, value, reference=""):
+        rows.append({"figure": figure, "value": round(float(value), 5), "unit": "", "ratio": None, "reference": reference})
+
+    bpst = ik.bpst_field(size=1.0, gauge="singular")
+    for box in (4.0, 6.0) if quick else (4.0, 6.0, 8.0, 12.0):
+        ref = references.continuum_reference(bpst, (16,) * 4, box / 16, boundary="window", nodes=6)
+        row(f"window excess S_w/8pi^2 - 1, box L = {box:g} rho", ref["excess_fraction"], "falls ~ (rho/L)^4 (instantonkit.periodic)")
+    starts = [("shortest call bpst() 16^4, rho/a = 3", ik.bpst(), (16,) * 4, 1 / 3, 1e-10, "su2")]
+    if charge_two:
+        data = ik.multi_instanton(centers=[[-3, 0, 0, 0], [3, 0.5, 0, 0]], sizes=[1.0, 1.0])
+        starts.append(("README charge-2 24^4 su3, rho/a = 2", data, (24,) * 4, 0.5, 1e-8, "su3"))
+    for label, field, shape, a, rtol, group in starts:
+        for boundary in ("periodic", "window"):
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", lat.BoundaryActionWarning)
+                st = lat.lattice_start(field, shape, a, boundary=boundary, rtol=rtol, group=group)
+            ref = references.continuum_reference(field, shape, a, boundary=boundary, nodes=6)
+            row(f"{label}, {boundary}: S_W / 8pi^2", lat.wilson_action(st.links) / e, f"expected {ref['expected_fraction']:.4f} (continuum_reference)")
+            row(f"{label}, {boundary}: clover Q", lat.clover_charge(st.links))
+            row(f"{label}, {boundary}: boundary action / 8pi^2", st.report.boundary_action_fraction, "warning above 0.01")
+            row(f"{label}, {boundary}: seconds", st.report.seconds)
+    return rows
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="8^4 only")
@@ -144,8 +183,13 @@ def main(argv=None) -> int:
     ap.add_argument("--json", action="store_true", help="print the rows as JSON")
     ap.add_argument("--disk", type=int, default=None, metavar="L",
                     help="only write an L^4 SU(3) start to a memmap on disk (e.g. 64) and report time and memory")
+    ap.add_argument("--periodic", action="store_true", help="only the periodic-start figures of issue 14 (window excess, boundary action)")
+    ap.add_argument("--charge-two", action="store_true", help="with --periodic: also the README's 24^4 charge-2 start (minutes)")
     args = ap.parse_args(argv)
-    rows = disk_start(args.disk) if args.disk else run(args.quick, args.sizes)
+    if args.periodic:
+        rows = periodic_figures(args.quick, args.charge_two)
+    else:
+        rows = disk_start(args.disk) if args.disk else run(args.quick, args.sizes)
     from benchmarks.run import print_rows
 
     print_rows(rows, args.json)

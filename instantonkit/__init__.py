@@ -22,7 +22,7 @@ from .checks import (
     verify,
 )
 from . import io, lattice, observables
-from . import transport
+from . import references, transport
 from .lattice import average_plaquette, clover_charge, lattice_links, lattice_start, wilson_action
 from .io import load_lattice, save_lattice
 from . import cluster  # dask and zarr are imported only when a chunked run starts
@@ -55,6 +55,7 @@ __all__ = [
     "quaternion",
     "moduli",
     "transport",
+    "references",
     "lattice",
     "observables",
     "io",

@@ -352,6 +352,46 @@ class ADHMData(PytreeFields):
 
         return closed_link
 
+    @property
+    def gauge_twin(self):
+        """Field hook of singular-gauge data: () -> (the data in regular gauge, g), g(x) = U_reg(x)^dag U_sing(x), (2n, 2n).
+
+        Wherever both frames are defined U_sing = U_reg g, so A = g^dag A_reg g + g^dag dg and the links
+        obey U(x, d) = g(x)^dag U_reg(x, d) g(x + d); g is not finite where the singular gauge is.
+        Absent (AttributeError) for regular-gauge data.
+        """
+        if self.gauge != "singular":
+            raise AttributeError("gauge_twin is offered by singular-gauge ADHM data only")
+
+        def gauge_twin():
+            twin = self.with_gauge("regular")
+
+            def transition(x):
+                x = jnp.asarray(x, dtype=jnp.float64)
+                return qt.qmat_to_complex(qt.qmat_mul(qt.qmat_dagger(twin.frame(x)), self.frame(x)))
+
+            return twin, transition
+
+        return gauge_twin
+
+    def record(self) -> dict:
+        """Field hook: a JSON-ready description that rebuilds the data exactly (floats in full precision)."""
+        lam = np.asarray(self.lam, dtype=np.float64)
+        sizes = self.sizes()
+        return {
+            "kind": "adhm",
+            "lam": lam.tolist(),
+            "B": np.asarray(self.B, dtype=np.float64).tolist(),
+            "chirality": int(self.chirality),
+            "gauge": self.gauge,
+            "tol": float(self.tol),
+            "group": self.group,
+            "charge": int(self.charge),
+            "centres": self.centers().tolist(),
+            "sizes": sizes.tolist(),
+            "orientations": (lam / np.where(sizes > 0, sizes, 1.0)[None, :, None]).tolist(),
+        }
+
 
 def _real_gram(lam, bp):
     """Re(Delta^dag Delta)_ij = sum_{l,a} Delta_li^a Delta_lj^a, the real k x k matrix, without the imaginary parts."""
@@ -474,3 +514,13 @@ def charge_one_link(lam, b, chirality: int, gauge: str, x, d):
     gen = gen.at[0].set(0.0)
     omega = qt.qmul(qt.qmul(lhat, gen), qt.qconj(lhat)) * scalar
     return qt.to_matrix(qt.qexp(omega))
+
+
+def projection_transition(lam, b, chirality: int, x):
+    """g(x) = U_twin(x)^dag U(x) between the two projection gauges of ADHM data (lam, b) at one point; (2n, 2n).
+
+    U in the singular gauge, U_twin in the regular one (:meth:`ADHMData.frame`).  jax-traceable; the
+    function behind the ``gauge_twin`` hooks of ADHM data and of ``ansatz.BPSTField``.
+    """
+    data = ADHMData(lam, b, chirality=chirality, gauge="singular")
+    return data.gauge_twin()[1](x)

@@ -54,7 +54,7 @@ import numpy as np
 from . import _validate
 from . import quaternion as qt
 from ._pytree import PytreeFields
-from .adhm import charge_one_link
+from .adhm import charge_one_link, projection_transition
 from .conventions import LEVI_CIVITA, PI, QUATERNION_BASIS, point_to_quaternion
 
 #: Parameters as arrays (numpy, or jax tracers under jit/grad).
@@ -499,6 +499,38 @@ class BPSTField(PytreeFields):
         return charge_one_link(
             jnp.asarray(self.size) * jnp.asarray(self.orientation), point_to_quaternion(jnp.asarray(self.center)), 1, self.gauge, x, d
         )
+
+    @property
+    def gauge_twin(self):
+        """Field hook in singular gauge: () -> (this instanton in regular gauge, g), g(x) = U_reg(x)^dag U_sing(x)
+        of the ADHM frames of Lambda = rho Omega, B = p(center) (the data of :meth:`closed_link`);
+        links U(x, d) = g(x)^dag U_reg(x, d) g(x + d).  Absent (AttributeError) in regular gauge."""
+        if self.gauge != "singular":
+            raise AttributeError("gauge_twin is offered by the singular-gauge BPST field only")
+
+        def gauge_twin():
+            def transition(x):
+                lam = jnp.asarray(self.size) * jnp.asarray(self.orientation)
+                b = point_to_quaternion(jnp.asarray(self.center))
+                return projection_transition(lam[None, None], b[None, None], 1, x)
+
+            return self.with_gauge("regular"), transition
+
+        return gauge_twin
+
+    def record(self) -> dict:
+        """Field hook: a JSON-ready description that rebuilds the field exactly."""
+        return {
+            "kind": "bpst",
+            "center": np.asarray(self.center, dtype=np.float64).tolist(),
+            "size": float(self.size),
+            "orientation": np.asarray(self.orientation, dtype=np.float64).tolist(),
+            "gauge": self.gauge,
+            "charge": 1,
+            "centres": [np.asarray(self.center, dtype=np.float64).tolist()],
+            "sizes": [float(self.size)],
+            "orientations": [np.asarray(self.orientation, dtype=np.float64).tolist()],
+        }
 
 
 # -- constructors -----------------------------------------------------------------------------------

@@ -102,7 +102,13 @@ class FieldHooks(Protocol):
       a parity image gives back the field it wraps);
       ``wrapped_callable() -> CallableField | None``: the bare user callable at the core of a wrapper
       chain (a :class:`CallableField` returns itself, wrappers ask the field they wrap), so the engine
-      can check its shape and anti-Hermiticity once before compiling.
+      can check its shape and anti-Hermiticity once before compiling;
+      ``gauge_twin() -> (twin, g)``: the same field in another gauge and the transition g(x) -> (N, N)
+      (jax-traceable) with A = g^dag A_twin g + g^dag dg, so links U(x, d) = g(x)^dag U_twin(x, d) g(x + d);
+      g is not finite where this field's gauge is singular (the lattice builds links touching such
+      points in the twin's gauge, :func:`instantonkit.lattice.block_links`);
+      ``record() -> dict``: a JSON-ready description with a 'kind' key from which
+      :func:`instantonkit.references.field_from_record` rebuilds the field (stored in lattice files).
     """
 
     def field_strength(self, x: Any) -> Any: ...
@@ -117,6 +123,8 @@ class FieldHooks(Protocol):
     def describe(self) -> str: ...
     def conjugate(self) -> Any: ...
     def wrapped_callable(self) -> Any: ...
+    def gauge_twin(self) -> tuple[Any, Callable]: ...
+    def record(self) -> dict: ...
 
 
 #: Names of the optional hooks (methods or attributes), documented in :class:`FieldHooks`.
@@ -135,6 +143,8 @@ HOOKS = (
     "describe",
     "conjugate",
     "wrapped_callable",
+    "gauge_twin",
+    "record",
 )
 
 

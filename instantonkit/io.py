@@ -9,8 +9,12 @@ ILDG layout written and read here (the open ILDG/LIME standard, from memory):
 * Records, in one message: ``ildg-format`` (XML: field ``su3gauge``, precision ``64``, ``lx ly lz lt``),
   ``ildg-binary-data`` (big-endian IEEE float64; sites with t slowest, then z, y, x fastest; at each
   site the directions x, y, z, t; each link a 3 x 3 complex matrix, row-major, (re, im) pairs) and
-  optionally ``ildg-data-lfn`` (the logical file name).  instantonkit adds its JSON metadata as a
-  separate message with one record ``instantonkit-metadata``; readers of the standard skip it.
+  optionally ``ildg-data-lfn`` (the logical file name).  instantonkit adds the description of the
+  field (JSON, the field's ``record()`` hook: kind, centres, sizes, orientations, for ADHM data Lambda
+  and B in full precision, gauge, chirality) as a message of its own with one record
+  ``instantonkit-field``, and its JSON metadata (shape, spacing, origin, group, embedding, boundary,
+  quality figures) as another with one record ``instantonkit-metadata``; readers of the standard
+  skip both.  npz files hold the same two JSON strings as the arrays ``field`` and ``metadata``.
 
 Our link arrays are ``(L1, L2, L3, L4, 4, N, N)`` with ``(n1, n2, n3, n4) = (x, y, z, t)``, so the
 binary payload is the array transposed to ``(t, z, y, x, mu, a, b)``.  Writes go to a temporary file
@@ -32,6 +36,7 @@ __all__ = [
     "save_lattice",
     "load_lattice",
     "read_lime_records",
+    "read_description",
     "LIME_MAGIC",
     "LIME_HEADER_BYTES",
 ]
@@ -43,6 +48,7 @@ _MB, _ME = 0x8000, 0x4000
 _TYPE_BYTES = 128
 _NPZ_VERSION = 1
 _META_TYPE = "instantonkit-metadata"
+_FIELD_TYPE = "instantonkit-field"
 _FORMATS = ("npz", "ildg")
 
 
@@ -157,7 +163,7 @@ def _parse_ildg_xml(text: str) -> dict:
     return info
 
 
-def _save_ildg(fh, u, metadata, lfn):
+def _save_ildg(fh, u, metadata, lfn, description=None):
     if u.shape[-1] != 3:
         raise ValueError(
             f"ILDG stores SU(3) links (3 x 3); found {u.shape[-1]} x {u.shape[-1]} (make the start with group='su3')"
@@ -172,6 +178,8 @@ def _save_ildg(fh, u, metadata, lfn):
     fh.write(b"\0" * _pad(nbytes))
     if lfn is not None:
         _write_record(fh, "ildg-data-lfn", str(lfn).encode(), mb=False, me=True)
+    if description is not None:
+        _write_record(fh, _FIELD_TYPE, json.dumps(description, sort_keys=True).encode(), mb=True, me=True)
     if metadata is not None:
         _write_record(fh, _META_TYPE, json.dumps(metadata, sort_keys=True).encode(), mb=True, me=True)
 
@@ -193,11 +201,13 @@ def _load_ildg(path, mmap: bool):
         meta = {"format": "ildg", "ildg": info}
         if "ildg-data-lfn" in types:
             meta["lfn"] = payload(recs[types.index("ildg-data-lfn")]).decode("utf-8", errors="replace")
-        if _META_TYPE in types:
-            try:
-                meta["metadata"] = json.loads(payload(recs[types.index(_META_TYPE)]).decode())
-            except ValueError as err:
-                raise ValueError(f"corrupt {_META_TYPE} record: {err}") from err
+        for rtype, key in ((_META_TYPE, "metadata"), (_FIELD_TYPE, "field")):
+            if rtype in types:
+                try:
+                    meta[key] = json.loads(payload(recs[types.index(rtype)]).decode())
+                except ValueError as err:
+                    raise ValueError(f"corrupt {rtype} record: {err}") from err
+        meta.setdefault("field", None)
     if info["field"] != "su3gauge":
         raise ValueError(f"ILDG field must be 'su3gauge'; found {info['field']!r}")
     if info["precision"] not in (32, 64):
@@ -221,9 +231,10 @@ def _load_ildg(path, mmap: bool):
 # -- npz ----------------------------------------------------------------------------------------------
 
 
-def _save_npz(fh, u, metadata):
+def _save_npz(fh, u, metadata, description=None):
     meta = json.dumps(metadata if metadata is not None else {}, sort_keys=True)
-    np.savez(fh, links=np.asarray(u), metadata=np.array(meta), instantonkit_npz_version=np.array(_NPZ_VERSION))
+    extra = {} if description is None else {"field": np.array(json.dumps(description, sort_keys=True))}
+    np.savez(fh, links=np.asarray(u), metadata=np.array(meta), instantonkit_npz_version=np.array(_NPZ_VERSION), **extra)
 
 
 def _load_npz(path):
@@ -233,6 +244,7 @@ def _load_npz(path):
                 raise ValueError(f"npz lattice file has no 'links' array; found {z.files}")
             links = z["links"]
             meta = json.loads(str(z["metadata"])) if "metadata" in z.files else {}
+            desc = json.loads(str(z["field"])) if "field" in z.files else None
     except (zipfile.BadZipFile, EOFError, OSError, KeyError) as err:
         raise ValueError(f"corrupt or truncated npz lattice file {os.fspath(path)!r}: {type(err).__name__}: {err}") from err
     except ValueError as err:
@@ -240,26 +252,34 @@ def _load_npz(path):
             raise
         raise ValueError(f"corrupt or truncated npz lattice file {os.fspath(path)!r}: {err}") from err
     check_links(links)
-    return links, {"format": "npz", "metadata": meta}
+    return links, {"format": "npz", "metadata": meta, "field": desc}
 
 
 # -- public ---------------------------------------------------------------------------------------------
 
 
-def save_lattice(path, links, format: str = "npz", metadata: dict | None = None, *, lfn: str | None = None) -> None:
-    """Write link variables (L1, L2, L3, L4, 4, N, N) to ``path`` atomically.
+def save_lattice(path, links, format: str = "npz", metadata: dict | None = None, *, lfn: str | None = None,
+                 description: dict | None = None) -> None:
+    """Write link variables (L1, L2, L3, L4, 4, N, N) to ``path`` atomically, with what made them.
 
-    format 'npz': the array (bit-exact) and ``metadata`` (a JSON-serialisable dict, e.g.
-    ``LinkReport.as_metadata()``); 'ildg': SU(3) links as LIME records ildg-format,
-    ildg-binary-data (big-endian float64) and, if given, ildg-data-lfn ``lfn``; ``metadata`` then goes
-    into an extra instantonkit-metadata record.  np.memmap inputs are streamed one time slice at a time.
+    format 'npz': the array (bit-exact), ``metadata`` and ``description`` (JSON strings); 'ildg':
+    SU(3) links as LIME records ildg-format, ildg-binary-data (big-endian float64) and, if given,
+    ildg-data-lfn ``lfn``; ``description`` and ``metadata`` then go into extra instantonkit-field and
+    instantonkit-metadata records (messages of their own).  np.memmap inputs are streamed one time
+    slice at a time.  Pass a lattice start (``lattice.lattice_start(...)``, an object with ``links``
+    and ``report.as_metadata()``) as ``links`` to store its report and field description
+    (the report's 'field' entry, from the field's ``record()`` hook) without naming them.
 
     Args:
       path: file to write (written to a temporary file in the same directory, then renamed).
-      links: (L1, L2, L3, L4, 4, N, N) complex array (numpy or np.memmap); N = 3 for 'ildg'.
+      links: (L1, L2, L3, L4, 4, N, N) complex array (numpy or np.memmap; N = 3 for 'ildg'), or a
+        lattice start with ``.links`` and ``.report``.
       format: 'npz' or 'ildg'.
-      metadata: optional JSON-serialisable dict stored with the links.
+      metadata: optional JSON-serialisable dict stored with the links (default: the start's report).
       lfn: optional logical file name (ILDG only).
+      description: optional JSON-serialisable description of the field (default: ``metadata['field']``
+        when that is a dict, which is then stored only as the description, read back as info['field']); :func:`instantonkit.references.field_from_record`
+        rebuilds the field from it.
     Returns:
       None.
     Raises:
@@ -268,23 +288,33 @@ def save_lattice(path, links, format: str = "npz", metadata: dict | None = None,
     """
     if format not in _FORMATS:
         raise ValueError(f"format must be one of {_FORMATS}; found {format!r}")
+    report = getattr(links, "report", None)
+    if hasattr(links, "links") and hasattr(report, "as_metadata"):  # a lattice start (duck-typed: io sits below lattice)
+        metadata = report.as_metadata() if metadata is None else metadata
+        links = links.links
     u = check_links(links)
-    if metadata is not None:
-        try:
-            json.dumps(metadata)
-        except TypeError as err:
-            raise TypeError(f"metadata must be JSON-serialisable: {err}") from err
+    if isinstance(metadata, dict) and isinstance(metadata.get("field"), dict):  # a field record: stored as the description
+        description = metadata["field"] if description is None else description
+        metadata = {k: v for k, v in metadata.items() if k != "field"}
+    for name, value in (("metadata", metadata), ("description", description)):
+        if value is not None:
+            try:
+                json.dumps(value)
+            except TypeError as err:
+                raise TypeError(f"{name} must be JSON-serialisable: {err}") from err
     if format == "npz":
-        _atomic_write(path, lambda fh: _save_npz(fh, u, metadata))
+        _atomic_write(path, lambda fh: _save_npz(fh, u, metadata, description))
     else:
-        _atomic_write(path, lambda fh: _save_ildg(fh, u, metadata, lfn))
+        _atomic_write(path, lambda fh: _save_ildg(fh, u, metadata, lfn, description))
 
 
 def load_lattice(path, *, mmap: bool = False):
     """Read a lattice file written by :func:`save_lattice` (or any ILDG file); returns (links, info).
 
-    The format is recognised from the first bytes (zip: npz; LIME magic: ILDG).  info holds 'format'
-    and 'metadata' (npz; for ILDG also 'ildg' with the XML fields and 'lfn' when present).  With
+    The format is recognised from the first bytes (zip: npz; LIME magic: ILDG).  info holds 'format',
+    'metadata', 'field' (the field description, None when the file has none; rebuild the field with
+    :func:`instantonkit.references.field_from_record`) and for ILDG also 'ildg' with the XML fields and
+    'lfn' when present.  With
     ``mmap=True`` an ILDG file is returned as a read-only big-endian memory-mapped view (no copy).
 
     Args:
@@ -292,7 +322,7 @@ def load_lattice(path, *, mmap: bool = False):
       mmap: return ILDG links as a read-only memory map instead of reading them.
     Returns:
       (links, info): links (L1, L2, L3, L4, 4, N, N) complex128 (numpy array or memory map) and the
-      dict info ('format', 'metadata', and for ILDG 'ildg' and 'lfn' when present).
+      dict info ('format', 'metadata', 'field', and for ILDG 'ildg' and 'lfn' when present).
     Raises:
       ValueError: a file that is neither format, truncated or corrupt.
     """
@@ -304,3 +334,28 @@ def load_lattice(path, *, mmap: bool = False):
     if len(head) == 4 and struct.unpack(">I", head)[0] == LIME_MAGIC:
         return _load_ildg(path, mmap)
     raise ValueError(f"{path!r} is neither an npz nor a LIME/ILDG lattice file (first bytes {head!r})")
+
+
+def read_description(path) -> dict:
+    """The field description and metadata of a lattice file without reading the links: {'field', 'metadata', 'format'}.
+
+    Args:
+      path: an npz or LIME/ILDG file written by :func:`save_lattice`.
+    Returns:
+      dict with 'format', 'metadata' (dict, empty when absent) and 'field' (dict or None).
+    Raises:
+      ValueError: a file that is neither format, truncated or corrupt.
+    """
+    path = os.fspath(path)
+    with open(path, "rb") as fh:
+        head = fh.read(4)
+    if head[:2] == b"PK":
+        try:
+            with np.load(path, allow_pickle=False) as z:
+                meta = json.loads(str(z["metadata"])) if "metadata" in z.files else {}
+                desc = json.loads(str(z["field"])) if "field" in z.files else None
+        except (zipfile.BadZipFile, EOFError, OSError, KeyError, ValueError) as err:
+            raise ValueError(f"corrupt or truncated npz lattice file {path!r}: {type(err).__name__}: {err}") from err
+        return {"format": "npz", "metadata": meta, "field": desc}
+    _, info = load_lattice(path, mmap=True)
+    return {"format": "ildg", "metadata": info.get("metadata", {}), "field": info.get("field")}

@@ -25,6 +25,22 @@ Results and reports: :func:`lattice_links` always returns the links; :func:`latt
 frozen :class:`LatticeStart` (``.links`` and ``.report``, a :class:`LinkReport`).  The old
 ``lattice_links(..., return_report=True)`` still returns ``(links, report)`` with a DeprecationWarning.
 
+Boundaries (issue 14): 'periodic' wraps the field's own links (the jump of A across the faces is
+measured for every periodic start, :func:`boundary_mismatch`, and a :class:`BoundaryActionWarning`
+names the remedies when it exceeds BOUNDARY_WARN_FRACTION = 1 % of 8 pi^2); 'window' puts the field
+times a smooth window on the torus (:mod:`instantonkit.periodic`: no mismatch, the same sector, a
+small action excess); 'open' uses exact links everywhere.  :func:`continuum_reference` gives the
+matched continuum figures (the action of the field put on the lattice, in the same box, and the
+expected Wilson action with the artefact :func:`wilson_artefact`).
+
+Singular points on sites or links: fields with the ``gauge_twin`` hook (singular-gauge ADHM data and
+BPST) have the links that touch a singular point built in the twin's regular gauge and transformed
+back at every other site (:func:`_slice_links`), so every plaquette is right.
+
+Files: a start's report carries the field's ``record()`` (``LinkReport.field``); ``io.save_lattice(path,
+start)`` stores it, :func:`field_from_record` / :func:`field_from_file` rebuild the field and
+:func:`regenerate` the start.
+
 Chunked starts belong to the distributed layer: ``instantonkit.cluster.lattice_links`` /
 ``cluster.lattice_start``.  This module never imports it; the old ``lattice_links(..., backend="dask")``
 still works (DeprecationWarning) through the executor that ``instantonkit.cluster`` registers with
@@ -60,15 +76,18 @@ from .observables import (  # noqa: F401  (re-exported: the lattice namespace of
     random_gauge,
     wilson_action,
 )
+from .periodic import DEFAULT_WINDOW_WIDTH, window_field
 from .transport import (  # noqa: F401  (re-exported: the transporters and link figures belong to the lattice namespace too)
     LINK_CHUNK,
     LinkStats,
     bpst_link,
+    chunk_size,
     embed_links,
     finish_batched,
     link_batch,
     parallel_transporter,
     project_special_unitary,
+    site_links,
     transporters,
     unitarity_deviation,
 )
@@ -91,11 +110,24 @@ __all__ = [
     "resolve_origin",
     "boundary_mismatch",
     "unitarity_deviation",
+    "BoundaryActionWarning",
+    "BOUNDARY_WARN_FRACTION",
+    "START_BOUNDARIES",
 ] + _obs.__all__
 
 _GROUPS = ("su2", "su3", None)
 _METHODS = ("auto", "closed", "magnus")
 _BACKENDS = ("local", "dask")
+#: Boundaries of a start: 'periodic' (the field's links wrapped as they are), 'window' (the field
+#: windowed onto the torus, :mod:`instantonkit.periodic`; periodic links) and 'open'.
+START_BOUNDARIES = ("periodic", "window", "open")
+#: Boundary action (as a fraction of 8 pi^2) above which a periodic start raises BoundaryActionWarning.
+BOUNDARY_WARN_FRACTION = 0.01
+_EIGHT_PI2 = 8.0 * np.pi**2
+
+
+class BoundaryActionWarning(UserWarning):
+    """A periodic start whose wrapped links carry more boundary action than BOUNDARY_WARN_FRACTION of 8 pi^2."""
 
 
 # -- lattice geometry -----------------------------------------------------------------------------------
@@ -140,7 +172,11 @@ class LinkReport:
     closed form); refinement_diff: largest accepted difference between two refinements;
     unitarity_before / unitarity_after: :func:`unitarity_deviation` before and after the final
     projection; boundary_link_mismatch / boundary_action_error: see :func:`boundary_mismatch`
-    (None for open boundaries); seconds: wall time.
+    (None for open boundaries); seconds: wall time; boundary_action_fraction: boundary_action_error
+    / 8 pi^2 (None for open boundaries; above BOUNDARY_WARN_FRACTION a BoundaryActionWarning is
+    raised); window: the layer width of boundary='window' (fraction of the half-box), else None;
+    field: the field's ``record()`` (JSON-ready, rebuilt by :func:`field_from_record`; None when the
+    field has no record hook).
     """
 
     shape: tuple
@@ -158,19 +194,18 @@ class LinkReport:
     boundary_link_mismatch: float | None
     boundary_action_error: float | None
     seconds: float
+    boundary_action_fraction: float | None = None
+    window: float | None = None
+    field: dict | None = None
 
     def as_metadata(self) -> dict:
         """A JSON-ready dict of the generation parameters and quality figures."""
         return {k: (list(v) if isinstance(v, tuple) else v) for k, v in dataclasses.asdict(self).items()}
 
 
-def _slice_links(field, sites_t, a, method, rtol, batch=None):
-    """Links of one set of sites (S, 4) in the four directions: ((S, 4, N, N) unprojected, LinkStats)."""
-    s = sites_t.shape[0]
-    xs = np.repeat(sites_t, 4, axis=0)
-    ds = np.tile(a * np.eye(4), (s, 1))
-    u, stats = transporters(field, xs, ds, method, rtol, batch)
-    return u.reshape(s, 4, u.shape[-2], u.shape[-1]), stats
+def _record_of(field):
+    rec = hook(field, "record")
+    return None if rec is None else rec()
 
 
 @dataclasses.dataclass(frozen=True)
@@ -197,15 +232,17 @@ class StartSpec:
     method: str
     n_field: int
     n_out: int
+    window: float | None = None
 
     @classmethod
-    def make(cls, field, shape, spacing, *, origin=None, group="su2", embedding=(0, 1), boundary="periodic", rtol=1e-12, method="auto"):
+    def make(cls, field, shape, spacing, *, origin=None, group="su2", embedding=(0, 1), boundary="periodic", rtol=1e-12, method="auto",
+             window=DEFAULT_WINDOW_WIDTH):
         field = as_field(field)
         shape = _v.lattice_shape("shape", shape)
         a = _v.positive_float("spacing", spacing)
         if group not in _GROUPS:
             raise ValueError(f"group must be one of {_GROUPS}; found {group!r}")
-        _v.choice("boundary", boundary, BOUNDARIES)
+        _v.choice("boundary", boundary, START_BOUNDARIES)
         _v.choice("method", method, _METHODS)
         rtol = _v.positive_float("rtol", rtol)
         n_field = jax.eval_shape(field.potential, jax.ShapeDtypeStruct((4,), jnp.float64)).shape[-1]
@@ -222,7 +259,11 @@ class StartSpec:
             raise ValueError(f"embedding must be two distinct indices in 0..2; found {embedding!r}")
         n_out = 3 if group == "su3" else n_field
         org = resolve_origin(field, shape, a, origin)
-        return cls(field, shape, a, org, group, emb, boundary, float(rtol), method, int(n_field), int(n_out))
+        width = None
+        if boundary == "window":
+            width = _v.positive_float("window", window)
+            field = window_field(field, shape, a, org, width=width)
+        return cls(field, shape, a, org, group, emb, boundary, float(rtol), method, int(n_field), int(n_out), width)
 
     @property
     def links_shape(self) -> tuple:
@@ -238,7 +279,7 @@ class StartSpec:
 
     def boundary_figures(self, links):
         """(link_mismatch, action_error) of :func:`boundary_mismatch` for periodic starts, (None, None) for open ones."""
-        if self.boundary != "periodic":
+        if self.boundary == "open":
             return None, None
         bm = boundary_mismatch(
             self.field, links, self.spacing, origin=self.origin, group=self.group, embedding=self.embedding, rtol=self.rtol, method=self.method
@@ -263,7 +304,26 @@ class StartSpec:
             boundary_link_mismatch=mismatch,
             boundary_action_error=action_err,
             seconds=float(seconds),
+            boundary_action_fraction=None if action_err is None else float(action_err) / _EIGHT_PI2,
+            window=self.window,
+            field=_record_of(self.field),
         )
+
+
+def warn_boundary(report: LinkReport, stacklevel: int = 3) -> None:
+    """Raise :class:`BoundaryActionWarning` when a periodic start's boundary action exceeds BOUNDARY_WARN_FRACTION of 8 pi^2."""
+    frac = report.boundary_action_fraction
+    if frac is None or abs(frac) <= BOUNDARY_WARN_FRACTION:
+        return
+    warnings.warn(
+        f"the wrapped links of this periodic start carry a boundary action of {frac:.3g} x 8 pi^2 "
+        f"(more than {BOUNDARY_WARN_FRACTION:g}; link mismatch {report.boundary_link_mismatch:.3g}): the field does not fit "
+        "the torus. Remedies: boundary='window' (the field windowed smoothly onto the torus, same sector, "
+        "small computed action excess, see instantonkit.periodic), a larger box, a field in singular gauge "
+        "(regular-gauge fields do not decay), or boundary='open'; compare with lattice.continuum_reference",
+        BoundaryActionWarning,
+        stacklevel=stacklevel,
+    )
 
 
 def block_links(field, lo, hi, origin, spacing, *, n_field, group, embedding, method, rtol, batch):
@@ -281,7 +341,7 @@ def block_links(field, lo, hi, origin, spacing, *, n_field, group, embedding, me
     grids = np.meshgrid(*[np.arange(l, h, dtype=np.float64) for l, h in zip(lo, hi)], indexing="ij")
     n = np.stack(grids, axis=-1).reshape(-1, 4)
     sites = np.asarray(origin, dtype=np.float64) + spacing * n
-    u, stats = _slice_links(field, sites, spacing, method, rtol, batch)
+    u, stats = site_links(field, sites, spacing, method, rtol, batch, n_field)
     u, dev0, dev1 = finish_batched(u.reshape(-1, n_field, n_field), batch)
     n_out = n_field
     if group == "su3":
@@ -353,8 +413,14 @@ _START_DOC_ARGS = """
       group: 'su2' (N = 2), 'su3' (the SU(2) links embedded in the ``embedding`` = (i, j) rows and
         columns of 3 x 3 identity matrices) or None (the field's own N, e.g. Sp(n)).
       boundary: 'periodic' (the link from the last site points to site 0; use a field that decays
-        fast, e.g. singular gauge; the mismatch is measured, see :func:`boundary_mismatch`) or 'open'
-        (every link is the exact transporter to x + a mu_hat; observables then use only plaquettes inside).
+        fast, e.g. singular gauge; the mismatch is always measured, see :func:`boundary_mismatch`, and
+        a :class:`BoundaryActionWarning` is raised when the boundary action exceeds
+        BOUNDARY_WARN_FRACTION = 1 % of 8 pi^2), 'window' (the field times a smooth window that takes
+        A to zero near the faces, :mod:`instantonkit.periodic`: smooth on the torus, same sector,
+        no boundary mismatch, a small action excess given by :func:`continuum_reference`; Magnus
+        links) or 'open' (every link is the exact transporter to x + a mu_hat; observables then use
+        only plaquettes inside).
+      window: layer width of boundary='window' as a fraction of each half-box (default 0.5).
       rtol: refinement target of the Magnus quadrature (unused by closed forms).
       method: 'auto', 'closed' or 'magnus' (see :func:`parallel_transporter`).
       out: optional preallocated array or np.memmap of shape (L1, L2, L3, L4, 4, N, N), complex128,
@@ -364,7 +430,8 @@ _START_DOC_ARGS = """
 
 
 def lattice_start(field, shape, spacing, *, origin=None, group: str | None = "su2", embedding=(0, 1), boundary: str = "periodic",
-                  rtol: float = 1e-12, method: str = "auto", out=None, progress: Callable[[int, int], None] | None = None) -> LatticeStart:
+                  rtol: float = 1e-12, method: str = "auto", out=None, progress: Callable[[int, int], None] | None = None,
+                  window: float = DEFAULT_WINDOW_WIDTH) -> LatticeStart:
     """A lattice start with its quality report: :class:`LatticeStart` (``.links``, ``.report``).
     {args}
     Returns:
@@ -374,8 +441,17 @@ def lattice_start(field, shape, spacing, *, origin=None, group: str | None = "su
       ValueError / TypeError: a bad argument (naming it and the value found); a link through a
         singular point; Magnus steps not converging.
     """
+    res = _run_start(field, shape, spacing, origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method,
+                     out=out, progress=progress, window=window)
+    warn_boundary(res.report, stacklevel=3)
+    return res
+
+
+def _run_start(field, shape, spacing, *, origin, group, embedding, boundary, rtol, method, out, progress, window) -> LatticeStart:
+    """The local start with its report (periodic boundary figures always measured); no warning."""
     t_start = time.perf_counter()
-    spec = StartSpec.make(field, shape, spacing, origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method)
+    spec = StartSpec.make(field, shape, spacing, origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method,
+                          window=window)
     links, stats = _local_start(spec, out, progress)
     mismatch, action_err = spec.boundary_figures(links)
     return LatticeStart(links, spec.report(stats, time.perf_counter() - t_start, mismatch, action_err))
@@ -404,6 +480,7 @@ def lattice_links(
     store=None,
     client=None,
     overwrite: bool = False,
+    window: float = DEFAULT_WINDOW_WIDTH,
 ):
     """Link variables of ``field`` on an L1 x L2 x L3 x L4 lattice; (L1, L2, L3, L4, 4, N, N) complex128.
     {args}
@@ -429,7 +506,8 @@ def lattice_links(
     if backend != "local":
         if out is not None:
             raise ValueError("out= is for the local backend; the dask backend writes to store= (a Zarr path) or returns a dask array")
-        spec = StartSpec.make(field, shape, spacing, origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method)
+        spec = StartSpec.make(field, shape, spacing, origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method,
+                              window=window)
         warnings.warn(
             f"lattice_links(..., backend={backend!r}) is deprecated; use instantonkit.cluster.lattice_links(...) "
             "(or cluster.lattice_start(...) for the report)",
@@ -442,12 +520,13 @@ def lattice_links(
         return executor(spec, chunks=chunks, store=store, client=client, overwrite=overwrite, progress=progress, return_report=return_report)
     if chunks is not None or store is not None or client is not None:
         raise ValueError("chunks=, store= and client= need backend='dask'")
-    kw = dict(origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method, out=out, progress=progress)
+    kw = dict(origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method, out=out, progress=progress,
+              window=window)
+    res = _run_start(field, shape, spacing, **kw)  # the periodic boundary figures are always measured (and warned about)
+    warn_boundary(res.report, stacklevel=3)
     if return_report:
-        res = lattice_start(field, shape, spacing, **kw)
         return res.links, res.report
-    spec = StartSpec.make(field, shape, spacing, origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method)
-    return _local_start(spec, out, progress)[0]
+    return res.links
 
 
 if lattice_links.__doc__:

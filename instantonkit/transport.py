@@ -175,7 +175,7 @@ class LinkStats:
         )
 
 
-def _magnus_refined(field, xs, ds, rtol, batch=None):
+def _magnus_refined(field, xs, ds, rtol, batch=None, allow_bad=False):
     """Magnus transporters refined by halving the step until two refinements differ by <= rtol; (out, LinkStats)."""
     kern = _magnus_kernel()
     steps = 1
@@ -194,6 +194,11 @@ def _magnus_refined(field, xs, ds, rtol, batch=None):
                 "the field may be singular near those links"
             )
         cur = _chunked(kern, field, xs[todo], ds[todo], steps, size=size)
+        if allow_bad:  # links through a singular point: NaN rows for the caller to rebuild in another gauge
+            nan_rows = ~np.all(np.isfinite(cur), axis=(-2, -1))
+            if np.any(nan_rows):
+                out[todo[nan_rows]] = np.nan
+                todo, prev, cur = todo[~nan_rows], prev[~nan_rows], cur[~nan_rows]
         diff = np.max(np.abs(cur - prev), axis=(-2, -1))
         diff = np.where(np.isfinite(diff), diff, np.inf)
         done = diff <= rtol
@@ -211,22 +216,25 @@ def _magnus_refined(field, xs, ds, rtol, batch=None):
     return out, LinkStats(method="magnus", max_steps=max_steps, refinement_diff=diff_max)
 
 
-def transporters(field, xs, ds, method: str, rtol: float, batch: int | None):
-    """Validated (M, 4) starts and steps -> ((M, N, N) transporters, LinkStats); the one link path."""
+def transporters(field, xs, ds, method: str, rtol: float, batch: int | None, allow_bad: bool = False):
+    """Validated (M, 4) starts and steps -> ((M, N, N) transporters, LinkStats); the one link path.
+
+    allow_bad: links through a singular point come back as NaN rows instead of raising ValueError.
+    """
     closed = hook(field, "closed_link") if method != "magnus" else None
     if method == "closed" and closed is None:
         raise ValueError(f"the field {type(field).__name__} has no closed-form link (no closed_link(x, d) hook)")
     if closed is not None:
         out = _chunked(_closed_kernel(), field, xs, ds, size=batch)
         bad = ~np.all(np.isfinite(out), axis=(-2, -1))
-        if np.any(bad):
+        if np.any(bad) and not allow_bad:
             i = int(np.argmax(bad))
             raise ValueError(
                 f"the closed-form link is not finite on {int(bad.sum())} link(s) (first start {xs[i].tolist()}, "
                 f"step {ds[i].tolist()}); the segment passes through a singular point of the field"
             )
         return out, LinkStats(method="closed")
-    return _magnus_refined(field, xs, ds, rtol, batch)
+    return _magnus_refined(field, xs, ds, rtol, batch, allow_bad)
 
 
 def parallel_transporter(
@@ -368,4 +376,84 @@ def link_batch(shape) -> int:
     """Links per compiled kernel call for a start of ``shape``: fixed by the time-slice size, so the
     local path (one slice at a time) and any chunking of the same start run the same compiled code."""
     return chunk_size(4 * shape[0] * shape[1] * shape[2])
+
+
+# -- links of lattice sites, singular points handled in a twin gauge ------------------------------------
+
+
+def _near_centres(field, pts, a):
+    """Points (M, 4) within scale / 2 + a of a centre of the field's layout (all points without a layout hook).
+
+    The singular points of a singular gauge sit at the instanton centres (k = 1) or close to them
+    (k > 1), so the transition g of the gauge_twin hook is evaluated only there.
+    """
+    lay = hook(field, "layout")
+    if lay is None:
+        return np.ones(pts.shape[0], dtype=bool)
+    centres, scales = lay()
+    centres = np.asarray(centres, dtype=np.float64).reshape(-1, 4)
+    radius = 0.5 * np.asarray(scales, dtype=np.float64).reshape(-1) + a
+    d2 = np.sum((pts[:, None, :] - centres[None]) ** 2, axis=-1)
+    return np.any(d2 <= radius[None] ** 2, axis=1)
+
+
+#: Points per compiled call of the gauge_twin transition (few points per block: those near a centre).
+_TRANSITION_BATCH = 256
+
+
+@functools.cache
+def _transition_kernel():
+    """g(x) of the field's ``gauge_twin`` hook, vmapped over points (one compile per field structure)."""
+    return jax.jit(jax.vmap(lambda f, x: f.gauge_twin()[1](x), in_axes=(None, 0)))
+
+
+def site_links(field, sites_t, a, method, rtol, batch=None, n_field=None):
+    """Links of one set of sites (S, 4) in the four directions: ((S, 4, N, N) unprojected, LinkStats).
+
+    The package-internal seam of :mod:`instantonkit.lattice` (``block_links``).
+
+    Singular points on sites or links: when the field has the ``gauge_twin`` hook (twin, g), g is
+    evaluated at both ends of every link near a centre (:func:`_near_centres`); a link that starts or ends at a site where g is not finite
+    (a singular point of the field's gauge), or whose transporter is not finite (a singular point
+    on the link), is computed in the twin's gauge and transformed back, U = G(x)^dag U_twin G(x + d),
+    with G = g except G = 1 at the singular sites (the transformation there is free).  So the links
+    are a lattice gauge transform of the twin's: every plaquette is correct.
+    """
+    s = sites_t.shape[0]
+    xs = np.repeat(sites_t, 4, axis=0)
+    ds = np.tile(a * np.eye(4), (s, 1))
+    twin_hook = hook(field, "gauge_twin")
+    if twin_hook is None:
+        u, stats = transporters(field, xs, ds, method, rtol, batch)
+        return u.reshape(s, 4, u.shape[-2], u.shape[-1]), stats
+    size = _TRANSITION_BATCH  # one compiled size whatever the block: the bits do not depend on the chunking
+    ends = xs + ds
+    near0, near1 = _near_centres(field, xs, a), _near_centres(field, ends, a)
+    sing0, sing1 = np.zeros(xs.shape[0], dtype=bool), np.zeros(xs.shape[0], dtype=bool)
+    for near, sing, pts in ((near0, sing0, xs), (near1, sing1, ends)):
+        idx = np.flatnonzero(near)
+        if idx.size:
+            g = run_batched(_transition_kernel(), [pts[idx]], size, args_before=(field,))
+            sing[idx] = ~np.all(np.isfinite(g), axis=(-2, -1))
+    touch = sing0 | sing1
+    n = n_field if n_field is not None else jax.eval_shape(field.potential, jax.ShapeDtypeStruct((4,), jnp.float64)).shape[-1]
+    u = np.full((xs.shape[0], n, n), np.nan, dtype=np.complex128)
+    stats = LinkStats()
+    keep = np.flatnonzero(~touch)
+    if keep.size:
+        uk, stats = transporters(field, xs[keep], ds[keep], method, rtol, batch, allow_bad=True)
+        u[keep] = uk
+    redo = np.flatnonzero(~np.all(np.isfinite(u), axis=(-2, -1)))
+    if redo.size:
+        twin = twin_hook()[0]
+        ut, st = transporters(twin, xs[redo], ds[redo], method, rtol, batch)
+        eye = np.eye(n)
+        ga = run_batched(_transition_kernel(), [xs[redo]], size, args_before=(field,))
+        gb = run_batched(_transition_kernel(), [ends[redo]], size, args_before=(field,))
+        ga = np.where(np.all(np.isfinite(ga), axis=(-2, -1))[:, None, None], ga, eye)
+        gb = np.where(np.all(np.isfinite(gb), axis=(-2, -1))[:, None, None], gb, eye)
+        u[redo] = np.conj(np.swapaxes(ga, -1, -2)) @ ut @ gb
+        stats = stats.merge(st)
+    return u.reshape(s, 4, u.shape[-2], u.shape[-1]), stats
+
 

@@ -8,6 +8,7 @@ import pytest
 
 from instantonkit import io as lio
 from instantonkit import lattice as lat
+from instantonkit import references
 
 
 def _su3_links(shape, seed=0):
@@ -140,3 +141,54 @@ def test_bad_save_arguments(tmp_path, args, exc, match):
     fmt = "hdf5" if match == "format must be" else "npz"
     with pytest.raises(exc, match=match):
         lio.save_lattice(tmp_path / "h", *args, format=fmt)
+
+
+# -- files that say what they hold ------------------------------------------------------------------------
+
+
+@pytest.fixture(scope="module")
+def charge_two_start():
+    import instantonkit as ik
+
+    data = ik.multi_instanton(centers=[[-1.0, 0, 0, 0], [1.0, 0.5, 0, 0]], sizes=[0.9, 1.1])
+    return data, lat.lattice_start(data, (4,) * 4, 0.5, group="su3", boundary="open", rtol=1e-6)
+
+
+@pytest.mark.parametrize("fmt", ["npz", "ildg"])
+def test_charge_two_start_rebuilds_the_same_adhm_data_from_the_file_alone(tmp_path, charge_two_start, fmt):
+    # JSON keeps float64 exactly (Python's repr round trip, common practice), so Lambda and B come back
+    # bit for bit; the description sits in a record of its own and the ILDG records stay standard
+    data, st = charge_two_start
+    path = tmp_path / f"c2.{fmt}"
+    lio.save_lattice(path, st, format=fmt)
+    desc = lio.read_description(path)
+    assert desc["field"]["kind"] == "adhm" and desc["field"]["gauge"] == "singular" and desc["field"]["chirality"] == 1
+    assert desc["field"]["group"] == "SU(2)" and desc["metadata"]["group"] == "su3" and desc["metadata"]["embedding"] == [0, 1]
+    assert np.allclose(desc["field"]["centres"], data.centers()) and np.allclose(desc["field"]["sizes"], data.sizes())
+    back = references.field_from_file(path)
+    assert np.array_equal(np.asarray(back.lam), np.asarray(data.lam)) and np.array_equal(np.asarray(back.B), np.asarray(data.B))
+    assert back.gauge == data.gauge and back.chirality == data.chirality
+    links, info = lio.load_lattice(path)
+    assert info["field"] == desc["field"] and "field" not in info["metadata"]
+    assert np.array_equal(links, st.links)
+    assert np.array_equal(references.regenerate(path).links, st.links)  # the file regenerates its start
+    if fmt == "ildg":
+        types = [r["type"] for r in lio.read_lime_records(path)]
+        assert types[:2] == ["ildg-format", "ildg-binary-data"] and "instantonkit-field" in types
+
+
+def test_bpst_field_and_window_records_rebuild_the_field():
+    import instantonkit as ik
+
+    f = ik.bpst_field(center=(0.1, 0.2, 0.3, 0.4), size=0.7, gauge="singular", orientation=(0.6, 0.8, 0.0, 0.0))
+    st = lat.lattice_start(f, (4,) * 4, 0.5, boundary="window", rtol=1e-6)
+    back = references.field_from_record(st.report.field)
+    x = np.array([0.3, -0.2, 0.5, 0.1])
+    from instantonkit import periodic
+
+    windowed = periodic.window_field(f, (4,) * 4, 0.5, lat.default_origin(f, (4,) * 4, 0.5))
+    assert np.array_equal(np.asarray(back.potential(x)), np.asarray(windowed.potential(x)))
+    inner = references.field_from_record(st.report.field, window=False)
+    assert np.array_equal(np.asarray(inner.potential(x)), np.asarray(f.potential(x)))
+    with pytest.raises(ValueError, match="kind must be one of"):
+        references.field_from_record({"kind": "nothing"})
