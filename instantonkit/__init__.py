@@ -6,6 +6,14 @@ starts.  Conventions: :mod:`instantonkit.conventions` and docs/conventions.md.
 from . import _config  # noqa: F401  (float64 before anything is traced)
 from . import conventions, quaternion
 from .adhm import ADHMData, block_sum, bpst, embed_sp, multi_instanton, random_adhm
+from . import unitary_adhm
+from .unitary_adhm import (
+    UnitaryADHMData,
+    embed_unitary,
+    from_quaternionic,
+    random_unitary_adhm,
+    unitary_multi_instanton,
+)
 from .ansatz import anti, bpst_field, caloron, jnr, thooft
 from .transforms import dilate, gauge_transform, parity, rotate, translate
 from .zero_modes import zero_mode_density, zero_mode_overlap, zero_modes
@@ -93,4 +101,10 @@ __all__ = [
     "Verification",
     "DivergentIntegralError",
     "FieldEvaluationError",
+    "unitary_adhm",
+    "UnitaryADHMData",
+    "unitary_multi_instanton",
+    "random_unitary_adhm",
+    "from_quaternionic",
+    "embed_unitary",
 ]
