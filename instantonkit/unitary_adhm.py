@@ -291,7 +291,7 @@ class UnitaryADHMData(PytreeFields):
                                lead + (self.rank, 2 * self.k))
         return jnp.concatenate([top, mid, bot], axis=-2)
 
-    def gram_inverse(self, x):
+    def gram(self, x):
         """f^-1 = (B1 - z1)(B1 - z1)^dag + (B2 - z2)(B2 - z2)^dag + I I^dag, (k, k), at one point (4,); jax-traceable."""
         z1, z2 = complex_coordinates(x)
         eye = jnp.eye(self.k)
@@ -302,10 +302,10 @@ class UnitaryADHMData(PytreeFields):
 
     def log_det(self, x):
         """Field hook: log det f^-1 at one point (4,) -> () (so s = -1/2 box box log_det, Osborn)."""
-        return jnp.linalg.slogdet(self.gram_inverse(x))[1]
+        return jnp.linalg.slogdet(self.gram(x))[1]
 
     def _f(self, x):
-        finv = self.gram_inverse(x)
+        finv = self.gram(x)
         if self.k == 1:
             return 1.0 / finv
         return jnp.linalg.inv(finv)
@@ -480,7 +480,12 @@ def _jacobian(vec: np.ndarray, k: int, n: int) -> np.ndarray:
 
 
 def constraint_jacobian(data: UnitaryADHMData) -> np.ndarray:
-    """(3k^2, 4k^2 + 4kN) real Jacobian of the moment maps at the data (package-internal)."""
+    """(3k^2, 4k^2 + 4kN) real Jacobian of the moment maps at the data (package-internal seam).
+
+    Rows: Re mu_R (upper triangle with the diagonal, row-major), Im mu_R (strict upper triangle),
+    Re mu_C, Im mu_C (row-major).  Columns: the entries of B1, B2, I, J (each row-major, in that
+    order), each entry as its real then imaginary part.
+    """
     return _jacobian(_pack(data.B1, data.B2, data.I, data.J), data.k, data.rank)
 
 
@@ -535,8 +540,8 @@ def unitary_multi_instanton(centers, sizes, orientations=None, *, rank: int = 3,
     rank = positive_int("rank", rank)
     if rank < 2:
         raise ValueError(f"rank must be >= 2; found {rank}")
-    c = real_array("centers", np.atleast_2d(np.asarray(centers, dtype=float)) if np.ndim(centers) == 1 else centers,
-                   (None, 4), shape_text="(k, 4)")
+    c = np.asarray(centers)
+    c = real_array("centers", c[None] if c.ndim == 1 else c, (None, 4), shape_text="(k, 4)")
     k = c.shape[0]
     if k < 1:
         raise ValueError("centers must hold at least one point; found 0")

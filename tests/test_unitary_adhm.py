@@ -17,7 +17,7 @@ from hypothesis import strategies as st
 
 import instantonkit as ik
 from instantonkit import unitary_adhm as ua
-from instantonkit.adhm import _real_gram
+from instantonkit import quaternion as qt
 from instantonkit.testing import unitary_adhm_data
 
 N_POINTS = 16
@@ -82,7 +82,7 @@ def test_delta_gram_blocks_are_the_moment_maps():
     x = rng.normal(size=4)
     d = np.asarray(raw.delta(x))
     g = d.conj().T @ d
-    finv = np.asarray(raw.gram_inverse(x))
+    finv = np.asarray(raw.gram(x))
     np.testing.assert_allclose(g[:k, :k], finv, atol=1e-12)
     np.testing.assert_allclose(g[:k, k:], mc, atol=1e-12)
     np.testing.assert_allclose(g[k:, k:], finv - mr, atol=1e-12)
@@ -94,7 +94,7 @@ def test_delta_gram_is_block_diagonal_for_valid_data(k):
     x = points_near(data, 2)
     d = np.asarray(data.delta(x))  # (M, 2k + N, 2k)
     g = np.einsum("pji,pjl->pil", d.conj(), d)
-    finv = np.stack([np.asarray(data.gram_inverse(p)) for p in x])
+    finv = np.stack([np.asarray(data.gram(p)) for p in x])
     want = np.einsum("ab,pij->paibj", np.eye(2), finv).reshape(g.shape)
     assert rel_err(g, want) < 1e-13
 
@@ -109,8 +109,9 @@ def test_quaternionic_data_give_the_same_field(k):
     assert c.rank == 2 and c.k == k and c.constraint_residual() < 1e-12
     x = points_near(q, 3)
     # f^-1 is the real Gram matrix of the quaternionic Delta (derived in from_quaternionic)
-    grams = np.stack([np.asarray(_real_gram(jnp.asarray(q.lam), q.b_minus_p(p))) for p in x])
-    finv = np.stack([np.asarray(c.gram_inverse(p)) for p in x])
+    dq = q.delta(x)  # (M, 1 + k, k, 4) quaternionic
+    grams = np.asarray(qt.qmat_mul(qt.qmat_dagger(dq), dq))[..., 0]
+    finv = np.stack([np.asarray(c.gram(p)) for p in x])
     assert rel_err(finv, grams) < 1e-13
     for quantity in ("action_density", "charge_density"):
         assert rel_err(ik.fields.evaluate(c, x, quantity), ik.fields.evaluate(q, x, quantity)) < 1e-12
@@ -204,7 +205,8 @@ def test_moduli_count_is_4kN(k, n):
                     x[p, r], x[r, p] = ((1, -1) if herm else (1j, 1j))
                 else:
                     continue
-                vecs.append(ua._pack(x @ b1 - b1 @ x, x @ b2 - b2 @ x, x @ i, -j @ x))
+                c = np.concatenate([np.ravel(m) for m in (x @ b1 - b1 @ x, x @ b2 - b2 @ x, x @ i, -j @ x)])
+                vecs.append(np.stack([c.real, c.imag], axis=1).ravel())  # column order of constraint_jacobian
     orbit = np.stack(vecs, axis=1)
     assert orbit.shape[1] == k * k
     orbit_dim = np.linalg.matrix_rank(orbit, tol=1e-9 * np.max(np.abs(orbit)))
@@ -337,7 +339,8 @@ def test_validation_messages():
     with pytest.raises(ValueError, match="finite"):
         ua.UnitaryADHMData(b1 * np.nan, b2, i, j)
     with pytest.raises(ValueError, match=r"complex moment map .* max \|entry\| = "):
-        ua.UnitaryADHMData(b1, b2, i, j + 0.1 * i.conj().T * 1j)
+        # same |J| (mu_R still 0) but I J != 0
+        ua.UnitaryADHMData(b1, b2, i, np.linalg.norm(j) * i.T / np.linalg.norm(i))
     with pytest.raises(ValueError, match="real moment map"):
         ua.UnitaryADHMData(b1, b2, 2 * i, j)
     with pytest.raises(ValueError, match="gauge"):
