@@ -10,6 +10,9 @@ from .adhm import ADHMData
 from .moduli import block_sum, bpst, embed_sp, multi_instanton, random_adhm
 from .ansatz import bpst_field, caloron, jnr, thooft
 from .transforms import anti, dilate, gauge_transform, parity, rotate, translate
+from . import unitary_adhm, unitary_moduli
+from .unitary_adhm import UnitaryADHMData
+from .unitary_moduli import embed_unitary, from_quaternionic, random_unitary_adhm, unitary_multi_instanton
 from .zero_modes import zero_mode_density, zero_mode_overlap, zero_modes
 from .finder import InstantonFit, find_instantons
 from .checks import (
@@ -108,4 +111,11 @@ __all__ = [
     "cool",
     "improved_action",
     "improved_charge",
+    "unitary_adhm",
+    "unitary_moduli",
+    "UnitaryADHMData",
+    "unitary_multi_instanton",
+    "random_unitary_adhm",
+    "from_quaternionic",
+    "embed_unitary",
 ]

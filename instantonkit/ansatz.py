@@ -578,8 +578,7 @@ def caloron(size, period, center=(0.0, 0.0, 0.0, 0.0)) -> CaloronField:
     Returns:
       CaloronField, a field of N = 2 with closed forms, periodic in x4.
     Raises:
-      ValueError for rho or beta <= 0 or not finite, or a centre not of shape (4,);
-      TypeError for non-real (or boolean) values.
+      ValueError for rho or beta <= 0 or not finite, or a centre not of shape (4,); TypeError for non-real values.
     """
     return CaloronField(size, period, center)
 
@@ -595,7 +594,6 @@ def bpst_field(center=(0.0, 0.0, 0.0, 0.0), size=1.0, gauge: str = "regular", or
     Returns:
       BPSTField, a field of N = 2 with closed forms; charge +1.
     Raises:
-      ValueError for a bad centre, rho <= 0, an unknown gauge or a non-unit orientation;
-      TypeError for non-real (or boolean) values.
+      ValueError for a bad centre, rho <= 0, an unknown gauge or a non-unit orientation; TypeError for non-real values.
     """
     return BPSTField(center, size, orientation, gauge)

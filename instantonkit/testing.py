@@ -23,6 +23,8 @@ from . import _validate
 from . import quaternion as qt
 from .adhm import ADHMData
 from .moduli import multi_instanton, random_adhm
+from .unitary_adhm import UnitaryADHMData
+from .unitary_moduli import random_unitary_adhm
 
 __all__ = [
     "finite_floats",
@@ -33,6 +35,7 @@ __all__ = [
     "su2_matrices",
     "orthogonal_matrices",
     "adhm_data",
+    "unitary_adhm_data",
 ]
 
 #: Quaternions drawn by :func:`unit_quaternions` come from vectors at least this long (then normalised).
@@ -173,5 +176,20 @@ def adhm_data(
         else:
             data = draw(_adhm_from_moduli(kk, nn, spread, size_range))
         return data if ch == 1 else data.conjugate()
+
+    return build()
+
+
+def unitary_adhm_data(k=st.integers(1, 3), rank=st.integers(2, 4), *, spread: float = 1.5) -> st.SearchStrategy:
+    """Valid complex SU(N) ADHM data (:class:`instantonkit.unitary_adhm.UnitaryADHMData`) of drawn k and N.
+
+    k, rank: ints or strategies of ints (k >= 1, rank >= 2); a drawn seed goes to
+    :func:`instantonkit.unitary_moduli.random_unitary_adhm` (generic data, shrinks to seed 0).
+    """
+
+    @st.composite
+    def build(draw) -> UnitaryADHMData:
+        kk, nn = draw(_as_strategy(k)), draw(_as_strategy(rank))
+        return random_unitary_adhm(kk, nn, seed=draw(st.integers(0, 2**32 - 1)), spread=spread)
 
     return build()

@@ -1,0 +1,389 @@
+"""Complex ADHM data for SU(N) (U(N)) multi-instantons, its validation and fields (constructors: :mod:`instantonkit.unitary_moduli`).
+
+Data (Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185; Christ, Weinberg, Stanton,
+Phys. Rev. D 18 (1978) 2013; the complex form below is common practice, from memory): complex
+matrices ``B1, B2`` (k x k), ``I`` (k x N), ``J`` (N x k) with the two moment maps
+
+    mu_R = [B1, B1^dag] + [B2, B2^dag] + I I^dag - J^dag J = 0,      mu_C = [B1, B2] + I J = 0,
+
+modulo U(k): ``B_a -> g B_a g^dag, I -> g I, J -> J g^dag``.  With the complex coordinates
+``z1 = x4 - i x3``, ``z2 = x2 + i x1`` of x (docs/conventions.md, "Complex ADHM data": the matrix of
+the quaternion p(x) is ``[[conj z1, z2], [-conj z2, z1]]``),
+
+    Delta(x)^dag = [[B2 - z2, B1 - z1, I], [-(B1^dag - conj z1), B2^dag - conj z2, J^dag]]
+
+is 2k x (2k + N) and, by the moment maps, ``Delta^dag Delta = 1_2 (x) f^-1`` with
+``f^-1 = (B1 - z1)(B1 - z1)^dag + (B2 - z2)(B2 - z2)^dag + I I^dag``.  With ``U`` the (2k + N) x N
+orthonormal null space of ``Delta^dag`` and ``b = [1_2k ; 0]``,
+
+    A_mu = U^dag d_mu U  (its trace, a flat U(1) part, removed),
+    F_mu nu = U^dag b ((s_mu s_nu^dag - s_nu s_mu^dag) (x) f) b^dag U,     d_mu Delta = b (s_mu (x) 1_k),
+
+self-dual with Q = +k in the conventions of :mod:`instantonkit.conventions`.  Quaternionic SU(2) data
+map onto N = 2 data (:func:`from_quaternionic`) with the same Delta up to constant unitaries, hence the
+same field up to gauge.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+import jax
+import jax.numpy as jnp
+import jax.scipy.linalg as jsl
+import numpy as np
+
+from ._pytree import PytreeFields
+from ._validate import is_tracer, positive_float, real_array
+from .adhm import CONSTRAINT_TOL
+from .conventions import CHARGE_DENSITY_FACTOR
+
+__all__ = [
+    "UnitaryADHMData",
+    "complex_coordinates",
+    "unitary_moment_maps",
+]
+
+_GAUGES = ("singular", "regular")
+
+
+# -- the complex coordinates (docs/conventions.md) ----------------------------------------------------
+
+
+def complex_coordinates(x):
+    """(z1, z2) = (x4 - i x3, x2 + i x1) of points x (..., 4) -> two (...) complex arrays.
+
+    With these, the matrix of the quaternion p(x) (conventions.point_to_quaternion, QUATERNION_BASIS)
+    is [[conj z1, z2], [-conj z2, z1]]; see docs/conventions.md.  jax-traceable.
+    """
+    x = jnp.asarray(x, dtype=jnp.float64)
+    return x[..., 3] - 1j * x[..., 2], x[..., 1] + 1j * x[..., 0]
+
+
+def _point_of(z1, z2) -> np.ndarray:
+    """Inverse of :func:`complex_coordinates`: (...) complex z1, z2 -> (..., 4) points."""
+    z1, z2 = np.asarray(z1), np.asarray(z2)
+    return np.stack([z2.imag, z2.real, -z1.imag, z1.real], axis=-1)
+
+
+# s_mu = the 2 x 2 matrix with d_mu Delta = b (s_mu (x) 1_k): s(x) = [[-conj z2, z1], [-conj z1, -z2]].
+def _make_s() -> np.ndarray:
+    s = np.zeros((4, 2, 2), dtype=np.complex128)
+    for mu in range(4):
+        e = np.zeros(4)
+        e[mu] = 1.0
+        z1, z2 = (np.asarray(v) for v in complex_coordinates(e))
+        s[mu] = [[-np.conj(z2), z1], [-np.conj(z1), -z2]]
+    return s
+
+
+_S = _make_s()
+#: S_mu nu = s_mu s_nu^dag - s_nu s_mu^dag, (4, 4, 2, 2): F_mu nu = U^dag b (S_mu nu (x) f) b^dag U.
+_SMN = np.einsum("mab,ncb->mnac", _S, _S.conj()) - np.einsum("nab,mcb->mnac", _S, _S.conj())
+#: T_abcd = sum_mu nu S_mu nu,ab S_mu nu,cd, for the action density from 2k x 2k work.
+_T = np.einsum("mnab,mncd->abcd", _SMN, _SMN)
+
+
+# -- validation ---------------------------------------------------------------------------------------
+
+
+def _as_complex(name: str, value, ndim: int):
+    if is_tracer(value):
+        return value
+    arr = np.asarray(value)
+    if arr.dtype == object or arr.dtype == np.bool_ or not np.issubdtype(arr.dtype, np.number):
+        raise TypeError(f"{name} must be a complex numeric array; found dtype {arr.dtype}")
+    arr = arr.astype(np.complex128)
+    if arr.ndim != ndim:
+        raise ValueError(f"{name} must be a {ndim}-d array; found shape {arr.shape}")
+    if not np.all(np.isfinite(arr)):
+        raise ValueError(f"{name} must be finite; found {int(np.sum(~np.isfinite(arr)))} non-finite entries")
+    return arr
+
+
+def unitary_moment_maps(b1, b2, i, j):
+    """(mu_R, mu_C) = ([B1,B1^dag] + [B2,B2^dag] + I I^dag - J^dag J, [B1,B2] + I J); two (k, k) complex.
+
+    Works for numpy and jax arrays.
+    """
+    xp = np if all(isinstance(a, np.ndarray) for a in (b1, b2, i, j)) else jnp
+    h = lambda a: xp.conj(xp.swapaxes(a, -1, -2))  # noqa: E731
+    mr = b1 @ h(b1) - h(b1) @ b1 + b2 @ h(b2) - h(b2) @ b2 + i @ h(i) - h(j) @ j
+    mc = b1 @ b2 - b2 @ b1 + i @ j
+    return mr, mc
+
+
+@jax.tree_util.register_pytree_node_class
+@dataclasses.dataclass(frozen=True)
+class UnitaryADHMData(PytreeFields):
+    """Validated complex ADHM data ``(B1, B2, I, J)`` of a charge-k SU(N) instanton.
+
+    B1, B2: (k, k) complex128; I: (k, N) complex128; J: (N, k) complex128 (N >= 2).
+    tol: accepted size of the moment-map violations (absolute, scaled by 1 + |data|^2).
+    gauge: 'singular' (V0 = [0 ; 1_N]) or 'regular' (V0 = [I ; J^dag ; 0], needs N <= 2k) for the
+        projection gauge U = P V0 L^-dag of :meth:`frame`.
+
+    Construction validates shapes, finiteness and both moment maps (module docstring) and raises a
+    ``ValueError`` naming the failed condition and the size of the violation; under jax tracing the
+    value checks are skipped.  Instances are immutable pytrees (B1, B2, I, J are leaves).  It is a
+    field in the sense of :mod:`instantonkit.fields` (potential, closed-form field strength and
+    densities, hooks layout, hint, describe, constraint_residual, log_det, charge).
+    """
+
+    B1: jax.Array
+    B2: jax.Array
+    I: jax.Array  # noqa: E741
+    J: jax.Array
+    tol: float = CONSTRAINT_TOL
+    gauge: str = "singular"
+
+    _leaves = ("B1", "B2", "I", "J")
+    _static = ("tol", "gauge")
+
+    def __post_init__(self):
+        b1 = _as_complex("B1", self.B1, 2)
+        b2 = _as_complex("B2", self.B2, 2)
+        i = _as_complex("I", self.I, 2)
+        j = _as_complex("J", self.J, 2)
+        if self.gauge not in _GAUGES:
+            raise ValueError(f"gauge must be one of {_GAUGES}; found {self.gauge!r}")
+        positive_float("tol", self.tol)
+        k, n = i.shape
+        if k < 1 or n < 2:
+            raise ValueError(f"I must have shape (k, N) with k >= 1 and N >= 2; found {i.shape}")
+        for name, arr, want in (("B1", b1, (k, k)), ("B2", b2, (k, k)), ("J", j, (n, k))):
+            if tuple(arr.shape) != want:
+                raise ValueError(f"{name} must have shape {want} for I of shape {(k, n)}; found {tuple(arr.shape)}")
+        if self.gauge == "regular" and n > 2 * k:
+            raise ValueError(f"gauge 'regular' needs N <= 2k; found N = {n}, k = {k} (use gauge='singular')")
+        if not is_tracer(b1, b2, i, j):
+            scale = 1.0 + float(sum(np.sum(np.abs(a) ** 2) for a in (b1, b2, i, j)))
+            mr, mc = unitary_moment_maps(b1, b2, i, j)
+            for label, m in (("real moment map [B1,B1^dag] + [B2,B2^dag] + I I^dag - J^dag J", mr),
+                             ("complex moment map [B1,B2] + I J", mc)):
+                res = float(np.max(np.abs(m)))
+                if res > self.tol * scale:
+                    raise ValueError(f"ADHM {label} must vanish; max |entry| = {res:.3e} "
+                                     f"(tolerance {self.tol * scale:.1e})")
+            for name, arr in (("B1", b1), ("B2", b2), ("I", i), ("J", j)):
+                object.__setattr__(self, name, arr)
+
+    # -- simple properties --------------------------------------------------------------------
+    @property
+    def k(self) -> int:
+        """Number of instantons, k (the size of B1)."""
+        return int(self.I.shape[0])
+
+    @property
+    def charge(self) -> int:
+        """Instanton number, +k (the construction is self-dual)."""
+        return self.k
+
+    @property
+    def chirality(self) -> int:
+        """+1: these data give instantons (self-dual)."""
+        return 1
+
+    @property
+    def rank(self) -> int:
+        """N of SU(N)."""
+        return int(self.I.shape[1])
+
+    @property
+    def matrix_size(self) -> int:
+        """N of the N x N gauge matrices."""
+        return self.rank
+
+    @property
+    def group(self) -> str:
+        """'SU(N)'."""
+        return f"SU({self.rank})"
+
+    def centers(self) -> np.ndarray:
+        """Points a_i read off the diagonals of B1, B2 (B_a,ii = z_a(a_i)); (k, 4) float64."""
+        d = np.arange(self.k)
+        return _point_of(np.asarray(self.B1)[d, d], np.asarray(self.B2)[d, d])
+
+    def sizes(self) -> np.ndarray:
+        """rho_i = sqrt((|I_i|^2 + |J^i|^2) / 2) (row i of I, column i of J); (k,) float64."""
+        i, j = np.asarray(self.I), np.asarray(self.J)
+        return np.sqrt(0.5 * (np.sum(np.abs(i) ** 2, axis=1) + np.sum(np.abs(j) ** 2, axis=0)))
+
+    def layout(self) -> tuple[np.ndarray, np.ndarray]:
+        """Field hook: the centres (k, 4) and sizes (k,) read off the data."""
+        return self.centers(), self.sizes()
+
+    def hint(self):
+        """Field hook: centre and length scale for integration, (centre (4,), scale)."""
+        c, rho = self.layout()
+        spread = float(np.max(np.linalg.norm(c - c.mean(0), axis=1))) if self.k > 1 else 0.0
+        return c.mean(axis=0), float(max(np.max(rho), spread, 1e-300))
+
+    def describe(self) -> str:
+        """Field hook: one line for reports."""
+        return f"complex ADHM {self.group} data, k = {self.k} (instanton, {self.gauge} gauge)"
+
+    def constraint_residual(self) -> float:
+        """Field hook: the larger of max |mu_R| and max |mu_C| (module docstring)."""
+        mr, mc = unitary_moment_maps(*(np.asarray(a) for a in (self.B1, self.B2, self.I, self.J)))
+        return float(max(np.max(np.abs(mr)), np.max(np.abs(mc))))
+
+    # -- transformations (each returns new data) ---------------------------------------------
+    def _replace(self, **kw) -> "UnitaryADHMData":
+        return dataclasses.replace(self, **kw)
+
+    def with_gauge(self, gauge: str) -> "UnitaryADHMData":
+        """Same data, potential in the other projection gauge ('singular' or 'regular')."""
+        return self._replace(gauge=gauge)
+
+    def rotate_gauge(self, g) -> "UnitaryADHMData":
+        """U(k) redundancy: B_a -> g B_a g^dag, I -> g I, J -> J g^dag (the same field); g: (k, k) unitary."""
+        g = check_unitary("g", g, self.k)
+        gh = g.conj().T
+        return self._replace(B1=g @ self.B1 @ gh, B2=g @ self.B2 @ gh, I=g @ self.I, J=self.J @ gh)
+
+    def rotate_su(self, h) -> "UnitaryADHMData":
+        """Global colour rotation I -> I h^dag, J -> h J; h: (N, N) unitary (SU(N), or U(N)).
+
+        Delta -> diag(1_2k, h) Delta, so the field changes by a gauge transformation that tends to
+        the constant h at infinity; the densities are unchanged.
+        """
+        h = check_unitary("h", h, self.rank)
+        return self._replace(I=self.I @ h.conj().T, J=h @ self.J)
+
+    def translate(self, shift) -> "UnitaryADHMData":
+        """Data of the field translated by ``shift`` (4,): A'(x) = A(x - shift); B_a -> B_a + z_a(shift) 1."""
+        s = real_array("shift", shift, (4,))
+        z1, z2 = (complex(v) for v in complex_coordinates(s))
+        eye = np.eye(self.k)
+        return self._replace(B1=np.asarray(self.B1) + z1 * eye, B2=np.asarray(self.B2) + z2 * eye)
+
+    def dilate(self, factor: float) -> "UnitaryADHMData":
+        """Data of the field dilated about the origin: A'(x) = A(x / c) / c; all of B1, B2, I, J -> c (.)."""
+        c = positive_float("factor", factor)
+        return self._replace(**{n: c * np.asarray(getattr(self, n)) for n in ("B1", "B2", "I", "J")})
+
+    # -- Delta and friends -------------------------------------------------------------------
+    def delta(self, x):
+        """Delta(x), the (2k + N) x 2k complex matrix (module docstring), at points x (..., 4); jax-traceable.
+
+        Returns (..., 2k + N, 2k) complex128.
+        """
+        if not is_tracer(x):
+            arr = np.asarray(x)
+            if arr.ndim < 1 or arr.shape[-1] != 4:
+                raise ValueError(f"points must have shape (..., 4); found {arr.shape}")
+            real_array("points", arr.reshape(-1, 4), (None, 4), shape_text="(..., 4)")
+        z1, z2 = complex_coordinates(x)
+        lead = z1.shape
+        eye = jnp.eye(self.k)
+        c1 = jnp.asarray(self.B1) - z1[..., None, None] * eye  # B1 - z1
+        c2 = jnp.asarray(self.B2) - z2[..., None, None] * eye  # B2 - z2
+        h = lambda a: jnp.conj(jnp.swapaxes(a, -1, -2))  # noqa: E731
+        top = jnp.concatenate([h(c2), -c1], axis=-1)
+        mid = jnp.concatenate([h(c1), c2], axis=-1)
+        bot = jnp.broadcast_to(jnp.concatenate([h(jnp.asarray(self.I)), jnp.asarray(self.J)], axis=-1),
+                               lead + (self.rank, 2 * self.k))
+        return jnp.concatenate([top, mid, bot], axis=-2)
+
+    def gram(self, x):
+        """f^-1 = (B1 - z1)(B1 - z1)^dag + (B2 - z2)(B2 - z2)^dag + I I^dag, (k, k), at one point (4,); jax-traceable."""
+        z1, z2 = complex_coordinates(x)
+        eye = jnp.eye(self.k)
+        c1 = jnp.asarray(self.B1) - z1 * eye
+        c2 = jnp.asarray(self.B2) - z2 * eye
+        i = jnp.asarray(self.I)
+        return c1 @ jnp.conj(c1.T) + c2 @ jnp.conj(c2.T) + i @ jnp.conj(i.T)
+
+    def log_det(self, x):
+        """Field hook: log det f^-1 at one point (4,) -> () (so s = -1/2 box box log_det, Osborn)."""
+        return jnp.linalg.slogdet(self.gram(x))[1]
+
+    def _f(self, x):
+        finv = self.gram(x)
+        if self.k == 1:
+            return 1.0 / finv
+        return jnp.linalg.inv(finv)
+
+    def frame(self, x):
+        """U(x), (2k + N, N): orthonormal null space of Delta^dag in the projection gauge (one point).
+
+        U = P V0 L^-dag with P = 1 - Delta (1_2 (x) f) Delta^dag and V0^dag P V0 = L L^dag (Cholesky);
+        V0 = [0 ; 1_N] ('singular') or [I ; J^dag ; 0] ('regular').  No SVD; smooth where L exists.
+        """
+        k, n = self.k, self.rank
+        delta = self.delta(x)
+        f = self._f(x)
+        if self.gauge == "singular":
+            v0 = jnp.concatenate([jnp.zeros((2 * k, n), dtype=jnp.complex128), jnp.eye(n, dtype=jnp.complex128)])
+        else:
+            v0 = jnp.concatenate([jnp.asarray(self.I), jnp.conj(jnp.asarray(self.J).T),
+                                  jnp.zeros((n, n), dtype=jnp.complex128)])
+        dv = jnp.conj(delta.T) @ v0  # (2k, N)
+        fdv = jnp.concatenate([f @ dv[:k], f @ dv[k:]])
+        pv = v0 - delta @ fdv
+        gram = jnp.conj(v0.T) @ pv
+        gram = 0.5 * (gram + jnp.conj(gram.T))
+        lo = jnp.linalg.cholesky(gram)
+        # U = pv L^-dag  <=>  U^dag = L^-1 pv^dag
+        return jnp.conj(jsl.solve_triangular(lo, jnp.conj(pv.T), lower=True).T)
+
+    # -- the field protocol ------------------------------------------------------------------
+    def potential(self, x):
+        """A_mu = U^dag d_mu U minus its trace part (tr A / N), at one point (4,) -> (4, N, N) complex."""
+        x = jnp.asarray(x, dtype=jnp.float64)
+        jac, u = jax.jacfwd(lambda y: (self.frame(y),) * 2, has_aux=True)(x)  # (2k + N, N, mu)
+        a = jnp.einsum("ia,ibm->mab", jnp.conj(u), jac)
+        tr = jnp.trace(a, axis1=-2, axis2=-1) / self.rank
+        return a - tr[:, None, None] * jnp.eye(self.rank)
+
+    def field_strength(self, x):
+        """Closed-form F_mu nu = U^dag b (S_mu nu (x) f) b^dag U (trace part removed) -> (4, 4, N, N).
+
+        S_mu nu = s_mu s_nu^dag - s_nu s_mu^dag (module docstring); no derivatives are taken.
+        """
+        x = jnp.asarray(x, dtype=jnp.float64)
+        k = self.k
+        u = self.frame(x)
+        f = self._f(x)
+        u1, u2 = u[:k], u[k : 2 * k]
+        blocks = [[jnp.conj(ua.T) @ f @ ub for ub in (u1, u2)] for ua in (u1, u2)]
+        kab = jnp.stack([jnp.stack(r) for r in blocks])  # (2, 2, N, N)
+        fmn = jnp.einsum("mnab,abij->mnij", _SMN, kab)
+        tr = jnp.trace(fmn, axis1=-2, axis2=-1) / self.rank
+        return fmn - tr[..., None, None] * jnp.eye(self.rank)
+
+    def action_density(self, x):
+        """Action density from 2k x 2k work only, at one point (4,) -> ().
+
+        With D = b^dag Delta, M = b^dag P b = 1 - D (1_2 (x) f) D^dag and G = (1_2 (x) f) M,
+        s = -1/2 sum_mu nu tr((S_mu nu (x) 1) G (S_mu nu (x) 1) G) = -1/2 sum T_abcd tr(G_bc G_da),
+        T_abcd = sum_mu nu (S_mu nu)_ab (S_mu nu)_cd; uses tr F = 0 (the U(1) part is flat).
+        """
+        x = jnp.asarray(x, dtype=jnp.float64)
+        k = self.k
+        d = self.delta(x)[: 2 * k]
+        f = self._f(x)
+        fd = jnp.concatenate([f @ jnp.conj(d[:, :k].T), f @ jnp.conj(d[:, k:].T)])  # (1 (x) f) D^dag
+        m = jnp.eye(2 * k) - d @ fd
+        fm = jnp.concatenate([f @ m[:k], f @ m[k:]])
+        g = fm.reshape(2, k, 2, k).transpose(0, 2, 1, 3)  # G_ab blocks (2, 2, k, k)
+        gg = jnp.einsum("bcij,daji->bcda", g, g)  # tr(G_bc G_da)
+        return -0.5 * jnp.real(jnp.einsum("abcd,bcda->", _T, gg))
+
+    def charge_density(self, x):
+        """q = s / 8 pi^2, exact for the self-dual field, at one point (4,) -> ()."""
+        return self.action_density(x) * (-CHARGE_DENSITY_FACTOR) * 4.0
+
+
+def check_unitary(name: str, g, n: int) -> np.ndarray:
+    g = np.asarray(g)
+    if g.dtype == object or not np.issubdtype(g.dtype, np.number):
+        raise TypeError(f"{name} must be a complex ({n}, {n}) unitary matrix; found dtype {g.dtype}")
+    g = g.astype(np.complex128)
+    if g.shape != (n, n):
+        raise ValueError(f"{name} must have shape {(n, n)}; found {g.shape}")
+    dev = float(np.max(np.abs(g.conj().T @ g - np.eye(n)))) if np.all(np.isfinite(g)) else np.inf
+    if dev > 1e-10:
+        raise ValueError(f"{name} must be unitary; max |g^dag g - 1| = {dev:.3e}")
+    return g
