@@ -246,8 +246,12 @@ class StartSpec:
         _v.choice("method", method, _METHODS)
         rtol = _v.positive_float("rtol", rtol)
         n_field = jax.eval_shape(field.potential, jax.ShapeDtypeStruct((4,), jnp.float64)).shape[-1]
-        if group in ("su2", "su3") and n_field != 2:
-            raise ValueError(f"group {group!r} needs a 2 x 2 (SU(2)) field; found N = {n_field} (use group=None)")
+        if group == "su2" and n_field != 2:
+            raise ValueError(f"group 'su2' needs a 2 x 2 (SU(2)) field; found N = {n_field} (use group=None)")
+        if group == "su3" and n_field not in (2, 3):
+            raise ValueError(
+                f"group 'su3' needs an SU(2) field (embedded) or an SU(3) field; found N = {n_field} (use group=None)"
+            )
         try:
             emb = tuple(embedding)
         except TypeError as err:
@@ -344,7 +348,7 @@ def block_links(field, lo, hi, origin, spacing, *, n_field, group, embedding, me
     u, stats = site_links(field, sites, spacing, method, rtol, batch, n_field)
     u, dev0, dev1 = finish_batched(u.reshape(-1, n_field, n_field), batch)
     n_out = n_field
-    if group == "su3":
+    if group == "su3" and n_field == 2:  # SU(2) links in a 2 x 2 block; SU(3) fields give SU(3) links directly
         u, n_out = embed_links(u, 3, embedding), 3
     stats = dataclasses.replace(stats, unitarity_before=float(dev0), unitarity_after=float(dev1))
     return u.reshape(ext + (4, n_out, n_out)), stats
@@ -410,8 +414,9 @@ _START_DOC_ARGS = """
       spacing: a > 0.
       origin: (4,) position of site 0 (default :func:`default_origin`: the field's centre in the
         middle of the central hypercube, so no link touches it).
-      group: 'su2' (N = 2), 'su3' (the SU(2) links embedded in the ``embedding`` = (i, j) rows and
-        columns of 3 x 3 identity matrices) or None (the field's own N, e.g. Sp(n)).
+      group: 'su2' (N = 2), 'su3' (an SU(3) field's own links, e.g. :class:`~instantonkit.unitary_adhm.UnitaryADHMData`
+        of rank 3; or SU(2) links embedded in the ``embedding`` = (i, j) rows and columns of 3 x 3
+        identity matrices) or None (the field's own N, e.g. Sp(n)).
       boundary: 'periodic' (the link from the last site points to site 0; use a field that decays
         fast, e.g. singular gauge; the mismatch is always measured, see :func:`boundary_mismatch`, and
         a :class:`BoundaryActionWarning` is raised when the boundary action exceeds
@@ -566,7 +571,7 @@ def boundary_mismatch(field, links, spacing, *, origin=None, group="su2", embedd
         xs = np.repeat(pts, 3, axis=0)
         ds = np.tile(a * np.eye(4)[others], (pts.shape[0], 1))
         u = project_special_unitary(parallel_transporter(field, xs, ds, method=method, rtol=rtol))
-        if group == "su3":
+        if group == "su3" and u.shape[-1] == 2:
             u = embed_links(u, 3, embedding)
         face_shape = list(shape)
         face_shape[mu] = 1
