@@ -435,9 +435,6 @@ def _quat_cholesky_inverse(gram):
 #: Points per block of the batched kernels: the (4, k, k, block) intermediates stay in cache.
 _BLOCK = 1024
 
-#: Below this quality of both frame choices a block takes the exact O(k^3) route (see _s_rank_one).
-_MIN_QUALITY = 1e-3
-
 #: E^c[d, e] with (u v-bar)_c = sum_{d,e} u_d v_e E^c[d, e] (c = 0: the real part), (4, 4, 4).
 _E = np.einsum("dec,e->cde", qt._C, np.array([1.0, -1.0, -1.0, -1.0]))
 
@@ -468,16 +465,14 @@ def _gram_last(lam, bp):
 
 
 def _cholesky_last(g):
-    """Lower L with g = L L^T for SPD g (k, k, nb): the Cholesky-Banachiewicz loops, unrolled over the static k."""
-    k = g.shape[0]
-    lo = [[None] * k for _ in range(k)]
-    for j in range(k):
-        ljj = jnp.sqrt(g[j, j] - sum((lo[j][m] ** 2 for m in range(j)), 0.0))
-        lo[j][j] = ljj
-        for i in range(j + 1, k):
-            lo[i][j] = (g[i, j] - sum((lo[i][m] * lo[j][m] for m in range(j)), 0.0)) / ljj
-    zero = jnp.zeros_like(g[0, 0])
-    return jnp.stack([jnp.stack([lo[i][j] if j <= i else zero for j in range(k)]) for i in range(k)])
+    """Lower L with g = L L^T for SPD g (k, k, nb) (LAPACK's batched potrf through jnp.linalg.cholesky).
+
+    Unrolled loops over k vectorise as well but trace k^3 / 6 operations; the library call keeps the
+    compiled graph small (first calls) at about the same speed.
+    """
+    if g.shape[0] == 1:
+        return jnp.sqrt(g)
+    return jnp.moveaxis(jnp.linalg.cholesky(jnp.moveaxis(g, -1, 0)), 0, -1)
 
 
 def _solve_lower(lo, x):
@@ -520,37 +515,35 @@ def _s_from_k(kk):
 
 
 def _s_rank_one(lam, bp, lo):
-    """s of SU(2) data (n = 1) from O(k^2) work per point, and the quality of the frame used; (nb,) each.
+    """s of SU(2) data (n = 1) at nb points, from a rank-one factor of M; (nb,).
 
-    M = b^dag P b = u u^dag has rank one (P = U U^dag), so with K = U^T f U (U the real k x 4 matrix of u)
-    s = 48 tr(f M0 f M0) + 16 sum_a tr(f M^a f M^a) = 48 tr(K K) + 16 sum_a tr(K E^a K E^a).
-    u comes from one column of P: M = w phi^-1 w^dag with (singular choice) w = -(B - p) f Lambda^dag,
-    phi = 1 - Lambda f Lambda^dag, or (regular choice) w = M Lambda^dag, phi = Lambda M Lambda^dag.
-    Each point takes the choice with the larger quality phi (resp. phi / |Lambda|^2), which bounds the
-    cancellation in phi; the two qualities cannot both be small where ...
+    M = b^dag P b = u u^dag has rank one (P = 1 - Delta f Delta^dag = U U^dag, n = 1), so with
+    K = U^T f U (U the real k x 4 matrix of u) s = 48 tr(f M0 f M0) + 16 sum_a tr(f M^a f M^a) =
+    48 tr(K K) + 16 sum_a tr(K E^a K E^a), and u is read off one column of P: for v = e_j,
+    M = w phi^-1 w^dag with w = b^dag P v = b^dag v - (B - p) f Delta^dag v and phi = v^dag P v = P_jj.
+    Each point takes the column with the largest P_jj: the diagonal of the rank-one projector sums to
+    tr P = 1 over n + k = 1 + k entries, so phi >= 1 / (1 + k) and the cancellation in
+    phi = 1 - |L^-1 Delta^dag e_j|^2 costs at most a factor 1 + k of rounding, at every point.
+    Work: L^-1 Delta^dag (2 k^3) and O(k^2) for the rest.
     """
     conj = jnp.array([1.0, -1.0, -1.0, -1.0])
-    lamd = jnp.moveaxis(lam[0], -1, 0) * conj[:, None]  # Lambda^dag, (4, k)
     k, nb = bp.shape[1], bp.shape[-1]
-    lamd_b = jnp.broadcast_to(lamd[:, :, None, None], (4, k, 1, nb))  # (4, k, 1, nb)
-    bpd = jnp.swapaxes(bp, 1, 2) * conj[:, None, None, None]  # (B - p)^dag
-    t = _qmatmul_last(bpd, lamd_b)  # (B - p)^dag Lambda^dag, (4, k, 1, nb)
-    # rows (k, [Lambda^dag | t] (8 columns), nb): one forward and one back substitution for both
-    rhs = jnp.concatenate([lamd_b[:, :, 0], t[:, :, 0]], axis=0)  # (8, k, nb)
-    y = _solve_lower(lo, jnp.swapaxes(rhs, 0, 1))  # (k, 8, nb)
-    phi_s = 1.0 - _lead_sum(y[:, :4] ** 2)  # 1 - Lambda f Lambda^dag
-    v = jnp.swapaxes(_solve_upper_t(lo, y), 0, 1)  # (8, k, nb): f Lambda^dag | f t
-    bv = _qmatmul_last(bp, jnp.stack([v[:4], v[4:]], axis=2))  # (4, k, 2, nb)
-    w_s = -bv[:, :, 0]  # -(B - p) f Lambda^dag
-    w_r = lamd_b[:, :, 0] - bv[:, :, 1]  # M Lambda^dag
-    phi_r = _lead_sum(lamd_b[:, :, 0] * w_r)  # Re Lambda M Lambda^dag
-    q_s, q_r = phi_s, phi_r / jnp.sum(lamd**2)
-    use_s = q_s >= q_r
-    w = jnp.where(use_s[None, None], w_s, w_r)
-    phi = jnp.where(use_s, phi_s, phi_r)
+    lamd = jnp.moveaxis(lam[0], -1, 0) * conj[:, None]  # Lambda^dag, (4, k)
+    cols = jnp.concatenate(  # Delta^dag e_j, j = 0 .. k: [Lambda^dag | (B - p)^dag], (4, k, 1 + k, nb)
+        [jnp.broadcast_to(lamd[:, :, None, None], (4, k, 1, nb)), jnp.swapaxes(bp, 1, 2) * conj[:, None, None, None]],
+        axis=2,
+    )
+    y = _solve_lower(lo, jnp.moveaxis(cols, 0, 1).reshape(k, 4 * (1 + k), nb)).reshape(k, 4, 1 + k, nb)
+    pdiag = 1.0 - jnp.sum(y * y, axis=(0, 1))  # P_jj, (1 + k, nb)
+    pick = (jnp.arange(1 + k)[:, None] == jnp.argmax(pdiag, axis=0)[None]).astype(y.dtype)  # one-hot
+    ysel = jnp.sum(y * pick[None, None], axis=2)  # L^-1 Delta^dag v, (k, 4, nb)
+    phi = jnp.max(pdiag, axis=0)
+    g = jnp.swapaxes(_solve_upper_t(lo, ysel), 0, 1)  # f Delta^dag v, (4, k, nb)
+    w = -_qmatmul_last(bp, g[:, :, None])[:, :, 0]  # -(B - p) f Delta^dag v
+    w = w.at[0].add(pick[1:])  # + b^dag v (real)
     z = _solve_lower(lo, jnp.swapaxes(w, 0, 1))  # (k, 4, nb) = L^-1 W
     kk = sum(z[i, :, None] * z[i, None, :] for i in range(k)) / phi[None, None]
-    return _s_from_k(kk), jnp.maximum(q_s, q_r)
+    return _s_from_k(kk)
 
 
 def _s_exact(bp, lo):
@@ -582,14 +575,13 @@ def _s_exact(bp, lo):
 
 
 def _action_density_block(lam, b, chirality: int, pts):
-    """s at a block of points (nb, 4) -> (nb,): the rank-one route for SU(2), the exact route otherwise."""
+    """s at a block of points (nb, 4) -> (nb,): the rank-one route for SU(2), the exact O(k^3) route for Sp(n > 1)."""
     p = _p_last(pts, chirality)
     bp = _bp_last(b, p)
     lo = _cholesky_last(_gram_last(lam, bp))
     if lam.shape[0] != 1:
         return _s_exact(bp, lo)
-    s, quality = _s_rank_one(lam, bp, lo)
-    return jax.lax.cond(jnp.min(quality) >= _MIN_QUALITY, lambda: s, lambda: _s_exact(bp, lo))
+    return _s_rank_one(lam, bp, lo)
 
 
 def _action_density_k1(lam, b, chirality: int, pts):
