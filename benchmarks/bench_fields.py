@@ -333,7 +333,7 @@ def run(quick: bool = False, points: int | None = None, ks=KS, ranks=RANKS) -> l
     n = int(points) if points is not None else (QUICK_POINTS if quick else FULL_POINTS)
     if n < 1:
         raise ValueError(f"points must be >= 1; found {n}")
-    repeats = 3 if n <= QUICK_POINTS else 1
+    repeats = 3 if n <= QUICK_POINTS else 2
     roof = _matmul_gflops()
     rows = [_row("numpy matmul rate (compute roof)", roof, "GFLOP/s")]
     for k in ks:
