@@ -1,30 +1,48 @@
-"""Throughput and compile latency of the field layer (instantonkit.fields on ADHM data).
+"""Throughput, cost and first-call latency of the field layer (instantonkit.fields on ADHM data).
 
-Figures (one row each, see :func:`run`):
+Rows (see :func:`run`), each with its ratio to a reference measured in the same run:
 
-* points per second of the action density and of the field strength for SU(2) and Sp(2) ADHM data
-  with k = 1, 2, 4, 8, by the closed forms (``method="auto"``) and by autodiff
-  (``method="autodiff"``); the autodiff rows carry the cost ratio t_autodiff / t_closed;
-* the time of the k = 1 ADHM action density relative to plain numpy evaluating the BPST formula
-  48 rho^4 / (|x - a|^2 + rho^2)^4 on the same points (goal: ratio <= 5);
-* first-call latency of each kernel: the first call on 64 points, i.e. trace + compile (goal: <= 3 s).
+* points per second of the closed-form action density of SU(2) ADHM data, k = 1, 2, 4, 8 (BPST for
+  k = 1, random data otherwise), against the per-point kernel (``jit(vmap(data.action_density))``,
+  the engine's route before the batch-major kernels), with the goals of the issue in the reference;
+* the generated code's cost: flops per point from XLA's cost analysis of the compiled kernel, the
+  achieved GFLOP/s (flops per point x points/s) and its fraction of a large numpy matrix product's
+  rate on this machine (the roofline's compute roof), so a slow kernel shows whether it computes
+  too much or computes slowly;
+* the k = 1 density relative to plain numpy evaluating 48 rho^4 / (|x - a|^2 + rho^2)^4 (goal <= 1.5);
+* a plain-numpy finite-difference pipeline at k = 4 as a user writes it by hand (ADHM null space by
+  numpy's SVD, the potential and the field strength by central differences): its points/s, its
+  error against the closed form, and the closed form's speed-up over it (goal >= 200);
+* first calls (trace + compile + run on 64 points) of the closed-form density (k = 1, 4), the
+  autodiff field strength (k = 4), a user callable, and a five-value parameter scan over a user
+  ansatz (``fields.ParametrisedField``, with the number of compilations it cost, goal 1); with the
+  persistent compilation cache (a fresh process twice on one cache directory) for full-size runs.
 
 Usage: ``python benchmarks/bench_fields.py [--quick] [--points N] [--ks 1 2 4 8] [--ranks 1 2]``;
-10^6 points by default (long: about 10^3 s alone for k = 8 with autodiff), 10^4 with ``--quick``.
-Figures vary with machine load; run on an idle machine.
+10^6 points by default, 10^4 with ``--quick``.  The machine is often shared: compare the ratios (both
+sides measured in the same run), not the absolute figures.
 """
 
 from __future__ import annotations
 
 import argparse
 import os
+import subprocess
 import sys
+import tempfile
 import time
 
+import jax
+import jax.numpy as jnp
 import numpy as np
 
 import instantonkit as ik
-from instantonkit import fields
+from instantonkit import _kxk, fields
+from instantonkit._batching import run_batched
+from instantonkit.conventions import QUATERNION_BASIS
+from instantonkit.quaternion import thooft_eta
+
+ETA = thooft_eta()
 
 if __package__ in (None, ""):  # run as a script: make ``import benchmarks`` work from anywhere
     sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
@@ -34,14 +52,19 @@ QUICK_POINTS = 10_000
 KS = (1, 2, 4, 8)
 RANKS = (1, 2)
 LATENCY_POINTS = 64
-COMPILE_GOAL_S = 3.0
-NUMPY_GOAL_RATIO = 5.0
+REFERENCE_POINTS = 32_768  # the per-point reference kernel is slow: time it on at most this many points
+FD_POINTS_FULL, FD_POINTS_QUICK = 2_000, 200
+FD_STEP = 1e-4  # central-difference step, relative to the configuration's scale
 
-QUANTITIES = (("action_density", "action density"), ("field_strength", "field strength"))
-METHODS = (("auto", "closed"), ("autodiff", "autodiff"))
+#: Goals of the issue (points/s of the closed-form density; ratios; seconds).
+THROUGHPUT_GOALS = {4: 1e6, 8: 1.5e5}
+NUMPY_GOAL_RATIO = 1.5
+FD_GOAL_RATIO = 200.0
+CLOSED_FIRST_CALL_GOAL_S = 0.5
+AUTODIFF_FIRST_CALL_GOAL_S = 3.0
 
 
-def _data(k: int, rank: int) -> ik.ADHMData:
+def _data(k: int, rank: int = 1) -> ik.ADHMData:
     """Benchmark configuration: a BPST (embedded in Sp(n) for rank > 1) for k = 1, random data otherwise."""
     if k == 1:
         base = ik.bpst((0.1, -0.2, 0.3, 0.0), 1.0)
@@ -69,38 +92,67 @@ def _row(figure, value, unit, ratio=None, reference=None) -> dict:
     return {"figure": figure, "value": float(value), "unit": unit, "ratio": ratio, "reference": reference}
 
 
-def _throughput_rows(data, label: str, pts: np.ndarray, repeats: int) -> list[dict]:
-    """First-call latency and points/s for each (quantity, method) on one configuration.
+# -- the compute roof and the generated code's cost ------------------------------------------------
 
-    The latency is the wall time of the very first call on LATENCY_POINTS points (trace, compile and
-    a negligible run), as a user meets it; the full point set is then warmed up once (its chunk shape
-    compiles separately) before it is timed.
-    """
+
+def _matmul_gflops() -> float:
+    """GFLOP/s of a large float64 numpy matrix product (BLAS on every core): the roofline's compute roof."""
+    a = np.random.default_rng(0).normal(size=(1200, 1200))
+    a @ a
+    t = _timed(lambda: a @ a, 3)
+    return 2 * 1200**3 / t / 1e9
+
+
+def _flops_per_point(data, n: int) -> float:
+    """Flops per point of the compiled batched density kernel, from XLA's cost analysis (nan if absent)."""
+    kern = jax.jit(lambda d, p: d.density_batch(p, "action_density"))
+    try:
+        cost = kern.lower(data, jax.ShapeDtypeStruct((n, 4), jnp.float64)).compile().cost_analysis()
+        cost = cost[0] if isinstance(cost, (list, tuple)) else cost
+        return float(cost["flops"]) / n
+    except Exception:  # cost analysis is optional in XLA backends
+        return float("nan")
+
+
+# -- reference kernels -----------------------------------------------------------------------------
+
+
+def _per_point_density(data, pts: np.ndarray) -> np.ndarray:
+    """The per-point closed form vmapped in chunks (the engine's route before the batch-major kernels)."""
+    kern = _PER_POINT
+    return run_batched(kern, [pts], fields.DEFAULT_CHUNK, shrink_last=True, out=np.empty(len(pts)), args_before=(data,))
+
+
+_PER_POINT = jax.jit(jax.vmap(lambda d, x: d.action_density(x), in_axes=(None, 0)))
+
+
+def _throughput_rows(k: int, n: int, repeats: int, roof: float) -> list[dict]:
+    """First call, points/s against the per-point reference, and the cost of the k x k kernel, SU(2) data."""
+    data = _data(k)
+    label = f"SU(2) k={k}"
+    pts = _points(data, n)
     rows = []
-    small = pts[:LATENCY_POINTS]
-    for quantity, qname in QUANTITIES:
-        t_closed = None
-        for method, mname in METHODS:
-            fn = lambda p: fields.evaluate(data, p, quantity, method=method)  # noqa: E731
-            first = _timed(lambda: fn(small))
-            rows.append(
-                _row(
-                    f"first-call latency, {qname}, {mname}, {label}",
-                    first,
-                    "s",
-                    first / COMPILE_GOAL_S,
-                    f"t / goal, goal <= {COMPILE_GOAL_S:g} s",
-                )
-            )
-            fn(pts[: fields.DEFAULT_CHUNK])  # compile the chunk shape of the full run
-            t = _timed(lambda: fn(pts), repeats)
-            if method == "auto":
-                t_closed = t
-                rows.append(_row(f"{qname}, {mname}, {label}", len(pts) / t, "points/s"))
-            else:
-                rows.append(
-                    _row(f"{qname}, {mname}, {label}", len(pts) / t, "points/s", t / t_closed, "t_autodiff / t_closed")
-                )
+    first = _timed(lambda: ik.action_density(data, pts[:LATENCY_POINTS]))
+    if k in (1, 4):
+        rows.append(_row(f"first call, closed-form density, {label}", first, "s", first / CLOSED_FIRST_CALL_GOAL_S,
+                         f"t / goal, goal <= {CLOSED_FIRST_CALL_GOAL_S:g} s"))
+    ik.action_density(data, pts[: fields.DEFAULT_CHUNK])  # compile the chunk shape of the full run
+    t = _timed(lambda: ik.action_density(data, pts), repeats)
+    rate = n / t
+    nref = min(n, REFERENCE_POINTS)
+    _per_point_density(data, pts[:nref])
+    t_ref = _timed(lambda: _per_point_density(data, pts[:nref]), repeats)
+    diff = float(np.max(np.abs(ik.action_density(data, pts[:nref]) / _per_point_density(data, pts[:nref]) - 1.0)))
+    goal = THROUGHPUT_GOALS.get(k)
+    ref = f"x the per-point kernel ({nref / t_ref:.3g} points/s, max rel. difference {diff:.1e})"
+    if goal:
+        ref += f"; goal >= {goal:.3g} points/s"
+    rows.append(_row(f"closed-form action density, {label}", rate, "points/s", rate / (nref / t_ref), ref))
+    fpp = _flops_per_point(data, _kxk.BLOCK)  # one block: XLA counts a lax.map body once
+    rows.append(_row(f"flops per point (XLA cost analysis), {label}", fpp, "flop"))
+    achieved = fpp * rate / 1e9
+    rows.append(_row(f"achieved rate, {label}", achieved, "GFLOP/s", achieved / roof,
+                     f"fraction of the numpy matmul roof ({roof:.3g} GFLOP/s)"))
     return rows
 
 
@@ -115,43 +167,188 @@ def _numpy_rows(n: int, repeats: int) -> list[dict]:
         return 48.0 * rho**4 / (np.sum((pts - center) ** 2, axis=-1) + rho**2) ** 4
 
     ik.action_density(data, pts)  # compile
-    t_adhm = _timed(lambda: ik.action_density(data, pts), repeats)
+    t_adhm = _timed(lambda: ik.action_density(data, pts), max(repeats, 3))
     t_np = _timed(plain, max(repeats, 3))
     err = float(np.max(np.abs(ik.action_density(data, pts) / plain() - 1.0)))
     return [
         _row("numpy BPST formula", n / t_np, "points/s"),
-        _row(
-            "ADHM k=1 action density vs numpy",
-            n / t_adhm,
-            "points/s",
-            t_adhm / t_np,
-            f"t_adhm / t_numpy, goal <= {NUMPY_GOAL_RATIO:g} (max rel. difference {err:.1e})",
-        ),
+        _row("ADHM k=1 action density vs numpy", n / t_adhm, "points/s", t_adhm / t_np,
+             f"t_adhm / t_numpy, goal <= {NUMPY_GOAL_RATIO:g} (max rel. difference {err:.1e})"),
+    ]
+
+
+# -- a plain-numpy finite-difference pipeline, as a user writes it by hand ------------------------
+
+_PAULI = np.array([[[0, 1], [1, 0]], [[0, -1j], [1j, 0]], [[1, 0], [0, -1]]])
+
+
+def _q_to_c(q: np.ndarray) -> np.ndarray:
+    """Quaternionic matrices (..., r, c, 4) -> complex (..., 2r, 2c) with i, j, k -> -i sigma_1,2,3 (conventions)."""
+    basis = np.concatenate([np.eye(2)[None], -1j * _PAULI])  # (4, 2, 2)
+    blocks = np.einsum("...rca,aij->...ricj", q, basis)
+    sh = q.shape[:-3] + (2 * q.shape[-3], 2 * q.shape[-2])
+    return blocks.reshape(sh)
+
+
+def _fd_frame(lam: np.ndarray, b: np.ndarray, x: np.ndarray) -> np.ndarray:
+    """U(x) (m, 2(n+k), 2n): null space of Delta^dag by numpy's SVD, gauge fixed by a Hermitian top block."""
+    n, k = lam.shape[0], lam.shape[1]
+    p = np.stack([x[:, 3], -x[:, 0], -x[:, 1], -x[:, 2]], axis=-1)  # p(x), conventions
+    delta = np.broadcast_to(np.concatenate([lam, b])[None], (len(x), n + k, k, 4)).copy()
+    delta[:, n + np.arange(k), np.arange(k)] -= p[:, None, :]
+    dc = _q_to_c(delta)  # (m, 2(n+k), 2k)
+    full = np.linalg.svd(dc, full_matrices=True)[0]
+    null = full[:, :, 2 * k :]  # orthogonal complement of the range of Delta
+    w, _, vh = np.linalg.svd(null[:, : 2 * n, :])
+    return null @ (np.conj(np.swapaxes(vh, -1, -2)) @ np.conj(np.swapaxes(w, -1, -2)))
+
+
+def _fd_potential(lam, b, x, h):
+    """A_mu = U^dag d_mu U by central differences; x (m, 4) -> (m, 4, 2n, 2n)."""
+    u = _fd_frame(lam, b, x)
+    ud = np.conj(np.swapaxes(u, -1, -2))
+    out = []
+    for mu in range(4):
+        e = np.zeros(4)
+        e[mu] = h
+        out.append(ud @ (_fd_frame(lam, b, x + e) - _fd_frame(lam, b, x - e)) / (2 * h))
+    return np.stack(out, axis=1)
+
+
+def _fd_action_density(lam, b, x, h):
+    """s = -1/2 sum tr F F with F = d A - d A + [A, A], derivatives of A by central differences."""
+    a = _fd_potential(lam, b, x, h)
+    da = []
+    for mu in range(4):
+        e = np.zeros(4)
+        e[mu] = h
+        da.append((_fd_potential(lam, b, x + e, h) - _fd_potential(lam, b, x - e, h)) / (2 * h))
+    da = np.stack(da, axis=1)  # (m, mu, nu, N, N) = d_mu A_nu
+    comm = np.einsum("pmij,pnjk->pmnik", a, a)
+    f = da - np.swapaxes(da, 1, 2) + comm - np.swapaxes(comm, 1, 2)
+    return -0.5 * np.real(np.einsum("pmnij,pmnji->p", f, f))
+
+
+def _fd_rows(n_fd: int) -> list[dict]:
+    """The hand-written numpy pipeline at k = 4 against the closed form, on the same points."""
+    data = _data(4)
+    pts = _points(data, max(n_fd, fields.DEFAULT_CHUNK), seed=2)
+    h = FD_STEP * data.hint()[1]
+    lam, b = np.asarray(data.lam), np.asarray(data.B)
+    t_fd = _timed(lambda: _fd_action_density(lam, b, pts[:n_fd], h))
+    s_fd = _fd_action_density(lam, b, pts[:n_fd], h)
+    ik.action_density(data, pts)
+    t = _timed(lambda: ik.action_density(data, pts), 3)
+    s = ik.action_density(data, pts[:n_fd])
+    err = float(np.max(np.abs(s_fd / s - 1.0)))
+    rate, rate_fd = len(pts) / t, n_fd / t_fd
+    return [
+        _row("numpy finite-difference pipeline, SU(2) k=4", rate_fd, "points/s", None,
+             f"SVD null space, central differences h = {FD_STEP:g} x scale; max rel. error {err:.1e}"),
+        _row("closed form vs the numpy pipeline, SU(2) k=4", rate, "points/s", rate / rate_fd,
+             f"speed-up, goal >= {FD_GOAL_RATIO:g}"),
+    ]
+
+
+# -- first calls ----------------------------------------------------------------------------------
+
+
+def _user_potential(x, params):
+    """A user's charge-one ansatz written by hand, A_mu = eta_{a mu nu} (x - c)_nu tau_a / (|x - c|^2 + rho^2).
+
+    The regular-gauge BPST form ('t Hooft, Phys. Rev. D 14 (1976) 3432, from memory) with tau_a the
+    anti-Hermitian quaternion units; only its cost matters here (the engine checks anti-Hermiticity).
+    """
+    y = x - params["centre"]
+    tau = jnp.asarray(QUATERNION_BASIS[1:])  # (3, 2, 2), anti-Hermitian
+    coef = jnp.einsum("amn,n->am", jnp.asarray(ETA), y) / (jnp.sum(y**2) + params["rho"] ** 2)  # (3, 4)
+    return jnp.einsum("am,aij->mij", coef, tau)
+
+
+def _first_call_rows() -> list[dict]:
+    """Autodiff field strength at k = 4, a bare user callable, and a five-value parameter scan."""
+    data = _data(4)
+    pts = _points(data, LATENCY_POINTS, seed=3)
+    rows = []
+    t = _timed(lambda: fields.field_strength(data, pts, method="autodiff"))
+    rows.append(_row("first call, autodiff field strength, SU(2) k=4", t, "s", t / AUTODIFF_FIRST_CALL_GOAL_S,
+                     f"t / goal, goal <= {AUTODIFF_FIRST_CALL_GOAL_S:g} s"))
+    centre = np.array([0.1, 0.2, -0.1, 0.3])
+
+    def user(x):
+        return _user_potential(x, {"rho": 0.9, "centre": jnp.asarray(centre)})  # a closure: static data
+
+    t = _timed(lambda: ik.action_density(user, pts))
+    rows.append(_row("first call, user callable (autodiff density)", t, "s", t / AUTODIFF_FIRST_CALL_GOAL_S,
+                     f"t / goal, goal <= {AUTODIFF_FIRST_CALL_GOAL_S:g} s"))
+    kern = fields._kernel("action_density", "auto")
+    before = kern._cache_size()
+    t0 = time.perf_counter()
+    for rho in (0.5, 0.7, 0.9, 1.1, 1.3):
+        ik.action_density(fields.ParametrisedField(_user_potential, {"rho": rho, "centre": centre}), pts)
+    scan = time.perf_counter() - t0
+    compiles = kern._cache_size() - before
+    rows.append(_row("parameter scan, 5 values of a user ansatz (ParametrisedField)", scan, "s", compiles,
+                     "compilations (goal 1)"))
+    return rows
+
+
+_CACHE_PROBE = """
+import time, numpy as np
+t0 = time.perf_counter()
+import instantonkit as ik
+data = ik.random_adhm(4, 1, seed=140)
+ik.action_density(data, np.zeros((64, 4)) + 0.3)
+print(time.perf_counter() - t0)
+"""
+
+
+def _cache_rows() -> list[dict]:
+    """First call in a fresh process (import included), twice on one persistent cache directory."""
+    with tempfile.TemporaryDirectory() as tmp:
+        env = dict(os.environ, INSTANTONKIT_COMPILE_CACHE=tmp)
+        root = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+        env["PYTHONPATH"] = root + os.pathsep + env.get("PYTHONPATH", "")
+        times = []
+        for _ in range(2):
+            out = subprocess.run([sys.executable, "-c", _CACHE_PROBE], env=env, capture_output=True, text=True, timeout=600)
+            if out.returncode:
+                raise RuntimeError(out.stderr[-2000:])
+            times.append(float(out.stdout.strip().splitlines()[-1]))
+    return [
+        _row("fresh process, import + first closed-form density, SU(2) k=4, empty cache", times[0], "s"),
+        _row("fresh process, the same with the persistent compilation cache", times[1], "s", times[1] / times[0],
+             "t_cached / t_empty"),
     ]
 
 
 def run(quick: bool = False, points: int | None = None, ks=KS, ranks=RANKS) -> list[dict]:
     """Run the field benchmarks; returns rows {figure, value, unit, ratio, reference}.
 
-    quick: 10^4 points instead of 10^6 (``points`` overrides both); ks, ranks: the configurations
-    (k instantons of Sp(rank), rank 1 = SU(2)).  ``ratio`` is None where no comparison applies;
-    ``reference`` names what the ratio compares, or the goal.
+    quick: 10^4 points instead of 10^6 (``points`` overrides both); ks: the instanton numbers of the
+    throughput rows; ranks: kept for the command line (the rows use SU(2); Sp(n) takes the same
+    kernels' exact route).  Runs of at most 1024 points (the smoke run) skip the k = 4 pipeline,
+    first-call and cache rows.
     """
     n = int(points) if points is not None else (QUICK_POINTS if quick else FULL_POINTS)
     if n < 1:
         raise ValueError(f"points must be >= 1; found {n}")
-    repeats = 3 if n <= QUICK_POINTS else 1
-    rows = []
-    for rank in ranks:
-        for k in ks:
-            data = _data(int(k), int(rank))
-            label = f"{data.group} k={k}"
-            rows += _throughput_rows(data, label, _points(data, n), repeats)
-    return rows + _numpy_rows(n, repeats)
+    repeats = 3 if n <= QUICK_POINTS else 2
+    roof = _matmul_gflops()
+    rows = [_row("numpy matmul rate (compute roof)", roof, "GFLOP/s")]
+    for k in ks:
+        rows += _throughput_rows(int(k), n, repeats, roof)
+    rows += _numpy_rows(n, repeats)
+    if n > 1024:
+        rows += _fd_rows(FD_POINTS_QUICK if n <= QUICK_POINTS else FD_POINTS_FULL)
+        rows += _first_call_rows()
+        if not quick:
+            rows += _cache_rows()
+    return rows
 
 
 def main(argv=None) -> None:
-    parser = argparse.ArgumentParser(description="Field-layer throughput and compile latency.")
+    parser = argparse.ArgumentParser(description="Field-layer throughput, cost and first calls.")
     parser.add_argument("--quick", action="store_true", help=f"{QUICK_POINTS} points instead of {FULL_POINTS}")
     parser.add_argument("--points", type=int, default=None, help="number of points (overrides --quick)")
     parser.add_argument("--ks", type=int, nargs="+", default=list(KS), help="instanton numbers k")

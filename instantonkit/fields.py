@@ -37,6 +37,7 @@ __all__ = [
     "HOOKS",
     "hook",
     "CallableField",
+    "ParametrisedField",
     "as_field",
     "as_points",
     "potential",
@@ -61,6 +62,9 @@ DEFAULT_CHUNK = 16384
 _ANTI_HERMITIAN_TOL = 1e-10
 
 _METHODS = ("auto", "closed", "autodiff")
+
+#: Quantities a field may compute for a whole batch at once (the ``density_batch`` hook).
+_BATCH_QUANTITIES = ("action_density", "charge_density")
 
 
 # -- the field protocol -----------------------------------------------------------------------------
@@ -108,7 +112,11 @@ class FieldHooks(Protocol):
       g is not finite where this field's gauge is singular (the lattice builds links touching such
       points in the twin's gauge, :func:`instantonkit.lattice.block_links`);
       ``record() -> dict``: a JSON-ready description with a 'kind' key from which
-      :func:`instantonkit.references.field_from_record` rebuilds the field (stored in lattice files).
+      :func:`instantonkit.references.field_from_record` rebuilds the field (stored in lattice files);
+      ``density_batch(points, quantity) -> (m,)``: the closed-form ``action_density`` or
+      ``charge_density`` at a whole batch of points (m, 4) at once (jax-traceable, equal to the
+      per-point closed forms to rounding), used by ``method="auto"`` instead of vmapping them, so a
+      field can lay its work out across points (ADHM data: the batch-major k x k kernels).
     """
 
     def field_strength(self, x: Any) -> Any: ...
@@ -125,6 +133,7 @@ class FieldHooks(Protocol):
     def wrapped_callable(self) -> Any: ...
     def gauge_twin(self) -> tuple[Any, Callable]: ...
     def record(self) -> dict: ...
+    def density_batch(self, points: Any, quantity: str) -> Any: ...
 
 
 #: Names of the optional hooks (methods or attributes), documented in :class:`FieldHooks`.
@@ -145,6 +154,7 @@ HOOKS = (
     "wrapped_callable",
     "gauge_twin",
     "record",
+    "density_batch",
 )
 
 
@@ -206,6 +216,61 @@ class CallableField:
     @classmethod
     def tree_unflatten(cls, aux, children):
         return cls(aux[0])
+
+
+@jax.tree_util.register_pytree_node_class
+@dataclasses.dataclass(frozen=True)
+class ParametrisedField:
+    """A user potential ``fn(x, params)`` whose parameters are pytree leaves: one kernel for every value.
+
+    A closure ``lambda x: A(x, 0.7)`` is static data, so each new value compiles anew (seconds).
+    Here ``params`` (a number, an array or any pytree of them) are leaves, traced by jit like the
+    moduli of ADHM data, so a scan over parameter values compiles once per structure (and shape)
+    of ``params``; only a new ``fn`` compiles again.
+
+    fn: ``fn(x, params)`` with x (4,) float64 -> (4, N, N) anti-Hermitian (jax.numpy), the same ``fn``
+        object for every value of the scan (define it once, outside the loop).
+    params: the parameters (pytree of numbers / arrays; floats become float64 arrays).
+
+    Example::
+
+        def ansatz(x, p):            # p = {"rho": ..., "centre": (4,)}
+            ...
+        for rho in (0.5, 1.0, 1.5, 2.0):
+            s = ik.action_density(ParametrisedField(ansatz, {"rho": rho, "centre": c}), pts)  # one compile
+    """
+
+    fn: Callable[[Any, Any], Any]
+    params: Any = None
+
+    def __post_init__(self):
+        if not callable(self.fn):
+            raise TypeError(f"fn must be a callable fn(x, params); found {type(self.fn).__name__}")
+        leaves, treedef = jax.tree_util.tree_flatten(self.params)
+        if not any(_validate.is_tracer(leaf) for leaf in leaves):
+            leaves = [jnp.asarray(leaf, dtype=jnp.float64) if isinstance(leaf, (int, float)) and not isinstance(leaf, bool) else leaf for leaf in leaves]
+            object.__setattr__(self, "params", jax.tree_util.tree_unflatten(treedef, leaves))
+
+    def potential(self, x):
+        return jnp.asarray(self.fn(x, self.params)).astype(jnp.complex128)
+
+    def describe(self) -> str:
+        """Field hook: one line for reports."""
+        return f"parametrised potential {getattr(self.fn, '__name__', type(self.fn).__name__)}"
+
+    def wrapped_callable(self) -> ParametrisedField:
+        """Field hook: the user callable at the core of a wrapper chain (checked once before compiling)."""
+        return self
+
+    def tree_flatten(self):
+        return (self.params,), (self.fn,)
+
+    @classmethod
+    def tree_unflatten(cls, aux, children):
+        obj = object.__new__(cls)
+        object.__setattr__(obj, "fn", aux[0])
+        object.__setattr__(obj, "params", children[0])
+        return obj
 
 
 def as_field(obj):
@@ -282,6 +347,10 @@ def _kernel(quantity: str, method: str):
     """One jitted, vmapped kernel per (quantity, method); jax caches it per field structure."""
 
     def run(field, pts):
+        if method == "auto" and quantity in _BATCH_QUANTITIES:
+            batch = hook(field, "density_batch")
+            if batch is not None:
+                return batch(pts, quantity)
         return jax.vmap(lambda x: _point_fn(field, quantity, method)(x))(pts)
 
     return jax.jit(run)
@@ -308,7 +377,7 @@ _STRUCT_CACHE: dict = {}
 def _output_struct(kern, field):
     """Shape/dtype of the kernel output for one point, memoised per kernel and field structure."""
     leaves, treedef = jax.tree_util.tree_flatten(field)
-    key = (kern, treedef, tuple((np.shape(l), np.result_type(l)) for l in leaves))
+    key = (kern, treedef, tuple((np.shape(l), np.dtype(l.dtype) if hasattr(l, "dtype") else np.result_type(l)) for l in leaves))
     try:
         hit = _STRUCT_CACHE.get(key)
     except TypeError:  # unhashable static data: no memo

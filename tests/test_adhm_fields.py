@@ -19,6 +19,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import instantonkit as ik
+from instantonkit import _kxk
 from instantonkit import quaternion as qt
 
 N_POINTS = 16
@@ -111,7 +112,7 @@ CONFIGS = {
 }
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def config(name):
     """Data, points and the fields computed once per configuration (shared by the tests below)."""
     c = CONFIGS[name]
@@ -300,3 +301,19 @@ def test_gauge_choice_changes_the_potential():
     cfg = config("SU2-k2")
     a_reg = ik.potential(cfg["data"].with_gauge("regular"), cfg["x"])
     assert rel_err(a_reg, ik.potential(cfg["data"], cfg["x"])) > 1e-3
+
+
+# -- the batch-major kernels: both routes of the SU(2) density agree -----------------------------------
+
+
+@pytest.mark.parametrize("k", [2, 4])
+def test_rank_one_and_exact_routes_agree(k):
+    # The rank-one route (M = u u^dag, P = U U^dag of rank n = 1, pivoted column of P) and the route from
+    # M = 1 - (B - p) f (B - p)^dag give the same s (an identity of this module's derivation).
+    data = ik.random_adhm(k, 1, seed=30 + k)
+    pts = jnp.asarray(points_near(data, seed=k))
+    lam, b = jnp.asarray(data.lam), jnp.asarray(data.B)
+    bp = _kxk.bp_last(b, _kxk.p_last(pts, 1))
+    lo = _kxk.cholesky_last(_kxk.gram_last(lam, bp))
+    fast = _kxk.s_rank_one(lam, bp, lo)
+    np.testing.assert_allclose(np.asarray(fast), np.asarray(_kxk.s_exact(bp, lo)), rtol=1e-11)
