@@ -74,6 +74,11 @@ _ANGULAR_SHARE = 0.25
 #: ... or this fraction of its radial error.
 _ANGULAR_OVER_RADIAL = 0.1
 
+#: A shell dominated by one neighbour (its score _DOMINANCE times the next one's) gets an oriented
+#: S^3 rule with _ASPECT times more nodes in the angle from that neighbour (see _shell_orientation).
+_ASPECT = 4
+_DOMINANCE = 10.0
+
 _EPS = float(np.finfo(np.float64).eps)
 
 
@@ -221,17 +226,24 @@ def _radial_count(level: int) -> int:
     return _RADIAL_COUNTS[min(level, len(_RADIAL_COUNTS) - 1)]
 
 
-def _angular_counts(level: int, periodic: bool) -> tuple[int, int]:
-    """Angular level a: S^3 parameter n = 3 + 2a (R^4), or (S^2 parameter 2 + 2a, time nodes 8 + 4a)."""
+def _angular_counts(level: int, periodic: bool, aspect: int = 1) -> tuple[int, int, int]:
+    """Angular level a -> (n_psi, n_perp, time nodes).
+
+    R^4: the isotropic S^3 parameter n = 3 + 2a (aspect 1), or n_perp = 3 + a, n_psi = aspect n_perp
+    for a shell oriented towards a dominant neighbour; R^3 x S^1: S^2 parameter 2 + 2a and 8 + 4a
+    trapezoid nodes in x4 (n_psi unused, 0).
+    """
     if periodic:
-        return 2 + 2 * level, 8 + 4 * level
-    return 3 + 2 * level, 0
+        return 0, 2 + 2 * level, 8 + 4 * level
+    if aspect <= 1:
+        return 3 + 2 * level, 3 + 2 * level, 0
+    return aspect * (3 + level), 3 + level, 0
 
 
-def _shell_size(level: int, periodic: bool) -> int:
+def _shell_size(level: int, periodic: bool, aspect: int = 1) -> int:
     """Points of one shell at angular level ``level``."""
-    n, nt = _angular_counts(level, periodic)
-    return 2 * n * n * nt if periodic else 2 * n**3
+    n_psi, n, nt = _angular_counts(level, periodic, aspect)
+    return 2 * n * n * nt if periodic else 2 * n_psi * n * n
 
 
 def _greedy(errors: np.ndarray, target: float) -> list[int]:
@@ -258,8 +270,10 @@ class _Piece:
     last_radial_diff: the piece's value at the previous radial level and the difference before that.
     """
 
-    def __init__(self, index, centre, radial_scale, dim):
+    def __init__(self, index, centre, radial_scale, dim, layout=None):
         self.index, self.centre, self.L, self.dim = index, centre, radial_scale, dim
+        self.layout = layout
+        self.axis = self.aspect = None
         self.lr = -1
         self.prev_value = math.nan  # value of the previous radial level
         self.last_radial_diff = math.nan
@@ -276,6 +290,13 @@ class _Piece:
         self.err = np.full(n, math.inf)
         self.diff = np.full(n, math.nan)
         self.mag = np.zeros(n)
+        self.axis, self.aspect = _shell_orientation(self, self.r, self.layout)
+
+    def sizes(self, levels, shells=None) -> int:
+        """Points of the shells ``shells`` (default all) at angular ``levels``."""
+        idx = range(self.r.shape[0]) if shells is None else shells
+        periodic = self.layout.periodic
+        return sum(_shell_size(int(lev), periodic, int(self.aspect[j])) for j, lev in zip(idx, levels))
 
     def levels_for(self, lr: int) -> np.ndarray:
         """Angular levels for the shells of radial level lr: the larger level of the neighbouring old shells."""
@@ -331,7 +352,7 @@ class _State:
     @classmethod
     def start(cls, layout: Layout) -> _State:
         lsc = _quad.radial_scales(layout.centres, layout.scales)
-        pieces = [_Piece(i, layout.centres[i], float(lsc[i]), layout.dim) for i in range(layout.centres.shape[0])]
+        pieces = [_Piece(i, layout.centres[i], float(lsc[i]), layout.dim, layout) for i in range(layout.centres.shape[0])]
         return cls(layout, pieces)
 
     @property
@@ -343,13 +364,47 @@ class _State:
         return math.fsum(p.error for p in self.pieces)
 
 
+def _shell_orientation(piece: _Piece, r: np.ndarray, layout: Layout) -> tuple[np.ndarray, np.ndarray]:
+    """Axis (n, 4) and aspect (n,) of the S^3 rules of the shells of radii r (n,) about piece i.
+
+    The neighbour j that dominates a shell, by the score rho_j^2 / ((d_ij - r)^2 + rho_j^2) (rho_j / d_ij)^4
+    (close to the shell, large and near), shows up in the piece's integrand w_i f as structure that
+    depends mostly on the angle from the direction of a_j (the partition's transition and the
+    neighbour's lump, both nearly symmetric about the line a_i a_j), so the shell's rule takes its
+    pole there with _ASPECT times more nodes in that angle than across, when the best score beats the
+    second by _DOMINANCE (else the isotropic rule, aspect 1).  On R^3 x S^1 and for one centre: aspect 1.
+    """
+    n = r.shape[0]
+    axis = np.tile(np.array([0.0, 0.0, 0.0, 1.0]), (n, 1))
+    aspect = np.ones(n, dtype=int)
+    c = layout.centres
+    if layout.periodic or c.shape[0] == 1:
+        return axis, aspect
+    diff = c - piece.centre[None, :]
+    d = np.linalg.norm(diff, axis=1)
+    d[piece.index] = np.inf
+    rho = layout.scales
+    score = rho[None, :] ** 2 / ((d[None, :] - r[:, None]) ** 2 + rho[None, :] ** 2) * (rho / d)[None, :] ** 4
+    order = np.argsort(-score, axis=1)
+    best = order[:, 0]
+    axis = diff[best] / d[best][:, None]
+    if c.shape[0] == 2:
+        aspect[:] = _ASPECT
+    else:
+        rows = np.arange(n)
+        ratio = score[rows, best] / np.maximum(score[rows, order[:, 1]], 1e-300)
+        aspect[ratio >= _DOMINANCE] = _ASPECT
+    return axis, aspect
+
+
 def _shell_rule(piece: _Piece, j: int, level: int, layout: Layout) -> tuple[np.ndarray, np.ndarray]:
     """Points (M, 4) and weights (M,) of shell j of ``piece`` at angular level ``level``."""
     period = layout.period
-    n, nt = _angular_counts(level, layout.periodic)
+    _, n, nt = _angular_counts(level, layout.periodic)
     a, r, wr = piece.centre, piece.r[j], piece.wr[j]
     if period is None:
-        dirs, wd = _quad.sphere3_nodes(n)
+        n_psi, n, _ = _angular_counts(level, False, int(piece.aspect[j]))
+        dirs, wd = _quad.sphere3_oriented(n_psi, n, piece.axis[j]) if layout.centres.shape[0] > 1 else _quad.sphere3_nodes(n)
         pts = a[None, :] + r * dirs
         w = wr * wd
     else:
@@ -411,26 +466,50 @@ def _apply(requests: Sequence[_ShellRequest], sums) -> None:
             p.val[j], p.mag[j], p.la[j] = v, mag, lev
 
 
-def _initial_rounds(state: _State, density, name: str) -> None:
-    """Radial levels 0 and 1 of every piece (each shell at two angular levels), and the decay probe."""
+def _level_need(piece: _Piece, lr: int, init, layout: Layout) -> int:
+    """Points of moving ``piece`` to radial level lr with initial angular levels ``init`` (lo and hi per shell)."""
+    r_new = _quad.radial_nodes(_radial_count(lr), piece.L, piece.dim)[0]
+    asp = _shell_orientation(piece, r_new, layout)[1]
+    return sum(_shell_size(int(max(lev - 1, 0)), layout.periodic, int(a)) + _shell_size(int(max(lev, 1)), layout.periodic, int(a))
+               for lev, a in zip(init, asp))
+
+
+def _initial_rounds(state: _State, density, name: str, max_points: int) -> str:
+    """Radial levels 0 and 1 of every piece (each shell at two angular levels), and the decay probe.
+
+    Returns "" or, when radial level 1 does not fit ``max_points``, the budget message (the integral
+    then stops after level 0 with an infinite error estimate).
+    Raises ValueError naming max_points when not even level 0 and the probe fit.
+    """
     probe, radii = _probe_points(state.layout)
+    init0 = np.ones(_radial_count(0), dtype=int)
+    need0 = probe.shape[0] + sum(_level_need(p, 0, init0, state.layout) for p in state.pieces)
+    if need0 > max_points:
+        raise ValueError(f"max_points must be at least {need0:,} for this layout of {len(state.pieces)} centre(s) "
+                         f"(the first round); found {max_points:,}")
     reqs0 = []
     for p in state.pieces:
-        reqs0 += _new_level_requests(p, 0, np.ones(_radial_count(0), dtype=int))
+        reqs0 += _new_level_requests(p, 0, init0)
     res0, probe_vals = _evaluate(state, density, reqs0, probe)
     magnitude = float(sum(mag for q, (_, mag) in zip(reqs0, res0) if q.kind == "hi"))
     _check_decay(name, probe_vals, radii, state.layout, magnitude)
     _apply(reqs0, res0)
     for p in state.pieces:
         p.prev_value = p.value
+    inits = [p.levels_for(1) for p in state.pieces]
+    need1 = sum(_level_need(p, 1, init, state.layout) for p, init in zip(state.pieces, inits))
+    if state.evaluations + need1 > max_points:
+        return (f"budget spent: the second round needs {need1:,} more points, beyond max_points = {max_points:,} "
+                f"({state.evaluations:,} used); no error estimate of the radial rule yet")
     reqs1 = []
-    for p in state.pieces:
-        reqs1 += _new_level_requests(p, 1, p.levels_for(1))
+    for p, init in zip(state.pieces, inits):
+        reqs1 += _new_level_requests(p, 1, init)
     res1, _ = _evaluate(state, density, reqs1)
     _apply(reqs1, res1)
     for p in state.pieces:
         p.update_radial_error()
     state.rounds = 1
+    return ""
 
 
 def _plan_round(state: _State, tol: float) -> tuple[list[_Piece], list[_Plan], int]:
@@ -449,12 +528,11 @@ def _plan_round(state: _State, tol: float) -> tuple[list[_Piece], list[_Plan], i
         if p.angular_err > max(_ANGULAR_SHARE * share, _ANGULAR_OVER_RADIAL * p.radial_err) or p.lr >= MAX_RADIAL_LEVEL:
             idx = [j for j in _greedy(p.err, _REFINE_TARGET * p.angular_err) if p.la[j] < MAX_ANGULAR_LEVEL]
             plans.append(_Plan(p, "angular", idx))
-            need += sum(_shell_size(int(p.la[j]) + 1, periodic) for j in idx)
+            need += sum(_shell_size(int(p.la[j]) + 1, periodic, int(p.aspect[j])) for j in idx)
         elif p.lr < MAX_RADIAL_LEVEL:
             init = p.levels_for(p.lr + 1)
             plans.append(_Plan(p, "radial", init))
-            need += sum(_shell_size(int(max(lev - 1, 0)), periodic) + _shell_size(int(max(lev, 1)), periodic)
-                        for lev in init)
+            need += _level_need(p, p.lr + 1, init, state.layout)
     return chosen, plans, need
 
 
@@ -489,7 +567,7 @@ def _rule_description(state: _State) -> str:
     parts = []
     for p in state.pieces:
         lo, hi = int(p.la.min()), int(p.la.max())
-        n_lo, n_hi = _angular_counts(lo, periodic)[0], _angular_counts(hi, periodic)[0]
+        n_lo, n_hi = _angular_counts(lo, periodic)[1], _angular_counts(hi, periodic)[1]
         sphere = "S^2 x circle" if periodic else "S^3"
         parts.append(f"{p.r.shape[0]} radial nodes (L = {p.L:.3g}), {sphere} parameter {n_lo}..{n_hi}")
     k = len(state.pieces)
@@ -504,7 +582,7 @@ def final_rule(state: _State, max_points: int) -> _quad.Rule:
     periodic = state.layout.periodic
     cap = MAX_ANGULAR_LEVEL
     while cap > 0:
-        total = sum(_shell_size(int(lev), periodic) for p in state.pieces for lev in np.minimum(p.la, cap))
+        total = sum(p.sizes(np.minimum(p.la, cap)) for p in state.pieces)
         if total <= max_points:
             break
         cap -= 1
@@ -522,11 +600,14 @@ def integrate_adaptive(density, name: str, layout: Layout, *, rtol: float, atol:
                    sink) -> tuple[IntegralResult, _State]:
     """One adaptive integral: the initial rounds, then planned rounds until converged or stopped."""
     state = _State.start(layout)
-    _initial_rounds(state, density, name)
+    first = _initial_rounds(state, density, name, max_points)
     converged, message = False, ""
     while True:
         value, error = state.value, state.error
         tol = max(atol, rtol * abs(value))
+        if first:
+            message = first
+            break
         if sink is not None:
             sink(dict(quantity=name, round=state.rounds, evaluations=state.evaluations, value=value, error=error, done=False))
         if error <= tol:

@@ -44,6 +44,7 @@ __all__ = [
     "radial_nodes",
     "sphere2_nodes",
     "sphere3_nodes",
+    "sphere3_oriented",
     "partition_weights",
     "rule_r4",
     "rule_r4_piece",
@@ -181,6 +182,43 @@ def sphere3_nodes(n: int) -> tuple[np.ndarray, np.ndarray]:
     """
     d, w = _sphere3(_check_count("n", n))
     return d.copy(), w.copy()
+
+
+@functools.lru_cache(maxsize=256)
+def _sphere3_aniso(n_psi: int, n_perp: int) -> tuple[np.ndarray, np.ndarray]:
+    cp, wp = roots_chebyu(n_psi)
+    sp = np.sqrt(1.0 - cp**2)
+    d2, w2 = _sphere2(n_perp)
+    dirs = np.concatenate(
+        [(sp[:, None, None] * d2[None, :, :]), np.broadcast_to(cp[:, None, None], (n_psi, d2.shape[0], 1))], axis=-1
+    ).reshape(-1, 4)
+    return dirs, (wp[:, None] * w2[None, :]).reshape(-1)
+
+
+def sphere3_oriented(n_psi: int, n_perp: int, axis=None) -> tuple[np.ndarray, np.ndarray]:
+    """Anisotropic product rule on S^3 with its pole along the unit vector ``axis``.
+
+    Gauss-Chebyshev (second kind) in cos(psi), psi the angle from ``axis``, with ``n_psi`` nodes, times
+    the S^2 rule of :func:`sphere2_nodes` with parameter ``n_perp``; exact for polynomials of degree
+    <= 2 n_psi - 1 in cos(psi) times harmonics of degree <= 2 n_perp - 1 on the S^2 (as in
+    :func:`sphere3_nodes`, which is the case n_psi = n_perp, axis = e4).  A density that varies mostly
+    with the angle from ``axis`` (a neighbour's lump seen from a centre) needs many nodes in psi and
+    few across.  ``axis=None`` is e4; otherwise e4 is reflected onto ``axis`` (a Householder reflection).
+
+    Returns directions (2 n_psi n_perp^2, 4) and weights summing to 2 pi^2.
+    """
+    dirs, w = _sphere3_aniso(_check_count("n_psi", n_psi), _check_count("n_perp", n_perp))
+    dirs = dirs.copy()
+    if axis is not None:
+        e = np.asarray(axis, dtype=np.float64).reshape(4)
+        norm = float(np.linalg.norm(e))
+        if not np.isfinite(norm) or norm == 0.0:
+            raise ValueError(f"axis must be a finite nonzero (4,) vector; found {e.tolist()}")
+        v = e / norm - np.array([0.0, 0.0, 0.0, 1.0])
+        nv = float(v @ v)
+        if nv > 1e-30:
+            dirs -= 2.0 * np.outer(dirs @ v, v) / nv
+    return dirs, w.copy()
 
 
 # -- partition of unity -------------------------------------------------------------------------------

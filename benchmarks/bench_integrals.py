@@ -1,0 +1,77 @@
+"""The integrals at their default tolerance: total_charge of random ADHM data, k = 1..4 at 1e-10, k = 8 at 1e-8.
+
+Rows per charge k: time, points, |Q - k|, the reported error and its ratio to the true error (must be
+>= 1), and the integrator's overhead: its time over the time of evaluating the same number of points of
+the density alone, measured in the same run (so the figure does not depend on the machine's load the
+way seconds do).  ``run(quick)`` returns rows {figure, value, unit, ratio, reference}; ``quick`` caps
+every integral at 300,000 points and skips k = 8.  Q = k for ADHM data (Atiyah, Hitchin, Drinfeld,
+Manin, Phys. Lett. A 65 (1978) 185).
+"""
+
+from __future__ import annotations
+
+import argparse
+import time
+
+import numpy as np
+
+import instantonkit as ik
+from instantonkit import fields, integrals
+
+#: (k, tolerance) of the rows: the issue's goals (k <= 4 to 1e-10 in <= 10 s, k = 8 to 1e-8 in <= 60 s).
+CASES = ((1, 1e-10, 10.0), (2, 1e-10, 10.0), (3, 1e-10, 10.0), (4, 1e-10, 10.0), (8, 1e-8, 60.0))
+#: Budget of the quick run (points per integral).
+QUICK_POINTS = 300_000
+#: Budget for k = 8 in the full run: beyond it a loaded two-core machine takes many minutes.
+K8_POINTS = 1_000_000
+
+
+def _rate(data, n: int = 4 * integrals.ENGINE_CHUNK) -> float:
+    """Points per second of the charge density alone (compiled, in ENGINE_CHUNK batches)."""
+    pts = np.random.default_rng(0).normal(scale=2.0, size=(n, 4))
+    fields.evaluate(data, pts[: integrals.ENGINE_CHUNK], "charge_density", chunk_size=integrals.ENGINE_CHUNK)
+    t = time.perf_counter()
+    fields.evaluate(data, pts, "charge_density", chunk_size=integrals.ENGINE_CHUNK)
+    return n / (time.perf_counter() - t)
+
+
+def run(quick: bool = False, ks=None) -> list[dict]:
+    """Rows {figure, value, unit, ratio, reference} for total_charge of random ADHM data (seed = k)."""
+    rows = []
+    for k, tol, goal in CASES:
+        if (ks is not None and k not in ks) or (quick and k == 8):
+            continue
+        data = ik.random_adhm(k, seed=k)
+        budget = QUICK_POINTS if quick else (K8_POINTS if k == 8 else integrals.DEFAULT_MAX_POINTS)
+        rate = _rate(data)
+        t = time.perf_counter()
+        res = integrals.total_charge(data, rtol=tol, atol=tol, max_points=budget)
+        dt = time.perf_counter() - t
+        err = abs(res.value - k)
+        tag = f"total_charge, random ADHM k = {k} at {tol:g}"
+        state = "converged" if res.converged else "NOT converged"
+        rows += [
+            dict(figure=f"{tag}: time", value=dt, unit="s", ratio=dt / goal, reference=f"goal {goal:g} s; {state}"),
+            dict(figure=f"{tag}: points", value=res.evaluations, unit="points", ratio=res.evaluations / budget,
+                 reference=f"budget {budget:,}"),
+            dict(figure=f"{tag}: |Q - k|", value=err, unit="", ratio=err / tol, reference=f"goal {tol:g} (Q = k, ADHM 1978)"),
+            dict(figure=f"{tag}: reported error", value=res.error, unit="", ratio=res.error / max(err, 1e-300),
+                 reference="ratio = reported / true error, must be >= 1"),
+            dict(figure=f"{tag}: integrator overhead", value=dt * rate / max(res.evaluations, 1), unit="x",
+                 ratio=None, reference=f"time / (points / density rate {rate:.3g} points/s, same run)"),
+        ]
+    return rows
+
+
+def main(argv=None) -> None:
+    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p.add_argument("--quick", action="store_true", help="300,000 points per integral, no k = 8")
+    p.add_argument("--json", action="store_true", help="print the rows as JSON")
+    args = p.parse_args(argv)
+    from benchmarks.run import print_rows  # deferred as in the other scripts
+
+    print_rows(run(args.quick), args.json)
+
+
+if __name__ == "__main__":
+    main()
