@@ -74,10 +74,11 @@ _ANGULAR_SHARE = 0.25
 #: ... or this fraction of its radial error.
 _ANGULAR_OVER_RADIAL = 0.1
 
-#: A shell dominated by one neighbour (its score _DOMINANCE times the next one's) gets an oriented
-#: S^3 rule with _ASPECT times more nodes in the angle from that neighbour (see _shell_orientation).
-_ASPECT = 4
-_DOMINANCE = 10.0
+#: Oriented shell rules and radial panels (see _shell_orientation and _piece_radial_nodes; _ASPECT = 1 and
+#: _PANELS = False give the earlier rules, the benchmark's reference): aspect, dominance, separation in
+#: rho_j; panel cuts at d_ij -+ _PANEL_HALF_WIDTH rho_j, panels >= _PANEL_MIN_LENGTH in u, >= _PANEL_MIN nodes.
+_ASPECT, _DOMINANCE, _PANEL_SEPARATION = 4, 10.0, 6.0
+_PANELS, _PANEL_HALF_WIDTH, _PANEL_MIN_LENGTH, _PANEL_MIN = True, 2.0, 0.02, 6
 
 _EPS = float(np.finfo(np.float64).eps)
 
@@ -158,40 +159,10 @@ class Layout:
 # -- decay at infinity -----------------------------------------------------------------------------
 
 
-def _probe_points(layout: Layout) -> tuple[np.ndarray, np.ndarray]:
-    """Points along _PROBE_RAYS rays at radii _PROBE_RADIUS L 2^j about the mean centre: (points (P, 4), radii)."""
-    c0 = layout.centres.mean(axis=0)
-    radii = _PROBE_RADIUS * layout.extent * 2.0 ** np.arange(_PROBE_RADII)
-    rng = np.random.default_rng(_PROBE_SEED)
-    dim = layout.dim
-    dirs = rng.normal(size=(_PROBE_RAYS, dim))
-    dirs /= np.linalg.norm(dirs, axis=1, keepdims=True)
-    if dim == 3:
-        dirs = np.concatenate([dirs, np.zeros((_PROBE_RAYS, 1))], axis=1)
-    pts = c0[None, None, :] + radii[:, None, None] * dirs[None, :, :]
-    return pts.reshape(-1, 4), radii
-
-
-def _decay_exponent(values: np.ndarray, radii: np.ndarray, dim: int = 4, magnitude: float = 0.0) -> float | None:
-    """p in |f| ~ r^-p from the largest |f| over rays at the two largest radii.
-
-    None if f vanishes there, or if the tail it implies, about |f| R^dim times the area of the unit
-    sphere, is below double-precision rounding of ``magnitude`` (the size of the integral seen so far):
-    then the decay seen is rounding noise of a field that has already gone to zero.
-    """
-    v = np.max(np.abs(values.reshape(radii.shape[0], -1)), axis=1)
-    if v[-1] <= _PROBE_ZERO or v[-2] <= _PROBE_ZERO:
-        return None
-    if max(v[-2], v[-1]) * radii[-2] ** dim * _PROBE_AREA <= _PROBE_NOISE * magnitude:
-        return None
-    p = [-math.log(v[j + 1] / v[j]) / math.log(radii[j + 1] / radii[j]) for j in range(len(radii) - 1) if v[j] > 0]
-    return float(min(p[-2:])) if p else None
-
-
 def _check_decay(name: str, values: np.ndarray, radii: np.ndarray, layout: Layout, magnitude: float) -> None:
     """Raise DivergentIntegralError when the probed density falls slower than |x|^-(d + _DECAY_MARGIN)."""
     dim = layout.dim
-    p_exp = _decay_exponent(values, radii, dim, magnitude)
+    p_exp = _quad.decay_exponent(values, radii, dim, magnitude, zero=_PROBE_ZERO, area=_PROBE_AREA, noise=_PROBE_NOISE)
     if p_exp is None or p_exp >= dim + _DECAY_MARGIN:
         return
     verdict = "diverges" if p_exp <= dim + _DIVERGENCE_MARGIN else "converges too slowly to estimate"
@@ -237,6 +208,7 @@ def _angular_counts(level: int, periodic: bool, aspect: int = 1) -> tuple[int, i
         return 0, 2 + 2 * level, 8 + 4 * level
     if aspect <= 1:
         return 3 + 2 * level, 3 + 2 * level, 0
+
     return aspect * (3 + level), 3 + level, 0
 
 
@@ -272,35 +244,25 @@ class _Piece:
 
     def __init__(self, index, centre, radial_scale, dim, layout=None):
         self.index, self.centre, self.L, self.dim = index, centre, radial_scale, dim
-        self.layout = layout
-        self.axis = self.aspect = None
-        self.lr = -1
-        self.prev_value = math.nan  # value of the previous radial level
-        self.last_radial_diff = math.nan
-        self.radial_err = math.inf
-        self.r = self.wr = None
-        self.la = self.val = self.err = self.diff = self.mag = None
+        self.layout, self.axis, self.aspect, self.lr = layout, None, None, -1
+        self.prev_value, self.last_radial_diff, self.radial_err = math.nan, math.nan, math.inf
+        self.r = self.wr = self.la = self.val = self.err = self.diff = self.mag = None
 
     def set_radial_level(self, lr: int, init_levels: np.ndarray) -> None:
         self.lr = lr
-        self.r, self.wr = _quad.radial_nodes(_radial_count(lr), self.L, self.dim)
+        self.r, self.wr = _piece_radial_nodes(self, lr)
         self.la = np.asarray(init_levels, dtype=int)
         n = self.r.shape[0]
-        self.val = np.zeros(n)
-        self.err = np.full(n, math.inf)
-        self.diff = np.full(n, math.nan)
-        self.mag = np.zeros(n)
+        self.val, self.err, self.diff, self.mag = np.zeros(n), np.full(n, math.inf), np.full(n, math.nan), np.zeros(n)
         self.axis, self.aspect = _shell_orientation(self, self.r, self.layout)
 
-    def sizes(self, levels, shells=None) -> int:
-        """Points of the shells ``shells`` (default all) at angular ``levels``."""
-        idx = range(self.r.shape[0]) if shells is None else shells
-        periodic = self.layout.periodic
-        return sum(_shell_size(int(lev), periodic, int(self.aspect[j])) for j, lev in zip(idx, levels))
+    def sizes(self, levels) -> int:
+        """Points of all shells at angular ``levels`` (n,)."""
+        return sum(_shell_size(int(lev), self.layout.periodic, int(a)) for lev, a in zip(levels, self.aspect))
 
     def levels_for(self, lr: int) -> np.ndarray:
         """Angular levels for the shells of radial level lr: the larger level of the neighbouring old shells."""
-        r_new = _quad.radial_nodes(_radial_count(lr), self.L, self.dim)[0]
+        r_new = _piece_radial_nodes(self, lr)[0]
         j = np.clip(np.searchsorted(self.r, r_new), 1, self.r.shape[0] - 1)
         return np.maximum(self.la[j - 1], self.la[j])
 
@@ -321,6 +283,26 @@ class _Piece:
             self.radial_err, _ = _piece_error(self.value - self.prev_value, self.last_radial_diff, 0.0)
         else:
             self.radial_err = math.inf
+
+
+def _piece_radial_nodes(piece: _Piece, lr: int) -> tuple[np.ndarray, np.ndarray]:
+    """Radial nodes and weights of piece i at radial level lr (:func:`instantonkit.quadrature.radial_panel_nodes`).
+
+    One centre (or the reference rules, _PANELS False): one Gauss-Legendre rule in u.  Several: the
+    u-interval is cut at r = d_ij -+ _PANEL_HALF_WIDTH rho_j around the distance of every neighbour
+    farther than _PANEL_SEPARATION rho_j (measured here: cuts between overlapping lumps cost more than
+    they gain), so the narrow structure a far neighbour leaves in the radial integrand gets its own panel.
+    """
+    n = _radial_count(lr)
+    layout = piece.layout
+    if layout is None or layout.centres.shape[0] == 1 or not _PANELS:
+        return _quad.radial_nodes(n, piece.L, piece.dim)
+    d = np.linalg.norm((layout.centres - piece.centre[None, :])[:, : piece.dim], axis=1)
+    others = (np.arange(d.shape[0]) != piece.index) & (d >= _PANEL_SEPARATION * layout.scales)
+    cuts = np.concatenate([d[others] - _PANEL_HALF_WIDTH * layout.scales[others],
+                           d[others] + _PANEL_HALF_WIDTH * layout.scales[others]])
+    return _quad.radial_panel_nodes(n, piece.L, piece.dim, cuts[cuts > 0], min_length=_PANEL_MIN_LENGTH,
+                                    min_nodes=_PANEL_MIN)
 
 
 class _ShellRequest(NamedTuple):
@@ -367,34 +349,14 @@ class _State:
 def _shell_orientation(piece: _Piece, r: np.ndarray, layout: Layout) -> tuple[np.ndarray, np.ndarray]:
     """Axis (n, 4) and aspect (n,) of the S^3 rules of the shells of radii r (n,) about piece i.
 
-    The neighbour j that dominates a shell, by the score rho_j^2 / ((d_ij - r)^2 + rho_j^2) (rho_j / d_ij)^4
-    (close to the shell, large and near), shows up in the piece's integrand w_i f as structure that
-    depends mostly on the angle from the direction of a_j (the partition's transition and the
-    neighbour's lump, both nearly symmetric about the line a_i a_j), so the shell's rule takes its
-    pole there with _ASPECT times more nodes in that angle than across, when the best score beats the
-    second by _DOMINANCE (else the isotropic rule, aspect 1).  On R^3 x S^1 and for one centre: aspect 1.
+    See :func:`instantonkit.quadrature.shell_axes`; aspect 1 everywhere on R^3 x S^1, for one centre,
+    and with the reference rules (_ASPECT = 1).
     """
     n = r.shape[0]
-    axis = np.tile(np.array([0.0, 0.0, 0.0, 1.0]), (n, 1))
-    aspect = np.ones(n, dtype=int)
-    c = layout.centres
-    if layout.periodic or c.shape[0] == 1:
-        return axis, aspect
-    diff = c - piece.centre[None, :]
-    d = np.linalg.norm(diff, axis=1)
-    d[piece.index] = np.inf
-    rho = layout.scales
-    score = rho[None, :] ** 2 / ((d[None, :] - r[:, None]) ** 2 + rho[None, :] ** 2) * (rho / d)[None, :] ** 4
-    order = np.argsort(-score, axis=1)
-    best = order[:, 0]
-    axis = diff[best] / d[best][:, None]
-    if c.shape[0] == 2:
-        aspect[:] = _ASPECT
-    else:
-        rows = np.arange(n)
-        ratio = score[rows, best] / np.maximum(score[rows, order[:, 1]], 1e-300)
-        aspect[ratio >= _DOMINANCE] = _ASPECT
-    return axis, aspect
+    if layout.periodic or layout.centres.shape[0] == 1 or _ASPECT <= 1:
+        return np.tile(np.array([0.0, 0.0, 0.0, 1.0]), (n, 1)), np.ones(n, dtype=int)
+    return _quad.shell_axes(layout.centres, layout.scales, piece.index, r, aspect=_ASPECT,
+                            dominance=_DOMINANCE, separation=_PANEL_SEPARATION)
 
 
 def _shell_rule(piece: _Piece, j: int, level: int, layout: Layout) -> tuple[np.ndarray, np.ndarray]:
@@ -468,7 +430,7 @@ def _apply(requests: Sequence[_ShellRequest], sums) -> None:
 
 def _level_need(piece: _Piece, lr: int, init, layout: Layout) -> int:
     """Points of moving ``piece`` to radial level lr with initial angular levels ``init`` (lo and hi per shell)."""
-    r_new = _quad.radial_nodes(_radial_count(lr), piece.L, piece.dim)[0]
+    r_new = _piece_radial_nodes(piece, lr)[0]
     asp = _shell_orientation(piece, r_new, layout)[1]
     return sum(_shell_size(int(max(lev - 1, 0)), layout.periodic, int(a)) + _shell_size(int(max(lev, 1)), layout.periodic, int(a))
                for lev, a in zip(init, asp))
@@ -481,15 +443,16 @@ def _initial_rounds(state: _State, density, name: str, max_points: int) -> str:
     then stops after level 0 with an infinite error estimate).
     Raises ValueError naming max_points when not even level 0 and the probe fit.
     """
-    probe, radii = _probe_points(state.layout)
-    init0 = np.ones(_radial_count(0), dtype=int)
-    need0 = probe.shape[0] + sum(_level_need(p, 0, init0, state.layout) for p in state.pieces)
+    radii = _PROBE_RADIUS * state.layout.extent * 2.0 ** np.arange(_PROBE_RADII)  # rays about the mean centre
+    probe = _quad.ray_points(state.layout.centres.mean(axis=0), radii, state.layout.dim, _PROBE_RAYS, _PROBE_SEED)
+    init0 = [np.ones(_piece_radial_nodes(p, 0)[0].shape[0], dtype=int) for p in state.pieces]
+    need0 = probe.shape[0] + sum(_level_need(p, 0, i0, state.layout) for p, i0 in zip(state.pieces, init0))
     if need0 > max_points:
         raise ValueError(f"max_points must be at least {need0:,} for this layout of {len(state.pieces)} centre(s) "
                          f"(the first round); found {max_points:,}")
     reqs0 = []
-    for p in state.pieces:
-        reqs0 += _new_level_requests(p, 0, init0)
+    for p, i0 in zip(state.pieces, init0):
+        reqs0 += _new_level_requests(p, 0, i0)
     res0, probe_vals = _evaluate(state, density, reqs0, probe)
     magnitude = float(sum(mag for q, (_, mag) in zip(reqs0, res0) if q.kind == "hi"))
     _check_decay(name, probe_vals, radii, state.layout, magnitude)
