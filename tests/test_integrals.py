@@ -51,3 +51,8 @@ def test_caloron_action_error_bounds_the_true_error():
     res = integrals.total_action(ansatz.caloron(0.7, 2.0, (0.1, 0.0, -0.2, 0.3)), rtol=1e-9, atol=1e-9)
     assert res.converged and "R^3 x S^1" in res.rule
     assert abs(res.value - EIGHT_PI2) <= res.error
+
+
+def test_a_budget_below_the_first_round_is_refused_naming_max_points():
+    with pytest.raises(ValueError, match="max_points must be at least"):
+        integrals.total_charge(ik.random_adhm(3, seed=3), max_points=1000)

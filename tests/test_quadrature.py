@@ -53,3 +53,20 @@ def test_oriented_rule_names_a_bad_axis():
         qd.sphere3_oriented(4, 3, np.zeros(4))
     with pytest.raises((ValueError, TypeError), match="n_psi"):
         qd.sphere3_oriented(0, 3, E)
+
+
+def test_radial_panels_reproduce_the_bpst_radial_integral():
+    # int_0^inf 48 rho^4 r^3 / (r^2 + rho^2)^4 dr * 2 pi^2 = 8 pi^2 (Belavin, Polyakov, Schwartz, Tyupkin 1975)
+    rho = 0.9
+    r, w = qd.radial_panel_nodes(48, 2.0, 4, [3.0, 7.0, 11.0])
+    assert np.all(np.diff(r) > 0) and r.shape == w.shape
+    s = 48 * rho**4 / (r**2 + rho**2) ** 4
+    assert abs(2 * math.pi**2 * np.sum(w * s) - 8 * math.pi**2) <= 1e-10 * 8 * math.pi**2
+
+
+def test_shell_axes_point_at_the_neighbour_and_keep_overlapping_triples_isotropic():
+    far = np.array([[0.0, 0, 0, 0], [10.0, 0, 0, 0], [0.0, 0, 0, -20.0]])
+    axis, aspect = qd.shell_axes(far, np.ones(3), 0, np.array([1.0, 10.0]))
+    assert np.allclose(axis[1], [1, 0, 0, 0]) and aspect[1] == 4
+    close = np.array([[0.0, 0, 0, 0], [2.0, 0, 0, 0], [0.0, 2.0, 0, 0]])
+    assert np.all(qd.shell_axes(close, np.ones(3), 0, np.array([1.0, 2.0]))[1] == 1)
