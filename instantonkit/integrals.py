@@ -4,8 +4,9 @@
 ``s = -1/2 sum tr F F`` and the charge density ``q = -1/(32 pi^2) eps tr F F`` (conventions module)
 with the building blocks of :mod:`instantonkit.quadrature`: one hyperspherical rule per centre, glued
 by a smooth partition of unity.  Each piece is adaptive in two ways: Gauss-Legendre radial levels in
-``u`` (``r = L u / (1 - u)``), and for every radial node (a shell) its own angular level of the product
-rule on S^3 (or S^2 x the x4 circle).  Refinement goes to the pieces and shells that carry the error
+``u`` (``r = L u / (1 - u)``, in panels about far neighbours), and for every radial node (a shell) its
+own angular level of a product rule on S^3 (or S^2 x the x4 circle), oriented towards the neighbour
+that dominates the shell (:mod:`instantonkit.cubature`).  Refinement goes to the pieces and shells that carry the error
 until it meets ``max(atol, rtol |value|)`` or the ``max_points`` budget is spent (then ``converged`` is
 False and ``message`` says so).  Error estimates are differences of the last two levels, enlarged when
 the levels converge slowly (see ``_piece_error``), plus a rounding floor.
@@ -244,7 +245,8 @@ def integrate(
     Args:
       field: a field (or callable potential); requests: DensityRequest s; layout: from :func:`layout_of`.
       rtol, atol: refine until error <= max(atol, rtol |value|) (finite, >= 0, not both 0).
-      max_points: density evaluations per integral; progress: None | bool | callable (dict per round).
+      max_points: density evaluations per integral (never exceeded; ValueError when even the first
+        round does not fit); progress: None | bool | callable (dict per round).
       rule_points: None, or the number of points (about) of each final rule returned in ``rules``.
     Returns:
       IntegrationOutcome(results (IntegralResult per request), rules (quadrature.Rule per request or ())).
