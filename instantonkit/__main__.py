@@ -44,7 +44,11 @@ DEMO_CHARGE = 3
 DEMO_CENTERS = np.array([[0.0, 0.0, 0.0, 0.0], [4.0, 1.0, 0.0, -1.0], [-1.5, 3.5, 1.0, 2.0]])
 DEMO_SIZES = np.array([1.0, 0.7, 1.2])
 DEMO_ORIENTATIONS = np.array(
-    [[1.0, 0.0, 0.0, 0.0], [np.cos(0.4), np.sin(0.4), 0.0, 0.0], [np.cos(1.1), 0.0, np.sin(1.1) * 0.6, np.sin(1.1) * 0.8]]
+    [
+        [1.0, 0.0, 0.0, 0.0],
+        [np.cos(0.4), np.sin(0.4), 0.0, 0.0],
+        [np.cos(1.1), 0.0, np.sin(1.1) * 0.6, np.sin(1.1) * 0.8],
+    ]
 )
 
 #: Exit status per verdict (2 is for bad arguments).
@@ -62,8 +66,13 @@ def demo_configuration() -> ADHMData:
 
 def save_adhm(path, data: ADHMData) -> None:
     """Write ADHM data in the file format ``verify`` reads: .npz with lam, B, chirality, gauge."""
-    np.savez(path, lam=np.asarray(data.lam), B=np.asarray(data.B), chirality=np.int64(data.chirality),
-             gauge=np.str_(data.gauge))
+    np.savez(
+        path,
+        lam=np.asarray(data.lam),
+        B=np.asarray(data.B),
+        chirality=np.int64(data.chirality),
+        gauge=np.str_(data.gauge),
+    )
 
 
 def load_adhm(path) -> ADHMData:
@@ -74,8 +83,12 @@ def load_adhm(path) -> ADHMData:
                 raise UsageError(f"{path}: an ADHM data file needs arrays 'lam' and 'B'; found {sorted(z.files)}")
             chir = int(z["chirality"]) if "chirality" in z else 1
             gauge = str(z["gauge"]) if "gauge" in z else "singular"
-            return ADHMData(np.asarray(z["lam"], dtype=np.float64), np.asarray(z["B"], dtype=np.float64),
-                            chirality=chir, gauge=gauge)
+            return ADHMData(
+                np.asarray(z["lam"], dtype=np.float64),
+                np.asarray(z["B"], dtype=np.float64),
+                chirality=chir,
+                gauge=gauge,
+            )
     except (OSError, ValueError, TypeError) as err:
         raise UsageError(f"cannot read ADHM data from {path}: {err}") from err
 
@@ -116,11 +129,15 @@ def load_target(target: str):
     if not callable(obj):
         raise UsageError(f"{target} is neither a field (an object with potential(x)) nor a callable")
     try:
-        params = [p for p in inspect.signature(obj).parameters.values()
-                  if p.default is p.empty and p.kind in (p.POSITIONAL_ONLY, p.POSITIONAL_OR_KEYWORD)]
-    except (TypeError, ValueError):
-        params = [None]
-    if not params:  # a factory
+        params = [
+            p
+            for p in inspect.signature(obj).parameters.values()
+            if p.default is p.empty and p.kind in (p.POSITIONAL_ONLY, p.POSITIONAL_OR_KEYWORD)
+        ]
+        factory = not params
+    except (TypeError, ValueError):  # no signature (a builtin): a potential
+        factory = False
+    if factory:
         try:
             obj = obj()
         except Exception as err:
@@ -147,9 +164,11 @@ class _Parser(argparse.ArgumentParser):
 
 
 def _parser() -> argparse.ArgumentParser:
-    p = _Parser(prog="python -m instantonkit",
-                description="Verify the default three-instanton configuration, or a field: "
-                            "python -m instantonkit verify module:attribute | data.npz [options].")
+    p = _Parser(
+        prog="python -m instantonkit",
+        description="Verify the default three-instanton configuration, or a field: "
+        "python -m instantonkit verify module:attribute | data.npz [options].",
+    )
     p.add_argument("--rtol", type=float, default=None, help="relative tolerance of the integrals (default 0)")
     p.add_argument("--budget", type=int, default=None, help="max density evaluations per integral")
     p.add_argument("--no-routes", action="store_true", help="skip the independent routes (Osborn's density)")
@@ -193,17 +212,32 @@ def _run(argv) -> int:
         center = None if args.center is None else _floats("center", args.center)
         scale = None if args.scale is None else _floats("scale", args.scale).ravel()
         tol = args.charge_tol
-        report = verify(field, expected_charge=args.charge, rtol=args.rtol, center=center, scale=scale,
-                        period=args.period, max_points=args.budget, charge_tol=tol, duality_tol=tol,
-                        routes=not args.no_routes)
+        report = verify(
+            field,
+            expected_charge=args.charge,
+            rtol=args.rtol,
+            center=center,
+            scale=scale,
+            period=args.period,
+            max_points=args.budget,
+            charge_tol=tol,
+            duality_tol=tol,
+            routes=not args.no_routes,
+        )
         _print(report, args, time.perf_counter() - start)
         return EXIT_STATUS[report.verdict]
     args = _parser().parse_args(argv)
     data = demo_configuration()
-    report = verify(data, expected_charge=DEMO_CHARGE, rtol=0.0 if args.rtol is None else args.rtol,
-                    max_points=args.budget, routes=not args.no_routes)
+    report = verify(
+        data,
+        expected_charge=DEMO_CHARGE,
+        rtol=0.0 if args.rtol is None else args.rtol,
+        max_points=args.budget,
+        routes=not args.no_routes,
+    )
     header = f"Default configuration: {DEMO_CHARGE} SU(2) instantons\n" + "\n".join(
-        f"  centre {np.array2string(c, precision=2)}  size {r:g}" for c, r in zip(DEMO_CENTERS, DEMO_SIZES))
+        f"  centre {np.array2string(c, precision=2)}  size {r:g}" for c, r in zip(DEMO_CENTERS, DEMO_SIZES)
+    )
     _print(report, args, time.perf_counter() - start, header)
     return EXIT_STATUS[report.verdict]
 

@@ -51,7 +51,21 @@ from .integrals import (  # re-exported: checks is the one place for "is it what
     total_action,
     total_charge,
 )
-from .report_text import format_report, signed_offset
+from .report import (
+    FAILED,
+    HOW_CONSTRUCTION,
+    HOW_CURVATURE,
+    HOW_INPUT,
+    HOW_INTEGRAL,
+    HOW_OTHER_RULE,
+    HOW_SURFACE,
+    INCONCLUSIVE,
+    PASSED,
+    Route,
+    Row,
+    Verification,
+    signed_offset,
+)
 
 __all__ = [
     "IntegralResult",
@@ -72,108 +86,11 @@ __all__ = [
     "INCONCLUSIVE",
 ]
 
-PASSED, FAILED, INCONCLUSIVE = "PASSED", "FAILED", "INCONCLUSIVE"
-
-#: How a row was obtained (the report's "how" column).
-HOW_INTEGRAL = "integral"
-HOW_CURVATURE = "autodiff of A on the rule"
-HOW_OTHER_RULE = "integral, other rule"
-HOW_SURFACE = "flux through S^3"
-HOW_INPUT = "input"
-HOW_CONSTRUCTION = "by construction"
-
 #: Points of the final action rule on which the potential's curvature is sampled.
 DEFAULT_SAMPLE_POINTS = 8192
 
 #: A peak this many scales away from every layout centre means the layout misses the field.
 _FAR = 3.0
-
-
-@dataclasses.dataclass(frozen=True)
-class Route:
-    """An independent determination of the charge, reported beside the integral of q.
-
-    name: what was computed; value, error: its result (None when not available); decisive: whether
-    a disagreement fails the verification; agrees: True / False / None (undecided or not compared);
-    note: caveats; how: how it was obtained (see the HOW_ constants).
-    """
-
-    name: str
-    value: float | None
-    error: float | None
-    decisive: bool
-    agrees: bool | None
-    note: str = ""
-    how: str = ""
-
-
-@dataclasses.dataclass(frozen=True)
-class Row:
-    """One line of the report: label, value, error (None: none), how it was obtained, status.
-
-    status: 'agrees' | 'DISAGREES' | 'undecided' for checks; 'input' or 'by construction' for facts
-    that cannot fail; '' for plain numbers (the charge and action themselves).
-    """
-
-    label: str
-    value: float | None
-    error: float | None
-    how: str
-    status: str = ""
-    note: str = ""
-
-
-@dataclasses.dataclass(frozen=True)
-class Verification:
-    """The answer to "is this a charge-k (anti-)instanton?", with every number behind it.
-
-    ``verdict`` is PASSED, FAILED or INCONCLUSIVE; ``passed`` is ``verdict == 'PASSED'``; ``reasons``
-    say why it is not PASSED, ``advice`` what to do.  ``rows`` is the report table (each row with how
-    it was obtained); ``str(report)`` prints it, :meth:`to_dict` gives a plain dict for JSON.
-    The margin and residual fields hold the decisive values (see ``margin_how``).
-    """
-
-    field: str
-    charge: IntegralResult | None
-    action: IntegralResult | None
-    nearest_integer: int | None
-    distance: float | None
-    distance_error: float | None
-    action_units: float | None
-    action_units_error: float | None
-    bogomolny_margin: float | None
-    bogomolny_margin_error: float | None
-    bound_holds: bool | None
-    saturated: bool | None
-    duality: str
-    residual_max: float | None
-    residual_mean: float | None
-    constraint_residual: float | None
-    routes: tuple
-    passed: bool
-    reasons: tuple
-    period: float | None = None
-    expected_charge: int | None = None
-    verdict: str = FAILED
-    advice: tuple = ()
-    rows: tuple = ()
-    margin_how: str = ""
-    closed_form_deviation: dict = dataclasses.field(default_factory=dict)
-    peak: tuple | None = None
-    budget: int = 0
-    layout: str = ""
-
-    def to_dict(self) -> dict:
-        """Plain dict (numbers, strings, bools, lists and nested dicts) for scripts and JSON."""
-        d = dataclasses.asdict(self)
-        for key in ("routes", "rows"):
-            d[key] = [dataclasses.asdict(r) for r in getattr(self, key)]
-        d["reasons"], d["advice"] = list(self.reasons), list(self.advice)
-        d["peak"] = None if self.peak is None else list(self.peak)
-        return d
-
-    def __str__(self) -> str:
-        return format_report(self)
 
 
 # -- verify ------------------------------------------------------------------------------------------
@@ -303,16 +220,34 @@ def _report(field, case: _Case, charge, action, layout: Layout, expected, budget
     duality = "self-duality" if case.sign > 0 else "anti-self-duality"
     peak = None if case.peak is None else (case.peak.point.tolist(), case.peak.value, case.peak.width)
     return Verification(
-        field=field_description(field), charge=charge, action=action, nearest_integer=case.nearest,
+        field=field_description(field),
+        charge=charge,
+        action=action,
+        nearest_integer=case.nearest,
         distance=None if charge is None or case.nearest is None else charge.value - case.nearest,
-        distance_error=None if charge is None else charge.error, action_units=units, action_units_error=units_err,
-        bogomolny_margin=case.margin, bogomolny_margin_error=case.margin_error, bound_holds=case.bound,
-        saturated=case.saturated, duality=duality, residual_max=None if s is None else s.residual_max,
-        residual_mean=None if s is None else s.residual_mean, constraint_residual=_constraint_value(field),
-        routes=tuple(case.routes), passed=case.verdict == PASSED, reasons=tuple(case.failures + case.doubts),
-        period=layout.period, expected_charge=expected, verdict=case.verdict, advice=tuple(case.advice),
-        rows=tuple(case.rows), margin_how=case.margin_how,
-        closed_form_deviation={} if s is None else dict(s.deviations), peak=peak, budget=budget,
+        distance_error=None if charge is None else charge.error,
+        action_units=units,
+        action_units_error=units_err,
+        bogomolny_margin=case.margin,
+        bogomolny_margin_error=case.margin_error,
+        bound_holds=case.bound,
+        saturated=case.saturated,
+        duality=duality,
+        residual_max=None if s is None else s.residual_max,
+        residual_mean=None if s is None else s.residual_mean,
+        constraint_residual=_constraint_value(field),
+        routes=tuple(case.routes),
+        passed=case.verdict == PASSED,
+        reasons=tuple(case.failures + case.doubts),
+        period=layout.period,
+        expected_charge=expected,
+        verdict=case.verdict,
+        advice=tuple(case.advice),
+        rows=tuple(case.rows),
+        margin_how=case.margin_how,
+        closed_form_deviation={} if s is None else dict(s.deviations),
+        peak=peak,
+        budget=budget,
         layout=f"{layout.centres.shape[0]} centre(s) from {layout.source}",
     )
 
@@ -337,8 +272,11 @@ def _periodic_ok(field, layout: Layout, case: _Case) -> bool:
         f"x = {_fmt_point(where)} and at x + {layout.period:g} e_4 differ by {mismatch:.2e} of the largest s sampled"
     )
     own = _fields.hook(field, "period")
-    case.advise("pass the field's own period" + (f" ({float(own):g})" if own is not None else "")
-                + ", or no period to integrate over R^4")
+    case.advise(
+        "pass the field's own period"
+        + (f" ({float(own):g})" if own is not None else "")
+        + ", or no period to integrate over R^4"
+    )
     return False
 
 
@@ -392,12 +330,18 @@ def _charge_findings(case: _Case, charge: IntegralResult, expected, declared, to
     if not charge.converged:
         _not_converged(case, "charge", charge, budget)
     elif status == "DISAGREES":
-        case.failures.append(f"charge is not an integer: Q = {q:.10g} +- {e:.1e}, {signed_offset('Q', n)} = {abs(q - n):.2e} "
-                             f"exceeds the tolerance {tol:.0e} by more than the error bar")
+        case.failures.append(
+            f"charge is not an integer: Q = {q:.10g} +- {e:.1e}, {signed_offset('Q', n)} = {abs(q - n):.2e} "
+            f"exceeds the tolerance {tol:.0e} by more than the error bar"
+        )
     elif status == "undecided":
-        case.doubts.append(f"the error bar of Q ({e:.1e}) is too wide to decide {signed_offset('Q', n)} = {abs(q - n):.2e} "
-                           f"against the tolerance {tol:.0e}")
-        case.advise(f"tighten atol (e.g. atol={tol / 10:.0e}) with more budget, or loosen charge_tol to {abs(q - n) + e:.0e}")
+        case.doubts.append(
+            f"the error bar of Q ({e:.1e}) is too wide to decide {signed_offset('Q', n)} = {abs(q - n):.2e} "
+            f"against the tolerance {tol:.0e}"
+        )
+        case.advise(
+            f"tighten atol (e.g. atol={tol / 10:.0e}) with more budget, or loosen charge_tol to {abs(q - n) + e:.0e}"
+        )
     if n == 0 and abs(q) + e < 0.5:
         case.failures.append("charge 0: not an instanton")
     for want, what in ((expected, "the expected"), (declared, "the construction's (input)")):
@@ -409,7 +353,9 @@ def _charge_findings(case: _Case, charge: IntegralResult, expected, declared, to
 
 def _action_findings(case: _Case, action: IntegralResult, charge, budget: int) -> None:
     units, err = action.value / INSTANTON_ACTION, action.error / INSTANTON_ACTION
-    case.rows.append(Row("action S / 8 pi^2", units, err, HOW_INTEGRAL, "", "" if action.converged else "NOT converged"))
+    case.rows.append(
+        Row("action S / 8 pi^2", units, err, HOW_INTEGRAL, "", "" if action.converged else "NOT converged")
+    )
     if not action.converged:
         _not_converged(case, "action", action, budget)
 
@@ -423,8 +369,16 @@ def _curvature_findings(case: _Case, field, charge, action, rule, charge_method:
         return
     for name, dev in s.deviations.items():
         ok = dev <= CLOSED_FORM_TOL
-        case.rows.append(Row(f"closed-form {name.replace('_', ' ')} vs curvature of A", dev, None, HOW_CURVATURE,
-                             "agrees" if ok else "DISAGREES", "max relative difference"))
+        case.rows.append(
+            Row(
+                f"closed-form {name.replace('_', ' ')} vs curvature of A",
+                dev,
+                None,
+                HOW_CURVATURE,
+                "agrees" if ok else "DISAGREES",
+                "max relative difference",
+            )
+        )
         if not ok:
             case.failures.append(
                 f"the closed-form {name} is not the curvature of the potential: it differs from the autodiff "
@@ -438,8 +392,16 @@ def _curvature_findings(case: _Case, field, charge, action, rule, charge_method:
     e_s = abs(m_s) * min(1.0, rel_rule) + 1e-12 * max(units, 1.0)
     label = "Bogomolny margin S/8pi^2 - |Q|"
     if by_construction:
-        case.rows.append(Row(label + " (integrals)", m_int, e_int, HOW_CONSTRUCTION, "by construction",
-                             "the closed-form q is s / 8 pi^2"))
+        case.rows.append(
+            Row(
+                label + " (integrals)",
+                m_int,
+                e_int,
+                HOW_CONSTRUCTION,
+                "by construction",
+                "the closed-form q is s / 8 pi^2",
+            )
+        )
         case.margin, case.margin_error, case.margin_how = m_s, e_s, HOW_CURVATURE
     else:
         case.margin, case.margin_error, case.margin_how = m_int, e_int, HOW_INTEGRAL
@@ -455,13 +417,31 @@ def _curvature_findings(case: _Case, field, charge, action, rule, charge_method:
     elif status == "DISAGREES":
         case.failures.append(f"not {duality}: S/8pi^2 - |Q| = {case.margin:.3e} +- {case.margin_error:.1e} > {tol:.0e}")
     elif status == "undecided":
-        case.doubts.append(f"the Bogomolny margin {case.margin:.2e} +- {case.margin_error:.1e} cannot be decided against {tol:.0e}")
+        case.doubts.append(
+            f"the Bogomolny margin {case.margin:.2e} +- {case.margin_error:.1e} cannot be decided against {tol:.0e}"
+        )
     res_status = "agrees" if s.residual_mean <= tol else "DISAGREES"
     what = "self-duality" if case.sign > 0 else "anti-self-duality"
-    case.rows.append(Row(f"{what} residual |F {'-' if case.sign > 0 else '+'} *F|/|F|, max", s.residual_max, None,
-                         HOW_CURVATURE, "", f"{s.points:,} points"))
-    case.rows.append(Row(f"{what} residual, s-weighted mean", s.residual_mean, None, HOW_CURVATURE, res_status,
-                         f"tolerance {tol:.0e}"))
+    case.rows.append(
+        Row(
+            f"{what} residual |F {'-' if case.sign > 0 else '+'} *F|/|F|, max",
+            s.residual_max,
+            None,
+            HOW_CURVATURE,
+            "",
+            f"{s.points:,} points",
+        )
+    )
+    case.rows.append(
+        Row(
+            f"{what} residual, s-weighted mean",
+            s.residual_mean,
+            None,
+            HOW_CURVATURE,
+            res_status,
+            f"tolerance {tol:.0e}",
+        )
+    )
     if res_status == "DISAGREES":
         case.failures.append(f"not {duality}: {what} residual (s-weighted mean) {s.residual_mean:.3e} > {tol:.0e}")
 
@@ -475,15 +455,18 @@ def _inputs(field, case: _Case, constraint_tol: float) -> None:
     """Facts of the construction: the constraint residual and pole counts (rows that cannot agree)."""
     cres = _constraint_value(field)
     if cres is not None:
-        case.rows.append(Row("ADHM constraint residual", cres, None, HOW_CONSTRUCTION, "by construction",
-                             "enforced at construction"))
+        case.rows.append(
+            Row("ADHM constraint residual", cres, None, HOW_CONSTRUCTION, "by construction", "enforced at construction")
+        )
         if cres > constraint_tol:
             case.failures.append(f"ADHM constraint residual {cres:.3e} > {constraint_tol:.0e}")
     pole_count = _fields.hook(field, "pole_count")
     if pole_count is not None:
         count, text = pole_count()
         case.rows.append(Row(f"pole count: {text}", float(count), None, HOW_INPUT, "input"))
-        case.routes.append(Route(text, float(count), None, False, None, "the number of poles given as input", HOW_INPUT))
+        case.routes.append(
+            Route(text, float(count), None, False, None, "the number of poles given as input", HOW_INPUT)
+        )
 
 
 def _only_potential(field) -> bool:
@@ -502,8 +485,9 @@ def _osborn_route(case: _Case, field, charge, layout: Layout, kw: dict, tol: flo
     shift = 0.1 * layout.scales[:, None] * np.array([0.5, -0.5, 0.5, 0.5])
     other = Layout(layout.centres + shift, 1.25 * layout.scales, layout.period, "shifted, rescaled layout")
     try:
-        req = DensityRequest("action_density", name="Osborn action", label="Osborn density",
-                             atol=kw["atol"] * INSTANTON_ACTION)
+        req = DensityRequest(
+            "action_density", name="Osborn action", label="Osborn density", atol=kw["atol"] * INSTANTON_ACTION
+        )
         res = integrate(OsbornField(field), (req,), other, **kw).results[0]
     except (DivergentIntegralError, FieldEvaluationError) as e:
         case.failures.append(f"the Osborn route failed: {e}")
@@ -516,8 +500,10 @@ def _osborn_route(case: _Case, field, charge, layout: Layout, kw: dict, tol: flo
         status = "undecided"
         case.doubts.append(f"the Osborn route did not converge: {res.message}")
     elif status == "DISAGREES":
-        case.failures.append(f"the integral of Osborn's density on another rule gives {val:.10g} +- {err:.1e}, "
-                             f"not Q = {charge.value:.10g} +- {charge.error:.1e} (quadrature error beyond tolerance)")
+        case.failures.append(
+            f"the integral of Osborn's density on another rule gives {val:.10g} +- {err:.1e}, "
+            f"not Q = {charge.value:.10g} +- {charge.error:.1e} (quadrature error beyond tolerance)"
+        )
     elif status == "undecided":
         case.doubts.append(f"the Osborn route {val:.10g} +- {err:.1e} and Q cannot be decided to {tol:.0e}")
     note = "s = 8 pi^2 |q|, sign from Q" + ("" if res.converged else "; NOT converged")
@@ -531,7 +517,9 @@ def _routes(case: _Case, field, charge, layout: Layout, kw, tol, winding) -> Non
         _osborn_route(case, field, charge, layout, kw, tol)
     declared = _fields.hook(field, "charge")
     is_adhm = _fields.hook(field, "constraint_residual") is not None
-    smooth = getattr(field, "gauge", None) == "regular" and (not is_adhm or (declared is not None and abs(declared) == 1))
+    smooth = getattr(field, "gauge", None) == "regular" and (
+        not is_adhm or (declared is not None and abs(declared) == 1)
+    )
     if winding is None:
         winding = smooth or _only_potential(field)
     if not winding or layout.period is not None:

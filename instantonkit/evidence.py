@@ -53,6 +53,7 @@ def _gram_coefficients(data):
 
     Reads the data through ADHMData's package-internal seams ``b_minus_p(x)`` and ``lam``.
     """
+
     def gram(x):
         bp = data.b_minus_p(jnp.asarray(x, dtype=jnp.float64))
         lam = jnp.asarray(data.lam)
@@ -151,7 +152,9 @@ _WINDING_RADIUS = 200.0
 _WINDING_FLOOR = 1e-12
 
 
-def surface_winding(field, *, center=None, radius=None, n_angular: int = 10, method: str = "auto") -> tuple[float, float]:
+def surface_winding(
+    field, *, center=None, radius=None, n_angular: int = 10, method: str = "auto"
+) -> tuple[float, float]:
     """Chern-Simons flux through a large S^3 about ``center``: (value, error estimate).
 
     The flux at radii R and 2R; the value is the one at 2R and the error their difference plus a
@@ -269,7 +272,9 @@ def curvature_sample(field, points: np.ndarray, weights: np.ndarray, sign: int) 
         worst[name] = points[i].tolist()
     q_is_s = False
     if "charge_density" in closed and "action_density" in closed:
-        q_is_s = _rel(closed["charge_density"], sign * closed["action_density"] / INSTANTON_ACTION)[0] <= _SAME_FORMULA_TOL
+        q_is_s = (
+            _rel(closed["charge_density"], sign * closed["action_density"] / INSTANTON_ACTION)[0] <= _SAME_FORMULA_TOL
+        )
     m = points.shape[0]
     num = np.sqrt(np.sum(np.abs(f_auto - sign * dual) ** 2, axis=(1, 2, 3, 4)))
     den = np.sqrt(np.sum(np.abs(f_auto) ** 2, axis=(1, 2, 3, 4)))
@@ -277,8 +282,9 @@ def curvature_sample(field, points: np.ndarray, weights: np.ndarray, sign: int) 
     wd = np.abs(weights * s_auto)
     mean = float(np.sum(wd * res) / np.sum(wd)) if np.sum(wd) > 0 else 0.0
     margin = float(np.sum(weights * (s_auto / INSTANTON_ACTION - sign * q_auto)))
-    return CurvatureSample(m, float(np.sum(weights * s_auto)), margin, float(np.max(res, initial=0.0)), mean,
-                           deviations, worst, q_is_s)
+    return CurvatureSample(
+        m, float(np.sum(weights * s_auto)), margin, float(np.max(res, initial=0.0)), mean, deviations, worst, q_is_s
+    )
 
 
 # -- periodicity and peaks --------------------------------------------------------------------------
@@ -305,8 +311,11 @@ def periodicity_mismatch(field, centres: np.ndarray, scales: np.ndarray, period:
     pts = np.concatenate([c + s * rng.normal(size=(n, 4)) for c, s in zip(centres, scales)])
     shift = np.array([0.0, 0.0, 0.0, period])
     try:
-        a = [np.asarray(_fields.evaluate(field, p, q)) for p in (pts, pts + shift)
-             for q in ("action_density", "charge_density")]
+        a = [
+            np.asarray(_fields.evaluate(field, p, q))
+            for p in (pts, pts + shift)
+            for q in ("action_density", "charge_density")
+        ]
     except _EVAL_ERRORS as err:
         raise FieldEvaluationError(
             f"evaluating the densities of {field_description(field)} failed: {type(err).__name__}: {err}"
@@ -329,8 +338,9 @@ class Peak:
     width: float
 
 
-def find_peak(field, centres: np.ndarray, scales: np.ndarray, period: float | None = None,
-              n: int = 2048, rounds: int = 6) -> Peak | None:
+def find_peak(
+    field, centres: np.ndarray, scales: np.ndarray, period: float | None = None, n: int = 2048, rounds: int = 6
+) -> Peak | None:
     """Search for the maximum of the action density: a wide random cloud, then shrinking clouds.
 
     The first cloud is Gaussian about each centre with 4 x (extent + scale) spread; each round samples
@@ -341,13 +351,15 @@ def find_peak(field, centres: np.ndarray, scales: np.ndarray, period: float | No
     c0 = centres.mean(axis=0)
     extent = float(np.max(scales) + np.max(np.linalg.norm(centres - c0, axis=1)))
     spread = 4.0 * extent
-    pts = np.concatenate([c0 + spread * rng.normal(size=(n // 2, 4))]
-                         + [c + 2.0 * s * rng.normal(size=(n // (2 * len(centres)) + 1, 4)) for c, s in zip(centres, scales)])
+    pts = np.concatenate(
+        [c0 + spread * rng.normal(size=(n // 2, 4))]
+        + [c + 2.0 * s * rng.normal(size=(n // (2 * len(centres)) + 1, 4)) for c, s in zip(centres, scales)]
+    )
     if period is not None:
         pts[:, 3] = np.mod(pts[:, 3] - c0[3], period) + c0[3]
+    best, val = np.asarray(c0), -np.inf
     try:
-        best, val = None, -np.inf
-        for r in range(rounds + 1):
+        for _ in range(rounds + 1):
             s = np.asarray(_fields.evaluate(field, pts, "action_density"))
             i = int(np.argmax(s))
             if s[i] > val:
@@ -356,6 +368,6 @@ def find_peak(field, centres: np.ndarray, scales: np.ndarray, period: float | No
             pts = best + spread * rng.normal(size=(max(n // 8, 16), 4))
     except _EVAL_ERRORS:
         return None
-    if best is None or not val > 0:
+    if not val > 0:
         return None
     return Peak(np.asarray(best), val, float((48.0 / val) ** 0.25))

@@ -24,8 +24,14 @@ def test_main_prints_a_passing_report_with_the_required_rows(capsys):
     status = cli.main(["--no-routes"])
     out = capsys.readouterr().out
     assert status == 0, out
-    for row in ("topological charge Q", "action S / 8 pi^2", "self-duality residual", "ADHM constraint residual",
-                "how obtained", "verdict: PASSED"):
+    for row in (
+        "topological charge Q",
+        "action S / 8 pi^2",
+        "self-duality residual",
+        "ADHM constraint residual",
+        "how obtained",
+        "verdict: PASSED",
+    ):
         assert row in out
 
 
