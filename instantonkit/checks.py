@@ -91,6 +91,8 @@ DEFAULT_SAMPLE_POINTS = 8192
 
 #: A peak this many scales away from every layout centre means the layout misses the field.
 _FAR = 3.0
+#: A peak this many times higher than the largest s on the sampled rule lies between its shells.
+_BETWEEN = 4.0
 
 
 # -- verify ------------------------------------------------------------------------------------------
@@ -367,6 +369,13 @@ def _curvature_findings(case: _Case, field, charge, action, rule, charge_method:
     except FieldEvaluationError as err:
         case.failures.append(str(err))
         return
+    peak = case.peak
+    if peak is not None and peak.value > _BETWEEN * s.s_max and not any("poorly resolved" in a for a in case.advice):
+        case.advise(
+            f"the integrand is poorly resolved: the action density peaks between the rule's shells, at "
+            f"{_fmt_point(peak.point)} with s = {peak.value:.3g}, while the largest s on the rule's points is "
+            f"{s.s_max:.3g}; pass center={_fmt_point(peak.point)}, scale={peak.width:.2g} or more budget"
+        )
     for name, dev in s.deviations.items():
         ok = dev <= CLOSED_FORM_TOL
         case.rows.append(

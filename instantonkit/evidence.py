@@ -208,7 +208,8 @@ class CurvatureSample:
     closed form from the potential's curvature (for F relative to max |F| + |A(x)|^2, the size of the
     terms that cancel)} for the closed forms the field has;
     worst: {name: point (4,) list where that difference is largest};
-    q_is_s: the closed-form q equals sign s / 8 pi^2 pointwise to rounding (so Q and S are one integral).
+    q_is_s: the closed-form q equals sign s / 8 pi^2 pointwise to rounding (so Q and S are one integral);
+    s_max: the largest s(F) on the points.
     """
 
     points: int
@@ -219,6 +220,7 @@ class CurvatureSample:
     deviations: dict
     worst: dict
     q_is_s: bool
+    s_max: float = 0.0
 
 
 def _rel(a: np.ndarray, b: np.ndarray, floor=0.0) -> tuple[float, int]:
@@ -283,7 +285,15 @@ def curvature_sample(field, points: np.ndarray, weights: np.ndarray, sign: int) 
     mean = float(np.sum(wd * res) / np.sum(wd)) if np.sum(wd) > 0 else 0.0
     margin = float(np.sum(weights * (s_auto / INSTANTON_ACTION - sign * q_auto)))
     return CurvatureSample(
-        m, float(np.sum(weights * s_auto)), margin, float(np.max(res, initial=0.0)), mean, deviations, worst, q_is_s
+        m,
+        float(np.sum(weights * s_auto)),
+        margin,
+        float(np.max(res, initial=0.0)),
+        mean,
+        deviations,
+        worst,
+        q_is_s,
+        float(np.max(s_auto, initial=0.0)),
     )
 
 

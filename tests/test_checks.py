@@ -493,6 +493,7 @@ def test_verify_passes_for_adhm_k2_with_default_settings(report_k2):
     assert abs(report_k2.distance) + report_k2.distance_error <= 1e-6
     assert abs(report_k2.action_units - 2.0) <= 1e-6
     assert report_k2.residual_mean <= 1e-10
+    assert report_k2.advice == ()
 
 
 def test_verify_labels_what_holds_by_construction(report_k2):
