@@ -508,6 +508,10 @@ def _osborn_route(case: _Case, field, charge, layout: Layout, kw: dict, tol: flo
     if not res.converged:
         status = "undecided"
         case.doubts.append(f"the Osborn route did not converge: {res.message}")
+        budget = kw["max_points"]
+        case.advise(
+            f"raise the budget (max_points={4 * budget:,}; command line --budget {4 * budget}), or routes=False"
+        )
     elif status == "DISAGREES":
         case.failures.append(
             f"the integral of Osborn's density on another rule gives {val:.10g} +- {err:.1e}, "
