@@ -1,4 +1,4 @@
-"""Specification of instantonkit.quadrature and instantonkit.checks: integrals with honest errors, verify().
+"""Specification of instantonkit.quadrature, evidence and checks: integrals with honest errors, verify().
 
 Every physics value is checked against a published formula, a worked value, or scipy/sympy, with the
 source named beside the check.
@@ -7,6 +7,7 @@ source named beside the check.
 from __future__ import annotations
 
 import math
+import os
 
 import jax
 import jax.numpy as jnp
@@ -18,7 +19,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import instantonkit as ik
-from instantonkit import ansatz, checks, fields, integrals, transforms
+from instantonkit import ansatz, checks, evidence, fields, integrals, transforms
 from instantonkit import quadrature as qd
 from instantonkit import quaternion as qt
 from instantonkit.conventions import point_to_quaternion
@@ -209,7 +210,7 @@ def test_osborn_density_matches_mpmath_box_box_log_det_for_k2():
     import mpmath
 
     data = ik.random_adhm(2, seed=4)
-    g0, gmu = (np.asarray(a) for a in checks._gram_coefficients(data))
+    g0, gmu = (np.asarray(a) for a in evidence._gram_coefficients(data))
     mpmath.mp.dps = 30
 
     def logdet(*y):
@@ -272,6 +273,40 @@ def _hedgehog(x):
     return f * jnp.einsum("ij,mjk->mik", u, dud)
 
 
+def _radial_densities():
+    """s(r) and q(r) of the hedgehog as functions of r, derived here with sympy.
+
+    sympy: A_mu = f(r) U d_mu U^dag, U = (x4 + i x.sigma)/r, F = dA - dA + [A, A] at x = (0, 0, 0, R);
+    s = -1/2 sum tr F F (conventions module) and q = -(1/32 pi^2) eps tr F F = -(1/4 pi^2) tr(F12 F34 -
+    F13 F24 + F14 F23) (conventions module, eps_1234 = +1); profile f = r^4 / (r^2 + rho^2)^2.
+    """
+    x = sp.symbols("x1:5", real=True)
+    big = sp.symbols("R", positive=True)
+    fn = sp.Function("f")
+    r = sp.sqrt(sum(v**2 for v in x))
+    i = sp.I
+    s1, s2, s3 = sp.Matrix([[0, 1], [1, 0]]), sp.Matrix([[0, -i], [i, 0]]), sp.Matrix([[1, 0], [0, -1]])
+    pmat = x[3] * sp.eye(2) + i * (x[0] * s1 + x[1] * s2 + x[2] * s3)
+    u, ud = pmat / r, pmat.H / r
+    a = [fn(r) * u * sp.diff(ud, x[m]) for m in range(4)]
+    at = {x[0]: 0, x[1]: 0, x[2]: 0, x[3]: big}
+    fmn = {}
+    for m in range(4):
+        for n in range(m + 1, 4):
+            fmn[m, n] = (sp.diff(a[n], x[m]) - sp.diff(a[m], x[n]) + a[m] * a[n] - a[n] * a[m]).subs(at).doit()
+    dens = sum((-(f * f).trace() for f in fmn.values()), sp.Integer(0))  # -1/2 sum over ordered pairs
+    eps_ff = (fmn[0, 1] * fmn[2, 3] - fmn[0, 2] * fmn[1, 3] + fmn[0, 3] * fmn[1, 2]).trace()
+    qdens = -eps_ff / (4 * sp.pi**2)
+    rr = sp.symbols("r", positive=True)
+    prof = rr**4 / (rr**2 + RHO**2) ** 2
+
+    def radial(e):
+        e = e.subs(sp.Derivative(fn(big), big), sp.diff(prof, rr).subs(rr, big)).subs(fn(big), prof.subs(rr, big))
+        return sp.lambdify(big, sp.simplify(e), "math")
+
+    return radial(dens), radial(qdens)
+
+
 def _radial_action_prediction():
     """S from a 1-D integral of the radial density, derived here with sympy.
 
@@ -299,7 +334,9 @@ def _radial_action_prediction():
     prof = rr**4 / (rr**2 + RHO**2) ** 2
     sub = dens.subs(sp.Derivative(fn(big), big), sp.diff(prof, rr).subs(rr, big)).subs(fn(big), prof.subs(rr, big))
     g = sp.lambdify(big, sub, "math")
-    val, abserr = scipy.integrate.quad(lambda t: 2 * PI**2 * t**3 * g(t), 0, np.inf, epsabs=1e-13, epsrel=1e-13, limit=200)
+    val, abserr = scipy.integrate.quad(
+        lambda t: 2 * PI**2 * t**3 * g(t), 0, np.inf, epsabs=1e-13, epsrel=1e-13, limit=200
+    )
     return val, abserr
 
 
@@ -320,6 +357,27 @@ def test_non_self_dual_field_is_reported_not_self_dual(hedgehog_report):
     assert not hedgehog_report.passed
     assert any("not self-dual" in r for r in hedgehog_report.reasons)
     assert hedgehog_report.residual_mean > 1e-3
+
+
+def test_non_self_dual_hedgehog_is_failed_with_margin_and_residual_of_the_radial_formula(hedgehog_report):
+    # s(r), q(r) derived here with sympy (_radial_densities); S/8pi^2 - |Q| = 2 pi^2 int r^3 (s/8pi^2 - q) dr
+    # and the s-weighted mean of the residual |F - *F|/|F| = sqrt(2 (1 - 8 pi^2 q / s)) (from
+    # |F|^2 = 2 s and sum tr F^dag *F = 16 pi^2 q, conventions module), both by scipy.integrate.quad
+    s_r, q_r = _radial_densities()
+    quad = dict(epsabs=1e-13, epsrel=1e-12, limit=400)
+    margin, _ = scipy.integrate.quad(lambda t: 2 * PI**2 * t**3 * (s_r(t) / EIGHT_PI2 - q_r(t)), 0, np.inf, **quad)
+
+    def res(t):
+        return math.sqrt(max(2.0 * (1.0 - EIGHT_PI2 * q_r(t) / s_r(t)), 0.0))
+
+    num, _ = scipy.integrate.quad(lambda t: t**3 * s_r(t) * res(t), 0, np.inf, **quad)
+    den, _ = scipy.integrate.quad(lambda t: t**3 * s_r(t), 0, np.inf, **quad)
+    rep = hedgehog_report
+    assert rep.verdict == "FAILED" and not rep.passed
+    assert rep.margin_how == checks.HOW_INTEGRAL
+    assert abs(rep.bogomolny_margin - margin) <= 1e-8 and rep.bogomolny_margin - rep.bogomolny_margin_error > 1e-6
+    assert abs(rep.residual_mean - num / den) <= 1e-6 * (num / den)
+    assert any("not self-dual" in r and "S/8pi^2 - |Q|" in r for r in rep.reasons)
 
 
 def test_non_self_dual_action_excess_matches_the_radial_integral(hedgehog_report):
@@ -345,7 +403,9 @@ def test_a_density_that_vanishes_at_infinity_is_not_reported_divergent():
         f, fp = 1.0 - math.exp(-t * t / RHO**2), 2 * t / RHO**2 * math.exp(-t * t / RHO**2)
         return 6 * fp**2 / t**2 + 24 * f**2 * (1 - f) ** 2 / t**4
 
-    s_pred, _ = scipy.integrate.quad(lambda t: 2 * PI**2 * t**3 * dens(t), 0, np.inf, epsabs=1e-13, epsrel=1e-13, limit=200)
+    s_pred, _ = scipy.integrate.quad(
+        lambda t: 2 * PI**2 * t**3 * dens(t), 0, np.inf, epsabs=1e-13, epsrel=1e-13, limit=200
+    )
     res = checks.total_action(_gaussian_hedgehog, rtol=1e-8, atol=1e-8, center=np.zeros(4), scale=RHO)
     assert res.converged
     assert abs(res.value - s_pred) <= 1e-7 * s_pred
@@ -417,46 +477,150 @@ def test_silent_when_stderr_is_not_a_terminal(bpst_data, capsys):
     assert capsys.readouterr().err == ""
 
 
-# -- verify --------------------------------------------------------------------------------------------
+# -- verify: three verdicts, provenance, advice ------------------------------------------------------
 
 
 @pytest.fixture(scope="module")
 def report_k2():
-    return checks.verify(ik.random_adhm(2, seed=2, spread=3.0), expected_charge=2, rtol=0.0, atol=8e-9)
+    # default settings: the verdict must be reached without tuning (issue 13)
+    return checks.verify(ik.random_adhm(2, seed=2, spread=3.0), expected_charge=2)
 
 
-def test_verify_passes_for_adhm_k2(report_k2):
-    # Q = 2, S = 16 pi^2, self-dual (ADHM 1978)
-    assert report_k2.passed, report_k2.reasons
-    assert report_k2.nearest_integer == 2
-    assert abs(report_k2.distance) <= 1e-8
-    assert abs(report_k2.action_units - 2.0) <= 1e-8
-    assert report_k2.residual_max <= 1e-8
+def test_verify_passes_for_adhm_k2_with_default_settings(report_k2):
+    # Q = 2, S = 16 pi^2, self-dual (Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185)
+    assert report_k2.verdict == "PASSED" and report_k2.passed, report_k2.reasons
+    assert report_k2.nearest_integer == 2 and report_k2.charge.converged and report_k2.action.converged
+    assert abs(report_k2.distance) + report_k2.distance_error <= 1e-6
+    assert abs(report_k2.action_units - 2.0) <= 1e-6
+    assert report_k2.residual_mean <= 1e-10
+    assert report_k2.advice == ()
 
 
-def test_verify_reports_osborn_route_beside_the_integral(report_k2):
-    # the integral of Osborn's density gives k (Osborn 1979, from memory)
-    (route,) = [r for r in report_k2.routes if r.name.startswith("Osborn")]
-    assert route.agrees and abs(route.value - 2.0) <= 1e-8
-
-
-def test_verify_report_converts_to_a_plain_dict_and_prints_a_table(report_k2):
-    d = report_k2.to_dict()
-    assert d["passed"] is True and d["nearest_integer"] == 2 and isinstance(d["routes"], list)
+def test_verify_labels_what_holds_by_construction(report_k2):
+    # the closed-form q of ADHM data is s / 8 pi^2: the margin of the integrals is not a check;
+    # the decisive margin comes from the autodiff curvature of the potential
+    rows = {r.label: r for r in report_k2.rows}
+    assert rows["Bogomolny margin S/8pi^2 - |Q| (integrals)"].status == "by construction"
+    assert rows["Bogomolny margin S/8pi^2 - |Q|"].how == checks.HOW_CURVATURE
+    assert rows["ADHM constraint residual"].status == "by construction"
+    assert rows["charge declared by the construction"].status == "input"
+    for name in ("field strength", "action density", "charge density"):
+        row = rows[f"closed-form {name} vs curvature of A"]
+        assert row.status == "agrees" and row.value <= 1e-8
     text = str(report_k2)
-    assert "topological charge Q" in text and "PASSED" in text and "ADHM constraint residual" in text
+    assert "by construction" in text and "how obtained" in text and "S^3 parameter" not in text
+
+
+def test_verify_integrates_osborn_on_another_rule(report_k2):
+    # the integral of Osborn's density gives k (Osborn, Nucl. Phys. B 159 (1979) 497, from memory), on
+    # other nodes than the charge integral, so the two values differ in their last digits
+    (route,) = [r for r in report_k2.routes if r.name.startswith("Osborn")]
+    assert route.agrees and route.how == checks.HOW_OTHER_RULE and abs(route.value - 2.0) <= 1e-6
+    assert route.value != report_k2.charge.value
+
+
+def test_verify_report_converts_to_a_plain_dict(report_k2):
+    d = report_k2.to_dict()
+    assert d["passed"] is True and d["verdict"] == "PASSED" and d["nearest_integer"] == 2
+    assert isinstance(d["routes"], list) and isinstance(d["rows"], list) and isinstance(d["advice"], list)
+
+
+#: verify on charge-4 data takes minutes with today's quadrature (4.3M points per integral): opt in.
+_LONG = pytest.mark.skipif(not os.environ.get("INSTANTONKIT_LONG"), reason="set INSTANTONKIT_LONG=1 (minutes)")
+
+
+@pytest.mark.parametrize(
+    "k", [1, pytest.param(3, marks=pytest.mark.slow), pytest.param(4, marks=[pytest.mark.slow, _LONG])]
+)
+def test_verify_passes_exact_adhm_data_with_default_settings(k):
+    # Q = k, S = 8 pi^2 k, self-dual (Atiyah, Hitchin, Drinfeld, Manin 1978); k = 2 is report_k2 above
+    rep = checks.verify(ik.random_adhm(k, seed=k, spread=3.0))
+    assert rep.verdict == "PASSED", rep.reasons
+    assert rep.nearest_integer == k
+
+
+def test_verify_with_a_tiny_budget_is_inconclusive_not_passed():
+    rep = checks.verify(ik.random_adhm(2, seed=2, spread=3.0), max_points=20_000, routes=False)
+    assert rep.verdict == "INCONCLUSIVE" and not rep.passed
+    assert any("not converged" in r for r in rep.reasons)
+    assert any("budget" in a for a in rep.advice)
+
+
+@jax.tree_util.register_pytree_node_class
+class _MislabelledBPST:
+    """Potential of a BPST of size 1 (regular gauge); closed forms of a BPST of size 1.5 (a planted typo).
+
+    The closed forms alone are self-dual with integer charge (Q = 1, S = 8 pi^2, BPST 1975), so only the
+    comparison with the curvature of the potential can find the mistake.
+    """
+
+    def __init__(self):
+        self.a = ansatz.bpst_field((0.0, 0.0, 0.0, 0.0), 1.0, gauge="regular")
+        self.b = ansatz.bpst_field((0.0, 0.0, 0.0, 0.0), 1.5, gauge="regular")
+
+    def potential(self, x):
+        return self.a.potential(x)
+
+    def field_strength(self, x):
+        return self.b.field_strength(x)
+
+    def action_density(self, x):
+        return self.b.action_density(x)
+
+    def charge_density(self, x):
+        return self.b.charge_density(x)
+
+    def hint(self):
+        return np.zeros(4), 1.0
+
+    def tree_flatten(self):
+        return (), None
+
+    @classmethod
+    def tree_unflatten(cls, aux, children):
+        return cls()
+
+
+def test_closed_forms_that_are_not_the_curvature_of_the_potential_fail():
+    rep = checks.verify(_MislabelledBPST(), routes=False)
+    # the integrals of the closed forms alone look like a perfect instanton (BPST 1975)
+    assert abs(rep.distance) <= 1e-6 and abs(rep.action_units - 1.0) <= 1e-6
+    assert rep.verdict == "FAILED"
+    assert any("closed-form field_strength is not the curvature of the potential" in r for r in rep.reasons)
+    assert rep.closed_form_deviation["field_strength"] > 0.1
+
+
+def test_off_centre_narrow_lump_gets_advice_naming_its_position():
+    lump = ansatz.bpst_field((5.0, 0.0, 0.0, 0.0), 0.3, gauge="regular")
+
+    def bare(x):  # no hints: the layout defaults to centre 0, scale 1
+        return lump.potential(x)
+
+    rep = checks.verify(bare, max_points=30_000, routes=False)
+    assert rep.verdict != "PASSED"
+    (advice,) = [a for a in rep.advice if "peaks at" in a]
+    assert "center=(5" in advice and "scale=0.3" in advice
+    assert np.allclose(rep.peak[0], [5.0, 0, 0, 0], atol=0.05)
+
+
+def test_a_field_that_is_not_periodic_is_said_so_before_integrating():
+    rep = checks.verify(ik.bpst(), period=2.0)
+    assert rep.verdict == "FAILED" and rep.charge is None
+    assert any("not periodic with period 2" in r for r in rep.reasons)
 
 
 def test_verify_flags_a_wrong_expected_charge(bpst_data):
-    rep = checks.verify(bpst_data, expected_charge=2)
-    assert not rep.passed and any("expected 2" in r for r in rep.reasons)
+    rep = checks.verify(bpst_data, expected_charge=2, routes=False)
+    assert rep.verdict == "FAILED" and any("expected 2" in r for r in rep.reasons)
 
 
-def test_verify_anti_instanton_uses_anti_self_duality(bpst_data):
+def test_verify_anti_instanton_uses_anti_self_duality_and_clean_signs(bpst_data):
     # anti-instantons are anti-self-dual with Q = -1 (conventions module)
     rep = checks.verify(bpst_data.conjugate().translate((0.5, 0, 0, 0)))
     assert rep.passed, rep.reasons
     assert rep.nearest_integer == -1 and rep.duality == "anti-self-duality"
+    text = str(rep)
+    assert "|Q + 1|" in text and "- -" not in text and "Q - (" not in text and "^--" not in text
 
 
 def test_verify_regular_gauge_bpst_includes_the_winding_route():
@@ -466,11 +630,13 @@ def test_verify_regular_gauge_bpst_includes_the_winding_route():
     assert route.decisive and route.agrees and rep.passed
 
 
-def test_verify_thooft_pole_count_route():
-    # 't Hooft: k = number of poles ('t Hooft 1976, from memory)
-    rep = checks.verify(ansatz.thooft([[0.0, 0, 0, 0], [3.5, 0.5, 0, 0.5]], [1.0, 0.8]), rtol=1e-8, atol=1e-8)
+def test_verify_shows_the_thooft_pole_count_as_input():
+    # 't Hooft: k = number of poles ('t Hooft 1976, from memory): an input, not a check
+    rep = checks.verify(ansatz.thooft([[0.0, 0, 0, 0], [3.5, 0.5, 0, 0.5]], [1.0, 0.8]))
     (route,) = [r for r in rep.routes if "poles" in r.name]
-    assert route.value == 2.0 and route.agrees and rep.passed
+    assert route.value == 2.0 and route.agrees is None and route.how == "input"
+    assert rep.passed, rep.reasons
+    assert "agrees" not in [r.status for r in rep.rows if r.label.startswith("pole count")]
 
 
 # -- the public seams of the integrals (layout, requests, final rule) ------------------------------
@@ -506,8 +672,9 @@ def test_layout_of_names_the_bad_argument():
 def test_integrate_returns_the_final_rule_that_integrates_the_density():
     # S = 8 pi^2 for BPST (Belavin, Polyakov, Schwartz, Tyupkin 1975), on the returned (capped) rule
     data = ik.bpst((0.3, -0.2, 0.5, 0.1), 1.3)
-    out = integrals.integrate(data, (integrals.DensityRequest("action_density"),), integrals.layout_of(data),
-                              rule_points=5000)
+    out = integrals.integrate(
+        data, (integrals.DensityRequest("action_density"),), integrals.layout_of(data), rule_points=5000
+    )
     (res,) = out.results
     rule = out.rule
     assert rule.points.shape == (rule.size, 4) and rule.weights.shape == (rule.size,) and rule.size <= 5000
