@@ -5,7 +5,8 @@ The data class, its validation and its fields live in :mod:`instantonkit.adhm`; 
 builds data.  ``multi_instanton`` fixes the diagonal of B to the centres and Lambda's columns to the
 sizes and orientations, and solves the 3k(k-1)/2 real equations of the ADHM constraint for the
 off-diagonal part of B by minimum-norm Gauss-Newton steps (the moduli count 8k for SU(2) is checked
-in the tests from the rank of the constraint Jacobian).
+in the tests from the rank of the constraint Jacobian).  :func:`solve_constraint_unrolled` is the same
+iteration written in jax, differentiable (used by :mod:`instantonkit.moduli_fit`).
 """
 
 from __future__ import annotations
