@@ -6,19 +6,25 @@ Model (superposition of BPST profiles; Belavin, Polyakov, Schwartz, Tyupkin, Phy
 
 fitted with scipy.optimize.least_squares on the parameters (a_i, log rho_i), the Jacobian by jax.jacfwd.
 For well separated instantons the exact ADHM density differs from the superposition by corrections of
-relative order (rho / distance)^2 near each peak, which sets the accuracy on exact ADHM densities
-(see tests/test_finder.py for measured figures).  The superposition does not depend on orientations:
-relative orientations only change the density where instantons overlap, and this finder does not fit
-them (``orientations`` is None; the exact-ADHM refinement that would need a differentiable constraint
-solve is not implemented).  ``data`` is the ADHM data built by :func:`instantonkit.adhm.multi_instanton`
-from the fitted centres and sizes with trivial orientations.
+relative order (rho / distance)^2 near each peak (measured: centres off by 4e-4 to 2e-2 for k = 2..4).
+The superposition does not depend on orientations; with ``model="superposition"`` ``orientations`` is
+None and ``data`` is built by :func:`instantonkit.moduli.multi_instanton` from the fitted centres and
+sizes with trivial orientations.
 
-Start: greedy peak picking -- the largest sample gives a centre and the size from the peak height
-``s_max = 48 / rho^4``; its BPST profile is subtracted and the next peak is taken, k times.
-Uncertainties: ``sqrt(diag(sigma^2 (J^T J)^-1))`` at the optimum, sigma^2 the residual variance.
-They are statistical only and assume homoscedastic weighted residuals: pass ``weights = 1 / sigma_i^2``
-for known noise (``1 / s_i^2`` for multiplicative noise); they do not include the model error of the
-superposition for interacting (k >= 2) ADHM densities.
+Exact model (``model="exact"``, the default): starting from the superposition fit, the exact SU(2)
+ADHM data (centres, sizes and relative orientations: all 8k - 3 gauge-invariant moduli) are fitted by
+:mod:`instantonkit.moduli_fit` to the samples above ``_EXACT_FLOOR`` of the peak (at most
+``_EXACT_MAX``, the largest); ``data`` is then the fitted ``ADHMData``.  Sp(n > 1) data are not fitted (SU(2) only).
+
+Start: the distinct peaks of :func:`count_peaks` (plateaus and ties merged, so lumps between lattice
+sites count once), sizes from the peak heights ``s_max = 48 / rho^4``; missing ones by greedy
+subtraction of BPST profiles.
+Uncertainties: ``statistical`` = sqrt(diag(sigma^2 (J^T W J)^-1)) of the reported model at its optimum
+(sigma^2 from the residuals, or 1 when ``sigma`` is given); ``systematic`` = the model error: for the
+superposition model |superposition - exact| per parameter (k >= 2; zero for k = 1 where BPST is exact),
+for the exact model zero for continuum ADHM densities (lattice artefacts O((a / rho)^2) of densities
+measured from links are not included and are named in ``error_budget``); ``uncertainties`` adds the two
+in quadrature.  chi2 / dof is a goodness-of-fit statement only when ``sigma`` (the noise) is given.
 """
 
 from __future__ import annotations
@@ -29,26 +35,34 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 import scipy.optimize
-import scipy.spatial
 
 from . import _validate
-from .moduli import multi_instanton
+from . import observables as _obs
 from .conventions import INSTANTON_ACTION
-from .fields import as_points
+from .fields import action_from_f, as_points
+from .moduli import multi_instanton
+from .moduli_fit import fit_exact
+from .peaks import BPST_PEAK, count_peaks, count_signed_peaks, sample_spacing
 from .transforms import PARITY
 
-__all__ = ["InstantonFit", "find_instantons", "superposition_density", "count_peaks"]
+__all__ = [
+    "InstantonFit",
+    "MixedFit",
+    "find_instantons",
+    "find_lattice_instantons",
+    "superposition_density",
+    "count_peaks",
+    "count_signed_peaks",
+]
 
 _QUANTITIES = ("action", "charge")
+_MODELS = ("exact", "superposition")
 
 #: Peak of one BPST action density: s(a) = _BPST_PEAK / rho^4 (Belavin et al. 1975), used to read a size off a peak.
-_BPST_PEAK = 48.0
+_BPST_PEAK = BPST_PEAK
 
 #: Fitted parameters per instanton: the centre (4) and log rho (1); the fit needs more samples than 5 k.
 _PARAMS_PER_INSTANTON = 5
-
-#: Samples compared with each sample to call it a local maximum (a lattice site has 8 nearest neighbours).
-_PEAK_NEIGHBOURS = 16
 
 #: xtol, ftol and gtol of the least-squares fit: near float64 rounding, so the fit stops at the optimum.
 _FIT_TOL = 1e-14
@@ -61,6 +75,20 @@ _TINY = 1e-300
 
 #: Condition number of J^T J above which the curvature counts as near-singular (ambiguous fit).
 _MAX_CONDITION = 1e12
+
+#: The exact fit uses the samples above this fraction of the peak (where the moduli are measured; the
+#: far tail costs time and adds little).
+_EXACT_FLOOR = 1e-3
+
+#: At most this many samples (the largest) enter the exact fit (its cost is linear in them).
+_EXACT_MAX = 4096
+
+#: chi2 / dof accepted as "explained to the noise level": 1 + _CHI2_SIGMAS sqrt(2 / dof) (the chi2
+#: distribution has mean dof and variance 2 dof; common practice).
+_CHI2_SIGMAS = 5.0
+
+#: Opposite-sign lumps below this fraction of the largest |q| are treated as noise.
+_OPPOSITE_FRACTION = 0.05
 
 
 def superposition_density(points, centers, sizes):
@@ -77,11 +105,18 @@ def superposition_density(points, centers, sizes):
 class InstantonFit:
     """Result of :func:`find_instantons`.
 
-    centers: (k, 4) float64; sizes: (k,) float64; orientations: None (not determined by the model);
-    uncertainties: {'centers': (k, 4), 'sizes': (k,)} one-sigma estimates; data: fitted ADHMData or None
-    when the ADHM constraint could not be solved for the fitted moduli; ambiguous: bool; reasons: tuple
-    of str; sign: +1 (instantons) or -1 (anti-instantons, from a negative charge density);
-    rms: root-mean-square relative residual; n_peaks: distinct peaks found in the samples.
+    centers: (k, 4) float64; sizes: (k,) float64; orientations: (k, 4) unit quaternions u_j relative to
+    u_1 (row 0 = 1; each row up to sign) from the exact model, None for the superposition model;
+    uncertainties: {'centers': (k, 4), 'sizes': (k,)[, 'orientations': (k, 4)]} total one-sigma errors,
+    the quadrature sum of ``statistical`` (noise, from the curvature of the fit) and ``systematic``
+    (model error, see the module docstring); error_budget: a sentence saying which is which;
+    data: fitted ADHMData (exact model) or ADHM data of the fitted centres and sizes with trivial
+    orientations (superposition), None when the constraint could not be solved; ambiguous: bool;
+    reasons: tuple of str; sign: +1 / -1; rms: relative rms residual of the reported model;
+    chi2_dof: sum w r^2 / dof (a goodness of fit only when the noise ``sigma`` was given);
+    explains_noise: True / False when the noise was given (chi2 / dof within 5 sigma of 1), else None;
+    n_peaks: distinct peaks found; model: 'exact' or 'superposition'; superposition: the superposition
+    fit {'centers', 'sizes'} the exact fit started from.
     """
 
     centers: np.ndarray
@@ -95,6 +130,13 @@ class InstantonFit:
     n_peaks: int
     quantity: str
     orientations: object = None
+    statistical: dict = dataclasses.field(default_factory=dict)
+    systematic: dict = dataclasses.field(default_factory=dict)
+    error_budget: str = ""
+    model: str = "superposition"
+    chi2_dof: float = float("nan")
+    explains_noise: object = None
+    superposition: dict = dataclasses.field(default_factory=dict)
 
     @property
     def k(self) -> int:
@@ -104,10 +146,11 @@ class InstantonFit:
     def summary(self) -> str:
         """A readable table: one row per instanton with centre, size and their one-sigma errors."""
         kind = "instanton" if self.sign == 1 else "anti-instanton"
+        model = "exact ADHM model" if self.model == "exact" else "BPST superposition model"
         lines = [
             (
                 f"{self.k} {kind}(s) fitted to {self.quantity} density samples "
-                f"(BPST superposition model; relative rms residual {self.rms:.2e}; {self.n_peaks} distinct peak(s))"
+                f"({model}; relative rms residual {self.rms:.2e}; {self.n_peaks} distinct peak(s))"
             ),
             f"{'#':>3} {'x1':>10} {'x2':>10} {'x3':>10} {'x4':>10} {'size':>10} {'+-centre':>10} {'+-size':>10}",
         ]
@@ -116,13 +159,42 @@ class InstantonFit:
         for i in range(self.k):
             c = " ".join(f"{v:10.4f}" for v in self.centers[i])
             lines.append(f"{i:>3} {c} {self.sizes[i]:10.4f} {np.max(dc[i]):10.2e} {ds[i]:10.2e}")
-        lines.append("orientations: not determined (the superposition model does not depend on them)")
+        if self.orientations is None:
+            lines.append("orientations: not determined (the superposition model does not depend on them)")
+        else:
+            for i in range(self.k):
+                lines.append(f"orientation {i} (relative to 0): " + " ".join(f"{v:8.4f}" for v in self.orientations[i]))
+        if self.explains_noise is not None:
+            verdict = "explains" if self.explains_noise else "does NOT explain"
+            lines.append(f"chi2/dof = {self.chi2_dof:.3f}: the model {verdict} the density to its noise level")
+        lines.append(f"errors: {self.error_budget}")
         if self.ambiguous:
             lines.append("AMBIGUOUS fit:")
             lines.extend(f"  - {r}" for r in self.reasons)
         else:
             lines.append("fit is unambiguous")
         return "\n".join(lines)
+
+    def __str__(self) -> str:
+        return self.summary()
+
+
+@dataclasses.dataclass(frozen=True)
+class MixedFit:
+    """Result of :func:`find_instantons` with k = (k_plus, k_minus) on a charge density of both signs.
+
+    instantons, anti_instantons: :class:`InstantonFit` (superposition model, fitted jointly to
+    q = (sum_+ s_i - sum_- s_j) / 8 pi^2; an instanton-anti-instanton pair is not self-dual, so there
+    are no exact ADHM data for the whole); rms: relative rms residual of the joint fit.
+    """
+
+    instantons: InstantonFit
+    anti_instantons: InstantonFit
+    rms: float
+
+    def summary(self) -> str:
+        """Both tables, instantons first."""
+        return self.instantons.summary() + "\n\n" + self.anti_instantons.summary()
 
     def __str__(self) -> str:
         return self.summary()
@@ -161,42 +233,19 @@ def _to_action(d: np.ndarray, quantity: str) -> tuple[np.ndarray, int]:
     return sign * d * INSTANTON_ACTION, sign
 
 
-# -- peaks ------------------------------------------------------------------------------------------
-
-
-def _neighbours(pts: np.ndarray, n_nb: int = _PEAK_NEIGHBOURS):
-    tree = scipy.spatial.cKDTree(pts)
-    dist, idx = tree.query(pts, k=min(n_nb + 1, pts.shape[0]))
-    return dist[:, 1:], idx[:, 1:]
-
-
-def count_peaks(points, density, *, min_fraction: float = 0.05) -> tuple[np.ndarray, np.ndarray]:
-    """Distinct local maxima of sampled density: (centres (p, 4), heights (p,)), tallest first.
-
-    A sample is a local maximum when it exceeds its _PEAK_NEIGHBOURS nearest samples; maxima above
-    ``min_fraction`` of the tallest are merged when closer than the BPST size of the taller one
-    (rho = (_BPST_PEAK / height)^(1/4)).  points: (..., 4); density: (...,) with one value per point.
-    """
-    pts, _ = as_points(points)
-    d = _validate.real_array("density", density).reshape(-1)
-    if d.shape[0] != pts.shape[0]:
-        raise ValueError(f"density must have one value per point ({pts.shape[0]}); found {d.shape[0]}")
-    _, idx = _neighbours(pts)
-    is_max = np.all(d[:, None] > d[idx], axis=1) & (d > min_fraction * np.max(d))
-    cand = np.flatnonzero(is_max)
-    cand = cand[np.argsort(-d[cand])]
-    kept: list[int] = []
-    for c in cand:
-        rho = (_BPST_PEAK / d[c]) ** 0.25
-        if all(np.linalg.norm(pts[c] - pts[j]) > max(rho, (_BPST_PEAK / d[j]) ** 0.25) for j in kept):
-            kept.append(int(c))
-    return pts[kept], d[kept]
-
-
-def _greedy_start(pts: np.ndarray, s: np.ndarray, k: int):
-    rest = s.copy()
+def _greedy_start(pts: np.ndarray, s: np.ndarray, k: int, peaks=None):
+    """Start centres and sizes: the k tallest distinct peaks (sizes from their heights), then greedy subtraction."""
     centers, sizes = [], []
-    for _ in range(k):
+    rest = s.copy()
+    if peaks is not None:
+        for c, h in zip(*peaks):
+            if len(centers) == k:
+                break
+            rho = (_BPST_PEAK / max(h, _TINY)) ** 0.25
+            centers.append(c)
+            sizes.append(rho)
+            rest = rest - np.asarray(superposition_density(pts, c[None], np.array([rho])))
+    while len(centers) < k:
         i = int(np.argmax(rest))
         rho = (_BPST_PEAK / max(rest[i], _TINY)) ** 0.25
         centers.append(pts[i])
@@ -205,7 +254,7 @@ def _greedy_start(pts: np.ndarray, s: np.ndarray, k: int):
     return np.array(centers), np.array(sizes)
 
 
-# -- the fit -----------------------------------------------------------------------------------------
+# -- the superposition fit ---------------------------------------------------------------------------
 
 
 def _unpack(theta, k):
@@ -213,111 +262,335 @@ def _unpack(theta, k):
     return t[:, :4], jnp.exp(t[:, 4])
 
 
-def find_instantons(points, density, k: int, *, weights=None, init=None, quantity: str = "action") -> InstantonFit:
-    """Fit k (anti-)instantons to density samples; returns an :class:`InstantonFit`.
+def _fit_superposition(pts, s, sw, c0, r0, signs=None):
+    """Least squares of the (signed) BPST superposition; returns (centres, sizes, cov, sol, var)."""
+    k = c0.shape[0]
+    theta0 = np.concatenate([c0, np.log(r0)[:, None]], axis=1).reshape(-1)
+    pts_j, s_j, sw_j = jnp.asarray(pts), jnp.asarray(s), jnp.asarray(sw)
+    sg = jnp.ones(k) if signs is None else jnp.asarray(signs, dtype=float)
+
+    def resid(theta):
+        c, r = _unpack(theta, k)
+        d2 = jnp.sum((pts_j[:, None, :] - c[None, :, :]) ** 2, axis=-1)
+        r2 = r[None, :] ** 2
+        model = jnp.sum(sg[None, :] * _BPST_PEAK * r2**2 / (d2 + r2) ** 4, axis=1)
+        return sw_j * (model - s_j)
+
+    f = jax.jit(resid)
+    jac = jax.jit(jax.jacfwd(resid))
+    npar = _PARAMS_PER_INSTANTON * k
+    sol = scipy.optimize.least_squares(
+        lambda t: np.asarray(f(jnp.asarray(t))),
+        theta0,
+        jac=lambda t: np.asarray(jac(jnp.asarray(t))),
+        method="lm",
+        xtol=_FIT_TOL,
+        ftol=_FIT_TOL,
+        gtol=_FIT_TOL,
+        max_nfev=_NFEV_PER_PARAM * (npar + 1),
+    )
+    c, r = (np.asarray(a) for a in _unpack(jnp.asarray(sol.x), k))
+    return c, r, sol
+
+
+def _covariance(jmat, scale):
+    """(J^T J)^-1 * scale and the condition number (pinv when near-singular)."""
+    jtj = jmat.T @ jmat
+    cond = float(np.linalg.cond(jtj))
+    inv = np.linalg.pinv(jtj) if not np.isfinite(cond) or cond > _MAX_CONDITION else np.linalg.inv(jtj)
+    return inv * scale, cond
+
+
+def _quad(a, b):
+    return {key: np.sqrt(a[key] ** 2 + np.nan_to_num(b[key]) ** 2) for key in a}  # NaN: not estimated
+
+
+def _match(ref, other):
+    """Permutation p with other[p[i]] nearest ref[i] (greedy by distance)."""
+    k = ref.shape[0]
+    dist = np.linalg.norm(ref[:, None] - other[None], axis=-1)
+    p = -np.ones(k, dtype=int)
+    for flat in np.argsort(dist, axis=None):
+        i, j = divmod(int(flat), k)
+        if p[i] < 0 and j not in p:
+            p[i] = j
+    return p
+
+
+# -- the front door ------------------------------------------------------------------------------------
+
+
+def find_instantons(
+    points,
+    density,
+    k,
+    *,
+    weights=None,
+    init=None,
+    quantity: str = "action",
+    model: str = "exact",
+    sigma=None,
+    seed: int = 0,
+    systematics: bool = True,
+    _lattice_note: str = "",
+):
+    """Fit k (anti-)instantons to density samples; returns an :class:`InstantonFit` (a :class:`MixedFit` for k = (k+, k-)).
 
     points: (..., 4) sample positions (lattice sites or any point set); density: (...,) action density
     s (quantity='action') or charge density q (quantity='charge', its sign picks instantons or
-    anti-instantons); weights: optional (...,) >= 0 per-sample weights of the squared residuals;
-    init: optional (centres (k, 4), sizes (k,)) start instead of the peak picking.
+    anti-instantons); weights: optional (...,) >= 0 relative weights of the squared residuals;
+    sigma: optional noise of the samples (a number or (...,)), weights then 1 / sigma^2 and chi2 / dof
+    is a goodness-of-fit statement; init: optional (centres (k, 4), sizes (k,)) start instead of the
+    peak picking; model: 'exact' (exact SU(2) ADHM data, all moduli, from the superposition start) or
+    'superposition' (sum of BPST profiles; its model error is then estimated from an exact fit).
     Residuals are sqrt(w) (model - s) / max|s|.
 
     Args:
       points: (..., 4) float64 sample positions.
       density: (...,) float64, one value per point (action or charge density).
-      k: number of (anti-)instantons, a positive integer; more than 5 k samples are needed.
+      k: number of (anti-)instantons, a positive integer (more than 5 k samples are needed); or, for
+        quantity='charge', a pair (k_plus, k_minus) of instantons and anti-instantons fitted jointly.
       weights: None or (...,) float64 >= 0.
       init: None or (centres (k, 4), sizes (k,) > 0).
       quantity: 'action' or 'charge'.
+      model: 'exact' or 'superposition'.
+      sigma: None, a number > 0 or (...,) > 0 (exclusive with weights).
+      seed: seed of the random orientation starts of the exact fit.
+      systematics: for model='superposition' and k >= 2, estimate the model error by an exact fit
+        (False skips it: systematic errors are then NaN, "not estimated").
     Returns:
-      InstantonFit with centers (k, 4), sizes (k,), one-sigma uncertainties, ADHM data and the
-      reasons the fit may be ambiguous.
+      InstantonFit with centers (k, 4), sizes (k,), orientations, statistical / systematic / total
+      one-sigma uncertainties, ADHM data and the reasons the fit may be ambiguous.
     Raises:
       ValueError / TypeError naming the bad argument; ValueError when the density is zero everywhere.
     """
+    if isinstance(k, tuple | list):
+        return _find_mixed(points, density, k, weights=weights, sigma=sigma)
+    _validate.choice("model", model, _MODELS)
+    if sigma is not None:
+        if weights is not None:
+            raise ValueError("give either weights or sigma, not both")
+        sg = _validate.real_array("sigma", sigma)
+        if np.any(sg <= 0):
+            raise ValueError(f"sigma must be > 0; found min {float(np.min(sg))!r}")
+        weights = np.broadcast_to(1.0 / sg**2, np.shape(density)) if sg.ndim else np.full(np.shape(density), 1.0 / float(sg) ** 2)
     pts, d, w = _check_inputs(points, density, k, weights, quantity)
     s, sign = _to_action(d, quantity)
+    if quantity == "charge" and sigma is not None:
+        w = w / INSTANTON_ACTION**2  # sigma is the noise of q; s = +-8 pi^2 q
     smax = float(np.max(np.abs(s)))
     if smax <= 0:
         raise ValueError("density is zero everywhere; nothing to fit")
-    peaks, _ = count_peaks(pts, s)
+    fit_pts = pts * PARITY if sign == -1 else pts  # anti-instantons: fit the parity image s(Px)
+    peaks = count_peaks(fit_pts, s)
+    reasons = []
+    if quantity == "charge":
+        opp = -sign * d
+        if np.max(opp) > _OPPOSITE_FRACTION * np.max(np.abs(d)):
+            n_opp = count_signed_peaks(pts, d)[-sign][0].shape[0]
+            reasons.append(f"the charge density has {n_opp} lump(s) of the opposite sign; pass k = (k_plus, k_minus)")
     if init is None:
-        c0, r0 = _greedy_start(pts, s, k)
+        c0, r0 = _greedy_start(fit_pts, s, k, peaks)
     else:
         c0 = _validate.real_array("init centres", init[0])
         r0 = _validate.real_array("init sizes", init[1])
         if c0.shape != (k, 4) or r0.shape != (k,) or np.any(r0 <= 0):
             raise ValueError(f"init must be (centres (k, 4), sizes (k,) > 0) with k = {k}; found {c0.shape}, {r0.shape}")
-    theta0 = np.concatenate([c0, np.log(r0)[:, None]], axis=1).reshape(-1)
+        if sign == -1:
+            c0 = c0 * PARITY
     sw = np.sqrt(w) / smax
-    pts_j, s_j, sw_j = jnp.asarray(pts), jnp.asarray(s), jnp.asarray(sw)
-
-    def resid(theta):
-        c, r = _unpack(theta, k)
-        return sw_j * (superposition_density(pts_j, c, r) - s_j)
-
-    f = jax.jit(resid)
-    jac = jax.jit(jax.jacfwd(resid))
-    sol = scipy.optimize.least_squares(
-        lambda t: np.asarray(f(jnp.asarray(t))),
-        theta0,
-        jac=lambda t: np.asarray(jac(jnp.asarray(t))),
-        method="lm" if pts.shape[0] >= _PARAMS_PER_INSTANTON * k else "trf",
-        xtol=_FIT_TOL,
-        ftol=_FIT_TOL,
-        gtol=_FIT_TOL,
-        max_nfev=_NFEV_PER_PARAM * (_PARAMS_PER_INSTANTON * k + 1),
-    )
-    c, r = (np.asarray(a) for a in _unpack(jnp.asarray(sol.x), k))
+    cs, rs, sol = _fit_superposition(fit_pts, s, sw, c0, r0)
     m, npar = pts.shape[0], _PARAMS_PER_INSTANTON * k
     var = float(np.sum(sol.fun**2)) / max(m - npar, 1)
-    jtj = sol.jac.T @ sol.jac
-    reasons = []
-    cond = np.linalg.cond(jtj)
-    if not np.isfinite(cond) or cond > _MAX_CONDITION:
-        reasons.append(f"curvature J^T J is near-singular (condition number {cond:.1e})")
-        cov = np.linalg.pinv(jtj) * var
-    else:
-        cov = np.linalg.inv(jtj) * var
+    cov, cond = _covariance(sol.jac, 1.0 / smax**2 if sigma is not None else var)
     err = np.sqrt(np.abs(np.diag(cov))).reshape(k, _PARAMS_PER_INSTANTON)
-    dc, ds = err[:, :4], err[:, 4] * r  # d rho = rho d log rho
+    stat_sup = {"centers": err[:, :4], "sizes": err[:, 4] * rs}  # d rho = rho d log rho
     if not sol.success:
         reasons.append(f"least squares did not converge ({sol.message})")
-    if k > peaks.shape[0]:
-        reasons.append(f"k = {k} exceeds the {peaks.shape[0]} distinct peak(s) in the samples")
+    exact = None
+    if k >= 2 and (model == "exact" or systematics):
+        sel = s >= _EXACT_FLOOR * smax
+        if sel.sum() > _EXACT_MAX:
+            sel = np.zeros_like(sel)
+            sel[np.argsort(-s)[:_EXACT_MAX]] = True
+        if sel.sum() <= 8 * k:
+            sel = np.ones_like(sel)
+        try:
+            exact = fit_exact(fit_pts[sel], s[sel], k, w[sel], cs, rs, seed=seed, noise_known=sigma is not None)
+        except ValueError as err_exact:
+            reasons.append(f"exact ADHM fit failed ({err_exact})")
+    if model == "exact" and exact is not None:
+        c, r, o = exact.centers, exact.sizes, exact.orientations
+        stat = dict(exact.errors)
+        syst = {key: np.zeros_like(v) for key, v in stat.items()}
+        dof = exact.dof
+        chi2 = exact.chi2
+        rms = exact.rms
+        cond = exact.condition
+        data = exact.data
+        budget = (
+            "statistical = noise, from the curvature of the exact ADHM fit; systematic = 0 (the model is exact "
+            "for SU(2) ADHM densities)" + _lattice_note
+        )
+        if not exact.success:
+            reasons.append(f"exact fit did not converge ({exact.message})")
+    else:
+        c, r, o = cs, rs, None
+        stat = stat_sup
+        if exact is not None:
+            p = _match(cs, exact.centers)
+            syst = {"centers": np.abs(cs - exact.centers[p]), "sizes": np.abs(rs - exact.sizes[p])}
+            budget = "statistical = noise, from the curvature of the superposition fit; systematic = |superposition - exact ADHM fit|"
+        elif k >= 2:
+            syst = {"centers": np.full_like(cs, np.nan), "sizes": np.full_like(rs, np.nan)}
+            budget = "statistical = noise, from the curvature of the superposition fit; systematic: not estimated"
+        else:
+            syst = {"centers": np.zeros_like(cs), "sizes": np.zeros_like(rs)}
+            budget = "statistical = noise, from the curvature of the superposition fit; systematic = 0 (k = 1: BPST is exact)"
+        if k == 1 and model == "exact":  # the BPST profile is the exact charge-1 density
+            o = np.array([[1.0, 0.0, 0.0, 0.0]])
+            budget = "statistical = noise, from the curvature of the fit; systematic = 0 (k = 1: BPST is the exact density)"
+        budget += _lattice_note
+        dof = max(m - npar, 1)
+        chi2 = float(np.sum(sol.fun**2)) * smax**2
+        rms = float(np.sqrt(np.mean(sol.fun**2)))
+        data = None
+        try:
+            data = multi_instanton(cs, rs)
+        except ValueError as err_adhm:
+            reasons.append(f"no ADHM data for the fitted moduli ({err_adhm})")
+    if not np.isfinite(cond) or cond > _MAX_CONDITION * (1e4 if model == "exact" else 1.0):
+        reasons.append(f"curvature J^T J is near-singular (condition number {cond:.1e})")
+    chi2_dof = chi2 / dof
+    explains = None
+    if sigma is not None:
+        explains = bool(chi2_dof <= 1.0 + _CHI2_SIGMAS * np.sqrt(2.0 / dof))
+        if not explains:
+            reasons.append(f"the {'exact' if o is not None else 'superposition'} model does not explain the density to its noise level (chi2/dof = {chi2_dof:.3g})")
+    if k > peaks[0].shape[0]:
+        reasons.append(f"k = {k} exceeds the {peaks[0].shape[0]} distinct peak(s) in the samples")
     for i in range(k):
         for j in range(i + 1, k):
             dist = float(np.linalg.norm(c[i] - c[j]))
             if dist < r[i] + r[j]:
                 reasons.append(f"instantons {i} and {j} overlap: distance {dist:.3g} < size sum {r[i] + r[j]:.3g}")
-    nn, _ = _neighbours(pts, 1)
-    spacing = float(np.median(nn[:, 0]))
+    spacing = sample_spacing(pts)
     extent = float(np.max(np.ptp(pts, axis=0)))
     for i in range(k):
         if r[i] < 0.5 * spacing:
             reasons.append(f"size {i} collapsed to {r[i]:.3g}, below half the sample spacing {spacing:.3g}")
         if r[i] > 0.5 * extent:
             reasons.append(f"size {i} exploded to {r[i]:.3g}, beyond half the sample extent {extent:.3g}")
-    data = None
-    try:
-        data = _anti_data(c, r) if sign == -1 else multi_instanton(c, r)
-    except ValueError as err_adhm:
-        reasons.append(f"no ADHM data for the fitted moduli ({err_adhm})")
-    rms = float(np.sqrt(np.mean(sol.fun**2)))
+    if sign == -1:  # back from the parity image
+        c, cs = c * PARITY, cs * PARITY
+        if data is not None:
+            data = data.conjugate()
     return InstantonFit(
         centers=c,
         sizes=r,
-        uncertainties={"centers": dc, "sizes": ds},
+        uncertainties=_quad(stat, syst),
         data=data,
         ambiguous=bool(reasons),
         reasons=tuple(reasons),
         sign=sign,
         rms=rms,
-        n_peaks=int(peaks.shape[0]),
+        n_peaks=int(peaks[0].shape[0]),
         quantity=quantity,
+        orientations=o,
+        statistical=stat,
+        systematic=syst,
+        error_budget=budget,
+        model="exact" if o is not None else "superposition",
+        chi2_dof=float(chi2_dof),
+        explains_noise=explains,
+        superposition={"centers": cs, "sizes": rs},
     )
 
 
-def _anti_data(centers, sizes):
-    """Anti-instanton ADHM data with centres ``centers``: the parity image of data centred at P a_i."""
-    return multi_instanton(np.asarray(centers) * PARITY, sizes).conjugate()
+def _find_mixed(points, density, k, *, weights, sigma):
+    """Joint signed superposition fit of k = (k_plus, k_minus) lumps to a charge density."""
+    if len(k) != 2:
+        raise ValueError(f"k must be an integer or a pair (k_plus, k_minus); found {k!r}")
+    kp, km = (_validate.nonnegative_int("k", v) for v in k)
+    if kp + km < 1:
+        raise ValueError(f"k must be an integer or a pair (k_plus, k_minus) with k_plus + k_minus >= 1; found {k!r}")
+    if sigma is not None:
+        weights = np.broadcast_to(1.0 / (_validate.real_array("sigma", sigma) * INSTANTON_ACTION) ** 2, np.shape(density))
+    pts, d, w = _check_inputs(points, density, kp + km, weights, "charge")
+    q = d * INSTANTON_ACTION  # s-like units: +-s for (anti-)instanton lumps
+    qmax = float(np.max(np.abs(q)))
+    if qmax <= 0:
+        raise ValueError("density is zero everywhere; nothing to fit")
+    peaks = count_signed_peaks(pts, q)
+    cp, rp = _greedy_start(pts, np.maximum(q, 0.0), kp, peaks[1]) if kp else (np.zeros((0, 4)), np.zeros(0))
+    cm, rm = _greedy_start(pts, np.maximum(-q, 0.0), km, peaks[-1]) if km else (np.zeros((0, 4)), np.zeros(0))
+    c0, r0 = np.concatenate([cp, cm]), np.concatenate([rp, rm])
+    signs = np.concatenate([np.ones(kp), -np.ones(km)])
+    sw = np.sqrt(w) / qmax
+    c, r, sol = _fit_superposition(pts, q, sw, c0, r0, signs)
+    m, npar = pts.shape[0], _PARAMS_PER_INSTANTON * (kp + km)
+    var = float(np.sum(sol.fun**2)) / max(m - npar, 1)
+    cov, cond = _covariance(sol.jac, 1.0 / qmax**2 if sigma is not None else var)
+    err = np.sqrt(np.abs(np.diag(cov))).reshape(kp + km, _PARAMS_PER_INSTANTON)
+    rms = float(np.sqrt(np.mean(sol.fun**2)))
+    budget = (
+        "statistical = noise, from the curvature of the joint superposition fit; systematic: not estimated "
+        "(instanton-anti-instanton pairs are not self-dual; the superposition is their model)"
+    )
+
+    def part(idx, sign):
+        stat = {"centers": err[idx, :4], "sizes": err[idx, 4] * r[idx]}
+        syst = {key: np.zeros_like(v) for key, v in stat.items()}
+        reasons = [] if sol.success else [f"least squares did not converge ({sol.message})"]
+        n_found = peaks[sign][0].shape[0]
+        if idx.size > n_found:
+            reasons.append(f"k = {idx.size} exceeds the {n_found} distinct peak(s) of sign {sign:+d}")
+        return InstantonFit(
+            centers=c[idx], sizes=r[idx], uncertainties=_quad(stat, syst), data=None, ambiguous=bool(reasons),
+            reasons=tuple(reasons), sign=sign, rms=rms, n_peaks=int(n_found), quantity="charge",
+            statistical=stat, systematic=syst, error_budget=budget, model="superposition",
+            chi2_dof=float(np.sum(sol.fun**2) * qmax**2 / max(m - npar, 1)),
+            superposition={"centers": c[idx], "sizes": r[idx]},
+        )
+
+    return MixedFit(part(np.arange(kp), 1), part(np.arange(kp, kp + km), -1), rms)
+
+
+def find_lattice_instantons(links, k, *, spacing: float = 1.0, origin=None, boundary: str = "periodic",
+                            quantity: str = "charge", model: str = "exact", **options):
+    """Fit instantons to a lattice gauge field given as links, from the lattice's own densities.
+
+    The density is the clover charge density (quantity='charge', :func:`observables.clover_charge_density`)
+    or the clover action density s = -1/2 sum tr F F of the clover field strength (quantity='action'),
+    at the sites x_n = origin + a n (origin defaults to 0); open boundaries drop the sites whose
+    clovers leave the lattice.  The continuum model is fitted to these O(a^2)-accurate densities.
+
+    Args:
+      links: (L1, L2, L3, L4, 4, N, N) complex links.
+      k: as in :func:`find_instantons` (an integer, or (k_plus, k_minus) for quantity='charge').
+      spacing: lattice spacing a > 0.
+      origin: (4,) position of site 0, default (0, 0, 0, 0).
+      boundary: 'periodic' or 'open'.
+      quantity: 'charge' or 'action'.
+      model, options: passed to :func:`find_instantons`.
+    Returns:
+      InstantonFit (or MixedFit), positions in the lattice's coordinates.
+    Raises:
+      ValueError / TypeError naming the bad argument.
+    """
+    _validate.choice("quantity", quantity, _QUANTITIES)
+    a = _validate.positive_float("spacing", spacing)
+    org = np.zeros(4) if origin is None else _validate.point("origin", origin)
+    if quantity == "charge":
+        dens = _obs.clover_charge_density(links, spacing=a, boundary=boundary)
+    else:
+        fmn = _obs.clover_field_strength(links, spacing=a, boundary=boundary)
+        flat = fmn.reshape((-1,) + fmn.shape[4:])
+        dens = np.asarray(jax.vmap(action_from_f)(jnp.asarray(np.nan_to_num(flat)))).reshape(fmn.shape[:4])
+        dens = np.where(np.isnan(fmn).any(axis=(4, 5, 6, 7)), np.nan, dens)
+    shape = dens.shape
+    grids = np.meshgrid(*[np.arange(n, dtype=np.float64) for n in shape], indexing="ij")
+    sites = org + a * np.stack(grids, axis=-1)
+    ok = np.isfinite(dens)
+    note = f"; lattice artefacts of the clover density, O((a / rho)^2) with a = {a:g}, are not included"
+    return find_instantons(sites[ok], dens[ok], k, quantity=quantity, model=model, _lattice_note=note, **options)

@@ -5,13 +5,16 @@ The data class, its validation and its fields live in :mod:`instantonkit.adhm`; 
 builds data.  ``multi_instanton`` fixes the diagonal of B to the centres and Lambda's columns to the
 sizes and orientations, and solves the 3k(k-1)/2 real equations of the ADHM constraint for the
 off-diagonal part of B by minimum-norm Gauss-Newton steps (the moduli count 8k for SU(2) is checked
-in the tests from the rank of the constraint Jacobian).
+in the tests from the rank of the constraint Jacobian).  :func:`solve_constraint_unrolled` is the same
+iteration written in jax, differentiable (used by :mod:`instantonkit.moduli_fit`).
 """
 
 from __future__ import annotations
 
 import dataclasses
 
+import jax
+import jax.numpy as jnp
 import numpy as np
 
 from . import _validate
@@ -19,7 +22,7 @@ from . import quaternion as qt
 from .adhm import CONSTRAINT_TOL, UNIT_TOL, ADHMData, constraint_matrix
 from .conventions import point_to_quaternion
 
-__all__ = ["bpst", "multi_instanton", "random_adhm", "embed_sp", "block_sum"]
+__all__ = ["bpst", "multi_instanton", "random_adhm", "embed_sp", "block_sum", "solve_constraint_unrolled"]
 
 #: Centres closer than this times max(1, largest size) count as coinciding (the constraint solve degenerates).
 _COINCIDENT_CENTRES = 1e-8
@@ -27,6 +30,9 @@ _COINCIDENT_CENTRES = 1e-8
 _RANDOM_DRAWS = 20
 #: Gauss-Newton steps of the off-diagonal constraint solve (it converges quadratically in a few).
 _SOLVER_STEPS = 60
+#: Gauss-Newton steps unrolled by solve_constraint_unrolled (from B_off = 0 the numpy solve needs 4-7 for
+#: separated lumps; the extra steps are no-ops at rounding level and keep the derivative converged).
+UNROLLED_STEPS = 12
 #: Default target of the constraint solve: 100 times below CONSTRAINT_TOL, so solved data always validate.
 _SOLVE_TOL = 1e-12
 
@@ -304,3 +310,56 @@ def block_sum(first: ADHMData, second: ADHMData, *, stack_ranks: bool = False, t
     return ADHMData(lam, b, chirality=first.chirality, tol=tol)
 
 
+
+
+# -- a differentiable constraint solve (jax) -------------------------------------------------------
+
+
+def solve_constraint_unrolled(lam, diag, *, steps: int = UNROLLED_STEPS, start=None):
+    """B solving the ADHM constraint for given Lambda and diagonal, by ``steps`` unrolled Gauss-Newton steps in jax.
+
+    The same minimum-norm Gauss-Newton iteration as :func:`multi_instanton` (from ``B_off = 0``, or
+    from ``start`` (m, 4) held constant), written with jax so that jax.jvp / jax.jacfwd / jax.grad
+    differentiate through it.  Each step is ``E <- E - J^T (J J^T)^-1 r(E)`` with r the imaginary
+    parts of (Lambda^dag Lambda + B^dag B)_{i<j} and J = dr/dE (exact, r is quadratic in E).
+
+    Why unrolled steps give the right derivative: at a converged iterate r = 0, and the derivative of
+    one more step is dE' = (1 - J^+ J) dE - J^+ (dr/dtheta) dtheta -- the implicit-function-theorem
+    derivative -J^+ dr/dtheta on the range of J^T plus the (converged) derivative of the gauge choice
+    the iteration makes along the null space of J.  Newton converges quadratically, so after the few
+    steps the solve needs the extra ones change neither value nor derivative beyond rounding, and
+    the Jacobian is exactly that of the function the caller evaluates (no mismatch between a
+    numerical solve and a separately coded implicit derivative).
+
+    lam: (n, k, 4); diag: (k, 4) quaternions of the diagonal of B -> B: (k, k, 4) symmetric (jax).
+    """
+    lam = jnp.asarray(lam)
+    diag = jnp.asarray(diag)
+    k = diag.shape[0]
+    pairs = _offdiag_index(k)
+    m = len(pairs)
+    rows = np.array([i for i, _ in pairs], dtype=int)
+    cols = np.array([j for _, j in pairs], dtype=int)
+    base = jnp.zeros((k, k, 4)).at[np.arange(k), np.arange(k)].set(diag)
+
+    def assemble(off):
+        if m == 0:
+            return base
+        return base.at[rows, cols].set(off).at[cols, rows].set(off)
+
+    if m == 0:
+        return base
+
+    def resid(off):
+        c = qt.qmat_mul(qt.qmat_dagger(lam), lam) + qt.qmat_mul(qt.qmat_dagger(assemble(off)), assemble(off))
+        return c[rows, cols, 1:].reshape(-1)
+
+    def newton(_, off):
+        r = resid(off)
+        jac = jax.jacfwd(resid)(off).reshape(3 * m, 4 * m)
+        return off - (jac.T @ jnp.linalg.solve(jac @ jac.T, r)).reshape(m, 4)
+
+    off = jnp.zeros((m, 4)) if start is None else jax.lax.stop_gradient(jnp.asarray(start))
+    # a fori_loop keeps the traced graph (and the compile time) one step long; jvp/jacfwd go through it
+    off = jax.lax.fori_loop(0, int(steps), newton, off)
+    return assemble(off)

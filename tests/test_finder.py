@@ -1,10 +1,14 @@
-"""Specification of the instanton finder: moduli recovered from exact ADHM densities (lattice and
-scattered samples, with and without 1% noise), ambiguity reports, the summary and bad input.
+"""Specification of the instanton finder: exact ADHM moduli (centres, sizes, relative orientations)
+recovered from exact densities on grids and scattered points, honest uncertainties with 1% noise,
+model errors of the superposition, peaks between lattice sites, lattice links as input, lumps of both
+signs, ambiguity reports, the summary and bad input.
 
-Tolerances: for k = 1 the BPST superposition model is exact (centres and sizes to 1e-8); for k >= 2 the
-exact ADHM density differs from the superposition by interaction terms of relative order
-(rho / distance)^2, which limits noiseless recovery to about 1e-2 rho in the centres and 3e-2 in the
-sizes at the separations used here (measured on the 13^4 lattice: centres <= 1.8e-3 rho, sizes <= 1.5e-2; with 1% noise centres <= 6e-3 rho).
+External references: the BPST density 48 rho^4 / (|x - a|^2 + rho^2)^4 (Belavin, Polyakov, Schwartz,
+Tyupkin, Phys. Lett. B 59 (1975) 85); the ADHM construction (Atiyah, Hitchin, Drinfeld, Manin, Phys.
+Lett. A 65 (1978) 185) enters through the data the tests start from; q = +-s / 8 pi^2 for
+(anti-)self-dual fields (conventions module; common practice).  Measured (this branch, loaded
+2-core machine): noiseless exact fits recover centres and sizes to ~1e-12 and relative orientations
+to ~1e-10 for k = 1..4; the superposition model is off by ~4e-4 (k = 2) to ~1e-2 in the centres.
 """
 
 from __future__ import annotations
@@ -13,10 +17,20 @@ import numpy as np
 import pytest
 
 import instantonkit as ik
-from instantonkit.finder import InstantonFit, count_peaks, find_instantons
+from instantonkit.finder import (
+    InstantonFit,
+    MixedFit,
+    count_peaks,
+    count_signed_peaks,
+    find_instantons,
+    find_lattice_instantons,
+)
+from instantonkit.moduli import solve_constraint_unrolled
 
 GRID = np.linspace(-4.0, 4.0, 13)
 LATTICE = np.stack(np.meshgrid(GRID, GRID, GRID, GRID, indexing="ij"), axis=-1).reshape(-1, 4)
+G11 = np.linspace(-4.0, 4.0, 11)
+LATTICE11 = np.stack(np.meshgrid(G11, G11, G11, G11, indexing="ij"), axis=-1).reshape(-1, 4)
 CENTERS = np.array([[-2.0, -2.0, -2.0, -2.0], [2.0, 2.0, -2.0, 2.0], [-2.0, 2.0, 2.0, 0.0], [2.0, -2.0, 2.0, -1.5]])
 SIZES = np.array([0.7, 0.8, 0.6, 0.75])
 
@@ -27,17 +41,167 @@ def known(k, seed=0):
     return ik.multi_instanton(CENTERS[:k], SIZES[:k], o)
 
 
-def errors(fit, k):
-    """Max centre error / rho and max relative size error, matching fitted to true instantons."""
-    order = [int(np.argmin(np.linalg.norm(CENTERS[:k] - c, axis=1))) for c in fit.centers]
-    assert sorted(order) == list(range(k))
-    ec = np.max(np.linalg.norm(fit.centers - CENTERS[order], axis=1) / SIZES[order])
-    es = np.max(np.abs(fit.sizes / SIZES[order] - 1.0))
-    return float(ec), float(es)
+def matching(true_centres, fit_centres):
+    order = [int(np.argmin(np.linalg.norm(fit_centres - c, axis=1))) for c in true_centres]
+    assert sorted(order) == list(range(len(order)))
+    return order
+
+
+def invariant_errors(truth, fit):
+    """Max errors of centres, sizes and relative orientations u_i-bar u_j (each up to sign), matched by centre."""
+    p = matching(truth.centers(), fit.centers)
+    ec = float(np.max(np.abs(fit.centers[p] - truth.centers())))
+    es = float(np.max(np.abs(fit.sizes[p] - truth.sizes())))
+    if truth.k == 1:
+        return ec, es, 0.0
+    ut = np.asarray(truth.lam)[0] / truth.sizes()[:, None]
+    uf = np.asarray(fit.data.lam)[0][p] / fit.sizes[p][:, None]
+    conj = np.array([1.0, -1.0, -1.0, -1.0])
+    rt = np.asarray(ik.quaternion.qmul(ut[:, None] * conj, ut[None, :]))
+    rf = np.asarray(ik.quaternion.qmul(uf[:, None] * conj, uf[None, :]))
+    eo = float(np.max(np.minimum(np.abs(rt - rf).max(-1), np.abs(rt + rf).max(-1))))
+    return ec, es, eo
+
+
+def scattered_around(data, n_per, seed):
+    rng = np.random.default_rng(seed)
+    c, r = data.centers(), data.sizes()
+    return np.concatenate([c[i] + 1.6 * r[i] * rng.normal(size=(n_per, 4)) for i in range(data.k)])
+
+
+# -- exact model --------------------------------------------------------------------------------------
+
+
+def test_unrolled_constraint_solve_matches_the_numpy_solve_and_its_derivative_keeps_the_constraint():
+    import jax
+
+    data = ik.random_adhm(3, seed=4)
+    k = data.k
+    diag = np.asarray(data.B)[np.arange(k), np.arange(k)]
+    np.testing.assert_allclose(np.asarray(solve_constraint_unrolled(data.lam, diag)), np.asarray(data.B), atol=1e-14)
+    dlam = np.random.default_rng(0).normal(size=np.shape(data.lam))
+
+    def im_constraint(lam):
+        b = solve_constraint_unrolled(lam, diag)
+        c = ik.quaternion.qmat_mul(ik.quaternion.qmat_dagger(lam), lam) + ik.quaternion.qmat_mul(ik.quaternion.qmat_dagger(b), b)
+        return c[..., 1:]
+
+    # implicit-function theorem: along any change of the moduli the solved B keeps the constraint, d Im(...) = 0
+    _, tangent = jax.jvp(im_constraint, (np.asarray(data.lam),), (dlam,))
+    assert np.max(np.abs(np.asarray(tangent))) < 1e-12
+    # and the forward derivative agrees with central differences of the solve
+    f = lambda lam: solve_constraint_unrolled(lam, diag)  # noqa: E731
+    _, db = jax.jvp(f, (np.asarray(data.lam),), (dlam,))
+    h = 1e-6
+    fd = (np.asarray(f(np.asarray(data.lam) + h * dlam)) - np.asarray(f(np.asarray(data.lam) - h * dlam))) / (2 * h)
+    np.testing.assert_allclose(np.asarray(db), fd, atol=1e-7)
+
+
+@pytest.mark.parametrize("k", [1, 2, 3, 4])
+def test_exact_fit_recovers_the_gauge_invariant_moduli_of_random_data(k):
+    truth = ik.random_adhm(k, seed=100 + k, spread=2.5, size_range=(0.5, 0.9))
+    pts = LATTICE11 * 1.2 if k <= 2 else scattered_around(truth, 500, seed=k)  # grids and scattered points
+    if k <= 2:
+        pts = pts + truth.centers().mean(0)
+    fit = find_instantons(pts, ik.action_density(truth, pts), k)
+    ec, es, eo = invariant_errors(truth, fit)
+    assert max(ec, es, eo) <= 1e-6, (ec, es, eo)
+    assert fit.model == "exact" and isinstance(fit.data, ik.ADHMData) and fit.data.k == k
+    assert fit.rms < 1e-9
+
+
+def _noisy_trial(k, seed):
+    truth = ik.random_adhm(k, seed=200 + seed, spread=2.5, size_range=(0.6, 0.9))
+    pts = scattered_around(truth, 700, seed=seed)
+    s = ik.action_density(truth, pts)
+    sigma = 0.01 * s  # 1% multiplicative noise of known size
+    noisy = s + sigma * np.random.default_rng(seed).normal(size=s.shape)
+    fit = find_instantons(pts, noisy, k, sigma=sigma)
+    p = matching(truth.centers(), fit.centers)
+    pull_c = np.abs(fit.centers[p] - truth.centers()) / fit.uncertainties["centers"][p]
+    pull_s = np.abs(fit.sizes[p] - truth.sizes()) / fit.uncertainties["sizes"][p]
+    return np.concatenate([pull_c.ravel(), pull_s]), fit
+
+
+def test_with_one_percent_noise_k1_moduli_lie_within_their_uncertainties():
+    # Gaussian one-sigma errors: |pull| <= 2 holds for 95% of estimates (common practice); we ask >= 90%
+    pulls, fits = zip(*[_noisy_trial(1, seed) for seed in range(8)])
+    frac = float(np.mean(np.concatenate(pulls) <= 2.0))
+    assert frac >= 0.9, frac
+    assert sum(f.explains_noise for f in fits) >= 7  # chi2/dof within 5 sigma of 1
+
+
+@pytest.mark.slow
+def test_with_one_percent_noise_k2_moduli_lie_within_their_uncertainties():
+    pulls, fits = zip(*[_noisy_trial(2, seed) for seed in range(4)])
+    frac = float(np.mean(np.concatenate(pulls) <= 2.0))
+    assert frac >= 0.9, frac
+    assert all(f.model == "exact" and f.explains_noise for f in fits)
+
+
+def test_superposition_model_error_is_in_its_uncertainties():
+    truth = known(2, seed=2)
+    s = ik.action_density(truth, LATTICE11)
+    fit = find_instantons(LATTICE11, s, 2, model="superposition")
+    p = matching(truth.centers(), fit.centers)
+    err = np.abs(fit.centers[p] - truth.centers())
+    assert np.max(err) > 1e-5  # the superposition is not exact for k = 2 ...
+    np.testing.assert_allclose(fit.systematic["centers"][p], err, atol=1e-8)  # ... its shift is estimated
+    assert np.all(err <= fit.uncertainties["centers"][p] + 1e-12)
+    assert "systematic = |superposition - exact" in fit.error_budget and fit.orientations is None
+
+
+# -- peaks and lattices --------------------------------------------------------------------------------
+
+
+def test_lumps_at_hypercube_centres_of_a_16_lattice_are_found():
+    # the issue's example: centres (1.5, 0, 0, 0) and (-1, 1, 0.5, 0), sizes 0.7 and 0.9; with a = 0.25 the
+    # default origin puts both lumps at hypercube centres (every coordinate half-way between sites)
+    data = ik.multi_instanton([[1.5, 0.0, 0.0, 0.0], [-1.0, 1.0, 0.5, 0.0]], [0.7, 0.9])
+    shape, a = (16,) * 4, 0.25
+    origin = ik.lattice.default_origin(data, shape, a)
+    sites = ik.lattice.site_points(shape, a, origin).reshape(-1, 4)
+    frac = (data.centers() - origin) / a
+    np.testing.assert_allclose(frac - np.floor(frac), 0.5, atol=1e-9)
+    s = ik.action_density(data, sites)
+    assert count_peaks(sites, s)[0].shape == (2, 4)
+    fit = find_instantons(sites, s, 2)
+    assert not fit.ambiguous, fit.reasons
+    ec, es, _ = invariant_errors(data, fit)
+    assert ec < 1e-6 and es < 1e-6
+
+
+def test_links_of_an_open_lattice_start_are_found_within_a_twentieth_of_a_spacing():
+    a, rho = 1.0, 2.0  # rho / a = 2
+    centre = np.array([0.3, -0.2, 0.15, 0.4])
+    shape = (12,) * 4
+    origin = centre - a * np.array([5.5, 5.2, 6.1, 5.7])
+    links = ik.lattice_links(ik.bpst(centre, rho), shape, a, origin=origin, boundary="open")
+    fit = find_lattice_instantons(links, 1, spacing=a, origin=origin, boundary="open")
+    assert fit.sign == 1 and np.max(np.abs(fit.centers[0] - centre)) < 0.05 * a, fit.centers
+    assert "lattice artefacts" in fit.error_budget
+
+
+def test_charge_and_anti_charge_lumps_are_reported_separately():
+    inst = ik.bpst([-2.0, 0.0, 0.0, 0.0], 0.8)
+    anti = ik.bpst([-2.0, 0.0, 0.0, 0.0], 0.9).conjugate()  # parity image: centre (2, 0, 0, 0), charge -1
+    q = ik.charge_density(inst, LATTICE) + ik.charge_density(anti, LATTICE)
+    peaks = count_signed_peaks(LATTICE, q)
+    assert peaks[1][0].shape == (1, 4) and peaks[-1][0].shape == (1, 4)
+    fit = find_instantons(LATTICE, q, (1, 1), quantity="charge")
+    assert isinstance(fit, MixedFit)
+    assert fit.instantons.sign == 1 and fit.anti_instantons.sign == -1
+    np.testing.assert_allclose(fit.instantons.centers[0], [-2.0, 0.0, 0.0, 0.0], atol=1e-6)
+    np.testing.assert_allclose(fit.anti_instantons.centers[0], [2.0, 0.0, 0.0, 0.0], atol=1e-6)
+    np.testing.assert_allclose([fit.instantons.sizes[0], fit.anti_instantons.sizes[0]], [0.8, 0.9], atol=1e-6)
+    one = find_instantons(LATTICE, q, 1, quantity="charge")
+    assert one.ambiguous and any("opposite sign" in r for r in one.reasons)
+
+
+# -- kept behaviour ---------------------------------------------------------------------------------------
 
 
 def test_single_bpst_is_recovered_exactly_on_a_lattice():
-    # BPST density 48 rho^4 / (|x - a|^2 + rho^2)^4 (Belavin et al., Phys. Lett. B 59 (1975) 85) is the model itself
     a, rho = np.array([0.3, -0.4, 0.2, 0.1]), 0.9
     s = ik.action_density(ik.bpst(a, rho), LATTICE)
     fit = find_instantons(LATTICE, s, 1)
@@ -45,69 +209,37 @@ def test_single_bpst_is_recovered_exactly_on_a_lattice():
     assert not fit.ambiguous and fit.data.k == 1
 
 
-@pytest.mark.parametrize("k", [2, 3, 4])
-def test_separated_instantons_are_recovered_on_a_lattice(k):
-    s = ik.action_density(known(k, seed=k), LATTICE)
-    fit = find_instantons(LATTICE, s, k)
-    ec, es = errors(fit, k)
-    assert ec < 1e-2 and es < 3e-2, (ec, es)
-    assert not fit.ambiguous, fit.reasons
-    noisy = s * (1.0 + 0.01 * np.random.default_rng(k).normal(size=s.shape))  # 1% multiplicative noise
-    ec, es = errors(find_instantons(LATTICE, noisy, k), k)
-    assert ec < 5e-2 and es < 5e-2, (ec, es)
-
-
-def test_scattered_points_with_noise():
-    rng = np.random.default_rng(11)
-    pts = rng.uniform(-4.0, 4.0, size=(30000, 4))
-    s = ik.action_density(known(2, seed=5), pts) * (1.0 + 0.01 * rng.normal(size=30000))
-    ec, es = errors(find_instantons(pts, s, 2), 2)
-    assert ec < 5e-2 and es < 5e-2, (ec, es)
-
-
 def test_charge_density_of_anti_instantons_gives_negative_sign_and_charge():
     # q = -s / 8 pi^2 for anti-self-dual fields (conventions module)
     data = ik.multi_instanton(CENTERS[:2] * np.array([-1.0, -1.0, -1.0, 1.0]), SIZES[:2]).conjugate()
     np.testing.assert_allclose(data.centers(), CENTERS[:2], atol=1e-12)
-    fit = find_instantons(LATTICE, ik.charge_density(data, LATTICE), 2, quantity="charge")
+    fit = find_instantons(LATTICE11, ik.charge_density(data, LATTICE11), 2, quantity="charge", model="superposition", systematics=False)
     assert fit.sign == -1 and fit.data.charge == -2
-    ec, _ = errors(fit, 2)
-    assert ec < 1e-2
+    p = matching(CENTERS[:2], fit.centers)
+    assert np.max(np.abs(fit.centers[p] - CENTERS[:2])) < 1e-2
     np.testing.assert_allclose(np.sort(fit.data.centers(), axis=0), np.sort(fit.centers, axis=0), atol=1e-10)
-
-
-def test_uncertainties_are_consistent_with_the_noise():
-    rng = np.random.default_rng(3)
-    a, rho = np.array([0.3, -0.4, 0.2, 0.1]), 0.9
-    s = ik.action_density(ik.bpst(a, rho), LATTICE) * (1.0 + 0.01 * rng.normal(size=LATTICE.shape[0]))
-    # residuals are homoscedastic for weights 1 / sigma_i^2; for 1% multiplicative noise sigma_i ~ s_i
-    fit = find_instantons(LATTICE, s, 1, weights=1.0 / s**2)
-    err = np.abs(fit.centers[0] - a)
-    sig = fit.uncertainties["centers"][0]
-    assert np.all(sig > 0) and np.all(err < 5.0 * sig)  # a 5-sigma bound (common practice)
-    assert abs(fit.sizes[0] - rho) < 5.0 * fit.uncertainties["sizes"][0]
 
 
 def test_overlapping_instantons_are_flagged_ambiguous():
     data = ik.multi_instanton([[0.0, 0.0, 0.0, 0.0], [0.9, 0.0, 0.0, 0.0]], [1.0, 1.0])
-    fit = find_instantons(LATTICE, ik.action_density(data, LATTICE), 2)
+    fit = find_instantons(LATTICE11, ik.action_density(data, LATTICE11), 2, model="superposition", systematics=False)
     assert fit.ambiguous
     assert any("overlap" in r or "peak" in r for r in fit.reasons)
 
 
 def test_k_larger_than_the_number_of_peaks_is_flagged():
-    s = ik.action_density(known(2), LATTICE)
-    assert count_peaks(LATTICE, s)[0].shape == (2, 4)
-    fit = find_instantons(LATTICE, s, 3)
+    s = ik.action_density(known(2), LATTICE11)
+    assert count_peaks(LATTICE11, s)[0].shape == (2, 4)
+    fit = find_instantons(LATTICE11, s, 3, model="superposition", systematics=False)
     assert fit.ambiguous and any("exceeds the 2 distinct peak" in r for r in fit.reasons)
 
 
 def test_summary_is_a_table_with_one_row_per_instanton():
-    fit = find_instantons(LATTICE, ik.action_density(known(2), LATTICE), 2)
+    fit = find_instantons(LATTICE11, ik.action_density(known(2), LATTICE11), 2, model="superposition", systematics=False)
     text = str(fit)
     assert isinstance(fit, InstantonFit) and text == fit.summary()
     rows = [line for line in text.splitlines()[2:] if line.strip()[:1].isdigit()]
-    assert len(rows) == 2 and "orientations: not determined" in text
+    assert len(rows) == 2 and "orientations: not determined" in text and "not estimated" in text
 
 
 def test_init_is_used():
@@ -124,8 +256,12 @@ def test_bad_input_raises():
         find_instantons(LATTICE, s, 0)
     with pytest.raises(ValueError, match="quantity"):
         find_instantons(LATTICE, s, 1, quantity="energy")
+    with pytest.raises(ValueError, match="model"):
+        find_instantons(LATTICE, s, 1, model="guess")
     with pytest.raises(ValueError, match="weights"):
         find_instantons(LATTICE, s, 1, weights=np.ones(3))
+    with pytest.raises(ValueError, match="either weights or sigma"):
+        find_instantons(LATTICE, s, 1, weights=s, sigma=0.1)
     with pytest.raises(ValueError, match="points must have shape"):
         find_instantons(LATTICE[:, :3], s, 1)
     with pytest.raises(TypeError, match="density"):
@@ -134,3 +270,5 @@ def test_bad_input_raises():
         find_instantons(LATTICE, s, 1, init=(np.zeros((2, 4)), np.ones(2)))
     with pytest.raises(ValueError, match="zero everywhere"):
         find_instantons(LATTICE, np.zeros(LATTICE.shape[0]), 1)
+    with pytest.raises(ValueError, match="pair"):
+        find_instantons(LATTICE, s, (1, 1, 1), quantity="charge")
