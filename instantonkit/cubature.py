@@ -544,7 +544,6 @@ def _rule_description(state: _State) -> str:
 
 def final_rule(state: _State, max_points: int) -> _quad.Rule:
     """The final rule with every shell at min(its angular level, cap), the largest cap giving <= max_points."""
-    periodic = state.layout.periodic
     cap = MAX_ANGULAR_LEVEL
     while cap > 0:
         total = sum(p.sizes(np.minimum(p.la, cap)) for p in state.pieces)

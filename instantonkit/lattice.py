@@ -249,9 +249,7 @@ class StartSpec:
         if group == "su2" and n_field != 2:
             raise ValueError(f"group 'su2' needs a 2 x 2 (SU(2)) field; found N = {n_field} (use group=None)")
         if group == "su3" and n_field not in (2, 3):
-            raise ValueError(
-                f"group 'su3' needs an SU(2) field (embedded) or an SU(3) field; found N = {n_field} (use group=None)"
-            )
+            raise ValueError(f"group 'su3' needs an SU(2) field (embedded) or an SU(3) field; found N = {n_field} (use group=None)")
         try:
             emb = tuple(embedding)
         except TypeError as err:
@@ -414,9 +412,8 @@ _START_DOC_ARGS = """
       spacing: a > 0.
       origin: (4,) position of site 0 (default :func:`default_origin`: the field's centre in the
         middle of the central hypercube, so no link touches it).
-      group: 'su2' (N = 2), 'su3' (an SU(3) field's own links, e.g. :class:`~instantonkit.unitary_adhm.UnitaryADHMData`
-        of rank 3; or SU(2) links embedded in the ``embedding`` = (i, j) rows and columns of 3 x 3
-        identity matrices) or None (the field's own N, e.g. Sp(n)).
+      group: 'su2' (N = 2), 'su3' (an SU(3) field's own links, e.g. rank-3 UnitaryADHMData; or SU(2)
+        links embedded in the ``embedding`` = (i, j) rows and columns of 3 x 3 identities) or None (the field's N).
       boundary: 'periodic' (the link from the last site points to site 0; use a field that decays
         fast, e.g. singular gauge; the mismatch is always measured, see :func:`boundary_mismatch`, and
         a :class:`BoundaryActionWarning` is raised when the boundary action exceeds
