@@ -134,8 +134,15 @@ def _throughput_rows(k: int, n: int, repeats: int, roof: float) -> list[dict]:
     rows = []
     first = _timed(lambda: ik.action_density(data, pts[:LATENCY_POINTS]))
     if k in (1, 4):
-        rows.append(_row(f"first call, closed-form density, {label}", first, "s", first / CLOSED_FIRST_CALL_GOAL_S,
-                         f"t / goal, goal <= {CLOSED_FIRST_CALL_GOAL_S:g} s"))
+        rows.append(
+            _row(
+                f"first call, closed-form density, {label}",
+                first,
+                "s",
+                first / CLOSED_FIRST_CALL_GOAL_S,
+                f"t / goal, goal <= {CLOSED_FIRST_CALL_GOAL_S:g} s",
+            )
+        )
     ik.action_density(data, pts[: fields.DEFAULT_CHUNK])  # compile the chunk shape of the full run
     t = _timed(lambda: ik.action_density(data, pts), repeats)
     rate = n / t
@@ -151,8 +158,15 @@ def _throughput_rows(k: int, n: int, repeats: int, roof: float) -> list[dict]:
     fpp = _flops_per_point(data, _kxk.BLOCK)  # one block: XLA counts a lax.map body once
     rows.append(_row(f"flops per point (XLA cost analysis), {label}", fpp, "flop"))
     achieved = fpp * rate / 1e9
-    rows.append(_row(f"achieved rate, {label}", achieved, "GFLOP/s", achieved / roof,
-                     f"fraction of the numpy matmul roof ({roof:.3g} GFLOP/s)"))
+    rows.append(
+        _row(
+            f"achieved rate, {label}",
+            achieved,
+            "GFLOP/s",
+            achieved / roof,
+            f"fraction of the numpy matmul roof ({roof:.3g} GFLOP/s)",
+        )
+    )
     return rows
 
 
@@ -172,8 +186,13 @@ def _numpy_rows(n: int, repeats: int) -> list[dict]:
     err = float(np.max(np.abs(ik.action_density(data, pts) / plain() - 1.0)))
     return [
         _row("numpy BPST formula", n / t_np, "points/s"),
-        _row("ADHM k=1 action density vs numpy", n / t_adhm, "points/s", t_adhm / t_np,
-             f"t_adhm / t_numpy, goal <= {NUMPY_GOAL_RATIO:g} (max rel. difference {err:.1e})"),
+        _row(
+            "ADHM k=1 action density vs numpy",
+            n / t_adhm,
+            "points/s",
+            t_adhm / t_np,
+            f"t_adhm / t_numpy, goal <= {NUMPY_GOAL_RATIO:g} (max rel. difference {err:.1e})",
+        ),
     ]
 
 
@@ -243,10 +262,20 @@ def _fd_rows(n_fd: int) -> list[dict]:
     err = float(np.max(np.abs(s_fd / s - 1.0)))
     rate, rate_fd = len(pts) / t, n_fd / t_fd
     return [
-        _row("numpy finite-difference pipeline, SU(2) k=4", rate_fd, "points/s", None,
-             f"SVD null space, central differences h = {FD_STEP:g} x scale; max rel. error {err:.1e}"),
-        _row("closed form vs the numpy pipeline, SU(2) k=4", rate, "points/s", rate / rate_fd,
-             f"speed-up, goal >= {FD_GOAL_RATIO:g}"),
+        _row(
+            "numpy finite-difference pipeline, SU(2) k=4",
+            rate_fd,
+            "points/s",
+            None,
+            f"SVD null space, central differences h = {FD_STEP:g} x scale; max rel. error {err:.1e}",
+        ),
+        _row(
+            "closed form vs the numpy pipeline, SU(2) k=4",
+            rate,
+            "points/s",
+            rate / rate_fd,
+            f"speed-up, goal >= {FD_GOAL_RATIO:g}",
+        ),
     ]
 
 
@@ -271,16 +300,30 @@ def _first_call_rows() -> list[dict]:
     pts = _points(data, LATENCY_POINTS, seed=3)
     rows = []
     t = _timed(lambda: fields.field_strength(data, pts, method="autodiff"))
-    rows.append(_row("first call, autodiff field strength, SU(2) k=4", t, "s", t / AUTODIFF_FIRST_CALL_GOAL_S,
-                     f"t / goal, goal <= {AUTODIFF_FIRST_CALL_GOAL_S:g} s"))
+    rows.append(
+        _row(
+            "first call, autodiff field strength, SU(2) k=4",
+            t,
+            "s",
+            t / AUTODIFF_FIRST_CALL_GOAL_S,
+            f"t / goal, goal <= {AUTODIFF_FIRST_CALL_GOAL_S:g} s",
+        )
+    )
     centre = np.array([0.1, 0.2, -0.1, 0.3])
 
     def user(x):
         return _user_potential(x, {"rho": 0.9, "centre": jnp.asarray(centre)})  # a closure: static data
 
     t = _timed(lambda: ik.action_density(user, pts))
-    rows.append(_row("first call, user callable (autodiff density)", t, "s", t / AUTODIFF_FIRST_CALL_GOAL_S,
-                     f"t / goal, goal <= {AUTODIFF_FIRST_CALL_GOAL_S:g} s"))
+    rows.append(
+        _row(
+            "first call, user callable (autodiff density)",
+            t,
+            "s",
+            t / AUTODIFF_FIRST_CALL_GOAL_S,
+            f"t / goal, goal <= {AUTODIFF_FIRST_CALL_GOAL_S:g} s",
+        )
+    )
     kern = fields._kernel("action_density", "auto")
     before = kern._cache_size()
     t0 = time.perf_counter()
@@ -288,8 +331,15 @@ def _first_call_rows() -> list[dict]:
         ik.action_density(fields.ParametrisedField(_user_potential, {"rho": rho, "centre": centre}), pts)
     scan = time.perf_counter() - t0
     compiles = kern._cache_size() - before
-    rows.append(_row("parameter scan, 5 values of a user ansatz (ParametrisedField)", scan, "s", compiles,
-                     "compilations (goal 1)"))
+    rows.append(
+        _row(
+            "parameter scan, 5 values of a user ansatz (ParametrisedField)",
+            scan,
+            "s",
+            compiles,
+            "compilations (goal 1)",
+        )
+    )
     return rows
 
 
@@ -311,14 +361,21 @@ def _cache_rows() -> list[dict]:
         env["PYTHONPATH"] = root + os.pathsep + env.get("PYTHONPATH", "")
         times = []
         for _ in range(2):
-            out = subprocess.run([sys.executable, "-c", _CACHE_PROBE], env=env, capture_output=True, text=True, timeout=600)
+            out = subprocess.run(
+                [sys.executable, "-c", _CACHE_PROBE], env=env, capture_output=True, text=True, timeout=600
+            )
             if out.returncode:
                 raise RuntimeError(out.stderr[-2000:])
             times.append(float(out.stdout.strip().splitlines()[-1]))
     return [
         _row("fresh process, import + first closed-form density, SU(2) k=4, empty cache", times[0], "s"),
-        _row("fresh process, the same with the persistent compilation cache", times[1], "s", times[1] / times[0],
-             "t_cached / t_empty"),
+        _row(
+            "fresh process, the same with the persistent compilation cache",
+            times[1],
+            "s",
+            times[1] / times[0],
+            "t_cached / t_empty",
+        ),
     ]
 
 

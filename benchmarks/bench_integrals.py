@@ -80,20 +80,48 @@ def run(quick: bool = False, ks=None, reference: bool = True) -> list[dict]:
             ref_note, ratio_pts, ratio_err = "", None, None
         else:
             err_ref = abs(ref.value - k)
-            ref_note = (f"; reference rules: {ref.evaluations:,} points, |Q - k| = {err_ref:.1e}, error {ref.error:.1e}, "
-                        f"{'converged' if ref.converged else 'NOT converged'}, {dt_ref:.1f} s")
+            ref_note = (
+                f"; reference rules: {ref.evaluations:,} points, |Q - k| = {err_ref:.1e}, error {ref.error:.1e}, "
+                f"{'converged' if ref.converged else 'NOT converged'}, {dt_ref:.1f} s"
+            )
             ratio_pts = res.evaluations / max(ref.evaluations, 1)
             ratio_err = err / max(err_ref, 1e-300)
         rows += [
-            dict(figure=f"{tag}: time", value=dt, unit="s", ratio=dt / goal, reference=f"ratio to the goal {goal:g} s; {state}"),
-            dict(figure=f"{tag}: points", value=res.evaluations, unit="points", ratio=ratio_pts,
-                 reference=f"ratio to the reference rules on the same budget {budget:,}" + ref_note),
-            dict(figure=f"{tag}: |Q - k|", value=err, unit="", ratio=ratio_err,
-                 reference=f"ratio to the reference rules; goal {tol:g} (Q = k, ADHM 1978)"),
-            dict(figure=f"{tag}: reported error", value=res.error, unit="", ratio=res.error / max(err, 1e-300),
-                 reference="ratio = reported / true error, must be >= 1"),
-            dict(figure=f"{tag}: integrator overhead", value=dt * rate / max(res.evaluations, 1), unit="x",
-                 ratio=None, reference=f"time / (points / density rate {rate:.3g} points/s, same run)"),
+            dict(
+                figure=f"{tag}: time",
+                value=dt,
+                unit="s",
+                ratio=dt / goal,
+                reference=f"ratio to the goal {goal:g} s; {state}",
+            ),
+            dict(
+                figure=f"{tag}: points",
+                value=res.evaluations,
+                unit="points",
+                ratio=ratio_pts,
+                reference=f"ratio to the reference rules on the same budget {budget:,}" + ref_note,
+            ),
+            dict(
+                figure=f"{tag}: |Q - k|",
+                value=err,
+                unit="",
+                ratio=ratio_err,
+                reference=f"ratio to the reference rules; goal {tol:g} (Q = k, ADHM 1978)",
+            ),
+            dict(
+                figure=f"{tag}: reported error",
+                value=res.error,
+                unit="",
+                ratio=res.error / max(err, 1e-300),
+                reference="ratio = reported / true error, must be >= 1",
+            ),
+            dict(
+                figure=f"{tag}: integrator overhead",
+                value=dt * rate / max(res.evaluations, 1),
+                unit="x",
+                ratio=None,
+                reference=f"time / (points / density rate {rate:.3g} points/s, same run)",
+            ),
         ]
     return rows
 

@@ -20,7 +20,6 @@ if __package__ in (None, ""):  # run as a script: make ``import benchmarks`` wor
     sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
 
-
 def _one(size: int, group: str, queue) -> None:
     import numpy as np
 
@@ -76,10 +75,20 @@ def disk_start(size: int = 64, group: str = "su3", directory: str | None = None)
         p.join()
     gib = 1024**3
     return [
-        {"figure": f"{group} {size}^4 BPST start to disk (memmap)", "value": round(r["seconds"], 1), "unit": "s",
-         "ratio": None, "reference": f"file {r['file_bytes'] / gib:.2f} GiB"},
-        {"figure": f"{group} {size}^4 peak resident memory", "value": round(r["peak_kib"] / 1024**2, 2), "unit": "GiB",
-         "ratio": round(r["peak_kib"] * 1024 / (24 * gib), 3), "reference": "limit 24 GiB"},
+        {
+            "figure": f"{group} {size}^4 BPST start to disk (memmap)",
+            "value": round(r["seconds"], 1),
+            "unit": "s",
+            "ratio": None,
+            "reference": f"file {r['file_bytes'] / gib:.2f} GiB",
+        },
+        {
+            "figure": f"{group} {size}^4 peak resident memory",
+            "value": round(r["peak_kib"] / 1024**2, 2),
+            "unit": "GiB",
+            "ratio": round(r["peak_kib"] * 1024 / (24 * gib), 3),
+            "reference": "limit 24 GiB",
+        },
     ]
 
 
@@ -153,12 +162,18 @@ def periodic_figures(quick: bool = False, charge_two: bool = False) -> list[dict
     rows = []
 
     def row(figure, value, reference=""):
-        rows.append({"figure": figure, "value": round(float(value), 5), "unit": "", "ratio": None, "reference": reference})
+        rows.append(
+            {"figure": figure, "value": round(float(value), 5), "unit": "", "ratio": None, "reference": reference}
+        )
 
     bpst = ik.bpst_field(size=1.0, gauge="singular")
     for box in (4.0, 6.0) if quick else (4.0, 6.0, 8.0, 12.0):
         ref = references.continuum_reference(bpst, (16,) * 4, box / 16, boundary="window", nodes=6)
-        row(f"window excess S_w/8pi^2 - 1, box L = {box:g} rho", ref["excess_fraction"], "falls ~ (rho/L)^4 (instantonkit.periodic)")
+        row(
+            f"window excess S_w/8pi^2 - 1, box L = {box:g} rho",
+            ref["excess_fraction"],
+            "falls ~ (rho/L)^4 (instantonkit.periodic)",
+        )
     starts = [("shortest call bpst() 16^4, rho/a = 3", ik.bpst(), (16,) * 4, 1 / 3, 1e-10, "su2")]
     if charge_two:
         data = ik.multi_instanton(centers=[[-3, 0, 0, 0], [3, 0.5, 0, 0]], sizes=[1.0, 1.0])
@@ -169,9 +184,17 @@ def periodic_figures(quick: bool = False, charge_two: bool = False) -> list[dict
                 warnings.simplefilter("ignore", lat.BoundaryActionWarning)
                 st = lat.lattice_start(field, shape, a, boundary=boundary, rtol=rtol, group=group)
             ref = references.continuum_reference(field, shape, a, boundary=boundary, nodes=6)
-            row(f"{label}, {boundary}: S_W / 8pi^2", lat.wilson_action(st.links) / e, f"expected {ref['expected_fraction']:.4f} (continuum_reference)")
+            row(
+                f"{label}, {boundary}: S_W / 8pi^2",
+                lat.wilson_action(st.links) / e,
+                f"expected {ref['expected_fraction']:.4f} (continuum_reference)",
+            )
             row(f"{label}, {boundary}: clover Q", lat.clover_charge(st.links))
-            row(f"{label}, {boundary}: boundary action / 8pi^2", st.report.boundary_action_fraction, "warning above 0.01")
+            row(
+                f"{label}, {boundary}: boundary action / 8pi^2",
+                st.report.boundary_action_fraction,
+                "warning above 0.01",
+            )
             row(f"{label}, {boundary}: seconds", st.report.seconds)
     return rows
 
@@ -181,10 +204,21 @@ def main(argv=None) -> int:
     ap.add_argument("--quick", action="store_true", help="8^4 only")
     ap.add_argument("--sizes", type=int, nargs="*", default=None)
     ap.add_argument("--json", action="store_true", help="print the rows as JSON")
-    ap.add_argument("--disk", type=int, default=None, metavar="L",
-                    help="only write an L^4 SU(3) start to a memmap on disk (e.g. 64) and report time and memory")
-    ap.add_argument("--periodic", action="store_true", help="only the periodic-start figures of issue 14 (window excess, boundary action)")
-    ap.add_argument("--charge-two", action="store_true", help="with --periodic: also the README's 24^4 charge-2 start (minutes)")
+    ap.add_argument(
+        "--disk",
+        type=int,
+        default=None,
+        metavar="L",
+        help="only write an L^4 SU(3) start to a memmap on disk (e.g. 64) and report time and memory",
+    )
+    ap.add_argument(
+        "--periodic",
+        action="store_true",
+        help="only the periodic-start figures of issue 14 (window excess, boundary action)",
+    )
+    ap.add_argument(
+        "--charge-two", action="store_true", help="with --periodic: also the README's 24^4 charge-2 start (minutes)"
+    )
     args = ap.parse_args(argv)
     if args.periodic:
         rows = periodic_figures(args.quick, args.charge_two)

@@ -47,13 +47,25 @@ def _timing_rows(size: int, repeat: int, groups) -> list[dict]:
         c1, c2 = sm.improved_coefficients(-1.0)
         cases = [
             ("Wilson flow RK3 step (step 0.02)", lambda v: sm._rk3_step(v, 0.02, 1.0, 0.0, False)),
-            ("Wilson cooling sweep", lambda v: sm._cool_sweep(v, colours2, 1.0, 0.0, False, 2, 3)),
-            ("eps = -1 cooling sweep (8 colours)", lambda v: sm._cool_sweep(v, colours8, c1, c2, True, 8, 3)),
+            ("Wilson cooling sweep", lambda v, colours2=colours2: sm._cool_sweep(v, colours2, 1.0, 0.0, False, 2, 3)),
+            (
+                "eps = -1 cooling sweep (8 colours)",
+                lambda v, colours8=colours8, c1=c1, c2=c2: sm._cool_sweep(v, colours8, c1, c2, True, 8, 3),
+            ),
         ]
         for name, fn in cases:
             sec = _timed(fn, u, repeat)
-            rows.append({"figure": f"{group} {size}^4 {name}", "value": round(sec, 4), "unit": "s", "ratio": None,
-                         "reference": f"per {size**4 * 4} links; hits = 3 for SU(3)" if "cooling" in name else f"per {size**4 * 4} links"})
+            rows.append(
+                {
+                    "figure": f"{group} {size}^4 {name}",
+                    "value": round(sec, 4),
+                    "unit": "s",
+                    "ratio": None,
+                    "reference": f"per {size**4 * 4} links; hits = 3 for SU(3)"
+                    if "cooling" in name
+                    else f"per {size**4 * 4} links",
+                }
+            )
     return rows
 
 
@@ -72,14 +84,34 @@ def _flow_rows(size: int, times) -> list[dict]:
         i = int(np.argmin(np.abs(rec.time - t)))
         tag = f"Wilson flow of {size}^4 rho/a = 3 start, t = {rec.time[i]:.2f}"
         rows += [
-            {"figure": f"{tag}: S_W / 8 pi^2", "value": round(float(rec.wilson_action[i] / EIGHT_PI2), 4), "unit": "",
-             "ratio": None, "reference": "open-box lattice value 1 - (1/5)(a/rho)^2 = 0.978"},
-            {"figure": f"{tag}: clover Q", "value": round(float(rec.clover_charge[i]), 4), "unit": "", "ratio": None,
-             "reference": "1 - 0.8 (a/rho)^2 ~ 0.91 (a^2 error of the operator)"},
-            {"figure": f"{tag}: improved Q", "value": round(float(rec.improved_charge[i]), 4), "unit": "", "ratio": None,
-             "reference": "1 (charge of the start)"},
-            {"figure": f"{tag}: size rho/a", "value": round(float(rec.size[i]), 3), "unit": "a", "ratio": None,
-             "reference": "moment estimate; start rho/a = 3"},
+            {
+                "figure": f"{tag}: S_W / 8 pi^2",
+                "value": round(float(rec.wilson_action[i] / EIGHT_PI2), 4),
+                "unit": "",
+                "ratio": None,
+                "reference": "open-box lattice value 1 - (1/5)(a/rho)^2 = 0.978",
+            },
+            {
+                "figure": f"{tag}: clover Q",
+                "value": round(float(rec.clover_charge[i]), 4),
+                "unit": "",
+                "ratio": None,
+                "reference": "1 - 0.8 (a/rho)^2 ~ 0.91 (a^2 error of the operator)",
+            },
+            {
+                "figure": f"{tag}: improved Q",
+                "value": round(float(rec.improved_charge[i]), 4),
+                "unit": "",
+                "ratio": None,
+                "reference": "1 (charge of the start)",
+            },
+            {
+                "figure": f"{tag}: size rho/a",
+                "value": round(float(rec.size[i]), 3),
+                "unit": "a",
+                "ratio": None,
+                "reference": "moment estimate; start rho/a = 3",
+            },
         ]
     return rows
 
@@ -97,14 +129,34 @@ def _cooling_rows(size: int, sweeps: int) -> list[dict]:
     for eps in (1.0, -1.0):
         _, rec = sm.cool(u, sweeps, eps=eps)
         tag = f"eps = {eps:+.0f} cooling of {size}^4 rho/a = 2 start"
-        rows.append({"figure": f"{tag}: rho/a after {early} sweeps", "value": round(float(rec.size[early]), 3), "unit": "a",
-                     "ratio": round(float(rec.size[early] / rec.size[0]), 3), "reference": f"ratio to the start's estimate {rec.size[0]:.3f}"})
+        rows.append(
+            {
+                "figure": f"{tag}: rho/a after {early} sweeps",
+                "value": round(float(rec.size[early]), 3),
+                "unit": "a",
+                "ratio": round(float(rec.size[early] / rec.size[0]), 3),
+                "reference": f"ratio to the start's estimate {rec.size[0]:.3f}",
+            }
+        )
         lost = np.nonzero(np.abs(rec.clover_charge) < 0.5)[0]
-        rows.append({"figure": f"{tag}: sweeps until clover |Q| < 0.5", "value": int(rec.time[lost[0]]) if lost.size else float("nan"),
-                     "unit": "sweeps", "ratio": None, "reference": f"'-': Q kept for all {sweeps} sweeps"})
-        rows.append({"figure": f"{tag}: after {sweeps} sweeps S(eps) / 8 pi^2", "value": round(float(rec.action[-1] / EIGHT_PI2), 4),
-                     "unit": "", "ratio": None,
-                     "reference": f"rho/a {rec.size[-1]:.3f}, clover Q {rec.clover_charge[-1]:.3f}, improved Q {rec.improved_charge[-1]:.3f}"})
+        rows.append(
+            {
+                "figure": f"{tag}: sweeps until clover |Q| < 0.5",
+                "value": int(rec.time[lost[0]]) if lost.size else float("nan"),
+                "unit": "sweeps",
+                "ratio": None,
+                "reference": f"'-': Q kept for all {sweeps} sweeps",
+            }
+        )
+        rows.append(
+            {
+                "figure": f"{tag}: after {sweeps} sweeps S(eps) / 8 pi^2",
+                "value": round(float(rec.action[-1] / EIGHT_PI2), 4),
+                "unit": "",
+                "ratio": None,
+                "reference": f"rho/a {rec.size[-1]:.3f}, clover Q {rec.clover_charge[-1]:.3f}, improved Q {rec.improved_charge[-1]:.3f}",
+            }
+        )
     return rows
 
 

@@ -3,18 +3,24 @@ densities by closed form and automatic differentiation, checks of charge and sel
 starts.  Conventions: :mod:`instantonkit.conventions` and docs/conventions.md.
 """
 
-from . import _config  # noqa: F401  (float64 before anything is traced)
-from . import conventions, quaternion
-from . import moduli
+from . import (
+    _config,  # noqa: F401  (float64 before anything is traced)
+    cluster,  # dask and zarr are imported only when a chunked run starts
+    conventions,
+    io,
+    lattice,
+    moduli,
+    observables,
+    quaternion,
+    references,
+    smoothing,
+    transport,
+    unitary_adhm,
+    unitary_moduli,
+)
+from ._config import enable_compile_cache
 from .adhm import ADHMData
-from .moduli import block_sum, bpst, embed_sp, multi_instanton, random_adhm
 from .ansatz import bpst_field, caloron, jnr, thooft
-from .transforms import anti, dilate, gauge_transform, parity, rotate, translate
-from . import unitary_adhm, unitary_moduli
-from .unitary_adhm import UnitaryADHMData
-from .unitary_moduli import embed_unitary, from_quaternionic, random_unitary_adhm, unitary_multi_instanton
-from .zero_modes import zero_mode_density, zero_mode_overlap, zero_modes
-from .finder import InstantonFit, find_instantons
 from .checks import (
     DivergentIntegralError,
     FieldEvaluationError,
@@ -24,13 +30,9 @@ from .checks import (
     total_charge,
     verify,
 )
-from . import io, lattice, observables
-from . import references, transport
-from .lattice import average_plaquette, clover_charge, lattice_links, lattice_start, wilson_action
-from .io import load_lattice, save_lattice
-from . import cluster  # dask and zarr are imported only when a chunked run starts
 from .cluster import ensemble
 from .fields import (
+    ParametrisedField,
     action_density,
     as_field,
     charge_density,
@@ -38,8 +40,15 @@ from .fields import (
     potential,
     self_duality_residual,
 )
-from . import smoothing
+from .finder import InstantonFit, MixedFit, find_instantons, find_lattice_instantons
+from .io import load_lattice, save_lattice
+from .lattice import average_plaquette, clover_charge, lattice_links, lattice_start, wilson_action
+from .moduli import block_sum, bpst, embed_sp, multi_instanton, random_adhm
 from .smoothing import cool, gradient_flow, improved_action, improved_charge, wilson_flow
+from .transforms import anti, dilate, gauge_transform, parity, rotate, translate
+from .unitary_adhm import UnitaryADHMData
+from .unitary_moduli import embed_unitary, from_quaternionic, random_unitary_adhm, unitary_multi_instanton
+from .zero_modes import zero_mode_density, zero_mode_overlap, zero_modes
 
 __version__ = "0.1.0"
 
@@ -97,7 +106,11 @@ __all__ = [
     "zero_mode_density",
     "zero_mode_overlap",
     "find_instantons",
+    "find_lattice_instantons",
     "InstantonFit",
+    "MixedFit",
+    "ParametrisedField",
+    "enable_compile_cache",
     "total_action",
     "total_charge",
     "verify",

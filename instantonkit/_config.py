@@ -27,7 +27,9 @@ __all__ = ["enable_compile_cache", "compile_cache_dir", "CACHE_ENV", "DEFAULT_CA
 CACHE_ENV = "INSTANTONKIT_COMPILE_CACHE"
 
 #: Directory used for ``INSTANTONKIT_COMPILE_CACHE=default`` (in the user's cache home).
-DEFAULT_CACHE_DIR = os.path.join(os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache"), "instantonkit", "jax")
+DEFAULT_CACHE_DIR = os.path.join(
+    os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache"), "instantonkit", "jax"
+)
 
 #: Kernels compiling faster than this are not stored (JAX's default, 1 s, would skip most of ours).
 _MIN_COMPILE_SECONDS = 0.05
@@ -54,7 +56,8 @@ def enable_compile_cache(directory: str | os.PathLike | None = None) -> str:
 
 def compile_cache_dir() -> str | None:
     """The directory of the persistent compilation cache, or None when it is off."""
-    return jax.config.jax_compilation_cache_dir
+    # a config option, not a declared attribute of jax.config
+    return jax.config.jax_compilation_cache_dir  # type: ignore[attr-defined]
 
 
 def _from_environment() -> None:

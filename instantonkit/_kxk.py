@@ -103,7 +103,9 @@ def solve_upper_t(lo, x):
 
 def qmatmul_last(a, v):
     """Quaternionic (A V)_im = sum_j A_ij V_jm; a (4, k, k, nb), v (4, k, m, nb) -> (4, k, m, nb) (Hamilton 1843)."""
-    r = sum(a[:, None, :, j, None] * v[None, :, j, None] for j in range(a.shape[2]))  # r[d, e] = A^d V^e, (4, 4, k, m, nb)
+    r = sum(
+        a[:, None, :, j, None] * v[None, :, j, None] for j in range(a.shape[2])
+    )  # r[d, e] = A^d V^e, (4, 4, k, m, nb)
     return jnp.stack([sum(_C[d, e, c] * r[d, e] for d in range(4) for e in range(4) if _C[d, e, c]) for c in range(4)])
 
 

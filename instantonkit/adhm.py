@@ -51,9 +51,6 @@ CONSTRAINT_TOL = 1e-10
 UNIT_TOL = 1e-10
 
 
-
-
-
 #: Floor of the length scale given by hint() (callers divide by it; real data never get near it).
 _MIN_SCALE = 1e-300
 
@@ -203,7 +200,9 @@ class ADHMData(PytreeFields):
             q = q[None, None]
         if q.shape != (self.rank, self.rank, 4):
             raise ValueError(f"q must have shape {(self.rank, self.rank, 4)}; found {q.shape}")
-        dev = float(np.max(np.abs(np.asarray(qt.qmat_mul(qt.qmat_dagger(q), q)) - np.asarray(qt.qmat_identity(self.rank)))))
+        dev = float(
+            np.max(np.abs(np.asarray(qt.qmat_mul(qt.qmat_dagger(q), q)) - np.asarray(qt.qmat_identity(self.rank))))
+        )
         if dev > UNIT_TOL:
             raise ValueError(f"q must be in Sp({self.rank}); max |Q^dag Q - 1| = {dev:.3e}")
         return self._replace(lam=np.asarray(qt.qmat_mul(q, self.lam)))
@@ -361,7 +360,9 @@ class ADHMData(PytreeFields):
             raise AttributeError("closed_link exists only for charge-1 SU(2) ADHM data (k = 1, n = 1)")
 
         def closed_link(x, d):
-            return charge_one_link(jnp.asarray(self.lam)[0, 0], jnp.asarray(self.B)[0, 0], self.chirality, self.gauge, x, d)
+            return charge_one_link(
+                jnp.asarray(self.lam)[0, 0], jnp.asarray(self.B)[0, 0], self.chirality, self.gauge, x, d
+            )
 
         return closed_link
 

@@ -226,7 +226,9 @@ class ThooftField(_ScalarAnsatz):
 
     def layout(self) -> tuple[np.ndarray, np.ndarray]:
         """Field hook: the poles (k, 4) and their sizes (k,), where the action sits."""
-        return np.asarray(self.centers, dtype=np.float64).reshape(-1, 4), np.asarray(self.sizes, dtype=np.float64).reshape(-1)
+        return np.asarray(self.centers, dtype=np.float64).reshape(-1, 4), np.asarray(
+            self.sizes, dtype=np.float64
+        ).reshape(-1)
 
     def pole_count(self) -> tuple[int, str]:
         """Field hook: the charge read off the ansatz, k = number of poles (an input, not a check)."""
@@ -327,7 +329,10 @@ def _caloron_ratio(z, b):
     ch = 0.5 * (1.0 + e * e)
     l1 = (ch - l0) / (2.0 * zl)
     l2 = (0.5 * l0 - 3.0 * l1) / (2.0 * zl)
-    sel = lambda p, q: jnp.where(small, p, q)
+
+    def sel(p, q):
+        return jnp.where(small, p, q)
+
     s0, s1, s2 = sel(s0, l0), sel(s1, l1), sel(s2, l2)
     d = sel(d_small, ch - e * jnp.cos(b))
     db = sel(jnp.sin(b), e * jnp.sin(b))
@@ -497,7 +502,12 @@ class BPSTField(PytreeFields):
         """Closed-form transporter x -> x + d, (4,), (4,) -> (2, 2): BPST with Lambda = rho Omega, B = p(center)
         in the same gauge (:func:`instantonkit.adhm.charge_one_link`)."""
         return charge_one_link(
-            jnp.asarray(self.size) * jnp.asarray(self.orientation), point_to_quaternion(jnp.asarray(self.center)), 1, self.gauge, x, d
+            jnp.asarray(self.size) * jnp.asarray(self.orientation),
+            point_to_quaternion(jnp.asarray(self.center)),
+            1,
+            self.gauge,
+            x,
+            d,
         )
 
     @property
@@ -583,7 +593,9 @@ def caloron(size, period, center=(0.0, 0.0, 0.0, 0.0)) -> CaloronField:
     return CaloronField(size, period, center)
 
 
-def bpst_field(center=(0.0, 0.0, 0.0, 0.0), size=1.0, gauge: str = "regular", orientation=(1.0, 0.0, 0.0, 0.0)) -> BPSTField:
+def bpst_field(
+    center=(0.0, 0.0, 0.0, 0.0), size=1.0, gauge: str = "regular", orientation=(1.0, 0.0, 0.0, 0.0)
+) -> BPSTField:
     """Closed-form BPST instanton; gauge 'regular' (smooth) or 'singular' (singular at the centre).
 
     Args:

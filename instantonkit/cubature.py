@@ -15,7 +15,7 @@ from __future__ import annotations
 import dataclasses
 import math
 from collections.abc import Sequence
-from typing import NamedTuple
+from typing import Any, NamedTuple
 
 import numpy as np
 
@@ -301,10 +301,12 @@ def _piece_radial_nodes(piece: _Piece, lr: int) -> tuple[np.ndarray, np.ndarray]
         return _quad.radial_nodes(n, piece.L, piece.dim)
     d = np.linalg.norm((layout.centres - piece.centre[None, :])[:, : piece.dim], axis=1)
     others = (np.arange(d.shape[0]) != piece.index) & (d >= _PANEL_SEPARATION * layout.scales)
-    cuts = np.concatenate([d[others] - _PANEL_HALF_WIDTH * layout.scales[others],
-                           d[others] + _PANEL_HALF_WIDTH * layout.scales[others]])
-    return _quad.radial_panel_nodes(n, piece.L, piece.dim, cuts[cuts > 0], min_length=_PANEL_MIN_LENGTH,
-                                    min_nodes=_PANEL_MIN)
+    cuts = np.concatenate(
+        [d[others] - _PANEL_HALF_WIDTH * layout.scales[others], d[others] + _PANEL_HALF_WIDTH * layout.scales[others]]
+    )
+    return _quad.radial_panel_nodes(
+        n, piece.L, piece.dim, cuts[cuts > 0], min_length=_PANEL_MIN_LENGTH, min_nodes=_PANEL_MIN
+    )
 
 
 class _ShellRequest(NamedTuple):
@@ -321,7 +323,7 @@ class _Plan(NamedTuple):
 
     piece: _Piece
     kind: str
-    shells: object
+    shells: Any
 
 
 @dataclasses.dataclass
@@ -336,7 +338,9 @@ class _State:
     @classmethod
     def start(cls, layout: Layout) -> _State:
         lsc = _quad.radial_scales(layout.centres, layout.scales)
-        pieces = [_Piece(i, layout.centres[i], float(lsc[i]), layout.dim, layout) for i in range(layout.centres.shape[0])]
+        pieces = [
+            _Piece(i, layout.centres[i], float(lsc[i]), layout.dim, layout) for i in range(layout.centres.shape[0])
+        ]
         return cls(layout, pieces)
 
     @property
@@ -357,8 +361,15 @@ def _shell_orientation(piece: _Piece, r: np.ndarray, layout: Layout) -> tuple[np
     n = r.shape[0]
     if layout.periodic or not 1 < layout.centres.shape[0] <= _ORIENTED_MAX_CENTRES or _ASPECT <= 1:
         return np.tile(np.array([0.0, 0.0, 0.0, 1.0]), (n, 1)), np.ones(n, dtype=int)
-    return _quad.shell_axes(layout.centres, layout.scales, piece.index, r, aspect=_ASPECT,
-                            dominance=_DOMINANCE, separation=_PANEL_SEPARATION)
+    return _quad.shell_axes(
+        layout.centres,
+        layout.scales,
+        piece.index,
+        r,
+        aspect=_ASPECT,
+        dominance=_DOMINANCE,
+        separation=_PANEL_SEPARATION,
+    )
 
 
 def _shell_rule(piece: _Piece, j: int, level: int, layout: Layout) -> tuple[np.ndarray, np.ndarray]:
@@ -368,7 +379,9 @@ def _shell_rule(piece: _Piece, j: int, level: int, layout: Layout) -> tuple[np.n
     a, r, wr = piece.centre, piece.r[j], piece.wr[j]
     if period is None:
         n_psi, n, _ = _angular_counts(level, False, int(piece.aspect[j]))
-        dirs, wd = _quad.sphere3_oriented(n_psi, n, piece.axis[j]) if layout.centres.shape[0] > 1 else _quad.sphere3_nodes(n)
+        dirs, wd = (
+            _quad.sphere3_oriented(n_psi, n, piece.axis[j]) if layout.centres.shape[0] > 1 else _quad.sphere3_nodes(n)
+        )
         pts = a[None, :] + r * dirs
         w = wr * wd
     else:
@@ -434,8 +447,11 @@ def _level_need(piece: _Piece, lr: int, init, layout: Layout) -> int:
     """Points of moving ``piece`` to radial level lr with initial angular levels ``init`` (lo and hi per shell)."""
     r_new = _piece_radial_nodes(piece, lr)[0]
     asp = _shell_orientation(piece, r_new, layout)[1]
-    return sum(_shell_size(int(max(lev - 1, 0)), layout.periodic, int(a)) + _shell_size(int(max(lev, 1)), layout.periodic, int(a))
-               for lev, a in zip(init, asp))
+    return sum(
+        _shell_size(int(max(lev - 1, 0)), layout.periodic, int(a))
+        + _shell_size(int(max(lev, 1)), layout.periodic, int(a))
+        for lev, a in zip(init, asp)
+    )
 
 
 def _initial_rounds(state: _State, density, name: str, max_points: int) -> str:
@@ -450,8 +466,10 @@ def _initial_rounds(state: _State, density, name: str, max_points: int) -> str:
     init0 = [np.ones(_piece_radial_nodes(p, 0)[0].shape[0], dtype=int) for p in state.pieces]
     need0 = probe.shape[0] + sum(_level_need(p, 0, i0, state.layout) for p, i0 in zip(state.pieces, init0))
     if need0 > max_points:
-        raise ValueError(f"max_points must be at least {need0:,} for this layout of {len(state.pieces)} centre(s) "
-                         f"(the first round); found {max_points:,}")
+        raise ValueError(
+            f"max_points must be at least {need0:,} for this layout of {len(state.pieces)} centre(s) "
+            f"(the first round); found {max_points:,}"
+        )
     reqs0 = []
     for p, i0 in zip(state.pieces, init0):
         reqs0 += _new_level_requests(p, 0, i0)
@@ -464,8 +482,10 @@ def _initial_rounds(state: _State, density, name: str, max_points: int) -> str:
     inits = [p.levels_for(1) for p in state.pieces]
     need1 = sum(_level_need(p, 1, init, state.layout) for p, init in zip(state.pieces, inits))
     if state.evaluations + need1 > max_points:
-        return (f"budget spent: the second round needs {need1:,} more points, beyond max_points = {max_points:,} "
-                f"({state.evaluations:,} used); no error estimate of the radial rule yet")
+        return (
+            f"budget spent: the second round needs {need1:,} more points, beyond max_points = {max_points:,} "
+            f"({state.evaluations:,} used); no error estimate of the radial rule yet"
+        )
     reqs1 = []
     for p, init in zip(state.pieces, inits):
         reqs1 += _new_level_requests(p, 1, init)
@@ -520,8 +540,10 @@ def _stop_message(plans, need: int, state: _State, max_points: int, error: float
     if plans and state.evaluations + need <= max_points:
         return ""
     if plans:
-        return (f"budget spent: the next round needs {need:,} more points, beyond max_points = {max_points:,} "
-                f"({state.evaluations:,} used); estimated error {error:.1e} > tolerance {tol:.1e}")
+        return (
+            f"budget spent: the next round needs {need:,} more points, beyond max_points = {max_points:,} "
+            f"({state.evaluations:,} used); estimated error {error:.1e} > tolerance {tol:.1e}"
+        )
     return f"finest levels reached; estimated error {error:.1e} > tolerance {tol:.1e}"
 
 
@@ -560,8 +582,9 @@ def final_rule(state: _State, max_points: int) -> _quad.Rule:
     return _quad.Rule(np.concatenate(pts), np.concatenate(wts), desc)
 
 
-def integrate_adaptive(density, name: str, layout: Layout, *, rtol: float, atol: float, max_points: int,
-                   sink) -> tuple[IntegralResult, _State]:
+def integrate_adaptive(
+    density, name: str, layout: Layout, *, rtol: float, atol: float, max_points: int, sink
+) -> tuple[IntegralResult, _State]:
     """One adaptive integral: the initial rounds, then planned rounds until converged or stopped."""
     state = _State.start(layout)
     first = _initial_rounds(state, density, name, max_points)
@@ -573,7 +596,16 @@ def integrate_adaptive(density, name: str, layout: Layout, *, rtol: float, atol:
             message = first
             break
         if sink is not None:
-            sink(dict(quantity=name, round=state.rounds, evaluations=state.evaluations, value=value, error=error, done=False))
+            sink(
+                dict(
+                    quantity=name,
+                    round=state.rounds,
+                    evaluations=state.evaluations,
+                    value=value,
+                    error=error,
+                    done=False,
+                )
+            )
         if error <= tol:
             converged = True
             break
@@ -588,8 +620,10 @@ def integrate_adaptive(density, name: str, layout: Layout, *, rtol: float, atol:
             p.update_radial_error()
         state.rounds += 1
     if sink is not None:
-        sink(dict(quantity=name, round=state.rounds, evaluations=state.evaluations, value=value, error=error, done=True))
-    res = IntegralResult(name, float(value), float(error), state.evaluations, _rule_description(state), converged, message)
+        sink(
+            dict(quantity=name, round=state.rounds, evaluations=state.evaluations, value=value, error=error, done=True)
+        )
+    res = IntegralResult(
+        name, float(value), float(error), state.evaluations, _rule_description(state), converged, message
+    )
     return res, state
-
-

@@ -248,7 +248,12 @@ class ParametrisedField:
             raise TypeError(f"fn must be a callable fn(x, params); found {type(self.fn).__name__}")
         leaves, treedef = jax.tree_util.tree_flatten(self.params)
         if not any(_validate.is_tracer(leaf) for leaf in leaves):
-            leaves = [jnp.asarray(leaf, dtype=jnp.float64) if isinstance(leaf, (int, float)) and not isinstance(leaf, bool) else leaf for leaf in leaves]
+            leaves = [
+                jnp.asarray(leaf, dtype=jnp.float64)
+                if isinstance(leaf, (int, float)) and not isinstance(leaf, bool)
+                else leaf
+                for leaf in leaves
+            ]
             object.__setattr__(self, "params", jax.tree_util.tree_unflatten(treedef, leaves))
 
     def potential(self, x):
@@ -377,7 +382,11 @@ _STRUCT_CACHE: dict = {}
 def _output_struct(kern, field):
     """Shape/dtype of the kernel output for one point, memoised per kernel and field structure."""
     leaves, treedef = jax.tree_util.tree_flatten(field)
-    key = (kern, treedef, tuple((np.shape(l), np.dtype(l.dtype) if hasattr(l, "dtype") else np.result_type(l)) for l in leaves))
+    key = (
+        kern,
+        treedef,
+        tuple((np.shape(l), np.dtype(l.dtype) if hasattr(l, "dtype") else np.result_type(l)) for l in leaves),
+    )
     try:
         hit = _STRUCT_CACHE.get(key)
     except TypeError:  # unhashable static data: no memo
@@ -397,7 +406,9 @@ def output_shape(field, quantity: str, method: str = "auto") -> tuple[tuple[int,
     return tuple(st.shape[1:]), np.dtype(st.dtype)
 
 
-def evaluate(field, points: Array, quantity: str, *, method: str = "auto", chunk_size: int = DEFAULT_CHUNK) -> np.ndarray:
+def evaluate(
+    field, points: Array, quantity: str, *, method: str = "auto", chunk_size: int = DEFAULT_CHUNK
+) -> np.ndarray:
     """Evaluate ``quantity`` of ``field`` on ``points`` in chunks of compiled work.
 
     Args:

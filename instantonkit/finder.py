@@ -30,6 +30,7 @@ in quadrature.  chi2 / dof is a goodness-of-fit statement only when ``sigma`` (t
 from __future__ import annotations
 
 import dataclasses
+from typing import Any
 
 import jax
 import jax.numpy as jnp
@@ -129,7 +130,7 @@ class InstantonFit:
     rms: float
     n_peaks: int
     quantity: str
-    orientations: object = None
+    orientations: Any = None
     statistical: dict = dataclasses.field(default_factory=dict)
     systematic: dict = dataclasses.field(default_factory=dict)
     error_budget: str = ""
@@ -235,7 +236,8 @@ def _to_action(d: np.ndarray, quantity: str) -> tuple[np.ndarray, int]:
 
 def _greedy_start(pts: np.ndarray, s: np.ndarray, k: int, peaks=None):
     """Start centres and sizes: the k tallest distinct peaks (sizes from their heights), then greedy subtraction."""
-    centers, sizes = [], []
+    centers: list = []
+    sizes: list = []
     rest = s.copy()
     if peaks is not None:
         for c, h in zip(*peaks):
@@ -373,7 +375,11 @@ def find_instantons(
         sg = _validate.real_array("sigma", sigma)
         if np.any(sg <= 0):
             raise ValueError(f"sigma must be > 0; found min {float(np.min(sg))!r}")
-        weights = np.broadcast_to(1.0 / sg**2, np.shape(density)) if sg.ndim else np.full(np.shape(density), 1.0 / float(sg) ** 2)
+        weights = (
+            np.broadcast_to(1.0 / sg**2, np.shape(density))
+            if sg.ndim
+            else np.full(np.shape(density), 1.0 / float(sg) ** 2)
+        )
     pts, d, w = _check_inputs(points, density, k, weights, quantity)
     s, sign = _to_action(d, quantity)
     if quantity == "charge" and sigma is not None:
@@ -395,7 +401,9 @@ def find_instantons(
         c0 = _validate.real_array("init centres", init[0])
         r0 = _validate.real_array("init sizes", init[1])
         if c0.shape != (k, 4) or r0.shape != (k,) or np.any(r0 <= 0):
-            raise ValueError(f"init must be (centres (k, 4), sizes (k,) > 0) with k = {k}; found {c0.shape}, {r0.shape}")
+            raise ValueError(
+                f"init must be (centres (k, 4), sizes (k,) > 0) with k = {k}; found {c0.shape}, {r0.shape}"
+            )
         if sign == -1:
             c0 = c0 * PARITY
     sw = np.sqrt(w) / smax
@@ -449,7 +457,9 @@ def find_instantons(
             budget = "statistical = noise, from the curvature of the superposition fit; systematic = 0 (k = 1: BPST is exact)"
         if k == 1 and model == "exact":  # the BPST profile is the exact charge-1 density
             o = np.array([[1.0, 0.0, 0.0, 0.0]])
-            budget = "statistical = noise, from the curvature of the fit; systematic = 0 (k = 1: BPST is the exact density)"
+            budget = (
+                "statistical = noise, from the curvature of the fit; systematic = 0 (k = 1: BPST is the exact density)"
+            )
         budget += _lattice_note
         dof = max(m - npar, 1)
         chi2 = float(np.sum(sol.fun**2)) * smax**2
@@ -466,7 +476,9 @@ def find_instantons(
     if sigma is not None:
         explains = bool(chi2_dof <= 1.0 + _CHI2_SIGMAS * np.sqrt(2.0 / dof))
         if not explains:
-            reasons.append(f"the {'exact' if o is not None else 'superposition'} model does not explain the density to its noise level (chi2/dof = {chi2_dof:.3g})")
+            reasons.append(
+                f"the {'exact' if o is not None else 'superposition'} model does not explain the density to its noise level (chi2/dof = {chi2_dof:.3g})"
+            )
     if k > peaks[0].shape[0]:
         reasons.append(f"k = {k} exceeds the {peaks[0].shape[0]} distinct peak(s) in the samples")
     for i in range(k):
@@ -515,7 +527,9 @@ def _find_mixed(points, density, k, *, weights, sigma):
     if kp + km < 1:
         raise ValueError(f"k must be an integer or a pair (k_plus, k_minus) with k_plus + k_minus >= 1; found {k!r}")
     if sigma is not None:
-        weights = np.broadcast_to(1.0 / (_validate.real_array("sigma", sigma) * INSTANTON_ACTION) ** 2, np.shape(density))
+        weights = np.broadcast_to(
+            1.0 / (_validate.real_array("sigma", sigma) * INSTANTON_ACTION) ** 2, np.shape(density)
+        )
     pts, d, w = _check_inputs(points, density, kp + km, weights, "charge")
     q = d * INSTANTON_ACTION  # s-like units: +-s for (anti-)instanton lumps
     qmax = float(np.max(np.abs(q)))
@@ -546,9 +560,20 @@ def _find_mixed(points, density, k, *, weights, sigma):
         if idx.size > n_found:
             reasons.append(f"k = {idx.size} exceeds the {n_found} distinct peak(s) of sign {sign:+d}")
         return InstantonFit(
-            centers=c[idx], sizes=r[idx], uncertainties=_quad(stat, syst), data=None, ambiguous=bool(reasons),
-            reasons=tuple(reasons), sign=sign, rms=rms, n_peaks=int(n_found), quantity="charge",
-            statistical=stat, systematic=syst, error_budget=budget, model="superposition",
+            centers=c[idx],
+            sizes=r[idx],
+            uncertainties=_quad(stat, syst),
+            data=None,
+            ambiguous=bool(reasons),
+            reasons=tuple(reasons),
+            sign=sign,
+            rms=rms,
+            n_peaks=int(n_found),
+            quantity="charge",
+            statistical=stat,
+            systematic=syst,
+            error_budget=budget,
+            model="superposition",
             chi2_dof=float(np.sum(sol.fun**2) * qmax**2 / max(m - npar, 1)),
             superposition={"centers": c[idx], "sizes": r[idx]},
         )
@@ -556,8 +581,17 @@ def _find_mixed(points, density, k, *, weights, sigma):
     return MixedFit(part(np.arange(kp), 1), part(np.arange(kp, kp + km), -1), rms)
 
 
-def find_lattice_instantons(links, k, *, spacing: float = 1.0, origin=None, boundary: str = "periodic",
-                            quantity: str = "charge", model: str = "exact", **options):
+def find_lattice_instantons(
+    links,
+    k,
+    *,
+    spacing: float = 1.0,
+    origin=None,
+    boundary: str = "periodic",
+    quantity: str = "charge",
+    model: str = "exact",
+    **options,
+):
     """Fit instantons to a lattice gauge field given as links, from the lattice's own densities.
 
     The density is the clover charge density (quantity='charge', :func:`observables.clover_charge_density`)

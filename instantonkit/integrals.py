@@ -33,8 +33,9 @@ from collections.abc import Callable, Sequence
 import numpy as np
 
 from . import _validate
-from . import fields as _fields
 from . import cubature as _cub
+from . import fields as _fields
+from ._batching import run_batched
 from .cubature import (
     MAX_ANGULAR_LEVEL,
     MAX_RADIAL_LEVEL,
@@ -43,7 +44,6 @@ from .cubature import (
     IntegralResult,
     Layout,
 )
-from ._batching import run_batched
 
 __all__ = [
     "IntegralResult",
@@ -265,8 +265,9 @@ def integrate(
             raise TypeError(f"requests must hold DensityRequest objects; found {type(req).__name__}")
         req_atol = atol if req.atol is None else req.atol
         _check_tolerances(rtol, req_atol, max_points)
-        res, state = _cub.integrate_adaptive(_evaluator(field, req), req.name, layout, rtol=rtol, atol=req_atol,
-                                    max_points=max_points, sink=sink)
+        res, state = _cub.integrate_adaptive(
+            _evaluator(field, req), str(req.name), layout, rtol=rtol, atol=req_atol, max_points=max_points, sink=sink
+        )
         results.append(res)
         if rule_points is not None:
             rules.append(_cub.final_rule(state, rule_points))
@@ -311,13 +312,30 @@ def integrate_density(
     if quantity not in _QUANTITIES:
         raise ValueError(f"quantity must be 'action_density' or 'charge_density'; found {quantity!r}")
     layout = layout_of(field, center, scale, period)
-    outcome = integrate(field, (DensityRequest(quantity, method),), layout, rtol=rtol, atol=atol,
-                        max_points=max_points, progress=progress)
+    outcome = integrate(
+        field,
+        (DensityRequest(quantity, method),),
+        layout,
+        rtol=rtol,
+        atol=atol,
+        max_points=max_points,
+        progress=progress,
+    )
     return outcome.results[0]
 
 
-def total_action(field, *, rtol=1e-10, atol=1e-10, center=None, scale=None, period=None,
-                 max_points=DEFAULT_MAX_POINTS, method="auto", progress=None) -> IntegralResult:
+def total_action(
+    field,
+    *,
+    rtol=1e-10,
+    atol=1e-10,
+    center=None,
+    scale=None,
+    period=None,
+    max_points=DEFAULT_MAX_POINTS,
+    method="auto",
+    progress=None,
+) -> IntegralResult:
     """S = int s d^4x (per period for periodic fields) with error estimate; 8 pi^2 |Q| for (anti-)instantons.
 
     Args:
@@ -327,12 +345,32 @@ def total_action(field, *, rtol=1e-10, atol=1e-10, center=None, scale=None, peri
     Raises:
       as :func:`integrate_density`.
     """
-    return integrate_density(field, "action_density", rtol=rtol, atol=atol, center=center, scale=scale,
-                             period=period, max_points=max_points, method=method, progress=progress)
+    return integrate_density(
+        field,
+        "action_density",
+        rtol=rtol,
+        atol=atol,
+        center=center,
+        scale=scale,
+        period=period,
+        max_points=max_points,
+        method=method,
+        progress=progress,
+    )
 
 
-def total_charge(field, *, rtol=1e-10, atol=1e-10, center=None, scale=None, period=None,
-                 max_points=DEFAULT_MAX_POINTS, method="auto", progress=None) -> IntegralResult:
+def total_charge(
+    field,
+    *,
+    rtol=1e-10,
+    atol=1e-10,
+    center=None,
+    scale=None,
+    period=None,
+    max_points=DEFAULT_MAX_POINTS,
+    method="auto",
+    progress=None,
+) -> IntegralResult:
     """Q = int q d^4x (per period for periodic fields) with error estimate; +k for k instantons.
 
     Args:
@@ -343,5 +381,15 @@ def total_charge(field, *, rtol=1e-10, atol=1e-10, center=None, scale=None, peri
     Raises:
       as :func:`integrate_density`.
     """
-    return integrate_density(field, "charge_density", rtol=rtol, atol=atol, center=center, scale=scale,
-                             period=period, max_points=max_points, method=method, progress=progress)
+    return integrate_density(
+        field,
+        "charge_density",
+        rtol=rtol,
+        atol=atol,
+        center=center,
+        scale=scale,
+        period=period,
+        max_points=max_points,
+        method=method,
+        progress=progress,
+    )

@@ -29,6 +29,7 @@ import re
 import struct
 import tempfile
 import zipfile
+from typing import Any
 
 import numpy as np
 
@@ -128,7 +129,14 @@ def read_lime_records(path) -> list[dict]:
                     f"but the file has {size} bytes"
                 )
             out.append(
-                {"type": type_str, "offset": data_at, "length": length, "mb": bool(flags & _MB), "me": bool(flags & _ME), "version": version}
+                {
+                    "type": type_str,
+                    "offset": data_at,
+                    "length": length,
+                    "mb": bool(flags & _MB),
+                    "me": bool(flags & _ME),
+                    "version": version,
+                }
             )
             pos = min(end, size)
             fh.seek(pos)
@@ -198,7 +206,7 @@ def _load_ildg(path, mmap: bool):
 
         fmt = recs[types.index("ildg-format")]
         info = _parse_ildg_xml(payload(fmt).decode("utf-8", errors="replace"))
-        meta = {"format": "ildg", "ildg": info}
+        meta: dict[str, Any] = {"format": "ildg", "ildg": info}
         if "ildg-data-lfn" in types:
             meta["lfn"] = payload(recs[types.index("ildg-data-lfn")]).decode("utf-8", errors="replace")
         for rtype, key in ((_META_TYPE, "metadata"), (_FIELD_TYPE, "field")):
@@ -207,7 +215,7 @@ def _load_ildg(path, mmap: bool):
                     meta[key] = json.loads(payload(recs[types.index(rtype)]).decode())
                 except ValueError as err:
                     raise ValueError(f"corrupt {rtype} record: {err}") from err
-        meta.setdefault("field", None)
+        meta["field"] = meta.get("field")
     if info["field"] != "su3gauge":
         raise ValueError(f"ILDG field must be 'su3gauge'; found {info['field']!r}")
     if info["precision"] not in (32, 64):
@@ -246,7 +254,9 @@ def _load_npz(path):
             meta = json.loads(str(z["metadata"])) if "metadata" in z.files else {}
             desc = json.loads(str(z["field"])) if "field" in z.files else None
     except (zipfile.BadZipFile, EOFError, OSError, KeyError) as err:
-        raise ValueError(f"corrupt or truncated npz lattice file {os.fspath(path)!r}: {type(err).__name__}: {err}") from err
+        raise ValueError(
+            f"corrupt or truncated npz lattice file {os.fspath(path)!r}: {type(err).__name__}: {err}"
+        ) from err
     except ValueError as err:
         if "npz lattice file" in str(err):
             raise
@@ -258,8 +268,15 @@ def _load_npz(path):
 # -- public ---------------------------------------------------------------------------------------------
 
 
-def save_lattice(path, links, format: str = "npz", metadata: dict | None = None, *, lfn: str | None = None,
-                 description: dict | None = None) -> None:
+def save_lattice(
+    path,
+    links,
+    format: str = "npz",
+    metadata: dict | None = None,
+    *,
+    lfn: str | None = None,
+    description: dict | None = None,
+) -> None:
     """Write link variables (L1, L2, L3, L4, 4, N, N) to ``path`` atomically, with what made them.
 
     format 'npz': the array (bit-exact), ``metadata`` and ``description`` (JSON strings); 'ildg':
@@ -289,11 +306,14 @@ def save_lattice(path, links, format: str = "npz", metadata: dict | None = None,
     if format not in _FORMATS:
         raise ValueError(f"format must be one of {_FORMATS}; found {format!r}")
     report = getattr(links, "report", None)
-    if hasattr(links, "links") and hasattr(report, "as_metadata"):  # a lattice start (duck-typed: io sits below lattice)
+    if report is not None and hasattr(links, "links") and hasattr(report, "as_metadata"):
+        # a lattice start (duck-typed: io sits below lattice)
         metadata = report.as_metadata() if metadata is None else metadata
         links = links.links
     u = check_links(links)
-    if isinstance(metadata, dict) and isinstance(metadata.get("field"), dict):  # a field record: stored as the description
+    if isinstance(metadata, dict) and isinstance(
+        metadata.get("field"), dict
+    ):  # a field record: stored as the description
         description = metadata["field"] if description is None else description
         metadata = {k: v for k, v in metadata.items() if k != "field"}
     for name, value in (("metadata", metadata), ("description", description)):

@@ -235,8 +235,20 @@ class StartSpec:
     window: float | None = None
 
     @classmethod
-    def make(cls, field, shape, spacing, *, origin=None, group="su2", embedding=(0, 1), boundary="periodic", rtol=1e-12, method="auto",
-             window=DEFAULT_WINDOW_WIDTH):
+    def make(
+        cls,
+        field,
+        shape,
+        spacing,
+        *,
+        origin=None,
+        group="su2",
+        embedding=(0, 1),
+        boundary="periodic",
+        rtol=1e-12,
+        method="auto",
+        window=DEFAULT_WINDOW_WIDTH,
+    ):
         field = as_field(field)
         shape = _v.lattice_shape("shape", shape)
         a = _v.positive_float("spacing", spacing)
@@ -249,7 +261,9 @@ class StartSpec:
         if group == "su2" and n_field != 2:
             raise ValueError(f"group 'su2' needs a 2 x 2 (SU(2)) field; found N = {n_field} (use group=None)")
         if group == "su3" and n_field not in (2, 3):
-            raise ValueError(f"group 'su3' needs an SU(2) field (embedded) or an SU(3) field; found N = {n_field} (use group=None)")
+            raise ValueError(
+                f"group 'su3' needs an SU(2) field (embedded) or an SU(3) field; found N = {n_field} (use group=None)"
+            )
         try:
             emb = tuple(embedding)
         except TypeError as err:
@@ -275,8 +289,17 @@ class StartSpec:
     def block(self, lo, hi) -> tuple:
         """Links of the sites lo <= n < hi; ((h1, h2, h3, h4, 4, N, N), LinkStats), see :func:`block_links`."""
         return block_links(
-            self.field, lo, hi, self.origin, self.spacing, n_field=self.n_field, group=self.group,
-            embedding=self.embedding, method=self.method, rtol=self.rtol, batch=link_batch(self.shape),
+            self.field,
+            lo,
+            hi,
+            self.origin,
+            self.spacing,
+            n_field=self.n_field,
+            group=self.group,
+            embedding=self.embedding,
+            method=self.method,
+            rtol=self.rtol,
+            batch=link_batch(self.shape),
         )
 
     def boundary_figures(self, links):
@@ -284,7 +307,14 @@ class StartSpec:
         if self.boundary == "open":
             return None, None
         bm = boundary_mismatch(
-            self.field, links, self.spacing, origin=self.origin, group=self.group, embedding=self.embedding, rtol=self.rtol, method=self.method
+            self.field,
+            links,
+            self.spacing,
+            origin=self.origin,
+            group=self.group,
+            embedding=self.embedding,
+            rtol=self.rtol,
+            method=self.method,
         )
         return bm["link_mismatch"], bm["action_error"]
 
@@ -431,9 +461,21 @@ _START_DOC_ARGS = """
 """
 
 
-def lattice_start(field, shape, spacing, *, origin=None, group: str | None = "su2", embedding=(0, 1), boundary: str = "periodic",
-                  rtol: float = 1e-12, method: str = "auto", out=None, progress: Callable[[int, int], None] | None = None,
-                  window: float = DEFAULT_WINDOW_WIDTH) -> LatticeStart:
+def lattice_start(
+    field,
+    shape,
+    spacing,
+    *,
+    origin=None,
+    group: str | None = "su2",
+    embedding=(0, 1),
+    boundary: str = "periodic",
+    rtol: float = 1e-12,
+    method: str = "auto",
+    out=None,
+    progress: Callable[[int, int], None] | None = None,
+    window: float = DEFAULT_WINDOW_WIDTH,
+) -> LatticeStart:
     """A lattice start with its quality report: :class:`LatticeStart` (``.links``, ``.report``).
     {args}
     Returns:
@@ -443,17 +485,41 @@ def lattice_start(field, shape, spacing, *, origin=None, group: str | None = "su
       ValueError / TypeError: a bad argument (naming it and the value found); a link through a
         singular point; Magnus steps not converging.
     """
-    res = _run_start(field, shape, spacing, origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method,
-                     out=out, progress=progress, window=window)
+    res = _run_start(
+        field,
+        shape,
+        spacing,
+        origin=origin,
+        group=group,
+        embedding=embedding,
+        boundary=boundary,
+        rtol=rtol,
+        method=method,
+        out=out,
+        progress=progress,
+        window=window,
+    )
     warn_boundary(res.report, stacklevel=3)
     return res
 
 
-def _run_start(field, shape, spacing, *, origin, group, embedding, boundary, rtol, method, out, progress, window) -> LatticeStart:
+def _run_start(
+    field, shape, spacing, *, origin, group, embedding, boundary, rtol, method, out, progress, window
+) -> LatticeStart:
     """The local start with its report (periodic boundary figures always measured); no warning."""
     t_start = time.perf_counter()
-    spec = StartSpec.make(field, shape, spacing, origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method,
-                          window=window)
+    spec = StartSpec.make(
+        field,
+        shape,
+        spacing,
+        origin=origin,
+        group=group,
+        embedding=embedding,
+        boundary=boundary,
+        rtol=rtol,
+        method=method,
+        window=window,
+    )
     links, stats = _local_start(spec, out, progress)
     mismatch, action_err = spec.boundary_figures(links)
     return LatticeStart(links, spec.report(stats, time.perf_counter() - t_start, mismatch, action_err))
@@ -507,9 +573,21 @@ def lattice_links(
         )
     if backend != "local":
         if out is not None:
-            raise ValueError("out= is for the local backend; the dask backend writes to store= (a Zarr path) or returns a dask array")
-        spec = StartSpec.make(field, shape, spacing, origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method,
-                              window=window)
+            raise ValueError(
+                "out= is for the local backend; the dask backend writes to store= (a Zarr path) or returns a dask array"
+            )
+        spec = StartSpec.make(
+            field,
+            shape,
+            spacing,
+            origin=origin,
+            group=group,
+            embedding=embedding,
+            boundary=boundary,
+            rtol=rtol,
+            method=method,
+            window=window,
+        )
         warnings.warn(
             f"lattice_links(..., backend={backend!r}) is deprecated; use instantonkit.cluster.lattice_links(...) "
             "(or cluster.lattice_start(...) for the report)",
@@ -518,13 +596,34 @@ def lattice_links(
         )
         executor = _EXECUTORS.get(backend)
         if executor is None:
-            raise ImportError(f"no chunked backend {backend!r} is registered; import instantonkit.cluster (needs the extra 'distributed')")
-        return executor(spec, chunks=chunks, store=store, client=client, overwrite=overwrite, progress=progress, return_report=return_report)
+            raise ImportError(
+                f"no chunked backend {backend!r} is registered; import instantonkit.cluster (needs the extra 'distributed')"
+            )
+        return executor(
+            spec,
+            chunks=chunks,
+            store=store,
+            client=client,
+            overwrite=overwrite,
+            progress=progress,
+            return_report=return_report,
+        )
     if chunks is not None or store is not None or client is not None:
         raise ValueError("chunks=, store= and client= need backend='dask'")
-    kw = dict(origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method, out=out, progress=progress,
-              window=window)
-    res = _run_start(field, shape, spacing, **kw)  # the periodic boundary figures are always measured (and warned about)
+    kw = dict(
+        origin=origin,
+        group=group,
+        embedding=embedding,
+        boundary=boundary,
+        rtol=rtol,
+        method=method,
+        out=out,
+        progress=progress,
+        window=window,
+    )
+    res = _run_start(
+        field, shape, spacing, **kw
+    )  # the periodic boundary figures are always measured (and warned about)
     warn_boundary(res.report, stacklevel=3)
     if return_report:
         return res.links, res.report
@@ -535,7 +634,9 @@ if lattice_links.__doc__:
     lattice_links.__doc__ = lattice_links.__doc__.format(args=_START_DOC_ARGS)
 
 
-def boundary_mismatch(field, links, spacing, *, origin=None, group="su2", embedding=(0, 1), rtol=1e-12, method="auto") -> dict:
+def boundary_mismatch(
+    field, links, spacing, *, origin=None, group="su2", embedding=(0, 1), rtol=1e-12, method="auto"
+) -> dict:
     """How far a periodic lattice start is from the continuum field across the boundary.
 
     For each direction mu the sites x_n with n_mu = L_mu (one period beyond the last site) are

@@ -310,8 +310,6 @@ def block_sum(first: ADHMData, second: ADHMData, *, stack_ranks: bool = False, t
     return ADHMData(lam, b, chirality=first.chirality, tol=tol)
 
 
-
-
 # -- a differentiable constraint solve (jax) -------------------------------------------------------
 
 

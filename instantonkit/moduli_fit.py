@@ -68,7 +68,9 @@ def _pack(centres, sizes, orientations):
     conj = o[0] * np.array([1.0, -1.0, -1.0, -1.0])
     uref = _qmul_np(np.broadcast_to(conj, o.shape), o)  # global gauge rotation: u_1 -> 1
     k = o.shape[0]
-    theta = np.concatenate([np.asarray(centres, float).reshape(-1), np.log(np.asarray(sizes, float)), np.zeros(3 * (k - 1))])
+    theta = np.concatenate(
+        [np.asarray(centres, float).reshape(-1), np.log(np.asarray(sizes, float)), np.zeros(3 * (k - 1))]
+    )
     return theta, uref
 
 
@@ -132,7 +134,9 @@ class ExactFit:
     condition: float
 
 
-def fit_exact(pts, s, k: int, w, centres0, sizes0, *, seed: int = 0, orientations0=None, noise_known: bool = False) -> ExactFit:
+def fit_exact(
+    pts, s, k: int, w, centres0, sizes0, *, seed: int = 0, orientations0=None, noise_known: bool = False
+) -> ExactFit:
     """Least-squares fit of exact SU(2) ADHM data to action-density samples, from a superposition start.
 
     pts: (M, 4); s: (M,) action density; w: (M,) weights of the squared residuals (1 / sigma_i^2 for
@@ -220,7 +224,11 @@ def fit_exact(pts, s, k: int, w, centres0, sizes0, *, seed: int = 0, orientation
     var = np.abs(np.einsum("ip,pq,iq->i", dj, cov, dj))
     err = np.sqrt(var)
     c, r, o = (np.asarray(a) for a in _derived(jnp.asarray(theta), k, uref))
-    errors = {"centers": err[: 4 * k].reshape(k, 4), "sizes": err[4 * k : 5 * k], "orientations": err[5 * k :].reshape(k, 4)}
+    errors = {
+        "centers": err[: 4 * k].reshape(k, 4),
+        "sizes": err[4 * k : 5 * k],
+        "orientations": err[5 * k :].reshape(k, 4),
+    }
     return ExactFit(
         data=data,
         centers=c,

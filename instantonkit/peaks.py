@@ -90,7 +90,9 @@ def count_peaks(points, density, *, min_fraction: float = 0.05) -> tuple[np.ndar
     pos = -np.ones(pts.shape[0], dtype=int)
     pos[cand] = np.arange(cand.size)
     both = is_max[i] & is_max[j]
-    graph = scipy.sparse.coo_matrix((np.ones(int(both.sum())), (pos[i[both]], pos[j[both]])), shape=(cand.size, cand.size))
+    graph = scipy.sparse.coo_matrix(
+        (np.ones(int(both.sum())), (pos[i[both]], pos[j[both]])), shape=(cand.size, cand.size)
+    )
     n_groups, label = scipy.sparse.csgraph.connected_components(graph, directed=False)
     centres = np.array([pts[cand[label == g]].mean(axis=0) for g in range(n_groups)])
     heights = np.array([d[cand[label == g]].max() for g in range(n_groups)])

@@ -41,6 +41,9 @@ from . import _validate as _v
 from ._pytree import PytreeFields
 from .fields import action_from_f, as_field, charge_from_f, hook
 
+#: Parameters as arrays (numpy, or jax tracers under jit/grad).
+Array = jax.Array | np.ndarray
+
 __all__ = ["TorusWindow", "window_field", "smooth_step", "DEFAULT_WINDOW_WIDTH"]
 
 #: Width of the window's layer as a fraction of each half-box (delta_i = width * P_i / 2).
@@ -64,9 +67,9 @@ class TorusWindow(PytreeFields):
     """
 
     field: object
-    lo: jax.Array
-    box: jax.Array
-    width: jax.Array
+    lo: Array
+    box: Array
+    width: Array
 
     _leaves = ("field", "lo", "box", "width")
 
@@ -79,11 +82,15 @@ class TorusWindow(PytreeFields):
         width = np.asarray(self.width, dtype=np.float64).reshape(-1)
         for name, v in (("lo", lo), ("box", box), ("width", width)):
             if v.shape != (4,) or not np.all(np.isfinite(v)):
-                raise ValueError(f"{name} must be a finite (4,) array; found {np.asarray(getattr(self, name)).tolist()!r}")
+                raise ValueError(
+                    f"{name} must be a finite (4,) array; found {np.asarray(getattr(self, name)).tolist()!r}"
+                )
         if np.any(box <= 0):
             raise ValueError(f"box must be positive in every direction; found {box.tolist()}")
         if np.any(width <= 0) or np.any(width > box / 2 + 1e-12):
-            raise ValueError(f"width must satisfy 0 < width_i <= box_i / 2; found width {width.tolist()} for box {box.tolist()}")
+            raise ValueError(
+                f"width must satisfy 0 < width_i <= box_i / 2; found width {width.tolist()} for box {box.tolist()}"
+            )
         object.__setattr__(self, "lo", lo)
         object.__setattr__(self, "box", box)
         object.__setattr__(self, "width", width)
@@ -165,7 +172,11 @@ class TorusWindow(PytreeFields):
 
         def record():
             out = dict(rec())
-            out["window"] = {"lo": [float(v) for v in self.lo], "box": [float(v) for v in self.box], "width": [float(v) for v in self.width]}
+            out["window"] = {
+                "lo": [float(v) for v in self.lo],
+                "box": [float(v) for v in self.box],
+                "width": [float(v) for v in self.width],
+            }
             return out
 
         return record

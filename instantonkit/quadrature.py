@@ -225,8 +225,9 @@ def sphere3_oriented(n_psi: int, n_perp: int, axis=None) -> tuple[np.ndarray, np
     return dirs, w.copy()
 
 
-def shell_axes(centers, scales, index: int, r, *, aspect: int = 4, dominance: float = 10.0,
-               separation: float = 6.0) -> tuple[np.ndarray, np.ndarray]:
+def shell_axes(
+    centers, scales, index: int, r, *, aspect: int = 4, dominance: float = 10.0, separation: float = 6.0
+) -> tuple[np.ndarray, np.ndarray]:
     """Pole axis (n, 4) and aspect (n,) of the S^3 rules of the shells of radii r (n,) about centre ``index``.
 
     A neighbour j shows up in the piece w_i f of the partition of unity, on a shell of radius r, as
@@ -259,8 +260,9 @@ def shell_axes(centers, scales, index: int, r, *, aspect: int = 4, dominance: fl
     return axis, out
 
 
-def radial_panel_nodes(n: int, scale: float, dim: int, cuts, *, min_length: float = 0.02,
-                       min_nodes: int = 6) -> tuple[np.ndarray, np.ndarray]:
+def radial_panel_nodes(
+    n: int, scale: float, dim: int, cuts, *, min_length: float = 0.02, min_nodes: int = 6
+) -> tuple[np.ndarray, np.ndarray]:
     """Composite Gauss-Legendre version of :func:`radial_nodes`: u = r / (L + r) cut at the radii ``cuts``.
 
     Cuts closer than ``min_length`` in u merge; each panel [a, b] gets max(min_nodes, ceil(n (b - a)))
@@ -344,7 +346,14 @@ RADIAL_SPREAD = 0.3
 
 
 def rule_r4_piece(
-    i: int, centers, scales, n_radial: int, n_angular: int, *, power: int | None = None, radial_scale: float | None = None
+    i: int,
+    centers,
+    scales,
+    n_radial: int,
+    n_angular: int,
+    *,
+    power: int | None = None,
+    radial_scale: float | None = None,
 ) -> Rule:
     """Piece i of :func:`rule_r4`: the rule centred at a_i with radial scale L_i, weights times w_i(x).
 
@@ -390,8 +399,15 @@ def rule_r4(centers, scales, n_radial: int, n_angular: int, *, power: int | None
 
 
 def rule_r3_circle_piece(
-    i: int, centers, scales, period: float, n_radial: int, n_angular: int, n_time: int,
-    *, power: int | None = None,
+    i: int,
+    centers,
+    scales,
+    period: float,
+    n_radial: int,
+    n_angular: int,
+    n_time: int,
+    *,
+    power: int | None = None,
 ) -> Rule:
     """Piece i of :func:`rule_r3_circle`: centred at a_i (space) with a time node at a4_i.
 
@@ -442,7 +458,9 @@ def rule_r3_circle(
     """
     power = DEFAULT_PARTITION_POWER if power is None else int(power)
     c, s = _as_centers(centers, scales)
-    pieces = [rule_r3_circle_piece(i, c, s, period, n_radial, n_angular, n_time, power=power) for i in range(c.shape[0])]
+    pieces = [
+        rule_r3_circle_piece(i, c, s, period, n_radial, n_angular, n_time, power=power) for i in range(c.shape[0])
+    ]
     desc = (
         f"R^3 x S^1 (period {float(period):g}): {c.shape[0]} centre(s) x [{n_radial} Gauss-Legendre radial nodes "
         f"(r = L u/(1-u)) x {2 * n_angular**2} S^2 product nodes x {n_time} trapezoid nodes in x4]"
@@ -469,7 +487,9 @@ def ray_points(centre, radii, dim: int, rays: int, seed: int) -> np.ndarray:
     return pts.reshape(-1, 4)
 
 
-def decay_exponent(values, radii, dim: int, magnitude: float, *, zero: float, area: float, noise: float) -> float | None:
+def decay_exponent(
+    values, radii, dim: int, magnitude: float, *, zero: float, area: float, noise: float
+) -> float | None:
     """p in |f| ~ r^-p from the largest |f| over the rays of :func:`ray_points` at the largest radii.
 
     None if f vanishes there (|f| <= ``zero``), or if the tail it implies, about |f| R^dim ``area``, is

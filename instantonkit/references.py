@@ -24,7 +24,14 @@ from .periodic import DEFAULT_WINDOW_WIDTH, TorusWindow
 #: 8 pi^2, the action of one instanton (conventions module).
 _EIGHT_PI2 = INSTANTON_ACTION
 
-__all__ = ["wilson_artefact", "continuum_reference", "RECORD_KINDS", "field_from_record", "field_from_file", "regenerate"]
+__all__ = [
+    "wilson_artefact",
+    "continuum_reference",
+    "RECORD_KINDS",
+    "field_from_record",
+    "field_from_file",
+    "regenerate",
+]
 
 
 # -- the matched continuum reference ----------------------------------------------------------------------
@@ -50,8 +57,16 @@ def _field_sizes(field) -> np.ndarray:
     return np.array([float(h()[1])])
 
 
-def continuum_reference(field, shape, spacing, *, origin=None, boundary: str = "periodic", window: float = DEFAULT_WINDOW_WIDTH,
-                        nodes: int | None = None) -> dict:
+def continuum_reference(
+    field,
+    shape,
+    spacing,
+    *,
+    origin=None,
+    boundary: str = "periodic",
+    window: float = DEFAULT_WINDOW_WIDTH,
+    nodes: int | None = None,
+) -> dict:
     """The continuum figures a lattice start of ``field`` should be compared with (like with like).
 
     The field put on the lattice (the windowed field for boundary='window', the field itself
@@ -84,7 +99,9 @@ def continuum_reference(field, shape, spacing, *, origin=None, boundary: str = "
     nodes = 8 if nodes is None else _v.positive_int("nodes", nodes)
     t, wt = np.polynomial.legendre.leggauss(nodes)
     xs, ws = [], []
-    for i in range(4):  # panels: the window's layers (where it is not analytic at the ends) and bulk pieces of ~ 2 rho_min
+    for i in range(
+        4
+    ):  # panels: the window's layers (where it is not analytic at the ends) and bulk pieces of ~ 2 rho_min
         cuts = [lo[i], hi[i]]
         if boundary == "window":
             d = float(np.asarray(spec.field.width)[i])
@@ -119,18 +136,26 @@ def continuum_reference(field, shape, spacing, *, origin=None, boundary: str = "
     }
 
 
-
 # -- fields from their records (lattice files) -----------------------------------------------------------
 
 
 def _adhm_from_record(rec):
-    return ADHMData(np.asarray(rec["lam"], dtype=np.float64), np.asarray(rec["B"], dtype=np.float64), chirality=int(rec["chirality"]),
-                    tol=float(rec["tol"]), gauge=rec["gauge"])
+    return ADHMData(
+        np.asarray(rec["lam"], dtype=np.float64),
+        np.asarray(rec["B"], dtype=np.float64),
+        chirality=int(rec["chirality"]),
+        tol=float(rec["tol"]),
+        gauge=rec["gauge"],
+    )
 
 
 def _bpst_from_record(rec):
-    return BPSTField(np.asarray(rec["center"], dtype=np.float64), float(rec["size"]), np.asarray(rec["orientation"], dtype=np.float64),
-                     rec["gauge"])
+    return BPSTField(
+        np.asarray(rec["center"], dtype=np.float64),
+        float(rec["size"]),
+        np.asarray(rec["orientation"], dtype=np.float64),
+        rec["gauge"],
+    )
 
 
 #: Rebuilders of field records by their 'kind' (the ``record()`` hooks of ADHM data and ``ansatz.BPSTField``).
@@ -169,7 +194,9 @@ def field_from_file(path, *, window: bool = True):
     """
     desc = _io.read_description(path)
     if desc["field"] is None:
-        raise ValueError(f"{path!s} holds no field description (save a lattice_start(...) result, or pass description=)")
+        raise ValueError(
+            f"{path!s} holds no field description (save a lattice_start(...) result, or pass description=)"
+        )
     return field_from_record(desc["field"], window=window)
 
 
@@ -180,6 +207,14 @@ def regenerate(path) -> LatticeStart:
     if desc["field"] is None or "shape" not in meta:
         raise ValueError(f"{path!s} lacks the field description or the start's metadata needed to regenerate it")
     field = field_from_record(desc["field"], window=False)
-    return lattice_start(field, tuple(meta["shape"]), meta["spacing"], origin=np.asarray(meta["origin"]), group=meta["group"],
-                         embedding=tuple(meta["embedding"]), boundary=meta["boundary"], rtol=meta["rtol"],
-                         window=meta.get("window") or DEFAULT_WINDOW_WIDTH)
+    return lattice_start(
+        field,
+        tuple(meta["shape"]),
+        meta["spacing"],
+        origin=np.asarray(meta["origin"]),
+        group=meta["group"],
+        embedding=tuple(meta["embedding"]),
+        boundary=meta["boundary"],
+        rtol=meta["rtol"],
+        window=meta.get("window") or DEFAULT_WINDOW_WIDTH,
+    )

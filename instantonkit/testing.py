@@ -57,9 +57,7 @@ def finite_floats(bound: float = 10.0) -> st.SearchStrategy:
 
 
 def _vectors(size: int, bound: float) -> st.SearchStrategy:
-    return st.lists(finite_floats(bound), min_size=size, max_size=size).map(
-        lambda v: np.asarray(v, dtype=np.float64)
-    )
+    return st.lists(finite_floats(bound), min_size=size, max_size=size).map(lambda v: np.asarray(v, dtype=np.float64))
 
 
 def quaternions(bound: float = 10.0) -> st.SearchStrategy:
@@ -123,9 +121,7 @@ def orthogonal_matrices(k: int) -> st.SearchStrategy:
 @st.composite
 def _adhm_from_moduli(draw, k: int, rank: int, spread: float, size_range):
     centers = np.stack([draw(points(bound=spread)) for _ in range(k)])
-    sizes = np.asarray(
-        [draw(st.floats(*size_range, allow_nan=False, allow_infinity=False)) for _ in range(k)]
-    )
+    sizes = np.asarray([draw(st.floats(*size_range, allow_nan=False, allow_infinity=False)) for _ in range(k)])
     raw = np.stack([draw(_vectors(4 * rank, 1.0)).reshape(rank, 4) for _ in range(k)])
     norms = np.sqrt(np.sum(raw**2, axis=(1, 2)))
     assume(bool(np.all(norms >= _MIN_RAW_NORM)))
@@ -180,7 +176,7 @@ def adhm_data(
     return build()
 
 
-def unitary_adhm_data(k=st.integers(1, 3), rank=st.integers(2, 4), *, spread: float = 1.5) -> st.SearchStrategy:
+def unitary_adhm_data(k=st.integers(1, 3), rank=st.integers(2, 4), *, spread: float = 1.5) -> st.SearchStrategy:  # noqa: B008
     """Valid complex SU(N) ADHM data (:class:`instantonkit.unitary_adhm.UnitaryADHMData`) of drawn k and N.
 
     k, rank: ints or strategies of ints (k >= 1, rank >= 2); a drawn seed goes to

@@ -144,7 +144,9 @@ class _Wrapper(PytreeFields):
 
         def layout():
             centres, scales = self.field.layout()
-            return self._map_layout(np.asarray(centres, dtype=np.float64).reshape(-1, 4), np.asarray(scales, dtype=np.float64).reshape(-1))
+            return self._map_layout(
+                np.asarray(centres, dtype=np.float64).reshape(-1, 4), np.asarray(scales, dtype=np.float64).reshape(-1)
+            )
 
         return layout
 

@@ -35,7 +35,15 @@ from ._batching import run_batched
 from .adhm import charge_one_link
 from .fields import as_field, as_points, hook
 
-__all__ = ["LinkStats", "parallel_transporter", "bpst_link", "unitarity_deviation", "project_special_unitary", "link_batch", "LINK_CHUNK"]
+__all__ = [
+    "LinkStats",
+    "parallel_transporter",
+    "bpst_link",
+    "unitarity_deviation",
+    "project_special_unitary",
+    "link_batch",
+    "LINK_CHUNK",
+]
 
 _METHODS = ("auto", "closed", "magnus")
 #: Links per compiled call of the transporter kernels (memory per call ~ LINK_CHUNK x one link's work;
@@ -238,7 +246,14 @@ def transporters(field, xs, ds, method: str, rtol: float, batch: int | None, all
 
 
 def parallel_transporter(
-    field, starts, steps, *, method: str = "auto", rtol: float = 1e-12, report: dict | None = None, batch: int | None = None
+    field,
+    starts,
+    steps,
+    *,
+    method: str = "auto",
+    rtol: float = 1e-12,
+    report: dict | None = None,
+    batch: int | None = None,
 ):
     """Parallel transporters W(1) of ``dW/dt = W A(x + t d).d``, W(0) = 1, for many straight segments.
 
@@ -357,7 +372,6 @@ def embed_links(u2, n_out, embedding):
     return out
 
 
-
 def finish_batched(u, batch: int):
     """:func:`_finish` in padded pieces of ``batch`` links (one compiled size, :mod:`instantonkit._batching`);
     (projected (M, N, N), dev_before, dev_after).  Padding rows copy a real row, so the maxima are unchanged."""
@@ -436,7 +450,11 @@ def site_links(field, sites_t, a, method, rtol, batch=None, n_field=None):
             g = run_batched(_transition_kernel(), [pts[idx]], size, args_before=(field,))
             sing[idx] = ~np.all(np.isfinite(g), axis=(-2, -1))
     touch = sing0 | sing1
-    n = n_field if n_field is not None else jax.eval_shape(field.potential, jax.ShapeDtypeStruct((4,), jnp.float64)).shape[-1]
+    n = (
+        n_field
+        if n_field is not None
+        else jax.eval_shape(field.potential, jax.ShapeDtypeStruct((4,), jnp.float64)).shape[-1]
+    )
     u = np.full((xs.shape[0], n, n), np.nan, dtype=np.complex128)
     stats = LinkStats()
     keep = np.flatnonzero(~touch)
@@ -455,5 +473,3 @@ def site_links(field, sites_t, a, method, rtol, batch=None, n_field=None):
         u[redo] = np.conj(np.swapaxes(ga, -1, -2)) @ ut @ gb
         stats = stats.merge(st)
     return u.reshape(s, 4, u.shape[-2], u.shape[-1]), stats
-
-

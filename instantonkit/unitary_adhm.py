@@ -38,6 +38,9 @@ from ._validate import is_tracer, positive_float, real_array
 from .adhm import CONSTRAINT_TOL
 from .conventions import CHARGE_DENSITY_FACTOR
 
+#: Parameters as arrays (numpy, or jax tracers under jit/grad).
+Array = jax.Array | np.ndarray
+
 __all__ = [
     "UnitaryADHMData",
     "complex_coordinates",
@@ -130,10 +133,10 @@ class UnitaryADHMData(PytreeFields):
     densities, hooks layout, hint, describe, constraint_residual, log_det, charge).
     """
 
-    B1: jax.Array
-    B2: jax.Array
-    I: jax.Array  # noqa: E741
-    J: jax.Array
+    B1: Array
+    B2: Array
+    I: Array  # noqa: E741
+    J: Array
     tol: float = CONSTRAINT_TOL
     gauge: str = "singular"
 
@@ -159,12 +162,15 @@ class UnitaryADHMData(PytreeFields):
         if not is_tracer(b1, b2, i, j):
             scale = 1.0 + float(sum(np.sum(np.abs(a) ** 2) for a in (b1, b2, i, j)))
             mr, mc = unitary_moment_maps(b1, b2, i, j)
-            for label, m in (("real moment map [B1,B1^dag] + [B2,B2^dag] + I I^dag - J^dag J", mr),
-                             ("complex moment map [B1,B2] + I J", mc)):
+            for label, m in (
+                ("real moment map [B1,B1^dag] + [B2,B2^dag] + I I^dag - J^dag J", mr),
+                ("complex moment map [B1,B2] + I J", mc),
+            ):
                 res = float(np.max(np.abs(m)))
                 if res > self.tol * scale:
-                    raise ValueError(f"ADHM {label} must vanish; max |entry| = {res:.3e} "
-                                     f"(tolerance {self.tol * scale:.1e})")
+                    raise ValueError(
+                        f"ADHM {label} must vanish; max |entry| = {res:.3e} (tolerance {self.tol * scale:.1e})"
+                    )
             for name, arr in (("B1", b1), ("B2", b2), ("I", i), ("J", j)):
                 object.__setattr__(self, name, arr)
 
@@ -229,20 +235,20 @@ class UnitaryADHMData(PytreeFields):
         return float(max(np.max(np.abs(mr)), np.max(np.abs(mc))))
 
     # -- transformations (each returns new data) ---------------------------------------------
-    def _replace(self, **kw) -> "UnitaryADHMData":
+    def _replace(self, **kw) -> UnitaryADHMData:
         return dataclasses.replace(self, **kw)
 
-    def with_gauge(self, gauge: str) -> "UnitaryADHMData":
+    def with_gauge(self, gauge: str) -> UnitaryADHMData:
         """Same data, potential in the other projection gauge ('singular' or 'regular')."""
         return self._replace(gauge=gauge)
 
-    def rotate_gauge(self, g) -> "UnitaryADHMData":
+    def rotate_gauge(self, g) -> UnitaryADHMData:
         """U(k) redundancy: B_a -> g B_a g^dag, I -> g I, J -> J g^dag (the same field); g: (k, k) unitary."""
         g = check_unitary("g", g, self.k)
         gh = g.conj().T
         return self._replace(B1=g @ self.B1 @ gh, B2=g @ self.B2 @ gh, I=g @ self.I, J=self.J @ gh)
 
-    def rotate_su(self, h) -> "UnitaryADHMData":
+    def rotate_su(self, h) -> UnitaryADHMData:
         """Global colour rotation I -> I h^dag, J -> h J; h: (N, N) unitary (SU(N), or U(N)).
 
         Delta -> diag(1_2k, h) Delta, so the field changes by a gauge transformation that tends to
@@ -251,14 +257,14 @@ class UnitaryADHMData(PytreeFields):
         h = check_unitary("h", h, self.rank)
         return self._replace(I=self.I @ h.conj().T, J=h @ self.J)
 
-    def translate(self, shift) -> "UnitaryADHMData":
+    def translate(self, shift) -> UnitaryADHMData:
         """Data of the field translated by ``shift`` (4,): A'(x) = A(x - shift); B_a -> B_a + z_a(shift) 1."""
         s = real_array("shift", shift, (4,))
         z1, z2 = (complex(v) for v in complex_coordinates(s))
         eye = np.eye(self.k)
         return self._replace(B1=np.asarray(self.B1) + z1 * eye, B2=np.asarray(self.B2) + z2 * eye)
 
-    def dilate(self, factor: float) -> "UnitaryADHMData":
+    def dilate(self, factor: float) -> UnitaryADHMData:
         """Data of the field dilated about the origin: A'(x) = A(x / c) / c; all of B1, B2, I, J -> c (.)."""
         c = positive_float("factor", factor)
         return self._replace(**{n: c * np.asarray(getattr(self, n)) for n in ("B1", "B2", "I", "J")})
@@ -282,8 +288,9 @@ class UnitaryADHMData(PytreeFields):
         h = lambda a: jnp.conj(jnp.swapaxes(a, -1, -2))  # noqa: E731
         top = jnp.concatenate([h(c2), -c1], axis=-1)
         mid = jnp.concatenate([h(c1), c2], axis=-1)
-        bot = jnp.broadcast_to(jnp.concatenate([h(jnp.asarray(self.I)), jnp.asarray(self.J)], axis=-1),
-                               lead + (self.rank, 2 * self.k))
+        bot = jnp.broadcast_to(
+            jnp.concatenate([h(jnp.asarray(self.I)), jnp.asarray(self.J)], axis=-1), lead + (self.rank, 2 * self.k)
+        )
         return jnp.concatenate([top, mid, bot], axis=-2)
 
     def gram(self, x):
@@ -317,8 +324,9 @@ class UnitaryADHMData(PytreeFields):
         if self.gauge == "singular":
             v0 = jnp.concatenate([jnp.zeros((2 * k, n), dtype=jnp.complex128), jnp.eye(n, dtype=jnp.complex128)])
         else:
-            v0 = jnp.concatenate([jnp.asarray(self.I), jnp.conj(jnp.asarray(self.J).T),
-                                  jnp.zeros((n, n), dtype=jnp.complex128)])
+            v0 = jnp.concatenate(
+                [jnp.asarray(self.I), jnp.conj(jnp.asarray(self.J).T), jnp.zeros((n, n), dtype=jnp.complex128)]
+            )
         dv = jnp.conj(delta.T) @ v0  # (2k, N)
         fdv = jnp.concatenate([f @ dv[:k], f @ dv[k:]])
         pv = v0 - delta @ fdv

@@ -16,7 +16,13 @@ from ._validate import nonnegative_int, positive_float, positive_int, real_array
 from .adhm import ADHMData
 from .unitary_adhm import UnitaryADHMData, check_unitary, complex_coordinates, unitary_moment_maps
 
-__all__ = ["from_quaternionic", "embed_unitary", "unitary_multi_instanton", "random_unitary_adhm", "constraint_jacobian"]
+__all__ = [
+    "from_quaternionic",
+    "embed_unitary",
+    "unitary_multi_instanton",
+    "random_unitary_adhm",
+    "constraint_jacobian",
+]
 
 # -- conversions ---------------------------------------------------------------------------------------
 
@@ -33,8 +39,10 @@ def from_quaternionic(data: ADHMData, *, gauge: str | None = None) -> UnitaryADH
     if not isinstance(data, ADHMData):
         raise TypeError(f"data must be ADHMData; found {type(data).__name__}")
     if data.rank != 1 or data.chirality != 1:
-        raise ValueError(f"data must be SU(2) instanton data (rank 1, chirality +1); found rank {data.rank}, "
-                         f"chirality {data.chirality}")
+        raise ValueError(
+            f"data must be SU(2) instanton data (rank 1, chirality +1); found rank {data.rank}, "
+            f"chirality {data.chirality}"
+        )
     mb = np.asarray(qt.to_matrix(np.asarray(data.B)))  # (k, k, 2, 2)
     ml = np.asarray(qt.to_matrix(np.asarray(data.lam)[0]))  # (k, 2, 2)
     b1 = mb[..., 0, 0].conj().T
@@ -148,8 +156,9 @@ def _variable_mask(k: int, n: int, off_b: float, diag_b: float, ij: float) -> np
     return np.repeat(c, 2)
 
 
-def unitary_multi_instanton(centers, sizes, orientations=None, *, rank: int = 3, tol: float = 1e-12,
-                            gauge: str = "singular") -> UnitaryADHMData:
+def unitary_multi_instanton(
+    centers, sizes, orientations=None, *, rank: int = 3, tol: float = 1e-12, gauge: str = "singular"
+) -> UnitaryADHMData:
     """Charge-k SU(N) data for well-separated instantons with given centres, sizes and orientations.
 
     centers: (k, 4) points a_i (B_a,ii = z_a(a_i), kept exactly); sizes: (k,) rho_i > 0 (or one number);
@@ -194,13 +203,17 @@ def unitary_multi_instanton(centers, sizes, orientations=None, *, rank: int = 3,
     weights = _variable_mask(k, rank, 1.0, 0.0, 0.1)
     out, res, it = _solve(vec, k, rank, weights, tol=tol * scale) if k > 1 else (vec, 0.0, 0)
     if not (res <= tol * scale):
-        raise ValueError(f"could not solve the moment maps for k = {k}: residual {res:.3e} after {it} steps "
-                         f"(tolerance {tol * scale:.1e}); the centres may be too close for the sizes")
-    return UnitaryADHMData(*_unpack(out, k, rank), gauge=gauge)
+        raise ValueError(
+            f"could not solve the moment maps for k = {k}: residual {res:.3e} after {it} steps "
+            f"(tolerance {tol * scale:.1e}); the centres may be too close for the sizes"
+        )
+    b1, b2, i_mat, j_mat = _unpack(out, k, rank)
+    return UnitaryADHMData(b1, b2, i_mat, j_mat, gauge=gauge)
 
 
-def random_unitary_adhm(k: int, rank: int = 3, *, seed=0, spread: float = 1.5, size: float = 1.0,
-                        tol: float = 1e-12) -> UnitaryADHMData:
+def random_unitary_adhm(
+    k: int, rank: int = 3, *, seed=0, spread: float = 1.5, size: float = 1.0, tol: float = 1e-12
+) -> UnitaryADHMData:
     """Random valid charge-k SU(N) data (generic: B1, B2 not near-diagonal), reproducible for ``seed``.
 
     Gaussian B1, B2 (entries of scale ``spread``), I, J (scale ``size``), then every entry moved by

@@ -59,9 +59,7 @@ def user_potential(x):
     return r2 / (r2 + RHO**2) ** 2 * pure
 
 
-SYMBOLIC_POINTS = np.array(
-    [[0.3, -0.4, 0.5, 0.2], [1.1, 0.2, -0.7, 0.9], [-0.25, 0.6, 0.15, -1.3]]
-)
+SYMBOLIC_POINTS = np.array([[0.3, -0.4, 0.5, 0.2], [1.1, 0.2, -0.7, 0.9], [-0.25, 0.6, 0.15, -1.3]])
 
 
 @pytest.fixture(scope="module")
@@ -89,7 +87,10 @@ def symbolic_f():
             vals = {xs[i]: sp.Float(repr(float(p[i])), 30) for i in range(4)}
             an = np.array([np.array(a[m].xreplace(vals).evalf(30).tolist(), dtype=complex) for m in range(4)])
             dan = np.array(
-                [[np.array(da[m][n].xreplace(vals).evalf(30).tolist(), dtype=complex) for n in range(4)] for m in range(4)]
+                [
+                    [np.array(da[m][n].xreplace(vals).evalf(30).tolist(), dtype=complex) for n in range(4)]
+                    for m in range(4)
+                ]
             )
             comm = np.einsum("mij,njk->mnik", an, an)
             out.append(dan - dan.transpose(1, 0, 2, 3) + comm - comm.transpose(1, 0, 2, 3))
@@ -194,9 +195,7 @@ def test_results_match_bpst_formula_on_grid(bpst_data, grid):
 
 def test_chunking_does_not_change_results(bpst_data):
     x = CENTER + np.random.default_rng(3).normal(size=(20, 4))
-    np.testing.assert_array_equal(
-        ik.action_density(bpst_data, x, chunk_size=7), ik.action_density(bpst_data, x)
-    )
+    np.testing.assert_array_equal(ik.action_density(bpst_data, x, chunk_size=7), ik.action_density(bpst_data, x))
 
 
 def test_singular_gauge_centre_raises_naming_the_point(bpst_data, grid):

@@ -83,7 +83,9 @@ def test_unrolled_constraint_solve_matches_the_numpy_solve_and_its_derivative_ke
 
     def im_constraint(lam):
         b = solve_constraint_unrolled(lam, diag)
-        c = ik.quaternion.qmat_mul(ik.quaternion.qmat_dagger(lam), lam) + ik.quaternion.qmat_mul(ik.quaternion.qmat_dagger(b), b)
+        c = ik.quaternion.qmat_mul(ik.quaternion.qmat_dagger(lam), lam) + ik.quaternion.qmat_mul(
+            ik.quaternion.qmat_dagger(b), b
+        )
         return c[..., 1:]
 
     # implicit-function theorem: along any change of the moduli the solved B keeps the constraint, d Im(...) = 0
@@ -213,7 +215,9 @@ def test_charge_density_of_anti_instantons_gives_negative_sign_and_charge():
     # q = -s / 8 pi^2 for anti-self-dual fields (conventions module)
     data = ik.multi_instanton(CENTERS[:2] * np.array([-1.0, -1.0, -1.0, 1.0]), SIZES[:2]).conjugate()
     np.testing.assert_allclose(data.centers(), CENTERS[:2], atol=1e-12)
-    fit = find_instantons(LATTICE11, ik.charge_density(data, LATTICE11), 2, quantity="charge", model="superposition", systematics=False)
+    fit = find_instantons(
+        LATTICE11, ik.charge_density(data, LATTICE11), 2, quantity="charge", model="superposition", systematics=False
+    )
     assert fit.sign == -1 and fit.data.charge == -2
     p = matching(CENTERS[:2], fit.centers)
     assert np.max(np.abs(fit.centers[p] - CENTERS[:2])) < 1e-2
@@ -235,7 +239,9 @@ def test_k_larger_than_the_number_of_peaks_is_flagged():
 
 
 def test_summary_is_a_table_with_one_row_per_instanton():
-    fit = find_instantons(LATTICE11, ik.action_density(known(2), LATTICE11), 2, model="superposition", systematics=False)
+    fit = find_instantons(
+        LATTICE11, ik.action_density(known(2), LATTICE11), 2, model="superposition", systematics=False
+    )
     text = str(fit)
     assert isinstance(fit, InstantonFit) and text == fit.summary()
     rows = [line for line in text.splitlines()[2:] if line.strip()[:1].isdigit()]

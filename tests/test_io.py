@@ -50,7 +50,14 @@ def test_ildg_records_and_headers_follow_the_lime_standard(tmp_path, links3):
         assert raw[r["offset"] + length : pos] == b"\0" * ((-length) % 8)
     assert pos == len(raw)
     xml = raw[recs[0]["offset"] : recs[0]["offset"] + recs[0]["length"]].decode()
-    for tag in ("<field>su3gauge</field>", "<precision>64</precision>", "<lx>3</lx>", "<ly>4</ly>", "<lz>2</lz>", "<lt>5</lt>"):
+    for tag in (
+        "<field>su3gauge</field>",
+        "<precision>64</precision>",
+        "<lx>3</lx>",
+        "<ly>4</ly>",
+        "<lz>2</lz>",
+        "<lt>5</lt>",
+    ):
         assert tag in xml
     assert recs[1]["length"] == 3 * 4 * 2 * 5 * 4 * 9 * 16
 
@@ -163,10 +170,16 @@ def test_charge_two_start_rebuilds_the_same_adhm_data_from_the_file_alone(tmp_pa
     lio.save_lattice(path, st, format=fmt)
     desc = lio.read_description(path)
     assert desc["field"]["kind"] == "adhm" and desc["field"]["gauge"] == "singular" and desc["field"]["chirality"] == 1
-    assert desc["field"]["group"] == "SU(2)" and desc["metadata"]["group"] == "su3" and desc["metadata"]["embedding"] == [0, 1]
+    assert (
+        desc["field"]["group"] == "SU(2)"
+        and desc["metadata"]["group"] == "su3"
+        and desc["metadata"]["embedding"] == [0, 1]
+    )
     assert np.allclose(desc["field"]["centres"], data.centers()) and np.allclose(desc["field"]["sizes"], data.sizes())
     back = references.field_from_file(path)
-    assert np.array_equal(np.asarray(back.lam), np.asarray(data.lam)) and np.array_equal(np.asarray(back.B), np.asarray(data.B))
+    assert np.array_equal(np.asarray(back.lam), np.asarray(data.lam)) and np.array_equal(
+        np.asarray(back.B), np.asarray(data.B)
+    )
     assert back.gauge == data.gauge and back.chirality == data.chirality
     links, info = lio.load_lattice(path)
     assert info["field"] == desc["field"] and "field" not in info["metadata"]

@@ -9,10 +9,12 @@ from hypothesis import strategies as st
 from scipy import integrate, special
 
 import instantonkit as ik
-from instantonkit import references
-from instantonkit import fields
+from instantonkit import (
+    fields,
+    references,
+    transport,  # the Magnus step itself, checked against scipy
+)
 from instantonkit import lattice as lat
-from instantonkit import transport  # the Magnus step itself, checked against scipy
 
 EIGHT_PI2 = 8.0 * np.pi**2
 
@@ -77,16 +79,26 @@ def test_magnus_steps_are_sixth_order_against_scipy():
     def g(t):
         return c[0] + np.sin(2 * t) * c[1] + t**2 * c[2]
 
-    ref = integrate.solve_ivp(
-        lambda t, w: (w.reshape(3, 3) @ g(t)).ravel(), (0, 1), np.eye(3, dtype=complex).ravel(),
-        method="DOP853", rtol=1e-13, atol=1e-14,
-    ).y[:, -1].reshape(3, 3)
+    ref = (
+        integrate.solve_ivp(
+            lambda t, w: (w.reshape(3, 3) @ g(t)).ravel(),
+            (0, 1),
+            np.eye(3, dtype=complex).ravel(),
+            method="DOP853",
+            rtol=1e-13,
+            atol=1e-14,
+        )
+        .y[:, -1]
+        .reshape(3, 3)
+    )
 
     def run(m):
         w = np.eye(3, dtype=complex)
         for s in range(m):
             gs = [g((s + node) / m) for node in transport._GL3]
-            w = w @ np.asarray(transport._expm_antihermitian(jnp.asarray(transport._magnus6(*[jnp.asarray(x) for x in gs], 1.0 / m))))
+            w = w @ np.asarray(
+                transport._expm_antihermitian(jnp.asarray(transport._magnus6(*[jnp.asarray(x) for x in gs], 1.0 / m)))
+            )
         return w
 
     errs = [np.max(np.abs(run(m) - ref)) for m in (2, 4)]
@@ -144,8 +156,10 @@ def test_closed_link_hooks_are_asked_of_the_field_and_forwarded_by_exact_wrapper
     orient = np.array([0.5, -0.5, 0.5, 0.5])
     bf = ik.bpst_field([0.1, -0.2, 0.3, 0.15], 1.1, gauge="singular", orientation=orient)
     shifted = ik.translate(ik.bpst(size=1.1), [0.2, 0.1, -0.3, 0.05])
-    gauged = ik.gauge_transform(ik.bpst(size=1.1).with_gauge("regular"), lambda x: jnp.asarray(ik.quaternion.to_matrix(
-        jnp.array([jnp.cos(0.3 * x[0]), jnp.sin(0.3 * x[0]), 0.0, 0.0]))))
+    gauged = ik.gauge_transform(
+        ik.bpst(size=1.1).with_gauge("regular"),
+        lambda x: jnp.asarray(ik.quaternion.to_matrix(jnp.array([jnp.cos(0.3 * x[0]), jnp.sin(0.3 * x[0]), 0.0, 0.0]))),
+    )
     for field in (bf, shifted, gauged):
         assert fields.hook(field, "closed_link") is not None
         rep = {}
@@ -154,7 +168,12 @@ def test_closed_link_hooks_are_asked_of_the_field_and_forwarded_by_exact_wrapper
         assert rep["method"] == "closed" and np.max(np.abs(closed - quad)) < 1e-12
     # no closed form: charge 2, Sp(2), and wrappers that cannot map it exactly
     two = ik.multi_instanton([[1.0, 0, 0, 0], [-1.0, 0, 0, 0]], [1.0, 1.0])
-    for field in (two, ik.embed_sp(ik.bpst(), 2), ik.dilate(ik.bpst(), 2.0), ik.rotate(ik.bpst(), [1.0, 0, 0, 0], [0, 1.0, 0, 0])):
+    for field in (
+        two,
+        ik.embed_sp(ik.bpst(), 2),
+        ik.dilate(ik.bpst(), 2.0),
+        ik.rotate(ik.bpst(), [1.0, 0, 0, 0], [0, 1.0, 0, 0]),
+    ):
         assert fields.hook(field, "closed_link") is None
     with pytest.raises(ValueError, match="no closed-form link"):
         lat.parallel_transporter(two, starts[:2], steps[:2], method="closed")
@@ -162,7 +181,10 @@ def test_closed_link_hooks_are_asked_of_the_field_and_forwarded_by_exact_wrapper
 
 def test_bad_transporter_arguments_are_refused_like_the_lattice_ones():
     x = np.zeros((1, 4)) + 0.3
-    for call in (lambda: lat.parallel_transporter(ik.bpst(), x, x, rtol=True), lambda: lat.lattice_links(ik.bpst(), (2,) * 4, 0.5, rtol=True)):
+    for call in (
+        lambda: lat.parallel_transporter(ik.bpst(), x, x, rtol=True),
+        lambda: lat.lattice_links(ik.bpst(), (2,) * 4, 0.5, rtol=True),
+    ):
         with pytest.raises(TypeError, match="rtol must be a real number"):
             call()
     with pytest.raises(TypeError, match="batch must be a positive integer"):
@@ -257,7 +279,9 @@ def test_singular_point_on_a_link_is_reported_for_a_field_without_a_gauge_twin()
         lat.lattice_links(field, (2, 2, 2, 2), 0.5, origin=np.zeros(4), boundary="open")
 
 
-@pytest.mark.parametrize("make", [lambda: ik.bpst(size=1.0), lambda: ik.bpst_field(size=1.0, gauge="singular")], ids=["adhm", "bpst_field"])
+@pytest.mark.parametrize(
+    "make", [lambda: ik.bpst(size=1.0), lambda: ik.bpst_field(size=1.0, gauge="singular")], ids=["adhm", "bpst_field"]
+)
 @pytest.mark.parametrize("shift", [0.0, 0.25], ids=["site", "link"])
 def test_singular_centre_on_a_site_or_link_gives_the_regular_start_up_to_a_lattice_gauge_transformation(make, shift):
     # the links are built in the regular gauge and transformed by g = U_reg^dag U_sing at every other
@@ -290,7 +314,9 @@ def test_gauge_twin_transition_relates_the_two_potentials():
     x = np.array([0.3, -0.2, 0.4, 0.1])
     gx = np.asarray(g(x))
     dg = np.moveaxis(np.asarray(jax.jacfwd(g)(x)), -1, 0)
-    expect = np.einsum("ij,mjk,kl->mil", gx.conj().T, np.asarray(twin.potential(x)), gx) + np.einsum("ij,mjk->mik", gx.conj().T, dg)
+    expect = np.einsum("ij,mjk,kl->mil", gx.conj().T, np.asarray(twin.potential(x)), gx) + np.einsum(
+        "ij,mjk->mik", gx.conj().T, dg
+    )
     assert np.allclose(np.asarray(data.potential(x)), expect, atol=1e-12)
     assert fields.hook(twin, "gauge_twin") is None  # the regular gauge needs no twin
 
@@ -496,7 +522,10 @@ def test_window_excess_is_positive_and_falls_fast_with_the_box():
     # module periodic: the excess falls like (rho / L)^4 (our estimate from A ~ rho^2 / r^3, F ~ rho^2 / r^4
     # in singular gauge); from L = 4 rho to 6 rho that is a factor (4/6)^4 ~ 0.2
     field = ik.bpst_field(size=1.0, gauge="singular")
-    ex = [references.continuum_reference(field, (8,) * 4, box / 8, boundary="window", nodes=6)["excess_fraction"] for box in (4.0, 6.0)]
+    ex = [
+        references.continuum_reference(field, (8,) * 4, box / 8, boundary="window", nodes=6)["excess_fraction"]
+        for box in (4.0, 6.0)
+    ]
     assert ex[0] > ex[1] > 0
     assert ex[1] < 0.4 * ex[0]
 
@@ -510,5 +539,7 @@ def test_continuum_reference_of_the_plain_box_matches_the_scipy_box_integral():
     org = lat.default_origin(ik.bpst(size=rho), (n,) * 4, a)
     exact = bpst_box_action(rho, org - a / 2, org + a * (n - 0.5))
     assert ref["box_action"] == pytest.approx(exact, rel=1e-6)
-    assert ref["expected_wilson"] == pytest.approx(exact - EIGHT_PI2 * (1 - references.wilson_artefact(a / rho)), rel=1e-6)
+    assert ref["expected_wilson"] == pytest.approx(
+        exact - EIGHT_PI2 * (1 - references.wilson_artefact(a / rho)), rel=1e-6
+    )
     assert references.wilson_artefact(1 / 3) == pytest.approx(1 - 1 / 45 - 1 / 5670, rel=1e-15)

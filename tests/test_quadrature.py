@@ -32,8 +32,13 @@ def test_oriented_rule_has_unit_directions_and_the_area_2pi2(n_psi, n_perp):
 def test_oriented_rule_integrates_high_powers_of_the_angle_from_its_axis(m):
     # int_{S^3} (n.e)^(2m) = 4 pi int_0^pi cos^(2m) psi sin^2 psi dpsi (hyperspherical measure, common
     # practice), by scipy.integrate.quad; exact for 2m <= 2 n_psi - 1 with few nodes across
-    ref = 4 * math.pi * scipy.integrate.quad(lambda p: math.cos(p) ** (2 * m) * math.sin(p) ** 2, 0, math.pi,
-                                             epsabs=0.0, epsrel=1e-13)[0]
+    ref = (
+        4
+        * math.pi
+        * scipy.integrate.quad(
+            lambda p: math.cos(p) ** (2 * m) * math.sin(p) ** 2, 0, math.pi, epsabs=0.0, epsrel=1e-13
+        )[0]
+    )
     d, w = qd.sphere3_oriented(m + 1, 2, E)
     assert abs(np.sum(w * (d @ E) ** (2 * m)) - ref) <= 1e-13
 

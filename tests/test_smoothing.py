@@ -51,7 +51,11 @@ def open_starts():
     for ratio in (2, 3):
         n = 2 * int(np.ceil(2.5 * ratio))
         data = ik.bpst(size=float(ratio)).with_gauge("regular")
-        out[ratio] = (lat.lattice_links(data, (n,) * 4, 1.0, boundary="open"), lat.default_origin(data, (n,) * 4, 1.0), n)
+        out[ratio] = (
+            lat.lattice_links(data, (n,) * 4, 1.0, boundary="open"),
+            lat.default_origin(data, (n,) * 4, 1.0),
+            n,
+        )
     return out
 
 
@@ -86,7 +90,9 @@ def test_one_by_one_quantities_equal_the_observables(periodic_12):
 def test_open_one_by_one_quantities_equal_the_observables(open_starts):
     u = open_starts[2][0]
     assert sm.loop_action(u, 1, boundary="open") == pytest.approx(lat.wilson_action(u, boundary="open"), rel=1e-12)
-    assert sm.loop_clover_charge(u, 1, boundary="open") == pytest.approx(lat.clover_charge(u, boundary="open"), rel=1e-11)
+    assert sm.loop_clover_charge(u, 1, boundary="open") == pytest.approx(
+        lat.clover_charge(u, boundary="open"), rel=1e-11
+    )
 
 
 @pytest.mark.parametrize("eps", [1.0, -1.0, 0.0])

@@ -16,9 +16,9 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import instantonkit as ik
+from instantonkit import quaternion as qt
 from instantonkit import unitary_adhm as ua
 from instantonkit import unitary_moduli as um
-from instantonkit import quaternion as qt
 from instantonkit.testing import unitary_adhm_data
 
 N_POINTS = 16
@@ -203,7 +203,7 @@ def test_moduli_count_is_4kN(k, n):
                         continue
                     x[p, p] = 1j
                 elif p < r:
-                    x[p, r], x[r, p] = ((1, -1) if herm else (1j, 1j))
+                    x[p, r], x[r, p] = (1, -1) if herm else (1j, 1j)
                 else:
                     continue
                 c = np.concatenate([np.ravel(m) for m in (x @ b1 - b1 @ x, x @ b2 - b2 @ x, x @ i, -j @ x)])
