@@ -259,11 +259,13 @@ class ADHMData(PytreeFields):
             return 1.0 / gram, bp
         return jnp.linalg.inv(gram), bp
 
+    def gram(self, x):
+        """Field hook: the Gram matrix Delta^dag Delta, real symmetric (k, k), at one point (4,); jax-traceable."""
+        return _real_gram(jnp.asarray(self.lam), self.b_minus_p(x))
+
     def log_det(self, x):
         """log det(Delta^dag Delta) at one point (4,) -> () (for Osborn's formula)."""
-        bp = self.b_minus_p(x)
-        gram = _real_gram(jnp.asarray(self.lam), bp)
-        return jnp.linalg.slogdet(gram)[1]
+        return jnp.linalg.slogdet(self.gram(x))[1]
 
     def frame(self, x):
         """U(x), (n + k, n, 4): orthonormal null space of Delta^dag in the projection gauge (package-internal seam).
@@ -372,10 +374,13 @@ class ADHMData(PytreeFields):
 
         Wherever both frames are defined U_sing = U_reg g, so A = g^dag A_reg g + g^dag dg and the links
         obey U(x, d) = g(x)^dag U_reg(x, d) g(x + d); g is not finite where the singular gauge is.
-        Absent (AttributeError) for regular-gauge data.
+        Absent (AttributeError) for regular-gauge data and for rank n > k, where the regular frame
+        (V0 = [0 ; Lambda^dag], of rank <= k < n) is singular everywhere.
         """
         if self.gauge != "singular":
             raise AttributeError("gauge_twin is offered by singular-gauge ADHM data only")
+        if self.rank > self.k:
+            raise AttributeError("gauge_twin needs rank n <= k (the regular frame is singular for n > k)")
 
         def gauge_twin():
             twin = self.with_gauge("regular")

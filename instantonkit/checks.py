@@ -311,6 +311,12 @@ def _integrals(field, layout: Layout, charge_method: str, kw: dict, sample_point
         action, rule = outcome.results[0], outcome.rule
     except (DivergentIntegralError, FieldEvaluationError) as err:
         case.failures.append(re.sub(r"\|x\|\^--", "|x|^", str(err)))
+    except ValueError as err:  # a budget below the first round of the rule: nothing converged, say what is needed
+        if "max_points must be at least" not in str(err):
+            raise
+        need = re.search(r"at least ([0-9,]+)", str(err))
+        case.doubts.append(f"integrals not converged: the budget is below the first round of the rule ({err})")
+        case.advise(f"raise the budget (max_points >= {need.group(1) if need else 'the first round'}; command line --budget)")
     return charge, action, rule
 
 
@@ -526,7 +532,7 @@ def _osborn_route(case: _Case, field, charge, layout: Layout, kw: dict, tol: flo
 
 def _routes(case: _Case, field, charge, layout: Layout, kw, tol, winding) -> None:
     """Osborn's density for fields with ``log_det``; the sphere flux for smooth and bare potentials."""
-    if _fields.hook(field, "log_det") is not None:
+    if _fields.hook(field, "gram") is not None:
         _osborn_route(case, field, charge, layout, kw, tol)
     declared = _fields.hook(field, "charge")
     is_adhm = _fields.hook(field, "constraint_residual") is not None

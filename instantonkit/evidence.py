@@ -25,7 +25,6 @@ import numpy as np
 from . import _validate
 from . import fields as _fields
 from . import quadrature as _quad
-from . import quaternion as qt
 from .conventions import INSTANTON_ACTION, LEVI_CIVITA, PI
 from .integrals import ENGINE_CHUNK, FieldEvaluationError, field_description, layout_of
 
@@ -49,16 +48,14 @@ _EVAL_ERRORS = (ValueError, TypeError, RuntimeError, ArithmeticError, AttributeE
 
 
 def _gram_coefficients(data):
-    """G(x) = G0 + sum_mu x_mu G_mu + |x|^2 1 for G = Re(Delta^dag Delta) of ADHM data: (G0 (k,k), Gmu (4,k,k)).
+    """G(x) = G0 + sum_mu x_mu G_mu + |x|^2 1 for the ADHM Gram matrix: (G0 (k,k), Gmu (4,k,k)).
 
-    Reads the data through ADHMData's package-internal seams ``b_minus_p(x)`` and ``lam``.
+    Asks the data's ``gram(x)`` hook (real symmetric for quaternionic data, Hermitian f^-1 for complex
+    SU(N) data; quadratic in x with d_mu d_nu G = 2 delta_mu nu 1 in both cases).
     """
 
     def gram(x):
-        bp = data.b_minus_p(jnp.asarray(x, dtype=jnp.float64))
-        lam = jnp.asarray(data.lam)
-        m = qt.qmat_mul(qt.qmat_dagger(lam), lam) + qt.qmat_mul(qt.qmat_dagger(bp), bp)
-        return m[..., 0]
+        return data.gram(jnp.asarray(x, dtype=jnp.float64))
 
     g0 = gram(jnp.zeros(4))
     e = jnp.eye(4)
@@ -101,7 +98,7 @@ def osborn_density(data, x):
     t3 = jnp.einsum("mnij,mnji->", pq, pq)
     t4 = jnp.trace(sp @ sp)
     bb = 48.0 * t1 - 96.0 * t2 - 2.0 * t3 - 4.0 * t4
-    return -0.5 * bb
+    return -0.5 * jnp.real(bb)  # real for Hermitian G; the imaginary parts of the traces cancel
 
 
 @jax.tree_util.register_pytree_node_class

@@ -97,7 +97,9 @@ class FieldHooks(Protocol):
       ``constraint_residual() -> float``: the residual of the field's defining constraint (ADHM);
       ``period``: the period in x4 for fields on R^3 x S^1 (float attribute or property).
     Other routes and kernels:
-      ``log_det(x) -> ()``: log det of the ADHM Gram matrix, for Osborn's density s = -box box log det f;
+      ``log_det(x) -> ()``: log det of the ADHM Gram matrix, for Osborn's density s = -1/2 box box log det;
+      ``gram(x) -> (k, k)``: the ADHM Gram matrix itself (real symmetric Delta^dag Delta for quaternionic
+      data, Hermitian f^-1 for complex SU(N) data), quadratic in x; the Osborn route of ``verify``;
       ``closed_link(x, d) -> (N, N)``: the closed-form parallel transporter from x to x + d
       (jax-traceable, one link), used by the lattice instead of Magnus steps;
       ``describe() -> str``: a one-line description for reports;
@@ -127,6 +129,7 @@ class FieldHooks(Protocol):
     def pole_count(self) -> tuple[int, str]: ...
     def constraint_residual(self) -> float: ...
     def log_det(self, x: Any) -> Any: ...
+    def gram(self, x: Any) -> Any: ...
     def closed_link(self, x: Any, d: Any) -> Any: ...
     def describe(self) -> str: ...
     def conjugate(self) -> Any: ...
@@ -148,6 +151,7 @@ HOOKS = (
     "constraint_residual",
     "period",
     "log_det",
+    "gram",
     "closed_link",
     "describe",
     "conjugate",

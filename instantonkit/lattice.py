@@ -76,7 +76,7 @@ from .observables import (  # noqa: F401  (re-exported: the lattice namespace of
     random_gauge,
     wilson_action,
 )
-from .periodic import DEFAULT_WINDOW_WIDTH, window_field
+from .periodic import DEFAULT_WINDOW_WIDTH, default_origin, resolve_origin, site_points, window_field  # noqa: F401  (re-exported)
 from .transport import (  # noqa: F401  (re-exported: the transporters and link figures belong to the lattice namespace too)
     LINK_CHUNK,
     LinkStats,
@@ -128,40 +128,6 @@ _EIGHT_PI2 = 8.0 * np.pi**2
 
 class BoundaryActionWarning(UserWarning):
     """A periodic start whose wrapped links carry more boundary action than BOUNDARY_WARN_FRACTION of 8 pi^2."""
-
-
-# -- lattice geometry -----------------------------------------------------------------------------------
-
-
-def default_origin(field, shape, spacing) -> np.ndarray:
-    """Origin that puts the field's centre (``field.hint()``, else 0) in the middle of the hypercube
-    nearest the lattice middle, so no site and no link touches the centre: x_n = origin + a n.
-
-    origin_i = centre_i - a (floor(L_i / 2) - 1/2); (4,) float64.
-    """
-    shape = _v.lattice_shape("shape", shape)
-    a = _v.positive_float("spacing", spacing)
-    centre = np.zeros(4)
-    hint = hook(field, "hint")
-    if hint is not None:
-        centre = np.asarray(hint()[0], dtype=np.float64).reshape(4)
-    return centre - a * (np.floor(np.asarray(shape) / 2.0) - 0.5)
-
-
-def resolve_origin(field, shape, spacing, origin) -> np.ndarray:
-    """``origin`` as a checked (4,) float64 point, or :func:`default_origin` when it is None; ValueError naming the value."""
-    org = default_origin(field, shape, spacing) if origin is None else np.asarray(origin, dtype=np.float64)
-    if org.shape != (4,) or not np.all(np.isfinite(org)):
-        raise ValueError(f"origin must be a finite point of shape (4,); found {np.asarray(origin).tolist()!r}")
-    return org
-
-
-def site_points(shape, spacing, origin) -> np.ndarray:
-    """Positions of the sites, x_n = origin + a n; (L1, L2, L3, L4, 4) float64."""
-    shape = _v.lattice_shape("shape", shape)
-    a = _v.positive_float("spacing", spacing)
-    grids = np.meshgrid(*[np.arange(n, dtype=np.float64) for n in shape], indexing="ij")
-    return np.asarray(origin, dtype=np.float64) + a * np.stack(grids, axis=-1)
 
 
 @dataclasses.dataclass(frozen=True)

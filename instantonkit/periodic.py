@@ -1,4 +1,4 @@
-"""Fields made smooth on a torus: a decaying field times a window that takes A to zero near the faces (floor 5).
+"""The lattice torus: site positions and origins, and fields made smooth on it by a window (floor 5).
 
 A charge-k instanton does not fit a 4-torus without a mismatch at the faces when its links are simply
 wrapped (``boundary="periodic"``).  :class:`TorusWindow` removes the mismatch by construction:
@@ -44,7 +44,15 @@ from .fields import action_from_f, as_field, charge_from_f, hook
 #: Parameters as arrays (numpy, or jax tracers under jit/grad).
 Array = jax.Array | np.ndarray
 
-__all__ = ["TorusWindow", "window_field", "smooth_step", "DEFAULT_WINDOW_WIDTH"]
+__all__ = [
+    "TorusWindow",
+    "window_field",
+    "smooth_step",
+    "DEFAULT_WINDOW_WIDTH",
+    "default_origin",
+    "resolve_origin",
+    "site_points",
+]
 
 #: Width of the window's layer as a fraction of each half-box (delta_i = width * P_i / 2).
 DEFAULT_WINDOW_WIDTH = 0.5
@@ -208,3 +216,37 @@ def window_field(field, shape, spacing, origin, *, width: float = DEFAULT_WINDOW
         raise ValueError(f"origin must be a finite point of shape (4,); found {np.asarray(origin).tolist()!r}")
     box = a * np.asarray(shape, dtype=np.float64)
     return TorusWindow(field, org - a / 2.0, box, frac * box / 2.0)
+
+
+# -- lattice geometry -----------------------------------------------------------------------------------
+
+
+def default_origin(field, shape, spacing) -> np.ndarray:
+    """Origin that puts the field's centre (``field.hint()``, else 0) in the middle of the hypercube
+    nearest the lattice middle, so no site and no link touches the centre: x_n = origin + a n.
+
+    origin_i = centre_i - a (floor(L_i / 2) - 1/2); (4,) float64.
+    """
+    shape = _v.lattice_shape("shape", shape)
+    a = _v.positive_float("spacing", spacing)
+    centre = np.zeros(4)
+    hint = hook(field, "hint")
+    if hint is not None:
+        centre = np.asarray(hint()[0], dtype=np.float64).reshape(4)
+    return centre - a * (np.floor(np.asarray(shape) / 2.0) - 0.5)
+
+
+def resolve_origin(field, shape, spacing, origin) -> np.ndarray:
+    """``origin`` as a checked (4,) float64 point, or :func:`default_origin` when it is None; ValueError naming the value."""
+    org = default_origin(field, shape, spacing) if origin is None else np.asarray(origin, dtype=np.float64)
+    if org.shape != (4,) or not np.all(np.isfinite(org)):
+        raise ValueError(f"origin must be a finite point of shape (4,); found {np.asarray(origin).tolist()!r}")
+    return org
+
+
+def site_points(shape, spacing, origin) -> np.ndarray:
+    """Positions of the sites, x_n = origin + a n; (L1, L2, L3, L4, 4) float64."""
+    shape = _v.lattice_shape("shape", shape)
+    a = _v.positive_float("spacing", spacing)
+    grids = np.meshgrid(*[np.arange(n, dtype=np.float64) for n in shape], indexing="ij")
+    return np.asarray(origin, dtype=np.float64) + a * np.stack(grids, axis=-1)
