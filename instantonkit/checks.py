@@ -316,7 +316,9 @@ def _integrals(field, layout: Layout, charge_method: str, kw: dict, sample_point
             raise
         need = re.search(r"at least ([0-9,]+)", str(err))
         case.doubts.append(f"integrals not converged: the budget is below the first round of the rule ({err})")
-        case.advise(f"raise the budget (max_points >= {need.group(1) if need else 'the first round'}; command line --budget)")
+        case.advise(
+            f"raise the budget (max_points >= {need.group(1) if need else 'the first round'}; command line --budget)"
+        )
     return charge, action, rule
 
 
