@@ -51,6 +51,10 @@ _METHODS = ("auto", "closed", "magnus")
 LINK_CHUNK = 4096
 #: Most Magnus steps per link before giving up (a smooth field converges to 1e-12 in far fewer).
 _MAX_STEPS = 1 << 10
+#: Most links per compiled Magnus call: jax 0.10.2 on CPU left batched chains of small LAPACK calls
+#: (SU(3) ADHM frames: Cholesky then inverse, with their derivatives) idle and unfinished from
+#: ~10^4 matrices per call, i.e. 3 nodes x 4096 links (measured); 3 x 256 finish.
+_MAGNUS_BATCH = 256
 #: Padded batch sizes below LINK_CHUNK (one small size keeps the number of compiled kernels at two).
 _CHUNK_SIZES = (256,)
 #: Matrices per call of the unitarity check (bounds its temporary memory to ~16 M complex entries).
@@ -188,6 +192,8 @@ def _magnus_refined(field, xs, ds, rtol, batch=None, allow_bad=False):
     kern = _magnus_kernel()
     steps = 1
     size = chunk_size(xs.shape[0]) if batch is None else batch  # kept for the refinements: one compiled batch size
+    # at most _MAGNUS_BATCH links per call (a function of ``batch`` only, so every path agrees bit for bit)
+    size = min(size, _MAGNUS_BATCH)
     prev = _chunked(kern, field, xs, ds, steps, size=size)
     out = prev.copy()
     todo = np.arange(xs.shape[0])

@@ -30,7 +30,6 @@ import dataclasses
 
 import jax
 import jax.numpy as jnp
-import jax.scipy.linalg as jsl
 import numpy as np
 
 from ._pytree import PytreeFields
@@ -333,8 +332,10 @@ class UnitaryADHMData(PytreeFields):
         gram = jnp.conj(v0.T) @ pv
         gram = 0.5 * (gram + jnp.conj(gram.T))
         lo = jnp.linalg.cholesky(gram)
-        # U = pv L^-dag  <=>  U^dag = L^-1 pv^dag
-        return jnp.conj(jsl.solve_triangular(lo, jnp.conj(pv.T), lower=True).T)
+        # U = pv L^-dag.  L^-1 by LU (jnp.linalg.inv), not jax.scipy.linalg.solve_triangular: on CPU the
+        # batched forward-mode derivative of the triangular solve did not finish for batches of >= 768
+        # points (jax 0.10.2, measured), which is exactly the Magnus kernel's 3 nodes x 256 links.
+        return pv @ jnp.conj(jnp.linalg.inv(lo).T)
 
     # -- the field protocol ------------------------------------------------------------------
     def potential(self, x):

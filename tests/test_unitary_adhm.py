@@ -278,6 +278,34 @@ def test_genuine_su3_charge_two_is_not_an_embedding():
     assert rel_err(ik.action_density(embedded, x), ik.action_density(q, x)) < 1e-12
 
 
+def test_frame_batches_of_many_points_finish_and_agree():
+    # Regression: the batched forward-mode derivative of a triangular solve did not finish on CPU for
+    # >= 768 points (the Magnus kernel evaluates 3 nodes x 256 links); the frame now inverts L by LU.
+    data = SU3[2]
+    x = points_near(data, 21)
+    many = np.concatenate([x] * 48)  # 768 points, the size that hung
+    a = np.asarray(jax.jit(jax.vmap(data.potential))(jnp.asarray(many)))
+    assert np.all(np.isfinite(a))
+    assert rel_err(a[:N_POINTS], ik.potential(data, x)) < 1e-13
+
+
+def test_genuine_su3_charge_two_links_are_special_unitary():
+    # Links of a smooth SU(3) field are SU(3) (common practice): unitarity and det = 1 to rounding, and
+    # the unprojected Magnus transporters already so to the refinement target.
+    data = um.random_unitary_adhm(2, 3, seed=2)
+    rng = np.random.default_rng(22)
+    xs, ds = rng.normal(size=(32, 4)), 0.5 * rng.normal(size=(32, 4))
+    rep = {}
+    w = ik.transport.parallel_transporter(data, xs, ds, rtol=1e-8, report=rep)
+    assert rep["method"] == "magnus" and rep["max_steps"] <= 64
+    assert ik.transport.unitarity_deviation(w) < 1e-12
+    links = ik.lattice_links(data, (4, 4, 4, 4), 0.6, group="su3", boundary="open", rtol=1e-10)
+    assert links.shape == (4, 4, 4, 4, 4, 3, 3)
+    u = links.reshape(-1, 3, 3)
+    assert float(np.max(np.abs(np.conj(np.swapaxes(u, -1, -2)) @ u - np.eye(3)))) < 1e-13
+    assert float(np.max(np.abs(np.linalg.det(u) - 1.0))) < 1e-13
+
+
 # -- transformations -----------------------------------------------------------------------------------
 
 
