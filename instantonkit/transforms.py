@@ -181,6 +181,24 @@ class _Wrapper(PytreeFields):
 
     _verb = "transformed"
 
+    def _batch_points(self, pts):
+        """Points (m, 4) of this field -> (points of the wrapped field, density factor, sign of q); subclasses."""
+        return pts, 1.0, 1.0
+
+    @property
+    def density_batch(self):
+        """Field hook: the wrapped field's batch densities at the mapped points (s, q are scalars, q pseudo)."""
+        inner = hook(self.field, "density_batch")
+        if inner is None:
+            _missing("density_batch")
+
+        def density_batch(points, quantity: str):
+            y, factor, sign = self._batch_points(jnp.asarray(points, dtype=jnp.float64))
+            out = inner(y, quantity) * factor
+            return sign * out if quantity == "charge_density" else out
+
+        return density_batch
+
 
 # -- gauge transformation ---------------------------------------------------------------------------
 
@@ -332,6 +350,9 @@ class Translated(_Wrapper):
     def _map_hint(self, centre, scale):
         return centre + np.asarray(self.shift), scale
 
+    def _batch_points(self, pts):
+        return pts - jnp.asarray(self.shift), 1.0, 1.0
+
     @property
     def closed_link(self):
         """U'(x, d) = U(x - shift, d) from the wrapped field's closed-form link (when it has one)."""
@@ -428,6 +449,9 @@ class Rotated(_Wrapper):
     def _map_hint(self, centre, scale):
         return np.asarray(self.matrix) @ centre, scale
 
+    def _batch_points(self, pts):
+        return pts @ self.matrix, 1.0, 1.0  # rows y = R^T x
+
     @property
     def period(self):
         raise AttributeError("a rotated field has no period along x4 in general")
@@ -495,6 +519,10 @@ class Dilated(_Wrapper):
     def _map_period(self, period):
         return float(self.factor) * period
 
+    def _batch_points(self, pts):
+        c = jnp.asarray(self.factor)
+        return pts / c, 1.0 / c**4, 1.0
+
 
 def dilate(field, factor) -> Dilated:
     """Dilate ``field`` about the origin by ``factor`` c > 0: A'(x) = A(x / c) / c.
@@ -551,6 +579,9 @@ class ParityImage(_Wrapper):
 
     def _map_charge(self, charge):
         return -charge
+
+    def _batch_points(self, pts):
+        return pts * PARITY, 1.0, -1.0
 
     def conjugate(self):
         """Field hook: the partner of a parity image is the field it wraps (P^2 = 1)."""

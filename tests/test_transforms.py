@@ -319,3 +319,42 @@ def test_a_wrapped_callable_is_checked_by_the_engine():
     bad = lambda x: jnp.ones((4, 2, 2), dtype=complex)  # noqa: E731  (Hermitian, not anti-Hermitian)
     with pytest.raises(ValueError, match="anti-Hermitian"):
         ik.potential(tr.translate(tr.dilate(bad, 2.0), (1.0, 0, 0, 0)), np.zeros((1, 4)))
+
+
+def _wave_gauge():
+    """A smooth SU(2) gauge function, exp(i theta sigma_3 / 2) with theta = 0.7 sin(x1), as a bare callable."""
+
+    def g(x):
+        t = 0.35 * jnp.sin(x[0])
+        return jnp.diag(jnp.array([jnp.exp(1j * t), jnp.exp(-1j * t)]))
+
+    return g
+
+
+@pytest.mark.parametrize(
+    "wrap",
+    [
+        lambda f: ik.translate(f, (0.3, -0.2, 0.5, 0.1)),
+        lambda f: ik.rotate(f, np.array([0.5, 0.5, 0.5, 0.5]), np.array([0.6, 0.0, 0.8, 0.0])),
+        lambda f: ik.dilate(f, 1.7),
+        lambda f: ik.parity(f),
+        lambda f: ik.gauge_transform(f, _wave_gauge()),
+        lambda f: ik.dilate(ik.translate(f, (0.3, 0.0, 0.0, -0.4)), 0.6),
+    ],
+    ids=["translate", "rotate", "dilate", "parity", "gauge", "dilate-translate"],
+)
+def test_wrappers_forward_the_batch_densities_of_the_wrapped_field(wrap):
+    # The batch hook of a wrapper must equal autodiff of the wrapper's own potential: s, q are
+    # gauge-invariant scalars, q a pseudoscalar (odd under parity) and s scales as c^-4 under x -> c x
+    # (common practice).  The batch path itself is the ADHM kernel of instantonkit._kxk.
+    field = wrap(ADHM2)
+    assert fl.hook(field, "density_batch") is not None
+    pts = _points(np.random.default_rng(5), n=12, avoid=np.zeros((1, 4)), dist=0.0)
+    for quantity in ("action_density", "charge_density"):
+        batch = np.asarray(field.density_batch(jnp.asarray(pts), quantity))
+        auto = getattr(fl, quantity)(field, pts, method="autodiff")
+        assert np.max(np.abs(batch - auto)) <= 1e-10 * np.max(np.abs(auto))
+
+
+def test_wrappers_of_a_field_without_batch_densities_have_no_batch_hook():
+    assert fl.hook(ik.translate(FIELD, np.ones(4)), "density_batch") is None
