@@ -299,12 +299,14 @@ def _distance2(points: np.ndarray, centers: np.ndarray, period: float | None) ->
     return spatial + chord**2
 
 
-def partition_weights(points, centers, scales, *, power: int | None = None, period=None) -> np.ndarray:
-    """Smooth partition of unity w_i(x) = phi_i / sum_j phi_j, phi_i = (rho_i / (d(x, a_i)^2 + rho_i^2))^power.
+def partition_weights(
+    points, centers, scales, *, power: int | None = None, period=None, log_amplitudes=None
+) -> np.ndarray:
+    """Smooth partition of unity w_i(x) = phi_i / sum_j phi_j, phi_i = A_i (rho_i / (d(x, a_i)^2 + rho_i^2))^power.
 
-    points: (M, 4); centers: (k, 4); scales: (k,) rho_i > 0; returns (M, k) float64, rows summing to 1.
-    ``period`` makes the distance periodic in x4 (see the module docstring).  Computed in log space so
-    that no phi underflows.
+    points: (M, 4); centers: (k, 4); scales: (k,) rho_i > 0; log_amplitudes: None (all A_i = 1) or
+    (k,) log A_i; returns (M, k) float64, rows summing to 1.  ``period`` makes the distance periodic
+    in x4 (see the module docstring).  Computed in log space so that no phi underflows.
     """
     pts = np.asarray(points, dtype=np.float64).reshape(-1, 4)
     c = np.asarray(centers, dtype=np.float64).reshape(-1, 4)
@@ -313,6 +315,8 @@ def partition_weights(points, centers, scales, *, power: int | None = None, peri
     if rho.shape[0] != c.shape[0]:
         raise ValueError(f"scales must have shape ({c.shape[0]},) to match centers; found {rho.shape}")
     logphi = power * np.log(rho[None, :]) - power * np.log(_distance2(pts, c, period) + rho[None, :] ** 2)
+    if log_amplitudes is not None:
+        logphi = logphi + np.asarray(log_amplitudes, dtype=np.float64).reshape(1, -1)
     logphi -= np.max(logphi, axis=1, keepdims=True)
     phi = np.exp(logphi)
     return phi / np.sum(phi, axis=1, keepdims=True)
