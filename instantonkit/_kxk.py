@@ -172,7 +172,7 @@ def factor_solve(g, x):
     substitution share k steps of a few fused operations each.  x: (k, m, nb) -> (cols, inv_d), Y (k, m, nb)
     (cols[j] = L[j:, j], inv_d[j] = 1 / L_jj, as :func:`cholesky_last`).
     """
-    k, m = g.shape[0], x.shape[1]
+    k = g.shape[0]
     a = jnp.concatenate([g, x], axis=1)  # (k, k + m, nb)
     cols, inv_d, ys = [], [], []
     for j in range(k):
@@ -260,16 +260,20 @@ def action_density_block(lam, b, chirality: int, pts):
 def flops_per_point(k: int, n: int = 1) -> int:
     """Floating-point operations per point of :func:`action_density_block` (a multiply-add counts 2).
 
-    Counted from the loops above (leading terms and the O(k^2) parts; divisions, square roots and the
-    argmax count 1): Gram 12 k^2, Cholesky k^3 / 3, and for SU(2) the solves 4 (1 + k) k^2 (the
-    forward substitution of 4 (1 + k) columns) + 8 k^2 (back) + 4 k^2 (L^-1 w), the real product
-    32 k^2, the diagonal products 32 k and K 32 k; for Sp(n) the three solves 2 k^3 + 8 k^3 + 8 k^3
-    and the 16 products Z^c Z^d 32 k^3.
+    Counted from the loops above, for m = 4 (1 + k) right-hand sides in the SU(2) route: Gram matrix
+    14 k^2; factor and forward substitution together sum_j 2 (k - j - 1)(k - j - 1 + m) ~ 2 k^3 / 3 + m k^2,
+    plus the row scalings k^2 / 2 + m k; P_jj and the pick 4 m k; the back and forward solves of one
+    quaternionic column 8 k^2; the constant 4k x 4k product 32 k^2; diag(y) g 32 k; K 32 k; s from K
+    about 150.  Sp(n > 1): Cholesky 2 k^3 / 3, the solves for L^-1 (k columns), L^-1 (B - p) and
+    Z (4 k columns each) 9 k^3, L^-1 L^-T 2 k^3 and the 16 products Z^c Z^d 32 k^3.
     """
-    base = 12 * k * k + (k**3) // 3 + 2 * k * k
+    gram = 14 * k * k
     if n == 1:
-        return base + 4 * (1 + k) * k * k + 12 * k * k + 32 * k * k + 96 * k + 130
-    return base + 18 * k**3 + 32 * k**3 + 8 * k * k + 40 * k * k
+        m = 4 * (1 + k)
+        elim = sum(2 * (k - j - 1) * (k - j - 1 + m) + (k - j + m) for j in range(k))
+        return gram + elim + 4 * m * k + 8 * k * k + 32 * k * k + 64 * k + 150
+    chol = sum(2 * (k - j - 1) ** 2 + (k - j) for j in range(k))
+    return gram + chol + 9 * k**3 + 2 * k**3 + 32 * k**3 + 8 * k * k
 
 
 def action_density_k1(lam, b, chirality: int, pts):
