@@ -36,7 +36,7 @@ _C = _structure_constants()
 # (k - j, b), its first entry the diagonal L_jj.
 
 #: Points per block of the batched kernels: the (k, 4 (1 + k), block) right-hand sides stay in cache.
-BLOCK = 512
+BLOCK = 256
 
 #: E^c[d, e] with (u v-bar)_c = sum_{d,e} u_d v_e E^c[d, e] (c = 0: the real part), (4, 4, 4).
 _E = np.einsum("dec,e->cde", _C, np.array([1.0, -1.0, -1.0, -1.0]))
