@@ -2,7 +2,8 @@
 
 Goals (issue 5): a 32^4 SU(2) BPST start in <= 30 s on two cores, cost linear in the volume, peak
 memory <= 1.5x the output array.  Usage: ``python benchmarks/bench_lattice.py [--quick] [--sizes 16 24 32]``.
-Quick mode uses 8^4 only; ``--periodic [--quick] [--charge-two]`` measures the periodic starts of issue 14
+Rows of issue 15 (:func:`link_costs`): charge-2 Magnus links against closed-form BPST links per link,
+the 24^4 SU(3) charge-2 start, bpst_field against ADHM k = 1 links.  Quick mode uses 8^4 only (12^4 for the charge-2 start); ``--periodic [--quick] [--charge-two]`` measures the periodic starts of issue 14
 (wrapped against windowed boundary, the window's excess against the box); ``--disk 64`` writes the 64^4 SU(3) start to a memmap on disk.  Peak memory is the growth of the resident set (resource.getrusage) over
 the run, measured in a fresh child process per start so earlier runs do not hide it.
 """
@@ -102,10 +103,67 @@ def _measure(size: int, group: str) -> dict:
     return res
 
 
+def link_costs(quick: bool = False) -> list[dict]:
+    """Rows of issue 15, measured side by side in this process (compilation outside the timings):
+    per-link cost of a charge-2 Magnus start against a closed-form BPST start, the README's charge-2
+    SU(3) start (24^4, 12^4 in quick mode; periodic, boundary figures included) and ``bpst_field``
+    links against ADHM k = 1 links of the same instanton."""
+    import warnings
+
+    import instantonkit as ik
+    from instantonkit import lattice as lat
+
+    two = ik.multi_instanton(centers=[[-3, 0, 0, 0], [3, 0.5, 0, 0]], sizes=[1.0, 1.0])
+    one, field = ik.bpst(size=1.0), ik.bpst_field(size=1.0, gauge="singular")
+    size, start = (8, 12) if quick else (16, 24)
+
+    def timed(f, shape, boundary="open"):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", lat.BoundaryActionWarning)
+            lat.lattice_start(f, shape[:3] + (1,), 0.5, group="su3", rtol=1e-8, boundary=boundary)  # compile
+            t0 = time.perf_counter()
+            lat.lattice_start(f, shape, 0.5, group="su3", rtol=1e-8, boundary=boundary)
+            return time.perf_counter() - t0
+
+    links = 4 * size**4
+    t_two, t_one, t_field = (timed(f, (size,) * 4) for f in (two, one, field))
+    t_start = timed(two, (start,) * 4, boundary="periodic")
+    row = lambda figure, value, unit, ratio, ref: {  # noqa: E731
+        "figure": figure,
+        "value": round(value, 3),
+        "unit": unit,
+        "ratio": ratio,
+        "reference": ref,
+    }
+    return [
+        row(
+            f"charge-2 Magnus links per link / closed-form BPST, {size}^4 su3",
+            t_two / t_one,
+            "x",
+            round(t_two / t_one / 5.0, 3),
+            f"goal <= 5x; {1e6 * t_one / links:.2f} us/link closed, same run",
+        ),
+        row(
+            f"charge-2 su3 start {start}^4 (periodic, rtol 1e-8)",
+            t_start,
+            "s",
+            round(t_start / 15.0, 3) if start == 24 else None,
+            "goal <= 15 s at 24^4",
+        ),
+        row(
+            f"bpst_field links / ADHM k = 1 links, {size}^4 su3",
+            t_field / t_one,
+            "x",
+            round(t_field / t_one, 3),
+            "goal 1.0 (equal cost), same run",
+        ),
+    ]
+
+
 def run(quick: bool = False, sizes=None) -> list[dict]:
     """Rows {figure, value, unit, ratio, reference}; ratio = value / goal where a goal exists."""
+    rows = link_costs(quick)
     sizes = [8] if quick else (sizes or [16, 24, 32])
-    rows = []
     per_site = {}
     for group in ("su2", "su3"):
         for size in sizes:

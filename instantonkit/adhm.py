@@ -289,12 +289,37 @@ class ADHMData(PytreeFields):
 
     # -- the field protocol ------------------------------------------------------------------
     def potential(self, x):
-        """A_mu(x) = U^dag d_mu U at one point (4,) -> (4, 2n, 2n) complex (gauge: ``self.gauge``)."""
+        """A_mu(x) = U^dag d_mu U at one point (4,) -> (4, 2n, 2n) complex (gauge: ``self.gauge``), derivative-free.
+
+        With U = P V0 L^-dag (:meth:`frame`), U^dag Delta = 0 and d_mu Delta = -b e_mu (e-bar_mu for
+        chirality -1; b = [0 ; 1_k]): U^dag d_mu U = M_mu + L^dag d_mu L^-dag with
+        M_mu = (b^dag U)^dag e_mu f Delta^dag V0 L^-dag, and the second term is upper triangular with a
+        real diagonal, so the anti-Hermitian A_mu is M_mu's strictly lower part, minus its adjoint, plus
+        the imaginary part of M_mu's diagonal (for n = 1: A_mu = Im M_mu).  One k x k solve per point
+        (f Delta^dag V0, Cholesky written out for k <= 8) and no differentiation of the null space; equal
+        to the forward-mode derivative of :meth:`frame` to rounding (tests/test_lattice.py).
+        """
+        n, k = self.rank, self.k
         x = jnp.asarray(x, dtype=jnp.float64)
-        # d_mu U by forward-mode AD (exact), U itself as the auxiliary output of the same pass
-        jac, u = jax.jacfwd(lambda y: (self.frame(y),) * 2, has_aux=True)(x)  # (n + k, n, 4, mu)
-        a = jnp.stack([qt.qmat_mul(qt.qmat_dagger(u), jac[..., mu]) for mu in range(4)])
-        return qt.qmat_to_complex(a)
+        lam = jnp.asarray(self.lam)
+        bp = self.b_minus_p(x)
+        delta = jnp.concatenate([lam, bp], axis=0)  # (n + k, k, 4)
+        if self.gauge == "singular":  # V0 = [1_n ; 0]: Delta^dag V0 = Lambda^dag
+            dv = qt.qmat_dagger(lam)
+            v0 = jnp.concatenate([qt.qmat_identity(n), jnp.zeros((k, n, 4))], axis=0)
+        else:  # V0 = [0 ; Lambda^dag]
+            v0 = jnp.concatenate([jnp.zeros((n, n, 4)), qt.qmat_dagger(lam)], axis=0)
+            dv = _qmm(qt.qmat_dagger(bp), v0[n:])
+        fdv = _spd_solve(_real_gram(lam, bp), dv)  # f Delta^dag V0, (k, n, 4)
+        pv = v0 - _qmm(delta, fdv)  # P V0
+        linv_h = qt.qmat_dagger(_quat_cholesky_inverse(_qmm(qt.qmat_dagger(v0), pv)))  # L^-dag
+        ub = _qmm(pv[n:], linv_h)  # b^dag U, (k, n, 4)
+        w = _qmm(fdv, linv_h)  # f Delta^dag V0 L^-dag
+        eps = jnp.asarray(E_MU if self.chirality == 1 else np.asarray(qt.qconj(E_MU)))
+        m = _qmm(qt.qmat_dagger(ub)[None], _qmul(eps[:, None, None, :], w[None]))  # (4, n, n, 4)
+        lower = m * jnp.asarray(np.tril(np.ones((n, n)), -1))[None, :, :, None]
+        diag = m * jnp.asarray(np.eye(n))[None, :, :, None] * jnp.asarray([0.0, 1.0, 1.0, 1.0])
+        return qt.qmat_to_complex(lower - qt.qmat_dagger(lower) + diag)
 
     def field_strength(self, x):
         """Closed-form ADHM F_mu nu = U^dag b sigma_mu nu f b^dag U at one point -> (4, 4, 2n, 2n) complex.
@@ -425,6 +450,49 @@ def _real_mul(f, q):
 def _real_mul_left(f):
     """A real (k, k) matrix as a quaternionic one, (k, k, 4)."""
     return jnp.concatenate([f[..., None], jnp.zeros(f.shape + (3,))], axis=-1)
+
+
+# -- elementwise k x k algebra of the potential (vectorises across points under vmap) --------------
+
+_QTABLE = [
+    [(a, b, float(c)) for a in range(4) for b in range(4) if (c := np.asarray(qt.qmul(np.eye(4)[a], np.eye(4)[b]))[o])]
+    for o in range(4)
+]
+
+
+def _qmul(p, q):
+    """Quaternion product of broadcast (..., 4) arrays, written out as multiply-adds (no einsum)."""
+    return jnp.stack([sum(c * p[..., a] * q[..., b] for a, b, c in terms) for terms in _QTABLE], axis=-1)
+
+
+def _qmm(a, b):
+    """Product of quaternionic matrices (..., r, s, 4) x (..., s, t, 4) as a sum of broadcast products."""
+    return sum(_qmul(a[..., :, j, None, :], b[..., None, j, :, :]) for j in range(a.shape[-2]))
+
+
+#: Largest k whose Cholesky factor is written out (larger k use jnp.linalg.solve).
+_UNROLLED_K = 8
+
+
+def _spd_solve(g, r):
+    """X with g X = r for a real symmetric positive definite (k, k) g and r (k, ...): Cholesky, then two
+    triangular solves, written out over the static k (elementwise, so a vmap vectorises it)."""
+    k = g.shape[0]
+    if k > _UNROLLED_K:
+        return jnp.linalg.solve(g, r.reshape(k, -1)).reshape(r.shape)
+    lo = [[None] * k for _ in range(k)]
+    for j in range(k):
+        d = jnp.sqrt(g[j, j] - sum((lo[j][m] ** 2 for m in range(j)), 0.0))
+        lo[j][j] = d
+        for i in range(j + 1, k):
+            lo[i][j] = (g[i, j] - sum((lo[i][m] * lo[j][m] for m in range(j)), 0.0)) / d
+    y = []
+    for i in range(k):
+        y.append((r[i] - sum((lo[i][m] * y[m] for m in range(i)), 0.0)) / lo[i][i])
+    xs = [None] * k
+    for i in reversed(range(k)):
+        xs[i] = (y[i] - sum((lo[m][i] * xs[m] for m in range(i + 1, k)), 0.0)) / lo[i][i]
+    return jnp.stack(xs)
 
 
 def _make_sigma(chirality: int) -> np.ndarray:

@@ -11,7 +11,9 @@ transporters of a field along arbitrary segments.  Conventions: the transporter 
 * Otherwise Gauss-Legendre Magnus steps of order six (three nodes per step; Blanes, Casas, Ros, BIT 40
   (2000) 434 and Blanes, Casas, Oteo, Ros, Phys. Rep. 470 (2009) 151, from memory; the order is
   checked in the tests against scipy), halving the step until two successive results differ by less
-  than ``rtol`` in every entry.
+  than ``rtol`` in every entry (tests/test_lattice.py checks the accepted links against a much finer
+  reference).  The potential is evaluated at all nodes of a refinement in flat batches of fixed size
+  (:func:`_magnus_at`), then the step exponentials, then their ordered product.
 
 ``finish_links`` projects nearly special-unitary links onto SU(N) (rounding cleanup, with the deviation
 before and after), ``embed_links`` puts SU(2) links in a block of SU(N).  Names without a leading
@@ -51,10 +53,6 @@ _METHODS = ("auto", "closed", "magnus")
 LINK_CHUNK = 4096
 #: Most Magnus steps per link before giving up (a smooth field converges to 1e-12 in far fewer).
 _MAX_STEPS = 1 << 10
-#: Most links per compiled Magnus call: jax 0.10.2 on CPU left batched chains of small LAPACK calls
-#: (SU(3) ADHM frames: Cholesky then inverse, with their derivatives) idle and unfinished from
-#: ~10^4 matrices per call, i.e. 3 nodes x 4096 links (measured); 3 x 256 finish.
-_MAGNUS_BATCH = 256
 #: Padded batch sizes below LINK_CHUNK (one small size keeps the number of compiled kernels at two).
 _CHUNK_SIZES = (256,)
 #: Matrices per call of the unitarity check (bounds its temporary memory to ~16 M complex entries).
@@ -119,28 +117,71 @@ def _expm_antihermitian(omega):
     return (v * jnp.exp(-1j * w)[None, :]) @ jnp.conj(v.T)
 
 
-def _magnus_link(field, x, d, m):
-    """Path-ordered exponential along x -> x + d with m sixth-order Magnus steps; (N, N)."""
-    h = 1.0 / m
+#: Potential evaluations per compiled call.  jax 0.10.2 on CPU left batched chains of small LAPACK
+#: calls (SU(3) ADHM frames: Cholesky then inverse, with their derivatives) idle and unfinished from
+#: ~10^4 matrices per call (3 nodes x 4096 links, measured), while 3 x 256 finish; so every potential
+#: call, whatever the field, holds at most 768 nodes (ADHMData's own potential uses no LAPACK call).
+_NODE_BATCH = 768
+#: Magnus steps per compiled call of the step kernel (its exponentials use eigh for N > 2: kept below the bound above).
+_STEP_BATCH = 256
+#: Node-steps (links x steps) per pass of :func:`_magnus_at`, bounding its temporary memory.
+_PASS_STEPS = 1 << 18
 
-    nodes = jnp.asarray(_GL3)
 
-    def gen(t):
-        return jnp.einsum("mij,m->ij", field.potential(x + t * d), d)
-
-    gens = jax.vmap(gen)  # one trace of the potential for the three nodes
-
-    def body(s, w):
-        g = gens((s + nodes) * h)
-        return _mm_aos(w, _expm_antihermitian(_magnus6(g[0], g[1], g[2], h)))
-
-    n = jax.eval_shape(gen, 0.0).shape[-1]
-    return jax.lax.fori_loop(0, m, body, jnp.eye(n, dtype=jnp.complex128))
+def _generator(field, x, d):
+    """G = A_mu(x) d_mu at one node; (4,), (4,) -> (N, N)."""
+    a = field.potential(x)
+    return a[0] * d[0] + a[1] * d[1] + a[2] * d[2] + a[3] * d[3]
 
 
 @functools.cache
-def _magnus_kernel():
-    return jax.jit(jax.vmap(_magnus_link, in_axes=(None, 0, 0, None)))
+def _generator_kernel():
+    return jax.jit(jax.vmap(_generator, in_axes=(None, 0, 0)))
+
+
+def _step_exp(g, h):
+    """exp(Omega) of one sixth-order Magnus step from G at its three nodes; g: (3, N, N)."""
+    return _expm_antihermitian(_magnus6(g[0], g[1], g[2], h))
+
+
+@functools.cache
+def _step_kernel():
+    return jax.jit(jax.vmap(_step_exp, in_axes=(0, None)))
+
+
+def _ordered_product(e):
+    """W = E_1 E_2 ... E_m for (M, m, N, N): pairwise products (log2 m rounds), earlier factors left."""
+    while e.shape[1] > 1:
+        pairs = e.shape[1] // 2
+        prod = np.matmul(e[:, 0 : 2 * pairs : 2], e[:, 1 : 2 * pairs : 2])
+        e = np.concatenate([prod, e[:, 2 * pairs :]], axis=1) if e.shape[1] % 2 else prod
+    return e[:, 0]
+
+
+def _magnus_at(field, xs, ds, m):
+    """Transporters of (M, 4) segments with m sixth-order Magnus steps; (M, N, N) numpy.
+
+    The potential is evaluated at all 3 m Gauss-Legendre nodes of a pass of links in one flat batch
+    (one compiled size, _NODE_BATCH, whatever m or M: no loop inside the kernel, so XLA's per-operation
+    overhead is paid once per 768 nodes), then every step's exponential, then the ordered product.
+    Each node and step is computed by kernels of fixed batch sizes, so a link's bits do not depend on
+    the other links of the call (the rule of :mod:`instantonkit._batching`).
+    """
+    h = 1.0 / m
+    ts = ((np.arange(m)[:, None] + np.asarray(_GL3)[None, :]) * h).reshape(-1)  # (3 m,)
+    out = None
+    per = max(1, _PASS_STEPS // m)
+    for lo in range(0, xs.shape[0], per):
+        x, d = xs[lo : lo + per], ds[lo : lo + per]
+        pts = (x[:, None, :] + ts[None, :, None] * d[:, None, :]).reshape(-1, 4)
+        dirs = np.repeat(d, ts.size, axis=0)
+        g = run_batched(_generator_kernel(), [pts, dirs], _NODE_BATCH, args_before=(field,))
+        n = g.shape[-1]
+        if out is None:
+            out = np.empty((xs.shape[0], n, n), dtype=np.complex128)
+        e = run_batched(_step_kernel(), [g.reshape(-1, 3, n, n)], _STEP_BATCH, args_after=(h,))
+        out[lo : lo + per] = _ordered_product(e.reshape(x.shape[0], m, n, n))
+    return out
 
 
 @functools.cache
@@ -189,12 +230,8 @@ class LinkStats:
 
 def _magnus_refined(field, xs, ds, rtol, batch=None, allow_bad=False):
     """Magnus transporters refined by halving the step until two refinements differ by <= rtol; (out, LinkStats)."""
-    kern = _magnus_kernel()
     steps = 1
-    size = chunk_size(xs.shape[0]) if batch is None else batch  # kept for the refinements: one compiled batch size
-    # at most _MAGNUS_BATCH links per call (a function of ``batch`` only, so every path agrees bit for bit)
-    size = min(size, _MAGNUS_BATCH)
-    prev = _chunked(kern, field, xs, ds, steps, size=size)
+    prev = _magnus_at(field, xs, ds, steps)
     out = prev.copy()
     todo = np.arange(xs.shape[0])
     diff_max = 0.0
@@ -207,7 +244,7 @@ def _magnus_refined(field, xs, ds, rtol, batch=None, allow_bad=False):
                 f"steps on {todo.size} link(s) (first start {xs[todo[0]].tolist()}, step {ds[todo[0]].tolist()}); "
                 "the field may be singular near those links"
             )
-        cur = _chunked(kern, field, xs[todo], ds[todo], steps, size=size)
+        cur = _magnus_at(field, xs[todo], ds[todo], steps)
         if allow_bad:  # links through a singular point: NaN rows for the caller to rebuild in another gauge
             nan_rows = ~np.all(np.isfinite(cur), axis=(-2, -1))
             if np.any(nan_rows):
@@ -405,9 +442,13 @@ def _near_centres(field, pts, a):
     """Points (M, 4) within scale / 2 + a of a centre of the field's layout (all points without a layout hook).
 
     The singular points of a singular gauge sit at the instanton centres (k = 1) or close to them
-    (k > 1), so the transition g of the gauge_twin hook is evaluated only there.
+    (k > 1), so the transition g of the gauge_twin hook is evaluated only there.  Without a layout the
+    ``hint`` hook's one centre and scale serve (fields of one lump, e.g. ``ansatz.BPSTField``: before,
+    g was evaluated at every site, 3x the cost of its closed-form links).
     """
     lay = hook(field, "layout")
+    if lay is None:
+        lay = hook(field, "hint")  # one lump (e.g. ansatz.BPSTField): its centre and scale
     if lay is None:
         return np.ones(pts.shape[0], dtype=bool)
     centres, scales = lay()

@@ -112,7 +112,7 @@ def test_store_records_the_generation_parameters_and_report(tmp_path):
     assert st.params["shape"] == [4, 4, 4, 4] and st.params["spacing"] == 0.9 and st.params["group"] == "su2"
     assert st.params["field"]["type"].endswith("ADHMData")
     assert st.report["method"] == "closed" and st.report["unitarity_after"] < 1e-14
-    assert st.report["boundary_link_mismatch"] is None  # measured only when a report is asked for, as locally
+    assert st.report["boundary_link_mismatch"] is not None  # always measured for periodic starts, as locally
     meta = zarr.open_group(str(tmp_path / "s"), mode="r").attrs["instantonkit"]
     assert meta["runs"][-1]["chunks_computed"] == 4
 
@@ -545,3 +545,41 @@ def test_another_kind_of_store_is_named_in_the_refusal(tmp_path):
     cluster.lattice_links(ik.bpst(), (2, 2, 2, 2), 1.0, store=tmp_path / "s", client="sync")
     with pytest.raises(ValueError, match="holds a 'lattice_links' result, not 'evaluate_grid'"):
         cluster.evaluate_grid(ik.bpst(), (2, 2, 2, 2), 1.0, "action_density", store=tmp_path / "s", client="sync")
+
+
+# -- the periodic boundary, measured and warned about as on the local path (issue 14) ----------------
+
+_REGULAR = ik.bpst(size=1.2).with_gauge("regular")  # does not decay: a large boundary action on a torus
+
+
+def test_chunked_periodic_start_measures_its_boundary_and_warns_like_the_local_path(tmp_path):
+    with pytest.warns(lat.BoundaryActionWarning):
+        local = lat.lattice_start(_REGULAR, (4, 4, 4, 4), 1.0)
+    with pytest.warns(lat.BoundaryActionWarning, match="boundary action"):
+        cluster.lattice_links(_REGULAR, (4, 4, 4, 4), 1.0, chunks=(2, 4, 4, 3), store=tmp_path / "s", client="sync")
+    rep = cluster.store_status(tmp_path / "s").report
+    assert rep["boundary_action_fraction"] == local.report.boundary_action_fraction > 0.01
+    assert rep["boundary_link_mismatch"] == local.report.boundary_link_mismatch
+
+
+def test_lazy_chunked_start_measures_the_boundary_from_its_faces_and_warns(monkeypatch):
+    seen = []
+    monkeypatch.setattr(lat, "warn_boundary", lambda report, stacklevel=3: seen.append(report))
+    lazy = cluster.lattice_links(_REGULAR, (4, 4, 4, 4), 1.0, chunks=(2, 4, 4, 3))
+    assert isinstance(lazy, da.Array)  # still lazy: only the faces were computed, in this process
+    bm = lat.boundary_mismatch(
+        _REGULAR, ik.lattice_links(_REGULAR, (4, 4, 4, 4), 1.0, boundary="open"), 1.0
+    )  # no warning: open
+    assert len(seen) == 2 and seen[0].boundary_action_fraction == pytest.approx(bm["action_error"] / (8 * np.pi**2))
+    assert seen[0].boundary_action_fraction > lat.BOUNDARY_WARN_FRACTION
+
+
+def test_a_chunked_window_start_fits_the_torus_and_does_not_warn(tmp_path):
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", lat.BoundaryActionWarning)
+        st = cluster.lattice_start(
+            ik.bpst(size=1.0), (4, 4, 4, 4), 1.5, boundary="window", rtol=1e-6, store=tmp_path / "s", client="sync"
+        )
+    assert abs(st.report.boundary_action_fraction) < 1e-12  # the windowed field is periodic: no jump

@@ -142,7 +142,7 @@ def test_transporter_agrees_with_ten_times_finer_quadrature(pair, segments):
     starts, steps = segments
     rep = {}
     w = lat.parallel_transporter(data, starts[:8], steps[:8], rtol=1e-12, report=rep)
-    fine = np.asarray(transport._magnus_kernel()(data, starts[:8], steps[:8], 10 * rep["max_steps"]))
+    fine = transport._magnus_at(data, np.asarray(starts[:8]), np.asarray(steps[:8]), 10 * rep["max_steps"])
     assert rep["method"] == "magnus"
     assert np.max(np.abs(w - fine)) < 1e-12
 
@@ -543,3 +543,65 @@ def test_continuum_reference_of_the_plain_box_matches_the_scipy_box_integral():
         exact - EIGHT_PI2 * (1 - references.wilson_artefact(a / rho)), rel=1e-6
     )
     assert references.wilson_artefact(1 / 3) == pytest.approx(1 - 1 / 45 - 1 / 5670, rel=1e-15)
+
+
+# -- the Magnus path of charge k > 1 (issue 15): the cheaper potential and the refinement's accuracy ----
+
+
+@pytest.mark.parametrize(
+    "make",
+    [
+        lambda: ik.multi_instanton([[-1.0, 0.0, 0.0, 0.0], [1.0, 0.5, 0.0, 0.0]], [1.0, 0.8]),
+        lambda: ik.random_adhm(3, seed=4),
+        lambda: ik.random_adhm(3, seed=4).with_gauge("regular"),
+        lambda: ik.random_adhm(2, seed=5).conjugate(),
+        lambda: ik.random_adhm(2, rank=2, seed=3),
+        lambda: ik.random_adhm(3, rank=2, seed=3).with_gauge("regular"),
+    ],
+    ids=["k2", "k3", "k3-regular", "k2-anti", "sp2-k2", "sp2-k3-regular"],
+)
+def test_adhm_potential_equals_the_derivative_of_the_frame(make):
+    # A_mu = U^dag d_mu U (Corrigan, Goddard, Osborn, Templeton, Nucl. Phys. B 159 (1979) 469, from
+    # memory): ADHMData.potential's derivative-free formula against forward-mode autodiff of the frame
+    # U(x) itself, an independent route (the frame is differentiated, not the formula)
+    import jax
+    import jax.numpy as jnp
+
+    from instantonkit import quaternion as qt
+
+    data = make()
+
+    def by_autodiff(x):
+        jac, u = jax.jacfwd(lambda y: (data.frame(y),) * 2, has_aux=True)(x)
+        return qt.qmat_to_complex(jnp.stack([qt.qmat_mul(qt.qmat_dagger(u), jac[..., mu]) for mu in range(4)]))
+
+    for x in np.random.default_rng(7).normal(size=(4, 4)):
+        a = np.asarray(data.potential(jnp.asarray(x)))
+        assert np.max(np.abs(a - np.asarray(by_autodiff(jnp.asarray(x))))) < 1e-13
+        assert np.max(np.abs(a + np.conj(np.swapaxes(a, -1, -2)))) < 1e-14  # anti-Hermitian
+
+
+@pytest.mark.parametrize("rtol", [1e-6, 1e-9, 1e-12])
+def test_magnus_links_meet_their_rtol_against_a_much_finer_reference(rtol):
+    # the refined transporters (step halving until two refinements differ by <= rtol) against 384 and
+    # 768 fixed Gauss-Legendre Magnus steps, which agree with each other to rounding (the reference's
+    # own check); links near the singular centres, where most steps are needed, included
+    data = ik.multi_instanton([[-1.0, 0.0, 0.0, 0.0], [1.0, 0.5, 0.0, 0.0]], [1.0, 0.8])
+    rng = np.random.default_rng(11)
+    near = data.centers()[rng.integers(0, 2, size=24)] + rng.normal(scale=0.3, size=(24, 4))
+    starts = np.concatenate([rng.uniform(-2.5, 2.5, size=(24, 4)), near])
+    steps = 0.5 * np.eye(4)[rng.integers(0, 4, size=starts.shape[0])]
+    rep = {}
+    w = lat.parallel_transporter(data, starts, steps, rtol=rtol, report=rep)
+    ref = transport._magnus_at(data, starts, steps, 768)
+    assert np.max(np.abs(ref - transport._magnus_at(data, starts, steps, 384))) < 1e-14
+    assert rep["max_steps"] >= 4  # the near links were refined
+    assert np.max(np.abs(w - ref)) <= rtol
+
+
+def test_bpst_field_links_ask_for_the_transition_only_near_its_centre():
+    # without a layout hook the hint's one centre and scale mark where the singular gauge may be
+    # singular; the gauge_twin transition is evaluated only there (before: at every site)
+    pts = np.array([[0.0, 0.0, 0.0, 0.1], [3.0, 0.0, 0.0, 0.0], [0.0, -2.0, 2.0, 0.0]])
+    near = transport._near_centres(ik.bpst_field(size=1.0, gauge="singular"), pts, 0.5)
+    assert near.tolist() == [True, False, False]

@@ -5,7 +5,7 @@ registered with :func:`instantonkit.lattice.register_chunked_backend` for the de
 from __future__ import annotations
 
 from .. import lattice as _lat
-from ..lattice import LatticeStart, StartSpec
+from ..lattice import LatticeStart, LinkStats, StartSpec
 from ._optional import require
 from .fingerprint import describe, domain_probe, probe
 from .geometry import Job, check_chunks, default_chunks
@@ -41,15 +41,51 @@ def spec_params(spec: StartSpec) -> dict:
     }
 
 
-def link_report(spec: StartSpec, rows, seconds, links, boundary: bool):
-    """LinkReport of a finished chunked start from its chunk rows; with ``boundary`` the periodic
-    boundary figures too (read from the faces in this process, as the local path does when asked)."""
+def link_report(spec: StartSpec, rows, seconds, links, boundary: bool = True):
+    """LinkReport of a finished chunked start from its chunk rows, with the periodic boundary figures
+    (:meth:`instantonkit.lattice.StartSpec.boundary_figures`, read from the faces of ``links`` in this
+    process, as the local path always does; ``boundary=False``, for ensemble members that did not ask
+    for them, leaves them None)."""
     mismatch, action_err = spec.boundary_figures(links) if boundary else (None, None)
     return spec.report(rows_stats(rows), seconds, mismatch, action_err)
 
 
-def _start(spec: StartSpec, *, chunks, store, client, overwrite, progress, n_workers, boundary: bool):
-    """Links of ``spec`` in chunks: (links, report or None); the one implementation of the front doors."""
+class FaceLinks:
+    """The links of a start as :func:`instantonkit.lattice.boundary_mismatch` reads them, computed on demand.
+
+    For the lazy path (no store): indexing by a box of sites (slices of the four site axes) computes
+    that box with :meth:`StartSpec.block`, the kernel path of every start, so the figures equal the
+    local path's bit for bit; boundary_mismatch reads only the two faces n_mu = 0 and n_mu = L - 1 of
+    each direction (8 / L of the lattice's sites, less where faces meet).  shape: the links' shape.
+    """
+
+    def __init__(self, spec: StartSpec):
+        self.spec = spec
+        self.shape = spec.links_shape
+
+    def __getitem__(self, key):
+        key = key if isinstance(key, tuple) else (key,)
+        lo, hi = [], []
+        for i, size in enumerate(self.spec.shape):
+            k = key[i] if i < len(key) else slice(None)
+            if not isinstance(k, slice) or k.step not in (None, 1):
+                raise TypeError(f"FaceLinks takes unit-step slices of the site axes; found {k!r}")
+            start, stop, _ = k.indices(size)
+            lo.append(start)
+            hi.append(stop)
+        links = self.spec.block(lo, hi)[0]
+        rest = key[4:]
+        return links[(slice(None),) * 4 + rest] if rest else links
+
+
+def _start(spec: StartSpec, *, chunks, store, client, overwrite, progress, n_workers, stacklevel: int):
+    """Links of ``spec`` in chunks: (links, report or None); the one implementation of the front doors.
+
+    The periodic boundary figures are always measured, as on the local path, and a
+    :class:`instantonkit.lattice.BoundaryActionWarning` is raised above BOUNDARY_WARN_FRACTION: from the
+    store's faces, or without a store from the faces computed in this process (:class:`FaceLinks`),
+    whose figures then go with a report that holds no chunk rows (None is returned for it).
+    """
     chunks = (
         default_chunks(spec.shape, site_bytes(spec))
         if chunks is None
@@ -58,13 +94,17 @@ def _start(spec: StartSpec, *, chunks, store, client, overwrite, progress, n_wor
     task = LinkChunk(spec)
     job = Job("lattice_links", "links", spec.links_shape, 4, chunks, "complex128", spec_params(spec), lambda idx: task)
     if store is None:
+        if spec.boundary != "open":
+            faces = spec.report(LinkStats(), 0.0, *spec.boundary_figures(FaceLinks(spec)))
+            _lat.warn_boundary(faces, stacklevel=stacklevel)
         return lazy(job), None
     zarr = require("zarr")
     path = store_path(store)
     group, rows, computed, reused, seconds = run(job, path, client, overwrite, progress, n_workers)
     links = zarr.open_array(path, path="links", mode="r")
-    report = link_report(spec, rows, seconds, links, boundary)
+    report = link_report(spec, rows, seconds, links)
     finish_store(group, report.as_metadata(), computed, reused, seconds)
+    _lat.warn_boundary(report, stacklevel=stacklevel)
     return links, report
 
 
@@ -76,7 +116,8 @@ def start_links(
     The executor behind the deprecated ``lattice.lattice_links(..., backend="dask")`` (registered with
     :func:`instantonkit.lattice.register_chunked_backend`); new code calls :func:`lattice_links` or
     :func:`lattice_start`.  Arguments as in :func:`lattice_links`; with ``return_report=True`` (store
-    needed) returns ``(links, LinkReport)`` with the periodic boundary figures.
+    needed) returns ``(links, LinkReport)``.  The periodic boundary figures are always measured (and
+    warned about), as by the local path.
     """
     if store is None and return_report:
         raise ValueError("return_report=True needs store= (the report is made from the written chunks)")
@@ -88,7 +129,7 @@ def start_links(
         overwrite=overwrite,
         progress=progress,
         n_workers=n_workers,
-        boundary=bool(return_report),
+        stacklevel=5,
     )
     return (links, report) if return_report else links
 
@@ -131,8 +172,11 @@ def lattice_links(
     {args}
     Returns:
       (L1, L2, L3, L4, 4, N, N) complex128 links: the read-only ``zarr.Array`` of the store, or a lazy
-      dask array of that shape and chunking (store=None).  The report (without the boundary figures)
-      is the store's attribute; :func:`lattice_start` returns it.
+      dask array of that shape and chunking (store=None).  The report is the store's attribute;
+      :func:`lattice_start` returns it.  For periodic starts the boundary figures are always measured,
+      as by the local path (from the store's faces; without a store from the 8 faces, computed in
+      this process), and a :class:`instantonkit.lattice.BoundaryActionWarning` is raised above
+      BOUNDARY_WARN_FRACTION = 1 % of 8 pi^2.
     Raises:
       ValueError / TypeError: a bad argument (naming it); a store made with other parameters or chunks.
       ImportError: without the optional extra ``distributed``.
@@ -156,7 +200,7 @@ def lattice_links(
         overwrite=overwrite,
         progress=progress,
         n_workers=n_workers,
-        boundary=False,
+        stacklevel=4,
     )[0]
 
 
@@ -211,7 +255,7 @@ def lattice_start(
         overwrite=overwrite,
         progress=progress,
         n_workers=n_workers,
-        boundary=True,
+        stacklevel=4,
     )
     return LatticeStart(links, report)
 
