@@ -312,7 +312,7 @@ class ParametrisedField:
     A closure ``lambda x: A(x, 0.7)`` is static data, so each new value compiles anew (seconds).
     Here ``params`` (a number, an array or any pytree of them) are leaves, traced by jit like the
     moduli of ADHM data, so a scan over parameter values compiles once per structure (and shape)
-    of ``params``; only a new ``fn`` compiles again.
+    of ``params``; only a new ``fn`` (other code or other captured values) compiles again.
 
     fn: ``fn(x, params)`` with x (4,) float64 -> (4, N, N) anti-Hermitian (jax.numpy), the same ``fn``
         object for every value of the scan (define it once, outside the loop).
@@ -505,7 +505,8 @@ class _Kernel:
 
     def _cache_size(self) -> int:
         """Compilations held by all variants (what a parameter scan should not grow)."""
-        return self._plain._cache_size() + sum(j._cache_size() for j in self._lean.values())
+        jits: list[Any] = [self._plain, *self._lean.values()]
+        return sum(j._cache_size() for j in jits)
 
 
 @functools.cache
@@ -538,7 +539,7 @@ def _output_struct(kern, field, rows: int = 1):
     ``rows`` is the first batch's size, so the trace made here is the one jit reuses for that batch.
     """
     leaves, treedef = jax.tree_util.tree_flatten(field)
-    key = (
+    key: Any = (
         kern,
         treedef,
         tuple((np.shape(l), np.dtype(l.dtype) if hasattr(l, "dtype") else np.result_type(l)) for l in leaves),
