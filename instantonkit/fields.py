@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import dataclasses
 import functools
+import types
 from collections.abc import Callable
 from typing import Any, Protocol, runtime_checkable
 
@@ -25,7 +26,8 @@ import jax.numpy as jnp
 import numpy as np
 
 from . import _validate
-from ._batching import run_batched
+from ._batching import padded_size, run_batched
+from ._config import lean_compiler_options
 from .conventions import ACTION_DENSITY_FACTOR, CHARGE_DENSITY_FACTOR, LEVI_CIVITA
 
 #: An array the public functions accept (numpy or jax); results are numpy arrays.
@@ -193,12 +195,92 @@ def as_points(points: Array) -> tuple[np.ndarray, tuple[int, ...]]:
     return _validate.points(points)
 
 
+def _same_value(a, b, depth: int = 0) -> bool:
+    """True when two captured values surely compute alike (identity, or equal plain data / arrays)."""
+    if a is b:
+        return True
+    if type(a) is not type(b) or depth > 4:
+        return False
+    if isinstance(a, (float, complex)):
+        return repr(a) == repr(b)  # bitwise for practical purposes: -0.0 and nan kept apart / together
+    if isinstance(a, (int, str, bytes, type(None))):
+        return a == b
+    if isinstance(a, (tuple, list)):
+        return len(a) == len(b) and all(_same_value(u, v, depth + 1) for u, v in zip(a, b))
+    if isinstance(a, dict):
+        return a.keys() == b.keys() and all(_same_value(a[key], b[key], depth + 1) for key in a)
+    if isinstance(a, (np.ndarray, np.generic, jax.Array)) and not _validate.is_tracer(a):
+        x, y = np.asarray(a), np.asarray(b)
+        return x.dtype == y.dtype and x.shape == y.shape and x.tobytes() == y.tobytes()
+    if isinstance(a, types.FunctionType):
+        return _same_function(a, b, depth + 1)
+    if isinstance(a, functools.partial):
+        return (
+            _same_value(a.func, b.func, depth + 1)
+            and _same_value(a.args, b.args, depth + 1)
+            and _same_value(a.keywords, b.keywords, depth + 1)
+        )
+    if isinstance(a, types.MethodType):
+        return a.__self__ is b.__self__ and a.__func__ is b.__func__
+    return False
+
+
+def _same_function(f, g, depth: int = 0) -> bool:
+    """Same code, same module globals, equal defaults and equal captured values (cells)."""
+    cf, cg = f.__closure__ or (), g.__closure__ or ()
+    try:
+        cells = [(u.cell_contents, v.cell_contents) for u, v in zip(cf, cg)]
+    except ValueError:  # an empty cell (a name not bound yet)
+        return False
+    return (
+        f.__code__ == g.__code__
+        and f.__globals__ is g.__globals__
+        and len(cf) == len(cg)
+        and _same_value(f.__defaults__, g.__defaults__, depth)
+        and _same_value(f.__kwdefaults__, g.__kwdefaults__, depth)
+        and all(_same_value(u, v, depth) for u, v in cells)
+    )
+
+
+class _CodeKey:
+    """Static pytree data for a user callable: equal for two closures of the same code and captured values.
+
+    jax keys its compiled kernels by the pytree structure, whose static data compare with ``==``; with
+    the function object itself every new closure (``lambda x: A(x)`` built again in a loop or a
+    function) compiled anew.  Two callables compare equal here when they surely compute the same:
+    the same object, or plain functions with the same code, the same module globals and captured
+    values (cells, defaults) that are identical or equal numbers, strings, arrays or such functions
+    (``functools.partial`` likewise).  A closure over a *different* value is a different key and
+    compiles again: put such parameters in :class:`ParametrisedField` instead.
+    """
+
+    __slots__ = ("fn",)
+
+    def __init__(self, fn):
+        self.fn = fn
+
+    def __eq__(self, other):
+        return isinstance(other, _CodeKey) and _same_value(self.fn, other.fn)
+
+    def __hash__(self):
+        fn = self.fn
+        while isinstance(fn, functools.partial):
+            fn = fn.func
+        if isinstance(fn, types.FunctionType):
+            return hash(fn.__code__)
+        if isinstance(fn, types.MethodType):
+            return hash((id(fn.__self__), id(fn.__func__)))
+        return id(fn)
+
+
 @jax.tree_util.register_pytree_node_class
 @dataclasses.dataclass(frozen=True)
 class CallableField:
     """A user callable ``A(x): (4,) -> (4, N, N)`` (anti-Hermitian, jax.numpy) seen as a field.
 
-    The callable is static pytree data: one compiled kernel per callable object.
+    The callable is static pytree data, compared by code and captured values (not by object
+    identity): two closures of the same code over equal values share one compiled kernel, a closure
+    over a new value compiles again (use :class:`ParametrisedField` to scan parameters).
     """
 
     fn: Callable[[Any], Any]
@@ -215,11 +297,11 @@ class CallableField:
         return self
 
     def tree_flatten(self):
-        return (), (self.fn,)
+        return (), (_CodeKey(self.fn),)
 
     @classmethod
     def tree_unflatten(cls, aux, children):
-        return cls(aux[0])
+        return cls(aux[0].fn)
 
 
 @jax.tree_util.register_pytree_node_class
@@ -230,7 +312,7 @@ class ParametrisedField:
     A closure ``lambda x: A(x, 0.7)`` is static data, so each new value compiles anew (seconds).
     Here ``params`` (a number, an array or any pytree of them) are leaves, traced by jit like the
     moduli of ADHM data, so a scan over parameter values compiles once per structure (and shape)
-    of ``params``; only a new ``fn`` compiles again.
+    of ``params``; only a new ``fn`` (other code or other captured values) compiles again.
 
     fn: ``fn(x, params)`` with x (4,) float64 -> (4, N, N) anti-Hermitian (jax.numpy), the same ``fn``
         object for every value of the scan (define it once, outside the loop).
@@ -272,12 +354,12 @@ class ParametrisedField:
         return self
 
     def tree_flatten(self):
-        return (self.params,), (self.fn,)
+        return (self.params,), (_CodeKey(self.fn),)
 
     @classmethod
     def tree_unflatten(cls, aux, children):
         obj = object.__new__(cls)
-        object.__setattr__(obj, "fn", aux[0])
+        object.__setattr__(obj, "fn", aux[0].fn)
         object.__setattr__(obj, "params", children[0])
         return obj
 
@@ -307,6 +389,22 @@ def field_strength_from_potential(pot: Callable) -> Callable:
     return fs
 
 
+@jax.jit
+def _staged_potential(field, x):
+    """``field.potential(x)`` as one staged call: jacobians of it transform its jaxpr, not its Python code.
+
+    The field is a pytree argument, so the trace is cached per field structure; derivative kernels
+    built on it trace a potential's library code once, at one level of transformation, and XLA
+    inlines the call.
+    """
+    return field.potential(x)
+
+
+def _autodiff_field_strength(field) -> Callable:
+    """Per-point F of ``field`` by a forward-mode jacobian of its staged potential (same formula as above)."""
+    return field_strength_from_potential(lambda y: _staged_potential(field, y))
+
+
 def dual(f):
     """(*F)_mu nu = 1/2 eps_{mu nu rho sigma} F_rho sigma; f: (..., 4, 4, N, N) -> same shape."""
     return 0.5 * jnp.einsum("mnrs,...rsij->...mnij", LEVI_CIVITA, f)
@@ -334,7 +432,7 @@ def _point_fn(field, quantity: str, method: str) -> Callable:
     """Per-point function x -> value for the field (traced inside the compiled kernel)."""
 
     closed_f = hook(field, "field_strength") if method != "autodiff" else None
-    fs = closed_f if closed_f is not None else field_strength_from_potential(field.potential)
+    fs = closed_f if closed_f is not None else _autodiff_field_strength(field)
 
     if quantity == "potential":
         return field.potential
@@ -351,18 +449,70 @@ def _point_fn(field, quantity: str, method: str) -> Callable:
     raise ValueError(f"unknown quantity {quantity!r}")
 
 
+def _differentiates(field, quantity: str, method: str) -> bool:
+    """True when the kernel for (field, quantity, method) takes derivatives of the potential (mirrors _point_fn)."""
+    if quantity == "potential":
+        return False
+    if method == "autodiff":
+        return True
+    if method == "auto" and quantity in _BATCH_QUANTITIES:
+        if hook(field, "density_batch") is not None or hook(field, quantity) is not None:
+            return False
+    return hook(field, "field_strength") is None
+
+
+class _Kernel:
+    """The engine's compiled kernel for one (quantity, method): ``kernel(field, pts) -> values``.
+
+    Two jitted variants of one traced function: closed forms compile with XLA's full optimisation
+    (they are the hot paths); kernels that differentiate a potential (autodiff, user callables) use
+    :func:`instantonkit._config.lean_compiler_options` when it is on, since their graphs (a jacobian of a
+    jacobian for ADHM data) took most of a first call in XLA's optimisation passes.  jax caches each
+    variant's compilations per field structure (static data) and chunk shape.
+    """
+
+    def __init__(self, quantity: str, method: str):
+        self.quantity, self.method = quantity, method
+
+        def run(field, pts):
+            if method == "auto" and quantity in _BATCH_QUANTITIES:
+                batch = hook(field, "density_batch")
+                if batch is not None:
+                    return batch(pts, quantity)
+            return jax.vmap(lambda x: _point_fn(field, quantity, method)(x))(pts)
+
+        self._run = run
+        self._plain = jax.jit(run)
+        self._lean: dict = {}
+
+    def _variant(self, field):
+        opts = lean_compiler_options() if _differentiates(field, self.quantity, self.method) else None
+        if not opts:
+            return self._plain
+        key = tuple(sorted(opts.items()))
+        if key not in self._lean:
+            self._lean[key] = jax.jit(self._run, compiler_options=dict(opts))
+        return self._lean[key]
+
+    def __call__(self, field, pts):
+        if _validate.is_tracer(pts):  # inside another trace: compiler options belong to the outer jit
+            return self._plain(field, pts)
+        return self._variant(field)(field, pts)
+
+    def eval_shape(self, field, rows: int):
+        """Output shape/dtype for ``rows`` points, traced by the variant that will run (its trace is reused)."""
+        return self._variant(field).eval_shape(field, jax.ShapeDtypeStruct((rows, 4), jnp.float64))
+
+    def _cache_size(self) -> int:
+        """Compilations held by all variants (what a parameter scan should not grow)."""
+        jits: list[Any] = [self._plain, *self._lean.values()]
+        return sum(j._cache_size() for j in jits)
+
+
 @functools.cache
-def _kernel(quantity: str, method: str):
-    """One jitted, vmapped kernel per (quantity, method); jax caches it per field structure."""
-
-    def run(field, pts):
-        if method == "auto" and quantity in _BATCH_QUANTITIES:
-            batch = hook(field, "density_batch")
-            if batch is not None:
-                return batch(pts, quantity)
-        return jax.vmap(lambda x: _point_fn(field, quantity, method)(x))(pts)
-
-    return jax.jit(run)
+def _kernel(quantity: str, method: str) -> _Kernel:
+    """One kernel per (quantity, method); jax caches its compilation per field structure."""
+    return _Kernel(quantity, method)
 
 
 def _check_callable(field, x0: np.ndarray) -> None:
@@ -383,10 +533,13 @@ def _check_callable(field, x0: np.ndarray) -> None:
 _STRUCT_CACHE: dict = {}
 
 
-def _output_struct(kern, field):
-    """Shape/dtype of the kernel output for one point, memoised per kernel and field structure."""
+def _output_struct(kern, field, rows: int = 1):
+    """Shape/dtype of the kernel output for ``rows`` points, memoised per kernel and field structure.
+
+    ``rows`` is the first batch's size, so the trace made here is the one jit reuses for that batch.
+    """
     leaves, treedef = jax.tree_util.tree_flatten(field)
-    key = (
+    key: Any = (
         kern,
         treedef,
         tuple((np.shape(l), np.dtype(l.dtype) if hasattr(l, "dtype") else np.result_type(l)) for l in leaves),
@@ -396,7 +549,7 @@ def _output_struct(kern, field):
     except TypeError:  # unhashable static data: no memo
         hit, key = None, None
     if hit is None:
-        hit = jax.eval_shape(lambda f, p: kern(f, p), field, jax.ShapeDtypeStruct((1, 4), jnp.float64))
+        hit = kern.eval_shape(field, rows)
         if key is not None:
             _STRUCT_CACHE[key] = hit
     return hit
@@ -443,7 +596,7 @@ def evaluate(
     if inner is not None and m:
         _check_callable(inner, pts[0])
     kern = _kernel(quantity, method)
-    probe = _output_struct(kern, field)
+    probe = _output_struct(kern, field, padded_size(min(max(m, 1), chunk_size), chunk_size, shrink_last=True))
     out = np.empty((m,) + probe.shape[1:], dtype=probe.dtype)
     if m:
         run_batched(kern, [pts], chunk_size, shrink_last=True, out=out, args_before=(field,))

@@ -341,3 +341,71 @@ def test_batched_density_matches_per_point_closed_form():
         np.testing.assert_allclose(ik.action_density(data, pts)[:8], per_point, rtol=1e-11)
         q = ik.charge_density(data, pts)
         np.testing.assert_allclose(q, data.chirality * ik.action_density(data, pts) / (8 * np.pi**2), rtol=1e-14)
+
+
+# -- first calls: what compiles once ------------------------------------------------------------------
+
+
+def _closure_over(rho):
+    def a(x):  # a new function object on every call, the same code
+        return _charge_one_potential(x, {"rho": rho, "centre": jnp.asarray(CENTER)})
+
+    return a
+
+
+def test_two_closures_of_the_same_code_and_values_share_one_compile():
+    pts = CENTER + np.random.default_rng(12).normal(size=(16, 4))
+    kern = fields._kernel("action_density", "auto")
+    first = ik.action_density(_closure_over(0.7), pts)
+    before = kern._cache_size()
+    again = ik.action_density(_closure_over(0.7), pts)  # another object, equal code and captured value
+    assert kern._cache_size() == before
+    np.testing.assert_array_equal(first, again)
+    other = ik.action_density(_closure_over(0.9), pts)  # a new captured value: a new kernel, new values
+    assert kern._cache_size() == before + 1
+    # Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85: s = 48 rho^4/(|x-a|^2+rho^2)^4.
+    ref = 48 * 0.9**4 / (np.sum((pts - CENTER) ** 2, axis=-1) + 0.9**2) ** 4
+    np.testing.assert_allclose(other, ref, rtol=1e-10)
+
+
+def test_lean_and_fully_optimised_autodiff_agree_with_the_closed_form():
+    from instantonkit import _config
+
+    data = ik.random_adhm(2, 1, seed=21)
+    centre, scale = data.hint()
+    pts = centre + scale * np.random.default_rng(4).normal(size=(16, 4))
+    closed = ik.field_strength(data, pts, method="closed")
+    lean = ik.field_strength(data, pts, method="autodiff")
+    try:
+        _config.set_lean_compile(False)
+        full = ik.field_strength(data, pts, method="autodiff")
+    finally:
+        _config.set_lean_compile(True)
+    # closed form (Christ, Weinberg, Stanton, Phys. Rev. D 18 (1978) 2013, from memory) vs the curvature of A
+    scale_f = np.max(np.abs(closed))
+    assert np.max(np.abs(lean - closed)) <= 1e-12 * scale_f
+    assert np.max(np.abs(full - closed)) <= 1e-12 * scale_f
+
+
+def test_set_lean_compile_rejects_a_non_boolean():
+    from instantonkit import _config
+
+    with pytest.raises(TypeError, match="on must be a bool; found int"):
+        _config.set_lean_compile(1)
+
+
+def test_compile_cache_directory_is_configurable(tmp_path):
+    import jax
+
+    from instantonkit import _config
+
+    old = _config.compile_cache_dir()
+    try:
+        path = ik.enable_compile_cache(tmp_path / "kernels")
+        assert path == str(tmp_path / "kernels") and _config.compile_cache_dir() == path
+        assert (tmp_path / "kernels").is_dir()
+    finally:
+        jax.config.update("jax_compilation_cache_dir", old)
+    (tmp_path / "file").write_text("x")
+    with pytest.raises(ValueError, match="directory must be a directory; found a file"):
+        ik.enable_compile_cache(tmp_path / "file")
