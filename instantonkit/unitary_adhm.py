@@ -265,6 +265,18 @@ class UnitaryADHMData(PytreeFields):
         """Field hook: one line for reports."""
         return f"complex ADHM {self.group} data, k = {self.k} (instanton, {self.gauge} gauge)"
 
+    def record(self) -> dict:
+        """Field hook: a JSON-ready description that rebuilds the data exactly (real and imaginary parts, full precision).
+
+        Rebuilt by :func:`instantonkit.references.field_from_record` (kind 'unitary_adhm').
+        """
+        rec: dict = {"kind": "unitary_adhm", "gauge": self.gauge, "tol": float(self.tol)}
+        for name in ("B1", "B2", "I", "J"):
+            arr = np.asarray(getattr(self, name), dtype=np.complex128)
+            rec[name] = {"re": arr.real.tolist(), "im": arr.imag.tolist()}
+        rec.update(group=self.group, charge=int(self.charge), centres=self.centers().tolist(), sizes=self.sizes().tolist())
+        return rec
+
     def constraint_residual(self) -> float:
         """Field hook: the larger of max |mu_R| and max |mu_C| (module docstring)."""
         mr, mc = unitary_moment_maps(*(np.asarray(a) for a in (self.B1, self.B2, self.I, self.J)))
