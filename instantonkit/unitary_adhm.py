@@ -274,7 +274,9 @@ class UnitaryADHMData(PytreeFields):
         for name in ("B1", "B2", "I", "J"):
             arr = np.asarray(getattr(self, name), dtype=np.complex128)
             rec[name] = {"re": arr.real.tolist(), "im": arr.imag.tolist()}
-        rec.update(group=self.group, charge=int(self.charge), centres=self.centers().tolist(), sizes=self.sizes().tolist())
+        rec.update(
+            group=self.group, charge=int(self.charge), centres=self.centers().tolist(), sizes=self.sizes().tolist()
+        )
         return rec
 
     def constraint_residual(self) -> float:

@@ -8,6 +8,7 @@ are common practice, from memory.  All point sets have N_POINTS points so compil
 from __future__ import annotations
 
 import os
+
 import jax
 import jax.numpy as jnp
 import numpy as np
@@ -198,7 +199,7 @@ def test_closed_form_potential_is_u_dag_du(k):
         data = SU3[k].with_gauge(gauge)
         x = jnp.asarray(points_near(data, 30 + k))
 
-        def ref(y):
+        def ref(y, data=data):
             u, du = data.frame(y), jax.jacfwd(data.frame)(y)
             a = jnp.einsum("ia,ibm->mab", jnp.conj(u), du)
             return a - jnp.trace(a, axis1=-2, axis2=-1)[:, None, None] * jnp.eye(3) / 3
