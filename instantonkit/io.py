@@ -11,7 +11,8 @@ ILDG layout written and read here (the open ILDG/LIME standard, from memory):
   site the directions x, y, z, t; each link a 3 x 3 complex matrix, row-major, (re, im) pairs) and
   optionally ``ildg-data-lfn`` (the logical file name).  instantonkit adds the description of the
   field (JSON, the field's ``record()`` hook: kind, centres, sizes, orientations, for ADHM data Lambda
-  and B in full precision, gauge, chirality) as a message of its own with one record
+  and B in full precision, for complex SU(N) ADHM data B1, B2, I, J as real and imaginary parts, gauge,
+  chirality) as a message of its own with one record
   ``instantonkit-field``, and its JSON metadata (shape, spacing, origin, group, embedding, boundary,
   quality figures) as another with one record ``instantonkit-metadata``; readers of the standard
   skip both.  npz files hold the same two JSON strings as the arrays ``field`` and ``metadata``.

@@ -20,6 +20,7 @@ from .conventions import INSTANTON_ACTION
 from .fields import evaluate, hook
 from .lattice import LatticeStart, StartSpec, lattice_start
 from .periodic import DEFAULT_WINDOW_WIDTH, TorusWindow
+from .unitary_adhm import UnitaryADHMData
 
 #: 8 pi^2, the action of one instanton (conventions module).
 _EIGHT_PI2 = INSTANTON_ACTION
@@ -158,19 +159,33 @@ def _bpst_from_record(rec):
     )
 
 
-#: Rebuilders of field records by their 'kind' (the ``record()`` hooks of ADHM data and ``ansatz.BPSTField``).
-RECORD_KINDS = {"adhm": _adhm_from_record, "bpst": _bpst_from_record}
+def _complex_entry(rec, name):
+    part = rec[name]
+    if not isinstance(part, dict) or set(part) != {"re", "im"}:
+        raise ValueError(f"record entry {name!r} must be a dict with keys 're' and 'im'; found {part!r:.80}")
+    return np.asarray(part["re"], dtype=np.float64) + 1j * np.asarray(part["im"], dtype=np.float64)
+
+
+def _unitary_adhm_from_record(rec):
+    b1, b2, i, j = (_complex_entry(rec, n) for n in ("B1", "B2", "I", "J"))
+    return UnitaryADHMData(b1, b2, i, j, tol=float(rec["tol"]), gauge=rec["gauge"])
+
+
+#: Rebuilders of field records by their 'kind' (the ``record()`` hooks of ADHM data, complex ADHM data
+#: and ``ansatz.BPSTField``).
+RECORD_KINDS = {"adhm": _adhm_from_record, "unitary_adhm": _unitary_adhm_from_record, "bpst": _bpst_from_record}
 
 
 def field_from_record(record: dict, *, window: bool = True):
     """The field a ``record()`` hook described (as stored in lattice files and in ``LinkReport.field``).
 
     Args:
-      record: dict with a 'kind' in RECORD_KINDS ('adhm': Lambda, B, chirality, gauge, tol; 'bpst':
-        center, size, orientation, gauge) and optionally 'window' (lo, box, width of :class:`TorusWindow`).
+      record: dict with a 'kind' in RECORD_KINDS ('adhm': Lambda, B, chirality, gauge, tol;
+        'unitary_adhm': B1, B2, I, J as {'re', 'im'} lists, gauge, tol; 'bpst': center, size,
+        orientation, gauge) and optionally 'window' (lo, box, width of :class:`TorusWindow`).
       window: rebuild the window too (False: the field before windowing, to pass with boundary='window').
     Returns:
-      The field (ADHMData, ansatz.BPSTField or a TorusWindow of one); floats are those of the record
+      The field (ADHMData, UnitaryADHMData, ansatz.BPSTField or a TorusWindow of one); floats are those of the record
       (JSON keeps float64 exactly), so np.array_equal holds on Lambda and B.
     Raises:
       ValueError: no record, or an unknown kind.

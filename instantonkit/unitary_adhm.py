@@ -86,6 +86,43 @@ _SMN = np.einsum("mab,ncb->mnac", _S, _S.conj()) - np.einsum("nab,mcb->mnac", _S
 _T = np.einsum("mnab,mncd->abcd", _SMN, _SMN)
 
 
+# -- k x k and N x N linear algebra, unrolled -------------------------------------------------------
+#
+# Written as Python loops over the (small, static) matrix size in plain jnp arithmetic, so that under
+# vmap every entry is one elementwise array op over the points.  Not jnp.linalg / jax.scipy.linalg: on
+# CPU (jax 0.10.2, measured) vmapped calls of the batched LAPACK kernels (triangular solve, LU inverse)
+# and of their forward-mode derivatives did not finish for batches of >= 768 (triangular solve) to
+# ~1e4 (inverse) matrices, which the engine's chunks of 8192 points and the Magnus kernel reach; the
+# second derivatives that the autodiff field strength takes made it worse.  O(n^3) traced operations
+# for n x n (n = k or N), nothing for the small sizes of ADHM data.
+
+
+def _cholesky(a):
+    """Lower L with a = L L^dag for Hermitian positive-definite a (n, n) (Cholesky-Banachiewicz, unrolled) -> (n, n)."""
+    n = a.shape[-1]
+    lo = [[None] * n for _ in range(n)]
+    for j in range(n):
+        d = jnp.real(a[j, j]) - sum(jnp.abs(lo[j][p]) ** 2 for p in range(j))
+        ljj = jnp.sqrt(d)
+        lo[j][j] = ljj + 0j
+        for i in range(j + 1, n):
+            lo[i][j] = (a[i, j] - sum(lo[i][p] * jnp.conj(lo[j][p]) for p in range(j))) / ljj
+    zero = jnp.zeros_like(lo[0][0])
+    return jnp.stack([jnp.stack([lo[i][j] if j <= i else zero for j in range(n)]) for i in range(n)])
+
+
+def _inv_lower(lo):
+    """L^-1 of a lower-triangular (n, n) with nonzero diagonal (forward substitution, unrolled) -> (n, n)."""
+    n = lo.shape[-1]
+    inv = [[None] * n for _ in range(n)]
+    for c in range(n):
+        inv[c][c] = 1.0 / lo[c, c]
+        for i in range(c + 1, n):
+            inv[i][c] = -sum(lo[i, p] * inv[p][c] for p in range(c, i)) / lo[i, i]
+    zero = jnp.zeros_like(inv[0][0])
+    return jnp.stack([jnp.stack([inv[i][j] if j <= i else zero for j in range(n)]) for i in range(n)])
+
+
 # -- validation ---------------------------------------------------------------------------------------
 
 
@@ -228,6 +265,20 @@ class UnitaryADHMData(PytreeFields):
         """Field hook: one line for reports."""
         return f"complex ADHM {self.group} data, k = {self.k} (instanton, {self.gauge} gauge)"
 
+    def record(self) -> dict:
+        """Field hook: a JSON-ready description that rebuilds the data exactly (real and imaginary parts, full precision).
+
+        Rebuilt by :func:`instantonkit.references.field_from_record` (kind 'unitary_adhm').
+        """
+        rec: dict = {"kind": "unitary_adhm", "gauge": self.gauge, "tol": float(self.tol)}
+        for name in ("B1", "B2", "I", "J"):
+            arr = np.asarray(getattr(self, name), dtype=np.complex128)
+            rec[name] = {"re": arr.real.tolist(), "im": arr.imag.tolist()}
+        rec.update(
+            group=self.group, charge=int(self.charge), centres=self.centers().tolist(), sizes=self.sizes().tolist()
+        )
+        return rec
+
     def constraint_residual(self) -> float:
         """Field hook: the larger of max |mu_R| and max |mu_C| (module docstring)."""
         mr, mc = unitary_moment_maps(*(np.asarray(a) for a in (self.B1, self.B2, self.I, self.J)))
@@ -303,20 +354,19 @@ class UnitaryADHMData(PytreeFields):
 
     def log_det(self, x):
         """Field hook: log det f^-1 at one point (4,) -> () (so s = -1/2 box box log_det, Osborn)."""
-        return jnp.linalg.slogdet(self.gram(x))[1]
+        lo = _cholesky(self.gram(x))
+        return 2.0 * sum(jnp.log(jnp.real(lo[i, i])) for i in range(self.k))
 
     def _f(self, x):
+        """f = (f^-1)^-1 = C^-dag C^-1 from the Cholesky factor C of f^-1 (unrolled, see :func:`_cholesky`)."""
         finv = self.gram(x)
         if self.k == 1:
             return 1.0 / finv
-        return jnp.linalg.inv(finv)
+        ci = _inv_lower(_cholesky(finv))
+        return jnp.conj(ci.T) @ ci
 
-    def frame(self, x):
-        """U(x), (2k + N, N): orthonormal null space of Delta^dag in the projection gauge (one point).
-
-        U = P V0 L^-dag with P = 1 - Delta (1_2 (x) f) Delta^dag and V0^dag P V0 = L L^dag (Cholesky);
-        V0 = [0 ; 1_N] ('singular') or [I ; J^dag ; 0] ('regular').  No SVD; smooth where L exists.
-        """
+    def _frame_parts(self, x):
+        """(U, (1_2 (x) f) Delta^dag V0, L^-1) at one point: the frame and what the potential reuses."""
         k, n = self.k, self.rank
         delta = self.delta(x)
         f = self._f(x)
@@ -331,20 +381,40 @@ class UnitaryADHMData(PytreeFields):
         pv = v0 - delta @ fdv
         gram = jnp.conj(v0.T) @ pv
         gram = 0.5 * (gram + jnp.conj(gram.T))
-        lo = jnp.linalg.cholesky(gram)
-        # U = pv L^-dag.  L^-1 by LU (jnp.linalg.inv), not jax.scipy.linalg.solve_triangular: on CPU the
-        # batched forward-mode derivative of the triangular solve did not finish for batches of >= 768
-        # points (jax 0.10.2, measured), which is exactly the Magnus kernel's 3 nodes x 256 links.
-        return pv @ jnp.conj(jnp.linalg.inv(lo).T)
+        # U = pv L^-dag, L and L^-1 by unrolled elimination (see _cholesky for why not jnp.linalg)
+        linv = _inv_lower(_cholesky(gram))
+        return pv @ jnp.conj(linv.T), fdv, linv
+
+    def frame(self, x):
+        """U(x), (2k + N, N): orthonormal null space of Delta^dag in the projection gauge (one point).
+
+        U = P V0 L^-dag with P = 1 - Delta (1_2 (x) f) Delta^dag and V0^dag P V0 = L L^dag (Cholesky);
+        V0 = [0 ; 1_N] ('singular') or [I ; J^dag ; 0] ('regular').  No SVD; smooth where L exists.
+        """
+        return self._frame_parts(x)[0]
 
     # -- the field protocol ------------------------------------------------------------------
     def potential(self, x):
-        """A_mu = U^dag d_mu U minus its trace part (tr A / N), at one point (4,) -> (4, N, N) complex."""
+        """A_mu = U^dag d_mu U minus its trace part (tr A / N), in closed form, at one point (4,) -> (4, N, N).
+
+        For U = P V0 L^-dag (:meth:`frame`; P Delta = 0, P^2 = P, d_mu Delta = b (s_mu (x) 1_k)), derived
+        here: U^dag d_mu U = -W_mu - (d_mu L^dag) L^-dag with W_mu = (b^dag U)^dag (s_mu (x) f) Delta^dag V0
+        L^-dag.  d_mu L = L Phi_mu with Phi_mu lower triangular with real diagonal, so the second term is
+        -Phi_mu^dag, and anti-Hermiticity fixes Phi_mu + Phi_mu^dag = -(W_mu + W_mu^dag): Phi_mu is the
+        strict lower triangle plus half the diagonal of that.  No derivatives are taken (so the autodiff
+        field strength is one forward-mode pass); tests compare with U^dag d_mu U by jax.jacfwd.
+        """
         x = jnp.asarray(x, dtype=jnp.float64)
-        jac, u = jax.jacfwd(lambda y: (self.frame(y),) * 2, has_aux=True)(x)  # (2k + N, N, mu)
-        a = jnp.einsum("ia,ibm->mab", jnp.conj(u), jac)
-        tr = jnp.trace(a, axis1=-2, axis2=-1) / self.rank
-        return a - tr[:, None, None] * jnp.eye(self.rank)
+        k, n = self.k, self.rank
+        u, fdv, linv = self._frame_parts(x)
+        fdv = fdv.reshape(2, k, n)
+        sf = jnp.einsum("mab,bjn->majn", jnp.asarray(_S), fdv).reshape(4, 2 * k, n)  # (s_mu (x) f) Delta^dag V0
+        w = jnp.einsum("ia,min,bn->mab", jnp.conj(u[: 2 * k]), sf, jnp.conj(linv))
+        h = -(w + jnp.conj(jnp.swapaxes(w, -1, -2)))
+        phi = jnp.tril(h, -1) + 0.5 * jnp.real(jnp.diagonal(h, axis1=-2, axis2=-1))[..., None] * jnp.eye(n)
+        a = -w - jnp.conj(jnp.swapaxes(phi, -1, -2))
+        tr = jnp.trace(a, axis1=-2, axis2=-1) / n
+        return a - tr[:, None, None] * jnp.eye(n)
 
     def field_strength(self, x):
         """Closed-form F_mu nu = U^dag b (S_mu nu (x) f) b^dag U (trace part removed) -> (4, 4, N, N).
