@@ -451,7 +451,7 @@ def find_instantons(
         chi2 = exact.chi2
         rms = exact.rms
         cond = exact.condition
-        data = exact.data
+        data: Any = exact.data
         budget = (
             "statistical = noise, from the curvature of the exact ADHM fit; systematic = 0 (the model is exact "
             "for SU(2) ADHM densities)" + _lattice_note

@@ -81,9 +81,9 @@ from . import quaternion as qt
 from ._batching import run_batched
 from .adhm import ADHMData
 from .conventions import E_MU, PI, QUATERNION_BASIS
-from .unitary_adhm import UnitaryADHMData
 from .fields import as_points
 from .quadrature import rule_r4
+from .unitary_adhm import UnitaryADHMData
 
 __all__ = [
     "SIGMA",
@@ -354,7 +354,9 @@ def dirac_residual(
     return _map("dirac", _check_data(data), points, chunk_size)
 
 
-def zero_mode_overlap(data: ADHMData | UnitaryADHMData, *, n_radial: int = 64, n_angular: int = 16, rule=None) -> np.ndarray:
+def zero_mode_overlap(
+    data: ADHMData | UnitaryADHMData, *, n_radial: int = 64, n_angular: int = 16, rule=None
+) -> np.ndarray:
     """Overlap matrix O_ij = int d^4x sum_{c, alpha} conj(psi_i) psi_j by quadrature; (k, k) float64.
 
     Uses :func:`zero_mode_gram` on a quadrature rule: ``rule`` (an object with ``points`` (M, 4) and
