@@ -16,6 +16,13 @@ ADHM data (centres, sizes and relative orientations: all 8k - 3 gauge-invariant 
 :mod:`instantonkit.moduli_fit` to the samples above ``_EXACT_FLOOR`` of the peak (at most
 ``_EXACT_MAX``, the largest); ``data`` is then the fitted ``ADHMData``.  Sp(n > 1) data are not fitted (SU(2) only).
 
+SU(N > 2) (``rank=N``, genuine complex ADHM data): superposition model only (``model="exact"`` raises):
+the global SU(N) orientation is gauge and the relative ones enter densities only through the lumps'
+interaction and only in part, so they are not identifiable; centres and sizes of well-separated
+instantons are (tests/test_finder.py); systematic = the spread of refits of exact SU(N) densities with the
+fitted centres and sizes and ``_SUN_DRAWS`` random orientations; ``data`` = SU(N) data of the fitted
+centres and sizes, trivial orientations.  An exact SU(2) fit no better than the superposition is flagged.
+
 Start: the distinct peaks of :func:`count_peaks` (plateaus and ties merged, so lumps between lattice
 sites count once), sizes from the peak heights ``s_max = 48 / rho^4``; missing ones by greedy
 subtraction of BPST profiles.
@@ -40,11 +47,12 @@ import scipy.optimize
 from . import _validate
 from . import observables as _obs
 from .conventions import INSTANTON_ACTION
-from .fields import action_from_f, as_points
+from .fields import action_density, action_from_f, as_points
 from .moduli import multi_instanton
 from .moduli_fit import fit_exact
 from .peaks import BPST_PEAK, count_peaks, count_signed_peaks, sample_spacing
 from .transforms import PARITY
+from .unitary_moduli import unitary_multi_instanton
 
 __all__ = [
     "InstantonFit",
@@ -90,6 +98,9 @@ _CHI2_SIGMAS = 5.0
 
 #: Opposite-sign lumps below this fraction of the largest |q| are treated as noise.
 _OPPOSITE_FRACTION = 0.05
+
+#: SU(N > 2) model error of the superposition: refits of this many exact SU(N) densities (random orientations).
+_SUN_DRAWS = 3
 
 
 def superposition_density(points, centers, sizes):
@@ -334,6 +345,7 @@ def find_instantons(
     sigma=None,
     seed: int = 0,
     systematics: bool = True,
+    rank: int = 2,
     _lattice_note: str = "",
 ):
     """Fit k (anti-)instantons to density samples; returns an :class:`InstantonFit` (a :class:`MixedFit` for k = (k+, k-)).
@@ -360,6 +372,8 @@ def find_instantons(
       seed: seed of the random orientation starts of the exact fit.
       systematics: for model='superposition' and k >= 2, estimate the model error by an exact fit
         (False skips it: systematic errors are then NaN, "not estimated").
+      rank: N of the SU(N) instantons behind the density (2, or N > 2 for genuine complex ADHM data:
+        superposition model only, module docstring).
     Returns:
       InstantonFit with centers (k, 4), sizes (k,), orientations, statistical / systematic / total
       one-sigma uncertainties, ADHM data and the reasons the fit may be ambiguous.
@@ -369,17 +383,19 @@ def find_instantons(
     if isinstance(k, tuple | list):
         return _find_mixed(points, density, k, weights=weights, sigma=sigma)
     _validate.choice("model", model, _MODELS)
+    if _validate.positive_int("rank", rank) < 2 or (rank > 2 and model == "exact"):
+        raise ValueError(
+            f"rank must be >= 2 and model='exact' (SU(2) ADHM data) needs rank 2; found rank {rank}, model "
+            f"{model!r}: relative SU(N) orientations are not identifiable from gauge-invariant densities, so for "
+            "SU(N > 2) only model='superposition' (centres and sizes) applies"
+        )
     if sigma is not None:
         if weights is not None:
             raise ValueError("give either weights or sigma, not both")
         sg = _validate.real_array("sigma", sigma)
         if np.any(sg <= 0):
             raise ValueError(f"sigma must be > 0; found min {float(np.min(sg))!r}")
-        weights = (
-            np.broadcast_to(1.0 / sg**2, np.shape(density))
-            if sg.ndim
-            else np.full(np.shape(density), 1.0 / float(sg) ** 2)
-        )
+        weights = np.broadcast_to(1.0 / sg**2, np.shape(density)) if sg.ndim else np.full(np.shape(density), 1 / sg**2)
     pts, d, w = _check_inputs(points, density, k, weights, quantity)
     s, sign = _to_action(d, quantity)
     if quantity == "charge" and sigma is not None:
@@ -416,7 +432,7 @@ def find_instantons(
     if not sol.success:
         reasons.append(f"least squares did not converge ({sol.message})")
     exact = None
-    if k >= 2 and (model == "exact" or systematics):
+    if k >= 2 and (model == "exact" or systematics) and rank == 2:
         sel = s >= _EXACT_FLOOR * smax
         if sel.sum() > _EXACT_MAX:
             sel = np.zeros_like(sel)
@@ -435,13 +451,18 @@ def find_instantons(
         chi2 = exact.chi2
         rms = exact.rms
         cond = exact.condition
-        data = exact.data
+        data: Any = exact.data
         budget = (
             "statistical = noise, from the curvature of the exact ADHM fit; systematic = 0 (the model is exact "
             "for SU(2) ADHM densities)" + _lattice_note
         )
         if not exact.success:
             reasons.append(f"exact fit did not converge ({exact.message})")
+        if rms >= float(np.sqrt(np.mean(sol.fun[sel] ** 2))):  # the superposition on the same samples
+            reasons.append(
+                f"the exact SU(2) model (rms {rms:.2e}) does not improve on the superposition; the density may "
+                "come from SU(N > 2) instantons that are not embeddings (pass rank=N, model='superposition')"
+            )
     else:
         c, r, o = cs, rs, None
         stat = stat_sup
@@ -449,6 +470,16 @@ def find_instantons(
             p = _match(cs, exact.centers)
             syst = {"centers": np.abs(cs - exact.centers[p]), "sizes": np.abs(rs - exact.sizes[p])}
             budget = "statistical = noise, from the curvature of the superposition fit; systematic = |superposition - exact ADHM fit|"
+        elif k >= 2 and rank > 2 and systematics:
+            try:
+                syst = _sun_model_error(fit_pts, w, cs, rs, rank, seed)
+            except ValueError as err_sun:  # no SU(N) data for the fitted moduli
+                reasons.append(f"SU({rank}) model error not estimated ({err_sun})")
+                syst = {"centers": np.full_like(cs, np.nan), "sizes": np.full_like(rs, np.nan)}
+            budget = (
+                "statistical = noise, from the curvature of the superposition fit; systematic = spread of "
+                f"superposition refits of exact SU({rank}) densities with random orientations"
+            )
         elif k >= 2:
             syst = {"centers": np.full_like(cs, np.nan), "sizes": np.full_like(rs, np.nan)}
             budget = "statistical = noise, from the curvature of the superposition fit; systematic: not estimated"
@@ -466,7 +497,7 @@ def find_instantons(
         rms = float(np.sqrt(np.mean(sol.fun**2)))
         data = None
         try:
-            data = multi_instanton(cs, rs)
+            data = multi_instanton(cs, rs) if rank == 2 else unitary_multi_instanton(cs, rs, rank=rank)
         except ValueError as err_adhm:
             reasons.append(f"no ADHM data for the fitted moduli ({err_adhm})")
     if not np.isfinite(cond) or cond > _MAX_CONDITION * (1e4 if model == "exact" else 1.0):
@@ -517,6 +548,21 @@ def find_instantons(
         explains_noise=explains,
         superposition={"centers": cs, "sizes": rs},
     )
+
+
+def _sun_model_error(pts, w, cs, rs, rank, seed):
+    """Max |superposition refit - truth| over exact SU(N) densities of (cs, rs) with random orientations."""
+    rng, shape = np.random.default_rng(seed), (cs.shape[0], rank, rank)
+    err_c, err_r = np.zeros_like(cs), np.zeros_like(rs)
+    for _ in range(_SUN_DRAWS):
+        g = np.linalg.qr(rng.normal(size=shape) + 1j * rng.normal(size=shape))[0]  # unitary (U(1) is gauge)
+        truth = unitary_multi_instanton(cs, rs, g, rank=rank)
+        s_true = action_density(truth, pts)
+        c, r, _ = _fit_superposition(pts, s_true, np.sqrt(w) / float(np.max(s_true)), cs, rs)
+        p = _match(truth.centers(), c)
+        err_c = np.maximum(err_c, np.abs(c[p] - truth.centers()))
+        err_r = np.maximum(err_r, np.abs(r[p] - truth.sizes()))
+    return {"centers": err_c, "sizes": err_r}
 
 
 def _find_mixed(points, density, k, *, weights, sigma):

@@ -43,6 +43,29 @@ from memory; checked in the tests).  For BPST it is ``2 rho^2 / (pi^2 (|x - a|^2
 The identity holds entrywise, ``(2 / pi^2) Re (f M f)_ij = -(1 / 4 pi^2) box f_ij`` (checked numerically
 with jax Hessians); since ``f = |x|^-2 1 + O(|x|^-3)`` at infinity, Gauss's theorem then gives the
 orthonormality ``int psi_i^dag psi_j = delta_ij`` that :func:`zero_mode_overlap` confirms by quadrature.
+
+Complex ADHM data for SU(N) (:class:`instantonkit.unitary_adhm.UnitaryADHMData`; the same
+construction, common practice in the instanton literature, from memory; signs fixed numerically in
+tests/test_unitary_zero_modes.py).  With Delta, U, ``b = [1_2k ; 0]``, ``F = 1_2 (x) f`` and
+``d_mu Delta = b (s_mu (x) 1_k)`` of :mod:`instantonkit.unitary_adhm` (coordinates z1, z2 of
+docs/conventions.md), the N x 2k matrix ``U^dag b F`` (columns (alpha, i), alpha the block of Delta's
+columns) obeys ``sum_mu D_mu (U^dag b F) (s_mu (x) 1_k) = 0`` by the same steps as above; since
+``s_mu = sigma_2 SIGMA[mu] sigma_2 s_4``,
+
+    psi(x) = (1/pi) U^dag b F (sigma_2 (x) 1_k),        psi_i[c, beta] = psi[c, (beta, i)],
+
+solves ``sum_mu (D_mu psi_i) SIGMA[mu] = 0`` exactly as the quaternionic instanton modes do (gamma_5 =
+-1), same layout ``(..., k, N, 2)``.  The covariant derivative is that of the frame's own connection
+``U^dag d_mu U = data.potential + a_mu 1_N``: the potential of ``UnitaryADHMData`` drops the trace part
+``a_mu = tr(U^dag d_mu U) / N`` (:func:`u1_part`), which is flat (tr F = 0; tests check d a = 0), so
+``a = d lambda`` on R^4 minus the frame's singular points (simply connected) and the modes of the
+traceless field are ``exp(lambda) psi`` with ``|exp(lambda)| = 1``: every density below is the same.
+Densities need 2k x 2k work only: ``psi^dag psi`` summed over spinors is
+``G = (1/pi^2) sum_alpha (F M F)_(alpha i, alpha j)`` with ``M = b^dag P b = 1 - D F D^dag``,
+``D = b^dag Delta``; G is Hermitian (complex), and the same identity ``G_ij = -(1/4 pi^2) box f_ij``
+holds entrywise (checked with jax Hessians), hence ``int G = delta_ij`` again (Osborn-type identity;
+``f = |x|^-2 1 + O(|x|^-3)``).  For N = 2 data from :func:`instantonkit.unitary_moduli.from_quaternionic`
+f is the real quaternionic f, so G and the density equal the quaternionic ones.
 """
 
 from __future__ import annotations
@@ -60,6 +83,7 @@ from .adhm import ADHMData
 from .conventions import E_MU, PI, QUATERNION_BASIS
 from .fields import as_points
 from .quadrature import rule_r4
+from .unitary_adhm import UnitaryADHMData
 
 __all__ = [
     "SIGMA",
@@ -79,11 +103,83 @@ SIGMA_BAR = np.conj(np.swapaxes(SIGMA, -1, -2))
 #: Points per compiled call (memory per call is about _CHUNK times the per-point k x k and frame work).
 _CHUNK = 8192
 
+#: Points per compiled call for complex (SU(N)) data: jax's batched small linear algebra on the CPU
+#: (the frame's Cholesky and inverse, and their derivatives) stalled for >= 768 matrices per call.
+_UNITARY_CHUNK = 256
 
-def _check_data(data) -> ADHMData:
-    if not isinstance(data, ADHMData):
-        raise TypeError(f"data must be ADHMData; found {type(data).__name__}")
+#: Right factor of the complex modes, sigma_2 (Pauli matrix written out): sum_mu D_mu (U^dag b F) s_mu = 0
+#: becomes sum_mu D_mu psi SIGMA[mu] = 0, since s_mu = sigma_2 SIGMA[mu] sigma_2 s_4 (checked in the tests).
+_SIGMA_2 = np.array([[0.0, -1j], [1j, 0.0]])
+
+
+def _check_data(data) -> ADHMData | UnitaryADHMData:
+    if not isinstance(data, ADHMData | UnitaryADHMData):
+        raise TypeError(f"data must be ADHMData or UnitaryADHMData; found {type(data).__name__}")
     return data
+
+
+# -- complex (SU(N)) data: per-point closed forms -------------------------------------------------------
+
+
+def _unitary_f(data: UnitaryADHMData, x):
+    """f = (f^-1)^-1 of the gram hook, (k, k) complex, at one point."""
+    finv = data.gram(x)
+    return 1.0 / finv if data.k == 1 else jnp.linalg.inv(finv)
+
+
+def _unitary_psi_at(data: UnitaryADHMData, x):
+    """Complex modes psi = (1/pi) U^dag b (1_2 (x) f) (sigma_2 (x) 1_k) at one point: (k, N, 2) complex."""
+    x = jnp.asarray(x, dtype=jnp.float64)
+    k = data.k
+    u = data.frame(x)  # (2k + N, N)
+    f = _unitary_f(data, x)
+    ub = jnp.conj(u[: 2 * k].T).reshape(data.rank, 2, k)  # (U^dag b)_{c, (alpha, i)}
+    psi = jnp.einsum("caj,ji->cai", ub, f) / PI  # times (1_2 (x) f)
+    psi = jnp.einsum("cai,ab->cbi", psi, _SIGMA_2)  # times (sigma_2 (x) 1_k)
+    return jnp.transpose(psi, (2, 0, 1))
+
+
+def _unitary_gram_at(data: UnitaryADHMData, x):
+    """G_ij = sum_{c, alpha} conj(psi_i) psi_j = (1/pi^2) sum_alpha (F M F)_{alpha i, alpha j}, (k, k) Hermitian.
+
+    F = 1_2 (x) f, M = b^dag P b = 1 - D F D^dag with D = b^dag Delta (2k x 2k work only):
+    F M F = F^2 - F D F D^dag F.
+    """
+    x = jnp.asarray(x, dtype=jnp.float64)
+    k = data.k
+    d = data.delta(x)[: 2 * k]
+    f = _unitary_f(data, x)
+    big_f = jnp.kron(jnp.eye(2), f)
+    fd = big_f @ d  # F D
+    fmf = big_f @ big_f - fd @ big_f @ jnp.conj(fd.T)  # F M F = F^2 - F D F D^dag F
+    return (fmf[:k, :k] + fmf[k:, k:]) / PI**2
+
+
+def _unitary_density_at(data: UnitaryADHMData, x):
+    """Total zero-mode density tr G at one point -> () real."""
+    return jnp.real(jnp.trace(_unitary_gram_at(data, x)))
+
+
+def u1_part(data: UnitaryADHMData, x):
+    """The flat U(1) part a_mu = tr(U^dag d_mu U) / N removed from ``data.potential``, at one point -> (4,) complex.
+
+    U^dag d_mu U = data.potential(x)_mu + a_mu 1_N (the frame's own connection, autodiff of the frame).
+    Package-internal seam (tests check that it is flat, d_mu a_nu - d_nu a_mu = 0).
+    """
+    x = jnp.asarray(x, dtype=jnp.float64)
+    jac, u = jax.jacfwd(lambda y: (data.frame(y),) * 2, has_aux=True)(x)
+    return jnp.einsum("ia,iam->m", jnp.conj(u), jac) / data.rank
+
+
+def _unitary_dirac_at(data: UnitaryADHMData, x):
+    """(residual, scale) of the complex modes with D_mu = d_mu + data.potential_mu + a_mu (frame connection)."""
+    x = jnp.asarray(x, dtype=jnp.float64)
+    psi = _unitary_psi_at(data, x)  # (k, N, 2)
+    dpsi = jnp.moveaxis(jax.jacfwd(lambda y: _unitary_psi_at(data, y))(x), -1, 0)  # (mu, k, N, 2)
+    a = data.potential(x) + u1_part(data, x)[:, None, None] * jnp.eye(data.rank)
+    cov = dpsi + jnp.einsum("mcd,kdb->mkcb", a, psi)
+    res = jnp.einsum("mkca,mab->kcb", cov, SIGMA)
+    return jnp.stack([_frobenius(res), sum(_frobenius(cov[m]) for m in range(4))])
 
 
 # -- per-point closed forms (jax-traceable, one point (4,)) -----------------------------------------
@@ -154,19 +250,29 @@ def _dirac_stacked(data: ADHMData, x):
 
 
 _POINT_FNS = {"modes": _psi_at, "gram": _gram_at, "density": _density_at, "dirac": _dirac_stacked}
+_UNITARY_FNS = {
+    "modes": _unitary_psi_at,
+    "gram": _unitary_gram_at,
+    "density": _unitary_density_at,
+    "dirac": _unitary_dirac_at,
+}
 
 
 @functools.cache
-def _kernel(name: str):
-    return jax.jit(jax.vmap(_POINT_FNS[name], in_axes=(None, 0)))
+def _kernel(name: str, unitary: bool = False):
+    fn = (_UNITARY_FNS if unitary else _POINT_FNS)[name]
+    return jax.jit(jax.vmap(fn, in_axes=(None, 0)))
 
 
-def _map(name: str, data: ADHMData, points, chunk_size: int):
+def _map(name: str, data, points, chunk_size: int):
     """Evaluate the per-point function ``name`` on points (..., 4) in compiled batches; numpy out."""
     chunk_size = _validate.positive_int("chunk_size", chunk_size)
     pts, lead = as_points(points)
     m = pts.shape[0]
-    kern = _kernel(name)
+    unitary = isinstance(data, UnitaryADHMData)
+    if unitary:
+        chunk_size = min(chunk_size, _UNITARY_CHUNK)
+    kern = _kernel(name, unitary)
     probe = jax.eval_shape(kern, data, jax.ShapeDtypeStruct((1, 4), jnp.float64))
     out = np.empty((m,) + probe.shape[1:], dtype=probe.dtype)
     if m:
@@ -184,40 +290,46 @@ def _map(name: str, data: ADHMData, points, chunk_size: int):
     return out
 
 
-def zero_modes(data: ADHMData, points, *, chunk_size: int = _CHUNK) -> np.ndarray:
+def zero_modes(data: ADHMData | UnitaryADHMData, points, *, chunk_size: int = _CHUNK) -> np.ndarray:
     """The k normalisable zero modes psi = (1/pi) U^dag b f at points, in the gauge ``data.gauge``.
+
+    For complex SU(N) data psi = (1/pi) U^dag b (1_2 (x) f) (sigma_2 (x) 1_k), covariantly constant with
+    respect to the frame connection U^dag d U (module docstring; differs from ``data.potential`` by a flat
+    U(1) part, so the densities are those of the SU(N) field); at most 256 points per compiled call.
 
     Instanton modes obey sum_mu (D_mu psi_i) SIGMA[mu] = 0, anti-instanton modes the same with
     SIGMA_BAR (module docstring); they are orthonormal, int sum_{c, alpha} conj(psi_i) psi_j = delta_ij.
 
     Args:
-      data: ADHMData of Sp(n), charge k.
+      data: ADHMData of Sp(n), or UnitaryADHMData of SU(N), charge k.
       points: (..., 4) float64.
       chunk_size: points per compiled call, a positive integer.
     Returns:
-      (..., k, 2n, 2) complex128, axes (mode i, colour c, spinor alpha).
+      (..., k, 2n, 2) (or (..., k, N, 2)) complex128, axes (mode i, colour c, spinor alpha).
     Raises:
-      TypeError when data is not ADHMData, for non-real points or a non-integer chunk_size;
+      TypeError when data is neither ADHMData nor UnitaryADHMData, for non-real points or a non-integer chunk_size;
       ValueError for bad points, chunk_size < 1, or points where the frame is singular.
     """
     return _map("modes", _check_data(data), points, chunk_size)
 
 
-def zero_mode_gram(data: ADHMData, points, *, chunk_size: int = _CHUNK) -> np.ndarray:
+def zero_mode_gram(data: ADHMData | UnitaryADHMData, points, *, chunk_size: int = _CHUNK) -> np.ndarray:
     """Pointwise overlap G_ij(x) = sum_{c, alpha} conj(psi_i) psi_j = (2/pi^2) Re(f M f)_ij (k x k work only).
 
-    points: (..., 4) -> (..., k, k) float64 (real symmetric, gauge invariant).  Raises as :func:`zero_modes`.
+    points: (..., 4) -> (..., k, k) float64 (real symmetric, gauge invariant); for SU(N) data
+    (1/pi^2) sum_alpha (F M F)_(alpha i, alpha j), (..., k, k) complex128 Hermitian (2k x 2k work only).
+    Raises as :func:`zero_modes`.
     """
     return _map("gram", _check_data(data), points, chunk_size)
 
 
-def zero_mode_density(data: ADHMData, points, *, chunk_size: int = _CHUNK) -> np.ndarray:
+def zero_mode_density(data: ADHMData | UnitaryADHMData, points, *, chunk_size: int = _CHUNK) -> np.ndarray:
     """Total zero-mode density sum_i |psi_i|^2 (colour and spinor summed) = (2/pi^2) Re tr(f M f).
 
-    M = 1 - (B - p) f (B - p)^dag.  Integrates to k.
+    M = 1 - (B - p) f (B - p)^dag (for SU(N) data (1/pi^2) tr(F M F), module docstring).  Integrates to k.
 
     Args:
-      data: ADHMData of Sp(n), charge k.
+      data: ADHMData of Sp(n), or UnitaryADHMData of SU(N), charge k.
       points: (..., 4) float64.
       chunk_size: points per compiled call, a positive integer.
     Returns:
@@ -228,18 +340,23 @@ def zero_mode_density(data: ADHMData, points, *, chunk_size: int = _CHUNK) -> np
     return _map("density", _check_data(data), points, chunk_size)
 
 
-def dirac_residual(data: ADHMData, points, *, chunk_size: int = _CHUNK) -> tuple[np.ndarray, np.ndarray]:
+def dirac_residual(
+    data: ADHMData | UnitaryADHMData, points, *, chunk_size: int = _CHUNK
+) -> tuple[np.ndarray, np.ndarray]:
     """Pointwise Dirac-equation check of :func:`zero_modes` by automatic differentiation.
 
     Returns (residual, scale), each (...,) float64: residual = |sum_mu (D_mu psi) S_mu| with
     D_mu psi = d_mu psi + A_mu psi (jax.jacfwd; A = data.potential, same gauge as psi) and
     S = SIGMA (instanton) or SIGMA_BAR (anti-instanton), Frobenius norm over (mode, colour, spinor);
-    scale = sum_mu |D_mu psi|, so residual / scale is the relative violation.
+    scale = sum_mu |D_mu psi|, so residual / scale is the relative violation.  For SU(N) data
+    A = data.potential + u1_part (the frame connection U^dag d U, module docstring) and S = SIGMA.
     """
     return _map("dirac", _check_data(data), points, chunk_size)
 
 
-def zero_mode_overlap(data: ADHMData, *, n_radial: int = 64, n_angular: int = 16, rule=None) -> np.ndarray:
+def zero_mode_overlap(
+    data: ADHMData | UnitaryADHMData, *, n_radial: int = 64, n_angular: int = 16, rule=None
+) -> np.ndarray:
     """Overlap matrix O_ij = int d^4x sum_{c, alpha} conj(psi_i) psi_j by quadrature; (k, k) float64.
 
     Uses :func:`zero_mode_gram` on a quadrature rule: ``rule`` (an object with ``points`` (M, 4) and
@@ -248,13 +365,13 @@ def zero_mode_overlap(data: ADHMData, *, n_radial: int = 64, n_angular: int = 16
     The exact answer is the identity (orthonormal modes).
 
     Args:
-      data: ADHMData of Sp(n), charge k.
+      data: ADHMData of Sp(n), or UnitaryADHMData of SU(N), charge k.
       n_radial, n_angular: positive integers, nodes of the default rule (ignored with ``rule``).
       rule: None or an object with ``points`` (M, 4) and ``weights`` (M,).
     Returns:
-      (k, k) float64, the identity up to quadrature error.
+      (k, k) float64 (complex128 Hermitian for SU(N) data), the identity up to quadrature error.
     Raises:
-      TypeError when data is not ADHMData; ValueError for a rule of the wrong shapes.
+      TypeError when data is neither ADHMData nor UnitaryADHMData; ValueError for a rule of the wrong shapes.
     """
     data = _check_data(data)
     if rule is None:
