@@ -18,7 +18,7 @@ from . import (
     unitary_adhm,
     unitary_moduli,
 )
-from ._config import enable_compile_cache
+from ._config import enable_compile_cache, set_lean_compile
 from .adhm import ADHMData
 from .ansatz import bpst_field, caloron, jnr, thooft
 from .checks import (
@@ -111,6 +111,7 @@ __all__ = [
     "MixedFit",
     "ParametrisedField",
     "enable_compile_cache",
+    "set_lean_compile",
     "total_action",
     "total_charge",
     "verify",

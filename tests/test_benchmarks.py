@@ -17,9 +17,13 @@ def test_every_benchmark_module_is_discovered():
     assert {"bench_fields", "bench_lattice"} <= set(bench_run.discover())
 
 
-def test_smoke_run_from_the_repository_root_prints_a_markdown_table_with_rows():
+_LONG = pytest.mark.skipif(not os.environ.get("INSTANTONKIT_LONG"), reason="set INSTANTONKIT_LONG=1 (minutes)")
+
+
+@pytest.mark.parametrize("only", [["--only", "fields", "lattice"], pytest.param([], marks=_LONG)], ids=["two", "all"])
+def test_smoke_run_from_the_repository_root_prints_a_markdown_table_with_rows(only):
     out = subprocess.run(
-        [sys.executable, "-m", "benchmarks", "--smoke", "--markdown"],
+        [sys.executable, "-m", "benchmarks", "--smoke", "--markdown", *only],
         cwd=ROOT,
         capture_output=True,
         text=True,

@@ -13,6 +13,8 @@ to ~1e-10 for k = 1..4; the superposition model is off by ~4e-4 (k = 2) to ~1e-2
 
 from __future__ import annotations
 
+import os
+
 import numpy as np
 import pytest
 
@@ -26,6 +28,8 @@ from instantonkit.finder import (
     find_lattice_instantons,
 )
 from instantonkit.moduli import solve_constraint_unrolled
+
+_LONG = pytest.mark.skipif(not os.environ.get("INSTANTONKIT_LONG"), reason="set INSTANTONKIT_LONG=1 (minutes)")
 
 GRID = np.linspace(-4.0, 4.0, 13)
 LATTICE = np.stack(np.meshgrid(GRID, GRID, GRID, GRID, indexing="ij"), axis=-1).reshape(-1, 4)
@@ -99,7 +103,7 @@ def test_unrolled_constraint_solve_matches_the_numpy_solve_and_its_derivative_ke
     np.testing.assert_allclose(np.asarray(db), fd, atol=1e-7)
 
 
-@pytest.mark.parametrize("k", [1, 2, 3, 4])
+@pytest.mark.parametrize("k", [1, 2, pytest.param(3, marks=_LONG), pytest.param(4, marks=_LONG)])
 def test_exact_fit_recovers_the_gauge_invariant_moduli_of_random_data(k):
     truth = ik.random_adhm(k, seed=100 + k, spread=2.5, size_range=(0.5, 0.9))
     pts = LATTICE11 * 1.2 if k <= 2 else scattered_around(truth, 500, seed=k)  # grids and scattered points
@@ -133,6 +137,7 @@ def test_with_one_percent_noise_k1_moduli_lie_within_their_uncertainties():
     assert sum(f.explains_noise for f in fits) >= 7  # chi2/dof within 5 sigma of 1
 
 
+@_LONG
 @pytest.mark.slow
 def test_with_one_percent_noise_k2_moduli_lie_within_their_uncertainties():
     pulls, fits = zip(*[_noisy_trial(2, seed) for seed in range(4)])
@@ -156,6 +161,7 @@ def test_superposition_model_error_is_in_its_uncertainties():
 # -- peaks and lattices --------------------------------------------------------------------------------
 
 
+@_LONG
 def test_lumps_at_hypercube_centres_of_a_16_lattice_are_found():
     # the example: centres (1.5, 0, 0, 0) and (-1, 1, 0.5, 0), sizes 0.7 and 0.9; with a = 0.25 the
     # default origin puts both lumps at hypercube centres (every coordinate half-way between sites)

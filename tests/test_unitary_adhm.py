@@ -150,7 +150,7 @@ def test_potential_is_antihermitian_and_traceless(k):
     assert float(np.max(np.abs(np.trace(a, axis1=-2, axis2=-1)))) < 1e-13
 
 
-@pytest.mark.parametrize("k", [1, 2, 3])
+@pytest.mark.parametrize("k", [1, 2, pytest.param(3, marks=_LONG)])
 def test_closed_form_density_matches_osborn_and_autodiff(k):
     data = SU3[k]
     x = points_near(data, 6)
@@ -195,6 +195,7 @@ def test_total_charge_is_three_for_genuine_su3_charge_three():
     assert abs(res.value - 3) < 1e-8, (res.value, res.error)
 
 
+@_LONG
 def test_verify_passes_genuine_su3_charge_two():
     # the whole verdict: Q = 2 by integration, the closed forms against the curvature of the potential
     # (autodiff on 8192-point chunks, which stalled with batched jnp.linalg), Osborn's route
