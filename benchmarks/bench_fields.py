@@ -50,6 +50,8 @@ ETA = thooft_eta()
 if __package__ in (None, ""):  # run as a script: make ``import benchmarks`` work from anywhere
     sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
+from benchmarks.run import best_time  # noqa: E402
+
 FULL_POINTS = 1_000_000
 QUICK_POINTS = 10_000
 KS = (1, 2, 4, 8)
@@ -81,14 +83,7 @@ def _points(data: ik.ADHMData, n: int, seed: int = 0) -> np.ndarray:
     return centre + scale * np.random.default_rng(seed).normal(size=(n, 4))
 
 
-def _timed(fn, repeats: int = 1) -> float:
-    """Best wall time of ``repeats`` calls, in seconds."""
-    best = np.inf
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        fn()
-        best = min(best, time.perf_counter() - t0)
-    return best
+_timed = best_time
 
 
 def _row(figure, value, unit, ratio=None, reference=None) -> dict:

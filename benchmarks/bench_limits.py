@@ -34,6 +34,7 @@ if __package__ in (None, ""):
     sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
 import instantonkit as ik
+from benchmarks.run import best_time
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 
@@ -43,12 +44,7 @@ def _row(figure, value, unit="", ratio=None, reference="") -> dict:
 
 
 def _best(fn, repeats: int = 2) -> float:
-    best = np.inf
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        fn()
-        best = min(best, time.perf_counter() - t0)
-    return float(best)
+    return best_time(fn, repeats)
 
 
 # -- integrals and verdicts ------------------------------------------------------------------------

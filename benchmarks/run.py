@@ -38,6 +38,7 @@ if __package__ in (None, ""):  # run as a script: make ``import benchmarks`` wor
     sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
 __all__ = [
+    "best_time",
     "discover",
     "collect",
     "machine_description",
@@ -58,6 +59,16 @@ SMOKE = {
 
 COLUMNS = ("figure", "value", "unit", "ratio", "reference")
 _HERE = os.path.dirname(os.path.abspath(__file__))
+
+
+def best_time(fn, repeats: int = 1) -> float:
+    """Best wall time of ``repeats`` calls of ``fn()``, in seconds (the figure every module times with)."""
+    best = float("inf")
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        fn()
+        best = min(best, time.perf_counter() - t0)
+    return best
 
 
 def discover(directory: str = _HERE) -> list[str]:
