@@ -27,6 +27,9 @@ from instantonkit.conventions import point_to_quaternion
 PI = math.pi
 EIGHT_PI2 = 8.0 * PI**2
 
+#: the longest checks (a minute or more on two cores): opt in with INSTANTONKIT_LONG=1.
+_LONG = pytest.mark.skipif(not os.environ.get("INSTANTONKIT_LONG"), reason="set INSTANTONKIT_LONG=1 (minutes)")
+
 
 def _within(result, exact, bound=1e-8):
     """|value - exact| <= bound and the reported error covers the true error."""
@@ -170,7 +173,7 @@ def test_sp2_data_action_and_charge():
     _within(checks.total_charge(data, **TIGHT), 2.0)
 
 
-@pytest.mark.parametrize("k", [2, pytest.param(3, marks=pytest.mark.slow)])
+@pytest.mark.parametrize("k", [2, pytest.param(3, marks=[pytest.mark.slow, _LONG])])
 def test_thooft_charge_is_the_number_of_poles(k):
     # 't Hooft ansatz phi = 1 + sum rho_i^2/|x - a_i|^2 has Q = k ('t Hooft 1976; Jackiw, Nohl, Rebbi,
     # Phys. Rev. D 15 (1977) 1642; from memory)
@@ -525,12 +528,8 @@ def test_verify_report_converts_to_a_plain_dict(report_k2):
     assert isinstance(d["routes"], list) and isinstance(d["rows"], list) and isinstance(d["advice"], list)
 
 
-#: verify on charge-4 data takes minutes with today's quadrature (4.3M points per integral): opt in.
-_LONG = pytest.mark.skipif(not os.environ.get("INSTANTONKIT_LONG"), reason="set INSTANTONKIT_LONG=1 (minutes)")
-
-
 @pytest.mark.parametrize(
-    "k", [1, pytest.param(3, marks=pytest.mark.slow), pytest.param(4, marks=[pytest.mark.slow, _LONG])]
+    "k", [1, pytest.param(3, marks=[pytest.mark.slow, _LONG]), pytest.param(4, marks=[pytest.mark.slow, _LONG])]
 )
 def test_verify_passes_exact_adhm_data_with_default_settings(k):
     # Q = k, S = 8 pi^2 k, self-dual (Atiyah, Hitchin, Drinfeld, Manin 1978); k = 2 is report_k2 above

@@ -84,7 +84,7 @@ def test_s_mu_are_sigma_mu_conjugated_by_sigma_2():
 # -- the Dirac equation --------------------------------------------------------------------------------
 
 
-@pytest.mark.parametrize("case", sorted(CASES))
+@pytest.mark.parametrize("case", [pytest.param(c, marks=_LONG) if c == "su3_k3" else c for c in sorted(CASES)])
 def test_modes_solve_the_dirac_equation(case):
     # sum_mu (D_mu psi_i) SIGMA_mu = 0 with D = d + data.potential + a 1 (a the flat U(1) part), by jax.jacfwd
     data = CASES[case]()
@@ -114,7 +114,7 @@ def test_u1_part_is_flat_and_not_zero():
 # -- densities -----------------------------------------------------------------------------------------
 
 
-@pytest.mark.parametrize("case", ["su3_k2", "su4_k2", "su3_k3"])
+@pytest.mark.parametrize("case", ["su3_k2", "su4_k2", pytest.param("su3_k3", marks=_LONG)])
 def test_gram_closed_form_equals_the_modes_and_minus_box_f(case):
     # G_ij = sum_{c, alpha} conj(psi_i) psi_j; the identity G_ij = -(1/4 pi^2) box f_ij (Corrigan, Goddard,
     # Osborn, Templeton, Nucl. Phys. B 159 (1979) 469, in the SU(2) form; from memory) by jax Hessians of f
