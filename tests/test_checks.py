@@ -7,7 +7,6 @@ source named beside the check.
 from __future__ import annotations
 
 import math
-import os
 
 import jax
 import jax.numpy as jnp
@@ -26,9 +25,6 @@ from instantonkit.conventions import point_to_quaternion
 
 PI = math.pi
 EIGHT_PI2 = 8.0 * PI**2
-
-#: the longest checks (a minute or more on two cores): opt in with INSTANTONKIT_LONG=1.
-_LONG = pytest.mark.skipif(not os.environ.get("INSTANTONKIT_LONG"), reason="set INSTANTONKIT_LONG=1 (minutes)")
 
 
 def _within(result, exact, bound=1e-8):
@@ -173,7 +169,7 @@ def test_sp2_data_action_and_charge():
     _within(checks.total_charge(data, **TIGHT), 2.0)
 
 
-@pytest.mark.parametrize("k", [2, pytest.param(3, marks=[pytest.mark.slow, _LONG])])
+@pytest.mark.parametrize("k", [2, pytest.param(3, marks=[pytest.mark.slow, pytest.mark.long])])
 def test_thooft_charge_is_the_number_of_poles(k):
     # 't Hooft ansatz phi = 1 + sum rho_i^2/|x - a_i|^2 has Q = k ('t Hooft 1976; Jackiw, Nohl, Rebbi,
     # Phys. Rev. D 15 (1977) 1642; from memory)
@@ -529,7 +525,12 @@ def test_verify_report_converts_to_a_plain_dict(report_k2):
 
 
 @pytest.mark.parametrize(
-    "k", [1, pytest.param(3, marks=[pytest.mark.slow, _LONG]), pytest.param(4, marks=[pytest.mark.slow, _LONG])]
+    "k",
+    [
+        1,
+        pytest.param(3, marks=[pytest.mark.slow, pytest.mark.long]),
+        pytest.param(4, marks=[pytest.mark.slow, pytest.mark.long]),
+    ],
 )
 def test_verify_passes_exact_adhm_data_with_default_settings(k):
     # Q = k, S = 8 pi^2 k, self-dual (Atiyah, Hitchin, Drinfeld, Manin 1978); k = 2 is report_k2 above

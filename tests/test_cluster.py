@@ -223,7 +223,7 @@ def test_a_chunk_written_but_not_marked_done_is_recomputed(tmp_path):
 
 
 @pytest.mark.slow
-@pytest.mark.skipif(not os.environ.get("INSTANTONKIT_LONG"), reason="set INSTANTONKIT_LONG=1 (minutes)")
+@pytest.mark.long
 def test_killing_a_worker_mid_run_completes_the_store_without_duplicates(two_local, tmp_path):
     ref, _ = two_local
     with (

@@ -13,8 +13,6 @@ to ~1e-10 for k = 1..4; the superposition model is off by ~4e-4 (k = 2) to ~1e-2
 
 from __future__ import annotations
 
-import os
-
 import numpy as np
 import pytest
 
@@ -28,8 +26,6 @@ from instantonkit.finder import (
     find_lattice_instantons,
 )
 from instantonkit.moduli import solve_constraint_unrolled
-
-_LONG = pytest.mark.skipif(not os.environ.get("INSTANTONKIT_LONG"), reason="set INSTANTONKIT_LONG=1 (minutes)")
 
 GRID = np.linspace(-4.0, 4.0, 13)
 LATTICE = np.stack(np.meshgrid(GRID, GRID, GRID, GRID, indexing="ij"), axis=-1).reshape(-1, 4)
@@ -104,7 +100,13 @@ def test_unrolled_constraint_solve_matches_the_numpy_solve_and_its_derivative_ke
 
 
 @pytest.mark.parametrize(
-    "k", [1, pytest.param(2, marks=_LONG), pytest.param(3, marks=_LONG), pytest.param(4, marks=_LONG)]
+    "k",
+    [
+        1,
+        pytest.param(2, marks=pytest.mark.long),
+        pytest.param(3, marks=pytest.mark.long),
+        pytest.param(4, marks=pytest.mark.long),
+    ],
 )
 def test_exact_fit_recovers_the_gauge_invariant_moduli_of_random_data(k):
     truth = ik.random_adhm(k, seed=100 + k, spread=2.5, size_range=(0.5, 0.9))
@@ -139,7 +141,7 @@ def test_with_one_percent_noise_k1_moduli_lie_within_their_uncertainties():
     assert sum(f.explains_noise for f in fits) >= 7  # chi2/dof within 5 sigma of 1
 
 
-@_LONG
+@pytest.mark.long
 @pytest.mark.slow
 def test_with_one_percent_noise_k2_moduli_lie_within_their_uncertainties():
     pulls, fits = zip(*[_noisy_trial(2, seed) for seed in range(4)])
@@ -163,7 +165,7 @@ def test_superposition_model_error_is_in_its_uncertainties():
 # -- peaks and lattices --------------------------------------------------------------------------------
 
 
-@_LONG
+@pytest.mark.long
 def test_lumps_at_hypercube_centres_of_a_16_lattice_are_found():
     # the example: centres (1.5, 0, 0, 0) and (-1, 1, 0.5, 0), sizes 0.7 and 0.9; with a = 0.25 the
     # default origin puts both lumps at hypercube centres (every coordinate half-way between sites)

@@ -7,8 +7,6 @@ are common practice, from memory.  All point sets have N_POINTS points so compil
 
 from __future__ import annotations
 
-import os
-
 import jax
 import jax.numpy as jnp
 import numpy as np
@@ -25,8 +23,6 @@ from instantonkit.testing import unitary_adhm_data
 
 N_POINTS = 16
 FEW = settings(max_examples=5, deadline=None)
-_LONG = pytest.mark.skipif(not os.environ.get("INSTANTONKIT_LONG"), reason="set INSTANTONKIT_LONG=1 (minutes)")
-
 # eps_{mu nu rho sigma} with eps_1234 = +1, built by sympy (independent of conventions.LEVI_CIVITA).
 EPS = np.array(
     [[[[float(sp.LeviCivita(a, b, c, d)) for d in range(4)] for c in range(4)] for b in range(4)] for a in range(4)]
@@ -150,7 +146,7 @@ def test_potential_is_antihermitian_and_traceless(k):
     assert float(np.max(np.abs(np.trace(a, axis1=-2, axis2=-1)))) < 1e-13
 
 
-@pytest.mark.parametrize("k", [1, 2, pytest.param(3, marks=_LONG)])
+@pytest.mark.parametrize("k", [1, 2, pytest.param(3, marks=pytest.mark.long)])
 def test_closed_form_density_matches_osborn_and_autodiff(k):
     data = SU3[k]
     x = points_near(data, 6)
@@ -182,7 +178,7 @@ def test_total_charge_is_k(k):
     assert abs(res.value - k) < 1e-8, (res.value, res.error)
 
 
-@_LONG
+@pytest.mark.long
 def test_total_charge_is_three_for_genuine_su3_charge_three():
     # k = 3 with independent Haar orientations (measured |Q - 3| = 2.4e-9 in 34 s).  SU3[3] (seed 13)
     # has two lumps 0.25 apart at sizes 0.6-0.8, which the current quadrature resolves only to ~4e-5
@@ -195,7 +191,7 @@ def test_total_charge_is_three_for_genuine_su3_charge_three():
     assert abs(res.value - 3) < 1e-8, (res.value, res.error)
 
 
-@_LONG
+@pytest.mark.long
 def test_verify_passes_genuine_su3_charge_two():
     # the whole verdict: Q = 2 by integration, the closed forms against the curvature of the potential
     # (autodiff on 8192-point chunks, which stalled with batched jnp.linalg), Osborn's route

@@ -6,7 +6,6 @@ tests/test_unitary_adhm.py::test_genuine_su3_charge_two_is_not_an_embedding for 
 
 from __future__ import annotations
 
-import os
 import sys
 from pathlib import Path
 
@@ -21,8 +20,6 @@ from instantonkit import unitary_moduli as um
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 from benchmarks.su3_lattice_artefacts import genuine_charge_two, row  # noqa: E402
-
-_LONG = pytest.mark.skipif(not os.environ.get("INSTANTONKIT_LONG"), reason="set INSTANTONKIT_LONG=1 (minutes)")
 
 
 @pytest.fixture(scope="module")
@@ -84,7 +81,7 @@ def test_genuine_start_links_are_special_unitary():
     assert ob.wilson_action(u, boundary="open") > 0.0
 
 
-@_LONG
+@pytest.mark.long
 def test_wilson_action_and_clover_charge_approach_the_continuum_as_a_squared():
     # S_W / S_box = 1 - (1/5)(a/rho)^2 - (1/70)(a/rho)^4 per lump (García Pérez, González-Arroyo, Snippe,
     # van Baal, Nucl. Phys. B 413 (1994) 535; from memory) and Q_clover / Q_box = 1 + O(a^2)

@@ -10,7 +10,6 @@ stays at <= 256 points per compiled call (module constant of instantonkit.zero_m
 from __future__ import annotations
 
 import importlib
-import os
 
 import jax
 import jax.numpy as jnp
@@ -20,8 +19,6 @@ import pytest
 import instantonkit as ik
 from instantonkit import unitary_moduli as um
 from instantonkit.quadrature import rule_r4
-
-_LONG = pytest.mark.skipif(not os.environ.get("INSTANTONKIT_LONG"), reason="set INSTANTONKIT_LONG=1 (minutes)")
 
 zm = importlib.import_module("instantonkit.zero_modes")
 
@@ -84,7 +81,9 @@ def test_s_mu_are_sigma_mu_conjugated_by_sigma_2():
 # -- the Dirac equation --------------------------------------------------------------------------------
 
 
-@pytest.mark.parametrize("case", [pytest.param(c, marks=_LONG) if c == "su3_k3" else c for c in sorted(CASES)])
+@pytest.mark.parametrize(
+    "case", [pytest.param(c, marks=pytest.mark.long) if c == "su3_k3" else c for c in sorted(CASES)]
+)
 def test_modes_solve_the_dirac_equation(case):
     # sum_mu (D_mu psi_i) SIGMA_mu = 0 with D = d + data.potential + a 1 (a the flat U(1) part), by jax.jacfwd
     data = CASES[case]()
@@ -94,7 +93,7 @@ def test_modes_solve_the_dirac_equation(case):
     assert float(np.min(scale)) > 1e-6  # not trivially: the modes are not covariantly constant
 
 
-@_LONG
+@pytest.mark.long
 def test_u1_part_is_flat_and_not_zero():
     # tr F = 0 for self-dual U(N) ADHM fields on R^4 (common practice: no L^2 harmonic 2-forms on R^4), so
     # a = tr(U^dag dU) / N has d a = 0; computed here by autodiff of u1_part
@@ -114,7 +113,7 @@ def test_u1_part_is_flat_and_not_zero():
 # -- densities -----------------------------------------------------------------------------------------
 
 
-@pytest.mark.parametrize("case", ["su3_k2", "su4_k2", pytest.param("su3_k3", marks=_LONG)])
+@pytest.mark.parametrize("case", ["su3_k2", "su4_k2", pytest.param("su3_k3", marks=pytest.mark.long)])
 def test_gram_closed_form_equals_the_modes_and_minus_box_f(case):
     # G_ij = sum_{c, alpha} conj(psi_i) psi_j; the identity G_ij = -(1/4 pi^2) box f_ij (Corrigan, Goddard,
     # Osborn, Templeton, Nucl. Phys. B 159 (1979) 469, in the SU(2) form; from memory) by jax Hessians of f
