@@ -26,6 +26,7 @@ from . import _validate
 from . import fields as _fields
 from . import quadrature as _quad
 from .conventions import INSTANTON_ACTION, LEVI_CIVITA, PI
+from .flux import gram_coefficients
 from .integrals import ENGINE_CHUNK, FieldEvaluationError, field_description, layout_of
 
 __all__ = [
@@ -45,22 +46,6 @@ _EVAL_ERRORS = (ValueError, TypeError, RuntimeError, ArithmeticError, AttributeE
 
 
 # -- Osborn's density --------------------------------------------------------------------------------
-
-
-def _gram_coefficients(data):
-    """G(x) = G0 + sum_mu x_mu G_mu + |x|^2 1 for the ADHM Gram matrix: (G0 (k,k), Gmu (4,k,k)).
-
-    Asks the data's ``gram(x)`` hook (real symmetric for quaternionic data, Hermitian f^-1 for complex
-    SU(N) data; quadratic in x with d_mu d_nu G = 2 delta_mu nu 1 in both cases).
-    """
-
-    def gram(x):
-        return data.gram(jnp.asarray(x, dtype=jnp.float64))
-
-    g0 = gram(jnp.zeros(4))
-    e = jnp.eye(4)
-    gmu = jnp.stack([(gram(e[m]) - gram(-e[m])) / 2.0 for m in range(4)])
-    return g0, gmu
 
 
 def osborn_density(data, x):
@@ -83,7 +68,7 @@ def osborn_density(data, x):
     Formula s = -1/2 box box log det: Osborn, Nucl. Phys. B 159 (1979) 497 (from memory).
     Raises nothing itself; the data's own seams raise for points of the wrong shape.
     """
-    g0, gmu = _gram_coefficients(data)
+    g0, gmu = gram_coefficients(data)
     x = jnp.asarray(x, dtype=jnp.float64)
     k = g0.shape[0]
     g = g0 + jnp.einsum("m,mij->ij", x, gmu) + jnp.sum(x * x) * jnp.eye(k)

@@ -18,7 +18,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import instantonkit as ik
-from instantonkit import ansatz, checks, evidence, fields, integrals, transforms
+from instantonkit import ansatz, checks, fields, flux, integrals, transforms
 from instantonkit import quadrature as qd
 from instantonkit import quaternion as qt
 from instantonkit.conventions import point_to_quaternion
@@ -209,7 +209,7 @@ def test_osborn_density_matches_mpmath_box_box_log_det_for_k2():
     import mpmath
 
     data = ik.random_adhm(2, seed=4)
-    g0, gmu = (np.asarray(a) for a in evidence._gram_coefficients(data))
+    g0, gmu = (np.asarray(a) for a in flux.gram_coefficients(data))
     mpmath.mp.dps = 30
 
     def logdet(*y):
@@ -453,9 +453,10 @@ def test_failing_callable_fails_verification_with_its_message():
 
 
 def test_budget_exhaustion_is_reported(bpst_data):
-    res = checks.total_action(bpst_data, rtol=1e-15, atol=1e-15, max_points=60_000)
-    assert not res.converged
-    assert "budget" in res.message and "60,000" in res.message
+    for route in ("osborn", "volume"):
+        res = checks.total_action(bpst_data, rtol=1e-15, atol=1e-15, max_points=100_000, route=route)
+        assert not res.converged
+        assert "budget" in res.message and "100,000" in res.message
 
 
 def test_bad_tolerances_are_rejected(bpst_data):

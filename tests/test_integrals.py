@@ -2,25 +2,80 @@
 
 Q = k for charge-k ADHM data (Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185); the
 action per period of the Harrington-Shepard caloron is 8 pi^2 (Harrington, Shepard, Phys. Rev. D 17
-(1978) 2122).  Seeds are fixed; budgets are small so the file runs in about a minute on two cores.
+(1978) 2122).  ADHM data integrate by Osborn's flux by default (instantonkit.flux); the volume rule's
+tests ask for route='volume'.  Seeds are fixed; budgets are small so the file runs in about a minute on two cores.
 """
 
 from __future__ import annotations
 
 import math
 
+import numpy as np
 import pytest
+from scipy import integrate
 
 import instantonkit as ik
-from instantonkit import ansatz, integrals
+from instantonkit import ansatz, flux, integrals
 
 EIGHT_PI2 = 8 * math.pi**2
 
 
-@pytest.mark.parametrize("k, budget", [(1, 300_000), (2, 300_000), (3, 300_000), (4, 150_000)])
-def test_reported_error_bounds_the_true_charge_error_at_1e_10(k, budget):
+@pytest.mark.parametrize("k", [1, 2, 3, 4])
+def test_osborn_route_gives_q_equal_k_to_1e_10_with_an_honest_error(k):
+    # Q = k (ADHM 1978): the default route for ADHM data converges at 1e-10 and error >= |Q - k|
+    res = integrals.total_charge(ik.random_adhm(k, seed=k), rtol=1e-10, atol=1e-10, max_points=400_000)
+    assert res.converged and "Osborn flux" in res.rule, res
+    assert res.evaluations <= 400_000
+    assert abs(res.value - k) <= res.error <= 1e-10 * k
+
+
+def test_osborn_route_gives_q_equal_8_to_1e_8_with_an_honest_error():
+    # Q = 8 (ADHM 1978)
+    res = integrals.total_charge(ik.random_adhm(8, seed=8), rtol=1e-8, atol=1e-8, max_points=400_000)
+    assert res.converged, res
+    assert abs(res.value - 8) <= res.error <= 8e-8
+
+
+def test_osborn_route_gives_the_action_8_pi2_k():
+    # S = 8 pi^2 k for self-dual fields (Bogomolny bound saturated; Belavin et al. 1975, common practice)
+    res = integrals.total_action(ik.random_adhm(3, seed=5), rtol=1e-10, atol=1e-10)
+    assert res.converged
+    assert abs(res.value - 3 * EIGHT_PI2) <= res.error <= 1e-10 * 3 * EIGHT_PI2
+
+
+def test_osborn_route_gives_minus_k_for_anti_instantons():
+    # Q = -k for the conjugate (anti-self-dual) data (ADHM 1978; conventions page)
+    res = integrals.total_charge(ik.anti(ik.random_adhm(2, seed=7)))
+    assert res.converged and "Osborn flux" in res.rule
+    assert abs(res.value + 2) <= res.error <= 2e-10
+
+
+def test_osborn_ball_of_one_instanton_matches_scipy_quad_of_the_bpst_density():
+    # int_{|x| < R} 48 rho^4 / (x^2 + rho^2)^4 d^4x (Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59
+    # (1975) 85) by scipy's quad over r with the S^3 area 2 pi^2 r^3, against the flux through |x| = R
+    rho, radius = 0.8, 1.3
+    ref, _ = integrate.quad(lambda r: 2 * math.pi**2 * r**3 * 48 * rho**4 / (r * r + rho * rho) ** 4, 0.0, radius)
+    val, _ = flux.ball_action(ik.bpst(size=rho), np.zeros(4), radius, 12)
+    assert abs(val - ref) <= 1e-12 * ref
+
+
+def test_route_volume_uses_the_adaptive_volume_rule():
+    res = integrals.total_charge(ik.random_adhm(1, seed=1), rtol=1e-8, atol=1e-8, route="volume")
+    assert res.converged and "Osborn" not in res.rule
+    assert abs(res.value - 1) <= res.error
+
+
+def test_route_osborn_is_refused_for_a_field_without_a_gram_matrix():
+    with pytest.raises(ValueError, match="route='osborn' needs ADHM data"):
+        integrals.total_action(ansatz.caloron(0.7, 2.0), route="osborn")
+    with pytest.raises(ValueError, match="route must be"):
+        integrals.total_action(ik.bpst(), route="surface")
+
+
+@pytest.mark.parametrize("k, budget", [(1, 300_000), (3, 300_000), (4, 150_000)])
+def test_volume_rule_error_bounds_the_true_charge_error_at_1e_10(k, budget):
     # Q = k (ADHM 1978): whether converged or stopped by the budget, error >= |Q - k|
-    res = integrals.total_charge(ik.random_adhm(k, seed=k), rtol=1e-10, atol=1e-10, max_points=budget)
+    res = integrals.total_charge(ik.random_adhm(k, seed=k), rtol=1e-10, atol=1e-10, max_points=budget, route="volume")
     assert res.evaluations <= budget
     assert res.error >= abs(res.value - k), res
     if res.converged:
@@ -30,10 +85,10 @@ def test_reported_error_bounds_the_true_charge_error_at_1e_10(k, budget):
 
 
 @pytest.mark.slow
-def test_reported_error_bounds_the_true_charge_error_for_k8_at_1e_8():
+def test_volume_rule_error_bounds_the_true_charge_error_for_k8_at_1e_8():
     # Q = 8 (ADHM 1978); a small budget: the k = 8 density is the slowest to evaluate
     budget = 150_000
-    res = integrals.total_charge(ik.random_adhm(8, seed=8), rtol=1e-8, atol=1e-8, max_points=budget)
+    res = integrals.total_charge(ik.random_adhm(8, seed=8), rtol=1e-8, atol=1e-8, max_points=budget, route="volume")
     assert res.evaluations <= budget
     assert res.error >= abs(res.value - 8), res
     assert res.converged or ("budget" in res.message and f"{budget:,}" in res.message)
@@ -41,7 +96,7 @@ def test_reported_error_bounds_the_true_charge_error_for_k8_at_1e_8():
 
 def test_two_separated_lumps_converge_to_1e_8_within_half_a_million_points():
     # Q = 2 (ADHM 1978); the oriented shell rules of the quadrature: the plain ones needed 1.2M points here
-    res = integrals.total_charge(ik.random_adhm(2, seed=2), rtol=1e-8, atol=1e-8, max_points=500_000)
+    res = integrals.total_charge(ik.random_adhm(2, seed=2), rtol=1e-8, atol=1e-8, max_points=500_000, route="volume")
     assert res.converged, res
     assert abs(res.value - 2) <= res.error <= 2e-8
 
@@ -54,5 +109,6 @@ def test_caloron_action_error_bounds_the_true_error():
 
 
 def test_a_budget_below_the_first_round_is_refused_naming_max_points():
-    with pytest.raises(ValueError, match="max_points must be at least"):
-        integrals.total_charge(ik.random_adhm(3, seed=3), max_points=1000)
+    for route in ("osborn", "volume"):
+        with pytest.raises(ValueError, match="max_points must be at least"):
+            integrals.total_charge(ik.random_adhm(3, seed=3), max_points=1000, route=route)
