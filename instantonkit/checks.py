@@ -47,14 +47,17 @@ from .integrals import (  # re-exported: checks is the one place for "is it what
     field_description,
     integrate,
     integrate_density,
+    integrate_flux,
     layout_of,
     total_action,
     total_charge,
+    uses_flux,
 )
 from .report import (
     FAILED,
     HOW_CONSTRUCTION,
     HOW_CURVATURE,
+    HOW_FLUX,
     HOW_INPUT,
     HOW_INTEGRAL,
     HOW_OTHER_RULE,
@@ -199,10 +202,10 @@ def verify(
         expected_charge = int(_validate.finite_float("expected_charge", expected_charge))
     case = _Case()
     kw = dict(rtol=rtol, atol=atol, max_points=budget, progress=progress)
-    charge = action = None
+    charge = action = check = None
     if _periodic_ok(field, layout, case):
         case.peak = _locate(field, layout, case)
-        charge, action, rule = _integrals(field, layout, charge_method, kw, sample_points, case)
+        charge, action, rule, check = _integrals(field, layout, charge_method, kw, sample_points, case)
         if charge is not None:
             _charge_findings(case, charge, expected_charge, declared, charge_tol, budget)
         if action is not None:
@@ -210,12 +213,14 @@ def verify(
         if charge is not None and action is not None and rule is not None:
             _curvature_findings(case, field, charge, action, rule, charge_method, duality_tol)
         _inputs(field, case, constraint_tol)
+        if check is not None and charge is not None:
+            _volume_check(case, check, charge, budget, charge_tol)
         if routes and charge is not None:
-            _routes(case, field, charge, layout, kw, charge_tol, winding)
-    return _report(field, case, charge, action, layout, expected_charge, budget)
+            _routes(case, field, charge, layout, kw, charge_tol, winding, check is not None)
+    return _report(field, case, charge, action, layout, expected_charge, budget, check)
 
 
-def _report(field, case: _Case, charge, action, layout: Layout, expected, budget: int) -> Verification:
+def _report(field, case: _Case, charge, action, layout: Layout, expected, budget: int, check=None) -> Verification:
     units = None if action is None else action.value / INSTANTON_ACTION
     units_err = None if action is None else action.error / INSTANTON_ACTION
     s = case.sample
@@ -251,6 +256,7 @@ def _report(field, case: _Case, charge, action, layout: Layout, expected, budget
         peak=peak,
         budget=budget,
         layout=f"{layout.centres.shape[0]} centre(s) from {layout.source}",
+        check=check,
     )
 
 
@@ -302,13 +308,27 @@ def _locate(field, layout: Layout, case: _Case) -> Peak | None:
 
 
 def _integrals(field, layout: Layout, charge_method: str, kw: dict, sample_points: int, case: _Case):
-    """(charge, action, sampled final rule of the action) as far as they can be computed."""
-    charge = action = rule = None
+    """(charge, action, sampled final rule of the action's volume integral, volume check or None).
+
+    ADHM data (``gram`` hook, R^4, charge_method 'auto'): Q and S by Osborn's flux route (precise), and
+    the volume integral of s as their check (its final rule is the one sampled).  Other fields: Q and S
+    by the volume rule, no separate check.
+    """
+    charge = action = rule = check = None
+    s_atol = kw["atol"] * INSTANTON_ACTION  # atol is for S / 8 pi^2
     try:
-        charge = integrate(field, (DensityRequest("charge_density", charge_method),), layout, **kw).results[0]
-        req = DensityRequest("action_density", atol=kw["atol"] * INSTANTON_ACTION)  # atol is for S / 8 pi^2
-        outcome = integrate(field, (req,), layout, rule_points=sample_points, **kw)
-        action, rule = outcome.results[0], outcome.rule
+        if charge_method == "auto" and uses_flux(field, layout, "auto", "auto"):
+            charge = integrate_flux(field, DensityRequest("charge_density"), layout, **kw)
+            action = integrate_flux(field, DensityRequest("action_density", atol=s_atol), layout, **kw)
+            # The check confirms Q to charge_tol (= 4 atol): half of it for its own error bar is enough.
+            req = DensityRequest("action_density", name="action (volume check)", atol=2.0 * s_atol)
+            outcome = integrate(field, (req,), layout, rule_points=sample_points, **kw)
+            check, rule = outcome.results[0], outcome.rule
+        else:
+            charge = integrate(field, (DensityRequest("charge_density", charge_method),), layout, **kw).results[0]
+            req = DensityRequest("action_density", atol=s_atol)
+            outcome = integrate(field, (req,), layout, rule_points=sample_points, **kw)
+            action, rule = outcome.results[0], outcome.rule
     except (DivergentIntegralError, FieldEvaluationError) as err:
         case.failures.append(re.sub(r"\|x\|\^--", "|x|^", str(err)))
     except ValueError as err:  # a budget below the first round of the rule: nothing converged, say what is needed
@@ -319,7 +339,31 @@ def _integrals(field, layout: Layout, charge_method: str, kw: dict, sample_point
         case.advise(
             f"raise the budget (max_points >= {need.group(1) if need else 'the first round'}; command line --budget)"
         )
-    return charge, action, rule
+    return charge, action, rule, check
+
+
+def _how(res: IntegralResult) -> str:
+    return HOW_FLUX if res.route == "osborn" else HOW_INTEGRAL
+
+
+def _volume_check(case: _Case, check: IntegralResult, charge: IntegralResult, budget: int, tol: float) -> None:
+    """The volume integral of s against the flux figure of Q: a disagreement beyond the error bars fails."""
+    name = "volume integral of s / 8 pi^2 (checks the flux figures)"
+    val, err = case.sign * check.value / INSTANTON_ACTION, check.error / INSTANTON_ACTION
+    status = _judge(abs(val - charge.value), err + charge.error, tol)
+    if not check.converged:
+        status = "undecided"
+        _not_converged(case, "volume check", check, budget)
+    elif status == "DISAGREES":
+        case.failures.append(
+            f"the volume integral of s gives S/8pi^2 = {val:.10g} +- {err:.1e}, not the flux figure Q = "
+            f"{charge.value:.10g} +- {charge.error:.1e}: the closed-form density or the quadrature is wrong"
+        )
+    elif status == "undecided":
+        case.doubts.append(f"the volume check {val:.10g} +- {err:.1e} and Q cannot be decided to {tol:.0e}")
+    note = "s = 8 pi^2 |q|, sign from Q" + ("" if check.converged else "; NOT converged")
+    agrees = {"agrees": True, "DISAGREES": False}.get(status)
+    _route_row(case, Route(name, val, err, True, agrees, note, HOW_INTEGRAL), status)
 
 
 def _not_converged(case: _Case, what: str, res: IntegralResult, budget: int) -> None:
@@ -335,8 +379,9 @@ def _charge_findings(case: _Case, charge: IntegralResult, expected, declared, to
     case.nearest = n = int(round(q))
     case.sign = -1 if n < 0 else 1
     status = _judge(abs(q - n), e, tol)
-    case.rows.append(Row("topological charge Q", q, e, HOW_INTEGRAL, "", "" if charge.converged else "NOT converged"))
-    case.rows.append(Row(signed_offset("Q", n), abs(q - n), e, HOW_INTEGRAL, status, f"tolerance {tol:.0e}"))
+    how = _how(charge)
+    case.rows.append(Row("topological charge Q", q, e, how, "", "" if charge.converged else "NOT converged"))
+    case.rows.append(Row(signed_offset("Q", n), abs(q - n), e, how, status, f"tolerance {tol:.0e}"))
     if not charge.converged:
         _not_converged(case, "charge", charge, budget)
     elif status == "DISAGREES":
@@ -364,7 +409,7 @@ def _charge_findings(case: _Case, charge: IntegralResult, expected, declared, to
 def _action_findings(case: _Case, action: IntegralResult, charge, budget: int) -> None:
     units, err = action.value / INSTANTON_ACTION, action.error / INSTANTON_ACTION
     case.rows.append(
-        Row("action S / 8 pi^2", units, err, HOW_INTEGRAL, "", "" if action.converged else "NOT converged")
+        Row("action S / 8 pi^2", units, err, _how(action), "", "" if action.converged else "NOT converged")
     )
     if not action.converged:
         _not_converged(case, "action", action, budget)
@@ -532,9 +577,10 @@ def _osborn_route(case: _Case, field, charge, layout: Layout, kw: dict, tol: flo
     _route_row(case, Route(name, val, err, True, agrees, note, HOW_OTHER_RULE), status)
 
 
-def _routes(case: _Case, field, charge, layout: Layout, kw, tol, winding) -> None:
-    """Osborn's density for fields with ``log_det``; the sphere flux for smooth and bare potentials."""
-    if _fields.hook(field, "gram") is not None:
+def _routes(case: _Case, field, charge, layout: Layout, kw, tol, winding, checked: bool = False) -> None:
+    """Osborn's density for fields with ``gram`` (unless the volume check ran); the sphere flux for smooth
+    and bare potentials."""
+    if _fields.hook(field, "gram") is not None and not checked:
         _osborn_route(case, field, charge, layout, kw, tol)
     declared = _fields.hook(field, "charge")
     is_adhm = _fields.hook(field, "constraint_residual") is not None

@@ -102,7 +102,8 @@ class IntegralResult:
 
     quantity: what was integrated; value, error: the estimate and its estimated absolute error;
     evaluations: density evaluations used (all rounds); rule: the rule of the final round;
-    converged: whether ``error <= max(atol, rtol |value|)``; message: why not (budget), else "".
+    converged: whether ``error <= max(atol, rtol |value|)``; message: why not (budget), else "";
+    route: 'volume' (the adaptive volume rule) or 'osborn' (Osborn's flux route, :mod:`instantonkit.flux`).
     """
 
     quantity: str
@@ -112,6 +113,7 @@ class IntegralResult:
     rule: str
     converged: bool
     message: str = ""
+    route: str = "volume"
 
     def __float__(self) -> float:
         return float(self.value)

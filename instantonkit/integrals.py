@@ -64,6 +64,8 @@ __all__ = [
     "total_action",
     "total_charge",
     "integrate_density",
+    "integrate_flux",
+    "uses_flux",
     "DEFAULT_MAX_POINTS",
     "ENGINE_CHUNK",
     "MAX_RADIAL_LEVEL",
@@ -283,8 +285,52 @@ def integrate(
 # -- front doors -----------------------------------------------------------------------------------------
 
 
-def _uses_flux(field, layout: Layout, method: str, route: str) -> bool:
-    """Whether an integral of ``field`` takes Osborn's flux route (see :func:`integrate_density`)."""
+def integrate_flux(
+    field,
+    request: DensityRequest,
+    layout: Layout,
+    *,
+    rtol: float = 1e-10,
+    atol: float = 1e-10,
+    max_points: int = DEFAULT_MAX_POINTS,
+    progress=None,
+) -> IntegralResult:
+    """The requested density of ADHM data over R^4 by Osborn's flux route (:mod:`instantonkit.flux`).
+
+    Args:
+      field: ADHM data (``gram`` and ``charge`` hooks); request: which density, by which method
+        (used outside the sphere), with its own atol; layout: R^4, from :func:`layout_of`.
+      rtol, atol, max_points, progress: as in :func:`integrate_density`.
+    Returns:
+      IntegralResult with route 'osborn' (its ``rule`` names the sphere and both parts' levels).
+    Raises:
+      ValueError for a field without the hooks, a periodic layout, bad tolerances or a budget below
+      three levels of each part; FieldEvaluationError when the density cannot be evaluated.
+    """
+    field = _fields.as_field(field)
+    uses_flux(field, layout, request.method, "osborn")
+    req_atol = atol if request.atol is None else request.atol
+    _check_tolerances(rtol, req_atol, max_points)
+    density = _evaluator(field, request)
+    parts = _flux.osborn_integral(
+        density, field, layout.centres, layout.extent, request.quantity, rtol=rtol, atol=req_atol, max_points=max_points
+    )
+    res = IntegralResult(str(request.name), *parts, route="osborn")
+    sink = _progress_sink(progress)
+    if sink is not None:
+        sink(
+            dict(
+                quantity=res.quantity, round=1, evaluations=res.evaluations, value=res.value, error=res.error, done=True
+            )
+        )
+    return res
+
+
+def uses_flux(field, layout: Layout, method: str, route: str) -> bool:
+    """Whether an integral of ``field`` takes Osborn's flux route (see :func:`integrate_density`).
+
+    Raises ValueError for an unknown route, or route 'osborn' for a field without ``gram`` and
+    ``charge`` hooks or on a periodic layout."""
     _validate.choice("route", route, ("auto", "osborn", "volume"))
     if route == "volume":
         return False
@@ -339,21 +385,16 @@ def integrate_density(
     if quantity not in _QUANTITIES:
         raise ValueError(f"quantity must be 'action_density' or 'charge_density'; found {quantity!r}")
     layout = layout_of(field, center, scale, period)
-    if _uses_flux(field, layout, method, route):
-        _check_tolerances(rtol, atol, max_points)
-        field = _fields.as_field(field)
-        density = _evaluator(field, DensityRequest(quantity, method))
-        name = _QUANTITIES[quantity]
-        res = IntegralResult(
-            name,
-            *_flux.osborn_integral(
-                density, field, layout.centres, layout.extent, quantity, rtol=rtol, atol=atol, max_points=max_points
-            ),
+    if uses_flux(field, layout, method, route):
+        return integrate_flux(
+            field,
+            DensityRequest(quantity, method),
+            layout,
+            rtol=rtol,
+            atol=atol,
+            max_points=max_points,
+            progress=progress,
         )
-        sink = _progress_sink(progress)
-        if sink is not None:
-            sink(dict(quantity=name, round=1, evaluations=res.evaluations, value=res.value, error=res.error, done=True))
-        return res
     outcome = integrate(
         field,
         (DensityRequest(quantity, method),),

@@ -33,6 +33,7 @@ HOW_OTHER_RULE = "integral, other rule"
 HOW_SURFACE = "flux through S^3"
 HOW_INPUT = "input"
 HOW_CONSTRUCTION = "by construction"
+HOW_FLUX = "Osborn flux + exterior"
 
 
 @dataclasses.dataclass(frozen=True)
@@ -76,7 +77,9 @@ class Verification:
     ``verdict`` is PASSED, FAILED or INCONCLUSIVE; ``passed`` is ``verdict == 'PASSED'``; ``reasons``
     say why it is not PASSED, ``advice`` what to do.  ``rows`` is the report table (each row with how
     it was obtained); ``str(report)`` prints it, :meth:`to_dict` gives a plain dict for JSON.
-    The margin and residual fields hold the decisive values (see ``margin_how``).
+    The margin and residual fields hold the decisive values (see ``margin_how``).  For ADHM data
+    ``charge`` and ``action`` come from Osborn's flux route and ``check`` is the volume integral of s
+    that checks them (None for other fields).
     """
 
     field: str
@@ -108,6 +111,7 @@ class Verification:
     peak: tuple | None = None
     budget: int = 0
     layout: str = ""
+    check: IntegralResult | None = None
 
     def to_dict(self) -> dict:
         """Plain dict (numbers, strings, bools, lists and nested dicts) for scripts and JSON."""
@@ -164,6 +168,12 @@ _LEGEND = (
         "so agreement bounds the quadrature error",
     ),
     ("flux through S^3", "Chern-Simons current through spheres at two large radii"),
+    (
+        "Osborn flux + exterior",
+        "the ball about the lumps by the flux of Osborn's grad box log det G through its sphere, the rest by "
+        "the volume integral of the density: precise, and it takes Osborn's formula on trust inside the ball "
+        "(the volume integral of s checks it)",
+    ),
     ("input", "given by the construction; shown, not checked"),
     ("by construction", "holds by the field's construction; shown, not a check"),
 )
@@ -216,8 +226,12 @@ def format_report(v) -> str:
     lines.append(f"  layout: {v.layout}; budget {v.budget:,} points per integral")
     if v.charge is not None:
         lines.append(f"  rule: {rule_in_words(v.charge.rule)}")
+        if v.check is not None:
+            lines.append(f"  check rule: {rule_in_words(v.check.rule)}")
         lines.append(
-            f"  points: charge {v.charge.evaluations:,}" + (f", action {v.action.evaluations:,}" if v.action else "")
+            f"  points: charge {v.charge.evaluations:,}"
+            + (f", action {v.action.evaluations:,}" if v.action else "")
+            + (f", volume check {v.check.evaluations:,}" if v.check is not None else "")
         )
     lines.append(f"  verdict: {v.verdict}")
     for reason in v.reasons:

@@ -6,6 +6,7 @@ source named beside the check.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import jax
@@ -511,12 +512,68 @@ def test_verify_labels_what_holds_by_construction(report_k2):
     assert "by construction" in text and "how obtained" in text and "S^3 parameter" not in text
 
 
-def test_verify_integrates_osborn_on_another_rule(report_k2):
-    # the integral of Osborn's density gives k (Osborn, Nucl. Phys. B 159 (1979) 497, from memory), on
-    # other nodes than the charge integral, so the two values differ in their last digits
-    (route,) = [r for r in report_k2.routes if r.name.startswith("Osborn")]
-    assert route.agrees and route.how == checks.HOW_OTHER_RULE and abs(route.value - 2.0) <= 1e-6
+def test_verify_takes_q_from_osborn_flux_and_checks_it_by_the_volume_integral(report_k2):
+    # Q = 2 (ADHM 1978): the precise figure from Osborn's flux (Osborn 1979, from memory), the check is the
+    # volume integral of the closed-form s on the adaptive rule: other nodes, other formula inside the ball
+    assert report_k2.charge.route == "osborn" and report_k2.check.route == "volume"
+    rows = {r.label: r for r in report_k2.rows}
+    assert rows["topological charge Q"].how == checks.HOW_FLUX
+    (route,) = [r for r in report_k2.routes if r.name.startswith("volume integral")]
+    assert route.agrees and route.how == checks.HOW_INTEGRAL and abs(route.value - 2.0) <= 1e-6
     assert route.value != report_k2.charge.value
+    assert "check rule:" in str(report_k2)
+
+
+@jax.tree_util.register_pytree_node_class
+@dataclasses.dataclass(frozen=True)
+class _WrongDensities:
+    """ADHM data whose closed-form densities are 0.1% too large (a planted mistake for verify to find)."""
+
+    data: object
+
+    def potential(self, x):
+        return self.data.potential(x)
+
+    def action_density(self, x):
+        return 1.001 * self.data.action_density(x)
+
+    def charge_density(self, x):
+        return 1.001 * self.data.charge_density(x)
+
+    def gram(self, x):
+        return self.data.gram(x)
+
+    @property
+    def charge(self):
+        return self.data.charge
+
+    def layout(self):
+        return self.data.layout()
+
+    def tree_flatten(self):
+        return (self.data,), None
+
+    @classmethod
+    def tree_unflatten(cls, aux, children):
+        return cls(children[0])
+
+
+def test_verify_volume_check_catches_a_wrong_closed_form_density():
+    # Q = 1 (ADHM 1978): the flux figure trusts Osborn inside the ball, the volume integral of the planted
+    # density gives 1.001, so the check disagrees and the verdict fails
+    rep = checks.verify(_WrongDensities(ik.bpst(size=0.9)))
+    (route,) = [r for r in rep.routes if r.name.startswith("volume integral")]
+    assert route.agrees is False and abs(route.value - 1.001) <= 1e-5
+    assert rep.verdict == "FAILED" and any("volume integral of s" in r for r in rep.reasons)
+
+
+def test_verify_with_closed_charge_method_keeps_the_osborn_density_route():
+    # with charge_method='closed' Q is the volume integral of eps tr F F; Osborn's density (Osborn 1979,
+    # from memory) is integrated on another rule as the route
+    rep = checks.verify(ik.bpst(size=1.1), charge_method="closed")
+    assert rep.charge.route == "volume" and rep.check is None
+    (route,) = [r for r in rep.routes if r.name.startswith("Osborn")]
+    assert route.agrees and route.how == checks.HOW_OTHER_RULE and abs(route.value - 1.0) <= 1e-6
 
 
 def test_verify_report_converts_to_a_plain_dict(report_k2):
