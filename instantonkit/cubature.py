@@ -74,7 +74,7 @@ _ANGULAR_SHARE = 0.25
 _ANGULAR_OVER_RADIAL = 0.1
 
 #: Oriented shell rules and radial panels (see _shell_orientation and _piece_radial_nodes; _ASPECT = 1 and
-#: _PANELS = False give the earlier rules, the benchmark's reference): aspect, dominance, separation in
+#: _PANELS = False give the earlier rules, the reference of earlier measurements): aspect, dominance, separation in
 #: rho_j; panel cuts at d_ij -+ _PANEL_HALF_WIDTH rho_j, panels >= _PANEL_MIN_LENGTH in u, >= _PANEL_MIN nodes.
 _ASPECT, _DOMINANCE, _PANEL_SEPARATION = 4, 10.0, 6.0
 _PANELS, _PANEL_HALF_WIDTH, _PANEL_MIN_LENGTH, _PANEL_MIN = True, 2.0, 0.02, 6

@@ -12,6 +12,8 @@ import math
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from scipy import integrate
 
 import instantonkit as ik
@@ -57,6 +59,21 @@ def test_osborn_ball_of_one_instanton_matches_scipy_quad_of_the_bpst_density():
     ref, _ = integrate.quad(lambda r: 2 * math.pi**2 * r**3 * 48 * rho**4 / (r * r + rho * rho) ** 4, 0.0, radius)
     val, _ = flux.ball_action(ik.bpst(size=rho), np.zeros(4), radius, 12)
     assert abs(val - ref) <= 1e-12 * ref
+
+
+@settings(max_examples=15)
+@given(
+    rho=st.floats(0.2, 3.0),
+    ratio=st.floats(0.3, 6.0),
+    centre=st.lists(st.floats(-5.0, 5.0), min_size=4, max_size=4),
+)
+def test_osborn_ball_of_one_instanton_matches_the_integrated_bpst_density(rho, ratio, centre):
+    # int_{|x - a| < R} 48 rho^4 / (|x - a|^2 + rho^2)^4 d^4x = 8 pi^2 (1 - 3 t^2 + 2 t^3), t = rho^2 / (R^2 + rho^2)
+    # (the BPST density of Belavin et al. 1975 integrated by u = r^2, derived here), any centre, size, radius
+    radius = ratio * rho
+    t = rho**2 / (radius**2 + rho**2)
+    val, _ = flux.ball_action(ik.bpst(center=centre, size=rho), np.asarray(centre), radius, 10)
+    assert abs(val - EIGHT_PI2 * (1 - 3 * t**2 + 2 * t**3)) <= 1e-12 * EIGHT_PI2
 
 
 def test_route_volume_uses_the_adaptive_volume_rule():

@@ -172,22 +172,31 @@ def test_self_dual_with_q_equal_s_over_8pi2(k):
     assert rel_err(ik.charge_density(data, x), q) < 1e-10
 
 
-@pytest.mark.parametrize("k", [1, 2])
-def test_total_charge_is_k(k):
+@pytest.mark.parametrize("k", [1, 2, 3])
+def test_total_charge_is_k_to_1e_10_by_osborn_flux(k):
+    # Q = k for complex ADHM data (Christ, Weinberg and Stanton 1978); Osborn's flux route, with the
+    # reported error bounding the true one; SU3[3] has two lumps 0.25 apart (the volume rule's hard case)
     res = ik.total_charge(SU3[k], rtol=1e-10, atol=1e-10)
+    assert res.route == "osborn" and res.converged
+    assert abs(res.value - k) <= res.error <= 1e-10 * k, (res.value, res.error)
+
+
+@pytest.mark.parametrize("k", [1, 2])
+def test_total_charge_is_k_by_the_volume_rule(k):
+    res = ik.total_charge(SU3[k], rtol=1e-10, atol=1e-10, route="volume")
     assert abs(res.value - k) < 1e-8, (res.value, res.error)
 
 
 @pytest.mark.long
 def test_total_charge_is_three_for_genuine_su3_charge_three():
-    # k = 3 with independent Haar orientations (measured |Q - 3| = 2.4e-9 in 34 s).  SU3[3] (seed 13)
-    # has two lumps 0.25 apart at sizes 0.6-0.8, which the current quadrature resolves only to ~4e-5
-    # within 2e7 points; kept out until the quadrature rewrite.
+    # k = 3 with independent Haar orientations by the volume rule (measured |Q - 3| = 2.4e-9 in 34 s).
+    # SU3[3] (seed 13) has two lumps 0.25 apart at sizes 0.6-0.8, which the volume rule resolves only to
+    # ~4e-5 within 2e7 points (Osborn's flux route: 1e-15, test above).
     rng = np.random.default_rng(8)
     centres = np.array([[0.0, 0.0, 0.0, 0.0], [3.0, 1.0, 0.0, 0.5], [-1.0, 3.0, 2.0, 0.0]])
     g = np.stack([haar_su(3, rng) for _ in range(3)])
     data = um.unitary_multi_instanton(centres, np.array([0.8, 1.0, 0.7]), g, rank=3)
-    res = ik.total_charge(data, rtol=1e-10, atol=1e-10)
+    res = ik.total_charge(data, rtol=1e-10, atol=1e-10, route="volume")
     assert abs(res.value - 3) < 1e-8, (res.value, res.error)
 
 
