@@ -135,7 +135,7 @@ class LinkReport:
     """What :func:`lattice_links` did and how good the result is.
 
     method: 'closed' or 'magnus'; max_steps: largest number of Magnus steps on one link (0 for the
-    closed form); refinement_diff: largest accepted difference between two refinements;
+    closed form); refinement_diff: largest accepted error estimate of the Magnus refinements;
     unitarity_before / unitarity_after: :func:`unitarity_deviation` before and after the final
     projection; boundary_link_mismatch / boundary_action_error: see :func:`boundary_mismatch`
     (None for open boundaries); seconds: wall time; boundary_action_fraction: boundary_action_error
