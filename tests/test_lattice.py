@@ -583,8 +583,8 @@ def test_adhm_potential_equals_the_derivative_of_the_frame(make):
 
 @pytest.mark.parametrize("rtol", [1e-6, 1e-9, 1e-12])
 def test_magnus_links_meet_their_rtol_against_a_much_finer_reference(rtol):
-    # the refined transporters (step halving until two refinements differ by <= rtol) against 384 and
-    # 768 fixed Gauss-Legendre Magnus steps, which agree with each other to rounding (the reference's
+    # the refined transporters (step halving until the extrapolated error estimate is <= rtol) against 384
+    # and 768 fixed Gauss-Legendre Magnus steps, which agree with each other to rounding (the reference's
     # own check); links near the singular centres, where most steps are needed, included
     data = ik.multi_instanton([[-1.0, 0.0, 0.0, 0.0], [1.0, 0.5, 0.0, 0.0]], [1.0, 0.8])
     rng = np.random.default_rng(11)
@@ -597,6 +597,16 @@ def test_magnus_links_meet_their_rtol_against_a_much_finer_reference(rtol):
     assert np.max(np.abs(ref - transport._magnus_at(data, starts, steps, 384))) < 1e-14
     assert rep["max_steps"] >= 4  # the near links were refined
     assert np.max(np.abs(w - ref)) <= rtol
+
+
+def test_magnus_error_estimate_extrapolates_only_in_the_sixth_order_band():
+    # a sixth-order method's differences fall by 2^6 per halving (common practice): a factor of 60 is
+    # extrapolated (error ~ diff / 59, times 2), a factor of 6500 (the coarser level not yet in the
+    # regime) or of 5 is not, and one difference alone is taken as it is
+    diff = np.array([1e-8, 1e-8, 1e-8, 1e-8])
+    prev = np.array([6e-7, 6.5e-5, 5e-8, np.nan])
+    est = transport._error_estimate(diff, prev)
+    assert est[0] == pytest.approx(2e-8 / 59) and est[1:].tolist() == [1e-8, 1e-8, 1e-8]
 
 
 def test_bpst_field_links_ask_for_the_transition_only_near_its_centre():
