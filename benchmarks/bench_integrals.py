@@ -1,6 +1,7 @@
 """The integrals at their default tolerance: total_charge of random ADHM data, k = 1..4 at 1e-10, k = 8 at 1e-8.
 
-Rows per charge k: time (the first call for this k in the process, compilation included), points,
+Rows per charge k: time (the first call for this k in the process, compilation included; the ratio to
+the volume rule and the overhead use a second, compiled call), points,
 |Q - k|, the reported error and its ratio to the true error (must be >= 1), and the integrator's
 overhead: its time over the time of evaluating the same number of points of the density alone, measured
 in the same run (so the figure does not depend on the machine's load the way seconds do).  The default
@@ -14,9 +15,14 @@ Phys. Lett. A 65 (1978) 185).
 from __future__ import annotations
 
 import argparse
+import os
+import sys
 import time
 
 import numpy as np
+
+if __package__ in (None, ""):  # run as a script: make the repository importable for benchmarks.run
+    sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
 import instantonkit as ik
 from instantonkit import fields, integrals
@@ -58,6 +64,7 @@ def run(quick: bool = False, ks=None, reference: bool = True) -> list[dict]:
         budget = QUICK_POINTS if quick else (K8_POINTS if k == 8 else integrals.DEFAULT_MAX_POINTS)
         rate = _rate(data)
         res, dt = _charge(data, tol, budget)
+        _, dt_warm = _charge(data, tol, budget)  # compiled: the same work again
         ref = None
         if reference:
             ref, dt_ref = _charge(data, tol, budget, route="volume")
@@ -74,7 +81,7 @@ def run(quick: bool = False, ks=None, reference: bool = True) -> list[dict]:
             )
             ratio_pts = res.evaluations / max(ref.evaluations, 1)
             ratio_err = err / max(err_ref, 1e-300)
-            ratio_t = dt / dt_ref
+            ratio_t = dt_warm / dt_ref
         rows += [
             dict(
                 figure=f"{tag}: time",
@@ -84,11 +91,12 @@ def run(quick: bool = False, ks=None, reference: bool = True) -> list[dict]:
                 reference=f"ratio to the goal {goal:g} s; {state}; route {res.route}",
             ),
             dict(
-                figure=f"{tag}: time / volume rule's time",
+                figure=f"{tag}: time compiled / volume rule's time",
                 value=ratio_t,
                 unit="x",
                 ratio=ratio_t,
-                reference="same budget, same run" + ("" if ref is None else f" ({dt_ref:.1f} s)"),
+                reference=f"{dt_warm:.2f} s on a second call; volume rule (its density compiled by then) on the same budget"
+                + ("" if ref is None else f" {dt_ref:.1f} s"),
             ),
             dict(
                 figure=f"{tag}: points",
@@ -113,10 +121,10 @@ def run(quick: bool = False, ks=None, reference: bool = True) -> list[dict]:
             ),
             dict(
                 figure=f"{tag}: integrator overhead",
-                value=dt * rate / max(res.evaluations, 1),
+                value=dt_warm * rate / max(res.evaluations, 1),
                 unit="x",
                 ratio=None,
-                reference=f"time / (points / density rate {rate:.3g} points/s, same run)",
+                reference=f"second call's time / (points / density rate {rate:.3g} points/s, same run)",
             ),
         ]
     return rows
