@@ -9,9 +9,9 @@ from memory; docs/conventions.md).  Gauss's theorem turns the integral over a ba
 a three-dimensional integral of a function that is smooth on the sphere (the lumps sit inside it), and
 the rest, ``int_{|x - c| > R} density d^4x``, is a volume integral of the field's own density over the
 exterior, ``r = R / t`` with t in (0, 1], where the field has no lumps and the integrand is smooth
-(``~ t^3`` at infinity).  Both converge geometrically under a product rule on S^3 (a few times 10^5
-points for 1e-13 at k = 8, measured in ``benchmarks/bench_integrals.py``), where a volume rule about
-several centres needs millions for 1e-8.  For the charge, ``q = sign s / 8 pi^2`` with the sign of the
+(``~ t^3`` at infinity).  With the sphere far outside the lumps (RADIUS_FACTOR) both converge
+geometrically under a product rule on S^3 (1e-13 with about 10^4 points up to k = 8, measured in
+``benchmarks/bench_integrals.py``), where a volume rule about several centres needs millions for 1e-8.  For the charge, ``q = sign s / 8 pi^2`` with the sign of the
 data's chirality (self-dual fields, docs/conventions.md).
 
 What the route takes on trust: Osborn's formula inside the ball (a theorem for ADHM data, and tested
@@ -35,12 +35,15 @@ from .conventions import INSTANTON_ACTION
 __all__ = ["gram_coefficients", "ball_action", "exterior_integral", "osborn_integral", "FluxIntegral", "RADIUS_FACTOR"]
 
 #: Sphere radius in units of the layout's extent (its largest scale plus the largest distance of a
-#: centre from the mean centre): measured on random data k = 1..8, both parts converge by n = 16-24 at 2.
-RADIUS_FACTOR = 2.0
+#: centre from the mean centre).  Measured (points for 1e-10 on random data k = 1..8 and on overlapping,
+#: well separated and small lumps): 2 x extent needs 0.08-3M points and does not converge for four
+#: lumps 0.3 apart of sizes 0.5-1.5 (a sixth of their charge lies outside); 8 x converges in every case
+#: at the smallest levels, and 12 and 16 x change nothing.
+RADIUS_FACTOR = 8.0
 #: S^3 product-rule parameters n of the ball's levels (2 n^3 points each; exact to degree 2n - 1).
-_BALL_LEVELS = (8, 10, 12, 14, 16, 20, 24, 32, 40, 48, 64)
+_BALL_LEVELS = (4, 6, 8, 10, 12, 14, 16, 20, 24, 32, 40, 48, 64)
 #: Exterior levels (Gauss-Legendre nodes in t, S^3 parameter n): nt x 2 n^3 points each.
-_EXTERIOR_LEVELS = tuple((n, n) for n in (8, 10, 12, 14, 16, 20, 24, 28, 32, 40))
+_EXTERIOR_LEVELS = tuple((n, n) for n in (4, 6, 8, 10, 12, 14, 16, 20, 24, 28, 32, 40))
 #: Points per compiled call of the flux kernel (whole chunks: one compiled size serves every level).
 _CHUNK = 4096
 #: Rounding floor of a part's error, in units of eps x sum |w f|.

@@ -19,7 +19,7 @@ the original message.
 
 ADHM data (fields with a ``gram`` hook) on R^4 take another route by default (``route='auto'``): the
 ball about their lumps by Osborn's flux through its sphere, the rest by the volume integral of the
-density (:mod:`instantonkit.flux`), which reaches 1e-13 with a few 10^5 points where the volume rule
+density (:mod:`instantonkit.flux`), which reaches 1e-13 with about 10^4 points where the volume rule
 about many centres needs millions for 1e-8.  ``route='volume'`` gives the volume integral everywhere.
 
 The layer under the front doors is public too (used by :mod:`instantonkit.checks`):

@@ -50,19 +50,16 @@ still works (DeprecationWarning) through the executor that ``instantonkit.cluste
 from __future__ import annotations
 
 import dataclasses
-import functools
 import time
 import warnings
 from collections.abc import Callable
 from typing import Protocol
 
-import jax
-import jax.numpy as jnp
 import numpy as np
 
 from . import _validate as _v
 from . import observables as _obs
-from .fields import as_field, hook
+from .fields import as_field, hook, output_shape
 from .observables import (  # noqa: F401  (re-exported: the lattice namespace offers the observables of its starts)
     BOUNDARIES,
     PLANES,
@@ -175,17 +172,6 @@ def _record_of(field):
     return None if rec is None else rec()
 
 
-@functools.cache
-def _potential_jit():
-    return jax.jit(lambda f, x: f.potential(x))
-
-
-def _potential_shape(field) -> tuple:
-    """Shape (4, N, N) of the field's potential at one point, traced once per pytree structure (jit's cache):
-    a plain eval_shape traced the whole ADHM potential on every start (0.29 s of a 1.5 s 12^4 start)."""
-    return tuple(_potential_jit().eval_shape(field, jax.ShapeDtypeStruct((4,), jnp.float64)).shape)
-
-
 @dataclasses.dataclass(frozen=True)
 class StartSpec:
     """The validated parameters of one lattice start (what :func:`lattice_links` was asked for).
@@ -235,7 +221,7 @@ class StartSpec:
         _v.choice("boundary", boundary, START_BOUNDARIES)
         _v.choice("method", method, _METHODS)
         rtol = _v.positive_float("rtol", rtol)
-        n_field = _potential_shape(field)[-1]
+        n_field = output_shape(field, "potential")[0][-1]  # memoised per field structure
         if group == "su2" and n_field != 2:
             raise ValueError(f"group 'su2' needs a 2 x 2 (SU(2)) field; found N = {n_field} (use group=None)")
         if group == "su3" and n_field not in (2, 3):

@@ -176,7 +176,7 @@ assert np.allclose(8 * np.pi**2 * q, s, rtol=1e-9, atol=1e-12 * np.max(s))"""),
 
 For ADHM data `total_charge` takes Osborn's flux route by default: the ball about the lumps by the
 flux of ∇□ log det G through its sphere, the rest by volume (`Q.route == "osborn"`), precise to
-1e-10 with a few 10⁵ points.  The adaptive volume rule (`route="volume"`), which `verify` uses as
+1e-10 with about 10⁴ points.  The adaptive volume rule (`route="volume"`), which `verify` uses as
 its check, refines round by round; the `progress=` callback receives `{round, evaluations, value,
 error}` after every round, which `plot.convergence` draws: the value with error bars, and on the
 right the estimated error against the true distance to 3."""),

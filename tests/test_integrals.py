@@ -31,6 +31,20 @@ def test_osborn_route_gives_q_equal_k_to_1e_10_with_an_honest_error(k):
     assert abs(res.value - k) <= res.error <= 1e-10 * k
 
 
+@settings(max_examples=10)
+@given(
+    k=st.integers(1, 4),
+    seed=st.integers(0, 10_000),
+    spread=st.floats(0.3, 8.0),
+    low=st.floats(0.05, 1.0),
+)
+def test_osborn_route_error_bounds_the_true_error_for_any_layout(k, seed, spread, low):
+    # Q = k (ADHM 1978) for overlapping, far-apart, small and large lumps alike
+    data = ik.random_adhm(k, seed=seed, spread=spread, size_range=(low, 1.5 * low))
+    res = integrals.total_charge(data, rtol=1e-10, atol=1e-10)
+    assert res.converged and abs(res.value - k) <= res.error <= 1e-10 * k, res
+
+
 def test_osborn_route_gives_q_equal_8_to_1e_8_with_an_honest_error():
     # Q = 8 (ADHM 1978)
     res = integrals.total_charge(ik.random_adhm(8, seed=8), rtol=1e-8, atol=1e-8, max_points=400_000)
