@@ -346,24 +346,41 @@ def _how(res: IntegralResult) -> str:
     return HOW_FLUX if res.route == "osborn" else HOW_INTEGRAL
 
 
+def _action_route(case: _Case, res: IntegralResult, charge, tol: float, name: str, how: str, label: str, mismatch):
+    """Add the route row of an action integral ``res`` (S / 8 pi^2, signed by Q) against the charge Q.
+
+    A converged integral that disagrees beyond the error bars fails with ``mismatch(value, error)``; one
+    that cannot be decided is a doubt naming ``label``; a non-converged one is 'undecided' (the caller
+    says why and advises).
+    """
+    val, err = case.sign * res.value / INSTANTON_ACTION, res.error / INSTANTON_ACTION  # s = 8 pi^2 |q|
+    status = _judge(abs(val - charge.value), err + charge.error, tol) if res.converged else "undecided"
+    if res.converged and status == "DISAGREES":
+        case.failures.append(mismatch(val, err))
+    elif res.converged and status == "undecided":
+        case.doubts.append(f"{label} {val:.10g} +- {err:.1e} and Q cannot be decided to {tol:.0e}")
+    note = "s = 8 pi^2 |q|, sign from Q" + ("" if res.converged else "; NOT converged")
+    agrees = {"agrees": True, "DISAGREES": False}.get(status)
+    _route_row(case, Route(name, val, err, True, agrees, note, how), status)
+
+
 def _volume_check(case: _Case, check: IntegralResult, charge: IntegralResult, budget: int, tol: float) -> None:
     """The volume integral of s against the flux figure of Q: a disagreement beyond the error bars fails."""
-    name = "volume integral of s / 8 pi^2 (checks the flux figures)"
-    val, err = case.sign * check.value / INSTANTON_ACTION, check.error / INSTANTON_ACTION
-    status = _judge(abs(val - charge.value), err + charge.error, tol)
     if not check.converged:
-        status = "undecided"
         _not_converged(case, "volume check", check, budget)
-    elif status == "DISAGREES":
-        case.failures.append(
+    _action_route(
+        case,
+        check,
+        charge,
+        tol,
+        "volume integral of s / 8 pi^2 (checks the flux figures)",
+        HOW_INTEGRAL,
+        "the volume check",
+        lambda val, err: (
             f"the volume integral of s gives S/8pi^2 = {val:.10g} +- {err:.1e}, not the flux figure Q = "
             f"{charge.value:.10g} +- {charge.error:.1e}: the closed-form density or the quadrature is wrong"
-        )
-    elif status == "undecided":
-        case.doubts.append(f"the volume check {val:.10g} +- {err:.1e} and Q cannot be decided to {tol:.0e}")
-    note = "s = 8 pi^2 |q|, sign from Q" + ("" if check.converged else "; NOT converged")
-    agrees = {"agrees": True, "DISAGREES": False}.get(status)
-    _route_row(case, Route(name, val, err, True, agrees, note, HOW_INTEGRAL), status)
+        ),
+    )
 
 
 def _not_converged(case: _Case, what: str, res: IntegralResult, budget: int) -> None:
@@ -555,26 +572,25 @@ def _osborn_route(case: _Case, field, charge, layout: Layout, kw: dict, tol: flo
         case.failures.append(f"the Osborn route failed: {e}")
         _route_row(case, Route(name, None, None, True, False, str(e), HOW_OTHER_RULE), "DISAGREES")
         return
-    sign = case.sign  # s = 8 pi^2 |q|: the sign is the integral's
-    val, err = sign * res.value / INSTANTON_ACTION, res.error / INSTANTON_ACTION
-    status = _judge(abs(val - charge.value), err + charge.error, tol)
     if not res.converged:
-        status = "undecided"
         case.doubts.append(f"the Osborn route did not converge: {res.message}")
         budget = kw["max_points"]
         case.advise(
             f"raise the budget (max_points={4 * budget:,}; command line --budget {4 * budget}), or routes=False"
         )
-    elif status == "DISAGREES":
-        case.failures.append(
+    _action_route(
+        case,
+        res,
+        charge,
+        tol,
+        name,
+        HOW_OTHER_RULE,
+        "the Osborn route",
+        lambda val, err: (
             f"the integral of Osborn's density on another rule gives {val:.10g} +- {err:.1e}, "
             f"not Q = {charge.value:.10g} +- {charge.error:.1e} (quadrature error beyond tolerance)"
-        )
-    elif status == "undecided":
-        case.doubts.append(f"the Osborn route {val:.10g} +- {err:.1e} and Q cannot be decided to {tol:.0e}")
-    note = "s = 8 pi^2 |q|, sign from Q" + ("" if res.converged else "; NOT converged")
-    agrees = {"agrees": True, "DISAGREES": False}.get(status)
-    _route_row(case, Route(name, val, err, True, agrees, note, HOW_OTHER_RULE), status)
+        ),
+    )
 
 
 def _routes(case: _Case, field, charge, layout: Layout, kw, tol, winding, checked: bool = False) -> None:

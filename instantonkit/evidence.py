@@ -25,6 +25,7 @@ import numpy as np
 from . import _validate
 from . import fields as _fields
 from . import quadrature as _quad
+from ._pytree import PytreeFields
 from .conventions import INSTANTON_ACTION, LEVI_CIVITA, PI
 from .flux import gram_coefficients
 from .integrals import ENGINE_CHUNK, FieldEvaluationError, field_description, layout_of
@@ -88,10 +89,11 @@ def osborn_density(data, x):
 
 @jax.tree_util.register_pytree_node_class
 @dataclasses.dataclass(frozen=True)
-class OsbornField:
+class OsbornField(PytreeFields):
     """ADHM data seen through Osborn's density only (action_density is :func:`osborn_density`)."""
 
     data: Any
+    _leaves = ("data",)
 
     def potential(self, x):
         return self.data.potential(x)
@@ -102,13 +104,6 @@ class OsbornField:
     def describe(self) -> str:
         """Field hook: one line for reports."""
         return f"Osborn's density of {field_description(self.data)}"
-
-    def tree_flatten(self):
-        return (self.data,), None
-
-    @classmethod
-    def tree_unflatten(cls, aux, children):
-        return cls(children[0])
 
 
 # -- Chern-Simons flux through a large sphere -------------------------------------------------------

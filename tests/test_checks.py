@@ -22,6 +22,7 @@ import instantonkit as ik
 from instantonkit import ansatz, checks, fields, flux, integrals, transforms
 from instantonkit import quadrature as qd
 from instantonkit import quaternion as qt
+from instantonkit._pytree import PytreeFields
 from instantonkit.conventions import point_to_quaternion
 
 PI = math.pi
@@ -526,10 +527,11 @@ def test_verify_takes_q_from_osborn_flux_and_checks_it_by_the_volume_integral(re
 
 @jax.tree_util.register_pytree_node_class
 @dataclasses.dataclass(frozen=True)
-class _WrongDensities:
+class _WrongDensities(PytreeFields):
     """ADHM data whose closed-form densities are 0.1% too large (a planted mistake for verify to find)."""
 
     data: object
+    _leaves = ("data",)
 
     def potential(self, x):
         return self.data.potential(x)
@@ -549,13 +551,6 @@ class _WrongDensities:
 
     def layout(self):
         return self.data.layout()
-
-    def tree_flatten(self):
-        return (self.data,), None
-
-    @classmethod
-    def tree_unflatten(cls, aux, children):
-        return cls(children[0])
 
 
 def test_verify_volume_check_catches_a_wrong_closed_form_density():
