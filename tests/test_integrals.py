@@ -91,6 +91,7 @@ def test_osborn_ball_of_one_instanton_matches_the_integrated_bpst_density(rho, r
 
 
 def test_route_volume_uses_the_adaptive_volume_rule():
+    # Q = 1 for charge-1 ADHM data (Atiyah, Hitchin, Drinfeld, Manin 1978), by the volume rule
     res = integrals.total_charge(ik.random_adhm(1, seed=1), rtol=1e-8, atol=1e-8, route="volume")
     assert res.converged and "Osborn" not in res.rule
     assert abs(res.value - 1) <= res.error

@@ -183,6 +183,7 @@ def test_total_charge_is_k_to_1e_10_by_osborn_flux(k):
 
 @pytest.mark.parametrize("k", [1, 2])
 def test_total_charge_is_k_by_the_volume_rule(k):
+    # Q = k for complex ADHM data (Christ, Weinberg and Stanton, Phys. Rev. D 18 (1978) 2013), volume rule
     res = ik.total_charge(SU3[k], rtol=1e-10, atol=1e-10, route="volume")
     assert abs(res.value - k) < 1e-8, (res.value, res.error)
 
