@@ -37,7 +37,7 @@ def run_batched(
     size: int,
     *,
     shrink_last: bool = False,
-    out: np.ndarray | None = None,
+    out: np.ndarray | tuple[np.ndarray, ...] | None = None,
     args_before: tuple = (),
     args_after: tuple = (),
 ):
@@ -45,7 +45,7 @@ def run_batched(
 
     arrays: equal-length (m, ...) numpy arrays batched together (row i of each belongs together).
     Returns an (m, ...) numpy array (written into ``out`` when given), or None when m == 0 and no
-    ``out`` is given.
+    ``out`` is given.  A kernel returning a tuple writes into ``out``, a tuple of arrays (returned).
     """
     m = int(arrays[0].shape[0])
     if any(int(a.shape[0]) != m for a in arrays):
@@ -61,7 +61,12 @@ def run_batched(
             if width > rows:  # pad with copies of the piece's first row, sliced off below
                 piece = np.concatenate([piece, np.broadcast_to(a[start], (width - rows,) + a.shape[1:])])
             batch.append(piece)
-        res = np.asarray(kernel(*args_before, *batch, *args_after))[:rows]
+        res = kernel(*args_before, *batch, *args_after)
+        if isinstance(out, tuple):  # a kernel of several outputs, one array each
+            for o, r in zip(out, res):
+                o[start:stop] = np.asarray(r)[:rows]
+            continue
+        res = np.asarray(res)[:rows]
         if out is not None:
             out[start:stop] = res
         else:

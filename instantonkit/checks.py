@@ -318,8 +318,17 @@ def _integrals(field, layout: Layout, charge_method: str, kw: dict, sample_point
     s_atol = kw["atol"] * INSTANTON_ACTION  # atol is for S / 8 pi^2
     try:
         if charge_method == "auto" and uses_flux(field, layout, "auto", "auto"):
-            charge = integrate_flux(field, DensityRequest("charge_density"), layout, **kw)
             action = integrate_flux(field, DensityRequest("action_density", atol=s_atol), layout, **kw)
+            # Q = sign S / 8 pi^2 by construction here: both are s inside the ball, and outside it the closed-form
+            # q is sign s / 8 pi^2; one integral serves both (the Bogomolny row says 'by construction'), and the
+            # volume check below reuses its compiled s.
+            sign = float(np.sign(_fields.hook(field, "charge")))  # the flux route's sign of q (flux.osborn_integral)
+            charge = dataclasses.replace(
+                action,
+                quantity="charge",
+                value=sign * action.value / INSTANTON_ACTION,
+                error=action.error / INSTANTON_ACTION,
+            )
             # The check confirms Q to charge_tol (= 4 atol): half of it for its own error bar is enough.
             req = DensityRequest("action_density", name="action (volume check)", atol=2.0 * s_atol)
             outcome = integrate(field, (req,), layout, rule_points=sample_points, **kw)

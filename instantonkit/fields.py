@@ -18,7 +18,7 @@ from __future__ import annotations
 import dataclasses
 import functools
 import types
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from typing import Any, Protocol, runtime_checkable
 
 import jax
@@ -48,6 +48,8 @@ __all__ = [
     "charge_density",
     "self_duality_residual",
     "evaluate",
+    "evaluate_many",
+    "QUANTITIES",
     "dual",
     "field_strength_from_potential",
     "action_from_f",
@@ -67,6 +69,9 @@ _METHODS = ("auto", "closed", "autodiff")
 
 #: Quantities a field may compute for a whole batch at once (the ``density_batch`` hook).
 _BATCH_QUANTITIES = ("action_density", "charge_density")
+
+#: What :func:`evaluate` computes.
+QUANTITIES = ("potential", "field_strength", "action_density", "charge_density", "self_duality_residual")
 
 
 # -- the field protocol -----------------------------------------------------------------------------
@@ -462,31 +467,37 @@ def _differentiates(field, quantity: str, method: str) -> bool:
 
 
 class _Kernel:
-    """The engine's compiled kernel for one (quantity, method): ``kernel(field, pts) -> values``.
+    """The engine's compiled kernel for a tuple of (quantity, method): ``kernel(field, pts) -> values``.
 
-    Two jitted variants of one traced function: closed forms compile with XLA's full optimisation
+    One traced function returns every requested quantity, so several of them share one compilation and
+    XLA's common-subexpression pass shares their work (the Gram inverse of s, q and F; the potential
+    inside its own jacobian).  Two jitted variants: closed forms compile with XLA's full optimisation
     (they are the hot paths); kernels that differentiate a potential (autodiff, user callables) use
     :func:`instantonkit._config.lean_compiler_options` when it is on, since their graphs (a jacobian of a
     jacobian for ADHM data) took most of a first call in XLA's optimisation passes.  jax caches each
     variant's compilations per field structure (static data) and chunk shape.
     """
 
-    def __init__(self, quantity: str, method: str):
-        self.quantity, self.method = quantity, method
+    def __init__(self, specs: tuple[tuple[str, str], ...]):
+        self.specs = specs
 
-        def run(field, pts):
+        def one(field, quantity, method, pts):
             if method == "auto" and quantity in _BATCH_QUANTITIES:
                 batch = hook(field, "density_batch")
                 if batch is not None:
                     return batch(pts, quantity)
             return jax.vmap(lambda x: _point_fn(field, quantity, method)(x))(pts)
 
+        def run(field, pts):
+            return tuple(one(field, q, meth, pts) for q, meth in specs)
+
         self._run = run
         self._plain = jax.jit(run)
         self._lean: dict = {}
 
     def _variant(self, field):
-        opts = lean_compiler_options() if _differentiates(field, self.quantity, self.method) else None
+        lean = any(_differentiates(field, q, meth) for q, meth in self.specs)
+        opts = lean_compiler_options() if lean else None
         if not opts:
             return self._plain
         key = tuple(sorted(opts.items()))
@@ -500,7 +511,7 @@ class _Kernel:
         return self._variant(field)(field, pts)
 
     def eval_shape(self, field, rows: int):
-        """Output shape/dtype for ``rows`` points, traced by the variant that will run (its trace is reused)."""
+        """Output shapes/dtypes (a tuple) for ``rows`` points, traced by the variant that will run (reused)."""
         return self._variant(field).eval_shape(field, jax.ShapeDtypeStruct((rows, 4), jnp.float64))
 
     def _cache_size(self) -> int:
@@ -510,9 +521,9 @@ class _Kernel:
 
 
 @functools.cache
-def _kernel(quantity: str, method: str) -> _Kernel:
-    """One kernel per (quantity, method); jax caches its compilation per field structure."""
-    return _Kernel(quantity, method)
+def _kernel(*specs: tuple[str, str]) -> _Kernel:
+    """One kernel per tuple of (quantity, method); jax caches its compilation per field structure."""
+    return _Kernel(specs)
 
 
 def _check_callable(field, x0: np.ndarray) -> None:
@@ -559,7 +570,7 @@ def output_shape(field, quantity: str, method: str = "auto") -> tuple[tuple[int,
     """Shape and dtype of ``quantity`` at one point, e.g. ((4, 4, 2, 2), complex128) for the field strength."""
     if method not in _METHODS:
         raise ValueError(f"method must be one of {_METHODS}; found {method!r}")
-    st = _output_struct(_kernel(quantity, method), as_field(field))
+    (st,) = _output_struct(_kernel((quantity, method)), as_field(field))
     return tuple(st.shape[1:]), np.dtype(st.dtype)
 
 
@@ -585,8 +596,47 @@ def evaluate(
       point of the field, e.g. the centre of a singular gauge), naming how many points and the first.
       TypeError for non-real points, a non-integer (or boolean) chunk_size, or an object that is not a field.
     """
-    if method not in _METHODS:
-        raise ValueError(f"method must be one of {_METHODS}; found {method!r}")
+    return _evaluate_specs(field, points, ((quantity, method),), chunk_size)[0]
+
+
+def evaluate_many(
+    field, points: Array, quantities: Sequence, *, method: str = "auto", chunk_size: int = DEFAULT_CHUNK
+) -> tuple[np.ndarray, ...]:
+    """Evaluate several quantities of ``field`` on ``points`` in one compiled kernel.
+
+    One trace and one compilation serve them all, and XLA shares their common work (the k x k algebra
+    of s, q and F; the potential inside its own jacobian), so asking for F, s and q together costs
+    less than three :func:`evaluate` calls on a first call and per point.
+
+    Args:
+      field, points, method, chunk_size: as in :func:`evaluate` (``method`` for the names given alone).
+      quantities: a non-empty sequence of quantity names or (name, method) pairs, e.g.
+        ``("field_strength", ("field_strength", "autodiff"), "action_density")``.
+    Returns:
+      a tuple of numpy arrays in the order of ``quantities``, each shaped as :func:`evaluate` returns it.
+    Raises:
+      ValueError / TypeError as :func:`evaluate`, and for an empty or malformed ``quantities``.
+    """
+    if isinstance(quantities, str) or not isinstance(quantities, Sequence) or not quantities:
+        raise TypeError(
+            f"quantities must be a non-empty sequence of names or (name, method) pairs; found {quantities!r}"
+        )
+    specs = []
+    for q in quantities:
+        spec = (q, method) if isinstance(q, str) else tuple(q)
+        if len(spec) != 2 or not all(isinstance(v, str) for v in spec):
+            raise TypeError(f"each quantity must be a name or a (name, method) pair of strings; found {q!r}")
+        specs.append(spec)
+    return _evaluate_specs(field, points, tuple(specs), chunk_size)
+
+
+def _evaluate_specs(field, points: Array, specs: tuple, chunk_size: int) -> tuple[np.ndarray, ...]:
+    """The chunked loop of :func:`evaluate` and :func:`evaluate_many` for a tuple of (quantity, method)."""
+    for quantity, method in specs:
+        if method not in _METHODS:
+            raise ValueError(f"method must be one of {_METHODS}; found {method!r}")
+        if quantity not in QUANTITIES:
+            raise ValueError(f"unknown quantity {quantity!r}; expected one of {QUANTITIES}")
     chunk_size = _validate.positive_int("chunk_size", chunk_size)
     field = as_field(field)
     pts, lead = as_points(points)
@@ -595,20 +645,20 @@ def evaluate(
     inner = core() if core is not None else None
     if inner is not None and m:
         _check_callable(inner, pts[0])
-    kern = _kernel(quantity, method)
-    probe = _output_struct(kern, field, padded_size(min(max(m, 1), chunk_size), chunk_size, shrink_last=True))
-    out = np.empty((m,) + probe.shape[1:], dtype=probe.dtype)
+    kern = _kernel(*specs)
+    probes = _output_struct(kern, field, padded_size(min(max(m, 1), chunk_size), chunk_size, shrink_last=True))
+    outs = tuple(np.empty((m,) + p.shape[1:], dtype=p.dtype) for p in probes)
     if m:
-        run_batched(kern, [pts], chunk_size, shrink_last=True, out=out, args_before=(field,))
-        flat = out.reshape(m, -1)
-        bad = ~np.all(np.isfinite(flat), axis=1)
-        if np.any(bad):
-            first = pts[np.argmax(bad)]
-            raise ValueError(
-                f"{quantity} is not finite at {int(bad.sum())} of {m} points (first: {first.tolist()}); "
-                "the field is singular there (for example the centre of a singular gauge)"
-            )
-    return out.reshape(lead + probe.shape[1:])
+        run_batched(kern, [pts], chunk_size, shrink_last=True, out=outs, args_before=(field,))
+        for (quantity, _), out in zip(specs, outs):
+            bad = ~np.all(np.isfinite(out.reshape(m, -1)), axis=1)
+            if np.any(bad):
+                first = pts[np.argmax(bad)]
+                raise ValueError(
+                    f"{quantity} is not finite at {int(bad.sum())} of {m} points (first: {first.tolist()}); "
+                    "the field is singular there (for example the centre of a singular gauge)"
+                )
+    return tuple(out.reshape(lead + p.shape[1:]) for out, p in zip(outs, probes))
 
 
 def potential(field, points: Array, **kw) -> np.ndarray:

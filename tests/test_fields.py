@@ -198,6 +198,38 @@ def test_chunking_does_not_change_results(bpst_data):
     np.testing.assert_array_equal(ik.action_density(bpst_data, x, chunk_size=7), ik.action_density(bpst_data, x))
 
 
+def test_evaluate_many_equals_one_quantity_at_a_time():
+    # One kernel for several quantities gives what separate evaluate calls give (to rounding: XLA may fuse
+    # the shared work differently); random Sp(1) k = 3 data, closed forms and autodiff side by side.
+    data = ik.random_adhm(3, seed=6)
+    centre, scale = data.hint()
+    pts = centre + scale * np.random.default_rng(4).normal(size=(2, 40, 4))
+    wanted = ("field_strength", ("field_strength", "autodiff"), "action_density", "charge_density", "potential")
+    many = fields.evaluate_many(data, pts, wanted, chunk_size=32)
+    assert len(many) == len(wanted)
+    for q, got in zip(wanted, many):
+        name, method = (q, "auto") if isinstance(q, str) else q
+        ref = fields.evaluate(data, pts, name, method=method, chunk_size=32)
+        assert got.shape == ref.shape and got.dtype == ref.dtype
+        np.testing.assert_allclose(got, ref, rtol=1e-12, atol=1e-12 * np.max(np.abs(ref)))
+
+
+@pytest.mark.parametrize(
+    "bad, match",
+    [("action_density", "non-empty sequence"), ((), "non-empty sequence"), ([("potential",)], "pair of strings")],
+)
+def test_evaluate_many_rejects_malformed_quantity_lists(bpst_data, bad, match):
+    with pytest.raises(TypeError, match=match):
+        fields.evaluate_many(bpst_data, np.zeros((2, 4)) + 0.5, bad)
+
+
+def test_evaluate_many_rejects_an_unknown_quantity_or_method(bpst_data):
+    with pytest.raises(ValueError, match="unknown quantity 'energy'"):
+        fields.evaluate_many(bpst_data, np.zeros((2, 4)) + 0.5, ["potential", "energy"])
+    with pytest.raises(ValueError, match="method must be one of"):
+        fields.evaluate_many(bpst_data, np.zeros((2, 4)) + 0.5, [("potential", "numeric")])
+
+
 def test_singular_gauge_centre_raises_naming_the_point(bpst_data, grid):
     x = grid.copy()
     x[1, 2] = CENTER
@@ -315,7 +347,7 @@ def _charge_one_potential(x, params):
 
 def test_parameter_scan_compiles_once(bpst_data):
     pts = CENTER + np.random.default_rng(11).normal(size=(32, 4))
-    kern = fields._kernel("action_density", "auto")
+    kern = fields._kernel(("action_density", "auto"))
     before = kern._cache_size()
     for rho in (0.4, 0.5, 0.6, 0.8, 1.1):
         field = fields.ParametrisedField(_charge_one_potential, {"rho": rho, "centre": CENTER})
@@ -355,7 +387,7 @@ def _closure_over(rho):
 
 def test_two_closures_of_the_same_code_and_values_share_one_compile():
     pts = CENTER + np.random.default_rng(12).normal(size=(16, 4))
-    kern = fields._kernel("action_density", "auto")
+    kern = fields._kernel(("action_density", "auto"))
     first = ik.action_density(_closure_over(0.7), pts)
     before = kern._cache_size()
     again = ik.action_density(_closure_over(0.7), pts)  # another object, equal code and captured value
