@@ -40,9 +40,10 @@ from .fields import (
     potential,
     self_duality_residual,
 )
-from .finder import InstantonFit, MixedFit, find_instantons, find_lattice_instantons
+from .finder import InstantonFit, MixedFit, find_instantons
 from .io import load_lattice, save_lattice
 from .lattice import average_plaquette, clover_charge, lattice_links, lattice_start, wilson_action
+from .lattice_fit import ColourRank, colour_rank, find_lattice_instantons
 from .moduli import block_sum, bpst, embed_sp, multi_instanton, random_adhm
 from .smoothing import cool, gradient_flow, improved_action, improved_charge, wilson_flow
 from .transforms import anti, dilate, gauge_transform, parity, rotate, translate
@@ -107,6 +108,8 @@ __all__ = [
     "zero_mode_overlap",
     "find_instantons",
     "find_lattice_instantons",
+    "colour_rank",
+    "ColourRank",
     "InstantonFit",
     "MixedFit",
     "ParametrisedField",

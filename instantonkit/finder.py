@@ -45,9 +45,8 @@ import numpy as np
 import scipy.optimize
 
 from . import _validate
-from . import observables as _obs
 from .conventions import INSTANTON_ACTION
-from .fields import action_density, action_from_f, as_points
+from .fields import action_density, as_points
 from .moduli import multi_instanton
 from .moduli_fit import fit_exact
 from .peaks import BPST_PEAK, count_peaks, count_signed_peaks, sample_spacing
@@ -58,7 +57,6 @@ __all__ = [
     "InstantonFit",
     "MixedFit",
     "find_instantons",
-    "find_lattice_instantons",
     "superposition_density",
     "count_peaks",
     "count_signed_peaks",
@@ -128,7 +126,8 @@ class InstantonFit:
     chi2_dof: sum w r^2 / dof (a goodness of fit only when the noise ``sigma`` was given);
     explains_noise: True / False when the noise was given (chi2 / dof within 5 sigma of 1), else None;
     n_peaks: distinct peaks found; model: 'exact' or 'superposition'; superposition: the superposition
-    fit {'centers', 'sizes'} the exact fit started from.
+    fit {'centers', 'sizes'} the exact fit started from; notes: tuple of str, decisions taken before the
+    fit (e.g. the colour rank inferred from links by :func:`instantonkit.lattice_fit.find_lattice_instantons`).
     """
 
     centers: np.ndarray
@@ -149,6 +148,7 @@ class InstantonFit:
     chi2_dof: float = float("nan")
     explains_noise: object = None
     superposition: dict = dataclasses.field(default_factory=dict)
+    notes: tuple = ()
 
     @property
     def k(self) -> int:
@@ -180,6 +180,7 @@ class InstantonFit:
             verdict = "explains" if self.explains_noise else "does NOT explain"
             lines.append(f"chi2/dof = {self.chi2_dof:.3f}: the model {verdict} the density to its noise level")
         lines.append(f"errors: {self.error_budget}")
+        lines.extend(f"note: {n}" for n in self.notes)
         if self.ambiguous:
             lines.append("AMBIGUOUS fit:")
             lines.extend(f"  - {r}" for r in self.reasons)
@@ -625,52 +626,3 @@ def _find_mixed(points, density, k, *, weights, sigma):
         )
 
     return MixedFit(part(np.arange(kp), 1), part(np.arange(kp, kp + km), -1), rms)
-
-
-def find_lattice_instantons(
-    links,
-    k,
-    *,
-    spacing: float = 1.0,
-    origin=None,
-    boundary: str = "periodic",
-    quantity: str = "charge",
-    model: str = "exact",
-    **options,
-):
-    """Fit instantons to a lattice gauge field given as links, from the lattice's own densities.
-
-    The density is the clover charge density (quantity='charge', :func:`observables.clover_charge_density`)
-    or the clover action density s = -1/2 sum tr F F of the clover field strength (quantity='action'),
-    at the sites x_n = origin + a n (origin defaults to 0); open boundaries drop the sites whose
-    clovers leave the lattice.  The continuum model is fitted to these O(a^2)-accurate densities.
-
-    Args:
-      links: (L1, L2, L3, L4, 4, N, N) complex links.
-      k: as in :func:`find_instantons` (an integer, or (k_plus, k_minus) for quantity='charge').
-      spacing: lattice spacing a > 0.
-      origin: (4,) position of site 0, default (0, 0, 0, 0).
-      boundary: 'periodic' or 'open'.
-      quantity: 'charge' or 'action'.
-      model, options: passed to :func:`find_instantons`.
-    Returns:
-      InstantonFit (or MixedFit), positions in the lattice's coordinates.
-    Raises:
-      ValueError / TypeError naming the bad argument.
-    """
-    _validate.choice("quantity", quantity, _QUANTITIES)
-    a = _validate.positive_float("spacing", spacing)
-    org = np.zeros(4) if origin is None else _validate.point("origin", origin)
-    if quantity == "charge":
-        dens = _obs.clover_charge_density(links, spacing=a, boundary=boundary)
-    else:
-        fmn = _obs.clover_field_strength(links, spacing=a, boundary=boundary)
-        flat = fmn.reshape((-1,) + fmn.shape[4:])
-        dens = np.asarray(jax.vmap(action_from_f)(jnp.asarray(np.nan_to_num(flat)))).reshape(fmn.shape[:4])
-        dens = np.where(np.isnan(fmn).any(axis=(4, 5, 6, 7)), np.nan, dens)
-    shape = dens.shape
-    grids = np.meshgrid(*[np.arange(n, dtype=np.float64) for n in shape], indexing="ij")
-    sites = org + a * np.stack(grids, axis=-1)
-    ok = np.isfinite(dens)
-    note = f"; lattice artefacts of the clover density, O((a / rho)^2) with a = {a:g}, are not included"
-    return find_instantons(sites[ok], dens[ok], k, quantity=quantity, model=model, _lattice_note=note, **options)

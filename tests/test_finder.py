@@ -23,8 +23,8 @@ from instantonkit.finder import (
     count_peaks,
     count_signed_peaks,
     find_instantons,
-    find_lattice_instantons,
 )
+from instantonkit.lattice_fit import find_lattice_instantons
 from instantonkit.moduli import solve_constraint_unrolled
 
 GRID = np.linspace(-4.0, 4.0, 13)
