@@ -205,7 +205,7 @@ def verify(
     charge = action = check = None
     if _periodic_ok(field, layout, case):
         case.peak = _locate(field, layout, case)
-        charge, action, rule, check = _integrals(field, layout, charge_method, kw, sample_points, case)
+        charge, action, rule, check = _integrals(field, layout, charge_method, kw, sample_points, case, charge_tol)
         if charge is not None:
             _charge_findings(case, charge, expected_charge, declared, charge_tol, budget)
         if action is not None:
@@ -307,12 +307,21 @@ def _locate(field, layout: Layout, case: _Case) -> Peak | None:
     return peak
 
 
-def _integrals(field, layout: Layout, charge_method: str, kw: dict, sample_points: int, case: _Case):
+def _undecided(check: IntegralResult, charge: IntegralResult, tol: float) -> bool:
+    """Whether a converged volume check of S / 8 pi^2 can neither confirm nor refute |Q| to ``tol``."""
+    dev = abs(check.value / INSTANTON_ACTION - abs(charge.value))
+    return check.converged and _judge(dev, check.error / INSTANTON_ACTION + charge.error, tol) == "undecided"
+
+
+def _integrals(field, layout: Layout, charge_method: str, kw: dict, sample_points: int, case: _Case, tol: float):
     """(charge, action, sampled final rule of the action's volume integral, volume check or None).
 
     ADHM data (``gram`` hook, R^4, charge_method 'auto'): Q and S by Osborn's flux route (precise), and
-    the volume integral of s as their check (its final rule is the one sampled).  Other fields: Q and S
-    by the volume rule, no separate check.
+    the volume integral of s as their check (its final rule is the one sampled); a check whose error bar
+    leaves |Q| undecided at ``tol`` runs once more at a quarter of its tolerance (the volume rule's error
+    estimate can miss a neighbour's lump seen through the partition of unity: measured on random k = 4
+    data, 6e-7 true against 4e-7 reported at 5e-7).  Other fields: Q and S by the volume rule, no
+    separate check.
     """
     charge = action = rule = check = None
     s_atol = kw["atol"] * INSTANTON_ACTION  # atol is for S / 8 pi^2
@@ -332,6 +341,11 @@ def _integrals(field, layout: Layout, charge_method: str, kw: dict, sample_point
             # The check confirms Q to charge_tol (= 4 atol): half of it for its own error bar is enough.
             req = DensityRequest("action_density", name="action (volume check)", atol=2.0 * s_atol)
             outcome = integrate(field, (req,), layout, rule_points=sample_points, **kw)
+            if _undecided(outcome.results[0], charge, tol):  # its error bar too wide to decide: once, 4 x tighter
+                finer = integrate(
+                    field, (dataclasses.replace(req, atol=s_atol / 2.0),), layout, rule_points=sample_points, **kw
+                )
+                outcome = finer if finer.results[0].converged else outcome
             check, rule = outcome.results[0], outcome.rule
         else:
             charge = integrate(field, (DensityRequest("charge_density", charge_method),), layout, **kw).results[0]

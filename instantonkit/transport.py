@@ -31,6 +31,7 @@ import math
 import jax
 import jax.numpy as jnp
 import numpy as np
+from jax.extend import core as jex_core
 
 from . import _validate as _v
 from . import quaternion as qt
@@ -118,13 +119,21 @@ def _expm_antihermitian(omega):
     return (v * jnp.exp(-1j * w)[None, :]) @ jnp.conj(v.T)
 
 
-#: Potential evaluations per compiled call.  jax 0.10.2 on CPU left batched chains of small LAPACK
-#: calls (SU(3) ADHM frames: Cholesky then inverse, with their derivatives) idle and unfinished from
-#: ~10^4 matrices per call (3 nodes x 4096 links, measured), while 3 x 256 finish; so every potential
-#: call, whatever the field, holds at most 768 nodes (ADHMData's own potential uses no LAPACK call).
+#: Potential evaluations per compiled call when the potential calls LAPACK.  jax 0.10.2 on CPU left
+#: batched chains of small LAPACK calls (SU(3) frames: Cholesky then inverse, with their derivatives)
+#: idle and unfinished from ~10^4 matrices per call (3 nodes x 4096 links, measured), while 3 x 256
+#: finish; so such a potential is called on at most 768 nodes at a time.
 _NODE_BATCH = 768
-#: Magnus steps per compiled call of the step kernel (its exponentials use eigh for N > 2: kept below the bound above).
+#: ... and when it calls none (the library's ADHM potentials, closed-form ansaetze): larger calls cost
+#: less per node (measured, charge-2 SU(2) data: 1.67 / 1.43 / 1.25 us per node at 768 / 4096 / 16384).
+_NODE_BATCH_PLAIN = 4096
+#: Magnus steps per compiled call of the step kernel: its exponentials use eigh for N > 2 (kept below
+#: the bound above); for N = 2 they are quaternion exponentials and larger calls cost less
+#: (measured: 1.95 / 0.85 us per step at 256 / 2048).
 _STEP_BATCH = 256
+_STEP_BATCH_PLAIN = 2048
+#: Primitives that are LAPACK calls on CPU (a potential using any of them gets the small node batch).
+_LAPACK_PRIMITIVES = ("cholesky", "lu", "eigh", "eig", "svd", "qr", "triangular_solve", "schur", "householder_product")
 #: Node-steps (links x steps) per pass of :func:`_magnus_at`, bounding its temporary memory.
 _PASS_STEPS = 1 << 18
 
@@ -133,6 +142,36 @@ def _generator(field, x, d):
     """G = A_mu(x) d_mu at one node; (4,), (4,) -> (N, N)."""
     a = field.potential(x)
     return a[0] * d[0] + a[1] * d[1] + a[2] * d[2] + a[3] * d[3]
+
+
+def _calls_lapack(jaxpr) -> bool:
+    """Whether a jaxpr, or any jaxpr nested in it, contains a LAPACK primitive (_LAPACK_PRIMITIVES)."""
+    if any(eqn.primitive.name in _LAPACK_PRIMITIVES for eqn in jaxpr.eqns):
+        return True
+    return any(_calls_lapack(sub) for sub in jex_core.subjaxprs(jaxpr))
+
+
+_BATCH_MEMO: dict = {}
+
+
+def _node_batch(field) -> int:
+    """Nodes per potential call for ``field``: _NODE_BATCH_PLAIN unless its potential calls LAPACK.
+
+    Depends only on the field's structure (its traced potential), so a link's bits do not depend on
+    the other links of a call (:mod:`instantonkit._batching`); memoised per pytree structure.
+    """
+    leaves, treedef = jax.tree_util.tree_flatten(field)
+    key = (treedef, tuple(np.shape(v) for v in leaves))
+    try:
+        hit = _BATCH_MEMO.get(key)
+    except TypeError:  # unhashable static data: no memo
+        hit, key = None, None
+    if hit is None:
+        jaxpr = jax.make_jaxpr(lambda f, x: f.potential(x))(field, jnp.zeros(4))
+        hit = _NODE_BATCH if _calls_lapack(jaxpr.jaxpr) else _NODE_BATCH_PLAIN
+        if key is not None:
+            _BATCH_MEMO[key] = hit
+    return hit
 
 
 @functools.cache
@@ -163,7 +202,7 @@ def _magnus_at(field, xs, ds, m):
     """Transporters of (M, 4) segments with m sixth-order Magnus steps; (M, N, N) numpy.
 
     The potential is evaluated at all 3 m Gauss-Legendre nodes of a pass of links in one flat batch
-    (one compiled size, _NODE_BATCH, whatever m or M: no loop inside the kernel, so XLA's per-operation
+    (one compiled size per field, :func:`_node_batch`, whatever m or M: no loop inside the kernel, so XLA's per-operation
     overhead is paid once per 768 nodes), then every step's exponential, then the ordered product.
     Each node and step is computed by kernels of fixed batch sizes, so a link's bits do not depend on
     the other links of the call (the rule of :mod:`instantonkit._batching`).
@@ -176,11 +215,12 @@ def _magnus_at(field, xs, ds, m):
         x, d = xs[lo : lo + per], ds[lo : lo + per]
         pts = (x[:, None, :] + ts[None, :, None] * d[:, None, :]).reshape(-1, 4)
         dirs = np.repeat(d, ts.size, axis=0)
-        g = run_batched(_generator_kernel(), [pts, dirs], _NODE_BATCH, args_before=(field,))
+        g = run_batched(_generator_kernel(), [pts, dirs], _node_batch(field), args_before=(field,))
         n = g.shape[-1]
         if out is None:
             out = np.empty((xs.shape[0], n, n), dtype=np.complex128)
-        e = run_batched(_step_kernel(), [g.reshape(-1, 3, n, n)], _STEP_BATCH, args_after=(h,))
+        steps = _STEP_BATCH_PLAIN if n == 2 else _STEP_BATCH
+        e = run_batched(_step_kernel(), [g.reshape(-1, 3, n, n)], steps, args_after=(h,))
         out[lo : lo + per] = _ordered_product(e.reshape(x.shape[0], m, n, n))
     return out
 
