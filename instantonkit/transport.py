@@ -27,6 +27,7 @@ from __future__ import annotations
 import dataclasses
 import functools
 import math
+from typing import Any
 
 import jax
 import jax.numpy as jnp
@@ -161,7 +162,7 @@ def _node_batch(field) -> int:
     the other links of a call (:mod:`instantonkit._batching`); memoised per pytree structure.
     """
     leaves, treedef = jax.tree_util.tree_flatten(field)
-    key = (treedef, tuple(np.shape(v) for v in leaves))
+    key: Any = (treedef, tuple(np.shape(v) for v in leaves))
     try:
         hit = _BATCH_MEMO.get(key)
     except TypeError:  # unhashable static data: no memo
