@@ -2,6 +2,7 @@
 
 import warnings
 
+import jax.numpy as jnp
 import numpy as np
 import pytest
 from hypothesis import given, settings
@@ -145,6 +146,21 @@ def test_transporter_agrees_with_ten_times_finer_quadrature(pair, segments):
     fine = transport._magnus_at(data, np.asarray(starts[:8]), np.asarray(steps[:8]), 10 * rep["max_steps"])
     assert rep["method"] == "magnus"
     assert np.max(np.abs(w - fine)) < 1e-12
+
+
+def test_node_batch_is_small_only_for_potentials_that_call_lapack():
+    # a dispatch rule, no physics: batched small LAPACK calls stalled on CPU beyond ~10^4 matrices per call
+    # (measured, transport._NODE_BATCH), so only potentials whose jaxpr holds a LAPACK primitive get the small
+    # batch; the library's ADHM potentials hold none
+    def solving(x):
+        v = jnp.linalg.solve(jnp.eye(2) * (1.0 + jnp.sum(x * x)), jnp.ones(2))
+        return jnp.stack([1j * jnp.diag(v) * x[i] for i in range(4)])
+
+    assert transport._node_batch(fields.as_field(solving)) == transport._NODE_BATCH
+    assert transport._node_batch(ik.multi_instanton(centers=[[0, 0, 0, 0], [3, 0, 0, 0]], sizes=[1, 1])) == (
+        transport._NODE_BATCH_PLAIN
+    )
+    assert transport._node_batch(ik.random_unitary_adhm(2, 3, seed=1)) == transport._NODE_BATCH_PLAIN
 
 
 def test_closed_link_hooks_are_asked_of_the_field_and_forwarded_by_exact_wrappers(segments):
