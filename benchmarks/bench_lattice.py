@@ -122,12 +122,13 @@ def link_costs(quick: bool = False) -> list[dict]:
             warnings.simplefilter("ignore", lat.BoundaryActionWarning)
             lat.lattice_start(f, shape[:3] + (1,), 0.5, group="su3", rtol=1e-8, boundary=boundary)  # compile
             t0 = time.perf_counter()
-            lat.lattice_start(f, shape, 0.5, group="su3", rtol=1e-8, boundary=boundary)
-            return time.perf_counter() - t0
+            rep = lat.lattice_start(f, shape, 0.5, group="su3", rtol=1e-8, boundary=boundary).report
+            return time.perf_counter() - t0, rep.potential_evaluations
 
     links = 4 * size**4
-    t_two, t_one, t_field = (timed(f, (size,) * 4) for f in (two, one, field))
-    t_start = timed(two, (start,) * 4, boundary="periodic")
+    (t_two, evals), (t_one, _), (t_field, _) = (timed(f, (size,) * 4) for f in (two, one, field))
+    t_start, _ = timed(two, (start,) * 4, boundary="periodic")
+    per_link = evals / links  # potential evaluations per Magnus link; a closed link is one closed-form evaluation
     row = lambda figure, value, unit, ratio, ref: {  # noqa: E731
         "figure": figure,
         "value": round(value, 3),
@@ -142,6 +143,14 @@ def link_costs(quick: bool = False) -> list[dict]:
             "x",
             round(t_two / t_one / 5.0, 3),
             f"goal <= 5x; {1e6 * t_one / links:.2f} us/link closed, same run",
+        ),
+        row(
+            f"charge-2 Magnus links: potential evaluations per link, {size}^4 su3",
+            per_link,
+            "",
+            round(t_two / t_one / per_link, 3),
+            "ratio: cost of one potential evaluation / one closed-form link; an error-estimated link needs "
+            ">= 9 (one step against two), so the link ratio cannot fall below 9x that",
         ),
         row(
             f"charge-2 su3 start {start}^4 (periodic, rtol 1e-8)",

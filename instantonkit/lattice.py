@@ -140,7 +140,7 @@ class LinkReport:
     / 8 pi^2 (None for open boundaries; above BOUNDARY_WARN_FRACTION a BoundaryActionWarning is
     raised); window: the layer width of boundary='window' (fraction of the half-box), else None;
     field: the field's ``record()`` (JSON-ready, rebuilt by :func:`field_from_record`; None when the
-    field has no record hook).
+    field has no record hook); potential_evaluations: of the Magnus links in all (0 for closed forms).
     """
 
     shape: tuple
@@ -161,6 +161,7 @@ class LinkReport:
     boundary_action_fraction: float | None = None
     window: float | None = None
     field: dict | None = None
+    potential_evaluations: int = 0
 
     def as_metadata(self) -> dict:
         """A JSON-ready dict of the generation parameters and quality figures."""
@@ -303,6 +304,7 @@ class StartSpec:
             boundary_action_fraction=None if action_err is None else float(action_err) / _EIGHT_PI2,
             window=self.window,
             field=_record_of(self.field),
+            potential_evaluations=int(stats.evaluations),
         )
 
 

@@ -251,7 +251,8 @@ class LinkStats:
     method: 'closed', 'magnus' or None (nothing computed yet); max_steps: most Magnus steps on one
     link (0 for closed forms); refinement_diff: largest accepted error estimate (the difference of two
     refinements, extrapolated in the sixth-order regime: :func:`_error_estimate`);
-    unitarity_before / unitarity_after: :func:`unitarity_deviation` before and after the projection.
+    unitarity_before / unitarity_after: :func:`unitarity_deviation` before and after the projection;
+    evaluations: potential evaluations in all (3 per Magnus step and link; 0 for closed forms).
     """
 
     method: str | None = None
@@ -259,6 +260,7 @@ class LinkStats:
     refinement_diff: float = 0.0
     unitarity_before: float = 0.0
     unitarity_after: float = 0.0
+    evaluations: int = 0
 
     def merge(self, other: LinkStats) -> LinkStats:
         """The record of both computations: maxima of the figures, the later method when both have one."""
@@ -268,6 +270,7 @@ class LinkStats:
             refinement_diff=max(self.refinement_diff, other.refinement_diff),
             unitarity_before=max(self.unitarity_before, other.unitarity_before),
             unitarity_after=max(self.unitarity_after, other.unitarity_after),
+            evaluations=self.evaluations + other.evaluations,
         )
 
 
@@ -303,6 +306,7 @@ def _magnus_refined(field, xs, ds, rtol, batch=None, allow_bad=False):
     """
     steps = 1
     prev = _magnus_at(field, xs, ds, steps)
+    evaluations = 3 * xs.shape[0]
     out = prev.copy()
     todo = np.arange(xs.shape[0])
     prev_diff = np.full(xs.shape[0], np.nan)
@@ -317,6 +321,7 @@ def _magnus_refined(field, xs, ds, rtol, batch=None, allow_bad=False):
                 "the field may be singular near those links"
             )
         cur = _magnus_at(field, xs[todo], ds[todo], steps)
+        evaluations += 3 * steps * todo.size
         if allow_bad:  # links through a singular point: NaN rows for the caller to rebuild in another gauge
             nan_rows = ~np.all(np.isfinite(cur), axis=(-2, -1))
             if np.any(nan_rows):
@@ -338,7 +343,7 @@ def _magnus_refined(field, xs, ds, rtol, batch=None, allow_bad=False):
                 f"step {ds[bad[0]].tolist()}); the field is singular there (e.g. the centre of a singular gauge)"
             )
         todo, prev, prev_diff = todo[~done], cur[~done], diff[~done]
-    return out, LinkStats(method="magnus", max_steps=max_steps, refinement_diff=diff_max)
+    return out, LinkStats(method="magnus", max_steps=max_steps, refinement_diff=diff_max, evaluations=evaluations)
 
 
 def transporters(field, xs, ds, method: str, rtol: float, batch: int | None, allow_bad: bool = False):
