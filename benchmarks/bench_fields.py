@@ -373,7 +373,7 @@ def _first_call_rows() -> list[dict]:
             f"t / goal, goal <= {AUTODIFF_FIRST_CALL_GOAL_S:g} s",
         )
     )
-    kern = fields._kernel("action_density", "auto")
+    kern = fields._kernel(("action_density", "auto"))
     before = kern._cache_size()
     t0 = time.perf_counter()
     for rho in (0.5, 0.7, 0.9, 1.1, 1.3):

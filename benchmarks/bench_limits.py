@@ -218,7 +218,7 @@ first("verify(bpst())", lambda: ik.verify(ik.bpst()))
 for k in ks:
     d = ik.random_adhm(k, seed=100 + k)
     first(f"autodiff field strength k={k}", lambda: ik.field_strength(d, pts, method="autodiff"))
-kern = fields._kernel("action_density", "auto")
+kern = fields._kernel(("action_density", "auto"))
 size = getattr(kern, "_cache_size", lambda: -1)
 before = size()
 t0 = time.perf_counter()
