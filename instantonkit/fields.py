@@ -523,6 +523,8 @@ class _Kernel:
 @functools.cache
 def _kernel(*specs: tuple[str, str]) -> _Kernel:
     """One kernel per tuple of (quantity, method); jax caches its compilation per field structure."""
+    if not specs or not all(isinstance(sp, tuple) and len(sp) == 2 for sp in specs):
+        raise TypeError(f"kernel specs must be (quantity, method) pairs; found {specs!r}")
     return _Kernel(specs)
 
 
