@@ -404,17 +404,33 @@ class UnitaryADHMData(PytreeFields):
         strict lower triangle plus half the diagonal of that.  No derivatives are taken (so the autodiff
         field strength is one forward-mode pass); tests compare with U^dag d_mu U by jax.jacfwd.
         """
-        x = jnp.asarray(x, dtype=jnp.float64)
-        k, n = self.k, self.rank
-        u, fdv, linv = self._frame_parts(x)
-        fdv = fdv.reshape(2, k, n)
-        sf = jnp.einsum("mab,bjn->majn", jnp.asarray(_S), fdv).reshape(4, 2 * k, n)  # (s_mu (x) f) Delta^dag V0
-        w = jnp.einsum("ia,min,bn->mab", jnp.conj(u[: 2 * k]), sf, jnp.conj(linv))
+        w = self._w(x)
+        n = self.rank
         h = -(w + jnp.conj(jnp.swapaxes(w, -1, -2)))
         phi = jnp.tril(h, -1) + 0.5 * jnp.real(jnp.diagonal(h, axis1=-2, axis2=-1))[..., None] * jnp.eye(n)
         a = -w - jnp.conj(jnp.swapaxes(phi, -1, -2))
         tr = jnp.trace(a, axis1=-2, axis2=-1) / n
         return a - tr[:, None, None] * jnp.eye(n)
+
+    def _w(self, x):
+        """W_mu = (b^dag U)^dag (s_mu (x) f) Delta^dag V0 L^-dag of :meth:`potential`, at one point (4,) -> (4, N, N)."""
+        x = jnp.asarray(x, dtype=jnp.float64)
+        k, n = self.k, self.rank
+        u, fdv, linv = self._frame_parts(x)
+        fdv = fdv.reshape(2, k, n)
+        sf = jnp.einsum("mab,bjn->majn", jnp.asarray(_S), fdv).reshape(4, 2 * k, n)  # (s_mu (x) f) Delta^dag V0
+        return jnp.einsum("ia,min,bn->mab", jnp.conj(u[: 2 * k]), sf, jnp.conj(linv))
+
+    def u1_connection(self, x):
+        """The flat U(1) part a_mu = tr(U^dag d_mu U) / N that :meth:`potential` removes, at one point (4,) -> (4,) complex.
+
+        Closed form: with W_mu of :meth:`potential`, tr(U^dag d_mu U) = -tr W_mu - tr Phi_mu^dag and
+        tr Phi_mu = -Re tr W_mu (real diagonal), so a_mu = -i Im tr(W_mu) / N, purely imaginary.  It is
+        flat (tr F = 0) and decays like |x|^-4 in the singular gauge, like |x|^-1 in the regular gauge
+        (measured; tests/test_unitary_zero_modes.py).  Package-internal seam for :mod:`instantonkit.zero_modes`.
+        """
+        w = self._w(x)
+        return -1j * jnp.imag(jnp.trace(w, axis1=-2, axis2=-1)) / self.rank
 
     def field_strength(self, x):
         """Closed-form F_mu nu = U^dag b (S_mu nu (x) f) b^dag U (trace part removed) -> (4, 4, N, N).

@@ -58,8 +58,17 @@ solves ``sum_mu (D_mu psi_i) SIGMA[mu] = 0`` exactly as the quaternionic instant
 -1), same layout ``(..., k, N, 2)``.  The covariant derivative is that of the frame's own connection
 ``U^dag d_mu U = data.potential + a_mu 1_N``: the potential of ``UnitaryADHMData`` drops the trace part
 ``a_mu = tr(U^dag d_mu U) / N`` (:func:`u1_part`), which is flat (tr F = 0; tests check d a = 0), so
-``a = d lambda`` on R^4 minus the frame's singular points (simply connected) and the modes of the
-traceless field are ``exp(lambda) psi`` with ``|exp(lambda)| = 1``: every density below is the same.
+``a = d lambda`` on R^4 minus the frame's singular points (simply connected, common practice), lambda = i theta.
+The frame ``U' = U exp(-lambda)`` has ``U'^dag d U' = U^dag d U - d lambda = data.potential``, and its modes
+are ``exp(lambda) psi`` (``conj(exp(-i theta)) = exp(i theta)``): :func:`zero_modes` returns these, the
+modes of ``data.potential``, unless asked for the frame's (``connection="frame"``).  theta is the line
+integral of Im a along the ray from the layout centre (:func:`u1_phase`), normalised to 0 at infinity in
+the singular gauge, where a = O(|x|^-4) (measured), and at the centre in the regular gauge, where
+a = O(|x|^-1) (measured) and theta has a direction-dependent limit at infinity.  For k = 1 in the singular
+gauge a = 0 exactly (derived here: with W = [U, Delta (Delta^dag Delta)^-1/2] unitary, N a = d log det W -
+i Im tr(F Delta^dag d Delta); in the singular gauge det W has the phase of det(b^dag Delta), and for k = 1
+both det(b^dag Delta) = |B1 - z1|^2 + |B2 - z2|^2 and tr(F Delta^dag d Delta) are real), so the phase
+matters from k = 2 on.  Since ``|exp(lambda)| = 1`` every density below is the same.
 Densities need 2k x 2k work only: ``psi^dag psi`` summed over spinors is
 ``G = (1/pi^2) sum_alpha (F M F)_(alpha i, alpha j)`` with ``M = b^dag P b = 1 - D F D^dag``,
 ``D = b^dag Delta``; G is Hermitian (complex), and the same identity ``G_ij = -(1/4 pi^2) box f_ij``
@@ -93,6 +102,7 @@ __all__ = [
     "zero_mode_gram",
     "zero_mode_overlap",
     "dirac_residual",
+    "u1_phase",
 ]
 
 #: sigma_mu = image of e_mu = (i sigma_1, i sigma_2, i sigma_3, 1); (4, 2, 2) complex128.
@@ -110,6 +120,23 @@ _UNITARY_CHUNK = 256
 #: Right factor of the complex modes, sigma_2 (Pauli matrix written out): sum_mu D_mu (U^dag b F) s_mu = 0
 #: becomes sum_mu D_mu psi SIGMA[mu] = 0, since s_mu = sigma_2 SIGMA[mu] sigma_2 s_4 (checked in the tests).
 _SIGMA_2 = np.array([[0.0, -1j], [1j, 0.0]])
+
+
+#: Connections whose modes :func:`zero_modes` returns for complex data (module docstring).
+CONNECTIONS = ("traceless", "frame")
+
+#: Default Gauss-Legendre nodes of the ray integral of the U(1) phase (:func:`u1_phase`) per gauge, chosen by
+#: measured convergence against 1024-4096 nodes on 256 random points (tests/test_unitary_zero_modes.py):
+#: singular gauge 64 nodes, max error <= 5e-15 (SU(3) k = 2, 3, SU(4) k = 2); regular gauge 512 nodes, median
+#: 1e-14 but up to 1e-2 on rays that pass near the isolated points where that frame is singular (N > 2).
+PHASE_NODES = {"singular": 64, "regular": 512}
+
+
+@functools.cache
+def _legendre(n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Gauss-Legendre nodes and weights of n points on [0, 1] (numpy.polynomial.legendre.leggauss, mapped)."""
+    s, w = np.polynomial.legendre.leggauss(n)
+    return 0.5 * (s + 1.0), 0.5 * w
 
 
 def _check_data(data) -> ADHMData | UnitaryADHMData:
@@ -171,12 +198,57 @@ def u1_part(data: UnitaryADHMData, x):
     return jnp.einsum("ia,iam->m", jnp.conj(u), jac) / data.rank
 
 
-def _unitary_dirac_at(data: UnitaryADHMData, x):
-    """(residual, scale) of the complex modes with D_mu = d_mu + data.potential_mu + a_mu (frame connection)."""
+def _unitary_angle_at(data: UnitaryADHMData, x, anchor, n: int):
+    """theta(x) with d_mu theta = Im a_mu (a = i d theta, :meth:`UnitaryADHMData.u1_connection`), at one point -> ().
+
+    anchor = (c (4,), l): the ray c + t e, e = (x - c) / R, R = |x - c| (e = e_4 when R = 0), with t - R =
+    (R + l) s / (1 - s) beyond x (singular gauge: theta(x) = -int_R^inf Im a(c + t e) . e dt, theta -> 0 at
+    infinity) or t = l R s / (l + R (1 - s)) from c to x (regular gauge: theta(x) = int_0^R ..., theta(c) = 0);
+    both maps have dt/ds smooth on [0, 1] and n Gauss-Legendre nodes in s.
+    """
     x = jnp.asarray(x, dtype=jnp.float64)
-    psi = _unitary_psi_at(data, x)  # (k, N, 2)
-    dpsi = jnp.moveaxis(jax.jacfwd(lambda y: _unitary_psi_at(data, y))(x), -1, 0)  # (mu, k, N, 2)
-    a = data.potential(x) + u1_part(data, x)[:, None, None] * jnp.eye(data.rank)
+    c, ell = anchor[:4], anchor[4]
+    d = x - c
+    r = jnp.sqrt(jnp.sum(d**2))
+    safe = jnp.where(r > 0.0, r, 1.0)  # no division by zero, also in derivatives
+    e = jnp.where(r > 0.0, d / safe, jnp.array([0.0, 0.0, 0.0, 1.0]))
+    s, w = (jnp.asarray(v) for v in _legendre(n))
+    if data.gauge == "singular":
+        t = (r + ell * s) / (1.0 - s)
+        jac = -(r + ell) / (1.0 - s) ** 2
+    else:
+        den = ell + r * (1.0 - s)
+        t = ell * r * s / den
+        jac = ell * r * (ell + r) / den**2
+    alpha = jax.vmap(lambda y: jnp.imag(data.u1_connection(y)))(c + t[:, None] * e)  # (n, 4)
+    return jnp.sum(w * jac * (alpha @ e))
+
+
+def u1_angle(data: UnitaryADHMData, x, *, nodes: int | None = None):
+    """theta of :func:`u1_phase` at one point x (4,) -> (), jax-traceable in x (data concrete).
+
+    Package-internal seam (tests differentiate it with jax.jacfwd against :func:`u1_part`).
+    """
+    n = PHASE_NODES[data.gauge] if nodes is None else _validate.positive_int("nodes", nodes)
+    return _unitary_angle_at(data, x, jnp.asarray(_anchor(data)), n)
+
+
+def _unitary_traceless_psi_at(data: UnitaryADHMData, x, anchor, n: int):
+    """Modes of the traceless data.potential, exp(i theta) psi (theta of :func:`_unitary_angle_at`): (k, N, 2)."""
+    return jnp.exp(1j * _unitary_angle_at(data, x, anchor, n)) * _unitary_psi_at(data, x)
+
+
+def _unitary_dirac_at(data: UnitaryADHMData, x, anchor, n: int, traceless: bool):
+    """(residual, scale) of the complex modes of data.potential (traceless) or of U^dag d U = potential + a 1."""
+    x = jnp.asarray(x, dtype=jnp.float64)
+    if traceless:
+        modes = lambda y: _unitary_traceless_psi_at(data, y, anchor, n)  # noqa: E731
+        a = data.potential(x)
+    else:
+        modes = lambda y: _unitary_psi_at(data, y)  # noqa: E731
+        a = data.potential(x) + u1_part(data, x)[:, None, None] * jnp.eye(data.rank)
+    psi = modes(x)  # (k, N, 2)
+    dpsi = jnp.moveaxis(jax.jacfwd(modes)(x), -1, 0)  # (mu, k, N, 2)
     cov = dpsi + jnp.einsum("mcd,kdb->mkcb", a, psi)
     res = jnp.einsum("mkca,mab->kcb", cov, SIGMA)
     return jnp.stack([_frobenius(res), sum(_frobenius(cov[m]) for m in range(4))])
@@ -250,34 +322,60 @@ def _dirac_stacked(data: ADHMData, x):
 
 
 _POINT_FNS = {"modes": _psi_at, "gram": _gram_at, "density": _density_at, "dirac": _dirac_stacked}
-_UNITARY_FNS = {
-    "modes": _unitary_psi_at,
-    "gram": _unitary_gram_at,
-    "density": _unitary_density_at,
-    "dirac": _unitary_dirac_at,
-}
+
+
+def _unitary_fn(name: str, n: int):
+    """Per-point function (data, x, anchor) of complex data for kernel ``name`` (n phase nodes)."""
+    fns = {
+        "modes": lambda d, x, a: _unitary_traceless_psi_at(d, x, a, n),
+        "modes_frame": lambda d, x, a: _unitary_psi_at(d, x),
+        "gram": lambda d, x, a: _unitary_gram_at(d, x),
+        "density": lambda d, x, a: _unitary_density_at(d, x),
+        "dirac": lambda d, x, a: _unitary_dirac_at(d, x, a, n, True),
+        "dirac_frame": lambda d, x, a: _unitary_dirac_at(d, x, a, n, False),
+        "phase": lambda d, x, a: _unitary_angle_at(d, x, a, n),
+    }
+    return fns[name]
 
 
 @functools.cache
-def _kernel(name: str, unitary: bool = False):
-    fn = (_UNITARY_FNS if unitary else _POINT_FNS)[name]
-    return jax.jit(jax.vmap(fn, in_axes=(None, 0)))
+def _kernel(name: str, unitary: bool = False, n: int = 64):
+    if unitary:
+        return jax.jit(jax.vmap(_unitary_fn(name, n), in_axes=(None, 0, None)))
+    return jax.jit(jax.vmap(_POINT_FNS[name.removesuffix("_frame")], in_axes=(None, 0)))
 
 
-def _map(name: str, data, points, chunk_size: int):
+def _anchor(data: UnitaryADHMData) -> np.ndarray:
+    """(c, l) of the phase's ray: the layout centre (mean of the centres) and length scale of ``data.hint``; (5,)."""
+    c, ell = data.hint()
+    return np.concatenate([np.asarray(c, dtype=np.float64), [float(ell)]])
+
+
+def _connection_suffix(data, connection) -> str:
+    """'' (traceless, the default) or '_frame' after validating the connection keyword."""
+    _validate.choice("connection", connection, CONNECTIONS)
+    return "_frame" if connection == "frame" else ""
+
+
+def _map(name: str, data, points, chunk_size: int, nodes: int | None = None):
     """Evaluate the per-point function ``name`` on points (..., 4) in compiled batches; numpy out."""
     chunk_size = _validate.positive_int("chunk_size", chunk_size)
+    n = PHASE_NODES[data.gauge] if nodes is None else _validate.positive_int("nodes", nodes)
     pts, lead = as_points(points)
     m = pts.shape[0]
     unitary = isinstance(data, UnitaryADHMData)
+    after: tuple = ()
     if unitary:
         chunk_size = min(chunk_size, _UNITARY_CHUNK)
-    kern = _kernel(name, unitary)
-    probe = jax.eval_shape(kern, data, jax.ShapeDtypeStruct((1, 4), jnp.float64))
+        after = (jnp.asarray(_anchor(data)),)
+    elif name == "phase":
+        raise TypeError(f"u1_phase needs UnitaryADHMData; found {type(data).__name__} (its potential is U^dag dU)")
+    kern = _kernel(name, unitary, n if unitary else 64)  # n only matters for complex data
+    probe = jax.eval_shape(kern, data, jax.ShapeDtypeStruct((1, 4), jnp.float64), *after)
     out = np.empty((m,) + probe.shape[1:], dtype=probe.dtype)
     if m:
         size = min(chunk_size, 1 << int(np.ceil(np.log2(m))))  # one batch size per call: few compiled shapes
-        run_batched(kern, [pts], size, out=out, args_before=(data,))
+        run_batched(kern, [pts], size, out=out, args_before=(data,), args_after=after)
         bad = ~np.all(np.isfinite(out.reshape(m, -1)), axis=1)
         if np.any(bad):
             raise ValueError(
@@ -285,17 +383,27 @@ def _map(name: str, data, points, chunk_size: int):
                 f"{pts[np.argmax(bad)].tolist()}); the frame U is singular there (try the other gauge)"
             )
     out = out.reshape(lead + out.shape[1:])
-    if name == "dirac":
+    if name.startswith("dirac"):
         return out[..., 0], out[..., 1]
     return out
 
 
-def zero_modes(data: ADHMData | UnitaryADHMData, points, *, chunk_size: int = _CHUNK) -> np.ndarray:
+def zero_modes(
+    data: ADHMData | UnitaryADHMData,
+    points,
+    *,
+    chunk_size: int = _CHUNK,
+    connection: str = "traceless",
+    phase_nodes: int | None = None,
+) -> np.ndarray:
     """The k normalisable zero modes psi = (1/pi) U^dag b f at points, in the gauge ``data.gauge``.
 
-    For complex SU(N) data psi = (1/pi) U^dag b (1_2 (x) f) (sigma_2 (x) 1_k), covariantly constant with
-    respect to the frame connection U^dag d U (module docstring; differs from ``data.potential`` by a flat
-    U(1) part, so the densities are those of the SU(N) field); at most 256 points per compiled call.
+    For complex SU(N) data the default (``connection="traceless"``) are the modes of ``data.potential``,
+    exp(i theta) (1/pi) U^dag b (1_2 (x) f) (sigma_2 (x) 1_k) with theta of :func:`u1_phase`;
+    ``connection="frame"`` gives the modes without the phase, those of the frame connection
+    U^dag d U = data.potential + a 1_N (module docstring).  Densities and the Gram matrix are the same for
+    both.  At most 256 points per compiled call.  For ADHMData both values give the same modes
+    (U^dag d U is already the Sp(n) potential).
 
     Instanton modes obey sum_mu (D_mu psi_i) SIGMA[mu] = 0, anti-instanton modes the same with
     SIGMA_BAR (module docstring); they are orthonormal, int sum_{c, alpha} conj(psi_i) psi_j = delta_ij.
@@ -304,13 +412,49 @@ def zero_modes(data: ADHMData | UnitaryADHMData, points, *, chunk_size: int = _C
       data: ADHMData of Sp(n), or UnitaryADHMData of SU(N), charge k.
       points: (..., 4) float64.
       chunk_size: points per compiled call, a positive integer.
+      connection: "traceless" (modes of data.potential) or "frame" (modes of U^dag d U).
+      phase_nodes: None (PHASE_NODES of the gauge) or the nodes of :func:`u1_phase`, a positive integer.
     Returns:
       (..., k, 2n, 2) (or (..., k, N, 2)) complex128, axes (mode i, colour c, spinor alpha).
     Raises:
       TypeError when data is neither ADHMData nor UnitaryADHMData, for non-real points or a non-integer chunk_size;
-      ValueError for bad points, chunk_size < 1, or points where the frame is singular.
+      ValueError for bad points, chunk_size < 1, an unknown connection, or points where the frame is singular.
     """
-    return _map("modes", _check_data(data), points, chunk_size)
+    data = _check_data(data)
+    return _map("modes" + _connection_suffix(data, connection), data, points, chunk_size, phase_nodes)
+
+
+def u1_phase(data: UnitaryADHMData, points, *, chunk_size: int = _CHUNK, nodes: int | None = None) -> np.ndarray:
+    """The angle theta(x) whose phase exp(i theta) turns frame-connection modes into modes of ``data.potential``.
+
+    With a_mu = tr(U^dag d_mu U) / N = i d_mu theta (the flat U(1) part that ``data.potential`` drops;
+    flat since tr F = 0 for these self-dual fields, common practice), lambda = i theta obeys d lambda = a,
+    so U' = U exp(-lambda) has U'^dag d U' = data.potential and its modes are exp(lambda) psi
+    (psi the modes of U, :func:`zero_modes` with connection="frame").  theta is a line integral of
+    Im a along the ray from the layout centre c (mean of the centres) through x, by ``nodes``
+    Gauss-Legendre nodes:
+
+      singular gauge (a ~ |x|^-4, measured): theta(x) = -int_|x-c|^inf Im a(c + t e) . e dt, theta -> 0 at infinity;
+      regular gauge (a ~ |x|^-1, measured, so theta has a direction-dependent limit at infinity):
+        theta(x) = int_0^|x-c| Im a(c + t e) . e dt, theta(c) = 0.
+
+    For k = 1 in the singular gauge a = 0 (derived: the phase of det U equals that of det b^dag Delta,
+    real for k = 1) and theta = 0.
+
+    Args:
+      data: UnitaryADHMData of SU(N).
+      points: (..., 4) float64.
+      chunk_size: points per compiled call, a positive integer (at most 256 are used).
+      nodes: Gauss-Legendre nodes of the ray integral, a positive integer, or None for PHASE_NODES[data.gauge]
+        (64 singular: error <= 5e-15 measured; 512 regular, whose frame has isolated singular points for N > 2
+        near which the integrand peaks and more nodes are needed).
+    Returns:
+      (...,) float64.
+    Raises:
+      TypeError for data that are not UnitaryADHMData, non-real points or non-integer sizes;
+      ValueError for bad points or sizes < 1.
+    """
+    return _map("phase", _check_data(data), points, chunk_size, nodes)
 
 
 def zero_mode_gram(data: ADHMData | UnitaryADHMData, points, *, chunk_size: int = _CHUNK) -> np.ndarray:
@@ -341,17 +485,25 @@ def zero_mode_density(data: ADHMData | UnitaryADHMData, points, *, chunk_size: i
 
 
 def dirac_residual(
-    data: ADHMData | UnitaryADHMData, points, *, chunk_size: int = _CHUNK
+    data: ADHMData | UnitaryADHMData,
+    points,
+    *,
+    chunk_size: int = _CHUNK,
+    connection: str = "traceless",
+    phase_nodes: int | None = None,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Pointwise Dirac-equation check of :func:`zero_modes` by automatic differentiation.
 
     Returns (residual, scale), each (...,) float64: residual = |sum_mu (D_mu psi) S_mu| with
     D_mu psi = d_mu psi + A_mu psi (jax.jacfwd; A = data.potential, same gauge as psi) and
     S = SIGMA (instanton) or SIGMA_BAR (anti-instanton), Frobenius norm over (mode, colour, spinor);
-    scale = sum_mu |D_mu psi|, so residual / scale is the relative violation.  For SU(N) data
-    A = data.potential + u1_part (the frame connection U^dag d U, module docstring) and S = SIGMA.
+    scale = sum_mu |D_mu psi|, so residual / scale is the relative violation.  For SU(N) data S = SIGMA and
+    the modes of ``zero_modes(data, points, connection=connection)`` are tested against the connection they
+    belong to: A = data.potential ("traceless", the derivative includes that of the phase) or
+    A = data.potential + u1_part ("frame", U^dag d U, module docstring); phase_nodes as in :func:`zero_modes`.
     """
-    return _map("dirac", _check_data(data), points, chunk_size)
+    data = _check_data(data)
+    return _map("dirac" + _connection_suffix(data, connection), data, points, chunk_size, phase_nodes)
 
 
 def zero_mode_overlap(

@@ -1,7 +1,7 @@
 """Specification of the fundamental zero modes of complex ADHM (SU(N)) backgrounds: the spinor
-relation, the Dirac equation by autodiff, the flat U(1) part, the Gram closed form, the box-f
-identity, orthonormality and the count k by quadrature, the BPST density and agreement with the
-quaternionic modes for N = 2 data.
+relation, the Dirac equation by autodiff (modes of data.potential by default, of the frame connection
+on request), the flat U(1) part and its phase, the Gram closed form, the box-f identity, orthonormality
+and the count k by quadrature, the BPST density and agreement with the quaternionic modes for N = 2 data.
 
 Point sets have N_POINTS points so that compiled kernels are reused; every batch of complex data
 stays at <= 256 points per compiled call (module constant of instantonkit.zero_modes).
@@ -81,16 +81,107 @@ def test_s_mu_are_sigma_mu_conjugated_by_sigma_2():
 # -- the Dirac equation --------------------------------------------------------------------------------
 
 
+@pytest.mark.parametrize("connection", ["traceless", "frame"])
 @pytest.mark.parametrize(
     "case", [pytest.param(c, marks=pytest.mark.long) if c == "su3_k3" else c for c in sorted(CASES)]
 )
-def test_modes_solve_the_dirac_equation(case):
-    # sum_mu (D_mu psi_i) SIGMA_mu = 0 with D = d + data.potential + a 1 (a the flat U(1) part), by jax.jacfwd
+def test_modes_solve_the_dirac_equation(case, connection):
+    # sum_mu (D_mu psi_i) SIGMA_mu = 0 by jax.jacfwd (an independent route to the derivative), with
+    # D = d + data.potential for the default modes and D = d + data.potential + a 1 (the frame connection) for
+    # connection="frame"
     data = CASES[case]()
-    res, scale = zm.dirac_residual(data, points_near(data, 1))
+    res, scale = zm.dirac_residual(data, points_near(data, 1), connection=connection)
     assert res.shape == (N_POINTS,)
     assert float(np.max(res / scale)) < 1e-10
     assert float(np.min(scale)) > 1e-6  # not trivially: the modes are not covariantly constant
+
+
+@pytest.mark.parametrize("case", ["su3_k2", "su4_k2"])
+def test_frame_modes_are_the_default_modes_without_the_phase(case):
+    # default = exp(i theta) frame modes; the frame modes with D = d + data.potential leave
+    # sum_mu (D_frame psi - a_mu psi) SIGMA_mu = -sum_mu a_mu psi SIGMA_mu, which is not small: the default matters
+    data = CASES[case]()
+    x = points_near(data, 1)
+    psi = zm.zero_modes(data, x, connection="frame")
+    theta = zm.u1_phase(data, x)
+    np.testing.assert_allclose(zm.zero_modes(data, x), np.exp(1j * theta)[:, None, None, None] * psi, atol=1e-15)
+    a = np.stack([np.asarray(zm.u1_part(data, jnp.asarray(p))) for p in x])  # (P, 4)
+    wrong = np.einsum("pm,pkca,mab->pkcb", a, psi, zm.SIGMA)
+    _, scale = zm.dirac_residual(data, x)
+    assert float(np.max(np.linalg.norm(wrong.reshape(len(x), -1), axis=1) / scale)) > 1e-4
+
+
+# -- the U(1) phase ----------------------------------------------------------------------------------
+
+
+PHASE_CASES = ["su3_k1", "su3_k2", "su4_k2"] + [
+    pytest.param(c, marks=pytest.mark.long) for c in ("su3_k2_regular", "su3_k3")
+]
+
+
+@pytest.mark.parametrize("case", PHASE_CASES)
+def test_phase_gradient_is_the_u1_part(case):
+    # d theta = Im a, a = tr(U^dag dU) / N: jax.jacfwd of the quadrature against u1_part, which is jax.jacfwd of
+    # the frame (independent of the closed form data.u1_connection that the quadrature integrates)
+    # (the regular gauge's frame has isolated singular points for N > 2, near which the ray integrand peaks:
+    # 4096 nodes there, the default 64 in the singular gauge)
+    data = CASES[case]()
+    nodes = 4096 if data.gauge == "regular" else None
+    x = points_near(data, 11)[:4]
+    angle = jax.jit(lambda y: zm.u1_angle(data, y, nodes=nodes))
+    grad_fn = jax.jit(jax.jacfwd(angle))
+    for p in x:
+        grad = np.asarray(grad_fn(jnp.asarray(p)))
+        a = np.asarray(zm.u1_part(data, jnp.asarray(p)))
+        assert float(np.max(np.abs(a.real))) < 1e-13
+        np.testing.assert_allclose(grad, a.imag, atol=1e-11)
+        np.testing.assert_allclose(np.asarray(data.u1_connection(jnp.asarray(p))), a, atol=1e-13)
+    np.testing.assert_allclose(zm.u1_phase(data, x), [float(zm.u1_angle(data, jnp.asarray(p))) for p in x], atol=1e-13)
+
+
+def test_phase_vanishes_for_one_instanton_in_the_singular_gauge():
+    # derived in the zero_modes docstring: for k = 1 the phase of det W and tr(F Delta^dag d Delta) are real
+    data = CASES["su3_k1"]()
+    assert float(np.max(np.abs(zm.u1_phase(data, points_near(data, 12))))) < 1e-14
+
+
+@pytest.mark.parametrize("case", ["su3_k2", "su4_k2", "su3_k3"])
+def test_phase_nodes_converge(case):
+    # the default 64 Gauss-Legendre nodes (singular gauge) against 1024 (numpy.polynomial.legendre.leggauss)
+    data = CASES[case]()
+    c, scale = data.hint()
+    rng = np.random.default_rng(13)
+    x = c + scale * rng.normal(size=(64, 4)) * rng.choice([0.3, 1.0, 3.0, 10.0], size=(64, 1))
+    err = np.abs(zm.u1_phase(data, x) - zm.u1_phase(data, x, nodes=1024))
+    assert float(np.max(err)) < 1e-13
+    assert float(np.max(np.abs(zm.u1_phase(data, x, nodes=16) - zm.u1_phase(data, x)))) > 1e-15  # not trivial
+
+
+@pytest.mark.parametrize("case", ["su3_k2", "su4_k2"])
+def test_phase_and_u1_part_decay_in_the_singular_gauge(case):
+    # theta -> 0 at infinity (its normalisation) with a = O(|x|^-4), theta = O(|x|^-3): measured decay ratios
+    data = CASES[case]()
+    c, scale = data.hint()
+    e = np.random.default_rng(14).normal(size=(N_POINTS, 4))
+    e /= np.linalg.norm(e, axis=1, keepdims=True)
+    amax = lambda r: max(float(np.max(np.abs(np.asarray(data.u1_connection(jnp.asarray(c + r * v)))))) for v in e)  # noqa: E731
+    tmax = lambda r: float(np.max(np.abs(zm.u1_phase(data, c + r * e))))  # noqa: E731
+    r1, r2 = 100.0 * scale, 1000.0 * scale
+    assert 0.5e-4 < amax(r2) / amax(r1) < 2e-4
+    assert 0.5e-3 < tmax(r2) / tmax(r1) < 2e-3
+    assert tmax(r2) < 1e-8 and tmax(scale) > 1e-4
+
+
+def test_phase_keeps_densities_and_gram():
+    # |exp(i theta)| = 1: psi^dag psi and the Gram matrix of the default modes are those of the frame modes
+    data = CASES["su3_k2"]()
+    x = points_near(data, 15)
+    psi, frame = zm.zero_modes(data, x), zm.zero_modes(data, x, connection="frame")
+    assert float(np.max(np.abs(zm.u1_phase(data, x)))) > 1e-3  # the phase is not trivial here
+    gram = lambda p: np.einsum("pica,pjca->pij", p.conj(), p)  # noqa: E731
+    np.testing.assert_allclose(gram(psi), gram(frame), atol=1e-15)
+    np.testing.assert_allclose(gram(psi), zm.zero_mode_gram(data, x), atol=1e-14)
+    np.testing.assert_allclose(np.abs(psi), np.abs(frame), atol=1e-15)
 
 
 @pytest.mark.long
@@ -157,6 +248,38 @@ def test_n2_data_reproduce_the_quaternionic_zero_mode_densities(k):
     np.testing.assert_allclose(zm.zero_mode_gram(c, x), zm.zero_mode_gram(q, x), atol=1e-10 * np.max(dq))
 
 
+def _colour_matrix(psi):
+    """(P, k, N, 2) modes -> (P, N, 2k) matrices colour x (mode, spinor), on which a gauge acts from the left."""
+    return np.transpose(psi, (0, 2, 1, 3)).reshape(psi.shape[0], psi.shape[2], -1)
+
+
+@pytest.mark.parametrize("k", [1, 2, 3])
+def test_n2_modes_are_the_quaternionic_modes_up_to_the_gauge_relation(k):
+    # the same field up to gauge (unitary_moduli.from_quaternionic): psi_c = g psi_q with g(x) unitary and
+    # A_c = g A_q g^-1 - (d g) g^-1 (the gauge relation of D = d + A, common practice), dg by central
+    # differences; both potentials are traceless, so det g is constant (for N = 2 the phase is 0, a = 0)
+    q = ik.random_adhm(k, seed=20 + k)
+    c = um.from_quaternionic(q)
+    x = points_near(q, 16)[:4]
+    assert float(np.max(np.abs(zm.u1_phase(c, x)))) < 1e-14
+
+    def gauge(y):
+        pq, pc = _colour_matrix(zm.zero_modes(q, y)), _colour_matrix(zm.zero_modes(c, y))
+        g = pc @ np.linalg.pinv(pq)
+        np.testing.assert_allclose(g @ pq, pc, atol=1e-12 * np.max(np.abs(pc)))
+        return g
+
+    g = gauge(x)
+    np.testing.assert_allclose(np.conj(np.swapaxes(g, 1, 2)) @ g, np.broadcast_to(np.eye(2), g.shape), atol=1e-12)
+    det = np.linalg.det(g)
+    np.testing.assert_allclose(det, det[0], atol=1e-12)
+    h = 1e-5
+    dg = np.stack([(gauge(x + h * e) - gauge(x - h * e)) / (2 * h) for e in np.eye(4)], axis=1)  # (P, mu, 2, 2)
+    gi = np.conj(np.swapaxes(g, 1, 2))[:, None]
+    rhs = g[:, None] @ np.asarray(ik.potential(q, x)) @ gi - dg @ gi
+    np.testing.assert_allclose(np.asarray(ik.potential(c, x)), rhs, atol=1e-8)
+
+
 def test_densities_are_gauge_and_colour_invariant():
     data = CASES["su3_k2"]()
     x = points_near(data, 6)
@@ -192,3 +315,15 @@ def test_bad_input():
     data = CASES["su3_k1"]()
     with pytest.raises(ValueError, match=r"\(\.\.\., 4\)"):
         zm.zero_mode_density(data, np.zeros((2, 3)))
+    x = np.zeros((1, 4)) + 0.5
+    for fn in (zm.zero_modes, zm.dirac_residual):
+        with pytest.raises(ValueError, match=r"connection must be one of \('traceless', 'frame'\); found 'su3'"):
+            fn(data, x, connection="su3")
+        with pytest.raises(ValueError, match="connection must be one of"):
+            fn(ik.random_adhm(1, seed=1), x, connection=None)
+    with pytest.raises(TypeError, match="u1_phase needs UnitaryADHMData; found ADHMData"):
+        zm.u1_phase(ik.random_adhm(1, seed=1), x)
+    with pytest.raises(ValueError, match="nodes"):
+        zm.u1_phase(data, x, nodes=0)
+    with pytest.raises(ValueError, match="nodes"):
+        zm.zero_modes(data, x, phase_nodes=-3)
