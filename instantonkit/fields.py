@@ -469,13 +469,10 @@ def _differentiates(field, quantity: str, method: str) -> bool:
 class _Kernel:
     """The engine's compiled kernel for a tuple of (quantity, method): ``kernel(field, pts) -> values``.
 
-    One traced function returns every requested quantity, so several of them share one compilation and
-    XLA's common-subexpression pass shares their work (the Gram inverse of s, q and F; the potential
-    inside its own jacobian).  Two jitted variants: closed forms compile with XLA's full optimisation
-    (they are the hot paths); kernels that differentiate a potential (autodiff, user callables) use
-    :func:`instantonkit._config.lean_compiler_options` when it is on, since their graphs (a jacobian of a
-    jacobian for ADHM data) took most of a first call in XLA's optimisation passes.  jax caches each
-    variant's compilations per field structure (static data) and chunk shape.
+    One traced function returns every quantity asked for: one compilation, and XLA shares their work.
+    Closed forms compile with XLA's full optimisation (hot paths); kernels that differentiate a potential
+    use :func:`instantonkit._config.lean_compiler_options` when it is on (their graphs took most of a first
+    call in XLA's optimisation passes).  jax caches compilations per field structure and chunk shape.
     """
 
     def __init__(self, specs: tuple[tuple[str, str], ...]):
