@@ -204,7 +204,8 @@ def _rel(a: np.ndarray, b: np.ndarray, floor=0.0) -> tuple[float, int]:
     """max_i |a_i - b_i| / (max |b| + floor_i) over the leading axis (per-point max over the rest), and its argmax.
 
     ``floor`` (M,) adds the size of the terms that cancel in b at each point (|A|^2 for F = dA + [A, A]
-    near the singular centre of a singular gauge), so that rounding there is not taken for a mistake.
+    near the singular centre of a singular gauge; |F| |A|^2 for s and q from that F), so that rounding
+    there is not taken for a mistake.
     """
     diff = np.abs(a - b).reshape(a.shape[0], -1).max(axis=1)
     scale = (float(np.max(np.abs(b))) or 1.0) + np.asarray(floor)
@@ -278,8 +279,12 @@ def curvature_sample(field, points: np.ndarray, weights: np.ndarray, sign: int) 
             f"evaluating the curvature of {field_description(field)} failed: {type(err).__name__}: {err}"
         ) from err
     ref = {"field_strength": f_auto, "action_density": s_auto, "charge_density": q_auto}
+    # Rounding of the autodiff F near a singular-gauge centre is about eps |A|^2; it reaches s = -1/2 tr F F
+    # as |F| x that (Cauchy-Schwarz), and q = eps tr F F / 32 pi^2 as at most 1 / 4 pi^2 of it.
+    fnorm = np.sqrt(np.sum(np.abs(f_auto) ** 2, axis=(1, 2, 3, 4)))
+    floors = {"field_strength": a2, "action_density": fnorm * a2, "charge_density": fnorm * a2 / (4 * np.pi**2)}
     for name, val in closed.items():
-        deviations[name], i = _rel(val, ref[name], a2 if name == "field_strength" else 0.0)
+        deviations[name], i = _rel(val, ref[name], floors[name])
         worst[name] = points[i].tolist()
     q_is_s = False
     if "charge_density" in closed and "action_density" in closed:
