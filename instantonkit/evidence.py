@@ -263,17 +263,17 @@ def curvature_sample(field, points: np.ndarray, weights: np.ndarray, sign: int) 
     m, chunk = points.shape[0], ENGINE_CHUNK
     padded = _whole_chunks(points)
     try:
-        # one kernel for A and its curvature (the potential is shared with its jacobian), one for the closed forms
-        auto = _fields.evaluate_many(field, padded, (("field_strength", "autodiff"), "potential"), chunk_size=chunk)
-        f_auto, a = auto[0][:m], auto[1][:m]
-        a2 = np.sum(np.abs(a) ** 2, axis=(1, 2, 3))  # |A|^2: the size of the terms that cancel in F
-        s_auto, q_auto, dual = _derived_in_batches(f_auto, chunk)
-        deviations, worst = {}, {}
+        # one kernel for A, its autodiff curvature and the closed forms (one compile; XLA shares their work)
         names = [
             n for n in ("field_strength", "action_density", "charge_density") if _fields.hook(field, n) is not None
         ]
-        values = _fields.evaluate_many(field, padded, names, chunk_size=chunk) if names else ()
-        closed = {n: v[:m] for n, v in zip(names, values)}
+        wanted = (("field_strength", "autodiff"), "potential", *names)
+        values = [v[:m] for v in _fields.evaluate_many(field, padded, wanted, chunk_size=chunk)]
+        f_auto, a = values[0], values[1]
+        a2 = np.sum(np.abs(a) ** 2, axis=(1, 2, 3))  # |A|^2: the size of the terms that cancel in F
+        s_auto, q_auto, dual = _derived_in_batches(f_auto, chunk)
+        deviations, worst = {}, {}
+        closed = dict(zip(names, values[2:]))
     except _EVAL_ERRORS as err:
         raise FieldEvaluationError(
             f"evaluating the curvature of {field_description(field)} failed: {type(err).__name__}: {err}"
