@@ -216,7 +216,7 @@ def test_a_chunk_written_but_not_marked_done_is_recomputed(tmp_path):
     links = zarr.open_array(str(tmp_path / "s"), path="links", mode="r+")
     links[2:4] = np.zeros((2, 4, 4, 4, 4, 2, 2))  # as if a task died after its data and before its row
     rows = zarr.open_array(str(tmp_path / "s"), path="chunk_report", mode="r+")
-    rows[1, 0, 0, 0] = np.zeros(5)
+    rows[1, 0, 0, 0] = np.zeros(len(cluster.REPORT_COLUMNS))
     assert cluster.store_status(tmp_path / "s").chunks_done == 1
     z = cluster.lattice_links(field, (4, 4, 4, 4), 1.0, **kw)
     assert np.array_equal(np.asarray(z[...]), ik.lattice_links(field, (4, 4, 4, 4), 1.0))

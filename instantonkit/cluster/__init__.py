@@ -14,7 +14,7 @@ code for the last, padded batch of a call depends on its size, which depends on 
 
 Stores are Zarr (format 3) directories on a file system every worker sees under the same absolute path.  A store holds the
 result array (``links`` or ``values``) and a small array ``chunk_report`` with one row per chunk:
-``store.REPORT_COLUMNS`` = (done, unitarity before, unitarity after, Magnus steps, refinement difference).  A task writes
+``store.REPORT_COLUMNS`` = (done, unitarity before, unitarity after, Magnus steps, refinement difference, potential evaluations).  A task writes
 its chunk (Zarr's local store writes a temporary file and renames it, so a chunk is either all there
 or absent) and only then its row, so a row with ``done = 1`` always means a complete chunk.  A store
 whose rows are not all done is partial: calling again with the same parameters computes only the

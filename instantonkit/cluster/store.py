@@ -48,7 +48,7 @@ ATTR = "instantonkit"
 #: Name of the chunk-report array.
 REPORT = "chunk_report"
 #: Version of the store layout (stores of other versions are not read).
-FORMAT = 1
+FORMAT = 2  # 2: the chunk report gained the POTENTIAL_EVALUATIONS column
 
 
 class Column(enum.IntEnum):
@@ -59,6 +59,7 @@ class Column(enum.IntEnum):
     UNITARITY_AFTER = 2
     MAGNUS_STEPS = 3
     REFINEMENT_DIFF = 4
+    POTENTIAL_EVALUATIONS = 5
 
 
 #: Column names of the chunk report, in order.
@@ -74,6 +75,7 @@ def stats_row(stats: LinkStats) -> list:
         float(stats.unitarity_after),
         float(stats.max_steps),
         float(stats.refinement_diff),
+        float(stats.evaluations),
     ]
 
 
@@ -87,6 +89,7 @@ def rows_stats(rows) -> LinkStats:
         refinement_diff=float(np.max(rows[..., Column.REFINEMENT_DIFF])),
         unitarity_before=float(np.max(rows[..., Column.UNITARITY_BEFORE])),
         unitarity_after=float(np.max(rows[..., Column.UNITARITY_AFTER])),
+        evaluations=int(np.sum(rows[..., Column.POTENTIAL_EVALUATIONS])),
     )
 
 
