@@ -16,7 +16,7 @@ import numpy as np
 
 from .conventions import QUATERNION_BASIS
 
-__all__ = ["action_density_batch", "BLOCK"]
+__all__ = ["action_density_batch", "link_generator_batch", "BLOCK"]
 
 
 def _structure_constants() -> np.ndarray:
@@ -148,7 +148,7 @@ def _left_mul_matrix(off):
     return big.reshape(4 * k, 4 * k)
 
 
-def _qmul_last(a, b):
+def qmul_last(a, b):
     """Componentwise quaternion products a b of (4, ...) arrays (Hamilton 1843), from the units' table."""
     return jnp.stack(
         [sum(_C[d, e, c] * a[d] * b[e] for d in range(4) for e in range(4) if _C[d, e, c]) for c in range(4)]
@@ -214,7 +214,7 @@ def s_rank_one(lam, off, y, g):
     phi = jnp.max(pdiag, axis=0)
     gv = solve_upper_t(chol, ysel)  # f Delta^dag v, (k, 4, nb)
     og = jnp.dot(_left_mul_matrix(off), gv.reshape(4 * k, nb)).reshape(k, 4, nb)  # O f Delta^dag v
-    yg = jnp.moveaxis(_qmul_last(y, jnp.moveaxis(gv, 1, 0)), 0, 1)  # diag(y) f Delta^dag v, (k, 4, nb)
+    yg = jnp.moveaxis(qmul_last(y, jnp.moveaxis(gv, 1, 0)), 0, 1)  # diag(y) f Delta^dag v, (k, 4, nb)
     w = -(og + yg)
     w = w.at[:, 0].add(pick[1:])  # + b^dag v (real)
     z = solve_lower(chol, w)  # (k, 4, nb) = L^-1 W
@@ -301,3 +301,48 @@ def action_density_batch(lam, b, chirality: int, pts):
         blocks = pts.reshape(m // BLOCK, BLOCK, 4)
         return jax.lax.map(lambda q: action_density_block(lam, b, chirality, q), blocks).reshape(m)
     return action_density_block(lam, b, chirality, pts)
+
+
+def _generator_block(lam, b, chirality: int, gauge: str, pts, dirs):
+    """Imaginary parts (3, nb) of the quaternion A_mu(x) d_mu of SU(2) data (n = 1) at a block of points (nb, 4).
+
+    The formula of ``ADHMData.potential`` (n = 1) contracted with d: with e(d) = sum_mu d_mu e_mu
+    (e-bar for chirality -1; it is p(d), conventions), X = f Delta^dag V0 (one Cholesky solve of the
+    real Gram matrix) and the tail T = b^dag P V0 = b^dag V0 - (B - p) X of P V0,
+    A.d = Im( sum_i T-bar_i e(d) X_i ) / phi with phi = V0^dag P V0 (real, = 1 - Lambda X in the singular
+    gauge V0 = [1 ; 0], = Lambda T in the regular gauge V0 = [0 ; Lambda^dag]).
+    """
+    k = b.shape[0]
+    e = p_last(dirs, chirality)
+    diag, off = split_b(b)
+    y = y_last(diag, p_last(pts, chirality))
+    bp = bp_last(off, y)  # (4, k, k, nb)
+    lq = jnp.asarray(lam)[0].T  # Lambda_i, (4, k)
+    conj = jnp.asarray(_CONJ)[:, None]
+    if gauge == "singular":  # Delta^dag V0 = Lambda^dag
+        dv = jnp.broadcast_to((lq * conj)[:, :, None], (4, k, pts.shape[0]))
+    else:  # Delta^dag V0 = (B - p)^dag Lambda^dag: sum_j conj(Lambda_j (B - p)_ji)
+        dv = sum(qmul_last(lq[:, j, None, None], bp[:, j]) for j in range(k)) * conj[:, :, None]
+    chol = cholesky_last(gram_last(lam, off, y))
+    x = jnp.swapaxes(solve_upper_t(chol, solve_lower(chol, jnp.swapaxes(dv, 0, 1))), 0, 1)  # (4, k, nb)
+    tail = -sum(qmul_last(bp[:, :, j], x[:, j, None]) for j in range(k))  # -(B - p) X, (4, k, nb)
+    if gauge == "singular":
+        phi = 1.0 - sum(qmul_last(lq[:, j, None], x[:, j])[0] for j in range(k))
+    else:
+        tail = tail + (lq * conj)[:, :, None]
+        phi = sum(qmul_last(lq[:, j, None], tail[:, j])[0] for j in range(k))
+    m = sum(qmul_last(qmul_last(tail[:, i] * conj, e), x[:, i]) for i in range(k))
+    return m[1:] / phi[None]
+
+
+def link_generator_batch(lam, b, chirality: int, gauge: str, pts, dirs):
+    """A_mu(x) d_mu of SU(2) data (n = 1) at points (m, 4) with directions (m, 4) -> (3, m) imaginary
+    quaternion parts (the link generator of :mod:`instantonkit.transport`), in blocks of BLOCK points
+    (lax.map) when m is a multiple of it; equal to contracting ``ADHMData.potential`` to rounding."""
+    m = pts.shape[0]
+    lam, b = jnp.asarray(lam), jnp.asarray(b)
+    if m > BLOCK and m % BLOCK == 0:
+        blocks = (pts.reshape(m // BLOCK, BLOCK, 4), dirs.reshape(m // BLOCK, BLOCK, 4))
+        out = jax.lax.map(lambda q: _generator_block(lam, b, chirality, gauge, q[0], q[1]), blocks)
+        return jnp.moveaxis(out, 1, 0).reshape(3, m)
+    return _generator_block(lam, b, chirality, gauge, pts, dirs)

@@ -321,6 +321,18 @@ class ADHMData(PytreeFields):
         diag = m * jnp.asarray(np.eye(n))[None, :, :, None] * jnp.asarray([0.0, 1.0, 1.0, 1.0])
         return qt.qmat_to_complex(lower - qt.qmat_dagger(lower) + diag)
 
+    def generator_batch(self, points, dirs):
+        """Field hook: A_mu(x) d_mu at points (m, 4) with directions (m, 4) -> (m, 2n, 2n) (link generators).
+
+        SU(2) data: batch-major k x k kernels (:func:`instantonkit._kxk.link_generator_batch`); Sp(n > 1):
+        the vmapped :meth:`potential` contracted with d.  Equal to the contracted potential to rounding.
+        """
+        pts, dirs = jnp.asarray(points, dtype=jnp.float64), jnp.asarray(dirs, dtype=jnp.float64)
+        if self.rank > 1:
+            return jnp.einsum("mu...,mu->m...", jax.vmap(self.potential)(pts), dirs)
+        v = _kxk.link_generator_batch(self.lam, self.B, self.chirality, self.gauge, pts, dirs)
+        return qt.to_matrix(jnp.concatenate([jnp.zeros((1, v.shape[1])), v]).T)
+
     def field_strength(self, x):
         """Closed-form ADHM F_mu nu = U^dag b sigma_mu nu f b^dag U at one point -> (4, 4, 2n, 2n) complex.
 

@@ -125,7 +125,8 @@ class FieldHooks(Protocol):
       ``density_batch(points, quantity) -> (m,)``: the closed-form ``action_density`` or
       ``charge_density`` at a whole batch of points (m, 4) at once (jax-traceable, equal to the
       per-point closed forms to rounding), used by ``method="auto"`` instead of vmapping them, so a
-      field can lay its work out across points (ADHM data: the batch-major k x k kernels).
+      field can lay its work out across points (ADHM data: the batch-major k x k kernels);
+      ``generator_batch(points, dirs) -> (m, N, N)``: A_mu d_mu at a batch (the Magnus links' nodes).
     """
 
     def field_strength(self, x: Any) -> Any: ...
@@ -144,29 +145,11 @@ class FieldHooks(Protocol):
     def gauge_twin(self) -> tuple[Any, Callable]: ...
     def record(self) -> dict: ...
     def density_batch(self, points: Any, quantity: str) -> Any: ...
+    def generator_batch(self, points: Any, dirs: Any) -> Any: ...
 
 
 #: Names of the optional hooks (methods or attributes), documented in :class:`FieldHooks`.
-HOOKS = (
-    "field_strength",
-    "action_density",
-    "charge_density",
-    "hint",
-    "layout",
-    "charge",
-    "pole_count",
-    "constraint_residual",
-    "period",
-    "log_det",
-    "gram",
-    "closed_link",
-    "describe",
-    "conjugate",
-    "wrapped_callable",
-    "gauge_twin",
-    "record",
-    "density_batch",
-)
+HOOKS = tuple(name for name in vars(FieldHooks) if not name.startswith("_")) + ("charge", "period")
 
 
 def hook(field, name: str):

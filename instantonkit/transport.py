@@ -34,11 +34,12 @@ import jax.numpy as jnp
 import numpy as np
 from jax.extend import core as jex_core
 
+from . import _kxk
 from . import _validate as _v
 from . import quaternion as qt
 from ._batching import run_batched
 from .adhm import charge_one_link
-from .fields import as_field, as_points, hook
+from .fields import as_field, as_points, hook, output_shape
 
 __all__ = [
     "LinkStats",
@@ -199,15 +200,71 @@ def _ordered_product(e):
     return e[:, 0]
 
 
+#: Most Magnus steps per link of the fused SU(2) kernel (:func:`_fused_links`); finer refinements,
+#: rare on lattices, take the node-batch path below.
+_FUSED_MAX_STEPS = 8
+#: Nodes per call of the fused kernel (links per call 12288 / (3 m): 4096 links at one step).
+_FUSED_NODES = 12288
+#: c with e_1 e_2 = c e_3 for the quaternion units (conventions): for pure quaternions a b - b a = 2 c a x b.
+_CROSS_SIGN = float(qt.qmul(np.eye(4)[1], np.eye(4)[2])[3])
+
+
+def _rcomm_q(a, b):
+    """Reversed commutator b a - a b of pure quaternions given by their imaginary parts (3, ...)."""
+    return -2.0 * _CROSS_SIGN * jnp.cross(a, b, axis=0)
+
+
+def _fused_links(field, xs, ds, m: int):
+    """SU(2)/U(2) transporters of a batch of segments (L, 4) with m Magnus steps in one kernel; (L, 2, 2).
+
+    The 3 m L nodes go to the field's ``generator_batch`` hook when it has one (ADHM data: batch-major
+    k x k work, :func:`instantonkit._kxk.link_generator_batch`), else to the vmapped potential; then
+    :func:`_magnus6` in quaternion form (G = i tau 1 + v, v a pure quaternion: the commutators are cross
+    products and tau, central, is integrated by the Gauss-Legendre weights), exp, and the ordered
+    product E_1 ... E_m, all without leaving the compiled code.  Equal to :func:`_magnus_at` to rounding.
+    """
+    h = 1.0 / m
+    nb = xs.shape[0]
+    ts = jnp.asarray((np.arange(m)[:, None] + np.asarray(_GL3)[None, :]) * h)  # (m, 3)
+    pts = (xs[None, None] + ts[:, :, None, None] * ds[None, None]).reshape(-1, 4)  # (step, node, link)
+    dirs = jnp.broadcast_to(ds[None, None], (m, 3, nb, 4)).reshape(-1, 4)
+    batch = hook(field, "generator_batch")
+    g = batch(pts, dirs) if batch is not None else jax.vmap(_generator, in_axes=(None, 0, 0))(field, pts, dirs)
+    tau = (0.5 * jnp.imag(g[:, 0, 0] + g[:, 1, 1])).reshape(m, 3, nb)
+    v = jnp.moveaxis(qt.from_matrix(g)[:, 1:], -1, 0).reshape(3, m, 3, nb)
+    a1 = h * v[:, :, 1]
+    a2 = (math.sqrt(15.0) / 3.0) * h * (v[:, :, 2] - v[:, :, 0])
+    a3 = (10.0 / 3.0) * h * (v[:, :, 2] - 2.0 * v[:, :, 1] + v[:, :, 0])
+    c12 = _rcomm_q(a1, a2)
+    inner = a2 - _rcomm_q(a1, 2.0 * a3 + c12) / 60.0
+    om = a1 + a3 / 12.0 + _rcomm_q(-20.0 * a1 - a3 + c12, inner) / 240.0  # (3, m, nb)
+    e = qt.qexp(jnp.moveaxis(jnp.concatenate([jnp.zeros((1, m, nb)), om]), 0, -1))  # (m, nb, 4)
+    w = jnp.moveaxis(e[0], -1, 0)
+    for i in range(1, m):
+        w = _kxk.qmul_last(w, jnp.moveaxis(e[i], -1, 0))
+    phase = jnp.exp(1j * h * jnp.sum(tau * jnp.asarray([5.0, 8.0, 5.0])[None, :, None] / 18.0, axis=(0, 1)))
+    return phase[:, None, None] * qt.to_matrix(w.T)
+
+
+@functools.cache
+def _fused_kernel(m: int):
+    return jax.jit(functools.partial(_fused_links, m=m))
+
+
 def _magnus_at(field, xs, ds, m):
     """Transporters of (M, 4) segments with m sixth-order Magnus steps; (M, N, N) numpy.
 
-    The potential is evaluated at all 3 m Gauss-Legendre nodes of a pass of links in one flat batch
+    N = 2 and m <= _FUSED_MAX_STEPS: :func:`_fused_links` in calls of _FUSED_NODES nodes (768 when the
+    potential calls LAPACK, :func:`_node_batch`).  Otherwise the potential is evaluated at all 3 m Gauss-Legendre nodes of a pass of links in one flat batch
     (one compiled size per field, :func:`_node_batch`, whatever m or M: no loop inside the kernel, so XLA's per-operation
     overhead is paid once per 768 nodes), then every step's exponential, then the ordered product.
     Each node and step is computed by kernels of fixed batch sizes, so a link's bits do not depend on
     the other links of the call (the rule of :mod:`instantonkit._batching`).
     """
+    nodes = _node_batch(field)
+    if m <= _FUSED_MAX_STEPS and output_shape(field, "potential")[0][-1] == 2:
+        per_call = max(1, (_FUSED_NODES if nodes == _NODE_BATCH_PLAIN else nodes) // (3 * m))
+        return run_batched(_fused_kernel(m), [xs, ds], per_call, args_before=(field,))
     h = 1.0 / m
     ts = ((np.arange(m)[:, None] + np.asarray(_GL3)[None, :]) * h).reshape(-1)  # (3 m,)
     out = None

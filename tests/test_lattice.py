@@ -2,6 +2,7 @@
 
 import warnings
 
+import jax
 import jax.numpy as jnp
 import numpy as np
 import pytest
@@ -104,6 +105,79 @@ def test_magnus_steps_are_sixth_order_against_scipy():
 
     errs = [np.max(np.abs(run(m) - ref)) for m in (2, 4)]
     assert errs[0] / errs[1] > 40.0  # 2^6 = 64 for order six; 2^4 = 16 would mean order four
+
+
+def _u2_callable(c):
+    """A(x) with A_1 = c0 + sin(2 x1) c1 + x1^2 c2 (anti-Hermitian, with a trace part), A_2 = A_3 = A_4 = 0."""
+
+    def potential(x):
+        a1 = c[0] + jnp.sin(2.0 * x[0]) * c[1] + x[0] ** 2 * c[2]
+        return jnp.stack([a1, jnp.zeros_like(a1), jnp.zeros_like(a1), jnp.zeros_like(a1)])
+
+    return potential
+
+
+def test_fused_su2_magnus_links_are_sixth_order_against_scipy():
+    # the quaternion form of the U(2) kernel (transport._fused_links: commutators as cross products, the
+    # trace by the Gauss-Legendre weights) against scipy's DOP853 at rtol 1e-13 on dW/dt = W G(t); order
+    # six as for the matrix form (Blanes, Casas, Oteo, Ros, Phys. Rep. 470 (2009) 151, from memory)
+    rng = np.random.default_rng(5)
+    c = [0.6 * _random_antihermitian(rng, 2) + 0.3j * rng.normal() * np.eye(2) for _ in range(3)]
+    field = fields.as_field(_u2_callable([jnp.asarray(ci) for ci in c]))
+
+    def g(t):
+        return c[0] + np.sin(2 * t) * c[1] + t**2 * c[2]
+
+    sol = integrate.solve_ivp(
+        lambda t, w: (w.reshape(2, 2) @ g(t)).ravel(),
+        (0, 1),
+        np.eye(2, dtype=complex).ravel(),
+        method="DOP853",
+        rtol=1e-13,
+        atol=1e-14,
+    )
+    ref = sol.y[:, -1].reshape(2, 2)
+    x0, d = np.zeros((1, 4)), np.eye(4)[:1]
+    errs = [np.max(np.abs(transport._magnus_at(field, x0, d, m)[0] - ref)) for m in (2, 4, 8)]
+    assert errs[0] / errs[1] > 40.0 and errs[1] / errs[2] > 40.0  # 2^6 = 64; order four would give 16
+    assert errs[2] < 1e-6  # and it converges to the reference (not to another equation)
+
+
+def test_fused_su2_magnus_links_equal_the_node_batch_path(monkeypatch):
+    # the two implementations of the same steps (quaternion form in one kernel; matrix form in batches)
+    # agree to rounding, ADHM data through their generator_batch hook and a plain callable without it
+    rng = np.random.default_rng(2)
+    starts = rng.uniform(-2.0, 2.0, size=(40, 4))
+    steps = 0.5 * np.eye(4)[rng.integers(0, 4, size=40)]
+    c = [0.6 * _random_antihermitian(rng, 2) + 0.3j * np.eye(2) for _ in range(3)]
+    for field in (ik.random_adhm(3, seed=4), fields.as_field(_u2_callable([jnp.asarray(ci) for ci in c]))):
+        fused = transport._magnus_at(field, starts, steps, 4)
+        monkeypatch.setattr(transport, "_FUSED_MAX_STEPS", 0)
+        plain = transport._magnus_at(field, starts, steps, 4)
+        monkeypatch.undo()
+        assert np.max(np.abs(fused - plain)) < 1e-13
+
+
+@pytest.mark.parametrize("k", [1, 2, 3, 4])
+@pytest.mark.parametrize("gauge,chirality", [("singular", 1), ("regular", 1), ("singular", -1), ("regular", -1)])
+def test_adhm_generator_batch_equals_the_contracted_potential(k, gauge, chirality):
+    # the batch-major SU(2) link generator (instantonkit._kxk) against sum_mu d_mu A_mu of ADHMData.potential
+    data = ik.random_adhm(k, seed=k).with_gauge(gauge)
+    data = data.conjugate() if chirality == -1 else data
+    rng = np.random.default_rng(k)
+    pts, dirs = rng.uniform(-3.0, 3.0, size=(300, 4)), rng.normal(size=(300, 4))
+    ref = np.einsum("mu...,mu->m...", np.asarray(jax.vmap(data.potential)(jnp.asarray(pts))), dirs)
+    got = np.asarray(data.generator_batch(pts, dirs))
+    assert got.shape == (300, 2, 2)
+    assert np.max(np.abs(got - ref)) < 1e-13 * max(1.0, np.max(np.abs(ref)))
+
+
+def test_sp2_generator_batch_equals_the_contracted_potential():
+    data = ik.random_adhm(2, rank=2, seed=3)
+    rng = np.random.default_rng(0)
+    pts, dirs = rng.uniform(-2.0, 2.0, size=(50, 4)), rng.normal(size=(50, 4))
+    ref = np.einsum("mu...,mu->m...", np.asarray(jax.vmap(data.potential)(jnp.asarray(pts))), dirs)
+    assert np.max(np.abs(np.asarray(data.generator_batch(pts, dirs)) - ref)) < 1e-13
 
 
 @pytest.fixture(scope="module")
