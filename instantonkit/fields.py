@@ -508,6 +508,11 @@ def _kernel(*specs: tuple[str, str]) -> _Kernel:
     return _Kernel(specs)
 
 
+@jax.jit
+def _potential_at(field, x):
+    return field.potential(x)
+
+
 def _check_callable(field, x0: np.ndarray) -> None:
     """For a wrapped callable: shape (4, N, N) and anti-Hermitian at the first point, else a clear error."""
     try:
@@ -516,7 +521,7 @@ def _check_callable(field, x0: np.ndarray) -> None:
         raise TypeError(f"the potential callable failed on a (4,) point: {type(err).__name__}: {err}") from err
     if len(shape) != 3 or shape[0] != 4 or shape[1] != shape[2]:
         raise ValueError(f"the potential callable must return shape (4, N, N); found {tuple(shape)}")
-    a = np.asarray(field.potential(jnp.asarray(x0)))
+    a = np.asarray(_potential_at(field, jnp.asarray(x0)))  # compiled: eager tracing compiles every operation
     herm = float(np.max(np.abs(a + np.conj(np.swapaxes(a, -1, -2)))))
     scale = 1.0 + float(np.max(np.abs(a)))
     if herm > _ANTI_HERMITIAN_TOL * scale:

@@ -169,7 +169,10 @@ def test_adhm_generator_batch_equals_the_contracted_potential(k, gauge, chiralit
     ref = np.einsum("mu...,mu->m...", np.asarray(jax.vmap(data.potential)(jnp.asarray(pts))), dirs)
     got = np.asarray(data.generator_batch(pts, dirs))
     assert got.shape == (300, 2, 2)
-    assert np.max(np.abs(got - ref)) < 1e-13 * max(1.0, np.max(np.abs(ref)))
+    # the regular gauge's frame is ill-conditioned near some points for k > 1: there the potential, this
+    # kernel and the forward derivative of the frame differ from each other by up to ~1e-13 (measured)
+    tol = 1e-13 if gauge == "singular" else 1e-12
+    assert np.max(np.abs(got - ref)) < tol * max(1.0, np.max(np.abs(ref)))
 
 
 def test_sp2_generator_batch_equals_the_contracted_potential():
