@@ -149,8 +149,8 @@ def link_costs(quick: bool = False) -> list[dict]:
             per_link,
             "",
             round(t_two / t_one / per_link, 3),
-            "ratio: cost of one potential evaluation / one closed-form link; an error-estimated link needs "
-            ">= 9 (one step against two), so the link ratio cannot fall below 9x that",
+            "ratio: start time per potential evaluation / per closed-form link (an error-estimated link "
+            "needs >= 9 evaluations: one Magnus step against two)",
         ),
         row(
             f"charge-2 su3 start {start}^4 (periodic, rtol 1e-8)",

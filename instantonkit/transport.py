@@ -200,8 +200,9 @@ def _ordered_product(e):
     return e[:, 0]
 
 
-#: Most Magnus steps per link of the fused SU(2) kernel (:func:`_fused_links`); finer refinements,
-#: rare on lattices, take the node-batch path below.
+#: Most Magnus steps per link of the fused SU(2) kernel (:func:`_fused_links`; each m compiles once, about
+#: 1 s at m = 8, 4.7 s at m = 64): refinements beyond 8, rare on lattices at rtol 1e-8, take the node-batch
+#: path below (measured, 6^4 start of overlapping charge-2 data at rtol 1e-12: first call 6.0 s, 9.5 s with 64).
 _FUSED_MAX_STEPS = 8
 #: Nodes per call of the fused kernel (links per call 12288 / (3 m): 4096 links at one step).
 _FUSED_NODES = 12288
@@ -238,10 +239,12 @@ def _fused_links(field, xs, ds, m: int):
     c12 = _rcomm_q(a1, a2)
     inner = a2 - _rcomm_q(a1, 2.0 * a3 + c12) / 60.0
     om = a1 + a3 / 12.0 + _rcomm_q(-20.0 * a1 - a3 + c12, inner) / 240.0  # (3, m, nb)
-    e = qt.qexp(jnp.moveaxis(jnp.concatenate([jnp.zeros((1, m, nb)), om]), 0, -1))  # (m, nb, 4)
-    w = jnp.moveaxis(e[0], -1, 0)
-    for i in range(1, m):
-        w = _kxk.qmul_last(w, jnp.moveaxis(e[i], -1, 0))
+    w = jnp.moveaxis(qt.qexp(jnp.moveaxis(jnp.concatenate([jnp.zeros((1, m, nb)), om]), 0, -1)), -1, 0)  # (4, m, nb)
+    while w.shape[1] > 1:  # pairwise products, earlier factors left (log2 m rounds, no long chain to fuse)
+        pairs = w.shape[1] // 2
+        prod = _kxk.qmul_last(w[:, 0 : 2 * pairs : 2], w[:, 1 : 2 * pairs : 2])
+        w = jnp.concatenate([prod, w[:, 2 * pairs :]], axis=1) if w.shape[1] % 2 else prod
+    w = w[:, 0]
     phase = jnp.exp(1j * h * jnp.sum(tau * jnp.asarray([5.0, 8.0, 5.0])[None, :, None] / 18.0, axis=(0, 1)))
     return phase[:, None, None] * qt.to_matrix(w.T)
 
@@ -255,8 +258,9 @@ def _magnus_at(field, xs, ds, m):
     """Transporters of (M, 4) segments with m sixth-order Magnus steps; (M, N, N) numpy.
 
     N = 2 and m <= _FUSED_MAX_STEPS: :func:`_fused_links` in calls of _FUSED_NODES nodes (768 when the
-    potential calls LAPACK, :func:`_node_batch`).  Otherwise the potential is evaluated at all 3 m Gauss-Legendre nodes of a pass of links in one flat batch
-    (one compiled size per field, :func:`_node_batch`, whatever m or M: no loop inside the kernel, so XLA's per-operation
+    potential calls LAPACK, :func:`_node_batch`).  Otherwise the potential is evaluated at all 3 m
+    Gauss-Legendre nodes of a pass of links in one flat batch (one compiled size per field,
+    :func:`_node_batch`, whatever m or M: no loop inside the kernel, so XLA's per-operation
     overhead is paid once per 768 nodes), then every step's exponential, then the ordered product.
     Each node and step is computed by kernels of fixed batch sizes, so a link's bits do not depend on
     the other links of the call (the rule of :mod:`instantonkit._batching`).
