@@ -28,6 +28,7 @@ import numpy as np
 from . import _validate
 from ._batching import padded_size, run_batched
 from ._config import lean_compiler_options
+from ._pytree import structure_key
 from .conventions import ACTION_DENSITY_FACTOR, CHARGE_DENSITY_FACTOR, LEVI_CIVITA
 
 #: An array the public functions accept (numpy or jax); results are numpy arrays.
@@ -536,16 +537,8 @@ def _output_struct(kern, field, rows: int = 1):
 
     ``rows`` is the first batch's size, so the trace made here is the one jit reuses for that batch.
     """
-    leaves, treedef = jax.tree_util.tree_flatten(field)
-    key: Any = (
-        kern,
-        treedef,
-        tuple((np.shape(l), np.dtype(l.dtype) if hasattr(l, "dtype") else np.result_type(l)) for l in leaves),
-    )
-    try:
-        hit = _STRUCT_CACHE.get(key)
-    except TypeError:  # unhashable static data: no memo
-        hit, key = None, None
+    key = structure_key(field, kern)
+    hit = _STRUCT_CACHE.get(key) if key is not None else None
     if hit is None:
         hit = kern.eval_shape(field, rows)
         if key is not None:

@@ -27,7 +27,6 @@ from __future__ import annotations
 import dataclasses
 import functools
 import math
-from typing import Any
 
 import jax
 import jax.numpy as jnp
@@ -38,6 +37,7 @@ from . import _kxk
 from . import _validate as _v
 from . import quaternion as qt
 from ._batching import run_batched
+from ._pytree import structure_key
 from .adhm import charge_one_link
 from .fields import as_field, as_points, hook, output_shape
 
@@ -162,12 +162,8 @@ def _node_batch(field) -> int:
     Depends only on the field's structure (its traced potential), so a link's bits do not depend on
     the other links of a call (:mod:`instantonkit._batching`); memoised per pytree structure.
     """
-    leaves, treedef = jax.tree_util.tree_flatten(field)
-    key: Any = (treedef, tuple(np.shape(v) for v in leaves))
-    try:
-        hit = _BATCH_MEMO.get(key)
-    except TypeError:  # unhashable static data: no memo
-        hit, key = None, None
+    key = structure_key(field)
+    hit = _BATCH_MEMO.get(key) if key is not None else None
     if hit is None:
         jaxpr = jax.make_jaxpr(lambda f, x: f.potential(x))(field, jnp.zeros(4))
         hit = _NODE_BATCH if _calls_lapack(jaxpr.jaxpr) else _NODE_BATCH_PLAIN
