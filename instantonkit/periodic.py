@@ -139,6 +139,19 @@ class TorusWindow(PytreeFields):
         return field_strength
 
     @property
+    def generator_batch(self):
+        """A_w.d at a batch of points (m, 4) = w(x~) (A.d)(x~) from the wrapped field's hook (when it has one)."""
+        inner = hook(self.field, "generator_batch")
+        if inner is None:
+            raise AttributeError("the wrapped field has no generator_batch hook")
+
+        def generator_batch(points, dirs):
+            y = jax.vmap(self.wrap)(jnp.asarray(points, dtype=jnp.float64))
+            return jax.vmap(self.window)(y)[:, None, None] * inner(y, dirs)
+
+        return generator_batch
+
+    @property
     def action_density(self):
         fs = self.field_strength
         return lambda x: action_from_f(fs(x))

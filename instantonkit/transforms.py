@@ -364,6 +364,14 @@ class Translated(_Wrapper):
 
         return closed_link
 
+    @property
+    def generator_batch(self):
+        """A'.d at a batch = the wrapped field's A.d at the points moved back (when it has the hook)."""
+        inner = hook(self.field, "generator_batch")
+        if inner is None:
+            _missing("generator_batch")
+        return lambda points, dirs: inner(jnp.asarray(points, dtype=jnp.float64) - jnp.asarray(self.shift), dirs)
+
 
 def translate(field, shift: Array) -> Translated:
     """Translate ``field`` by ``shift``: A'(x) = A(x - shift).

@@ -172,9 +172,15 @@ def _node_batch(field) -> int:
     return hit
 
 
+def _generators(field, pts, dirs):
+    """G = A_mu d_mu at a batch of nodes (m, 4), (m, 4) -> (m, N, N): the ``generator_batch`` hook, else vmapped."""
+    batch = hook(field, "generator_batch")
+    return batch(pts, dirs) if batch is not None else jax.vmap(_generator, in_axes=(None, 0, 0))(field, pts, dirs)
+
+
 @functools.cache
 def _generator_kernel():
-    return jax.jit(jax.vmap(_generator, in_axes=(None, 0, 0)))
+    return jax.jit(_generators)
 
 
 def _step_exp(g, h):
@@ -225,8 +231,7 @@ def _fused_links(field, xs, ds, m: int):
     ts = jnp.asarray((np.arange(m)[:, None] + np.asarray(_GL3)[None, :]) * h)  # (m, 3)
     pts = (xs[None, None] + ts[:, :, None, None] * ds[None, None]).reshape(-1, 4)  # (step, node, link)
     dirs = jnp.broadcast_to(ds[None, None], (m, 3, nb, 4)).reshape(-1, 4)
-    batch = hook(field, "generator_batch")
-    g = batch(pts, dirs) if batch is not None else jax.vmap(_generator, in_axes=(None, 0, 0))(field, pts, dirs)
+    g = _generators(field, pts, dirs)
     tau = (0.5 * jnp.imag(g[:, 0, 0] + g[:, 1, 1])).reshape(m, 3, nb)
     v = jnp.moveaxis(qt.from_matrix(g)[:, 1:], -1, 0).reshape(3, m, 3, nb)
     a1 = h * v[:, :, 1]

@@ -175,6 +175,34 @@ def test_adhm_generator_batch_equals_the_contracted_potential(k, gauge, chiralit
     assert np.max(np.abs(got - ref)) < tol * max(1.0, np.max(np.abs(ref)))
 
 
+@pytest.mark.parametrize("k,gauge", [(1, "singular"), (2, "singular"), (2, "regular"), (3, "singular")])
+def test_unitary_generator_batch_equals_the_contracted_potential(k, gauge):
+    # complex SU(3) data: A.d with s_mu contracted first, against sum_mu d_mu A_mu of UnitaryADHMData.potential
+    data = ik.random_unitary_adhm(k, 3, seed=k).with_gauge(gauge)
+    rng = np.random.default_rng(k)
+    pts, dirs = rng.uniform(-2.0, 2.0, size=(100, 4)), rng.normal(size=(100, 4))
+    ref = np.einsum("mu...,mu->m...", np.asarray(jax.vmap(data.potential)(jnp.asarray(pts))), dirs)
+    got = np.asarray(data.generator_batch(pts, dirs))
+    assert got.shape == (100, 3, 3)
+    assert np.max(np.abs(got - ref)) < 1e-13 * max(1.0, np.max(np.abs(ref)))
+
+
+def test_translated_and_windowed_generator_batch_equal_their_contracted_potentials():
+    # the wrappers that forward the hook (translation; the torus window of instantonkit.periodic) map it
+    # exactly as they map the potential
+    from instantonkit import periodic, transforms
+
+    data = ik.random_adhm(2, seed=6)
+    rng = np.random.default_rng(6)
+    pts, dirs = rng.uniform(-3.0, 3.0, size=(120, 4)), rng.normal(size=(120, 4))
+    for field in (
+        transforms.translate(data, [0.3, -0.2, 0.1, 0.5]),
+        periodic.window_field(data, (8,) * 4, 0.75, np.full(4, -2.625), width=0.25),
+    ):
+        ref = np.einsum("mu...,mu->m...", np.asarray(jax.vmap(field.potential)(jnp.asarray(pts))), dirs)
+        assert np.max(np.abs(np.asarray(field.generator_batch(pts, dirs)) - ref)) < 1e-13
+
+
 def test_sp2_generator_batch_equals_the_contracted_potential():
     data = ik.random_adhm(2, rank=2, seed=3)
     rng = np.random.default_rng(0)
