@@ -185,6 +185,27 @@ class _Wrapper(PytreeFields):
         """Points (m, 4) of this field -> (points of the wrapped field, density factor, sign of q); subclasses."""
         return pts, 1.0, 1.0
 
+    #: Whether A'(x).d = A(y).e for points and directions (y, e) of :meth:`_generator_points` (not for gauge
+    #: transformations, whose extra term g d g^-1 has no batch hook to come from).
+    _maps_generator = False
+
+    def _generator_points(self, pts, dirs):
+        """Points (m, 4) and directions (m, 4) of this field -> those of the wrapped one; subclasses."""
+        return pts, dirs
+
+    @property
+    def generator_batch(self):
+        """Field hook: A'.d at a batch from the wrapped field's hook (translations, rotations, dilations, parity)."""
+        inner = hook(self.field, "generator_batch")
+        if inner is None or not self._maps_generator:
+            _missing("generator_batch")
+
+        def generator_batch(points, dirs):
+            y, e = self._generator_points(jnp.asarray(points, dtype=jnp.float64), jnp.asarray(dirs, dtype=jnp.float64))
+            return inner(y, e)
+
+        return generator_batch
+
     @property
     def density_batch(self):
         """Field hook: the wrapped field's batch densities at the mapped points (s, q are scalars, q pseudo)."""
@@ -353,6 +374,11 @@ class Translated(_Wrapper):
     def _batch_points(self, pts):
         return pts - jnp.asarray(self.shift), 1.0, 1.0
 
+    _maps_generator = True
+
+    def _generator_points(self, pts, dirs):
+        return pts - jnp.asarray(self.shift), dirs
+
     @property
     def closed_link(self):
         """U'(x, d) = U(x - shift, d) from the wrapped field's closed-form link (when it has one)."""
@@ -363,14 +389,6 @@ class Translated(_Wrapper):
             return self.field.closed_link(self._y(x), d)
 
         return closed_link
-
-    @property
-    def generator_batch(self):
-        """A'.d at a batch = the wrapped field's A.d at the points moved back (when it has the hook)."""
-        inner = hook(self.field, "generator_batch")
-        if inner is None:
-            _missing("generator_batch")
-        return lambda points, dirs: inner(jnp.asarray(points, dtype=jnp.float64) - jnp.asarray(self.shift), dirs)
 
 
 def translate(field, shift: Array) -> Translated:
@@ -460,6 +478,12 @@ class Rotated(_Wrapper):
     def _batch_points(self, pts):
         return pts @ self.matrix, 1.0, 1.0  # rows y = R^T x
 
+    _maps_generator = True
+
+    def _generator_points(self, pts, dirs):
+        r = self.matrix  # A'.d = (R^T d).A(R^T x)
+        return pts @ r, dirs @ r
+
     @property
     def period(self):
         raise AttributeError("a rotated field has no period along x4 in general")
@@ -531,6 +555,12 @@ class Dilated(_Wrapper):
         c = jnp.asarray(self.factor)
         return pts / c, 1.0 / c**4, 1.0
 
+    _maps_generator = True
+
+    def _generator_points(self, pts, dirs):
+        c = jnp.asarray(self.factor)  # A'.d = A(x / c).(d / c)
+        return pts / c, dirs / c
+
 
 def dilate(field, factor) -> Dilated:
     """Dilate ``field`` about the origin by ``factor`` c > 0: A'(x) = A(x / c) / c.
@@ -590,6 +620,11 @@ class ParityImage(_Wrapper):
 
     def _batch_points(self, pts):
         return pts * PARITY, 1.0, -1.0
+
+    _maps_generator = True
+
+    def _generator_points(self, pts, dirs):
+        return pts * PARITY, dirs * PARITY  # A'.d = A(P x).(P d)
 
     def conjugate(self):
         """Field hook: the partner of a parity image is the field it wraps (P^2 = 1)."""

@@ -187,9 +187,9 @@ def test_unitary_generator_batch_equals_the_contracted_potential(k, gauge):
     assert np.max(np.abs(got - ref)) < 1e-13 * max(1.0, np.max(np.abs(ref)))
 
 
-def test_translated_and_windowed_generator_batch_equal_their_contracted_potentials():
-    # the wrappers that forward the hook (translation; the torus window of instantonkit.periodic) map it
-    # exactly as they map the potential
+def test_wrapped_generator_batch_equals_the_contracted_potential():
+    # the wrappers that forward the hook (translation, rotation, dilation, parity; the torus window of
+    # instantonkit.periodic) map it exactly as they map the potential; a gauge transformation does not offer it
     from instantonkit import periodic, transforms
 
     data = ik.random_adhm(2, seed=6)
@@ -197,10 +197,14 @@ def test_translated_and_windowed_generator_batch_equal_their_contracted_potentia
     pts, dirs = rng.uniform(-3.0, 3.0, size=(120, 4)), rng.normal(size=(120, 4))
     for field in (
         transforms.translate(data, [0.3, -0.2, 0.1, 0.5]),
+        transforms.rotate(data, np.array([0.5, 0.5, -0.5, 0.5]), np.array([0.6, 0.0, 0.8, 0.0])),
+        transforms.dilate(data, 1.7),
+        transforms.parity(data),
         periodic.window_field(data, (8,) * 4, 0.75, np.full(4, -2.625), width=0.25),
     ):
         ref = np.einsum("mu...,mu->m...", np.asarray(jax.vmap(field.potential)(jnp.asarray(pts))), dirs)
         assert np.max(np.abs(np.asarray(field.generator_batch(pts, dirs)) - ref)) < 1e-13
+    assert fields.hook(transforms.gauge_transform(data, lambda x: jnp.eye(2, dtype=complex)), "generator_batch") is None
 
 
 def test_sp2_generator_batch_equals_the_contracted_potential():
