@@ -16,12 +16,18 @@ ADHM data (centres, sizes and relative orientations: all 8k - 3 gauge-invariant 
 :mod:`instantonkit.moduli_fit` to the samples above ``_EXACT_FLOOR`` of the peak (at most
 ``_EXACT_MAX``, the largest); ``data`` is then the fitted ``ADHMData``.  Sp(n > 1) data are not fitted (SU(2) only).
 
-SU(N > 2) (``rank=N``, genuine complex ADHM data): superposition model only (``model="exact"`` raises):
-the global SU(N) orientation is gauge and the relative ones enter densities only through the lumps'
-interaction and only in part, so they are not identifiable; centres and sizes of well-separated
-instantons are (tests/test_finder.py); systematic = the spread of refits of exact SU(N) densities with the
-fitted centres and sizes and ``_SUN_DRAWS`` random orientations; ``data`` = SU(N) data of the fitted
-centres and sizes, trivial orientations.  An exact SU(2) fit no better than the superposition is flagged.
+SU(N > 2) (``rank=N``, genuine complex ADHM data).  ``model="exact"`` (the default): starting from the
+superposition fit, exact SU(N) data of well-separated instantons (the construction of
+:func:`instantonkit.unitary_moduli.unitary_multi_instanton`) are fitted by :mod:`instantonkit.unitary_fit`
+to the same samples as for SU(2): centres, sizes and, as nuisance parameters, one relative SU(N)
+rotation per instanton (the first fixed: the global rotation is gauge; stabiliser directions removed).
+``data`` = the fitted ``UnitaryADHMData``; ``orientations`` = the fitted representative (k, N, N), which
+is determined only up to gauge and stabilisers (said in ``notes``); systematic = 0 for continuum SU(N)
+densities.  ``model="superposition"``: centres and sizes only; systematic = the spread of refits of exact
+SU(N) densities with the fitted centres and sizes and ``_SUN_DRAWS`` random orientations; ``data`` = SU(N)
+data of the fitted centres and sizes, trivial orientations.  For anti-instantons (a charge density of
+negative sign) ``data`` is None for N > 2 (complex data of anti-self-dual fields are not implemented).
+An exact fit (SU(2) or SU(N)) no better than the superposition is flagged.
 
 Start: the distinct peaks of :func:`count_peaks` (plateaus and ties merged, so lumps between lattice
 sites count once), sizes from the peak heights ``s_max = 48 / rho^4``; missing ones by greedy
@@ -51,6 +57,7 @@ from .moduli import multi_instanton
 from .moduli_fit import fit_exact
 from .peaks import BPST_PEAK, count_peaks, count_signed_peaks, sample_spacing
 from .transforms import PARITY
+from .unitary_fit import fit_unitary
 from .unitary_moduli import unitary_multi_instanton
 
 __all__ = [
@@ -116,7 +123,9 @@ class InstantonFit:
     """Result of :func:`find_instantons`.
 
     centers: (k, 4) float64; sizes: (k,) float64; orientations: (k, 4) unit quaternions u_j relative to
-    u_1 (row 0 = 1; each row up to sign) from the exact model, None for the superposition model;
+    u_1 (row 0 = 1; each row up to sign) from the exact model, None for the superposition model; for
+    SU(N > 2) (k, N, N) complex unitary g_i of the fitted data (g_1 the fixed reference), a representative
+    determined only up to gauge and stabilisers;
     uncertainties: {'centers': (k, 4), 'sizes': (k,)[, 'orientations': (k, 4)]} total one-sigma errors,
     the quadrature sum of ``statistical`` (noise, from the curvature of the fit) and ``systematic``
     (model error, see the module docstring); error_budget: a sentence saying which is which;
@@ -173,6 +182,9 @@ class InstantonFit:
             lines.append(f"{i:>3} {c} {self.sizes[i]:10.4f} {np.max(dc[i]):10.2e} {ds[i]:10.2e}")
         if self.orientations is None:
             lines.append("orientations: not determined (the superposition model does not depend on them)")
+        elif np.ndim(self.orientations) == 3:
+            n = np.shape(self.orientations)[1]
+            lines.append(f"orientations: a fitted SU({n}) representative (up to gauge and stabilisers), see data")
         else:
             for i in range(self.k):
                 lines.append(f"orientation {i} (relative to 0): " + " ".join(f"{v:8.4f}" for v in self.orientations[i]))
@@ -356,7 +368,8 @@ def find_instantons(
     anti-instantons); weights: optional (...,) >= 0 relative weights of the squared residuals;
     sigma: optional noise of the samples (a number or (...,)), weights then 1 / sigma^2 and chi2 / dof
     is a goodness-of-fit statement; init: optional (centres (k, 4), sizes (k,)) start instead of the
-    peak picking; model: 'exact' (exact SU(2) ADHM data, all moduli, from the superposition start) or
+    peak picking; model: 'exact' (exact SU(2) ADHM data, all moduli, or for rank > 2 exact SU(N) data with
+    orientations as nuisance parameters, from the superposition start) or
     'superposition' (sum of BPST profiles; its model error is then estimated from an exact fit).
     Residuals are sqrt(w) (model - s) / max|s|.
 
@@ -373,8 +386,8 @@ def find_instantons(
       seed: seed of the random orientation starts of the exact fit.
       systematics: for model='superposition' and k >= 2, estimate the model error by an exact fit
         (False skips it: systematic errors are then NaN, "not estimated").
-      rank: N of the SU(N) instantons behind the density (2, or N > 2 for genuine complex ADHM data:
-        superposition model only, module docstring).
+      rank: N of the SU(N) instantons behind the density (2, or N > 2 for genuine complex ADHM data,
+        module docstring).
     Returns:
       InstantonFit with centers (k, 4), sizes (k,), orientations, statistical / systematic / total
       one-sigma uncertainties, ADHM data and the reasons the fit may be ambiguous.
@@ -384,12 +397,8 @@ def find_instantons(
     if isinstance(k, tuple | list):
         return _find_mixed(points, density, k, weights=weights, sigma=sigma)
     _validate.choice("model", model, _MODELS)
-    if _validate.positive_int("rank", rank) < 2 or (rank > 2 and model == "exact"):
-        raise ValueError(
-            f"rank must be >= 2 and model='exact' (SU(2) ADHM data) needs rank 2; found rank {rank}, model "
-            f"{model!r}: relative SU(N) orientations are not identifiable from gauge-invariant densities, so for "
-            "SU(N > 2) only model='superposition' (centres and sizes) applies"
-        )
+    if _validate.positive_int("rank", rank) < 2:
+        raise ValueError(f"rank must be >= 2 (the N of SU(N)); found rank {rank}")
     if sigma is not None:
         if weights is not None:
             raise ValueError("give either weights or sigma, not both")
@@ -432,8 +441,9 @@ def find_instantons(
     stat_sup = {"centers": err[:, :4], "sizes": err[:, 4] * rs}  # d rho = rho d log rho
     if not sol.success:
         reasons.append(f"least squares did not converge ({sol.message})")
-    exact = None
-    if k >= 2 and (model == "exact" or systematics) and rank == 2:
+    exact: Any = None
+    notes: tuple = ()
+    if k >= 2 and (model == "exact" or (systematics and rank == 2)):
         sel = s >= _EXACT_FLOOR * smax
         if sel.sum() > _EXACT_MAX:
             sel = np.zeros_like(sel)
@@ -441,7 +451,16 @@ def find_instantons(
         if sel.sum() <= 8 * k:
             sel = np.ones_like(sel)
         try:
-            exact = fit_exact(fit_pts[sel], s[sel], k, w[sel], cs, rs, seed=seed, noise_known=sigma is not None)
+            if rank == 2:
+                exact = fit_exact(fit_pts[sel], s[sel], k, w[sel], cs, rs, seed=seed, noise_known=sigma is not None)
+            else:
+                exact = fit_unitary(
+                    fit_pts[sel], s[sel], k, rank, w[sel], cs, rs, seed=seed, noise_known=sigma is not None
+                )
+                notes = (
+                    f"orientations: the fitted SU({rank}) representative g_i (g_1 fixed), determined only up to "
+                    "gauge and stabilisers; the centres and sizes are gauge invariant",
+                )
         except ValueError as err_exact:
             reasons.append(f"exact ADHM fit failed ({err_exact})")
     if model == "exact" and exact is not None:
@@ -455,14 +474,18 @@ def find_instantons(
         data: Any = exact.data
         budget = (
             "statistical = noise, from the curvature of the exact ADHM fit; systematic = 0 (the model is exact "
-            "for SU(2) ADHM densities)" + _lattice_note
+            f"for SU({rank}) ADHM densities)" + _lattice_note
         )
         if not exact.success:
             reasons.append(f"exact fit did not converge ({exact.message})")
         if rms >= float(np.sqrt(np.mean(sol.fun[sel] ** 2))):  # the superposition on the same samples
             reasons.append(
-                f"the exact SU(2) model (rms {rms:.2e}) does not improve on the superposition; the density may "
-                "come from SU(N > 2) instantons that are not embeddings (pass rank=N, model='superposition')"
+                f"the exact SU({rank}) model (rms {rms:.2e}) does not improve on the superposition"
+                + (
+                    "; the density may come from SU(N > 2) instantons that are not embeddings (pass rank=N)"
+                    if rank == 2
+                    else ""
+                )
             )
     else:
         c, r, o = cs, rs, None
@@ -488,7 +511,7 @@ def find_instantons(
             syst = {"centers": np.zeros_like(cs), "sizes": np.zeros_like(rs)}
             budget = "statistical = noise, from the curvature of the superposition fit; systematic = 0 (k = 1: BPST is exact)"
         if k == 1 and model == "exact":  # the BPST profile is the exact charge-1 density
-            o = np.array([[1.0, 0.0, 0.0, 0.0]])
+            o = np.array([[1.0, 0.0, 0.0, 0.0]]) if rank == 2 else np.eye(rank, dtype=np.complex128)[None]
             budget = (
                 "statistical = noise, from the curvature of the fit; systematic = 0 (k = 1: BPST is the exact density)"
             )
@@ -527,8 +550,7 @@ def find_instantons(
             reasons.append(f"size {i} exploded to {r[i]:.3g}, beyond half the sample extent {extent:.3g}")
     if sign == -1:  # back from the parity image
         c, cs = c * PARITY, cs * PARITY
-        if data is not None:
-            data = data.conjugate()
+        data = data.conjugate() if data is not None and rank == 2 else None
     return InstantonFit(
         centers=c,
         sizes=r,
@@ -548,6 +570,7 @@ def find_instantons(
         chi2_dof=float(chi2_dof),
         explains_noise=explains,
         superposition={"centers": cs, "sizes": rs},
+        notes=notes,
     )
 
 
