@@ -167,7 +167,9 @@ def find_lattice_instantons(
     clovers leave the lattice.  The continuum model is fitted to these O(a^2)-accurate densities.
     Without ``rank`` the colour rank r is inferred from the links (:func:`colour_rank`): r = 2 (SU(2)
     links, or an SU(2) field embedded in SU(N)) fits SU(2) with model 'exact' by default; r > 2 fits
-    SU(r) with model 'superposition' by default (centres and sizes; model='exact' raises).  The fit's
+    SU(r) with model 'superposition' by default (centres and sizes: the clover densities' O((a / rho)^2)
+    artefacts exceed the superposition's model error, and the exact SU(r) fit of
+    :mod:`instantonkit.unitary_fit`, model='exact', costs 20-50 s on its first call).  The fit's
     ``notes`` say what was inferred.
 
     Args:
@@ -183,7 +185,7 @@ def find_lattice_instantons(
     Returns:
       InstantonFit (or MixedFit), positions in the lattice's coordinates, ``notes`` naming the rank.
     Raises:
-      ValueError / TypeError naming the bad argument; ValueError for model='exact' with a rank > 2.
+      ValueError / TypeError naming the bad argument.
     """
     _validate.choice("quantity", quantity, _QUANTITIES)
     if model is not None:
@@ -193,12 +195,6 @@ def find_lattice_instantons(
     if rank is None:
         inferred = colour_rank(links, spacing=a, boundary=boundary)
         rank, note = inferred.rank, inferred.describe()
-        if rank > 2 and model == "exact":
-            raise ValueError(
-                f"rank must be >= 2 and model='exact' (SU(2) ADHM data) needs rank 2; found {note}: relative SU(N) "
-                "orientations are not identifiable from gauge-invariant densities, so pass model='superposition' "
-                "(or leave model unset)"
-            )
     else:
         note = f"colour rank {rank} given by the caller (not inferred from the links)"
     if model is None:
