@@ -421,8 +421,8 @@ res, scale = dirac_residual(genuine, probe[:8])
 print("Dirac equation, max relative residual:", float(np.max(res / scale)))"""),
         md("""The action density and the zero-mode density of the genuine SU(3) configuration in the
 (x1, x2) plane at x3 = 0.15, x4 = 0 (both lumps near it), and the finder's centres and sizes from
-the action density (`rank=3`: superposition model; the relative SU(3) orientations are not
-identifiable from gauge-invariant densities, so the finder does not report them)."""),
+the action density (`rank=3`, `model="superposition"`: centres and sizes only, which is quick;
+`model="exact"` also fits the relative SU(3) orientations, fixed only up to gauge and stabilisers)."""),
         code("""n3, half3 = 61, 3.0
 g3 = (np.arange(n3) + 0.5) / n3 * 2 * half3 - half3
 Y1, Y2 = np.meshgrid(g3, g3, indexing="xy")
