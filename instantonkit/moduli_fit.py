@@ -24,6 +24,7 @@ import numpy as np
 import scipy.optimize
 
 from . import quaternion as qt
+from ._lsq import ModuliFit, best_of_trials, padded_samples
 from .adhm import ADHMData
 from .conventions import point_to_quaternion
 from .moduli import UNROLLED_STEPS, multi_instanton, solve_constraint_unrolled
@@ -112,7 +113,7 @@ def relative_orientations(data: ADHMData) -> np.ndarray:
 
 
 @dataclasses.dataclass(frozen=True)
-class ExactFit:
+class ExactFit(ModuliFit):
     """Result of :func:`fit_exact`.
 
     data: fitted ADHMData (SU(2), charge +k); centers (k, 4), sizes (k,), orientations (k, 4) unit
@@ -120,18 +121,6 @@ class ExactFit:
     'orientations': (k, 4)} one-sigma statistical errors; chi2: weighted sum of squared residuals;
     dof: samples minus parameters; rms: relative rms residual; success: bool; message: str.
     """
-
-    data: ADHMData
-    centers: np.ndarray
-    sizes: np.ndarray
-    orientations: np.ndarray
-    errors: dict
-    chi2: float
-    dof: int
-    rms: float
-    success: bool
-    message: str
-    condition: float
 
 
 def fit_exact(
@@ -149,11 +138,7 @@ def fit_exact(
     """
     smax = float(np.max(np.abs(s)))
     m = pts.shape[0]
-    # pad to a power of two with zero-weight copies of the first sample: one compiled kernel per size class
-    pad = (1 << max(int(np.ceil(np.log2(max(m, 1)))), 6)) - m
-    pts_j = jnp.asarray(np.concatenate([pts, np.repeat(pts[:1], pad, axis=0)]))
-    sw = jnp.asarray(np.concatenate([np.sqrt(w), np.zeros(pad)]) / smax)
-    s_j = jnp.asarray(np.concatenate([s, np.repeat(s[:1], pad)]))
+    pts_j, sw, s_j = padded_samples(pts, s, w, smax)
 
     def resid(theta, uref):
         return sw * (exact_density(theta, uref, pts_j, k) - s_j)
@@ -183,7 +168,6 @@ def fit_exact(
     costs = [float(np.sum(np.asarray(f(jnp.asarray(t), jnp.asarray(u))) ** 2)) for t, u in starts]
     starts = [starts[i] for i in np.argsort(costs)[: (_REFINE if k >= 2 else 1)]]
     npar = n_params(k)
-    nfev = 0
 
     def run(t0, uref, budget):
         u_j = jnp.asarray(uref)
@@ -199,16 +183,7 @@ def fit_exact(
             max_nfev=budget,
         )
 
-    # a short run from each start, then the best one to convergence (a start in a bad valley crawls)
-    trials = []
-    for t0, uref in starts:
-        sol = run(t0, uref, _TRIAL_NFEV if len(starts) > 1 else _NFEV_PER_PARAM * (npar + 1))
-        nfev += sol.nfev
-        trials.append((sol.cost, sol, uref))
-    _, best, uref = min(trials, key=lambda item: item[0])
-    if len(starts) > 1 and best.status == 0:  # budget used up: continue to convergence
-        best = run(best.x, uref, _NFEV_PER_PARAM * (npar + 1))
-        nfev += best.nfev
+    best, uref, nfev = best_of_trials(starts, run, _TRIAL_NFEV, _NFEV_PER_PARAM * (npar + 1))
     theta = best.x
     uref = jnp.asarray(uref)
     data = _data(jnp.asarray(theta), k, uref)

@@ -34,6 +34,7 @@ import jax.numpy as jnp
 import numpy as np
 import scipy.optimize
 
+from ._lsq import ModuliFit, best_of_trials, padded_samples
 from .unitary_adhm import UnitaryADHMData, complex_coordinates, unitary_moment_maps
 
 __all__ = ["UnitaryFit", "fit_unitary", "unitary_data", "orientation_basis"]
@@ -192,7 +193,7 @@ _dmoduli = jax.jit(jax.jacfwd(_moduli), static_argnums=(3, 4))
 
 
 @dataclasses.dataclass(frozen=True)
-class UnitaryFit:
+class UnitaryFit(ModuliFit):
     """Result of :func:`fit_unitary`.
 
     data: fitted UnitaryADHMData; centers (k, 4), sizes (k,); orientations (k, N, N): the fitted
@@ -201,18 +202,7 @@ class UnitaryFit:
     (of the column-scaled J^T J on the kept directions); null: number of dropped near-null directions.
     """
 
-    data: UnitaryADHMData
-    centers: np.ndarray
-    sizes: np.ndarray
-    orientations: np.ndarray
-    errors: dict
-    chi2: float
-    dof: int
-    rms: float
-    success: bool
-    message: str
-    condition: float
-    null: int
+    null: int = 0
 
 
 def fit_unitary(
@@ -232,10 +222,7 @@ def fit_unitary(
     n = int(rank)
     smax = float(np.max(np.abs(s)))
     m = pts.shape[0]
-    pad = (1 << max(int(np.ceil(np.log2(max(m, 1)))), 6)) - m  # one compiled kernel per size class
-    pts_j = jnp.asarray(np.concatenate([pts, np.repeat(pts[:1], pad, axis=0)]))
-    sw = jnp.asarray(np.concatenate([np.sqrt(w), np.zeros(pad)]) / smax)
-    s_j = jnp.asarray(np.concatenate([s, np.repeat(s[:1], pad)]))
+    pts_j, sw, s_j = padded_samples(pts, s, w, smax)
     rng = np.random.default_rng(seed)
     cands = [] if orientations0 is None else [np.asarray(orientations0, dtype=np.complex128)]
     for _ in range(_SCREEN if k >= 2 else 1):
@@ -268,17 +255,12 @@ def fit_unitary(
             max_nfev=budget,
         )
 
-    nfev, trials = 0, []
-    for _, t0, args in starts:
-        sol = run(t0, args, _TRIAL_NFEV if len(starts) > 1 else _NFEV_PER_PARAM * (npar + 1))
-        nfev += sol.nfev
-        trials.append((sol.cost, sol, args))
-    _, best, args = min(trials, key=lambda item: item[0])
-    if len(starts) > 1 and best.status == 0:  # budget used up: continue to convergence
-        best = run(best.x, args, _NFEV_PER_PARAM * (npar + 1))
-        nfev += best.nfev
+    best, best_args, nfev = best_of_trials(
+        [(t0, a) for _, t0, a in starts], run, _TRIAL_NFEV, _NFEV_PER_PARAM * (npar + 1)
+    )
+    g_ref, basis = best_args
     theta = jnp.asarray(best.x)
-    b1, b2, i_mat, j_mat = (np.asarray(a) for a in unitary_data(theta, *args, k, n))
+    b1, b2, i_mat, j_mat = (np.asarray(a) for a in unitary_data(theta, g_ref, basis, k, n))
     data = UnitaryADHMData(b1, b2, i_mat, j_mat)  # validated (both moment maps checked) host copy
     jmat = best.jac
     norms = np.linalg.norm(jmat, axis=0)
@@ -288,9 +270,9 @@ def fit_unitary(
     cov = (vt[keep].T / sv[keep] ** 2) @ vt[keep] / np.outer(norms, norms)
     dof = max(m - int(np.sum(keep)), 1)
     cov = cov * (1.0 / smax**2 if noise_known else float(np.sum(best.fun**2)) / dof)
-    dj = np.asarray(_dmoduli(theta, *args, k, n))
+    dj = np.asarray(_dmoduli(theta, g_ref, basis, k, n))
     err = np.sqrt(np.abs(np.einsum("ip,pq,iq->i", dj, cov, dj)))
-    g = np.einsum("kab,kbc->kac", np.asarray(args[0]), np.asarray(jax.vmap(_cayley)(_omega(best.x, args[1], k))))
+    g = np.einsum("kab,kbc->kac", np.asarray(g_ref), np.asarray(jax.vmap(_cayley)(_omega(best.x, basis, k))))
     return UnitaryFit(
         data=data,
         centers=data.centers(),
