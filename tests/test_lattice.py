@@ -70,6 +70,19 @@ def _random_antihermitian(rng, n):
     return z - np.trace(z) / n * np.eye(n)
 
 
+def _dop853_transporter(g, n):
+    """W(1) of dW/dt = W G(t), W(0) = 1, by scipy's DOP853 at rtol 1e-13 (the reference of the order tests)."""
+    sol = integrate.solve_ivp(
+        lambda t, w: (w.reshape(n, n) @ g(t)).ravel(),
+        (0, 1),
+        np.eye(n, dtype=complex).ravel(),
+        method="DOP853",
+        rtol=1e-13,
+        atol=1e-14,
+    )
+    return sol.y[:, -1].reshape(n, n)
+
+
 def test_magnus_steps_are_sixth_order_against_scipy():
     # reference: scipy's DOP853 on dW/dt = W G(t) at rtol 1e-13; the three-node Gauss-Legendre Magnus
     # scheme is of order six (Blanes, Casas, Oteo, Ros, Phys. Rep. 470 (2009) 151, from memory)
@@ -81,18 +94,7 @@ def test_magnus_steps_are_sixth_order_against_scipy():
     def g(t):
         return c[0] + np.sin(2 * t) * c[1] + t**2 * c[2]
 
-    ref = (
-        integrate.solve_ivp(
-            lambda t, w: (w.reshape(3, 3) @ g(t)).ravel(),
-            (0, 1),
-            np.eye(3, dtype=complex).ravel(),
-            method="DOP853",
-            rtol=1e-13,
-            atol=1e-14,
-        )
-        .y[:, -1]
-        .reshape(3, 3)
-    )
+    ref = _dop853_transporter(g, 3)
 
     def run(m):
         w = np.eye(3, dtype=complex)
@@ -128,15 +130,7 @@ def test_fused_su2_magnus_links_are_sixth_order_against_scipy():
     def g(t):
         return c[0] + np.sin(2 * t) * c[1] + t**2 * c[2]
 
-    sol = integrate.solve_ivp(
-        lambda t, w: (w.reshape(2, 2) @ g(t)).ravel(),
-        (0, 1),
-        np.eye(2, dtype=complex).ravel(),
-        method="DOP853",
-        rtol=1e-13,
-        atol=1e-14,
-    )
-    ref = sol.y[:, -1].reshape(2, 2)
+    ref = _dop853_transporter(g, 2)
     x0, d = np.zeros((1, 4)), np.eye(4)[:1]
     errs = [np.max(np.abs(transport._magnus_at(field, x0, d, m)[0] - ref)) for m in (2, 4, 8)]
     assert errs[0] / errs[1] > 40.0 and errs[1] / errs[2] > 40.0  # 2^6 = 64; order four would give 16
