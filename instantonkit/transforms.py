@@ -21,6 +21,7 @@ Maps (conventions of :mod:`instantonkit.conventions`; ``R`` orthogonal, ``g`` un
 from __future__ import annotations
 
 import dataclasses
+from collections.abc import Callable
 
 import jax
 import jax.numpy as jnp
@@ -185,23 +186,20 @@ class _Wrapper(PytreeFields):
         """Points (m, 4) of this field -> (points of the wrapped field, density factor, sign of q); subclasses."""
         return pts, 1.0, 1.0
 
-    #: Whether A'(x).d = A(y).e for points and directions (y, e) of :meth:`_generator_points` (not for gauge
-    #: transformations, whose extra term g d g^-1 has no batch hook to come from).
-    _maps_generator = False
-
-    def _generator_points(self, pts, dirs):
-        """Points (m, 4) and directions (m, 4) of this field -> those of the wrapped one; subclasses."""
-        return pts, dirs
+    #: (points (m, 4), directions (m, 4)) of this field -> (y, e) of the wrapped one with A'(x).d = A(y).e, in
+    #: the subclasses that can map the generator (not gauge transformations: their g d g^-1 has no batch hook).
+    _generator_points: Callable | None = None
 
     @property
     def generator_batch(self):
         """Field hook: A'.d at a batch from the wrapped field's hook (translations, rotations, dilations, parity)."""
         inner = hook(self.field, "generator_batch")
-        if inner is None or not self._maps_generator:
+        to_inner = self._generator_points
+        if inner is None or to_inner is None:
             _missing("generator_batch")
 
         def generator_batch(points, dirs):
-            y, e = self._generator_points(jnp.asarray(points, dtype=jnp.float64), jnp.asarray(dirs, dtype=jnp.float64))
+            y, e = to_inner(jnp.asarray(points, dtype=jnp.float64), jnp.asarray(dirs, dtype=jnp.float64))
             return inner(y, e)
 
         return generator_batch
@@ -374,8 +372,6 @@ class Translated(_Wrapper):
     def _batch_points(self, pts):
         return pts - jnp.asarray(self.shift), 1.0, 1.0
 
-    _maps_generator = True
-
     def _generator_points(self, pts, dirs):
         return pts - jnp.asarray(self.shift), dirs
 
@@ -478,8 +474,6 @@ class Rotated(_Wrapper):
     def _batch_points(self, pts):
         return pts @ self.matrix, 1.0, 1.0  # rows y = R^T x
 
-    _maps_generator = True
-
     def _generator_points(self, pts, dirs):
         r = self.matrix  # A'.d = (R^T d).A(R^T x)
         return pts @ r, dirs @ r
@@ -555,8 +549,6 @@ class Dilated(_Wrapper):
         c = jnp.asarray(self.factor)
         return pts / c, 1.0 / c**4, 1.0
 
-    _maps_generator = True
-
     def _generator_points(self, pts, dirs):
         c = jnp.asarray(self.factor)  # A'.d = A(x / c).(d / c)
         return pts / c, dirs / c
@@ -620,8 +612,6 @@ class ParityImage(_Wrapper):
 
     def _batch_points(self, pts):
         return pts * PARITY, 1.0, -1.0
-
-    _maps_generator = True
 
     def _generator_points(self, pts, dirs):
         return pts * PARITY, dirs * PARITY  # A'.d = A(P x).(P d)

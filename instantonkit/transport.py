@@ -193,12 +193,13 @@ def _step_kernel():
     return jax.jit(jax.vmap(_step_exp, in_axes=(0, None)))
 
 
-def _ordered_product(e):
-    """W = E_1 E_2 ... E_m for (M, m, N, N): pairwise products (log2 m rounds), earlier factors left."""
+def _pairwise_product(e, mul=np.matmul, cat=np.concatenate):
+    """E_1 E_2 ... E_m of factors on axis 1 (e.g. (M, m, N, N)): pairwise products (log2 m rounds, no long
+    chain for XLA to fuse), earlier factors left; ``mul``/``cat`` the product and concatenation to use."""
     while e.shape[1] > 1:
         pairs = e.shape[1] // 2
-        prod = np.matmul(e[:, 0 : 2 * pairs : 2], e[:, 1 : 2 * pairs : 2])
-        e = np.concatenate([prod, e[:, 2 * pairs :]], axis=1) if e.shape[1] % 2 else prod
+        prod = mul(e[:, 0 : 2 * pairs : 2], e[:, 1 : 2 * pairs : 2])
+        e = cat([prod, e[:, 2 * pairs :]], axis=1) if e.shape[1] % 2 else prod
     return e[:, 0]
 
 
@@ -241,11 +242,7 @@ def _fused_links(field, xs, ds, m: int):
     inner = a2 - _rcomm_q(a1, 2.0 * a3 + c12) / 60.0
     om = a1 + a3 / 12.0 + _rcomm_q(-20.0 * a1 - a3 + c12, inner) / 240.0  # (3, m, nb)
     w = jnp.moveaxis(qt.qexp(jnp.moveaxis(jnp.concatenate([jnp.zeros((1, m, nb)), om]), 0, -1)), -1, 0)  # (4, m, nb)
-    while w.shape[1] > 1:  # pairwise products, earlier factors left (log2 m rounds, no long chain to fuse)
-        pairs = w.shape[1] // 2
-        prod = _kxk.qmul_last(w[:, 0 : 2 * pairs : 2], w[:, 1 : 2 * pairs : 2])
-        w = jnp.concatenate([prod, w[:, 2 * pairs :]], axis=1) if w.shape[1] % 2 else prod
-    w = w[:, 0]
+    w = _pairwise_product(w, _kxk.qmul_last, jnp.concatenate)
     phase = jnp.exp(1j * h * jnp.sum(tau * jnp.asarray([5.0, 8.0, 5.0])[None, :, None] / 18.0, axis=(0, 1)))
     return phase[:, None, None] * qt.to_matrix(w.T)
 
@@ -284,7 +281,7 @@ def _magnus_at(field, xs, ds, m):
             out = np.empty((xs.shape[0], n, n), dtype=np.complex128)
         steps = _STEP_BATCH_PLAIN if n == 2 else _STEP_BATCH
         e = run_batched(_step_kernel(), [g.reshape(-1, 3, n, n)], steps, args_after=(h,))
-        out[lo : lo + per] = _ordered_product(e.reshape(x.shape[0], m, n, n))
+        out[lo : lo + per] = _pairwise_product(e.reshape(x.shape[0], m, n, n))
     return out
 
 
