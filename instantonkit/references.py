@@ -15,11 +15,12 @@ import numpy as np
 from . import _validate as _v
 from . import io as _io
 from .adhm import ADHMData
-from .ansatz import BPSTField
+from .ansatz import BPSTField, caloron, jnr, thooft
 from .conventions import INSTANTON_ACTION
 from .fields import evaluate, hook
 from .lattice import LatticeStart, StartSpec, lattice_start
 from .periodic import DEFAULT_WINDOW_WIDTH, TorusWindow
+from .transforms import dilate, parity, rotate, translate
 from .unitary_adhm import UnitaryADHMData
 
 #: 8 pi^2, the action of one instanton (conventions module).
@@ -140,27 +141,45 @@ def continuum_reference(
 # -- fields from their records (lattice files) -----------------------------------------------------------
 
 
+def _entries(rec, *names):
+    """The entries ``names`` of a record, or a ValueError naming the kind and what is missing."""
+    missing = [n for n in names if n not in rec]
+    if missing:
+        raise ValueError(f"record of kind {rec.get('kind')!r} lacks {missing}; found keys {sorted(rec)}")
+    return [rec[n] for n in names]
+
+
+def _floats(value):
+    return np.asarray(value, dtype=np.float64)
+
+
 def _adhm_from_record(rec):
-    return ADHMData(
-        np.asarray(rec["lam"], dtype=np.float64),
-        np.asarray(rec["B"], dtype=np.float64),
-        chirality=int(rec["chirality"]),
-        tol=float(rec["tol"]),
-        gauge=rec["gauge"],
-    )
+    lam, b, chirality, tol, gauge = _entries(rec, "lam", "B", "chirality", "tol", "gauge")
+    return ADHMData(_floats(lam), _floats(b), chirality=int(chirality), tol=float(tol), gauge=gauge)
 
 
 def _bpst_from_record(rec):
-    return BPSTField(
-        np.asarray(rec["center"], dtype=np.float64),
-        float(rec["size"]),
-        np.asarray(rec["orientation"], dtype=np.float64),
-        rec["gauge"],
-    )
+    center, size, orientation, gauge = _entries(rec, "center", "size", "orientation", "gauge")
+    return BPSTField(_floats(center), float(size), _floats(orientation), gauge)
+
+
+def _thooft_from_record(rec):
+    centers, sizes = _entries(rec, "centers", "sizes")
+    return thooft(_floats(centers), _floats(sizes))
+
+
+def _jnr_from_record(rec):
+    poles, weights = _entries(rec, "poles", "weights")
+    return jnr(_floats(poles), _floats(weights))
+
+
+def _caloron_from_record(rec):
+    size, period, center = _entries(rec, "size", "period", "center")
+    return caloron(float(size), float(period), _floats(center))
 
 
 def _complex_entry(rec, name):
-    part = rec[name]
+    (part,) = _entries(rec, name)
     if not isinstance(part, dict) or set(part) != {"re", "im"}:
         raise ValueError(f"record entry {name!r} must be a dict with keys 're' and 'im'; found {part!r:.80}")
     return np.asarray(part["re"], dtype=np.float64) + 1j * np.asarray(part["im"], dtype=np.float64)
@@ -168,12 +187,40 @@ def _complex_entry(rec, name):
 
 def _unitary_adhm_from_record(rec):
     b1, b2, i, j = (_complex_entry(rec, n) for n in ("B1", "B2", "I", "J"))
-    return UnitaryADHMData(b1, b2, i, j, tol=float(rec["tol"]), gauge=rec["gauge"])
+    (tol, gauge) = _entries(rec, "tol", "gauge")
+    return UnitaryADHMData(b1, b2, i, j, tol=float(tol), gauge=gauge)
 
 
-#: Rebuilders of field records by their 'kind' (the ``record()`` hooks of ADHM data, complex ADHM data
-#: and ``ansatz.BPSTField``).
-RECORD_KINDS = {"adhm": _adhm_from_record, "unitary_adhm": _unitary_adhm_from_record, "bpst": _bpst_from_record}
+def _inner(rec):
+    """The wrapped field of a transformation's record (its own window, if any, rebuilt with it)."""
+    (inner,) = _entries(rec, "field")
+    try:
+        return field_from_record(inner)
+    except ValueError as err:
+        raise ValueError(f"the field inside a {rec['kind']} field cannot be rebuilt: {err}") from err
+
+
+def _unrecordable(rec):
+    kind = rec.get("type", "field")
+    raise ValueError(f"a {kind} cannot be rebuilt from its record: {rec.get('reason', 'no reason recorded')}")
+
+
+#: Rebuilders of field records by their 'kind' (the ``record()`` hooks of ADHM data, complex ADHM data,
+#: the ansaetze of :mod:`instantonkit.ansatz` and the transformations of :mod:`instantonkit.transforms`;
+#: 'unrecordable' records say why a field cannot be rebuilt, and rebuilding one raises that reason).
+RECORD_KINDS = {
+    "adhm": _adhm_from_record,
+    "unitary_adhm": _unitary_adhm_from_record,
+    "bpst": _bpst_from_record,
+    "thooft": _thooft_from_record,
+    "jnr": _jnr_from_record,
+    "caloron": _caloron_from_record,
+    "translated": lambda rec: translate(_inner(rec), _floats(_entries(rec, "shift")[0])),
+    "rotated": lambda rec: rotate(_inner(rec), *(_floats(v) for v in _entries(rec, "left", "right"))),
+    "dilated": lambda rec: dilate(_inner(rec), float(_entries(rec, "factor")[0])),
+    "parity": lambda rec: parity(_inner(rec)),
+    "unrecordable": _unrecordable,
+}
 
 
 def field_from_record(record: dict, *, window: bool = True):
@@ -182,13 +229,18 @@ def field_from_record(record: dict, *, window: bool = True):
     Args:
       record: dict with a 'kind' in RECORD_KINDS ('adhm': Lambda, B, chirality, gauge, tol;
         'unitary_adhm': B1, B2, I, J as {'re', 'im'} lists, gauge, tol; 'bpst': center, size,
-        orientation, gauge) and optionally 'window' (lo, box, width of :class:`TorusWindow`).
+        orientation, gauge; 'thooft': centers, sizes; 'jnr': poles, weights; 'caloron': size, period,
+        center; 'translated': field, shift; 'rotated': field, left, right; 'dilated': field, factor;
+        'parity': field, where 'field' is the wrapped field's record) and optionally 'window' (lo, box,
+        width of :class:`TorusWindow`).
       window: rebuild the window too (False: the field before windowing, to pass with boundary='window').
     Returns:
-      The field (ADHMData, UnitaryADHMData, ansatz.BPSTField or a TorusWindow of one); floats are those of the record
-      (JSON keeps float64 exactly), so np.array_equal holds on Lambda and B.
+      The field (ADHMData, UnitaryADHMData, an ansatz field, a transformed field or a TorusWindow of
+      one); floats are those of the record (JSON keeps float64 exactly), so np.array_equal holds on
+      the parameters.
     Raises:
-      ValueError: no record, or an unknown kind.
+      ValueError: no record, an unknown kind, an entry missing (naming it), or a field that cannot be
+        rebuilt (kind 'unrecordable': a gauge transformation by a callable, with the reason).
     """
     if not isinstance(record, dict) or "kind" not in record:
         raise ValueError(f"record must be a dict with a 'kind' key; found {record!r:.80}")
@@ -202,17 +254,36 @@ def field_from_record(record: dict, *, window: bool = True):
     return field
 
 
+#: Why a lattice start's file can hold no field description (its field offered no ``record()`` hook).
+_NO_RECORD = (
+    "its field offered no record() hook: a bare callable A(x), a ParametrisedField, a field class of your "
+    "own, or a transformation or window of one of those (fields that record themselves: ADHM data, complex "
+    "ADHM data, BPST, 't Hooft, JNR and caloron fields and their translations, rotations, dilations, parity "
+    "images and windows); rebuild the field by hand, or save with description= a dict of your own"
+)
+
+
 def field_from_file(path, *, window: bool = True):
     """The field described in a lattice file (npz or ILDG written by ``save_lattice`` of a start); see :func:`field_from_record`.
 
-    Raises ValueError when the file holds no field description.
+    Raises ValueError saying why when the field cannot be rebuilt: the file holds no description (links
+    saved without a start, or a start whose field has no ``record()`` hook, told apart by the start's
+    metadata), or the description is of a field that cannot be rebuilt (with its reason).
     """
     desc = _io.read_description(path)
-    if desc["field"] is None:
+    rec = desc["field"]
+    if rec is None:
+        meta = desc["metadata"] or {}
+        if "shape" in meta and "boundary" in meta:
+            raise ValueError(f"{path!s} holds a lattice start but no field description: {_NO_RECORD}")
         raise ValueError(
-            f"{path!s} holds no field description (save a lattice_start(...) result, or pass description=)"
+            f"{path!s} holds no field description: the links were saved without a lattice start and without "
+            "description= (save the lattice_start(...) result itself, or pass description=)"
         )
-    return field_from_record(desc["field"], window=window)
+    try:
+        return field_from_record(rec, window=window)
+    except ValueError as err:
+        raise ValueError(f"the field of {path!s} cannot be rebuilt: {err}") from err
 
 
 def regenerate(path) -> LatticeStart:

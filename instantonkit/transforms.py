@@ -182,6 +182,28 @@ class _Wrapper(PytreeFields):
 
     _verb = "transformed"
 
+    #: The 'kind' of this wrapper's record (references.field_from_record), and its parameters.
+    _record_kind = "transformed"
+
+    def _record_params(self) -> dict:
+        return {}
+
+    @property
+    def record(self):
+        """Field hook: {'kind': the transformation, 'field': the wrapped field's record, its parameters}.
+
+        Offered when the wrapped field has a record hook; rebuilt by
+        :func:`instantonkit.references.field_from_record`.
+        """
+        inner = hook(self.field, "record")
+        if inner is None:
+            _missing("record")
+
+        def record():
+            return {"kind": self._record_kind, "field": inner(), **self._record_params()}
+
+        return record
+
     def _batch_points(self, pts):
         """Points (m, 4) of this field -> (points of the wrapped field, density factor, sign of q); subclasses."""
         return pts, 1.0, 1.0
@@ -282,6 +304,31 @@ class GaugeTransformed(_Wrapper):
     def _g(self, x):
         return jnp.asarray(self.g(x)).astype(jnp.complex128)
 
+    @property
+    def record(self):
+        """Field hook: a record that says why this field cannot be rebuilt (g is code, not data).
+
+        {'kind': 'unrecordable', 'type': 'GaugeTransformed', 'reason': ..., 'field': the wrapped
+        field's record}; :func:`instantonkit.references.field_from_record` raises a ValueError quoting
+        the reason.  Offered when the wrapped field has a record hook.
+        """
+        inner = hook(self.field, "record")
+        if inner is None:
+            _missing("record")
+        g = self.g
+        name = getattr(g, "__qualname__", None) or type(g).__qualname__
+        module = getattr(g, "__module__", None) or type(g).__module__
+        reason = (
+            f"a gauge transformation by the callable {module}.{name} cannot be stored: a function is code, "
+            "not data, so the file cannot rebuild g; the wrapped field is recorded under 'field' "
+            "(densities are gauge invariant), rebuild it and apply g again"
+        )
+
+        def record():
+            return {"kind": "unrecordable", "type": "GaugeTransformed", "reason": reason, "field": inner()}
+
+        return record
+
     def potential(self, x):
         """A'_mu = g A_mu g^dag - (d_mu g) g^dag at one point (4,) -> (4, N, N)."""
         x = jnp.asarray(x, dtype=jnp.float64)
@@ -350,6 +397,10 @@ class Translated(_Wrapper):
 
     _leaves = ("field", "shift")
     _verb = "translated"
+    _record_kind = "translated"
+
+    def _record_params(self) -> dict:
+        return {"shift": np.asarray(self.shift, dtype=np.float64).reshape(4).tolist()}
 
     def _y(self, x):
         return jnp.asarray(x, dtype=jnp.float64) - jnp.asarray(self.shift)
@@ -444,6 +495,13 @@ class Rotated(_Wrapper):
 
     _leaves = ("field", "left", "right")
     _verb = "rotated"
+    _record_kind = "rotated"
+
+    def _record_params(self) -> dict:
+        return {
+            "left": np.asarray(self.left, dtype=np.float64).reshape(4).tolist(),
+            "right": np.asarray(self.right, dtype=np.float64).reshape(4).tolist(),
+        }
 
     @property
     def matrix(self):
@@ -517,6 +575,10 @@ class Dilated(_Wrapper):
 
     _leaves = ("field", "factor")
     _verb = "dilated"
+    _record_kind = "dilated"
+
+    def _record_params(self) -> dict:
+        return {"factor": float(self.factor)}
 
     def _y(self, x):
         c = jnp.asarray(self.factor)
@@ -586,6 +648,7 @@ class ParityImage(_Wrapper):
 
     _leaves = ("field",)
     _verb = "parity image"
+    _record_kind = "parity"
     _pole_note = ", parity image"
 
     @staticmethod
