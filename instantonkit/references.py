@@ -292,7 +292,10 @@ def regenerate(path) -> LatticeStart:
     meta = desc["metadata"]
     if desc["field"] is None or "shape" not in meta:
         raise ValueError(f"{path!s} lacks the field description or the start's metadata needed to regenerate it")
-    field = field_from_record(desc["field"], window=False)
+    try:
+        field = field_from_record(desc["field"], window=False)
+    except ValueError as err:
+        raise ValueError(f"the field of {path!s} cannot be rebuilt: {err}") from err
     return lattice_start(
         field,
         tuple(meta["shape"]),

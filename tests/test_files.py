@@ -151,6 +151,16 @@ def test_disk_full_error_names_the_users_path_and_leaves_nothing(tmp_path, monke
     assert os.listdir(tmp_path) == []
 
 
+def test_refused_permission_names_the_users_path_not_the_temporary_one(tmp_path, monkeypatch):
+    def refuse(directory):
+        raise PermissionError(errno.EACCES, os.strerror(errno.EACCES), os.path.join(directory, ".x.part"))
+
+    monkeypatch.setattr(_atomic, "_create_temp", refuse)  # what a read-only directory does (also as root)
+    with pytest.raises(PermissionError) as err:
+        lio.save_lattice(tmp_path / "a.npz", np.zeros((1, 1, 1, 1, 4, 2, 2), complex))
+    assert err.value.filename == str(tmp_path / "a.npz") and ".part" not in str(err.value)
+
+
 @pytest.mark.skipif(os.name != "posix" or os.geteuid() == 0, reason="root ignores directory permissions")
 def test_permission_error_names_the_users_path(tmp_path):
     locked = tmp_path / "locked"

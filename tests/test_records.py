@@ -6,15 +6,20 @@ exactly by Python's repr round trip, common practice; densities to 1e-12 at samp
 
 from __future__ import annotations
 
+import json
+
 import jax.numpy as jnp
 import numpy as np
 import pytest
+from hypothesis import given
+from hypothesis import strategies as st
 
 import instantonkit as ik
 from instantonkit import io as lio
 from instantonkit import lattice as lat
 from instantonkit import references
 from instantonkit.fields import evaluate
+from instantonkit.testing import points, unit_quaternions
 
 _POINTS = np.array([[0.3, -0.2, 0.5, 0.1], [1.1, 0.4, -0.7, 0.9], [-0.6, 0.8, 0.2, -1.3]])
 
@@ -135,3 +140,30 @@ def test_record_with_a_missing_entry_names_it():
     del rec["period"]
     with pytest.raises(ValueError, match=r"'caloron' lacks \['period'\]"):
         references.field_from_record(rec)
+
+
+_STEPS = st.sampled_from(["translate", "rotate", "dilate", "parity"])
+
+
+@given(
+    base=st.sampled_from(["bpst", "thooft", "jnr", "caloron"]),
+    steps=st.lists(st.tuples(_STEPS, points(2.0), unit_quaternions(), st.floats(0.2, 5.0)), max_size=3),
+)
+def test_any_chain_of_recordable_transformations_rebuilds_to_the_same_record(base, steps):
+    f = {
+        "bpst": ik.bpst_field(center=(0.1, 0.2, 0.3, 0.4), size=0.9),
+        "thooft": ik.thooft([[0.0, 0.0, 0.0, 0.0], [1.0, 1.0, 0.0, 0.0]], [0.5, 0.7]),
+        "jnr": ik.jnr([[0.0, 0.0, 0.0, 0.0], [1.0, 0.5, 0.0, 0.0]], [1.0, 0.7]),
+        "caloron": ik.caloron(0.8, 2.0),
+    }[base]
+    for name, shift, quat, factor in steps:
+        if name == "translate":
+            f = ik.translate(f, shift)
+        elif name == "rotate":
+            f = ik.rotate(f, quat)
+        elif name == "dilate":
+            f = ik.dilate(f, factor)
+        else:
+            f = ik.parity(f)
+    rebuilt = references.field_from_record(json.loads(json.dumps(f.record())))
+    assert type(rebuilt) is type(f) and rebuilt.record() == f.record()
