@@ -20,7 +20,7 @@ from .conventions import INSTANTON_ACTION
 from .fields import evaluate, hook
 from .lattice import LatticeStart, StartSpec, lattice_start
 from .periodic import DEFAULT_WINDOW_WIDTH, TorusWindow
-from .transforms import dilate, parity, rotate, translate
+from .transforms import ConstantGauge, dilate, gauge_transform, parity, rotate, translate
 from .unitary_adhm import UnitaryADHMData
 
 #: 8 pi^2, the action of one instanton (conventions module).
@@ -30,6 +30,7 @@ __all__ = [
     "wilson_artefact",
     "continuum_reference",
     "RECORD_KINDS",
+    "GAUGE_KINDS",
     "field_from_record",
     "field_from_file",
     "regenerate",
@@ -200,6 +201,19 @@ def _inner(rec):
         raise ValueError(f"the field inside a {rec['kind']} field cannot be rebuilt: {err}") from err
 
 
+#: Rebuilders of the records of gauge functions (their ``record()``) by 'kind'.
+GAUGE_KINDS = {"constant": lambda rec: ConstantGauge(_complex_entry(rec, "matrix"))}
+
+
+def _gauge_transformed(rec):
+    (g,) = _entries(rec, "g")
+    build = GAUGE_KINDS.get(g.get("kind")) if isinstance(g, dict) else None
+    if build is None:
+        found = g.get("kind") if isinstance(g, dict) else g
+        raise ValueError(f"gauge function record kind must be one of {tuple(GAUGE_KINDS)}; found {found!r:.80}")
+    return gauge_transform(_inner(rec), build(g))
+
+
 def _unrecordable(rec):
     kind = rec.get("type", "field")
     raise ValueError(f"a {kind} cannot be rebuilt from its record: {rec.get('reason', 'no reason recorded')}")
@@ -219,6 +233,7 @@ RECORD_KINDS = {
     "rotated": lambda rec: rotate(_inner(rec), *(_floats(v) for v in _entries(rec, "left", "right"))),
     "dilated": lambda rec: dilate(_inner(rec), float(_entries(rec, "factor")[0])),
     "parity": lambda rec: parity(_inner(rec)),
+    "gauge_transformed": _gauge_transformed,
     "unrecordable": _unrecordable,
 }
 
@@ -231,7 +246,8 @@ def field_from_record(record: dict, *, window: bool = True):
         'unitary_adhm': B1, B2, I, J as {'re', 'im'} lists, gauge, tol; 'bpst': center, size,
         orientation, gauge; 'thooft': centers, sizes; 'jnr': poles, weights; 'caloron': size, period,
         center; 'translated': field, shift; 'rotated': field, left, right; 'dilated': field, factor;
-        'parity': field, where 'field' is the wrapped field's record) and optionally 'window' (lo, box,
+        'parity': field; 'gauge_transformed': field, g (a gauge function's record, kind in
+        GAUGE_KINDS), where 'field' is the wrapped field's record) and optionally 'window' (lo, box,
         width of :class:`TorusWindow`).
       window: rebuild the window too (False: the field before windowing, to pass with boundary='window').
     Returns:
@@ -259,7 +275,7 @@ _NO_RECORD = (
     "its field offered no record() hook: a bare callable A(x), a ParametrisedField, a field class of your "
     "own, or a transformation or window of one of those (fields that record themselves: ADHM data, complex "
     "ADHM data, BPST, 't Hooft, JNR and caloron fields and their translations, rotations, dilations, parity "
-    "images and windows); rebuild the field by hand, or save with description= a dict of your own"
+    "images, gauge transformations by a transforms.ConstantGauge and windows); rebuild the field by hand, or save with description= a dict of your own"
 )
 
 

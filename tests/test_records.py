@@ -75,6 +75,7 @@ def _transformed():
         "rotated": ik.rotate(t, left, [0.0, 1.0, 0.0, 0.0]),
         "dilated": ik.dilate(t, 1.7),
         "parity": ik.anti(t),
+        "gauge (constant)": ik.gauge_transform(t, ik.transforms.ConstantGauge([[0.6, 0.8j], [0.8j, 0.6]])),
         "rotated translated caloron": ik.rotate(ik.translate(ik.caloron(0.7, 2.0), [0.1, 0.2, 0.3, 0.0]), left),
     }
 
@@ -167,3 +168,8 @@ def test_any_chain_of_recordable_transformations_rebuilds_to_the_same_record(bas
             f = ik.parity(f)
     rebuilt = references.field_from_record(json.loads(json.dumps(f.record())))
     assert type(rebuilt) is type(f) and rebuilt.record() == f.record()
+
+
+def test_constant_gauge_refuses_a_matrix_that_is_not_unitary():
+    with pytest.raises(ValueError, match=r"unitary; max \|g g\^dag - 1\| = 7\.500e-01"):  # 1 - 0.5^2
+        ik.transforms.ConstantGauge([[1.0, 0.0], [0.0, 0.5]])
