@@ -11,7 +11,8 @@ what an interrupted write leaves behind says who wrote it:
   itself is left alone (it decides whether the process ends; if it raises, the exception cleans up);
 * SIGKILL cannot be caught: the next write into the same directory removes leftovers whose writer
   (same host, that PID) is no longer alive, and warns (:class:`LeftoverWarning`) about stale ones it
-  cannot judge (another host, or a PID that is alive again an hour later).
+  cannot judge (another host, or a PID that is alive again an hour later), and about stale
+  ``.tmp-XXXXXXXX.part`` files of the earlier writer, whose names say nothing about their writer.
 
 Files get mode ``0o666 & ~umask``, as ``open()`` would give them (the temporary file is created with
 ``os.open(..., 0o666)``, so the kernel applies the umask).  Errors name the user's path, never the
@@ -32,13 +33,16 @@ import time
 import warnings
 from collections.abc import Callable
 
-__all__ = ["atomic_write", "sweep_leftovers", "LeftoverWarning", "TEMP_PATTERN", "STALE_SECONDS"]
+__all__ = ["atomic_write", "sweep_leftovers", "LeftoverWarning", "TEMP_PATTERN", "OLD_TEMP_PATTERN", "STALE_SECONDS"]
 
 #: Names of the temporary files: host, PID of the writer, random token.
 TEMP_PATTERN = re.compile(r"^\.instantonkit-(?P<host>.+)-(?P<pid>\d+)-(?P<token>[0-9a-f]{16})\.part$")
 
 #: A temporary file untouched this long whose writer cannot be shown dead is reported as stale.
 STALE_SECONDS = 3600.0
+
+#: Names the writer used before it put host and PID into them (mkstemp's): reported when stale, never removed.
+OLD_TEMP_PATTERN = re.compile(r"^\.tmp-[A-Za-z0-9_]{8}\.part$")
 
 _SIGNALS = tuple(getattr(signal, name) for name in ("SIGTERM", "SIGHUP") if hasattr(signal, name))
 
@@ -64,6 +68,21 @@ def _alive(pid: int) -> bool:
     return True
 
 
+def _age(path: str) -> float:
+    """Seconds since ``path`` was last modified (inf when it is gone)."""
+    try:
+        return time.time() - os.stat(path).st_mtime
+    except OSError:
+        return float("inf")
+
+
+def _size(path: str) -> int | str:
+    try:
+        return os.path.getsize(path)
+    except OSError:
+        return "?"
+
+
 def sweep_leftovers(directory) -> tuple[list[str], list[str]]:
     """Remove the temporary files of dead writers in ``directory``; returns (removed, kept-and-reported) paths.
 
@@ -80,9 +99,17 @@ def sweep_leftovers(directory) -> tuple[list[str], list[str]]:
     removed, reported = [], []
     for name in names:
         m = TEMP_PATTERN.match(name)
-        if m is None:
-            continue
         full = os.path.join(directory, name)
+        if m is None:
+            if OLD_TEMP_PATTERN.match(name) and STALE_SECONDS < _age(full) < float("inf"):
+                reported.append(full)
+                warnings.warn(
+                    f"leftover temporary file {full!r} ({_size(full)} bytes) of an interrupted write by an earlier "
+                    "version (its name does not say which process wrote it, so it was kept): remove it by hand",
+                    LeftoverWarning,
+                    3,
+                )
+            continue
         pid = int(m.group("pid"))
         if m.group("host") == host and pid != me and not _alive(pid):
             try:
@@ -94,15 +121,12 @@ def sweep_leftovers(directory) -> tuple[list[str], list[str]]:
                 reported.append(full)
                 warnings.warn(f"cannot remove the leftover temporary file {full!r}: {err}", LeftoverWarning, 3)
             continue
-        try:
-            age = time.time() - os.stat(full).st_mtime
-        except OSError:
-            continue
-        if age > STALE_SECONDS:
+        age = _age(full)
+        if STALE_SECONDS < age < float("inf"):
             reported.append(full)
             who = f"PID {pid} (alive)" if m.group("host") == host else f"PID {pid} on host {m.group('host')!r}"
             warnings.warn(
-                f"leftover temporary file {full!r} ({os.path.getsize(full)} bytes, untouched for {age / 3600:.1f} h) "
+                f"leftover temporary file {full!r} ({_size(full)} bytes, untouched for {age / 3600:.1f} h) "
                 f"of {who} kept: its writer may still be running; remove it by hand if it is not",
                 LeftoverWarning,
                 3,

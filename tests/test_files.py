@@ -96,6 +96,15 @@ def test_leftover_of_a_live_writer_is_kept_and_reported_when_stale(tmp_path):
     assert sorted(os.listdir(tmp_path)) == sorted([name, fresh, "a.npz"])  # neither removed
 
 
+def test_stale_leftover_of_the_earlier_writer_is_reported_not_removed(tmp_path):
+    (tmp_path / ".tmp-ab12cd34.part").write_bytes(b"partial")
+    old = time.time() - 2 * _atomic.STALE_SECONDS
+    os.utime(tmp_path / ".tmp-ab12cd34.part", (old, old))
+    with pytest.warns(_atomic.LeftoverWarning, match="earlier version"):
+        lio.save_lattice(tmp_path / "a.npz", np.zeros((1, 1, 1, 1, 4, 2, 2), complex))
+    assert sorted(os.listdir(tmp_path)) == [".tmp-ab12cd34.part", "a.npz"]
+
+
 def test_program_sigterm_handler_is_left_in_charge_and_restored_after_the_save(tmp_path):
     seen = []
 
