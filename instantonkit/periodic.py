@@ -95,6 +95,12 @@ class TorusWindow(PytreeFields):
         ):
             raise TypeError(f"directions must be four booleans (x1, x2, x3, x4); found {dirs!r:.80}")
         object.__setattr__(self, "directions", tuple(bool(d) for d in dirs))
+        period = hook(self.field, "period")
+        if period is not None and self.directions[3]:
+            raise ValueError(
+                f"the field is periodic in x4 with period {float(period)!r}; a window across its period would cut "
+                "it: window x1, x2, x3 only (directions=(True, True, True, False))"
+            )
         if _v.is_tracer(self.lo) or _v.is_tracer(self.box) or _v.is_tracer(self.width):
             return
         lo = np.asarray(self.lo, dtype=np.float64).reshape(-1)
@@ -196,6 +202,14 @@ class TorusWindow(PytreeFields):
         if c is None:
             raise AttributeError("the wrapped field has no charge")
         return c
+
+    @property
+    def period(self):
+        """The wrapped field's period in x4 (x4 is never windowed for a field with a period)."""
+        p = hook(self.field, "period")
+        if p is None:
+            raise AttributeError("the wrapped field has no period")
+        return p
 
     @property
     def record(self):

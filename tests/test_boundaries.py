@@ -8,7 +8,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 import instantonkit as ik
-from instantonkit import boundaries, fields, io, references
+from instantonkit import boundaries, fields, io, periodic, references
 from instantonkit import lattice as lat
 
 EIGHT_PI2 = 8.0 * np.pi**2
@@ -110,6 +110,14 @@ def test_caloron_charge_reaches_the_slices_next_to_the_period_faces(caloron_star
 def test_an_explicit_window_across_the_period_is_refused():
     with pytest.raises(ValueError, match=r"boundary\[3\] \(x4\) is 'window'.*period 2\.0"):
         lat.lattice_start(CAL, CAL_SHAPE, CAL_A, boundary=("window",) * 4)
+
+
+def test_a_torus_window_across_the_period_is_refused_and_one_in_space_keeps_the_period():
+    org = lat.default_origin(CAL, CAL_SHAPE, CAL_A)
+    with pytest.raises(ValueError, match=r"periodic in x4 with period 2\.0; a window across its period"):
+        periodic.window_field(CAL, CAL_SHAPE, CAL_A, org)
+    spatial = periodic.window_field(CAL, CAL_SHAPE, CAL_A, org, directions=(True, True, True, False))
+    assert fields.hook(spatial, "period") == 2.0
 
 
 @pytest.mark.parametrize("boundary", ["periodic", "window", ("open", "open", "open", "periodic")])
