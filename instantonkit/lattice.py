@@ -130,17 +130,14 @@ class LinkReport:
     method: 'closed' or 'magnus'; max_steps: largest number of Magnus steps on one link (0 for the
     closed form); refinement_diff: largest accepted error estimate of the Magnus refinements;
     unitarity_before / unitarity_after: :func:`unitarity_deviation` before and after the final
-    projection; boundary: as given (a string, or four strings in (x1, x2, x3, x4) order);
-    boundary_link_mismatch / boundary_action_error: see :func:`boundary_mismatch`, the largest
-    mismatch and the summed action over the wrapped directions (None when every direction is open);
-    seconds: wall time; boundary_action_fraction: boundary_action_error / 8 pi^2 (None when nothing is
-    wrapped; above BOUNDARY_WARN_FRACTION a BoundaryActionWarning is raised); window: the layer width
-    of the windowed directions (fraction of the half-box), else None; field: the field's ``record()``
-    (JSON-ready, rebuilt by :func:`field_from_record`; None when the field has no record hook);
-    potential_evaluations: of the Magnus links in all (0 for closed forms); boundaries: the boundary
-    of each direction as applied (four strings; a field's period kept periodic, see
-    :mod:`instantonkit.boundaries`); boundary_link_mismatch_by_direction /
-    boundary_action_error_by_direction: the figures of each direction's faces (None for an open one).
+    projection; boundary: as given (a string or four); boundary_link_mismatch / boundary_action_error:
+    see :func:`boundary_mismatch`, the max and sum of the ``*_by_direction`` figures of each
+    direction's faces (None for an open direction, and None when all are open); seconds: wall time;
+    boundary_action_fraction: boundary_action_error / 8 pi^2 (above BOUNDARY_WARN_FRACTION a
+    BoundaryActionWarning is raised); window: the layer width of the windowed directions (fraction of
+    the half-box), else None; field: the field's ``record()`` (rebuilt by :func:`field_from_record`;
+    None without a record hook); potential_evaluations: of the Magnus links in all (0 for closed
+    forms); boundaries: the four boundaries as applied (:mod:`instantonkit.boundaries`).
     """
 
     shape: tuple
@@ -628,15 +625,12 @@ def boundary_mismatch(
     n = links.shape[-1]
     a = _v.positive_float("spacing", spacing)
     org = default_origin(field, shape, a) if origin is None else np.asarray(origin, dtype=np.float64)
-    mis_mu: list = [None] * 4
-    err_mu: list = [None] * 4
-    tot_mu: list = [None] * 4
+    figs: list = [(None, None, None)] * 4  # (mismatch, action error, wrapped action) per direction
     for mu in range(4):
         lm = shape[mu]
-        if directions is not None and not directions[mu]:
-            continue
-        mis_mu[mu], err_mu[mu], tot_mu[mu] = 0.0, 0.0, 0.0
-        if lm < 2:
+        if directions is None or directions[mu]:
+            figs[mu] = (0.0, 0.0, 0.0)
+        if lm < 2 or figs[mu][0] is None:
             continue
         # the face one period beyond: sites with n_mu = L_mu, all other indices free
         idx = [np.arange(s) for s in shape]
@@ -652,13 +646,11 @@ def boundary_mismatch(
         face_shape = list(shape)
         face_shape[mu] = 1
         exact = u.reshape(tuple(face_shape) + (3, n, n))
-        mis_mu[mu], err_mu[mu], tot_mu[mu] = _bd.face_figures(links, exact, mu)
+        figs[mu] = _bd.face_figures(links, exact, mu)
+    mis_mu, err_mu, tot_mu = zip(*figs)
     link_mis, err = _bd.combine(mis_mu, err_mu)
-    return {
-        "link_mismatch": link_mis or 0.0,
-        "action_error": err or 0.0,
-        "boundary_action": float(sum(v for v in tot_mu if v is not None)),
-        "link_mismatch_by_direction": tuple(mis_mu),
-        "action_error_by_direction": tuple(err_mu),
-        "boundary_action_by_direction": tuple(tot_mu),
-    }
+    total = float(sum(v for v in tot_mu if v is not None))
+    figures = {"link_mismatch": link_mis or 0.0, "action_error": err or 0.0, "boundary_action": total}
+    figures.update(link_mismatch_by_direction=mis_mu, action_error_by_direction=err_mu)
+    figures["boundary_action_by_direction"] = tot_mu
+    return figures

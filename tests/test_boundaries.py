@@ -26,9 +26,15 @@ def _start(field, shape, a, **kw):
 
 
 @pytest.fixture(scope="module")
-def caloron_starts():
-    """The caloron's start with the default boundary and with the single string 'window'."""
-    return {b: _start(CAL, CAL_SHAPE, CAL_A, boundary=b) for b in ("periodic", "window")}
+def caloron_periodic():
+    """The caloron's start with the default boundary (one compilation of its Magnus kernel, ~12 s)."""
+    return _start(CAL, CAL_SHAPE, CAL_A)
+
+
+@pytest.fixture(scope="module")
+def caloron_window():
+    """The caloron's start with the single string 'window' (the windowed kernel, ~12 s)."""
+    return _start(CAL, CAL_SHAPE, CAL_A, boundary="window")
 
 
 # -- the spec -----------------------------------------------------------------------------------------------
@@ -71,35 +77,36 @@ def test_observables_refuse_a_window_entry_naming_their_choices():
 # -- a field with a period ----------------------------------------------------------------------------------
 
 
-def test_caloron_default_start_is_periodic_in_every_direction_and_not_windowed(caloron_starts):
-    rep = caloron_starts["periodic"].report
+def test_caloron_default_start_is_periodic_in_every_direction_and_not_windowed(caloron_periodic):
+    rep = caloron_periodic.report
     assert rep.boundaries == ("periodic",) * 4 and rep.window is None
 
 
-def test_single_window_string_keeps_the_caloron_period_periodic(caloron_starts):
-    st_ = caloron_starts["window"]
+def test_single_window_string_keeps_the_caloron_period_periodic(caloron_window):
+    st_ = caloron_window
     assert st_.report.boundaries == SPATIAL_WINDOW
     assert st_.report.boundary == "window"  # as given
 
 
 @pytest.mark.parametrize("boundary", ["periodic", "window"])
-def test_caloron_start_is_periodic_in_time_one_slice_of_shift_rolls_the_links(caloron_starts, boundary):
+def test_caloron_start_is_periodic_in_time_one_slice_of_shift_rolls_the_links(request, boundary):
     # A(x + beta e4) = A(x) (Harrington, Shepard 1978): the start whose origin moves by one spacing in
     # time is the same links rolled by one slice, across t = +-beta/2 too; a window across the period
     # would make the slices next to the faces nearly trivial and break this by O(1)
-    base = caloron_starts[boundary]
+    base = request.getfixturevalue(f"caloron_{boundary}")
     shifted = _start(CAL, CAL_SHAPE, CAL_A, boundary=boundary, origin=np.asarray(base.report.origin) + [0, 0, 0, CAL_A])
     assert np.max(np.abs(shifted.links - np.roll(base.links, -1, axis=3))) < 1e-7
 
 
 @pytest.mark.parametrize("boundary", ["periodic", "window"])
-def test_caloron_charge_reaches_the_slices_next_to_the_period_faces(caloron_starts, boundary):
+def test_caloron_charge_reaches_the_slices_next_to_the_period_faces(request, boundary):
     # the clover charge of each time slice against a^4 sum_n q(x_n) of the continuum density on that
     # slice (the caloron's closed form, Harrington, Shepard 1978); the slices at t = +-beta/2 - -+ a/2
     # keep a sizeable share (a window in time would take them to ~1e-7 of it).  At rho/a = 1 the
     # lattice figures are coarse, hence the loose band.
-    links = caloron_starts[boundary].links
-    sites = lat.site_points(CAL_SHAPE, CAL_A, caloron_starts[boundary].report.origin)
+    start = request.getfixturevalue(f"caloron_{boundary}")
+    links = start.links
+    sites = lat.site_points(CAL_SHAPE, CAL_A, start.report.origin)
     q_cont = CAL_A**4 * fields.evaluate(CAL, sites, "charge_density").sum(axis=(0, 1, 2))
     q_lat = CAL_A**4 * lat.clover_charge_density(links, spacing=CAL_A).sum(axis=(0, 1, 2))
     for t in (0, CAL_SHAPE[3] - 1):
