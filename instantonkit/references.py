@@ -10,6 +10,8 @@
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+
 import numpy as np
 
 from . import _validate as _v
@@ -66,16 +68,17 @@ def continuum_reference(
     spacing,
     *,
     origin=None,
-    boundary: str = "periodic",
+    boundary: str | Sequence[str] = "periodic",
     window: float = DEFAULT_WINDOW_WIDTH,
     nodes: int | None = None,
 ) -> dict:
     """The continuum figures a lattice start of ``field`` should be compared with (like with like).
 
-    The field put on the lattice (the windowed field for boundary='window', the field itself
+    The field put on the lattice (the windowed field where a direction is 'window', the field itself
     otherwise) has its action integrated over the lattice's box by a tensor Gauss-Legendre rule
-    (``nodes`` per panel): the periodic box [origin - a/2, origin + a (L - 1/2)] for 'periodic' and
-    'window', the region [origin, origin + a (L - 1)] that the inside plaquettes cover for 'open'.
+    (``nodes`` per panel), direction by direction (``boundary`` one choice or four, as for the start):
+    the periodic extent [origin - a/2, origin + a (L - 1/2)] for 'periodic' and 'window', the extent
+    [origin, origin + a (L - 1)] that the inside plaquettes cover for 'open'.
     The expected Wilson action applies the lattice artefact of each lump,
     S_W = S_box - 8 pi^2 sum_i (1 - wilson_artefact(a / rho_i))  (García Pérez, González-Arroyo,
     Snippe, van Baal, Nucl. Phys. B 413 (1994) 535, from memory), rho_i from the field's layout.
@@ -87,17 +90,17 @@ def continuum_reference(
         layers and into pieces of about 2 rho_min.
     Returns:
       dict: 'box_action' and 'box_fraction' (/ 8 pi^2), 'expected_wilson' and 'expected_fraction',
-      'excess_fraction' (box_fraction - k for 'window': the window's action excess), 'sizes' (m,),
+      'excess_fraction' (box_fraction - k for 'window': the window's action excess), 'boundaries' (the
+      boundary of each direction as applied), 'sizes' (m,),
       'lo', 'hi' (4,) of the box, 'nodes'.
     Raises:
       ValueError: bad arguments (naming them); a field without sizes (no layout or hint hook).
     """
     spec = StartSpec.make(field, shape, spacing, origin=origin, boundary=boundary, group=None, window=window)
     a, org, shp = spec.spacing, spec.origin, np.asarray(spec.shape, dtype=np.float64)
-    if boundary == "open":
-        lo, hi = org, org + a * (shp - 1.0)
-    else:
-        lo, hi = org - a / 2.0, org + a * (shp - 0.5)
+    opened = np.array([b == "open" for b in spec.boundaries])
+    lo = np.where(opened, org, org - a / 2.0)
+    hi = np.where(opened, org + a * (shp - 1.0), org + a * (shp - 0.5))
     sizes = _field_sizes(spec.field)
     nodes = 8 if nodes is None else _v.positive_int("nodes", nodes)
     t, wt = np.polynomial.legendre.leggauss(nodes)
@@ -106,7 +109,7 @@ def continuum_reference(
         4
     ):  # panels: the window's layers (where it is not analytic at the ends) and bulk pieces of ~ 2 rho_min
         cuts = [lo[i], hi[i]]
-        if boundary == "window":
+        if spec.boundaries[i] == "window":
             d = float(np.asarray(spec.field.width)[i])
             cuts = [lo[i], lo[i] + d, hi[i] - d, hi[i]] if hi[i] - lo[i] > 2 * d + 1e-12 else [lo[i], lo[i] + d, hi[i]]
         edges = [cuts[0]]
@@ -136,6 +139,7 @@ def continuum_reference(
         "lo": np.asarray(lo),
         "hi": np.asarray(hi),
         "nodes": nodes,
+        "boundaries": spec.boundaries,
     }
 
 
@@ -248,7 +252,7 @@ def field_from_record(record: dict, *, window: bool = True):
         center; 'translated': field, shift; 'rotated': field, left, right; 'dilated': field, factor;
         'parity': field; 'gauge_transformed': field, g (a gauge function's record, kind in
         GAUGE_KINDS), where 'field' is the wrapped field's record) and optionally 'window' (lo, box,
-        width of :class:`TorusWindow`).
+        width and, when not all, the windowed directions of :class:`TorusWindow`).
       window: rebuild the window too (False: the field before windowing, to pass with boundary='window').
     Returns:
       The field (ADHMData, UnitaryADHMData, an ansatz field, a transformed field or a TorusWindow of
@@ -266,7 +270,8 @@ def field_from_record(record: dict, *, window: bool = True):
     field = build(record)
     win = record.get("window")
     if window and win is not None:
-        field = TorusWindow(field, np.asarray(win["lo"]), np.asarray(win["box"]), np.asarray(win["width"]))
+        dirs = tuple(bool(d) for d in win.get("directions", (True,) * 4))
+        field = TorusWindow(field, np.asarray(win["lo"]), np.asarray(win["box"]), np.asarray(win["width"]), dirs)
     return field
 
 
@@ -319,7 +324,7 @@ def regenerate(path) -> LatticeStart:
         origin=np.asarray(meta["origin"]),
         group=meta["group"],
         embedding=tuple(meta["embedding"]),
-        boundary=meta["boundary"],
+        boundary=meta["boundary"] if isinstance(meta["boundary"], str) else tuple(meta["boundary"]),
         rtol=meta["rtol"],
         window=meta.get("window") or DEFAULT_WINDOW_WIDTH,
     )
