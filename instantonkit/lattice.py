@@ -174,7 +174,11 @@ def _record_of(field):
     if rec is not None:
         return rec()
     kind = type(field).__name__
-    return {"kind": "unrecordable", "type": kind, "reason": f"a {kind} offers no record() hook; rebuild it by hand"}
+    return {
+        "kind": "unrecordable",
+        "type": kind,
+        "reason": "it offers no record() hook (a bare callable, a ParametrisedField or a field class of your own); rebuild it by hand, or save with description=",
+    }
 
 
 @dataclasses.dataclass(frozen=True)
