@@ -455,12 +455,12 @@ def _charge_findings(case: _Case, charge: IntegralResult, expected, declared, to
     for want, what in ((expected, "the expected"), (declared, "the construction's (input)")):
         if want is None or n == int(want):
             continue
-        off = abs(q - int(want))
+        off, label = abs(q - int(want)), f"charge {n}" if n is not None else f"Q = {q:.10g} +- {e:.1e}"
         if n is None:
             case.rows.append(Row(signed_offset("Q", int(want)), off, e, how, _judge(off, e, tol), f"{what} charge"))
         if off - e > tol:
             flip = orientation_mistake(q, e, int(want), tol)
-            case.failures.append(flip or f"Q = {q:.10g} +- {e:.1e} differs from {what} charge {int(want)}")
+            case.failures.append(flip or f"{label} differs from {what} {int(want)}")
     if declared is not None:
         case.rows.append(Row("charge declared by the construction", float(declared), None, HOW_INPUT, "input"))
 

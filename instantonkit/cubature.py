@@ -667,7 +667,12 @@ def final_rule(state: _State, max_points: int) -> _quad.Rule:
 def integrate_adaptive(
     density, name: str, layout: Layout, *, rtol: float, atol: float, max_points: int, sink
 ) -> tuple[IntegralResult, _State]:
-    """One adaptive integral: the initial rounds, then planned rounds until converged or stopped."""
+    """One adaptive integral: the initial rounds, then planned rounds until converged or stopped.
+
+    Every round evaluates at least one shell (a round that would add none stops with its reason), so
+    there are at most max_points / (smallest shell) rounds and the time is bounded by the budget's
+    evaluations; a stalled or unconverged integral is searched once for a singular point
+    (:func:`instantonkit.singular.search`, SingularDensityError when it is not integrable)."""
     state = _State.start(layout)
     first = _initial_rounds(state, density, name, max_points)
     converged, message, note, searched, best, stalled = False, "", "", False, math.inf, 0
