@@ -94,7 +94,6 @@ def test_wrong_thooft_potential_fails_at_its_poles_within_a_small_budget(factor)
     assert not any("center=" in a or "raise the budget" in a for a in v.advice)
 
 
-@pytest.mark.slow
 @pytest.mark.parametrize("factor", [-1.0, 0.5], ids=["factor-1-not-half", "flipped-sign"])
 def test_wrong_thooft_potential_reaches_a_verdict_at_the_default_budget(factor):
     start = time.perf_counter()
@@ -127,7 +126,6 @@ def test_an_integral_float_expected_charge_is_the_integer():
     assert ik.report.expected_integer(2.0) == 2 and ik.report.expected_integer(np.int64(-3)) == -3
 
 
-@pytest.mark.slow
 def test_eta_for_eta_bar_fails_at_300k_points_as_an_orientation_mistake():
     # the self-dual symbol in place of the anti-self-dual one gives the anti-instanton, Q = -2
     # ('t Hooft, Phys. Rev. D 14 (1976) 3432: eta and eta-bar exchange self-dual and anti-self-dual)
