@@ -377,13 +377,13 @@ def _how(res: IntegralResult) -> str:
 def _action_route(case: _Case, res: IntegralResult, charge, tol: float, name: str, how: str, label: str, mismatch):
     """Add the route row of an action integral ``res`` (S / 8 pi^2, signed by Q) against the charge Q.
 
-    A converged integral that disagrees beyond the error bars fails with ``mismatch(value, error)``; one
-    that cannot be decided is a doubt naming ``label``; a non-converged one is 'undecided' (the caller
-    says why and advises).
+    An integral that disagrees beyond the error bars fails with ``mismatch(value, error)``, converged or
+    not; a converged one that cannot be decided is a doubt naming ``label`` (for a non-converged one
+    the caller says why and advises).
     """
     val, err = case.sign * res.value / INSTANTON_ACTION, res.error / INSTANTON_ACTION  # s = 8 pi^2 |q|
-    status = _judge(abs(val - charge.value), err + charge.error, tol) if res.converged else "undecided"
-    if res.converged and status == "DISAGREES":
+    status = _judge(abs(val - charge.value), err + charge.error, tol)  # the error bar decides, whatever the budget
+    if status == "DISAGREES":
         case.failures.append(mismatch(val, err))
     elif res.converged and status == "undecided":
         case.doubts.append(f"{label} {val:.10g} +- {err:.1e} and Q cannot be decided to {tol:.0e}")
