@@ -28,14 +28,14 @@ UNITS = jnp.asarray(ik.conventions.QUATERNION_BASIS[1:])  # -i sigma_a, (3, 2, 2
 POLES = np.array([[0.0, 0.0, 0.0, 0.0], [3.0, 0.0, 0.0, 0.0]])
 
 
-def thooft_by_hand(factor=-0.5, symbol=ETA_BAR, sizes=(1.0, 1.0), units=UNITS):
-    """A_mu = factor symbol_{a mu nu} d_nu log(phi) u_a with phi = 1 + sum rho_i^2 / |x - a_i|^2; (4,) -> (4, 2, 2)."""
+def thooft_by_hand(factor=-0.5, symbol=ETA_BAR, sizes=(1.0, 1.0), units=UNITS, one=1.0):
+    """A_mu = factor symbol_{a mu nu} d_nu log(phi) u_a, phi = one + sum rho_i^2 / |x - a_i|^2; (4,) -> (4, 2, 2)."""
     rho2, centres = jnp.asarray(sizes) ** 2, jnp.asarray(POLES[: len(sizes)])
 
     def potential(x):
         d = x[None, :] - centres
         d2 = jnp.sum(d * d, axis=1)
-        phi = 1.0 + jnp.sum(rho2 / d2)
+        phi = one + jnp.sum(rho2 / d2)
         grad = jnp.sum(-2.0 * rho2[:, None] * d / d2[:, None] ** 2, axis=0)
         return factor * jnp.einsum("amn,n,aij->mij", symbol, grad / phi, units)
 
@@ -63,18 +63,19 @@ def test_a_non_integrable_point_off_every_centre_is_named_with_its_power_law():
     assert np.linalg.norm(found.point - x0) < 1e-3 and abs(found.power - 4.0) < 0.05
 
 
-def test_a_round_that_would_add_no_points_stops_with_a_reason():
-    # a density whose worst shells reach the finest angular level: the integral stops, it does not spin
+def test_a_round_that_would_add_no_points_stops_with_a_reason(monkeypatch):
+    # worst shells at the finest angular level (lowered to 2 here) and the singular-point search off: the
+    # plan has nothing to evaluate, and the integral must stop (refining radially, then saying why)
+    monkeypatch.setattr(cubature, "MAX_ANGULAR_LEVEL", 2)
+    monkeypatch.setattr(cubature, "_singularities", lambda *args: "", raising=False)
+    x0 = np.array([1.5, 0.0, 0.0, 0.0])
+
+    def density(x):
+        return np.linalg.norm(x - x0, axis=1) ** -4.0 * np.exp(-np.sum(x * x, axis=1))
+
     layout = cubature.Layout(np.zeros((1, 4)), np.ones(1), None, "test")
-    rng = np.random.default_rng(0)
-
-    def noise(x):  # no level ever converges: every refinement round moves the value
-        return np.exp(-np.sum(x * x, axis=1)) * (1.0 + 0.5 * rng.random(x.shape[0]))
-
-    res, state = cubature.integrate_adaptive(
-        noise, "noise", layout, rtol=1e-14, atol=1e-14, max_points=300_000, sink=None
-    )
-    assert not res.converged and res.message and res.evaluations <= 300_000
+    res, _ = cubature.integrate_adaptive(density, "t", layout, rtol=1e-12, atol=1e-12, max_points=10**7, sink=None)
+    assert not res.converged and res.message and res.evaluations <= 10**7
 
 
 def test_total_action_of_a_wrong_thooft_potential_names_the_pole():
@@ -148,10 +149,11 @@ def test_orientation_mistake_is_named_for_q_near_minus_n():
     symbol=st.sampled_from(["eta", "eta-bar"]),
     sizes=st.sampled_from([(1.0, 1.0), (1.0,), (0.7, 1.3)]),
     flip_units=st.booleans(),
+    drop_one=st.booleans(),
 )
-def test_any_wrong_thooft_ansatz_gets_a_verdict_within_its_budget(factor, symbol, sizes, flip_units):
+def test_any_wrong_thooft_ansatz_gets_a_verdict_within_its_budget(factor, symbol, sizes, flip_units, drop_one):
     sym = ETA if symbol == "eta" else ETA_BAR
-    field = thooft_by_hand(factor, sym, sizes, -UNITS if flip_units else UNITS)
+    field = thooft_by_hand(factor, sym, sizes, -UNITS if flip_units else UNITS, one=0.0 if drop_one else 1.0)
     v = ik.verify(field, expected_charge=2, max_points=100_000, routes=False)
     assert v.verdict in (ik.checks.FAILED, ik.checks.INCONCLUSIVE, ik.checks.PASSED)
     assert all(r.evaluations <= 100_000 for r in (v.charge, v.action) if r is not None)
