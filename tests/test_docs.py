@@ -37,14 +37,14 @@ NO_RUN = re.compile(r"^<!--\s*no-run:\s*(?P<reason>\S.*?)\s*-->\s*$")
 FENCE = re.compile(r"^(?P<indent> *)```(?P<lang>[\w-]*)\s*$")
 
 
-# (a line of the block's code, "skip" or "slow", the reason) for the current README.md
+# (a line of the block's code, "skip" or "long", the reason) for the current README.md
 README_UNTIL_REWRITE = [
     ("def ansatz(x, p):", "skip", "a sketch: its body is ``...`` and it uses undefined names"),
     ("from dask.distributed import Client", "skip", "starts a Dask cluster and computes a 100-member ensemble"),
     (
         'start = ik.lattice_start(data, (24,) * 4, 0.5, group="su3"',
-        "slow",
-        "a 24^4 SU(3) window start and a 190 MB ILDG file (tens of seconds)",
+        "long",
+        "a 24^4 SU(3) window start and a 190 MB ILDG file (tens of seconds); runs with INSTANTONKIT_LONG=1",
     ),
 ]
 
@@ -82,7 +82,7 @@ def _cases():
             if rel == "README.md":
                 for needle, kind, why in README_UNTIL_REWRITE:
                     if needle in code:
-                        marks.append(pytest.mark.skip(reason=f"no-run: {why}") if kind == "skip" else pytest.mark.slow)
+                        marks.append(pytest.mark.skip(reason=f"no-run: {why}") if kind == "skip" else pytest.mark.long)
             yield pytest.param(rel, line, code, id=f"{rel}:{line}", marks=marks)
 
 
