@@ -1,7 +1,7 @@
 """The chunked Dask/Zarr backend: scaling from one to two workers, and worker memory per chunk.
 
 Scaling: one charge-2 ADHM start (``multi_instanton``, singular gauge, no closed form, so the Magnus
-path with rtol 1e-8; 8^4 sites in quick mode, 12^4 in full mode, SU(2), spacing 0.5) computed by
+path with rtol 1e-8; 6^4 sites in quick mode, 12^4 in full mode, SU(2), spacing 0.5) computed by
 ``cluster.lattice_start(..., store=..., client=c)`` on a ``LocalCluster`` of W = 1 and W = 2
 worker processes (one thread each), and by ``lattice.lattice_links`` in this process for reference.
 The chunks are single time slices (L, L, L, 1), the boxes the local path computes one at a time,
@@ -19,8 +19,8 @@ this machine, the ceiling for the 2-worker speedup.
 
 Memory: a BPST start (closed-form links, ``group="su3"``, size 2, spacing 0.5) on a fresh
 2-worker cluster per configuration: two lattice sizes with the same chunk shape and one with a chunk
-twice as large (quick: 16^4 and 24^4 with 8^4-site chunks, then 16^4 with 16 sites on the last
-axis; full: 16^4, 32^4 and 48^4 with 8 x 8 x 16 x 16 chunks, then 48^4 with 16 on the second axis;
+twice as large (quick: 16^4 with 8^4-site chunks only, on the one cluster that quick mode shares
+between all its runs; full: 16^4, 32^4 and 48^4 with 8 x 8 x 16 x 16 chunks, then 48^4 with 16 on the second axis;
 the larger chunk runs on the largest lattice it divides).  Each worker is
 warmed as above, then (``client.run``) releases free heap to the system (glibc ``malloc_trim``),
 resets its peak resident set (Linux: ``"5"`` to ``/proc/self/clear_refs``) and records its resident
@@ -198,8 +198,29 @@ def _fmt_chunks(chunks) -> str:
 # -- 1. scaling ---------------------------------------------------------------------------------------
 
 
-def scaling(size: int, malloc_trim: bool = True) -> list[dict]:
-    """Rows: a charge-2 ADHM Magnus start of size^4 sites on 1 and 2 workers and in this process."""
+@contextlib.contextmanager
+def _shared(client):
+    """``client`` as a context manager that leaves it open (a cluster shared by several parts)."""
+    yield client
+
+
+def _scale_down(client, n: int) -> None:
+    """Retire workers of ``client``'s LocalCluster until ``n`` remain (no new process is started)."""
+    client.cluster.scale(n)
+    deadline = time.monotonic() + 60
+    while len(client.scheduler_info()["workers"]) > n:
+        if time.monotonic() > deadline:
+            raise RuntimeError(f"the cluster did not scale down to {n} workers within 60 s")
+        time.sleep(0.1)
+
+
+def scaling(size: int, malloc_trim: bool = True, client=None) -> list[dict]:
+    """Rows: a charge-2 ADHM Magnus start of size^4 sites on 1 and 2 workers and in this process.
+
+    client: a shared 2-worker client (quick mode): the 2-worker figures are taken on it,
+    then it is scaled down to one worker for the 1-worker figures, instead of a fresh cluster for each
+    (no worker start-up or compilation twice; the 1-worker figures then run on a worker that has run
+    chunks before, which the rows say)."""
     import numpy as np
 
     import instantonkit as ik
@@ -219,20 +240,31 @@ def scaling(size: int, malloc_trim: bool = True) -> list[dict]:
     _, t_boundary = _timed(lambda: spec.boundary_figures(local))
 
     total, phase, alone = {}, {}, {}
-    for n in (1, 2):
-        with tempfile.TemporaryDirectory() as tmp, _cluster(n, malloc_trim) as client:
-            _warm_all(client, field, shape, chunks, options, tmp)
-            start, total[n] = _timed(
-                lambda: ik.cluster.lattice_start(
+    shared = client
+    for n in (1, 2) if shared is None else (2, 1):
+        if shared is not None and n == 1:
+            _scale_down(shared, 1)
+        clus = _cluster(n, malloc_trim) if shared is None else _shared(shared)
+        with tempfile.TemporaryDirectory() as tmp, clus as client:
+            if shared is None or n == 2:
+                _warm_all(client, field, shape, chunks, options, tmp)
+
+            def call(name, client=client, tmp=tmp):
+                return ik.cluster.lattice_start(
                     field,
                     shape,
                     SPACING,
                     rtol=SCALING_RTOL,
                     chunks=chunks,
-                    store=os.path.join(tmp, "start"),
+                    store=os.path.join(tmp, name),
                     client=client,
                 )
-            )
+
+            if shared is not None and n == 2:
+                # the shared cluster's first chunked call carries one-time costs that the 1-worker call,
+                # made later on the same cluster, would not: make it untimed, so both compare alike
+                call("throw-away")
+            start, total[n] = _timed(lambda: call("start"))
             links, report = start.links, start.report
             phase[n] = report.seconds
             if not np.array_equal(np.asarray(links[...]), local):
@@ -259,6 +291,14 @@ def scaling(size: int, malloc_trim: bool = True) -> list[dict]:
             )
     n_chunks = size
     ceiling = 2.0 * alone[1] / alone[2]
+    how = (
+        "fresh cluster per worker count"
+        if shared is None
+        else (
+            f"quick: one 2-worker cluster, scaled down to 1; at {size}^4 the runs take tenths of a second, so "
+            "every ratio of this start is rough (the full run's 12^4 gives the reference)"
+        )
+    )
     return [
         {
             "figure": f"{name}: local, one process",
@@ -267,7 +307,7 @@ def scaling(size: int, malloc_trim: bool = True) -> list[dict]:
             "ratio": None,
             "reference": (
                 f"lattice_links(backend='local'), compiled; max {report.max_steps} Magnus steps; "
-                f"load average {load:.2f} before"
+                f"load average {load:.2f} before; {how}"
             ),
         },
         {
@@ -321,8 +361,9 @@ def scaling(size: int, malloc_trim: bool = True) -> list[dict]:
 # -- 2. memory per chunk ------------------------------------------------------------------------------
 
 
-def _memory_run(size: int, chunks: tuple, malloc_trim: bool = True) -> dict:
-    """One BPST SU(3) start of size^4 sites in ``chunks`` on a fresh 2-worker cluster: time and worker peaks."""
+def _memory_run(size: int, chunks: tuple, malloc_trim: bool = True, client=None) -> dict:
+    """One BPST SU(3) start of size^4 sites in ``chunks`` on a fresh 2-worker cluster (or on the shared
+    ``client``): time and worker peaks."""
     import instantonkit as ik
     from instantonkit import lattice as lat
 
@@ -330,8 +371,11 @@ def _memory_run(size: int, chunks: tuple, malloc_trim: bool = True) -> dict:
     shape = (size,) * 4
     spec = lat.StartSpec.make(field, shape, SPACING, group="su3")
     options = {"group": "su3", "origin": spec.origin}
-    with tempfile.TemporaryDirectory() as tmp, _cluster(2, malloc_trim) as client:
-        _warm_here(spec, chunks, options, tmp)
+    fresh = client is None
+    clus = _cluster(2, malloc_trim) if fresh else _shared(client)
+    with tempfile.TemporaryDirectory() as tmp, clus as client:
+        if fresh:  # quick (shared client): this process's first-call compilation stays in the call time
+            _warm_here(spec, chunks, options, tmp)
         _warm_all(client, field, shape, chunks, options, tmp)
         before = client.run(_mem_mark)
         methods = {m for _, m in before.values()}
@@ -347,21 +391,28 @@ def _memory_run(size: int, chunks: tuple, malloc_trim: bool = True) -> dict:
     return {"seconds": seconds, "phase": report.seconds, "growth": growth, "method": method}
 
 
-def memory(sizes, chunks: tuple, big_chunks: tuple, malloc_trim: bool = True) -> list[dict]:
+def memory(sizes, chunks: tuple, big_chunks, malloc_trim: bool = True, client=None) -> list[dict]:
     """Rows: peak worker memory growth for ``sizes`` with ``chunks``, and with ``big_chunks`` for the
-    largest size they divide (else the largest size)."""
+    largest size they divide (else the largest size).  client: run every configuration on this shared
+    2-worker client instead of a fresh cluster each (quick mode; the rows say so); big_chunks None: no
+    run with the larger chunk."""
     site_bytes = 4 * 3 * 3 * 16
-    fits = [s for s in sizes if all(s % c == 0 for c in big_chunks)]
+    fits = [s for s in sizes if big_chunks and all(s % c == 0 for c in big_chunks)]
     big_size = max(fits or sizes)
-    runs = [(s, chunks) for s in sizes] + [(big_size, big_chunks)]
+    runs = [(s, chunks) for s in sizes] + ([(big_size, big_chunks)] if big_chunks else [])
     rows, growth = [], {}
     for size, ch in runs:
-        r = _memory_run(size, ch, malloc_trim)
+        r = _memory_run(size, ch, malloc_trim, client)
         chunk_bytes = math.prod(ch) * site_bytes
         array_bytes = size**4 * site_bytes
         n_chunks = math.prod(-(-size // c) for c in ch)
         growth[(size, ch)] = r["growth"][0]
         note = "" if r["method"] == "VmHWM" else "; ru_maxrss, warm-up peak included"
+        if client is not None:
+            note += (
+                "; quick: one cluster for all runs (earlier runs' records stay on the workers), "
+                "call time includes this process's compilation; the full run compares sizes and chunks"
+            )
         rows.append(
             {
                 "figure": f"BPST SU(3) {size}^4, chunks {_fmt_chunks(ch)}: peak worker memory growth{_tag(malloc_trim)}",
@@ -375,15 +426,18 @@ def memory(sizes, chunks: tuple, big_chunks: tuple, malloc_trim: bool = True) ->
             }
         )
     small, big = min(sizes), max(sizes)
-    rows.append(
-        {
-            "figure": f"memory growth {big}^4 / {small}^4, chunks {_fmt_chunks(chunks)}",
-            "value": round(growth[(big, chunks)] / max(growth[(small, chunks)], 1), 3),
-            "unit": "x",
-            "ratio": None,
-            "reference": f"1.0 = independent of the lattice (arrays differ {big**4 / small**4:.0f}x)",
-        }
-    )
+    if big != small:  # one size (quick mode): no lattice-size comparison
+        rows.append(
+            {
+                "figure": f"memory growth {big}^4 / {small}^4, chunks {_fmt_chunks(chunks)}",
+                "value": round(growth[(big, chunks)] / max(growth[(small, chunks)], 1), 3),
+                "unit": "x",
+                "ratio": None,
+                "reference": f"1.0 = independent of the lattice (arrays differ {big**4 / small**4:.0f}x)",
+            }
+        )
+    if not big_chunks:
+        return rows
     rows.append(
         {
             "figure": f"memory growth chunks {_fmt_chunks(big_chunks)} / {_fmt_chunks(chunks)}, {big_size}^4",
@@ -410,26 +464,36 @@ def run(
 ) -> list[dict]:
     """Rows {figure, value, unit, ratio, reference} of the parts asked for (see the module notes).
 
-    scaling_size: L of the scaling start (default 8 quick, 12 full); memory_sizes: the L of the
-    memory runs (default (16, 24) quick, (16, 32, 48) full); malloc_trim=False: workers without the
-    MALLOC_TRIM_THRESHOLD_ that dask's nanny sets by default (for comparison)."""
+    scaling_size: L of the scaling start (default 6 quick, 12 full); memory_sizes: the L of the
+    memory runs (default (16,) quick, (16, 32, 48) full); malloc_trim=False: workers without the
+    MALLOC_TRIM_THRESHOLD_ that dask's nanny sets by default (for comparison).
+
+    Quick mode starts one 2-worker cluster for everything (worker start-up and compilation are most of
+    a small run's time): the memory runs first, then the scaling start on two workers, then on one
+    after scaling the cluster down.  The full run starts a fresh cluster for every configuration."""
     unknown = set(parts) - set(PARTS)
     if unknown:
         raise ValueError(f"parts must be among {PARTS}; found {sorted(unknown)}")
-    rows = []
-    if "scaling" in parts:
-        rows += scaling(scaling_size or (8 if quick else 12), malloc_trim)
-    if "memory" in parts:
-        if quick:
-            rows += memory(memory_sizes or (16, 24), (8, 8, 8, 8), (8, 8, 8, 16), malloc_trim)
-        else:
+    if not quick:
+        rows = []
+        if "scaling" in parts:
+            rows += scaling(scaling_size or 12, malloc_trim)
+        if "memory" in parts:
             rows += memory(memory_sizes or (16, 32, 48), (8, 8, 16, 16), (8, 16, 16, 16), malloc_trim)
-    return rows
+        return rows
+    mem: list[dict] = []
+    scal: list[dict] = []
+    with _cluster(2, malloc_trim) as client:
+        if "memory" in parts:  # first: it needs both workers
+            mem = memory(memory_sizes or (16,), (8, 8, 8, 8), None, malloc_trim, client=client)
+        if "scaling" in parts:
+            scal = scaling(scaling_size or 6, malloc_trim, client=client)
+    return scal + mem
 
 
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--quick", action="store_true", help="8^4 scaling start; 16^4 and 24^4 memory runs")
+    ap.add_argument("--quick", action="store_true", help="one shared cluster: 6^4 scaling start; one 16^4 memory run")
     ap.add_argument("--part", choices=PARTS, action="append", help="run only this part (repeatable)")
     ap.add_argument(
         "--no-malloc-trim",

@@ -16,12 +16,15 @@ Rows (ratio column: figure / reference, or figure / goal where the reference is 
   process again on a warm persistent compilation cache (``INSTANTONKIT_COMPILE_CACHE``).
 
 It uses only the public instantonkit API (and the other benchmark modules' public helpers where they
-exist), so it keeps working while their internals change.  ``--quick`` stays under about two minutes.
+exist), so it keeps working while their internals change.  ``--quick`` (about 20 s on a quiet two-core
+machine) shows the finite-difference and link rows that ``bench_fields`` and ``bench_lattice`` measured
+earlier in the same run instead of measuring them again, and skips the warm-compile-cache process.
 """
 
 from __future__ import annotations
 
 import argparse
+import inspect
 import json
 import os
 import subprocess
@@ -157,7 +160,9 @@ def fd_rows(quick: bool) -> list[dict]:
     if fn is None:
         return [_row("numpy finite-difference pipeline: not offered by bench_fields", float("nan"))]
     n = getattr(bench_fields, "FD_POINTS_QUICK", 200) if quick else getattr(bench_fields, "FD_POINTS_FULL", 2000)
-    return [dict(r, figure=f"(bench_fields) {r['figure']}") for r in fn(n)]
+    # quick: the rows bench_fields measured earlier in this process, if it did
+    got = fn(n, reuse=quick) if "reuse" in inspect.signature(fn).parameters else fn(n)
+    return [dict(r, figure=f"(bench_fields) {r['figure']}") for r in got]
 
 
 # -- lattice links ----------------------------------------------------------------------------------
@@ -180,7 +185,10 @@ def lattice_rows(quick: bool) -> list[dict]:
     data at the default rtol 1e-12 on a coarse lattice, against closed-form BPST on the same lattice."""
     from benchmarks import bench_lattice
 
-    rows = bench_lattice.link_costs(quick)
+    reused = quick and quick in getattr(bench_lattice, "_LINK_COSTS", {})
+    rows = bench_lattice.link_costs(quick, reuse=quick)  # quick: bench_lattice's rows of this run, if any
+    if reused:
+        rows = [dict(r, reference=f"{r['reference']}; measured by bench_lattice in this run") for r in rows]
     size = 6 if quick else 12
     closed, _ = _link_time(ik.bpst_field((0.0, 0.0, 0.0, 0.0), 1.0), size)
     two, evals = _link_time(ik.random_adhm(2, seed=7, spread=1.0), size)
@@ -261,7 +269,8 @@ def first_call_rows(quick: bool) -> list[dict]:
     goals = {"closed-form density k=1": 0.5, "user callable, action density": 3.0, "verify(bpst())": 3.0}
     with tempfile.TemporaryDirectory() as tmp:
         cold = _probe(ks, tmp)
-        warm = _probe(ks, tmp)
+        # quick: one fresh process, not two; the warm compile cache's rows come from the full run
+        warm = {} if quick else _probe(ks, tmp)
     rows = []
     for name, t in cold.items():
         if name.startswith("scan") or name.startswith("closure"):

@@ -15,10 +15,15 @@ Usage (from the repository root)::
     python -m benchmarks [--quick] [--smoke] [--markdown | --json] [--only fields lattice]
     python benchmarks/run.py --quick
 
-``--quick`` passes ``quick=True`` to every module (the smaller sizes they define).  ``--smoke`` is
+``--quick`` passes ``quick=True`` to every module (the smaller sizes, fewer configurations and shared
+compiled kernels or clusters they define): the whole run targets about a minute on a quiet two-core
+machine, and its figures are indications (rows say where a quick size makes a ratio less
+representative); the full run (no flag) gives the reference figures.  ``--smoke`` is
 ``--quick`` with the configurations cut further (see :data:`SMOKE`, applied to the keyword
 arguments a module's ``run`` accepts) so CI can check in well under a minute that nothing rotted.
 Timings are printed, never checked; the exit status is 1 when a module failed (its row says why).
+The runner ends with the total wall time, each module's wall time, the CPU time and the load average
+(on a shared machine the wall time grows with the load; the CPU time much less).
 """
 
 from __future__ import annotations
@@ -47,6 +52,8 @@ __all__ = [
     "print_rows",
     "main",
     "SMOKE",
+    "QUICK_TARGET_S",
+    "summary_lines",
 ]
 
 #: Extra keyword arguments for ``--smoke``, per module, used only where ``run`` accepts them.
@@ -56,6 +63,9 @@ SMOKE = {
     "bench_cluster": {"parts": ("scaling",), "scaling_size": 4},
     "bench_smoothing": {"size": 4, "parts": ("timing",), "groups": ("su2",)},
 }
+
+#: What ``--quick`` aims at on a quiet two-core machine, in seconds (printed, never checked).
+QUICK_TARGET_S = 60.0
 
 COLUMNS = ("figure", "value", "unit", "ratio", "reference")
 _HERE = os.path.dirname(os.path.abspath(__file__))
@@ -130,16 +140,19 @@ def collect(
     package: str = "benchmarks",
     names: list[str] | None = None,
     log=None,
+    timings: dict | None = None,
 ) -> list[dict]:
     """Run the selected benchmark modules and return all their rows (failures become FAILED rows).
 
     quick / smoke: see the module docstring; only: short names ('fields') or module names; names:
-    the module names to consider (default :func:`discover`); log: a callable receiving progress text.
+    the module names to consider (default :func:`discover`); log: a callable receiving progress text;
+    timings: a dict that receives, per module name, ``(wall seconds, CPU seconds)`` (CPU: this process
+    and its finished child processes).
     """
     mods = _select(discover() if names is None else list(names), only)
     rows: list[dict] = []
     for name in mods:
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), _cpu_seconds()
         if log:
             log(f"running {name} ...")
         try:
@@ -156,9 +169,43 @@ def collect(
             if log:
                 log(traceback.format_exc())
             rows.append(_failure_row(name, err, time.perf_counter() - t0))
+        wall, cpu = time.perf_counter() - t0, _cpu_seconds() - c0
+        if timings is not None:
+            timings[name] = (wall, cpu)
         if log:
-            log(f"{name}: {time.perf_counter() - t0:.1f} s")
+            log(f"{name}: {wall:.1f} s (CPU {cpu:.1f} s)")
     return rows
+
+
+def _cpu_seconds() -> float:
+    """User + system CPU seconds of this process and its finished children (nan where unavailable)."""
+    try:
+        import resource
+    except ImportError:  # pragma: no cover - not on POSIX
+        return math.nan
+    me, kids = resource.getrusage(resource.RUSAGE_SELF), resource.getrusage(resource.RUSAGE_CHILDREN)
+    return me.ru_utime + me.ru_stime + kids.ru_utime + kids.ru_stime
+
+
+def summary_lines(timings: dict, mode: str) -> list[str]:
+    """The closing lines: total wall time, per-module wall times, CPU time and load; in quick mode, its target.
+
+    timings: ``{module name: (wall s, CPU s)}`` as filled by :func:`collect`; mode: 'full', 'quick' or 'smoke'.
+    """
+    wall = sum(w for w, _ in timings.values())
+    cpu = sum(c for _, c in timings.values())
+    load = os.getloadavg()[0] if hasattr(os, "getloadavg") else math.nan
+    per = ", ".join(f"{n[6:] if n.startswith('bench_') else n} {w:.1f} s" for n, (w, _) in timings.items())
+    lines = [
+        f"total wall time {wall:.1f} s (CPU {cpu:.1f} s; 1-minute load average {load:.2f} at the end); "
+        f"per module: {per}"
+    ]
+    if mode == "quick":
+        lines.append(
+            f"quick mode: smaller sizes and fewer configurations, targets about {QUICK_TARGET_S / 60:.0f} minute on a "
+            "quiet two-core machine; run without --quick for the reference figures (full sizes, many minutes)"
+        )
+    return lines
 
 
 def machine_description() -> str:
@@ -248,20 +295,27 @@ def main(argv=None) -> int:
         print("\n".join(n[6:] for n in discover()))
         return 0
     log = (lambda s: print(s, file=sys.stderr, flush=True)) if args.verbose else None
+    timings: dict = {}
     try:
-        rows = collect(args.quick, only=args.only, smoke=args.smoke, log=log)
+        rows = collect(args.quick, only=args.only, smoke=args.smoke, log=log, timings=timings)
     except ValueError as err:
         ap.error(str(err))
     mode = "smoke" if args.smoke else ("quick" if args.quick else "full")
     machine = machine_description()
+    summary = summary_lines(timings, mode)
     if args.json:
-        print(json.dumps({"machine": machine, "mode": mode, "rows": rows}, indent=1, default=str))
+        seconds = {n[6:]: {"wall": w, "cpu": c} for n, (w, c) in timings.items()}
+        out = {"machine": machine, "mode": mode, "rows": rows, "seconds": seconds, "summary": summary}
+        print(json.dumps(out, indent=1, default=str))
     elif args.markdown:
         print(f"Machine: {machine}; mode: {mode}.\n")
         print(format_markdown(rows))
+        print()
+        print("\n\n".join(summary))
     else:
         print(f"machine: {machine}; mode: {mode}")
         print(format_table(rows))
+        print("\n".join(summary))
     return 1 if any(r.get("failed") for r in rows) else 0
 
 

@@ -105,3 +105,33 @@ def test_main_exits_nonzero_when_a_benchmark_failed(fake_package, monkeypatch, c
     )
     assert bench_run.main(["--quick"]) == 1
     assert "FAILED: RuntimeError: no luck" in capsys.readouterr().out
+
+
+def test_collect_records_wall_and_cpu_seconds_per_module(fake_package):
+    timings: dict = {}
+    bench_run.collect(package=fake_package, names=["bench_ok", "bench_broken"], timings=timings)
+    assert list(timings) == ["bench_ok", "bench_broken"]
+    assert all(w >= 0.0 and c >= 0.0 for w, c in timings.values())
+
+
+def test_quick_summary_gives_the_total_wall_time_and_says_quick_targets_about_a_minute():
+    lines = bench_run.summary_lines({"bench_a": (20.0, 15.0), "bench_b": (40.5, 30.0)}, "quick")
+    assert lines[0].startswith("total wall time 60.5 s (CPU 45.0 s;") and "per module: a 20.0 s, b 40.5 s" in lines[0]
+    assert "about 1 minute" in lines[1] and "without --quick for the reference figures" in lines[1]
+
+
+def test_full_and_smoke_summaries_have_no_quick_mode_line():
+    for mode in ("full", "smoke"):
+        lines = bench_run.summary_lines({"bench_a": (1.0, 1.0)}, mode)
+        assert len(lines) == 1 and lines[0].startswith("total wall time 1.0 s")
+
+
+def test_main_prints_the_total_wall_time_after_the_table(fake_package, monkeypatch, capsys):
+    real = bench_run.collect
+    monkeypatch.setattr(
+        bench_run, "collect", lambda quick, **kw: real(quick, package=fake_package, names=["bench_ok"], **kw)
+    )
+    assert bench_run.main(["--quick"]) == 0
+    out = capsys.readouterr().out.splitlines()
+    assert out[-2].startswith("total wall time ") and "per module: ok " in out[-2]
+    assert out[-1].startswith("quick mode: ") and "about 1 minute" in out[-1]
