@@ -1,8 +1,8 @@
 """Every ```python example of the documentation pages and the README runs as written.
 
-Each fenced ``python`` block of README.md and of docs/**/*.md (the guide, the start page, the README
-draft) is one test case: it is executed in a fresh namespace, in a temporary working directory (so
-files an example writes land there), with matplotlib on its file backend.  A block runs as a script
+Each fenced ``python`` block of README.md and of docs/**/*.md (the guide, the start page) is one test
+case: it is executed in a fresh namespace, in a temporary working directory (so files an example writes
+land there), with matplotlib on its file backend.  A block runs as a script
 would, with ``__name__ == "__main__"``.
 
 A block that must not run is marked on the line right before its opening fence with
@@ -13,11 +13,6 @@ A block that must not run is marked on the line right before its opening fence w
 placeholders (``...``), or an example that needs a cluster or more than a few seconds.  The reason is
 required, and it is reported as the skip reason.  Blocks fenced with anything but ``python`` (shell
 commands, printed output) are never run.
-
-README.md is about to be rewritten as a short front door (its draft is docs/_readme_draft.md, whose
-blocks all run); until then its blocks cannot carry markers, so ``README_UNTIL_REWRITE`` below gives
-the same decisions for three of them, keyed by a line of their code.  Entries that match no block are
-ignored, so the rewrite needs no change here; delete the table then.
 
 The API pages (docs/api/*.md) must also name every public name of ``instantonkit.__all__``, so the
 reference cannot silently lose one.
@@ -35,18 +30,6 @@ ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 PAGES = sorted([os.path.join(ROOT, "README.md")] + glob.glob(os.path.join(ROOT, "docs", "**", "*.md"), recursive=True))
 NO_RUN = re.compile(r"^<!--\s*no-run:\s*(?P<reason>\S.*?)\s*-->\s*$")
 FENCE = re.compile(r"^(?P<indent> *)```(?P<lang>[\w-]*)\s*$")
-
-
-# (a line of the block's code, "skip" or "long", the reason) for the current README.md
-README_UNTIL_REWRITE = [
-    ("def ansatz(x, p):", "skip", "a sketch: its body is ``...`` and it uses undefined names"),
-    ("from dask.distributed import Client", "skip", "starts a Dask cluster and computes a 100-member ensemble"),
-    (
-        'start = ik.lattice_start(data, (24,) * 4, 0.5, group="su3"',
-        "long",
-        "a 24^4 SU(3) window start and a 190 MB ILDG file (tens of seconds); runs with INSTANTONKIT_LONG=1",
-    ),
-]
 
 
 def python_blocks(text: str) -> list[tuple[int, str, str | None]]:
@@ -79,10 +62,6 @@ def _cases():
         rel = os.path.relpath(page, ROOT).replace(os.sep, "/")
         for line, code, reason in python_blocks(text):
             marks = [pytest.mark.skip(reason=f"no-run: {reason}")] if reason else []
-            if rel == "README.md":
-                for needle, kind, why in README_UNTIL_REWRITE:
-                    if needle in code:
-                        marks.append(pytest.mark.skip(reason=f"no-run: {why}") if kind == "skip" else pytest.mark.long)
             yield pytest.param(rel, line, code, id=f"{rel}:{line}", marks=marks)
 
 
