@@ -16,7 +16,8 @@ Usage (from the repository root)::
     python benchmarks/run.py --quick
 
 ``--quick`` passes ``quick=True`` to every module (the smaller sizes, fewer configurations and shared
-compiled kernels or clusters they define): the whole run targets about a minute on a quiet two-core
+compiled kernels or clusters they define) and leaves out :data:`QUICK_SKIP` (the Dask cluster
+benchmark) unless ``--only`` names it: the whole run targets about a minute on a quiet two-core
 machine, and its figures are indications (rows say where a quick size makes a ratio less
 representative); the full run (no flag) gives the reference figures.  ``--smoke`` is
 ``--quick`` with the configurations cut further (see :data:`SMOKE`, applied to the keyword
@@ -53,6 +54,7 @@ __all__ = [
     "main",
     "SMOKE",
     "QUICK_TARGET_S",
+    "QUICK_SKIP",
     "summary_lines",
 ]
 
@@ -66,6 +68,10 @@ SMOKE = {
 
 #: What ``--quick`` aims at on a quiet two-core machine, in seconds (printed, never checked).
 QUICK_TARGET_S = 60.0
+
+#: Modules that --quick leaves out unless named with --only: starting Dask workers alone costs about
+#: 30 s of CPU, half the quick budget (``--quick --only cluster`` runs it).
+QUICK_SKIP = ("bench_cluster",)
 
 COLUMNS = ("figure", "value", "unit", "ratio", "reference")
 _HERE = os.path.dirname(os.path.abspath(__file__))
@@ -150,6 +156,8 @@ def collect(
     and its finished child processes).
     """
     mods = _select(discover() if names is None else list(names), only)
+    if quick and not smoke and not only:
+        mods = [m for m in mods if m not in QUICK_SKIP]
     rows: list[dict] = []
     for name in mods:
         t0, c0 = time.perf_counter(), _cpu_seconds()
@@ -203,7 +211,8 @@ def summary_lines(timings: dict, mode: str) -> list[str]:
     if mode == "quick":
         lines.append(
             f"quick mode: smaller sizes and fewer configurations, targets about {QUICK_TARGET_S / 60:.0f} minute on a "
-            "quiet two-core machine; run without --quick for the reference figures (full sizes, many minutes)"
+            "quiet two-core machine; run without --quick for the reference figures (full sizes, many minutes); "
+            f"left out: {', '.join(n[6:] for n in QUICK_SKIP)} (--quick --only {' '.join(n[6:] for n in QUICK_SKIP)} runs it)"
         )
     return lines
 
