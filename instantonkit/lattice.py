@@ -59,6 +59,7 @@ from typing import Protocol
 
 import numpy as np
 
+from . import _progress
 from . import _validate as _v
 from . import boundaries as _bd
 from . import observables as _obs
@@ -170,15 +171,9 @@ class LinkReport:
 
 def _record_of(field):
     """The field's ``record()``, or an 'unrecordable' record naming its type (so a file says what it held)."""
-    rec = hook(field, "record")
-    if rec is not None:
-        return rec()
-    kind = type(field).__name__
-    return {
-        "kind": "unrecordable",
-        "type": kind,
-        "reason": "it offers no record() hook (a bare callable, a ParametrisedField or a field class of your own); rebuild it by hand, or save with description=",
-    }
+    rec, kind = hook(field, "record"), type(field).__name__
+    why = "it offers no record() hook (a bare callable, a ParametrisedField or a field class of your own); rebuild it by hand, or save with description="
+    return rec() if rec is not None else {"kind": "unrecordable", "type": kind, "reason": why}
 
 
 @dataclasses.dataclass(frozen=True)
@@ -396,6 +391,7 @@ def _local_start(spec: StartSpec, out, progress) -> tuple:
     elif tuple(out.shape) != full or out.dtype != np.complex128:
         raise ValueError(f"out must have shape {full} and dtype complex128; found {tuple(out.shape)} {out.dtype}")
     stats = LinkStats()
+    progress = _progress.sink(progress, "lattice start, time slices")
     for t in range(shape[3]):
         block, block_stats = spec.block((0, 0, 0, t), shape[:3] + (t + 1,))
         stats = stats.merge(block_stats)
@@ -433,7 +429,7 @@ _START_DOC_ARGS = """
       method: 'auto', 'closed' or 'magnus' (see :func:`parallel_transporter`).
       out: optional preallocated array or np.memmap of shape (L1, L2, L3, L4, 4, N, N), complex128,
         filled one time slice at a time.
-      progress: progress(done, total) after each time slice.
+      progress: None (a line on stderr on a terminal), False, True or progress(done, total) per time slice.
 """
 
 

@@ -8,6 +8,7 @@ import time
 
 import numpy as np
 
+from .. import _progress
 from ._optional import require
 from .geometry import Job, region
 from .store import ATTR, Column, prepare, write_chunk
@@ -47,6 +48,7 @@ def run(job: Job, path: str, client, overwrite: bool, progress, n_workers):
     todo = [idx for idx in np.ndindex(*job.grid) if not flags[idx]]
     total, reused = int(np.prod(job.grid)), int(flags.sum())
     done = reused
+    progress = _progress.sink(progress, f"{job.name} chunks")
     if todo:
         with scheduler(client, n_workers) as c:
             store_id = group.attrs[ATTR].get("store_id")
