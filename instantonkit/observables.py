@@ -4,7 +4,10 @@ and charge, and lattice gauge transformations.
 Links (conventions module, see :mod:`instantonkit.lattice`): ``U_mu(n)`` joins site n to n + mu_hat,
 arrays ``(L1, L2, L3, L4, 4, N, N)``; a gauge transformation acts as
 ``U_mu(n) -> g(n) U_mu(n) g(n + mu_hat)^-1``.  Observables wrap around periodically, or with
-``boundary="open"`` use only the plaquettes (clovers) whose links all join lattice sites.  Work is done
+``boundary="open"`` use only the plaquettes (clovers) whose links all join lattice sites.  Every
+observable first checks all links (:func:`instantonkit._links.check_links`: finite, special unitary
+within 1e-8), so the open-boundary masks (NaN outside, then a NaN-skipping sum) exclude only what lies
+outside, never damaged input.  Work is done
 in time slabs of about ``SLAB_BYTES`` so memory stays bounded on large lattices (numpy arrays and
 memmaps alike).
 """
@@ -18,7 +21,7 @@ import numpy as np
 
 from . import _validate as _v
 from .conventions import CHARGE_DENSITY_FACTOR
-from .io import check_links as _check_links
+from ._links import check_links as _check_links
 
 __all__ = [
     "PLANES",
@@ -210,10 +213,17 @@ def plaquette_traces(links, *, boundary: str = "periodic") -> np.ndarray:
     Returns:
       (L1, L2, L3, L4, 6) float64, Re tr U_p / N per site and plane.
     Raises:
-      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
+      ValueError / TypeError: links of the wrong shape or dtype, NaN or inf entries (counted and
+        located) or links not in SU(N) within 1e-8 (checked before any open-boundary mask),
+        an unknown boundary, a bad spacing (where one is taken).
     """
     u = _check_links(links)
     _check_boundary(boundary)
+    return _traces(u, boundary)
+
+
+def _traces(u, boundary):
+    """:func:`plaquette_traces` of checked links."""
     n = u.shape[-1]
     out = np.empty(u.shape[:4] + (6,))
     for t0, t1, ext in _slabs(u, 1):
@@ -236,7 +246,9 @@ def plaquettes(links, *, boundary: str = "periodic") -> np.ndarray:
     Returns:
       (L1, L2, L3, L4, 6, N, N) complex128 plaquette matrices.
     Raises:
-      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
+      ValueError / TypeError: links of the wrong shape or dtype, NaN or inf entries (counted and
+        located) or links not in SU(N) within 1e-8 (checked before any open-boundary mask),
+        an unknown boundary, a bad spacing (where one is taken).
     """
     u = _check_links(links)
     _check_boundary(boundary)
@@ -258,7 +270,9 @@ def average_plaquette(links, *, boundary: str = "periodic") -> float:
     Returns:
       float, the mean of Re tr U_p / N.
     Raises:
-      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
+      ValueError / TypeError: links of the wrong shape or dtype, NaN or inf entries (counted and
+        located) or links not in SU(N) within 1e-8 (checked before any open-boundary mask),
+        an unknown boundary, a bad spacing (where one is taken).
     """
     return float(np.nanmean(plaquette_traces(links, boundary=boundary)))
 
@@ -277,12 +291,15 @@ def wilson_action(links, beta: float | None = None, *, boundary: str = "periodic
     Returns:
       float, S_W.
     Raises:
-      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
+      ValueError / TypeError: links of the wrong shape or dtype, NaN or inf entries (counted and
+        located) or links not in SU(N) within 1e-8 (checked before any open-boundary mask),
+        an unknown boundary, a bad spacing (where one is taken).
     """
     u = _check_links(links)
+    _check_boundary(boundary)
     n = u.shape[-1]
-    b = 2.0 * n if beta is None else float(beta)
-    tr = plaquette_traces(u, boundary=boundary)
+    b = 2.0 * n if beta is None else _v.finite_float("beta", beta)
+    tr = _traces(u, boundary)
     return float(b * np.nansum(1.0 - tr))
 
 
@@ -339,7 +356,9 @@ def clover_field_strength(links, *, spacing: float = 1.0, boundary: str = "perio
     Returns:
       (L1, L2, L3, L4, 4, 4, N, N) complex128, F_mu nu / a^2.
     Raises:
-      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
+      ValueError / TypeError: links of the wrong shape or dtype, NaN or inf entries (counted and
+        located) or links not in SU(N) within 1e-8 (checked before any open-boundary mask),
+        an unknown boundary, a bad spacing (where one is taken).
     """
     u = _check_links(links)
     _check_boundary(boundary)
@@ -372,7 +391,9 @@ def clover_charge_density(links, *, spacing: float = 1.0, boundary: str = "perio
     Returns:
       (L1, L2, L3, L4) float64, q(n) / a^4.
     Raises:
-      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
+      ValueError / TypeError: links of the wrong shape or dtype, NaN or inf entries (counted and
+        located) or links not in SU(N) within 1e-8 (checked before any open-boundary mask),
+        an unknown boundary, a bad spacing (where one is taken).
     """
     u = _check_links(links)
     _check_boundary(boundary)
@@ -396,6 +417,8 @@ def clover_charge(links, *, boundary: str = "periodic") -> float:
     Returns:
       float, Q.
     Raises:
-      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
+      ValueError / TypeError: links of the wrong shape or dtype, NaN or inf entries (counted and
+        located) or links not in SU(N) within 1e-8 (checked before any open-boundary mask),
+        an unknown boundary, a bad spacing (where one is taken).
     """
     return float(np.nansum(clover_charge_density(links, boundary=boundary)))
