@@ -107,7 +107,7 @@ def unitarity_deviation(links, name: str = "links") -> tuple[float, tuple, float
     """(max |U^dag U - 1|, its (site, mu), max |det U - 1|, its (site, mu)) over finite links (L1..L4, 4, N, N)."""
     u = links_shape(links, name)
     n = u.shape[-1]
-    worst = [-1.0, ((0, 0, 0, 0), 0), -1.0, ((0, 0, 0, 0), 0)]
+    e_max, e_at, d_max, d_at = -1.0, ((0, 0, 0, 0), 0), -1.0, ((0, 0, 0, 0), 0)
     for t0, slab in _slabs(u):
         flat = slab.reshape(-1, n, n).astype(np.complex128, copy=False)
         for i in range(0, flat.shape[0], BLOCK):
@@ -116,11 +116,11 @@ def unitarity_deviation(links, name: str = "links") -> tuple[float, tuple, float
             if m < BLOCK:
                 blk = np.concatenate([blk, np.broadcast_to(np.eye(n, dtype=np.complex128), (BLOCK - m, n, n))])
             e, ie, d, idd = (np.asarray(v) for v in _block_deviation(jnp.asarray(blk)))
-            if e > worst[0]:
-                worst[0:2] = [float(e), _site(slab.shape[:5], t0, i + int(ie))]
-            if d > worst[2]:
-                worst[2:4] = [float(d), _site(slab.shape[:5], t0, i + int(idd))]
-    return worst[0], worst[1], worst[2], worst[3]
+            if e > e_max:
+                e_max, e_at = float(e), _site(slab.shape[:5], t0, i + int(ie))
+            if d > d_max:
+                d_max, d_at = float(d), _site(slab.shape[:5], t0, i + int(idd))
+    return e_max, e_at, d_max, d_at
 
 
 def project_links(links) -> np.ndarray:
@@ -137,7 +137,9 @@ def project_links(links) -> np.ndarray:
     n = u.shape[-1]
     x, s, vh = np.linalg.svd(u)
     if float(np.min(s)) <= 1e-12 * max(float(np.max(s)), 1e-300):
-        raise ValueError(f"links must be invertible to be projected onto SU({n}); found a singular value {np.min(s):.3e}")
+        raise ValueError(
+            f"links must be invertible to be projected onto SU({n}); found a singular value {np.min(s):.3e}"
+        )
     w = x @ vh
     det = np.linalg.det(w)
     return w * (det ** (-1.0 / n))[..., None, None]
@@ -193,4 +195,3 @@ def check_links(links, *, name: str = "links", tol: float | None = None, project
             "instantonkit.project_links(links) (or check_links(..., project=True))"
         )
     return u
-

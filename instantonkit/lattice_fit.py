@@ -31,11 +31,10 @@ import numpy as np
 
 from . import _validate
 from . import observables as _obs
-from .conventions import ACTION_DENSITY_FACTOR
+from ._links import check_links
+from .conventions import ACTION_DENSITY_FACTOR, INSTANTON_ACTION
 from .fields import action_from_f
 from .finder import InstantonFit, MixedFit, find_instantons
-from ._links import check_links
-from .conventions import INSTANTON_ACTION
 from .smoothing import SmoothingRecord
 
 __all__ = ["ColourRank", "colour_rank", "find_lattice_instantons"]
@@ -263,7 +262,7 @@ def _smoothing_systematic(fit: InstantonFit, record, s_w: float, k: int) -> Inst
         what = (
             f"the flow to t = {float(record.time[-1]):g} a^2"
             if record.kind == "flow"
-            else f"{int(record.time[-1])} cooling sweeps"
+            else f"{int(record.time[-1])} cooling sweep(s)"
         )
         drift = abs(float(record.size[-1]) / float(record.size[0]) - 1.0) if record.size.size else float("nan")
         if not np.isfinite(drift):

@@ -20,8 +20,8 @@ import jax.numpy as jnp
 import numpy as np
 
 from . import _validate as _v
-from .conventions import CHARGE_DENSITY_FACTOR
 from ._links import check_links as _check_links
+from .conventions import CHARGE_DENSITY_FACTOR
 
 __all__ = [
     "PLANES",
