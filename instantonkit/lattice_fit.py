@@ -19,6 +19,11 @@ embeddings of SU(2) (common practice), so they infer rank 2; genuine SU(N) confi
 embedding have a small but finite smallest singular value and count as genuine once it exceeds the
 threshold.  Without ``rank``, :func:`find_lattice_instantons` fits SU(r) with the inferred r (= N for
 genuine SU(N) links; an SU(r) field embedded in SU(N) is fitted as SU(r)).
+
+Error budget.  Links are checked first (finite, SU(N) within 1e-8).  The finder's systematic is the model
+error of continuum densities; for links that were smoothed the caller passes the run's record and the
+sizes' systematic gains the drift the run caused (:func:`_smoothing_systematic`); raw links whose Wilson
+action exceeds ``ROUGH_FACTOR`` x 8 pi^2 k are rough: systematic not estimated, advice to smooth first.
 """
 
 from __future__ import annotations

@@ -22,6 +22,11 @@ Normalisations (g = 1, beta = 2N, so that every action tends to the continuum ac
   section 2 for the Wilson action, from memory; our S equals his g0^2 S_w summed over oriented
   plaquettes).  tests/test_smoothing.py checks Z against finite differences of S.
 
+Every front door checks its links first (:func:`instantonkit._links.check_links`: finite, SU(N) within 1e-8).
+A flow whose effective step exceeds :func:`flow_step_bound` (the real stability interval of a third-order
+Runge-Kutta scheme over the largest frequency of the linearised flow) is refused before it starts, and a
+flow or cooling run whose driving action rises between two measurements stops with an error.
+
 Cooling with the 2x2 loops uses 8 colours per direction (see :func:`_colours`), so every sweep is an
 exact sequential sweep; the gradient flow of S(eps) is offered beside it (:func:`gradient_flow`).
 """
