@@ -14,6 +14,7 @@ from __future__ import annotations
 import struct
 
 import jax
+import jax.numpy as jnp
 import numpy as np
 import pytest
 
@@ -248,3 +249,13 @@ def test_a_fit_to_rough_links_advises_smoothing_first(bpst_start):
 def test_a_smoothing_argument_that_is_not_a_record_is_refused(bpst_start):
     with pytest.raises(TypeError, match="smoothing must be the SmoothingRecord .* found dict"):
         find_lattice_instantons(bpst_start[0], 1, smoothing={"time": 1.0})
+
+
+def test_a_cooling_run_whose_action_rises_stops_naming_the_sweeps(monkeypatch):
+    rough = _random_links(seed=9)
+    monkeypatch.setattr(sm, "_cool_sweep", lambda u, *args: jnp.asarray(rough))  # a sweep that roughens
+    smooth = np.broadcast_to(np.eye(2, dtype=complex), (4, 4, 4, 4, 4, 2, 2))
+    with pytest.raises(
+        ValueError, match=r"cooling is unstable: the action S\(eps\) rose from 0 to .* between sweeps 0 and 1"
+    ):
+        sm.cool(smooth, 1)
