@@ -237,6 +237,11 @@ class ThooftField(_ScalarAnsatz):
     def describe(self) -> str:
         return f"'t Hooft ansatz, k = {self.k}"
 
+    def record(self) -> dict:
+        """Field hook: a JSON-ready description that rebuilds the field exactly (kind 'thooft')."""
+        c, rho = self.layout()
+        return {"kind": "thooft", "centers": c.tolist(), "sizes": rho.tolist(), "charge": self.k}
+
     def hint(self):
         """(mean of the centres (4,), max(largest size, spread of the centres))."""
         c = np.asarray(self.centers)
@@ -281,6 +286,12 @@ class JNRField(_ScalarAnsatz):
 
     def describe(self) -> str:
         return f"JNR ansatz, k = {self.k}"
+
+    def record(self) -> dict:
+        """Field hook: a JSON-ready description that rebuilds the field exactly (kind 'jnr')."""
+        poles = np.asarray(self.poles, dtype=np.float64).reshape(-1, 4)
+        weights = np.asarray(self.weights, dtype=np.float64).reshape(-1)
+        return {"kind": "jnr", "poles": poles.tolist(), "weights": weights.tolist(), "charge": self.k}
 
     def hint(self):
         """(mean of the poles (4,), max(largest weight, spread of the poles))."""
@@ -409,6 +420,12 @@ class CaloronField(_ScalarAnsatz):
 
     def describe(self) -> str:
         return f"Harrington-Shepard caloron, rho = {float(self.size):g}, period = {float(self.period):g}"
+
+    def record(self) -> dict:
+        """Field hook: a JSON-ready description that rebuilds the field exactly (kind 'caloron')."""
+        centre = np.asarray(self.center, dtype=np.float64).reshape(4).tolist()
+        size = float(self.size)
+        return {"kind": "caloron", "size": size, "period": float(self.period), "center": centre, "charge": 1}
 
     def hint(self):
         """(centre (4,), rho * max(1, pi rho / beta)): the core size (pi rho^2/beta is the monopole scale)."""

@@ -67,8 +67,11 @@ from .report import (
     Route,
     Row,
     Verification,
+    expected_integer,
+    orientation_mistake,
     signed_offset,
 )
+from .singular import SingularDensityError
 
 __all__ = [
     "IntegralResult",
@@ -92,6 +95,7 @@ __all__ = [
 #: Points of the final action rule on which the potential's curvature is sampled.
 DEFAULT_SAMPLE_POINTS = 8192
 
+_NO_BUDGET = "correct the potential at the point named: more budget or a centre there cannot make it integrable"
 #: A peak this many scales away from every layout centre means the layout misses the field.
 _FAR = 3.0
 #: A peak this many times higher than the largest s on the sampled rule lies between its shells.
@@ -198,8 +202,7 @@ def verify(
     layout = layout_of(field, center, scale, period)
     declared = _fields.hook(field, "charge")
     budget = _budget(max_points, declared, layout)
-    if expected_charge is not None:
-        expected_charge = int(_validate.finite_float("expected_charge", expected_charge))
+    expected_charge = expected_integer(expected_charge)
     case = _Case()
     kw = dict(rtol=rtol, atol=atol, max_points=budget, progress=progress)
     charge = action = check = None
@@ -348,12 +351,14 @@ def _integrals(field, layout: Layout, charge_method: str, kw: dict, sample_point
                 outcome = finer if finer.results[0].converged else outcome
             check, rule = outcome.results[0], outcome.rule
         else:
-            charge = integrate(field, (DensityRequest("charge_density", charge_method),), layout, **kw).results[0]
-            req = DensityRequest("action_density", atol=s_atol)
+            req = DensityRequest("action_density", atol=s_atol)  # s first: it names a non-integrable point soonest
             outcome = integrate(field, (req,), layout, rule_points=sample_points, **kw)
             action, rule = outcome.results[0], outcome.rule
+            charge = integrate(field, (DensityRequest("charge_density", charge_method),), layout, **kw).results[0]
     except (DivergentIntegralError, FieldEvaluationError) as err:
         case.failures.append(re.sub(r"\|x\|\^--", "|x|^", str(err)))
+        if isinstance(err, SingularDensityError):  # more budget or a centre there cannot make it finite
+            case.advice = [a for a in case.advice if "center=" not in a] + [_NO_BUDGET]
     except ValueError as err:  # a budget below the first round of the rule: nothing converged, say what is needed
         if "max_points must be at least" not in str(err):
             raise
@@ -372,13 +377,13 @@ def _how(res: IntegralResult) -> str:
 def _action_route(case: _Case, res: IntegralResult, charge, tol: float, name: str, how: str, label: str, mismatch):
     """Add the route row of an action integral ``res`` (S / 8 pi^2, signed by Q) against the charge Q.
 
-    A converged integral that disagrees beyond the error bars fails with ``mismatch(value, error)``; one
-    that cannot be decided is a doubt naming ``label``; a non-converged one is 'undecided' (the caller
-    says why and advises).
+    An integral that disagrees beyond the error bars fails with ``mismatch(value, error)``, converged or
+    not; a converged one that cannot be decided is a doubt naming ``label`` (for a non-converged one
+    the caller says why and advises).
     """
     val, err = case.sign * res.value / INSTANTON_ACTION, res.error / INSTANTON_ACTION  # s = 8 pi^2 |q|
-    status = _judge(abs(val - charge.value), err + charge.error, tol) if res.converged else "undecided"
-    if res.converged and status == "DISAGREES":
+    status = _judge(abs(val - charge.value), err + charge.error, tol)  # the error bar decides, whatever the budget
+    if status == "DISAGREES":
         case.failures.append(mismatch(val, err))
     elif res.converged and status == "undecided":
         case.doubts.append(f"{label} {val:.10g} +- {err:.1e} and Q cannot be decided to {tol:.0e}")
@@ -408,6 +413,10 @@ def _volume_check(case: _Case, check: IntegralResult, charge: IntegralResult, bu
 
 def _not_converged(case: _Case, what: str, res: IntegralResult, budget: int) -> None:
     case.doubts.append(f"{what} integral not converged: {res.message or 'error above tolerance'}")
+    if "density is singular at" in res.message:  # integrable but slow: say so rather than only more budget
+        case.advise("the density grows like a power near the point named: check the potential's factor and sign there")
+    if any(_NO_BUDGET in a for a in case.advice):  # a non-integrable point: neither budget nor hints help
+        return
     case.advise(f"raise the budget (max_points={4 * budget:,}; command line --budget {4 * budget})")
     if case.peak is None or not any("poorly resolved" in a for a in case.advice):
         case.advise("or give hints where the action sits (center=..., scale=...; --center, --scale)")
@@ -416,32 +425,42 @@ def _not_converged(case: _Case, what: str, res: IntegralResult, budget: int) -> 
 def _charge_findings(case: _Case, charge: IntegralResult, expected, declared, tol: float, budget: int) -> None:
     """Nearest integer, |Q - n| against tolerance and error bar, the expected and the declared charge."""
     q, e = charge.value, charge.error
-    case.nearest = n = int(round(q))
-    case.sign = -1 if n < 0 else 1
-    status = _judge(abs(q - n), e, tol)
     how = _how(charge)
     case.rows.append(Row("topological charge Q", q, e, how, "", "" if charge.converged else "NOT converged"))
-    case.rows.append(Row(signed_offset("Q", n), abs(q - n), e, how, status, f"tolerance {tol:.0e}"))
     if not charge.converged:
         _not_converged(case, "charge", charge, budget)
-    elif status == "DISAGREES":
-        case.failures.append(
-            f"charge is not an integer: Q = {q:.10g} +- {e:.1e}, {signed_offset('Q', n)} = {abs(q - n):.2e} "
-            f"exceeds the tolerance {tol:.0e} by more than the error bar"
-        )
-    elif status == "undecided":
-        case.doubts.append(
-            f"the error bar of Q ({e:.1e}) is too wide to decide {signed_offset('Q', n)} = {abs(q - n):.2e} "
-            f"against the tolerance {tol:.0e}"
-        )
-        case.advise(
-            f"tighten atol (e.g. atol={tol / 10:.0e}) with more budget, or loosen charge_tol to {abs(q - n) + e:.0e}"
-        )
-    if n == 0 and abs(q) + e < 0.5:
-        case.failures.append("charge 0: not an instanton")
+    n = int(round(q)) if e < 0.5 else None  # an error bar of 1/2 or more names no nearest integer
+    want = expected if expected is not None else declared
+    case.sign = -1 if (n if n is not None else want if want is not None else q) < 0 else 1
+    if n is None:
+        case.doubts.append(f"Q = {q:.6g} +- {e:.1e}: the error bar is too wide to name the nearest integer")
+    else:
+        case.nearest, status = n, _judge(abs(q - n), e, tol)
+        case.rows.append(Row(signed_offset("Q", n), abs(q - n), e, how, status, f"tolerance {tol:.0e}"))
+        if status == "DISAGREES":  # whatever the budget: the error bar is part of the rule
+            case.failures.append(
+                f"charge is not an integer: Q = {q:.10g} +- {e:.1e}, {signed_offset('Q', n)} = {abs(q - n):.2e} "
+                f"exceeds the tolerance {tol:.0e} by more than the error bar"
+            )
+        elif status == "undecided" and charge.converged:
+            case.doubts.append(
+                f"the error bar of Q ({e:.1e}) is too wide to decide {signed_offset('Q', n)} = {abs(q - n):.2e} "
+                f"against the tolerance {tol:.0e}"
+            )
+            case.advise(
+                f"tighten atol (e.g. atol={tol / 10:.0e}) with more budget, or loosen charge_tol to {abs(q - n) + e:.0e}"
+            )
+        if n == 0 and abs(q) + e < 0.5:
+            case.failures.append("charge 0: not an instanton")
     for want, what in ((expected, "the expected"), (declared, "the construction's (input)")):
-        if want is not None and n != int(want) and abs(q - int(want)) - e > tol and charge.converged:
-            case.failures.append(f"charge {n} differs from {what} {int(want)}")
+        if want is None or n == int(want):
+            continue
+        off, label = abs(q - int(want)), f"charge {n}" if n is not None else f"Q = {q:.10g} +- {e:.1e}"
+        if n is None:
+            case.rows.append(Row(signed_offset("Q", int(want)), off, e, how, _judge(off, e, tol), f"{what} charge"))
+        if off - e > tol:
+            flip = orientation_mistake(q, e, int(want), tol)
+            case.failures.append(flip or f"{label} differs from {what} {int(want)}")
     if declared is not None:
         case.rows.append(Row("charge declared by the construction", float(declared), None, HOW_INPUT, "input"))
 

@@ -20,10 +20,13 @@ from typing import Any, NamedTuple
 import numpy as np
 
 from . import quadrature as _quad
+from . import singular as _sing
+from .singular import DivergentIntegralError, SingularDensityError
 
 __all__ = [
     "IntegralResult",
     "DivergentIntegralError",
+    "SingularDensityError",
     "FieldEvaluationError",
     "Layout",
     "integrate_adaptive",
@@ -84,12 +87,12 @@ _ORIENTED_MAX_CENTRES = 2
 
 _EPS = float(np.finfo(np.float64).eps)
 
+#: The search for singular points (:mod:`instantonkit.singular`) runs once: when the error has not halved for
+#: this many rounds, or when the integral stops unconverged.
+_STALL_ROUNDS = 6
+
 
 # -- errors and results ----------------------------------------------------------------------------
-
-
-class DivergentIntegralError(ValueError):
-    """The density falls too slowly at infinity for its integral to exist (or to be estimated)."""
 
 
 class FieldEvaluationError(RuntimeError):
@@ -400,6 +403,8 @@ class _State:
     pieces: list
     evaluations: int = 0
     rounds: int = 0
+    top: list = dataclasses.field(default_factory=list)
+    probes: int = 0
 
     @classmethod
     def start(cls, layout: Layout) -> _State:
@@ -483,7 +488,9 @@ def _evaluate(state: _State, density, requests: Sequence[_ShellRequest], extra=N
     chunks = [_shell_rule(q.piece, q.shell, q.level, state.layout) for q in requests]
     sizes = [c[0].shape[0] for c in chunks]
     allpts = [c[0] for c in chunks] + ([extra] if extra is not None else [])
-    vals = density(np.concatenate(allpts)) if allpts else np.zeros(0)
+    pts = np.concatenate(allpts) if allpts else np.zeros((0, 4))
+    vals = density(pts) if allpts else np.zeros(0)
+    state.top = _sing.keep_peaks(state.top, pts, vals, 0.25 * float(np.min(state.layout.scales)))
     out, start = [], 0
     for (_, w), m in zip(chunks, sizes):
         v = vals[start : start + m]
@@ -491,6 +498,14 @@ def _evaluate(state: _State, density, requests: Sequence[_ShellRequest], extra=N
         start += m
     state.evaluations += int(sum(sizes) + (0 if extra is None else extra.shape[0]))
     return out, vals[start:]
+
+
+def _singularities(state: _State, density, name: str) -> str:
+    """ "" or the sentence naming an integrable singular point; SingularDensityError for a non-integrable one."""
+    mag = sum(float(np.sum(p.mag)) for p in state.pieces)
+    note, spent = _sing.search(density, state.top, state.layout.centres, float(np.min(state.layout.scales)), mag, name)
+    state.probes += spent
+    return note
 
 
 def _apply(requests: Sequence[_ShellRequest], sums) -> None:
@@ -577,9 +592,11 @@ def _plan_round(state: _State, tol: float) -> tuple[list[_Piece], list[_Plan], i
     for p in chosen:
         if p.angular_err > max(_ANGULAR_SHARE * share, _ANGULAR_OVER_RADIAL * p.radial_err) or p.lr >= MAX_RADIAL_LEVEL:
             idx = [j for j in _greedy(p.err, _REFINE_TARGET * p.angular_err) if p.la[j] < MAX_ANGULAR_LEVEL]
-            plans.append(_Plan(p, "angular", idx))
-            need += sum(_shell_size(int(p.la[j]) + 1, periodic, int(p.aspect[j])) for j in idx)
-        elif p.lr < MAX_RADIAL_LEVEL:
+            if idx:  # worst shells all at the finest angular level: refine radially, or nothing is left here
+                plans.append(_Plan(p, "angular", idx))
+                need += sum(_shell_size(int(p.la[j]) + 1, periodic, int(p.aspect[j])) for j in idx)
+                continue
+        if p.lr < MAX_RADIAL_LEVEL:
             init = p.levels_for(p.lr + 1)
             plans.append(_Plan(p, "radial", init))
             need += _level_need(p, p.lr + 1, init, state.layout)
@@ -602,9 +619,9 @@ def _plan_requests(plans: Sequence[_Plan]) -> list[_ShellRequest]:
 
 def _stop_message(plans, need: int, state: _State, max_points: int, error: float, tol: float) -> str:
     """Why refinement stops short of the tolerance ("" when the next round fits the budget)."""
-    if plans and state.evaluations + need <= max_points:
+    if plans and need > 0 and state.evaluations + need <= max_points:
         return ""
-    if plans:
+    if plans and need > 0:
         return (
             f"budget spent: the next round needs {need:,} more points, beyond max_points = {max_points:,} "
             f"({state.evaluations:,} used); estimated error {error:.1e} > tolerance {tol:.1e}"
@@ -650,10 +667,16 @@ def final_rule(state: _State, max_points: int) -> _quad.Rule:
 def integrate_adaptive(
     density, name: str, layout: Layout, *, rtol: float, atol: float, max_points: int, sink
 ) -> tuple[IntegralResult, _State]:
-    """One adaptive integral: the initial rounds, then planned rounds until converged or stopped."""
+    """One adaptive integral: the initial rounds, then planned rounds until converged or stopped.
+
+    Every round evaluates at least one shell (a round that would add none stops with its reason), so
+    there are at most max_points / (smallest shell) rounds and the time is bounded by the budget's
+    evaluations; a stalled or unconverged integral is searched once for a singular point
+    (:func:`instantonkit.singular.search`, SingularDensityError when it is not integrable)."""
     state = _State.start(layout)
     first = _initial_rounds(state, density, name, max_points)
-    converged, message = False, ""
+    converged, message, note, searched, best, stalled = False, "", "", False, math.inf, 0
+    max_rounds = max_points // _shell_size(0, layout.periodic)  # each round evaluates >= 1 shell of >= this
     while True:
         value, error = state.value, state.error
         tol = max(atol, rtol * abs(value))
@@ -674,8 +697,13 @@ def integrate_adaptive(
         if error <= tol:
             converged = True
             break
+        best, stalled = (error, 0) if error < 0.5 * best else (best, stalled + 1)
+        if stalled >= _STALL_ROUNDS and not searched:  # the error does not fall: a singular point?
+            note, searched = _singularities(state, density, name), True
         chosen, plans, need = _plan_round(state, tol)
         message = _stop_message(plans, need, state, max_points, error, tol)
+        if state.rounds >= max_rounds:
+            message = f"{state.rounds:,} refinement rounds (the most {max_points:,} points allow); error {error:.1e}"
         if message:
             break
         reqs = _plan_requests(plans)
@@ -684,6 +712,10 @@ def integrate_adaptive(
         for p in chosen:
             p.update_radial_error()
         state.rounds += 1
+    if not converged and not searched:
+        note = _singularities(state, density, name)
+    if note:
+        message = f"{message}; {note} ({state.probes:,} probe points beside the budget)"
     if sink is not None:
         sink(
             dict(quantity=name, round=state.rounds, evaluations=state.evaluations, value=value, error=error, done=True)

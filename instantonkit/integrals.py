@@ -260,7 +260,8 @@ def integrate(
       IntegrationOutcome(results (IntegralResult per request), rules (quadrature.Rule per request or ())).
     Raises:
       ValueError for bad tolerances or budget; DivergentIntegralError for a density that falls too
-      slowly; FieldEvaluationError when the field cannot be evaluated.
+      slowly (or, as SingularDensityError, grows like r^-p, p >= 4, about a point it names with p);
+      FieldEvaluationError when the field cannot be evaluated.
     """
     field = _fields.as_field(field)
     _check_tolerances(rtol, atol, max_points)

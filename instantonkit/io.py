@@ -19,7 +19,10 @@ ILDG layout written and read here (the open ILDG/LIME standard, from memory):
 
 Our link arrays are ``(L1, L2, L3, L4, 4, N, N)`` with ``(n1, n2, n3, n4) = (x, y, z, t)``, so the
 binary payload is the array transposed to ``(t, z, y, x, mu, a, b)``.  Writes go to a temporary file
-in the target directory that replaces the target only when complete (``os.replace``).
+in the target directory that replaces the target only when complete (``os.replace``), is removed when
+the write is interrupted (an exception, SIGTERM, SIGHUP) and, after SIGKILL, by the next save into that
+directory; files get mode ``0o666 & ~umask`` and errors name the target (:mod:`instantonkit._atomic`).
+The format follows the extension (``.npz``; ``.ildg`` or ``.lime``) unless given.
 """
 
 from __future__ import annotations
@@ -28,12 +31,12 @@ import json
 import os
 import re
 import struct
-import tempfile
 import zipfile
 from typing import Any
 
 import numpy as np
 
+from ._atomic import atomic_write
 from ._links import check_links as _check_link_values
 
 __all__ = [
@@ -43,6 +46,7 @@ __all__ = [
     "read_description",
     "LIME_MAGIC",
     "LIME_HEADER_BYTES",
+    "EXTENSIONS",
 ]
 
 LIME_MAGIC = 0x456789AB
@@ -57,20 +61,33 @@ _FORMATS = ("npz", "ildg")
 
 
 def _atomic_write(path, write):
-    """Call ``write(fileobj)`` on a temporary file beside ``path``, then rename it onto ``path``."""
-    path = os.fspath(path)
-    directory = os.path.dirname(os.path.abspath(path))
-    fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=".part", dir=directory)
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            write(fh)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.remove(tmp)
-        raise
+    """Call ``write(fileobj)`` on a temporary file beside ``path``, then rename it onto ``path`` (:mod:`._atomic`)."""
+    atomic_write(path, write)
+
+
+#: Extensions that name a format (compared in lower case).
+EXTENSIONS = {".npz": "npz", ".ildg": "ildg", ".lime": "ildg"}
+
+
+def _choose_format(path, format):
+    """The format to write: ``format`` when given (it must agree with a known extension), else the extension's."""
+    ext = os.path.splitext(os.fspath(path))[1].lower()
+    known = EXTENSIONS.get(ext)
+    if format is None:
+        if known is None:
+            raise ValueError(
+                f"cannot tell the format of {os.fspath(path)!r} from its extension {ext or '(none)'!r}: name the "
+                f"file *.npz (npz) or *.ildg / *.lime (ildg), or pass format= one of {_FORMATS}"
+            )
+        return known
+    if format not in _FORMATS:
+        raise ValueError(f"format must be one of {_FORMATS}; found {format!r}")
+    if known is not None and known != format:
+        raise ValueError(
+            f"format {format!r} does not match the extension {ext!r} of {os.fspath(path)!r}, which means "
+            f"{known!r}: change the name or the format"
+        )
+    return format
 
 
 def check_links(links):
@@ -274,7 +291,7 @@ def _load_npz(path):
 def save_lattice(
     path,
     links,
-    format: str = "npz",
+    format: str | None = None,
     metadata: dict | None = None,
     *,
     lfn: str | None = None,
@@ -291,10 +308,12 @@ def save_lattice(
     (the report's 'field' entry, from the field's ``record()`` hook) without naming them.
 
     Args:
-      path: file to write (written to a temporary file in the same directory, then renamed).
+      path: file to write (written to a temporary file in the same directory, then renamed; mode
+        0o666 & ~umask; leftovers of writers killed by SIGKILL in that directory are removed first).
       links: (L1, L2, L3, L4, 4, N, N) complex array (numpy or np.memmap; N = 3 for 'ildg'), or a
         lattice start with ``.links`` and ``.report``.
-      format: 'npz' or 'ildg'.
+      format: 'npz' or 'ildg'; None (default): from the extension, '.npz' -> 'npz', '.ildg' or
+        '.lime' -> 'ildg'.
       metadata: optional JSON-serialisable dict stored with the links (default: the start's report).
       lfn: optional logical file name (ILDG only).
       description: optional JSON-serialisable description of the field (default: ``metadata['field']``
@@ -303,17 +322,23 @@ def save_lattice(
     Returns:
       None.
     Raises:
-      ValueError: unknown format, links of the wrong shape (or not 3 x 3 for 'ildg').
+      ValueError: unknown format, an extension the format contradicts (``x.ildg`` with format='npz'),
+        an unknown extension without a format, links of the wrong shape (or not 3 x 3 for 'ildg').
       TypeError: non-complex links, metadata that is not JSON-serialisable.
+      OSError: a missing directory, a refused permission, a full disk (FileNotFoundError,
+        PermissionError, ...), naming ``path``; no temporary file is left.
     """
-    if format not in _FORMATS:
-        raise ValueError(f"format must be one of {_FORMATS}; found {format!r}")
+    format = _choose_format(path, format)
     report = getattr(links, "report", None)
     if report is not None and hasattr(links, "links") and hasattr(report, "as_metadata"):
         # a lattice start (duck-typed: io sits below lattice)
         metadata = report.as_metadata() if metadata is None else metadata
         links = links.links
     u = check_links(links)
+    if format == "ildg" and u.shape[-1] != 3:
+        raise ValueError(
+            f"ILDG stores SU(3) links (3 x 3); found {u.shape[-1]} x {u.shape[-1]} (make the start with group='su3')"
+        )
     if isinstance(metadata, dict) and isinstance(
         metadata.get("field"), dict
     ):  # a field record: stored as the description

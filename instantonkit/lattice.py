@@ -25,11 +25,13 @@ Results and reports: :func:`lattice_links` always returns the links; :func:`latt
 frozen :class:`LatticeStart` (``.links`` and ``.report``, a :class:`LinkReport`).  The old
 ``lattice_links(..., return_report=True)`` still returns ``(links, report)`` with a DeprecationWarning.
 
-Boundaries (issue 14): 'periodic' wraps the field's own links (the jump of A across the faces is
-measured for every periodic start, :func:`boundary_mismatch`, and a :class:`BoundaryActionWarning`
-names the remedies when it exceeds BOUNDARY_WARN_FRACTION = 1 % of 8 pi^2); 'window' puts the field
-times a smooth window on the torus (:mod:`instantonkit.periodic`: no mismatch, the same sector, a
-small action excess); 'open' uses exact links everywhere.  :func:`continuum_reference` gives the
+Boundaries, one for all directions or one per direction (:mod:`instantonkit.boundaries`): 'periodic'
+wraps the field's own links (the jump of A across the faces is measured per direction for every
+wrapped direction, :func:`boundary_mismatch`, and a :class:`BoundaryActionWarning` names the
+directions and the remedies when the action exceeds BOUNDARY_WARN_FRACTION = 1 % of 8 pi^2); 'window'
+puts the field times a smooth window on the torus in that direction (:mod:`instantonkit.periodic`: no
+mismatch, the same sector, a small action excess; never across a field's period); 'open' uses exact
+links.  :func:`continuum_reference` gives the
 matched continuum figures (the action of the field put on the lattice, in the same box, and the
 expected Wilson action with the artefact :func:`wilson_artefact`).
 
@@ -52,13 +54,15 @@ from __future__ import annotations
 import dataclasses
 import time
 import warnings
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from typing import Protocol
 
 import numpy as np
 
 from . import _validate as _v
+from . import boundaries as _bd
 from . import observables as _obs
+from .boundaries import BOUNDARY_WARN_FRACTION, START_BOUNDARIES, BoundaryActionWarning, warn_boundary
 from .fields import as_field, hook, output_shape
 from .observables import (  # noqa: F401  (re-exported: the lattice namespace offers the observables of its starts)
     BOUNDARIES,
@@ -116,16 +120,7 @@ __all__ = [
 _GROUPS = ("su2", "su3", None)
 _METHODS = ("auto", "closed", "magnus")
 _BACKENDS = ("local", "dask")
-#: Boundaries of a start: 'periodic' (the field's links wrapped as they are), 'window' (the field
-#: windowed onto the torus, :mod:`instantonkit.periodic`; periodic links) and 'open'.
-START_BOUNDARIES = ("periodic", "window", "open")
-#: Boundary action (as a fraction of 8 pi^2) above which a periodic start raises BoundaryActionWarning.
-BOUNDARY_WARN_FRACTION = 0.01
 _EIGHT_PI2 = 8.0 * np.pi**2
-
-
-class BoundaryActionWarning(UserWarning):
-    """A periodic start whose wrapped links carry more boundary action than BOUNDARY_WARN_FRACTION of 8 pi^2."""
 
 
 @dataclasses.dataclass(frozen=True)
@@ -135,12 +130,14 @@ class LinkReport:
     method: 'closed' or 'magnus'; max_steps: largest number of Magnus steps on one link (0 for the
     closed form); refinement_diff: largest accepted error estimate of the Magnus refinements;
     unitarity_before / unitarity_after: :func:`unitarity_deviation` before and after the final
-    projection; boundary_link_mismatch / boundary_action_error: see :func:`boundary_mismatch`
-    (None for open boundaries); seconds: wall time; boundary_action_fraction: boundary_action_error
-    / 8 pi^2 (None for open boundaries; above BOUNDARY_WARN_FRACTION a BoundaryActionWarning is
-    raised); window: the layer width of boundary='window' (fraction of the half-box), else None;
-    field: the field's ``record()`` (JSON-ready, rebuilt by :func:`field_from_record`; None when the
-    field has no record hook); potential_evaluations: of the Magnus links in all (0 for closed forms).
+    projection; boundary: as given (a string or four); boundary_link_mismatch / boundary_action_error:
+    see :func:`boundary_mismatch`, the max and sum of the ``*_by_direction`` figures of each
+    direction's faces (None for an open direction, and None when all are open); seconds: wall time;
+    boundary_action_fraction: boundary_action_error / 8 pi^2 (above BOUNDARY_WARN_FRACTION a
+    BoundaryActionWarning is raised); window: the layer width of the windowed directions (fraction of
+    the half-box), else None; field: the field's ``record()`` (rebuilt by :func:`field_from_record`;
+    None without a record hook); potential_evaluations: of the Magnus links in all (0 for closed
+    forms); boundaries: the four boundaries as applied (:mod:`instantonkit.boundaries`).
     """
 
     shape: tuple
@@ -148,7 +145,7 @@ class LinkReport:
     origin: tuple
     group: str | None
     embedding: tuple
-    boundary: str
+    boundary: str | tuple
     rtol: float
     method: str
     max_steps: int
@@ -162,6 +159,9 @@ class LinkReport:
     window: float | None = None
     field: dict | None = None
     potential_evaluations: int = 0
+    boundaries: tuple | None = None
+    boundary_link_mismatch_by_direction: tuple | None = None
+    boundary_action_error_by_direction: tuple | None = None
 
     def as_metadata(self) -> dict:
         """A JSON-ready dict of the generation parameters and quality figures."""
@@ -169,8 +169,16 @@ class LinkReport:
 
 
 def _record_of(field):
+    """The field's ``record()``, or an 'unrecordable' record naming its type (so a file says what it held)."""
     rec = hook(field, "record")
-    return None if rec is None else rec()
+    if rec is not None:
+        return rec()
+    kind = type(field).__name__
+    return {
+        "kind": "unrecordable",
+        "type": kind,
+        "reason": "it offers no record() hook (a bare callable, a ParametrisedField or a field class of your own); rebuild it by hand, or save with description=",
+    }
 
 
 @dataclasses.dataclass(frozen=True)
@@ -181,8 +189,9 @@ class StartSpec:
     :meth:`make`, computes boxes with :meth:`block` and assembles the report with :meth:`report`.
 
     field: a field object; shape: (L1, L2, L3, L4); spacing: a; origin: (4,) float64 (site 0);
-    group / embedding / boundary / rtol / method: as in :func:`lattice_links`; n_field: N of the
-    field; n_out: N of the links (3 for 'su3').  Build it with :meth:`make`, which raises
+    group / embedding / boundary / rtol / method: as in :func:`lattice_links` (boundary as given,
+    lists made tuples); n_field: N of the field; n_out: N of the links (3 for 'su3'); window: the layer
+    width when a direction is windowed; boundaries: the boundary of each direction as applied.  Build it with :meth:`make`, which raises
     ValueError/TypeError naming the bad argument and the value found.
     """
 
@@ -192,12 +201,13 @@ class StartSpec:
     origin: np.ndarray
     group: str | None
     embedding: tuple
-    boundary: str
+    boundary: str | tuple
     rtol: float
     method: str
     n_field: int
     n_out: int
     window: float | None = None
+    boundaries: tuple = ("periodic",) * 4
 
     @classmethod
     def make(
@@ -219,7 +229,7 @@ class StartSpec:
         a = _v.positive_float("spacing", spacing)
         if group not in _GROUPS:
             raise ValueError(f"group must be one of {_GROUPS}; found {group!r}")
-        _v.choice("boundary", boundary, START_BOUNDARIES)
+        boundary = _bd.canonical("boundary", boundary, START_BOUNDARIES)
         _v.choice("method", method, _METHODS)
         rtol = _v.positive_float("rtol", rtol)
         n_field = output_shape(field, "potential")[0][-1]  # memoised per field structure
@@ -240,11 +250,15 @@ class StartSpec:
             raise ValueError(f"embedding must be two distinct indices in 0..2; found {embedding!r}")
         n_out = 3 if group == "su3" else n_field
         org = resolve_origin(field, shape, a, origin)
+        period = hook(field, "period")
+        dirs = _bd.resolve_start(boundary, None if period is None else float(period), shape, a)
         width = None
-        if boundary == "window":
+        if "window" in dirs:
             width = _v.positive_float("window", window)
-            field = window_field(field, shape, a, org, width=width)
-        return cls(field, shape, a, org, group, emb, boundary, float(rtol), method, int(n_field), int(n_out), width)
+            field = window_field(field, shape, a, org, width=width, directions=tuple(d == "window" for d in dirs))
+        return cls(
+            field, shape, a, org, group, emb, boundary, float(rtol), method, int(n_field), int(n_out), width, dirs
+        )
 
     @property
     def links_shape(self) -> tuple:
@@ -268,8 +282,10 @@ class StartSpec:
         )
 
     def boundary_figures(self, links):
-        """(link_mismatch, action_error) of :func:`boundary_mismatch` for periodic starts, (None, None) for open ones."""
-        if self.boundary == "open":
+        """Per-direction (link_mismatch, action_error) of :func:`boundary_mismatch`: two 4-tuples, None
+        for an open direction; (None, None) when every direction is open."""
+        wrapped = tuple(d != "open" for d in self.boundaries)
+        if not any(wrapped):
             return None, None
         bm = boundary_mismatch(
             self.field,
@@ -280,11 +296,14 @@ class StartSpec:
             embedding=self.embedding,
             rtol=self.rtol,
             method=self.method,
+            directions=wrapped,
         )
-        return bm["link_mismatch"], bm["action_error"]
+        return bm["link_mismatch_by_direction"], bm["action_error_by_direction"]
 
     def report(self, stats: LinkStats, seconds: float, mismatch=None, action_err=None) -> LinkReport:
-        """The :class:`LinkReport` of a finished start from its combined :class:`LinkStats`."""
+        """The :class:`LinkReport` of a finished start from its combined :class:`LinkStats` and the
+        per-direction figures of :meth:`boundary_figures` (the scalars are their max and sum)."""
+        mis, err = _bd.combine(mismatch, action_err)
         return LinkReport(
             shape=self.shape,
             spacing=self.spacing,
@@ -298,30 +317,17 @@ class StartSpec:
             refinement_diff=float(stats.refinement_diff),
             unitarity_before=float(stats.unitarity_before),
             unitarity_after=float(stats.unitarity_after),
-            boundary_link_mismatch=mismatch,
-            boundary_action_error=action_err,
+            boundary_link_mismatch=mis,
+            boundary_action_error=err,
             seconds=float(seconds),
-            boundary_action_fraction=None if action_err is None else float(action_err) / _EIGHT_PI2,
+            boundary_action_fraction=None if err is None else float(err) / _EIGHT_PI2,
             window=self.window,
             field=_record_of(self.field),
             potential_evaluations=int(stats.evaluations),
+            boundaries=self.boundaries,
+            boundary_link_mismatch_by_direction=None if mismatch is None else tuple(mismatch),
+            boundary_action_error_by_direction=None if action_err is None else tuple(action_err),
         )
-
-
-def warn_boundary(report: LinkReport, stacklevel: int = 3) -> None:
-    """Raise :class:`BoundaryActionWarning` when a periodic start's boundary action exceeds BOUNDARY_WARN_FRACTION of 8 pi^2."""
-    frac = report.boundary_action_fraction
-    if frac is None or abs(frac) <= BOUNDARY_WARN_FRACTION:
-        return
-    warnings.warn(
-        f"the wrapped links of this periodic start carry a boundary action of {frac:.3g} x 8 pi^2 "
-        f"(more than {BOUNDARY_WARN_FRACTION:g}; link mismatch {report.boundary_link_mismatch:.3g}): the field does not fit "
-        "the torus. Remedies: boundary='window' (the field windowed smoothly onto the torus, same sector, "
-        "small computed action excess, see instantonkit.periodic), a larger box, a field in singular gauge "
-        "(regular-gauge fields do not decay), or boundary='open'; compare with lattice.continuum_reference",
-        BoundaryActionWarning,
-        stacklevel=stacklevel,
-    )
 
 
 def block_links(field, lo, hi, origin, spacing, *, n_field, group, embedding, method, rtol, batch):
@@ -410,7 +416,11 @@ _START_DOC_ARGS = """
         middle of the central hypercube, so no link touches it).
       group: 'su2' (N = 2), 'su3' (an SU(3) field's own links, e.g. rank-3 UnitaryADHMData; or SU(2)
         links embedded in the ``embedding`` = (i, j) rows and columns of 3 x 3 identities) or None (the field's N).
-      boundary: 'periodic' (the link from the last site points to site 0; use a field that decays
+      boundary: one choice for all directions, or a sequence of four in (x1, x2, x3, x4) order, e.g.
+        ``("window", "window", "window", "periodic")`` (:mod:`instantonkit.boundaries`). A field with a
+        period in x4 (``period`` hook) is never windowed across it: the single string 'window' keeps x4
+        periodic, an explicit 'window' for x4 is a ValueError, and a periodic x4 needs L4 * a = period
+        (ValueError naming both otherwise).  The choices: 'periodic' (the link from the last site points to site 0; use a field that decays
         fast, e.g. singular gauge; the mismatch is always measured, see :func:`boundary_mismatch`, and
         a :class:`BoundaryActionWarning` is raised when the boundary action exceeds
         BOUNDARY_WARN_FRACTION = 1 % of 8 pi^2), 'window' (the field times a smooth window that takes
@@ -435,7 +445,7 @@ def lattice_start(
     origin=None,
     group: str | None = "su2",
     embedding=(0, 1),
-    boundary: str = "periodic",
+    boundary: str | Sequence[str] = "periodic",
     rtol: float = 1e-12,
     method: str = "auto",
     out=None,
@@ -503,7 +513,7 @@ def lattice_links(
     origin=None,
     group: str | None = "su2",
     embedding=(0, 1),
-    boundary: str = "periodic",
+    boundary: str | Sequence[str] = "periodic",
     rtol: float = 1e-12,
     method: str = "auto",
     out=None,
@@ -601,7 +611,7 @@ if lattice_links.__doc__:
 
 
 def boundary_mismatch(
-    field, links, spacing, *, origin=None, group="su2", embedding=(0, 1), rtol=1e-12, method="auto"
+    field, links, spacing, *, origin=None, group="su2", embedding=(0, 1), rtol=1e-12, method="auto", directions=None
 ) -> dict:
     """How far a periodic lattice start is from the continuum field across the boundary.
 
@@ -610,7 +620,10 @@ def boundary_mismatch(
     'link_mismatch': max |U_nu(x at n_mu = L) - U_nu(x at n_mu = 0)| over the faces (nu != mu),
     'action_error': sum over the plaquettes crossing one face (n_mu = L - 1, n_nu <= L_nu - 2) of the
     Wilson action (beta = 2N) with the wrapped link minus that with the exact link, and
-    'boundary_action': the wrapped plaquettes' Wilson action itself.
+    'boundary_action': the wrapped plaquettes' Wilson action itself; and the same per direction mu
+    (4-tuples, None for a direction not measured): 'link_mismatch_by_direction',
+    'action_error_by_direction', 'boundary_action_by_direction'.
+    directions: four booleans, the wrapped directions to measure (default all).
     links: (L1, L2, L3, L4, 4, N, N) from :func:`lattice_links` with the same parameters (any array
     with numpy slicing: numpy, memmap, Zarr; only the faces are read).
     """
@@ -620,11 +633,12 @@ def boundary_mismatch(
     n = links.shape[-1]
     a = _v.positive_float("spacing", spacing)
     org = default_origin(field, shape, a) if origin is None else np.asarray(origin, dtype=np.float64)
-    beta = 2.0 * n
-    link_mis, err, wrapped_total = 0.0, 0.0, 0.0
+    figs: list = [(None, None, None)] * 4  # (mismatch, action error, wrapped action) per direction
     for mu in range(4):
         lm = shape[mu]
-        if lm < 2:
+        if directions is None or directions[mu]:
+            figs[mu] = (0.0, 0.0, 0.0)
+        if lm < 2 or figs[mu][0] is None:
             continue
         # the face one period beyond: sites with n_mu = L_mu, all other indices free
         idx = [np.arange(s) for s in shape]
@@ -640,27 +654,11 @@ def boundary_mismatch(
         face_shape = list(shape)
         face_shape[mu] = 1
         exact = u.reshape(tuple(face_shape) + (3, n, n))
-        wrap = np.asarray(links[(slice(None),) * mu + (slice(0, 1),)])[..., others, :, :]
-        link_mis = max(link_mis, float(np.max(np.abs(exact - wrap))))
-        last = np.asarray(links[(slice(None),) * mu + (slice(lm - 1, lm),)])  # sites n_mu = L - 1
-        for j, nu in enumerate(others):
-            ln = shape[nu]
-            if ln < 2:
-                continue
-            sl = [slice(None)] * 4
-            sl[nu] = slice(0, ln - 1)
-            sl_up = [slice(None)] * 4
-            sl_up[nu] = slice(1, ln)
-            u_mu = last[tuple(sl)][..., mu, :, :]
-            u_mu_up = last[tuple(sl_up)][..., mu, :, :]
-            u_nu = last[tuple(sl)][..., nu, :, :]
-            left = np.conj(np.swapaxes(u_nu @ u_mu_up, -1, -2))
-            for label, u_far in (("wrap", wrap[tuple(sl)][..., j, :, :]), ("exact", exact[tuple(sl)][..., j, :, :])):
-                tr = np.real(np.einsum("...ij,...ji->...", u_mu @ u_far, left))
-                s = beta * float(np.sum(1.0 - tr / n))
-                if label == "wrap":
-                    wrapped_total += s
-                    err += s
-                else:
-                    err -= s
-    return {"link_mismatch": link_mis, "action_error": err, "boundary_action": wrapped_total}
+        figs[mu] = _bd.face_figures(links, exact, mu)
+    mis_mu, err_mu, tot_mu = zip(*figs)
+    link_mis, err = _bd.combine(mis_mu, err_mu)
+    total = float(sum(v for v in tot_mu if v is not None))
+    figures = {"link_mismatch": link_mis or 0.0, "action_error": err or 0.0, "boundary_action": total}
+    figures.update(link_mismatch_by_direction=mis_mu, action_error_by_direction=err_mu)
+    figures["boundary_action_by_direction"] = tot_mu
+    return figures

@@ -4,10 +4,12 @@ and charge, and lattice gauge transformations.
 Links (conventions module, see :mod:`instantonkit.lattice`): ``U_mu(n)`` joins site n to n + mu_hat,
 arrays ``(L1, L2, L3, L4, 4, N, N)``; a gauge transformation acts as
 ``U_mu(n) -> g(n) U_mu(n) g(n + mu_hat)^-1``.  Observables wrap around periodically, or with
-``boundary="open"`` use only the plaquettes (clovers) whose links all join lattice sites.  Every
-observable first checks all links (:func:`instantonkit._links.check_links`: finite, special unitary
-within 1e-8), so the open-boundary masks (NaN outside, then a NaN-skipping sum) exclude only what lies
-outside, never damaged input.  Work is done
+``boundary="open"`` use only the plaquettes (clovers) whose links all join lattice sites; ``boundary=``
+is one choice for all directions or four in (x1, x2, x3, x4) order (:mod:`instantonkit.boundaries`),
+e.g. ``("open", "open", "open", "periodic")``, and then masks only what crosses an open direction's edge.
+Every observable first checks all links (:func:`instantonkit._links.check_links`: finite, special
+unitary within 1e-8), so the open-boundary masks (NaN outside, then a NaN-skipping sum) exclude only
+what lies outside, never damaged input.  Work is done
 in time slabs of about ``SLAB_BYTES`` so memory stays bounded on large lattices (numpy arrays and
 memmaps alike).
 """
@@ -15,11 +17,13 @@ memmaps alike).
 from __future__ import annotations
 
 import warnings
+from collections.abc import Sequence
 
 import jax.numpy as jnp
 import numpy as np
 
 from . import _validate as _v
+from . import boundaries as _bd
 from ._links import check_links as _check_links
 from .conventions import CHARGE_DENSITY_FACTOR
 
@@ -40,8 +44,8 @@ __all__ = [
 #: The six lattice planes (mu, nu), mu < nu, zero-based; the order of the plane axis of :func:`plaquettes`.
 PLANES = ((0, 1), (0, 2), (0, 3), (1, 2), (1, 3), (2, 3))
 
-#: The boundary conditions of link arrays: wrap around, or use only what lies inside.
-BOUNDARIES = ("periodic", "open")
+#: The boundary conditions of link arrays: wrap around, or use only what lies inside (per direction too).
+BOUNDARIES = _bd.OBSERVABLE_BOUNDARIES
 #: Bytes of link data handled at once by the observables (time slabs).
 SLAB_BYTES = 1 << 26
 
@@ -75,14 +79,14 @@ def random_gauge(shape, n: int = 2, *, seed=0) -> np.ndarray:
     return q * (det ** (-1.0 / n))[..., None, None]
 
 
-def gauge_transform_links(links, g, *, boundary: str = "periodic") -> np.ndarray:
+def gauge_transform_links(links, g, *, boundary: str | Sequence[str] = "periodic") -> np.ndarray:
     """Gauge transformation of a link array: U_mu(n) -> g(n) U_mu(n) g(n + mu)^dag (conventions module).
 
     Args:
       links: (L1, L2, L3, L4, 4, N, N) complex link array.
       g: (L1, L2, L3, L4, N, N) unitary matrices, one per site (e.g. :func:`random_gauge`).
       boundary: 'periodic' (n + mu wraps) or 'open' (the outward links of the last sites are only
-        left multiplied).
+        left multiplied), or four of them in (x1, x2, x3, x4) order.
     Returns:
       (L1, L2, L3, L4, 4, N, N) complex128, the transformed links.
     Raises:
@@ -96,9 +100,10 @@ def gauge_transform_links(links, g, *, boundary: str = "periodic") -> np.ndarray
     if g.shape != u.shape[:4] + u.shape[-2:]:
         raise ValueError(f"g must have shape {u.shape[:4] + u.shape[-2:]}; found {g.shape}")
     out = np.empty_like(u)
+    opened = _open_directions(boundary)
     for mu in range(4):
         g_up = np.roll(g, -1, axis=mu)
-        if boundary == "open":
+        if opened[mu]:
             sl: list[slice | int] = [slice(None)] * 4
             sl[mu] = -1
             g_up = g_up.copy()
@@ -107,7 +112,7 @@ def gauge_transform_links(links, g, *, boundary: str = "periodic") -> np.ndarray
     return out
 
 
-def gauge_transform(links, g, *, boundary: str = "periodic") -> np.ndarray:
+def gauge_transform(links, g, *, boundary: str | Sequence[str] = "periodic") -> np.ndarray:
     """Deprecated name of :func:`gauge_transform_links` (the public ``ik.gauge_transform`` is the continuum one)."""
     warnings.warn(
         "observables.gauge_transform / lattice.gauge_transform is deprecated; use gauge_transform_links "
@@ -122,7 +127,12 @@ def gauge_transform(links, g, *, boundary: str = "periodic") -> np.ndarray:
 
 
 def _check_boundary(boundary):
-    _v.choice("boundary", boundary, BOUNDARIES)
+    _bd.per_direction("boundary", boundary, BOUNDARIES)
+
+
+def _open_directions(boundary) -> tuple:
+    """Four booleans: which directions (x1, x2, x3, x4) of ``boundary`` are open."""
+    return tuple(b == "open" for b in _bd.per_direction("boundary", boundary, BOUNDARIES))
 
 
 def _slabs(u, margin: int):
@@ -187,29 +197,33 @@ def _slab_plaquettes(ext):
     return np.moveaxis(p, (0, 1, 2), (-2, -1, -3))
 
 
-def _open_mask(shape, t0, t1, planes_need, lo: int):
+def _open_mask(shape, t0, t1, planes_need, lo: int, boundary="open"):
     """Validity of per-site plane quantities for open boundaries: (L1, L2, L3, t1 - t0) bool per plane.
 
-    A plane (mu, nu) quantity at n is valid when lo <= n_mu, n_nu <= L - 2 (lo = 0 plaquettes, 1 clovers).
+    A plane (mu, nu) quantity at n is valid when lo <= n_d <= L_d - 2 for each open d of mu, nu
+    (lo = 0 plaquettes, 1 clovers); a periodic direction never masks.
     """
+    opened = _open_directions(boundary)
     idx = np.meshgrid(*[np.arange(s) for s in shape[:3]], np.arange(t0, t1), indexing="ij")
     masks = []
     for mu, nu in planes_need:
         ok = np.ones(idx[0].shape, dtype=bool)
         for d in (mu, nu):
+            if not opened[d]:
+                continue
             ok &= (idx[d] >= lo) & (idx[d] <= shape[d] - 2)
         masks.append(ok)
     return masks
 
 
-def plaquette_traces(links, *, boundary: str = "periodic") -> np.ndarray:
+def plaquette_traces(links, *, boundary: str | Sequence[str] = "periodic") -> np.ndarray:
     """Re tr U_p / N for every site and plane; (L1, L2, L3, L4, 6) float64 (plane order :data:`PLANES`).
 
     Open boundaries: NaN for plaquettes that leave the lattice (n_mu or n_nu = L - 1).
 
     Args:
       links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
-      boundary: 'periodic' or 'open'.
+      boundary: 'periodic' or 'open', or four of them in (x1, x2, x3, x4) order (open ones mask their edges).
     Returns:
       (L1, L2, L3, L4, 6) float64, Re tr U_p / N per site and plane.
     Raises:
@@ -228,13 +242,13 @@ def _traces(u, boundary):
     out = np.empty(u.shape[:4] + (6,))
     for t0, t1, ext in _slabs(u, 1):
         out[:, :, :, t0:t1] = np.asarray(_slab_retraces(ext)) / n
-        if boundary == "open":
-            for p, ok in enumerate(_open_mask(u.shape, t0, t1, PLANES, 0)):
+        if any(_open_directions(boundary)):
+            for p, ok in enumerate(_open_mask(u.shape, t0, t1, PLANES, 0, boundary)):
                 out[:, :, :, t0:t1, p][~ok] = np.nan
     return out
 
 
-def plaquettes(links, *, boundary: str = "periodic") -> np.ndarray:
+def plaquettes(links, *, boundary: str | Sequence[str] = "periodic") -> np.ndarray:
     """Plaquette matrices U_mu(n) U_nu(n+mu) U_mu(n+nu)^dag U_nu(n)^dag; (L1, L2, L3, L4, 6, N, N).
 
     Plane order :data:`PLANES`; ``plaquette = exp(a^2 F_mu nu + O(a^3))`` (conventions module).
@@ -242,7 +256,7 @@ def plaquettes(links, *, boundary: str = "periodic") -> np.ndarray:
 
     Args:
       links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
-      boundary: 'periodic' or 'open'.
+      boundary: 'periodic' or 'open', or four of them in (x1, x2, x3, x4) order (open ones mask their edges).
     Returns:
       (L1, L2, L3, L4, 6, N, N) complex128 plaquette matrices.
     Raises:
@@ -255,18 +269,18 @@ def plaquettes(links, *, boundary: str = "periodic") -> np.ndarray:
     out = np.empty(u.shape[:4] + (6,) + u.shape[-2:], dtype=np.complex128)
     for t0, t1, ext in _slabs(u, 1):
         out[:, :, :, t0:t1] = np.asarray(_slab_plaquettes(ext))
-        if boundary == "open":
-            for p, ok in enumerate(_open_mask(u.shape, t0, t1, PLANES, 0)):
+        if any(_open_directions(boundary)):
+            for p, ok in enumerate(_open_mask(u.shape, t0, t1, PLANES, 0, boundary)):
                 out[:, :, :, t0:t1, p][~ok] = np.nan
     return out
 
 
-def average_plaquette(links, *, boundary: str = "periodic") -> float:
+def average_plaquette(links, *, boundary: str | Sequence[str] = "periodic") -> float:
     """Mean of Re tr U_p / N over all (for open boundaries: all inside) plaquettes.
 
     Args:
       links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
-      boundary: 'periodic' or 'open'.
+      boundary: 'periodic' or 'open', or four of them in (x1, x2, x3, x4) order (open ones mask their edges).
     Returns:
       float, the mean of Re tr U_p / N.
     Raises:
@@ -277,7 +291,7 @@ def average_plaquette(links, *, boundary: str = "periodic") -> float:
     return float(np.nanmean(plaquette_traces(links, boundary=boundary)))
 
 
-def wilson_action(links, beta: float | None = None, *, boundary: str = "periodic") -> float:
+def wilson_action(links, beta: float | None = None, *, boundary: str | Sequence[str] = "periodic") -> float:
     """Wilson action S_W = beta sum_p (1 - Re tr U_p / N), beta = 2N by default (g = 1), so that
     S_W -> integral of s for smooth fields (Wilson, Phys. Rev. D 10 (1974) 2445).
 
@@ -287,7 +301,7 @@ def wilson_action(links, beta: float | None = None, *, boundary: str = "periodic
     Args:
       links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
       beta: coupling (default 2N).
-      boundary: 'periodic' or 'open'.
+      boundary: 'periodic' or 'open', or four of them in (x1, x2, x3, x4) order (open ones mask their edges).
     Returns:
       float, S_W.
     Raises:
@@ -343,7 +357,7 @@ def _slab_charge(ext):
     return 8.0 * CHARGE_DENSITY_FACTOR * (trf(0, 5) - trf(1, 4) + trf(2, 3))
 
 
-def clover_field_strength(links, *, spacing: float = 1.0, boundary: str = "periodic") -> np.ndarray:
+def clover_field_strength(links, *, spacing: float = 1.0, boundary: str | Sequence[str] = "periodic") -> np.ndarray:
     """Clover field strength at the sites, F_mu nu / spacing^2; (L1, L2, L3, L4, 4, 4, N, N) complex128.
 
     Antisymmetric in (mu, nu), anti-Hermitian and traceless; open boundaries: NaN where a clover
@@ -352,7 +366,7 @@ def clover_field_strength(links, *, spacing: float = 1.0, boundary: str = "perio
     Args:
       links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
       spacing: lattice spacing a > 0 (results in physical units).
-      boundary: 'periodic' or 'open'.
+      boundary: 'periodic' or 'open', or four of them in (x1, x2, x3, x4) order (open ones mask their edges).
     Returns:
       (L1, L2, L3, L4, 4, 4, N, N) complex128, F_mu nu / a^2.
     Raises:
@@ -367,7 +381,7 @@ def clover_field_strength(links, *, spacing: float = 1.0, boundary: str = "perio
     out = np.zeros(u.shape[:4] + (4, 4, n, n), dtype=np.complex128)
     for t0, t1, ext in _slabs(u, 1):
         fs = np.asarray(_slab_clover(ext))
-        masks = _open_mask(u.shape, t0, t1, PLANES, 1) if boundary == "open" else None
+        masks = _open_mask(u.shape, t0, t1, PLANES, 1, boundary) if any(_open_directions(boundary)) else None
         for p, (mu, nu) in enumerate(PLANES):
             f = fs[:, :, :, :, p] / a**2
             if masks is not None:
@@ -377,7 +391,7 @@ def clover_field_strength(links, *, spacing: float = 1.0, boundary: str = "perio
     return out
 
 
-def clover_charge_density(links, *, spacing: float = 1.0, boundary: str = "periodic") -> np.ndarray:
+def clover_charge_density(links, *, spacing: float = 1.0, boundary: str | Sequence[str] = "periodic") -> np.ndarray:
     """Clover charge density q(n) = -1/(32 pi^2) eps tr F F per site, divided by spacing^4; (L1, L2, L3, L4).
 
     eps_{mu nu rho sigma} tr F_mu nu F_rho sigma = 8 (tr F12 F34 - tr F13 F24 + tr F14 F23)
@@ -387,7 +401,7 @@ def clover_charge_density(links, *, spacing: float = 1.0, boundary: str = "perio
     Args:
       links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
       spacing: lattice spacing a > 0 (results in physical units).
-      boundary: 'periodic' or 'open'.
+      boundary: 'periodic' or 'open', or four of them in (x1, x2, x3, x4) order (open ones mask their edges).
     Returns:
       (L1, L2, L3, L4) float64, q(n) / a^4.
     Raises:
@@ -401,19 +415,19 @@ def clover_charge_density(links, *, spacing: float = 1.0, boundary: str = "perio
     out = np.empty(u.shape[:4])
     for t0, t1, ext in _slabs(u, 1):
         q = np.asarray(_slab_charge(ext))
-        if boundary == "open":
-            ok = np.logical_and.reduce(_open_mask(u.shape, t0, t1, PLANES, 1))
+        if any(_open_directions(boundary)):
+            ok = np.logical_and.reduce(_open_mask(u.shape, t0, t1, PLANES, 1, boundary))
             q = np.where(ok, q, np.nan)
         out[:, :, :, t0:t1] = q / a**4
     return out
 
 
-def clover_charge(links, *, boundary: str = "periodic") -> float:
+def clover_charge(links, *, boundary: str | Sequence[str] = "periodic") -> float:
     """Total clover charge Q = sum_n a^4 q(n) (open boundaries: over the sites whose clovers fit inside).
 
     Args:
       links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
-      boundary: 'periodic' or 'open'.
+      boundary: 'periodic' or 'open', or four of them in (x1, x2, x3, x4) order (open ones mask their edges).
     Returns:
       float, Q.
     Raises:

@@ -70,19 +70,37 @@ class TorusWindow(PytreeFields):
     """The field ``field`` windowed onto the torus ``[lo, lo + box)``: A_w = w A (module docstring).
 
     field: a field (decaying, e.g. singular gauge); lo: (4,) the lower faces; box: (4,) the periods
-    P_i > 0; width: (4,) layer widths delta_i, 0 < delta_i <= P_i / 2.  Closed-form field strength
-    (and densities) when the wrapped field has ``field_strength``; hint, layout and charge forwarded.
+    P_i > 0; width: (4,) layer widths delta_i, 0 < delta_i <= P_i / 2; directions: four booleans, the
+    directions (x1, x2, x3, x4) that are windowed and wrapped (default all; a direction left out keeps
+    A as it is there, e.g. the period of a caloron in x4, and its factor of w is 1).  Closed-form field
+    strength (and densities) when the wrapped field has ``field_strength``; hint, layout and charge forwarded.
     """
 
     field: object
     lo: Array
     box: Array
     width: Array
+    directions: tuple = (True, True, True, True)
 
     _leaves = ("field", "lo", "box", "width")
+    _static = ("directions",)
 
     def __post_init__(self):
         object.__setattr__(self, "field", as_field(self.field))
+        dirs = self.directions
+        if (
+            not isinstance(dirs, (tuple, list))
+            or len(dirs) != 4
+            or not all(isinstance(d, (bool, np.bool_)) for d in dirs)
+        ):
+            raise TypeError(f"directions must be four booleans (x1, x2, x3, x4); found {dirs!r:.80}")
+        object.__setattr__(self, "directions", tuple(bool(d) for d in dirs))
+        period = hook(self.field, "period")
+        if period is not None and self.directions[3]:
+            raise ValueError(
+                f"the field is periodic in x4 with period {float(period)!r}; a window across its period would cut "
+                "it: window x1, x2, x3 only (directions=(True, True, True, False))"
+            )
         if _v.is_tracer(self.lo) or _v.is_tracer(self.box) or _v.is_tracer(self.width):
             return
         lo = np.asarray(self.lo, dtype=np.float64).reshape(-1)
@@ -107,13 +125,14 @@ class TorusWindow(PytreeFields):
     def wrap(self, x):
         """x~ = lo + ((x - lo) mod P), the point of the fundamental box; (4,) -> (4,)."""
         lo, box = jnp.asarray(self.lo), jnp.asarray(self.box)
-        return lo + jnp.mod(jnp.asarray(x, dtype=jnp.float64) - lo, box)
+        x = jnp.asarray(x, dtype=jnp.float64)
+        return jnp.where(np.asarray(self.directions), lo + jnp.mod(x - lo, box), x)
 
     def window(self, y):
-        """w(y) = prod_i s(u_i / delta_i) at a point y of the box; (4,) -> ()."""
+        """w(y) = prod_i s(u_i / delta_i) over the windowed directions i at a point y of the box; (4,) -> ()."""
         lo, box, width = jnp.asarray(self.lo), jnp.asarray(self.box), jnp.asarray(self.width)
         u = jnp.minimum(y - lo, lo + box - y)
-        return jnp.prod(smooth_step(u / width))
+        return jnp.prod(jnp.where(np.asarray(self.directions), smooth_step(u / width), 1.0))
 
     def potential(self, x):
         """A_w(x) = w(x~) A(x~) at one point (4,) -> (4, N, N)."""
@@ -185,6 +204,14 @@ class TorusWindow(PytreeFields):
         return c
 
     @property
+    def period(self):
+        """The wrapped field's period in x4 (x4 is never windowed for a field with a period)."""
+        p = hook(self.field, "period")
+        if p is None:
+            raise AttributeError("the wrapped field has no period")
+        return p
+
+    @property
     def record(self):
         """Field hook: the wrapped field's record with the window added (``window``: lo, box, width)."""
         rec = hook(self.field, "record")
@@ -198,22 +225,28 @@ class TorusWindow(PytreeFields):
                 "box": [float(v) for v in self.box],
                 "width": [float(v) for v in self.width],
             }
+            if not all(self.directions):
+                out["window"]["directions"] = list(self.directions)
             return out
 
         return record
 
     def describe(self) -> str:
         inner = self.field.describe() if hasattr(self.field, "describe") else type(self.field).__name__
-        return f"{inner}, windowed onto the torus of periods {[float(v) for v in self.box]} (layer {[float(v) for v in self.width]})"
+        only = "" if all(self.directions) else f" in {[f'x{i + 1}' for i, d in enumerate(self.directions) if d]} only"
+        return f"{inner}, windowed onto the torus of periods {[float(v) for v in self.box]} (layer {[float(v) for v in self.width]}){only}"
 
 
-def window_field(field, shape, spacing, origin, *, width: float = DEFAULT_WINDOW_WIDTH) -> TorusWindow:
+def window_field(
+    field, shape, spacing, origin, *, width: float = DEFAULT_WINDOW_WIDTH, directions=(True,) * 4
+) -> TorusWindow:
     """The field windowed onto the periodic box of a lattice: faces half a spacing before site 0 and after site L - 1.
 
     Args:
       field: a decaying field (singular gauge), see the module docstring.
       shape: (L1, L2, L3, L4); spacing: a > 0; origin: (4,) position of site 0.
       width: layer width as a fraction of each half-box, 0 < width <= 1 (default 0.5).
+      directions: four booleans, the windowed directions (default all; see :class:`TorusWindow`).
     Returns:
       TorusWindow with lo = origin - a/2, box = a L, width_i = width * a L_i / 2.
     Raises:
@@ -228,7 +261,7 @@ def window_field(field, shape, spacing, origin, *, width: float = DEFAULT_WINDOW
     if org.shape != (4,) or not np.all(np.isfinite(org)):
         raise ValueError(f"origin must be a finite point of shape (4,); found {np.asarray(origin).tolist()!r}")
     box = a * np.asarray(shape, dtype=np.float64)
-    return TorusWindow(field, org - a / 2.0, box, frac * box / 2.0)
+    return TorusWindow(field, org - a / 2.0, box, frac * box / 2.0, tuple(directions))
 
 
 # -- lattice geometry -----------------------------------------------------------------------------------

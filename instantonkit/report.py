@@ -8,6 +8,8 @@ quadrature rule in words.  :mod:`instantonkit.checks` fills the report in.
 from __future__ import annotations
 
 import dataclasses
+import math
+import numbers
 import re
 
 from .integrals import IntegralResult
@@ -21,6 +23,8 @@ __all__ = [
     "INCONCLUSIVE",
     "format_report",
     "signed_offset",
+    "expected_integer",
+    "orientation_mistake",
     "rule_in_words",
 ]
 
@@ -124,6 +128,35 @@ class Verification:
 
     def __str__(self) -> str:
         return format_report(self)
+
+
+def expected_integer(value) -> int | None:
+    """``expected_charge`` as an int: None, an integer or a float equal to one; anything else is refused.
+
+    A charge on R^4 (and per period on R^3 x S^1) is an integer (common practice), so 1.5 or 1.9 is a
+    mistake, never truncated; booleans, nan and infinities are refused too.
+    Raises ValueError naming the value found.
+    """
+    if value is None:
+        return None
+    ok = isinstance(value, numbers.Real) and not isinstance(value, bool) and type(value).__name__ != "bool_"
+    if ok and math.isfinite(float(value)) and float(value) == round(float(value)):
+        return int(round(float(value)))
+    raise ValueError(
+        f"expected_charge must be an integer (the instanton number) or None; found {value!r} ({type(value).__name__})"
+    )
+
+
+def orientation_mistake(q: float, error: float, want: int, tol: float) -> str:
+    """ "" or the reason naming an orientation mistake: Q = -n (to tol and its error bar) for an expected n != 0."""
+    if want == 0 or abs(q + want) - error > tol:
+        return ""
+    kind = "an anti-instanton (anti-self-dual)" if want > 0 else "an instanton (self-dual)"
+    return (
+        f"orientation mistake: Q = {q:.10g} +- {error:.1e} is {-want:+d}, the opposite of the expected {want:+d}: "
+        f"{kind} field where its opposite was expected; the likely cause is the 't Hooft symbol (eta where eta-bar "
+        f"belongs, or the reverse) or the sign of the su(2) generators (conventions: instantons are self-dual, Q = +1)"
+    )
 
 
 def signed_offset(name: str, n: int) -> str:

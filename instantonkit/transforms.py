@@ -46,6 +46,7 @@ ArrayLike = jax.typing.ArrayLike | tuple | list
 
 __all__ = [
     "GaugeTransformed",
+    "ConstantGauge",
     "Translated",
     "Rotated",
     "Dilated",
@@ -182,6 +183,28 @@ class _Wrapper(PytreeFields):
 
     _verb = "transformed"
 
+    #: The 'kind' of this wrapper's record (references.field_from_record), and its parameters.
+    _record_kind = "transformed"
+
+    def _record_params(self) -> dict:
+        return {}
+
+    @property
+    def record(self):
+        """Field hook: {'kind': the transformation, 'field': the wrapped field's record, its parameters}.
+
+        Offered when the wrapped field has a record hook; rebuilt by
+        :func:`instantonkit.references.field_from_record`.
+        """
+        inner = hook(self.field, "record")
+        if inner is None:
+            _missing("record")
+
+        def record():
+            return {"kind": self._record_kind, "field": inner(), **self._record_params()}
+
+        return record
+
     def _batch_points(self, pts):
         """Points (m, 4) of this field -> (points of the wrapped field, density factor, sign of q); subclasses."""
         return pts, 1.0, 1.0
@@ -282,6 +305,37 @@ class GaugeTransformed(_Wrapper):
     def _g(self, x):
         return jnp.asarray(self.g(x)).astype(jnp.complex128)
 
+    @property
+    def record(self):
+        """Field hook: the record of the wrapped field and of g, or one that says why it cannot be rebuilt.
+
+        When g offers ``record()`` (:class:`ConstantGauge` does): {'kind': 'gauge_transformed', 'field':
+        the wrapped field's record, 'g': g's record}.  Otherwise g is code, not data:
+        {'kind': 'unrecordable', 'type': 'GaugeTransformed', 'reason': ..., 'field': the wrapped
+        field's record}; :func:`instantonkit.references.field_from_record` raises a ValueError quoting
+        the reason.  Offered when the wrapped field has a record hook.
+        """
+        inner = hook(self.field, "record")
+        if inner is None:
+            _missing("record")
+        g = self.g
+        g_record = getattr(g, "record", None)
+        if callable(g_record):  # a gauge function that records itself (e.g. ConstantGauge)
+            return lambda: {"kind": "gauge_transformed", "field": inner(), "g": g_record()}
+        name = getattr(g, "__qualname__", None) or type(g).__qualname__
+        module = getattr(g, "__module__", None) or type(g).__module__
+        reason = (
+            f"a gauge transformation by the callable {module}.{name} cannot be stored: a function is code, "
+            "not data, so the file cannot rebuild g; the wrapped field is recorded under 'field' "
+            "(densities are gauge invariant), rebuild it and apply g again (a global rotation given as "
+            "transforms.ConstantGauge records itself)"
+        )
+
+        def record():
+            return {"kind": "unrecordable", "type": "GaugeTransformed", "reason": reason, "field": inner()}
+
+        return record
+
     def potential(self, x):
         """A'_mu = g A_mu g^dag - (d_mu g) g^dag at one point (4,) -> (4, N, N)."""
         x = jnp.asarray(x, dtype=jnp.float64)
@@ -317,6 +371,45 @@ class GaugeTransformed(_Wrapper):
         return closed_link
 
 
+@jax.tree_util.register_pytree_node_class
+@dataclasses.dataclass(frozen=True)
+class ConstantGauge(PytreeFields):
+    """A global gauge rotation g(x) = g0 (constant unitary), a gauge function that records itself.
+
+    With d g = 0 the map is A' = g0 A g0^dag, F' = g0 F g0^dag (the gauge map above).  matrix: (N, N)
+    complex128 unitary (to 1e-10).  ``record()`` -> {'kind': 'constant', 'matrix': {'re', 'im'}}.
+    """
+
+    matrix: Array
+
+    _leaves = ("matrix",)
+
+    def __post_init__(self):
+        if _validate.is_tracer(self.matrix):
+            return
+        m = np.asarray(self.matrix)
+        if m.ndim != 2 or m.shape[0] != m.shape[1] or m.shape[0] < 1:
+            raise ValueError(f"matrix must have shape (N, N); found {m.shape}")
+        if m.dtype == bool or not np.issubdtype(m.dtype, np.number):
+            raise TypeError(f"matrix must be numeric; found dtype {m.dtype}")
+        m = m.astype(np.complex128)
+        if not np.all(np.isfinite(m)):
+            raise ValueError(f"matrix must be finite; found {int(np.sum(~np.isfinite(m)))} non-finite entries")
+        dev = float(np.max(np.abs(m @ m.conj().T - np.eye(m.shape[0]))))
+        if dev > _UNIT_TOL:
+            raise ValueError(f"matrix must be unitary; max |g g^dag - 1| = {dev:.3e}")
+        object.__setattr__(self, "matrix", m)
+
+    def __call__(self, x):
+        """g0 at one point (4,) -> (N, N) complex128."""
+        return jnp.asarray(self.matrix, dtype=jnp.complex128)
+
+    def record(self) -> dict:
+        """A JSON-ready description that rebuilds g exactly (real and imaginary parts)."""
+        m = np.asarray(self.matrix, dtype=np.complex128)
+        return {"kind": "constant", "matrix": {"re": m.real.tolist(), "im": m.imag.tolist()}}
+
+
 def gauge_transform(field, g) -> GaugeTransformed:
     """Gauge transform ``field`` by ``g(x)`` (N, N) unitary: A' = g A g^-1 + g d g^-1.
 
@@ -350,6 +443,10 @@ class Translated(_Wrapper):
 
     _leaves = ("field", "shift")
     _verb = "translated"
+    _record_kind = "translated"
+
+    def _record_params(self) -> dict:
+        return {"shift": np.asarray(self.shift, dtype=np.float64).reshape(4).tolist()}
 
     def _y(self, x):
         return jnp.asarray(x, dtype=jnp.float64) - jnp.asarray(self.shift)
@@ -444,6 +541,13 @@ class Rotated(_Wrapper):
 
     _leaves = ("field", "left", "right")
     _verb = "rotated"
+    _record_kind = "rotated"
+
+    def _record_params(self) -> dict:
+        return {
+            "left": np.asarray(self.left, dtype=np.float64).reshape(4).tolist(),
+            "right": np.asarray(self.right, dtype=np.float64).reshape(4).tolist(),
+        }
 
     @property
     def matrix(self):
@@ -517,6 +621,10 @@ class Dilated(_Wrapper):
 
     _leaves = ("field", "factor")
     _verb = "dilated"
+    _record_kind = "dilated"
+
+    def _record_params(self) -> dict:
+        return {"factor": float(self.factor)}
 
     def _y(self, x):
         c = jnp.asarray(self.factor)
@@ -586,6 +694,7 @@ class ParityImage(_Wrapper):
 
     _leaves = ("field",)
     _verb = "parity image"
+    _record_kind = "parity"
     _pole_note = ", parity image"
 
     @staticmethod

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import dataclasses
 import os
+from collections.abc import Sequence
 
 import numpy as np
 
@@ -68,7 +69,7 @@ def ensemble(
     size_range=None,
     group: str | None = "su2",
     embedding=(0, 1),
-    boundary: str = "periodic",
+    boundary: str | Sequence[str] = "periodic",
     rtol: float = 1e-12,
     method: str = "auto",
     chunks=None,
@@ -139,7 +140,7 @@ def ensemble(
         "origin": origin.tolist(),
         "group": group,
         "embedding": list(specs[0].embedding),
-        "boundary": boundary,
+        "boundary": specs[0].boundary if isinstance(specs[0].boundary, str) else list(specs[0].boundary),
         "rtol": float(rtol),
         "method": method,
         "members": [{"lam": np.asarray(m.lam).tolist(), "B": np.asarray(m.B).tolist()} for m in members],

@@ -35,7 +35,7 @@ def spec_params(spec: StartSpec) -> dict:
         "origin": [float(v) for v in spec.origin],
         "group": spec.group,
         "embedding": list(spec.embedding),
-        "boundary": spec.boundary,
+        "boundary": spec.boundary if isinstance(spec.boundary, str) else list(spec.boundary),  # as JSON keeps it
         "rtol": spec.rtol,
         "method": spec.method,
     }
@@ -94,7 +94,7 @@ def _start(spec: StartSpec, *, chunks, store, client, overwrite, progress, n_wor
     task = LinkChunk(spec)
     job = Job("lattice_links", "links", spec.links_shape, 4, chunks, "complex128", spec_params(spec), lambda idx: task)
     if store is None:
-        if spec.boundary != "open":
+        if any(b != "open" for b in spec.boundaries):
             faces = spec.report(LinkStats(), 0.0, *spec.boundary_figures(FaceLinks(spec)))
             _lat.warn_boundary(faces, stacklevel=stacklevel)
         return lazy(job), None
