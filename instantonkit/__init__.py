@@ -19,6 +19,7 @@ from . import (
     unitary_moduli,
 )
 from ._config import enable_compile_cache, set_lean_compile
+from ._links import check_links, project_links
 from .adhm import ADHMData
 from .ansatz import bpst_field, caloron, jnr, thooft
 from .checks import (
@@ -81,6 +82,8 @@ __all__ = [
     "clover_charge",
     "save_lattice",
     "load_lattice",
+    "check_links",
+    "project_links",
     "ADHMData",
     "bpst",
     "multi_instanton",

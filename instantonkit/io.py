@@ -37,6 +37,7 @@ from typing import Any
 import numpy as np
 
 from ._atomic import atomic_write
+from ._links import check_links as _check_link_values
 
 __all__ = [
     "save_lattice",
@@ -355,7 +356,7 @@ def save_lattice(
         _atomic_write(path, lambda fh: _save_ildg(fh, u, metadata, lfn, description))
 
 
-def load_lattice(path, *, mmap: bool = False):
+def load_lattice(path, *, mmap: bool = False, project: bool = False):
     """Read a lattice file written by :func:`save_lattice` (or any ILDG file); returns (links, info).
 
     The format is recognised from the first bytes (zip: npz; LIME magic: ILDG).  info holds 'format',
@@ -363,17 +364,36 @@ def load_lattice(path, *, mmap: bool = False):
     :func:`instantonkit.references.field_from_record`) and for ILDG also 'ildg' with the XML fields and
     'lfn' when present.  With
     ``mmap=True`` an ILDG file is returned as a read-only big-endian memory-mapped view (no copy).
+    Every link is checked (:func:`instantonkit._links.check_links`, time slab by time slab): NaN or inf
+    entries (a damaged payload) and links that are not SU(N) within 1e-8 are refused, naming the file;
+    ``project=True`` returns the links projected onto SU(N) instead (e.g. for single-precision files,
+    whose rounding, ~1e-7, lies above the tolerance).
 
     Args:
       path: an npz or LIME/ILDG file.
       mmap: return ILDG links as a read-only memory map instead of reading them.
+      project: return the links projected onto SU(N) (a complex128 array) instead of refusing links
+        beyond the unitarity tolerance.
     Returns:
       (links, info): links (L1, L2, L3, L4, 4, N, N) complex128 (numpy array or memory map) and the
       dict info ('format', 'metadata', 'field', and for ILDG 'ildg' and 'lfn' when present).
     Raises:
-      ValueError: a file that is neither format, truncated or corrupt.
+      ValueError: a file that is neither format, truncated or corrupt; links with NaN or inf entries
+        (counted and located) or not in SU(N) within 1e-8 (the worst link named).
     """
     path = os.fspath(path)
+    links, info = _read_links(path, mmap)
+    try:
+        links = _check_link_values(links, name=f"links of {path!r}", project=project)
+    except ValueError as err:
+        if "must be SU(" not in str(err):
+            raise
+        raise ValueError(f"{err}; or pass project=True to load_lattice") from None
+    return links, info
+
+
+def _read_links(path, mmap):
+    """(links, info) of an npz or LIME/ILDG file, unchecked values."""
     with open(path, "rb") as fh:
         head = fh.read(4)
     if head[:2] == b"PK":
@@ -404,5 +424,5 @@ def read_description(path) -> dict:
         except (zipfile.BadZipFile, EOFError, OSError, KeyError, ValueError) as err:
             raise ValueError(f"corrupt or truncated npz lattice file {path!r}: {type(err).__name__}: {err}") from err
         return {"format": "npz", "metadata": meta, "field": desc}
-    _, info = load_lattice(path, mmap=True)
+    _, info = _read_links(path, True)
     return {"format": "ildg", "metadata": info.get("metadata", {}), "field": info.get("field")}

@@ -19,6 +19,11 @@ embeddings of SU(2) (common practice), so they infer rank 2; genuine SU(N) confi
 embedding have a small but finite smallest singular value and count as genuine once it exceeds the
 threshold.  Without ``rank``, :func:`find_lattice_instantons` fits SU(r) with the inferred r (= N for
 genuine SU(N) links; an SU(r) field embedded in SU(N) is fitted as SU(r)).
+
+Error budget.  Links are checked first (finite, SU(N) within 1e-8).  The finder's systematic is the model
+error of continuum densities; for links that were smoothed the caller passes the run's record and the
+sizes' systematic gains the drift the run caused (:func:`_smoothing_systematic`); raw links whose Wilson
+action exceeds ``ROUGH_FACTOR`` x 8 pi^2 k are rough: systematic not estimated, advice to smooth first.
 """
 
 from __future__ import annotations
@@ -31,10 +36,11 @@ import numpy as np
 
 from . import _validate
 from . import observables as _obs
-from .conventions import ACTION_DENSITY_FACTOR
+from ._links import check_links
+from .conventions import ACTION_DENSITY_FACTOR, INSTANTON_ACTION
 from .fields import action_from_f
 from .finder import InstantonFit, MixedFit, find_instantons
-from .io import check_links
+from .smoothing import SmoothingRecord
 
 __all__ = ["ColourRank", "colour_rank", "find_lattice_instantons"]
 
@@ -157,6 +163,7 @@ def find_lattice_instantons(
     quantity: str = "charge",
     model: str | None = None,
     rank: int | None = None,
+    smoothing: SmoothingRecord | None = None,
     **options,
 ):
     """Fit instantons to a lattice gauge field given as links, from the lattice's own densities.
@@ -181,6 +188,10 @@ def find_lattice_instantons(
       quantity: 'charge' or 'action'.
       model: None (chosen from the rank, above), 'exact' or 'superposition'.
       rank: None (inferred) or the N of the SU(N) instantons, as in :func:`find_instantons`.
+      smoothing: the :class:`instantonkit.smoothing.SmoothingRecord` of the flow or cooling run that made
+        these links, if any: its systematic enters the error budget (:func:`_smoothing_systematic`).
+        Without it, links whose Wilson action exceeds ``ROUGH_FACTOR`` times 8 pi^2 k are called rough
+        (noisy): their systematic is NaN (not estimable) and the advice is to smooth them first.
       options: passed to :func:`find_instantons`.
     Returns:
       InstantonFit (or MixedFit), positions in the lattice's coordinates, ``notes`` naming the rank.
@@ -188,6 +199,12 @@ def find_lattice_instantons(
       ValueError / TypeError naming the bad argument.
     """
     _validate.choice("quantity", quantity, _QUANTITIES)
+    if smoothing is not None and not isinstance(smoothing, SmoothingRecord):
+        raise TypeError(
+            f"smoothing must be the SmoothingRecord of wilson_flow / gradient_flow / cool or None; found "
+            f"{type(smoothing).__name__}"
+        )
+    links = check_links(links)
     if model is not None:
         _validate.choice("model", model, ("exact", "superposition"))
     a = _validate.positive_float("spacing", spacing)
@@ -214,8 +231,77 @@ def find_lattice_instantons(
     fit = find_instantons(
         sites[ok], dens[ok], k, quantity=quantity, model=model, rank=rank, _lattice_note=lattice_note, **options
     )
+    k_total = sum(k) if isinstance(k, tuple | list) else k
+    s_w = _obs.wilson_action(links, boundary=boundary)
+
+    def finish(f):
+        return _smoothing_systematic(dataclasses.replace(f, notes=f.notes + (note,)), smoothing, s_w, k_total)
+
     if isinstance(fit, MixedFit):
-        plus, minus = (dataclasses.replace(f, notes=f.notes + (note,)) for f in (fit.instantons, fit.anti_instantons))
-        return dataclasses.replace(fit, instantons=plus, anti_instantons=minus)
+        return dataclasses.replace(fit, instantons=finish(fit.instantons), anti_instantons=finish(fit.anti_instantons))
     assert isinstance(fit, InstantonFit)
-    return dataclasses.replace(fit, notes=fit.notes + (note,))
+    return finish(fit)
+
+
+#: Links whose Wilson action exceeds this many times 8 pi^2 k (the self-duality bound S >= 8 pi^2 |Q| is
+#: saturated by k smooth instantons, Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85) carry
+#: action the fitted lumps do not explain: rough or noisy links.
+ROUGH_FACTOR = 2.0
+
+
+def _smoothing_systematic(fit: InstantonFit, record, s_w: float, k: int) -> InstantonFit:
+    """The fit with the systematic of the links' smoothing (or of their roughness) in its error budget.
+
+    Smoothed links (``record`` given): the sizes' systematic gains, in quadrature, the relative drift of the
+    record's size estimate rho/a (:func:`instantonkit.smoothing.instanton_size`) from the first to the last
+    measurement, times each fitted size (the flow or cooling moves sizes, lattice flows shrink them); the
+    record holds no positions or orientations, so their systematic is NaN, "not estimated".  Raw links
+    above ROUGH_FACTOR 8 pi^2 k: every systematic is NaN and the reasons advise smoothing first.  Other
+    raw links keep the finder's budget with a note to pass the record if they were smoothed.
+    """
+    stat, syst = fit.statistical, dict(fit.systematic)
+    stat_text = fit.error_budget.split("; systematic")[0]
+    model_text = fit.error_budget[len(stat_text) :].removeprefix("; ").replace("systematic = 0 (", "model error 0 (")
+    reasons = list(fit.reasons)
+    if record is not None:
+        what = (
+            f"the flow to t = {float(record.time[-1]):g} a^2"
+            if record.kind == "flow"
+            else f"{int(record.time[-1])} cooling sweep(s)"
+        )
+        drift = abs(float(record.size[-1]) / float(record.size[0]) - 1.0) if record.size.size else float("nan")
+        if not np.isfinite(drift):
+            drift = float("nan")
+        syst["sizes"] = np.sqrt(np.asarray(syst["sizes"]) ** 2 + (drift * fit.sizes) ** 2)
+        for key in syst:
+            if key != "sizes":
+                syst[key] = np.full_like(np.asarray(syst[key], dtype=float), np.nan)
+        budget = (
+            f"{stat_text}; systematic = the model ({model_text}) in quadrature with what {what} did to the links "
+            f"(S_W {float(record.wilson_action[0]):.4g} -> {float(record.wilson_action[-1]):.4g}): sizes "
+            f"+- {100 * drift:.2g} % (drift of the record's size estimate rho/a "
+            f"{float(record.size[0]):.4g} -> {float(record.size[-1]):.4g}); centres"
+            f"{' and orientations' if 'orientations' in syst else ''}: not estimated (the record holds no positions)"
+        )
+    elif s_w > ROUGH_FACTOR * INSTANTON_ACTION * k:
+        syst = {key: np.full_like(np.asarray(v, dtype=float), np.nan) for key, v in syst.items()}
+        budget = (
+            f"{stat_text}; systematic: not estimated (the links are rough: S_W = {s_w:.4g} exceeds "
+            f"{ROUGH_FACTOR:g} x 8 pi^2 k = {ROUGH_FACTOR * INSTANTON_ACTION * k:.4g}, so the fitted lumps do not "
+            "explain their action)"
+        )
+        reasons.append(
+            f"the links are rough (S_W = {s_w:.4g} > {ROUGH_FACTOR:g} x 8 pi^2 k): smooth them first "
+            "(instantonkit.wilson_flow or instantonkit.cool) and pass the run's record as smoothing="
+        )
+    else:
+        return dataclasses.replace(
+            fit,
+            error_budget=fit.error_budget
+            + "; if these links were smoothed, pass the flow's or cooling's record as smoothing= to include its effect",
+        )
+    # NaN systematic = not estimated: the total then holds the statistical part (finder's convention)
+    total = {key: np.sqrt(np.asarray(stat[key]) ** 2 + np.nan_to_num(syst.get(key, 0.0)) ** 2) for key in stat}
+    return dataclasses.replace(
+        fit, systematic=syst, uncertainties=total, error_budget=budget, reasons=tuple(reasons), ambiguous=bool(reasons)
+    )

@@ -6,7 +6,10 @@ arrays ``(L1, L2, L3, L4, 4, N, N)``; a gauge transformation acts as
 ``U_mu(n) -> g(n) U_mu(n) g(n + mu_hat)^-1``.  Observables wrap around periodically, or with
 ``boundary="open"`` use only the plaquettes (clovers) whose links all join lattice sites; ``boundary=``
 is one choice for all directions or four in (x1, x2, x3, x4) order (:mod:`instantonkit.boundaries`),
-e.g. ``("open", "open", "open", "periodic")``, and then masks only what crosses an open direction's edge.  Work is done
+e.g. ``("open", "open", "open", "periodic")``, and then masks only what crosses an open direction's edge.
+Every observable first checks all links (:func:`instantonkit._links.check_links`: finite, special
+unitary within 1e-8), so the open-boundary masks (NaN outside, then a NaN-skipping sum) exclude only
+what lies outside, never damaged input.  Work is done
 in time slabs of about ``SLAB_BYTES`` so memory stays bounded on large lattices (numpy arrays and
 memmaps alike).
 """
@@ -21,8 +24,8 @@ import numpy as np
 
 from . import _validate as _v
 from . import boundaries as _bd
+from ._links import check_links as _check_links
 from .conventions import CHARGE_DENSITY_FACTOR
-from .io import check_links as _check_links
 
 __all__ = [
     "PLANES",
@@ -224,10 +227,17 @@ def plaquette_traces(links, *, boundary: str | Sequence[str] = "periodic") -> np
     Returns:
       (L1, L2, L3, L4, 6) float64, Re tr U_p / N per site and plane.
     Raises:
-      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
+      ValueError / TypeError: links of the wrong shape or dtype, NaN or inf entries (counted and
+        located) or links not in SU(N) within 1e-8 (checked before any open-boundary mask),
+        an unknown boundary, a bad spacing (where one is taken).
     """
     u = _check_links(links)
     _check_boundary(boundary)
+    return _traces(u, boundary)
+
+
+def _traces(u, boundary):
+    """:func:`plaquette_traces` of checked links."""
     n = u.shape[-1]
     out = np.empty(u.shape[:4] + (6,))
     for t0, t1, ext in _slabs(u, 1):
@@ -250,7 +260,9 @@ def plaquettes(links, *, boundary: str | Sequence[str] = "periodic") -> np.ndarr
     Returns:
       (L1, L2, L3, L4, 6, N, N) complex128 plaquette matrices.
     Raises:
-      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
+      ValueError / TypeError: links of the wrong shape or dtype, NaN or inf entries (counted and
+        located) or links not in SU(N) within 1e-8 (checked before any open-boundary mask),
+        an unknown boundary, a bad spacing (where one is taken).
     """
     u = _check_links(links)
     _check_boundary(boundary)
@@ -272,7 +284,9 @@ def average_plaquette(links, *, boundary: str | Sequence[str] = "periodic") -> f
     Returns:
       float, the mean of Re tr U_p / N.
     Raises:
-      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
+      ValueError / TypeError: links of the wrong shape or dtype, NaN or inf entries (counted and
+        located) or links not in SU(N) within 1e-8 (checked before any open-boundary mask),
+        an unknown boundary, a bad spacing (where one is taken).
     """
     return float(np.nanmean(plaquette_traces(links, boundary=boundary)))
 
@@ -291,12 +305,15 @@ def wilson_action(links, beta: float | None = None, *, boundary: str | Sequence[
     Returns:
       float, S_W.
     Raises:
-      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
+      ValueError / TypeError: links of the wrong shape or dtype, NaN or inf entries (counted and
+        located) or links not in SU(N) within 1e-8 (checked before any open-boundary mask),
+        an unknown boundary, a bad spacing (where one is taken).
     """
     u = _check_links(links)
+    _check_boundary(boundary)
     n = u.shape[-1]
-    b = 2.0 * n if beta is None else float(beta)
-    tr = plaquette_traces(u, boundary=boundary)
+    b = 2.0 * n if beta is None else _v.finite_float("beta", beta)
+    tr = _traces(u, boundary)
     return float(b * np.nansum(1.0 - tr))
 
 
@@ -353,7 +370,9 @@ def clover_field_strength(links, *, spacing: float = 1.0, boundary: str | Sequen
     Returns:
       (L1, L2, L3, L4, 4, 4, N, N) complex128, F_mu nu / a^2.
     Raises:
-      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
+      ValueError / TypeError: links of the wrong shape or dtype, NaN or inf entries (counted and
+        located) or links not in SU(N) within 1e-8 (checked before any open-boundary mask),
+        an unknown boundary, a bad spacing (where one is taken).
     """
     u = _check_links(links)
     _check_boundary(boundary)
@@ -386,7 +405,9 @@ def clover_charge_density(links, *, spacing: float = 1.0, boundary: str | Sequen
     Returns:
       (L1, L2, L3, L4) float64, q(n) / a^4.
     Raises:
-      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
+      ValueError / TypeError: links of the wrong shape or dtype, NaN or inf entries (counted and
+        located) or links not in SU(N) within 1e-8 (checked before any open-boundary mask),
+        an unknown boundary, a bad spacing (where one is taken).
     """
     u = _check_links(links)
     _check_boundary(boundary)
@@ -410,6 +431,8 @@ def clover_charge(links, *, boundary: str | Sequence[str] = "periodic") -> float
     Returns:
       float, Q.
     Raises:
-      ValueError / TypeError: links of the wrong shape or dtype, an unknown boundary, a bad spacing (where one is taken).
+      ValueError / TypeError: links of the wrong shape or dtype, NaN or inf entries (counted and
+        located) or links not in SU(N) within 1e-8 (checked before any open-boundary mask),
+        an unknown boundary, a bad spacing (where one is taken).
     """
     return float(np.nansum(clover_charge_density(links, boundary=boundary)))

@@ -22,6 +22,11 @@ Normalisations (g = 1, beta = 2N, so that every action tends to the continuum ac
   section 2 for the Wilson action, from memory; our S equals his g0^2 S_w summed over oriented
   plaquettes).  tests/test_smoothing.py checks Z against finite differences of S.
 
+Every front door checks its links first (:func:`instantonkit._links.check_links`: finite, SU(N) within 1e-8).
+A flow whose effective step exceeds :func:`flow_step_bound` (the real stability interval of a third-order
+Runge-Kutta scheme over the largest frequency of the linearised flow) is refused before it starts, and a
+flow or cooling run whose driving action rises between two measurements stops with an error.
+
 Cooling with the 2x2 loops uses 8 colours per direction (see :func:`_colours`), so every sweep is an
 exact sequential sweep; the gradient flow of S(eps) is offered beside it (:func:`gradient_flow`).
 """
@@ -37,12 +42,15 @@ import jax.numpy as jnp
 import numpy as np
 
 from . import _validate as _v
+from ._links import check_links as _check_links
 from .conventions import CHARGE_DENSITY_FACTOR
-from .io import check_links as _check_links
 from .observables import PLANES
 
 __all__ = [
     "SmoothingRecord",
+    "RK3_STABILITY",
+    "max_flow_frequency",
+    "flow_step_bound",
     "gradient_flow",
     "wilson_flow",
     "cool",
@@ -326,6 +334,7 @@ def _clover_densities(u, m: int):
 
 
 def _links(links):
+    """Checked links (shape, dtype, finite, SU(N) within 1e-8: :func:`instantonkit._links.check_links`) as a jax array."""
     u = _check_links(links)
     return jnp.asarray(u, dtype=jnp.complex128)
 
@@ -354,6 +363,11 @@ def loop_action(links, size: int = 1, *, boundary: str = "periodic") -> float:
     u = _links(links)
     m = _v.positive_int("size", size)
     _v.choice("boundary", boundary, _BOUNDARIES)
+    return _loop_action(u, m, boundary)
+
+
+def _loop_action(u, m, boundary):
+    """:func:`loop_action` of checked links."""
     terms = np.asarray(_loop_terms(u, m))
     shape = u.shape[:4]
     return float(sum(np.sum(terms[p][_loop_mask(shape, mu, nu, m, boundary)]) for p, (mu, nu) in enumerate(PLANES)))
@@ -364,12 +378,14 @@ def improved_action(links, eps: float = 0.0, *, boundary: str = "periodic") -> f
     Snippe and van Baal (Nucl. Phys. B 413 (1994) 535, from memory); eps = 1 is the Wilson action,
     eps = 0 has no tree-level a^2 term.  See :func:`loop_action` for S_m and ``boundary``."""
     c1, c2 = improved_coefficients(eps)
-    s1 = loop_action(links, 1, boundary=boundary)
-    return c1 * s1 + (c2 * loop_action(links, 2, boundary=boundary) if c2 != 0.0 else 0.0)
-
-
-def _charge_density(links, size, boundary):
     u = _links(links)
+    _v.choice("boundary", boundary, _BOUNDARIES)
+    s1 = _loop_action(u, 1, boundary)
+    return c1 * s1 + (c2 * _loop_action(u, 2, boundary) if c2 != 0.0 else 0.0)
+
+
+def _charge_density(u, size, boundary):
+    """Clover charge density of checked links (jax array), NaN outside for open boundaries."""
     _v.choice("boundary", boundary, _BOUNDARIES)
     q, _ = _clover_densities(u, size)
     q = np.asarray(q)
@@ -381,7 +397,7 @@ def loop_clover_charge(links, size: int = 1, *, boundary: str = "periodic") -> f
     tends to size^4 Q); size 1 is :func:`instantonkit.observables.clover_charge`.  Open boundaries: the
     sites whose clovers fit inside."""
     m = _v.positive_int("size", size)
-    return float(np.nansum(_charge_density(links, m, boundary)))
+    return float(np.nansum(_charge_density(_links(links), m, boundary)))
 
 
 def improved_charge_density(links, *, boundary: str = "periodic") -> np.ndarray:
@@ -392,8 +408,9 @@ def improved_charge_density(links, *, boundary: str = "periodic") -> np.ndarray:
     Gonzalez-Arroyo, Snippe and van Baal (Nucl. Phys. B 413 (1994) 535, from memory).  Open boundaries:
     NaN where the 2x2 clovers leave the lattice.
     """
-    q1 = _charge_density(links, 1, "periodic")
-    q2 = _charge_density(links, 2, boundary)
+    u = _links(links)
+    q1 = _charge_density(u, 1, "periodic")
+    q2 = _charge_density(u, 2, boundary)
     return (4.0 / 3.0) * q1 - q2 / 48.0
 
 
@@ -427,6 +444,57 @@ def _measure(u, c1, c2, two: bool):
     qsum1, qsum2 = jnp.sum(q1), jnp.sum(q2)
     size = (48.0 / 7.0 * jnp.sum(dens) / jnp.sum(dens * dens)) ** 0.25
     return jnp.stack([s1, c1 * s1 + c2 * s2, qsum1, (4.0 / 3.0) * qsum1 - qsum2 / 48.0, size])
+
+
+# -- stability -----------------------------------------------------------------------------------------------
+
+#: Real stability interval [-RK3_STABILITY, 0] of every explicit three-stage third-order Runge-Kutta scheme,
+#: whose stability function on dy/dt = lambda y is R(z) = 1 + z + z^2/2 + z^3/6 (Hairer and Wanner, Solving
+#: Ordinary Differential Equations II, Springer 1996, section IV.2, from memory): the real root of R(z) = -1,
+#: 2.5127.  Luescher's integrator reduces to such a scheme on the linearised flow (its stages 1/4, 5/12, 1/3).
+RK3_STABILITY = float(-min(r.real for r in np.roots([1.0 / 6.0, 0.5, 1.0, 2.0]) if abs(r.imag) < 1e-9))
+
+#: Relative rise of the driving action between two measurements above which a run is unstable (rounding of
+#: the lattice sums is ~1e-13 relative).
+ACTION_RISE_TOL = 1e-9
+
+
+@functools.lru_cache(maxsize=64)
+def max_flow_frequency(eps: float = 1.0) -> float:
+    """Largest eigenvalue lambda_max of the gradient flow of S(eps) linearised about the trivial field.
+
+    Small fields A_mu(p) (momentum p, lattice units) flow by dA/dt = -M(p) A with the tree-level kernel
+    M_nu rho = delta_nu rho sum_mu W_mu nu p_mu^2 - W_nu rho p_nu p_rho, p_mu = 2 sin(p_mu / 2), and the
+    plane weights W_mu nu = c1 + c2 (4 cos^2(p_mu / 2)) (4 cos^2(p_nu / 2)) of the 1x1 and 2x2 loops
+    (the 2x2 flux is (1 + e^{i p_mu})(1 + e^{i p_nu}) times the 1x1 flux; common practice).  Maximised over a
+    17^4 grid of [0, pi]^4: 16 for the Wilson flow (the staggered mode, p = pi), 64/3 for eps = 0;
+    tests/test_flow_stability.py checks both against power iteration of the module's own force.
+    """
+    c1, c2 = improved_coefficients(eps)
+    p = np.linspace(0.0, np.pi, 17)
+    grid = np.stack(np.meshgrid(p, p, p, p, indexing="ij"), axis=-1).reshape(-1, 4)
+    ph = 2.0 * np.sin(grid / 2.0)
+    c = 4.0 * np.cos(grid / 2.0) ** 2
+    w = c1 + c2 * c[:, :, None] * c[:, None, :]
+    m = -w * ph[:, :, None] * ph[:, None, :]
+    diag = np.sum(w * (ph**2)[:, :, None], axis=1) - np.diagonal(w, axis1=1, axis2=2) * ph**2
+    m[:, np.arange(4), np.arange(4)] = diag
+    return float(np.max(np.linalg.eigvalsh(m)))
+
+
+def flow_step_bound(eps: float = 1.0) -> float:
+    """Largest stable step of :func:`gradient_flow`: RK3_STABILITY / :func:`max_flow_frequency` (0.157 for the
+    Wilson flow, 0.118 for eps = 0); beyond it the shortest wavelengths grow instead of being damped."""
+    return RK3_STABILITY / max_flow_frequency(_v.finite_float("eps", eps))
+
+
+def _check_rise(prev, cur, kind: str, where: str, advice: str):
+    """Raise when the driving action rose from ``prev`` to ``cur`` beyond rounding (an unstable run)."""
+    if cur - prev > ACTION_RISE_TOL * max(abs(prev), 1.0) or not np.isfinite(cur):
+        raise ValueError(
+            f"the {kind} is unstable: the action S(eps) rose from {prev:.10g} to {cur:.10g} {where}, where it "
+            f"must fall; {advice}"
+        )
 
 
 # -- front doors ---------------------------------------------------------------------------------------------
@@ -474,13 +542,16 @@ def gradient_flow(links, t: float, step: float = 0.01, *, eps: float = 1.0, ever
     Args:
         links: (L1, L2, L3, L4, 4, N, N) complex.
         t: flow time >= 0 in lattice units; n = ceil(t / step) equal steps of t / n are taken.
-        step: nominal step > 0 (0.01-0.05 is common practice for the Wilson flow).
+        step: nominal step > 0 (0.01-0.05 is common practice for the Wilson flow); the effective step
+            must lie below :func:`flow_step_bound` (0.157 for the Wilson flow).
         eps: the action parameter of :func:`improved_action`.
         every: measure after every ``every`` steps (and at t = 0 and the end).
     Returns:
         (links (same shape) complex128 numpy, :class:`SmoothingRecord`).
     Raises:
-        ValueError / TypeError on a bad argument.
+        ValueError / TypeError on a bad argument, links that are not finite SU(N) matrices, a step beyond
+        :func:`flow_step_bound`, or an action that rises between two measurements (an unstable flow,
+        naming the step, the actions before and after and a smaller step).
     """
     u = _links(links)
     tt = _v.finite_float("t", t)
@@ -492,12 +563,27 @@ def gradient_flow(links, t: float, step: float = 0.01, *, eps: float = 1.0, ever
     two = c2 != 0.0
     n = int(math.ceil(tt / h - 1e-9)) if tt > 0 else 0
     h = tt / n if n else h
+    bound = flow_step_bound(eps)
+    if n and h > bound:
+        raise ValueError(
+            f"step must be below the stability bound {bound:.4f} of the third-order Runge-Kutta flow for eps = "
+            f"{float(eps):g} (h lambda_max <= {RK3_STABILITY:.4f}, lambda_max = {max_flow_frequency(float(eps)):.4g}: "
+            f"flow_step_bound); found an effective step {h:g} (t = {tt:g}, step = {step!r}); use step <= "
+            f"{0.25 * bound:.3g} (0.01-0.05 is common practice)"
+        )
     times, rows = [0.0], [_measure(u, c1, c2, two)]
     for i in range(1, n + 1):
         u = _rk3_step(u, h, c1, c2, two)
         if i % every == 0 or i == n:
             times.append(i * h)
             rows.append(_measure(u, c1, c2, two))
+            _check_rise(
+                float(rows[-2][1]),
+                float(rows[-1][1]),
+                "flow",
+                f"between flow times {times[-2]:g} and {times[-1]:g} (step {i} of {n}, step size {h:g})",
+                f"use a smaller step, e.g. step={0.25 * h:.3g}",
+            )
     return np.asarray(u), SmoothingRecord._from(times, [np.asarray(r) for r in rows], eps, "flow")
 
 
@@ -526,7 +612,8 @@ def cool(links, sweeps: int, *, eps: float = 1.0, hits: int = 3, every: int = 1)
     Returns:
         (links complex128 numpy, :class:`SmoothingRecord` with time = sweeps done).
     Raises:
-        ValueError / TypeError on a bad argument or lattice shape.
+        ValueError / TypeError on a bad argument or lattice shape, links that are not finite SU(N)
+        matrices, or an action that rises between two measurements (naming the sweeps and actions).
     """
     u = _links(links)
     sweeps = _v.nonnegative_int("sweeps", sweeps)
@@ -544,4 +631,12 @@ def cool(links, sweeps: int, *, eps: float = 1.0, hits: int = 3, every: int = 1)
         if i % every == 0 or i == sweeps:
             times.append(i)
             rows.append(_measure(u, c1, c2, two))
+            _check_rise(
+                float(rows[-2][1]),
+                float(rows[-1][1]),
+                "cooling",
+                f"between sweeps {times[-2]} and {i}",
+                "each cooling update minimises the action with the other links fixed, so the links have left "
+                "SU(N) (check them with instantonkit.check_links)",
+            )
     return np.asarray(u), SmoothingRecord._from(times, [np.asarray(r) for r in rows], eps, "cooling")
