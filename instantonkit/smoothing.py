@@ -41,6 +41,7 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
+from . import _progress
 from . import _validate as _v
 from ._links import check_links as _check_links
 from .conventions import CHARGE_DENSITY_FACTOR
@@ -531,7 +532,7 @@ def _check_periodic_shape(shape, two: bool, what: str):
         raise ValueError(f"{what} needs even lattice extents (checkerboard); found shape {tuple(shape)}")
 
 
-def gradient_flow(links, t: float, step: float = 0.01, *, eps: float = 1.0, every: int = 1):
+def gradient_flow(links, t: float, step: float = 0.01, *, eps: float = 1.0, every: int = 1, progress=None):
     """Gradient flow dV/dt = Z(V) V, Z = -g0^2 dS(eps) (module docstring), to flow time ``t`` (units a^2).
 
     Integrated with Luescher's third-order Runge-Kutta scheme (JHEP 08 (2010) 071, appendix C) with
@@ -546,6 +547,7 @@ def gradient_flow(links, t: float, step: float = 0.01, *, eps: float = 1.0, ever
             must lie below :func:`flow_step_bound` (0.157 for the Wilson flow).
         eps: the action parameter of :func:`improved_action`.
         every: measure after every ``every`` steps (and at t = 0 and the end).
+        progress: None (a line on stderr on a terminal), False, True or progress(done, total) per step.
     Returns:
         (links (same shape) complex128 numpy, :class:`SmoothingRecord`).
     Raises:
@@ -572,8 +574,11 @@ def gradient_flow(links, t: float, step: float = 0.01, *, eps: float = 1.0, ever
             f"{0.25 * bound:.3g} (0.01-0.05 is common practice)"
         )
     times, rows = [0.0], [_measure(u, c1, c2, two)]
+    report = _progress.sink(progress, "flow steps")
     for i in range(1, n + 1):
         u = _rk3_step(u, h, c1, c2, two)
+        if report is not None:
+            report(i, n)
         if i % every == 0 or i == n:
             times.append(i * h)
             rows.append(_measure(u, c1, c2, two))
@@ -587,12 +592,12 @@ def gradient_flow(links, t: float, step: float = 0.01, *, eps: float = 1.0, ever
     return np.asarray(u), SmoothingRecord._from(times, [np.asarray(r) for r in rows], eps, "flow")
 
 
-def wilson_flow(links, t: float, step: float = 0.01, *, every: int = 1):
+def wilson_flow(links, t: float, step: float = 0.01, *, every: int = 1, progress=None):
     """The Wilson flow (Luescher, JHEP 08 (2010) 071): :func:`gradient_flow` with eps = 1."""
-    return gradient_flow(links, t, step, eps=1.0, every=every)
+    return gradient_flow(links, t, step, eps=1.0, every=every, progress=progress)
 
 
-def cool(links, sweeps: int, *, eps: float = 1.0, hits: int = 3, every: int = 1):
+def cool(links, sweeps: int, *, eps: float = 1.0, hits: int = 3, every: int = 1, progress=None):
     """Plain cooling: every link in turn replaced by the SU(N) matrix that minimises the action with the
     other links fixed, i.e. maximises Re tr(U Sigma) for its staple sum Sigma (SU(2): Sigma^dag normalised;
     SU(N >= 3): ``hits`` Cabibbo-Marinari SU(2)-subgroup passes, see :func:`_maximise`).
@@ -609,6 +614,7 @@ def cool(links, sweeps: int, *, eps: float = 1.0, hits: int = 3, every: int = 1)
         eps: the action parameter of :func:`improved_action` (1: Wilson).
         hits: subgroup passes per link for N >= 3 (ignored for SU(2), where one step is exact).
         every: measure after every ``every`` sweeps (and before the first and after the last).
+        progress: None (a line on stderr on a terminal), False, True or progress(done, total) per sweep.
     Returns:
         (links complex128 numpy, :class:`SmoothingRecord` with time = sweeps done).
     Raises:
@@ -626,8 +632,11 @@ def cool(links, sweeps: int, *, eps: float = 1.0, hits: int = 3, every: int = 1)
     colours = jnp.asarray(_colours(shape, two))
     ncol = 8 if two else 2
     times, rows = [0], [_measure(u, c1, c2, two)]
+    report = _progress.sink(progress, "cooling sweeps")
     for i in range(1, sweeps + 1):
         u = _cool_sweep(u, colours, c1, c2, two, ncol, hits)
+        if report is not None:
+            report(i, sweeps)
         if i % every == 0 or i == sweeps:
             times.append(i)
             rows.append(_measure(u, c1, c2, two))

@@ -37,3 +37,12 @@ def test_the_environment_turns_the_default_on_or_off(monkeypatch):
 def test_a_progress_of_another_type_is_refused():
     with pytest.raises(TypeError, match="progress must be None, a bool or a callable.*found str"):
         _progress.sink("yes", "x")
+
+
+@pytest.mark.filterwarnings("ignore::instantonkit.lattice.BoundaryActionWarning")  # a 2^4 torus: any links do
+def test_a_flow_and_a_cooling_run_report_each_step():
+    links = ik.lattice_links(ik.bpst_field(size=1.0), (2, 2, 2, 2), 0.5)
+    flow, sweeps = [], []
+    ik.wilson_flow(links, 0.03, 0.01, progress=lambda d, t: flow.append((d, t)))
+    ik.cool(links, 2, progress=lambda d, t: sweeps.append((d, t)))
+    assert flow == [(1, 3), (2, 3), (3, 3)] and sweeps == [(1, 2), (2, 2)]
