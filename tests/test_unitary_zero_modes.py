@@ -18,6 +18,7 @@ import pytest
 
 import instantonkit as ik
 from instantonkit import unitary_moduli as um
+from instantonkit import zero_mode_phase
 from instantonkit.quadrature import rule_r4
 
 zm = importlib.import_module("instantonkit.zero_modes")
@@ -183,7 +184,7 @@ def test_adaptive_phase_agrees_with_a_fine_fixed_rule_near_singular_rays():
 def test_phase_that_does_not_converge_within_the_cap_raises(monkeypatch):
     # one bisection is not enough near a singular ray: the error names the count, the first point and the estimate
     data = CASES["su3_k2_regular"]()
-    monkeypatch.setattr(zm, "_PHASE_MAX_ROUNDS", 1)
+    monkeypatch.setattr(zero_mode_phase, "_PHASE_MAX_ROUNDS", 1)
     with pytest.raises(
         ValueError, match=r"did not reach atol = 1\.0e-10 at 2 of 2 points \(first: \[4\.08.*estimate \d"
     ):
