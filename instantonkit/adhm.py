@@ -29,6 +29,16 @@ import numpy as np
 from . import _kxk, _validate
 from . import quaternion as qt
 from ._pytree import PytreeFields
+from .adhm_kernels import charge_one_link as charge_one_link  # re-exported (transport, ansatz)
+from .adhm_kernels import (
+    qmul_unrolled,
+    quat_cholesky_inverse,
+    real_gram,
+    real_mul,
+    real_mul_left,
+    sigma_munu,
+    spd_solve,
+)
 from .conventions import (
     CHARGE_DENSITY_FACTOR,
     E_MU,
@@ -55,6 +65,12 @@ UNIT_TOL = 1e-10
 _MIN_SCALE = 1e-300
 
 _GAUGES = ("singular", "regular")
+
+#: Products of quaternionic matrices in the potential: one einsum each (qt.qmat_mul).  Written out as
+#: sums of broadcast products they ran 1.2-2x faster per point at k <= 2 but gave a traced graph ten
+#: times larger (measured, autodiff F: 2081 vs 301 operations in the potential at k = 4, first calls
+#: 2.9 vs 0.6 s, verify of k = 4 data 8.1 vs 5.5 s); links of SU(2) data use generator_batch instead.
+_qmm = qt.qmat_mul
 
 
 def _moduli(name: str, value, shape_text: str) -> Array:
@@ -254,14 +270,14 @@ class ADHMData(PytreeFields):
     def gram_inverse(self, x):
         """f = (Delta^dag Delta)^-1, real (k, k), and B - p(x) (k, k, 4) at one point (package-internal seam)."""
         bp = self.b_minus_p(x)
-        gram = _real_gram(jnp.asarray(self.lam), bp)
+        gram = real_gram(jnp.asarray(self.lam), bp)
         if self.k == 1:  # a 1 x 1 real matrix: skip the batched LU
             return 1.0 / gram, bp
         return jnp.linalg.inv(gram), bp
 
     def gram(self, x):
         """Field hook: the Gram matrix Delta^dag Delta, real symmetric (k, k), at one point (4,); jax-traceable."""
-        return _real_gram(jnp.asarray(self.lam), self.b_minus_p(x))
+        return real_gram(jnp.asarray(self.lam), self.b_minus_p(x))
 
     def log_det(self, x):
         """log det(Delta^dag Delta) at one point (4,) -> () (for Osborn's formula)."""
@@ -282,9 +298,9 @@ class ADHMData(PytreeFields):
         else:
             v0 = jnp.concatenate([jnp.zeros((n, n, 4)), qt.qmat_dagger(jnp.asarray(self.lam))], axis=0)
         dv = qt.qmat_mul(qt.qmat_dagger(delta), v0)  # (k, n, 4)
-        pv = v0 - qt.qmat_mul(delta, _real_mul(f, dv))
+        pv = v0 - qt.qmat_mul(delta, real_mul(f, dv))
         gram = qt.qmat_mul(qt.qmat_dagger(v0), pv)
-        linv = _quat_cholesky_inverse(gram)
+        linv = quat_cholesky_inverse(gram)
         return qt.qmat_mul(pv, qt.qmat_dagger(linv))
 
     # -- the field protocol ------------------------------------------------------------------
@@ -310,13 +326,13 @@ class ADHMData(PytreeFields):
         else:  # V0 = [0 ; Lambda^dag]
             v0 = jnp.concatenate([jnp.zeros((n, n, 4)), qt.qmat_dagger(lam)], axis=0)
             dv = _qmm(qt.qmat_dagger(bp), v0[n:])
-        fdv = _spd_solve(_real_gram(lam, bp), dv)  # f Delta^dag V0, (k, n, 4)
+        fdv = spd_solve(real_gram(lam, bp), dv)  # f Delta^dag V0, (k, n, 4)
         pv = v0 - _qmm(delta, fdv)  # P V0
-        linv_h = qt.qmat_dagger(_quat_cholesky_inverse(_qmm(qt.qmat_dagger(v0), pv)))  # L^-dag
+        linv_h = qt.qmat_dagger(quat_cholesky_inverse(_qmm(qt.qmat_dagger(v0), pv)))  # L^-dag
         ub = _qmm(pv[n:], linv_h)  # b^dag U, (k, n, 4)
         w = _qmm(fdv, linv_h)  # f Delta^dag V0 L^-dag
         eps = jnp.asarray(E_MU if self.chirality == 1 else np.asarray(qt.qconj(E_MU)))
-        m = _qmm(qt.qmat_dagger(ub)[None], _qmul(eps[:, None, None, :], w[None]))  # (4, n, n, 4)
+        m = _qmm(qt.qmat_dagger(ub)[None], qmul_unrolled(eps[:, None, None, :], w[None]))  # (4, n, n, 4)
         lower = m * jnp.asarray(np.tril(np.ones((n, n)), -1))[None, :, :, None]
         diag = m * jnp.asarray(np.eye(n))[None, :, :, None] * jnp.asarray([0.0, 1.0, 1.0, 1.0])
         return qt.qmat_to_complex(lower - qt.qmat_dagger(lower) + diag)
@@ -343,7 +359,7 @@ class ADHMData(PytreeFields):
         u = self.frame(x)
         f, _ = self.gram_inverse(x)
         ub = u[self.rank :]  # b^dag U, (k, n, 4)
-        sig = _sigma_munu(self.chirality)  # (4, 4, 4)
+        sig = sigma_munu(self.chirality)  # (4, 4, 4)
         # (sigma f)_{ij} = sigma * f_ij: a (4, 4, k, k, 4) quaternionic matrix
         sf = sig[:, :, None, None, :] * f[None, None, :, :, None]
         fq = qt.qmat_mul(qt.qmat_dagger(ub)[None, None], qt.qmat_mul(sf, ub[None, None]))
@@ -358,8 +374,8 @@ class ADHMData(PytreeFields):
         sum_a u_a q u_a = -q - 2 q-bar; for k = 1 it gives 48 rho^4 f^4, the BPST density.)
         """
         f, bp = self.gram_inverse(jnp.asarray(x, dtype=jnp.float64))
-        m = qt.qmat_identity(self.k) - qt.qmat_mul(bp, qt.qmat_mul(_real_mul_left(f), qt.qmat_dagger(bp)))
-        g = _real_mul(f, m)
+        m = qt.qmat_identity(self.k) - qt.qmat_mul(bp, qt.qmat_mul(real_mul_left(f), qt.qmat_dagger(bp)))
+        g = real_mul(f, m)
         gg = qt.qmat_real_trace(qt.qmat_mul(g, g))
         cg = qt.qmat_real_trace(qt.qmat_mul(qt.qconj(g), g))
         return 16.0 * gg + 32.0 * cg
@@ -447,174 +463,6 @@ class ADHMData(PytreeFields):
             "sizes": sizes.tolist(),
             "orientations": (lam / np.where(sizes > 0, sizes, 1.0)[None, :, None]).tolist(),
         }
-
-
-def _real_gram(lam, bp):
-    """Re(Delta^dag Delta)_ij = sum_{l,a} Delta_li^a Delta_lj^a, the real k x k matrix, without the imaginary parts."""
-    return jnp.einsum("lia,lja->ij", lam, lam) + jnp.einsum("lia,lja->ij", bp, bp)
-
-
-def _real_mul(f, q):
-    """Product of a real (k, k) matrix with a quaternionic (k, m, 4) matrix."""
-    return jnp.einsum("ij,jma->ima", f, q)
-
-
-def _real_mul_left(f):
-    """A real (k, k) matrix as a quaternionic one, (k, k, 4)."""
-    return jnp.concatenate([f[..., None], jnp.zeros(f.shape + (3,))], axis=-1)
-
-
-# -- k x k algebra of the potential ------------------------------------------------------------------
-
-_QTABLE = [
-    [(a, b, float(c)) for a in range(4) for b in range(4) if (c := np.asarray(qt.qmul(np.eye(4)[a], np.eye(4)[b]))[o])]
-    for o in range(4)
-]
-
-
-def _qmul(p, q):
-    """Quaternion product of broadcast (..., 4) arrays, written out as multiply-adds (no einsum)."""
-    return jnp.stack([sum(c * p[..., a] * q[..., b] for a, b, c in terms) for terms in _QTABLE], axis=-1)
-
-
-#: Products of quaternionic matrices in the potential: one einsum each (qt.qmat_mul).  Written out as
-#: sums of broadcast products they ran 1.2-2x faster per point at k <= 2 but gave a traced graph ten
-#: times larger (measured, autodiff F: 2081 vs 301 operations in the potential at k = 4, first calls
-#: 2.9 vs 0.6 s, verify of k = 4 data 8.1 vs 5.5 s); links of SU(2) data use generator_batch instead.
-_qmm = qt.qmat_mul
-
-
-#: Largest k whose Cholesky factor is written out (larger k use jnp.linalg.solve).
-_UNROLLED_K = 8
-
-
-def _spd_solve(g, r):
-    """X with g X = r for a real symmetric positive definite (k, k) g and r (k, ...): Cholesky, then two
-    triangular solves, written out over the static k (elementwise, so a vmap vectorises it)."""
-    k = g.shape[0]
-    if k > _UNROLLED_K:
-        return jnp.linalg.solve(g, r.reshape(k, -1)).reshape(r.shape)
-    lo = [[None] * k for _ in range(k)]
-    for j in range(k):
-        d = jnp.sqrt(g[j, j] - sum((lo[j][m] ** 2 for m in range(j)), 0.0))
-        lo[j][j] = d
-        for i in range(j + 1, k):
-            lo[i][j] = (g[i, j] - sum((lo[i][m] * lo[j][m] for m in range(j)), 0.0)) / d
-    y = []
-    for i in range(k):
-        y.append((r[i] - sum((lo[i][m] * y[m] for m in range(i)), 0.0)) / lo[i][i])
-    xs = [None] * k
-    for i in reversed(range(k)):
-        xs[i] = (y[i] - sum((lo[m][i] * xs[m] for m in range(i + 1, k)), 0.0)) / lo[i][i]
-    return jnp.stack(xs)
-
-
-def _make_sigma(chirality: int) -> np.ndarray:
-    e = E_MU
-    eb = np.asarray(qt.qconj(e))
-    if chirality == 1:
-        s = np.asarray(qt.qmul(e[:, None], eb[None, :]))
-    else:
-        s = np.asarray(qt.qmul(eb[:, None], e[None, :]))
-    return s - np.swapaxes(s, 0, 1)
-
-
-_SIGMA = {1: _make_sigma(1), -1: _make_sigma(-1)}
-
-
-def _sigma_munu(chirality: int) -> np.ndarray:
-    """sigma_mu nu as quaternions, (4, 4, 4): e_mu e-bar_nu - e_nu e-bar_mu (or e-bar_mu e_nu - e-bar_nu e_mu)."""
-    return _SIGMA[chirality]
-
-
-def _quat_cholesky_inverse(gram):
-    """L^-1 for gram = L L^dag, quaternionic Hermitian positive (n, n, 4) -> lower-triangular (n, n, 4).
-
-    Quaternionic Cholesky (real positive diagonal), then forward substitution; plain loops over the
-    small static n, so it is differentiable where gram is positive definite.
-    """
-    n = gram.shape[0]
-    if n == 1:
-        return jnp.zeros((1, 1, 4)).at[0, 0, 0].set(1.0 / jnp.sqrt(gram[0, 0, 0]))
-    lo = [[jnp.zeros(4) for _ in range(n)] for _ in range(n)]
-    for j in range(n):
-        d = gram[j, j, 0] - sum((qt.qnorm2(lo[j][m]) for m in range(j)), 0.0)
-        ljj = jnp.sqrt(d)
-        lo[j][j] = jnp.zeros(4).at[0].set(ljj)
-        for i in range(j + 1, n):
-            acc = gram[i, j] - sum((qt.qmul(lo[i][m], qt.qconj(lo[j][m])) for m in range(j)), jnp.zeros(4))
-            lo[i][j] = acc / ljj
-    inv = [[jnp.zeros(4) for _ in range(n)] for _ in range(n)]
-    for i in range(n):
-        inv[i][i] = jnp.zeros(4).at[0].set(1.0 / lo[i][i][0])
-        for j in range(i):
-            acc = sum((qt.qmul(lo[i][m], inv[m][j]) for m in range(j, i)), jnp.zeros(4))
-            inv[i][j] = -acc / lo[i][i][0]
-    return jnp.stack([jnp.stack(row) for row in inv])
-
-
-# -- the closed-form link of charge 1 (package seam: ADHMData.closed_link, ansatz.BPSTField.closed_link) --
-
-#: Below this ratio sqrt(disc) / |w| the arctan quotient is replaced by its two-term series
-#: (the relative error of the series, ~(s/w)^4 / 5, is then below 1e-24; the quotient would lose digits).
-_SERIES_RATIO = 1e-6
-
-
-def _line_integral(alpha, beta, gamma, wedge2, c):
-    """Integral_0^1 dt / (alpha t^2 + beta t + gamma + c) for alpha t^2 + beta t + gamma = |y0 + t d|^2.
-
-    alpha = |d|^2, beta = 2 y0.d, gamma = |y0|^2, wedge2 = |y0 ^ d|^2 = alpha gamma - (y0.d)^2 >= 0.
-    With disc = 4 alpha (gamma + c) - beta^2 = 4 (wedge2 + alpha c) (no cancellation) the integral is
-    2 atan2(sqrt(disc), 2 (gamma + c) + beta) / sqrt(disc) (the arctan antiderivative with the
-    difference of two arctans folded into one atan2), and 2 / (2 (gamma + c) + beta) as disc -> 0.
-    Infinite when the segment meets a zero of the denominator (a singular point of the field).
-    """
-    s = jnp.sqrt(4.0 * (wedge2 + alpha * c))
-    w = 2.0 * (gamma + c) + beta
-    small = s <= _SERIES_RATIO * jnp.abs(w)
-    safe_s = jnp.where(small, 1.0, s)
-    safe_w = jnp.where(w == 0, 1.0, w)
-    series = 2.0 / safe_w * (1.0 - (s / safe_w) ** 2 / 3.0)  # atan2(s, w) / s for s << w > 0
-    series = jnp.where(w > 0, series, jnp.inf)
-    return jnp.where(small, series, 2.0 * jnp.arctan2(s, w) / safe_s)
-
-
-def charge_one_link(lam, b, chirality: int, gauge: str, x, d):
-    """Exact transporter of a charge-1 SU(2) instanton (BPST, either gauge) along x -> x + d; (2, 2) complex128.
-
-    Package-internal seam (not in ``__all__``): the one formula behind the ``closed_link`` hooks of
-    :class:`ADHMData` (k = n = 1) and ``ansatz.BPSTField``.  lam: Lambda (4,) quaternion, b: B (4,)
-    quaternion, chirality: +1 / -1, gauge: 'regular' / 'singular', x, d: (4,) start and displacement.
-
-    For k = 1, n = 1 the ADHM frame gives, with y = p(x) - B (p-bar(x) for chirality -1),
-    rho = |Lambda| and l = Lambda / rho (derivation from the frame of this module):
-
-        regular gauge:  A = l Im(y dy-bar) l-bar / (|y|^2 + rho^2),
-        singular gauge: A = l Im(y-bar dy) l-bar rho^2 / (|y|^2 (|y|^2 + rho^2))
-
-    (Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85; 't Hooft, Phys. Rev. D 14
-    (1976) 3432, in quaternion form).  On the straight line y = y0 + t dq the imaginary quaternion
-    Im(y dy-bar/dt) = Im(y0 dq-bar) (resp. Im(y-bar dy/dt) = Im(y0-bar dq)) does not depend on t, so all
-    A(z(t)) commute and U = exp(l M l-bar * integral of the scalar factor), an arctan closed form.
-    """
-    rho2 = jnp.sum(lam**2)
-    lhat = lam / jnp.sqrt(rho2)
-    px, pd = point_to_quaternion(jnp.asarray(x)), point_to_quaternion(jnp.asarray(d))
-    if chirality == -1:
-        px, pd = qt.qconj(px), qt.qconj(pd)
-    y0 = px - b
-    alpha, beta, gamma = jnp.sum(pd**2), 2.0 * jnp.sum(y0 * pd), jnp.sum(y0**2)
-    wedge = y0[:, None] * pd[None, :] - y0[None, :] * pd[:, None]
-    wedge2 = 0.5 * jnp.sum(wedge**2)
-    if gauge == "regular":
-        gen = qt.qmul(y0, qt.qconj(pd))
-        scalar = _line_integral(alpha, beta, gamma, wedge2, rho2)
-    else:
-        gen = qt.qmul(qt.qconj(y0), pd)
-        scalar = _line_integral(alpha, beta, gamma, wedge2, 0.0) - _line_integral(alpha, beta, gamma, wedge2, rho2)
-    gen = gen.at[0].set(0.0)
-    omega = qt.qmul(qt.qmul(lhat, gen), qt.qconj(lhat)) * scalar
-    return qt.to_matrix(qt.qexp(omega))
 
 
 def projection_transition(lam, b, chirality: int, x):

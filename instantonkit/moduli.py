@@ -20,6 +20,7 @@ import numpy as np
 from . import _validate
 from . import quaternion as qt
 from .adhm import CONSTRAINT_TOL, UNIT_TOL, ADHMData, constraint_matrix
+from .adhm_base import gauss_newton
 from .conventions import point_to_quaternion
 
 __all__ = ["bpst", "multi_instanton", "random_adhm", "embed_sp", "block_sum", "solve_constraint_unrolled"]
@@ -352,12 +353,8 @@ def solve_constraint_unrolled(lam, diag, *, steps: int = UNROLLED_STEPS, start=N
         c = qt.qmat_mul(qt.qmat_dagger(lam), lam) + qt.qmat_mul(qt.qmat_dagger(assemble(off)), assemble(off))
         return c[rows, cols, 1:].reshape(-1)
 
-    def newton(_, off):
-        r = resid(off)
-        jac = jax.jacfwd(resid)(off).reshape(3 * m, 4 * m)
-        return off - (jac.T @ jnp.linalg.solve(jac @ jac.T, r)).reshape(m, 4)
-
     off = jnp.zeros((m, 4)) if start is None else jax.lax.stop_gradient(jnp.asarray(start))
-    # a fori_loop keeps the traced graph (and the compile time) one step long; jvp/jacfwd go through it
-    off = jax.lax.fori_loop(0, int(steps), newton, off)
-    return assemble(off)
+    # the one Gauss-Newton iteration of both ADHM realisations (a fori_loop: the traced graph, and the
+    # compile time, stay one step long; jvp/jacfwd go through it)
+    flat, _, _ = gauss_newton(lambda v: resid(v.reshape(m, 4)), off.reshape(-1), steps=int(steps))
+    return assemble(flat.reshape(m, 4))

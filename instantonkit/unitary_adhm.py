@@ -35,6 +35,7 @@ import numpy as np
 from ._pytree import PytreeFields
 from ._validate import is_tracer, positive_float, real_array
 from .adhm import CONSTRAINT_TOL
+from .adhm_base import unitary_moment_maps
 from .conventions import CHARGE_DENSITY_FACTOR
 
 #: Parameters as arrays (numpy, or jax tracers under jit/grad).
@@ -138,18 +139,6 @@ def _as_complex(name: str, value, ndim: int):
     if not np.all(np.isfinite(arr)):
         raise ValueError(f"{name} must be finite; found {int(np.sum(~np.isfinite(arr)))} non-finite entries")
     return arr
-
-
-def unitary_moment_maps(b1, b2, i, j):
-    """(mu_R, mu_C) = ([B1,B1^dag] + [B2,B2^dag] + I I^dag - J^dag J, [B1,B2] + I J); two (k, k) complex.
-
-    Works for numpy and jax arrays.
-    """
-    xp = np if all(isinstance(a, np.ndarray) for a in (b1, b2, i, j)) else jnp
-    h = lambda a: xp.conj(xp.swapaxes(a, -1, -2))  # noqa: E731
-    mr = b1 @ h(b1) - h(b1) @ b1 + b2 @ h(b2) - h(b2) @ b2 + i @ h(i) - h(j) @ j
-    mc = b1 @ b2 - b2 @ b1 + i @ j
-    return mr, mc
 
 
 @jax.tree_util.register_pytree_node_class

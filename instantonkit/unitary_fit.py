@@ -4,9 +4,10 @@ Model: the exact action density of the complex charge-k data of well-separated i
 :func:`instantonkit.unitary_moduli.unitary_multi_instanton` (Atiyah, Hitchin, Drinfeld, Manin, Phys.
 Lett. A 65 (1978) 185; the complex form of :mod:`instantonkit.unitary_adhm`): diag(B_a) = z_a(a_i),
 I_i = rho_i e_0^T g_i^dag, J^i = rho_i g_i e_1, then the off-diagonal of B1, B2 (weight 1) and I, J
-(weight 0.1) moved by weighted minimum-norm Gauss-Newton onto both moment maps.  Here that iteration is
-written in jax (:func:`unitary_data`, ``_STEPS`` unrolled steps from the same start with the same
-weights, so it gives the numpy solver's data to rounding, tests/test_finder.py), so jax.jacfwd
+(weight 0.1) moved by weighted minimum-norm Gauss-Newton onto both moment maps.  That iteration is
+one jax function shared with the builder (:func:`instantonkit.adhm_base.solve_moment_maps`); here it runs
+``_STEPS`` unrolled steps from the same start with the same weights (:func:`unitary_data`, the builder's
+data to rounding, tests/test_finder.py), so jax.jacfwd
 differentiates the density through the constraint solve (why unrolled Newton steps give the
 implicit-function derivative: :func:`instantonkit.moduli.solve_constraint_unrolled`).
 
@@ -35,7 +36,8 @@ import numpy as np
 import scipy.optimize
 
 from ._lsq import ModuliFit, best_of_trials, padded_samples
-from .unitary_adhm import UnitaryADHMData, complex_coordinates, unitary_moment_maps
+from .adhm_base import pack_unitary, solve_moment_maps, unitary_weights, unpack_unitary
+from .unitary_adhm import UnitaryADHMData, complex_coordinates
 
 __all__ = ["UnitaryFit", "fit_unitary", "unitary_data", "orientation_basis"]
 
@@ -127,45 +129,23 @@ def _cayley(x):
     return jnp.linalg.solve(eye - 0.5 * x, eye + 0.5 * x)
 
 
-def _moment_residual(b1, b2, i, j):
-    """The 3k^2 real moment-map equations (Hermitian mu_R: upper triangle; mu_C: all entries)."""
-    mr, mc = unitary_moment_maps(b1, b2, i, j)
-    k = b1.shape[0]
-    up, sup = np.triu_indices(k), np.triu_indices(k, 1)
-    return jnp.concatenate([mr[up].real, mr[sup].imag, mc.real.ravel(), mc.imag.ravel()])
-
-
 def unitary_data(theta, gref, basis, k: int, n: int, steps: int = _STEPS):
-    """(B1, B2, I, J) (jax) of the parameters theta = [a (4k), log rho (k), omega (P)] (module docstring)."""
+    """(B1, B2, I, J) (jax) of the parameters theta = [a (4k), log rho (k), omega (P)] (module docstring).
+
+    The start and weights of :func:`instantonkit.unitary_moduli.unitary_multi_instanton` (diag B fixed,
+    off-diagonal weight 1, I and J 0.1), then ``steps`` unrolled steps of the one moment-map solve
+    :func:`instantonkit.adhm_base.solve_moment_maps` (the builder runs the same solve to a tolerance).
+    """
     c = theta[: 4 * k].reshape(k, 4)
     rho = jnp.exp(theta[4 * k : 5 * k])
     x = jnp.einsum("p,pkab->kab", theta[5 * k :].astype(jnp.complex128), basis)
     g = jnp.einsum("kab,kbc->kac", gref, jax.vmap(_cayley)(x))
     z1, z2 = complex_coordinates(c)
-    off = np.nonzero(~np.eye(k, dtype=bool))
-    m = int(off[0].size)
     i0 = rho[:, None] * jnp.conj(g[:, :, 0])
     j0 = (rho[:, None] * g[:, :, 1]).T
-
-    def assemble(z):
-        zc = z[0::2] + 1j * z[1::2]
-        b1 = jnp.diag(z1).astype(jnp.complex128).at[off].set(zc[:m])
-        b2 = jnp.diag(z2).astype(jnp.complex128).at[off].set(zc[m : 2 * m])
-        return b1, b2, zc[2 * m : 2 * m + k * n].reshape(k, n), zc[2 * m + k * n :].reshape(n, k)
-
-    def pack(parts):
-        zc = jnp.concatenate([jnp.ravel(p) for p in parts])
-        return jnp.stack([zc.real, zc.imag], axis=1).ravel()
-
-    w = jnp.asarray(np.repeat(np.concatenate([np.full(2 * m, _W_B), np.full(2 * k * n, _W_IJ)]), 2))
-    resid = lambda z: _moment_residual(*assemble(z))  # noqa: E731
-
-    def newton(_, z):
-        jw = jax.jacfwd(resid)(z) * w[None, :]
-        return z - w * (jw.T @ jnp.linalg.solve(jw @ jw.T, resid(z)))
-
-    z0 = pack([jnp.zeros(m, jnp.complex128), jnp.zeros(m, jnp.complex128), i0, j0])
-    return assemble(jax.lax.fori_loop(0, int(steps), newton, z0))
+    z0 = pack_unitary(jnp.diag(z1).astype(jnp.complex128), jnp.diag(z2).astype(jnp.complex128), i0, j0)
+    z, _, _ = solve_moment_maps(z0, unitary_weights(k, n, _W_B, 0.0, _W_IJ), k, n, steps=steps)
+    return unpack_unitary(z, k, n)
 
 
 def _density(theta, gref, basis, pts, k, n):

@@ -9,12 +9,15 @@ from __future__ import annotations
 
 import dataclasses
 
+import jax
+import jax.numpy as jnp
 import numpy as np
 
 from . import quaternion as qt
 from ._validate import nonnegative_int, positive_float, positive_int, real_array
 from .adhm import ADHMData
-from .unitary_adhm import UnitaryADHMData, check_unitary, complex_coordinates, unitary_moment_maps
+from .adhm_base import moment_residual, pack_unitary, solve_moment_maps, unitary_weights, unpack_unitary
+from .unitary_adhm import UnitaryADHMData, check_unitary, complex_coordinates
 
 __all__ = [
     "from_quaternionic",
@@ -23,6 +26,9 @@ __all__ = [
     "random_unitary_adhm",
     "constraint_jacobian",
 ]
+
+#: Most Gauss-Newton steps of the constraint solve (it converges quadratically, in 3-6 from these starts).
+_SOLVER_STEPS = 60
 
 # -- conversions ---------------------------------------------------------------------------------------
 
@@ -78,82 +84,24 @@ def embed_unitary(data, rank: int, offset: int = 0) -> UnitaryADHMData:
 # -- constraint solver ---------------------------------------------------------------------------------
 
 
-def _pack_residual(b1, b2, i, j) -> np.ndarray:
-    """The 3k^2 real moment-map equations: Re mu_R (i <= j), Im mu_R (i < j), Re and Im of mu_C."""
-    mr, mc = unitary_moment_maps(b1, b2, i, j)
-    k = b1.shape[0]
-    up = np.triu_indices(k)
-    sup = np.triu_indices(k, 1)
-    return np.concatenate([mr[up].real, mr[sup].imag, mc.real.ravel(), mc.imag.ravel()])
-
-
-def _unpack(vec: np.ndarray, k: int, n: int):
-    c = vec[0::2] + 1j * vec[1::2]
-    sizes = [k * k, k * k, k * n, n * k]
-    parts = np.split(c, np.cumsum(sizes)[:-1])
-    return parts[0].reshape(k, k), parts[1].reshape(k, k), parts[2].reshape(k, n), parts[3].reshape(n, k)
-
-
-def _pack(b1, b2, i, j) -> np.ndarray:
-    c = np.concatenate([np.ravel(a) for a in (b1, b2, i, j)])
-    out = np.empty(2 * c.size)
-    out[0::2], out[1::2] = c.real, c.imag
-    return out
-
-
-def _jacobian(vec: np.ndarray, k: int, n: int) -> np.ndarray:
-    """Exact Jacobian of the (quadratic) moment maps at vec: central differences are exact for quadratics."""
-    cols = []
-    for a in range(vec.size):
-        e = np.zeros(vec.size)
-        e[a] = 1.0
-        cols.append(0.5 * (_pack_residual(*_unpack(vec + e, k, n)) - _pack_residual(*_unpack(vec - e, k, n))))
-    return np.stack(cols, axis=1)
-
-
 def constraint_jacobian(data: UnitaryADHMData) -> np.ndarray:
     """(3k^2, 4k^2 + 4kN) real Jacobian of the moment maps at the data (package-internal seam).
 
     Rows: Re mu_R (upper triangle with the diagonal, row-major), Im mu_R (strict upper triangle),
     Re mu_C, Im mu_C (row-major).  Columns: the entries of B1, B2, I, J (each row-major, in that
-    order), each entry as its real then imaginary part.
+    order), each entry as its real then imaginary part (:func:`instantonkit.adhm_base.pack_unitary`).
     """
-    return _jacobian(_pack(data.B1, data.B2, data.I, data.J), data.k, data.rank)
+    k, n = data.k, data.rank
+    resid = lambda z: moment_residual(*unpack_unitary(z, k, n))  # noqa: E731
+    return np.asarray(
+        jax.jacfwd(resid)(jnp.asarray(pack_unitary(*(np.asarray(a) for a in (data.B1, data.B2, data.I, data.J)))))
+    )
 
 
-def _solve(vec: np.ndarray, k: int, n: int, weights: np.ndarray, *, tol: float, max_iter: int = 60):
-    """Weighted minimum-norm Gauss-Newton for the moment maps from ``vec``; weights 0 freeze a variable.
-
-    Step: minimise |W^-1 step| subject to J step = -r (numpy lstsq on J W).  Returns (vec, residual, its).
-    """
-    free = weights > 0
-    converged = None
-    res = np.inf
-    for it in range(max_iter):
-        r = _pack_residual(*_unpack(vec, k, n))
-        res = float(np.max(np.abs(r)))
-        if converged is not None:
-            return (vec, res, it) if res < converged[1] else (converged[0], converged[1], it)
-        if res <= tol:
-            converged = (vec.copy(), res)
-        jac = _jacobian(vec, k, n)[:, free] * weights[free]
-        step, *_ = np.linalg.lstsq(jac, -r, rcond=None)
-        vec = vec.copy()
-        vec[free] += weights[free] * step
-        if not np.all(np.isfinite(vec)):
-            break
-    if converged is not None:
-        return converged[0], converged[1], max_iter
-    return vec, res, max_iter
-
-
-def _variable_mask(k: int, n: int, off_b: float, diag_b: float, ij: float) -> np.ndarray:
-    w = [np.full((k, k), off_b), np.full((k, k), off_b)]
-    for m in w:
-        m[np.arange(k), np.arange(k)] = diag_b
-    w += [np.full((k, n), ij), np.full((n, k), ij)]
-    c = np.concatenate([m.ravel() for m in w])
-    return np.repeat(c, 2)
+def _solve(vec: np.ndarray, k: int, n: int, weights: np.ndarray, *, tol: float):
+    """The shared moment-map solve (:func:`instantonkit.adhm_base.solve_moment_maps`) from ``vec``, as numpy."""
+    z, res, it = solve_moment_maps(vec, weights, k, n, steps=_SOLVER_STEPS, tol=tol)
+    return np.asarray(z), float(res), int(it)
 
 
 def unitary_multi_instanton(
@@ -198,16 +146,16 @@ def unitary_multi_instanton(
     b1, b2 = np.diag(z1).astype(np.complex128), np.diag(z2).astype(np.complex128)
     i = r[:, None] * g[:, :, 0].conj()  # row i: rho e_0^T g_i^dag
     j = (r[:, None] * g[:, :, 1]).T  # column i: rho g_i e_1
-    vec = _pack(b1, b2, i, j)
+    vec = pack_unitary(b1, b2, i, j)
     scale = 1.0 + float(np.max(r) ** 2 + np.max(np.sum(c**2, axis=1)))
-    weights = _variable_mask(k, rank, 1.0, 0.0, 0.1)
+    weights = unitary_weights(k, rank, 1.0, 0.0, 0.1)
     out, res, it = _solve(vec, k, rank, weights, tol=tol * scale) if k > 1 else (vec, 0.0, 0)
     if not (res <= tol * scale):
         raise ValueError(
             f"could not solve the moment maps for k = {k}: residual {res:.3e} after {it} steps "
             f"(tolerance {tol * scale:.1e}); the centres may be too close for the sizes"
         )
-    b1, b2, i_mat, j_mat = _unpack(out, k, rank)
+    b1, b2, i_mat, j_mat = unpack_unitary(out, k, rank)
     return UnitaryADHMData(b1, b2, i_mat, j_mat, gauge=gauge)
 
 
@@ -232,11 +180,11 @@ def random_unitary_adhm(
         cn = lambda *s, sc: sc * (rng.normal(size=s) + 1j * rng.normal(size=s)) / np.sqrt(2.0)  # noqa: E731
         b1, b2 = cn(k, k, sc=spread), cn(k, k, sc=spread)
         i, j = cn(k, rank, sc=size), cn(rank, k, sc=size)
-        vec = _pack(b1, b2, i, j)
+        vec = pack_unitary(b1, b2, i, j)
         scale = 1.0 + float(np.sum(vec**2))
         out, res, it = _solve(vec, k, rank, np.ones(vec.size), tol=tol * scale)
         if res <= tol * scale:
-            data = UnitaryADHMData(*_unpack(out, k, rank))
+            data = UnitaryADHMData(*unpack_unitary(out, k, rank))
             if float(np.min(np.linalg.svd(np.asarray(data.I), compute_uv=False))) > 1e-3 * size or k > rank:
                 return data
         last = f"residual {res:.3e} after {it} steps"

@@ -19,6 +19,13 @@ import instantonkit as ik
 from instantonkit import quaternion as qt
 from instantonkit import unitary_adhm as ua
 from instantonkit import unitary_moduli as um
+from instantonkit.adhm_base import (
+    ADHMConstruction,
+    solve_moment_maps,
+    unitary_moment_maps,
+    unitary_weights,
+    unpack_unitary,
+)
 from instantonkit.testing import unitary_adhm_data
 
 N_POINTS = 16
@@ -444,3 +451,23 @@ def test_validation_messages():
         good.rotate_su(2 * np.eye(3))
     with pytest.raises(ValueError, match="SU\\(2\\) instanton data"):
         um.from_quaternionic(ik.random_adhm(1, rank=2))
+
+
+def test_both_adhm_realisations_satisfy_one_interface():
+    # adhm_base.ADHMConstruction: the structural interface of quaternionic and complex data
+    assert isinstance(ik.random_adhm(2, seed=1), ADHMConstruction)
+    assert isinstance(um.random_unitary_adhm(2, 3, seed=1), ADHMConstruction)
+
+
+def test_the_shared_moment_map_solve_keeps_frozen_entries_and_reaches_its_tolerance():
+    # weighted minimum-norm Gauss-Newton (common practice): weight 0 leaves an entry exactly as it was
+    k, n = 2, 3
+    rng = np.random.default_rng(3)
+    z0 = rng.normal(size=2 * (2 * k * k + 2 * k * n))
+    w = unitary_weights(k, n, 1.0, 0.0, 0.1)
+    z, res, steps = solve_moment_maps(z0, w, k, n, steps=60, tol=1e-12)
+    z = np.asarray(z)
+    assert float(res) <= 1e-12 and int(steps) < 60
+    np.testing.assert_array_equal(z[w == 0], z0[w == 0])
+    mr, mc = unitary_moment_maps(*unpack_unitary(z, k, n))
+    assert max(np.max(np.abs(mr)), np.max(np.abs(mc))) <= 1e-12
