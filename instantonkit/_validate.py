@@ -8,6 +8,7 @@ Booleans are never accepted as numbers (``rtol=True`` is refused everywhere).
 from __future__ import annotations
 
 import numbers
+import os
 
 import jax
 import numpy as np
@@ -27,7 +28,33 @@ __all__ = [
     "sign",
     "choice",
     "lattice_shape",
+    "machine_memory",
+    "affordable",
 ]
+
+# the least memory one lattice site takes: four SU(2) links of 2 x 2 complex128 (4 * 4 * 16 bytes)
+SITE_BYTES = 256
+
+
+def machine_memory() -> int:
+    """The machine's physical memory in bytes (``os.sysconf``), or 0 where the system does not say."""
+    try:
+        return int(os.sysconf("SC_PAGE_SIZE")) * int(os.sysconf("SC_PHYS_PAGES"))
+    except (ValueError, OSError, AttributeError):
+        return 0
+
+
+def affordable(name: str, nbytes: float, what: str) -> None:
+    """Refuse, before allocating anything, a request whose memory estimate exceeds the machine's memory.
+
+    The message names the argument, the estimate and the memory this machine has (``os.sysconf``).
+    """
+    total = machine_memory()
+    if total and nbytes > total:
+        raise ValueError(
+            f"{name} is too large: {what} needs at least {nbytes:.3e} bytes; "
+            f"this machine has {total:.3e} bytes of memory"
+        )
 
 
 def is_tracer(*values) -> bool:
@@ -88,6 +115,7 @@ def real_array(name: str, value, shape: tuple | None = None, *, shape_text: str 
         raise TypeError(f"{name} must be a real numeric array; found dtype {arr.dtype}")
     if arr.dtype == np.bool_:
         raise TypeError(f"{name} must be a real numeric array; found dtype bool")
+    affordable(name, 8.0 * arr.size, f"a float64 copy of {arr.size} values")
     if shape is not None:
         ok = arr.ndim == len(shape) and all(s is None or s == n for s, n in zip(shape, arr.shape))
         if not ok:
@@ -138,6 +166,7 @@ def points(value, name: str = "points") -> tuple[np.ndarray, tuple[int, ...]]:
         raise TypeError(f"{name} must be a real numeric array; found dtype {arr.dtype}")
     if arr.ndim < 1 or arr.shape[-1] != 4:
         raise ValueError(f"{name} must have shape (..., 4); found {arr.shape}")
+    affordable(name, 8.0 * arr.size, f"a float64 copy of {arr.size // 4} points")
     arr = arr.astype(np.float64, copy=False)
     finite = np.isfinite(arr)
     if not np.all(finite):
@@ -152,6 +181,7 @@ def distinct_points(name: str, arr: np.ndarray, min_distance: float, *, noun: st
     The message names the closest pair: "centers 0 and 2 coincide (distance 0.000e+00); give distinct centers".
     """
     m = arr.shape[0]
+    affordable(name, 32.0 * m * m, f"comparing {m} {noun} pairwise")
     if m > 1:
         d = np.linalg.norm(arr[:, None] - arr[None], axis=-1) + np.diag(np.full(m, np.inf))
         i, j = np.unravel_index(np.argmin(d), d.shape)
@@ -187,11 +217,15 @@ def choice(name: str, value, options: tuple):
 
 def lattice_shape(name: str, value) -> tuple:
     """Four positive integers (L1, L2, L3, L4) as a tuple of ints (integral floats accepted, booleans refused)."""
+    if isinstance(value, (str, bytes)):
+        raise TypeError(f"{name} must be a sequence of 4 integers (L1, L2, L3, L4); found the text {value!r}")
     try:
         items = tuple(value)
         s = tuple(int(v) for v in items)
-    except (TypeError, ValueError) as err:
+    except (TypeError, ValueError, OverflowError) as err:
         raise TypeError(f"{name} must be a sequence of 4 integers (L1, L2, L3, L4); found {value!r}") from err
     if len(s) != 4 or any(v < 1 for v in s) or any(_is_bool(v) or int(v) != v for v in items):
         raise ValueError(f"{name} must be 4 positive integers (L1, L2, L3, L4); found {items!r}")
+    sites = float(np.prod(np.array(s, dtype=np.float64)))
+    affordable(name, SITE_BYTES * sites, f"a lattice of {sites:.3e} sites (four SU(2) links each)")
     return s
