@@ -1,4 +1,4 @@
-"""Timings and accuracies of instantonkit.checks: charge and action integrals, verify().
+"""Timings and accuracies of instantonkit.verification.checks: charge and action integrals, verify().
 
 Prints a table; ``--quick`` runs the small cases only, ``--long`` adds verify on charge-4 data.  ``run(quick)`` returns the rows as dicts
 {figure, value, unit, ratio, reference} for scripts.  Timings include JIT compilation (first call of
@@ -11,9 +11,10 @@ import argparse
 import time
 
 import instantonkit as ik
-from instantonkit import ansatz, checks
 from instantonkit.__main__ import DEMO_CHARGE, demo_configuration
-from instantonkit.conventions import INSTANTON_ACTION
+from instantonkit.ansatz import classic as ansatz
+from instantonkit.core.conventions import INSTANTON_ACTION
+from instantonkit.verification import checks
 
 
 def _timed(fn):

@@ -224,7 +224,7 @@ def scaling(size: int, malloc_trim: bool = True, client=None) -> list[dict]:
     import numpy as np
 
     import instantonkit as ik
-    from instantonkit import lattice as lat
+    from instantonkit.lattice import starts as lat
 
     load = os.getloadavg()[0] if hasattr(os, "getloadavg") else math.nan  # other work skews a 2-core figure
     field = ik.multi_instanton([[1.0, 0.0, 0.0, 0.0], [-1.0, 0.0, 0.0, 0.0]], [1.0, 1.0])
@@ -365,7 +365,7 @@ def _memory_run(size: int, chunks: tuple, malloc_trim: bool = True, client=None)
     """One BPST SU(3) start of size^4 sites in ``chunks`` on a fresh 2-worker cluster (or on the shared
     ``client``): time and worker peaks."""
     import instantonkit as ik
-    from instantonkit import lattice as lat
+    from instantonkit.lattice import starts as lat
 
     field = ik.bpst(size=2.0)
     shape = (size,) * 4

@@ -1,4 +1,4 @@
-"""Throughput, cost and first-call latency of the field layer (instantonkit.fields on ADHM data).
+"""Throughput, cost and first-call latency of the field layer (instantonkit.engine.fields on ADHM data).
 
 Rows (see :func:`run`), each with its ratio to a reference measured in the same run:
 
@@ -40,10 +40,11 @@ import jax.numpy as jnp
 import numpy as np
 
 import instantonkit as ik
-from instantonkit import _kxk, fields
-from instantonkit._batching import run_batched
-from instantonkit.conventions import QUATERNION_BASIS
-from instantonkit.quaternion import thooft_eta
+from instantonkit.adhm import _kxk
+from instantonkit.core._batching import run_batched
+from instantonkit.core.conventions import QUATERNION_BASIS
+from instantonkit.core.quaternion import thooft_eta
+from instantonkit.engine import fields
 
 ETA = thooft_eta()
 

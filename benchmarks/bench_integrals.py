@@ -5,7 +5,7 @@ the volume rule and the overhead use a second, compiled call), points,
 |Q - k|, the reported error and its ratio to the true error (must be >= 1), and the integrator's
 overhead: its time over the time of evaluating the same number of points of the density alone, measured
 in the same run (so the figure does not depend on the machine's load the way seconds do).  The default
-route for ADHM data is Osborn's flux (instantonkit.flux); each case also runs the adaptive volume rule
+route for ADHM data is Osborn's flux (instantonkit.integrals.flux); each case also runs the adaptive volume rule
 (``route='volume'``, the reference) on the same budget, and the time, points and |Q - k| rows give the
 ratios to it.  ``run(quick)`` returns rows {figure, value, unit, ratio, reference}; ``quick`` caps every
 integral at 300,000 points and runs k = 1 and 4 only.  Q = k for ADHM data (Atiyah, Hitchin, Drinfeld, Manin,
@@ -25,7 +25,8 @@ if __package__ in (None, ""):  # run as a script: make the repository importable
     sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
 import instantonkit as ik
-from instantonkit import fields, integrals
+from instantonkit.engine import fields
+from instantonkit.integrals import drivers as integrals
 
 #: (k, tolerance) of the rows: the issue's goals (k <= 4 to 1e-10 in <= 10 s, k = 8 to 1e-8 in <= 60 s).
 CASES = ((1, 1e-10, 10.0), (2, 1e-10, 10.0), (3, 1e-10, 10.0), (4, 1e-10, 10.0), (8, 1e-8, 60.0))

@@ -25,7 +25,7 @@ def _one(size: int, group: str, queue) -> None:
     import numpy as np
 
     import instantonkit as ik
-    from instantonkit import lattice as lat
+    from instantonkit.lattice import starts as lat
 
     data = ik.bpst(size=2.0)  # rho / a = 4, singular gauge (periodic start)
     lat.lattice_links(data, (16, 16, 4, 1), 0.5, group=group)  # compile (full-size batches) outside the timing
@@ -47,7 +47,7 @@ def _disk(size: int, group: str, directory: str, queue) -> None:
     import numpy as np
 
     import instantonkit as ik
-    from instantonkit import lattice as lat
+    from instantonkit.lattice import starts as lat
 
     data = ik.bpst(size=2.0)
     n = 3 if group == "su3" else 2
@@ -120,7 +120,7 @@ def link_costs(quick: bool = False, reuse: bool = False) -> list[dict]:
     import warnings
 
     import instantonkit as ik
-    from instantonkit import lattice as lat
+    from instantonkit.lattice import starts as lat
 
     two = ik.multi_instanton(centers=[[-3, 0, 0, 0], [3, 0.5, 0, 0]], sizes=[1.0, 1.0])
     one, field = ik.bpst(size=1.0), ik.bpst_field(size=1.0, gauge="singular")
@@ -238,8 +238,8 @@ def periodic_figures(quick: bool = False, charge_two: bool = False) -> list[dict
     import numpy as np
 
     import instantonkit as ik
-    from instantonkit import lattice as lat
-    from instantonkit import references
+    from instantonkit.lattice import references
+    from instantonkit.lattice import starts as lat
 
     e = 8 * np.pi**2
     rows = []
@@ -255,7 +255,7 @@ def periodic_figures(quick: bool = False, charge_two: bool = False) -> list[dict
         row(
             f"window excess S_w/8pi^2 - 1, box L = {box:g} rho",
             ref["excess_fraction"],
-            "falls ~ (rho/L)^4 (instantonkit.periodic)",
+            "falls ~ (rho/L)^4 (instantonkit.ansatz.periodic)",
         )
     starts = [("shortest call bpst() 16^4, rho/a = 3", ik.bpst(), (16,) * 4, 1 / 3, 1e-10, "su2")]
     if charge_two:

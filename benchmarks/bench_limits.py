@@ -212,7 +212,7 @@ import numpy as np
 import jax.numpy as jnp
 import instantonkit as ik
 from instantonkit import fields
-from instantonkit.conventions import point_to_quaternion
+from instantonkit.core.conventions import point_to_quaternion
 
 ks = json.loads(sys.argv[1])
 out = {}

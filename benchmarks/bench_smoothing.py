@@ -48,8 +48,8 @@ def _timing_rows(size: int, repeat: int, groups, flow_only=(), su2_start=None, p
     import jax.numpy as jnp
 
     import instantonkit as ik
-    from instantonkit import lattice as lat
-    from instantonkit import smoothing as sm
+    from instantonkit.lattice import smoothing as sm
+    from instantonkit.lattice import starts as lat
 
     rows = []
     per_link = {} if per_link is None else per_link
@@ -99,7 +99,7 @@ def _timing_rows(size: int, repeat: int, groups, flow_only=(), su2_start=None, p
 def _start(size: int, rho: float):
     """A periodic singular-gauge BPST start of size^4 sites, rho/a = rho, SU(2); numpy links."""
     import instantonkit as ik
-    from instantonkit import lattice as lat
+    from instantonkit.lattice import starts as lat
 
     return lat.lattice_links(ik.bpst(size=rho), (size,) * 4, 1.0)
 
@@ -107,7 +107,7 @@ def _start(size: int, rho: float):
 def _flow_rows(size: int, times, rho: float = 3.0, u=None, note: str = "") -> list[dict]:
     import numpy as np
 
-    from instantonkit import smoothing as sm
+    from instantonkit.lattice import smoothing as sm
 
     u = _start(size, rho) if u is None else u
     _, rec = sm.wilson_flow(u, max(times), 0.02, every=5)
@@ -151,7 +151,7 @@ def _flow_rows(size: int, times, rho: float = 3.0, u=None, note: str = "") -> li
 def _cooling_rows(size: int, sweeps: int, u=None) -> list[dict]:
     import numpy as np
 
-    from instantonkit import smoothing as sm
+    from instantonkit.lattice import smoothing as sm
 
     u = _start(size, 2.0) if u is None else u
     rows = []

@@ -3,7 +3,7 @@
 Prints the table of the README's SU(3) section: for open-boundary starts of one genuine SU(3) charge-2
 field (complex ADHM data, two lumps of size rho = 1 with independent SU(3) orientations) on a fixed
 box at several spacings, the Wilson action over the continuum action of the same region
-(:func:`instantonkit.references.continuum_reference`), the expected ratio 1 - (1/5)(a/rho)^2 -
+(:func:`instantonkit.lattice.references.continuum_reference`), the expected ratio 1 - (1/5)(a/rho)^2 -
 (1/70)(a/rho)^4 (García Pérez, González-Arroyo, Snippe, van Baal, Nucl. Phys. B 413 (1994) 535, from
 memory), S / (8 pi^2 k) and the clover charge over the continuum charge of the clovers' region.
 
@@ -18,9 +18,9 @@ import time
 import numpy as np
 
 import instantonkit as ik
-from instantonkit import observables as ob
-from instantonkit import references
-from instantonkit import unitary_moduli as um
+from instantonkit.adhm import unitary_moduli as um
+from instantonkit.lattice import observables as ob
+from instantonkit.lattice import references
 
 BOX = 4.5  # side of the lattice's box, in units of rho
 CENTRES = np.array([[0.0, 0.0, 0.0, 0.0], [1.5, 0.0, 0.5, 0.0]])

@@ -1,38 +1,29 @@
 """instantonkit: exact Yang-Mills instantons (BPST, ADHM for SU(2) and Sp(n), classic ansaetze), their
 densities by closed form and automatic differentiation, checks of charge and self-duality, and lattice
-starts.  Conventions: :mod:`instantonkit.conventions` and docs/conventions.md.
+starts.  Conventions: :mod:`instantonkit.core.conventions` and docs/conventions.md.
 """
 
-from . import (
-    _config,  # noqa: F401  (float64 before anything is traced)
-    cluster,  # dask and zarr are imported only when a chunked run starts
-    conventions,
-    io,
-    lattice,
-    moduli,
-    observables,
-    quaternion,
-    references,
-    smoothing,
-    transport,
-    unitary_adhm,
-    unitary_moduli,
-)
-from ._config import enable_compile_cache, set_lean_compile
-from ._links import check_links, project_links
-from .adhm import ADHMData
-from .ansatz import bpst_field, caloron, jnr, thooft
-from .checks import (
-    DivergentIntegralError,
-    FieldEvaluationError,
-    IntegralResult,
-    Verification,
-    total_action,
-    total_charge,
-    verify,
-)
+import sys as _sys
+from importlib import import_module as _import_module
+
+from .core import _config  # noqa: F401, I001  (float64 before anything is traced)
+
+# isort: split
+
+from . import cluster, lattice
+from .adhm import moduli, unitary_moduli
+from .adhm import unitary as unitary_adhm
+from .adhm.moduli import block_sum, bpst, embed_sp, multi_instanton, random_adhm
+from .adhm.quaternionic import ADHMData
+from .adhm.unitary import UnitaryADHMData
+from .adhm.unitary_moduli import embed_unitary, from_quaternionic, random_unitary_adhm, unitary_multi_instanton
+from .adhm.zero_modes import zero_mode_density, zero_mode_overlap, zero_modes
+from .ansatz.classic import bpst_field, caloron, jnr, thooft
 from .cluster import ensemble
-from .fields import (
+from .core import conventions, quaternion
+from .core._config import enable_compile_cache, set_lean_compile
+from .core._links import check_links, project_links
+from .engine.fields import (
     ParametrisedField,
     action_density,
     as_field,
@@ -41,16 +32,23 @@ from .fields import (
     potential,
     self_duality_residual,
 )
-from .finder import InstantonFit, MixedFit, find_instantons
-from .io import load_lattice, save_lattice
-from .lattice import average_plaquette, clover_charge, lattice_links, lattice_start, wilson_action
-from .lattice_fit import ColourRank, colour_rank, find_lattice_instantons
-from .moduli import block_sum, bpst, embed_sp, multi_instanton, random_adhm
-from .smoothing import cool, gradient_flow, improved_action, improved_charge, wilson_flow
-from .transforms import anti, dilate, gauge_transform, parity, rotate, translate
-from .unitary_adhm import UnitaryADHMData
-from .unitary_moduli import embed_unitary, from_quaternionic, random_unitary_adhm, unitary_multi_instanton
-from .zero_modes import zero_mode_density, zero_mode_overlap, zero_modes
+from .engine.transforms import anti, dilate, gauge_transform, parity, rotate, translate
+from .fit.finder import InstantonFit, MixedFit, find_instantons
+from .fit.lattice_fit import ColourRank, colour_rank, find_lattice_instantons
+from .lattice import files as io
+from .lattice import observables, references, smoothing, transport
+from .lattice.files import load_lattice, save_lattice
+from .lattice.smoothing import cool, gradient_flow, improved_action, improved_charge, wilson_flow
+from .lattice.starts import average_plaquette, clover_charge, lattice_links, lattice_start, wilson_action
+from .verification.checks import (
+    DivergentIntegralError,
+    FieldEvaluationError,
+    IntegralResult,
+    Verification,
+    total_action,
+    total_charge,
+    verify,
+)
 
 __version__ = "0.1.0"
 
@@ -139,3 +137,52 @@ __all__ = [
     "from_quaternionic",
     "embed_unitary",
 ]
+
+
+# -- the flat layout's module paths: ``instantonkit.<old>`` keeps working (imports and attributes) ------------------
+#: old module name -> where the module lives now (the folders adhm, ansatz, integrals and lattice keep
+#: their old names themselves and re-export the modules they replaced).
+_MOVED = {
+    "_atomic": "core._atomic",
+    "_batching": "core._batching",
+    "_config": "core._config",
+    "_kxk": "adhm._kxk",
+    "_links": "core._links",
+    "_lsq": "fit._lsq",
+    "_progress": "core._progress",
+    "_pytree": "core._pytree",
+    "_validate": "core._validate",
+    "adhm_base": "adhm.base",
+    "adhm_kernels": "adhm.kernels",
+    "boundaries": "lattice.boundaries",
+    "checks": "verification.checks",
+    "conventions": "core.conventions",
+    "cubature": "integrals.cubature",
+    "evidence": "verification.evidence",
+    "field_protocol": "engine.protocol",
+    "fields": "engine.fields",
+    "finder": "fit.finder",
+    "flux": "integrals.flux",
+    "io": "lattice.files",
+    "lattice_fit": "fit.lattice_fit",
+    "moduli": "adhm.moduli",
+    "moduli_fit": "fit.moduli_fit",
+    "observables": "lattice.observables",
+    "peaks": "fit.peaks",
+    "periodic": "ansatz.periodic",
+    "quadrature": "integrals.quadrature",
+    "quaternion": "core.quaternion",
+    "references": "lattice.references",
+    "report": "verification.report",
+    "singular": "integrals.singular",
+    "smoothing": "lattice.smoothing",
+    "transforms": "engine.transforms",
+    "transport": "lattice.transport",
+    "unitary_adhm": "adhm.unitary",
+    "unitary_fit": "fit.unitary_fit",
+    "unitary_moduli": "adhm.unitary_moduli",
+    "zero_mode_phase": "adhm.zero_mode_phase",
+    "zero_modes": "adhm.zero_modes",
+}
+for _old, _new in _MOVED.items():
+    _sys.modules[f"{__name__}.{_old}"] = globals()[_old] = _import_module(f".{_new}", __name__)

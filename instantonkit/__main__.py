@@ -32,10 +32,10 @@ from pathlib import Path
 
 import numpy as np
 
-from . import fields as _fields
-from .adhm import ADHMData
-from .checks import FAILED, PASSED, verify
-from .moduli import multi_instanton
+from .adhm.moduli import multi_instanton
+from .adhm.quaternionic import ADHMData
+from .engine import fields as _fields
+from .verification.checks import FAILED, PASSED, verify
 
 #: Instanton number of the default configuration (the report checks it).
 DEMO_CHARGE = 3

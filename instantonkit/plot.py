@@ -4,7 +4,7 @@ matplotlib is an optional extra (``pip install instantonkit[plot]``); it is impo
 functions, never when instantonkit is imported.  Every function returns the matplotlib Figure.
 
 Coordinates passed in (``at``, ``extent``, ``values``) are positions in the same units as the
-points of :mod:`instantonkit.fields`; the axes show them in units of a length scale ``L`` (the
+points of :mod:`instantonkit.engine.fields`; the axes show them in units of a length scale ``L`` (the
 field's ``hint()`` scale, e.g. the size rho of a BPST instanton, or ``scale=``), and densities are
 shown as the dimensionless ``s L^4`` and ``q L^4`` (s and q have dimension length^-4).  Quantities:
 
@@ -22,7 +22,7 @@ from collections.abc import Mapping, Sequence
 
 import numpy as np
 
-from . import fields as _fields
+from .engine import fields as _fields
 
 __all__ = ["density_slice", "slice_panels", "convergence", "QUANTITIES", "AXES"]
 
@@ -448,7 +448,7 @@ def convergence(
     """Convergence curves of integrals against the work spent; returns the Figure.
 
     data: one series or a mapping label -> series.  A series is a sequence of
-    :class:`instantonkit.checks.IntegralResult` (or objects with ``evaluations``, ``value``, ``error``),
+    :class:`instantonkit.verification.checks.IntegralResult` (or objects with ``evaluations``, ``value``, ``error``),
     the list of dicts that the ``progress=`` callback of the integrals receives, a mapping with keys
     'evaluations' (or 'n'), 'value', 'error', or a triple (n, value, error) of arrays.
     Left panel: value with error bars against n (and the ``reference`` line); right panel, log-log:

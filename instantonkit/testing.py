@@ -19,12 +19,12 @@ import numpy as np
 from hypothesis import assume
 from hypothesis import strategies as st
 
-from . import _validate
-from . import quaternion as qt
-from .adhm import ADHMData
-from .moduli import multi_instanton, random_adhm
-from .unitary_adhm import UnitaryADHMData
-from .unitary_moduli import random_unitary_adhm
+from .adhm.moduli import multi_instanton, random_adhm
+from .adhm.quaternionic import ADHMData
+from .adhm.unitary import UnitaryADHMData
+from .adhm.unitary_moduli import random_unitary_adhm
+from .core import _validate
+from .core import quaternion as qt
 
 __all__ = [
     "finite_floats",
@@ -147,12 +147,12 @@ def adhm_data(
     spread: float = 2.0,
     size_range=(0.5, 1.5),
 ) -> st.SearchStrategy:
-    """Valid ADHM data (:class:`instantonkit.adhm.ADHMData`) of drawn charge and rank.
+    """Valid ADHM data (:class:`instantonkit.adhm.quaternionic.ADHMData`) of drawn charge and rank.
 
     k, rank, chirality: ints or strategies of ints (k >= 1, rank >= 1, chirality +1 or -1).
-    source: ``"seed"`` draws a seed for :func:`instantonkit.adhm.random_adhm` (fast, shrinks to
+    source: ``"seed"`` draws a seed for :func:`instantonkit.adhm.quaternionic.random_adhm` (fast, shrinks to
     seed 0); ``"moduli"`` draws centres (coordinates in ``[-spread, spread]``), sizes in
-    ``size_range`` and orientations, and solves with :func:`instantonkit.adhm.multi_instanton`.
+    ``size_range`` and orientations, and solves with :func:`instantonkit.adhm.quaternionic.multi_instanton`.
     ``chirality=-1`` returns the anti-instanton partner (:meth:`ADHMData.conjugate`).
     """
     _validate.choice("source", source, ("seed", "moduli"))
@@ -177,10 +177,10 @@ def adhm_data(
 
 
 def unitary_adhm_data(k=st.integers(1, 3), rank=st.integers(2, 4), *, spread: float = 1.5) -> st.SearchStrategy:  # noqa: B008
-    """Valid complex SU(N) ADHM data (:class:`instantonkit.unitary_adhm.UnitaryADHMData`) of drawn k and N.
+    """Valid complex SU(N) ADHM data (:class:`instantonkit.adhm.unitary.UnitaryADHMData`) of drawn k and N.
 
     k, rank: ints or strategies of ints (k >= 1, rank >= 2); a drawn seed goes to
-    :func:`instantonkit.unitary_moduli.random_unitary_adhm` (generic data, shrinks to seed 0).
+    :func:`instantonkit.adhm.unitary_moduli.random_unitary_adhm` (generic data, shrinks to seed 0).
     """
 
     @st.composite

@@ -54,8 +54,8 @@ profile that is *not* self-dual."""),
             COMMON
             + """
 
-from instantonkit.checks import verify
-from instantonkit.conventions import QUATERNION_BASIS
+from instantonkit.verification.checks import verify
+from instantonkit.core.conventions import QUATERNION_BASIS
 import jax.numpy as jnp
 
 ETA = jnp.asarray(ik.quaternion.thooft_eta())  # (3, 4, 4), eta_{a mu nu}, zero-based
@@ -392,8 +392,8 @@ different SU(2) subgroups.  An SU(2) field embedded in SU(3) has a colour vector
 strength annihilates at every point (the colour outside the SU(2) block; common practice); the
 genuine configuration has none: the smallest singular value of the stacked `F_μν(x)` (16·3 × 3)
 stays away from zero.  The orientations below are invented for this demo."""),
-        code("""from instantonkit.quadrature import rule_r4
-from instantonkit.zero_modes import dirac_residual
+        code("""from instantonkit.integrals.quadrature import rule_r4
+from instantonkit.adhm.zero_modes import dirac_residual
 
 c3 = np.array([[-1.6, 0.0, 0.0, 0.0], [1.6, 0.0, 0.3, 0.0]])
 r3 = np.array([0.8, 0.7])

@@ -15,9 +15,10 @@ from hypothesis import strategies as st
 from scipy.linalg import expm
 
 import instantonkit as ik
-from instantonkit import conventions as cv
-from instantonkit import fields, moduli
-from instantonkit import quaternion as qt
+from instantonkit.adhm import moduli
+from instantonkit.core import conventions as cv
+from instantonkit.core import quaternion as qt
+from instantonkit.engine import fields
 from instantonkit.testing import adhm_data, orthogonal_matrices, points, unit_quaternions
 
 PARITY = np.diag([-1.0, -1.0, -1.0, 1.0])

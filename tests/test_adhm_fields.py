@@ -19,8 +19,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import instantonkit as ik
-from instantonkit import _kxk
-from instantonkit import quaternion as qt
+from instantonkit.adhm import _kxk
+from instantonkit.core import quaternion as qt
 
 N_POINTS = 16
 PARITY = np.array([-1.0, -1.0, -1.0, 1.0])  # P = diag(-1, -1, -1, 1)

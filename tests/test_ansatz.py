@@ -1,4 +1,4 @@
-"""Specification of instantonkit.ansatz: the classic ansaetze as fields, their closed forms and anti()."""
+"""Specification of instantonkit.ansatz.classic: the classic ansaetze as fields, their closed forms and anti()."""
 
 import dataclasses
 import functools
@@ -12,8 +12,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import instantonkit as ik
-from instantonkit import ansatz as an
-from instantonkit import fields as fl
+from instantonkit.ansatz import classic as an
+from instantonkit.engine import fields as fl
 
 PI = np.pi
 RNG = np.random.default_rng(20240611)
@@ -79,7 +79,7 @@ def test_bpst_field_closed_field_strength_equals_autodiff(gauge):
 @pytest.mark.parametrize("gauge", ["regular", "singular"])
 def test_bpst_field_potential_agrees_with_adhm(gauge):
     # The same gauge conventions are derived independently from ADHM (Atiyah, Hitchin, Drinfeld, Manin,
-    # Phys. Lett. A 65 (1978) 185) in instantonkit.adhm; both must give the same potential.
+    # Phys. Lett. A 65 (1978) 185) in instantonkit.adhm.quaternionic; both must give the same potential.
     orient = np.array([0.2, -0.4, 0.8, 0.4])
     orient /= np.linalg.norm(orient)
     mine = fl.potential(ik.bpst_field(CENTER, RHO, gauge=gauge, orientation=orient), PTS)
@@ -130,7 +130,7 @@ def test_thooft_k1_potential_is_singular_gauge_bpst():
 
 
 def test_thooft_k1_density_equals_adhm_bpst():
-    # BPST profile (BPST 1975) via the ADHM k = 1 data of instantonkit.adhm.
+    # BPST profile (BPST 1975) via the ADHM k = 1 data of instantonkit.adhm.quaternionic.
     mine = fl.action_density(ik.thooft(CENTER[None], [RHO]), PTS)
     assert _rel(mine, fl.action_density(ik.bpst(CENTER, RHO), PTS)) <= 1e-12
 

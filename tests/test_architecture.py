@@ -1,14 +1,15 @@
-"""The shape of the house: no import circles, no upward imports, no private imports across modules.
+"""The shape of the house: no import circles, nothing upward between folders or inside one, no private imports.
 
 The floors are written once, in DEVELOPERS.md (the block under "### Floors"); this test parses them and
 every import statement of the package (function-level ones included) with ``ast``.  Rules (common
 practice for layered libraries, our own choice of floors):
 
-* a module imports only modules on a strictly lower floor, except modules of the same subpackage
-  (``instantonkit.cluster.*``) among themselves and package ``__init__`` files collecting names;
+* a folder (subpackage) imports only folders on a strictly lower floor; the top-level modules count as
+  folders of their own;
+* inside a folder a module imports only modules on a lower step of the folder's chain (``a < b``);
+  folders without a chain (``cluster/``) import among themselves freely; ``__init__`` files collect names;
 * the package's import graph has no cycle;
-* ``from .x import _name`` only when ``x`` is a ``_``-module that exists to be shared, or inside one
-  subpackage.
+* ``from .x import _name`` only when ``x`` is a ``_``-module that exists to be shared, or inside one folder.
 """
 
 from __future__ import annotations
@@ -23,16 +24,30 @@ ROOT = Path(__file__).resolve().parents[1]
 PKG = ROOT / "instantonkit"
 
 
-def _floors() -> dict[str, int]:
+def _floors() -> tuple[dict[str, int], dict[str, dict[str, int]]]:
+    """(floor of each folder or top-level module, {folder: {module: step}})."""
     text = (ROOT / "DEVELOPERS.md").read_text()
     block = text.split("### Floors", 1)[1].split("```", 2)[1]
-    floors: dict[str, int] = {}
+    units: dict[str, int] = {}
+    steps: dict[str, dict[str, int]] = {}
     for line in block.splitlines():
         m = re.match(r"\s*floor (\d+):\s*(.+)$", line)
-        if m:
-            for name in m.group(2).split(","):
-                floors[name.strip().split(" ")[0]] = int(m.group(1))
-    return floors
+        if not m:
+            continue
+        floor = int(m.group(1))
+        for entry in m.group(2).split(";"):
+            entry = entry.strip()
+            name, _, chain = entry.partition("=")
+            name = name.strip().rstrip("/")
+            units[name] = floor
+            if chain.strip():
+                steps[name] = {
+                    mod.strip(): k
+                    for k, group in enumerate(chain.split("<"))
+                    for mod in group.split(",")
+                    if mod.strip()
+                }
+    return units, steps
 
 
 def _module_name(path: Path) -> str:
@@ -60,11 +75,10 @@ def _imports(path: Path) -> list[tuple[str, tuple[str, ...], int]]:
             if not target.startswith("instantonkit"):
                 continue
             names = tuple(a.name for a in node.names)
-            if node.module is None or target == package:  # "from . import x, y": submodules
-                for name in names:
-                    out.append((f"{target}.{name}", (), node.lineno))
-            else:
+            if node.module is not None and target != package:  # "from . import x" names submodules only
                 out.append((target, names, node.lineno))
+            for name in names:  # a name may be a submodule ("from ..adhm import moduli")
+                out.append((f"{target}.{name}", (), node.lineno))
         elif isinstance(node, ast.Import):
             for a in node.names:
                 if a.name.startswith("instantonkit"):
@@ -83,44 +97,78 @@ def _modules() -> dict[str, Path]:
     return {_module_name(p): p for p in PKG.rglob("*.py")}
 
 
-def _floor_key(mod: str) -> str:
-    """The name used in the floor table: the first component below the package (subpackages as one)."""
+def _unit(mod: str) -> str:
+    """The folder of a module ('instantonkit.lattice.starts' -> 'lattice'), or the top-level module itself."""
     parts = mod.split(".")
     return parts[1] if len(parts) > 1 else "__init__"
 
 
+def _short(mod: str) -> str:
+    parts = mod.split(".")
+    return parts[2] if len(parts) > 2 else ""
+
+
 def _resolve(target: str, modules: dict[str, Path]) -> str | None:
-    """The module a dotted target refers to ('instantonkit.fields.hook' -> 'instantonkit.fields')."""
+    """The module a dotted target refers to ('instantonkit.engine.fields.hook' -> 'instantonkit.engine.fields')."""
     while target and target not in modules:
         target = target.rpartition(".")[0]
     return target or None
 
 
-def test_every_module_has_a_floor():
-    floors = _floors()
-    missing = sorted({_floor_key(m) for m in _modules()} - set(floors) - {"__init__"})
-    assert not missing, f"modules without a floor in DEVELOPERS.md: {missing}"
+def _is_init(path: Path) -> bool:
+    return path.name == "__init__.py"
 
 
-def test_no_upward_or_same_floor_imports():
-    floors, modules = _floors(), _modules()
+def test_every_folder_and_module_has_a_floor():
+    units, steps = _floors()
+    missing = []
+    for mod, path in _modules().items():
+        unit = _unit(mod)
+        if unit == "__init__":
+            continue
+        if unit not in units:
+            missing.append(unit)
+        elif unit in steps and not _is_init(path) and _short(mod) not in steps[unit]:
+            missing.append(f"{unit}/{_short(mod)}")
+    assert not missing, f"folders or modules without a floor in DEVELOPERS.md: {sorted(set(missing))}"
+
+
+def test_folders_import_only_folders_below():
+    units, _ = _floors()
+    modules = _modules()
     bad = []
     for mod, path in modules.items():
-        key = _floor_key(mod)
-        if key == "__init__" or mod == f"instantonkit.{key}" and path.name == "__init__.py" and key not in floors:
+        unit = _unit(mod)
+        if unit == "__init__":
             continue
         for target, _names, line in _imports(path):
             tmod = _resolve(target, modules)
             if tmod is None or tmod == "instantonkit":
                 continue
-            tkey = _floor_key(tmod)
-            if tkey == key:  # within one subpackage
+            tunit = _unit(tmod)
+            if tunit == unit:
                 continue
-            if path.name == "__init__.py" and mod == "instantonkit":
+            if units[tunit] >= units[unit]:
+                bad.append(f"{path.relative_to(ROOT)}:{line} imports {tmod} (floor {units[tunit]} >= {units[unit]})")
+    assert not bad, "imports between folders that are not downward:\n" + "\n".join(sorted(set(bad)))
+
+
+def test_modules_inside_a_folder_import_only_lower_steps():
+    _, steps = _floors()
+    modules = _modules()
+    bad = []
+    for mod, path in modules.items():
+        unit = _unit(mod)
+        if unit not in steps or _is_init(path):
+            continue
+        for target, _names, line in _imports(path):
+            tmod = _resolve(target, modules)
+            if tmod is None or _unit(tmod) != unit or _is_init(modules[tmod]):
                 continue
-            if floors[tkey] >= floors[key]:
-                bad.append(f"{path.relative_to(ROOT)}:{line} imports {tmod} (floor {floors[tkey]} >= {floors[key]})")
-    assert not bad, "imports that are not downward:\n" + "\n".join(bad)
+            a, b = steps[unit][_short(mod)], steps[unit].get(_short(tmod), 10**6)
+            if b >= a:
+                bad.append(f"{path.relative_to(ROOT)}:{line} imports {tmod} (step {b} >= {a} in {unit}/)")
+    assert not bad, "imports inside a folder that are not downward:\n" + "\n".join(sorted(set(bad)))
 
 
 def test_no_import_cycle():
@@ -158,10 +206,10 @@ def test_private_names_are_imported_only_from_shared_private_modules():
             tmod = _resolve(target, modules)
             if tmod is None:
                 continue
-            private = [n for n in names if n.startswith("_")]
+            private = [n for n in names if n.startswith("_") and f"{tmod}.{n}" not in modules]
             shared = tmod.rsplit(".", 1)[-1].startswith("_")
-            same_pkg = _floor_key(tmod) == _floor_key(mod) and mod != "instantonkit"
-            if private and not shared and not same_pkg:
+            same = _unit(tmod) == _unit(mod) and mod != "instantonkit"
+            if private and not shared and not same:
                 bad.append(f"{path.relative_to(ROOT)}:{line} imports {private} from {tmod}")
     assert not bad, "private names imported across modules:\n" + "\n".join(bad)
 

@@ -4,7 +4,7 @@ Each row of the table is one (entry point, argument, kind of bad input); the tes
 ``entry-argument-kind`` (e.g. ``verify-expected_charge-nan``). The property is the same for every row:
 the call raises ``ValueError`` or ``TypeError`` whose message names the argument, quickly (before any
 compilation or allocation for absurd sizes), and never returns a number. Common practice: argument
-checks at the front door, one wording (``instantonkit._validate``).
+checks at the front door, one wording (``instantonkit.core._validate``).
 """
 
 from __future__ import annotations
@@ -18,8 +18,10 @@ import numpy as np
 import pytest
 
 import instantonkit as ik
-from instantonkit import _validate as _v
-from instantonkit import io, lattice, references, smoothing
+from instantonkit.core import _validate as _v
+from instantonkit.lattice import files as io
+from instantonkit.lattice import references, smoothing
+from instantonkit.lattice import starts as lattice
 
 NAN, INF = float("nan"), float("inf")
 HUGE = 10**15  # an absurd budget or count

@@ -8,8 +8,11 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 import instantonkit as ik
-from instantonkit import boundaries, fields, io, periodic, references
-from instantonkit import lattice as lat
+from instantonkit.ansatz import periodic
+from instantonkit.engine import fields
+from instantonkit.lattice import boundaries, references
+from instantonkit.lattice import files as io
+from instantonkit.lattice import starts as lat
 
 EIGHT_PI2 = 8.0 * np.pi**2
 # a caloron of size 0.5 and period 2 (Harrington, Shepard, Phys. Rev. D 17 (1978) 2122) on a 4^4

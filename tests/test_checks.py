@@ -1,4 +1,4 @@
-"""Specification of instantonkit.quadrature, evidence and checks: integrals with honest errors, verify().
+"""Specification of instantonkit.integrals.quadrature, evidence and checks: integrals with honest errors, verify().
 
 Every physics value is checked against a published formula, a worked value, or scipy/sympy, with the
 source named beside the check.
@@ -19,11 +19,15 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import instantonkit as ik
-from instantonkit import ansatz, checks, fields, flux, integrals, transforms
-from instantonkit import quadrature as qd
-from instantonkit import quaternion as qt
-from instantonkit._pytree import PytreeFields
-from instantonkit.conventions import point_to_quaternion
+from instantonkit.ansatz import classic as ansatz
+from instantonkit.core import quaternion as qt
+from instantonkit.core._pytree import PytreeFields
+from instantonkit.core.conventions import point_to_quaternion
+from instantonkit.engine import fields, transforms
+from instantonkit.integrals import drivers as integrals
+from instantonkit.integrals import flux
+from instantonkit.integrals import quadrature as qd
+from instantonkit.verification import checks
 
 PI = math.pi
 EIGHT_PI2 = 8.0 * PI**2

@@ -19,7 +19,7 @@ import zarr
 
 import instantonkit as ik
 from instantonkit import cluster
-from instantonkit import lattice as lat
+from instantonkit.lattice import starts as lat
 
 TWO = ik.multi_instanton([[0.0, 0.0, 0.0, 0.0], [1.4, 0.3, -0.5, 0.7]], [1.1, 0.8])
 SHAPE = (4, 4, 4, 6)

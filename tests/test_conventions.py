@@ -1,4 +1,4 @@
-"""Specification of instantonkit.conventions and of the 't Hooft symbols in instantonkit.quaternion."""
+"""Specification of instantonkit.core.conventions and of the 't Hooft symbols in instantonkit.core.quaternion."""
 
 import itertools
 
@@ -10,8 +10,8 @@ import sympy
 from hypothesis import given
 from hypothesis import strategies as st
 
-from instantonkit import conventions as cv
-from instantonkit import quaternion as qt
+from instantonkit.core import conventions as cv
+from instantonkit.core import quaternion as qt
 from instantonkit.testing import points, su2_matrices
 
 # Pauli matrices (Pauli, Z. Phys. 43 (1927) 601; common practice).

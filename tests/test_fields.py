@@ -1,4 +1,4 @@
-"""Specification of the evaluation engine (instantonkit.fields) for user callables and point sets.
+"""Specification of the evaluation engine (instantonkit.engine.fields) for user callables and point sets.
 
 Two parts:
 
@@ -19,8 +19,8 @@ import pytest
 import sympy as sp
 
 import instantonkit as ik
-from instantonkit import fields
-from instantonkit.conventions import E_MU, QUATERNION_BASIS, point_to_quaternion
+from instantonkit.core.conventions import E_MU, QUATERNION_BASIS, point_to_quaternion
+from instantonkit.engine import fields
 
 RHO = 0.7  # profile scale of the user potential (sympy uses the exact rational 7/10)
 
@@ -401,7 +401,7 @@ def test_two_closures_of_the_same_code_and_values_share_one_compile():
 
 
 def test_lean_and_fully_optimised_autodiff_agree_with_the_closed_form():
-    from instantonkit import _config
+    from instantonkit.core import _config
 
     data = ik.random_adhm(2, 1, seed=21)
     centre, scale = data.hint()
@@ -420,7 +420,7 @@ def test_lean_and_fully_optimised_autodiff_agree_with_the_closed_form():
 
 
 def test_set_lean_compile_rejects_a_non_boolean():
-    from instantonkit import _config
+    from instantonkit.core import _config
 
     with pytest.raises(TypeError, match="on must be a bool; found int"):
         _config.set_lean_compile(1)
@@ -429,7 +429,7 @@ def test_set_lean_compile_rejects_a_non_boolean():
 def test_compile_cache_directory_is_configurable(tmp_path):
     import jax
 
-    from instantonkit import _config
+    from instantonkit.core import _config
 
     old = _config.compile_cache_dir()
     try:

@@ -20,8 +20,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from instantonkit import _atomic
-from instantonkit import io as lio
+from instantonkit.core import _atomic
+from instantonkit.lattice import files as lio
 
 ROOT = Path(__file__).resolve().parents[1]
 

@@ -20,16 +20,16 @@ import numpy as np
 import pytest
 
 import instantonkit as ik
-from instantonkit.finder import (
+from instantonkit.adhm.moduli import solve_constraint_unrolled
+from instantonkit.fit.finder import (
     InstantonFit,
     MixedFit,
     count_peaks,
     count_signed_peaks,
     find_instantons,
 )
-from instantonkit.lattice_fit import find_lattice_instantons
-from instantonkit.moduli import solve_constraint_unrolled
-from instantonkit.unitary_fit import orientation_basis, unitary_data
+from instantonkit.fit.lattice_fit import find_lattice_instantons
+from instantonkit.fit.unitary_fit import orientation_basis, unitary_data
 
 GRID = np.linspace(-4.0, 4.0, 13)
 LATTICE = np.stack(np.meshgrid(GRID, GRID, GRID, GRID, indexing="ij"), axis=-1).reshape(-1, 4)

@@ -2,7 +2,7 @@
 
 Q = k for charge-k ADHM data (Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185); the
 action per period of the Harrington-Shepard caloron is 8 pi^2 (Harrington, Shepard, Phys. Rev. D 17
-(1978) 2122).  ADHM data integrate by Osborn's flux by default (instantonkit.flux); the volume rule's
+(1978) 2122).  ADHM data integrate by Osborn's flux by default (instantonkit.integrals.flux); the volume rule's
 tests ask for route='volume'.  Seeds are fixed; budgets are small so the file runs in about a minute on two cores.
 """
 
@@ -17,7 +17,9 @@ from hypothesis import strategies as st
 from scipy import integrate
 
 import instantonkit as ik
-from instantonkit import ansatz, cubature, flux, integrals
+from instantonkit.ansatz import classic as ansatz
+from instantonkit.integrals import cubature, flux
+from instantonkit.integrals import drivers as integrals
 
 EIGHT_PI2 = 8 * math.pi**2
 

@@ -6,9 +6,9 @@ import struct
 import numpy as np
 import pytest
 
-from instantonkit import io as lio
-from instantonkit import lattice as lat
-from instantonkit import references
+from instantonkit.lattice import files as lio
+from instantonkit.lattice import references
+from instantonkit.lattice import starts as lat
 
 
 def _su3_links(shape, seed=0):
@@ -197,7 +197,7 @@ def test_bpst_field_and_window_records_rebuild_the_field():
     st = lat.lattice_start(f, (4,) * 4, 0.5, boundary="window", rtol=1e-6)
     back = references.field_from_record(st.report.field)
     x = np.array([0.3, -0.2, 0.5, 0.1])
-    from instantonkit import periodic
+    from instantonkit.ansatz import periodic
 
     windowed = periodic.window_field(f, (4,) * 4, 0.5, lat.default_origin(f, (4,) * 4, 0.5))
     assert np.array_equal(np.asarray(back.potential(x)), np.asarray(windowed.potential(x)))

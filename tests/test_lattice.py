@@ -11,12 +11,12 @@ from hypothesis import strategies as st
 from scipy import integrate, special
 
 import instantonkit as ik
-from instantonkit import (
-    fields,
+from instantonkit.engine import fields
+from instantonkit.lattice import (
     references,
     transport,  # the Magnus step itself, checked against scipy
 )
-from instantonkit import lattice as lat
+from instantonkit.lattice import starts as lat
 
 EIGHT_PI2 = 8.0 * np.pi**2
 
@@ -155,7 +155,7 @@ def test_fused_su2_magnus_links_equal_the_node_batch_path(monkeypatch):
 @pytest.mark.parametrize("k", [1, 2, 3, 4])
 @pytest.mark.parametrize("gauge,chirality", [("singular", 1), ("regular", 1), ("singular", -1), ("regular", -1)])
 def test_adhm_generator_batch_equals_the_contracted_potential(k, gauge, chirality):
-    # the batch-major SU(2) link generator (instantonkit._kxk) against sum_mu d_mu A_mu of ADHMData.potential
+    # the batch-major SU(2) link generator (instantonkit.adhm._kxk) against sum_mu d_mu A_mu of ADHMData.potential
     data = ik.random_adhm(k, seed=k).with_gauge(gauge)
     data = data.conjugate() if chirality == -1 else data
     rng = np.random.default_rng(k)
@@ -183,8 +183,9 @@ def test_unitary_generator_batch_equals_the_contracted_potential(k, gauge):
 
 def test_wrapped_generator_batch_equals_the_contracted_potential():
     # the wrappers that forward the hook (translation, rotation, dilation, parity; the torus window of
-    # instantonkit.periodic) map it exactly as they map the potential; a gauge transformation does not offer it
-    from instantonkit import periodic, transforms
+    # instantonkit.ansatz.periodic) map it exactly as they map the potential; a gauge transformation does not offer it
+    from instantonkit.ansatz import periodic
+    from instantonkit.engine import transforms
 
     data = ik.random_adhm(2, seed=6)
     rng = np.random.default_rng(6)
@@ -235,7 +236,7 @@ def test_bpst_closed_form_link_equals_magnus_quadrature(segments, gauge, chirali
 def pair():
     """Charge-2 ADHM data (multi_instanton) and the 't Hooft field with the same centres and sizes."""
     centers = np.array([[1.2, 0.0, 0.0, 0.0], [-1.2, 0.0, 0.0, 0.0]])
-    from instantonkit import ansatz
+    from instantonkit.ansatz import classic as ansatz
 
     return ik.multi_instanton(centers, [1.2, 1.2]), ansatz.thooft(centers, [1.2, 1.2])
 
@@ -686,7 +687,7 @@ def test_adhm_potential_equals_the_derivative_of_the_frame(make):
     import jax
     import jax.numpy as jnp
 
-    from instantonkit import quaternion as qt
+    from instantonkit.core import quaternion as qt
 
     data = make()
 

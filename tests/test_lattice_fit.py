@@ -16,8 +16,8 @@ import numpy as np
 import pytest
 
 import instantonkit as ik
-from instantonkit import observables as ob
-from instantonkit.lattice_fit import RANK_THRESHOLD, ColourRank, colour_rank, find_lattice_instantons
+from instantonkit.fit.lattice_fit import RANK_THRESHOLD, ColourRank, colour_rank, find_lattice_instantons
+from instantonkit.lattice import observables as ob
 
 L, A = 10, 0.8
 ORIGIN = -A * (L - 1) / 2 * np.ones(4)

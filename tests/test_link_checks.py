@@ -19,11 +19,11 @@ import numpy as np
 import pytest
 
 import instantonkit as ik
-from instantonkit import _links
-from instantonkit import observables as ob
-from instantonkit import smoothing as sm
-from instantonkit.io import read_lime_records
-from instantonkit.lattice_fit import colour_rank, find_lattice_instantons
+from instantonkit.core import _links
+from instantonkit.fit.lattice_fit import colour_rank, find_lattice_instantons
+from instantonkit.lattice import observables as ob
+from instantonkit.lattice import smoothing as sm
+from instantonkit.lattice.files import read_lime_records
 
 
 def _random_links(n=2, shape=(4, 4, 4, 4), seed=0):

@@ -20,7 +20,7 @@ import matplotlib.pyplot as plt  # noqa: E402
 
 import instantonkit as ik  # noqa: E402
 from instantonkit import plot  # noqa: E402
-from instantonkit.checks import IntegralResult  # noqa: E402
+from instantonkit.verification.checks import IntegralResult  # noqa: E402
 
 RHO = 1.3
 CENTRE = np.array([0.2, -0.1, 0.3, 0.4])

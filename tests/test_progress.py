@@ -3,7 +3,7 @@
 import pytest
 
 import instantonkit as ik
-from instantonkit import _progress
+from instantonkit.core import _progress
 
 
 def test_a_callable_is_called_after_every_time_slice():
@@ -39,7 +39,7 @@ def test_a_progress_of_another_type_is_refused():
         _progress.sink("yes", "x")
 
 
-@pytest.mark.filterwarnings("ignore::instantonkit.lattice.BoundaryActionWarning")  # a 2^4 torus: any links do
+@pytest.mark.filterwarnings("ignore::instantonkit.lattice.starts.BoundaryActionWarning")  # a 2^4 torus: any links do
 def test_a_flow_and_a_cooling_run_report_each_step():
     links = ik.lattice_links(ik.bpst_field(size=1.0), (2, 2, 2, 2), 0.5)
     flow, sweeps = [], []

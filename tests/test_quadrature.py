@@ -1,4 +1,4 @@
-"""Specification of the oriented anisotropic S^3 rule of instantonkit.quadrature (sphere3_oriented)."""
+"""Specification of the oriented anisotropic S^3 rule of instantonkit.integrals.quadrature (sphere3_oriented)."""
 
 from __future__ import annotations
 
@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 import scipy.integrate
 
-from instantonkit import quadrature as qd
+from instantonkit.integrals import quadrature as qd
 
 E = np.array([0.3, -0.5, 0.2, 0.7]) / np.linalg.norm([0.3, -0.5, 0.2, 0.7])
 

@@ -5,7 +5,7 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from instantonkit import quaternion as qt
+from instantonkit.core import quaternion as qt
 from instantonkit.testing import imaginary_quaternions, quaternions, su2_matrices, unit_quaternions
 
 # Pauli matrices (Pauli, Z. Phys. 43 (1927) 601; common practice).

@@ -15,10 +15,10 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 import instantonkit as ik
-from instantonkit import io as lio
-from instantonkit import lattice as lat
-from instantonkit import references
-from instantonkit.fields import evaluate
+from instantonkit.engine.fields import evaluate
+from instantonkit.lattice import files as lio
+from instantonkit.lattice import references
+from instantonkit.lattice import starts as lat
 from instantonkit.testing import points, unit_quaternions
 
 _POINTS = np.array([[0.3, -0.2, 0.5, 0.1], [1.1, 0.4, -0.7, 0.9], [-0.6, 0.8, 0.2, -1.3]])
@@ -93,7 +93,7 @@ def test_transformed_field_round_trips_through_its_record(tmp_path, name):
 def test_windowed_translated_field_keeps_its_window_in_the_record():
     f = ik.translate(ik.bpst_field(size=0.5, gauge="singular"), [0.1, 0.0, 0.0, 0.2])
     shape, a = (4, 4, 4, 4), 0.5
-    from instantonkit import periodic
+    from instantonkit.ansatz import periodic
 
     w = periodic.window_field(f, shape, a, lat.default_origin(f, shape, a))
     back = references.field_from_record(w.record())

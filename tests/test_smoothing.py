@@ -1,4 +1,4 @@
-"""Gradient flow, cooling, the 1x1 + 2x2 improved action and the improved charge (instantonkit.smoothing)."""
+"""Gradient flow, cooling, the 1x1 + 2x2 improved action and the improved charge (instantonkit.lattice.smoothing)."""
 
 import numpy as np
 import pytest
@@ -6,8 +6,8 @@ import scipy.linalg as sla
 from scipy import integrate, special
 
 import instantonkit as ik
-from instantonkit import lattice as lat
-from instantonkit import smoothing as sm
+from instantonkit.lattice import smoothing as sm
+from instantonkit.lattice import starts as lat
 
 EIGHT_PI2 = 8.0 * np.pi**2
 

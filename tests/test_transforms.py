@@ -1,4 +1,4 @@
-"""Specification of instantonkit.transforms: gauge transformations and space-time symmetries of fields."""
+"""Specification of instantonkit.engine.transforms: gauge transformations and space-time symmetries of fields."""
 
 import dataclasses
 
@@ -10,10 +10,10 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import instantonkit as ik
-from instantonkit import fields as fl
-from instantonkit import quaternion as qt
-from instantonkit import transforms as tr
-from instantonkit.conventions import LEVI_CIVITA, point_to_quaternion, quaternion_to_point
+from instantonkit.core import quaternion as qt
+from instantonkit.core.conventions import LEVI_CIVITA, point_to_quaternion, quaternion_to_point
+from instantonkit.engine import fields as fl
+from instantonkit.engine import transforms as tr
 
 PI = np.pi
 RNG = np.random.default_rng(987)
@@ -344,7 +344,7 @@ def _wave_gauge():
 def test_wrappers_forward_the_batch_densities_of_the_wrapped_field(wrap):
     # The batch hook of a wrapper must equal autodiff of the wrapper's own potential: s, q are
     # gauge-invariant scalars, q a pseudoscalar (odd under parity) and s scales as c^-4 under x -> c x
-    # (common practice).  The batch path itself is the ADHM kernel of instantonkit._kxk.
+    # (common practice).  The batch path itself is the ADHM kernel of instantonkit.adhm._kxk.
     field = wrap(ADHM2)
     assert fl.hook(field, "density_batch") is not None
     pts = _points(np.random.default_rng(5), n=12, avoid=np.zeros((1, 4)), dist=0.0)

@@ -1,4 +1,4 @@
-"""Specification of complex ADHM data (instantonkit.unitary_adhm): SU(N) instantons.
+"""Specification of complex ADHM data (instantonkit.adhm.unitary): SU(N) instantons.
 
 Construction: Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185 and Christ, Weinberg,
 Stanton, Phys. Rev. D 18 (1978) 2013; the complex (B1, B2, I, J) form of the data and its moment maps
@@ -16,16 +16,16 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import instantonkit as ik
-from instantonkit import quaternion as qt
-from instantonkit import unitary_adhm as ua
-from instantonkit import unitary_moduli as um
-from instantonkit.adhm_base import (
+from instantonkit.adhm import unitary as ua
+from instantonkit.adhm import unitary_moduli as um
+from instantonkit.adhm.base import (
     ADHMConstruction,
     solve_moment_maps,
     unitary_moment_maps,
     unitary_weights,
     unpack_unitary,
 )
+from instantonkit.core import quaternion as qt
 from instantonkit.testing import unitary_adhm_data
 
 N_POINTS = 16

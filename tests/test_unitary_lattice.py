@@ -13,10 +13,10 @@ import numpy as np
 import pytest
 
 import instantonkit as ik
-from instantonkit import io as lio
-from instantonkit import observables as ob
-from instantonkit import references
-from instantonkit import unitary_moduli as um
+from instantonkit.adhm import unitary_moduli as um
+from instantonkit.lattice import files as lio
+from instantonkit.lattice import observables as ob
+from instantonkit.lattice import references
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 from benchmarks.su3_lattice_artefacts import genuine_charge_two, row  # noqa: E402

@@ -4,7 +4,7 @@ on request), the flat U(1) part and its phase, the Gram closed form, the box-f i
 and the count k by quadrature, the BPST density and agreement with the quaternionic modes for N = 2 data.
 
 Point sets have N_POINTS points so that compiled kernels are reused; every batch of complex data
-stays at <= 256 points per compiled call (module constant of instantonkit.zero_modes).
+stays at <= 256 points per compiled call (module constant of instantonkit.adhm.zero_modes).
 """
 
 from __future__ import annotations
@@ -17,11 +17,11 @@ import numpy as np
 import pytest
 
 import instantonkit as ik
-from instantonkit import unitary_moduli as um
-from instantonkit import zero_mode_phase
-from instantonkit.quadrature import rule_r4
+from instantonkit.adhm import unitary_moduli as um
+from instantonkit.adhm import zero_mode_phase
+from instantonkit.integrals.quadrature import rule_r4
 
-zm = importlib.import_module("instantonkit.zero_modes")
+zm = importlib.import_module("instantonkit.adhm.zero_modes")
 
 N_POINTS = 8
 

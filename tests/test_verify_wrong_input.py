@@ -20,7 +20,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import instantonkit as ik
-from instantonkit import cubature, integrals, singular
+from instantonkit.integrals import cubature, singular
+from instantonkit.integrals import drivers as integrals
 
 ETA = jnp.asarray(ik.quaternion.thooft_eta())
 ETA_BAR = jnp.asarray(ik.quaternion.thooft_eta_bar())

@@ -17,10 +17,10 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import instantonkit as ik
-from instantonkit.quadrature import rule_r4
+from instantonkit.integrals.quadrature import rule_r4
 
 # the package exports the function ik.zero_modes, which shadows the submodule attribute of the same name
-zm = importlib.import_module("instantonkit.zero_modes")
+zm = importlib.import_module("instantonkit.adhm.zero_modes")
 
 N_POINTS = 16
 FEW = settings(max_examples=10, deadline=None)

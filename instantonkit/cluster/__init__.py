@@ -6,9 +6,9 @@ Front doors: :func:`lattice_links` / :func:`lattice_start` (lattice starts), :fu
 computes), ``fingerprint`` (what a store was made from), ``store`` (the Zarr protocol and the chunk
 report columns), ``schedule`` (clients, running a job), ``links``, ``points``, ``ensembles``.
 
-Every chunk is computed by the kernels of the local path (:func:`instantonkit.lattice.block_links`
-for links, :func:`instantonkit.fields.evaluate` for densities).  Links are bit-identical to the
-single-process start (the compiled batch size is fixed per lattice, :func:`instantonkit.lattice.link_batch`);
+Every chunk is computed by the kernels of the local path (:func:`instantonkit.lattice.starts.block_links`
+for links, :func:`instantonkit.engine.fields.evaluate` for densities).  Links are bit-identical to the
+single-process start (the compiled batch size is fixed per lattice, :func:`instantonkit.lattice.starts.link_batch`);
 densities agree with ``fields.evaluate`` on the same points to rounding (about 1e-15 relative: XLA's
 code for the last, padded batch of a call depends on its size, which depends on the chunk).
 

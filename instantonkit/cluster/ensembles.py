@@ -8,10 +8,10 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from .. import _validate as _v
-from ..adhm import ADHMData
-from ..lattice import StartSpec, default_origin
-from ..moduli import random_adhm
+from ..adhm.moduli import random_adhm
+from ..adhm.quaternionic import ADHMData
+from ..core import _validate as _v
+from ..lattice.starts import StartSpec, default_origin
 from ._optional import require
 from .geometry import Job, check_chunks, default_chunks
 from .links import link_report, site_bytes
@@ -34,7 +34,7 @@ def member_seed(seed: int, i: int) -> np.random.SeedSequence:
 class Ensemble:
     """Random multi-instanton starts: ``links`` (n, L1, L2, L3, L4, 4, N, N) (Zarr or dask array),
     ``members`` the ADHM data of each, ``seeds`` the per-member seeds (see :func:`member_seed`),
-    ``reports`` one :class:`instantonkit.lattice.LinkReport` per member (None without a store)."""
+    ``reports`` one :class:`instantonkit.lattice.starts.LinkReport` per member (None without a store)."""
 
     links: object
     members: tuple
@@ -86,7 +86,7 @@ def ensemble(
     in ``gauge``: centres ~ N(0, spread^2) about the lattice middle (default spread: a tenth of the
     shortest extent L a), sizes ~ U(size_range) (default (L a / 16, L a / 8)).  Every member shares
     the lattice: origin -a (floor(L / 2) - 1/2), so the middle hypercube is centred on 0.  Links as
-    in :func:`instantonkit.lattice.lattice_links`; chunks: (c1, c2, c3, c4) per member.  store:
+    in :func:`instantonkit.lattice.starts.lattice_links`; chunks: (c1, c2, c3, c4) per member.  store:
     Zarr directory (resumable; members' ADHM data and seeds in its attributes) or None for a dask
     array.  Rebuild member i from a store with :func:`load_member`.  ``boundary_figures=True`` adds
     each periodic member's boundary mismatch to its report (read in this process, member by member).
@@ -94,7 +94,7 @@ def ensemble(
     Args:
       n: members (>= 1); k: charge (>= 1); shape: (L1, L2, L3, L4); spacing: a > 0.
       seed, rank, gauge, spread, size_range: the random ADHM data (see above).
-      group, embedding, boundary, rtol, method: as in :func:`instantonkit.lattice.lattice_links`.
+      group, embedding, boundary, rtol, method: as in :func:`instantonkit.lattice.starts.lattice_links`.
       chunks, store: as in :func:`instantonkit.cluster.lattice_links` (chunks per member).
       client, n_workers, overwrite, progress: as in :func:`instantonkit.cluster.lattice_links`.
       boundary_figures: add the periodic boundary figures to each member's report.

@@ -7,7 +7,7 @@ import hashlib
 
 import numpy as np
 
-from ..fields import potential
+from ..engine.fields import potential
 
 __all__ = ["describe", "code_fingerprint", "PROBES", "probe", "domain_probe", "same_params", "points_fingerprint"]
 

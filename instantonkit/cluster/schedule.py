@@ -8,7 +8,7 @@ import time
 
 import numpy as np
 
-from .. import _progress
+from ..core import _progress
 from ._optional import require
 from .geometry import Job, region
 from .store import ATTR, Column, prepare, write_chunk

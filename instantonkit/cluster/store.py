@@ -18,7 +18,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..lattice import LinkStats
+from ..lattice.starts import LinkStats
 from ._optional import require
 from .fingerprint import same_params
 from .geometry import Job, region
@@ -69,7 +69,7 @@ NO_STATS = [0.0] * (len(Column) - 1)
 
 
 def stats_row(stats: LinkStats) -> list:
-    """The report columns after DONE for one chunk's :class:`instantonkit.lattice.LinkStats`."""
+    """The report columns after DONE for one chunk's :class:`instantonkit.lattice.starts.LinkStats`."""
     return [
         float(stats.unitarity_before),
         float(stats.unitarity_after),
@@ -80,7 +80,7 @@ def stats_row(stats: LinkStats) -> list:
 
 
 def rows_stats(rows) -> LinkStats:
-    """The combined :class:`instantonkit.lattice.LinkStats` of report rows (..., len(Column))."""
+    """The combined :class:`instantonkit.lattice.starts.LinkStats` of report rows (..., len(Column))."""
     rows = np.asarray(rows)
     steps = int(np.max(rows[..., Column.MAGNUS_STEPS]))
     return LinkStats(

@@ -9,7 +9,7 @@ import dataclasses
 
 import numpy as np
 
-from ..fields import evaluate as _evaluate
+from ..engine.fields import evaluate as _evaluate
 from .store import NO_STATS, stats_row
 
 __all__ = ["LinkChunk", "MemberChunk", "GridChunk", "PointChunk"]

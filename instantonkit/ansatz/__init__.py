@@ -1,0 +1,17 @@
+"""Classic ansaetze ('t Hooft, JNR, BPST fields) and fields on R^3 x S^1 (calorons, windows).
+
+Modules (floor 4 of the package; the floors inside are in DEVELOPERS.md):
+
+* ``classic``: Classic instanton ansaetze as fields: 't Hooft, Jackiw-Nohl-Rebbi, Harrington-Shepard, BPST.
+* ``periodic``: The lattice torus: site positions and origins, and fields made smooth on it by a window.
+"""
+
+# ``instantonkit.ansatz`` was the module now in ``classic``: its API stays here.
+from . import classic as _front
+from .classic import *  # noqa: F403
+from .classic import __all__  # noqa: F401
+
+
+def __getattr__(name):
+    """The seams of ``classic`` that 'ansatz' offered outside ``__all__`` (package-internal)."""
+    return getattr(_front, name)

@@ -1,0 +1,8 @@
+"""The evaluation engine: the field protocol and its hooks, evaluation, transformations of fields.
+
+Modules (floor 1 of the package; the floors inside are in DEVELOPERS.md):
+
+* ``fields``: The evaluation engine: a field and points in, float64/complex128 arrays out.
+* ``protocol``: The field protocol: what a field is, its optional hooks, and user callables seen as fields.
+* ``transforms``: Gauge and space-time symmetry tools: fields wrapping fields (gauge, translation, rotation, dilation, parity).
+"""

@@ -1,0 +1,757 @@
+"""Gauge and space-time symmetry tools: fields wrapping fields (gauge, translation, rotation, dilation, parity).
+
+Each wrapper is a frozen dataclass registered as a jax pytree whose children are the wrapped field and
+the numeric parameters, so one compiled kernel serves all wrappers of the same structure.  Each
+implements the field protocol of :mod:`instantonkit.engine.fields`: ``potential`` transforms the wrapped
+potential, and ``field_strength``, ``action_density``, ``charge_density`` transform the wrapped closed
+forms (or, when the wrapped field has none, its autodiff field strength).  ``method="autodiff"`` in the
+engine differentiates the transformed potential instead, which is how the tests check the covariance.
+
+Maps (conventions of :mod:`instantonkit.core.conventions`; ``R`` orthogonal, ``g`` unitary):
+
+* gauge:     A'_mu = g A_mu g^-1 + g d_mu g^-1 = g A_mu g^dag - (d_mu g) g^dag,  F' = g F g^dag,  s' = s, q' = q;
+* translate: A'(x) = A(x - shift);
+* rotate:    p(R x) = l p(x) r-bar (unit quaternions l, r; an SO(4) rotation),
+             A'_mu(x) = R_mu nu A_nu(R^T x),  F'_mu nu(x) = R_mu a R_nu b F_ab(R^T x),  s'(x) = s(R^T x);
+* dilate:    A'(x) = A(x / c) / c,  F'(x) = F(x / c) / c^2,  s'(x) = s(x / c) / c^4;
+* parity:    A'_mu(x) = P_mu nu A_nu(P x), P = diag(-1, -1, -1, 1): s'(x) = s(Px), q'(x) = -q(Px)
+             (det P = -1 flips the sign of eps, so self-dual becomes anti-self-dual).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from collections.abc import Callable
+
+import jax
+import jax.numpy as jnp
+import numpy as np
+
+from ..core import _validate
+from ..core import quaternion as qt
+from ..core._pytree import PytreeFields
+from ..core.conventions import E_MU
+from .fields import action_from_f, as_field, charge_from_f, field_strength_from_potential, hook
+
+#: A point or parameter array the constructors accept (numpy or jax).
+Array = jax.Array | np.ndarray
+#: Anything numpy turns into an array (lists and tuples of numbers included).
+ArrayLike = jax.typing.ArrayLike | tuple | list
+
+__all__ = [
+    "GaugeTransformed",
+    "ConstantGauge",
+    "Translated",
+    "Rotated",
+    "Dilated",
+    "ParityImage",
+    "gauge_transform",
+    "translate",
+    "rotate",
+    "dilate",
+    "parity",
+    "rotation_matrix",
+    "anti",
+    "PARITY",
+]
+
+#: The parity matrix P = diag(-1, -1, -1, 1) (space reflection); (4,).
+PARITY = np.array([-1.0, -1.0, -1.0, 1.0])
+
+#: A generic point used to probe a gauge function at construction (unlikely to be singular).
+_PROBE = np.array([0.3127, -0.4481, 0.2719, 0.5867])
+
+#: Accepted deviation from unitarity of g(x) and from |q| = 1 of rotation quaternions (float64 rounding is ~1e-16).
+_UNIT_TOL = 1e-10
+
+
+# -- per-point helpers for any field ----------------------------------------------------------------
+
+
+def _fs(field):
+    """The field's per-point F: its closed form if it has one, else jax.jacfwd of its potential."""
+    closed = hook(field, "field_strength")
+    return closed if closed is not None else field_strength_from_potential(field.potential)
+
+
+def _s(field, x):
+    """s(x): the field's closed form when it has one, else fields.action_from_f of its F."""
+    closed = hook(field, "action_density")
+    return closed(x) if closed is not None else action_from_f(_fs(field)(x))
+
+
+def _q(field, x):
+    """q(x): the field's closed form when it has one, else fields.charge_from_f of its F."""
+    closed = hook(field, "charge_density")
+    return closed(x) if closed is not None else charge_from_f(_fs(field)(x))
+
+
+def _missing(name: str):
+    """Raise AttributeError (so ``hasattr`` is False) when the wrapped field lacks ``name``."""
+    raise AttributeError(f"the wrapped field has no {name!r}")
+
+
+class _Wrapper(PytreeFields):
+    """Shared forwarding of ``hint``/``charge``/``period`` through the ``_map_*`` hooks of a subclass."""
+
+    field: object
+
+    def _map_hint(self, centre, scale):
+        return centre, scale
+
+    def _map_charge(self, charge):
+        return charge
+
+    def _map_period(self, period):
+        return period
+
+    @property
+    def hint(self):
+        if not hasattr(self.field, "hint"):
+            _missing("hint")
+
+        def hint():
+            centre, scale = self.field.hint()
+            return self._map_hint(np.asarray(centre, dtype=np.float64), float(scale))
+
+        return hint
+
+    @property
+    def charge(self):
+        if not hasattr(self.field, "charge"):
+            _missing("charge")
+        return self._map_charge(self.field.charge)
+
+    @property
+    def period(self):
+        if not hasattr(self.field, "period"):
+            _missing("period")
+        return self._map_period(self.field.period)
+
+    def _map_layout(self, centres, scales):
+        """Centres (m, 4) and scales (m,) of the wrapped field -> those of this one (default: via _map_hint)."""
+        mapped = [self._map_hint(c, float(s)) for c, s in zip(centres, scales)]
+        return np.array([m[0] for m in mapped]).reshape(-1, 4), np.array([m[1] for m in mapped], dtype=np.float64)
+
+    @property
+    def layout(self):
+        if not hasattr(self.field, "layout"):
+            _missing("layout")
+
+        def layout():
+            centres, scales = self.field.layout()
+            return self._map_layout(
+                np.asarray(centres, dtype=np.float64).reshape(-1, 4), np.asarray(scales, dtype=np.float64).reshape(-1)
+            )
+
+        return layout
+
+    @property
+    def pole_count(self):
+        if not hasattr(self.field, "pole_count"):
+            _missing("pole_count")
+
+        def pole_count():
+            count, text = self.field.pole_count()
+            return self._map_charge(count), text + self._pole_note
+
+        return pole_count
+
+    _pole_note = ""
+
+    @property
+    def constraint_residual(self):
+        """The wrapped field's constraint residual (gauge, translation, rotation and dilation invariant)."""
+        if not hasattr(self.field, "constraint_residual"):
+            _missing("constraint_residual")
+        return self.field.constraint_residual
+
+    def describe(self) -> str:
+        inner = self.field.describe() if hasattr(self.field, "describe") else type(self.field).__name__
+        return f"{inner}, {self._verb}"
+
+    def wrapped_callable(self):
+        """Field hook: the bare user callable at the core of the wrapped chain, or None."""
+        inner = hook(self.field, "wrapped_callable")
+        return inner() if inner is not None else None
+
+    _verb = "transformed"
+
+    #: The 'kind' of this wrapper's record (references.field_from_record), and its parameters.
+    _record_kind = "transformed"
+
+    def _record_params(self) -> dict:
+        return {}
+
+    @property
+    def record(self):
+        """Field hook: {'kind': the transformation, 'field': the wrapped field's record, its parameters}.
+
+        Offered when the wrapped field has a record hook; rebuilt by
+        :func:`instantonkit.lattice.references.field_from_record`.
+        """
+        inner = hook(self.field, "record")
+        if inner is None:
+            _missing("record")
+
+        def record():
+            return {"kind": self._record_kind, "field": inner(), **self._record_params()}
+
+        return record
+
+    def _batch_points(self, pts):
+        """Points (m, 4) of this field -> (points of the wrapped field, density factor, sign of q); subclasses."""
+        return pts, 1.0, 1.0
+
+    #: (points (m, 4), directions (m, 4)) of this field -> (y, e) of the wrapped one with A'(x).d = A(y).e, in
+    #: the subclasses that can map the generator (not gauge transformations: their g d g^-1 has no batch hook).
+    _generator_points: Callable | None = None
+
+    @property
+    def generator_batch(self):
+        """Field hook: A'.d at a batch from the wrapped field's hook (translations, rotations, dilations, parity)."""
+        inner = hook(self.field, "generator_batch")
+        to_inner = self._generator_points
+        if inner is None or to_inner is None:
+            _missing("generator_batch")
+
+        def generator_batch(points, dirs):
+            y, e = to_inner(jnp.asarray(points, dtype=jnp.float64), jnp.asarray(dirs, dtype=jnp.float64))
+            return inner(y, e)
+
+        return generator_batch
+
+    @property
+    def density_batch(self):
+        """Field hook: the wrapped field's batch densities at the mapped points (s, q are scalars, q pseudo)."""
+        inner = hook(self.field, "density_batch")
+        if inner is None:
+            _missing("density_batch")
+
+        def density_batch(points, quantity: str):
+            y, factor, sign = self._batch_points(jnp.asarray(points, dtype=jnp.float64))
+            out = inner(y, quantity) * factor
+            return sign * out if quantity == "charge_density" else out
+
+        return density_batch
+
+
+# -- gauge transformation ---------------------------------------------------------------------------
+
+
+def _is_static(g) -> bool:
+    """True when g is an opaque callable (a pytree leaf): it then goes into the static aux data."""
+    return jax.tree_util.treedef_is_leaf(jax.tree_util.tree_structure(g))
+
+
+@jax.tree_util.register_pytree_node_class
+@dataclasses.dataclass(frozen=True)
+class GaugeTransformed(_Wrapper):
+    """The field ``field`` gauge transformed by ``g``: A' = g A g^-1 + g d g^-1, F' = g F g^-1.
+
+    g: callable x (4,) -> (N, N) unitary, written with jax.numpy.  A plain function is static pytree
+    data (one compile per function); a registered pytree callable (e.g. a frozen dataclass with a
+    ``__call__`` and array leaves) is a child, so one kernel serves all its parameter values.
+    d g is taken by jax.jacfwd.  Densities are gauge invariant and forwarded unchanged.
+    """
+
+    field: object
+    g: object
+
+    _verb = "gauge transformed"
+
+    def __post_init__(self):
+        object.__setattr__(self, "field", as_field(self.field))
+        if not callable(self.g):
+            raise TypeError(f"g must be a callable x -> (N, N) unitary; found {type(self.g).__name__}")
+        leaves = jax.tree_util.tree_leaves(self.field) + (
+            [] if _is_static(self.g) else jax.tree_util.tree_leaves(self.g)
+        )
+        if _validate.is_tracer(*leaves):
+            return
+        spec = jax.ShapeDtypeStruct((4,), jnp.float64)
+        try:
+            a_shape = jax.eval_shape(self.field.potential, spec).shape
+            g_shape = jax.eval_shape(self.g, spec).shape
+        except Exception as err:
+            raise TypeError(f"g or the field failed on a (4,) point: {type(err).__name__}: {err}") from err
+        n = a_shape[-1]
+        if tuple(g_shape) != (n, n):
+            raise ValueError(f"g(x) must have shape (N, N) = ({n}, {n}) to match the field; found {tuple(g_shape)}")
+        gm = np.asarray(self.g(jnp.asarray(_PROBE)))
+        if np.all(np.isfinite(gm)):
+            dev = float(np.max(np.abs(gm @ gm.conj().T - np.eye(n))))
+            if dev > _UNIT_TOL:
+                raise ValueError(f"g(x) must be unitary; max |g g^dag - 1| = {dev:.3e} at x = {_PROBE.tolist()}")
+
+    def tree_flatten(self):
+        if _is_static(self.g):
+            return (self.field, None), self.g
+        return (self.field, self.g), None
+
+    @classmethod
+    def tree_unflatten(cls, aux, children):
+        obj = object.__new__(cls)
+        object.__setattr__(obj, "field", children[0])
+        object.__setattr__(obj, "g", aux if children[1] is None else children[1])
+        return obj
+
+    def _g(self, x):
+        return jnp.asarray(self.g(x)).astype(jnp.complex128)
+
+    @property
+    def record(self):
+        """Field hook: the record of the wrapped field and of g, or one that says why it cannot be rebuilt.
+
+        When g offers ``record()`` (:class:`ConstantGauge` does): {'kind': 'gauge_transformed', 'field':
+        the wrapped field's record, 'g': g's record}.  Otherwise g is code, not data:
+        {'kind': 'unrecordable', 'type': 'GaugeTransformed', 'reason': ..., 'field': the wrapped
+        field's record}; :func:`instantonkit.lattice.references.field_from_record` raises a ValueError quoting
+        the reason.  Offered when the wrapped field has a record hook.
+        """
+        inner = hook(self.field, "record")
+        if inner is None:
+            _missing("record")
+        g = self.g
+        g_record = getattr(g, "record", None)
+        if callable(g_record):  # a gauge function that records itself (e.g. ConstantGauge)
+            return lambda: {"kind": "gauge_transformed", "field": inner(), "g": g_record()}
+        name = getattr(g, "__qualname__", None) or type(g).__qualname__
+        module = getattr(g, "__module__", None) or type(g).__module__
+        reason = (
+            f"a gauge transformation by the callable {module}.{name} cannot be stored: a function is code, "
+            "not data, so the file cannot rebuild g; the wrapped field is recorded under 'field' "
+            "(densities are gauge invariant), rebuild it and apply g again (a global rotation given as "
+            "transforms.ConstantGauge records itself)"
+        )
+
+        def record():
+            return {"kind": "unrecordable", "type": "GaugeTransformed", "reason": reason, "field": inner()}
+
+        return record
+
+    def potential(self, x):
+        """A'_mu = g A_mu g^dag - (d_mu g) g^dag at one point (4,) -> (4, N, N)."""
+        x = jnp.asarray(x, dtype=jnp.float64)
+        g = self._g(x)
+        gd = jnp.conj(g.T)
+        dg = jnp.moveaxis(jax.jacfwd(self._g)(x), -1, 0)  # (mu, N, N)
+        a = self.field.potential(x)
+        return jnp.einsum("ij,mjk,kl->mil", g, a, gd) - jnp.einsum("mij,jk->mik", dg, gd)
+
+    def field_strength(self, x):
+        """F'_mu nu = g F_mu nu g^dag at one point -> (4, 4, N, N)."""
+        x = jnp.asarray(x, dtype=jnp.float64)
+        g = self._g(x)
+        return jnp.einsum("ij,mnjk,kl->mnil", g, _fs(self.field)(x), jnp.conj(g.T))
+
+    def action_density(self, x):
+        return _s(self.field, x)
+
+    def charge_density(self, x):
+        return _q(self.field, x)
+
+    @property
+    def closed_link(self):
+        """U'(x, d) = g(x) U(x, d) g(x + d)^dag from the wrapped field's closed-form link (when it has one)."""
+        if not hasattr(self.field, "closed_link"):
+            _missing("closed_link")
+
+        def closed_link(x, d):
+            x = jnp.asarray(x, dtype=jnp.float64)
+            x1 = x + jnp.asarray(d, dtype=jnp.float64)
+            return self._g(x) @ self.field.closed_link(x, d) @ jnp.conj(self._g(x1).T)
+
+        return closed_link
+
+
+@jax.tree_util.register_pytree_node_class
+@dataclasses.dataclass(frozen=True)
+class ConstantGauge(PytreeFields):
+    """A global gauge rotation g(x) = g0 (constant unitary), a gauge function that records itself.
+
+    With d g = 0 the map is A' = g0 A g0^dag, F' = g0 F g0^dag (the gauge map above).  matrix: (N, N)
+    complex128 unitary (to 1e-10).  ``record()`` -> {'kind': 'constant', 'matrix': {'re', 'im'}}.
+    """
+
+    matrix: Array
+
+    _leaves = ("matrix",)
+
+    def __post_init__(self):
+        if _validate.is_tracer(self.matrix):
+            return
+        m = np.asarray(self.matrix)
+        if m.ndim != 2 or m.shape[0] != m.shape[1] or m.shape[0] < 1:
+            raise ValueError(f"matrix must have shape (N, N); found {m.shape}")
+        if m.dtype == bool or not np.issubdtype(m.dtype, np.number):
+            raise TypeError(f"matrix must be numeric; found dtype {m.dtype}")
+        m = m.astype(np.complex128)
+        if not np.all(np.isfinite(m)):
+            raise ValueError(f"matrix must be finite; found {int(np.sum(~np.isfinite(m)))} non-finite entries")
+        dev = float(np.max(np.abs(m @ m.conj().T - np.eye(m.shape[0]))))
+        if dev > _UNIT_TOL:
+            raise ValueError(f"matrix must be unitary; max |g g^dag - 1| = {dev:.3e}")
+        object.__setattr__(self, "matrix", m)
+
+    def __call__(self, x):
+        """g0 at one point (4,) -> (N, N) complex128."""
+        return jnp.asarray(self.matrix, dtype=jnp.complex128)
+
+    def record(self) -> dict:
+        """A JSON-ready description that rebuilds g exactly (real and imaginary parts)."""
+        m = np.asarray(self.matrix, dtype=np.complex128)
+        return {"kind": "constant", "matrix": {"re": m.real.tolist(), "im": m.imag.tolist()}}
+
+
+def gauge_transform(field, g) -> GaugeTransformed:
+    """Gauge transform ``field`` by ``g(x)`` (N, N) unitary: A' = g A g^-1 + g d g^-1.
+
+    Args:
+      field: a field or a bare callable A(x) with A: (4,) -> (4, N, N).
+      g: callable x (4,) -> (N, N) unitary (jax.numpy); a plain function or a pytree callable.
+    Returns:
+      GaugeTransformed, a field with the same N; densities unchanged.
+    Raises:
+      TypeError when g is not callable or g / the field fail on a (4,) point; ValueError when g(x)
+      has the wrong shape or is not unitary at a probe point.
+    """
+    return GaugeTransformed(field, g)
+
+
+# -- translation ------------------------------------------------------------------------------------
+
+
+@jax.tree_util.register_pytree_node_class
+@dataclasses.dataclass(frozen=True)
+class Translated(_Wrapper):
+    """The field moved by ``shift`` (4,): A'(x) = A(x - shift), likewise F, s, q."""
+
+    field: object
+    shift: Array
+
+    def __post_init__(self):
+        object.__setattr__(self, "field", as_field(self.field))
+        if not _validate.is_tracer(self.shift):
+            object.__setattr__(self, "shift", _validate.point("shift", self.shift))
+
+    _leaves = ("field", "shift")
+    _verb = "translated"
+    _record_kind = "translated"
+
+    def _record_params(self) -> dict:
+        return {"shift": np.asarray(self.shift, dtype=np.float64).reshape(4).tolist()}
+
+    def _y(self, x):
+        return jnp.asarray(x, dtype=jnp.float64) - jnp.asarray(self.shift)
+
+    def potential(self, x):
+        return self.field.potential(self._y(x))
+
+    def field_strength(self, x):
+        return _fs(self.field)(self._y(x))
+
+    def action_density(self, x):
+        return _s(self.field, self._y(x))
+
+    def charge_density(self, x):
+        return _q(self.field, self._y(x))
+
+    def _map_hint(self, centre, scale):
+        return centre + np.asarray(self.shift), scale
+
+    def _batch_points(self, pts):
+        return pts - jnp.asarray(self.shift), 1.0, 1.0
+
+    def _generator_points(self, pts, dirs):
+        return pts - jnp.asarray(self.shift), dirs
+
+    @property
+    def closed_link(self):
+        """U'(x, d) = U(x - shift, d) from the wrapped field's closed-form link (when it has one)."""
+        if not hasattr(self.field, "closed_link"):
+            _missing("closed_link")
+
+        def closed_link(x, d):
+            return self.field.closed_link(self._y(x), d)
+
+        return closed_link
+
+
+def translate(field, shift: Array) -> Translated:
+    """Translate ``field`` by ``shift``: A'(x) = A(x - shift).
+
+    Args:
+      field: a field or a bare callable A(x).
+      shift: (4,) float64.
+    Returns:
+      Translated, a field with the same N.
+    Raises:
+      ValueError for a shift not of shape (4,) or not finite; TypeError for non-real values.
+    """
+    return Translated(field, shift)
+
+
+# -- rotation ---------------------------------------------------------------------------------------
+
+
+def rotation_matrix(left, right):
+    """The SO(4) matrix R with p(R x) = l p(x) r-bar; left, right: (4,) unit quaternions -> (4, 4).
+
+    R_mu nu = Re(e-bar_mu l e_nu r-bar) = e_mu . (l e_nu r-bar) (E_MU is orthonormal).  (l, r) and
+    (-l, -r) give the same R; every R in SO(4) arises (common practice).  jax-traceable.
+    """
+    e = jnp.asarray(E_MU)
+    ler = qt.qmul(qt.qmul(jnp.asarray(left)[None], e), qt.qconj(jnp.asarray(right))[None])  # (nu, 4)
+    return e @ ler.T
+
+
+def _unit(name: str, value) -> np.ndarray:
+    """A unit quaternion (4,) float64 (|q| = 1 to _UNIT_TOL), else ValueError naming the deviation."""
+    arr = _validate.point(name, value)
+    dev = abs(float(np.linalg.norm(arr)) - 1.0)
+    if dev > _UNIT_TOL:
+        raise ValueError(f"{name} must be a unit quaternion; found | |q| - 1 | = {dev:.3e}")
+    return arr
+
+
+@jax.tree_util.register_pytree_node_class
+@dataclasses.dataclass(frozen=True)
+class Rotated(_Wrapper):
+    """The field rotated by R in SO(4), p(R x) = l p(x) r-bar: A'_mu(x) = R_mu nu A_nu(R^T x).
+
+    left, right: (4,) unit quaternions l, r.  F' = R R F(R^T x) on both indices; s, q scalars.
+    """
+
+    field: object
+    left: ArrayLike
+    right: ArrayLike
+
+    def __post_init__(self):
+        object.__setattr__(self, "field", as_field(self.field))
+        if not _validate.is_tracer(self.left, self.right):
+            object.__setattr__(self, "left", _unit("left", self.left))
+            object.__setattr__(self, "right", _unit("right", self.right))
+
+    _leaves = ("field", "left", "right")
+    _verb = "rotated"
+    _record_kind = "rotated"
+
+    def _record_params(self) -> dict:
+        return {
+            "left": np.asarray(self.left, dtype=np.float64).reshape(4).tolist(),
+            "right": np.asarray(self.right, dtype=np.float64).reshape(4).tolist(),
+        }
+
+    @property
+    def matrix(self):
+        """R, (4, 4)."""
+        return rotation_matrix(self.left, self.right)
+
+    def _back(self, x):
+        r = self.matrix
+        return r, r.T @ jnp.asarray(x, dtype=jnp.float64)
+
+    def potential(self, x):
+        r, y = self._back(x)
+        return jnp.einsum("mn,nij->mij", r, self.field.potential(y))
+
+    def field_strength(self, x):
+        r, y = self._back(x)
+        return jnp.einsum("ma,nb,abij->mnij", r, r, _fs(self.field)(y))
+
+    def action_density(self, x):
+        return _s(self.field, self._back(x)[1])
+
+    def charge_density(self, x):
+        return _q(self.field, self._back(x)[1])
+
+    def _map_hint(self, centre, scale):
+        return np.asarray(self.matrix) @ centre, scale
+
+    def _batch_points(self, pts):
+        return pts @ self.matrix, 1.0, 1.0  # rows y = R^T x
+
+    def _generator_points(self, pts, dirs):
+        r = self.matrix  # A'.d = (R^T d).A(R^T x)
+        return pts @ r, dirs @ r
+
+    @property
+    def period(self):
+        raise AttributeError("a rotated field has no period along x4 in general")
+
+
+def rotate(field, left: ArrayLike, right: ArrayLike = (1.0, 0.0, 0.0, 0.0)) -> Rotated:
+    """Rotate ``field`` by the SO(4) map p(x) -> l p(x) r-bar: A'_mu(x) = R_mu nu A_nu(R^T x).
+
+    Args:
+      field: a field or a bare callable A(x).
+      left, right: (4,) float64 unit quaternions l, r.
+    Returns:
+      Rotated, a field with the same N (R = rotation_matrix(l, r)).
+    Raises:
+      ValueError for quaternions not of shape (4,), not finite or not of unit length (_UNIT_TOL);
+      TypeError for non-real values.
+    """
+    return Rotated(field, left, right)
+
+
+# -- dilation ---------------------------------------------------------------------------------------
+
+
+@jax.tree_util.register_pytree_node_class
+@dataclasses.dataclass(frozen=True)
+class Dilated(_Wrapper):
+    """The field dilated about the origin by c > 0: A'(x) = A(x/c)/c, F'(x) = F(x/c)/c^2, s'(x) = s(x/c)/c^4."""
+
+    field: object
+    factor: Array
+
+    def __post_init__(self):
+        object.__setattr__(self, "field", as_field(self.field))
+        if not _validate.is_tracer(self.factor):
+            c = _validate.real_array("factor", self.factor, ())
+            object.__setattr__(self, "factor", np.asarray(_validate.positive_float("factor", c)))
+
+    _leaves = ("field", "factor")
+    _verb = "dilated"
+    _record_kind = "dilated"
+
+    def _record_params(self) -> dict:
+        return {"factor": float(self.factor)}
+
+    def _y(self, x):
+        c = jnp.asarray(self.factor)
+        return c, jnp.asarray(x, dtype=jnp.float64) / c
+
+    def potential(self, x):
+        c, y = self._y(x)
+        return self.field.potential(y) / c
+
+    def field_strength(self, x):
+        c, y = self._y(x)
+        return _fs(self.field)(y) / c**2
+
+    def action_density(self, x):
+        c, y = self._y(x)
+        return _s(self.field, y) / c**4
+
+    def charge_density(self, x):
+        c, y = self._y(x)
+        return _q(self.field, y) / c**4
+
+    def _map_hint(self, centre, scale):
+        c = float(self.factor)
+        return c * centre, c * scale
+
+    def _map_period(self, period):
+        return float(self.factor) * period
+
+    def _batch_points(self, pts):
+        c = jnp.asarray(self.factor)
+        return pts / c, 1.0 / c**4, 1.0
+
+    def _generator_points(self, pts, dirs):
+        c = jnp.asarray(self.factor)  # A'.d = A(x / c).(d / c)
+        return pts / c, dirs / c
+
+
+def dilate(field, factor) -> Dilated:
+    """Dilate ``field`` about the origin by ``factor`` c > 0: A'(x) = A(x / c) / c.
+
+    Args:
+      field: a field or a bare callable A(x).
+      factor: c > 0, a real number.
+    Returns:
+      Dilated, a field with the same N; s'(x) = s(x / c) / c^4.
+    Raises:
+      ValueError for c <= 0 or not finite; TypeError for non-real (or boolean) values.
+    """
+    return Dilated(field, factor)
+
+
+# -- parity -----------------------------------------------------------------------------------------
+
+
+@jax.tree_util.register_pytree_node_class
+@dataclasses.dataclass(frozen=True)
+class ParityImage(_Wrapper):
+    """The parity image: A'_mu(x) = P_mu A_mu(Px), P = diag(-1, -1, -1, 1); s'(x) = s(Px), q'(x) = -q(Px).
+
+    Turns an instanton (self-dual) into an anti-instanton (anti-self-dual) and back; charge -> -charge.
+    """
+
+    field: object
+
+    def __post_init__(self):
+        object.__setattr__(self, "field", as_field(self.field))
+
+    _leaves = ("field",)
+    _verb = "parity image"
+    _record_kind = "parity"
+    _pole_note = ", parity image"
+
+    @staticmethod
+    def _px(x):
+        return jnp.asarray(x, dtype=jnp.float64) * PARITY
+
+    def potential(self, x):
+        return PARITY[:, None, None] * self.field.potential(self._px(x))
+
+    def field_strength(self, x):
+        return (PARITY[:, None] * PARITY[None, :])[:, :, None, None] * _fs(self.field)(self._px(x))
+
+    def action_density(self, x):
+        return _s(self.field, self._px(x))
+
+    def charge_density(self, x):
+        return -_q(self.field, self._px(x))
+
+    def _map_hint(self, centre, scale):
+        return PARITY * centre, scale
+
+    def _map_charge(self, charge):
+        return -charge
+
+    def _batch_points(self, pts):
+        return pts * PARITY, 1.0, -1.0
+
+    def _generator_points(self, pts, dirs):
+        return pts * PARITY, dirs * PARITY  # A'.d = A(P x).(P d)
+
+    def conjugate(self):
+        """Field hook: the partner of a parity image is the field it wraps (P^2 = 1)."""
+        return self.field
+
+
+def parity(field) -> ParityImage:
+    """Parity image of ``field`` (x -> (-x1, -x2, -x3, x4)), its anti-self-dual partner.
+
+    Args:
+      field: a field or a bare callable A(x).
+    Returns:
+      ParityImage, a field with A'_mu(x) = P_mu A_mu(Px); charge -> -charge.
+    Raises:
+      TypeError when ``field`` is neither a field nor a callable.
+    """
+    return ParityImage(field)
+
+
+def anti(field):
+    """Anti-self-dual partner of ``field``: its parity image x -> Px, P = diag(-1, -1, -1, 1).
+
+    A'_mu(x) = P_mu nu A_nu(Px), so F' is anti-self-dual, s'(x) = s(Px), q'(x) = -q(Px) and the centres
+    move to P a_i.  The field is asked first: when it offers the ``conjugate`` hook (ADHM data flip
+    their chirality, the same map; a parity image returns the field it wraps, so ``anti(anti(f))``
+    gives ``f`` back) that is the answer; any other field is wrapped by :func:`parity`.
+
+    Args:
+      field: a field or a bare callable A(x).
+    Returns:
+      a field of opposite charge (same type as ``field.conjugate()`` or a ParityImage).
+    Raises:
+      TypeError when ``field`` is neither a field nor a callable.
+    """
+    field = as_field(field)
+    conjugate = hook(field, "conjugate")
+    return conjugate() if conjugate is not None else ParityImage(field)

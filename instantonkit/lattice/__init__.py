@@ -1,0 +1,22 @@
+"""Lattice work: links (transport), starts, observables, smoothing, files, continuum references.
+
+Modules (floor 5 of the package; the floors inside are in DEVELOPERS.md):
+
+* ``boundaries``: Boundary conditions per lattice direction: the one reading of ``boundary=`` for starts and observables.
+* ``files``: Lattice files: numpy ``.npz`` with the generation parameters, and ILDG (LIME records) for SU(3).
+* ``observables``: Gauge-invariant observables of lattice link arrays: plaquettes, Wilson action, clover field strength
+* ``references``: What a lattice start is compared with and rebuilt from.
+* ``smoothing``: Smoothing of lattice link arrays: gradient flow, cooling, the 1x1 + 2x2 improved action and an
+* ``starts``: Lattice starts: link variables of a continuum field, and gauge-invariant lattice observables.
+* ``transport``: Parallel transporters along straight segments: closed forms and sixth-order Magnus steps.
+"""
+
+# ``instantonkit.lattice`` was the module now in ``starts``: its API stays here.
+from . import starts as _front
+from .starts import *  # noqa: F403
+from .starts import __all__  # noqa: F401
+
+
+def __getattr__(name):
+    """The seams of ``starts`` that 'lattice' offered outside ``__all__`` (package-internal)."""
+    return getattr(_front, name)
