@@ -1,6 +1,6 @@
 """instantonkit: exact Yang-Mills instantons (BPST, ADHM for SU(2) and Sp(n), classic ansaetze), their
 densities by closed form and automatic differentiation, checks of charge and self-duality, and lattice
-starts.  Conventions: :mod:`instantonkit.core.conventions` and docs/conventions.md.
+starts.  Conventions: `instantonkit.core.conventions` and docs/conventions.md.
 """
 
 import sys as _sys

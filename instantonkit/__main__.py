@@ -2,14 +2,14 @@
 
 ``python -m instantonkit`` builds our default configuration (three SU(2) instantons of sizes 1.0,
 0.7 and 1.2 at well separated centres with distinct orientations, solved exactly by
-:func:`instantonkit.multi_instanton`) and prints its verification report.
+`instantonkit.multi_instanton`) and prints its verification report.
 
 ``python -m instantonkit verify TARGET [options]`` verifies a field given as
 
 * ``module:attribute`` -- ``module`` importable, or a path to a ``.py`` file; the attribute (dotted
   names allowed) is a field object (anything with ``potential(x)``), a callable potential
   ``A(x): (4,) -> (4, N, N)``, or a callable without arguments that returns a field;
-* a saved ADHM data file ``.npz`` (see :func:`save_adhm`): arrays ``lam`` (n, k, 4) and ``B``
+* a saved ADHM data file ``.npz`` (see `save_adhm`): arrays ``lam`` (n, k, 4) and ``B``
   (k, k, 4) float64, optional ``chirality`` (+1 / -1, default +1) and ``gauge`` ('singular' /
   'regular', default 'singular').
 
@@ -76,7 +76,7 @@ def save_adhm(path, data: ADHMData) -> None:
 
 
 def load_adhm(path) -> ADHMData:
-    """Read ADHM data written by :func:`save_adhm` (the constraint is validated by ADHMData)."""
+    """Read ADHM data written by `save_adhm` (the constraint is validated by ADHMData)."""
     try:
         with np.load(path, allow_pickle=False) as z:
             if "lam" not in z or "B" not in z:

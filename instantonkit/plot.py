@@ -4,7 +4,7 @@ matplotlib is an optional extra (``pip install instantonkit[plot]``); it is impo
 functions, never when instantonkit is imported.  Every function returns the matplotlib Figure.
 
 Coordinates passed in (``at``, ``extent``, ``values``) are positions in the same units as the
-points of :mod:`instantonkit.engine.fields`; the axes show them in units of a length scale ``L`` (the
+points of `instantonkit.engine.fields`; the axes show them in units of a length scale ``L`` (the
 field's ``hint()`` scale, e.g. the size rho of a BPST instanton, or ``scale=``), and densities are
 shown as the dimensionless ``s L^4`` and ``q L^4`` (s and q have dimension length^-4).  Quantities:
 
@@ -312,7 +312,7 @@ def slice_panels(
     of L); the remaining axis is fixed by ``at`` (one number, or a full point (4,); default the centre).
     The same colour scale serves every panel, with one colour bar, and the level lines at the
     ``contours`` fractions of the largest |value| over all panels are drawn in each panel, so the
-    panels read as cuts through the same isosurfaces.  Other keywords as in :func:`density_slice`.
+    panels read as cuts through the same isosurfaces.  Other keywords as in `density_slice`.
     """
     plt = _pyplot()
     from matplotlib import colors
@@ -448,7 +448,7 @@ def convergence(
     """Convergence curves of integrals against the work spent; returns the Figure.
 
     data: one series or a mapping label -> series.  A series is a sequence of
-    :class:`instantonkit.verification.checks.IntegralResult` (or objects with ``evaluations``, ``value``, ``error``),
+    `instantonkit.verification.checks.IntegralResult` (or objects with ``evaluations``, ``value``, ``error``),
     the list of dicts that the ``progress=`` callback of the integrals receives, a mapping with keys
     'evaluations' (or 'n'), 'value', 'error', or a triple (n, value, error) of arrays.
     Left panel: value with error bars against n (and the ``reference`` line); right panel, log-log:

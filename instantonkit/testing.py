@@ -38,7 +38,7 @@ __all__ = [
     "unitary_adhm_data",
 ]
 
-#: Quaternions drawn by :func:`unit_quaternions` come from vectors at least this long (then normalised).
+#: Quaternions drawn by `unit_quaternions` come from vectors at least this long (then normalised).
 _MIN_RAW_NORM = 1e-3
 
 #: Drawn centres closer than this are redrawn (nearly coinciding centres make the constraint solve fail).
@@ -134,7 +134,7 @@ def _adhm_from_moduli(draw, k: int, rank: int, spread: float, size_range):
         assume(False)
 
 
-#: Default charges drawn by :func:`adhm_data` (small k keeps the constraint solve fast).
+#: Default charges drawn by `adhm_data` (small k keeps the constraint solve fast).
 _DEFAULT_K = st.integers(1, 3)
 
 
@@ -147,13 +147,13 @@ def adhm_data(
     spread: float = 2.0,
     size_range=(0.5, 1.5),
 ) -> st.SearchStrategy:
-    """Valid ADHM data (:class:`instantonkit.adhm.quaternionic.ADHMData`) of drawn charge and rank.
+    """Valid ADHM data (`instantonkit.adhm.quaternionic.ADHMData`) of drawn charge and rank.
 
     k, rank, chirality: ints or strategies of ints (k >= 1, rank >= 1, chirality +1 or -1).
-    source: ``"seed"`` draws a seed for :func:`instantonkit.adhm.quaternionic.random_adhm` (fast, shrinks to
+    source: ``"seed"`` draws a seed for `instantonkit.adhm.quaternionic.random_adhm` (fast, shrinks to
     seed 0); ``"moduli"`` draws centres (coordinates in ``[-spread, spread]``), sizes in
-    ``size_range`` and orientations, and solves with :func:`instantonkit.adhm.quaternionic.multi_instanton`.
-    ``chirality=-1`` returns the anti-instanton partner (:meth:`ADHMData.conjugate`).
+    ``size_range`` and orientations, and solves with `instantonkit.adhm.quaternionic.multi_instanton`.
+    ``chirality=-1`` returns the anti-instanton partner (`ADHMData.conjugate`).
     """
     _validate.choice("source", source, ("seed", "moduli"))
     lo, hi = size_range
@@ -177,10 +177,10 @@ def adhm_data(
 
 
 def unitary_adhm_data(k=st.integers(1, 3), rank=st.integers(2, 4), *, spread: float = 1.5) -> st.SearchStrategy:  # noqa: B008
-    """Valid complex SU(N) ADHM data (:class:`instantonkit.adhm.unitary.UnitaryADHMData`) of drawn k and N.
+    """Valid complex SU(N) ADHM data (`instantonkit.adhm.unitary.UnitaryADHMData`) of drawn k and N.
 
     k, rank: ints or strategies of ints (k >= 1, rank >= 2); a drawn seed goes to
-    :func:`instantonkit.adhm.unitary_moduli.random_unitary_adhm` (generic data, shrinks to seed 0).
+    `instantonkit.adhm.unitary_moduli.random_unitary_adhm` (generic data, shrinks to seed 0).
     """
 
     @st.composite

@@ -7,7 +7,7 @@ Modules (floor 3 of the package; the floors inside are in DEVELOPERS.md):
 * ``kernels``: Quaternionic kernels of ADHM data and the closed-form links of charge one.
 * ``moduli``: ADHM data from moduli: single instantons, well-separated multi-instantons (the constraint solved),
 * ``quaternionic``: ADHM data for SU(2) = Sp(1) and Sp(n) multi-instantons, its validation and its constructors.
-* ``unitary``: Complex ADHM data for SU(N) (U(N)) multi-instantons, its validation and fields (constructors: :mod:`instantonkit.adhm.unitary_moduli`).
+* ``unitary``: Complex ADHM data for SU(N) (U(N)) multi-instantons, its validation and fields (constructors: `instantonkit.adhm.unitary_moduli`).
 * ``unitary_moduli``: Complex ADHM data from moduli and from other data.
 * ``zero_mode_phase``: The U(1) phase of the zero modes of complex (SU(N)) ADHM data: the flat part a, its ray integral theta.
 * ``zero_modes``: Normalisable zero modes of the fundamental Dirac operator in an ADHM background, in closed form.

@@ -1,11 +1,11 @@
 """Batch-major k x k kernels of ADHM densities: the points on the last axis, so XLA vectorises across them.
 
-Used by :meth:`instantonkit.adhm.quaternionic.ADHMData.density_batch` (the engine's ``density_batch`` hook).  The
+Used by `instantonkit.adhm.quaternionic.ADHMData.density_batch` (the engine's ``density_batch`` hook).  The
 formulas are those of ``ADHMData.action_density`` (Corrigan, Goddard, Osborn, Templeton, Nucl. Phys.
 B 159 (1979) 469, from memory), rearranged so that each point costs a Cholesky factor of the real
 Gram matrix Delta^dag Delta and triangular solves instead of inverses, and O(k^2) work for SU(2)
-beyond that (see :func:`s_rank_one`).  Quaternion products use the units of
-:data:`instantonkit.core.conventions.QUATERNION_BASIS`.
+beyond that (see `s_rank_one`).  Quaternion products use the units of
+`instantonkit.core.conventions.QUATERNION_BASIS`.
 """
 
 from __future__ import annotations
@@ -170,7 +170,7 @@ def factor_solve(g, x):
     Step j scales row j of the current trailing block by 1 / sqrt(pivot) (giving L[j:, j] and row j
     of Y) and subtracts its outer product from the rows below, so the factor and the forward
     substitution share k steps of a few fused operations each.  x: (k, m, nb) -> (cols, inv_d), Y (k, m, nb)
-    (cols[j] = L[j:, j], inv_d[j] = 1 / L_jj, as :func:`cholesky_last`).
+    (cols[j] = L[j:, j], inv_d[j] = 1 / L_jj, as `cholesky_last`).
     """
     k = g.shape[0]
     a = jnp.concatenate([g, x], axis=1)  # (k, k + m, nb)
@@ -198,7 +198,7 @@ def s_rank_one(lam, off, y, g):
     phi = 1 - |L^-1 Delta^dag e_j|^2 costs at most a factor 1 + k of rounding, at every point.
     Work: the factor and L^-1 Delta^dag (4 (1 + k) right-hand sides) in one elimination, then
     f Delta^dag v, (B - p) f Delta^dag v (a constant 4k x 4k real product plus the diagonal) and
-    L^-1 w on single quaternionic columns (counted in :func:`flops_per_point`).
+    L^-1 w on single quaternionic columns (counted in `flops_per_point`).
     """
     k, nb = y.shape[1], y.shape[-1]
     lamd = jnp.asarray(lam)[0].T * _CONJ[:, None]  # Lambda^dag, (4, k)
@@ -258,7 +258,7 @@ def action_density_block(lam, b, chirality: int, pts):
 
 
 def flops_per_point(k: int, n: int = 1) -> int:
-    """Floating-point operations per point of :func:`action_density_block` (a multiply-add counts 2).
+    """Floating-point operations per point of `action_density_block` (a multiply-add counts 2).
 
     Counted from the loops above, for m = 4 (1 + k) right-hand sides in the SU(2) route: Gram matrix
     14 k^2; factor and forward substitution together sum_j 2 (k - j - 1)(k - j - 1 + m) ~ 2 k^3 / 3 + m k^2,
@@ -337,7 +337,7 @@ def _generator_block(lam, b, chirality: int, gauge: str, pts, dirs):
 
 def link_generator_batch(lam, b, chirality: int, gauge: str, pts, dirs):
     """A_mu(x) d_mu of SU(2) data (n = 1) at points (m, 4) with directions (m, 4) -> (3, m) imaginary
-    quaternion parts (the link generator of :mod:`instantonkit.lattice.transport`), in blocks of BLOCK points
+    quaternion parts (the link generator of `instantonkit.lattice.transport`), in blocks of BLOCK points
     (lax.map) when m is a multiple of it; equal to contracting ``ADHMData.potential`` to rounding."""
     m = pts.shape[0]
     lam, b = jnp.asarray(lam), jnp.asarray(b)

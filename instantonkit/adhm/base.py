@@ -1,23 +1,23 @@
 """What every realisation of ADHM data offers, and the one constraint solve they share (floor 1).
 
 ADHM data come in two realisations of one construction (Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett.
-A 65 (1978) 185): quaternionic data (Lambda, B) of SU(2)/Sp(n) in :mod:`instantonkit.adhm.quaternionic` and complex
-data (B1, B2, I, J) of SU(N) in :mod:`instantonkit.adhm.unitary`.  Both data classes satisfy
-:class:`ADHMConstruction` (the structural interface: sizes, moduli read-outs, the constraint, the
+A 65 (1978) 185): quaternionic data (Lambda, B) of SU(2)/Sp(n) in `instantonkit.adhm.quaternionic` and complex
+data (B1, B2, I, J) of SU(N) in `instantonkit.adhm.unitary`.  Both data classes satisfy
+`ADHMConstruction` (the structural interface: sizes, moduli read-outs, the constraint, the
 Gram matrix f^-1 and the frame, the fields and the field hooks), so code that only needs "ADHM data"
 (zero modes, the flux route, the finder's read-out of a fit) is written once against it.
 
 Both constraint solves -- the quaternionic Im(Lambda^dag Lambda + B^dag B) = 0 of
-:mod:`instantonkit.adhm.moduli` and the complex moment maps mu_R = mu_C = 0 of
-:mod:`instantonkit.adhm.unitary_moduli` -- are the same weighted minimum-norm Gauss-Newton iteration
-(:func:`gauss_newton`): step = -W (J W)^T [(J W)(J W)^T]^-1 r, with J = dr/dz exact (jax.jacfwd; r is
+`instantonkit.adhm.moduli` and the complex moment maps mu_R = mu_C = 0 of
+`instantonkit.adhm.unitary_moduli` -- are the same weighted minimum-norm Gauss-Newton iteration
+(`gauss_newton`): step = -W (J W)^T [(J W)(J W)^T]^-1 r, with J = dr/dz exact (jax.jacfwd; r is
 quadratic in z) and W a diagonal of weights (0 freezes a variable).  It is written once, in jax, so
 the numpy builders and the differentiable fits call the same code: with ``tol`` it stops one step
 after the residual reaches ``tol`` (the builders), without it it runs a fixed number of steps that
 jax.jvp / jax.jacfwd differentiate (the fits; why unrolled steps give the implicit-function
-derivative: :func:`instantonkit.adhm.moduli.solve_constraint_unrolled`).
+derivative: `instantonkit.adhm.moduli.solve_constraint_unrolled`).
 
-The complex moment maps (:func:`unitary_moment_maps`), their 3k^2 real equations and the packing of
+The complex moment maps (`unitary_moment_maps`), their 3k^2 real equations and the packing of
 (B1, B2, I, J) into one real vector live here too, so the builder and the fit share one layout.
 """
 
@@ -54,7 +54,7 @@ class ADHMConstruction(Protocol):
     ``matrix_size`` the size of the gauge matrices (2n or N).  The hooks the engine asks for by name
     (``potential``, ``field_strength``, ``action_density``, ``charge_density``, ``gram``, ``log_det``,
     ``constraint_residual``, ``layout``, ``hint``, ``record``, ``describe``, ``generator_batch``) are
-    those of :class:`instantonkit.engine.fields.FieldHooks`; the rest is what constructions and fits use.
+    those of `instantonkit.engine.fields.FieldHooks`; the rest is what constructions and fits use.
     """
 
     gauge: str
@@ -166,7 +166,7 @@ def pack_unitary(b1, b2, i, j):
 
 
 def unpack_unitary(z, k: int, n: int):
-    """Inverse of :func:`pack_unitary` (numpy in, numpy out; jax in, jax out)."""
+    """Inverse of `pack_unitary` (numpy in, numpy out; jax in, jax out)."""
     c = z[0::2] + 1j * z[1::2]
     s = np.cumsum([0, k * k, k * k, k * n, n * k])
     return (
@@ -198,7 +198,7 @@ def _compiled(k: int, n: int, steps: int, fixed: bool):
 
 
 def solve_moment_maps(z0, weights, k: int, n: int, *, steps: int, tol: float | None = None):
-    """Packed (B1, B2, I, J) (:func:`pack_unitary`) on both moment maps by :func:`gauss_newton`.
+    """Packed (B1, B2, I, J) (`pack_unitary`) on both moment maps by `gauss_newton`.
 
     z0, weights: (4k^2 + 4kN,); returns (z (jax), max residual, steps taken).  ``tol`` None: exactly
     ``steps`` steps, traced into the caller (the fit differentiates it); otherwise a jitted solve that

@@ -1,10 +1,10 @@
-"""Quaternionic kernels of ADHM data and the closed-form links of charge one (floor 2, below :mod:`instantonkit.adhm.quaternionic`).
+"""Quaternionic kernels of ADHM data and the closed-form links of charge one (floor 2, below `instantonkit.adhm.quaternionic`).
 
 The k x k algebra the quaternionic data class uses (the real Gram matrix Re(Delta^dag Delta), real-times-
 quaternionic products, an unrolled SPD solve, the quaternionic Cholesky inverse, the sigma_mu nu tensors)
-and the closed form of a charge-one field's parallel transporter (:func:`charge_one_link`; the 't Hooft
-ansatz of charge one shares it, through its re-export in :mod:`instantonkit.adhm.quaternionic`).  The names without
-underscore are package-internal seams of :mod:`instantonkit.adhm.quaternionic`.
+and the closed form of a charge-one field's parallel transporter (`charge_one_link`; the 't Hooft
+ansatz of charge one shares it, through its re-export in `instantonkit.adhm.quaternionic`).  The names without
+underscore are package-internal seams of `instantonkit.adhm.quaternionic`.
 """
 
 from __future__ import annotations
@@ -145,7 +145,7 @@ def charge_one_link(lam, b, chirality: int, gauge: str, x, d):
     """Exact transporter of a charge-1 SU(2) instanton (BPST, either gauge) along x -> x + d; (2, 2) complex128.
 
     Package-internal seam (not in ``__all__``): the one formula behind the ``closed_link`` hooks of
-    :class:`ADHMData` (k = n = 1) and ``ansatz.BPSTField``.  lam: Lambda (4,) quaternion, b: B (4,)
+    `ADHMData` (k = n = 1) and ``ansatz.BPSTField``.  lam: Lambda (4,) quaternion, b: B (4,)
     quaternion, chirality: +1 / -1, gauge: 'regular' / 'singular', x, d: (4,) start and displacement.
 
     For k = 1, n = 1 the ADHM frame gives, with y = p(x) - B (p-bar(x) for chirality -1),

@@ -1,12 +1,12 @@
 """ADHM data from moduli: single instantons, well-separated multi-instantons (the constraint solved),
-random valid data, Sp(n) embeddings and block sums (floor 3, above :mod:`instantonkit.adhm.quaternionic`).
+random valid data, Sp(n) embeddings and block sums (floor 3, above `instantonkit.adhm.quaternionic`).
 
-The data class, its validation and its fields live in :mod:`instantonkit.adhm.quaternionic`; this module only
+The data class, its validation and its fields live in `instantonkit.adhm.quaternionic`; this module only
 builds data.  ``multi_instanton`` fixes the diagonal of B to the centres and Lambda's columns to the
 sizes and orientations, and solves the 3k(k-1)/2 real equations of the ADHM constraint for the
 off-diagonal part of B by minimum-norm Gauss-Newton steps (the moduli count 8k for SU(2) is checked
-in the tests from the rank of the constraint Jacobian).  :func:`solve_constraint_unrolled` is the same
-iteration written in jax, differentiable (used by :mod:`instantonkit.fit.moduli_fit`).
+in the tests from the rank of the constraint Jacobian).  `solve_constraint_unrolled` is the same
+iteration written in jax, differentiable (used by `instantonkit.fit.moduli_fit`).
 """
 
 from __future__ import annotations
@@ -274,7 +274,7 @@ def block_sum(first: ADHMData, second: ADHMData, *, stack_ranks: bool = False, t
     With ``stack_ranks=True`` the result is Sp(n1 + n2) data with Lambda = diag(L1, L2), which is
     always exact.  Otherwise both must have the same rank and the sum is exact only when
     Lambda_1^dag Lambda_2 is real; if not, a ValueError reports the violation (use
-    :func:`multi_instanton` to re-solve the combined constraint).
+    `multi_instanton` to re-solve the combined constraint).
 
     Args:
       first, second: ADHMData with lam (n1, k1, 4), (n2, k2, 4) of the same chirality.
@@ -317,7 +317,7 @@ def block_sum(first: ADHMData, second: ADHMData, *, stack_ranks: bool = False, t
 def solve_constraint_unrolled(lam, diag, *, steps: int = UNROLLED_STEPS, start=None):
     """B solving the ADHM constraint for given Lambda and diagonal, by ``steps`` unrolled Gauss-Newton steps in jax.
 
-    The same minimum-norm Gauss-Newton iteration as :func:`multi_instanton` (from ``B_off = 0``, or
+    The same minimum-norm Gauss-Newton iteration as `multi_instanton` (from ``B_off = 0``, or
     from ``start`` (m, 4) held constant), written with jax so that jax.jvp / jax.jacfwd / jax.grad
     differentiate through it.  Each step is ``E <- E - J^T (J J^T)^-1 r(E)`` with r the imaginary
     parts of (Lambda^dag Lambda + B^dag B)_{i<j} and J = dr/dE (exact, r is quadratic in E).

@@ -14,7 +14,7 @@ orthonormal null space of ``Delta^dag`` and ``b = [0 ; 1_k]``,
     A_mu = U^dag d_mu U,      F_mu nu = U^dag b (e_mu e-bar_nu - e_nu e-bar_mu) f b^dag U,
 
 which is self-dual (``e_mu e-bar_nu - e_nu e-bar_mu = -2 eta_{a mu nu} u_a``, quaternion.thooft_eta)
-with ``Q = +k`` in the conventions of :mod:`instantonkit.core.conventions`.  The anti-instanton partner
+with ``Q = +k`` in the conventions of `instantonkit.core.conventions`.  The anti-instanton partner
 (``chirality = -1``) uses ``p-bar(x)`` in place of ``p(x)``.
 """
 
@@ -88,7 +88,7 @@ class ADHMData(PytreeFields):
     ``ValueError`` naming the failed condition and the size of the violation.  Instances are
     immutable pytrees (``lam`` and ``B`` are leaves), so ``jax.grad`` flows through the moduli;
     under tracing the value checks are skipped.  ADHMData is a field in the sense of
-    :mod:`instantonkit.engine.fields` (methods ``potential``, ``field_strength``, ``action_density``).
+    `instantonkit.engine.fields` (methods ``potential``, ``field_strength``, ``action_density``).
     """
 
     lam: Array
@@ -231,7 +231,7 @@ class ADHMData(PytreeFields):
 
         Same Lambda and B, chirality flipped, so Delta'(x) = Delta(Px) uses p-bar(x) = p(Px) and
         A'_mu(x) = P_mu nu A_nu(Px): s'(x) = s(Px), q'(x) = -q(Px), centres P a_i.
-        Compose with :meth:`translate` to move the anti-instantons elsewhere.
+        Compose with `translate` to move the anti-instantons elsewhere.
         """
         return self._replace(chirality=-self.chirality)
 
@@ -295,13 +295,13 @@ class ADHMData(PytreeFields):
     def potential(self, x):
         """A_mu(x) = U^dag d_mu U at one point (4,) -> (4, 2n, 2n) complex (gauge: ``self.gauge``), derivative-free.
 
-        With U = P V0 L^-dag (:meth:`frame`), U^dag Delta = 0 and d_mu Delta = -b e_mu (e-bar_mu for
+        With U = P V0 L^-dag (`frame`), U^dag Delta = 0 and d_mu Delta = -b e_mu (e-bar_mu for
         chirality -1; b = [0 ; 1_k]): U^dag d_mu U = M_mu + L^dag d_mu L^-dag with
         M_mu = (b^dag U)^dag e_mu f Delta^dag V0 L^-dag, and the second term is upper triangular with a
         real diagonal, so the anti-Hermitian A_mu is M_mu's strictly lower part, minus its adjoint, plus
         the imaginary part of M_mu's diagonal (for n = 1: A_mu = Im M_mu).  One k x k solve per point
         (f Delta^dag V0, Cholesky written out for k <= 8) and no differentiation of the null space; equal
-        to the forward-mode derivative of :meth:`frame` to rounding (tests/test_lattice.py).
+        to the forward-mode derivative of `frame` to rounding (tests/test_lattice.py).
         """
         n, k = self.rank, self.k
         x = jnp.asarray(x, dtype=jnp.float64)
@@ -328,8 +328,8 @@ class ADHMData(PytreeFields):
     def generator_batch(self, points, dirs):
         """Field hook: A_mu(x) d_mu at points (m, 4) with directions (m, 4) -> (m, 2n, 2n) (link generators).
 
-        SU(2) data: batch-major k x k kernels (:func:`instantonkit.adhm._kxk.link_generator_batch`); Sp(n > 1):
-        the vmapped :meth:`potential` contracted with d.  Equal to the contracted potential to rounding.
+        SU(2) data: batch-major k x k kernels (`instantonkit.adhm._kxk.link_generator_batch`); Sp(n > 1):
+        the vmapped `potential` contracted with d.  Equal to the contracted potential to rounding.
         """
         pts, dirs = jnp.asarray(points, dtype=jnp.float64), jnp.asarray(dirs, dtype=jnp.float64)
         if self.rank > 1:
@@ -375,7 +375,7 @@ class ADHMData(PytreeFields):
     def density_batch(self, points, quantity: str):
         """Field hook: action or charge density at a batch of points (m, 4) -> (m,), batch-major k x k kernels.
 
-        Same formulas as :meth:`action_density` / :meth:`charge_density` (equal to rounding), laid out
+        Same formulas as `action_density` / `charge_density` (equal to rounding), laid out
         with the points on the last axis so that XLA vectorises across them (instantonkit.adhm._kxk).
         """
         s = _kxk.action_density_batch(self.lam, self.B, self.chirality, points)
@@ -397,7 +397,7 @@ class ADHMData(PytreeFields):
         """The closed-form link hook ``closed_link(x, d) -> (2, 2)`` of charge-1 SU(2) data (k = n = 1).
 
         Absent (AttributeError, so ``fields.hook(data, "closed_link")`` is None) for k > 1 or Sp(n > 1),
-        whose transporters need Magnus steps.  Formula: :func:`charge_one_link`.
+        whose transporters need Magnus steps.  Formula: `charge_one_link`.
         """
         if self.k != 1 or self.rank != 1:
             raise AttributeError("closed_link exists only for charge-1 SU(2) ADHM data (k = 1, n = 1)")
@@ -456,7 +456,7 @@ class ADHMData(PytreeFields):
 def projection_transition(lam, b, chirality: int, x):
     """g(x) = U_twin(x)^dag U(x) between the two projection gauges of ADHM data (lam, b) at one point; (2n, 2n).
 
-    U in the singular gauge, U_twin in the regular one (:meth:`ADHMData.frame`).  jax-traceable; the
+    U in the singular gauge, U_twin in the regular one (`ADHMData.frame`).  jax-traceable; the
     function behind the ``gauge_twin`` hooks of ADHM data and of ``ansatz.BPSTField``.
     """
     data = ADHMData(lam, b, chirality=chirality, gauge="singular")

@@ -1,4 +1,4 @@
-"""Complex ADHM data for SU(N) (U(N)) multi-instantons, its validation and fields (constructors: :mod:`instantonkit.adhm.unitary_moduli`).
+"""Complex ADHM data for SU(N) (U(N)) multi-instantons, its validation and fields (constructors: `instantonkit.adhm.unitary_moduli`).
 
 Data (Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185; Christ, Weinberg, Stanton,
 Phys. Rev. D 18 (1978) 2013; the complex form below is common practice, from memory): complex
@@ -19,8 +19,8 @@ orthonormal null space of ``Delta^dag`` and ``b = [1_2k ; 0]``,
     A_mu = U^dag d_mu U  (its trace, a flat U(1) part, removed),
     F_mu nu = U^dag b ((s_mu s_nu^dag - s_nu s_mu^dag) (x) f) b^dag U,     d_mu Delta = b (s_mu (x) 1_k),
 
-self-dual with Q = +k in the conventions of :mod:`instantonkit.core.conventions`.  Quaternionic SU(2) data
-map onto N = 2 data (:func:`from_quaternionic`) with the same Delta up to constant unitaries, hence the
+self-dual with Q = +k in the conventions of `instantonkit.core.conventions`.  Quaternionic SU(2) data
+map onto N = 2 data (`from_quaternionic`) with the same Delta up to constant unitaries, hence the
 same field up to gauge.
 """
 
@@ -64,7 +64,7 @@ def complex_coordinates(x):
 
 
 def _point_of(z1, z2) -> np.ndarray:
-    """Inverse of :func:`complex_coordinates`: (...) complex z1, z2 -> (..., 4) points."""
+    """Inverse of `complex_coordinates`: (...) complex z1, z2 -> (..., 4) points."""
     z1, z2 = np.asarray(z1), np.asarray(z2)
     return np.stack([z2.imag, z2.real, -z1.imag, z1.real], axis=-1)
 
@@ -149,12 +149,12 @@ class UnitaryADHMData(PytreeFields):
     B1, B2: (k, k) complex128; I: (k, N) complex128; J: (N, k) complex128 (N >= 2).
     tol: accepted size of the moment-map violations (absolute, scaled by 1 + |data|^2).
     gauge: 'singular' (V0 = [0 ; 1_N]) or 'regular' (V0 = [I ; J^dag ; 0], needs N <= 2k) for the
-        projection gauge U = P V0 L^-dag of :meth:`frame`.
+        projection gauge U = P V0 L^-dag of `frame`.
 
     Construction validates shapes, finiteness and both moment maps (module docstring) and raises a
     ``ValueError`` naming the failed condition and the size of the violation; under jax tracing the
     value checks are skipped.  Instances are immutable pytrees (B1, B2, I, J are leaves).  It is a
-    field in the sense of :mod:`instantonkit.engine.fields` (potential, closed-form field strength and
+    field in the sense of `instantonkit.engine.fields` (potential, closed-form field strength and
     densities, hooks layout, hint, describe, constraint_residual, log_det, charge).
     """
 
@@ -257,7 +257,7 @@ class UnitaryADHMData(PytreeFields):
     def record(self) -> dict:
         """Field hook: a JSON-ready description that rebuilds the data exactly (real and imaginary parts, full precision).
 
-        Rebuilt by :func:`instantonkit.lattice.references.field_from_record` (kind 'unitary_adhm').
+        Rebuilt by `instantonkit.lattice.references.field_from_record` (kind 'unitary_adhm').
         """
         rec: dict = {"kind": "unitary_adhm", "gauge": self.gauge, "tol": float(self.tol)}
         for name in ("B1", "B2", "I", "J"):
@@ -347,7 +347,7 @@ class UnitaryADHMData(PytreeFields):
         return 2.0 * sum(jnp.log(jnp.real(lo[i, i])) for i in range(self.k))
 
     def _f(self, x):
-        """f = (f^-1)^-1 = C^-dag C^-1 from the Cholesky factor C of f^-1 (unrolled, see :func:`_cholesky`)."""
+        """f = (f^-1)^-1 = C^-dag C^-1 from the Cholesky factor C of f^-1 (unrolled, see `_cholesky`)."""
         finv = self.gram(x)
         if self.k == 1:
             return 1.0 / finv
@@ -386,7 +386,7 @@ class UnitaryADHMData(PytreeFields):
     def potential(self, x):
         """A_mu = U^dag d_mu U minus its trace part (tr A / N), in closed form, at one point (4,) -> (4, N, N).
 
-        For U = P V0 L^-dag (:meth:`frame`; P Delta = 0, P^2 = P, d_mu Delta = b (s_mu (x) 1_k)), derived
+        For U = P V0 L^-dag (`frame`; P Delta = 0, P^2 = P, d_mu Delta = b (s_mu (x) 1_k)), derived
         here: U^dag d_mu U = -W_mu - (d_mu L^dag) L^-dag with W_mu = (b^dag U)^dag (s_mu (x) f) Delta^dag V0
         L^-dag.  d_mu L = L Phi_mu with Phi_mu lower triangular with real diagonal, so the second term is
         -Phi_mu^dag, and anti-Hermiticity fixes Phi_mu + Phi_mu^dag = -(W_mu + W_mu^dag): Phi_mu is the
@@ -398,7 +398,7 @@ class UnitaryADHMData(PytreeFields):
     def generator_batch(self, points, dirs):
         """Field hook: A_mu(x) d_mu at points (m, 4) with directions (m, 4) -> (m, N, N) (link generators).
 
-        The formula of :meth:`potential` with s_mu contracted with d first (it is linear in W_mu), so the
+        The formula of `potential` with s_mu contracted with d first (it is linear in W_mu), so the
         last products are done once instead of four times; vmapped over the points.
         """
         return jax.vmap(lambda x, d: self._from_w(self._w(x, d))[0])(
@@ -406,7 +406,7 @@ class UnitaryADHMData(PytreeFields):
         )
 
     def _from_w(self, w):
-        """A from W (:meth:`potential`): (m, N, N) -> (m, N, N) for m directions."""
+        """A from W (`potential`): (m, N, N) -> (m, N, N) for m directions."""
         n = self.rank
         h = -(w + jnp.conj(jnp.swapaxes(w, -1, -2)))
         phi = jnp.tril(h, -1) + 0.5 * jnp.real(jnp.diagonal(h, axis1=-2, axis2=-1))[..., None] * jnp.eye(n)
@@ -415,7 +415,7 @@ class UnitaryADHMData(PytreeFields):
         return a - tr[:, None, None] * jnp.eye(n)
 
     def _w(self, x, d=None):
-        """W_mu = (b^dag U)^dag (s_mu (x) f) Delta^dag V0 L^-dag of :meth:`potential`, at one point (4,) -> (4, N, N);
+        """W_mu = (b^dag U)^dag (s_mu (x) f) Delta^dag V0 L^-dag of `potential`, at one point (4,) -> (4, N, N);
         with a direction d (4,): sum_mu d_mu W_mu, (1, N, N)."""
         x = jnp.asarray(x, dtype=jnp.float64)
         k, n = self.k, self.rank
@@ -426,12 +426,12 @@ class UnitaryADHMData(PytreeFields):
         return jnp.einsum("ia,min,bn->mab", jnp.conj(u[: 2 * k]), sf, jnp.conj(linv))
 
     def u1_connection(self, x):
-        """The flat U(1) part a_mu = tr(U^dag d_mu U) / N that :meth:`potential` removes, at one point (4,) -> (4,) complex.
+        """The flat U(1) part a_mu = tr(U^dag d_mu U) / N that `potential` removes, at one point (4,) -> (4,) complex.
 
-        Closed form: with W_mu of :meth:`potential`, tr(U^dag d_mu U) = -tr W_mu - tr Phi_mu^dag and
+        Closed form: with W_mu of `potential`, tr(U^dag d_mu U) = -tr W_mu - tr Phi_mu^dag and
         tr Phi_mu = -Re tr W_mu (real diagonal), so a_mu = -i Im tr(W_mu) / N, purely imaginary.  It is
         flat (tr F = 0) and decays like |x|^-4 in the singular gauge, like |x|^-1 in the regular gauge
-        (measured; tests/test_unitary_zero_modes.py).  Package-internal seam for :mod:`instantonkit.adhm.zero_modes`.
+        (measured; tests/test_unitary_zero_modes.py).  Package-internal seam for `instantonkit.adhm.zero_modes`.
         """
         w = self._w(x)
         return -1j * jnp.imag(jnp.trace(w, axis1=-2, axis2=-1)) / self.rank

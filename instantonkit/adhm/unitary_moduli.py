@@ -1,8 +1,8 @@
-"""Complex ADHM data from moduli and from other data (floor 4, above :mod:`instantonkit.adhm.unitary`).
+"""Complex ADHM data from moduli and from other data (floor 4, above `instantonkit.adhm.unitary`).
 
 Conversions (quaternionic SU(2) data -> complex N = 2 data; an SU(2) in SU(N) embedding of any
 data), the constraint solver for well-separated charge-k SU(N) instantons (both moment maps to
-<= 1e-12) and random valid data.  The data class and its fields live in :mod:`instantonkit.adhm.unitary`.
+<= 1e-12) and random valid data.  The data class and its fields live in `instantonkit.adhm.unitary`.
 """
 
 from __future__ import annotations
@@ -89,7 +89,7 @@ def constraint_jacobian(data: UnitaryADHMData) -> np.ndarray:
 
     Rows: Re mu_R (upper triangle with the diagonal, row-major), Im mu_R (strict upper triangle),
     Re mu_C, Im mu_C (row-major).  Columns: the entries of B1, B2, I, J (each row-major, in that
-    order), each entry as its real then imaginary part (:func:`instantonkit.adhm.base.pack_unitary`).
+    order), each entry as its real then imaginary part (`instantonkit.adhm.base.pack_unitary`).
     """
     k, n = data.k, data.rank
     resid = lambda z: moment_residual(*unpack_unitary(z, k, n))  # noqa: E731
@@ -99,7 +99,7 @@ def constraint_jacobian(data: UnitaryADHMData) -> np.ndarray:
 
 
 def _solve(vec: np.ndarray, k: int, n: int, weights: np.ndarray, *, tol: float):
-    """The shared moment-map solve (:func:`instantonkit.adhm.base.solve_moment_maps`) from ``vec``, as numpy."""
+    """The shared moment-map solve (`instantonkit.adhm.base.solve_moment_maps`) from ``vec``, as numpy."""
     z, res, it = solve_moment_maps(vec, weights, k, n, steps=_SOLVER_STEPS, tol=tol)
     return np.asarray(z), float(res), int(it)
 

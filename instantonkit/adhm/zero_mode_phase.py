@@ -1,10 +1,10 @@
 """The U(1) phase of the zero modes of complex (SU(N)) ADHM data: the flat part a, its ray integral theta (floor 5).
 
-The modes :mod:`instantonkit.adhm.zero_modes` builds from the frame U are those of U^dag dU = data.potential + a 1,
-a = tr(U^dag dU) / N (:func:`u1_part`, flat); the modes of the traceless ``data.potential`` are exp(i theta)
+The modes `instantonkit.adhm.zero_modes` builds from the frame U are those of U^dag dU = data.potential + a 1,
+a = tr(U^dag dU) / N (`u1_part`, flat); the modes of the traceless ``data.potential`` are exp(i theta)
 times them, with d theta = Im a.  theta is the line integral of Im a along the ray from the layout centre
-(:func:`ray_angle` on a fixed Gauss-Legendre rule, :func:`adaptive_phase` with a checked error estimate);
-the public front door is :func:`instantonkit.adhm.zero_modes.u1_phase`, and the derivation is in that module's
+(`ray_angle` on a fixed Gauss-Legendre rule, `adaptive_phase` with a checked error estimate);
+the public front door is `instantonkit.adhm.zero_modes.u1_phase`, and the derivation is in that module's
 docstring.  ``ray_angle``, ``adaptive_phase`` and ``phase_anchor`` are package-internal seams.
 """
 
@@ -23,17 +23,17 @@ from .unitary import UnitaryADHMData
 __all__ = ["u1_part", "u1_angle", "PHASE_NODES", "PHASE_ATOL", "PHASE_PANELS"]
 
 #: Fixed Gauss-Legendre nodes of the ray integral of the U(1) phase per gauge, used where the phase is
-#: differentiated (:func:`u1_angle`, :func:`dirac_residual`) and not checked: singular gauge 64 nodes, max error
+#: differentiated (`u1_angle`, `dirac_residual`) and not checked: singular gauge 64 nodes, max error
 #: <= 5e-15 measured against 1024-4096 nodes (SU(3) k = 2, 3, SU(4) k = 2); regular gauge 512 nodes, median
 #: 1e-14 but up to 1e-3 measured on rays that pass near the isolated points where that frame is singular (N > 2).
 PHASE_NODES = {"singular": 64, "regular": 512}
 
-#: Default absolute tolerance on theta of the adaptive ray integral of :func:`u1_phase` and :func:`zero_modes`:
+#: Default absolute tolerance on theta of the adaptive ray integral of `u1_phase` and `zero_modes`:
 #: 1e-12 was not reachable on many regular-gauge rays near the frame's singular points, where the integrand itself
 #: carries rounding of relative 1e-9 (Gram matrix condition 1e7, measured; 8192 and 16384 nodes differ by 9e-12).
 PHASE_ATOL = 1e-10
 
-#: Start of the adaptive rule per gauge: (panels, Gauss-Legendre nodes per panel) (:func:`adaptive_phase`);
+#: Start of the adaptive rule per gauge: (panels, Gauss-Legendre nodes per panel) (`adaptive_phase`);
 #: measured on 2048 random points, singular and regular gauge the default is 0.5-0.8 times the old fixed rule's time.
 PHASE_PANELS = {"singular": (1, 32), "regular": (8, 32)}
 
@@ -60,7 +60,7 @@ def u1_part(data: UnitaryADHMData, x):
 
 
 def ray_angle(data: UnitaryADHMData, x, anchor, n: int, lo=0.0, hi=1.0):
-    """theta(x) with d_mu theta = Im a_mu (a = i d theta, :meth:`UnitaryADHMData.u1_connection`), at one point -> ().
+    """theta(x) with d_mu theta = Im a_mu (a = i d theta, `UnitaryADHMData.u1_connection`), at one point -> ().
 
     anchor = (c (4,), l): the ray c + t e, e = (x - c) / R, R = |x - c| (e = e_4 when R = 0), with t - R =
     (R + l) s / (1 - s) beyond x (singular gauge: theta(x) = -int_R^inf Im a(c + t e) . e dt, theta -> 0 at
@@ -88,10 +88,10 @@ def ray_angle(data: UnitaryADHMData, x, anchor, n: int, lo=0.0, hi=1.0):
 
 
 def u1_angle(data: UnitaryADHMData, x, *, nodes: int | None = None):
-    """theta of :func:`u1_phase` at one point x (4,) -> (), jax-traceable in x (data concrete).
+    """theta of `u1_phase` at one point x (4,) -> (), jax-traceable in x (data concrete).
 
-    The fixed rule (nodes, None for PHASE_NODES[data.gauge]), unchecked; :func:`u1_phase` is the checked value.
-    Package-internal seam (tests differentiate it with jax.jacfwd against :func:`u1_part`).
+    The fixed rule (nodes, None for PHASE_NODES[data.gauge]), unchecked; `u1_phase` is the checked value.
+    Package-internal seam (tests differentiate it with jax.jacfwd against `u1_part`).
     """
     n = PHASE_NODES[data.gauge] if nodes is None else _validate.positive_int("nodes", nodes)
     return ray_angle(data, x, jnp.asarray(phase_anchor(data)), n)
@@ -105,7 +105,7 @@ def _panel_kernel(n: int):
 
 
 def adaptive_phase(data: UnitaryADHMData, pts: np.ndarray, size: int, atol: float) -> np.ndarray:
-    """theta at points (m, 4) by adaptive composite Gauss-Legendre on the rays of :func:`ray_angle`.
+    """theta at points (m, 4) by adaptive composite Gauss-Legendre on the rays of `ray_angle`.
 
     A panel's estimate is |Q(left half) + Q(right half) - Q(panel)| (n nodes each, PHASE_PANELS); its value is
     the halves' sum.  A point is done when its estimates sum to <= atol; until then the panels whose

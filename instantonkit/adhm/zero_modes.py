@@ -3,7 +3,7 @@
 Construction (Corrigan, Goddard, Osborn, Templeton, Nucl. Phys. B 159 (1979) 469; Osborn, Ann. Phys.
 135 (1981) 373; from memory; every sign below was fixed numerically in our conventions, see
 tests/test_zero_modes.py).  With ``Delta``, ``U``, ``b = [0 ; 1_k]`` and ``f = (Delta^dag Delta)^-1`` of
-:mod:`instantonkit.adhm.quaternionic`, the ``n x k`` quaternionic matrix
+`instantonkit.adhm.quaternionic`, the ``n x k`` quaternionic matrix
 
     psi(x) = (1/pi) U^dag b f
 
@@ -18,13 +18,13 @@ holds the k zero modes: column i is mode i, and each of its n quaternions is a 2
 using ``sum_mu e_mu q e_mu = -2 q-bar`` and ``sum_mu e-bar_mu q e_mu = 4 Re q``.  The quaternion acts
 on the spinor index from the right.
 
-Array layout of :func:`zero_modes`: ``(..., k, 2n, 2)`` complex128 = (mode i, colour c, spinor alpha),
+Array layout of `zero_modes`: ``(..., k, 2n, 2)`` complex128 = (mode i, colour c, spinor alpha),
 ``psi[..., i, c, alpha]`` the entry ``(c, 2 i + alpha)`` of the complex image (quaternion.qmat_to_complex)
 of the quaternionic ``psi``; colour is the gauge index on which ``A_mu`` (``data.potential``, same gauge
 as ``data.gauge``) acts from the left.
 
-Dirac equation and chirality.  With :data:`SIGMA` ``sigma_mu = (i sigma_1, i sigma_2, i sigma_3, 1)``
-(the image of ``e_mu``) and :data:`SIGMA_BAR` ``sigma-bar_mu = (-i sigma_vec, 1)`` (the image of
+Dirac equation and chirality.  With `SIGMA` ``sigma_mu = (i sigma_1, i sigma_2, i sigma_3, 1)``
+(the image of ``e_mu``) and `SIGMA_BAR` ``sigma-bar_mu = (-i sigma_vec, 1)`` (the image of
 ``e-bar_mu``), an instanton's modes satisfy
 
     sum_mu (D_mu psi_i) sigma_mu = 0      (spinor index acted on from the right),
@@ -42,12 +42,12 @@ Densities need k x k work only: ``psi^dag psi = f M f / pi^2`` with ``M = b^dag 
 from memory; checked in the tests).  For BPST it is ``2 rho^2 / (pi^2 (|x - a|^2 + rho^2)^3)``.
 The identity holds entrywise, ``(2 / pi^2) Re (f M f)_ij = -(1 / 4 pi^2) box f_ij`` (checked numerically
 with jax Hessians); since ``f = |x|^-2 1 + O(|x|^-3)`` at infinity, Gauss's theorem then gives the
-orthonormality ``int psi_i^dag psi_j = delta_ij`` that :func:`zero_mode_overlap` confirms by quadrature.
+orthonormality ``int psi_i^dag psi_j = delta_ij`` that `zero_mode_overlap` confirms by quadrature.
 
-Complex ADHM data for SU(N) (:class:`instantonkit.adhm.unitary.UnitaryADHMData`; the same
+Complex ADHM data for SU(N) (`instantonkit.adhm.unitary.UnitaryADHMData`; the same
 construction, common practice in the instanton literature, from memory; signs fixed numerically in
 tests/test_unitary_zero_modes.py).  With Delta, U, ``b = [1_2k ; 0]``, ``F = 1_2 (x) f`` and
-``d_mu Delta = b (s_mu (x) 1_k)`` of :mod:`instantonkit.adhm.unitary` (coordinates z1, z2 of
+``d_mu Delta = b (s_mu (x) 1_k)`` of `instantonkit.adhm.unitary` (coordinates z1, z2 of
 docs/conventions.md), the N x 2k matrix ``U^dag b F`` (columns (alpha, i), alpha the block of Delta's
 columns) obeys ``sum_mu D_mu (U^dag b F) (s_mu (x) 1_k) = 0`` by the same steps as above; since
 ``s_mu = sigma_2 SIGMA[mu] sigma_2 s_4``,
@@ -57,12 +57,12 @@ columns) obeys ``sum_mu D_mu (U^dag b F) (s_mu (x) 1_k) = 0`` by the same steps 
 solves ``sum_mu (D_mu psi_i) SIGMA[mu] = 0`` exactly as the quaternionic instanton modes do (gamma_5 =
 -1), same layout ``(..., k, N, 2)``.  The covariant derivative is that of the frame's own connection
 ``U^dag d_mu U = data.potential + a_mu 1_N``: the potential of ``UnitaryADHMData`` drops the trace part
-``a_mu = tr(U^dag d_mu U) / N`` (:func:`u1_part`), which is flat (tr F = 0; tests check d a = 0), so
+``a_mu = tr(U^dag d_mu U) / N`` (`u1_part`), which is flat (tr F = 0; tests check d a = 0), so
 ``a = d lambda`` on R^4 minus the frame's singular points (simply connected, common practice), lambda = i theta.
 The frame ``U' = U exp(-lambda)`` has ``U'^dag d U' = U^dag d U - d lambda = data.potential``, and its modes
-are ``exp(lambda) psi`` (``conj(exp(-i theta)) = exp(i theta)``): :func:`zero_modes` returns these, the
+are ``exp(lambda) psi`` (``conj(exp(-i theta)) = exp(i theta)``): `zero_modes` returns these, the
 modes of ``data.potential``, unless asked for the frame's (``connection="frame"``).  theta is the line
-integral of Im a along the ray from the layout centre (:func:`u1_phase`, adaptive with a checked error estimate), normalised to 0 at infinity in
+integral of Im a along the ray from the layout centre (`u1_phase`, adaptive with a checked error estimate), normalised to 0 at infinity in
 the singular gauge, where a = O(|x|^-4) (measured), and at the centre in the regular gauge, where
 a = O(|x|^-1) (measured) and theta has a direction-dependent limit at infinity.  For k = 1 in the singular
 gauge a = 0 exactly (derived here: with W = [U, Delta (Delta^dag Delta)^-1/2] unitary, N a = d log det W -
@@ -73,7 +73,7 @@ Densities need 2k x 2k work only: ``psi^dag psi`` summed over spinors is
 ``G = (1/pi^2) sum_alpha (F M F)_(alpha i, alpha j)`` with ``M = b^dag P b = 1 - D F D^dag``,
 ``D = b^dag Delta``; G is Hermitian (complex), and the same identity ``G_ij = -(1/4 pi^2) box f_ij``
 holds entrywise (checked with jax Hessians), hence ``int G = delta_ij`` again (Osborn-type identity;
-``f = |x|^-2 1 + O(|x|^-3)``).  For N = 2 data from :func:`instantonkit.adhm.unitary_moduli.from_quaternionic`
+``f = |x|^-2 1 + O(|x|^-3)``).  For N = 2 data from `instantonkit.adhm.unitary_moduli.from_quaternionic`
 f is the real quaternionic f, so G and the density equal the quaternionic ones.
 """
 
@@ -125,7 +125,7 @@ _UNITARY_CHUNK = 256
 _SIGMA_2 = np.array([[0.0, -1j], [1j, 0.0]])
 
 
-#: Connections whose modes :func:`zero_modes` returns for complex data (module docstring).
+#: Connections whose modes `zero_modes` returns for complex data (module docstring).
 CONNECTIONS = ("traceless", "frame")
 
 
@@ -178,7 +178,7 @@ def _unitary_density_at(data: UnitaryADHMData, x):
 
 
 def _unitary_traceless_psi_at(data: UnitaryADHMData, x, anchor, n: int):
-    """Modes of the traceless data.potential, exp(i theta) psi (theta of :func:`ray_angle`): (k, N, 2)."""
+    """Modes of the traceless data.potential, exp(i theta) psi (theta of `ray_angle`): (k, N, 2)."""
     return jnp.exp(1j * ray_angle(data, x, anchor, n)) * _unitary_psi_at(data, x)
 
 
@@ -261,7 +261,7 @@ def _frobenius(z):
 
 
 def _dirac_stacked(data: ADHMData, x):
-    """(residual, scale) of :func:`_dirac_at` as one (2,) array, so the batching loop sees one output."""
+    """(residual, scale) of `_dirac_at` as one (2,) array, so the batching loop sees one output."""
     return jnp.stack(_dirac_at(data, x))
 
 
@@ -340,7 +340,7 @@ def zero_modes(
     """The k normalisable zero modes psi = (1/pi) U^dag b f at points, in the gauge ``data.gauge``.
 
     For complex SU(N) data the default (``connection="traceless"``) are the modes of ``data.potential``,
-    exp(i theta) (1/pi) U^dag b (1_2 (x) f) (sigma_2 (x) 1_k) with theta of :func:`u1_phase`;
+    exp(i theta) (1/pi) U^dag b (1_2 (x) f) (sigma_2 (x) 1_k) with theta of `u1_phase`;
     ``connection="frame"`` gives the modes without the phase, those of the frame connection
     U^dag d U = data.potential + a 1_N (module docstring).  Densities and the Gram matrix are the same for
     both.  At most 256 points per compiled call.  For ADHMData both values give the same modes
@@ -354,13 +354,13 @@ def zero_modes(
       points: (..., 4) float64.
       chunk_size: points per compiled call, a positive integer.
       connection: "traceless" (modes of data.potential) or "frame" (modes of U^dag d U).
-      phase_nodes: None (the adaptive, checked theta of :func:`u1_phase`) or a fixed node count (unchecked).
+      phase_nodes: None (the adaptive, checked theta of `u1_phase`) or a fixed node count (unchecked).
     Returns:
       (..., k, 2n, 2) (or (..., k, N, 2)) complex128, axes (mode i, colour c, spinor alpha).
     Raises:
       TypeError when data is neither ADHMData nor UnitaryADHMData, for non-real points or a non-integer chunk_size;
       ValueError for bad points, chunk_size < 1, an unknown connection, points where the frame is singular,
-      or where the phase does not converge (:func:`u1_phase`).
+      or where the phase does not converge (`u1_phase`).
     """
     data = _check_data(data)
     suffix = _connection_suffix(data, connection)
@@ -378,7 +378,7 @@ def u1_phase(
     With a_mu = tr(U^dag d_mu U) / N = i d_mu theta (the flat U(1) part that ``data.potential`` drops;
     flat since tr F = 0 for these self-dual fields, common practice), lambda = i theta obeys d lambda = a,
     so U' = U exp(-lambda) has U'^dag d U' = data.potential and its modes are exp(lambda) psi
-    (psi the modes of U, :func:`zero_modes` with connection="frame").  theta is a line integral of
+    (psi the modes of U, `zero_modes` with connection="frame").  theta is a line integral of
     Im a along the ray from the layout centre c (mean of the centres) through x:
 
       singular gauge (a ~ |x|^-4, measured): theta(x) = -int_|x-c|^inf Im a(c + t e) . e dt, theta -> 0 at infinity;
@@ -403,7 +403,7 @@ def u1_phase(
       points: (..., 4) float64.
       chunk_size: points per compiled call, a positive integer (at most 256 are used).
       nodes: None (adaptive, checked) or a positive integer n: the fixed n-node Gauss-Legendre rule on the
-        whole ray, unchecked (for references; the rule :func:`u1_angle` and :func:`dirac_residual` use).
+        whole ray, unchecked (for references; the rule `u1_angle` and `dirac_residual` use).
       atol: absolute tolerance on theta of the adaptive rule, a positive float (ignored with nodes).
     Returns:
       (...,) float64.
@@ -420,7 +420,7 @@ def zero_mode_gram(data: ADHMData | UnitaryADHMData, points, *, chunk_size: int 
 
     points: (..., 4) -> (..., k, k) float64 (real symmetric, gauge invariant); for SU(N) data
     (1/pi^2) sum_alpha (F M F)_(alpha i, alpha j), (..., k, k) complex128 Hermitian (2k x 2k work only).
-    Raises as :func:`zero_modes`.
+    Raises as `zero_modes`.
     """
     return _map("gram", _check_data(data), points, chunk_size)
 
@@ -437,7 +437,7 @@ def zero_mode_density(data: ADHMData | UnitaryADHMData, points, *, chunk_size: i
     Returns:
       (...,) float64, gauge invariant.
     Raises:
-      as :func:`zero_modes`.
+      as `zero_modes`.
     """
     return _map("density", _check_data(data), points, chunk_size)
 
@@ -450,7 +450,7 @@ def dirac_residual(
     connection: str = "traceless",
     phase_nodes: int | None = None,
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Pointwise Dirac-equation check of :func:`zero_modes` by automatic differentiation.
+    """Pointwise Dirac-equation check of `zero_modes` by automatic differentiation.
 
     Returns (residual, scale), each (...,) float64: residual = |sum_mu (D_mu psi) S_mu| with
     D_mu psi = d_mu psi + A_mu psi (jax.jacfwd; A = data.potential, same gauge as psi) and
@@ -471,7 +471,7 @@ def zero_mode_overlap(
 ) -> np.ndarray:
     """Overlap matrix O_ij = int d^4x sum_{c, alpha} conj(psi_i) psi_j by quadrature; (k, k) float64.
 
-    Uses :func:`zero_mode_gram` on a quadrature rule: ``rule`` (an object with ``points`` (M, 4) and
+    Uses `zero_mode_gram` on a quadrature rule: ``rule`` (an object with ``points`` (M, 4) and
     ``weights`` (M,)) or by default quadrature.rule_r4 about the data's centres with radial scales
     equal to the sizes (the integrand falls like |x|^-6, which the radial map makes smooth).
     The exact answer is the identity (orthonormal modes).

@@ -1,9 +1,9 @@
 """Classic instanton ansaetze as fields: 't Hooft, Jackiw-Nohl-Rebbi, Harrington-Shepard, BPST.
 
 Every object here is a frozen dataclass registered as a jax pytree (numeric parameters are leaves),
-implements the field protocol of :mod:`instantonkit.engine.fields` with closed forms, and has ``hint()``
+implements the field protocol of `instantonkit.engine.fields` with closed forms, and has ``hint()``
 returning ``(centre (4,), length scale)`` and ``charge`` (the instanton number; per period for the
-caloron).  Conventions: :mod:`instantonkit.core.conventions`.
+caloron).  Conventions: `instantonkit.core.conventions`.
 
 **Scalar ansaetze** ('t Hooft, JNR, caloron).  For a positive harmonic function phi (box phi = 0 away
 from its poles) the potential
@@ -34,11 +34,11 @@ Hessian of phi) and ``v_{a mu} = eta-bar_{a mu nu} omega_nu``, the closed forms 
 **Singular points.**  The scalar ansaetze and the singular-gauge BPST potential are singular at the
 poles of phi (the centres ``a_i``, the JNR poles ``y_i``, the caloron centres ``c + n beta e_4``).  Exactly
 at a pole the potential, field strength and the scalar-ansatz densities evaluate to NaN, so the engine
-(:func:`instantonkit.engine.fields.evaluate`) raises a ValueError naming the point.  The closed-form BPST
+(`instantonkit.engine.fields.evaluate`) raises a ValueError naming the point.  The closed-form BPST
 densities are gauge invariant and return their finite value ``48 / rho^4`` at the centre in both gauges.
 
-The anti-self-dual partners are the parity images (:func:`instantonkit.engine.transforms.anti`, which wraps
-these fields in :func:`instantonkit.engine.transforms.parity`; for the scalar ansaetze the image is the
+The anti-self-dual partners are the parity images (`instantonkit.engine.transforms.anti`, which wraps
+these fields in `instantonkit.engine.transforms.parity`; for the scalar ansaetze the image is the
 eta-form ansatz A'_mu = -1/2 eta_{a mu nu} d_nu log(phi o P) u_a, since P eta-bar_a P = eta_a).
 """
 
@@ -517,7 +517,7 @@ class BPSTField(PytreeFields):
 
     def closed_link(self, x, d):
         """Closed-form transporter x -> x + d, (4,), (4,) -> (2, 2): BPST with Lambda = rho Omega, B = p(center)
-        in the same gauge (:func:`instantonkit.adhm.quaternionic.charge_one_link`)."""
+        in the same gauge (`instantonkit.adhm.quaternionic.charge_one_link`)."""
         return charge_one_link(
             jnp.asarray(self.size) * jnp.asarray(self.orientation),
             point_to_quaternion(jnp.asarray(self.center)),
@@ -530,7 +530,7 @@ class BPSTField(PytreeFields):
     @property
     def gauge_twin(self):
         """Field hook in singular gauge: () -> (this instanton in regular gauge, g), g(x) = U_reg(x)^dag U_sing(x)
-        of the ADHM frames of Lambda = rho Omega, B = p(center) (the data of :meth:`closed_link`);
+        of the ADHM frames of Lambda = rho Omega, B = p(center) (the data of `closed_link`);
         links U(x, d) = g(x)^dag U_reg(x, d) g(x + d).  Absent (AttributeError) in regular gauge."""
         if self.gauge != "singular":
             raise AttributeError("gauge_twin is offered by the singular-gauge BPST field only")

@@ -1,7 +1,7 @@
 """The lattice torus: site positions and origins, and fields made smooth on it by a window (floor 5).
 
 A charge-k instanton does not fit a 4-torus without a mismatch at the faces when its links are simply
-wrapped (``boundary="periodic"``).  :class:`TorusWindow` removes the mismatch by construction:
+wrapped (``boundary="periodic"``).  `TorusWindow` removes the mismatch by construction:
 
     A_w(x) = w(x~) A(x~),   x~ = lo + ((x - lo) mod P)   (the box [lo, lo + P) repeated),
     w(x) = prod_i s(u_i / delta_i),   u_i = distance of x_i to the nearer face of the box,
@@ -9,7 +9,7 @@ wrapped (``boundary="periodic"``).  :class:`TorusWindow` removes the mismatch by
     polynomial step whose first three derivatives vanish at both ends), so w = 1 in the bulk (every
     u_i >= delta_i) and w = 0 with three derivatives on the faces: A_w is C^3 across the faces, F_w is
     C^2, and a polynomial window keeps the Gauss-Legendre reference integral of
-    :func:`instantonkit.lattice.references.continuum_reference` exact in the window's own factors.
+    `instantonkit.lattice.references.continuum_reference` exact in the window's own factors.
 
 A_w is periodic and C^3 on the torus away from the singular points of A inside the box.  With A in
 a gauge that is singular at the instanton centres (singular-gauge ADHM data, the default of
@@ -22,7 +22,7 @@ small excess
 
 In singular gauge A ~ rho^2 / r^3 and F ~ rho^2 / r^4, so for a box of half-width R and a layer of
 width delta = f R both pieces fall as (rho / R)^4 (layer ~ rho^4 / (f R^4), tail ~ rho^4 / ((1 - f) R)^4).
-Measured (:func:`instantonkit.lattice.references.continuum_reference`, BPST rho = 1 in singular gauge at the
+Measured (`instantonkit.lattice.references.continuum_reference`, BPST rho = 1 in singular gauge at the
 centre of a box of side L, f = 0.5; ``benchmarks/bench_lattice.py --periodic``): S_w / 8 pi^2 - 1 =
 0.221, 0.060, 0.022, 0.0029 for L / rho = 4, 6, 8, 12.  A field in a gauge that does not decay
 (regular gauge: A ~ 1/r) must not be windowed: the window would cut the winding at infinity and
@@ -246,7 +246,7 @@ def window_field(
       field: a decaying field (singular gauge), see the module docstring.
       shape: (L1, L2, L3, L4); spacing: a > 0; origin: (4,) position of site 0.
       width: layer width as a fraction of each half-box, 0 < width <= 1 (default 0.5).
-      directions: four booleans, the windowed directions (default all; see :class:`TorusWindow`).
+      directions: four booleans, the windowed directions (default all; see `TorusWindow`).
     Returns:
       TorusWindow with lo = origin - a/2, box = a L, width_i = width * a L_i / 2.
     Raises:
@@ -283,7 +283,7 @@ def default_origin(field, shape, spacing) -> np.ndarray:
 
 
 def resolve_origin(field, shape, spacing, origin) -> np.ndarray:
-    """``origin`` as a checked (4,) float64 point, or :func:`default_origin` when it is None; ValueError naming the value."""
+    """``origin`` as a checked (4,) float64 point, or `default_origin` when it is None; ValueError naming the value."""
     org = default_origin(field, shape, spacing) if origin is None else np.asarray(origin, dtype=np.float64)
     if org.shape != (4,) or not np.all(np.isfinite(org)):
         raise ValueError(f"origin must be a finite point of shape (4,); found {np.asarray(origin).tolist()!r}")

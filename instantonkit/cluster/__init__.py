@@ -1,14 +1,14 @@
 """Past one machine: lattice starts, point-set evaluations and ensembles in chunks on Dask, stored in Zarr.
 
-Front doors: :func:`lattice_links` / :func:`lattice_start` (lattice starts), :func:`evaluate` and
-:func:`evaluate_grid` (densities), :func:`ensemble` / :func:`load_member` (random starts) and
-:func:`store_status`.  One module per job: ``geometry`` (chunk shapes), ``tasks`` (what a chunk
+Front doors: `lattice_links` / `lattice_start` (lattice starts), `evaluate` and
+`evaluate_grid` (densities), `ensemble` / `load_member` (random starts) and
+`store_status`.  One module per job: ``geometry`` (chunk shapes), ``tasks`` (what a chunk
 computes), ``fingerprint`` (what a store was made from), ``store`` (the Zarr protocol and the chunk
 report columns), ``schedule`` (clients, running a job), ``links``, ``points``, ``ensembles``.
 
-Every chunk is computed by the kernels of the local path (:func:`instantonkit.lattice.starts.block_links`
-for links, :func:`instantonkit.engine.fields.evaluate` for densities).  Links are bit-identical to the
-single-process start (the compiled batch size is fixed per lattice, :func:`instantonkit.lattice.starts.link_batch`);
+Every chunk is computed by the kernels of the local path (`instantonkit.lattice.starts.block_links`
+for links, `instantonkit.engine.fields.evaluate` for densities).  Links are bit-identical to the
+single-process start (the compiled batch size is fixed per lattice, `instantonkit.lattice.starts.link_batch`);
 densities agree with ``fields.evaluate`` on the same points to rounding (about 1e-15 relative: XLA's
 code for the last, padded batch of a call depends on its size, which depends on the chunk).
 

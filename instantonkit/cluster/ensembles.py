@@ -33,8 +33,8 @@ def member_seed(seed: int, i: int) -> np.random.SeedSequence:
 @dataclasses.dataclass(frozen=True)
 class Ensemble:
     """Random multi-instanton starts: ``links`` (n, L1, L2, L3, L4, 4, N, N) (Zarr or dask array),
-    ``members`` the ADHM data of each, ``seeds`` the per-member seeds (see :func:`member_seed`),
-    ``reports`` one :class:`instantonkit.lattice.starts.LinkReport` per member (None without a store)."""
+    ``members`` the ADHM data of each, ``seeds`` the per-member seeds (see `member_seed`),
+    ``reports`` one `instantonkit.lattice.starts.LinkReport` per member (None without a store)."""
 
     links: object
     members: tuple
@@ -86,17 +86,17 @@ def ensemble(
     in ``gauge``: centres ~ N(0, spread^2) about the lattice middle (default spread: a tenth of the
     shortest extent L a), sizes ~ U(size_range) (default (L a / 16, L a / 8)).  Every member shares
     the lattice: origin -a (floor(L / 2) - 1/2), so the middle hypercube is centred on 0.  Links as
-    in :func:`instantonkit.lattice.starts.lattice_links`; chunks: (c1, c2, c3, c4) per member.  store:
+    in `instantonkit.lattice.starts.lattice_links`; chunks: (c1, c2, c3, c4) per member.  store:
     Zarr directory (resumable; members' ADHM data and seeds in its attributes) or None for a dask
-    array.  Rebuild member i from a store with :func:`load_member`.  ``boundary_figures=True`` adds
+    array.  Rebuild member i from a store with `load_member`.  ``boundary_figures=True`` adds
     each periodic member's boundary mismatch to its report (read in this process, member by member).
 
     Args:
       n: members (>= 1); k: charge (>= 1); shape: (L1, L2, L3, L4); spacing: a > 0.
       seed, rank, gauge, spread, size_range: the random ADHM data (see above).
-      group, embedding, boundary, rtol, method: as in :func:`instantonkit.lattice.starts.lattice_links`.
-      chunks, store: as in :func:`instantonkit.cluster.lattice_links` (chunks per member).
-      client, n_workers, overwrite, progress: as in :func:`instantonkit.cluster.lattice_links`.
+      group, embedding, boundary, rtol, method: as in `instantonkit.lattice.starts.lattice_links`.
+      chunks, store: as in `instantonkit.cluster.lattice_links` (chunks per member).
+      client, n_workers, overwrite, progress: as in `instantonkit.cluster.lattice_links`.
       boundary_figures: add the periodic boundary figures to each member's report.
     Returns:
       Ensemble: ``links`` (n, L1, L2, L3, L4, 4, N, N) complex128 (Zarr or dask array), ``members``,

@@ -14,7 +14,7 @@ __all__ = ["describe", "code_fingerprint", "PROBES", "probe", "domain_probe", "s
 #: Relative / absolute tolerance on stored field probes (potentials agree far better than this on the same
 #: field and machine; a changed field differs at O(1)).
 PROBE_RTOL, PROBE_ATOL = 1e-10, 1e-12
-#: Deepest nesting followed by :func:`describe` and :func:`code_fingerprint` (guards against cycles).
+#: Deepest nesting followed by `describe` and `code_fingerprint` (guards against cycles).
 _MAX_DEPTH, _MAX_CODE_DEPTH = 32, 8
 
 

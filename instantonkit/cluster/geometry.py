@@ -10,7 +10,7 @@ import numpy as np
 
 __all__ = ["CHUNK_BYTES", "default_chunks", "check_chunks", "grid", "region", "Job"]
 
-#: Bytes of result per chunk aimed at by :func:`default_chunks` (32 MiB: large enough that task overhead is
+#: Bytes of result per chunk aimed at by `default_chunks` (32 MiB: large enough that task overhead is
 #: small, small enough that a worker holds a few chunks and their temporaries in memory).
 CHUNK_BYTES = 1 << 25
 

@@ -1,5 +1,5 @@
 """Lattice starts in chunks: the front doors ``lattice_links`` / ``lattice_start`` and the executor
-registered with :func:`instantonkit.lattice.starts.register_chunked_backend` for the deprecated
+registered with `instantonkit.lattice.starts.register_chunked_backend` for the deprecated
 ``lattice_links(..., backend="dask")``."""
 
 from __future__ import annotations
@@ -43,7 +43,7 @@ def spec_params(spec: StartSpec) -> dict:
 
 def link_report(spec: StartSpec, rows, seconds, links, boundary: bool = True):
     """LinkReport of a finished chunked start from its chunk rows, with the periodic boundary figures
-    (:meth:`instantonkit.lattice.starts.StartSpec.boundary_figures`, read from the faces of ``links`` in this
+    (`instantonkit.lattice.starts.StartSpec.boundary_figures`, read from the faces of ``links`` in this
     process, as the local path always does; ``boundary=False``, for ensemble members that did not ask
     for them, leaves them None)."""
     mismatch, action_err = spec.boundary_figures(links) if boundary else (None, None)
@@ -51,10 +51,10 @@ def link_report(spec: StartSpec, rows, seconds, links, boundary: bool = True):
 
 
 class FaceLinks:
-    """The links of a start as :func:`instantonkit.lattice.starts.boundary_mismatch` reads them, computed on demand.
+    """The links of a start as `instantonkit.lattice.starts.boundary_mismatch` reads them, computed on demand.
 
     For the lazy path (no store): indexing by a box of sites (slices of the four site axes) computes
-    that box with :meth:`StartSpec.block`, the kernel path of every start, so the figures equal the
+    that box with `StartSpec.block`, the kernel path of every start, so the figures equal the
     local path's bit for bit; boundary_mismatch reads only the two faces n_mu = 0 and n_mu = L - 1 of
     each direction (8 / L of the lattice's sites, less where faces meet).  shape: the links' shape.
     """
@@ -82,8 +82,8 @@ def _start(spec: StartSpec, *, chunks, store, client, overwrite, progress, n_wor
     """Links of ``spec`` in chunks: (links, report or None); the one implementation of the front doors.
 
     The periodic boundary figures are always measured, as on the local path, and a
-    :class:`instantonkit.lattice.starts.BoundaryActionWarning` is raised above BOUNDARY_WARN_FRACTION: from the
-    store's faces, or without a store from the faces computed in this process (:class:`FaceLinks`),
+    `instantonkit.lattice.starts.BoundaryActionWarning` is raised above BOUNDARY_WARN_FRACTION: from the
+    store's faces, or without a store from the faces computed in this process (`FaceLinks`),
     whose figures then go with a report that holds no chunk rows (None is returned for it).
     """
     chunks = (
@@ -111,11 +111,11 @@ def _start(spec: StartSpec, *, chunks, store, client, overwrite, progress, n_wor
 def start_links(
     spec, *, chunks=None, store=None, client=None, overwrite=False, progress=None, return_report=False, n_workers=None
 ):
-    """A validated lattice start (:class:`instantonkit.lattice.starts.StartSpec`) in chunks: Zarr array or lazy dask array.
+    """A validated lattice start (`instantonkit.lattice.starts.StartSpec`) in chunks: Zarr array or lazy dask array.
 
     The executor behind the deprecated ``lattice.lattice_links(..., backend="dask")`` (registered with
-    :func:`instantonkit.lattice.starts.register_chunked_backend`); new code calls :func:`lattice_links` or
-    :func:`lattice_start`.  Arguments as in :func:`lattice_links`; with ``return_report=True`` (store
+    `instantonkit.lattice.starts.register_chunked_backend`); new code calls `lattice_links` or
+    `lattice_start`.  Arguments as in `lattice_links`; with ``return_report=True`` (store
     needed) returns ``(links, LinkReport)``.  The periodic boundary figures are always measured (and
     warned about), as by the local path.
     """
@@ -137,9 +137,9 @@ def start_links(
 _DOC_ARGS = """
     Args:
       field, shape, spacing, origin, group, embedding, boundary, rtol, method: as in
-        :func:`instantonkit.lattice.starts.lattice_links` (validated the same way, by ``lattice.StartSpec.make``).
+        `instantonkit.lattice.starts.lattice_links` (validated the same way, by ``lattice.StartSpec.make``).
       chunks: (c1, c2, c3, c4) sites per chunk, or one int for all four (default
-        :func:`instantonkit.cluster.default_chunks`, about CHUNK_BYTES = 32 MiB of links).
+        `instantonkit.cluster.default_chunks`, about CHUNK_BYTES = 32 MiB of links).
       store: path of a Zarr directory to write chunk by chunk (resumable; see the package notes), or
         None for a lazy dask array.
       client: a ``dask.distributed.Client``, None for a temporary local cluster of ``n_workers``
@@ -168,14 +168,14 @@ def lattice_links(
     progress=None,
     n_workers=None,
 ):
-    """Link variables of ``field`` computed in chunks, bit-identical to :func:`instantonkit.lattice.starts.lattice_links`.
+    """Link variables of ``field`` computed in chunks, bit-identical to `instantonkit.lattice.starts.lattice_links`.
     {args}
     Returns:
       (L1, L2, L3, L4, 4, N, N) complex128 links: the read-only ``zarr.Array`` of the store, or a lazy
       dask array of that shape and chunking (store=None).  The report is the store's attribute;
-      :func:`lattice_start` returns it.  For periodic starts the boundary figures are always measured,
+      `lattice_start` returns it.  For periodic starts the boundary figures are always measured,
       as by the local path (from the store's faces; without a store from the 8 faces, computed in
-      this process), and a :class:`instantonkit.lattice.starts.BoundaryActionWarning` is raised above
+      this process), and a `instantonkit.lattice.starts.BoundaryActionWarning` is raised above
       BOUNDARY_WARN_FRACTION = 1 % of 8 pi^2.
     Raises:
       ValueError / TypeError: a bad argument (naming it); a store made with other parameters or chunks.
@@ -222,12 +222,12 @@ def lattice_start(
     progress=None,
     n_workers=None,
 ) -> LatticeStart:
-    """A chunked lattice start with its report: :class:`instantonkit.lattice.starts.LatticeStart` (``.links``, ``.report``).
+    """A chunked lattice start with its report: `instantonkit.lattice.starts.LatticeStart` (``.links``, ``.report``).
     {args}
     Returns:
       LatticeStart: ``links`` the read-only ``zarr.Array`` (L1, L2, L3, L4, 4, N, N) complex128 and
-      ``report`` its :class:`instantonkit.lattice.starts.LinkReport` (with the periodic boundary figures, read
-      from the store's faces in this process, as the local :func:`instantonkit.lattice.starts.lattice_start`).
+      ``report`` its `instantonkit.lattice.starts.LinkReport` (with the periodic boundary figures, read
+      from the store's faces in this process, as the local `instantonkit.lattice.starts.lattice_start`).
     Raises:
       ValueError / TypeError: a bad argument; store=None (the report is made from the written chunks).
       ImportError: without the optional extra ``distributed``.
@@ -266,5 +266,5 @@ for _fn in (lattice_links, lattice_start):
 
 
 def register() -> None:
-    """Register :func:`start_links` as the 'dask' backend of :func:`instantonkit.lattice.starts.lattice_links` (deprecated path)."""
+    """Register `start_links` as the 'dask' backend of `instantonkit.lattice.starts.lattice_links` (deprecated path)."""
     _lat.register_chunked_backend("dask", start_links)

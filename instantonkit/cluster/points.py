@@ -1,4 +1,4 @@
-"""Point-set and grid evaluations in chunks (densities by :func:`instantonkit.engine.fields.evaluate`)."""
+"""Point-set and grid evaluations in chunks (densities by `instantonkit.engine.fields.evaluate`)."""
 
 from __future__ import annotations
 
@@ -20,7 +20,7 @@ from .tasks import GridChunk, PointChunk
 
 __all__ = ["evaluate", "evaluate_grid", "QUANTITIES"]
 
-#: The quantities a chunked evaluation can compute (those of :func:`instantonkit.engine.fields.evaluate`).
+#: The quantities a chunked evaluation can compute (those of `instantonkit.engine.fields.evaluate`).
 QUANTITIES = ("potential", "field_strength", "action_density", "charge_density", "self_duality_residual")
 
 
@@ -69,7 +69,7 @@ def evaluate(
     """``quantity`` of ``field`` on a large point array (..., 4) in chunks of its leading axes.
 
     points: numpy array, Zarr array or dask array of shape (..., 4) float.  quantity and method as in
-    :func:`instantonkit.engine.fields.evaluate`.  chunks: one size per leading axis (default about 32 MiB
+    `instantonkit.engine.fields.evaluate`.  chunks: one size per leading axis (default about 32 MiB
     of result).  store: Zarr directory to write (numpy or Zarr points; resumable) -> ``zarr.Array``
     (..., *trailing); None -> a dask array.  Values equal ``fields.evaluate`` to rounding (module notes).  A resumed
     store must have the same points: numpy points are hashed whole, Zarr points by location and ends.
@@ -78,10 +78,10 @@ def evaluate(
       field: a field or a callable A(x).
       points: (..., 4) float numpy, Zarr or dask array.
       quantity: 'potential', 'field_strength', 'action_density', 'charge_density' or 'self_duality_residual'.
-      method: as in :func:`instantonkit.engine.fields.evaluate`.
+      method: as in `instantonkit.engine.fields.evaluate`.
       chunks: one size per leading axis of the points (default about CHUNK_BYTES of result).
       store: Zarr directory (numpy or Zarr points) or None for a dask array.
-      client, n_workers, overwrite, progress: as in :func:`instantonkit.cluster.lattice_links`.
+      client, n_workers, overwrite, progress: as in `instantonkit.cluster.lattice_links`.
     Returns:
       (..., *trailing) values (e.g. (...,) for densities, (..., 4, N, N) for the potential): a
       read-only ``zarr.Array`` (store given) or a dask array.
@@ -170,7 +170,7 @@ def evaluate_grid(
 ):
     """``quantity`` of ``field`` on the sites origin + a n of an L1 x L2 x L3 x L4 grid, never holding all points.
 
-    shape, spacing, origin: as in :func:`instantonkit.lattice.starts.lattice_links` (default origin puts the
+    shape, spacing, origin: as in `instantonkit.lattice.starts.lattice_links` (default origin puts the
     field's centre in the middle of the central hypercube).  Returns a ``zarr.Array`` (store given)
     or a dask array of shape (L1, L2, L3, L4, *trailing); values equal
     ``fields.evaluate(field, lattice.site_points(shape, spacing, origin), quantity)`` to rounding.
@@ -178,10 +178,10 @@ def evaluate_grid(
     Args:
       field: a field or a callable A(x).
       shape: (L1, L2, L3, L4); spacing: a > 0; origin: (4,) or None (the default origin).
-      quantity, method: as in :func:`evaluate`.
+      quantity, method: as in `evaluate`.
       chunks: (c1, c2, c3, c4) sites per chunk (default about CHUNK_BYTES of result).
       store: Zarr directory or None for a dask array.
-      client, n_workers, overwrite, progress: as in :func:`instantonkit.cluster.lattice_links`.
+      client, n_workers, overwrite, progress: as in `instantonkit.cluster.lattice_links`.
     Returns:
       (L1, L2, L3, L4, *trailing) values: ``zarr.Array`` or dask array.
     Raises:

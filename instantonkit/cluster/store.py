@@ -1,9 +1,9 @@
 """The Zarr store protocol: layout, metadata, the chunk report, and the atomic write of one chunk.
 
 A store is a Zarr (format 3) group: the result array (``links`` or ``values``) and ``chunk_report``,
-one row per chunk with the columns :data:`REPORT_COLUMNS` (:class:`Column`).  A task writes its chunk
+one row per chunk with the columns `REPORT_COLUMNS` (`Column`).  A task writes its chunk
 (atomically, by Zarr's local store) and only then its row, so ``done = 1`` always means a complete chunk.
-The attribute :data:`ATTR` holds the kind, the parameters, the chunking, a ``store_id`` that every task
+The attribute `ATTR` holds the kind, the parameters, the chunking, a ``store_id`` that every task
 checks before writing, the runs and the final report.
 """
 
@@ -69,7 +69,7 @@ NO_STATS = [0.0] * (len(Column) - 1)
 
 
 def stats_row(stats: LinkStats) -> list:
-    """The report columns after DONE for one chunk's :class:`instantonkit.lattice.starts.LinkStats`."""
+    """The report columns after DONE for one chunk's `instantonkit.lattice.starts.LinkStats`."""
     return [
         float(stats.unitarity_before),
         float(stats.unitarity_after),
@@ -80,7 +80,7 @@ def stats_row(stats: LinkStats) -> list:
 
 
 def rows_stats(rows) -> LinkStats:
-    """The combined :class:`instantonkit.lattice.starts.LinkStats` of report rows (..., len(Column))."""
+    """The combined `instantonkit.lattice.starts.LinkStats` of report rows (..., len(Column))."""
     rows = np.asarray(rows)
     steps = int(np.max(rows[..., Column.MAGNUS_STEPS]))
     return LinkStats(

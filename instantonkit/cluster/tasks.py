@@ -1,6 +1,6 @@
 """What one chunk computes: small frozen callables region -> (block, stats row) that pickle to workers.
 
-The stats row holds the chunk-report columns after ``done`` (:class:`instantonkit.cluster.store.Column`).
+The stats row holds the chunk-report columns after ``done`` (`instantonkit.cluster.store.Column`).
 """
 
 from __future__ import annotations

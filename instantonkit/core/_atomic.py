@@ -10,7 +10,7 @@ what an interrupted write leaves behind says who wrote it:
   again, so the process ends as it would have (exit status included).  A handler the program installed
   itself is left alone (it decides whether the process ends; if it raises, the exception cleans up);
 * SIGKILL cannot be caught: the next write into the same directory removes leftovers whose writer
-  (same host, that PID) is no longer alive, and warns (:class:`LeftoverWarning`) about stale ones it
+  (same host, that PID) is no longer alive, and warns (`LeftoverWarning`) about stale ones it
   cannot judge (another host, or a PID that is alive again an hour later), and about stale
   ``.tmp-XXXXXXXX.part`` files of the earlier writer, whose names say nothing about their writer.
 
@@ -87,7 +87,7 @@ def sweep_leftovers(directory) -> tuple[list[str], list[str]]:
     """Remove the temporary files of dead writers in ``directory``; returns (removed, kept-and-reported) paths.
 
     A file of this host whose PID is not alive is removed.  Files of another host, or of a live PID,
-    are kept; those not modified for :data:`STALE_SECONDS` are reported with a :class:`LeftoverWarning`
+    are kept; those not modified for `STALE_SECONDS` are reported with a `LeftoverWarning`
     (a live writer keeps its file fresh).  Files that vanish meanwhile (another sweep) are skipped.
     """
     directory = os.fspath(directory)

@@ -5,19 +5,19 @@ users never have to configure JAX themselves (conventions: float64 everywhere by
 
 Persistent compilation cache (opt-in, nothing is written unless asked for): set the environment
 variable ``INSTANTONKIT_COMPILE_CACHE`` to a directory before importing instantonkit, or call
-:func:`enable_compile_cache` with one, and JAX stores every compiled kernel there, so a new process
+`enable_compile_cache` with one, and JAX stores every compiled kernel there, so a new process
 skips the compilation of kernels an earlier one compiled (first calls drop from seconds to the
-time of reading the file).  The value ``default`` means :data:`DEFAULT_CACHE_DIR` (a directory
+time of reading the file).  The value ``default`` means `DEFAULT_CACHE_DIR` (a directory
 under the user's cache home, ``$XDG_CACHE_HOME`` or ``~/.cache``); an empty value or ``0`` leaves
 the cache off.  The cache is JAX's own (``jax_compilation_cache_dir``); entries are keyed by the
 program, the jax version and the machine, and it may be deleted at any time.
 
 Lean compilation of derivative kernels (on by default): kernels that differentiate a potential
 (``method="autodiff"``, user callables, fields without closed forms) are compiled with
-:data:`LEAN_COMPILER_OPTIONS`, XLA's CPU settings that skip most of its optimisation of the generated
+`LEAN_COMPILER_OPTIONS`, XLA's CPU settings that skip most of its optimisation of the generated
 code.  Their graphs (for ADHM data a jacobian of a jacobian) spent seconds there; measured in one run
 (``benchmarks/bench_limits.py``) the compile time drops several-fold for about a third more run time
-per point.  :func:`set_lean_compile` (or ``INSTANTONKIT_LEAN_COMPILE=0`` before import) turns it off;
+per point.  `set_lean_compile` (or ``INSTANTONKIT_LEAN_COMPILE=0`` before import) turns it off;
 closed-form kernels always get the full optimisation.
 """
 
@@ -87,7 +87,7 @@ _lean = {"on": True, "supported": None}
 
 
 def set_lean_compile(on: bool) -> None:
-    """Compile derivative kernels with :data:`LEAN_COMPILER_OPTIONS` (True, the default) or fully optimised.
+    """Compile derivative kernels with `LEAN_COMPILER_OPTIONS` (True, the default) or fully optimised.
 
     Applies to kernels compiled afterwards (compiled ones are kept).  Raises TypeError for a non-boolean.
     """

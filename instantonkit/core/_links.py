@@ -1,19 +1,19 @@
 """The one check of link values shared by the observables, smoothing, the finder and the file loader (floor 0).
 
-Link arrays are ``(L1, L2, L3, L4, 4, N, N)`` complex (:mod:`instantonkit.lattice.observables`).  Before a number
-is computed from them, :func:`check_links` refuses
+Link arrays are ``(L1, L2, L3, L4, 4, N, N)`` complex (`instantonkit.lattice.observables`).  Before a number
+is computed from them, `check_links` refuses
 
 * non-finite entries (NaN or inf), counting them and naming the first few sites and directions: an
   observable must never turn damaged data into a plausible number (a masked sum would skip them);
 * links that are not special unitary beyond a tolerance: ``max |U^dag U - 1|`` (entrywise) or
-  ``max |det U - 1|`` above ``tol`` (default :data:`UNITARITY_TOL`), naming the worst link and value.
+  ``max |det U - 1|`` above ``tol`` (default `UNITARITY_TOL`), naming the worst link and value.
 
-Projection onto SU(N) happens only when asked (``project=True`` or :func:`project_links`): the polar
+Projection onto SU(N) happens only when asked (``project=True`` or `project_links`): the polar
 factor of the SVD U = X S V^dag, W = X V^dag (the unitary matrix nearest to U in the Frobenius norm,
 Higham, SIAM J. Sci. Stat. Comput. 7 (1986) 1160, from memory), then det W fixed to 1 by the central
 phase det(W)^(-1/N).
 
-Cost: a numpy ``isfinite`` pass and one jitted kernel over padded blocks of :data:`BLOCK` matrices
+Cost: a numpy ``isfinite`` pass and one jitted kernel over padded blocks of `BLOCK` matrices
 (Gram matrix and determinant, explicit for N = 2, 3); measured for a 16^4 SU(3) lattice in the module's
 tests and the README.
 """
@@ -168,8 +168,8 @@ def check_links(links, *, name: str = "links", tol: float | None = None, project
     Args:
       links: (L1, L2, L3, L4, 4, N, N) complex (numpy array or np.memmap, returned as given).
       name: the argument's name in messages.
-      tol: largest accepted max(|U^dag U - 1|, |det U - 1|); default :data:`UNITARITY_TOL`.
-      project: project onto SU(N) (:func:`project_links`) instead of refusing links beyond ``tol``.
+      tol: largest accepted max(|U^dag U - 1|, |det U - 1|); default `UNITARITY_TOL`.
+      project: project onto SU(N) (`project_links`) instead of refusing links beyond ``tol``.
     Returns:
       the links (a new complex128 array when projected).
     Raises:

@@ -7,21 +7,21 @@ Summary (all Euclidean, metric delta_{mu nu}):
 * Points are real arrays ``(..., 4)`` ordered ``(x1, x2, x3, x4)``; ``x4`` is Euclidean time.
 * Quaternions are real arrays ``(..., 4)`` ordered ``(w, x, y, z)``, ``w`` the real part.
   The units map to 2x2 complex matrices as ``1 -> 1``, ``i -> -i sigma_1``, ``j -> -i sigma_2``,
-  ``k -> -i sigma_3`` (:data:`QUATERNION_BASIS`); this is an algebra homomorphism, onto SU(2) for unit
+  ``k -> -i sigma_3`` (`QUATERNION_BASIS`); this is an algebra homomorphism, onto SU(2) for unit
   quaternions, and quaternionic conjugation becomes the Hermitian adjoint.
 * A point ``x`` is the quaternion ``p(x)`` whose matrix is ``x4 * 1 + i x.sigma``, i.e. components
-  ``(w, x, y, z) = (x4, -x1, -x2, -x3)`` (:func:`point_to_quaternion`).  Equivalently
-  ``p(x) = sum_mu x_mu e_mu`` with ``e_mu`` = :data:`E_MU`.
+  ``(w, x, y, z) = (x4, -x1, -x2, -x3)`` (`point_to_quaternion`).  Equivalently
+  ``p(x) = sum_mu x_mu e_mu`` with ``e_mu`` = `E_MU`.
 * Gauge fields are anti-Hermitian: ``D_mu = d_mu + A_mu``,
   ``F_mu nu = d_mu A_nu - d_nu A_mu + [A_mu, A_nu]``; a gauge transformation ``g(x)`` acts as
   ``A -> g A g^-1 + g d g^-1``, ``F -> g F g^-1``.
-* Action density ``s(x) = -1/2 sum_{mu nu} tr F_mu nu F_mu nu`` (:data:`ACTION_DENSITY_FACTOR`), so a unit
-  instanton has ``int s = 8 pi^2`` (:data:`INSTANTON_ACTION`).  Coupling: ``S_YM = (1/g^2) int s``.
+* Action density ``s(x) = -1/2 sum_{mu nu} tr F_mu nu F_mu nu`` (`ACTION_DENSITY_FACTOR`), so a unit
+  instanton has ``int s = 8 pi^2`` (`INSTANTON_ACTION`).  Coupling: ``S_YM = (1/g^2) int s``.
 * Charge density ``q(x) = -1/(32 pi^2) eps_{mu nu rho sigma} tr F_mu nu F_rho sigma`` with
-  ``eps_1234 = +1`` (:data:`CHARGE_DENSITY_FACTOR`, :data:`LEVI_CIVITA`).
+  ``eps_1234 = +1`` (`CHARGE_DENSITY_FACTOR`, `LEVI_CIVITA`).
 * Dual: ``(*F)_mu nu = 1/2 eps_{mu nu rho sigma} F_rho sigma``.  An **instanton** is self-dual
   (``F = *F``) with ``Q = +1`` per unit; an anti-instanton is anti-self-dual with ``Q = -1``.
-* Lattice links (used by :mod:`instantonkit.lattice.starts`): ``U_mu(n)`` is the parallel transporter along
+* Lattice links (used by `instantonkit.lattice.starts`): ``U_mu(n)`` is the parallel transporter along
   the straight segment ``z(t) = x + t a mu_hat``, ``t in [0, 1]``, solving ``dW/dt = a W(t) A_mu(z(t))``
   with ``W(0) = 1``, i.e. the path-ordered exponential with *earlier* points to the *left*.  Under a gauge
   transformation ``U_mu(n) -> g(x) U_mu(n) g(x + a mu_hat)^-1`` and the plaquette
@@ -91,7 +91,7 @@ def point_to_quaternion(x):
 
 
 def quaternion_to_point(q):
-    """Inverse of :func:`point_to_quaternion`: (..., 4) quaternion -> (..., 4) point."""
+    """Inverse of `point_to_quaternion`: (..., 4) quaternion -> (..., 4) point."""
     return q[..., (1, 2, 3, 0)] * np.array([-1.0, -1.0, -1.0, 1.0])
 
 

@@ -2,7 +2,7 @@
 
 A quaternion is a real array ``(..., 4)`` ordered ``(w, x, y, z)`` with ``w`` the real part; a
 quaternionic matrix is a real array ``(..., rows, cols, 4)``.  Complex images use the map of
-:data:`instantonkit.core.conventions.QUATERNION_BASIS` (``i -> -i sigma_1`` etc.): a quaternion becomes a
+`instantonkit.core.conventions.QUATERNION_BASIS` (``i -> -i sigma_1`` etc.): a quaternion becomes a
 2x2 block, an ``r x c`` quaternionic matrix a ``2r x 2c`` complex matrix.  All functions are pure,
 jax-traceable and accept numpy or jax arrays.
 """
@@ -127,7 +127,7 @@ def qexp(v):
 def qlog(u):
     """Logarithm of a unit quaternion: a pure imaginary quaternion with ``|log u| <= pi``.
 
-    Inverse of :func:`qexp` on angles in [0, pi).  u: (..., 4) -> (..., 4) with zero real part.
+    Inverse of `qexp` on angles in [0, pi).  u: (..., 4) -> (..., 4) with zero real part.
     """
     u = jnp.asarray(u)
     vec = u[..., 1:]
@@ -148,7 +148,7 @@ def to_matrix(q):
 def from_matrix(m):
     """Quaternion of a 2x2 complex matrix ``m = w 1 - i x.sigma`` (the real-linear projection).
 
-    Exact inverse of :func:`to_matrix` on its image; for a general complex matrix it returns the
+    Exact inverse of `to_matrix` on its image; for a general complex matrix it returns the
     quaternion part ``(1/2) Re tr(basis_a^dag m)``.  m: (..., 2, 2) -> (..., 4) float64.
     """
     m = jnp.asarray(m)
@@ -198,7 +198,7 @@ def qmat_to_complex(a):
 
 
 def complex_to_qmat(m):
-    """Inverse of :func:`qmat_to_complex`: (..., 2r, 2c) complex -> (..., r, c, 4) real.
+    """Inverse of `qmat_to_complex`: (..., 2r, 2c) complex -> (..., r, c, 4) real.
 
     Exact on the image of quaternionic matrices; otherwise the quaternionic projection of each block.
     """

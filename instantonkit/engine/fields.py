@@ -3,14 +3,14 @@
 A *field* is anything with a method ``potential(x)`` mapping one point ``(4,)`` to the four
 anti-Hermitian matrices ``A_mu`` ``(4, N, N)`` (jax-traceable), optionally with closed forms
 ``field_strength(x) -> (4, 4, N, N)``, ``action_density(x) -> ()`` and ``charge_density(x) -> ()``.
-:class:`instantonkit.adhm.quaternionic.ADHMData` and the ansatz objects of :mod:`instantonkit.ansatz.classic` are fields; a
-bare callable ``A(x)`` is wrapped by :func:`as_field`.  Fields should be pytrees (frozen dataclasses
+`instantonkit.adhm.quaternionic.ADHMData` and the ansatz objects of `instantonkit.ansatz.classic` are fields; a
+bare callable ``A(x)`` is wrapped by `as_field`.  Fields should be pytrees (frozen dataclasses
 registered with jax) so that one compiled kernel serves every field of the same structure.
 
 The public functions validate the points once, flatten the leading shape, pick the closed form when
 the field has one (``method="auto"``) or differentiate the potential with ``jax.jacfwd``
 (``method="autodiff"``), map over fixed-size chunks with ``jit(vmap(...))`` so that memory stays
-bounded, and restore the leading shape.  Formulas follow :mod:`instantonkit.core.conventions`.
+bounded, and restore the leading shape.  Formulas follow `instantonkit.core.conventions`.
 """
 
 from __future__ import annotations
@@ -67,7 +67,7 @@ _METHODS = ("auto", "closed", "autodiff")
 #: Quantities a field may compute for a whole batch at once (the ``density_batch`` hook).
 _BATCH_QUANTITIES = ("action_density", "charge_density")
 
-#: What :func:`evaluate` computes.
+#: What `evaluate` computes.
 QUANTITIES = ("potential", "field_strength", "action_density", "charge_density", "self_duality_residual")
 
 
@@ -161,7 +161,7 @@ class _Kernel:
 
     One traced function returns every quantity asked for: one compilation, and XLA shares their work.
     Closed forms compile with XLA's full optimisation (hot paths); kernels that differentiate a potential
-    use :func:`instantonkit.core._config.lean_compiler_options` when it is on (their graphs took most of a first
+    use `instantonkit.core._config.lean_compiler_options` when it is on (their graphs took most of a first
     call in XLA's optimisation passes).  jax caches compilations per field structure and chunk shape.
     """
 
@@ -292,16 +292,16 @@ def evaluate_many(
 
     One trace and one compilation serve them all, and XLA shares their common work (the k x k algebra
     of s, q and F; the potential inside its own jacobian), so asking for F, s and q together costs
-    less than three :func:`evaluate` calls on a first call and per point.
+    less than three `evaluate` calls on a first call and per point.
 
     Args:
-      field, points, method, chunk_size: as in :func:`evaluate` (``method`` for the names given alone).
+      field, points, method, chunk_size: as in `evaluate` (``method`` for the names given alone).
       quantities: a non-empty sequence of quantity names or (name, method) pairs, e.g.
         ``("field_strength", ("field_strength", "autodiff"), "action_density")``.
     Returns:
-      a tuple of numpy arrays in the order of ``quantities``, each shaped as :func:`evaluate` returns it.
+      a tuple of numpy arrays in the order of ``quantities``, each shaped as `evaluate` returns it.
     Raises:
-      ValueError / TypeError as :func:`evaluate`, and for an empty or malformed ``quantities``.
+      ValueError / TypeError as `evaluate`, and for an empty or malformed ``quantities``.
     """
     if isinstance(quantities, str) or not isinstance(quantities, Sequence) or not quantities:
         raise TypeError(
@@ -317,7 +317,7 @@ def evaluate_many(
 
 
 def _evaluate_specs(field, points: Array, specs: tuple, chunk_size: int) -> tuple[np.ndarray, ...]:
-    """The chunked loop of :func:`evaluate` and :func:`evaluate_many` for a tuple of (quantity, method)."""
+    """The chunked loop of `evaluate` and `evaluate_many` for a tuple of (quantity, method)."""
     for quantity, method in specs:
         if method not in _METHODS:
             raise ValueError(f"method must be one of {_METHODS}; found {method!r}")
@@ -351,13 +351,13 @@ def potential(field, points: Array, **kw) -> np.ndarray:
     """Gauge potential A_mu at points (anti-Hermitian, conventions module).
 
     Args:
-      field: a field or a bare callable ``A(x)`` (see :func:`evaluate`).
+      field: a field or a bare callable ``A(x)`` (see `evaluate`).
       points: (..., 4) float64 (numpy or jax).
-      **kw: ``method`` and ``chunk_size`` of :func:`evaluate`.
+      **kw: ``method`` and ``chunk_size`` of `evaluate`.
     Returns:
       numpy array (..., 4, N, N) complex128.
     Raises:
-      ValueError / TypeError as :func:`evaluate` (bad points or options, non-finite results).
+      ValueError / TypeError as `evaluate` (bad points or options, non-finite results).
     """
     return evaluate(field, points, "potential", **kw)
 
@@ -368,13 +368,13 @@ def field_strength(field, points: Array, **kw) -> np.ndarray:
     Closed form when the field has one, else jax.jacfwd of the potential (``method="autodiff"`` forces it).
 
     Args:
-      field: a field or a bare callable ``A(x)`` (see :func:`evaluate`).
+      field: a field or a bare callable ``A(x)`` (see `evaluate`).
       points: (..., 4) float64 (numpy or jax).
-      **kw: ``method`` and ``chunk_size`` of :func:`evaluate`.
+      **kw: ``method`` and ``chunk_size`` of `evaluate`.
     Returns:
       numpy array (..., 4, 4, N, N) complex128.
     Raises:
-      ValueError / TypeError as :func:`evaluate` (bad points or options, non-finite results).
+      ValueError / TypeError as `evaluate` (bad points or options, non-finite results).
     """
     return evaluate(field, points, "field_strength", **kw)
 
@@ -383,13 +383,13 @@ def action_density(field, points: Array, **kw) -> np.ndarray:
     """Action density s(x) = -1/2 sum_{mu nu} tr F_mu nu F_mu nu at points (closed form when present).
 
     Args:
-      field: a field or a bare callable ``A(x)`` (see :func:`evaluate`).
+      field: a field or a bare callable ``A(x)`` (see `evaluate`).
       points: (..., 4) float64 (numpy or jax).
-      **kw: ``method`` and ``chunk_size`` of :func:`evaluate`.
+      **kw: ``method`` and ``chunk_size`` of `evaluate`.
     Returns:
       numpy array (...,) float64.
     Raises:
-      ValueError / TypeError as :func:`evaluate` (bad points or options, non-finite results).
+      ValueError / TypeError as `evaluate` (bad points or options, non-finite results).
     """
     return evaluate(field, points, "action_density", **kw)
 
@@ -398,13 +398,13 @@ def charge_density(field, points: Array, **kw) -> np.ndarray:
     """Charge density q(x) = -1/(32 pi^2) eps_{mu nu rho sigma} tr F_mu nu F_rho sigma at points.
 
     Args:
-      field: a field or a bare callable ``A(x)`` (see :func:`evaluate`).
+      field: a field or a bare callable ``A(x)`` (see `evaluate`).
       points: (..., 4) float64 (numpy or jax).
-      **kw: ``method`` and ``chunk_size`` of :func:`evaluate`.
+      **kw: ``method`` and ``chunk_size`` of `evaluate`.
     Returns:
       numpy array (...,) float64.
     Raises:
-      ValueError / TypeError as :func:`evaluate` (bad points or options, non-finite results).
+      ValueError / TypeError as `evaluate` (bad points or options, non-finite results).
     """
     return evaluate(field, points, "charge_density", **kw)
 
@@ -415,12 +415,12 @@ def self_duality_residual(field, points: Array, **kw) -> np.ndarray:
     0 for self-dual fields, 2 for anti-self-dual ones, and 0 by definition where F vanishes.
 
     Args:
-      field: a field or a bare callable ``A(x)`` (see :func:`evaluate`).
+      field: a field or a bare callable ``A(x)`` (see `evaluate`).
       points: (..., 4) float64 (numpy or jax).
-      **kw: ``method`` and ``chunk_size`` of :func:`evaluate`.
+      **kw: ``method`` and ``chunk_size`` of `evaluate`.
     Returns:
       numpy array (...,) float64.
     Raises:
-      ValueError / TypeError as :func:`evaluate` (bad points or options, non-finite results).
+      ValueError / TypeError as `evaluate` (bad points or options, non-finite results).
     """
     return evaluate(field, points, "self_duality_residual", **kw)

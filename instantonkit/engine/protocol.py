@@ -1,10 +1,10 @@
 """The field protocol: what a field is, its optional hooks, and user callables seen as fields (floor 1).
 
-A *field* is anything with ``potential(x)`` (:class:`Field`); everything else it can do is an optional
-hook (:class:`FieldHooks`, names in :data:`HOOKS`), asked for with :func:`hook`.  A bare user callable
-``A(x)`` becomes a :class:`CallableField` (static data compared by code and captured values, so equal
-closures share one compiled kernel); :class:`ParametrisedField` makes parameters pytree leaves.  The
-engine that evaluates fields is :mod:`instantonkit.engine.fields`, which re-exports every name here.
+A *field* is anything with ``potential(x)`` (`Field`); everything else it can do is an optional
+hook (`FieldHooks`, names in `HOOKS`), asked for with `hook`.  A bare user callable
+``A(x)`` becomes a `CallableField` (static data compared by code and captured values, so equal
+closures share one compiled kernel); `ParametrisedField` makes parameters pytree leaves.  The
+engine that evaluates fields is `instantonkit.engine.fields`, which re-exports every name here.
 """
 
 from __future__ import annotations
@@ -44,8 +44,8 @@ class Field(Protocol):
     """What the engine needs of a field: the potential at one point, jax-traceable.
 
     ``potential(x)``: x (4,) float64 -> A_mu (4, N, N) complex128, anti-Hermitian (conventions module).
-    Everything else a field may offer is an optional hook, listed in :class:`FieldHooks` and asked for
-    with :func:`hook`; the engine and the checks never look at a field's class.
+    Everything else a field may offer is an optional hook, listed in `FieldHooks` and asked for
+    with `hook`; the engine and the checks never look at a field's class.
     """
 
     def potential(self, x: Any) -> Any: ...
@@ -73,17 +73,17 @@ class FieldHooks(Protocol):
       (jax-traceable, one link), used by the lattice instead of Magnus steps;
       ``describe() -> str``: a one-line description for reports;
       ``conjugate() -> field``: the field's own anti-self-dual partner (the parity image), used by
-      :func:`instantonkit.engine.transforms.anti` instead of a parity wrapper (ADHM data flip chirality,
+      `instantonkit.engine.transforms.anti` instead of a parity wrapper (ADHM data flip chirality,
       a parity image gives back the field it wraps);
       ``wrapped_callable() -> CallableField | None``: the bare user callable at the core of a wrapper
-      chain (a :class:`CallableField` returns itself, wrappers ask the field they wrap), so the engine
+      chain (a `CallableField` returns itself, wrappers ask the field they wrap), so the engine
       can check its shape and anti-Hermiticity once before compiling;
       ``gauge_twin() -> (twin, g)``: the same field in another gauge and the transition g(x) -> (N, N)
       (jax-traceable) with A = g^dag A_twin g + g^dag dg, so links U(x, d) = g(x)^dag U_twin(x, d) g(x + d);
       g is not finite where this field's gauge is singular (the lattice builds links touching such
-      points in the twin's gauge, :func:`instantonkit.lattice.starts.block_links`);
+      points in the twin's gauge, `instantonkit.lattice.starts.block_links`);
       ``record() -> dict``: a JSON-ready description with a 'kind' key from which
-      :func:`instantonkit.lattice.references.field_from_record` rebuilds the field (stored in lattice files);
+      `instantonkit.lattice.references.field_from_record` rebuilds the field (stored in lattice files);
       ``density_batch(points, quantity) -> (m,)``: the closed-form ``action_density`` or
       ``charge_density`` at a whole batch of points (m, 4) at once (jax-traceable, equal to the
       per-point closed forms to rounding), used by ``method="auto"`` instead of vmapping them, so a
@@ -110,14 +110,14 @@ class FieldHooks(Protocol):
     def generator_batch(self, points: Any, dirs: Any) -> Any: ...
 
 
-#: Names of the optional hooks (methods or attributes), documented in :class:`FieldHooks`.
+#: Names of the optional hooks (methods or attributes), documented in `FieldHooks`.
 HOOKS = tuple(name for name in vars(FieldHooks) if not name.startswith("_")) + ("charge", "period")
 
 
 def hook(field, name: str):
     """The field's hook ``name`` (bound method or attribute value), or None when it does not offer it.
 
-    Wrappers (:mod:`instantonkit.engine.transforms`) offer a hook exactly when the field they wrap does and
+    Wrappers (`instantonkit.engine.transforms`) offer a hook exactly when the field they wrap does and
     they can map it; asking is the only way modules learn what a field can do.
     """
     if name not in HOOKS:
@@ -201,7 +201,7 @@ class _CodeKey:
     the same object, or plain functions with the same code, the same module globals and captured
     values (cells, defaults) that are identical or equal numbers, strings, arrays or such functions
     (``functools.partial`` likewise).  A closure over a *different* value is a different key and
-    compiles again: put such parameters in :class:`ParametrisedField` instead.
+    compiles again: put such parameters in `ParametrisedField` instead.
     """
 
     __slots__ = ("fn",)
@@ -230,7 +230,7 @@ class CallableField:
 
     The callable is static pytree data, compared by code and captured values (not by object
     identity): two closures of the same code over equal values share one compiled kernel, a closure
-    over a new value compiles again (use :class:`ParametrisedField` to scan parameters).
+    over a new value compiles again (use `ParametrisedField` to scan parameters).
     """
 
     fn: Callable[[Any], Any]

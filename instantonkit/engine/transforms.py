@@ -2,12 +2,12 @@
 
 Each wrapper is a frozen dataclass registered as a jax pytree whose children are the wrapped field and
 the numeric parameters, so one compiled kernel serves all wrappers of the same structure.  Each
-implements the field protocol of :mod:`instantonkit.engine.fields`: ``potential`` transforms the wrapped
+implements the field protocol of `instantonkit.engine.fields`: ``potential`` transforms the wrapped
 potential, and ``field_strength``, ``action_density``, ``charge_density`` transform the wrapped closed
 forms (or, when the wrapped field has none, its autodiff field strength).  ``method="autodiff"`` in the
 engine differentiates the transformed potential instead, which is how the tests check the covariance.
 
-Maps (conventions of :mod:`instantonkit.core.conventions`; ``R`` orthogonal, ``g`` unitary):
+Maps (conventions of `instantonkit.core.conventions`; ``R`` orthogonal, ``g`` unitary):
 
 * gauge:     A'_mu = g A_mu g^-1 + g d_mu g^-1 = g A_mu g^dag - (d_mu g) g^dag,  F' = g F g^dag,  s' = s, q' = q;
 * translate: A'(x) = A(x - shift);
@@ -188,7 +188,7 @@ class _Wrapper(PytreeFields):
         """Field hook: {'kind': the transformation, 'field': the wrapped field's record, its parameters}.
 
         Offered when the wrapped field has a record hook; rebuilt by
-        :func:`instantonkit.lattice.references.field_from_record`.
+        `instantonkit.lattice.references.field_from_record`.
         """
         inner = hook(self.field, "record")
         if inner is None:
@@ -303,10 +303,10 @@ class GaugeTransformed(_Wrapper):
     def record(self):
         """Field hook: the record of the wrapped field and of g, or one that says why it cannot be rebuilt.
 
-        When g offers ``record()`` (:class:`ConstantGauge` does): {'kind': 'gauge_transformed', 'field':
+        When g offers ``record()`` (`ConstantGauge` does): {'kind': 'gauge_transformed', 'field':
         the wrapped field's record, 'g': g's record}.  Otherwise g is code, not data:
         {'kind': 'unrecordable', 'type': 'GaugeTransformed', 'reason': ..., 'field': the wrapped
-        field's record}; :func:`instantonkit.lattice.references.field_from_record` raises a ValueError quoting
+        field's record}; `instantonkit.lattice.references.field_from_record` raises a ValueError quoting
         the reason.  Offered when the wrapped field has a record hook.
         """
         inner = hook(self.field, "record")
@@ -743,7 +743,7 @@ def anti(field):
     A'_mu(x) = P_mu nu A_nu(Px), so F' is anti-self-dual, s'(x) = s(Px), q'(x) = -q(Px) and the centres
     move to P a_i.  The field is asked first: when it offers the ``conjugate`` hook (ADHM data flip
     their chirality, the same map; a parity image returns the field it wraps, so ``anti(anti(f))``
-    gives ``f`` back) that is the answer; any other field is wrapped by :func:`parity`.
+    gives ``f`` back) that is the answer; any other field is wrapped by `parity`.
 
     Args:
       field: a field or a bare callable A(x).

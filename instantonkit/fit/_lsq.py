@@ -1,6 +1,6 @@
 """What the exact-moduli fits share (floor 0): padded samples, the best-of-trials driver, the result record.
 
-Used by :mod:`instantonkit.fit.moduli_fit` (SU(2) ADHM data) and :mod:`instantonkit.fit.unitary_fit` (SU(N)
+Used by `instantonkit.fit.moduli_fit` (SU(2) ADHM data) and `instantonkit.fit.unitary_fit` (SU(N)
 data); each keeps its own parametrisation, residuals and least-squares options.
 """
 

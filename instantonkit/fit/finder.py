@@ -8,17 +8,17 @@ fitted with scipy.optimize.least_squares on the parameters (a_i, log rho_i), the
 For well separated instantons the exact ADHM density differs from the superposition by corrections of
 relative order (rho / distance)^2 near each peak (measured: centres off by 4e-4 to 2e-2 for k = 2..4).
 The superposition does not depend on orientations; with ``model="superposition"`` ``orientations`` is
-None and ``data`` is built by :func:`instantonkit.adhm.moduli.multi_instanton` from the fitted centres and
+None and ``data`` is built by `instantonkit.adhm.moduli.multi_instanton` from the fitted centres and
 sizes with trivial orientations.
 
 Exact model (``model="exact"``, the default): starting from the superposition fit, the exact SU(2)
 ADHM data (centres, sizes and relative orientations: all 8k - 3 gauge-invariant moduli) are fitted by
-:mod:`instantonkit.fit.moduli_fit` to the samples above ``_EXACT_FLOOR`` of the peak (at most
+`instantonkit.fit.moduli_fit` to the samples above ``_EXACT_FLOOR`` of the peak (at most
 ``_EXACT_MAX``, the largest); ``data`` is then the fitted ``ADHMData``.  Sp(n > 1) data are not fitted (SU(2) only).
 
 SU(N > 2) (``rank=N``, genuine complex ADHM data).  ``model="exact"`` (the default): starting from the
 superposition fit, exact SU(N) data of well-separated instantons (the construction of
-:func:`instantonkit.adhm.unitary_moduli.unitary_multi_instanton`) are fitted by :mod:`instantonkit.fit.unitary_fit`
+`instantonkit.adhm.unitary_moduli.unitary_multi_instanton`) are fitted by `instantonkit.fit.unitary_fit`
 to the same samples as for SU(2): centres, sizes and, as nuisance parameters, one relative SU(N)
 rotation per instanton (the first fixed: the global rotation is gauge; stabiliser directions removed).
 ``data`` = the fitted ``UnitaryADHMData``; ``orientations`` = the fitted representative (k, N, N), which
@@ -29,7 +29,7 @@ data of the fitted centres and sizes, trivial orientations.  For anti-instantons
 negative sign) ``data`` is None for N > 2 (complex data of anti-self-dual fields are not implemented).
 An exact fit (SU(2) or SU(N)) no better than the superposition is flagged.
 
-Start: the distinct peaks of :func:`count_peaks` (plateaus and ties merged, so lumps between lattice
+Start: the distinct peaks of `count_peaks` (plateaus and ties merged, so lumps between lattice
 sites count once), sizes from the peak heights ``s_max = 48 / rho^4``; missing ones by greedy
 subtraction of BPST profiles.
 Uncertainties: ``statistical`` = sqrt(diag(sigma^2 (J^T W J)^-1)) of the reported model at its optimum
@@ -120,7 +120,7 @@ def superposition_density(points, centers, sizes):
 
 @dataclasses.dataclass(frozen=True)
 class InstantonFit:
-    """Result of :func:`find_instantons`.
+    """Result of `find_instantons`.
 
     centers: (k, 4) float64; sizes: (k,) float64; orientations: (k, 4) unit quaternions u_j relative to
     u_1 (row 0 = 1; each row up to sign) from the exact model, None for the superposition model; for
@@ -136,7 +136,7 @@ class InstantonFit:
     explains_noise: True / False when the noise was given (chi2 / dof within 5 sigma of 1), else None;
     n_peaks: distinct peaks found; model: 'exact' or 'superposition'; superposition: the superposition
     fit {'centers', 'sizes'} the exact fit started from; notes: tuple of str, decisions taken before the
-    fit (e.g. the colour rank inferred from links by :func:`instantonkit.fit.lattice_fit.find_lattice_instantons`).
+    fit (e.g. the colour rank inferred from links by `instantonkit.fit.lattice_fit.find_lattice_instantons`).
     """
 
     centers: np.ndarray
@@ -206,9 +206,9 @@ class InstantonFit:
 
 @dataclasses.dataclass(frozen=True)
 class MixedFit:
-    """Result of :func:`find_instantons` with k = (k_plus, k_minus) on a charge density of both signs.
+    """Result of `find_instantons` with k = (k_plus, k_minus) on a charge density of both signs.
 
-    instantons, anti_instantons: :class:`InstantonFit` (superposition model, fitted jointly to
+    instantons, anti_instantons: `InstantonFit` (superposition model, fitted jointly to
     q = (sum_+ s_i - sum_- s_j) / 8 pi^2; an instanton-anti-instanton pair is not self-dual, so there
     are no exact ADHM data for the whole); rms: relative rms residual of the joint fit.
     """
@@ -361,7 +361,7 @@ def find_instantons(
     rank: int = 2,
     _lattice_note: str = "",
 ):
-    """Fit k (anti-)instantons to density samples; returns an :class:`InstantonFit` (a :class:`MixedFit` for k = (k+, k-)).
+    """Fit k (anti-)instantons to density samples; returns an `InstantonFit` (a `MixedFit` for k = (k+, k-)).
 
     points: (..., 4) sample positions (lattice sites or any point set); density: (...,) action density
     s (quantity='action') or charge density q (quantity='charge', its sign picks instantons or

@@ -17,12 +17,12 @@ they give 0.08 to 0.10, i.e. look genuine); genuine SU(3) charge-2 data give 0.4
 orders above the largest floor and five below the genuine values.  Charge-1 SU(N) instantons are
 embeddings of SU(2) (common practice), so they infer rank 2; genuine SU(N) configurations close to an
 embedding have a small but finite smallest singular value and count as genuine once it exceeds the
-threshold.  Without ``rank``, :func:`find_lattice_instantons` fits SU(r) with the inferred r (= N for
+threshold.  Without ``rank``, `find_lattice_instantons` fits SU(r) with the inferred r (= N for
 genuine SU(N) links; an SU(r) field embedded in SU(N) is fitted as SU(r)).
 
 Error budget.  Links are checked first (finite, SU(N) within 1e-8).  The finder's systematic is the model
 error of continuum densities; for links that were smoothed the caller passes the run's record and the
-sizes' systematic gains the drift the run caused (:func:`_smoothing_systematic`); raw links whose Wilson
+sizes' systematic gains the drift the run caused (`_smoothing_systematic`); raw links whose Wilson
 action exceeds ``ROUGH_FACTOR`` x 8 pi^2 k are rough: systematic not estimated, advice to smooth first.
 """
 
@@ -57,7 +57,7 @@ ACTION_FLOOR = 1e-3
 
 @dataclasses.dataclass(frozen=True)
 class ColourRank:
-    """Result of :func:`colour_rank`: the rank r of the field's colour structure inside SU(N).
+    """Result of `colour_rank`: the rank r of the field's colour structure inside SU(N).
 
     rank: r = N - dim(common null space); n: N of the links; singular_values: (N,) float64, of the
     stacked transported clover F relative to the largest, descending; gap: sigma_r / sigma_{r+1} (inf
@@ -123,7 +123,7 @@ def colour_rank(links, *, spacing: float = 1.0, boundary: str = "periodic", thre
       boundary: 'periodic' or 'open' (open: sites whose clovers leave the lattice are skipped).
       threshold: relative singular value in (0, 1) below which a direction is null.
     Returns:
-      :class:`ColourRank` (rank, relative singular values (N,), gap, null vectors (N, N - rank)).
+      `ColourRank` (rank, relative singular values (N,), gap, null vectors (N, N - rank)).
     Raises:
       ValueError / TypeError naming the bad argument; ValueError when the links carry no field strength.
     """
@@ -168,31 +168,31 @@ def find_lattice_instantons(
 ):
     """Fit instantons to a lattice gauge field given as links, from the lattice's own densities.
 
-    The density is the clover charge density (quantity='charge', :func:`observables.clover_charge_density`)
+    The density is the clover charge density (quantity='charge', `observables.clover_charge_density`)
     or the clover action density s = -1/2 sum tr F F of the clover field strength (quantity='action'),
     at the sites x_n = origin + a n (origin defaults to 0); open boundaries drop the sites whose
     clovers leave the lattice.  The continuum model is fitted to these O(a^2)-accurate densities.
-    Without ``rank`` the colour rank r is inferred from the links (:func:`colour_rank`): r = 2 (SU(2)
+    Without ``rank`` the colour rank r is inferred from the links (`colour_rank`): r = 2 (SU(2)
     links, or an SU(2) field embedded in SU(N)) fits SU(2) with model 'exact' by default; r > 2 fits
     SU(r) with model 'superposition' by default (centres and sizes: the clover densities' O((a / rho)^2)
     artefacts exceed the superposition's model error, and the exact SU(r) fit of
-    :mod:`instantonkit.fit.unitary_fit`, model='exact', costs 20-50 s on its first call).  The fit's
+    `instantonkit.fit.unitary_fit`, model='exact', costs 20-50 s on its first call).  The fit's
     ``notes`` say what was inferred.
 
     Args:
       links: (L1, L2, L3, L4, 4, N, N) complex links.
-      k: as in :func:`find_instantons` (an integer, or (k_plus, k_minus) for quantity='charge').
+      k: as in `find_instantons` (an integer, or (k_plus, k_minus) for quantity='charge').
       spacing: lattice spacing a > 0.
       origin: (4,) position of site 0, default (0, 0, 0, 0).
       boundary: 'periodic' or 'open'.
       quantity: 'charge' or 'action'.
       model: None (chosen from the rank, above), 'exact' or 'superposition'.
-      rank: None (inferred) or the N of the SU(N) instantons, as in :func:`find_instantons`.
-      smoothing: the :class:`instantonkit.lattice.smoothing.SmoothingRecord` of the flow or cooling run that made
-        these links, if any: its systematic enters the error budget (:func:`_smoothing_systematic`).
+      rank: None (inferred) or the N of the SU(N) instantons, as in `find_instantons`.
+      smoothing: the `instantonkit.lattice.smoothing.SmoothingRecord` of the flow or cooling run that made
+        these links, if any: its systematic enters the error budget (`_smoothing_systematic`).
         Without it, links whose Wilson action exceeds ``ROUGH_FACTOR`` times 8 pi^2 k are called rough
         (noisy): their systematic is NaN (not estimable) and the advice is to smooth them first.
-      options: passed to :func:`find_instantons`.
+      options: passed to `find_instantons`.
     Returns:
       InstantonFit (or MixedFit), positions in the lattice's coordinates, ``notes`` naming the rank.
     Raises:
@@ -253,7 +253,7 @@ def _smoothing_systematic(fit: InstantonFit, record, s_w: float, k: int) -> Inst
     """The fit with the systematic of the links' smoothing (or of their roughness) in its error budget.
 
     Smoothed links (``record`` given): the sizes' systematic gains, in quadrature, the relative drift of the
-    record's size estimate rho/a (:func:`instantonkit.lattice.smoothing.instanton_size`) from the first to the last
+    record's size estimate rho/a (`instantonkit.lattice.smoothing.instanton_size`) from the first to the last
     measurement, times each fitted size (the flow or cooling moves sizes, lattice flows shrink them); the
     record holds no positions or orientations, so their systematic is NaN, "not estimated".  Raw links
     above ROUGH_FACTOR 8 pi^2 k: every systematic is NaN and the reasons advise smoothing first.  Other

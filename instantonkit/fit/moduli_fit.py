@@ -1,9 +1,9 @@
 """Fit exact SU(2) ADHM data (all gauge-invariant moduli) to sampled action densities by least squares.
 
-Model: the exact action density of the charge-k data built by :func:`instantonkit.adhm.moduli.multi_instanton`
+Model: the exact action density of the charge-k data built by `instantonkit.adhm.moduli.multi_instanton`
 (Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185): diag(B) = p(a_i), Lambda's columns
 Lambda_i = rho_i u_i, the off-diagonal of B solved from the constraint by
-:func:`instantonkit.adhm.moduli.solve_constraint_unrolled` (differentiable, see there why unrolled steps
+`instantonkit.adhm.moduli.solve_constraint_unrolled` (differentiable, see there why unrolled steps
 give the implicit-function derivative).  The density is the engine's per-point closed form
 ``ADHMData.action_density`` under jax.vmap inside the jitted residual.
 
@@ -114,7 +114,7 @@ def relative_orientations(data: ADHMData) -> np.ndarray:
 
 @dataclasses.dataclass(frozen=True)
 class ExactFit(ModuliFit):
-    """Result of :func:`fit_exact`.
+    """Result of `fit_exact`.
 
     data: fitted ADHMData (SU(2), charge +k); centers (k, 4), sizes (k,), orientations (k, 4) unit
     quaternions u_j relative to u_1 (row 0 = 1); covariance: {'centers': (k, 4), 'sizes': (k,),

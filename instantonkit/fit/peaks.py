@@ -109,7 +109,7 @@ def count_peaks(points, density, *, min_fraction: float = 0.05) -> tuple[np.ndar
 def count_signed_peaks(points, charge, *, min_fraction: float = 0.05):
     """Peaks of a charge density of either sign: {+1: (centres, heights), -1: (centres, heights)}.
 
-    Each sign is searched with :func:`count_peaks` on +-q (heights are |q|); ``min_fraction`` is taken of
+    Each sign is searched with `count_peaks` on +-q (heights are |q|); ``min_fraction`` is taken of
     the largest |q| of either sign, so a weak opposite-sign lump counts only above it.
     points: (..., 4); charge: (...,) charge density q.
     """

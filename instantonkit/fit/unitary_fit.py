@@ -1,15 +1,15 @@
 """Fit exact SU(N > 2) ADHM data (centres, sizes; orientations as nuisance parameters) to action densities.
 
 Model: the exact action density of the complex charge-k data of well-separated instantons built as in
-:func:`instantonkit.adhm.unitary_moduli.unitary_multi_instanton` (Atiyah, Hitchin, Drinfeld, Manin, Phys.
-Lett. A 65 (1978) 185; the complex form of :mod:`instantonkit.adhm.unitary`): diag(B_a) = z_a(a_i),
+`instantonkit.adhm.unitary_moduli.unitary_multi_instanton` (Atiyah, Hitchin, Drinfeld, Manin, Phys.
+Lett. A 65 (1978) 185; the complex form of `instantonkit.adhm.unitary`): diag(B_a) = z_a(a_i),
 I_i = rho_i e_0^T g_i^dag, J^i = rho_i g_i e_1, then the off-diagonal of B1, B2 (weight 1) and I, J
 (weight 0.1) moved by weighted minimum-norm Gauss-Newton onto both moment maps.  That iteration is
-one jax function shared with the builder (:func:`instantonkit.adhm.base.solve_moment_maps`); here it runs
-``_STEPS`` unrolled steps from the same start with the same weights (:func:`unitary_data`, the builder's
+one jax function shared with the builder (`instantonkit.adhm.base.solve_moment_maps`); here it runs
+``_STEPS`` unrolled steps from the same start with the same weights (`unitary_data`, the builder's
 data to rounding, tests/test_finder.py), so jax.jacfwd
 differentiates the density through the constraint solve (why unrolled Newton steps give the
-implicit-function derivative: :func:`instantonkit.adhm.moduli.solve_constraint_unrolled`).
+implicit-function derivative: `instantonkit.adhm.moduli.solve_constraint_unrolled`).
 
 Parameters: the centres a_i (4k), log rho_i (k) and, for j >= 2, a relative rotation g_j = g_j^ref C(X_j)
 (C the Cayley map, X_j anti-Hermitian) with g_1 = g_1^ref fixed (the global U(N) rotation is gauge).
@@ -19,7 +19,7 @@ phase i(E_00 + E_11), which U(k) undoes) and, for j = 2 only, the global rotatio
 up to gauge (they act on all g_j at once).  For k = 2, N = 3 this leaves 8 + 2 + 6 = 16 = 4kN - (N^2 - 1)
 parameters, the gauge-invariant count.  Some relative orientations still enter the density only
 weakly (through the lumps' interaction), so the fit uses scipy's 'trf' with x_scale='jac' and the
-errors drop near-null directions of the curvature (see :func:`fit_unitary`).  The reported centres are
+errors drop near-null directions of the curvature (see `fit_unitary`).  The reported centres are
 diag(B) (= a_i) and the sizes ``UnitaryADHMData.sizes()`` of the fitted data, the same definitions as
 for the data the densities came from; the orientations are a representative only (up to gauge and
 stabilisers).
@@ -132,9 +132,9 @@ def _cayley(x):
 def unitary_data(theta, gref, basis, k: int, n: int, steps: int = _STEPS):
     """(B1, B2, I, J) (jax) of the parameters theta = [a (4k), log rho (k), omega (P)] (module docstring).
 
-    The start and weights of :func:`instantonkit.adhm.unitary_moduli.unitary_multi_instanton` (diag B fixed,
+    The start and weights of `instantonkit.adhm.unitary_moduli.unitary_multi_instanton` (diag B fixed,
     off-diagonal weight 1, I and J 0.1), then ``steps`` unrolled steps of the one moment-map solve
-    :func:`instantonkit.adhm.base.solve_moment_maps` (the builder runs the same solve to a tolerance).
+    `instantonkit.adhm.base.solve_moment_maps` (the builder runs the same solve to a tolerance).
     """
     c = theta[: 4 * k].reshape(k, 4)
     rho = jnp.exp(theta[4 * k : 5 * k])
@@ -174,7 +174,7 @@ _dmoduli = jax.jit(jax.jacfwd(_moduli), static_argnums=(3, 4))
 
 @dataclasses.dataclass(frozen=True)
 class UnitaryFit(ModuliFit):
-    """Result of :func:`fit_unitary`.
+    """Result of `fit_unitary`.
 
     data: fitted UnitaryADHMData; centers (k, 4), sizes (k,); orientations (k, N, N): the fitted
     representative g_i (g_1 the reference; determined only up to gauge and stabilisers); errors:

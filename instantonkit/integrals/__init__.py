@@ -2,7 +2,7 @@
 
 Modules (floor 2 of the package; the floors inside are in DEVELOPERS.md):
 
-* ``cubature``: The adaptive integrator under :mod:`instantonkit.integrals.drivers`: per-centre hyperspherical
+* ``cubature``: The adaptive integrator under `instantonkit.integrals.drivers`: per-centre hyperspherical
 * ``drivers``: Integrals over R^4 (or R^3 x one period) of a field's densities, with error estimates.
 * ``flux``: Integrals of ADHM data through Osborn's flux: the ball |x - c| < R by its boundary sphere, the rest by volume.
 * ``quadrature``: Quadrature rules for integrals over R^4 and over R^3 x [t0, t0 + beta), as point and weight arrays.

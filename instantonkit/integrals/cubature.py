@@ -1,4 +1,4 @@
-"""The adaptive integrator under :mod:`instantonkit.integrals.drivers` (floor 4): per-centre hyperspherical
+"""The adaptive integrator under `instantonkit.integrals.drivers` (floor 4): per-centre hyperspherical
 rules refined where the error is, with error estimates and a decay probe at infinity.
 
 It knows densities (callables ``points (M, 4) -> (M,) float64``) and layouts, not fields.  Each piece
@@ -7,8 +7,8 @@ of the partition of unity (one per centre) is adaptive in two ways: Gauss-Legend
 node (a shell) its own angular level of a product rule on S^3 (or S^2 x the x4 circle), oriented with
 more nodes in the angle from the neighbour that dominates the shell (quadrature.shell_axes).  Error
 estimates: differences of the last two levels (radially the largest seen at the level), enlarged when
-they converge slowly (``_piece_error``), plus a rounding floor.  :func:`integrate_adaptive` runs one
-integral; :func:`final_rule` gives its final rule as points and weights, for sampling the field there."""
+they converge slowly (``_piece_error``), plus a rounding floor.  `integrate_adaptive` runs one
+integral; `final_rule` gives its final rule as points and weights, for sampling the field there."""
 
 from __future__ import annotations
 
@@ -87,7 +87,7 @@ _ORIENTED_MAX_CENTRES = 2
 
 _EPS = float(np.finfo(np.float64).eps)
 
-#: The search for singular points (:mod:`instantonkit.integrals.singular`) runs once: when the error has not halved for
+#: The search for singular points (`instantonkit.integrals.singular`) runs once: when the error has not halved for
 #: this many rounds, or when the integral stops unconverged.
 _STALL_ROUNDS = 6
 
@@ -106,7 +106,7 @@ class IntegralResult:
     quantity: what was integrated; value, error: the estimate and its estimated absolute error;
     evaluations: density evaluations used (all rounds); rule: the rule of the final round;
     converged: whether ``error <= max(atol, rtol |value|)``; message: why not (budget), else "";
-    route: 'volume' (the adaptive volume rule) or 'osborn' (Osborn's flux route, :mod:`instantonkit.integrals.flux`).
+    route: 'volume' (the adaptive volume rule) or 'osborn' (Osborn's flux route, `instantonkit.integrals.flux`).
     """
 
     quantity: str
@@ -356,7 +356,7 @@ class _Piece:
 
 
 def _piece_radial_nodes(piece: _Piece, lr: int) -> tuple[np.ndarray, np.ndarray]:
-    """Radial nodes and weights of piece i at radial level lr (:func:`instantonkit.integrals.quadrature.radial_panel_nodes`).
+    """Radial nodes and weights of piece i at radial level lr (`instantonkit.integrals.quadrature.radial_panel_nodes`).
 
     One centre (or the reference rules, _PANELS False): one Gauss-Legendre rule in u.  Several: the
     u-interval is cut at r = d_ij -+ _PANEL_HALF_WIDTH rho_j around the distance of every neighbour
@@ -424,7 +424,7 @@ class _State:
 def _shell_orientation(piece: _Piece, r: np.ndarray, layout: Layout) -> tuple[np.ndarray, np.ndarray]:
     """Axis (n, 4) and aspect (n,) of the S^3 rules of the shells of radii r (n,) about piece i.
 
-    See :func:`instantonkit.integrals.quadrature.shell_axes`; aspect 1 everywhere on R^3 x S^1, for one centre,
+    See `instantonkit.integrals.quadrature.shell_axes`; aspect 1 everywhere on R^3 x S^1, for one centre,
     and with the reference rules (_ASPECT = 1).
     """
     n = r.shape[0]
@@ -672,7 +672,7 @@ def integrate_adaptive(
     Every round evaluates at least one shell (a round that would add none stops with its reason), so
     there are at most max_points / (smallest shell) rounds and the time is bounded by the budget's
     evaluations; a stalled or unconverged integral is searched once for a singular point
-    (:func:`instantonkit.integrals.singular.search`, SingularDensityError when it is not integrable)."""
+    (`instantonkit.integrals.singular.search`, SingularDensityError when it is not integrable)."""
     state = _State.start(layout)
     first = _initial_rounds(state, density, name, max_points)
     converged, message, note, searched, best, stalled = False, "", "", False, math.inf, 0

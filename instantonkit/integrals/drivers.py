@@ -2,31 +2,31 @@
 
 ``total_action(field)`` and ``total_charge(field)`` integrate the action density
 ``s = -1/2 sum tr F F`` and the charge density ``q = -1/(32 pi^2) eps tr F F`` (conventions module)
-with the building blocks of :mod:`instantonkit.integrals.quadrature`: one hyperspherical rule per centre, glued
+with the building blocks of `instantonkit.integrals.quadrature`: one hyperspherical rule per centre, glued
 by a smooth partition of unity.  Each piece is adaptive in two ways: Gauss-Legendre radial levels in
 ``u`` (``r = L u / (1 - u)``, in panels about far neighbours), and for every radial node (a shell) its
 own angular level of a product rule on S^3 (or S^2 x the x4 circle), oriented towards the neighbour
-that dominates the shell (:mod:`instantonkit.integrals.cubature`).  Refinement goes to the pieces and shells that carry the error
+that dominates the shell (`instantonkit.integrals.cubature`).  Refinement goes to the pieces and shells that carry the error
 until it meets ``max(atol, rtol |value|)`` or the ``max_points`` budget is spent (then ``converged`` is
 False and ``message`` says so).  Error estimates are differences of the last two levels, enlarged when
 the levels converge slowly (see ``_piece_error``), plus a rounding floor.
 
 Before integrating, the density is sampled along rays at large radius; if it falls no faster than
 about ``|x|^-(d + 1)`` (``d`` = 4, or 3 for periodic fields) the integral diverges or converges too
-slowly for an honest estimate and :class:`DivergentIntegralError` says so.  A field whose evaluation
-fails (an exception in a user callable, a non-finite value) raises :class:`FieldEvaluationError` with
+slowly for an honest estimate and `DivergentIntegralError` says so.  A field whose evaluation
+fails (an exception in a user callable, a non-finite value) raises `FieldEvaluationError` with
 the original message.
 
 ADHM data (fields with a ``gram`` hook) on R^4 take another route by default (``route='auto'``): the
 ball about their lumps by Osborn's flux through its sphere, the rest by the volume integral of the
-density (:mod:`instantonkit.integrals.flux`), which reaches 1e-13 with about 10^4 points where the volume rule
+density (`instantonkit.integrals.flux`), which reaches 1e-13 with about 10^4 points where the volume rule
 about many centres needs millions for 1e-8.  ``route='volume'`` gives the volume integral everywhere.
 
-The layer under the front doors is public too (used by :mod:`instantonkit.verification.checks`):
-:func:`layout_of` gives the :class:`Layout` (centres, scales, period) of a field, asked through its
-``layout``/``hint``/``period`` hooks; :func:`integrate` integrates :class:`DensityRequest` s on a
-layout and returns an :class:`IntegrationOutcome` with the results and, on request, the final
-quadrature rule of each integral (a :class:`instantonkit.integrals.quadrature.Rule`) for sampling the field there.
+The layer under the front doors is public too (used by `instantonkit.verification.checks`):
+`layout_of` gives the `Layout` (centres, scales, period) of a field, asked through its
+``layout``/``hint``/``period`` hooks; `integrate` integrates `DensityRequest` s on a
+layout and returns an `IntegrationOutcome` with the results and, on request, the final
+quadrature rule of each integral (a `instantonkit.integrals.quadrature.Rule`) for sampling the field there.
 """
 
 from __future__ import annotations
@@ -94,7 +94,7 @@ class DensityRequest:
     quantity: 'action_density' | 'charge_density'; method: the engine's 'auto' | 'closed' | 'autodiff';
     name: the integral's name in results and messages (default 'action' / 'charge'); label: the
     density's name in evaluation errors (default the quantity with spaces); atol: this request's
-    absolute tolerance (default the ``atol`` of :func:`integrate`).
+    absolute tolerance (default the ``atol`` of `integrate`).
     """
 
     quantity: str = "action_density"
@@ -115,7 +115,7 @@ class DensityRequest:
 
 @dataclasses.dataclass(frozen=True)
 class IntegrationOutcome:
-    """What :func:`integrate` returns: one result per request and, on request, the final rules.
+    """What `integrate` returns: one result per request and, on request, the final rules.
 
     results: (IntegralResult, ...) in the order of the requests; rules: (quadrature.Rule, ...) the final
     rule of each integral (points (M, 4), weights (M,); shells capped at an angular level so that
@@ -251,7 +251,7 @@ def integrate(
     ``max_points`` evaluations; ``atol`` applies unless the request sets its own.
 
     Args:
-      field: a field (or callable potential); requests: DensityRequest s; layout: from :func:`layout_of`.
+      field: a field (or callable potential); requests: DensityRequest s; layout: from `layout_of`.
       rtol, atol: refine until error <= max(atol, rtol |value|) (finite, >= 0, not both 0).
       max_points: density evaluations per integral (never exceeded; ValueError when even the first
         round does not fit); progress: None | bool | callable (dict per round).
@@ -296,12 +296,12 @@ def integrate_flux(
     max_points: int = DEFAULT_MAX_POINTS,
     progress=None,
 ) -> IntegralResult:
-    """The requested density of ADHM data over R^4 by Osborn's flux route (:mod:`instantonkit.integrals.flux`).
+    """The requested density of ADHM data over R^4 by Osborn's flux route (`instantonkit.integrals.flux`).
 
     Args:
       field: ADHM data (``gram`` and ``charge`` hooks); request: which density, by which method
-        (used outside the sphere), with its own atol; layout: R^4, from :func:`layout_of`.
-      rtol, atol, max_points, progress: as in :func:`integrate_density`.
+        (used outside the sphere), with its own atol; layout: R^4, from `layout_of`.
+      rtol, atol, max_points, progress: as in `integrate_density`.
     Returns:
       IntegralResult with route 'osborn' (its ``rule`` names the sphere and both parts' levels).
     Raises:
@@ -328,7 +328,7 @@ def integrate_flux(
 
 
 def uses_flux(field, layout: Layout, method: str, route: str) -> bool:
-    """Whether an integral of ``field`` takes Osborn's flux route (see :func:`integrate_density`).
+    """Whether an integral of ``field`` takes Osborn's flux route (see `integrate_density`).
 
     Raises ValueError for an unknown route, or route 'osborn' for a field without ``gram`` and
     ``charge`` hooks or on a periodic layout."""
@@ -362,19 +362,19 @@ def integrate_density(
 
     Args:
       field: a field or a callable potential A(x): (4,) -> (4, N, N).
-      quantity: 'action_density' or 'charge_density' (of :mod:`instantonkit.engine.fields`).
+      quantity: 'action_density' or 'charge_density' (of `instantonkit.engine.fields`).
       rtol, atol: refine until ``error <= max(atol, rtol |value|)``.
       center, scale: (4,) or (k, 4) centres and a number or (k,) scales; default from the field's
-        ``layout()`` / ``hint()`` hooks, else (0, 1) (see :func:`layout_of`).
+        ``layout()`` / ``hint()`` hooks, else (0, 1) (see `layout_of`).
       period: integrate x4 over one period (default: the field's ``period`` hook).
       max_points: budget of density evaluations; when spent, ``converged`` is False and ``message`` says so.
       method: the engine's 'auto' | 'closed' | 'autodiff'.
       progress: None (a line on stderr when it is a terminal), True/False, or a callable getting a dict per round.
       route: 'auto' | 'osborn' | 'volume'.  'osborn' (what 'auto' takes for ADHM data, i.e. fields with a
         ``gram`` hook, on R^4 with method 'auto'): the ball |x - c| < R by Osborn's flux through its
-        sphere and the rest by the volume integral of the density (:mod:`instantonkit.integrals.flux`; fast and
+        sphere and the rest by the volume integral of the density (`instantonkit.integrals.flux`; fast and
         precise, and it takes Osborn's formula on trust inside the ball).  'volume': the adaptive volume
-        integral of the density everywhere (:mod:`instantonkit.integrals.cubature`), what ``verify`` checks with.
+        integral of the density everywhere (`instantonkit.integrals.cubature`), what ``verify`` checks with.
     Returns:
       IntegralResult (value, error, evaluations, rule, converged, message).
     Raises:
@@ -424,11 +424,11 @@ def total_action(
     """S = int s d^4x (per period for periodic fields) with error estimate; 8 pi^2 |Q| for (anti-)instantons.
 
     Args:
-      field and keywords as in :func:`integrate_density` (``atol`` is absolute, in units of S).
+      field and keywords as in `integrate_density` (``atol`` is absolute, in units of S).
     Returns:
       IntegralResult with quantity 'action'.
     Raises:
-      as :func:`integrate_density`.
+      as `integrate_density`.
     """
     return integrate_density(
         field,
@@ -461,12 +461,12 @@ def total_charge(
     """Q = int q d^4x (per period for periodic fields) with error estimate; +k for k instantons.
 
     Args:
-      field and keywords as in :func:`integrate_density`; ``method='closed'`` computes q from the
+      field and keywords as in `integrate_density`; ``method='closed'`` computes q from the
       closed-form F (eps tr F F) even where the field has a closed-form q.
     Returns:
       IntegralResult with quantity 'charge'.
     Raises:
-      as :func:`integrate_density`.
+      as `integrate_density`.
     """
     return integrate_density(
         field,

@@ -63,7 +63,7 @@ def gram_coefficients(data):
 
 @jax.jit
 def _gram_coefficients(data):
-    """:func:`gram_coefficients` as one compiled call (nine eager Gram evaluations cost ~0.5 s of op compiles)."""
+    """`gram_coefficients` as one compiled call (nine eager Gram evaluations cost ~0.5 s of op compiles)."""
     e = jnp.eye(4)
     g0 = data.gram(jnp.zeros(4))
     gmu = jnp.stack([(data.gram(e[m]) - data.gram(-e[m])) / 2.0 for m in range(4)])
@@ -154,7 +154,7 @@ def exterior_integral(density, centre, radius: float, nt: int, n: int) -> tuple[
 
 
 class FluxIntegral(NamedTuple):
-    """What :func:`osborn_integral` returns (the fields of an IntegralResult but its name)."""
+    """What `osborn_integral` returns (the fields of an IntegralResult but its name)."""
 
     value: float
     error: float
@@ -175,7 +175,7 @@ def osborn_integral(
       centres: (m, 4) where the lumps sit (R^4); extent: their extent (the layout's): the sphere is about
         the mean centre, radius RADIUS_FACTOR x extent.
       quantity: 'action_density' or 'charge_density'.
-      rtol, atol, max_points: as in :func:`instantonkit.integrals.drivers.integrate_density` (ball and exterior
+      rtol, atol, max_points: as in `instantonkit.integrals.drivers.integrate_density` (ball and exterior
         each get half the tolerance and share the budget).
     Returns:
       FluxIntegral; its ``rule`` names both parts.

@@ -26,7 +26,7 @@ smooth, concentrated near a few centres, and falling like a power of ``|x|`` at 
   The partition of unity then uses the periodic distance
   ``|x_vec - a_vec|^2 + (beta / pi)^2 sin^2(pi (x4 - a4) / beta)``.
 
-Nodes come from :func:`scipy.special.roots_legendre` and :func:`scipy.special.roots_chebyu`.
+Nodes come from `scipy.special.roots_legendre` and `scipy.special.roots_chebyu`.
 """
 
 from __future__ import annotations
@@ -96,7 +96,7 @@ class Rule:
         return float(np.sum(self.weights * v))
 
     def magnitude(self, values) -> float:
-        """sum_i |w_i values_i|, the scale of the rounding error of :meth:`integrate`."""
+        """sum_i |w_i values_i|, the scale of the rounding error of `integrate`."""
         v = np.asarray(values, dtype=np.float64)
         return float(np.sum(np.abs(self.weights * v)))
 
@@ -105,12 +105,12 @@ class Rule:
 
 
 def _check_count(name: str, n) -> int:
-    """A node count: a positive integer (see :func:`instantonkit.core._validate.positive_int`)."""
+    """A node count: a positive integer (see `instantonkit.core._validate.positive_int`)."""
     return _validate.positive_int(name, n)
 
 
 def _check_scale(name: str, value) -> float:
-    """A length or period: a finite number > 0 (see :func:`instantonkit.core._validate.positive_float`)."""
+    """A length or period: a finite number > 0 (see `instantonkit.core._validate.positive_float`)."""
     return _validate.positive_float(name, value)
 
 
@@ -203,9 +203,9 @@ def sphere3_oriented(n_psi: int, n_perp: int, axis=None) -> tuple[np.ndarray, np
     """Anisotropic product rule on S^3 with its pole along the unit vector ``axis``.
 
     Gauss-Chebyshev (second kind) in cos(psi), psi the angle from ``axis``, with ``n_psi`` nodes, times
-    the S^2 rule of :func:`sphere2_nodes` with parameter ``n_perp``; exact for polynomials of degree
+    the S^2 rule of `sphere2_nodes` with parameter ``n_perp``; exact for polynomials of degree
     <= 2 n_psi - 1 in cos(psi) times harmonics of degree <= 2 n_perp - 1 on the S^2 (as in
-    :func:`sphere3_nodes`, which is the case n_psi = n_perp, axis = e4).  A density that varies mostly
+    `sphere3_nodes`, which is the case n_psi = n_perp, axis = e4).  A density that varies mostly
     with the angle from ``axis`` (a neighbour's lump seen from a centre) needs many nodes in psi and
     few across.  ``axis=None`` is e4; otherwise e4 is reflected onto ``axis`` (a Householder reflection).
 
@@ -234,7 +234,7 @@ def shell_axes(
     structure that depends mostly on the angle from its direction e_ij (the partition's transition
     and the neighbour's lump, both nearly symmetric about the line a_i a_j), the more so the closer
     the shell passes: score_j = rho_j^2 / ((d_ij - r)^2 + rho_j^2) (rho_j / d_ij)^4.  The best
-    neighbour's direction is the axis; the aspect (n_psi / n_perp of :func:`sphere3_oriented`) is
+    neighbour's direction is the axis; the aspect (n_psi / n_perp of `sphere3_oriented`) is
     ``aspect`` when the best score beats the second by ``dominance`` and, for three or more centres,
     that neighbour is at least ``separation`` rho_j away (overlapping lumps of three or more are not
     symmetric about one line); else 1.  Two centres: always ``aspect``.  Rules chosen by measurement
@@ -263,7 +263,7 @@ def shell_axes(
 def radial_panel_nodes(
     n: int, scale: float, dim: int, cuts, *, min_length: float = 0.02, min_nodes: int = 6
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Composite Gauss-Legendre version of :func:`radial_nodes`: u = r / (L + r) cut at the radii ``cuts``.
+    """Composite Gauss-Legendre version of `radial_nodes`: u = r / (L + r) cut at the radii ``cuts``.
 
     Cuts closer than ``min_length`` in u merge; each panel [a, b] gets max(min_nodes, ceil(n (b - a)))
     nodes.  Returns r and weights (with the Jacobian L / (1 - u)^2 and r^(dim - 1)), sorted by r.
@@ -342,7 +342,7 @@ def radial_scales(centers, scales) -> np.ndarray:
     return np.maximum(s, RADIAL_SPREAD * np.min(d, axis=1))
 
 
-#: Fraction of the nearest-neighbour distance used as radial scale (see :func:`radial_scales`).
+#: Fraction of the nearest-neighbour distance used as radial scale (see `radial_scales`).
 RADIAL_SPREAD = 0.3
 
 
@@ -359,9 +359,9 @@ def rule_r4_piece(
     power: int | None = None,
     radial_scale: float | None = None,
 ) -> Rule:
-    """Piece i of :func:`rule_r4`: the rule centred at a_i with radial scale L_i, weights times w_i(x).
+    """Piece i of `rule_r4`: the rule centred at a_i with radial scale L_i, weights times w_i(x).
 
-    scales: (k,) rho_i of the partition of unity; radial_scale: L_i (default :func:`radial_scales`).
+    scales: (k,) rho_i of the partition of unity; radial_scale: L_i (default `radial_scales`).
     Size n_radial * 2 n_angular^3.
     """
     power = DEFAULT_PARTITION_POWER if power is None else int(power)
@@ -413,7 +413,7 @@ def rule_r3_circle_piece(
     *,
     power: int | None = None,
 ) -> Rule:
-    """Piece i of :func:`rule_r3_circle`: centred at a_i (space) with a time node at a4_i.
+    """Piece i of `rule_r3_circle`: centred at a_i (space) with a time node at a4_i.
 
     Size n_radial * 2 n_angular^2 * n_time.
     """
@@ -494,7 +494,7 @@ def ray_points(centre, radii, dim: int, rays: int, seed: int) -> np.ndarray:
 def decay_exponent(
     values, radii, dim: int, magnitude: float, *, zero: float, area: float, noise: float
 ) -> float | None:
-    """p in |f| ~ r^-p from the largest |f| over the rays of :func:`ray_points` at the largest radii.
+    """p in |f| ~ r^-p from the largest |f| over the rays of `ray_points` at the largest radii.
 
     None if f vanishes there (|f| <= ``zero``), or if the tail it implies, about |f| R^dim ``area``, is
     below ``noise`` x ``magnitude`` (the size of the integral seen so far): then the decay seen is

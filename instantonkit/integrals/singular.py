@@ -1,12 +1,12 @@
 """Where a density is singular, and how fast it grows there (floor 1): the local power law |f| ~ r^-p.
 
-It knows densities (callables ``points (M, 4) -> (M,) float64``), not fields.  :func:`locate` climbs
+It knows densities (callables ``points (M, 4) -> (M,) float64``), not fields.  `locate` climbs
 from a start point to the largest |f| nearby by shrinking random clouds (a (1 + lambda) search whose
-step follows its last move); :func:`power_law` fits log <|f|> against log r on rays about a point, r
+step follows its last move); `power_law` fits log <|f|> against log r on rays about a point, r
 from ``scale / 8`` down to 1e-9 of the position's size, and returns the slope -p with the spread of
 the local slopes.  A density ~ r^-p is integrable about a point of R^4 (or R^3 x S^1, locally R^4)
-exactly when p < 4 (the volume element is r^3 dr, common practice).  :func:`diagnose` runs both from
-a few start points and gives the :class:`Singularity` s found.
+exactly when p < 4 (the volume element is r^3 dr, common practice).  `diagnose` runs both from
+a few start points and gives the `Singularity` s found.
 
 What it usually means for a potential written by hand: in singular gauge A_mu = -1/2 eta-bar_{a mu nu}
 d_nu log(phi) u_a (conventions module), the poles of phi are pure gauge only for the factor -1/2 and
@@ -209,7 +209,7 @@ def search(density, top: list, centres: np.ndarray, scale: float, magnitude: flo
 
     Runs only when the largest |f| seen is a spike (max |f| scale^4 > _SUSPECT x ``magnitude``, the
     integral's sum |w f|).  Raises SingularDensityError naming every non-integrable point (p >= 4),
-    its power law and :data:`HAND_WRITTEN_CAUSE`; returns the description of an integrable one.
+    its power law and `HAND_WRITTEN_CAUSE`; returns the description of an integrable one.
     """
     if not top or not top[0][0] * scale**4 > _SUSPECT * max(magnitude, 1e-300):
         return "", 0

@@ -3,19 +3,19 @@
 ``boundary=`` takes either one choice for all four directions (a string, e.g. ``"periodic"``) or one
 choice per direction: a sequence of four strings in (x1, x2, x3, x4) order, e.g.
 ``("window", "window", "window", "periodic")`` for a field periodic in time and windowed in space.
-Lattice starts know 'periodic', 'window' and 'open' (:data:`START_BOUNDARIES`), link observables
-'periodic' and 'open' (:data:`OBSERVABLE_BOUNDARIES`).
+Lattice starts know 'periodic', 'window' and 'open' (`START_BOUNDARIES`), link observables
+'periodic' and 'open' (`OBSERVABLE_BOUNDARIES`).
 
 A field with a period in x4 (the ``period`` hook, e.g. a caloron on R^3 x S^1):
 
 * a window is never applied across the period: the single string ``"window"`` windows x1, x2, x3
   and keeps x4 periodic, and an explicit ``"window"`` for x4 is refused (ValueError);
 * a periodic x4 needs the lattice to close on the period, L4 a = beta (relative tolerance
-  :data:`PERIOD_RTOL`); otherwise the links would not close and a ValueError names both numbers;
+  `PERIOD_RTOL`); otherwise the links would not close and a ValueError names both numbers;
 * 'open' in x4 stays open (exact links, nothing wrapped), and the default 'periodic' wraps x4.
 
 Boundary figures of a start (link mismatch, boundary action, see ``lattice.boundary_mismatch``) are
-kept per direction; :func:`warn_boundary` raises :class:`BoundaryActionWarning` naming the directions
+kept per direction; `warn_boundary` raises `BoundaryActionWarning` naming the directions
 whose faces carry the action.
 """
 
@@ -46,7 +46,7 @@ __all__ = [
 #: The names of the four lattice directions, in the order of a per-direction spec.
 DIRECTIONS = ("x1", "x2", "x3", "x4")
 #: Boundaries of a start: 'periodic' (the field's links wrapped as they are), 'window' (the field
-#: windowed onto the torus in that direction, :mod:`instantonkit.ansatz.periodic`; periodic links) and 'open'.
+#: windowed onto the torus in that direction, `instantonkit.ansatz.periodic`; periodic links) and 'open'.
 START_BOUNDARIES = ("periodic", "window", "open")
 #: Boundaries of link observables: wrap around, or use only what lies inside.
 OBSERVABLE_BOUNDARIES = ("periodic", "open")
@@ -179,7 +179,7 @@ def face_figures(links, exact, mu: int) -> tuple:
 
 
 def warn_boundary(report, stacklevel: int = 3) -> None:
-    """Raise :class:`BoundaryActionWarning` when a start's boundary action exceeds BOUNDARY_WARN_FRACTION of 8 pi^2.
+    """Raise `BoundaryActionWarning` when a start's boundary action exceeds BOUNDARY_WARN_FRACTION of 8 pi^2.
 
     report: a ``lattice.LinkReport``; the message names the per-direction fractions and the largest.
     """

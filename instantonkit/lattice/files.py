@@ -21,7 +21,7 @@ Our link arrays are ``(L1, L2, L3, L4, 4, N, N)`` with ``(n1, n2, n3, n4) = (x, 
 binary payload is the array transposed to ``(t, z, y, x, mu, a, b)``.  Writes go to a temporary file
 in the target directory that replaces the target only when complete (``os.replace``), is removed when
 the write is interrupted (an exception, SIGTERM, SIGHUP) and, after SIGKILL, by the next save into that
-directory; files get mode ``0o666 & ~umask`` and errors name the target (:mod:`instantonkit.core._atomic`).
+directory; files get mode ``0o666 & ~umask`` and errors name the target (`instantonkit.core._atomic`).
 The format follows the extension (``.npz``; ``.ildg`` or ``.lime``) unless given.
 """
 
@@ -61,7 +61,7 @@ _FORMATS = ("npz", "ildg")
 
 
 def _atomic_write(path, write):
-    """Call ``write(fileobj)`` on a temporary file beside ``path``, then rename it onto ``path`` (:mod:`._atomic`)."""
+    """Call ``write(fileobj)`` on a temporary file beside ``path``, then rename it onto ``path`` (`._atomic`)."""
     atomic_write(path, write)
 
 
@@ -317,7 +317,7 @@ def save_lattice(
       metadata: optional JSON-serialisable dict stored with the links (default: the start's report).
       lfn: optional logical file name (ILDG only).
       description: optional JSON-serialisable description of the field (default: ``metadata['field']``
-        when that is a dict, which is then stored only as the description, read back as info['field']); :func:`instantonkit.lattice.references.field_from_record`
+        when that is a dict, which is then stored only as the description, read back as info['field']); `instantonkit.lattice.references.field_from_record`
         rebuilds the field from it.
     Returns:
       None.
@@ -357,14 +357,14 @@ def save_lattice(
 
 
 def load_lattice(path, *, mmap: bool = False, project: bool = False):
-    """Read a lattice file written by :func:`save_lattice` (or any ILDG file); returns (links, info).
+    """Read a lattice file written by `save_lattice` (or any ILDG file); returns (links, info).
 
     The format is recognised from the first bytes (zip: npz; LIME magic: ILDG).  info holds 'format',
     'metadata', 'field' (the field description, None when the file has none; rebuild the field with
-    :func:`instantonkit.lattice.references.field_from_record`) and for ILDG also 'ildg' with the XML fields and
+    `instantonkit.lattice.references.field_from_record`) and for ILDG also 'ildg' with the XML fields and
     'lfn' when present.  With
     ``mmap=True`` an ILDG file is returned as a read-only big-endian memory-mapped view (no copy).
-    Every link is checked (:func:`instantonkit.core._links.check_links`, time slab by time slab): NaN or inf
+    Every link is checked (`instantonkit.core._links.check_links`, time slab by time slab): NaN or inf
     entries (a damaged payload) and links that are not SU(N) within 1e-8 are refused, naming the file;
     ``project=True`` returns the links projected onto SU(N) instead (e.g. for single-precision files,
     whose rounding, ~1e-7, lies above the tolerance).
@@ -407,7 +407,7 @@ def read_description(path) -> dict:
     """The field description and metadata of a lattice file without reading the links: {'field', 'metadata', 'format'}.
 
     Args:
-      path: an npz or LIME/ILDG file written by :func:`save_lattice`.
+      path: an npz or LIME/ILDG file written by `save_lattice`.
     Returns:
       dict with 'format', 'metadata' (dict, empty when absent) and 'field' (dict or None).
     Raises:

@@ -1,13 +1,13 @@
 """Gauge-invariant observables of lattice link arrays: plaquettes, Wilson action, clover field strength
 and charge, and lattice gauge transformations.
 
-Links (conventions module, see :mod:`instantonkit.lattice.starts`): ``U_mu(n)`` joins site n to n + mu_hat,
+Links (conventions module, see `instantonkit.lattice.starts`): ``U_mu(n)`` joins site n to n + mu_hat,
 arrays ``(L1, L2, L3, L4, 4, N, N)``; a gauge transformation acts as
 ``U_mu(n) -> g(n) U_mu(n) g(n + mu_hat)^-1``.  Observables wrap around periodically, or with
 ``boundary="open"`` use only the plaquettes (clovers) whose links all join lattice sites; ``boundary=``
-is one choice for all directions or four in (x1, x2, x3, x4) order (:mod:`instantonkit.lattice.boundaries`),
+is one choice for all directions or four in (x1, x2, x3, x4) order (`instantonkit.lattice.boundaries`),
 e.g. ``("open", "open", "open", "periodic")``, and then masks only what crosses an open direction's edge.
-Every observable first checks all links (:func:`instantonkit.core._links.check_links`: finite, special
+Every observable first checks all links (`instantonkit.core._links.check_links`: finite, special
 unitary within 1e-8), so the open-boundary masks (NaN outside, then a NaN-skipping sum) exclude only
 what lies outside, never damaged input.  Work is done
 in time slabs of about ``SLAB_BYTES`` so memory stays bounded on large lattices (numpy arrays and
@@ -41,7 +41,7 @@ __all__ = [
     "clover_charge",
 ]
 
-#: The six lattice planes (mu, nu), mu < nu, zero-based; the order of the plane axis of :func:`plaquettes`.
+#: The six lattice planes (mu, nu), mu < nu, zero-based; the order of the plane axis of `plaquettes`.
 PLANES = ((0, 1), (0, 2), (0, 3), (1, 2), (1, 3), (2, 3))
 
 #: The boundary conditions of link arrays: wrap around, or use only what lies inside (per direction too).
@@ -54,12 +54,12 @@ SLAB_BYTES = 1 << 26
 
 
 def _check_shape(shape):
-    """(L1, L2, L3, L4) as ints (:func:`instantonkit.core._validate.lattice_shape`)."""
+    """(L1, L2, L3, L4) as ints (`instantonkit.core._validate.lattice_shape`)."""
     return _v.lattice_shape("shape", shape)
 
 
 def _check_spacing(spacing) -> float:
-    """The lattice spacing a > 0 (:func:`instantonkit.core._validate.positive_float`)."""
+    """The lattice spacing a > 0 (`instantonkit.core._validate.positive_float`)."""
     return _v.positive_float("spacing", spacing)
 
 
@@ -84,7 +84,7 @@ def gauge_transform_links(links, g, *, boundary: str | Sequence[str] = "periodic
 
     Args:
       links: (L1, L2, L3, L4, 4, N, N) complex link array.
-      g: (L1, L2, L3, L4, N, N) unitary matrices, one per site (e.g. :func:`random_gauge`).
+      g: (L1, L2, L3, L4, N, N) unitary matrices, one per site (e.g. `random_gauge`).
       boundary: 'periodic' (n + mu wraps) or 'open' (the outward links of the last sites are only
         left multiplied), or four of them in (x1, x2, x3, x4) order.
     Returns:
@@ -92,7 +92,7 @@ def gauge_transform_links(links, g, *, boundary: str | Sequence[str] = "periodic
     Raises:
       ValueError: g of the wrong shape, or an unknown boundary.
 
-    (The continuum gauge transformation of a field is :func:`instantonkit.engine.transforms.gauge_transform`.)
+    (The continuum gauge transformation of a field is `instantonkit.engine.transforms.gauge_transform`.)
     """
     u = np.asarray(links)
     g = np.asarray(g)
@@ -113,7 +113,7 @@ def gauge_transform_links(links, g, *, boundary: str | Sequence[str] = "periodic
 
 
 def gauge_transform(links, g, *, boundary: str | Sequence[str] = "periodic") -> np.ndarray:
-    """Deprecated name of :func:`gauge_transform_links` (the public ``ik.gauge_transform`` is the continuum one)."""
+    """Deprecated name of `gauge_transform_links` (the public ``ik.gauge_transform`` is the continuum one)."""
     warnings.warn(
         "observables.gauge_transform / lattice.gauge_transform is deprecated; use gauge_transform_links "
         "(instantonkit.gauge_transform transforms continuum fields)",
@@ -217,7 +217,7 @@ def _open_mask(shape, t0, t1, planes_need, lo: int, boundary="open"):
 
 
 def plaquette_traces(links, *, boundary: str | Sequence[str] = "periodic") -> np.ndarray:
-    """Re tr U_p / N for every site and plane; (L1, L2, L3, L4, 6) float64 (plane order :data:`PLANES`).
+    """Re tr U_p / N for every site and plane; (L1, L2, L3, L4, 6) float64 (plane order `PLANES`).
 
     Open boundaries: NaN for plaquettes that leave the lattice (n_mu or n_nu = L - 1).
 
@@ -237,7 +237,7 @@ def plaquette_traces(links, *, boundary: str | Sequence[str] = "periodic") -> np
 
 
 def _traces(u, boundary):
-    """:func:`plaquette_traces` of checked links."""
+    """`plaquette_traces` of checked links."""
     n = u.shape[-1]
     out = np.empty(u.shape[:4] + (6,))
     for t0, t1, ext in _slabs(u, 1):
@@ -251,7 +251,7 @@ def _traces(u, boundary):
 def plaquettes(links, *, boundary: str | Sequence[str] = "periodic") -> np.ndarray:
     """Plaquette matrices U_mu(n) U_nu(n+mu) U_mu(n+nu)^dag U_nu(n)^dag; (L1, L2, L3, L4, 6, N, N).
 
-    Plane order :data:`PLANES`; ``plaquette = exp(a^2 F_mu nu + O(a^3))`` (conventions module).
+    Plane order `PLANES`; ``plaquette = exp(a^2 F_mu nu + O(a^3))`` (conventions module).
     Open boundaries: NaN for plaquettes that leave the lattice.
 
     Args:
@@ -396,7 +396,7 @@ def clover_charge_density(links, *, spacing: float = 1.0, boundary: str | Sequen
 
     eps_{mu nu rho sigma} tr F_mu nu F_rho sigma = 8 (tr F12 F34 - tr F13 F24 + tr F14 F23)
     (conventions.CHARGE_DENSITY_FACTOR, eps_1234 = +1).  Open boundaries: NaN at sites whose clovers
-    leave the lattice; the sum of spacing^4 q is :func:`clover_charge`.
+    leave the lattice; the sum of spacing^4 q is `clover_charge`.
 
     Args:
       links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).

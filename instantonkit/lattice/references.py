@@ -1,11 +1,11 @@
-"""What a lattice start is compared with and rebuilt from (floor 7, above :mod:`instantonkit.lattice.starts`).
+"""What a lattice start is compared with and rebuilt from (floor 7, above `instantonkit.lattice.starts`).
 
-* The matched continuum reference: :func:`continuum_reference` gives the action of the field in the
+* The matched continuum reference: `continuum_reference` gives the action of the field in the
   same box (and with the same window) as a start, and the Wilson action expected at its rho/a from
-  :func:`wilson_artefact`, so a start is compared like with like.
-* Fields from their records: lattice files written from a :class:`instantonkit.lattice.starts.LatticeStart`
-  hold the field's ``record()`` (a JSON-ready dict, field hook); :func:`field_from_record`,
-  :func:`field_from_file` rebuild the field and :func:`regenerate` computes the start again.
+  `wilson_artefact`, so a start is compared like with like.
+* Fields from their records: lattice files written from a `instantonkit.lattice.starts.LatticeStart`
+  hold the field's ``record()`` (a JSON-ready dict, field hook); `field_from_record`,
+  `field_from_file` rebuild the field and `regenerate` computes the start again.
 """
 
 from __future__ import annotations
@@ -85,7 +85,7 @@ def continuum_reference(
     For 'periodic' the wrapped links add the boundary action of the start's report on top.
 
     Args:
-      field, shape, spacing, origin, boundary, window: as in :func:`lattice_links`.
+      field, shape, spacing, origin, boundary, window: as in `lattice_links`.
       nodes: Gauss-Legendre nodes per panel (default 8); each axis is cut into panels at the window's
         layers and into pieces of about 2 rho_min.
     Returns:
@@ -224,7 +224,7 @@ def _unrecordable(rec):
 
 
 #: Rebuilders of field records by their 'kind' (the ``record()`` hooks of ADHM data, complex ADHM data,
-#: the ansaetze of :mod:`instantonkit.ansatz.classic` and the transformations of :mod:`instantonkit.engine.transforms`;
+#: the ansaetze of `instantonkit.ansatz.classic` and the transformations of `instantonkit.engine.transforms`;
 #: 'unrecordable' records say why a field cannot be rebuilt, and rebuilding one raises that reason).
 RECORD_KINDS = {
     "adhm": _adhm_from_record,
@@ -252,7 +252,7 @@ def field_from_record(record: dict, *, window: bool = True):
         center; 'translated': field, shift; 'rotated': field, left, right; 'dilated': field, factor;
         'parity': field; 'gauge_transformed': field, g (a gauge function's record, kind in
         GAUGE_KINDS), where 'field' is the wrapped field's record) and optionally 'window' (lo, box,
-        width and, when not all, the windowed directions of :class:`TorusWindow`).
+        width and, when not all, the windowed directions of `TorusWindow`).
       window: rebuild the window too (False: the field before windowing, to pass with boundary='window').
     Returns:
       The field (ADHMData, UnitaryADHMData, an ansatz field, a transformed field or a TorusWindow of
@@ -285,7 +285,7 @@ _NO_RECORD = (
 
 
 def field_from_file(path, *, window: bool = True):
-    """The field described in a lattice file (npz or ILDG written by ``save_lattice`` of a start); see :func:`field_from_record`.
+    """The field described in a lattice file (npz or ILDG written by ``save_lattice`` of a start); see `field_from_record`.
 
     Raises ValueError saying why when the field cannot be rebuilt: the file holds no description (links
     saved without a start, or a start whose field has no ``record()`` hook, told apart by the start's

@@ -1,7 +1,7 @@
 """Smoothing of lattice link arrays: gradient flow, cooling, the 1x1 + 2x2 improved action and an
 improved charge.
 
-Links are arrays ``(L1, L2, L3, L4, 4, N, N)`` complex128 (:mod:`instantonkit.lattice.observables`); the
+Links are arrays ``(L1, L2, L3, L4, 4, N, N)`` complex128 (`instantonkit.lattice.observables`); the
 smoothing routines treat the lattice as periodic (n + L mu_hat = n).  Everything is one vectorised jax
 computation over the lattice in float64 (jnp.roll for the shifts), for SU(2), SU(3) or any SU(N).
 
@@ -9,7 +9,7 @@ Normalisations (g = 1, beta = 2N, so that every action tends to the continuum ac
 ``int s = 8 pi^2`` for a unit instanton, conventions module):
 
 * m x m loop action ``S_m = sum_x sum_{mu < nu} 2 Re tr(1 - P^{m x m}_{mu nu}(x))``; S_1 is the
-  Wilson action of :func:`instantonkit.lattice.observables.wilson_action` and S_2 -> 16 S_cont.
+  Wilson action of `instantonkit.lattice.observables.wilson_action` and S_2 -> 16 S_cont.
 * improved action of Garcia Perez, Gonzalez-Arroyo, Snippe and van Baal (Nucl. Phys. B 413 (1994) 535,
   from memory): ``S(eps) = sum_{x, mu, nu} [(4 - eps)/3 Tr(1 - P_1x1) + (eps - 1)/48 Tr(1 - P_2x2)]``,
   the sum over ordered pairs (mu, nu), i.e. ``S(eps) = (4 - eps)/3 S_1 + (eps - 1)/48 S_2``.  eps = 1 is
@@ -22,13 +22,13 @@ Normalisations (g = 1, beta = 2N, so that every action tends to the continuum ac
   section 2 for the Wilson action, from memory; our S equals his g0^2 S_w summed over oriented
   plaquettes).  tests/test_smoothing.py checks Z against finite differences of S.
 
-Every front door checks its links first (:func:`instantonkit.core._links.check_links`: finite, SU(N) within 1e-8).
-A flow whose effective step exceeds :func:`flow_step_bound` (the real stability interval of a third-order
+Every front door checks its links first (`instantonkit.core._links.check_links`: finite, SU(N) within 1e-8).
+A flow whose effective step exceeds `flow_step_bound` (the real stability interval of a third-order
 Runge-Kutta scheme over the largest frequency of the linearised flow) is refused before it starts, and a
 flow or cooling run whose driving action rises between two measurements stops with an error.
 
-Cooling with the 2x2 loops uses 8 colours per direction (see :func:`_colours`), so every sweep is an
-exact sequential sweep; the gradient flow of S(eps) is offered beside it (:func:`gradient_flow`).
+Cooling with the 2x2 loops uses 8 colours per direction (see `_colours`), so every sweep is an
+exact sequential sweep; the gradient flow of S(eps) is offered beside it (`gradient_flow`).
 """
 
 from __future__ import annotations
@@ -308,7 +308,7 @@ def _clover_f(u, m: int):
     """m x m clover F_mu nu at the sites, lattice units (= m^2 a^2 F + O(a^4)); list of 6 (L1..L4, N, N).
 
     Q = the four m x m loops in the plane that start and end at n, all oriented mu -> nu;
-    F = [(Q - Q^dag) - tr(Q - Q^dag)/N] / 8 (as :func:`instantonkit.lattice.observables.clover_field_strength`).
+    F = [(Q - Q^dag) - tr(Q - Q^dag)/N] / 8 (as `instantonkit.lattice.observables.clover_field_strength`).
     """
     d = [_long(u, mu, m) for mu in range(4)]
     out = []
@@ -335,7 +335,7 @@ def _clover_densities(u, m: int):
 
 
 def _links(links):
-    """Checked links (shape, dtype, finite, SU(N) within 1e-8: :func:`instantonkit.core._links.check_links`) as a jax array."""
+    """Checked links (shape, dtype, finite, SU(N) within 1e-8: `instantonkit.core._links.check_links`) as a jax array."""
     u = _check_links(links)
     return jnp.asarray(u, dtype=jnp.complex128)
 
@@ -368,7 +368,7 @@ def loop_action(links, size: int = 1, *, boundary: str = "periodic") -> float:
 
 
 def _loop_action(u, m, boundary):
-    """:func:`loop_action` of checked links."""
+    """`loop_action` of checked links."""
     terms = np.asarray(_loop_terms(u, m))
     shape = u.shape[:4]
     return float(sum(np.sum(terms[p][_loop_mask(shape, mu, nu, m, boundary)]) for p, (mu, nu) in enumerate(PLANES)))
@@ -377,7 +377,7 @@ def _loop_action(u, m, boundary):
 def improved_action(links, eps: float = 0.0, *, boundary: str = "periodic") -> float:
     """The 1x1 + 2x2 action S(eps) = (4 - eps)/3 S_1 + (eps - 1)/48 S_2 of Garcia Perez, Gonzalez-Arroyo,
     Snippe and van Baal (Nucl. Phys. B 413 (1994) 535, from memory); eps = 1 is the Wilson action,
-    eps = 0 has no tree-level a^2 term.  See :func:`loop_action` for S_m and ``boundary``."""
+    eps = 0 has no tree-level a^2 term.  See `loop_action` for S_m and ``boundary``."""
     c1, c2 = improved_coefficients(eps)
     u = _links(links)
     _v.choice("boundary", boundary, _BOUNDARIES)
@@ -395,7 +395,7 @@ def _charge_density(u, size, boundary):
 
 def loop_clover_charge(links, size: int = 1, *, boundary: str = "periodic") -> float:
     """Sum over the sites of the charge density of the ``size`` x ``size`` clover (lattice units, so it
-    tends to size^4 Q); size 1 is :func:`instantonkit.lattice.observables.clover_charge`.  Open boundaries: the
+    tends to size^4 Q); size 1 is `instantonkit.lattice.observables.clover_charge`.  Open boundaries: the
     sites whose clovers fit inside."""
     m = _v.positive_int("size", size)
     return float(np.nansum(_charge_density(_links(links), m, boundary)))
@@ -416,7 +416,7 @@ def improved_charge_density(links, *, boundary: str = "periodic") -> np.ndarray:
 
 
 def improved_charge(links, *, boundary: str = "periodic") -> float:
-    """Q_imp = (4/3) Q_1x1 - (1/48) Q_2x2, the sum of :func:`improved_charge_density`."""
+    """Q_imp = (4/3) Q_1x1 - (1/48) Q_2x2, the sum of `improved_charge_density`."""
     return float(np.nansum(improved_charge_density(links, boundary=boundary)))
 
 
@@ -484,7 +484,7 @@ def max_flow_frequency(eps: float = 1.0) -> float:
 
 
 def flow_step_bound(eps: float = 1.0) -> float:
-    """Largest stable step of :func:`gradient_flow`: RK3_STABILITY / :func:`max_flow_frequency` (0.157 for the
+    """Largest stable step of `gradient_flow`: RK3_STABILITY / `max_flow_frequency` (0.157 for the
     Wilson flow, 0.118 for eps = 0); beyond it the shortest wavelengths grow instead of being damped."""
     return RK3_STABILITY / max_flow_frequency(_v.finite_float("eps", eps))
 
@@ -507,7 +507,7 @@ class SmoothingRecord:
 
     time: flow time t / a^2 (flow) or sweeps done (cooling); wilson_action: S_W (beta = 2N); action: the
     driving action S(eps) (= S_W for eps = 1); clover_charge: Q of the 1x1 clover;
-    improved_charge: :func:`improved_charge`; size: :func:`instanton_size` (rho/a).
+    improved_charge: `improved_charge`; size: `instanton_size` (rho/a).
     """
 
     time: np.ndarray
@@ -544,15 +544,15 @@ def gradient_flow(links, t: float, step: float = 0.01, *, eps: float = 1.0, ever
         links: (L1, L2, L3, L4, 4, N, N) complex.
         t: flow time >= 0 in lattice units; n = ceil(t / step) equal steps of t / n are taken.
         step: nominal step > 0 (0.01-0.05 is common practice for the Wilson flow); the effective step
-            must lie below :func:`flow_step_bound` (0.157 for the Wilson flow).
-        eps: the action parameter of :func:`improved_action`.
+            must lie below `flow_step_bound` (0.157 for the Wilson flow).
+        eps: the action parameter of `improved_action`.
         every: measure after every ``every`` steps (and at t = 0 and the end).
         progress: None (a line on stderr on a terminal), False, True or progress(done, total) per step.
     Returns:
-        (links (same shape) complex128 numpy, :class:`SmoothingRecord`).
+        (links (same shape) complex128 numpy, `SmoothingRecord`).
     Raises:
         ValueError / TypeError on a bad argument, links that are not finite SU(N) matrices, a step beyond
-        :func:`flow_step_bound`, or an action that rises between two measurements (an unstable flow,
+        `flow_step_bound`, or an action that rises between two measurements (an unstable flow,
         naming the step, the actions before and after and a smaller step).
     """
     u = _links(links)
@@ -593,14 +593,14 @@ def gradient_flow(links, t: float, step: float = 0.01, *, eps: float = 1.0, ever
 
 
 def wilson_flow(links, t: float, step: float = 0.01, *, every: int = 1, progress=None):
-    """The Wilson flow (Luescher, JHEP 08 (2010) 071): :func:`gradient_flow` with eps = 1."""
+    """The Wilson flow (Luescher, JHEP 08 (2010) 071): `gradient_flow` with eps = 1."""
     return gradient_flow(links, t, step, eps=1.0, every=every, progress=progress)
 
 
 def cool(links, sweeps: int, *, eps: float = 1.0, hits: int = 3, every: int = 1, progress=None):
     """Plain cooling: every link in turn replaced by the SU(N) matrix that minimises the action with the
     other links fixed, i.e. maximises Re tr(U Sigma) for its staple sum Sigma (SU(2): Sigma^dag normalised;
-    SU(N >= 3): ``hits`` Cabibbo-Marinari SU(2)-subgroup passes, see :func:`_maximise`).
+    SU(N >= 3): ``hits`` Cabibbo-Marinari SU(2)-subgroup passes, see `_maximise`).
 
     Sweeps go direction by direction and colour by colour: links of one direction and one colour share no
     loop, so updating them at once is the same as updating them one after the other.  Wilson action
@@ -611,12 +611,12 @@ def cool(links, sweeps: int, *, eps: float = 1.0, hits: int = 3, every: int = 1,
     Args:
         links: (L1, L2, L3, L4, 4, N, N) complex.
         sweeps: number of sweeps >= 0.
-        eps: the action parameter of :func:`improved_action` (1: Wilson).
+        eps: the action parameter of `improved_action` (1: Wilson).
         hits: subgroup passes per link for N >= 3 (ignored for SU(2), where one step is exact).
         every: measure after every ``every`` sweeps (and before the first and after the last).
         progress: None (a line on stderr on a terminal), False, True or progress(done, total) per sweep.
     Returns:
-        (links complex128 numpy, :class:`SmoothingRecord` with time = sweeps done).
+        (links complex128 numpy, `SmoothingRecord` with time = sweeps done).
     Raises:
         ValueError / TypeError on a bad argument or lattice shape, links that are not finite SU(N)
         matrices, or an action that rises between two measurements (naming the sweeps and actions).

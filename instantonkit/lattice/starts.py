@@ -8,9 +8,9 @@ Links (conventions module): ``U_mu(n)`` is the parallel transporter along the st
 
 Transporters are computed in one of two ways:
 
-* closed form, when the field offers the hook ``closed_link(x, d) -> (N, N)`` (:class:`instantonkit.engine.fields.FieldHooks`;
+* closed form, when the field offers the hook ``closed_link(x, d) -> (N, N)`` (`instantonkit.engine.fields.FieldHooks`;
   jax-traceable, ``x`` the start and ``d`` the displacement, both ``(4,)``): charge-1 SU(2) ADHM data
-  and ``ansatz.BPSTField`` (BPST in either gauge, see :func:`bpst_link`), and the translations and
+  and ``ansatz.BPSTField`` (BPST in either gauge, see `bpst_link`), and the translations and
   gauge transformations of such fields;
 * Gauss-Legendre Magnus steps of order six (three nodes per step; Blanes, Casas, Ros, BIT 40 (2000)
   434 and Blanes, Casas, Oteo, Ros, Phys. Rep. 470 (2009) 151, from memory; the order is checked in
@@ -18,35 +18,35 @@ Transporters are computed in one of two ways:
   ``rtol`` in every entry.
 
 A unitary (and det-1) projection is applied at the end only as rounding cleanup; the deviation found
-before it is reported in :class:`LinkReport`.  The observables of link arrays (plaquettes, Wilson
-action, clover) live in :mod:`instantonkit.lattice.observables` and are re-exported here.
+before it is reported in `LinkReport`.  The observables of link arrays (plaquettes, Wilson
+action, clover) live in `instantonkit.lattice.observables` and are re-exported here.
 
-Results and reports: :func:`lattice_links` always returns the links; :func:`lattice_start` returns a
-frozen :class:`LatticeStart` (``.links`` and ``.report``, a :class:`LinkReport`).  The old
+Results and reports: `lattice_links` always returns the links; `lattice_start` returns a
+frozen `LatticeStart` (``.links`` and ``.report``, a `LinkReport`).  The old
 ``lattice_links(..., return_report=True)`` still returns ``(links, report)`` with a DeprecationWarning.
 
-Boundaries, one for all directions or one per direction (:mod:`instantonkit.lattice.boundaries`): 'periodic'
+Boundaries, one for all directions or one per direction (`instantonkit.lattice.boundaries`): 'periodic'
 wraps the field's own links (the jump of A across the faces is measured per direction for every
-wrapped direction, :func:`boundary_mismatch`, and a :class:`BoundaryActionWarning` names the
+wrapped direction, `boundary_mismatch`, and a `BoundaryActionWarning` names the
 directions and the remedies when the action exceeds BOUNDARY_WARN_FRACTION = 1 % of 8 pi^2); 'window'
-puts the field times a smooth window on the torus in that direction (:mod:`instantonkit.ansatz.periodic`: no
+puts the field times a smooth window on the torus in that direction (`instantonkit.ansatz.periodic`: no
 mismatch, the same sector, a small action excess; never across a field's period); 'open' uses exact
-links.  :func:`continuum_reference` gives the
+links.  `continuum_reference` gives the
 matched continuum figures (the action of the field put on the lattice, in the same box, and the
-expected Wilson action with the artefact :func:`wilson_artefact`).
+expected Wilson action with the artefact `wilson_artefact`).
 
 Singular points on sites or links: fields with the ``gauge_twin`` hook (singular-gauge ADHM data and
 BPST) have the links that touch a singular point built in the twin's regular gauge and transformed
-back at every other site (:func:`_slice_links`), so every plaquette is right.
+back at every other site (`_slice_links`), so every plaquette is right.
 
 Files: a start's report carries the field's ``record()`` (``LinkReport.field``); ``io.save_lattice(path,
-start)`` stores it, :func:`field_from_record` / :func:`field_from_file` rebuild the field and
-:func:`regenerate` the start.
+start)`` stores it, `field_from_record` / `field_from_file` rebuild the field and
+`regenerate` the start.
 
 Chunked starts belong to the distributed layer: ``instantonkit.cluster.lattice_links`` /
 ``cluster.lattice_start``.  This module never imports it; the old ``lattice_links(..., backend="dask")``
 still works (DeprecationWarning) through the executor that ``instantonkit.cluster`` registers with
-:func:`register_chunked_backend` when it is imported (the :class:`ChunkedExecutor` protocol).
+`register_chunked_backend` when it is imported (the `ChunkedExecutor` protocol).
 """
 
 from __future__ import annotations
@@ -126,19 +126,19 @@ _EIGHT_PI2 = 8.0 * np.pi**2
 
 @dataclasses.dataclass(frozen=True)
 class LinkReport:
-    """What :func:`lattice_links` did and how good the result is.
+    """What `lattice_links` did and how good the result is.
 
     method: 'closed' or 'magnus'; max_steps: largest number of Magnus steps on one link (0 for the
     closed form); refinement_diff: largest accepted error estimate of the Magnus refinements;
-    unitarity_before / unitarity_after: :func:`unitarity_deviation` before and after the final
+    unitarity_before / unitarity_after: `unitarity_deviation` before and after the final
     projection; boundary: as given (a string or four); boundary_link_mismatch / boundary_action_error:
-    see :func:`boundary_mismatch`, the max and sum of the ``*_by_direction`` figures of each
+    see `boundary_mismatch`, the max and sum of the ``*_by_direction`` figures of each
     direction's faces (None for an open direction, and None when all are open); seconds: wall time;
     boundary_action_fraction: boundary_action_error / 8 pi^2 (above BOUNDARY_WARN_FRACTION a
     BoundaryActionWarning is raised); window: the layer width of the windowed directions (fraction of
-    the half-box), else None; field: the field's ``record()`` (rebuilt by :func:`field_from_record`;
+    the half-box), else None; field: the field's ``record()`` (rebuilt by `field_from_record`;
     None without a record hook); potential_evaluations: of the Magnus links in all (0 for closed
-    forms); boundaries: the four boundaries as applied (:mod:`instantonkit.lattice.boundaries`).
+    forms); boundaries: the four boundaries as applied (`instantonkit.lattice.boundaries`).
     """
 
     shape: tuple
@@ -178,15 +178,15 @@ def _record_of(field):
 
 @dataclasses.dataclass(frozen=True)
 class StartSpec:
-    """The validated parameters of one lattice start (what :func:`lattice_links` was asked for).
+    """The validated parameters of one lattice start (what `lattice_links` was asked for).
 
-    Documented seam of the chunked layer (:mod:`instantonkit.cluster`): it builds a spec with
-    :meth:`make`, computes boxes with :meth:`block` and assembles the report with :meth:`report`.
+    Documented seam of the chunked layer (`instantonkit.cluster`): it builds a spec with
+    `make`, computes boxes with `block` and assembles the report with `report`.
 
     field: a field object; shape: (L1, L2, L3, L4); spacing: a; origin: (4,) float64 (site 0);
-    group / embedding / boundary / rtol / method: as in :func:`lattice_links` (boundary as given,
+    group / embedding / boundary / rtol / method: as in `lattice_links` (boundary as given,
     lists made tuples); n_field: N of the field; n_out: N of the links (3 for 'su3'); window: the layer
-    width when a direction is windowed; boundaries: the boundary of each direction as applied.  Build it with :meth:`make`, which raises
+    width when a direction is windowed; boundaries: the boundary of each direction as applied.  Build it with `make`, which raises
     ValueError/TypeError naming the bad argument and the value found.
     """
 
@@ -261,7 +261,7 @@ class StartSpec:
         return self.shape + (4, self.n_out, self.n_out)
 
     def block(self, lo, hi) -> tuple:
-        """Links of the sites lo <= n < hi; ((h1, h2, h3, h4, 4, N, N), LinkStats), see :func:`block_links`."""
+        """Links of the sites lo <= n < hi; ((h1, h2, h3, h4, 4, N, N), LinkStats), see `block_links`."""
         return block_links(
             self.field,
             lo,
@@ -277,7 +277,7 @@ class StartSpec:
         )
 
     def boundary_figures(self, links):
-        """Per-direction (link_mismatch, action_error) of :func:`boundary_mismatch`: two 4-tuples, None
+        """Per-direction (link_mismatch, action_error) of `boundary_mismatch`: two 4-tuples, None
         for an open direction; (None, None) when every direction is open."""
         wrapped = tuple(d != "open" for d in self.boundaries)
         if not any(wrapped):
@@ -296,8 +296,8 @@ class StartSpec:
         return bm["link_mismatch_by_direction"], bm["action_error_by_direction"]
 
     def report(self, stats: LinkStats, seconds: float, mismatch=None, action_err=None) -> LinkReport:
-        """The :class:`LinkReport` of a finished start from its combined :class:`LinkStats` and the
-        per-direction figures of :meth:`boundary_figures` (the scalars are their max and sum)."""
+        """The `LinkReport` of a finished start from its combined `LinkStats` and the
+        per-direction figures of `boundary_figures` (the scalars are their max and sum)."""
         mis, err = _bd.combine(mismatch, action_err)
         return LinkReport(
             shape=self.shape,
@@ -329,11 +329,11 @@ def block_links(field, lo, hi, origin, spacing, *, n_field, group, embedding, me
     """Links of the sites lo <= n < hi (a box of the lattice); ((h1, h2, h3, h4, 4, N, N), LinkStats).
 
     The one kernel path of every lattice start (documented seam of the chunked layer):
-    :func:`lattice_links` calls it per time slice and :mod:`instantonkit.cluster` per chunk, so both
+    `lattice_links` calls it per time slice and `instantonkit.cluster` per chunk, so both
     give the same bits.  Sites x_n = origin + a n (n float64); the transporters of a box are computed
-    together, projected (:func:`_finish`) and embedded for group 'su3'.  The returned
-    :class:`LinkStats` holds the Magnus figures and the unitarity before/after the projection;
-    ``batch`` (:func:`link_batch` of the lattice) fixes the compiled kernel size, which keeps the bits equal.
+    together, projected (`_finish`) and embedded for group 'su3'.  The returned
+    `LinkStats` holds the Magnus figures and the unitarity before/after the projection;
+    ``batch`` (`link_batch` of the lattice) fixes the compiled kernel size, which keeps the bits equal.
     """
     lo, hi = tuple(int(v) for v in lo), tuple(int(v) for v in hi)
     ext = tuple(h - l for l, h in zip(lo, hi))
@@ -353,11 +353,11 @@ def block_links(field, lo, hi, origin, spacing, *, n_field, group, embedding, me
 
 
 class ChunkedExecutor(Protocol):
-    """What a chunked backend offers :func:`lattice_links` (``instantonkit.cluster`` registers one as 'dask').
+    """What a chunked backend offers `lattice_links` (``instantonkit.cluster`` registers one as 'dask').
 
     ``executor(spec, *, chunks, store, client, overwrite, progress, return_report)`` computes the start
-    ``spec`` (:class:`StartSpec`) in chunks and returns the links (or ``(links, LinkReport)`` with
-    ``return_report=True``); it must use :meth:`StartSpec.block` so that the bits equal the local path's.
+    ``spec`` (`StartSpec`) in chunks and returns the links (or ``(links, LinkReport)`` with
+    ``return_report=True``); it must use `StartSpec.block` so that the bits equal the local path's.
     """
 
     def __call__(self, spec: StartSpec, *, chunks, store, client, overwrite: bool, progress, return_report: bool): ...
@@ -367,7 +367,7 @@ _EXECUTORS: dict = {}
 
 
 def register_chunked_backend(name: str, executor: ChunkedExecutor) -> None:
-    """Make ``executor`` the chunked backend ``name`` of :func:`lattice_links` (called by ``instantonkit.cluster``)."""
+    """Make ``executor`` the chunked backend ``name`` of `lattice_links` (called by ``instantonkit.cluster``)."""
     _v.choice("name", name, tuple(b for b in _BACKENDS if b != "local"))
     if not callable(executor):
         raise TypeError(f"executor must be callable; found {type(executor).__name__}")
@@ -376,7 +376,7 @@ def register_chunked_backend(name: str, executor: ChunkedExecutor) -> None:
 
 @dataclasses.dataclass(frozen=True)
 class LatticeStart:
-    """A finished lattice start: ``links`` (L1, L2, L3, L4, 4, N, N) and its :class:`LinkReport` ``report``."""
+    """A finished lattice start: ``links`` (L1, L2, L3, L4, 4, N, N) and its `LinkReport` ``report``."""
 
     links: object
     report: LinkReport
@@ -405,28 +405,28 @@ def _local_start(spec: StartSpec, out, progress) -> tuple:
 
 _START_DOC_ARGS = """
     Args:
-      field: a field (:class:`instantonkit.engine.fields.Field`) or a callable A(x) -> (4, N, N).
+      field: a field (`instantonkit.engine.fields.Field`) or a callable A(x) -> (4, N, N).
       shape: (L1, L2, L3, L4) positive integers.
       spacing: a > 0.
-      origin: (4,) position of site 0 (default :func:`default_origin`: the field's centre in the
+      origin: (4,) position of site 0 (default `default_origin`: the field's centre in the
         middle of the central hypercube, so no link touches it).
       group: 'su2' (N = 2), 'su3' (an SU(3) field's own links, e.g. rank-3 UnitaryADHMData; or SU(2)
         links embedded in the ``embedding`` = (i, j) rows and columns of 3 x 3 identities) or None (the field's N).
       boundary: one choice for all directions, or a sequence of four in (x1, x2, x3, x4) order, e.g.
-        ``("window", "window", "window", "periodic")`` (:mod:`instantonkit.lattice.boundaries`). A field with a
+        ``("window", "window", "window", "periodic")`` (`instantonkit.lattice.boundaries`). A field with a
         period in x4 (``period`` hook) is never windowed across it: the single string 'window' keeps x4
         periodic, an explicit 'window' for x4 is a ValueError, and a periodic x4 needs L4 * a = period
         (ValueError naming both otherwise).  The choices: 'periodic' (the link from the last site points to site 0; use a field that decays
-        fast, e.g. singular gauge; the mismatch is always measured, see :func:`boundary_mismatch`, and
-        a :class:`BoundaryActionWarning` is raised when the boundary action exceeds
+        fast, e.g. singular gauge; the mismatch is always measured, see `boundary_mismatch`, and
+        a `BoundaryActionWarning` is raised when the boundary action exceeds
         BOUNDARY_WARN_FRACTION = 1 % of 8 pi^2), 'window' (the field times a smooth window that takes
-        A to zero near the faces, :mod:`instantonkit.ansatz.periodic`: smooth on the torus, same sector,
-        no boundary mismatch, a small action excess given by :func:`continuum_reference`; Magnus
+        A to zero near the faces, `instantonkit.ansatz.periodic`: smooth on the torus, same sector,
+        no boundary mismatch, a small action excess given by `continuum_reference`; Magnus
         links) or 'open' (every link is the exact transporter to x + a mu_hat; observables then use
         only plaquettes inside).
       window: layer width of boundary='window' as a fraction of each half-box (default 0.5).
       rtol: refinement target of the Magnus quadrature (unused by closed forms).
-      method: 'auto', 'closed' or 'magnus' (see :func:`parallel_transporter`).
+      method: 'auto', 'closed' or 'magnus' (see `parallel_transporter`).
       out: optional preallocated array or np.memmap of shape (L1, L2, L3, L4, 4, N, N), complex128,
         filled one time slice at a time.
       progress: None (a line on stderr on a terminal), False, True or progress(done, total) per time slice.
@@ -448,11 +448,11 @@ def lattice_start(
     progress: Callable[[int, int], None] | None = None,
     window: float = DEFAULT_WINDOW_WIDTH,
 ) -> LatticeStart:
-    """A lattice start with its quality report: :class:`LatticeStart` (``.links``, ``.report``).
+    """A lattice start with its quality report: `LatticeStart` (``.links``, ``.report``).
     {args}
     Returns:
       LatticeStart: ``links`` (L1, L2, L3, L4, 4, N, N) complex128 (``out`` when given) and ``report``
-      (a :class:`LinkReport`, with the periodic boundary figures of :func:`boundary_mismatch`).
+      (a `LinkReport`, with the periodic boundary figures of `boundary_mismatch`).
     Raises:
       ValueError / TypeError: a bad argument (naming it and the value found); a link through a
         singular point; Magnus steps not converging.
@@ -525,7 +525,7 @@ def lattice_links(
     """Link variables of ``field`` on an L1 x L2 x L3 x L4 lattice; (L1, L2, L3, L4, 4, N, N) complex128.
     {args}
       return_report: deprecated; ``True`` returns ``(links, LinkReport)`` with a DeprecationWarning
-        (use :func:`lattice_start`, whose result has ``.links`` and ``.report``).
+        (use `lattice_start`, whose result has ``.links`` and ``.report``).
       backend, chunks, store, client, overwrite: deprecated; ``backend="dask"`` (DeprecationWarning)
         runs the chunked start of ``instantonkit.cluster.lattice_links`` (which takes the other four).
     Returns:
@@ -620,7 +620,7 @@ def boundary_mismatch(
     (4-tuples, None for a direction not measured): 'link_mismatch_by_direction',
     'action_error_by_direction', 'boundary_action_by_direction'.
     directions: four booleans, the wrapped directions to measure (default all).
-    links: (L1, L2, L3, L4, 4, N, N) from :func:`lattice_links` with the same parameters (any array
+    links: (L1, L2, L3, L4, 4, N, N) from `lattice_links` with the same parameters (any array
     with numpy slicing: numpy, memmap, Zarr; only the faces are read).
     """
     if not (hasattr(links, "shape") and hasattr(links, "__getitem__")):

@@ -1,25 +1,25 @@
 """Parallel transporters along straight segments: closed forms and sixth-order Magnus steps (floor 5).
 
-The link path of :mod:`instantonkit.lattice.starts` (which builds starts from it) and of anyone who needs
+The link path of `instantonkit.lattice.starts` (which builds starts from it) and of anyone who needs
 transporters of a field along arbitrary segments.  Conventions: the transporter of the segment
 ``z(t) = x + t d``, ``t in [0, 1]``, is W(1) with ``dW/dt = W(t) G(t)``, ``G(t) = A_mu(z(t)) d_mu``,
-``W(0) = 1`` (path-ordered exponential, earlier points to the LEFT; :mod:`instantonkit.core.conventions`).
+``W(0) = 1`` (path-ordered exponential, earlier points to the LEFT; `instantonkit.core.conventions`).
 
 * Closed form when the field offers the hook ``closed_link(x, d) -> (N, N)``
-  (:class:`instantonkit.engine.fields.FieldHooks`): charge-1 SU(2) ADHM data and ``ansatz.BPSTField``
-  (see :func:`bpst_link`), and their translations and gauge transformations.
+  (`instantonkit.engine.fields.FieldHooks`): charge-1 SU(2) ADHM data and ``ansatz.BPSTField``
+  (see `bpst_link`), and their translations and gauge transformations.
 * Otherwise Gauss-Legendre Magnus steps of order six (three nodes per step; Blanes, Casas, Ros, BIT 40
   (2000) 434 and Blanes, Casas, Oteo, Ros, Phys. Rep. 470 (2009) 151, from memory; the order is
   checked in the tests against scipy), halving the step until the error estimate is below ``rtol`` in
   every entry: the difference of two successive results, divided by the observed convergence factor
-  once it shows the sixth order (:func:`_error_estimate`; tests/test_lattice.py checks the accepted
+  once it shows the sixth order (`_error_estimate`; tests/test_lattice.py checks the accepted
   links against a much finer reference).  The potential is evaluated at all nodes of a refinement in flat batches of fixed size
-  (:func:`_magnus_at`), then the step exponentials, then their ordered product.
+  (`_magnus_at`), then the step exponentials, then their ordered product.
 
 ``finish_links`` projects nearly special-unitary links onto SU(N) (rounding cleanup, with the deviation
 before and after), ``embed_links`` puts SU(2) links in a block of SU(N).  Names without a leading
 underscore that are not in ``__all__`` (``transporters``, ``finish_links``, ``finish_batched``,
-``embed_links``, ``chunk_size``) are the package-internal seam used by :mod:`instantonkit.lattice.starts`.
+``embed_links``, ``chunk_size``) are the package-internal seam used by `instantonkit.lattice.starts`.
 """
 
 from __future__ import annotations
@@ -69,7 +69,7 @@ _UNITARITY_ENTRIES = 1 << 24
 def bpst_link(data, x, d):
     """Exact transporter of charge-1 SU(2) ADHM data (BPST, either gauge) along x -> x + d; (N, N) = (2, 2).
 
-    The formula (:func:`instantonkit.adhm.quaternionic.charge_one_link`) is what the field's own ``closed_link``
+    The formula (`instantonkit.adhm.quaternionic.charge_one_link`) is what the field's own ``closed_link``
     hook computes; kept here as a function of the data.  x, d: (4,) -> (2, 2) complex128.
     """
     return charge_one_link(jnp.asarray(data.lam)[0, 0], jnp.asarray(data.B)[0, 0], data.chirality, data.gauge, x, d)
@@ -136,7 +136,7 @@ _STEP_BATCH = 256
 _STEP_BATCH_PLAIN = 2048
 #: Primitives that are LAPACK calls on CPU (a potential using any of them gets the small node batch).
 _LAPACK_PRIMITIVES = ("cholesky", "lu", "eigh", "eig", "svd", "qr", "triangular_solve", "schur", "householder_product")
-#: Node-steps (links x steps) per pass of :func:`_magnus_at`, bounding its temporary memory.
+#: Node-steps (links x steps) per pass of `_magnus_at`, bounding its temporary memory.
 _PASS_STEPS = 1 << 18
 
 
@@ -160,7 +160,7 @@ def _node_batch(field) -> int:
     """Nodes per potential call for ``field``: _NODE_BATCH_PLAIN unless its potential calls LAPACK.
 
     Depends only on the field's structure (its traced potential), so a link's bits do not depend on
-    the other links of a call (:mod:`instantonkit.core._batching`); memoised per pytree structure.
+    the other links of a call (`instantonkit.core._batching`); memoised per pytree structure.
     """
     key = structure_key(field)
     hit = _BATCH_MEMO.get(key) if key is not None else None
@@ -203,7 +203,7 @@ def _pairwise_product(e, mul=np.matmul, cat=np.concatenate):
     return e[:, 0]
 
 
-#: Most Magnus steps per link of the fused SU(2) kernel (:func:`_fused_links`; each m compiles once, about
+#: Most Magnus steps per link of the fused SU(2) kernel (`_fused_links`; each m compiles once, about
 #: 1 s at m = 8, 4.7 s at m = 64): refinements beyond 8, rare on lattices at rtol 1e-8, take the node-batch
 #: path below (measured, 6^4 start of overlapping charge-2 data at rtol 1e-12: first call 6.0 s, 9.5 s with 64).
 _FUSED_MAX_STEPS = 8
@@ -222,10 +222,10 @@ def _fused_links(field, xs, ds, m: int):
     """SU(2)/U(2) transporters of a batch of segments (L, 4) with m Magnus steps in one kernel; (L, 2, 2).
 
     The 3 m L nodes go to the field's ``generator_batch`` hook when it has one (ADHM data: batch-major
-    k x k work, :func:`instantonkit.adhm._kxk.link_generator_batch`), else to the vmapped potential; then
-    :func:`_magnus6` in quaternion form (G = i tau 1 + v, v a pure quaternion: the commutators are cross
+    k x k work, `instantonkit.adhm._kxk.link_generator_batch`), else to the vmapped potential; then
+    `_magnus6` in quaternion form (G = i tau 1 + v, v a pure quaternion: the commutators are cross
     products and tau, central, is integrated by the Gauss-Legendre weights), exp, and the ordered
-    product E_1 ... E_m, all without leaving the compiled code.  Equal to :func:`_magnus_at` to rounding.
+    product E_1 ... E_m, all without leaving the compiled code.  Equal to `_magnus_at` to rounding.
     """
     h = 1.0 / m
     nb = xs.shape[0]
@@ -255,13 +255,13 @@ def _fused_kernel(m: int):
 def _magnus_at(field, xs, ds, m):
     """Transporters of (M, 4) segments with m sixth-order Magnus steps; (M, N, N) numpy.
 
-    N = 2 and m <= _FUSED_MAX_STEPS: :func:`_fused_links` in calls of _FUSED_NODES nodes (768 when the
-    potential calls LAPACK, :func:`_node_batch`).  Otherwise the potential is evaluated at all 3 m
+    N = 2 and m <= _FUSED_MAX_STEPS: `_fused_links` in calls of _FUSED_NODES nodes (768 when the
+    potential calls LAPACK, `_node_batch`).  Otherwise the potential is evaluated at all 3 m
     Gauss-Legendre nodes of a pass of links in one flat batch (one compiled size per field,
-    :func:`_node_batch`, whatever m or M: no loop inside the kernel, so XLA's per-operation
+    `_node_batch`, whatever m or M: no loop inside the kernel, so XLA's per-operation
     overhead is paid once per 768 nodes), then every step's exponential, then the ordered product.
     Each node and step is computed by kernels of fixed batch sizes, so a link's bits do not depend on
-    the other links of the call (the rule of :mod:`instantonkit.core._batching`).
+    the other links of the call (the rule of `instantonkit.core._batching`).
     """
     nodes = _node_batch(field)
     if m <= _FUSED_MAX_STEPS and output_shape(field, "potential")[0][-1] == 2:
@@ -298,19 +298,19 @@ def chunk_size(m: int, chunk: int = LINK_CHUNK) -> int:
 
 def _chunked(kern, field, xs, ds, *extra, size=None):
     """Run a vmapped link kernel over (M, 4) starts and steps in padded batches of one fixed ``size``
-    (:func:`instantonkit.core._batching.run_batched`, whose notes give the bit-reproducibility rule); (M, N, N) numpy."""
+    (`instantonkit.core._batching.run_batched`, whose notes give the bit-reproducibility rule); (M, N, N) numpy."""
     size = chunk_size(xs.shape[0]) if size is None else size
     return run_batched(kern, [xs, ds], size, args_before=(field,), args_after=extra)
 
 
 @dataclasses.dataclass(frozen=True)
 class LinkStats:
-    """What computing some links did (an immutable record, combined with :meth:`merge`).
+    """What computing some links did (an immutable record, combined with `merge`).
 
     method: 'closed', 'magnus' or None (nothing computed yet); max_steps: most Magnus steps on one
     link (0 for closed forms); refinement_diff: largest accepted error estimate (the difference of two
-    refinements, extrapolated in the sixth-order regime: :func:`_error_estimate`);
-    unitarity_before / unitarity_after: :func:`unitarity_deviation` before and after the projection;
+    refinements, extrapolated in the sixth-order regime: `_error_estimate`);
+    unitarity_before / unitarity_after: `unitarity_deviation` before and after the projection;
     evaluations: potential evaluations in all (3 per Magnus step and link; 0 for closed forms).
     """
 
@@ -359,7 +359,7 @@ def _error_estimate(diff: np.ndarray, prev_diff: np.ndarray) -> np.ndarray:
 def _magnus_refined(field, xs, ds, rtol, batch=None, allow_bad=False):
     """Magnus transporters refined by halving the step until the error estimate is <= rtol; (out, LinkStats).
 
-    The estimate is :func:`_error_estimate` of the last two differences: in the sixth-order regime one
+    The estimate is `_error_estimate` of the last two differences: in the sixth-order regime one
     halving fewer than asking two refinements to agree to rtol (measured: 44 -> 21 potential evaluations
     per link for a charge-2 start at rho / a = 1.5, benchmarks/bench_limits.py).
     """
@@ -439,7 +439,7 @@ def parallel_transporter(
     """Parallel transporters W(1) of ``dW/dt = W A(x + t d).d``, W(0) = 1, for many straight segments.
 
     Args:
-      field: a field (:class:`instantonkit.engine.fields.Field`) or a callable A(x) -> (4, N, N).
+      field: a field (`instantonkit.engine.fields.Field`) or a callable A(x) -> (4, N, N).
       starts, steps: (..., 4) float64, the start points x and displacements d (same shape).
       method: 'auto' (the field's ``closed_link`` hook when it has one, else Magnus), 'closed'
         (error if none) or 'magnus' (Gauss-Legendre Magnus steps refined to ``rtol``).
@@ -448,7 +448,7 @@ def parallel_transporter(
         values already there are combined by maximum).
       batch: links per compiled kernel call (default from the number of links).  XLA's code, hence the
         last bit of a result, can depend on it, so callers that must agree bit for bit fix it
-        (:mod:`instantonkit.core._batching`).
+        (`instantonkit.core._batching`).
     Returns:
       (..., N, N) complex128 transporters, before any unitary projection.
     Raises:
@@ -554,7 +554,7 @@ def embed_links(u2, n_out, embedding):
 
 
 def finish_batched(u, batch: int):
-    """:func:`_finish` in padded pieces of ``batch`` links (one compiled size, :mod:`instantonkit.core._batching`);
+    """`_finish` in padded pieces of ``batch`` links (one compiled size, `instantonkit.core._batching`);
     (projected (M, N, N), dev_before, dev_after).  Padding rows copy a real row, so the maxima are unchanged."""
     devs = []
 
@@ -609,10 +609,10 @@ def _transition_kernel():
 def site_links(field, sites_t, a, method, rtol, batch=None, n_field=None):
     """Links of one set of sites (S, 4) in the four directions: ((S, 4, N, N) unprojected, LinkStats).
 
-    The package-internal seam of :mod:`instantonkit.lattice.starts` (``block_links``).
+    The package-internal seam of `instantonkit.lattice.starts` (``block_links``).
 
     Singular points on sites or links: when the field has the ``gauge_twin`` hook (twin, g), g is
-    evaluated at both ends of every link near a centre (:func:`_near_centres`); a link that starts or ends at a site where g is not finite
+    evaluated at both ends of every link near a centre (`_near_centres`); a link that starts or ends at a site where g is not finite
     (a singular point of the field's gauge), or whose transporter is not finite (a singular point
     on the link), is computed in the twin's gauge and transformed back, U = G(x)^dag U_twin G(x + d),
     with G = g except G = 1 at the singular sites (the transformation there is free).  So the links

@@ -1,7 +1,7 @@
 """The one-call ``verify`` report: is a field what it claims to be, and how do we know?
 
-``verify(field)`` integrates q and s (:mod:`instantonkit.integrals.drivers`) and weighs them with evidence
-that does not take the field's closed forms on trust (:mod:`instantonkit.verification.evidence`): on the points of
+``verify(field)`` integrates q and s (`instantonkit.integrals.drivers`) and weighs them with evidence
+that does not take the field's closed forms on trust (`instantonkit.verification.evidence`): on the points of
 the final rule of the action integral, F by automatic differentiation of the potential is compared
 with the closed forms, and the self-duality residual and the Bogomolny margin are computed from that
 F (q = eps tr F F).  For ADHM data Osborn's density is integrated on a different rule (shifted
@@ -174,7 +174,7 @@ def verify(
       expected_charge: the instanton number the field should have (None: the field's ``charge`` hook
         if it has one, else any nonzero integer).
       rtol, atol: tolerances of the integrals (atol for Q and S / 8 pi^2; default charge_tol / 4).
-      center, scale, period: the integration layout (see :func:`instantonkit.integrals.drivers.layout_of`).
+      center, scale, period: the integration layout (see `instantonkit.integrals.drivers.layout_of`).
       max_points: budget per integral (default DEFAULT_MAX_POINTS x max(1, |charge|, centres)).
       charge_tol: tolerance of |Q - n|; duality_tol: of the Bogomolny margin and the mean residual;
         constraint_tol: of the constraint residual.
@@ -182,7 +182,7 @@ def verify(
         declared 'regular' and bare potentials).
       charge_method: the engine's 'auto' | 'closed' | 'autodiff' for q.
       sample_points: points of the final action rule where the potential's curvature is sampled.
-      progress: as in :func:`instantonkit.integrals.drivers.integrate_density`.
+      progress: as in `instantonkit.integrals.drivers.integrate_density`.
     Returns:
       Verification (``verdict``, ``passed``, ``reasons``, ``advice``, ``rows``, the numbers).
     Raises:

@@ -2,15 +2,15 @@
 
 * Osborn's density ``s = -1/2 box box log det(Delta^dag Delta)`` for ADHM data (Osborn, Nucl. Phys. B
   159 (1979) 497 and Ann. Phys. 135 (1981) 373, from memory), fourth derivatives in the closed form
-  of :func:`osborn_density` (derived here).
+  of `osborn_density` (derived here).
 * The Chern-Simons flux through a large S^3, ``Q = oint K_mu n_mu dS`` with ``K_mu = -(1/8 pi^2)
   eps_{mu nu rho sigma} tr(1/2 A_nu F_rho sigma - 1/3 A_nu A_rho A_sigma)``, ``q = d_mu K_mu``
   (derived from ``eps tr F F = 4 d_mu [eps tr(A d A + 2/3 A A A)]``, common practice).
-* :func:`curvature_sample`: on the points of a quadrature rule, F by automatic differentiation of the
+* `curvature_sample`: on the points of a quadrature rule, F by automatic differentiation of the
   potential against the field's closed forms, and the self-duality residual and the Bogomolny margin
-  from that independent F (q = eps tr F F by :func:`fields.charge_from_f`, never from s).
-* :func:`periodicity_mismatch` (gauge-invariant densities at x and x + period e_4) and
-  :func:`find_peak` (where the action density is largest, for advice on hints).
+  from that independent F (q = eps tr F F by `fields.charge_from_f`, never from s).
+* `periodicity_mismatch` (gauge-invariant densities at x and x + period e_4) and
+  `find_peak` (where the action density is largest, for advice on hints).
 """
 
 from __future__ import annotations
@@ -53,7 +53,7 @@ def osborn_density(data, x):
     """Osborn's action density s = -1/2 box box log det G, G = Delta^dag Delta, at one point (4,) -> ().
 
     Args:
-      data: ADHM data (:class:`instantonkit.adhm.quaternionic.ADHMData`, k instantons).
+      data: ADHM data (`instantonkit.adhm.quaternionic.ADHMData`, k instantons).
       x: one point (4,) float64 (jax-traceable).
     Returns:
       s(x), a () float64 jax array.
@@ -90,7 +90,7 @@ def osborn_density(data, x):
 @jax.tree_util.register_pytree_node_class
 @dataclasses.dataclass(frozen=True)
 class OsbornField(PytreeFields):
-    """ADHM data seen through Osborn's density only (action_density is :func:`osborn_density`)."""
+    """ADHM data seen through Osborn's density only (action_density is `osborn_density`)."""
 
     data: Any
     _leaves = ("data",)
@@ -141,7 +141,7 @@ def surface_winding(
     Args:
       field: a field or callable potential.
       center: (4,) centre of the sphere (default the mean of the field's layout centres).
-      radius: R (default 200 x the field's extent, see :class:`Layout`).
+      radius: R (default 200 x the field's extent, see `Layout`).
       n_angular: S^3 parameter n of the angular rule (2 n^3 points per sphere).
       method: the engine's 'auto' | 'closed' | 'autodiff' for A and F.
     Returns:
@@ -232,7 +232,7 @@ def _derived(f):
 
 
 def _derived_in_batches(f: np.ndarray, chunk: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """:func:`_derived` over batches of ``chunk`` rows (the last padded with zeros): one compiled size."""
+    """`_derived` over batches of ``chunk`` rows (the last padded with zeros): one compiled size."""
     parts = []
     for start in range(0, f.shape[0], chunk):
         piece = f[start : start + chunk]
@@ -248,9 +248,9 @@ def _derived_in_batches(f: np.ndarray, chunk: int) -> tuple[np.ndarray, np.ndarr
 def curvature_sample(field, points: np.ndarray, weights: np.ndarray, sign: int) -> CurvatureSample:
     """Compare the field's closed forms with the curvature of its potential on ``points`` (M, 4).
 
-    F_auto = dA - dA + [A, A] by automatic differentiation (:func:`fields.field_strength`,
-    method 'autodiff'); s and q from F_auto by :func:`fields.action_from_f` and
-    :func:`fields.charge_from_f`; the residual |F - sign *F| / |F| with :func:`fields.dual`.
+    F_auto = dA - dA + [A, A] by automatic differentiation (`fields.field_strength`,
+    method 'autodiff'); s and q from F_auto by `fields.action_from_f` and
+    `fields.charge_from_f`; the residual |F - sign *F| / |F| with `fields.dual`.
     Closed forms compared: the ``field_strength``, ``action_density`` and ``charge_density`` hooks.
 
     Args:

@@ -1,8 +1,8 @@
-"""The report of ``verify``: its data (:class:`Verification`, :class:`Row`, :class:`Route`) and its text.
+"""The report of ``verify``: its data (`Verification`, `Row`, `Route`) and its text.
 
 The text is a table whose every row says how it was obtained, then the verdict, reasons and advice.
 Numbers are printed plainly: offsets with their sign folded in ("|Q + 1|", never "|Q - -1|"), the
-quadrature rule in words.  :mod:`instantonkit.verification.checks` fills the report in.
+quadrature rule in words.  `instantonkit.verification.checks` fills the report in.
 """
 
 from __future__ import annotations
@@ -80,7 +80,7 @@ class Verification:
 
     ``verdict`` is PASSED, FAILED or INCONCLUSIVE; ``passed`` is ``verdict == 'PASSED'``; ``reasons``
     say why it is not PASSED, ``advice`` what to do.  ``rows`` is the report table (each row with how
-    it was obtained); ``str(report)`` prints it, :meth:`to_dict` gives a plain dict for JSON.
+    it was obtained); ``str(report)`` prints it, `to_dict` gives a plain dict for JSON.
     The margin and residual fields hold the decisive values (see ``margin_how``).  For ADHM data
     ``charge`` and ``action`` come from Osborn's flux route and ``check`` is the volume integral of s
     that checks them (None for other fields).
