@@ -24,7 +24,7 @@ def _timed(fn):
 
 
 def run(quick: bool = False, long: bool = False) -> list[dict]:
-    """Measure the figures of issues 4 and 13 (``long``: also verify k = 4); rows {figure, value, unit, ratio, reference}."""
+    """Measure the verify figures (``long``: also verify k = 4); rows {figure, value, unit, ratio, reference}."""
     rows = []
     bp = ik.bpst((0.3, -0.2, 0.5, 0.1), 1.3)
     res, dt = _timed(lambda: checks.total_charge(bp, rtol=0.0, atol=1e-8))
@@ -34,7 +34,7 @@ def run(quick: bool = False, long: bool = False) -> list[dict]:
             value=dt,
             unit="s",
             ratio=dt / 10.0,
-            reference="goal 10 s on two cores (issue 4)",
+            reference="goal 10 s on two cores",
         )
     )
     rows.append(
@@ -111,8 +111,8 @@ def run(quick: bool = False, long: bool = False) -> list[dict]:
                 value=dt,
                 unit="s",
                 ratio=dt / 15.0 if k == 4 else None,
-                reference=f"verdict {rep.verdict} (issue 13: a verdict with default settings)"
-                + ("; ratio to the goal 15 s (issue 15)" if k == 4 else ""),
+                reference=f"verdict {rep.verdict} (a verdict with default settings)"
+                + ("; ratio to the goal 15 s" if k == 4 else ""),
             )
         )
     if not quick:

@@ -3,7 +3,7 @@
 Rows (see :func:`run`), each with its ratio to a reference measured in the same run:
 
 * points per second of the closed-form action density of SU(2) ADHM data, k = 1, 2, 4, 8 (BPST for
-  k = 1, random data otherwise): ratio to the goal of the issue where it has one (k = 4, 8), else to
+  k = 1, random data otherwise): ratio to the goal where there is one (k = 4, 8), else to
   the per-point kernel (``jit(vmap(data.action_density))``, the engine's route before the batch-major
   kernels), whose rate and difference the reference names;
 * a roofline for k > 1: the flops per point counted for the kernel (``_kxk.flops_per_point``, ratio:
@@ -63,7 +63,7 @@ REFERENCE_POINTS = 32_768  # the per-point reference kernel is slow: time it on 
 FD_POINTS_FULL, FD_POINTS_QUICK = 2_000, 200
 FD_STEP = 1e-4  # central-difference step, relative to the configuration's scale
 
-#: Goals of the issue (points/s of the closed-form density; ratios; seconds).
+#: Goals (points/s of the closed-form density; ratios; seconds).
 THROUGHPUT_GOALS = {4: 1e6, 8: 1.5e5}
 NUMPY_GOAL_RATIO = 1.5
 FD_GOAL_RATIO = 200.0

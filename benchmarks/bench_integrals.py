@@ -28,7 +28,7 @@ import instantonkit as ik
 from instantonkit.engine import fields
 from instantonkit.integrals import drivers as integrals
 
-#: (k, tolerance) of the rows: the issue's goals (k <= 4 to 1e-10 in <= 10 s, k = 8 to 1e-8 in <= 60 s).
+#: (k, tolerance) of the rows: the goals (k <= 4 to 1e-10 in <= 10 s, k = 8 to 1e-8 in <= 60 s).
 CASES = ((1, 1e-10, 10.0), (2, 1e-10, 10.0), (3, 1e-10, 10.0), (4, 1e-10, 10.0), (8, 1e-8, 60.0))
 #: Charges of the quick run (each k compiles its own kernels, which is most of a quick case's time).
 QUICK_KS = (1, 4)

@@ -1,9 +1,9 @@
 """Time and peak memory of lattice starts (BPST, closed-form links) for SU(2) and SU(3).
 
-Goals (issue 5): a 32^4 SU(2) BPST start in <= 30 s on two cores, cost linear in the volume, peak
+Goals: a 32^4 SU(2) BPST start in <= 30 s on two cores, cost linear in the volume, peak
 memory <= 1.5x the output array.  Usage: ``python benchmarks/bench_lattice.py [--quick] [--sizes 16 24 32]``.
-Rows of issue 15 (:func:`link_costs`): charge-2 Magnus links against closed-form BPST links per link,
-the 24^4 SU(3) charge-2 start, bpst_field against ADHM k = 1 links.  Quick mode uses 8^4 only (12^4 for the charge-2 start); ``--periodic [--quick] [--charge-two]`` measures the periodic starts of issue 14
+Link-cost rows (`link_costs`): charge-2 Magnus links against closed-form BPST links per link,
+the 24^4 SU(3) charge-2 start, bpst_field against ADHM k = 1 links.  Quick mode uses 8^4 only (12^4 for the charge-2 start); ``--periodic [--quick] [--charge-two]`` measures the periodic starts
 (wrapped against windowed boundary, the window's excess against the box); ``--disk 64`` writes the 64^4 SU(3) start to a memmap on disk.  Peak memory is the growth of the resident set (resource.getrusage) over
 the run, measured in a fresh child process per start so earlier runs do not hide it.
 """
@@ -64,7 +64,7 @@ def _disk(size: int, group: str, directory: str, queue) -> None:
 
 
 def disk_start(size: int = 64, group: str = "su3", directory: str | None = None) -> list[dict]:
-    """A BPST start written straight to a .npy memmap on disk (issue 5: 64^4 SU(3) within 24 GiB)."""
+    """A BPST start written straight to a .npy memmap on disk (goal: 64^4 SU(3) within 24 GiB)."""
     import tempfile
 
     ctx = mp.get_context("spawn")
@@ -108,7 +108,7 @@ _LINK_COSTS: dict = {}
 
 
 def link_costs(quick: bool = False, reuse: bool = False) -> list[dict]:
-    """Rows of issue 15, measured side by side in this process (compilation outside the timings):
+    """Link-cost rows, measured side by side in this process (compilation outside the timings):
     per-link cost of a charge-2 Magnus start against a closed-form BPST start, the README's charge-2
     SU(3) start (24^4, 12^4 in quick mode; periodic, boundary figures included) and ``bpst_field``
     links against ADHM k = 1 links of the same instanton.
@@ -231,7 +231,7 @@ def run(quick: bool = False, sizes=None) -> list[dict]:
 
 
 def periodic_figures(quick: bool = False, charge_two: bool = False) -> list[dict]:
-    """Rows of issue 14: boundary action of the wrapped periodic start against boundary='window', the window's
+    """Periodic-start rows: boundary action of the wrapped periodic start against boundary='window', the window's
     action excess against the box, and (``charge_two``) the README's 24^4 charge-2 start both ways (minutes)."""
     import warnings
 
@@ -297,7 +297,7 @@ def main(argv=None) -> int:
     ap.add_argument(
         "--periodic",
         action="store_true",
-        help="only the periodic-start figures of issue 14 (window excess, boundary action)",
+        help="only the periodic-start figures (window excess, boundary action)",
     )
     ap.add_argument(
         "--charge-two", action="store_true", help="with --periodic: also the README's 24^4 charge-2 start (minutes)"

@@ -1,4 +1,4 @@
-"""Every row of issue 15's table in one run, each with its ratio to a reference measured in the same run.
+"""Every row of the limits table in one run, each with its ratio to a reference measured in the same run.
 
 Rows (ratio column: figure / reference, or figure / goal where the reference is a goal):
 
@@ -180,7 +180,7 @@ def _link_time(field, size: int, rtol: float | None = None) -> tuple[float, floa
 
 
 def lattice_rows(quick: bool) -> list[dict]:
-    """The issue's link rows from bench_lattice.link_costs (the README's charge-2 start against closed-form
+    """The link rows from bench_lattice.link_costs (the README's charge-2 start against closed-form
     BPST, the 24^4 start, bpst_field against ADHM k = 1), then a stress case: overlapping random charge-2
     data at the default rtol 1e-12 on a coarse lattice, against closed-form BPST on the same lattice."""
     from benchmarks import bench_lattice
@@ -307,7 +307,7 @@ PARTS = ("integrals", "densities", "fd", "lattice", "first_calls")
 
 
 def run(quick: bool = False, parts=PARTS, points: int | None = None) -> list[dict]:
-    """All rows of issue 15's table (``parts`` selects groups); rows {figure, value, unit, ratio, reference}.
+    """All rows of the limits table (``parts`` selects groups); rows {figure, value, unit, ratio, reference}.
 
     points: the number of points of the density rows (default 1e5 quick, 1e6 full; the smoke run uses few).
     """
@@ -327,7 +327,7 @@ def run(quick: bool = False, parts=PARTS, points: int | None = None) -> list[dic
 
 
 def main(argv=None) -> None:
-    parser = argparse.ArgumentParser(description="Issue 15's table: integrals, kernels, links, first calls.")
+    parser = argparse.ArgumentParser(description="The limits table: integrals, kernels, links, first calls.")
     parser.add_argument("--quick", action="store_true", help="smaller sizes (under about two minutes)")
     parser.add_argument("--parts", nargs="+", default=list(PARTS), choices=PARTS, help="row groups to run")
     args = parser.parse_args(argv)

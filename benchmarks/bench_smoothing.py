@@ -3,7 +3,7 @@
 Timings (compilation excluded): one RK3 step of the Wilson flow, one Wilson cooling sweep and one
 eps = -1 cooling sweep (8-colour, 2x2 staples) on L^4 SU(2) and SU(3) lattices (L = 16, quick 8).
 Physics: S_W / 8 pi^2, the clover and the improved charge and the size rho/a along the Wilson flow of a
-periodic 16^4 rho/a = 3 singular-gauge start (which carries the boundary jump of issue 14: S_W / 8 pi^2
+periodic 16^4 rho/a = 3 singular-gauge start (which carries the periodic boundary jump: S_W / 8 pi^2
 = 1.14 at t = 0), and rho/a after Wilson (eps = 1) and over-improved (eps = -1) cooling of a periodic
 12^4 rho/a = 2 start.  Usage: ``python benchmarks/bench_smoothing.py [--quick]``.
 

@@ -61,7 +61,7 @@ def test_bpst_gram_is_distance_squared_plus_rho_squared(a, rho, u, x):
 
 @given(points(bound=3.0), st.floats(0.1, 3.0), unit_quaternions())
 def test_bpst_data_layout(a, rho, u):
-    # B = p(a), Lambda = rho u, |Lambda| = rho, constraint satisfied (issue 2 specification).
+    # B = p(a), Lambda = rho u, |Lambda| = rho, constraint satisfied.
     d = ik.bpst(a, rho, u)
     assert np.allclose(d.B[0, 0], cv.point_to_quaternion(a), rtol=0, atol=0)
     assert np.allclose(d.lam[0, 0], rho * u, rtol=1e-15, atol=1e-15)

@@ -142,7 +142,7 @@ def test_anti_instanton_charge_is_minus_one(bpst_data):
 # -- multi-instantons -------------------------------------------------------------------------------
 
 
-#: Tolerances that give |Q - k| <= 1e-8 and |S / 8 pi^2 - k| <= 1e-8 (the issue's targets).
+#: Tolerances that give |Q - k| <= 1e-8 and |S / 8 pi^2 - k| <= 1e-8 (the accuracy targets of verify).
 TIGHT = dict(rtol=0.0, atol=8e-9)
 TIGHT_S = dict(rtol=0.0, atol=8e-9 * EIGHT_PI2)
 
@@ -488,7 +488,7 @@ def test_silent_when_stderr_is_not_a_terminal(bpst_data, capsys):
 
 @pytest.fixture(scope="module")
 def report_k2():
-    # default settings: the verdict must be reached without tuning (issue 13)
+    # default settings: the verdict must be reached without tuning
     return checks.verify(ik.random_adhm(2, seed=2, spread=3.0), expected_charge=2)
 
 

@@ -548,7 +548,7 @@ def test_another_kind_of_store_is_named_in_the_refusal(tmp_path):
         cluster.evaluate_grid(ik.bpst(), (2, 2, 2, 2), 1.0, "action_density", store=tmp_path / "s", client="sync")
 
 
-# -- the periodic boundary, measured and warned about as on the local path (issue 14) ----------------
+# -- the periodic boundary, measured and warned about as on the local path ---------------------------
 
 _REGULAR = ik.bpst(size=1.2).with_gauge("regular")  # does not decay: a large boundary action on a torus
 

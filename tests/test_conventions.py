@@ -61,7 +61,7 @@ def test_levi_civita_is_totally_antisymmetric():
 
 @given(points())
 def test_point_matrix_is_x4_plus_i_x_dot_sigma(x):
-    # The issue's convention: p(x) has the matrix x_mu sigma_mu = x4 1 + i x.sigma.
+    # The package's convention (instantonkit.conventions): p(x) has the matrix x_mu sigma_mu = x4 1 + i x.sigma.
     m = np.asarray(qt.to_matrix(cv.point_to_quaternion(x)))
     expected = x[3] * np.eye(2) + 1j * np.einsum("a,aij->ij", x[:3], SIGMA)
     assert np.allclose(m, expected, rtol=0, atol=1e-14)
@@ -91,7 +91,7 @@ def test_e_mu_is_the_derivative_of_p():
 
 
 def test_e_mu_matrices_are_sigma_mu():
-    # sigma_mu = (i sigma_1, i sigma_2, i sigma_3, 1), the issue's convention.
+    # sigma_mu = (i sigma_1, i sigma_2, i sigma_3, 1), the package's convention.
     m = np.asarray(qt.to_matrix(cv.E_MU))
     for a in range(3):
         assert np.allclose(m[a], 1j * SIGMA[a], atol=0)
@@ -141,7 +141,7 @@ def test_hermitian_convention_field_strength_and_action():
 
 def test_self_dual_field_has_q_equal_s_over_8pi2():
     # For F = *F: q = s / (8 pi^2), so Q = S / 8 pi^2 = +1 for the unit instanton
-    # (Belavin, Polyakov, Schwartz, Tyupkin 1975; conventions of the issue).
+    # (Belavin, Polyakov, Schwartz, Tyupkin 1975; the package's conventions).
     rng = np.random.default_rng(1)
     t = np.einsum("ab,bij->aij", rng.normal(size=(3, 3)), -0.5j * SIGMA)  # three su(2) elements
     f = np.einsum("amn,aij->mnij", ETA, t)  # self-dual by construction

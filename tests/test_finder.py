@@ -171,7 +171,7 @@ def test_superposition_model_error_is_in_its_uncertainties():
 
 @pytest.mark.long
 def test_lumps_at_hypercube_centres_of_a_16_lattice_are_found():
-    # the example: centres (1.5, 0, 0, 0) and (-1, 1, 0.5, 0), sizes 0.7 and 0.9; with a = 0.25 the
+    # a worked example: centres (1.5, 0, 0, 0) and (-1, 1, 0.5, 0), sizes 0.7 and 0.9; with a = 0.25 the
     # default origin puts both lumps at hypercube centres (every coordinate half-way between sites)
     data = ik.multi_instanton([[1.5, 0.0, 0.0, 0.0], [-1.0, 1.0, 0.5, 0.0]], [0.7, 0.9])
     shape, a = (16,) * 4, 0.25

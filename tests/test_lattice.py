@@ -592,7 +592,7 @@ def test_lattice_never_imports_the_distributed_layer():
 
 
 def test_shortest_periodic_call_measures_its_boundary_and_warns():
-    # issue 14: the shortest call wraps a singular-gauge BPST onto a 16^4 torus at rho/a = 3; the jump
+    # the shortest call wraps a singular-gauge BPST onto a 16^4 torus at rho/a = 3; the jump
     # of A across the faces costs about 0.18 x 8 pi^2, far above the 1 % the warning allows
     with pytest.warns(lat.BoundaryActionWarning, match="boundary='window'"):
         ik.lattice_links(ik.bpst(), (16,) * 4, 1 / 3)
@@ -603,7 +603,7 @@ def test_shortest_periodic_call_measures_its_boundary_and_warns():
 
 
 def test_periodic_charge_two_start_warns_or_meets_its_continuum_reference():
-    # the rule of issue 14 for k = 2: either a BoundaryActionWarning or a Wilson action within a few
+    # the periodic-start rule for k = 2: either a BoundaryActionWarning or a Wilson action within a few
     # per cent of the matched reference (box action with the lattice artefact of Garcia Perez et al. 1994)
     data = ik.multi_instanton(centers=[[-1.0, 0, 0, 0], [1.0, 0.5, 0, 0]], sizes=[0.8, 0.8])
     with warnings.catch_warnings(record=True) as caught:
@@ -665,7 +665,7 @@ def test_continuum_reference_of_the_plain_box_matches_the_scipy_box_integral():
     assert references.wilson_artefact(1 / 3) == pytest.approx(1 - 1 / 45 - 1 / 5670, rel=1e-15)
 
 
-# -- the Magnus path of charge k > 1 (issue 15): the cheaper potential and the refinement's accuracy ----
+# -- the Magnus path of charge k > 1: the cheaper potential and the refinement's accuracy ----
 
 
 @pytest.mark.parametrize(

@@ -12,7 +12,7 @@ from instantonkit import __main__ as cli
 
 
 def test_demo_configuration_is_exact_charge_three_data():
-    # multi_instanton solves the ADHM constraint to <= 1e-12 (issue 2); charge k = 3
+    # multi_instanton solves the ADHM constraint to <= 1e-12; charge k = 3
     data = cli.demo_configuration()
     assert data.k == 3 and data.constraint_residual() <= 1e-12
     assert np.allclose(data.centers(), cli.DEMO_CENTERS)

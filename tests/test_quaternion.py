@@ -36,7 +36,7 @@ def test_units_obey_hamiltons_relations():
 
 
 def test_units_map_to_minus_i_sigma():
-    # Convention of the issue: 1 -> 1, i -> -i sigma_1, j -> -i sigma_2, k -> -i sigma_3.
+    # The package's convention: 1 -> 1, i -> -i sigma_1, j -> -i sigma_2, k -> -i sigma_3.
     m = np.asarray(qt.to_matrix(qt.UNITS))
     assert np.array_equal(m[0], np.eye(2))
     for a in range(3):

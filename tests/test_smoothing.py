@@ -61,7 +61,7 @@ def open_starts():
 
 @pytest.fixture(scope="module")
 def periodic_12():
-    """A periodic 12^4 singular-gauge start at rho/a = 2.  It carries the boundary jump of issue 14
+    """A periodic 12^4 singular-gauge start at rho/a = 2.  It carries the periodic boundary jump
     (S_W / 8 pi^2 = 1.031 against 0.95 for the instanton alone), which the first cooling sweeps remove."""
     return lat.lattice_links(ik.bpst(size=2.0), (12,) * 4, 1.0)
 
