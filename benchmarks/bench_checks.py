@@ -43,7 +43,7 @@ def run(quick: bool = False, long: bool = False) -> list[dict]:
             value=abs(res.value - 1.0),
             unit="",
             ratio=abs(res.value - 1) / 1e-8,
-            reference="Q = 1 (Belavin et al. 1975); goal 1e-8",
+            reference="Q = 1 (Belavin, Polyakov, Schwartz, Tyupkin 1975); goal 1e-8",
         )
     )
     rows.append(dict(figure="BPST charge: points", value=res.evaluations, unit="points", ratio=None, reference=""))
@@ -74,7 +74,7 @@ def run(quick: bool = False, long: bool = False) -> list[dict]:
                 value=err,
                 unit="",
                 ratio=err / 1e-8,
-                reference="S = 8 pi^2 k (ADHM 1978); goal 1e-8",
+                reference="S = 8 pi^2 k (Atiyah, Hitchin, Drinfeld, Manin 1978); goal 1e-8",
             )
         )
         rows.append(

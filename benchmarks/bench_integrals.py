@@ -113,7 +113,7 @@ def run(quick: bool = False, ks=None, reference: bool = True) -> list[dict]:
                 value=err,
                 unit="",
                 ratio=ratio_err,
-                reference=f"ratio to the volume rule; goal {tol:g} (Q = k, ADHM 1978)",
+                reference=f"ratio to the volume rule; goal {tol:g} (Q = k, Atiyah, Hitchin, Drinfeld, Manin 1978)",
             ),
             dict(
                 figure=f"{tag}: reported error",

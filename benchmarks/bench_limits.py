@@ -80,7 +80,7 @@ def integral_rows(quick: bool) -> list[dict]:
             err,
             "",
             err / 1e-10,
-            f"goal 1e-10 (Q = k for ADHM data, Atiyah et al. 1978, from memory); reported error {res.error:.1e}; "
+            f"goal 1e-10 (Q = k for ADHM data, Atiyah, Hitchin, Drinfeld, Manin 1978); reported error {res.error:.1e}; "
             f"volume rule |Q - 3| = {err_vol:.1e} with {vol.evaluations:,} points ({budget:.0e} budget)",
         ),
     ]

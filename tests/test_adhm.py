@@ -51,7 +51,8 @@ def sp_element(rng, n):
 @given(points(bound=3.0), st.floats(0.1, 3.0), unit_quaternions(), points(bound=5.0))
 def test_bpst_gram_is_distance_squared_plus_rho_squared(a, rho, u, x):
     # Delta^dag Delta = (|x - a|^2 + rho^2) 1 for the BPST instanton (Belavin, Polyakov, Schwartz, Tyupkin,
-    # Phys. Lett. B 59 (1975) 85; ADHM form, Atiyah et al. 1978; from memory).
+    # Phys. Lett. B 59 (1975) 85; ADHM form, Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185; from
+    # memory).
     g = gram(ik.bpst(a, rho, u), x)
     expected = np.sum((x - a) ** 2) + rho**2
     assert g.shape == (1, 1, 4)
@@ -87,9 +88,9 @@ def test_bpst_orientation_as_su2_matrix_equals_the_quaternion(u):
 
 
 def test_bpst_charge_is_plus_one_by_radial_integration():
-    # Q = int q d^4x = 2 pi^2 int r^3 q(r) dr = +1 for the instanton, -1 for its partner (BPST 1975;
-    # vol(S^3) = 2 pi^2, common practice).  q comes from the closed-form ADHM F_mu nu through the
-    # eps tr F F formula of the conventions.  With u = r^2 / (r^2 + rho^2) the BPST integrand is the
+    # Q = int q d^4x = 2 pi^2 int r^3 q(r) dr = +1 for the instanton, -1 for its partner (Belavin, Polyakov, Schwartz,
+    # Tyupkin, Phys. Lett. B 59 (1975) 85; vol(S^3) = 2 pi^2, common practice).  q comes from the closed-form ADHM F_mu
+    # nu through the eps tr F F formula of the conventions.  With u = r^2 / (r^2 + rho^2) the BPST integrand is the
     # polynomial 6 u (1 - u), so 24-node Gauss-Legendre (numpy.polynomial.legendre) is exact to rounding.
     rho = 0.8
     u, w = np.polynomial.legendre.leggauss(24)
@@ -309,7 +310,7 @@ def test_sp2_moduli_count_is_4k_n_plus_1(k):
 @given(adhm_data(k=st.integers(2, 3)), orthogonal_matrices(3))
 def test_rotate_gauge_keeps_det_of_gram_and_validity(d, o3):
     # O(k) acts as Lambda -> Lambda O, B -> O^T B O, so Delta^dag Delta -> O^T (Delta^dag Delta) O and its
-    # determinant is unchanged (ADHM 1978; common practice).
+    # determinant is unchanged (Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185; common practice).
     o = (
         o3[: d.k, : d.k]
         if d.k == 3

@@ -137,8 +137,8 @@ def test_autodiff_field_is_self_dual(name):
 
 @pytest.mark.parametrize("name", CONFIGS)
 def test_charge_density_is_action_over_8pi2(name):
-    # Self-duality gives q = s / 8 pi^2 (Belavin et al. 1975; common practice): q from the autodiff F
-    # against the closed k x k action density.
+    # Self-duality gives q = s / 8 pi^2 (Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85; common
+    # practice): q from the autodiff F against the closed k x k action density.
     cfg = config(name)
     np.testing.assert_allclose(q_from_f(cfg["f_auto"]), cfg["s"] / (8 * np.pi**2), rtol=1e-10, atol=0)
 
@@ -169,7 +169,7 @@ def bilaplacian_log_det(data, x):
 
 @pytest.mark.parametrize("name", CONFIGS)
 def test_osborn_formula(name):
-    # Osborn, Nucl. Phys. B 1981; Corrigan, Goddard, Osborn, Templeton, Nucl. Phys. B 159 (1979) 469
+    # Osborn, Ann. Phys. 135 (1981) 373; Corrigan, Goddard, Osborn, Templeton, Nucl. Phys. B 159 (1979) 469
     # (from memory): s = -1/2 box box log det(Delta^dag Delta).
     cfg = config(name)
     np.testing.assert_allclose(-0.5 * bilaplacian_log_det(cfg["data"], cfg["x"]), cfg["s"], rtol=1e-9, atol=0)
@@ -196,7 +196,8 @@ def wide_points(data, seed):
 
 
 def test_charge_density_positive_for_instantons():
-    # Instantons have q = s / 8 pi^2 > 0 (conventions module: Q = +k; Belavin et al. 1975).
+    # Instantons have q = s / 8 pi^2 > 0 (conventions module: Q = +k; Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett.
+    # B 59 (1975) 85).
     data = config("SU2-k3")["data"]
     assert np.all(ik.charge_density(data, wide_points(data, 5), method="closed") > 0)
 
@@ -233,8 +234,8 @@ def random_sp(n, generators):
 @FEW
 @given(seed=st.integers(0, 2**31 - 1))
 def test_densities_invariant_under_ok_rotations(seed):
-    # O(k) acts trivially on the field (Corrigan, Goddard, Osborn, Templeton 1979, from memory);
-    # checked on the gauge invariants tr F_mu nu F_rho sigma (which contain s and q).
+    # O(k) acts trivially on the field (Corrigan, Goddard, Osborn, Templeton, Nucl. Phys. B 159 (1979) 469, from
+    # memory); checked on the gauge invariants tr F_mu nu F_rho sigma (which contain s and q).
     cfg = config("SU2-k2")
     orth = scipy.stats.ortho_group.rvs(dim=2, random_state=seed)
     f = ik.field_strength(cfg["data"].rotate_gauge(orth), cfg["x"])
@@ -244,7 +245,8 @@ def test_densities_invariant_under_ok_rotations(seed):
 @FEW
 @given(gen=st.lists(st.floats(-3.0, 3.0), min_size=10, max_size=10))
 def test_densities_invariant_under_sp_rotations(gen):
-    # Lambda -> Q Lambda is a gauge transformation (Corrigan et al. 1979, from memory): invariants unchanged.
+    # Lambda -> Q Lambda is a gauge transformation (Corrigan, Goddard, Osborn, Templeton, Nucl. Phys. B 159 (1979) 469,
+    # from memory): invariants unchanged.
     cfg = config("Sp2-k2")
     f = ik.field_strength(cfg["data"].rotate_sp(random_sp(2, gen)), cfg["x"])
     assert rel_err(invariants(f), invariants(cfg["f_closed"])) <= 1e-10

@@ -61,7 +61,8 @@ def test_bpst_field_action_density_is_the_bpst_profile(gauge, method):
 @pytest.mark.parametrize("gauge", ["regular", "singular"])
 @pytest.mark.parametrize("method", ["auto", "closed", "autodiff"])
 def test_bpst_field_charge_density_is_action_over_8pi2(gauge, method):
-    # q = s / 8 pi^2 for the (self-dual) BPST instanton: BPST, Phys. Lett. B 59 (1975) 85.
+    # q = s / 8 pi^2 for the (self-dual) BPST instanton: Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975)
+    # 85.
     f = ik.bpst_field(CENTER, RHO, gauge=gauge)
     q = fl.charge_density(f, PTS, method=method)
     assert _rel(q, _bpst_density(PTS, CENTER, RHO) / (8 * PI**2)) <= 1e-12
@@ -89,7 +90,8 @@ def test_bpst_field_potential_agrees_with_adhm(gauge):
 
 @pytest.mark.parametrize("gauge", ["regular", "singular"])
 def test_bpst_field_densities_agree_with_adhm(gauge):
-    # ADHM k = 1 density (its k x k closed form), BPST profile (BPST 1975); autodiff route for ours.
+    # ADHM k = 1 density (its k x k closed form), BPST profile (Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59
+    # (1975) 85); autodiff route for ours.
     mine = fl.action_density(ik.bpst_field(CENTER, RHO, gauge=gauge), PTS, method="autodiff")
     adhm = fl.action_density(ik.bpst(CENTER, RHO).with_gauge(gauge), PTS)
     assert _rel(mine, adhm) <= 1e-12
@@ -130,7 +132,8 @@ def test_thooft_k1_potential_is_singular_gauge_bpst():
 
 
 def test_thooft_k1_density_equals_adhm_bpst():
-    # BPST profile (BPST 1975) via the ADHM k = 1 data of instantonkit.adhm.quaternionic.
+    # BPST profile (Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85) via the ADHM k = 1 data of
+    # instantonkit.adhm.quaternionic.
     mine = fl.action_density(ik.thooft(CENTER[None], [RHO]), PTS)
     assert _rel(mine, fl.action_density(ik.bpst(CENTER, RHO), PTS)) <= 1e-12
 
@@ -152,7 +155,7 @@ def test_thooft_action_density_is_minus_half_bilaplacian_of_log_phi(method):
 
 
 def test_thooft_is_self_dual():
-    # F = *F for the 't Hooft ansatz ('t Hooft 1976; Wilczek 1977; from memory); residual by autodiff F.
+    # F = *F for the 't Hooft ansatz ('t Hooft 1976, unpublished; Wilczek 1977; from memory); residual by autodiff F.
     res = fl.self_duality_residual(ik.thooft(TH_C, TH_R), TH_PTS, method="autodiff")
     assert np.max(res) <= 1e-12
 
@@ -202,7 +205,8 @@ def test_jnr_action_density_is_minus_half_bilaplacian_of_log_phi(method):
 
 
 def test_jnr_is_self_dual_with_positive_charge_density():
-    # JNR fields are self-dual (JNR 1977, from memory): residual 0 and q = s / 8 pi^2 > 0.
+    # JNR fields are self-dual (Jackiw, Nohl, Rebbi, Phys. Rev. D 15 (1977) 1642, from memory): residual 0 and q = s / 8
+    # pi^2 > 0.
     f = ik.jnr(JNR_P, JNR_W)
     res = fl.self_duality_residual(f, JNR_PTS, method="autodiff")
     q = fl.charge_density(f, JNR_PTS)
@@ -210,10 +214,10 @@ def test_jnr_is_self_dual_with_positive_charge_density():
 
 
 def test_jnr_two_poles_is_a_bpst_instanton():
-    # k = 1 JNR (JNR 1977): lambda1^2/|x-y1|^2 + lambda2^2/|x-y2|^2 = L (|x-a|^2 + rho^2)/(|x-y1|^2 |x-y2|^2),
-    # L = lambda1^2 + lambda2^2, a = (lambda1^2 y2 + lambda2^2 y1)/L, rho^2 = lambda1^2 lambda2^2 |y1-y2|^2/L^2
-    # (completing the square); box box log|x-y|^2 = 0 in four dimensions, so s is the BPST profile
-    # (BPST 1975) of (a, rho).
+    # k = 1 JNR (Jackiw, Nohl, Rebbi, Phys. Rev. D 15 (1977) 1642): lambda1^2/|x-y1|^2 + lambda2^2/|x-y2|^2 = L (|x-a|^2
+    # + rho^2)/(|x-y1|^2 |x-y2|^2), L = lambda1^2 + lambda2^2, a = (lambda1^2 y2 + lambda2^2 y1)/L, rho^2 = lambda1^2
+    # lambda2^2 |y1-y2|^2/L^2 (completing the square); box box log|x-y|^2 = 0 in four dimensions, so s is the BPST
+    # profile (Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85) of (a, rho).
     y = np.array([[0.4, -0.3, 0.2, 1.0], [-0.5, 0.6, 0.1, -0.7]])
     lam = np.array([0.9, 1.4])
     big = np.sum(lam**2)
@@ -258,7 +262,7 @@ def test_caloron_phi_equals_the_periodic_sum_of_thooft_poles():
 
 
 def test_caloron_is_periodic_in_x4():
-    # Periodic by construction (HS 1978): s(x + n beta e_4) = s(x).
+    # Periodic by construction (Harrington, Shepard, Phys. Rev. D 17 (1978) 2122): s(x + n beta e_4) = s(x).
     f = ik.caloron(**CAL)
     shifted = PTS + np.array([0, 0, 0, 3 * CAL["period"]])
     assert _rel(fl.action_density(f, shifted), fl.action_density(f, PTS)) <= 1e-12
@@ -266,17 +270,17 @@ def test_caloron_is_periodic_in_x4():
 
 
 def test_caloron_is_self_dual():
-    # The caloron is self-dual (HS 1978, from memory); autodiff F residual.
+    # The caloron is self-dual (Harrington, Shepard, Phys. Rev. D 17 (1978) 2122, from memory); autodiff F residual.
     f = ik.caloron(**CAL)
     assert np.max(fl.self_duality_residual(f, PTS, method="autodiff")) <= 1e-12
     assert np.all(fl.charge_density(f, PTS) > 0)
 
 
 def test_caloron_action_density_is_minus_half_bilaplacian_of_log_phi():
-    # s = -1/2 box box log phi (JNR 1977 / HS 1978, from memory).  Independent route: mpmath (30 digits)
-    # differentiates the textbook sinh/cosh formula in (r, t); for f(r, t) in four dimensions
-    # box = d_r^2 + (2/r) d_r + d_t^2, hence box box f = f_rrrr + 2 f_rrtt + f_tttt + (4/r)(f_rrr + f_rtt)
-    # (calculus).  Points include r across the branch threshold 2 pi r = beta and r -> 0.
+    # s = -1/2 box box log phi (Jackiw, Nohl, Rebbi, Phys. Rev. D 15 (1977) 1642 / Harrington, Shepard, Phys. Rev. D 17
+    # (1978) 2122, from memory).  Independent route: mpmath (30 digits) differentiates the textbook sinh/cosh formula in
+    # (r, t); for f(r, t) in four dimensions box = d_r^2 + (2/r) d_r + d_t^2, hence box box f = f_rrrr + 2 f_rrtt +
+    # f_tttt + (4/r)(f_rrr + f_rtt) (calculus).  Points include r across the branch threshold 2 pi r = beta and r -> 0.
     rho, beta = mpmath.mpf(CAL["size"]), mpmath.mpf(CAL["period"])
     kappa = 2 * mpmath.pi / beta
 
@@ -306,8 +310,8 @@ def test_caloron_action_density_is_minus_half_bilaplacian_of_log_phi():
 
 
 def test_caloron_is_smooth_across_the_axis_and_the_series_threshold():
-    # Continuity of s (a smooth gauge-invariant density, HS 1978) where the evaluation switches branch:
-    # at r = 0 versus r = 1e-7, and just inside versus just outside 2 pi r = beta.
+    # Continuity of s (a smooth gauge-invariant density, Harrington, Shepard, Phys. Rev. D 17 (1978) 2122) where the
+    # evaluation switches branch: at r = 0 versus r = 1e-7, and just inside versus just outside 2 pi r = beta.
     f = ik.caloron(**CAL)
     c = np.asarray(CAL["center"])
     r_star = CAL["period"] / (2 * PI)
@@ -322,7 +326,8 @@ def test_caloron_is_smooth_across_the_axis_and_the_series_threshold():
 
 def test_caloron_large_period_approaches_bpst():
     # beta -> infinity: phi -> 1 + rho^2/|x - c|^2 up to sum_{n != 0} rho^2/(n beta)^2 = rho^2 pi^2/(3 beta^2)
-    # (HS 1978; Euler's zeta(2)), so s matches the BPST profile (BPST 1975) to O((rho/beta)^2).
+    # (Harrington, Shepard, Phys. Rev. D 17 (1978) 2122; Euler's zeta(2)), so s matches the BPST profile (Belavin,
+    # Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85) to O((rho/beta)^2).
     f = ik.caloron(CAL["size"], 1e3, CAL["center"])
     pts = _away(PTS, [CAL["center"]], 0.1)
     s = fl.action_density(f, pts)
@@ -359,7 +364,8 @@ def test_evaluation_at_a_pole_raises(field, point, quantity):
 
 @pytest.mark.parametrize("gauge", ["regular", "singular"])
 def test_bpst_closed_density_at_the_centre_is_48_over_rho4(gauge):
-    # s(a) = 48 / rho^4 (BPST 1975): the documented value of the gauge-invariant closed form.
+    # s(a) = 48 / rho^4 (Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85): the documented value of the
+    # gauge-invariant closed form.
     s = fl.action_density(ik.bpst_field(CENTER, RHO, gauge=gauge), CENTER[None])
     assert abs(s[0] * RHO**4 / 48.0 - 1) <= 1e-14
 
@@ -453,7 +459,8 @@ def test_anti_of_scalar_ansatz_is_the_eta_form_with_mirrored_poles():
 @settings(max_examples=10, deadline=None)
 @given(seed=st.integers(0, 2**31 - 1))
 def test_thooft_random_configurations_are_self_dual(seed):
-    # 't Hooft ansatz is self-dual for any positive sizes and distinct centres ('t Hooft 1976, from memory).
+    # 't Hooft ansatz is self-dual for any positive sizes and distinct centres ('t Hooft 1976, unpublished; from memory;
+    # checked here by the autodiff residual).
     rng = np.random.default_rng(seed)
     c = rng.normal(size=(2, 4)) * 1.5
     f = ik.thooft(c, rng.uniform(0.3, 1.5, size=2))

@@ -117,19 +117,20 @@ def bpst_data():
 
 
 def test_bpst_charge_is_one(bpst_data):
-    # Q = 1 for the BPST instanton (BPST 1975)
+    # Q = 1 for the BPST instanton (Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85)
     _within(checks.total_charge(bpst_data), 1.0)
 
 
 def test_bpst_action_is_8pi2(bpst_data):
-    # S = 8 pi^2 (BPST 1975)
+    # S = 8 pi^2 (Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85)
     res = checks.total_action(bpst_data)
     assert res.converged
     _within(res, EIGHT_PI2, 1e-8 * EIGHT_PI2)
 
 
 def test_closed_form_bpst_in_regular_gauge_has_unit_charge_by_autodiff():
-    # Q = 1 (BPST 1975), with q from eps tr F F of the jax.jacfwd field strength of the potential
+    # Q = 1 (Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85), with q from eps tr F F of the jax.jacfwd
+    # field strength of the potential
     f = ansatz.bpst_field((0.0, 0.4, 0.0, -0.3), 0.8, gauge="regular")
     _within(checks.total_charge(f, method="autodiff"), 1.0)
 
@@ -148,7 +149,8 @@ TIGHT_S = dict(rtol=0.0, atol=8e-9 * EIGHT_PI2)
 
 
 def test_bpst_charge_from_eps_tr_ff_of_the_closed_form_f(bpst_data):
-    # Q = 1 (BPST 1975), q from eps tr F F rather than the closed-form q
+    # Q = 1 (Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85), q from eps tr F F rather than the
+    # closed-form q
     _within(checks.total_charge(bpst_data, method="closed"), 1.0)
 
 
@@ -161,7 +163,7 @@ def test_random_adhm_k2_action_and_charge():
 
 @pytest.mark.slow
 def test_random_adhm_k3_action_and_charge():
-    # S = 8 pi^2 k, Q = k (ADHM 1978)
+    # S = 8 pi^2 k, Q = k (Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185)
     data = ik.random_adhm(3, seed=3, spread=3.0)
     _within(checks.total_action(data, **TIGHT_S), 3 * EIGHT_PI2, 1e-8 * EIGHT_PI2)
     _within(checks.total_charge(data, **TIGHT), 3.0)
@@ -177,8 +179,8 @@ def test_sp2_data_action_and_charge():
 
 @pytest.mark.parametrize("k", [2, pytest.param(3, marks=[pytest.mark.slow, pytest.mark.long])])
 def test_thooft_charge_is_the_number_of_poles(k):
-    # 't Hooft ansatz phi = 1 + sum rho_i^2/|x - a_i|^2 has Q = k ('t Hooft 1976; Jackiw, Nohl, Rebbi,
-    # Phys. Rev. D 15 (1977) 1642; from memory)
+    # 't Hooft ansatz phi = 1 + sum rho_i^2/|x - a_i|^2 has Q = k ('t Hooft 1976, unpublished; Jackiw, Nohl,
+    # Rebbi, Phys. Rev. D 15 (1977) 1642; from memory; checked here by verify's integrals)
     centers = np.array([[0.0, 0, 0, 0], [4.5, 0.5, 0, 0.5], [-0.5, 4.0, 1.0, -2.0]])[:k]
     field = ansatz.thooft(centers, [1.0, 0.8, 1.1][:k])
     budget = dict(max_points=12_000_000)  # the closed-form density is noisy next to the poles
@@ -239,7 +241,7 @@ def test_osborn_density_matches_mpmath_box_box_log_det_for_k2():
 
 
 def test_osborn_density_equals_the_closed_form_action_density():
-    # Osborn's formula holds pointwise for ADHM fields (Osborn 1979, from memory)
+    # Osborn's formula holds pointwise for ADHM fields (Osborn, Nucl. Phys. B 159 (1979) 497, from memory)
     data = ik.random_adhm(3, seed=2)
     pts = np.random.default_rng(1).normal(size=(20, 4)) * 2
     osb = np.array([float(checks.osborn_density(data, jnp.asarray(p))) for p in pts])
@@ -247,7 +249,8 @@ def test_osborn_density_equals_the_closed_form_action_density():
 
 
 def test_regular_gauge_bpst_sphere_flux_is_plus_one():
-    # winding of the regular-gauge BPST at infinity = Q = +1 (BPST 1975); Chern-Simons flux derived here
+    # winding of the regular-gauge BPST at infinity = Q = +1 (Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59
+    # (1975) 85); Chern-Simons flux derived here
     val, err = checks.surface_winding(ik.bpst((0.2, 0, 0, 0), 1.0).with_gauge("regular"))
     assert abs(val - 1.0) <= 1e-8
     assert err >= abs(val - 1.0)
@@ -352,7 +355,8 @@ def hedgehog_report():
 
 def test_non_self_dual_field_has_unit_charge(hedgehog_report):
     # the profile f rises from 0 to 1, so the winding at infinity and Q are +1 (derived here: the
-    # pure gauge at infinity is that of the regular-gauge BPST, Q = +1 by BPST 1975)
+    # pure gauge at infinity is that of the regular-gauge BPST, Q = +1 by Belavin, Polyakov, Schwartz, Tyupkin, Phys.
+    # Lett. B 59 (1975) 85)
     assert hedgehog_report.nearest_integer == 1
     assert abs(hedgehog_report.distance) <= 1e-8
 
@@ -518,8 +522,9 @@ def test_verify_labels_what_holds_by_construction(report_k2):
 
 
 def test_verify_takes_q_from_osborn_flux_and_checks_it_by_the_volume_integral(report_k2):
-    # Q = 2 (ADHM 1978): the precise figure from Osborn's flux (Osborn 1979, from memory), the check is the
-    # volume integral of the closed-form s on the adaptive rule: other nodes, other formula inside the ball
+    # Q = 2 (Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185): the precise figure from Osborn's flux
+    # (Osborn, Nucl. Phys. B 159 (1979) 497, from memory), the check is the volume integral of the closed-form s on the
+    # adaptive rule: other nodes, other formula inside the ball
     assert report_k2.charge.route == "osborn" and report_k2.check.route == "volume"
     rows = {r.label: r for r in report_k2.rows}
     assert rows["topological charge Q"].how == checks.HOW_FLUX
@@ -558,8 +563,8 @@ class _WrongDensities(PytreeFields):
 
 
 def test_verify_volume_check_catches_a_wrong_closed_form_density():
-    # Q = 1 (ADHM 1978): the flux figure trusts Osborn inside the ball, the volume integral of the planted
-    # density gives 1.001, so the check disagrees and the verdict fails
+    # Q = 1 (Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185): the flux figure trusts Osborn inside the
+    # ball, the volume integral of the planted density gives 1.001, so the check disagrees and the verdict fails
     rep = checks.verify(_WrongDensities(ik.bpst(size=0.9)))
     (route,) = [r for r in rep.routes if r.name.startswith("volume integral")]
     assert route.agrees is False and abs(route.value - 1.001) <= 1e-5
@@ -567,8 +572,8 @@ def test_verify_volume_check_catches_a_wrong_closed_form_density():
 
 
 def test_verify_with_closed_charge_method_keeps_the_osborn_density_route():
-    # with charge_method='closed' Q is the volume integral of eps tr F F; Osborn's density (Osborn 1979,
-    # from memory) is integrated on another rule as the route
+    # with charge_method='closed' Q is the volume integral of eps tr F F; Osborn's density (Osborn, Nucl. Phys. B 159
+    # (1979) 497, from memory) is integrated on another rule as the route
     rep = checks.verify(ik.bpst(size=1.1), charge_method="closed")
     assert rep.charge.route == "volume" and rep.check is None
     (route,) = [r for r in rep.routes if r.name.startswith("Osborn")]
@@ -607,8 +612,8 @@ def test_verify_with_a_tiny_budget_is_inconclusive_not_passed():
 class _MislabelledBPST:
     """Potential of a BPST of size 1 (regular gauge); closed forms of a BPST of size 1.5 (a planted typo).
 
-    The closed forms alone are self-dual with integer charge (Q = 1, S = 8 pi^2, BPST 1975), so only the
-    comparison with the curvature of the potential can find the mistake.
+    The closed forms alone are self-dual with integer charge (Q = 1, S = 8 pi^2, Belavin, Polyakov, Schwartz, Tyupkin,
+    Phys. Lett. B 59 (1975) 85), so only the comparison with the curvature of the potential can find the mistake.
     """
 
     def __init__(self):
@@ -640,7 +645,8 @@ class _MislabelledBPST:
 
 def test_closed_forms_that_are_not_the_curvature_of_the_potential_fail():
     rep = checks.verify(_MislabelledBPST(), routes=False)
-    # the integrals of the closed forms alone look like a perfect instanton (BPST 1975)
+    # the integrals of the closed forms alone look like a perfect instanton (Belavin, Polyakov, Schwartz, Tyupkin, Phys.
+    # Lett. B 59 (1975) 85)
     assert abs(rep.distance) <= 1e-6 and abs(rep.action_units - 1.0) <= 1e-6
     assert rep.verdict == "FAILED"
     assert any("closed-form field_strength is not the curvature of the potential" in r for r in rep.reasons)
@@ -681,14 +687,16 @@ def test_verify_anti_instanton_uses_anti_self_duality_and_clean_signs(bpst_data)
 
 
 def test_verify_regular_gauge_bpst_includes_the_winding_route():
-    # regular gauge: the flux at infinity equals Q = +1 (BPST 1975; flux formula derived here)
+    # regular gauge: the flux at infinity equals Q = +1 (Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975)
+    # 85; flux formula derived here)
     rep = checks.verify(ik.bpst((0, 0, 0, 0), 1.0).with_gauge("regular"), routes=True)
     (route,) = [r for r in rep.routes if r.name.startswith("Chern-Simons")]
     assert route.decisive and route.agrees and rep.passed
 
 
 def test_verify_shows_the_thooft_pole_count_as_input():
-    # 't Hooft: k = number of poles ('t Hooft 1976, from memory): an input, not a check
+    # 't Hooft: k = number of poles ('t Hooft 1976, unpublished; Jackiw, Nohl, Rebbi, Phys. Rev. D 15 (1977) 1642;
+    # from memory; test_thooft_charge_is_the_number_of_poles checks it): an input, not a check
     rep = checks.verify(ansatz.thooft([[0.0, 0, 0, 0], [3.5, 0.5, 0, 0.5]], [1.0, 0.8]))
     (route,) = [r for r in rep.routes if "poles" in r.name]
     assert route.value == 2.0 and route.agrees is None and route.how == "input"

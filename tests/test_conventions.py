@@ -124,8 +124,9 @@ def test_hermitian_converters_round_trip(g_mat, g):
 
 def test_hermitian_convention_field_strength_and_action():
     # Hermitian convention D = d - i g A^H, F^H = dA^H - dA^H - i g [A^H, A^H], S = (1/2) int tr F^H F^H
-    # (= (1/4) F^a F^a with tr T_a T_b = delta_ab / 2) (Peskin & Schroeder 1995, ch. 15; from memory).
-    # For constant potentials F is the commutator term only; F^H must equal i F / g and the action s / g^2.
+    # (= (1/4) F^a F^a with tr T_a T_b = delta_ab / 2) (Peskin, Schroeder, An Introduction to Quantum Field Theory,
+    # Addison-Wesley 1995, ch. 15; from memory). For constant potentials F is the commutator term only; F^H must equal i
+    # F / g and the action s / g^2.
     rng = np.random.default_rng(0)
     g = 1.7
     coeff = rng.normal(size=(4, 3))
@@ -158,7 +159,7 @@ def test_self_dual_field_has_q_equal_s_over_8pi2():
 
 def test_eta_explicit_definition():
     # eta_{a mu nu} = eps_{a mu nu} (mu, nu <= 3), eta_{a mu 4} = delta_{a mu}, eta_{a 4 nu} = -delta_{a nu};
-    # eta-bar has the opposite sign of the delta terms ('t Hooft 1976, appendix; from memory).
+    # eta-bar has the opposite sign of the delta terms ('t Hooft, Phys. Rev. D 14 (1976) 3432, appendix; from memory).
     e3 = eps3()
     for sym, sign in ((ETA, 1.0), (ETA_BAR, -1.0)):
         assert sym.shape == (3, 4, 4)

@@ -238,13 +238,15 @@ def test_singular_gauge_centre_raises_naming_the_point(bpst_data, grid):
 
 
 def test_regular_gauge_is_finite_at_the_centre(bpst_data):
-    # BPST regular gauge A_mu ~ x_nu / (x^2 + rho^2) vanishes at the centre (Belavin et al. 1975, from memory).
+    # BPST regular gauge A_mu ~ x_nu / (x^2 + rho^2) vanishes at the centre (Belavin, Polyakov, Schwartz, Tyupkin, Phys.
+    # Lett. B 59 (1975) 85, from memory).
     a = ik.potential(bpst_data.with_gauge("regular"), CENTER)
     np.testing.assert_allclose(a, 0.0, atol=1e-14)
 
 
 def test_action_density_finite_at_singular_gauge_centre(bpst_data):
-    # Gauge-invariant densities are smooth at the centre: s(a) = 48/rho^4 (Belavin et al. 1975).
+    # Gauge-invariant densities are smooth at the centre: s(a) = 48/rho^4 (Belavin, Polyakov, Schwartz, Tyupkin, Phys.
+    # Lett. B 59 (1975) 85).
     np.testing.assert_allclose(ik.action_density(bpst_data, CENTER), 48 / SIZE**4, rtol=1e-12)
 
 

@@ -26,7 +26,8 @@ EIGHT_PI2 = 8 * math.pi**2
 
 @pytest.mark.parametrize("k", [1, 2, 3, 4])
 def test_osborn_route_gives_q_equal_k_to_1e_10_with_an_honest_error(k):
-    # Q = k (ADHM 1978): the default route for ADHM data converges at 1e-10 and error >= |Q - k|
+    # Q = k (Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185): the default route for ADHM data converges
+    # at 1e-10 and error >= |Q - k|
     res = integrals.total_charge(ik.random_adhm(k, seed=k), rtol=1e-10, atol=1e-10, max_points=400_000)
     assert res.converged and "Osborn flux" in res.rule, res
     assert res.evaluations <= 400_000
@@ -41,28 +42,31 @@ def test_osborn_route_gives_q_equal_k_to_1e_10_with_an_honest_error(k):
     low=st.floats(0.05, 1.0),
 )
 def test_osborn_route_error_bounds_the_true_error_for_any_layout(k, seed, spread, low):
-    # Q = k (ADHM 1978) for overlapping, far-apart, small and large lumps alike
+    # Q = k (Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185) for overlapping, far-apart, small and large
+    # lumps alike
     data = ik.random_adhm(k, seed=seed, spread=spread, size_range=(low, 1.5 * low))
     res = integrals.total_charge(data, rtol=1e-10, atol=1e-10)
     assert res.converged and abs(res.value - k) <= res.error <= 1e-10 * k, res
 
 
 def test_osborn_route_gives_q_equal_8_to_1e_8_with_an_honest_error():
-    # Q = 8 (ADHM 1978)
+    # Q = 8 (Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185)
     res = integrals.total_charge(ik.random_adhm(8, seed=8), rtol=1e-8, atol=1e-8, max_points=400_000)
     assert res.converged, res
     assert abs(res.value - 8) <= res.error <= 8e-8
 
 
 def test_osborn_route_gives_the_action_8_pi2_k():
-    # S = 8 pi^2 k for self-dual fields (Bogomolny bound saturated; Belavin et al. 1975, common practice)
+    # S = 8 pi^2 k for self-dual fields (Bogomolny bound saturated; Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B
+    # 59 (1975) 85, common practice)
     res = integrals.total_action(ik.random_adhm(3, seed=5), rtol=1e-10, atol=1e-10)
     assert res.converged
     assert abs(res.value - 3 * EIGHT_PI2) <= res.error <= 1e-10 * 3 * EIGHT_PI2
 
 
 def test_osborn_route_gives_minus_k_for_anti_instantons():
-    # Q = -k for the conjugate (anti-self-dual) data (ADHM 1978; conventions page)
+    # Q = -k for the conjugate (anti-self-dual) data (Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185;
+    # conventions page)
     res = integrals.total_charge(ik.anti(ik.random_adhm(2, seed=7)))
     assert res.converged and "Osborn flux" in res.rule
     assert abs(res.value + 2) <= res.error <= 2e-10
@@ -85,7 +89,8 @@ def test_osborn_ball_of_one_instanton_matches_scipy_quad_of_the_bpst_density():
 )
 def test_osborn_ball_of_one_instanton_matches_the_integrated_bpst_density(rho, ratio, centre):
     # int_{|x - a| < R} 48 rho^4 / (|x - a|^2 + rho^2)^4 d^4x = 8 pi^2 (1 - 3 t^2 + 2 t^3), t = rho^2 / (R^2 + rho^2)
-    # (the BPST density of Belavin et al. 1975 integrated by u = r^2, derived here), any centre, size, radius
+    # (the BPST density of Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85 integrated by u = r^2,
+    # derived here), any centre, size, radius
     radius = ratio * rho
     t = rho**2 / (radius**2 + rho**2)
     val, _ = flux.ball_action(ik.bpst(center=centre, size=rho), np.asarray(centre), radius, 10)
@@ -108,7 +113,8 @@ def test_route_osborn_is_refused_for_a_field_without_a_gram_matrix():
 
 @pytest.mark.parametrize("k, budget", [(1, 300_000), (3, 300_000), (4, 150_000)])
 def test_volume_rule_error_bounds_the_true_charge_error_at_1e_10(k, budget):
-    # Q = k (ADHM 1978): whether converged or stopped by the budget, error >= |Q - k|
+    # Q = k (Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185): whether converged or stopped by the budget,
+    # error >= |Q - k|
     res = integrals.total_charge(ik.random_adhm(k, seed=k), rtol=1e-10, atol=1e-10, max_points=budget, route="volume")
     assert res.evaluations <= budget
     assert res.error >= abs(res.value - k), res
@@ -120,7 +126,8 @@ def test_volume_rule_error_bounds_the_true_charge_error_at_1e_10(k, budget):
 
 @pytest.mark.slow
 def test_volume_rule_error_bounds_the_true_charge_error_for_k8_at_1e_8():
-    # Q = 8 (ADHM 1978); a small budget: the k = 8 density is the slowest to evaluate
+    # Q = 8 (Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185); a small budget: the k = 8 density is the
+    # slowest to evaluate
     budget = 150_000
     res = integrals.total_charge(ik.random_adhm(8, seed=8), rtol=1e-8, atol=1e-8, max_points=budget, route="volume")
     assert res.evaluations <= budget
@@ -129,7 +136,8 @@ def test_volume_rule_error_bounds_the_true_charge_error_for_k8_at_1e_8():
 
 
 def test_two_separated_lumps_converge_to_1e_8_within_half_a_million_points():
-    # Q = 2 (ADHM 1978); the oriented shell rules of the quadrature: the plain ones needed 1.2M points here
+    # Q = 2 (Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185); the oriented shell rules of the quadrature:
+    # the plain ones needed 1.2M points here
     res = integrals.total_charge(ik.random_adhm(2, seed=2), rtol=1e-8, atol=1e-8, max_points=500_000, route="volume")
     assert res.converged, res
     assert abs(res.value - 2) <= res.error <= 2e-8
@@ -164,8 +172,9 @@ def test_angular_refinement_cannot_talk_the_radial_error_down():
 @pytest.mark.long
 @pytest.mark.parametrize("k, seed", [(4, 4), (4, 1), (5, 5)])
 def test_action_error_bounds_the_true_error_of_spread_lumps_at_2_5e_7(k, seed):
-    # S = 8 pi^2 k for self-dual ADHM data (Atiyah, Drinfeld, Hitchin and Manin 1978; Osborn 1981; from memory).
-    # Before the largest radial difference was kept: true errors 5.8e-7, 3.4e-7, 4.9e-7 under estimates of 2.2-2.5e-7
+    # S = 8 pi^2 k for self-dual ADHM data (Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185; Osborn, Ann.
+    # Phys. 135 (1981) 373; from memory). Before the largest radial difference was kept: true errors 5.8e-7, 3.4e-7,
+    # 4.9e-7 under estimates of 2.2-2.5e-7
     data = ik.random_adhm(k, seed=seed, spread=3.0)
     req = integrals.DensityRequest("action_density", atol=2.5e-7 * EIGHT_PI2)
     res = integrals.integrate(data, (req,), integrals.layout_of(data), rtol=0.0, max_points=16_000_000).results[0]

@@ -33,7 +33,8 @@ def test_npz_round_trip_is_bit_exact_and_keeps_metadata(tmp_path, links3):
 def test_ildg_records_and_headers_follow_the_lime_standard(tmp_path, links3):
     # LIME header: magic 0x456789ab, version 1, MB/ME flag bits, 64-bit length, 128-byte type,
     # data padded to 8 bytes; records ildg-format, ildg-binary-data, ildg-data-lfn (ILDG file format
-    # and LIME specifications, from memory)
+    # and LIME specifications, from memory; no independent reader is run, so this pins the layout written in
+    # instantonkit.lattice.files' docstring)
     path = tmp_path / "a.ildg"
     lio.save_lattice(path, links3, format="ildg", lfn="lfn://test/a", metadata={"k": 1})
     raw = path.read_bytes()
@@ -64,7 +65,7 @@ def test_ildg_records_and_headers_follow_the_lime_standard(tmp_path, links3):
 
 def test_ildg_binary_order_is_t_z_y_x_then_direction_then_row_major(tmp_path, links3):
     # site index ((t lz + z) ly + y) lx + x, four directions x, y, z, t, 3x3 row-major (re, im),
-    # big-endian float64 (ILDG binary format, from memory)
+    # big-endian float64 (ILDG binary format, from memory; pinned here byte by byte, no independent reader)
     path = tmp_path / "b.ildg"
     lio.save_lattice(path, links3, format="ildg")
     rec = lio.read_lime_records(path)[1]

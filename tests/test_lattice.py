@@ -25,7 +25,8 @@ EIGHT_PI2 = 8.0 * np.pi**2
 
 
 def bpst_box_action(rho, lo, hi):
-    """Integral of the BPST density 48 rho^4 / (x^2 + rho^2)^4 (BPST, Phys. Lett. B 59 (1975) 85) over a box.
+    """Integral of the BPST density 48 rho^4 / (x^2 + rho^2)^4 (Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59
+    (1975) 85) over a box.
 
     Schwinger's parametrisation 1/X^4 = (1/3!) int_0^inf u^3 e^{-u X} du (common practice) turns the
     box integral into one scipy quad over u of u^3 e^{-u rho^2} prod_i (sqrt(pi/u)/2)(erf(sqrt(u) hi_i) - erf(sqrt(u) lo_i)).
@@ -57,7 +58,8 @@ def wilson_box_action(rho, origin, n, a):
 
 
 def test_box_reference_gives_the_full_instanton_action():
-    # int s = 8 pi^2 for a unit instanton (conventions module; BPST 1975)
+    # int s = 8 pi^2 for a unit instanton (conventions module; Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59
+    # (1975) 85)
     assert bpst_box_action(1.3, [-1e4] * 4, [1e4] * 4) == pytest.approx(EIGHT_PI2, rel=1e-10)
 
 
@@ -535,8 +537,9 @@ def test_wilson_action_of_bpst_start_has_the_known_lattice_artefact(bpst_starts,
 
 
 def test_clover_charge_tends_to_one_with_order_a_squared_corrections(bpst_starts):
-    # Q -> 1 (BPST 1975) with O(a^2) lattice artefacts (Symanzik; common practice): the charge over the
-    # region of the clovers divided by the continuum charge there, fitted to r0 + c (a/rho)^2 + d (a/rho)^4
+    # Q -> 1 (Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85) with O(a^2) lattice artefacts (Symanzik;
+    # common practice): the charge over the region of the clovers divided by the continuum charge there, fitted to r0 +
+    # c (a/rho)^2 + d (a/rho)^4
     xs, rs = [], []
     for ratio, (links, origin, n) in sorted(bpst_starts.items()):
         q = lat.clover_charge(links, boundary="open")
@@ -559,9 +562,10 @@ def _gauss_box(field, lo, hi, nodes=14):
 
 @pytest.mark.parametrize("which", [0, 1], ids=["adhm", "thooft"])
 def test_charge_two_starts_give_action_and_charge_near_two(pair, which):
-    # S_W / 8 pi^2 and the clover charge of charge-2 starts (ADHM 1978; 't Hooft ansatz, from memory)
-    # measured against the continuum action in the same box: Q = 2 less the box tail, times the
-    # lattice artefact 1 - (1/5)(a/rho)^2 of each well-separated instanton (Garcia Perez et al. 1994)
+    # S_W / 8 pi^2 and the clover charge of charge-2 starts (Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978)
+    # 185; 't Hooft ansatz, Jackiw, Nohl, Rebbi, Phys. Rev. D 15 (1977) 1642, from memory) measured against the
+    # continuum action in the same box: Q = 2 less the box tail, times the lattice artefact 1 - (1/5)(a/rho)^2 of each
+    # well-separated instanton (Garcia Perez, Gonzalez-Arroyo, Snippe, van Baal, Nucl. Phys. B 413 (1994) 535)
     field = pair[which]
     a, n, rho = 0.6, 10, 1.2
     links = lat.lattice_links(field, (n,) * 4, a, boundary="open", rtol=1e-6)
@@ -604,7 +608,8 @@ def test_shortest_periodic_call_measures_its_boundary_and_warns():
 
 def test_periodic_charge_two_start_warns_or_meets_its_continuum_reference():
     # the periodic-start rule for k = 2: either a BoundaryActionWarning or a Wilson action within a few
-    # per cent of the matched reference (box action with the lattice artefact of Garcia Perez et al. 1994)
+    # per cent of the matched reference (box action with the lattice artefact of Garcia Perez, Gonzalez-Arroyo, Snippe,
+    # van Baal, Nucl. Phys. B 413 (1994) 535)
     data = ik.multi_instanton(centers=[[-1.0, 0, 0, 0], [1.0, 0.5, 0, 0]], sizes=[0.8, 0.8])
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
@@ -622,7 +627,8 @@ def test_window_start_is_periodic_without_mismatch_keeps_the_sector_and_meets_it
     # boundary='window': A_w = w A is periodic and C^3 on the torus, so the wrapped links are the exact
     # ones (mismatch 0 to rounding, no warning); the sector stays 1 (the clover charge at rho/a = 2 is
     # about 1 - 0.8 (a/rho)^2, see test_clover_charge_tends_to_one...) and the Wilson action equals the
-    # matched reference (box action of A_w with the artefact of Garcia Perez et al. 1994) to a few per cent
+    # matched reference (box action of A_w with the artefact of Garcia Perez, Gonzalez-Arroyo, Snippe, van Baal, Nucl.
+    # Phys. B 413 (1994) 535) to a few per cent
     field = ik.bpst_field(size=1.0, gauge="singular")
     with warnings.catch_warnings():
         warnings.simplefilter("error", lat.BoundaryActionWarning)

@@ -2,9 +2,9 @@
 
 External facts: a connection reducible to SU(2) x (trivial) inside SU(3) has a covariantly constant colour
 vector annihilated by F everywhere, and charge-2 SU(3) ADHM data with independent orientations are not
-reducible (common practice; ADHM, Phys. Lett. A 65 (1978) 185); each lump of a well-separated pair is
-locally a BPST instanton (Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85), so its clover
-density on a lattice of the same spacing carries the same O((a / rho)^2) artefact as a BPST lump's.
+reducible (common practice; Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185); each lump of a
+well-separated pair is locally a BPST instanton (Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85), so
+its clover density on a lattice of the same spacing carries the same O((a / rho)^2) artefact as a BPST lump's.
 Measured (this branch, 2 shared cores): smallest relative singular value 4.5e-16 to 1.7e-15 for rotated
 SU(2) embeddings (gap 6e14 to 1.6e15), 0.61 for the genuine data below; building the genuine 10^4 links
 takes 13 to 32 s (once per module).

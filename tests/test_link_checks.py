@@ -169,7 +169,9 @@ def test_the_description_of_a_damaged_file_is_still_readable(tmp_path):
 def test_the_rk3_stability_bound_is_the_real_root_of_r_equal_minus_one():
     z = -sm.RK3_STABILITY
     assert abs(1 + z + z**2 / 2 + z**3 / 6 + 1) < 1e-12
-    assert abs(sm.RK3_STABILITY - 2.5127) < 1e-4  # Hairer and Wanner 1996, section IV.2 (from memory)
+    # Hairer, Wanner, Solving Ordinary Differential Equations II, Springer 1996, section IV.2 (from memory;
+    # checked here by the root of R(z) = -1 above)
+    assert abs(sm.RK3_STABILITY - 2.5127) < 1e-4
 
 
 @pytest.mark.parametrize(("eps", "expected"), [(1.0, 16.0), (0.0, 64.0 / 3.0)])

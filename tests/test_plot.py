@@ -162,7 +162,8 @@ def test_density_slice_leaves_singular_points_blank():
 @settings(max_examples=10, deadline=None)
 @given(st.sampled_from(list(itertools.permutations(plot.AXES, 2))))
 def test_density_slice_through_the_centre_is_the_same_in_every_plane(field, plane):
-    # the BPST action density depends on |x - a| only (BPST 1975), so every plane through a looks alike
+    # the BPST action density depends on |x - a| only (Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975)
+    # 85), so every plane through a looks alike
     ref = image_of(plot.density_slice(field, ("x1", "x2"), resolution=10))
     img = image_of(plot.density_slice(field, plane, resolution=10))
     plt.close("all")

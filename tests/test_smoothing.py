@@ -253,10 +253,10 @@ def test_cooling_lowers_its_action_every_sweep_and_keeps_links_in_su2(cooled_12)
 
 
 def test_instanton_shrinks_under_wilson_cooling_and_not_under_over_improved_cooling(periodic_12, cooled_12):
-    # the sign of the a^2 term of S(eps) (Garcia Perez et al. 1994): for eps = 1 the action falls as rho
-    # falls, so cooling shrinks the instanton; for eps = -1 it rises, and the instanton does not shrink.
-    # Size from moments of the clover action density (instanton_size); rho/a = 2 on 12^4 (measured:
-    # 2.34 at the start, 2.11 after 12 Wilson sweeps, 2.36 after 8 eps = -1 sweeps)
+    # the sign of the a^2 term of S(eps) (Garcia Perez, Gonzalez-Arroyo, Snippe, van Baal, Nucl. Phys. B 413 (1994)
+    # 535): for eps = 1 the action falls as rho falls, so cooling shrinks the instanton; for eps = -1 it rises, and the
+    # instanton does not shrink. Size from moments of the clover action density (instanton_size); rho/a = 2 on 12^4
+    # (measured: 2.34 at the start, 2.11 after 12 Wilson sweeps, 2.36 after 8 eps = -1 sweeps)
     (_, wil), (_, over) = cooled_12
     rho0 = sm.instanton_size(periodic_12)
     assert wil.size[0] == pytest.approx(rho0, rel=1e-12)
@@ -271,10 +271,10 @@ def test_instanton_shrinks_under_wilson_cooling_and_not_under_over_improved_cool
 
 @pytest.mark.parametrize("ratio", [2, 3])
 def test_improved_charge_is_closer_to_the_continuum_than_clover(open_starts, ratio):
-    # q_imp = (4/3) q_1x1 - (1/48) q_2x2 cancels the tree-level a^2 error of the clover charge (Garcia Perez
-    # et al. 1994, from memory).  Both summed over the sites where the 2x2 clovers fit, divided by the
-    # continuum charge of those sites' cells (BPST 1975): the clover is off by about 0.8 (a/rho)^2, the
-    # improved charge by several times less
+    # q_imp = (4/3) q_1x1 - (1/48) q_2x2 cancels the tree-level a^2 error of the clover charge (Garcia Perez,
+    # Gonzalez-Arroyo, Snippe, van Baal, Nucl. Phys. B 413 (1994) 535, from memory).  Both summed over the sites where
+    # the 2x2 clovers fit, divided by the continuum charge of those sites' cells (Belavin, Polyakov, Schwartz, Tyupkin,
+    # Phys. Lett. B 59 (1975) 85): the clover is off by about 0.8 (a/rho)^2, the improved charge by several times less
     u, origin, n = open_starts[ratio]
     q_imp = sm.improved_charge_density(u, boundary="open")
     inside = ~np.isnan(q_imp)

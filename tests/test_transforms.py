@@ -134,7 +134,8 @@ def test_gauge_transform_of_a_plain_callable_field():
 @FEW
 @given(seed=SEEDS)
 def test_translated_thooft_is_thooft_with_moved_centres(seed):
-    # phi(x - s) has poles a_i + s ('t Hooft ansatz; JNR 1977), so A' is the ansatz of the moved centres.
+    # phi(x - s) has poles a_i + s ('t Hooft ansatz; Jackiw, Nohl, Rebbi, Phys. Rev. D 15 (1977) 1642), so A' is the
+    # ansatz of the moved centres.
     rng = np.random.default_rng(seed)
     shift = rng.normal(size=4)
     pts = _points(rng, avoid=TH_C + shift)
@@ -172,8 +173,9 @@ def test_rotation_matrix_is_in_so4_and_realises_the_quaternion_map(seed):
 @FEW
 @given(seed=SEEDS)
 def test_rotated_thooft_has_the_density_of_rotated_centres(seed):
-    # R eta-bar_a R^T = O_ab eta-bar_b (a global gauge rotation; 't Hooft 1976, from memory) and
-    # phi(R^T x) has poles R a_i, so densities equal those of the ansatz with centres R a_i.
+    # R eta-bar_a R^T = O_ab eta-bar_b (a global gauge rotation; 't Hooft, Phys. Rev. D 14 (1976) 3432, appendix, from
+    # memory; checked here through the densities) and phi(R^T x) has poles R a_i, so densities equal those of the ansatz
+    # with centres R a_i.
     rng = np.random.default_rng(seed)
     left, right = _unit(rng), _unit(rng)
     r = np.asarray(tr.rotation_matrix(left, right))
@@ -227,7 +229,8 @@ def test_dilated_thooft_is_thooft_with_scaled_moduli(lam):
 
 
 def test_dilated_bpst_is_bpst_of_scaled_size():
-    # BPST profile 48 rho^4 / (x^2 + rho^2)^4 (BPST, Phys. Lett. B 59 (1975) 85) with rho -> c rho.
+    # BPST profile 48 rho^4 / (x^2 + rho^2)^4 (Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85) with
+    # rho -> c rho.
     pts = _points(RNG)
     s = fl.action_density(ik.dilate(ik.bpst_field(size=0.5), 3.0), pts, method="autodiff")
     y2 = np.sum(pts**2, axis=-1)
@@ -271,7 +274,8 @@ def test_wrappers_are_pytrees_with_the_parameters_as_leaves():
 
 
 def test_gradient_through_a_dilation_factor():
-    # d/dc [s(x / c) / c^4] for BPST at the origin: s = 48 rho^4 c^4 / (|x|^2 + c^2 rho^2)^4 (BPST 1975).
+    # d/dc [s(x / c) / c^4] for BPST at the origin: s = 48 rho^4 c^4 / (|x|^2 + c^2 rho^2)^4 (Belavin, Polyakov,
+    # Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85).
     x = jnp.asarray([0.3, 0.1, -0.2, 0.5])
     bpst = ik.bpst_field()
     grad = jax.jit(jax.grad(lambda c: tr.Dilated(bpst, c).action_density(x)))(1.5)

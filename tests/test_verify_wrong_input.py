@@ -1,11 +1,11 @@
 """Specification of verify and the integrals on wrong input: every integral ends, verdicts follow the rule.
 
 The wrong fields are 't Hooft's two-instanton potential written by hand with a mistake.  The correct one
-is A_mu = -1/2 eta-bar_{a mu nu} d_nu log(phi) u_a, phi = 1 + sum_i rho_i^2 / |x - a_i|^2 ('t Hooft,
-Phys. Rev. D 14 (1976) 3432; Jackiw, Nohl, Rebbi, Phys. Rev. D 15 (1977) 1642, eq. (2) form, signs of
-this library's conventions module), charge +2.  With another factor or sign the poles a_i stop being
-pure gauge: F ~ 1/r^2 there, s ~ r^-4 (from memory; checked here by the fitted power law itself), and
-the action diverges logarithmically.
+is A_mu = -1/2 eta-bar_{a mu nu} d_nu log(phi) u_a, phi = 1 + sum_i rho_i^2 / |x - a_i|^2 ('t Hooft
+1976, unpublished; Jackiw, Nohl, Rebbi, Phys. Rev. D 15 (1977) 1642; from memory, equation number not
+checked; signs of this library's conventions module, where tests/test_ansatz.py checks self-duality), charge +2.  With
+another factor or sign the poles a_i stop being pure gauge: F ~ 1/r^2 there, s ~ r^-4 (from memory; checked here by the
+fitted power law itself), and the action diverges logarithmically.
 """
 
 from __future__ import annotations

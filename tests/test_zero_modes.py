@@ -209,7 +209,8 @@ def test_gram_closed_form_matches_the_modes(name):
 
 @pytest.mark.parametrize("name", ["k3", "sp2_k2", "anti_regular_k2"])
 def test_density_is_minus_box_trace_f_over_four_pi_squared(name):
-    # Corrigan, Goddard, Osborn, Templeton (1978-79), from memory: sum |psi|^2 = -(1/4 pi^2) box tr f
+    # Corrigan, Goddard, Osborn, Templeton, Nucl. Phys. B 159 (1979) 469, and the 1978 work of Corrigan, Fairlie,
+    # Templeton, Goddard, from memory: sum |psi|^2 = -(1/4 pi^2) box tr f
     data = CASES[name]()
     x = points_near(data, 4)
     lap = _box_trace_f(data, jnp.asarray(x))
@@ -238,7 +239,8 @@ def test_anti_instanton_density_is_the_parity_image():
 
 @pytest.mark.parametrize("k, rank, n_radial, n_angular", [(2, 1, 64, 14), (2, 2, 64, 14), (3, 1, 64, 20)])
 def test_modes_are_orthonormal(k, rank, n_radial, n_angular):
-    # orthonormality of the ADHM zero modes (Corrigan et al. 1978-79 and Osborn 1981, from memory)
+    # orthonormality of the ADHM zero modes (Corrigan, Goddard, Osborn, Templeton, Nucl. Phys. B 159 (1979) 469 and the
+    # 1978 work of Corrigan, Fairlie, Templeton, Goddard and Osborn, Ann. Phys. 135 (1981) 373, from memory)
     data = separated(k, rank, seed=k + rank)
     o = zm.zero_mode_overlap(data, n_radial=n_radial, n_angular=n_angular)
     assert o.shape == (k, k)
@@ -249,8 +251,8 @@ def test_modes_are_orthonormal(k, rank, n_radial, n_angular):
 
 
 def test_number_of_modes_equals_the_topological_charge():
-    # Atiyah-Singer index theorem (Atiyah, Singer, Ann. Math. 87 (1968) 484; 't Hooft 1976): index = Q;
-    # for self-dual fields all normalisable modes have one chirality, so their number is Q.
+    # Atiyah-Singer index theorem (Atiyah, Singer, Ann. Math. 87 (1968) 484; 't Hooft, Phys. Rev. D 14 (1976) 3432):
+    # index = Q; for self-dual fields all normalisable modes have one chirality, so their number is Q.
     data = separated(2, seed=1)
     rule = rule_r4(data.centers(), data.sizes(), 48, 10)
     q = float(np.sum(rule.weights * ik.charge_density(data, rule.points)))

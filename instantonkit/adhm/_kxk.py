@@ -2,9 +2,10 @@
 
 Used by `instantonkit.adhm.quaternionic.ADHMData.density_batch` (the engine's ``density_batch`` hook).  The
 formulas are those of ``ADHMData.action_density`` (Corrigan, Goddard, Osborn, Templeton, Nucl. Phys.
-B 159 (1979) 469, from memory), rearranged so that each point costs a Cholesky factor of the real
-Gram matrix Delta^dag Delta and triangular solves instead of inverses, and O(k^2) work for SU(2)
-beyond that (see `s_rank_one`).  Quaternion products use the units of
+B 159 (1979) 469, from memory; tests/test_fields.py checks ``density_batch`` against the per-point
+closed form, tests/test_adhm_fields.py the closed form against autodiff), rearranged so that each
+point costs a Cholesky factor of the real Gram matrix Delta^dag Delta and triangular solves instead of
+inverses, and O(k^2) work for SU(2) beyond that (see `s_rank_one`).  Quaternion products use the units of
 `instantonkit.core.conventions.QUATERNION_BASIS`.
 """
 

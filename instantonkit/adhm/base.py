@@ -141,7 +141,8 @@ def unitary_moment_maps(b1, b2, i, j):
     """(mu_R, mu_C) = ([B1,B1^dag] + [B2,B2^dag] + I I^dag - J^dag J, [B1,B2] + I J); two (k, k) complex.
 
     Works for numpy and jax arrays (Donaldson, Commun. Math. Phys. 93 (1984) 453, the complex form of
-    the ADHM equations; from memory).
+    the ADHM equations; from memory; test_delta_gram_blocks_are_the_moment_maps checks that these are
+    the off-diagonal and difference blocks of Delta^dag Delta).
     """
     xp = np if all(isinstance(a, np.ndarray) for a in (b1, b2, i, j)) else jnp
     h = lambda a: xp.conj(xp.swapaxes(a, -1, -2))  # noqa: E731

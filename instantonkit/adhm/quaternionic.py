@@ -1,7 +1,8 @@
 """ADHM data for SU(2) = Sp(1) and Sp(n) multi-instantons, its validation and its constructors.
 
 Data (Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185; notation of
-Corrigan, Goddard, Osborn, Templeton, Nucl. Phys. B 159 (1979) 469, from memory):
+Corrigan, Goddard, Osborn, Templeton, Nucl. Phys. B 159 (1979) 469, from memory; the fields are
+checked against BPST and autodiff in tests/test_adhm_fields.py):
 
     Delta(x) = [ Lambda ; B - p(x) 1_k ]        ((n + k) x k quaternionic)
 

@@ -1,7 +1,8 @@
 """Complex ADHM data for SU(N) (U(N)) multi-instantons, its validation and fields (constructors: `instantonkit.adhm.unitary_moduli`).
 
 Data (Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185; Christ, Weinberg, Stanton,
-Phys. Rev. D 18 (1978) 2013; the complex form below is common practice, from memory): complex
+Phys. Rev. D 18 (1978) 2013; the complex form below is common practice, from memory;
+tests/test_unitary_adhm.py checks it against the quaternionic SU(2) data and BPST): complex
 matrices ``B1, B2`` (k x k), ``I`` (k x N), ``J`` (N x k) with the two moment maps
 
     mu_R = [B1, B1^dag] + [B2, B2^dag] + I I^dag - J^dag J = 0,      mu_C = [B1, B2] + I J = 0,

@@ -38,8 +38,10 @@ the roles of sigma and sigma-bar swap).  The number of modes, k = |Q|, is the At
 
 Densities need k x k work only: ``psi^dag psi = f M f / pi^2`` with ``M = b^dag P b =
 1 - (B - p) f (B - p)^dag``, so the total density (colour and spinor summed, modes summed) is
-``(2 / pi^2) Re tr(f M f)``, which also equals ``-(1 / 4 pi^2) box tr f`` (Corrigan et al. 1978-79,
-from memory; checked in the tests).  For BPST it is ``2 rho^2 / (pi^2 (|x - a|^2 + rho^2)^3)``.
+``(2 / pi^2) Re tr(f M f)``, which also equals ``-(1 / 4 pi^2) box tr f`` (Corrigan, Goddard,
+Osborn, Templeton, Nucl. Phys. B 159 (1979) 469, and the 1978 work of Corrigan, Fairlie, Templeton,
+Goddard; from memory; checked by test_density_is_minus_box_trace_f_over_four_pi_squared).
+For BPST it is ``2 rho^2 / (pi^2 (|x - a|^2 + rho^2)^3)``.
 The identity holds entrywise, ``(2 / pi^2) Re (f M f)_ij = -(1 / 4 pi^2) box f_ij`` (checked numerically
 with jax Hessians); since ``f = |x|^-2 1 + O(|x|^-3)`` at infinity, Gauss's theorem then gives the
 orthonormality ``int psi_i^dag psi_j = delta_ij`` that `zero_mode_overlap` confirms by quadrature.

@@ -12,7 +12,8 @@ from its poles) the potential
 
 is self-dual with ``s = -1/2 box box log phi`` ('t Hooft 1976, unpublished; Corrigan, Fairlie,
 Phys. Lett. B 67 (1977) 69; Wilczek 1977; Jackiw, Nohl, Rebbi, Phys. Rev. D 15 (1977) 1642; all from
-memory).  The sign and normalisation are fixed for *our* conventions by the k = 1 case: with
+memory; self-duality and s are checked by autodiff in tests/test_ansatz.py).  The sign and
+normalisation are fixed for *our* conventions by the k = 1 case: with
 ``phi = 1 + rho^2/y^2`` (``y = x - a``) one gets ``d_nu log phi = -2 rho^2 y_nu / (y^2 (y^2 + rho^2))``
 and A is exactly the singular-gauge BPST potential ``g^-1 d g * rho^2/(y^2 + rho^2)`` with
 ``g = p(y)/|y|``, itself the gauge transform by ``g^-1`` of the regular-gauge potential
@@ -363,7 +364,8 @@ def _caloron_derivs(x, size, period, center, hessian: bool):
 
     phi = 1 + (pi rho^2 / (beta r)) sinh(2 pi r / beta) / (cosh(2 pi r / beta) - cos(2 pi t / beta))
         = 1 + amp R(z, b),  amp = 2 pi^2 rho^2 / beta^2,  z = kappa^2 r^2,  b = kappa t,  kappa = 2 pi / beta
-    (Harrington, Shepard, Phys. Rev. D 17 (1978) 2122, from memory), t reduced to [-beta/2, beta/2].
+    (Harrington, Shepard, Phys. Rev. D 17 (1978) 2122, from memory; checked by
+    test_caloron_phi_equals_the_periodic_sum_of_thooft_poles), t reduced to [-beta/2, beta/2].
     With u = r^2: d_i phi = 2 y_i phi_u, d_4 phi = phi_t, d_i d_j phi = 2 delta_ij phi_u + 4 y_i y_j phi_uu,
     d_i d_4 phi = 2 y_i phi_ut, d_4 d_4 phi = phi_tt (i, j <= 3), phi_u = amp kappa^2 R_z etc.
     """
@@ -391,7 +393,8 @@ class CaloronField(_ScalarAnsatz):
     """Harrington-Shepard caloron: the 't Hooft ansatz with equal instantons at c + n beta e_4, n in Z.
 
     phi = 1 + (pi rho^2/(beta r)) sinh(2 pi r/beta) / (cosh(2 pi r/beta) - cos(2 pi t/beta)), r = |x_vec - c_vec|,
-    t = x4 - c4 (Harrington, Shepard, Phys. Rev. D 17 (1978) 2122, from memory); periodic in x4 with
+    t = x4 - c4 (Harrington, Shepard, Phys. Rev. D 17 (1978) 2122, from memory; tests/test_ansatz.py checks phi
+    against the periodic sum of 't Hooft poles and self-duality by autodiff); periodic in x4 with
     period beta, self-dual, charge +1 per period.  size: rho > 0; period: beta > 0; center: (4,).
     Singular points: c + n beta e_4.
     """
@@ -502,7 +505,9 @@ class BPSTField(PytreeFields):
         return om @ f @ jnp.conj(om.T)
 
     def action_density(self, x):
-        """s = 48 rho^4 / (|x - a|^2 + rho^2)^4 (BPST 1975) at one point -> (); finite at the centre."""
+        """s = 48 rho^4 / (|x - a|^2 + rho^2)^4 at one point -> (); finite at the centre.
+
+        Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85."""
         y = jnp.asarray(x, dtype=jnp.float64) - jnp.asarray(self.center)
         rho2 = jnp.asarray(self.size) ** 2
         return 48.0 * rho2**2 / (jnp.sum(y * y) + rho2) ** 4

@@ -10,7 +10,8 @@ is computed from them, `check_links` refuses
 
 Projection onto SU(N) happens only when asked (``project=True`` or `project_links`): the polar
 factor of the SVD U = X S V^dag, W = X V^dag (the unitary matrix nearest to U in the Frobenius norm,
-Higham, SIAM J. Sci. Stat. Comput. 7 (1986) 1160, from memory), then det W fixed to 1 by the central
+Higham, SIAM J. Sci. Stat. Comput. 7 (1986) 1160, from memory; checked by
+test_projection_when_asked_restores_the_links_of_scaled_input), then det W fixed to 1 by the central
 phase det(W)^(-1/N).
 
 Cost: a numpy ``isfinite`` pass and one jitted kernel over padded blocks of `BLOCK` matrices

@@ -212,7 +212,10 @@ def complex_to_qmat(m):
 
 
 def _thooft(sign: float) -> np.ndarray:
-    """eta_{a mu nu} ('t Hooft 1976, Phys. Rev. D 14, 3432, eq. (A.7), from memory).
+    """eta_{a mu nu} ('t Hooft, Phys. Rev. D 14 (1976) 3432, eq. (A.7); equation number from memory).
+
+    Checked by tests/test_conventions.py: the explicit entries, self-duality of eta and
+    anti-self-duality of eta-bar, and the contraction identities.
 
     eta_{a mu nu} = eps_{a mu nu} (mu, nu <= 3), eta_{a mu 4} = +delta_{a mu}, eta_{a 4 nu} = -delta_{a nu};
     eta-bar flips the sign of the delta terms.  Returned with zero-based indices, shape (3, 4, 4).

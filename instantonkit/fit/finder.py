@@ -72,7 +72,8 @@ __all__ = [
 _QUANTITIES = ("action", "charge")
 _MODELS = ("exact", "superposition")
 
-#: Peak of one BPST action density: s(a) = _BPST_PEAK / rho^4 (Belavin et al. 1975), used to read a size off a peak.
+#: Peak of one BPST action density: s(a) = _BPST_PEAK / rho^4 (Belavin, Polyakov, Schwartz, Tyupkin,
+#: Phys. Lett. B 59 (1975) 85), used to read a size off a peak.
 _BPST_PEAK = BPST_PEAK
 
 #: Fitted parameters per instanton: the centre (4) and log rho (1); the fit needs more samples than 5 k.

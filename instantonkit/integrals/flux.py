@@ -2,7 +2,9 @@
 
 For ADHM data (quaternionic Sp(n) and complex SU(N)) the action density is Osborn's
 ``s = -1/2 box box log det G`` with ``G(x)`` the k x k Gram matrix (Osborn, Nucl. Phys. B 159 (1979) 497,
-from memory; docs/conventions.md).  Gauss's theorem turns the integral over a ball into a flux,
+from memory; checked by test_osborn_formula in tests/test_adhm_fields.py and, for the flux, by
+verify's volume integral in tests/test_checks.py; docs/conventions.md).  Gauss's theorem turns the
+integral over a ball into a flux,
 
     int_{|x - c| < R} s d^4x = -1/2 oint_{|x - c| = R} n . grad(box log det G) dS,
 

@@ -1,6 +1,7 @@
 """Lattice files: numpy ``.npz`` with the generation parameters, and ILDG (LIME records) for SU(3).
 
-ILDG layout written and read here (the open ILDG/LIME standard, from memory):
+ILDG layout written and read here (the open ILDG/LIME standard, from memory; no other
+reader was run, so tests/test_io.py checks the bytes against this description, and the round trip):
 
 * A LIME file is a sequence of records.  Each record has a 144-byte big-endian header: magic number
   ``0x456789ab`` (uint32), format version ``1`` (uint16), a 16-bit flag word whose top bit is MB

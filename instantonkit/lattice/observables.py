@@ -68,7 +68,8 @@ def _check_spacing(spacing) -> float:
 
 def random_gauge(shape, n: int = 2, *, seed=0) -> np.ndarray:
     """Haar-random SU(n) matrices at every site; (L1, L2, L3, L4, n, n) complex128 (QR of Ginibre matrices,
-    Mezzadri, Notices AMS 54 (2007) 592, from memory)."""
+    Mezzadri, Notices AMS 54 (2007) 592, from memory; no test checks the Haar measure itself, the tests use
+    these matrices as gauge transformations and SU(n) links, where any SU(n) matrices serve)."""
     shape = _check_shape(shape)
     rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)
     z = rng.normal(size=shape + (n, n)) + 1j * rng.normal(size=shape + (n, n))
@@ -323,7 +324,8 @@ def _clover_planes(ext):
     Q = sum of the four plaquettes in the (mu, nu) plane that start and end at n, all with the
     orientation mu -> nu; F = [(Q - Q^dag) - tr(Q - Q^dag) / N] / 8, anti-Hermitian and traceless,
     = a^2 F_mu nu + O(a^4) (common practice; e.g. Bilson-Thompson, Leinweber, Williams, Ann. Phys.
-    304 (2003) 1, from memory).
+    304 (2003) 1, from memory; the O(a^2) approach is checked by
+    test_clover_field_strength_approaches_the_continuum_field_as_a_squared).
     """
     res = []
     n = ext.shape[1]

@@ -46,7 +46,8 @@ def wilson_artefact(ratio):
     """S_W / S of one instanton of size rho at spacing a, ratio = a / rho: 1 - (1/5) ratio^2 - (1/70) ratio^4.
 
     García Pérez, González-Arroyo, Snippe, van Baal, Nucl. Phys. B 413 (1994) 535 (from memory; the
-    tests reproduce it on open lattices).  ratio: float or array -> same shape.
+    tests reproduce it on open lattices: test_wilson_action_of_bpst_start_has_the_known_lattice_artefact).
+    ratio: float or array -> same shape.
     """
     r = np.asarray(ratio, dtype=np.float64)
     return 1.0 - r**2 / 5.0 - r**4 / 70.0
@@ -81,7 +82,8 @@ def continuum_reference(
     [origin, origin + a (L - 1)] that the inside plaquettes cover for 'open'.
     The expected Wilson action applies the lattice artefact of each lump,
     S_W = S_box - 8 pi^2 sum_i (1 - wilson_artefact(a / rho_i))  (García Pérez, González-Arroyo,
-    Snippe, van Baal, Nucl. Phys. B 413 (1994) 535, from memory), rho_i from the field's layout.
+    Snippe, van Baal, Nucl. Phys. B 413 (1994) 535, from memory; checked by
+    test_continuum_reference_of_the_plain_box_matches_the_scipy_box_integral), rho_i from the field's layout.
     For 'periodic' the wrapped links add the boundary action of the start's report on top.
 
     Args:

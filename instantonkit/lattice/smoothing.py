@@ -11,11 +11,13 @@ Normalisations (g = 1, beta = 2N, so that every action tends to the continuum ac
 * m x m loop action ``S_m = sum_x sum_{mu < nu} 2 Re tr(1 - P^{m x m}_{mu nu}(x))``; S_1 is the
   Wilson action of `instantonkit.lattice.observables.wilson_action` and S_2 -> 16 S_cont.
 * improved action of Garcia Perez, Gonzalez-Arroyo, Snippe and van Baal (Nucl. Phys. B 413 (1994) 535,
-  from memory): ``S(eps) = sum_{x, mu, nu} [(4 - eps)/3 Tr(1 - P_1x1) + (eps - 1)/48 Tr(1 - P_2x2)]``,
+  from memory; tests/test_smoothing.py checks its a^2 coefficient):
+  ``S(eps) = sum_{x, mu, nu} [(4 - eps)/3 Tr(1 - P_1x1) + (eps - 1)/48 Tr(1 - P_2x2)]``,
   the sum over ordered pairs (mu, nu), i.e. ``S(eps) = (4 - eps)/3 S_1 + (eps - 1)/48 S_2``.  eps = 1 is
   the Wilson action; (4 - eps)/3 + 16 (eps - 1)/48 = 1 gives the continuum limit for every eps; the
   tree-level a^2 term of an instanton is ``S(eps) = 8 pi^2 [1 - (eps/5)(a/rho)^2 + O(a^4)]`` (same paper,
-  from memory; it follows from the Wilson expansion 1 - (1/5)(a/rho)^2 and S_2(a) = 16 S_1(2a)).
+  from memory; checked by test_improved_action_a2_coefficient_is_minus_eps_over_5; it follows from
+  the Wilson expansion 1 - (1/5)(a/rho)^2 and S_2(a) = 16 S_1(2a)).
 * the force of an action ``S = sum_links -2 Re tr(U_mu(x) Sigma_mu(x)) + ...`` (Sigma the weighted sum of
   the staples that close every loop through the link) is ``Z = -P_ah(U Sigma)``, P_ah the traceless
   anti-Hermitian part, i.e. Z = -g0^2 d S with the Lie derivative of Luescher (JHEP 08 (2010) 071,
@@ -187,7 +189,7 @@ def _force(u, c1, c2, two: bool):
 @functools.partial(jax.jit, static_argnames=("two",))
 def _rk3_step(u, h, c1, c2, two: bool):
     """One step of Luescher's third-order Runge-Kutta integrator (JHEP 08 (2010) 071, eqs. (C.1)-(C.3),
-    from memory; the third order is checked in the tests):
+    from memory; the third order is checked by test_runge_kutta_integrator_is_third_order):
     W1 = exp(Z0/4) W0, W2 = exp(8/9 Z1 - 17/36 Z0) W1, V(t + h) = exp(3/4 Z2 - 8/9 Z1 + 17/36 Z0) W2,
     Z_i = h Z(W_i)."""
     z0 = h * _force(u, c1, c2, two)
@@ -211,11 +213,12 @@ def _su2_part(w):
 
 def _maximise(u, sigma, hits: int):
     """The SU(N) matrix maximising Re tr(U Sigma), by Cabibbo-Marinari SU(2)-subgroup steps (Cabibbo and
-    Marinari, Phys. Lett. B 119 (1982) 387, from memory): for each subgroup (i, j) the 2 x 2 block w of W = U Sigma,
-    its SU(2)-span part v = k s (k >= 0), and U <- G U with G = s^dag in rows/columns (i, j), which
-    maximises Re tr(G W) exactly.  For N = 2 one step gives the exact maximiser Sigma^dag / sqrt(det)
-    (the staple sum is in the real span of SU(2)); for N >= 3 ``hits`` passes over the N(N-1)/2
-    subgroups, each never lowering Re tr(U Sigma)."""
+    Marinari, Phys. Lett. B 119 (1982) 387, from memory; no update raising the action is checked by
+    test_su3_cooling_lowers_the_wilson_action_every_sweep_and_keeps_links_in_su3): for each subgroup (i, j)
+    the 2 x 2 block w of W = U Sigma, its SU(2)-span part v = k s (k >= 0), and U <- G U with G = s^dag in
+    rows/columns (i, j), which maximises Re tr(G W) exactly.  For N = 2 one step gives the exact maximiser
+    Sigma^dag / sqrt(det) (the staple sum is in the real span of SU(2)); for N >= 3 ``hits`` passes over
+    the N(N-1)/2 subgroups, each never lowering Re tr(U Sigma)."""
     n = u.shape[-1]
     pairs = [(i, j) for i in range(n) for j in range(i + 1, n)]
     for _ in range(1 if n == 2 else hits):
@@ -341,7 +344,8 @@ def _links(links):
 
 
 def improved_coefficients(eps) -> tuple[float, float]:
-    """(c1, c2) = ((4 - eps)/3, (eps - 1)/48) of S(eps) = c1 S_1 + c2 S_2 (Garcia Perez et al. 1994)."""
+    """(c1, c2) = ((4 - eps)/3, (eps - 1)/48) of S(eps) = c1 S_1 + c2 S_2 (Garcia Perez, Gonzalez-Arroyo,
+    Snippe, van Baal, Nucl. Phys. B 413 (1994) 535)."""
     e = _v.finite_float("eps", eps)
     return (4.0 - e) / 3.0, (e - 1.0) / 48.0
 
@@ -376,7 +380,8 @@ def _loop_action(u, m, boundary):
 
 def improved_action(links, eps: float = 0.0, *, boundary: str = "periodic") -> float:
     """The 1x1 + 2x2 action S(eps) = (4 - eps)/3 S_1 + (eps - 1)/48 S_2 of Garcia Perez, Gonzalez-Arroyo,
-    Snippe and van Baal (Nucl. Phys. B 413 (1994) 535, from memory); eps = 1 is the Wilson action,
+    Snippe and van Baal (Nucl. Phys. B 413 (1994) 535, from memory; the -eps/5 a^2 coefficient is checked by
+    test_improved_action_a2_coefficient_is_minus_eps_over_5); eps = 1 is the Wilson action,
     eps = 0 has no tree-level a^2 term.  See `loop_action` for S_m and ``boundary``."""
     c1, c2 = improved_coefficients(eps)
     u = _links(links)
@@ -406,7 +411,8 @@ def improved_charge_density(links, *, boundary: str = "periodic") -> np.ndarray:
 
     The combination of the 1x1 and 2x2 clover charge densities without tree-level a^2 term
     (q_mxm = m^4 q + m^6 a^2 X + ...), the charge analogue of the eps = 0 action of Garcia Perez,
-    Gonzalez-Arroyo, Snippe and van Baal (Nucl. Phys. B 413 (1994) 535, from memory).  Open boundaries:
+    Gonzalez-Arroyo, Snippe and van Baal (Nucl. Phys. B 413 (1994) 535, from memory; checked by
+    test_improved_charge_is_closer_to_the_continuum_than_clover).  Open boundaries:
     NaN where the 2x2 clovers leave the lattice.
     """
     u = _links(links)
@@ -451,7 +457,8 @@ def _measure(u, c1, c2, two: bool):
 
 #: Real stability interval [-RK3_STABILITY, 0] of every explicit three-stage third-order Runge-Kutta scheme,
 #: whose stability function on dy/dt = lambda y is R(z) = 1 + z + z^2/2 + z^3/6 (Hairer and Wanner, Solving
-#: Ordinary Differential Equations II, Springer 1996, section IV.2, from memory): the real root of R(z) = -1,
+#: Ordinary Differential Equations II, Springer 1996, section IV.2, from memory; the root is computed
+#: below and checked by test_the_rk3_stability_bound_is_the_real_root_of_r_equal_minus_one): the real root of R(z) = -1,
 #: 2.5127.  Luescher's integrator reduces to such a scheme on the linearised flow (its stages 1/4, 5/12, 1/3).
 RK3_STABILITY = float(-min(r.real for r in np.roots([1.0 / 6.0, 0.5, 1.0, 2.0]) if abs(r.imag) < 1e-9))
 

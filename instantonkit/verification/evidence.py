@@ -1,7 +1,8 @@
 """Evidence for ``verify`` that does not take a field's closed forms on trust.
 
 * Osborn's density ``s = -1/2 box box log det(Delta^dag Delta)`` for ADHM data (Osborn, Nucl. Phys. B
-  159 (1979) 497 and Ann. Phys. 135 (1981) 373, from memory), fourth derivatives in the closed form
+  159 (1979) 497 and Ann. Phys. 135 (1981) 373, from memory; tests/test_checks.py checks it against
+  mpmath's fourth derivatives and the closed-form action density), fourth derivatives in the closed form
   of `osborn_density` (derived here).
 * The Chern-Simons flux through a large S^3, ``Q = oint K_mu n_mu dS`` with ``K_mu = -(1/8 pi^2)
   eps_{mu nu rho sigma} tr(1/2 A_nu F_rho sigma - 1/3 A_nu A_rho A_sigma)``, ``q = d_mu K_mu``
@@ -66,7 +67,9 @@ def osborn_density(data, x):
                             - 4 tr((sum_mu P_mu^2)^2),
 
     which for k = 1 is -96 rho^4 / (|x - a|^2 + rho^2)^4, i.e. s = 48 rho^4 / (...)^4 (BPST).
-    Formula s = -1/2 box box log det: Osborn, Nucl. Phys. B 159 (1979) 497 (from memory).
+    Formula s = -1/2 box box log det: Osborn, Nucl. Phys. B 159 (1979) 497 (from memory; checked by
+    test_osborn_density_matches_mpmath_box_box_log_det_for_k2 and
+    test_osborn_density_equals_the_closed_form_action_density).
     Raises nothing itself; the data's own seams raise for points of the wrong shape.
     """
     g0, gmu = gram_coefficients(data)
@@ -353,7 +356,8 @@ def periodicity_mismatch(field, centres: np.ndarray, scales: np.ndarray, period:
 class Peak:
     """Where the sampled action density is largest: point (4,), value s, width (48 / s)^(1/4).
 
-    The width is the size of a BPST lump with that peak (s(0) = 48 / rho^4, BPST 1975).
+    The width is the size of a BPST lump with that peak (s(0) = 48 / rho^4; Belavin, Polyakov, Schwartz,
+    Tyupkin, Phys. Lett. B 59 (1975) 85).
     """
 
     point: np.ndarray
