@@ -185,4 +185,5 @@ _MOVED = {
     "zero_modes": "adhm.zero_modes",
 }
 for _old, _new in _MOVED.items():
-    _sys.modules[f"{__name__}.{_old}"] = globals()[_old] = _import_module(f".{_new}", __name__)
+    _sys.modules[f"{__name__}.{_old}"] = _module = _import_module(f".{_new}", __name__)
+    globals().setdefault(_old, _module)  # a public name of the same spelling (the function zero_modes) wins
