@@ -196,6 +196,7 @@ def multi_instanton(centers, sizes, orientations=None, *, rank: int = 1, tol: fl
     tol = _validate.positive_float("tol", tol)
     c, r = _check_centers_sizes(centers, sizes)
     k = c.shape[0]
+    _validate.adhm_affordable(k, rank, k_name="centers")
     u = _unit_orientations(orientations, k, rank)  # (k, n, 4)
     lam = np.swapaxes(u, 0, 1) * r[None, :, None]
     diag = np.asarray(point_to_quaternion(c))
@@ -228,6 +229,7 @@ def random_adhm(k: int, rank: int = 1, *, seed=0, spread: float = 2.0, size_rang
     """
     k = _validate.positive_int("k", k)
     rank = _validate.positive_int("rank", rank)
+    _validate.adhm_affordable(k, rank)
     spread = _validate.positive_float("spread", spread)
     low, high = (_validate.positive_float("size_range", v) for v in size_range)
     if low > high:
@@ -259,7 +261,10 @@ def embed_sp(data: ADHMData, rank: int, row: int = 0) -> ADHMData:
     Raises:
       TypeError for a non-integer (or boolean) rank or row; ValueError when the data do not fit.
     """
+    if not isinstance(data, ADHMData):
+        raise TypeError(f"data must be ADHMData; found {data!r} ({type(data).__name__})")
     rank = _validate.positive_int("rank", rank)
+    _validate.adhm_affordable(data.k, rank)
     row = _validate.nonnegative_int("row", row)
     if rank < data.rank or row < 0 or row + data.rank > rank:
         raise ValueError(f"cannot embed Sp({data.rank}) data at row {row} into Sp({rank})")
@@ -286,6 +291,9 @@ def block_sum(first: ADHMData, second: ADHMData, *, stack_ranks: bool = False, t
       ValueError for different chiralities, different ranks (unstacked) or an inexact sum.
     """
     tol = _validate.positive_float("tol", tol)
+    for name, value in (("first", first), ("second", second)):
+        if not isinstance(value, ADHMData):
+            raise TypeError(f"{name} must be ADHMData; found {value!r} ({type(value).__name__})")
     if first.chirality != second.chirality:
         raise ValueError("block_sum needs data of the same chirality")
     k1, k2 = first.k, second.k

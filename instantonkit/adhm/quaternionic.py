@@ -99,6 +99,8 @@ class ADHMData(PytreeFields):
     gauge: str = "singular"
 
     def __post_init__(self):
+        if not _validate.is_tracer(self.tol):
+            object.__setattr__(self, "tol", _validate.positive_float("tol", self.tol))
         lam = _moduli("lam", self.lam, "(n, k, 4)")
         b = _moduli("B", self.B, "(k, k, 4)")
         object.__setattr__(self, "chirality", _validate.sign("chirality", self.chirality))

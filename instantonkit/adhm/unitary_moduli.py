@@ -14,7 +14,7 @@ import jax.numpy as jnp
 import numpy as np
 
 from ..core import quaternion as qt
-from ..core._validate import nonnegative_int, positive_float, positive_int, real_array
+from ..core._validate import adhm_affordable, nonnegative_int, positive_float, positive_int, real_array
 from .base import moment_residual, pack_unitary, solve_moment_maps, unitary_weights, unpack_unitary
 from .quaternionic import ADHMData
 from .unitary import UnitaryADHMData, check_unitary, complex_coordinates
@@ -70,6 +70,7 @@ def embed_unitary(data, rank: int, offset: int = 0) -> UnitaryADHMData:
         raise TypeError(f"data must be UnitaryADHMData or SU(2) ADHMData; found {type(data).__name__}")
     rank = positive_int("rank", rank)
     offset = nonnegative_int("offset", offset)
+    adhm_affordable(data.k, rank)
     n0 = data.rank
     if offset + n0 > rank:
         raise ValueError(f"cannot embed SU({n0}) data at colour offset {offset} into SU({rank})")
@@ -126,9 +127,9 @@ def unitary_multi_instanton(
     k = c.shape[0]
     if k < 1:
         raise ValueError("centers must hold at least one point; found 0")
-    r = np.asarray(sizes, dtype=float)
-    r = np.full(k, float(r)) if r.ndim == 0 else r
-    r = real_array("sizes", r, (k,))
+    adhm_affordable(k, rank, k_name="centers")
+    r = np.asarray(sizes)
+    r = real_array("sizes", np.full(k, r) if r.ndim == 0 else r, (k,))
     if np.any(r <= 0):
         raise ValueError(f"sizes must be > 0; found {r.tolist()}")
     if k > 1:
@@ -172,6 +173,7 @@ def random_unitary_adhm(
     rank = positive_int("rank", rank)
     if rank < 2:
         raise ValueError(f"rank must be >= 2; found {rank}")
+    adhm_affordable(k, rank)
     spread = positive_float("spread", spread)
     size = positive_float("size", size)
     rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)

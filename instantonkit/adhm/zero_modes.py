@@ -491,6 +491,10 @@ def zero_mode_overlap(
     if rule is None:
         n_radial = _validate.positive_int("n_radial", n_radial)
         n_angular = _validate.positive_int("n_angular", n_angular)
+        # the rule holds k * n_radial * 2 n_angular^3 nodes of 5 float64 (point and weight)
+        _validate.affordable("n_angular", 40.0 * 2.0 * float(n_angular) ** 3, f"an S^3 rule of n_angular={n_angular}")
+        nodes = float(data.k) * n_radial * 2.0 * float(n_angular) ** 3
+        _validate.affordable("n_radial", 40.0 * nodes, f"a rule of {nodes:.3e} nodes")
         rule = rule_r4(data.centers(), data.sizes(), n_radial, n_angular)
     pts = np.asarray(rule.points, dtype=np.float64)
     w = np.asarray(rule.weights, dtype=np.float64)

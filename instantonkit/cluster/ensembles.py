@@ -109,6 +109,10 @@ def ensemble(
     k = _v.positive_int("k (charge)", k)
     shape = _v.lattice_shape("shape", shape)
     a = _v.positive_float("spacing", spacing)
+    _v.adhm_affordable(k, _v.positive_int("rank", rank), k_name="k (charge)")
+    # this process holds every member's seed, ADHM data (4 k (k + rank) float64) and start record
+    member_bytes = 256.0 + 32.0 * k * (k + rank)
+    _v.affordable("n (members)", n * member_bytes, f"the records of {n} members")
     spread, size_range = _ensemble_defaults(shape, a, spread, size_range)
     origin = default_origin(None, shape, a)  # no field: the middle hypercube is centred on 0
     seeds = tuple(member_seed(seed, i) for i in range(int(n)))

@@ -25,7 +25,17 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
-__all__ = ["UNITARITY_TOL", "BLOCK", "links_shape", "check_links", "project_links", "unitarity_deviation"]
+from ._validate import affordable
+
+__all__ = [
+    "UNITARITY_TOL",
+    "BLOCK",
+    "links_shape",
+    "check_finite",
+    "check_links",
+    "project_links",
+    "unitarity_deviation",
+]
 
 #: Largest accepted max(|U^dag U - 1|, |det U - 1|) (entrywise) by default: six orders above float64
 #: rounding of a product of a few SU(N) matrices, far below what changes an observable's leading digits.
@@ -49,6 +59,8 @@ def links_shape(links, name: str = "links"):
         raise TypeError(f"{name} must be complex; found dtype {u.dtype}")
     if u.size == 0:
         raise ValueError(f"{name} must not be empty; found shape {u.shape}")
+    # a zero-stride view can name 10^16 sites without holding them: refuse before reading any
+    affordable(name, 16.0 * u.size, f"a complex128 copy of {u.size // (4 * u.shape[-1] ** 2)} sites' links")
     return u
 
 
@@ -161,6 +173,19 @@ def _finite(u, name):
     if count:
         raise _finite_error(name, u, count, links, first)
     return u
+
+
+def check_finite(links, *, name: str = "links"):
+    """Links after the shape, dtype and finiteness checks only (no unitarity test): for writers of damaged data.
+
+    Args:
+      links: (L1, L2, L3, L4, 4, N, N) complex (numpy array or np.memmap, returned as given).
+      name: the argument's name in messages.
+    Raises:
+      ValueError: wrong shape, empty, too large for memory, NaN or inf entries (counted and located);
+        TypeError: a non-complex dtype.
+    """
+    return _finite(links_shape(links, name), name)
 
 
 def check_links(links, *, name: str = "links", tol: float | None = None, project: bool = False):

@@ -30,7 +30,18 @@ __all__ = [
     "lattice_shape",
     "machine_memory",
     "affordable",
+    "file_path",
+    "adhm_affordable",
+    "MAX_POINTS",
+    "budget",
+    "bounded_work",
 ]
+
+#: The largest number of points an integral, a sample or a count of evaluations may ask for: at 10^6
+#: density evaluations a second (well above the rate of the autodiff densities of this package, an
+#: assumption, not a measurement) 10^11 points take more than a day of one core, so a larger request is
+#: a typo, not a run (10^15 would take ~30 years).
+MAX_POINTS = 10**11
 
 # the least memory one lattice site takes: four SU(2) links of 2 x 2 complex128 (4 * 4 * 16 bytes)
 SITE_BYTES = 256
@@ -55,6 +66,50 @@ def affordable(name: str, nbytes: float, what: str) -> None:
             f"{name} is too large: {what} needs at least {nbytes:.3e} bytes; "
             f"this machine has {total:.3e} bytes of memory"
         )
+
+
+def budget(name: str, value) -> int:
+    """A number of points: an integer in [1, `MAX_POINTS`] (beyond it a run would not end within a day)."""
+    out = positive_int(name, value)
+    if out > MAX_POINTS:
+        raise ValueError(
+            f"{name} must be at most {MAX_POINTS:.0e} points (more would take over a day at 10^6 points a second); "
+            f"found {out:.3e}"
+        )
+    return out
+
+
+def bounded_work(name: str, units: float, what: str) -> None:
+    """Refuse a run of more than `MAX_POINTS` elementary updates (over a day at 10^6 a second), naming ``name``."""
+    if units > MAX_POINTS:
+        raise ValueError(
+            f"{name} is too large: {what} is {units:.3e} elementary updates, more than {MAX_POINTS:.0e} "
+            "(over a day at 10^6 a second)"
+        )
+
+
+def adhm_affordable(k: int, rank: int, *, k_name: str = "k") -> None:
+    """Refuse ADHM data of charge ``k`` and rank ``rank`` whose memory estimate exceeds the machine's.
+
+    Estimates (float64): the data, 4 k (n + k) reals (Lambda n x k and B k x k quaternions, or B1, B2, I, J),
+    then the dense Jacobian of a constraint solve, 3 k^2 residuals by 4 k (k + n) unknowns.
+    ``k_name`` names what sets k in the message (e.g. "centers").
+    """
+    affordable("rank", 8.0 * 4.0 * float(rank) * float(k), f"data of rank {rank} and charge {k}")
+    unknowns = 4.0 * float(k) * (float(k) + float(rank))
+    affordable(k_name, 8.0 * 3.0 * float(k) ** 2 * unknowns, f"the constraint Jacobian of charge {k} and rank {rank}")
+
+
+def file_path(name: str, value) -> str:
+    """A file path: a non-empty ``str`` or ``os.PathLike`` (bytes and other objects refused), as ``str``."""
+    if not isinstance(value, (str, os.PathLike)):
+        raise TypeError(f"{name} must be a file path (str or os.PathLike); found {value!r} ({type(value).__name__})")
+    out = os.fspath(value)
+    if not isinstance(out, str):
+        raise TypeError(f"{name} must be a text file path; found {out!r} ({type(out).__name__})")
+    if not out:
+        raise ValueError(f"{name} must be a non-empty file path; found ''")
+    return out
 
 
 def is_tracer(*values) -> bool:

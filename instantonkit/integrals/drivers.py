@@ -227,11 +227,11 @@ def _progress_sink(progress):
 
 def _check_tolerances(rtol, atol, max_points) -> None:
     for name, v in (("rtol", rtol), ("atol", atol)):
-        if not (np.isfinite(v) and v >= 0):
+        if _validate.finite_float(name, v) < 0:
             raise ValueError(f"{name} must be finite and >= 0; found {v!r}")
     if rtol == 0 and atol == 0:
         raise ValueError("rtol and atol cannot both be 0")
-    _validate.positive_int("max_points", max_points)
+    _validate.budget("max_points", max_points)
 
 
 def integrate(

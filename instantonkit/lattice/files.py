@@ -37,7 +37,9 @@ from typing import Any
 
 import numpy as np
 
+from ..core import _validate as _v
 from ..core._atomic import atomic_write
+from ..core._links import check_finite as _check_finite
 from ..core._links import check_links as _check_link_values
 
 __all__ = [
@@ -325,17 +327,27 @@ def save_lattice(
     Raises:
       ValueError: unknown format, an extension the format contradicts (``x.ildg`` with format='npz'),
         an unknown extension without a format, links of the wrong shape (or not 3 x 3 for 'ildg').
-      TypeError: non-complex links, metadata that is not JSON-serialisable.
+      TypeError: a path that is not str or os.PathLike, non-complex links, metadata that is not a
+        dict or not JSON-serialisable, a format that is not text.
+      ValueError: an empty path, links with NaN or inf entries (counted and located: damaged data are
+        never written) or too large for this machine's memory.
       OSError: a missing directory, a refused permission, a full disk (FileNotFoundError,
         PermissionError, ...), naming ``path``; no temporary file is left.
     """
+    path = _v.file_path("path", path)
+    if format is not None and not isinstance(format, str):
+        raise TypeError(f"format must be one of {_FORMATS} or None; found {format!r} ({type(format).__name__})")
+    if metadata is not None and not isinstance(metadata, dict):
+        raise TypeError(
+            f"metadata must be a dict (JSON-serialisable) or None; found {metadata!r} ({type(metadata).__name__})"
+        )
     format = _choose_format(path, format)
     report = getattr(links, "report", None)
     if report is not None and hasattr(links, "links") and hasattr(report, "as_metadata"):
         # a lattice start (duck-typed: io sits below lattice)
         metadata = report.as_metadata() if metadata is None else metadata
         links = links.links
-    u = check_links(links)
+    u = _check_finite(check_links(links))
     if format == "ildg" and u.shape[-1] != 3:
         raise ValueError(
             f"ILDG stores SU(3) links (3 x 3); found {u.shape[-1]} x {u.shape[-1]} (make the start with group='su3')"
@@ -379,13 +391,14 @@ def load_lattice(path, *, mmap: bool = False, project: bool = False):
       (links, info): links (L1, L2, L3, L4, 4, N, N) complex128 (numpy array or memory map) and the
       dict info ('format', 'metadata', 'field', and for ILDG 'ildg' and 'lfn' when present).
     Raises:
+      TypeError / ValueError: a path that is not a non-empty str or os.PathLike.
       ValueError: a file that is neither format, truncated or corrupt; links with NaN or inf entries
         (counted and located) or not in SU(N) within 1e-8 (the worst link named).
     """
-    path = os.fspath(path)
+    path = _v.file_path("path", path)
     links, info = _read_links(path, mmap)
     try:
-        links = _check_link_values(links, name=f"links of {path!r}", project=project)
+        links = _check_link_values(links, name=f"links of the file at path {path!r}", project=project)
     except ValueError as err:
         if "must be SU(" not in str(err):
             raise

@@ -301,7 +301,7 @@ def wilson_action(links, beta: float | None = None, *, boundary: str | Sequence[
 
     Args:
       links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
-      beta: coupling (default 2N).
+      beta: coupling, finite and > 0 (default 2N).
       boundary: 'periodic' or 'open', or four of them in (x1, x2, x3, x4) order (open ones mask their edges).
     Returns:
       float, S_W.
@@ -313,7 +313,7 @@ def wilson_action(links, beta: float | None = None, *, boundary: str | Sequence[
     u = _check_links(links)
     _check_boundary(boundary)
     n = u.shape[-1]
-    b = 2.0 * n if beta is None else _v.finite_float("beta", beta)
+    b = 2.0 * n if beta is None else _v.positive_float("beta", beta)
     tr = _traces(u, boundary)
     return float(b * np.nansum(1.0 - tr))
 

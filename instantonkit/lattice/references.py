@@ -105,6 +105,9 @@ def continuum_reference(
     hi = np.where(opened, org + a * (shp - 1.0), org + a * (shp - 0.5))
     sizes = _field_sizes(spec.field)
     nodes = 8 if nodes is None else _v.positive_int("nodes", nodes)
+    _v.affordable(
+        "nodes", 32.0 * float(nodes) ** 4, f"a product rule of nodes^4 = {float(nodes) ** 4:.3e} points a panel"
+    )
     t, wt = np.polynomial.legendre.leggauss(nodes)
     xs, ws = [], []
     for i in range(

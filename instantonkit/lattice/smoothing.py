@@ -45,9 +45,22 @@ import numpy as np
 
 from ..core import _progress
 from ..core import _validate as _v
-from ..core._links import check_links as _check_links
-from ..core.conventions import CHARGE_DENSITY_FACTOR
-from .observables import PLANES
+from .loops import (  # re-exported: the measurements the flows and cooling drive
+    _dag,
+    _links,
+    _measure,
+    _mm,
+    _total_staple,
+    _traceless_antihermitian,
+    improved_action,
+    improved_charge,
+    improved_charge_density,
+    improved_coefficients,
+    instanton_size,
+    loop_action,
+    loop_clover_charge,
+)
+from .stability import ACTION_RISE_TOL, RK3_STABILITY, _check_rise, flow_step_bound, max_flow_frequency  # noqa: F401
 
 __all__ = [
     "SmoothingRecord",
@@ -66,37 +79,8 @@ __all__ = [
     "instanton_size",
 ]
 
-_BOUNDARIES = ("periodic", "open")
-
 
 # -- small matrix helpers (AoS layout: (..., N, N)) -----------------------------------------------------
-
-
-def _mm(a, b):
-    """Batched matrix product as a broadcast sum (fuses well on CPU for N = 2, 3); (..., N, N)."""
-    return jnp.sum(a[..., :, :, None] * b[..., None, :, :], axis=-2)
-
-
-def _dag(m):
-    return jnp.conj(jnp.swapaxes(m, -1, -2))
-
-
-def _sh(x, mu: int, s: int):
-    """x(n + s mu_hat), periodic; x: (L1, L2, L3, L4, ...)."""
-    return jnp.roll(x, -s, axis=mu) if s else x
-
-
-def _retr(a, b):
-    """Re tr(a b) without forming the product; (...)."""
-    return jnp.real(jnp.sum(a * jnp.swapaxes(b, -1, -2), axis=(-2, -1)))
-
-
-def _traceless_antihermitian(m):
-    """P_ah(M) = (M - M^dag)/2 - tr(M - M^dag)/(2N); (..., N, N)."""
-    n = m.shape[-1]
-    a = 0.5 * (m - _dag(m))
-    tr = jnp.trace(a, axis1=-2, axis2=-1) / n
-    return a - tr[..., None, None] * jnp.eye(n)
 
 
 def _expm_su(x):
@@ -118,64 +102,6 @@ def _expm_su(x):
 
 
 # -- loops and staples ------------------------------------------------------------------------------------
-
-
-def _long(u, mu: int, m: int):
-    """Product of m links along mu: U_mu(n) U_mu(n + mu) ... U_mu(n + (m-1) mu); (L1..L4, N, N)."""
-    one = u[..., mu, :, :]
-    out = one
-    for k in range(1, m):
-        out = _mm(out, _sh(one, mu, k))
-    return out
-
-
-def _loop(d, mu, nu, m):
-    """m x m loop at corner n in plane (mu, nu) from the long links d (list of 4): D_mu(n) D_nu(n+m mu) D_mu(n+m nu)^dag D_nu(n)^dag."""
-    return _mm(_mm(d[mu], _sh(d[nu], mu, m)), _mm(_dag(_sh(d[mu], nu, m)), _dag(d[nu])))
-
-
-def _long_staple(d, mu, m):
-    """Sum over nu != mu of the staples of the long link D_mu(n) in m x m loops (up and down); (L1..L4, N, N)."""
-    out = 0.0
-    for nu in range(4):
-        if nu == mu:
-            continue
-        up = _mm(_sh(d[nu], mu, m), _mm(_dag(_sh(d[mu], nu, m)), _dag(d[nu])))
-        dn_nu = _sh(d[nu], nu, -m)  # D_nu(n - m nu)
-        down = _mm(_dag(_sh(dn_nu, mu, m)), _mm(_dag(_sh(d[mu], nu, -m)), dn_nu))
-        out = out + up + down
-    return out
-
-
-def _staple(u, mu: int, m: int):
-    """Sigma^(m)_mu(n): the sum of the 7-link (m = 2) or 3-link (m = 1) paths that close every m x m loop
-    through U_mu(n), so that the loops' share of S_m holding U_mu(n) is -2 Re tr(U_mu(n) Sigma) + const.
-
-    The link sits at position k = 0 .. m-1 of the long link D_mu(n - k mu) = A_k U_mu(n) B_k, and
-    Re tr(D Sigma_D) = Re tr(U B_k Sigma_D A_k).
-    """
-    d = [_long(u, nu, m) for nu in range(4)]
-    sd = _long_staple(d, mu, m)
-    one = u[..., mu, :, :]
-    n = one.shape[-1]
-    eye = jnp.broadcast_to(jnp.eye(n, dtype=one.dtype), one.shape)
-    total = 0.0
-    for k in range(m):
-        a = eye
-        for j in range(k, 0, -1):  # U_mu(n - k mu) ... U_mu(n - mu)
-            a = _mm(a, _sh(one, mu, -j))
-        b = eye
-        for j in range(1, m - k):  # U_mu(n + mu) ... U_mu(n + (m-1-k) mu)
-            b = _mm(b, _sh(one, mu, j))
-        total = total + _mm(_mm(b, _sh(sd, mu, -k)), a)
-    return total
-
-
-def _total_staple(u, mu, c1, c2, two: bool):
-    s = c1 * _staple(u, mu, 1)
-    if two:
-        s = s + c2 * _staple(u, mu, 2)
-    return s
 
 
 def _force(u, c1, c2, two: bool):
@@ -275,234 +201,7 @@ def _cool_sweep(u, colours, c1, c2, two: bool, ncol: int, hits: int):
 # -- measurements -------------------------------------------------------------------------------------------
 
 
-def _loop_mask(shape, mu, nu, m, boundary):
-    """Open boundaries: loops at n fit when n_mu, n_nu <= L - 1 - m; periodic: all."""
-    if boundary == "periodic":
-        return np.ones(shape, dtype=bool)
-    idx = np.indices(shape)
-    return (idx[mu] <= shape[mu] - 1 - m) & (idx[nu] <= shape[nu] - 1 - m)
-
-
-def _site_mask(shape, m, boundary):
-    """Open boundaries: sites whose m x m clovers fit (m <= n_mu <= L - 1 - m in every direction)."""
-    if boundary == "periodic":
-        return np.ones(shape, dtype=bool)
-    idx = np.indices(shape)
-    ok = np.ones(shape, dtype=bool)
-    for d in range(4):
-        ok &= (idx[d] >= m) & (idx[d] <= shape[d] - 1 - m)
-    return ok
-
-
-@functools.partial(jax.jit, static_argnames=("m",))
-def _loop_terms(u, m: int):
-    """2 (N - Re tr P^{m x m}) per site and plane; (6, L1..L4)."""
-    n = u.shape[-1]
-    d = [_long(u, mu, m) for mu in range(4)]
-    out = []
-    for mu, nu in PLANES:
-        left = _mm(d[mu], _sh(d[nu], mu, m))
-        right = _mm(d[nu], _sh(d[mu], nu, m))
-        out.append(2.0 * (n - jnp.real(jnp.sum(left * jnp.conj(right), axis=(-2, -1)))))
-    return jnp.stack(out)
-
-
-def _clover_f(u, m: int):
-    """m x m clover F_mu nu at the sites, lattice units (= m^2 a^2 F + O(a^4)); list of 6 (L1..L4, N, N).
-
-    Q = the four m x m loops in the plane that start and end at n, all oriented mu -> nu;
-    F = [(Q - Q^dag) - tr(Q - Q^dag)/N] / 8 (as `instantonkit.lattice.observables.clover_field_strength`).
-    """
-    d = [_long(u, mu, m) for mu in range(4)]
-    out = []
-    for mu, nu in PLANES:
-        dmu, dnu = d[mu], d[nu]
-        dmu_m = _sh(dmu, mu, -m)  # D_mu(n - m mu)
-        dnu_m = _sh(dnu, nu, -m)  # D_nu(n - m nu)
-        q = _mm(_mm(dmu, _sh(dnu, mu, m)), _mm(_dag(_sh(dmu, nu, m)), _dag(dnu)))
-        q = q + _mm(_mm(dnu, _dag(_sh(dmu_m, nu, m))), _mm(_dag(_sh(dnu, mu, -m)), dmu_m))
-        q = q + _mm(_mm(_dag(dmu_m), _dag(_sh(dnu_m, mu, -m))), _mm(_sh(dmu_m, nu, -m), dnu_m))
-        q = q + _mm(_mm(_dag(dnu_m), _sh(dmu, nu, -m)), _mm(_sh(dnu_m, mu, m), _dag(dmu)))
-        out.append(_traceless_antihermitian(q) / 4.0)  # P_ah(Q) = (Q - Q^dag)/2 - ..., F = P_ah(Q)/4
-    return out
-
-
-@functools.partial(jax.jit, static_argnames=("m",))
-def _clover_densities(u, m: int):
-    """(q, s) per site from the m x m clover, lattice units: q = 8 c (tr F12 F34 - tr F13 F24 + tr F14 F23)
-    (c = conventions.CHARGE_DENSITY_FACTOR, eps_1234 = +1) and s = -sum_{mu < nu} tr F_mu nu^2."""
-    f = _clover_f(u, m)
-    q = 8.0 * CHARGE_DENSITY_FACTOR * (_retr(f[0], f[5]) - _retr(f[1], f[4]) + _retr(f[2], f[3]))
-    s = -sum(_retr(x, x) for x in f)
-    return q, s
-
-
-def _links(links):
-    """Checked links (shape, dtype, finite, SU(N) within 1e-8: `instantonkit.core._links.check_links`) as a jax array."""
-    u = _check_links(links)
-    return jnp.asarray(u, dtype=jnp.complex128)
-
-
-def improved_coefficients(eps) -> tuple[float, float]:
-    """(c1, c2) = ((4 - eps)/3, (eps - 1)/48) of S(eps) = c1 S_1 + c2 S_2 (Garcia Perez, Gonzalez-Arroyo,
-    Snippe, van Baal, Nucl. Phys. B 413 (1994) 535)."""
-    e = _v.finite_float("eps", eps)
-    return (4.0 - e) / 3.0, (e - 1.0) / 48.0
-
-
-def loop_action(links, size: int = 1, *, boundary: str = "periodic") -> float:
-    """S_m = sum_n sum_{mu < nu} 2 Re tr(1 - P^{m x m}_{mu nu}(n)) for square loops of side ``size`` = m.
-
-    m = 1 is the Wilson action (beta = 2N); for smooth fields S_m -> m^4 S_cont.  Open boundaries: only
-    loops whose links all join lattice sites.
-
-    Args:
-        links: (L1, L2, L3, L4, 4, N, N) complex.
-        size: 1 or 2 (loop side in lattice units).
-        boundary: 'periodic' or 'open'.
-    Returns:
-        float.
-    Raises:
-        ValueError / TypeError on a bad argument.
-    """
-    u = _links(links)
-    m = _v.positive_int("size", size)
-    _v.choice("boundary", boundary, _BOUNDARIES)
-    return _loop_action(u, m, boundary)
-
-
-def _loop_action(u, m, boundary):
-    """`loop_action` of checked links."""
-    terms = np.asarray(_loop_terms(u, m))
-    shape = u.shape[:4]
-    return float(sum(np.sum(terms[p][_loop_mask(shape, mu, nu, m, boundary)]) for p, (mu, nu) in enumerate(PLANES)))
-
-
-def improved_action(links, eps: float = 0.0, *, boundary: str = "periodic") -> float:
-    """The 1x1 + 2x2 action S(eps) = (4 - eps)/3 S_1 + (eps - 1)/48 S_2 of Garcia Perez, Gonzalez-Arroyo,
-    Snippe and van Baal (Nucl. Phys. B 413 (1994) 535, from memory; the -eps/5 a^2 coefficient is checked by
-    test_improved_action_a2_coefficient_is_minus_eps_over_5); eps = 1 is the Wilson action,
-    eps = 0 has no tree-level a^2 term.  See `loop_action` for S_m and ``boundary``."""
-    c1, c2 = improved_coefficients(eps)
-    u = _links(links)
-    _v.choice("boundary", boundary, _BOUNDARIES)
-    s1 = _loop_action(u, 1, boundary)
-    return c1 * s1 + (c2 * _loop_action(u, 2, boundary) if c2 != 0.0 else 0.0)
-
-
-def _charge_density(u, size, boundary):
-    """Clover charge density of checked links (jax array), NaN outside for open boundaries."""
-    _v.choice("boundary", boundary, _BOUNDARIES)
-    q, _ = _clover_densities(u, size)
-    q = np.asarray(q)
-    return np.where(_site_mask(u.shape[:4], size, boundary), q, np.nan)
-
-
-def loop_clover_charge(links, size: int = 1, *, boundary: str = "periodic") -> float:
-    """Sum over the sites of the charge density of the ``size`` x ``size`` clover (lattice units, so it
-    tends to size^4 Q); size 1 is `instantonkit.lattice.observables.clover_charge`.  Open boundaries: the
-    sites whose clovers fit inside."""
-    m = _v.positive_int("size", size)
-    return float(np.nansum(_charge_density(_links(links), m, boundary)))
-
-
-def improved_charge_density(links, *, boundary: str = "periodic") -> np.ndarray:
-    """q_imp = (4/3) q_1x1 - (1/48) q_2x2 per site; (L1, L2, L3, L4) float64 (lattice units, sum = Q).
-
-    The combination of the 1x1 and 2x2 clover charge densities without tree-level a^2 term
-    (q_mxm = m^4 q + m^6 a^2 X + ...), the charge analogue of the eps = 0 action of Garcia Perez,
-    Gonzalez-Arroyo, Snippe and van Baal (Nucl. Phys. B 413 (1994) 535, from memory; checked by
-    test_improved_charge_is_closer_to_the_continuum_than_clover).  Open boundaries:
-    NaN where the 2x2 clovers leave the lattice.
-    """
-    u = _links(links)
-    q1 = _charge_density(u, 1, "periodic")
-    q2 = _charge_density(u, 2, boundary)
-    return (4.0 / 3.0) * q1 - q2 / 48.0
-
-
-def improved_charge(links, *, boundary: str = "periodic") -> float:
-    """Q_imp = (4/3) Q_1x1 - (1/48) Q_2x2, the sum of `improved_charge_density`."""
-    return float(np.nansum(improved_charge_density(links, boundary=boundary)))
-
-
-def instanton_size(links) -> float:
-    """Size rho/a of a single instanton from moments of the clover action density s (lattice units):
-    (rho/a)^4 = (48/7) sum s / sum s^2.
-
-    For the BPST density s = 48 rho^4 / (x^2 + rho^2)^4 (Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett.
-    B 59 (1975) 85), int s = 8 pi^2 and int s^2 = 48^2 pi^2 / (42 rho^4) (Beta integrals), so the ratio does
-    not depend on where the centre sits relative to the sites (unlike the peak density 48/rho^4).  Periodic
-    lattices; on a lattice the estimate carries the clover's a^2 error (2.34 for a rho/a = 2 start on 12^4,
-    3.27 for rho/a = 3 on 16^4, both with the boundary jump of a periodic start), so compare sizes of one
-    lattice, e.g. along a smoothing run.
-    """
-    u = _links(links)
-    _, s = _clover_densities(u, 1)
-    return float((48.0 / 7.0 * jnp.sum(s) / jnp.sum(s * s)) ** 0.25)
-
-
-@functools.partial(jax.jit, static_argnames=("two",))
-def _measure(u, c1, c2, two: bool):
-    s1 = jnp.sum(_loop_terms(u, 1))
-    s2 = jnp.sum(_loop_terms(u, 2)) if two else 0.0
-    q1, dens = _clover_densities(u, 1)
-    q2, _ = _clover_densities(u, 2)
-    qsum1, qsum2 = jnp.sum(q1), jnp.sum(q2)
-    size = (48.0 / 7.0 * jnp.sum(dens) / jnp.sum(dens * dens)) ** 0.25
-    return jnp.stack([s1, c1 * s1 + c2 * s2, qsum1, (4.0 / 3.0) * qsum1 - qsum2 / 48.0, size])
-
-
 # -- stability -----------------------------------------------------------------------------------------------
-
-#: Real stability interval [-RK3_STABILITY, 0] of every explicit three-stage third-order Runge-Kutta scheme,
-#: whose stability function on dy/dt = lambda y is R(z) = 1 + z + z^2/2 + z^3/6 (Hairer and Wanner, Solving
-#: Ordinary Differential Equations II, Springer 1996, section IV.2, from memory; the root is computed
-#: below and checked by test_the_rk3_stability_bound_is_the_real_root_of_r_equal_minus_one): the real root of R(z) = -1,
-#: 2.5127.  Luescher's integrator reduces to such a scheme on the linearised flow (its stages 1/4, 5/12, 1/3).
-RK3_STABILITY = float(-min(r.real for r in np.roots([1.0 / 6.0, 0.5, 1.0, 2.0]) if abs(r.imag) < 1e-9))
-
-#: Relative rise of the driving action between two measurements above which a run is unstable (rounding of
-#: the lattice sums is ~1e-13 relative).
-ACTION_RISE_TOL = 1e-9
-
-
-@functools.lru_cache(maxsize=64)
-def max_flow_frequency(eps: float = 1.0) -> float:
-    """Largest eigenvalue lambda_max of the gradient flow of S(eps) linearised about the trivial field.
-
-    Small fields A_mu(p) (momentum p, lattice units) flow by dA/dt = -M(p) A with the tree-level kernel
-    M_nu rho = delta_nu rho sum_mu W_mu nu p_mu^2 - W_nu rho p_nu p_rho, p_mu = 2 sin(p_mu / 2), and the
-    plane weights W_mu nu = c1 + c2 (4 cos^2(p_mu / 2)) (4 cos^2(p_nu / 2)) of the 1x1 and 2x2 loops
-    (the 2x2 flux is (1 + e^{i p_mu})(1 + e^{i p_nu}) times the 1x1 flux; common practice).  Maximised over a
-    17^4 grid of [0, pi]^4: 16 for the Wilson flow (the staggered mode, p = pi), 64/3 for eps = 0;
-    tests/test_flow_stability.py checks both against power iteration of the module's own force.
-    """
-    c1, c2 = improved_coefficients(eps)
-    p = np.linspace(0.0, np.pi, 17)
-    grid = np.stack(np.meshgrid(p, p, p, p, indexing="ij"), axis=-1).reshape(-1, 4)
-    ph = 2.0 * np.sin(grid / 2.0)
-    c = 4.0 * np.cos(grid / 2.0) ** 2
-    w = c1 + c2 * c[:, :, None] * c[:, None, :]
-    m = -w * ph[:, :, None] * ph[:, None, :]
-    diag = np.sum(w * (ph**2)[:, :, None], axis=1) - np.diagonal(w, axis1=1, axis2=2) * ph**2
-    m[:, np.arange(4), np.arange(4)] = diag
-    return float(np.max(np.linalg.eigvalsh(m)))
-
-
-def flow_step_bound(eps: float = 1.0) -> float:
-    """Largest stable step of `gradient_flow`: RK3_STABILITY / `max_flow_frequency` (0.157 for the
-    Wilson flow, 0.118 for eps = 0); beyond it the shortest wavelengths grow instead of being damped."""
-    return RK3_STABILITY / max_flow_frequency(_v.finite_float("eps", eps))
-
-
-def _check_rise(prev, cur, kind: str, where: str, advice: str):
-    """Raise when the driving action rose from ``prev`` to ``cur`` beyond rounding (an unstable run)."""
-    if cur - prev > ACTION_RISE_TOL * max(abs(prev), 1.0) or not np.isfinite(cur):
-        raise ValueError(
-            f"the {kind} is unstable: the action S(eps) rose from {prev:.10g} to {cur:.10g} {where}, where it "
-            f"must fall; {advice}"
-        )
 
 
 # -- front doors ---------------------------------------------------------------------------------------------
@@ -562,15 +261,18 @@ def gradient_flow(links, t: float, step: float = 0.01, *, eps: float = 1.0, ever
         `flow_step_bound`, or an action that rises between two measurements (an unstable flow,
         naming the step, the actions before and after and a smaller step).
     """
-    u = _links(links)
     tt = _v.finite_float("t", t)
     if tt < 0:
         raise ValueError(f"t must be >= 0; found {t!r}")
     h = _v.positive_float("step", step)
     every = _v.positive_int("every", every)
     c1, c2 = improved_coefficients(eps)
+    u = _links(links)
     two = c2 != 0.0
-    n = int(math.ceil(tt / h - 1e-9)) if tt > 0 else 0
+    steps = math.ceil(tt / h - 1e-9) if tt > 0 else 0
+    link_count = float(np.prod(u.shape[:5]))
+    _v.bounded_work("t", steps * link_count, f"t / step = {tt:g} / {h:g} = {steps:.3e} steps of {link_count:.0f} links")
+    n = int(steps)
     h = tt / n if n else h
     bound = flow_step_bound(eps)
     if n and h > bound:
@@ -617,7 +319,7 @@ def cool(links, sweeps: int, *, eps: float = 1.0, hits: int = 3, every: int = 1,
 
     Args:
         links: (L1, L2, L3, L4, 4, N, N) complex.
-        sweeps: number of sweeps >= 0.
+        sweeps: number of sweeps >= 1 (sweeps x links x hits at most 1e11 elementary updates).
         eps: the action parameter of `improved_action` (1: Wilson).
         hits: subgroup passes per link for N >= 3 (ignored for SU(2), where one step is exact).
         every: measure after every ``every`` sweeps (and before the first and after the last).
@@ -628,10 +330,13 @@ def cool(links, sweeps: int, *, eps: float = 1.0, hits: int = 3, every: int = 1,
         ValueError / TypeError on a bad argument or lattice shape, links that are not finite SU(N)
         matrices, or an action that rises between two measurements (naming the sweeps and actions).
     """
-    u = _links(links)
-    sweeps = _v.nonnegative_int("sweeps", sweeps)
+    sweeps = _v.positive_int("sweeps", sweeps)
     hits = _v.positive_int("hits", hits)
     every = _v.positive_int("every", every)
+    u = _links(links)
+    link_count = float(np.prod(u.shape[:5]))
+    _v.bounded_work("sweeps", sweeps * link_count, f"{sweeps} sweeps of {link_count:.0f} links")
+    _v.bounded_work("hits", hits * sweeps * link_count, f"{hits} hits in {sweeps} sweeps of {link_count:.0f} links")
     c1, c2 = improved_coefficients(eps)
     two = c2 != 0.0
     shape = u.shape[:4]

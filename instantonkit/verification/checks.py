@@ -43,12 +43,8 @@ from ..integrals.drivers import (  # re-exported: checks is the one place for "i
 )
 from ..integrals.singular import SingularDensityError
 from .evidence import (
-    CLOSED_FORM_TOL,
     PERIODICITY_TOL,
-    CurvatureSample,
-    OsbornField,
     Peak,
-    curvature_sample,
     find_peak,
     osborn_density,
     periodicity_mismatch,
@@ -56,21 +52,23 @@ from .evidence import (
 )
 from .report import (
     FAILED,
-    HOW_CONSTRUCTION,
-    HOW_CURVATURE,
-    HOW_FLUX,
-    HOW_INPUT,
-    HOW_INTEGRAL,
-    HOW_OTHER_RULE,
-    HOW_SURFACE,
     INCONCLUSIVE,
     PASSED,
     Route,
     Row,
     Verification,
     expected_integer,
-    orientation_mistake,
-    signed_offset,
+)
+from .routes import _constraint_value, _inputs, _routes
+from .verdicts import (
+    _NO_BUDGET,
+    _action_findings,
+    _Case,
+    _charge_findings,
+    _curvature_findings,
+    _fmt_point,
+    _undecided,
+    _volume_check,
 )
 
 __all__ = [
@@ -95,55 +93,17 @@ __all__ = [
 #: Points of the final action rule on which the potential's curvature is sampled.
 DEFAULT_SAMPLE_POINTS = 8192
 
-_NO_BUDGET = "correct the potential at the point named: more budget or a centre there cannot make it integrable"
 #: A peak this many scales away from every layout centre means the layout misses the field.
 _FAR = 3.0
-#: A peak this many times higher than the largest s on the sampled rule lies between its shells.
-_BETWEEN = 4.0
 
 
 # -- verify ------------------------------------------------------------------------------------------
 
 
-@dataclasses.dataclass
-class _Case:
-    """What verify accumulates: failures (-> FAILED), doubts (-> INCONCLUSIVE), advice and rows."""
-
-    failures: list = dataclasses.field(default_factory=list)
-    doubts: list = dataclasses.field(default_factory=list)
-    advice: list = dataclasses.field(default_factory=list)
-    rows: list = dataclasses.field(default_factory=list)
-    routes: list = dataclasses.field(default_factory=list)
-    nearest: int | None = None
-    margin: float | None = None
-    margin_error: float | None = None
-    margin_how: str = ""
-    bound: bool | None = None
-    saturated: bool | None = None
-    sign: int = 1
-    sample: CurvatureSample | None = None
-    peak: Peak | None = None
-
-    def advise(self, text: str) -> None:
-        if text not in self.advice:
-            self.advice.append(text)
-
-    @property
-    def verdict(self) -> str:
-        return FAILED if self.failures else INCONCLUSIVE if self.doubts else PASSED
-
-
-def _judge(deviation: float, error: float, tol: float) -> str:
-    """'agrees' when deviation + error <= tol, 'DISAGREES' when deviation - error > tol, else 'undecided'."""
-    if deviation + error <= tol:
-        return "agrees"
-    return "DISAGREES" if deviation - error > tol else "undecided"
-
-
 def _budget(max_points, declared, layout: Layout) -> int:
     """The budget per integral: given, or DEFAULT_MAX_POINTS x max(1, |declared charge|, number of centres)."""
     if max_points is not None:
-        return _validate.positive_int("max_points", max_points)
+        return _validate.budget("max_points", max_points)
     k = abs(int(declared)) if declared is not None else 1
     return DEFAULT_MAX_POINTS * max(1, k, layout.centres.shape[0])
 
@@ -198,11 +158,17 @@ def verify(
         raise ValueError(f"rtol must be finite and >= 0; found {rtol!r}")
     atol = charge_tol / 4.0 if atol is None else _validate.positive_float("atol", atol)
     _validate.choice("charge_method", charge_method, ("auto", "closed", "autodiff"))
-    sample_points = _validate.positive_int("sample_points", sample_points)
+    sample_points = _validate.budget("sample_points", sample_points)
     layout = layout_of(field, center, scale, period)
     declared = _fields.hook(field, "charge")
     budget = _budget(max_points, declared, layout)
     expected_charge = expected_integer(expected_charge)
+    if expected_charge is not None and abs(expected_charge) * DEFAULT_MAX_POINTS > _validate.MAX_POINTS:
+        raise ValueError(
+            f"expected_charge must be at most {_validate.MAX_POINTS // DEFAULT_MAX_POINTS} in size: the default budget "
+            f"({DEFAULT_MAX_POINTS:,} points a unit of charge) would exceed {_validate.MAX_POINTS:.0e} points; "
+            f"found {expected_charge}"
+        )
     case = _Case()
     kw = dict(rtol=rtol, atol=atol, max_points=budget, progress=progress)
     charge = action = check = None
@@ -263,10 +229,6 @@ def _report(field, case: _Case, charge, action, layout: Layout, expected, budget
     )
 
 
-def _fmt_point(p) -> str:
-    return "(" + ", ".join(f"{float(v):.3g}" for v in np.asarray(p)) + ")"
-
-
 def _periodic_ok(field, layout: Layout, case: _Case) -> bool:
     """Before integrating over one period: are the densities periodic with it?  False (FAILED) if not."""
     if layout.period is None:
@@ -308,12 +270,6 @@ def _locate(field, layout: Layout, case: _Case) -> Peak | None:
             f"(command line: --center {','.join(f'{v:.3g}' for v in peak.point)} --scale {peak.width:.2g})"
         )
     return peak
-
-
-def _undecided(check: IntegralResult, charge: IntegralResult, tol: float) -> bool:
-    """Whether a converged volume check of S / 8 pi^2 can neither confirm nor refute |Q| to ``tol``."""
-    dev = abs(check.value / INSTANTON_ACTION - abs(charge.value))
-    return check.converged and _judge(dev, check.error / INSTANTON_ACTION + charge.error, tol) == "undecided"
 
 
 def _integrals(field, layout: Layout, charge_method: str, kw: dict, sample_points: int, case: _Case, tol: float):
@@ -368,296 +324,3 @@ def _integrals(field, layout: Layout, charge_method: str, kw: dict, sample_point
             f"raise the budget (max_points >= {need.group(1) if need else 'the first round'}; command line --budget)"
         )
     return charge, action, rule, check
-
-
-def _how(res: IntegralResult) -> str:
-    return HOW_FLUX if res.route == "osborn" else HOW_INTEGRAL
-
-
-def _action_route(case: _Case, res: IntegralResult, charge, tol: float, name: str, how: str, label: str, mismatch):
-    """Add the route row of an action integral ``res`` (S / 8 pi^2, signed by Q) against the charge Q.
-
-    An integral that disagrees beyond the error bars fails with ``mismatch(value, error)``, converged or
-    not; a converged one that cannot be decided is a doubt naming ``label`` (for a non-converged one
-    the caller says why and advises).
-    """
-    val, err = case.sign * res.value / INSTANTON_ACTION, res.error / INSTANTON_ACTION  # s = 8 pi^2 |q|
-    status = _judge(abs(val - charge.value), err + charge.error, tol)  # the error bar decides, whatever the budget
-    if status == "DISAGREES":
-        case.failures.append(mismatch(val, err))
-    elif res.converged and status == "undecided":
-        case.doubts.append(f"{label} {val:.10g} +- {err:.1e} and Q cannot be decided to {tol:.0e}")
-    note = "s = 8 pi^2 |q|, sign from Q" + ("" if res.converged else "; NOT converged")
-    agrees = {"agrees": True, "DISAGREES": False}.get(status)
-    _route_row(case, Route(name, val, err, True, agrees, note, how), status)
-
-
-def _volume_check(case: _Case, check: IntegralResult, charge: IntegralResult, budget: int, tol: float) -> None:
-    """The volume integral of s against the flux figure of Q: a disagreement beyond the error bars fails."""
-    if not check.converged:
-        _not_converged(case, "volume check", check, budget)
-    _action_route(
-        case,
-        check,
-        charge,
-        tol,
-        "volume integral of s / 8 pi^2 (checks the flux figures)",
-        HOW_INTEGRAL,
-        "the volume check",
-        lambda val, err: (
-            f"the volume integral of s gives S/8pi^2 = {val:.10g} +- {err:.1e}, not the flux figure Q = "
-            f"{charge.value:.10g} +- {charge.error:.1e}: the closed-form density or the quadrature is wrong"
-        ),
-    )
-
-
-def _not_converged(case: _Case, what: str, res: IntegralResult, budget: int) -> None:
-    case.doubts.append(f"{what} integral not converged: {res.message or 'error above tolerance'}")
-    if "density is singular at" in res.message:  # integrable but slow: say so rather than only more budget
-        case.advise("the density grows like a power near the point named: check the potential's factor and sign there")
-    if any(_NO_BUDGET in a for a in case.advice):  # a non-integrable point: neither budget nor hints help
-        return
-    case.advise(f"raise the budget (max_points={4 * budget:,}; command line --budget {4 * budget})")
-    if case.peak is None or not any("poorly resolved" in a for a in case.advice):
-        case.advise("or give hints where the action sits (center=..., scale=...; --center, --scale)")
-
-
-def _charge_findings(case: _Case, charge: IntegralResult, expected, declared, tol: float, budget: int) -> None:
-    """Nearest integer, |Q - n| against tolerance and error bar, the expected and the declared charge."""
-    q, e = charge.value, charge.error
-    how = _how(charge)
-    case.rows.append(Row("topological charge Q", q, e, how, "", "" if charge.converged else "NOT converged"))
-    if not charge.converged:
-        _not_converged(case, "charge", charge, budget)
-    n = int(round(q)) if e < 0.5 else None  # an error bar of 1/2 or more names no nearest integer
-    want = expected if expected is not None else declared
-    case.sign = -1 if (n if n is not None else want if want is not None else q) < 0 else 1
-    if n is None:
-        case.doubts.append(f"Q = {q:.6g} +- {e:.1e}: the error bar is too wide to name the nearest integer")
-    else:
-        case.nearest, status = n, _judge(abs(q - n), e, tol)
-        case.rows.append(Row(signed_offset("Q", n), abs(q - n), e, how, status, f"tolerance {tol:.0e}"))
-        if status == "DISAGREES":  # whatever the budget: the error bar is part of the rule
-            case.failures.append(
-                f"charge is not an integer: Q = {q:.10g} +- {e:.1e}, {signed_offset('Q', n)} = {abs(q - n):.2e} "
-                f"exceeds the tolerance {tol:.0e} by more than the error bar"
-            )
-        elif status == "undecided" and charge.converged:
-            case.doubts.append(
-                f"the error bar of Q ({e:.1e}) is too wide to decide {signed_offset('Q', n)} = {abs(q - n):.2e} "
-                f"against the tolerance {tol:.0e}"
-            )
-            case.advise(
-                f"tighten atol (e.g. atol={tol / 10:.0e}) with more budget, or loosen charge_tol to {abs(q - n) + e:.0e}"
-            )
-        if n == 0 and abs(q) + e < 0.5:
-            case.failures.append("charge 0: not an instanton")
-    for want, what in ((expected, "the expected"), (declared, "the construction's (input)")):
-        if want is None or n == int(want):
-            continue
-        off, label = abs(q - int(want)), f"charge {n}" if n is not None else f"Q = {q:.10g} +- {e:.1e}"
-        if n is None:
-            case.rows.append(Row(signed_offset("Q", int(want)), off, e, how, _judge(off, e, tol), f"{what} charge"))
-        if off - e > tol:
-            flip = orientation_mistake(q, e, int(want), tol)
-            case.failures.append(flip or f"{label} differs from {what} {int(want)}")
-    if declared is not None:
-        case.rows.append(Row("charge declared by the construction", float(declared), None, HOW_INPUT, "input"))
-
-
-def _action_findings(case: _Case, action: IntegralResult, charge, budget: int) -> None:
-    units, err = action.value / INSTANTON_ACTION, action.error / INSTANTON_ACTION
-    case.rows.append(
-        Row("action S / 8 pi^2", units, err, _how(action), "", "" if action.converged else "NOT converged")
-    )
-    if not action.converged:
-        _not_converged(case, "action", action, budget)
-
-
-def _curvature_findings(case: _Case, field, charge, action, rule, charge_method: str, tol: float) -> None:
-    """Closed forms vs the potential's curvature; the margin and the residual from that curvature."""
-    try:
-        case.sample = s = curvature_sample(field, rule.points, rule.weights, case.sign)
-    except FieldEvaluationError as err:
-        case.failures.append(str(err))
-        return
-    peak = case.peak
-    if peak is not None and peak.value > _BETWEEN * s.s_max and not any("poorly resolved" in a for a in case.advice):
-        case.advise(
-            f"the integrand is poorly resolved: the action density peaks between the rule's shells, at "
-            f"{_fmt_point(peak.point)} with s = {peak.value:.3g}, while the largest s on the rule's points is "
-            f"{s.s_max:.3g}; pass center={_fmt_point(peak.point)}, scale={peak.width:.2g} or more budget"
-        )
-    for name, dev in s.deviations.items():
-        ok = dev <= CLOSED_FORM_TOL
-        case.rows.append(
-            Row(
-                f"closed-form {name.replace('_', ' ')} vs curvature of A",
-                dev,
-                None,
-                HOW_CURVATURE,
-                "agrees" if ok else "DISAGREES",
-                "max relative difference",
-            )
-        )
-        if not ok:
-            case.failures.append(
-                f"the closed-form {name} is not the curvature of the potential: it differs from the autodiff "
-                f"curvature of A by {dev:.2e} (relative, largest at x = {_fmt_point(s.worst[name])})"
-            )
-    units, u_err = action.value / INSTANTON_ACTION, action.error / INSTANTON_ACTION
-    m_int, e_int = units - abs(charge.value), u_err + charge.error
-    by_construction = s.q_is_s and charge_method == "auto"
-    rel_rule = abs(s.weight_s - action.value) / max(abs(action.value), 1e-300)
-    m_s = s.margin
-    e_s = abs(m_s) * min(1.0, rel_rule) + 1e-12 * max(units, 1.0)
-    label = "Bogomolny margin S/8pi^2 - |Q|"
-    if by_construction:
-        case.rows.append(
-            Row(
-                label + " (integrals)",
-                m_int,
-                e_int,
-                HOW_CONSTRUCTION,
-                "by construction",
-                "the closed-form q is s / 8 pi^2",
-            )
-        )
-        case.margin, case.margin_error, case.margin_how = m_s, e_s, HOW_CURVATURE
-    else:
-        case.margin, case.margin_error, case.margin_how = m_int, e_int, HOW_INTEGRAL
-    status = _judge(abs(case.margin), case.margin_error, tol)
-    case.bound = case.margin >= -case.margin_error - 1e-12
-    case.saturated = status == "agrees"
-    duality = "self-dual" if case.sign > 0 else "anti-self-dual"
-    case.rows.append(Row(label, case.margin, case.margin_error, case.margin_how, status, f"tolerance {tol:.0e}"))
-    if not by_construction:
-        case.rows.append(Row(label + " on the rule", m_s, e_s, HOW_CURVATURE, "", "cross-check"))
-    if not case.bound:
-        case.failures.append(f"Bogomolny bound violated: S/8pi^2 - |Q| = {case.margin:.3e} +- {case.margin_error:.1e}")
-    elif status == "DISAGREES":
-        case.failures.append(f"not {duality}: S/8pi^2 - |Q| = {case.margin:.3e} +- {case.margin_error:.1e} > {tol:.0e}")
-    elif status == "undecided":
-        case.doubts.append(
-            f"the Bogomolny margin {case.margin:.2e} +- {case.margin_error:.1e} cannot be decided against {tol:.0e}"
-        )
-    res_status = "agrees" if s.residual_mean <= tol else "DISAGREES"
-    what = "self-duality" if case.sign > 0 else "anti-self-duality"
-    case.rows.append(
-        Row(
-            f"{what} residual |F {'-' if case.sign > 0 else '+'} *F|/|F|, max",
-            s.residual_max,
-            None,
-            HOW_CURVATURE,
-            "",
-            f"{s.points:,} points",
-        )
-    )
-    case.rows.append(
-        Row(
-            f"{what} residual, s-weighted mean",
-            s.residual_mean,
-            None,
-            HOW_CURVATURE,
-            res_status,
-            f"tolerance {tol:.0e}",
-        )
-    )
-    if res_status == "DISAGREES":
-        case.failures.append(f"not {duality}: {what} residual (s-weighted mean) {s.residual_mean:.3e} > {tol:.0e}")
-
-
-def _constraint_value(field) -> float | None:
-    residual = _fields.hook(field, "constraint_residual")
-    return None if residual is None else float(residual())
-
-
-def _inputs(field, case: _Case, constraint_tol: float) -> None:
-    """Facts of the construction: the constraint residual and pole counts (rows that cannot agree)."""
-    cres = _constraint_value(field)
-    if cres is not None:
-        case.rows.append(
-            Row("ADHM constraint residual", cres, None, HOW_CONSTRUCTION, "by construction", "enforced at construction")
-        )
-        if cres > constraint_tol:
-            case.failures.append(f"ADHM constraint residual {cres:.3e} > {constraint_tol:.0e}")
-    pole_count = _fields.hook(field, "pole_count")
-    if pole_count is not None:
-        count, text = pole_count()
-        case.rows.append(Row(f"pole count: {text}", float(count), None, HOW_INPUT, "input"))
-        case.routes.append(
-            Route(text, float(count), None, False, None, "the number of poles given as input", HOW_INPUT)
-        )
-
-
-def _only_potential(field) -> bool:
-    """True when the field offers no hook beyond ``describe``: a bare potential (a user callable, say)."""
-    return all(_fields.hook(field, name) is None for name in _fields.HOOKS if name != "describe")
-
-
-def _route_row(case: _Case, route: Route, status: str) -> None:
-    case.routes.append(route)
-    case.rows.append(Row(f"route: {route.name}", route.value, route.error, route.how, status, route.note))
-
-
-def _osborn_route(case: _Case, field, charge, layout: Layout, kw: dict, tol: float) -> None:
-    """Q from the integral of Osborn's density on another rule (shifted centres, larger scales)."""
-    name = "Osborn density -1/2 box box log det(D^dag D)"
-    shift = 0.1 * layout.scales[:, None] * np.array([0.5, -0.5, 0.5, 0.5])
-    other = Layout(layout.centres + shift, 1.25 * layout.scales, layout.period, "shifted, rescaled layout")
-    try:
-        req = DensityRequest(
-            "action_density", name="Osborn action", label="Osborn density", atol=kw["atol"] * INSTANTON_ACTION
-        )
-        res = integrate(OsbornField(field), (req,), other, **kw).results[0]
-    except (DivergentIntegralError, FieldEvaluationError) as e:
-        case.failures.append(f"the Osborn route failed: {e}")
-        _route_row(case, Route(name, None, None, True, False, str(e), HOW_OTHER_RULE), "DISAGREES")
-        return
-    if not res.converged:
-        case.doubts.append(f"the Osborn route did not converge: {res.message}")
-        budget = kw["max_points"]
-        case.advise(
-            f"raise the budget (max_points={4 * budget:,}; command line --budget {4 * budget}), or routes=False"
-        )
-    _action_route(
-        case,
-        res,
-        charge,
-        tol,
-        name,
-        HOW_OTHER_RULE,
-        "the Osborn route",
-        lambda val, err: (
-            f"the integral of Osborn's density on another rule gives {val:.10g} +- {err:.1e}, "
-            f"not Q = {charge.value:.10g} +- {charge.error:.1e} (quadrature error beyond tolerance)"
-        ),
-    )
-
-
-def _routes(case: _Case, field, charge, layout: Layout, kw, tol, winding, checked: bool = False) -> None:
-    """Osborn's density for fields with ``gram`` (unless the volume check ran); the sphere flux for smooth
-    and bare potentials."""
-    if _fields.hook(field, "gram") is not None and not checked:
-        _osborn_route(case, field, charge, layout, kw, tol)
-    declared = _fields.hook(field, "charge")
-    is_adhm = _fields.hook(field, "constraint_residual") is not None
-    smooth = getattr(field, "gauge", None) == "regular" and (
-        not is_adhm or (declared is not None and abs(declared) == 1)
-    )
-    if winding is None:
-        winding = smooth or _only_potential(field)
-    if not winding or layout.period is not None:
-        return
-    name = "Chern-Simons flux at infinity"
-    note = "" if smooth else "equals Q only for a potential smooth everywhere (not decisive)"
-    try:
-        val, err = surface_winding(field)
-    except FieldEvaluationError as e:
-        _route_row(case, Route(name, None, None, bool(smooth), None, str(e), HOW_SURFACE), "undecided")
-        return
-    status = _judge(abs(val - charge.value), err + charge.error, max(tol, 10.0 * err))
-    if smooth and status == "DISAGREES":
-        case.failures.append(f"the sphere flux {val:.10g} +- {err:.1e} disagrees with Q = {charge.value:.10g}")
-    agrees = {"agrees": True, "DISAGREES": False}.get(status)
-    _route_row(case, Route(name, val, err, bool(smooth), agrees, note, HOW_SURFACE), status if smooth else "")
