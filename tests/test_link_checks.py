@@ -140,7 +140,8 @@ def test_an_ildg_payload_with_inf_bytes_is_refused_on_load(tmp_path, mmap):
         fh.seek(rec["offset"] + 16 * 40)  # the real part of one matrix entry (big-endian float64)
         fh.write(struct.pack(">d", np.inf))
     with pytest.raises(
-        ValueError, match=r"links of '.*links\.ildg' must be finite; found 1 NaN or inf entry in 1 of 64"
+        ValueError,
+        match=r"links of the file at path '.*links\.ildg' must be finite; found 1 NaN or inf entry in 1 of 64",
     ):
         ik.load_lattice(path, mmap=mmap)
 

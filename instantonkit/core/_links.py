@@ -94,7 +94,7 @@ def _block_deviation(u):
 def _slabs(u):
     """Yield (t0, slab) with slab = u[:, :, :, t0:t1] as a numpy array (bounded memory for memmaps)."""
     l4 = u.shape[3]
-    per_t = max(1, u[:, :, :, :1].nbytes)
+    per_t = max(1, u.nbytes // max(1, l4))  # without indexing: a memmap is read only slab by slab
     step = max(1, min(l4, _SLAB_BYTES // per_t))
     for t0 in range(0, l4, step):
         yield t0, np.asarray(u[:, :, :, t0 : t0 + step])
