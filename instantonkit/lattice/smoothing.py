@@ -45,6 +45,7 @@ import numpy as np
 
 from ..core import _progress
 from ..core import _validate as _v
+from ..core.conventions import CHARGE_DENSITY_FACTOR  # noqa: F401  (kept importable here)
 from .loops import (  # re-exported: the measurements the flows and cooling drive
     _dag,
     _links,
@@ -60,6 +61,7 @@ from .loops import (  # re-exported: the measurements the flows and cooling driv
     loop_action,
     loop_clover_charge,
 )
+from .observables import PLANES  # noqa: F401  (kept importable here)
 from .stability import ACTION_RISE_TOL, RK3_STABILITY, _check_rise, flow_step_bound, max_flow_frequency  # noqa: F401
 
 __all__ = [

@@ -42,22 +42,35 @@ from ..integrals.drivers import (  # re-exported: checks is the one place for "i
     uses_flux,
 )
 from ..integrals.singular import SingularDensityError
-from .evidence import (
+from .evidence import (  # noqa: F401  (kept importable here)
+    CLOSED_FORM_TOL,
     PERIODICITY_TOL,
+    CurvatureSample,
+    OsbornField,
     Peak,
+    curvature_sample,
     find_peak,
     osborn_density,
     periodicity_mismatch,
     surface_winding,
 )
-from .report import (
+from .report import (  # noqa: F401  (kept importable here)
     FAILED,
+    HOW_CONSTRUCTION,
+    HOW_CURVATURE,
+    HOW_FLUX,
+    HOW_INPUT,
+    HOW_INTEGRAL,
+    HOW_OTHER_RULE,
+    HOW_SURFACE,
     INCONCLUSIVE,
     PASSED,
     Route,
     Row,
     Verification,
     expected_integer,
+    orientation_mistake,
+    signed_offset,
 )
 from .routes import _constraint_value, _inputs, _routes
 from .verdicts import (
