@@ -284,7 +284,7 @@ def default_origin(field, shape, spacing) -> np.ndarray:
 
 def resolve_origin(field, shape, spacing, origin) -> np.ndarray:
     """``origin`` as a checked (4,) float64 point, or `default_origin` when it is None; ValueError naming the value."""
-    org = default_origin(field, shape, spacing) if origin is None else _v.point("origin", origin)
+    org = default_origin(field, shape, spacing) if origin is None else _v.real_array("origin", origin)
     if org.shape != (4,) or not np.all(np.isfinite(org)):
         raise ValueError(f"origin must be a finite point of shape (4,); found {np.asarray(origin).tolist()!r}")
     return org

@@ -628,7 +628,7 @@ def boundary_mismatch(
     shape = tuple(links.shape[:4])
     n = links.shape[-1]
     a = _v.positive_float("spacing", spacing)
-    org = default_origin(field, shape, a) if origin is None else _v.point("origin", origin)
+    org = resolve_origin(field, shape, a, origin)
     figs: list = [(None, None, None)] * 4  # (mismatch, action error, wrapped action) per direction
     for mu in range(4):
         lm = shape[mu]
