@@ -14,6 +14,7 @@ import instantonkit as ik
 from instantonkit.engine import fields
 from instantonkit.lattice import (
     references,
+    sites,  # links of sites near a singular point
     transport,  # the Magnus step itself, checked against scipy
 )
 from instantonkit.lattice import starts as lat
@@ -739,5 +740,5 @@ def test_bpst_field_links_ask_for_the_transition_only_near_its_centre():
     # without a layout hook the hint's one centre and scale mark where the singular gauge may be
     # singular; the gauge_twin transition is evaluated only there (before: at every site)
     pts = np.array([[0.0, 0.0, 0.0, 0.1], [3.0, 0.0, 0.0, 0.0], [0.0, -2.0, 2.0, 0.0]])
-    near = transport._near_centres(ik.bpst_field(size=1.0, gauge="singular"), pts, 0.5)
+    near = sites._near_centres(ik.bpst_field(size=1.0, gauge="singular"), pts, 0.5)
     assert near.tolist() == [True, False, False]

@@ -42,13 +42,9 @@ in quadrature.  chi2 / dof is a goodness-of-fit statement only when ``sigma`` (t
 
 from __future__ import annotations
 
-import dataclasses
 from typing import Any
 
-import jax
-import jax.numpy as jnp
 import numpy as np
-import scipy.optimize
 
 from ..adhm.moduli import multi_instanton
 from ..adhm.unitary_moduli import unitary_multi_instanton
@@ -57,7 +53,18 @@ from ..core.conventions import INSTANTON_ACTION
 from ..engine.fields import action_density, as_points
 from ..engine.transforms import PARITY
 from .moduli_fit import fit_exact
-from .peaks import BPST_PEAK, count_peaks, count_signed_peaks, sample_spacing
+from .peaks import count_peaks, count_signed_peaks, sample_spacing
+from .results import InstantonFit, MixedFit
+from .superposition import (
+    _MAX_CONDITION,
+    _PARAMS_PER_INSTANTON,
+    _covariance,
+    _fit_superposition,
+    _greedy_start,
+    _match,
+    _quad,
+    superposition_density,
+)
 from .unitary_fit import fit_unitary
 
 __all__ = [
@@ -71,25 +78,6 @@ __all__ = [
 
 _QUANTITIES = ("action", "charge")
 _MODELS = ("exact", "superposition")
-
-#: Peak of one BPST action density: s(a) = _BPST_PEAK / rho^4 (Belavin, Polyakov, Schwartz, Tyupkin,
-#: Phys. Lett. B 59 (1975) 85), used to read a size off a peak.
-_BPST_PEAK = BPST_PEAK
-
-#: Fitted parameters per instanton: the centre (4) and log rho (1); the fit needs more samples than 5 k.
-_PARAMS_PER_INSTANTON = 5
-
-#: xtol, ftol and gtol of the least-squares fit: near float64 rounding, so the fit stops at the optimum.
-_FIT_TOL = 1e-14
-
-#: Function evaluations allowed per fitted parameter (the Levenberg-Marquardt fit needs a few tens).
-_NFEV_PER_PARAM = 200
-
-#: Floor of a peak height before dividing by it (an exhausted residual density gives a huge size, not inf).
-_TINY = 1e-300
-
-#: Condition number of J^T J above which the curvature counts as near-singular (ambiguous fit).
-_MAX_CONDITION = 1e12
 
 #: The exact fit uses the samples above this fraction of the peak (where the moduli are measured; the
 #: far tail costs time and adds little).
@@ -107,123 +95,6 @@ _OPPOSITE_FRACTION = 0.05
 
 #: SU(N > 2) model error of the superposition: refits of this many exact SU(N) densities (random orientations).
 _SUN_DRAWS = 3
-
-
-def superposition_density(points, centers, sizes):
-    """Sum of BPST action densities 48 rho_i^4 / (|x - a_i|^2 + rho_i^2)^4.
-
-    points: (M, 4); centers: (k, 4); sizes: (k,) -> (M,) (numpy or jax, traceable).
-    """
-    d2 = jnp.sum((points[:, None, :] - centers[None, :, :]) ** 2, axis=-1)
-    r2 = sizes[None, :] ** 2
-    return jnp.sum(_BPST_PEAK * r2**2 / (d2 + r2) ** 4, axis=1)
-
-
-@dataclasses.dataclass(frozen=True)
-class InstantonFit:
-    """Result of `find_instantons`.
-
-    centers: (k, 4) float64; sizes: (k,) float64; orientations: (k, 4) unit quaternions u_j relative to
-    u_1 (row 0 = 1; each row up to sign) from the exact model, None for the superposition model; for
-    SU(N > 2) (k, N, N) complex unitary g_i of the fitted data (g_1 the fixed reference), a representative
-    determined only up to gauge and stabilisers;
-    uncertainties: {'centers': (k, 4), 'sizes': (k,)[, 'orientations': (k, 4)]} total one-sigma errors,
-    the quadrature sum of ``statistical`` (noise, from the curvature of the fit) and ``systematic``
-    (model error, see the module docstring); error_budget: a sentence saying which is which;
-    data: fitted ADHMData (exact model) or ADHM data of the fitted centres and sizes with trivial
-    orientations (superposition), None when the constraint could not be solved; ambiguous: bool;
-    reasons: tuple of str; sign: +1 / -1; rms: relative rms residual of the reported model;
-    chi2_dof: sum w r^2 / dof (a goodness of fit only when the noise ``sigma`` was given);
-    explains_noise: True / False when the noise was given (chi2 / dof within 5 sigma of 1), else None;
-    n_peaks: distinct peaks found; model: 'exact' or 'superposition'; superposition: the superposition
-    fit {'centers', 'sizes'} the exact fit started from; notes: tuple of str, decisions taken before the
-    fit (e.g. the colour rank inferred from links by `instantonkit.fit.lattice_fit.find_lattice_instantons`).
-    """
-
-    centers: np.ndarray
-    sizes: np.ndarray
-    uncertainties: dict
-    data: object
-    ambiguous: bool
-    reasons: tuple
-    sign: int
-    rms: float
-    n_peaks: int
-    quantity: str
-    orientations: Any = None
-    statistical: dict = dataclasses.field(default_factory=dict)
-    systematic: dict = dataclasses.field(default_factory=dict)
-    error_budget: str = ""
-    model: str = "superposition"
-    chi2_dof: float = float("nan")
-    explains_noise: object = None
-    superposition: dict = dataclasses.field(default_factory=dict)
-    notes: tuple = ()
-
-    @property
-    def k(self) -> int:
-        """Number of fitted instantons."""
-        return int(self.sizes.shape[0])
-
-    def summary(self) -> str:
-        """A readable table: one row per instanton with centre, size and their one-sigma errors."""
-        kind = "instanton" if self.sign == 1 else "anti-instanton"
-        model = "exact ADHM model" if self.model == "exact" else "BPST superposition model"
-        lines = [
-            (
-                f"{self.k} {kind}(s) fitted to {self.quantity} density samples "
-                f"({model}; relative rms residual {self.rms:.2e}; {self.n_peaks} distinct peak(s))"
-            ),
-            f"{'#':>3} {'x1':>10} {'x2':>10} {'x3':>10} {'x4':>10} {'size':>10} {'+-centre':>10} {'+-size':>10}",
-        ]
-        dc = self.uncertainties["centers"]
-        ds = self.uncertainties["sizes"]
-        for i in range(self.k):
-            c = " ".join(f"{v:10.4f}" for v in self.centers[i])
-            lines.append(f"{i:>3} {c} {self.sizes[i]:10.4f} {np.max(dc[i]):10.2e} {ds[i]:10.2e}")
-        if self.orientations is None:
-            lines.append("orientations: not determined (the superposition model does not depend on them)")
-        elif np.ndim(self.orientations) == 3:
-            n = np.shape(self.orientations)[1]
-            lines.append(f"orientations: a fitted SU({n}) representative (up to gauge and stabilisers), see data")
-        else:
-            for i in range(self.k):
-                lines.append(f"orientation {i} (relative to 0): " + " ".join(f"{v:8.4f}" for v in self.orientations[i]))
-        if self.explains_noise is not None:
-            verdict = "explains" if self.explains_noise else "does NOT explain"
-            lines.append(f"chi2/dof = {self.chi2_dof:.3f}: the model {verdict} the density to its noise level")
-        lines.append(f"errors: {self.error_budget}")
-        lines.extend(f"note: {n}" for n in self.notes)
-        if self.ambiguous:
-            lines.append("AMBIGUOUS fit:")
-            lines.extend(f"  - {r}" for r in self.reasons)
-        else:
-            lines.append("fit is unambiguous")
-        return "\n".join(lines)
-
-    def __str__(self) -> str:
-        return self.summary()
-
-
-@dataclasses.dataclass(frozen=True)
-class MixedFit:
-    """Result of `find_instantons` with k = (k_plus, k_minus) on a charge density of both signs.
-
-    instantons, anti_instantons: `InstantonFit` (superposition model, fitted jointly to
-    q = (sum_+ s_i - sum_- s_j) / 8 pi^2; an instanton-anti-instanton pair is not self-dual, so there
-    are no exact ADHM data for the whole); rms: relative rms residual of the joint fit.
-    """
-
-    instantons: InstantonFit
-    anti_instantons: InstantonFit
-    rms: float
-
-    def summary(self) -> str:
-        """Both tables, instantons first."""
-        return self.instantons.summary() + "\n\n" + self.anti_instantons.summary()
-
-    def __str__(self) -> str:
-        return self.summary()
 
 
 # -- input checks -----------------------------------------------------------------------------------
@@ -257,91 +128,6 @@ def _to_action(d: np.ndarray, quantity: str) -> tuple[np.ndarray, int]:
         return d, 1
     sign = 1 if np.sum(d) >= 0 else -1
     return sign * d * INSTANTON_ACTION, sign
-
-
-def _greedy_start(pts: np.ndarray, s: np.ndarray, k: int, peaks=None):
-    """Start centres and sizes: the k tallest distinct peaks (sizes from their heights), then greedy subtraction."""
-    centers: list = []
-    sizes: list = []
-    rest = s.copy()
-    if peaks is not None:
-        for c, h in zip(*peaks):
-            if len(centers) == k:
-                break
-            rho = (_BPST_PEAK / max(h, _TINY)) ** 0.25
-            centers.append(c)
-            sizes.append(rho)
-            rest = rest - np.asarray(superposition_density(pts, c[None], np.array([rho])))
-    while len(centers) < k:
-        i = int(np.argmax(rest))
-        rho = (_BPST_PEAK / max(rest[i], _TINY)) ** 0.25
-        centers.append(pts[i])
-        sizes.append(rho)
-        rest = rest - np.asarray(superposition_density(pts, pts[i][None], np.array([rho])))
-    return np.array(centers), np.array(sizes)
-
-
-# -- the superposition fit ---------------------------------------------------------------------------
-
-
-def _unpack(theta, k):
-    t = theta.reshape(k, _PARAMS_PER_INSTANTON)
-    return t[:, :4], jnp.exp(t[:, 4])
-
-
-def _fit_superposition(pts, s, sw, c0, r0, signs=None):
-    """Least squares of the (signed) BPST superposition; returns (centres, sizes, cov, sol, var)."""
-    k = c0.shape[0]
-    theta0 = np.concatenate([c0, np.log(r0)[:, None]], axis=1).reshape(-1)
-    pts_j, s_j, sw_j = jnp.asarray(pts), jnp.asarray(s), jnp.asarray(sw)
-    sg = jnp.ones(k) if signs is None else jnp.asarray(signs, dtype=float)
-
-    def resid(theta):
-        c, r = _unpack(theta, k)
-        d2 = jnp.sum((pts_j[:, None, :] - c[None, :, :]) ** 2, axis=-1)
-        r2 = r[None, :] ** 2
-        model = jnp.sum(sg[None, :] * _BPST_PEAK * r2**2 / (d2 + r2) ** 4, axis=1)
-        return sw_j * (model - s_j)
-
-    f = jax.jit(resid)
-    jac = jax.jit(jax.jacfwd(resid))
-    npar = _PARAMS_PER_INSTANTON * k
-    sol = scipy.optimize.least_squares(
-        lambda t: np.asarray(f(jnp.asarray(t))),
-        theta0,
-        jac=lambda t: np.asarray(jac(jnp.asarray(t))),
-        method="lm",
-        xtol=_FIT_TOL,
-        ftol=_FIT_TOL,
-        gtol=_FIT_TOL,
-        max_nfev=_NFEV_PER_PARAM * (npar + 1),
-    )
-    c, r = (np.asarray(a) for a in _unpack(jnp.asarray(sol.x), k))
-    return c, r, sol
-
-
-def _covariance(jmat, scale):
-    """(J^T J)^-1 * scale and the condition number (pinv when near-singular)."""
-    jtj = jmat.T @ jmat
-    cond = float(np.linalg.cond(jtj))
-    inv = np.linalg.pinv(jtj) if not np.isfinite(cond) or cond > _MAX_CONDITION else np.linalg.inv(jtj)
-    return inv * scale, cond
-
-
-def _quad(a, b):
-    return {key: np.sqrt(a[key] ** 2 + np.nan_to_num(b[key]) ** 2) for key in a}  # NaN: not estimated
-
-
-def _match(ref, other):
-    """Permutation p with other[p[i]] nearest ref[i] (greedy by distance)."""
-    k = ref.shape[0]
-    dist = np.linalg.norm(ref[:, None] - other[None], axis=-1)
-    p = -np.ones(k, dtype=int)
-    for flat in np.argsort(dist, axis=None):
-        i, j = divmod(int(flat), k)
-        if p[i] < 0 and j not in p:
-            p[i] = j
-    return p
 
 
 # -- the front door ------------------------------------------------------------------------------------

@@ -4,8 +4,12 @@ Modules (floor 5 of the package; the floors inside are in DEVELOPERS.md):
 
 * ``boundaries``: Boundary conditions per lattice direction: the one reading of ``boundary=`` for starts and observables.
 * ``files``: Lattice files: numpy ``.npz`` with the generation parameters, and ILDG (LIME records) for SU(3).
+* ``fused``: The fused SU(2) Magnus path of ``transport``: all steps of a link in one compiled kernel.
+* ``magnus``: The Magnus kernels of ``transport``: sixth-order steps, their nodes and batches.
 * ``observables``: Gauge-invariant observables of lattice link arrays: plaquettes, Wilson action, clover field strength
 * ``references``: What a lattice start is compared with and rebuilt from.
+* ``reports``: The records of a lattice start: its quality report and the finished start.
+* ``sites``: Links of lattice sites (and of a box of sites), singular points handled in a twin gauge.
 * ``smoothing``: Smoothing of lattice link arrays: gradient flow, cooling, the 1x1 + 2x2 improved action and an
 * ``starts``: Lattice starts: link variables of a continuum field, and gauge-invariant lattice observables.
 * ``transport``: Parallel transporters along straight segments: closed forms and sixth-order Magnus steps.

@@ -80,6 +80,8 @@ from .observables import (  # noqa: F401  (re-exported: the lattice namespace of
     random_gauge,
     wilson_action,
 )
+from .reports import LatticeStart, LinkReport, _record_of  # noqa: F401  (re-exported)
+from .sites import block_links, site_links  # noqa: F401  (re-exported)
 from .transport import (  # noqa: F401  (re-exported: the transporters and link figures belong to the lattice namespace too)
     LINK_CHUNK,
     LinkStats,
@@ -90,7 +92,6 @@ from .transport import (  # noqa: F401  (re-exported: the transporters and link 
     link_batch,
     parallel_transporter,
     project_special_unitary,
-    site_links,
     transporters,
     unitarity_deviation,
 )
@@ -122,58 +123,6 @@ _GROUPS = ("su2", "su3", None)
 _METHODS = ("auto", "closed", "magnus")
 _BACKENDS = ("local", "dask")
 _EIGHT_PI2 = 8.0 * np.pi**2
-
-
-@dataclasses.dataclass(frozen=True)
-class LinkReport:
-    """What `lattice_links` did and how good the result is.
-
-    method: 'closed' or 'magnus'; max_steps: largest number of Magnus steps on one link (0 for the
-    closed form); refinement_diff: largest accepted error estimate of the Magnus refinements;
-    unitarity_before / unitarity_after: `unitarity_deviation` before and after the final
-    projection; boundary: as given (a string or four); boundary_link_mismatch / boundary_action_error:
-    see `boundary_mismatch`, the max and sum of the ``*_by_direction`` figures of each
-    direction's faces (None for an open direction, and None when all are open); seconds: wall time;
-    boundary_action_fraction: boundary_action_error / 8 pi^2 (above BOUNDARY_WARN_FRACTION a
-    BoundaryActionWarning is raised); window: the layer width of the windowed directions (fraction of
-    the half-box), else None; field: the field's ``record()`` (rebuilt by `field_from_record`;
-    None without a record hook); potential_evaluations: of the Magnus links in all (0 for closed
-    forms); boundaries: the four boundaries as applied (`instantonkit.lattice.boundaries`).
-    """
-
-    shape: tuple
-    spacing: float
-    origin: tuple
-    group: str | None
-    embedding: tuple
-    boundary: str | tuple
-    rtol: float
-    method: str
-    max_steps: int
-    refinement_diff: float
-    unitarity_before: float
-    unitarity_after: float
-    boundary_link_mismatch: float | None
-    boundary_action_error: float | None
-    seconds: float
-    boundary_action_fraction: float | None = None
-    window: float | None = None
-    field: dict | None = None
-    potential_evaluations: int = 0
-    boundaries: tuple | None = None
-    boundary_link_mismatch_by_direction: tuple | None = None
-    boundary_action_error_by_direction: tuple | None = None
-
-    def as_metadata(self) -> dict:
-        """A JSON-ready dict of the generation parameters and quality figures."""
-        return {k: (list(v) if isinstance(v, tuple) else v) for k, v in dataclasses.asdict(self).items()}
-
-
-def _record_of(field):
-    """The field's ``record()``, or an 'unrecordable' record naming its type (so a file says what it held)."""
-    rec, kind = hook(field, "record"), type(field).__name__
-    why = "it offers no record() hook (a bare callable, a ParametrisedField or a field class of your own); rebuild it by hand, or save with description="
-    return rec() if rec is not None else {"kind": "unrecordable", "type": kind, "reason": why}
 
 
 @dataclasses.dataclass(frozen=True)
@@ -325,30 +274,6 @@ class StartSpec:
         )
 
 
-def block_links(field, lo, hi, origin, spacing, *, n_field, group, embedding, method, rtol, batch):
-    """Links of the sites lo <= n < hi (a box of the lattice); ((h1, h2, h3, h4, 4, N, N), LinkStats).
-
-    The one kernel path of every lattice start (documented seam of the chunked layer):
-    `lattice_links` calls it per time slice and `instantonkit.cluster` per chunk, so both
-    give the same bits.  Sites x_n = origin + a n (n float64); the transporters of a box are computed
-    together, projected (`_finish`) and embedded for group 'su3'.  The returned
-    `LinkStats` holds the Magnus figures and the unitarity before/after the projection;
-    ``batch`` (`link_batch` of the lattice) fixes the compiled kernel size, which keeps the bits equal.
-    """
-    lo, hi = tuple(int(v) for v in lo), tuple(int(v) for v in hi)
-    ext = tuple(h - l for l, h in zip(lo, hi))
-    grids = np.meshgrid(*[np.arange(l, h, dtype=np.float64) for l, h in zip(lo, hi)], indexing="ij")
-    n = np.stack(grids, axis=-1).reshape(-1, 4)
-    sites = np.asarray(origin, dtype=np.float64) + spacing * n
-    u, stats = site_links(field, sites, spacing, method, rtol, batch, n_field)
-    u, dev0, dev1 = finish_batched(u.reshape(-1, n_field, n_field), batch)
-    n_out = n_field
-    if group == "su3" and n_field == 2:  # SU(2) links in a 2 x 2 block; SU(3) fields give SU(3) links directly
-        u, n_out = embed_links(u, 3, embedding), 3
-    stats = dataclasses.replace(stats, unitarity_before=float(dev0), unitarity_after=float(dev1))
-    return u.reshape(ext + (4, n_out, n_out)), stats
-
-
 # -- the chunked backend, registered by the distributed layer -------------------------------------------
 
 
@@ -372,14 +297,6 @@ def register_chunked_backend(name: str, executor: ChunkedExecutor) -> None:
     if not callable(executor):
         raise TypeError(f"executor must be callable; found {type(executor).__name__}")
     _EXECUTORS[name] = executor
-
-
-@dataclasses.dataclass(frozen=True)
-class LatticeStart:
-    """A finished lattice start: ``links`` (L1, L2, L3, L4, 4, N, N) and its `LinkReport` ``report``."""
-
-    links: object
-    report: LinkReport
 
 
 def _local_start(spec: StartSpec, out, progress) -> tuple:

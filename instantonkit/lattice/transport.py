@@ -26,20 +26,32 @@ from __future__ import annotations
 
 import dataclasses
 import functools
-import math
 
 import jax
 import jax.numpy as jnp
 import numpy as np
-from jax.extend import core as jex_core
 
-from ..adhm import _kxk
 from ..adhm.quaternionic import charge_one_link
 from ..core import _validate as _v
 from ..core import quaternion as qt
 from ..core._batching import run_batched
-from ..core._pytree import structure_key
 from ..engine.fields import as_field, as_points, hook, output_shape
+from .fused import _FUSED_MAX_STEPS, _FUSED_NODES, _fused_kernel, _fused_links  # noqa: F401  (the fused SU(2) path)
+from .magnus import (  # noqa: F401  (the Magnus kernels; names the tests reach through this module)
+    _GL3,
+    _NODE_BATCH,
+    _NODE_BATCH_PLAIN,
+    _PASS_STEPS,
+    _STEP_BATCH,
+    _STEP_BATCH_PLAIN,
+    _expm_antihermitian,
+    _generator_kernel,
+    _magnus6,
+    _mm_aos,
+    _node_batch,
+    _pairwise_product,
+    _step_kernel,
+)
 
 __all__ = [
     "LinkStats",
@@ -78,178 +90,6 @@ def bpst_link(data, x, d):
 def _closed_link_of(field, x, d):
     """One link by the field's ``closed_link`` hook (the function the closed kernel vmaps)."""
     return field.closed_link(x, d)
-
-
-# -- Magnus steps -------------------------------------------------------------------------------------
-
-_GL3 = (0.5 - math.sqrt(15.0) / 10.0, 0.5, 0.5 + math.sqrt(15.0) / 10.0)
-
-
-def _rcomm(a, b):
-    """Reversed commutator b a - a b: Magnus terms for W' = W G from those for Y' = G Y (transpose)."""
-    return _mm_aos(b, a) - _mm_aos(a, b)
-
-
-def _magnus6(g1, g2, g3, h):
-    """Sixth-order Magnus exponent of one step for W' = W G from G at the three Gauss-Legendre nodes.
-
-    alpha1 = h G2, alpha2 = sqrt(15) h (G3 - G1) / 3, alpha3 = 10 h (G3 - 2 G2 + G1) / 3 and
-    Omega = alpha1 + alpha3 / 12 + [-20 alpha1 - alpha3 + [alpha1, alpha2], alpha2 - [alpha1, 2 alpha3 + [alpha1, alpha2]] / 60] / 240
-    (the three-node Gauss-Legendre scheme of Blanes, Casas, Oteo, Ros, Phys. Rep. 470 (2009) 151,
-    from memory; the sign of the 1/60 term was fixed by the sixth-order convergence test against
-    scipy's DOP853 in tests/test_lattice.py), with every commutator reversed because here the matrix
-    multiplies from the right (W' = W G is the transpose of Y' = G^T Y).
-    """
-    a1 = h * g2
-    a2 = (math.sqrt(15.0) / 3.0) * h * (g3 - g1)
-    a3 = (10.0 / 3.0) * h * (g3 - 2.0 * g2 + g1)
-    c12 = _rcomm(a1, a2)
-    inner = a2 - _rcomm(a1, 2.0 * a3 + c12) / 60.0
-    return a1 + a3 / 12.0 + _rcomm(-20.0 * a1 - a3 + c12, inner) / 240.0
-
-
-def _expm_antihermitian(omega):
-    """exp of an anti-Hermitian (N, N) matrix: quaternion exponential for N = 2, eigh otherwise."""
-    n = omega.shape[-1]
-    if n == 2:
-        tr = jnp.trace(omega) / 2.0
-        q = qt.from_matrix(omega - tr * jnp.eye(2))
-        return jnp.exp(tr) * qt.to_matrix(qt.qexp(q))
-    herm = 1j * omega
-    herm = 0.5 * (herm + jnp.conj(herm.T))
-    w, v = jnp.linalg.eigh(herm)
-    return (v * jnp.exp(-1j * w)[None, :]) @ jnp.conj(v.T)
-
-
-#: Potential evaluations per compiled call when the potential calls LAPACK.  jax 0.10.2 on CPU left
-#: batched chains of small LAPACK calls (SU(3) frames: Cholesky then inverse, with their derivatives)
-#: idle and unfinished from ~10^4 matrices per call (3 nodes x 4096 links, measured), while 3 x 256
-#: finish; so such a potential is called on at most 768 nodes at a time.
-_NODE_BATCH = 768
-#: ... and when it calls none (the library's ADHM potentials, closed-form ansaetze): larger calls cost
-#: less per node (measured, charge-2 SU(2) data: 1.67 / 1.43 / 1.25 us per node at 768 / 4096 / 16384).
-_NODE_BATCH_PLAIN = 4096
-#: Magnus steps per compiled call of the step kernel: its exponentials use eigh for N > 2 (kept below
-#: the bound above); for N = 2 they are quaternion exponentials and larger calls cost less
-#: (measured: 1.95 / 0.85 us per step at 256 / 2048).
-_STEP_BATCH = 256
-_STEP_BATCH_PLAIN = 2048
-#: Primitives that are LAPACK calls on CPU (a potential using any of them gets the small node batch).
-_LAPACK_PRIMITIVES = ("cholesky", "lu", "eigh", "eig", "svd", "qr", "triangular_solve", "schur", "householder_product")
-#: Node-steps (links x steps) per pass of `_magnus_at`, bounding its temporary memory.
-_PASS_STEPS = 1 << 18
-
-
-def _generator(field, x, d):
-    """G = A_mu(x) d_mu at one node; (4,), (4,) -> (N, N)."""
-    a = field.potential(x)
-    return a[0] * d[0] + a[1] * d[1] + a[2] * d[2] + a[3] * d[3]
-
-
-def _calls_lapack(jaxpr) -> bool:
-    """Whether a jaxpr, or any jaxpr nested in it, contains a LAPACK primitive (_LAPACK_PRIMITIVES)."""
-    if any(eqn.primitive.name in _LAPACK_PRIMITIVES for eqn in jaxpr.eqns):
-        return True
-    return any(_calls_lapack(sub) for sub in jex_core.subjaxprs(jaxpr))
-
-
-_BATCH_MEMO: dict = {}
-
-
-def _node_batch(field) -> int:
-    """Nodes per potential call for ``field``: _NODE_BATCH_PLAIN unless its potential calls LAPACK.
-
-    Depends only on the field's structure (its traced potential), so a link's bits do not depend on
-    the other links of a call (`instantonkit.core._batching`); memoised per pytree structure.
-    """
-    key = structure_key(field)
-    hit = _BATCH_MEMO.get(key) if key is not None else None
-    if hit is None:
-        jaxpr = jax.make_jaxpr(lambda f, x: f.potential(x))(field, jnp.zeros(4))
-        hit = _NODE_BATCH if _calls_lapack(jaxpr.jaxpr) else _NODE_BATCH_PLAIN
-        if key is not None:
-            _BATCH_MEMO[key] = hit
-    return hit
-
-
-def _generators(field, pts, dirs):
-    """G = A_mu d_mu at a batch of nodes (m, 4), (m, 4) -> (m, N, N): the ``generator_batch`` hook, else vmapped."""
-    batch = hook(field, "generator_batch")
-    return batch(pts, dirs) if batch is not None else jax.vmap(_generator, in_axes=(None, 0, 0))(field, pts, dirs)
-
-
-@functools.cache
-def _generator_kernel():
-    return jax.jit(_generators)
-
-
-def _step_exp(g, h):
-    """exp(Omega) of one sixth-order Magnus step from G at its three nodes; g: (3, N, N)."""
-    return _expm_antihermitian(_magnus6(g[0], g[1], g[2], h))
-
-
-@functools.cache
-def _step_kernel():
-    return jax.jit(jax.vmap(_step_exp, in_axes=(0, None)))
-
-
-def _pairwise_product(e, mul=np.matmul, cat=np.concatenate):
-    """E_1 E_2 ... E_m of factors on axis 1 (e.g. (M, m, N, N)): pairwise products (log2 m rounds, no long
-    chain for XLA to fuse), earlier factors left; ``mul``/``cat`` the product and concatenation to use."""
-    while e.shape[1] > 1:
-        pairs = e.shape[1] // 2
-        prod = mul(e[:, 0 : 2 * pairs : 2], e[:, 1 : 2 * pairs : 2])
-        e = cat([prod, e[:, 2 * pairs :]], axis=1) if e.shape[1] % 2 else prod
-    return e[:, 0]
-
-
-#: Most Magnus steps per link of the fused SU(2) kernel (`_fused_links`; each m compiles once, about
-#: 1 s at m = 8, 4.7 s at m = 64): refinements beyond 8, rare on lattices at rtol 1e-8, take the node-batch
-#: path below (measured, 6^4 start of overlapping charge-2 data at rtol 1e-12: first call 6.0 s, 9.5 s with 64).
-_FUSED_MAX_STEPS = 8
-#: Nodes per call of the fused kernel (links per call 12288 / (3 m): 4096 links at one step).
-_FUSED_NODES = 12288
-#: c with e_1 e_2 = c e_3 for the quaternion units (conventions): for pure quaternions a b - b a = 2 c a x b.
-_CROSS_SIGN = float(qt.qmul(np.eye(4)[1], np.eye(4)[2])[3])
-
-
-def _rcomm_q(a, b):
-    """Reversed commutator b a - a b of pure quaternions given by their imaginary parts (3, ...)."""
-    return -2.0 * _CROSS_SIGN * jnp.cross(a, b, axis=0)
-
-
-def _fused_links(field, xs, ds, m: int):
-    """SU(2)/U(2) transporters of a batch of segments (L, 4) with m Magnus steps in one kernel; (L, 2, 2).
-
-    The 3 m L nodes go to the field's ``generator_batch`` hook when it has one (ADHM data: batch-major
-    k x k work, `instantonkit.adhm._kxk.link_generator_batch`), else to the vmapped potential; then
-    `_magnus6` in quaternion form (G = i tau 1 + v, v a pure quaternion: the commutators are cross
-    products and tau, central, is integrated by the Gauss-Legendre weights), exp, and the ordered
-    product E_1 ... E_m, all without leaving the compiled code.  Equal to `_magnus_at` to rounding.
-    """
-    h = 1.0 / m
-    nb = xs.shape[0]
-    ts = jnp.asarray((np.arange(m)[:, None] + np.asarray(_GL3)[None, :]) * h)  # (m, 3)
-    pts = (xs[None, None] + ts[:, :, None, None] * ds[None, None]).reshape(-1, 4)  # (step, node, link)
-    dirs = jnp.broadcast_to(ds[None, None], (m, 3, nb, 4)).reshape(-1, 4)
-    g = _generators(field, pts, dirs)
-    tau = (0.5 * jnp.imag(g[:, 0, 0] + g[:, 1, 1])).reshape(m, 3, nb)
-    v = jnp.moveaxis(qt.from_matrix(g)[:, 1:], -1, 0).reshape(3, m, 3, nb)
-    a1 = h * v[:, :, 1]
-    a2 = (math.sqrt(15.0) / 3.0) * h * (v[:, :, 2] - v[:, :, 0])
-    a3 = (10.0 / 3.0) * h * (v[:, :, 2] - 2.0 * v[:, :, 1] + v[:, :, 0])
-    c12 = _rcomm_q(a1, a2)
-    inner = a2 - _rcomm_q(a1, 2.0 * a3 + c12) / 60.0
-    om = a1 + a3 / 12.0 + _rcomm_q(-20.0 * a1 - a3 + c12, inner) / 240.0  # (3, m, nb)
-    w = jnp.moveaxis(qt.qexp(jnp.moveaxis(jnp.concatenate([jnp.zeros((1, m, nb)), om]), 0, -1)), -1, 0)  # (4, m, nb)
-    w = _pairwise_product(w, _kxk.qmul_last, jnp.concatenate)
-    phase = jnp.exp(1j * h * jnp.sum(tau * jnp.asarray([5.0, 8.0, 5.0])[None, :, None] / 18.0, axis=(0, 1)))
-    return phase[:, None, None] * qt.to_matrix(w.T)
-
-
-@functools.cache
-def _fused_kernel(m: int):
-    return jax.jit(functools.partial(_fused_links, m=m))
 
 
 def _magnus_at(field, xs, ds, m):
@@ -481,11 +321,6 @@ def parallel_transporter(
 # -- unitarity -------------------------------------------------------------------------------------------
 
 
-def _mm_aos(a, b):
-    """Batched small matrix product written as a broadcast sum (fuses well on CPU); (..., N, N)."""
-    return jnp.sum(a[..., :, :, None] * b[..., None, :, :], axis=-2)
-
-
 def _det(u):
     """Determinant of (..., N, N): explicit for N = 2, 3, LU otherwise."""
     n = u.shape[-1]
@@ -571,90 +406,3 @@ def link_batch(shape) -> int:
     """Links per compiled kernel call for a start of ``shape``: fixed by the time-slice size, so the
     local path (one slice at a time) and any chunking of the same start run the same compiled code."""
     return chunk_size(4 * shape[0] * shape[1] * shape[2])
-
-
-# -- links of lattice sites, singular points handled in a twin gauge ------------------------------------
-
-
-def _near_centres(field, pts, a):
-    """Points (M, 4) within scale / 2 + a of a centre of the field's layout (all points without a layout hook).
-
-    The singular points of a singular gauge sit at the instanton centres (k = 1) or close to them
-    (k > 1), so the transition g of the gauge_twin hook is evaluated only there.  Without a layout the
-    ``hint`` hook's one centre and scale serve (fields of one lump, e.g. ``ansatz.BPSTField``: before,
-    g was evaluated at every site, 3x the cost of its closed-form links).
-    """
-    lay = hook(field, "layout")
-    if lay is None:
-        lay = hook(field, "hint")  # one lump (e.g. ansatz.BPSTField): its centre and scale
-    if lay is None:
-        return np.ones(pts.shape[0], dtype=bool)
-    centres, scales = lay()
-    centres = np.asarray(centres, dtype=np.float64).reshape(-1, 4)
-    radius = 0.5 * np.asarray(scales, dtype=np.float64).reshape(-1) + a
-    d2 = np.sum((pts[:, None, :] - centres[None]) ** 2, axis=-1)
-    return np.any(d2 <= radius[None] ** 2, axis=1)
-
-
-#: Points per compiled call of the gauge_twin transition (few points per block: those near a centre).
-_TRANSITION_BATCH = 256
-
-
-@functools.cache
-def _transition_kernel():
-    """g(x) of the field's ``gauge_twin`` hook, vmapped over points (one compile per field structure)."""
-    return jax.jit(jax.vmap(lambda f, x: f.gauge_twin()[1](x), in_axes=(None, 0)))
-
-
-def site_links(field, sites_t, a, method, rtol, batch=None, n_field=None):
-    """Links of one set of sites (S, 4) in the four directions: ((S, 4, N, N) unprojected, LinkStats).
-
-    The package-internal seam of `instantonkit.lattice.starts` (``block_links``).
-
-    Singular points on sites or links: when the field has the ``gauge_twin`` hook (twin, g), g is
-    evaluated at both ends of every link near a centre (`_near_centres`); a link that starts or ends at a site where g is not finite
-    (a singular point of the field's gauge), or whose transporter is not finite (a singular point
-    on the link), is computed in the twin's gauge and transformed back, U = G(x)^dag U_twin G(x + d),
-    with G = g except G = 1 at the singular sites (the transformation there is free).  So the links
-    are a lattice gauge transform of the twin's: every plaquette is correct.
-    """
-    s = sites_t.shape[0]
-    xs = np.repeat(sites_t, 4, axis=0)
-    ds = np.tile(a * np.eye(4), (s, 1))
-    twin_hook = hook(field, "gauge_twin")
-    if twin_hook is None:
-        u, stats = transporters(field, xs, ds, method, rtol, batch)
-        return u.reshape(s, 4, u.shape[-2], u.shape[-1]), stats
-    size = _TRANSITION_BATCH  # one compiled size whatever the block: the bits do not depend on the chunking
-    ends = xs + ds
-    near0, near1 = _near_centres(field, xs, a), _near_centres(field, ends, a)
-    sing0, sing1 = np.zeros(xs.shape[0], dtype=bool), np.zeros(xs.shape[0], dtype=bool)
-    for near, sing, pts in ((near0, sing0, xs), (near1, sing1, ends)):
-        idx = np.flatnonzero(near)
-        if idx.size:
-            g = run_batched(_transition_kernel(), [pts[idx]], size, args_before=(field,))
-            sing[idx] = ~np.all(np.isfinite(g), axis=(-2, -1))
-    touch = sing0 | sing1
-    n = (
-        n_field
-        if n_field is not None
-        else jax.eval_shape(field.potential, jax.ShapeDtypeStruct((4,), jnp.float64)).shape[-1]
-    )
-    u = np.full((xs.shape[0], n, n), np.nan, dtype=np.complex128)
-    stats = LinkStats()
-    keep = np.flatnonzero(~touch)
-    if keep.size:
-        uk, stats = transporters(field, xs[keep], ds[keep], method, rtol, batch, allow_bad=True)
-        u[keep] = uk
-    redo = np.flatnonzero(~np.all(np.isfinite(u), axis=(-2, -1)))
-    if redo.size:
-        twin = twin_hook()[0]
-        ut, st = transporters(twin, xs[redo], ds[redo], method, rtol, batch)
-        eye = np.eye(n)
-        ga = run_batched(_transition_kernel(), [xs[redo]], size, args_before=(field,))
-        gb = run_batched(_transition_kernel(), [ends[redo]], size, args_before=(field,))
-        ga = np.where(np.all(np.isfinite(ga), axis=(-2, -1))[:, None, None], ga, eye)
-        gb = np.where(np.all(np.isfinite(gb), axis=(-2, -1))[:, None, None], gb, eye)
-        u[redo] = np.conj(np.swapaxes(ga, -1, -2)) @ ut @ gb
-        stats = stats.merge(st)
-    return u.reshape(s, 4, u.shape[-2], u.shape[-1]), stats
