@@ -252,7 +252,7 @@ def window_field(
     Raises:
       ValueError: a bad shape, spacing, origin or width (naming it and the value found).
     """
-    shape = _v.lattice_shape("shape", shape)
+    shape = _v.lattice_shape("shape", shape, in_memory=False)  # sizes only: nothing is allocated here
     a = _v.positive_float("spacing", spacing)
     frac = _v.positive_float("width", width)
     if frac > 1.0:
@@ -273,7 +273,7 @@ def default_origin(field, shape, spacing) -> np.ndarray:
 
     origin_i = centre_i - a (floor(L_i / 2) - 1/2); (4,) float64.
     """
-    shape = _v.lattice_shape("shape", shape)
+    shape = _v.lattice_shape("shape", shape, in_memory=False)  # sizes only: nothing is allocated here
     a = _v.positive_float("spacing", spacing)
     centre = np.zeros(4)
     hint = hook(field, "hint")

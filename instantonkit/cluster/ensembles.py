@@ -107,7 +107,7 @@ def ensemble(
     """
     n = _v.positive_int("n (members)", n)
     k = _v.positive_int("k (charge)", k)
-    shape = _v.lattice_shape("shape", shape)
+    shape = _v.lattice_shape("shape", shape, in_memory=False)
     a = _v.positive_float("spacing", spacing)
     _v.adhm_affordable(k, _v.positive_int("rank", rank), k_name="k (charge)")
     # this process holds every member's seed, ADHM data (4 k (k + rank) float64) and start record

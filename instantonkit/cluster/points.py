@@ -190,7 +190,7 @@ def evaluate_grid(
     """
     check_quantity(quantity)
     field = as_field(field)
-    shape = _v.lattice_shape("shape", shape)
+    shape = _v.lattice_shape("shape", shape, in_memory=False)
     a = _v.positive_float("spacing", spacing)
     org = resolve_origin(field, shape, a, origin)
     trail, dtype = output_shape(field, quantity, method)

@@ -270,8 +270,16 @@ def choice(name: str, value, options: tuple):
     return value
 
 
-def lattice_shape(name: str, value) -> tuple:
-    """Four positive integers (L1, L2, L3, L4) as a tuple of ints (integral floats accepted, booleans refused)."""
+#: Largest lattice a chunked run may write to disk (bytes of its links at SITE_BYTES per site): a petabyte.
+MAX_STORED_BYTES = 1e15
+
+
+def lattice_shape(name: str, value, *, in_memory: bool = True) -> tuple:
+    """Four positive integers (L1, L2, L3, L4) as a tuple of ints (integral floats accepted, booleans refused).
+
+    in_memory: the links will be held in memory (refused beyond the machine's memory); False for runs
+    that write chunks to disk or a memmap (refused beyond MAX_STORED_BYTES).
+    """
     if isinstance(value, (str, bytes)):
         raise TypeError(f"{name} must be a sequence of 4 integers (L1, L2, L3, L4); found the text {value!r}")
     try:
@@ -282,5 +290,11 @@ def lattice_shape(name: str, value) -> tuple:
     if len(s) != 4 or any(v < 1 for v in s) or any(_is_bool(v) or int(v) != v for v in items):
         raise ValueError(f"{name} must be 4 positive integers (L1, L2, L3, L4); found {items!r}")
     sites = float(np.prod(np.array(s, dtype=np.float64)))
-    affordable(name, SITE_BYTES * sites, f"a lattice of {sites:.3e} sites (four SU(2) links each)")
+    what = f"a lattice of {sites:.3e} sites (four SU(2) links each)"
+    if in_memory:
+        affordable(name, SITE_BYTES * sites, what)
+    elif SITE_BYTES * sites > MAX_STORED_BYTES:
+        raise ValueError(
+            f"{name} is too large: {what} needs at least {SITE_BYTES * sites:.3e} bytes; the limit of a stored run is {MAX_STORED_BYTES:.0e} bytes"
+        )
     return s

@@ -169,7 +169,7 @@ class StartSpec:
         window=DEFAULT_WINDOW_WIDTH,
     ):
         field = as_field(field)
-        shape = _v.lattice_shape("shape", shape)
+        shape = _v.lattice_shape("shape", shape, in_memory=False)  # the local start checks its own array
         a = _v.positive_float("spacing", spacing)
         if group not in _GROUPS:
             raise ValueError(f"group must be one of {_GROUPS}; found {group!r}")
@@ -304,6 +304,7 @@ def _local_start(spec: StartSpec, out, progress) -> tuple:
     shape = spec.shape
     full = spec.links_shape
     if out is None:
+        _v.affordable("shape", 16.0 * float(np.prod(full)), f"the links of a {shape} lattice ({full} complex128)")
         out = np.empty(full, dtype=np.complex128)
     elif tuple(out.shape) != full or out.dtype != np.complex128:
         raise ValueError(f"out must have shape {full} and dtype complex128; found {tuple(out.shape)} {out.dtype}")
