@@ -169,7 +169,7 @@ def test_continuum_loop_refuses_bad_points_and_missing_period():
         pl.polyakov_loop(ik.bpst_field(), np.zeros((1, 3)))
 
 
-@pytest.mark.slow
+@pytest.mark.long  # about two minutes on two shared cores
 def test_charge_per_period_is_one():
     # Q = 1 per period (Kraan, van Baal, Nucl. Phys. B 533 (1998) 627, from memory).
     field = _kvb(0.25)
