@@ -175,3 +175,15 @@ def test_charge_per_period_is_one():
     field = _kvb(0.25)
     res = ik.total_charge(field, period=BETA, rtol=1e-8, atol=1e-8)
     assert float(res.value) == pytest.approx(1.0, abs=1e-7)
+
+
+@pytest.mark.slow
+def test_lattice_polyakov_loop_of_a_caloron_start_far_from_the_cores():
+    # 1/2 tr P -> cos(2 pi omega) far from the constituents, up to the 1/r^2 abelian tail
+    # (Kraan, van Baal, Nucl. Phys. B 533 (1998) 627, from memory).  A 4 x 6^3 start, about 30 s.
+    omega = 0.25
+    field = ik.caloron(0.4, 2.0, np.zeros(4), holonomy=omega)
+    with pytest.warns(UserWarning):
+        links = ik.lattice_links(field, (6, 6, 6, 4), 0.5, origin=np.array([-1.5, -1.5, -1.5, 0.0]))
+    tr = 0.5 * np.trace(pl.lattice_polyakov_loop(links), axis1=-2, axis2=-1).real
+    assert abs(tr[0, 0, 0] - np.cos(2 * np.pi * omega)) < 0.05
