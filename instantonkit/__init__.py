@@ -38,6 +38,7 @@ from .fit.lattice_fit import ColourRank, colour_rank, find_lattice_instantons
 from .lattice import files as io
 from .lattice import observables, references, smoothing, transport
 from .lattice.files import load_lattice, save_lattice
+from .lattice.polyakov import lattice_polyakov_loop, polyakov_average, polyakov_loop, polyakov_phases
 from .lattice.smoothing import cool, gradient_flow, improved_action, improved_charge, wilson_flow
 from .lattice.starts import average_plaquette, clover_charge, lattice_links, lattice_start, wilson_action
 from .verification.checks import (
@@ -78,6 +79,10 @@ __all__ = [
     "average_plaquette",
     "wilson_action",
     "clover_charge",
+    "polyakov_loop",
+    "lattice_polyakov_loop",
+    "polyakov_average",
+    "polyakov_phases",
     "save_lattice",
     "load_lattice",
     "check_links",

@@ -59,7 +59,7 @@ from ..core import _validate
 from ..core import quaternion as qt
 from ..core._pytree import PytreeFields
 from ..core.conventions import PI, point_to_quaternion
-from .calorons import CaloronField
+from .calorons import CaloronField, HolonomyCaloronField
 from .scalar import (
     _ETA_BAR,
     _UNITS_C,
@@ -78,6 +78,7 @@ __all__ = [
     "ThooftField",
     "JNRField",
     "CaloronField",
+    "HolonomyCaloronField",
     "BPSTField",
     "thooft",
     "jnr",
@@ -387,19 +388,34 @@ def jnr(poles, weights) -> JNRField:
     return JNRField(poles, weights)
 
 
-def caloron(size, period, center=(0.0, 0.0, 0.0, 0.0)) -> CaloronField:
-    """Harrington-Shepard caloron of size rho and period beta in x4 about ``center``; charge +1 per period.
+def caloron(
+    size, period, center=(0.0, 0.0, 0.0, 0.0), holonomy=0.0, axis=(0.0, 0.0, 1.0)
+) -> CaloronField | HolonomyCaloronField:
+    """SU(2) caloron of size rho, period beta in x4 and holonomy omega about ``center``; charge +1 per period.
+
+    holonomy = 0 (the default) gives the Harrington-Shepard caloron (`CaloronField`, trivial holonomy);
+    0 < omega <= 1/2 the Kraan-van Baal caloron (`HolonomyCaloronField`) with A_4 -> 2 pi omega u_3 / beta
+    at spatial infinity (1/2 tr P -> cos 2 pi omega) and two constituent monopoles of action fractions
+    2 omega and 1 - 2 omega, a distance pi rho^2 / beta apart along ``axis``.
 
     Args:
       size: rho > 0, a real number.
       period: beta > 0, a real number.
-      center: (4,) float64 point c.
+      center: (4,) float64 point c (for omega > 0 the constituents' centre of mass).
+      holonomy: omega in [0, 1/2], a real number.
+      axis: (3,) non-zero vector, the direction from the first constituent to the second (omega > 0).
     Returns:
-      CaloronField, a field of N = 2 with closed forms, periodic in x4.
+      CaloronField (omega = 0) or HolonomyCaloronField, a field of N = 2, periodic in x4.
     Raises:
-      ValueError for rho or beta <= 0 or not finite, or a centre not of shape (4,); TypeError for non-real values.
+      ValueError for rho or beta <= 0 or not finite, omega outside [0, 1/2], a centre not of shape (4,) or a
+      zero axis; TypeError for non-real values.
     """
-    return CaloronField(size, period, center)
+    omega = _validate.finite_float("holonomy", holonomy)
+    if not 0.0 <= omega <= 0.5:
+        raise ValueError(f"holonomy omega must lie in [0, 1/2]; found {omega!r}")
+    if omega == 0.0:
+        return CaloronField(size, period, center)
+    return HolonomyCaloronField(size, period, np.asarray(omega), center, axis)
 
 
 def bpst_field(

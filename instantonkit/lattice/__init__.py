@@ -7,6 +7,7 @@ Modules (floor 5 of the package; the floors inside are in DEVELOPERS.md):
 * ``fused``: The fused SU(2) Magnus path of ``transport``: all steps of a link in one compiled kernel.
 * ``magnus``: The Magnus kernels of ``transport``: sixth-order steps, their nodes and batches.
 * ``observables``: Gauge-invariant observables of lattice link arrays: plaquettes, Wilson action, clover field strength
+* ``polyakov``: Polyakov loops: the continuum loop around the period, and lattice loops of time links.
 * ``references``: What a lattice start is compared with and rebuilt from.
 * ``reports``: The records of a lattice start: its quality report and the finished start.
 * ``sites``: Links of lattice sites (and of a box of sites), singular points handled in a twin gauge.

@@ -188,6 +188,14 @@ def _caloron_from_record(rec):
     return caloron(float(size), float(period), _floats(center))
 
 
+def _holonomy_caloron_from_record(rec):
+    size, period, holonomy, center, axis = _entries(rec, "size", "period", "holonomy", "center", "axis")
+    omega = float(holonomy)
+    if omega == 0.0:
+        raise ValueError("a 'holonomy_caloron' record must have holonomy > 0; found 0.0 (use kind 'caloron')")
+    return caloron(float(size), float(period), _floats(center), holonomy=omega, axis=_floats(axis))
+
+
 def _complex_entry(rec, name):
     (part,) = _entries(rec, name)
     if not isinstance(part, dict) or set(part) != {"re", "im"}:
@@ -238,6 +246,7 @@ RECORD_KINDS = {
     "thooft": _thooft_from_record,
     "jnr": _jnr_from_record,
     "caloron": _caloron_from_record,
+    "holonomy_caloron": _holonomy_caloron_from_record,
     "translated": lambda rec: translate(_inner(rec), _floats(_entries(rec, "shift")[0])),
     "rotated": lambda rec: rotate(_inner(rec), *(_floats(v) for v in _entries(rec, "left", "right"))),
     "dilated": lambda rec: dilate(_inner(rec), float(_entries(rec, "factor")[0])),
@@ -254,7 +263,7 @@ def field_from_record(record: dict, *, window: bool = True):
       record: dict with a 'kind' in RECORD_KINDS ('adhm': Lambda, B, chirality, gauge, tol;
         'unitary_adhm': B1, B2, I, J as {'re', 'im'} lists, gauge, tol; 'bpst': center, size,
         orientation, gauge; 'thooft': centers, sizes; 'jnr': poles, weights; 'caloron': size, period,
-        center; 'translated': field, shift; 'rotated': field, left, right; 'dilated': field, factor;
+        center; 'holonomy_caloron': size, period, holonomy, axis, center; 'translated': field, shift; 'rotated': field, left, right; 'dilated': field, factor;
         'parity': field; 'gauge_transformed': field, g (a gauge function's record, kind in
         GAUGE_KINDS), where 'field' is the wrapped field's record) and optionally 'window' (lo, box,
         width and, when not all, the windowed directions of `TorusWindow`).
