@@ -47,6 +47,9 @@ def test_notebook_is_committed_without_outputs(path):
     assert code and all(not c.outputs and c.execution_count is None for c in code)
 
 
+# CI executes every notebook when it builds the documentation site (mkdocs-jupyter, execute: true,
+# allow_errors: false, so an error fails the strict build); here they run with INSTANTONKIT_LONG=1.
+@pytest.mark.long
 @pytest.mark.parametrize("path", NOTEBOOKS, ids=os.path.basename)
 def test_notebook_runs_top_to_bottom(path, monkeypatch, tmp_path):
     reason = _kernel_missing()

@@ -174,6 +174,7 @@ NEAR_SINGULAR = np.array(
 ON_SINGULAR = np.array([[-1.6519460494156946, -1.6557750167698668, 0.8631692342653019, -2.773928442689071]])
 
 
+@pytest.mark.long  # two 8192-node reference rules on rays near singular points: about two minutes
 def test_adaptive_phase_agrees_with_a_fine_fixed_rule_near_singular_rays():
     # reference: the fixed 8192-node Gauss-Legendre rule on the same ray (numpy.polynomial.legendre.leggauss;
     # 8192 and 16384 nodes agree to <= 9e-12 at these points, measured)
