@@ -41,7 +41,7 @@ def run(quick: bool = False, size=None, group: str = "su2") -> list[dict]:
     links = np.asarray(start.links)
     wall, cpu = time.perf_counter() - t0, time.process_time() - cpu0
     label = f"{n}^4 {group.upper()} start of 4 I + 4 A (torus, a = {a:.3g})"
-    goal = "goal 30 s at 16^4" + ("" if n == 16 else f" (quick: {n}^4)")
+    goal = "goal 30 s at 16^4" + ("" if n == 16 else f"; this run {n}^4")
     clover = float(ik.clover_charge(links))
     improved = float(ik.improved_charge(links))
     return [

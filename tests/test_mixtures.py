@@ -263,3 +263,34 @@ def test_lattice_geometry_refuses_unequal_spacings():
 def test_mixture_totals_refuses_other_fields():
     with pytest.raises(TypeError, match="Mixture"):
         mixture_totals(ik.bpst_field())
+
+
+def test_dask_ensemble_of_mixtures_is_seeded_per_member_and_its_members_rebuild(tmp_path):
+    # member i drawn from SeedSequence(seed, spawn_key=(i,)) as for ADHM ensembles (cluster.member_seed)
+    pytest.importorskip("dask")
+    pytest.importorskip("zarr")
+    store = tmp_path / "mix"
+    ens = ik.cluster.ensemble(2, (1, 1), (2, 2, 2, 2), 1.0, seed=3, rtol=1e-6, store=store, client="sync")
+    again = mx.random_mixture(
+        1,
+        1,
+        (2.0,) * 4,
+        lo=np.full(4, -1.0),
+        sizes=(0.125, 0.25),
+        seed=np.random.default_rng(ik.cluster.member_seed(3, 1)),
+        overlap="ignore",
+    )
+    assert np.array_equal(ens.members[1].centres, again.centres) and ens.members[1].charge == 0
+    links, member = ik.cluster.load_member(store, 1)
+    assert np.array_equal(member.centres, again.centres) and member.signs == (1, -1)
+    local = ik.lattice_start(member, (2, 2, 2, 2), 1.0, origin=np.full(4, -0.5), rtol=1e-6).links
+    assert np.array_equal(links, local)
+
+
+@pytest.mark.parametrize(
+    ("k", "rank", "match"),
+    [((0, 0), 1, "at least one object"), ((1, 1, 1), 1, "k_plus, k_minus"), ((1, 1), 2, "rank must be 1")],
+)
+def test_dask_ensemble_refuses_bad_mixed_counts(k, rank, match):
+    with pytest.raises(ValueError, match=match):
+        ik.cluster.ensemble(1, k, (4, 4, 4, 4), 1.0, rank=rank)
