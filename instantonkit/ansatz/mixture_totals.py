@@ -12,6 +12,7 @@ import dataclasses
 from collections.abc import Sequence
 
 import numpy as np
+from scipy.spatial import cKDTree
 
 from ..core import _validate as _v
 from ..core.conventions import INSTANTON_ACTION
@@ -55,11 +56,14 @@ def _ball_radii(field: Mixture) -> np.ndarray:
     rho = np.asarray(field.sizes)
     if c.shape[0] == 1:
         return rho.copy()
-    d = c[:, None, :] - c[None, :, :]
-    box = np.asarray(field.box)
-    d = np.mod(d + box / 2.0, box) - box / 2.0
-    dist = np.linalg.norm(d, axis=-1) + np.diag(np.full(c.shape[0], np.inf))
-    return np.minimum(rho, 0.45 * dist.min(axis=1))
+    box, lo = np.asarray(field.box), np.asarray(field.lo)
+    y = np.mod(c - lo, box)
+    nearest, _ = cKDTree(np.where(y >= box, 0.0, y), boxsize=box).query(y, k=2)
+    radii = np.minimum(rho, 0.45 * nearest[:, 1])
+    if np.any(radii <= 0.0):
+        i = int(np.argmin(radii))
+        raise ValueError(f"object {i} shares its centre {c[i].tolist()} with another object: no ball fits around it")
+    return radii
 
 
 def _bump(r, radius):
