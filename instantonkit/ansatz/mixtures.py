@@ -15,8 +15,9 @@ d_mu (g E_{b nu l} y_l) = g E_{b nu mu} + (d_mu g) E_{b nu l} y_l for each objec
 
 What it is and is not.  The sum is not a solution: s and q are those of m separate objects only when
 the objects are far apart (their interaction falls off as the dipole-dipole term ~ rho_i^2 rho_j^2 / R^4
-of the reviews above, from memory; measured here: S / 8 pi^2 - 2 of a pair of unit size falls from
-~1e-1 at R = 3 to ~1e-3 at R = 12, see tests/test_mixtures.py).  Near each centre the other objects'
+of the reviews above, from memory; measured here for a pair of unit size, aligned orientations,
+separated along x1: S / 8 pi^2 - 2 = 1.4e-2, 9.5e-4, 6.1e-5 at R = 4, 8, 16, i.e. (S / 8 pi^2 - 2) R^4
+= 3.6, 3.9, 3.98; tests/test_mixtures.py checks the R^-4 law).  Near each centre the other objects'
 potential B is not rotated by the singular gauge function, so F ~ [g^-1 dg, B] ~ |B(a_i)| / |x - a_i|
 and s ~ |B(a_i)|^2 / |x - a_i|^2 there: integrable in four dimensions, finite everywhere else.  The
 charge is nonetheless exactly the count: A decays as rho^2 / |x|^3 and near each centre it is the pure
