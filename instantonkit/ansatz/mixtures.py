@@ -34,13 +34,15 @@ only the sum ansatz is offered.
 **Torus.**  The singular-gauge tail rho^2 E y / y^4 = -(rho^2 / 2) E d(1 / y^2) is the gradient of the
 four-dimensional Coulomb potential, whose sum over images converges only conditionally (as in Ewald
 sums it needs a neutralising background), so the images are not summed.  Instead each object is its
-minimum image times a C^3 cut-off chi(|y|) = 1 - smooth_step((|y| - r1) / (r2 - r1)), r2 = min_i P_i / 2,
-r1 = (1 - taper) r2: A is then exactly periodic and C^3 (chi vanishes before the minimum image switches),
+minimum image times a smooth cut-off chi(|y|) = 1 - step((|y| - r1) / (r2 - r1)), r2 = min_i P_i / 2,
+r1 = (1 - taper) r2, with the C-infinity step step(t) = e^{-1/t} / (e^{-1/t} + e^{-1/(1-t)}) on [0, 1] (common
+practice): A is then exactly periodic and smooth (chi vanishes before the minimum image switches),
 and the charge is exactly n+ - n- (argument above).  What is dropped is each object's own tail beyond r1,
 |A^(i)| <= rho_i^2 / r^3 per colour component, i.e. (rho / r1)^3 relative to the core scale 1 / rho
 (``tail`` of `TorusMixture`; ``accuracy=`` refuses boxes that cannot meet it); the action gains an
 excess ~ (rho / r1)^4 from the cut-off layer (as for the window of `instantonkit.ansatz.periodic`).
-``chi`` and ``smooth_step`` (common practice) are those of that module.
+A smooth rather than a polynomial step makes the densities smooth and periodic, so the midpoint rule of
+`instantonkit.ansatz.mixture_totals` converges fast on the torus.
 
 SU(3) and larger: the fields are SU(2); lattice starts embed them (``group=``, ``embedding=`` of
 `instantonkit.lattice.starts.lattice_links`), every object in the same SU(2) subgroup.
@@ -63,7 +65,6 @@ from ..core._pytree import PytreeFields
 from ..engine.fields import action_from_f, charge_from_f
 from ..engine.transforms import PARITY, anti
 from .classic import ThooftField, _unit_quaternion, thooft
-from .periodic import smooth_step
 from .scalar import _ETA_BAR, _UNITS_C
 
 Array = jax.Array | np.ndarray
@@ -77,6 +78,7 @@ __all__ = [
     "random_mixture",
     "ratio_ansatz",
     "haar_orientations",
+    "smooth_step_inf",
 ]
 
 _ETA = qt.thooft_eta()  # (3, 4, 4)
@@ -92,6 +94,22 @@ class OverlapWarning(UserWarning):
 
 
 # -- the field ---------------------------------------------------------------------------------------
+
+
+def smooth_step_inf(t):
+    """The C-infinity step and its derivative on [0, 1] (0 below, 1 above; common practice):
+
+    step = a / (a + b), a = e^{-1/t}, b = e^{-1/(1-t)};  step' = step (1 - step) (1/t^2 + 1/(1-t)^2).
+    t: array (jax or numpy) -> (step, step') of the same shape, without NaN at the ends (safe under autodiff).
+    """
+    t = jnp.clip(jnp.asarray(t, dtype=jnp.float64), 0.0, 1.0)
+    inner = (t > 0.0) & (t < 1.0)
+    ts = jnp.where(inner, t, 0.5)
+    a = jnp.exp(-1.0 / ts)
+    b = jnp.exp(-1.0 / (1.0 - ts))
+    step = a / (a + b)
+    d = step * (1.0 - step) * (1.0 / ts**2 + 1.0 / (1.0 - ts) ** 2)
+    return jnp.where(inner, step, jnp.where(t >= 1.0, 1.0, 0.0)), jnp.where(inner, d, 0.0)
 
 
 def _adjoint(orientations):
@@ -181,8 +199,9 @@ class Mixture(PytreeFields):
         r1 = (1.0 - self.taper) * rc
         r = jnp.sqrt(r2)
         t = jnp.clip((r - r1) / (rc - r1), 0.0, 1.0)
-        chi = 1.0 - smooth_step(t)
-        dchi = -140.0 * t**3 * (1.0 - t) ** 3 / (rc - r1)  # d chi / dr
+        step, dstep = smooth_step_inf(t)
+        chi = 1.0 - step
+        dchi = -dstep / (rc - r1)  # d chi / dr
         return chi * f, 2.0 * chi * df + dchi * f / r
 
     def _colour(self, x):
