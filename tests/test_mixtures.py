@@ -294,3 +294,33 @@ def test_dask_ensemble_of_mixtures_is_seeded_per_member_and_its_members_rebuild(
 def test_dask_ensemble_refuses_bad_mixed_counts(k, rank, match):
     with pytest.raises(ValueError, match=match):
         ik.cluster.ensemble(1, k, (4, 4, 4, 4), 1.0, rank=rank)
+
+
+@pytest.mark.parametrize(
+    ("kwargs", "match"),
+    [
+        ({"separation": 0.0}, "separation"),
+        ({"separation": float("nan")}, "separation"),
+        ({"separation": True}, "separation"),
+        ({"separation": 3.0, "axis": (0, 0, 0, 0)}, "axis"),
+        ({"separation": 3.0, "size": -1.0}, "sizes"),
+        ({"separation": 3.0, "center": (0, 0, 0)}, "center"),
+    ],
+)
+def test_bad_pair_input_is_refused_naming_it(kwargs, match):
+    with pytest.raises((ValueError, TypeError), match=match):
+        mx.instanton_pair(**kwargs)
+
+
+@pytest.mark.parametrize(
+    ("grid", "match"), [((16,), "n_coarse, n_fine"), ((32, 16), "n_coarse < n_fine"), ((0, 8), "grid")]
+)
+def test_torus_totals_refuse_a_bad_grid(grid, match):
+    f = mx.torus_mixture([[1, 1, 1, 1]], 0.5, [1], (6, 6, 6, 6))
+    with pytest.raises(ValueError, match=match):
+        mixture_totals(f, grid=grid)
+
+
+def test_lattice_geometry_is_refused_on_r4():
+    with pytest.raises(ValueError, match="torus mixture only"):
+        mx.instanton_pair(3.0).lattice_geometry((4, 4, 4, 4))
