@@ -385,3 +385,27 @@ def test_twisted_flow_refuses_a_step_beyond_the_stability_bound():
 def test_twisted_cooling_refuses_odd_extents():
     with pytest.raises(ValueError, match=r"even lattice extents.*\(3, 2, 2, 2\)"):
         tf.twisted_cool(tw.constant_flux_links((3, 2, 2, 2)), TWIST, 1)
+
+
+@pytest.mark.long
+def test_cooling_on_an_asymmetric_torus_finds_a_localised_fractional_instanton():
+    # L1 L2 = 16 != L3 L4 = 64: the constant flux is not self-dual (S = 2 pi^2 (4 + 1/4), module docstring of
+    # instantonkit.ansatz.twisted) and cooling a perturbed start leaves it for a localised self-dual lump of
+    # charge 1/2 with S -> 4 pi^2 (van Baal, Commun. Math. Phys. 85 (1982) 529, from memory, on the
+    # instability of the constant flux off L1 L2 = L3 L4; the lump itself: common practice of cooling
+    # studies on twisted tori, no paper checked here).  Measured on this coarse
+    # lattice: S / 4 pi^2 = 0.961 and Q_clover = 0.424 after 400 sweeps (a^2 errors of a lump a few
+    # spacings wide), peak q 17 times the mean
+    shape = (4, 4, 8, 8)
+    rng = np.random.default_rng(0)
+    start = tw.constant_flux_links(shape)
+    x = rng.normal(size=start.shape) + 1j * rng.normal(size=start.shape)
+    x = 0.5 * (x - np.conj(np.swapaxes(x, -1, -2)))
+    x = x - np.trace(x, axis1=-2, axis2=-1)[..., None, None] * np.eye(2) / 2
+    u = np.asarray(sm._expm_su(jnp.asarray(0.1 * x))) @ start
+    cooled, rec = tf.twisted_cool(u, TWIST, 400, every=50)
+    assert rec.wilson_action[0] > 1.9 * 4 * np.pi**2
+    assert rec.wilson_action[-1] == pytest.approx(4 * np.pi**2, rel=0.06)
+    assert rec.clover_charge[-1] == pytest.approx(0.5, abs=0.1)
+    q = tw.twisted_clover_charge_density(cooled, TWIST)
+    assert q.max() > 10 * q.mean()

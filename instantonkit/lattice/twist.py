@@ -12,8 +12,10 @@ and every other plaquette by 1.  The twisted Wilson action is S = beta sum_p (1 
 (beta = 2N by default, as `instantonkit.lattice.observables.wilson_action`), the twisted clover uses
 z_p U_p for each of its four leaves.  z is central, so a lattice gauge transformation leaves every
 twisted observable unchanged; multiplying the links U_mu(n) of the sheet n_mu = c_mu, n_nu = c_nu by
-conj(z_mu nu) moves the twist of plane (mu, nu) from the corner c to c - nu_hat (a "singular gauge
-transformation"), so only the twist tensor, not its place, is physical.
+z_mu nu (a "singular gauge transformation") gives the plaquette of plane (mu, nu) at c the factor z_mu nu
+and the one at c - nu_hat the factor conj(z_mu nu) (the planes (mu, rho) get z conj(z) = 1), so with the
+twist moved from c to c - nu_hat every twisted plaquette is unchanged: only the twist tensor, not its
+place, is physical.
 
 The observables here reuse `instantonkit.lattice.observables`: they compute the untwisted quantity and
 then correct the few plaquettes (and the clovers of the four sites around each) that carry a factor.
