@@ -126,6 +126,22 @@ def test_su3_constant_flux_charge_is_two_thirds():
     assert box_integral(constant_flux(box, 3), ik.charge_density, box) == pytest.approx(2.0 / 3.0, rel=1e-12)
 
 
+@pytest.mark.parametrize(
+    "box, n, error, match",
+    [
+        ((1.0, 1.0, 1.0), 2, ValueError, r"box"),
+        ((1.0, -1.0, 1.0, 1.0), 2, ValueError, r"box must be > 0"),
+        ((1.0, np.nan, 1.0, 1.0), 2, ValueError, r"box"),
+        ((1.0, 1.0, 1.0, 1.0), 1, ValueError, r"at least 2; found 1"),
+        ((1.0, 1.0, 1.0, 1.0), 2.5, (TypeError, ValueError), r"n"),
+        ((1.0, 1.0, 1.0, 1.0), True, (TypeError, ValueError), r"n"),
+    ],
+)
+def test_constant_flux_refuses_a_bad_box_or_n(box, n, error, match):
+    with pytest.raises(error, match=match):
+        constant_flux(box, n)
+
+
 # -- the twist tensor and its factors ----------------------------------------------------------------------
 
 
@@ -238,6 +254,19 @@ def test_a_singular_gauge_transformation_moves_the_twist_and_leaves_every_twiste
         tw.twisted_clover_charge_density(u, twist, corner=c),
         atol=1e-13,
     )
+
+
+def test_the_memory_bounded_twisted_charge_density_is_the_charge_of_the_twisted_clover():
+    # twisted_clover_charge_density recomputes only blocks around the twisted corners; against the
+    # density of the full twisted clover field strength, every plane twisted, the corner moved
+    u = random_links((3, 2, 4, 2), 3, seed=13)
+    twist = {(1, 2): 1, (1, 3): 2, (1, 4): 1, (2, 3): 1, (2, 4): 2, (3, 4): 1}
+    f = tw.twisted_clover_field_strength(u, twist, corner=(0, 1, 2, 0))
+    q = (
+        np.einsum("mnrs,...mnij,...rsji->...", ik.conventions.LEVI_CIVITA, f, f).real
+        * ik.conventions.CHARGE_DENSITY_FACTOR
+    )
+    np.testing.assert_allclose(tw.twisted_clover_charge_density(u, twist, corner=(0, 1, 2, 0)), q, atol=1e-15)
 
 
 # -- the constant-flux field on the lattice -----------------------------------------------------------------
@@ -380,6 +409,11 @@ def test_twisted_cooling_of_a_rough_start_ends_near_the_constant_flux():
 def test_twisted_flow_refuses_a_step_beyond_the_stability_bound():
     with pytest.raises(ValueError, match=r"stability bound 0\.15"):
         tf.twisted_flow(tw.constant_flux_links((2, 2, 2, 2)), TWIST, 1.0, 0.5)
+
+
+def test_twisted_flow_names_a_bad_twist_entry():
+    with pytest.raises(ValueError, match=r"n_34 .* out of range for SU\(2\).*found 2"):
+        tf.twisted_flow(tw.constant_flux_links((2, 2, 2, 2)), {(3, 4): 2}, 0.1)
 
 
 def test_twisted_cooling_refuses_odd_extents():

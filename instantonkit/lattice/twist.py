@@ -272,6 +272,31 @@ def _clover_part(x, n):
     return (a - tr[..., None, None] * np.eye(n) / n) / 8.0
 
 
+def _leaf_corrections(u, tensor, c, n):
+    """The change of the clover F (lattice units) by the twist: [(sites, mu, nu, dF)], sites four (k,) int
+    arrays, dF (k, N, N), one entry per site sheet around each twisted corner (`twisted_clover_field_strength`)."""
+    out = []
+    for _, mu, nu, z in _twisted_planes(tensor, n):
+        umu, unu_up, _, unu = _corner_links(u, mu, nu, c)  # U_mu(c), U_nu(c + mu), -, U_nu(c)
+        p = _corner_plaquette(u, mu, nu, c)
+        w = umu @ unu_up
+        cm, cn = c[mu], c[nu]
+        um, un = (cm + 1) % u.shape[mu], (cn + 1) % u.shape[nu]
+        rest = [d for d in range(4) if d not in (mu, nu)]
+        grid = np.indices((u.shape[rest[0]], u.shape[rest[1]])).reshape(2, -1)
+        for (sm, sn), leaf in (
+            ((cm, cn), p),
+            ((um, cn), _dag(umu) @ p @ umu),
+            ((cm, un), _dag(unu) @ p @ unu),
+            ((um, un), _dag(w) @ p @ w),
+        ):
+            sites = [np.empty(grid.shape[1], dtype=np.intp) for _ in range(4)]
+            sites[mu][:], sites[nu][:] = sm, sn
+            sites[rest[0]][:], sites[rest[1]][:] = grid
+            out.append((tuple(sites), mu, nu, _clover_part((z - 1.0) * leaf, n).reshape((-1, n, n))))
+    return out
+
+
 def twisted_clover_field_strength(links, twist, *, spacing: float = 1.0, corner=None) -> np.ndarray:
     """Clover field strength with twisted leaves, F_mu nu / spacing^2; (L1, L2, L3, L4, 4, 4, N, N) complex128.
 
@@ -288,21 +313,9 @@ def twisted_clover_field_strength(links, twist, *, spacing: float = 1.0, corner=
     u, tensor, c, n = _setup(links, twist, corner)
     a2 = _v.positive_float("spacing", spacing) ** 2
     out = _obs.clover_field_strength(u, spacing=spacing)
-    for _, mu, nu, z in _twisted_planes(tensor, n):
-        umu, unu_up, _, unu = _corner_links(u, mu, nu, c)  # U_mu(c), U_nu(c + mu), -, U_nu(c)
-        p = _corner_plaquette(u, mu, nu, c)
-        w = umu @ unu_up
-        cm, cn = c[mu], c[nu]
-        um, un = (cm + 1) % u.shape[mu], (cn + 1) % u.shape[nu]
-        for (sm, sn), leaf in (
-            ((cm, cn), p),
-            ((um, cn), _dag(umu) @ p @ umu),
-            ((cm, un), _dag(unu) @ p @ unu),
-            ((um, un), _dag(w) @ p @ w),
-        ):
-            df = _clover_part((z - 1.0) * leaf, n) / a2
-            out[_sheet(mu, nu, sm, sn) + (mu, nu)] += df
-            out[_sheet(mu, nu, sm, sn) + (nu, mu)] -= df
+    for sites, mu, nu, df in _leaf_corrections(u, tensor, c, n):
+        out[sites + (mu, nu)] += df / a2
+        out[sites + (nu, mu)] -= df / a2
     return out
 
 
@@ -319,9 +332,38 @@ def twisted_clover_charge_density(links, twist, *, spacing: float = 1.0, corner=
     """Clover charge density with twisted leaves, q(n) / spacing^4; (L1, L2, L3, L4) float64.
 
     q = -1/(32 pi^2) eps tr F F (conventions module) of `twisted_clover_field_strength`; with a zero twist
-    it is `instantonkit.lattice.observables.clover_charge_density` (periodic).
+    it is `instantonkit.lattice.observables.clover_charge_density` (periodic).  Memory stays that of the
+    untwisted density: the clovers are those of `instantonkit.lattice.observables.clover_charge_density`
+    except on the slab n_mu in {c_mu, c_mu + 1}, n_nu in {c_nu, c_nu + 1} of each twisted plane, which is
+    recomputed from a block four sites wide in mu and nu (its middle two are exact) with every correction.
     """
-    return _charge_from_clover(twisted_clover_field_strength(links, twist, spacing=spacing, corner=corner))
+    u, tensor, c, n = _setup(links, twist, corner)
+    a4 = _v.positive_float("spacing", spacing) ** 4
+    q = _obs.clover_charge_density(u)
+    corrections = _leaf_corrections(u, tensor, c, n)
+    shape = u.shape[:4]
+    for _, mu, nu, _ in _twisted_planes(tensor, n):
+        axes = [np.arange(s) for s in shape]
+        for d in (mu, nu):
+            axes[d] = (c[d] + np.arange(-1, 3)) % shape[d]
+        f = _obs.clover_field_strength(u[np.ix_(*axes)])
+        for sites, m, v, df in corrections:
+            pos = list(sites)
+            keep = np.ones(len(sites[0]), dtype=bool)
+            for d in (mu, nu):
+                first, second = sites[d] == c[d], sites[d] == (c[d] + 1) % shape[d]
+                keep &= first | second
+                pos[d] = np.where(first, 1, 2)
+            idx = tuple(x[keep] for x in pos)
+            f[idx + (m, v)] += df[keep]
+            f[idx + (v, m)] -= df[keep]
+        inner: list = [slice(None)] * 4
+        out_axes = list(axes)
+        for d in (mu, nu):
+            inner[d] = slice(1, 3)
+            out_axes[d] = axes[d][1:3]
+        q[np.ix_(*out_axes)] = _charge_from_clover(f[tuple(inner)])
+    return q / a4
 
 
 def twisted_clover_charge(links, twist, *, corner=None) -> float:
