@@ -269,6 +269,26 @@ def test_the_memory_bounded_twisted_charge_density_is_the_charge_of_the_twisted_
     np.testing.assert_allclose(tw.twisted_clover_charge_density(u, twist, corner=(0, 1, 2, 0)), q, atol=1e-15)
 
 
+@given(st.sampled_from(obs.PLANES), st.integers(0, 1), st.integers(0, 1))
+def test_moving_a_single_plane_twist_leaves_the_twisted_action_in_every_plane(plane, cmu, cnu):
+    # the same singular gauge transformation as above, for each plane (mu, nu) and corner: U_mu on the sheet
+    # (c_mu, c_nu) times z_mu nu, twist moved from c to c - e_nu ('t Hooft 1979, from memory)
+    mu, nu = plane
+    u = random_links((2, 2, 2, 2), 3, seed=17)
+    twist = {(mu + 1, nu + 1): 2}
+    c = [1, 1, 1, 1]
+    c[mu], c[nu] = cmu, cnu
+    v = u.copy()
+    sl = [slice(None)] * 4
+    sl[mu], sl[nu] = cmu, cnu
+    v[tuple(sl) + (mu,)] *= np.exp(4j * np.pi / 3)
+    moved = list(c)
+    moved[nu] = (cnu - 1) % 2
+    assert tw.twisted_wilson_action(v, twist, corner=tuple(moved)) == pytest.approx(
+        tw.twisted_wilson_action(u, twist, corner=tuple(c)), rel=1e-13
+    )
+
+
 # -- the constant-flux field on the lattice -----------------------------------------------------------------
 
 
