@@ -10,7 +10,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 import instantonkit as ik
-from instantonkit.ansatz.twisted import constant_flux, flux_generator
+from instantonkit.ansatz.twisted import constant_flux, constant_flux_twist, flux_generator
 from instantonkit.lattice import observables as obs
 from instantonkit.lattice import smoothing as sm
 from instantonkit.lattice import transport
@@ -100,15 +100,17 @@ def test_transition_functions_glue_the_faces_of_the_box(n):
         np.testing.assert_allclose(f.potential(x + box[mu] * np.eye(4)[mu]), expected, atol=1e-13)
 
 
-@pytest.mark.parametrize("n", [2, 3])
-def test_cocycle_of_the_transition_functions_is_the_twist_n12_n34_equal_one(n):
+@pytest.mark.parametrize("n", [2, 3, 4])
+def test_cocycle_of_the_transition_functions_is_the_twist_n12_one_n34_n_minus_one(n):
     # Omega_mu(x + L_nu) Omega_nu(x) = exp(-2 pi i n_mu nu / N) Omega_nu(x + L_mu) Omega_mu(x), the cocycle of
     # 't Hooft (Nucl. Phys. B 153 (1979) 141, from memory; the sign matched to our lattice convention,
-    # module docstring of instantonkit.ansatz.twisted), with n_12 = n_34 = 1 and the other n = 0
+    # module docstring of instantonkit.ansatz.twisted), with n_12 = 1, n_34 = N - 1 (SU(2): n_12 = n_34 = 1)
+    # and the other n = 0
     f = constant_flux((1.0, 1.3, 0.8, 1.1), n)
     box = np.asarray(f.box)
     x = jnp.array([0.21, 0.37, 0.52, 0.66])
-    twist = tw.twist_tensor(TWIST, n)
+    twist = constant_flux_twist(n)
+    assert twist[0, 1] == 1 and twist[2, 3] == n - 1 and np.count_nonzero(twist) == 4
     for mu in range(4):
         for nu in range(4):
             if mu == nu:
@@ -119,11 +121,21 @@ def test_cocycle_of_the_transition_functions_is_the_twist_n12_n34_equal_one(n):
             np.testing.assert_allclose(left, z * right, atol=1e-13)
 
 
-def test_su3_constant_flux_charge_is_two_thirds():
-    # derivation (module docstring of instantonkit.ansatz.twisted): Q = V f12 f34 tr T^2 / (4 pi^2) = tr T^2
-    # = (N - 1)/N for T = diag(-1/3, -1/3, 2/3); = -1/3 mod 1
-    box = (1.0, 1.0, 1.0, 1.0)
-    assert box_integral(constant_flux(box, 3), ik.charge_density, box) == pytest.approx(2.0 / 3.0, rel=1e-12)
+@pytest.mark.parametrize("n", [3, 4])
+def test_su_n_constant_flux_charge_is_one_over_n(n):
+    # 't Hooft 1981 (from memory): charge 1/N in SU(N) from U(1) x SU(N-1); derivation (module docstring of
+    # instantonkit.ansatz.twisted): Q = Phi12 Phi34 tr H^2 / (4 pi^2) = (2 pi / (N-1)) (2 pi) ((N-1)/N) / (4 pi^2)
+    box = (1.0, 0.9, 1.2, 1.1)
+    assert box_integral(constant_flux(box, n), ik.charge_density, box) == pytest.approx(1.0 / n, rel=1e-12)
+
+
+def test_su3_constant_flux_is_self_dual_with_action_eight_pi_squared_over_three_when_l3_l4_is_twice_l1_l2():
+    # self-duality F_12 = F_34: Phi12 / (L1 L2) = Phi34 / (L3 L4), i.e. L3 L4 = (N - 1) L1 L2 ('t Hooft 1981,
+    # from memory: the sides' ratio fixed by the block sizes); then S = 8 pi^2 Q = 8 pi^2 / 3
+    box = (1.0, 1.0, 2.0, 1.0)
+    x = np.array([[0.1, 0.2, 0.3, 0.4]])
+    assert ik.self_duality_residual(constant_flux(box, 3), x)[0] < 1e-14
+    assert box_integral(constant_flux(box, 3), ik.action_density, box) == pytest.approx(8 * np.pi**2 / 3, rel=1e-12)
 
 
 @pytest.mark.parametrize(
@@ -312,12 +324,13 @@ def test_constant_flux_links_are_the_transporters_of_the_continuum_field_glued_b
 
 @pytest.mark.parametrize("n", [2, 3])
 def test_constant_flux_twisted_plaquettes_are_constant(n):
-    # every plaquette of plane 12 is exp(-i phi12 T), phi12 = 2 pi / (L1 L2), of plane 34 exp(-i phi34 T),
-    # the rest 1, once the twist n_12 = n_34 = 1 removes exp(-2 pi i / N) from the corner (module docstring)
+    # every plaquette of plane 12 is exp(-i phi12 H), phi12 = 2 pi / ((N-1) L1 L2), of plane 34 exp(-i phi34 H),
+    # phi34 = 2 pi / (L3 L4), the rest 1, once the twist n_12 = 1, n_34 = N - 1 removes the centre factors
+    # from the corners (module docstring)
     shape = (2, 3, 4, 2)
-    p = tw.twisted_plaquettes(tw.constant_flux_links(shape, n), TWIST)
+    p = tw.twisted_plaquettes(tw.constant_flux_links(shape, n), constant_flux_twist(n))
     t = np.diagonal(flux_generator(n))
-    for plane, phi in ((0, 2 * np.pi / 6), (5, 2 * np.pi / 8)):
+    for plane, phi in ((0, 2 * np.pi / (6 * (n - 1))), (5, 2 * np.pi / 8)):
         np.testing.assert_allclose(
             p[..., plane, :, :], np.broadcast_to(np.diag(np.exp(-1j * phi * t)), p.shape[:4] + (n, n)), atol=1e-14
         )
@@ -338,16 +351,27 @@ def test_constant_flux_twisted_wilson_action_is_four_v_two_minus_cosines(shape):
 
 
 def test_su3_constant_flux_twisted_wilson_action():
-    # derivation as for SU(2), T = diag(-1/3, -1/3, 2/3): Re tr exp(-i phi T) = 2 cos(phi/3) + cos(2 phi/3),
-    # S = 6 V [2 - (Re tr exp(-i phi12 T) + Re tr exp(-i phi34 T)) / 3]
+    # derivation as for SU(2), H = diag(-2/3, 1/3, 1/3): Re tr exp(-i phi H) = cos(2 phi/3) + 2 cos(phi/3),
+    # phi12 = 2 pi / (2 N1 N2), phi34 = 2 pi / (N3 N4); S = 6 V [2 - (Re tr exp(-i phi12 H) + Re tr exp(-i phi34 H)) / 3]
     shape = (2, 3, 4, 2)
     v = np.prod(shape)
 
     def retr(phi):
         return 2 * np.cos(phi / 3) + np.cos(2 * phi / 3)
 
-    expected = 6 * v * (2 - (retr(2 * np.pi / 6) + retr(2 * np.pi / 8)) / 3)
-    assert tw.twisted_wilson_action(tw.constant_flux_links(shape, 3), TWIST) == pytest.approx(expected, rel=1e-13)
+    expected = 6 * v * (2 - (retr(2 * np.pi / 12) + retr(2 * np.pi / 8)) / 3)
+    links = tw.constant_flux_links(shape, 3)
+    assert tw.twisted_wilson_action(links, constant_flux_twist(3)) == pytest.approx(expected, rel=1e-13)
+
+
+def test_su3_constant_flux_clover_charge_approaches_one_third():
+    # the box L3 L4 = 2 L1 L2 (self-dual), k sites per unit length: |Q_lat - 1/3| falls as a^4 like SU(2)'s
+    devs = [
+        abs(tw.twisted_clover_charge(tw.constant_flux_links((k, k, 2 * k, k), 3), constant_flux_twist(3)) - 1 / 3)
+        for k in (4, 6)
+    ]
+    assert devs[1] < 5e-4 < devs[0]
+    assert devs[0] / devs[1] == pytest.approx((6 / 4) ** 4, rel=0.05)
 
 
 def test_constant_flux_lattice_action_tends_to_four_pi_squared_as_a_to_the_fourth():

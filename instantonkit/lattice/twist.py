@@ -28,6 +28,7 @@ from collections.abc import Mapping
 
 import numpy as np
 
+from ..ansatz.twisted import flux_generator, twist_eaters
 from ..core import _validate as _v
 from ..core._links import check_links as _check_links
 from ..core.conventions import CHARGE_DENSITY_FACTOR
@@ -377,44 +378,43 @@ def twisted_clover_charge(links, twist, *, corner=None) -> float:
 def constant_flux_links(shape, n: int = 2) -> np.ndarray:
     """Exact links of 't Hooft's constant-flux field (`instantonkit.ansatz.twisted`) on an L1 x ... x L4 lattice.
 
-    With lattice spacing a = 1 (box sides L_mu = number of sites; the links depend only on the shape) and
-    phi12 = 2 pi / (L1 L2), phi34 = 2 pi / (L3 L4), every link is exp(-i theta T), T the flux generator
-    (`instantonkit.ansatz.twisted.flux_generator`), with
+    With lattice spacing a = 1 (box sides L_mu = number of sites; the links depend only on the shape),
+    H the flux generator (`instantonkit.ansatz.twisted.flux_generator`), E1, E2 its twist eaters
+    (`instantonkit.ansatz.twisted.twist_eaters`), phi12 = 2 pi / ((N - 1) L1 L2), phi34 = 2 pi / (L3 L4):
 
-        theta_2(n) = phi12 n1,   theta_1(n) = -phi12 L1 n2 at n1 = L1 - 1 (else 0),
-        theta_4(n) = phi34 n3,   theta_3(n) = -phi34 L3 n4 at n3 = L3 - 1 (else 0):
+        U_2(n) = exp(-i phi12 n1 H) (times E2 at n2 = L2 - 1),   U_4(n) = exp(-i phi34 n3 H),
+        U_1(n) = 1, at n1 = L1 - 1: exp(i phi12 L1 n2 H) E1,     U_3(n) = 1, at n3 = L3 - 1: exp(i phi34 L3 n4 H):
 
     the transporters exp(a A_mu) of the continuum potential inside the box (A is constant along each
-    link), and on the links that wrap round the transition functions Omega_1(x), Omega_3(x) at the site.
-    Every plaquette of plane 12 is exp(-i phi12 T), of plane 34 exp(-i phi34 T), the rest 1; the corner
-    plaquettes (last site) carry exp(2 pi i T) = exp(-2 pi i / N) on top, which the twist n_12 = n_34 = 1
-    (factor exp(+2 pi i / N)) removes: the twisted plaquettes are constant.
+    link), times the transition function Omega_mu at the far site on the links that wrap round.  Every
+    plaquette of plane 12 is exp(-i phi12 H), of plane 34 exp(-i phi34 H), the rest 1, except the corner
+    plaquettes (last site), which carry exp(-2 pi i n_mu nu / N) on top, removed by the twist n_12 = 1,
+    n_34 = N - 1 (`instantonkit.ansatz.twisted.constant_flux_twist`): the twisted plaquettes are constant.
 
     Args:
       shape: (L1, L2, L3, L4) sites, each >= 2.
       n: N of SU(N), >= 2.
     Returns:
-      (L1, L2, L3, L4, 4, N, N) complex128 SU(N) links (diagonal).
+      (L1, L2, L3, L4, 4, N, N) complex128 SU(N) links.
     Raises:
       ValueError / TypeError: a bad shape (an extent below 2) or n.
     """
     shape = _v.lattice_shape("shape", shape)
     if min(shape) < 2:
         raise ValueError(f"shape must have every extent >= 2 for a twisted torus; found {shape}")
-    n = _v.positive_int("n", n)
-    if n < 2:
-        raise ValueError(f"n (the N of SU(N)) must be at least 2; found {n}")
-    t = np.full(n, -1.0 / n)
-    t[-1] = (n - 1.0) / n
+    h = np.diagonal(flux_generator(n))
+    e1, e2 = twist_eaters(n)
+    n = h.size
     l1, l2, l3, l4 = shape
     idx = np.indices(shape, dtype=np.float64)
-    phi12, phi34 = 2.0 * np.pi / (l1 * l2), 2.0 * np.pi / (l3 * l4)
+    phi12, phi34 = 2.0 * np.pi / ((n - 1) * l1 * l2), 2.0 * np.pi / (l3 * l4)
     theta = np.zeros(shape + (4,))
     theta[..., 1] = phi12 * idx[0]
     theta[..., 0] = np.where(idx[0] == l1 - 1, -phi12 * l1 * idx[1], 0.0)
     theta[..., 3] = phi34 * idx[2]
     theta[..., 2] = np.where(idx[2] == l3 - 1, -phi34 * l3 * idx[3], 0.0)
     out = np.zeros(shape + (4, n, n), dtype=np.complex128)
-    diag = np.exp(-1j * theta[..., None] * t)
-    out[..., np.arange(n), np.arange(n)] = diag
+    out[..., np.arange(n), np.arange(n)] = np.exp(-1j * theta[..., None] * h)
+    out[l1 - 1, :, :, :, 0] = out[l1 - 1, :, :, :, 0] @ e1
+    out[:, l2 - 1, :, :, 1] = out[:, l2 - 1, :, :, 1] @ e2
     return out
