@@ -173,6 +173,20 @@ def test_twist_factors_sit_on_the_corner_plaquettes_of_the_twisted_planes():
     np.testing.assert_allclose(z[:, :, 4, 1, 5], np.exp(4j * np.pi / 3))
 
 
+@given(st.integers(2, 6), st.lists(st.integers(-5, 5), min_size=6, max_size=6))
+def test_every_antisymmetric_in_range_twist_is_accepted_and_others_name_their_entry(n, entries):
+    # the rule: n_mu nu integers, antisymmetric, |n_mu nu| <= N - 1 (a twist counts mod N, 't Hooft 1979)
+    twist = {(mu + 1, nu + 1): k for (mu, nu), k in zip(obs.PLANES, entries)}
+    bad = [(plane, k) for plane, k in twist.items() if abs(k) >= n]
+    if not bad:
+        t = tw.twist_tensor(twist, n)
+        assert all(t[mu - 1, nu - 1] == k and t[nu - 1, mu - 1] == -k for (mu, nu), k in twist.items())
+    else:
+        (mu, nu), k = bad[0]
+        with pytest.raises(ValueError, match=rf"n_{mu}{nu} .*out of range for SU\({n}\).*found {k}"):
+            tw.twist_tensor(twist, n)
+
+
 @pytest.mark.parametrize(
     "twist, match",
     [
@@ -428,6 +442,23 @@ def test_a_twisted_cooling_sweep_with_zero_twist_is_a_cooling_sweep():
     colours = jnp.asarray(sm._colours(FLOW_SHAPE, False))
     expected = sm._cool_sweep(u, colours, 1.0, 0.0, False, 2, 3)
     np.testing.assert_allclose(tf._cool_sweep(u, colours, z, 3), expected, atol=1e-14)
+
+
+def test_twisted_flow_commutes_with_moving_the_twist():
+    # the singular gauge transformation (U_1 on the sheet (c_1, c_2) times z_12, twist moved to c - e_2) leaves
+    # every twisted loop U_mu Sigma~_mu, hence the force, unchanged: flowing and moving commute
+    z = np.exp(2j * np.pi * 1 / 2)
+    c, moved = (3, 1, 1, 3), (3, 0, 1, 3)
+
+    def move(links):
+        out = np.array(links)
+        out[3, 1, :, :, 0] *= z
+        return out
+
+    u = perturbed(tw.constant_flux_links(FLOW_SHAPE), 0.3, seed=6)
+    a, _ = tf.twisted_flow(u, TWIST, 0.1, 0.05, corner=c)
+    b, _ = tf.twisted_flow(move(u), TWIST, 0.1, 0.05, corner=moved)
+    np.testing.assert_allclose(b, move(a), atol=1e-13)
 
 
 def test_constant_flux_links_are_a_fixed_point_of_the_twisted_flow():
