@@ -29,6 +29,7 @@ from .ansatz.mixtures import (
     ratio_ansatz,
     torus_mixture,
 )
+from .ansatz.twisted import constant_flux
 from .cluster import ensemble
 from .core import conventions, quaternion
 from .core._config import enable_compile_cache, set_lean_compile
@@ -51,6 +52,8 @@ from .lattice.files import load_lattice, save_lattice
 from .lattice.polyakov import lattice_polyakov_loop, polyakov_average, polyakov_loop, polyakov_phases
 from .lattice.smoothing import cool, gradient_flow, improved_action, improved_charge, wilson_flow
 from .lattice.starts import average_plaquette, clover_charge, lattice_links, lattice_start, wilson_action
+from .lattice.twist import constant_flux_links, twisted_clover_charge, twisted_wilson_action
+from .lattice.twisted_flow import twisted_cool, twisted_flow
 from .verification.checks import (
     DivergentIntegralError,
     FieldEvaluationError,
@@ -160,6 +163,12 @@ __all__ = [
     "random_unitary_adhm",
     "from_quaternionic",
     "embed_unitary",
+    "constant_flux",
+    "constant_flux_links",
+    "twisted_wilson_action",
+    "twisted_clover_charge",
+    "twisted_flow",
+    "twisted_cool",
 ]
 
 
