@@ -69,6 +69,15 @@ def test_torus_mixture_is_periodic_in_every_direction():
         np.testing.assert_allclose(evaluate(f, shifted, "potential"), base, atol=1e-12)
 
 
+@pytest.mark.parametrize("torus", [False, True])
+def test_generator_batch_hook_is_the_potential_contracted_with_the_direction(torus):
+    # the hook's contract (engine.fields.FieldHooks): generator_batch(x, d) = A_mu(x) d_mu
+    f = mx.random_mixture(3, 2, (6, 6, 6, 6), seed=1, sizes=(0.6, 0.9), torus=torus, overlap="ignore")
+    pts, dirs = _points(32, 0, 6), RNG.normal(size=(32, 4))
+    expected = np.einsum("bm,bmij->bij", dirs, evaluate(f, pts, "potential"))
+    np.testing.assert_allclose(np.asarray(f.generator_batch(pts, dirs)), expected, atol=1e-14)
+
+
 # -- integrated action and charge of the field itself --------------------------------------------------------
 
 

@@ -239,13 +239,19 @@ class Mixture(PytreeFields):
         return charge_from_f(self.field_strength(x))
 
     def generator_batch(self, points, dirs):
-        """A.d at a batch of points and directions (m, 4), (m, 4) -> (m, 2, 2) (the transporters' hook)."""
+        """A.d at a batch of points and directions (B, 4), (B, 4) -> (B, 2, 2) (the transporters' hook).
 
-        def one(x, d):
-            a, _ = self._colour(x)
-            return jnp.einsum("am,m,aij->ij", a, d, _UNITS_C)
-
-        return jax.vmap(one)(jnp.asarray(points, dtype=jnp.float64), jnp.asarray(dirs, dtype=jnp.float64))
+        Batch-major: A^a.d = sum_i g_i (R_i E_i)_{a nu l} y_il d_nu with the rotated tensors R_i E_i formed once.
+        """
+        pts = jnp.asarray(points, dtype=jnp.float64)
+        y = pts[:, None, :] - jnp.asarray(self.centres)[None]  # (B, m, 4)
+        if self.torus:
+            box = jnp.asarray(self.box)
+            y = jnp.mod(y + box / 2.0, box) - box / 2.0
+        g, _ = self._radial(y)  # (B, m)
+        rotated = jnp.einsum("iab,ibnl->ianl", _adjoint(self.orientations), self._tensors())
+        a = jnp.einsum("Bi,ianl,Bil,Bn->Ba", g, rotated, y, jnp.asarray(dirs, dtype=jnp.float64))
+        return jnp.einsum("Ba,aij->Bij", a, _UNITS_C)
 
     # -- hooks ----------------------------------------------------------------------------------------
     def hint(self):
