@@ -19,6 +19,16 @@ from .adhm.unitary import UnitaryADHMData
 from .adhm.unitary_moduli import embed_unitary, from_quaternionic, random_unitary_adhm, unitary_multi_instanton
 from .adhm.zero_modes import zero_mode_density, zero_mode_overlap, zero_modes
 from .ansatz.classic import bpst_field, caloron, jnr, thooft
+from .ansatz.mixture_totals import MixtureTotals, mixture_totals
+from .ansatz.mixtures import (
+    Mixture,
+    OverlapWarning,
+    instanton_pair,
+    mixture,
+    random_mixture,
+    ratio_ansatz,
+    torus_mixture,
+)
 from .ansatz.twisted import constant_flux
 from .cluster import ensemble
 from .core import conventions, quaternion
@@ -106,6 +116,15 @@ __all__ = [
     "jnr",
     "caloron",
     "bpst_field",
+    "mixture",
+    "torus_mixture",
+    "random_mixture",
+    "instanton_pair",
+    "ratio_ansatz",
+    "mixture_totals",
+    "Mixture",
+    "MixtureTotals",
+    "OverlapWarning",
     "anti",
     "gauge_transform",
     "translate",

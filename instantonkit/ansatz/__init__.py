@@ -4,6 +4,8 @@ Modules (floor 4 of the package; the floors inside are in DEVELOPERS.md):
 
 * ``calorons``: Calorons: instantons on R^3 x S^1; so far the Harrington-Shepard caloron (trivial holonomy).
 * ``classic``: Classic instanton ansaetze as fields: 't Hooft, Jackiw-Nohl-Rebbi, Harrington-Shepard, BPST.
+* ``mixtures``: Instantons and anti-instantons in the sum ansatz (R^4 and the torus), random ensembles, the ratio ansatz.
+* ``mixture_totals``: The integrated action and charge of a mixture with error bars, beside its count n+ - n-.
 * ``periodic``: The lattice torus: site positions and origins, and fields made smooth on it by a window.
 * ``twisted``: 't Hooft's constant-curvature field of charge 1/N on the twisted 4-torus.
 * ``scalar``: The scalar ansatz A = -1/2 eta-bar d log(phi) u: closed forms shared by 't Hooft, JNR and calorons.

@@ -10,7 +10,9 @@ import numpy as np
 
 from ..adhm.moduli import random_adhm
 from ..adhm.quaternionic import ADHMData
+from ..ansatz.mixtures import random_mixture
 from ..core import _validate as _v
+from ..lattice.references import field_from_record
 from ..lattice.starts import StartSpec, default_origin
 from ._optional import require
 from .geometry import Job, check_chunks, default_chunks
@@ -33,7 +35,7 @@ def member_seed(seed: int, i: int) -> np.random.SeedSequence:
 @dataclasses.dataclass(frozen=True)
 class Ensemble:
     """Random multi-instanton starts: ``links`` (n, L1, L2, L3, L4, 4, N, N) (Zarr or dask array),
-    ``members`` the ADHM data of each, ``seeds`` the per-member seeds (see `member_seed`),
+    ``members`` the ADHM data of each (torus mixtures for k = (k_plus, k_minus)), ``seeds`` the per-member seeds (see `member_seed`),
     ``reports`` one `instantonkit.lattice.starts.LinkReport` per member (None without a store)."""
 
     links: object
@@ -56,9 +58,21 @@ def _ensemble_defaults(shape, a, spread, size_range):
     return spread, size_range
 
 
+def _mixed_counts(k, rank) -> tuple[int, int]:
+    """(k+, k-) of a mixed ensemble's ``k``, checked (SU(2) only)."""
+    if len(k) != 2:
+        raise ValueError(f"k must be a charge >= 1 or (k_plus, k_minus); found {tuple(k)!r:.80}")
+    kp, km = (_v.nonnegative_int("k (k_plus, k_minus)", v) for v in k)
+    if kp + km < 1:
+        raise ValueError(f"k = (k_plus, k_minus) must hold at least one object; found ({kp}, {km})")
+    if rank != 1:
+        raise ValueError(f"instanton-anti-instanton ensembles are SU(2): rank must be 1; found {rank!r}")
+    return kp, km
+
+
 def ensemble(
     n: int,
-    k: int,
+    k: int | tuple[int, int],
     shape,
     spacing,
     *,
@@ -88,11 +102,16 @@ def ensemble(
     the lattice: origin -a (floor(L / 2) - 1/2), so the middle hypercube is centred on 0.  Links as
     in `instantonkit.lattice.starts.lattice_links`; chunks: (c1, c2, c3, c4) per member.  store:
     Zarr directory (resumable; members' ADHM data and seeds in its attributes) or None for a dask
-    array.  Rebuild member i from a store with `load_member`.  ``boundary_figures=True`` adds
+    array.  Rebuild member i from a store with `load_member`.
+
+    ``k = (k_plus, k_minus)``: member i is instead ``random_mixture(k_plus, k_minus, a L, lo=origin - a/2,
+    sizes=size_range, seed=default_rng(member_seed(seed, i)), overlap="ignore")``
+    (`instantonkit.ansatz.mixtures`): the sum ansatz on the lattice's own torus, centres uniform in
+    it (``spread`` and ``gauge`` do not apply), SU(2) only (rank 1).  ``boundary_figures=True`` adds
     each periodic member's boundary mismatch to its report (read in this process, member by member).
 
     Args:
-      n: members (>= 1); k: charge (>= 1); shape: (L1, L2, L3, L4); spacing: a > 0.
+      n: members (>= 1); k: charge (>= 1), or (k_plus, k_minus) for instanton-anti-instanton mixtures; shape: (L1, L2, L3, L4); spacing: a > 0.
       seed, rank, gauge, spread, size_range: the random ADHM data (see above).
       group, embedding, boundary, rtol, method: as in `instantonkit.lattice.starts.lattice_links`.
       chunks, store: as in `instantonkit.cluster.lattice_links` (chunks per member).
@@ -106,22 +125,35 @@ def ensemble(
       ImportError: without the optional extra ``distributed``.
     """
     n = _v.positive_int("n (members)", n)
-    k = _v.positive_int("k (charge)", k)
+    mixed = isinstance(k, (tuple, list))
+    counts = _mixed_counts(k, rank) if mixed else None
+    k = sum(counts) if counts else _v.positive_int("k (charge)", k)
     shape = _v.lattice_shape("shape", shape, in_memory=False)
     a = _v.positive_float("spacing", spacing)
-    _v.adhm_affordable(k, _v.positive_int("rank", rank), k_name="k (charge)")
+    if not mixed:
+        _v.adhm_affordable(k, _v.positive_int("rank", rank), k_name="k (charge)")
     # this process holds every member's seed, ADHM data (4 k (k + rank) float64) and start record
     member_bytes = 256.0 + 32.0 * k * (k + rank)
     _v.affordable("n (members)", n * member_bytes, f"the records of {n} members")
     spread, size_range = _ensemble_defaults(shape, a, spread, size_range)
     origin = default_origin(None, shape, a)  # no field: the middle hypercube is centred on 0
     seeds = tuple(member_seed(seed, i) for i in range(int(n)))
-    members = tuple(
-        dataclasses.replace(
-            random_adhm(k, rank, seed=np.random.default_rng(s), spread=spread, size_range=size_range), gauge=gauge
+    members: tuple
+    if counts:
+        box = a * np.asarray(shape, dtype=np.float64)
+        members = tuple(
+            random_mixture(
+                *counts, box, lo=origin - a / 2.0, sizes=size_range, seed=np.random.default_rng(s), overlap="ignore"
+            )
+            for s in seeds
         )
-        for s in seeds
-    )
+    else:
+        members = tuple(
+            dataclasses.replace(
+                random_adhm(k, rank, seed=np.random.default_rng(s), spread=spread, size_range=size_range), gauge=gauge
+            )
+            for s in seeds
+        )
     specs = [
         StartSpec.make(
             m, shape, a, origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method
@@ -133,7 +165,7 @@ def ensemble(
     )
     params = {
         "n": int(n),
-        "k": int(k),
+        "k": list(counts) if counts else int(k),
         "seed": int(seed),
         "rank": int(rank),
         "gauge": gauge,
@@ -147,7 +179,10 @@ def ensemble(
         "boundary": specs[0].boundary if isinstance(specs[0].boundary, str) else list(specs[0].boundary),
         "rtol": float(rtol),
         "method": method,
-        "members": [{"lam": np.asarray(m.lam).tolist(), "B": np.asarray(m.B).tolist()} for m in members],
+        "members": [
+            m.record() if counts else {"lam": np.asarray(m.lam).tolist(), "B": np.asarray(m.B).tolist()}
+            for m in members
+        ],
     }
     tasks = [MemberChunk(s) for s in specs]
     job = Job(
@@ -190,12 +225,13 @@ class MemberView:
 
 
 def load_member(path, i: int):
-    """Member ``i`` of an ensemble store: (links (L1, L2, L3, L4, 4, N, N) numpy, ADHMData).
+    """Member ``i`` of an ensemble store: (links (L1, L2, L3, L4, 4, N, N) numpy, ADHMData or Mixture).
 
     Args:
       path: an ensemble store; i: member index, 0 <= i < n.
     Returns:
-      (links (L1, L2, L3, L4, 4, N, N) complex128 numpy, the member's ADHMData).
+      (links (L1, L2, L3, L4, 4, N, N) complex128 numpy, the member's ADHMData, or its
+      `instantonkit.ansatz.mixtures.Mixture` for k = (k_plus, k_minus)).
     Raises:
       ValueError: not an ensemble store, a bad index, or a member whose chunks are not all done.
     """
@@ -212,5 +248,8 @@ def load_member(path, i: int):
             f"member {i} of {os.fspath(path)!r} is not complete ({int(np.sum(rows[..., Column.DONE] == 1.0))} of {rows[..., Column.DONE].size} chunks); run ensemble(...) again to finish it"
         )
     m = st.params["members"][i]
-    data = ADHMData(np.asarray(m["lam"]), np.asarray(m["B"]), gauge=st.params["gauge"])
+    if isinstance(st.params["k"], list):
+        data = field_from_record(m)
+    else:
+        data = ADHMData(np.asarray(m["lam"]), np.asarray(m["B"]), gauge=st.params["gauge"])
     return np.asarray(zarr.open_array(os.fspath(path), path="links", mode="r")[i]), data

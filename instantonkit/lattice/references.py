@@ -17,6 +17,7 @@ import numpy as np
 from ..adhm.quaternionic import ADHMData
 from ..adhm.unitary import UnitaryADHMData
 from ..ansatz.classic import BPSTField, caloron, jnr, thooft
+from ..ansatz.mixtures import mixture, torus_mixture
 from ..ansatz.periodic import DEFAULT_WINDOW_WIDTH, TorusWindow
 from ..core import _validate as _v
 from ..core.conventions import INSTANTON_ACTION
@@ -196,6 +197,28 @@ def _holonomy_caloron_from_record(rec):
     return caloron(float(size), float(period), _floats(center), holonomy=omega, axis=_floats(axis))
 
 
+def _mixture_from_record(rec):
+    centres, sizes, orientations, signs = (
+        _floats(v) for v in _entries(rec, "centres", "sizes", "orientations", "signs")
+    )
+    sg = tuple(int(v) for v in signs)
+    torus = rec.get("torus")
+    if torus is None:
+        return mixture(centres, sizes, sg, orientations, overlap="ignore")
+    if not isinstance(torus, dict) or not {"lo", "box", "taper"} <= set(torus):
+        raise ValueError(f"a 'mixture' record's 'torus' entry must hold lo, box and taper; found {torus!r:.80}")
+    return torus_mixture(
+        centres,
+        sizes,
+        sg,
+        _floats(torus["box"]),
+        orientations,
+        lo=_floats(torus["lo"]),
+        taper=float(torus["taper"]),
+        overlap="ignore",
+    )
+
+
 def _complex_entry(rec, name):
     (part,) = _entries(rec, name)
     if not isinstance(part, dict) or set(part) != {"re", "im"}:
@@ -247,6 +270,7 @@ RECORD_KINDS = {
     "jnr": _jnr_from_record,
     "caloron": _caloron_from_record,
     "holonomy_caloron": _holonomy_caloron_from_record,
+    "mixture": _mixture_from_record,
     "translated": lambda rec: translate(_inner(rec), _floats(_entries(rec, "shift")[0])),
     "rotated": lambda rec: rotate(_inner(rec), *(_floats(v) for v in _entries(rec, "left", "right"))),
     "dilated": lambda rec: dilate(_inner(rec), float(_entries(rec, "factor")[0])),
@@ -263,7 +287,8 @@ def field_from_record(record: dict, *, window: bool = True):
       record: dict with a 'kind' in RECORD_KINDS ('adhm': Lambda, B, chirality, gauge, tol;
         'unitary_adhm': B1, B2, I, J as {'re', 'im'} lists, gauge, tol; 'bpst': center, size,
         orientation, gauge; 'thooft': centers, sizes; 'jnr': poles, weights; 'caloron': size, period,
-        center; 'holonomy_caloron': size, period, holonomy, axis, center; 'translated': field, shift; 'rotated': field, left, right; 'dilated': field, factor;
+        center; 'holonomy_caloron': size, period, holonomy, axis, center; 'mixture': centres, sizes,
+        orientations, signs and, on the torus, 'torus' (lo, box, taper); 'translated': field, shift; 'rotated': field, left, right; 'dilated': field, factor;
         'parity': field; 'gauge_transformed': field, g (a gauge function's record, kind in
         GAUGE_KINDS), where 'field' is the wrapped field's record) and optionally 'window' (lo, box,
         width and, when not all, the windowed directions of `TorusWindow`).
@@ -293,7 +318,7 @@ def field_from_record(record: dict, *, window: bool = True):
 _NO_RECORD = (
     "its field offered no record() hook: a bare callable A(x), a ParametrisedField, a field class of your "
     "own, or a transformation or window of one of those (fields that record themselves: ADHM data, complex "
-    "ADHM data, BPST, 't Hooft, JNR and caloron fields and their translations, rotations, dilations, parity "
+    "ADHM data, BPST, 't Hooft, JNR and caloron fields, sum-ansatz mixtures and their translations, rotations, dilations, parity "
     "images, gauge transformations by a transforms.ConstantGauge and windows); rebuild the field by hand, or save with description= a dict of your own"
 )
 
