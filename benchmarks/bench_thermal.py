@@ -34,7 +34,7 @@ def _quick_rows() -> list[dict]:
 
     sp, shape = (0.5, 0.5, 0.5, 0.25), (8, 8, 8, 16)
     field = ik.bpst_field(size=1.0, gauge="singular")
-    lat.lattice_links(field, (2, 2, 2, 2), sp, boundary="open")  # compile
+    lat.lattice_links(field, shape, sp, boundary="open")  # compile (the kernel's batch depends on the shape)
     t0 = time.perf_counter()
     start = lat.lattice_start(field, shape, sp, boundary="open")
     t_start = time.perf_counter() - t0

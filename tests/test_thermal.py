@@ -75,6 +75,14 @@ def test_blocks_of_an_anisotropic_start_reassemble_its_links_bit_for_bit():
     assert np.array_equal(np.concatenate([top, bottom], axis=0), whole)
 
 
+def test_the_chunked_path_gives_the_local_bits_of_an_anisotropic_start():
+    # DEVELOPERS.md, chunked evaluation: the lazy chunked start against the local one
+    cluster = pytest.importorskip("instantonkit.cluster")
+    lazy = cluster.lattice_links(BPST, (4, 2, 2, 6), ANISO, chunks=(2, 2, 2, 4), boundary="open")
+    local = lat.lattice_links(BPST, (4, 2, 2, 6), ANISO, boundary="open")
+    assert np.array_equal(lazy.compute(scheduler="sync"), local)
+
+
 @pytest.mark.parametrize(
     "spacing, err, text",
     [
