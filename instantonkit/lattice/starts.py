@@ -183,6 +183,8 @@ class StartSpec:
         boundary = _bd.canonical("boundary", boundary, START_BOUNDARIES)
         _v.choice("method", method, _METHODS)
         rtol = _v.positive_float("rtol", rtol)
+        period = hook(field, "period")  # N_t a_t = beta checked before the potential is traced
+        dirs = _bd.resolve_start(boundary, None if period is None else float(period), shape, av)
         n_field = output_shape(field, "potential")[0][-1]  # memoised per field structure
         if group == "su2" and n_field != 2:
             raise ValueError(f"group 'su2' needs a 2 x 2 (SU(2)) field; found N = {n_field} (use group=None)")
@@ -201,8 +203,6 @@ class StartSpec:
             raise ValueError(f"embedding must be two distinct indices in 0..2; found {embedding!r}")
         n_out = 3 if group == "su3" else n_field
         org = resolve_origin(field, shape, av, origin)
-        period = hook(field, "period")
-        dirs = _bd.resolve_start(boundary, None if period is None else float(period), shape, av)
         width = None
         if "window" in dirs:  # about the field's constant limit at spatial infinity when it has one (holonomy)
             width = _v.positive_float("window", window)
