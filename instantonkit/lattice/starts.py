@@ -98,32 +98,29 @@ from .transport import (  # noqa: F401  (re-exported: the transporters and link 
     unitarity_deviation,
 )
 
-__all__ = (
-    [
-        "LinkReport",
-        "LinkStats",
-        "LatticeStart",
-        "StartSpec",
-        "ChunkedExecutor",
-        "register_chunked_backend",
-        "block_links",
-        "link_batch",
-        "lattice_links",
-        "lattice_start",
-        "parallel_transporter",
-        "bpst_link",
-        "site_points",
-        "default_origin",
-        "resolve_origin",
-        "boundary_mismatch",
-        "unitarity_deviation",
-        "BoundaryActionWarning",
-        "BOUNDARY_WARN_FRACTION",
-        "START_BOUNDARIES",
-    ]
-    + _obs.__all__
-    + _th.__all__
-)
+__all__ = [
+    "LinkReport",
+    "LinkStats",
+    "LatticeStart",
+    "StartSpec",
+    "ChunkedExecutor",
+    "register_chunked_backend",
+    "block_links",
+    "link_batch",
+    "lattice_links",
+    "lattice_start",
+    "parallel_transporter",
+    "bpst_link",
+    "site_points",
+    "default_origin",
+    "resolve_origin",
+    "boundary_mismatch",
+    "unitarity_deviation",
+    "BoundaryActionWarning",
+    "BOUNDARY_WARN_FRACTION",
+    "START_BOUNDARIES",
+] + _obs.__all__
+__all__ += _th.__all__  # the finite-temperature helpers
 
 _GROUPS = ("su2", "su3", None)
 _METHODS = ("auto", "closed", "magnus")
