@@ -52,6 +52,7 @@ from .lattice.files import load_lattice, save_lattice
 from .lattice.polyakov import lattice_polyakov_loop, polyakov_average, polyakov_loop, polyakov_phases
 from .lattice.smoothing import cool, gradient_flow, improved_action, improved_charge, wilson_flow
 from .lattice.starts import average_plaquette, clover_charge, lattice_links, lattice_start, wilson_action
+from .lattice.thermal import thermal_spacings
 from .lattice.twist import constant_flux_links, twisted_clover_charge, twisted_wilson_action
 from .lattice.twisted_flow import twisted_cool, twisted_flow
 from .verification.checks import (
@@ -96,6 +97,7 @@ __all__ = [
     "lattice_polyakov_loop",
     "polyakov_average",
     "polyakov_phases",
+    "thermal_spacings",
     "save_lattice",
     "load_lattice",
     "check_links",

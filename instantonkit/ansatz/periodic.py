@@ -27,6 +27,15 @@ centre of a box of side L, f = 0.5; ``benchmarks/bench_lattice.py --periodic``):
 0.221, 0.060, 0.022, 0.0029 for L / rho = 4, 6, 8, 12.  A field in a gauge that does not decay
 (regular gauge: A ~ 1/r) must not be windowed: the window would cut the winding at infinity and
 change the sector (nothing checks this; use singular gauge).
+
+A field whose potential tends to a constant B at spatial infinity (a caloron of non-trivial holonomy
+in its periodic gauge: B_4 = 2 pi omega u_3 / beta, so that 1/2 tr P -> cos 2 pi omega) is windowed
+about B, A_w = B + w (A - B) (``background=B``): windowing A itself to zero would make the holonomy
+trivial at the faces, and the layer, where A_4 falls from B to 0, would carry an action of order
+(2 pi omega)^2 (area / width) / beta (measured: 4.4 x 8 pi^2 on a 4 x 16^3 start of omega = 1/4,
+rho = beta / 2, a = beta / 4).  With B constant and [B_mu, B_nu] = 0, F_w is the formula above with A
+replaced by A - B (the derivatives of B vanish and its commutator terms cancel), and only the tails
+A - B ~ 1/r of the constituents are windowed.
 """
 
 from __future__ import annotations
@@ -72,7 +81,9 @@ class TorusWindow(PytreeFields):
     field: a field (decaying, e.g. singular gauge); lo: (4,) the lower faces; box: (4,) the periods
     P_i > 0; width: (4,) layer widths delta_i, 0 < delta_i <= P_i / 2; directions: four booleans, the
     directions (x1, x2, x3, x4) that are windowed and wrapped (default all; a direction left out keeps
-    A as it is there, e.g. the period of a caloron in x4, and its factor of w is 1).  Closed-form field
+    A as it is there, e.g. the period of a caloron in x4, and its factor of w is 1); background: None
+    (A_w = w A) or the constant (4, N, N) anti-Hermitian limit B of A at spatial infinity, with
+    commuting components (A_w = B + w (A - B), module docstring).  Closed-form field
     strength (and densities) when the wrapped field has ``field_strength``; hint, layout and charge forwarded.
     """
 
@@ -81,8 +92,9 @@ class TorusWindow(PytreeFields):
     box: Array
     width: Array
     directions: tuple = (True, True, True, True)
+    background: Array | None = None
 
-    _leaves = ("field", "lo", "box", "width")
+    _leaves = ("field", "lo", "box", "width", "background")
     _static = ("directions",)
 
     def __post_init__(self):
@@ -120,6 +132,14 @@ class TorusWindow(PytreeFields):
         object.__setattr__(self, "lo", lo)
         object.__setattr__(self, "box", box)
         object.__setattr__(self, "width", width)
+        if self.background is not None and not _v.is_tracer(self.background):
+            bg = np.asarray(self.background)
+            if bg.ndim != 3 or bg.shape[0] != 4 or bg.shape[1] != bg.shape[2] or not np.all(np.isfinite(bg)):
+                raise ValueError(f"background must be a finite (4, N, N) constant potential; found shape {bg.shape}")
+            comm = np.einsum("mij,njk->mnik", bg, bg) - np.einsum("nij,mjk->mnik", bg, bg)
+            if np.max(np.abs(comm), initial=0.0) > 1e-12 * max(1.0, float(np.max(np.abs(bg))) ** 2):
+                raise ValueError("background must have commuting components [B_mu, B_nu] = 0")
+            object.__setattr__(self, "background", bg.astype(np.complex128))
 
     # -- the window ------------------------------------------------------------------------------
     def wrap(self, x):
@@ -137,7 +157,10 @@ class TorusWindow(PytreeFields):
     def potential(self, x):
         """A_w(x) = w(x~) A(x~) at one point (4,) -> (4, N, N)."""
         y = self.wrap(x)
-        return self.window(y) * self.field.potential(y)
+        if self.background is None:
+            return self.window(y) * self.field.potential(y)
+        bg = jnp.asarray(self.background)
+        return bg + self.window(y) * (self.field.potential(y) - bg)
 
     @property
     def field_strength(self):
@@ -151,6 +174,8 @@ class TorusWindow(PytreeFields):
             w = self.window(y)
             dw = jax.grad(self.window)(y)
             a = self.field.potential(y)
+            if self.background is not None:
+                a = a - jnp.asarray(self.background)  # F_w of B + w (A - B): the same formula in A - B
             comm = jnp.einsum("mij,njk->mnik", a, a) - jnp.einsum("nij,mjk->mnik", a, a)
             da = dw[:, None, None, None] * a[None] - dw[None, :, None, None] * a[:, None]
             return w * fs(y) + (w * w - w) * comm + da
@@ -166,7 +191,10 @@ class TorusWindow(PytreeFields):
 
         def generator_batch(points, dirs):
             y = jax.vmap(self.wrap)(jnp.asarray(points, dtype=jnp.float64))
-            return jax.vmap(self.window)(y)[:, None, None] * inner(y, dirs)
+            if self.background is None:
+                return jax.vmap(self.window)(y)[:, None, None] * inner(y, dirs)
+            bd = jnp.einsum("mij,km->kij", jnp.asarray(self.background), jnp.asarray(dirs, dtype=jnp.float64))
+            return bd + jax.vmap(self.window)(y)[:, None, None] * (inner(y, dirs) - bd)
 
         return generator_batch
 
@@ -227,6 +255,9 @@ class TorusWindow(PytreeFields):
             }
             if not all(self.directions):
                 out["window"]["directions"] = list(self.directions)
+            if self.background is not None:
+                bg = np.asarray(self.background)
+                out["window"]["background"] = {"re": bg.real.tolist(), "im": bg.imag.tolist()}
             return out
 
         return record
@@ -238,22 +269,24 @@ class TorusWindow(PytreeFields):
 
 
 def window_field(
-    field, shape, spacing, origin, *, width: float = DEFAULT_WINDOW_WIDTH, directions=(True,) * 4
+    field, shape, spacing, origin, *, width: float = DEFAULT_WINDOW_WIDTH, directions=(True,) * 4, background=None
 ) -> TorusWindow:
     """The field windowed onto the periodic box of a lattice: faces half a spacing before site 0 and after site L - 1.
 
     Args:
       field: a decaying field (singular gauge), see the module docstring.
-      shape: (L1, L2, L3, L4); spacing: a > 0; origin: (4,) position of site 0.
+      shape: (L1, L2, L3, L4); spacing: a > 0, or four (a1, a2, a3, a4) (anisotropic);
+        origin: (4,) position of site 0.
       width: layer width as a fraction of each half-box, 0 < width <= 1 (default 0.5).
       directions: four booleans, the windowed directions (default all; see `TorusWindow`).
+      background: None, or the constant limit B (4, N, N) of A at spatial infinity (see `TorusWindow`).
     Returns:
-      TorusWindow with lo = origin - a/2, box = a L, width_i = width * a L_i / 2.
+      TorusWindow with lo = origin - a/2, box = a L, width_i = width * a_i L_i / 2.
     Raises:
       ValueError: a bad shape, spacing, origin or width (naming it and the value found).
     """
     shape = _v.lattice_shape("shape", shape, in_memory=False)  # sizes only: nothing is allocated here
-    a = _v.positive_float("spacing", spacing)
+    a = _v.spacings("spacing", spacing)
     frac = _v.positive_float("width", width)
     if frac > 1.0:
         raise ValueError(f"width must be a fraction of the half-box in (0, 1]; found {width!r}")
@@ -261,7 +294,7 @@ def window_field(
     if org.shape != (4,) or not np.all(np.isfinite(org)):
         raise ValueError(f"origin must be a finite point of shape (4,); found {np.asarray(origin).tolist()!r}")
     box = a * np.asarray(shape, dtype=np.float64)
-    return TorusWindow(field, org - a / 2.0, box, frac * box / 2.0, tuple(directions))
+    return TorusWindow(field, org - a / 2.0, box, frac * box / 2.0, tuple(directions), background)
 
 
 # -- lattice geometry -----------------------------------------------------------------------------------
@@ -271,10 +304,10 @@ def default_origin(field, shape, spacing) -> np.ndarray:
     """Origin that puts the field's centre (``field.hint()``, else 0) in the middle of the hypercube
     nearest the lattice middle, so no site and no link touches the centre: x_n = origin + a n.
 
-    origin_i = centre_i - a (floor(L_i / 2) - 1/2); (4,) float64.
+    origin_i = centre_i - a_i (floor(L_i / 2) - 1/2); (4,) float64 (spacing: one a or four a_i).
     """
     shape = _v.lattice_shape("shape", shape, in_memory=False)  # sizes only: nothing is allocated here
-    a = _v.positive_float("spacing", spacing)
+    a = _v.spacings("spacing", spacing)
     centre = np.zeros(4)
     hint = hook(field, "hint")
     if hint is not None:
@@ -291,8 +324,8 @@ def resolve_origin(field, shape, spacing, origin) -> np.ndarray:
 
 
 def site_points(shape, spacing, origin) -> np.ndarray:
-    """Positions of the sites, x_n = origin + a n; (L1, L2, L3, L4, 4) float64."""
+    """Positions of the sites, x_n = origin + a n (per direction: a_i n_i); (L1, L2, L3, L4, 4) float64."""
     shape = _v.lattice_shape("shape", shape)
-    a = _v.positive_float("spacing", spacing)
+    a = _v.spacings("spacing", spacing)
     grids = np.meshgrid(*[np.arange(n, dtype=np.float64) for n in shape], indexing="ij")
     return np.asarray(origin, dtype=np.float64) + a * np.stack(grids, axis=-1)

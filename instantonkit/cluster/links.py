@@ -29,9 +29,9 @@ def spec_params(spec: StartSpec) -> dict:
     return {
         "field": describe(spec.field),
         "field_probe": probe(spec.field),
-        "domain_probe": domain_probe(spec.field, spec.origin, spec.spacing, spec.shape),
+        "domain_probe": domain_probe(spec.field, spec.origin, spec.spacings, spec.shape),
         "shape": list(spec.shape),
-        "spacing": spec.spacing,
+        "spacing": list(spec.spacing) if isinstance(spec.spacing, tuple) else spec.spacing,  # as JSON keeps it
         "origin": [float(v) for v in spec.origin],
         "group": spec.group,
         "embedding": list(spec.embedding),

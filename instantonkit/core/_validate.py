@@ -163,6 +163,27 @@ def positive_float(name: str, value) -> float:
     return out
 
 
+def spacings(name: str, value) -> np.ndarray:
+    """Lattice spacings per direction; (4,) float64: one number a > 0 for all four directions, or four
+    (a1, a2, a3, a4) > 0 in (x1, x2, x3, x4) order (booleans refused; errors name the entry)."""
+    if isinstance(value, (str, bytes, dict)) or (
+        not isinstance(value, (list, tuple, np.ndarray)) or np.ndim(value) == 0
+    ):
+        return np.full(4, positive_float(name, value))
+    if len(value) != 4:
+        raise ValueError(
+            f"{name} must be one number or four (a1, a2, a3, a4) in (x1, x2, x3, x4) order; found {len(value)} values: "
+            f"{list(value)!r:.80}"
+        )
+    return np.array([positive_float(f"{name}[{i}]", v) for i, v in enumerate(value)], dtype=np.float64)
+
+
+def spacing_value(name: str, value) -> float | tuple:
+    """``value`` as stored by lattice starts: one float when the four spacings are equal, else a tuple of four floats."""
+    a = spacings(name, value)
+    return float(a[0]) if np.all(a == a[0]) else tuple(float(v) for v in a)
+
+
 def real_array(name: str, value, shape: tuple | None = None, *, shape_text: str | None = None) -> np.ndarray:
     """A finite float64 array; ``shape`` entries of ``None`` match any length."""
     arr = np.asarray(value)

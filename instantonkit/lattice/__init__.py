@@ -13,6 +13,7 @@ Modules (floor 5 of the package; the floors inside are in DEVELOPERS.md):
 * ``sites``: Links of lattice sites (and of a box of sites), singular points handled in a twin gauge.
 * ``smoothing``: Smoothing of lattice link arrays: gradient flow, cooling, the 1x1 + 2x2 improved action and an
 * ``starts``: Lattice starts: link variables of a continuum field, and gauge-invariant lattice observables.
+* ``thermal``: Finite-temperature lattices: anisotropic spacings, the anisotropic Wilson weights, a caloron's limit at infinity.
 * ``transport``: Parallel transporters along straight segments: closed forms and sixth-order Magnus steps.
 * ``twist``: Twisted boundary conditions: the twist tensor, twisted observables, the constant-flux links.
 * ``twisted_flow``: Wilson flow and cooling on a twisted torus.

@@ -96,7 +96,9 @@ def canonical(name: str, spec, choices):
 
 
 def check_period(period: float, length: int, spacing: float, *, direction: int = 3) -> None:
-    """ValueError unless the lattice extent L a equals the field's period within PERIOD_RTOL (naming both numbers)."""
+    """ValueError unless the lattice extent L a equals the field's period within PERIOD_RTOL (naming both numbers).
+
+    spacing: the spacing of that direction (a_4 = a_t for x4 on an anisotropic lattice)."""
     extent = float(length) * float(spacing)
     if not abs(extent - period) <= PERIOD_RTOL * max(abs(period), abs(extent)):
         raise ValueError(
@@ -111,7 +113,7 @@ def resolve_start(boundary, period, shape, spacing) -> tuple:
     """The boundary of each direction of a start (module docstring): four strings of START_BOUNDARIES.
 
     boundary: as given to the start; period: the field's period in x4 (None for a field on R^4);
-    shape: (L1, L2, L3, L4); spacing: a.  Raises ValueError/TypeError for a bad spec, an explicit
+    shape: (L1, L2, L3, L4); spacing: a, or four (a1, a2, a3, a4) (x4 checked with a4).  Raises ValueError/TypeError for a bad spec, an explicit
     window across the period, or a periodic x4 whose extent misses the period.
     """
     dirs = list(per_direction("boundary", boundary, START_BOUNDARIES))
@@ -126,7 +128,7 @@ def resolve_start(boundary, period, shape, spacing) -> tuple:
             )
         dirs[3] = "periodic"  # the single string windows the non-periodic directions only
     if dirs[3] == "periodic":
-        check_period(beta, shape[3], spacing)
+        check_period(beta, shape[3], float(np.broadcast_to(np.asarray(spacing, dtype=np.float64), (4,))[3]))
     return tuple(dirs)
 
 

@@ -26,6 +26,7 @@ from ..core import _validate as _v
 from ..core._links import check_links as _check_links
 from ..core.conventions import CHARGE_DENSITY_FACTOR
 from . import boundaries as _bd
+from . import thermal as _th
 
 __all__ = [
     "PLANES",
@@ -58,9 +59,9 @@ def _check_shape(shape):
     return _v.lattice_shape("shape", shape)
 
 
-def _check_spacing(spacing) -> float:
-    """The lattice spacing a > 0 (`instantonkit.core._validate.positive_float`)."""
-    return _v.positive_float("spacing", spacing)
+def _check_spacing(spacing) -> np.ndarray:
+    """The lattice spacings (a1, a2, a3, a4) > 0 from one number or four (`instantonkit.core._validate.spacings`)."""
+    return _v.spacings("spacing", spacing)
 
 
 # -- gauge transformations ------------------------------------------------------------------------------
@@ -292,9 +293,16 @@ def average_plaquette(links, *, boundary: str | Sequence[str] = "periodic") -> f
     return float(np.nanmean(plaquette_traces(links, boundary=boundary)))
 
 
-def wilson_action(links, beta: float | None = None, *, boundary: str | Sequence[str] = "periodic") -> float:
+def wilson_action(
+    links, beta: float | None = None, *, boundary: str | Sequence[str] = "periodic", spacing=None
+) -> float:
     """Wilson action S_W = beta sum_p (1 - Re tr U_p / N), beta = 2N by default (g = 1), so that
     S_W -> integral of s for smooth fields (Wilson, Phys. Rev. D 10 (1974) 2445).
+
+    Anisotropic spacings (``spacing`` = (a1, a2, a3, a4)): each plane (mu, nu) is weighted by
+    w_mu nu = a_rho a_sigma / (a_mu a_nu), i.e. 1/xi for spatial and xi for temporal plaquettes of
+    (a_s, a_s, a_s, a_t), xi = a_s / a_t (derivation and source: `instantonkit.lattice.thermal`), so that
+    S_W -> integral of s again; one number or None: the isotropic action.
 
     Sums 1 - Re tr / N directly (no cancellation against a large total); open boundaries: only
     plaquettes fully inside the lattice.
@@ -303,6 +311,7 @@ def wilson_action(links, beta: float | None = None, *, boundary: str | Sequence[
       links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
       beta: coupling, finite and > 0 (default 2N).
       boundary: 'periodic' or 'open', or four of them in (x1, x2, x3, x4) order (open ones mask their edges).
+      spacing: None (isotropic), one a > 0 (isotropic too) or four (a1, a2, a3, a4) > 0.
     Returns:
       float, S_W.
     Raises:
@@ -314,8 +323,11 @@ def wilson_action(links, beta: float | None = None, *, boundary: str | Sequence[
     _check_boundary(boundary)
     n = u.shape[-1]
     b = 2.0 * n if beta is None else _v.positive_float("beta", beta)
+    w = None if spacing is None else _th.plane_weights(spacing)
     tr = _traces(u, boundary)
-    return float(b * np.nansum(1.0 - tr))
+    if w is None or np.all(w == 1.0):
+        return float(b * np.nansum(1.0 - tr))
+    return float(b * np.nansum((1.0 - tr) * w))
 
 
 def _clover_planes(ext):
@@ -359,18 +371,19 @@ def _slab_charge(ext):
     return 8.0 * CHARGE_DENSITY_FACTOR * (trf(0, 5) - trf(1, 4) + trf(2, 3))
 
 
-def clover_field_strength(links, *, spacing: float = 1.0, boundary: str | Sequence[str] = "periodic") -> np.ndarray:
-    """Clover field strength at the sites, F_mu nu / spacing^2; (L1, L2, L3, L4, 4, 4, N, N) complex128.
+def clover_field_strength(links, *, spacing=1.0, boundary: str | Sequence[str] = "periodic") -> np.ndarray:
+    """Clover field strength at the sites, F_mu nu / (a_mu a_nu); (L1, L2, L3, L4, 4, 4, N, N) complex128.
 
     Antisymmetric in (mu, nu), anti-Hermitian and traceless; open boundaries: NaN where a clover
     leaves the lattice (n_mu or n_nu at 0 or L - 1).
 
     Args:
       links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
-      spacing: lattice spacing a > 0 (results in physical units).
+      spacing: lattice spacing a > 0, or four (a1, a2, a3, a4) (results in physical units).
       boundary: 'periodic' or 'open', or four of them in (x1, x2, x3, x4) order (open ones mask their edges).
     Returns:
-      (L1, L2, L3, L4, 4, 4, N, N) complex128, F_mu nu / a^2.
+      (L1, L2, L3, L4, 4, 4, N, N) complex128, F_mu nu / (a_mu a_nu) (the clover of the plane is
+      a_mu a_nu F_mu nu + O(a^4)).
     Raises:
       ValueError / TypeError: links of the wrong shape or dtype, NaN or inf entries (counted and
         located) or links not in SU(N) within 1e-8 (checked before any open-boundary mask),
@@ -385,7 +398,7 @@ def clover_field_strength(links, *, spacing: float = 1.0, boundary: str | Sequen
         fs = np.asarray(_slab_clover(ext))
         masks = _open_mask(u.shape, t0, t1, PLANES, 1, boundary) if any(_open_directions(boundary)) else None
         for p, (mu, nu) in enumerate(PLANES):
-            f = fs[:, :, :, :, p] / a**2
+            f = fs[:, :, :, :, p] / (float(a[0]) ** 2 if a[0] == a[1] == a[2] == a[3] else a[mu] * a[nu])
             if masks is not None:
                 f = np.where(masks[p][..., None, None], f, np.nan)
             out[:, :, :, t0:t1, mu, nu] = f
@@ -393,19 +406,21 @@ def clover_field_strength(links, *, spacing: float = 1.0, boundary: str | Sequen
     return out
 
 
-def clover_charge_density(links, *, spacing: float = 1.0, boundary: str | Sequence[str] = "periodic") -> np.ndarray:
-    """Clover charge density q(n) = -1/(32 pi^2) eps tr F F per site, divided by spacing^4; (L1, L2, L3, L4).
+def clover_charge_density(links, *, spacing=1.0, boundary: str | Sequence[str] = "periodic") -> np.ndarray:
+    """Clover charge density q(n) = -1/(32 pi^2) eps tr F F per site, divided by a1 a2 a3 a4; (L1, L2, L3, L4).
 
     eps_{mu nu rho sigma} tr F_mu nu F_rho sigma = 8 (tr F12 F34 - tr F13 F24 + tr F14 F23)
     (conventions.CHARGE_DENSITY_FACTOR, eps_1234 = +1).  Open boundaries: NaN at sites whose clovers
-    leave the lattice; the sum of spacing^4 q is `clover_charge`.
+    leave the lattice; the sum of a1 a2 a3 a4 q is `clover_charge`.  Each term pairs two
+    complementary planes, F_mu nu F_rho sigma = C_mu nu C_rho sigma / (a1 a2 a3 a4) with C the clovers,
+    so anisotropic spacings (a1, a2, a3, a4) divide by the cell volume and Q does not depend on them.
 
     Args:
       links: (L1, L2, L3, L4, 4, N, N) complex links (numpy array, memmap or anything np.asarray reads).
-      spacing: lattice spacing a > 0 (results in physical units).
+      spacing: lattice spacing a > 0, or four (a1, a2, a3, a4) (results in physical units).
       boundary: 'periodic' or 'open', or four of them in (x1, x2, x3, x4) order (open ones mask their edges).
     Returns:
-      (L1, L2, L3, L4) float64, q(n) / a^4.
+      (L1, L2, L3, L4) float64, q(n) / (a1 a2 a3 a4).
     Raises:
       ValueError / TypeError: links of the wrong shape or dtype, NaN or inf entries (counted and
         located) or links not in SU(N) within 1e-8 (checked before any open-boundary mask),
@@ -420,7 +435,7 @@ def clover_charge_density(links, *, spacing: float = 1.0, boundary: str | Sequen
         if any(_open_directions(boundary)):
             ok = np.logical_and.reduce(_open_mask(u.shape, t0, t1, PLANES, 1, boundary))
             q = np.where(ok, q, np.nan)
-        out[:, :, :, t0:t1] = q / a**4
+        out[:, :, :, t0:t1] = q / (float(a[0]) ** 4 if a[0] == a[1] == a[2] == a[3] else float(np.prod(a)))
     return out
 
 

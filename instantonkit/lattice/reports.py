@@ -25,11 +25,12 @@ class LinkReport:
     BoundaryActionWarning is raised); window: the layer width of the windowed directions (fraction of
     the half-box), else None; field: the field's ``record()`` (rebuilt by `field_from_record`;
     None without a record hook); potential_evaluations: of the Magnus links in all (0 for closed
-    forms); boundaries: the four boundaries as applied (`instantonkit.lattice.boundaries`).
+    forms); boundaries: the four boundaries as applied (`instantonkit.lattice.boundaries`); spacing:
+    one float, or (a1, a2, a3, a4) when they differ (``spacings``: always the four).
     """
 
     shape: tuple
-    spacing: float
+    spacing: float | tuple
     origin: tuple
     group: str | None
     embedding: tuple
@@ -51,9 +52,17 @@ class LinkReport:
     boundary_link_mismatch_by_direction: tuple | None = None
     boundary_action_error_by_direction: tuple | None = None
 
+    @property
+    def spacings(self) -> tuple:
+        """The four spacings (a1, a2, a3, a4) in (x1, x2, x3, x4) order."""
+        sp = self.spacing
+        return tuple(float(v) for v in sp) if isinstance(sp, (tuple, list)) else (float(sp),) * 4
+
     def as_metadata(self) -> dict:
-        """A JSON-ready dict of the generation parameters and quality figures."""
-        return {k: (list(v) if isinstance(v, tuple) else v) for k, v in dataclasses.asdict(self).items()}
+        """A JSON-ready dict of the generation parameters and quality figures (with 'spacings', the four)."""
+        out = {k: (list(v) if isinstance(v, tuple) else v) for k, v in dataclasses.asdict(self).items()}
+        out["spacings"] = list(self.spacings)
+        return out
 
 
 def _record_of(field):

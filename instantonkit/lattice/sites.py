@@ -38,7 +38,7 @@ def _near_centres(field, pts, a):
         return np.ones(pts.shape[0], dtype=bool)
     centres, scales = lay()
     centres = np.asarray(centres, dtype=np.float64).reshape(-1, 4)
-    radius = 0.5 * np.asarray(scales, dtype=np.float64).reshape(-1) + a
+    radius = 0.5 * np.asarray(scales, dtype=np.float64).reshape(-1) + np.max(a)
     d2 = np.sum((pts[:, None, :] - centres[None]) ** 2, axis=-1)
     return np.any(d2 <= radius[None] ** 2, axis=1)
 
@@ -67,7 +67,7 @@ def site_links(field, sites_t, a, method, rtol, batch=None, n_field=None):
     """
     s = sites_t.shape[0]
     xs = np.repeat(sites_t, 4, axis=0)
-    ds = np.tile(a * np.eye(4), (s, 1))
+    ds = np.tile(np.eye(4) * a, (s, 1))  # a: one spacing or four (a1, a2, a3, a4)
     twin_hook = hook(field, "gauge_twin")
     if twin_hook is None:
         u, stats = transporters(field, xs, ds, method, rtol, batch)
@@ -112,7 +112,7 @@ def block_links(field, lo, hi, origin, spacing, *, n_field, group, embedding, me
 
     The one kernel path of every lattice start (documented seam of the chunked layer):
     `lattice_links` calls it per time slice and `instantonkit.cluster` per chunk, so both
-    give the same bits.  Sites x_n = origin + a n (n float64); the transporters of a box are computed
+    give the same bits.  Sites x_n = origin + a n (n float64; spacing one a or four a_i, (4,)); the transporters of a box are computed
     together, projected (`_finish`) and embedded for group 'su3'.  The returned
     `LinkStats` holds the Magnus figures and the unitarity before/after the projection;
     ``batch`` (`link_batch` of the lattice) fixes the compiled kernel size, which keeps the bits equal.

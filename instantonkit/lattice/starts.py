@@ -65,6 +65,7 @@ from ..core import _validate as _v
 from ..engine.fields import as_field, hook, output_shape
 from . import boundaries as _bd
 from . import observables as _obs
+from . import thermal as _th
 from .boundaries import BOUNDARY_WARN_FRACTION, START_BOUNDARIES, BoundaryActionWarning, warn_boundary
 from .observables import (  # noqa: F401  (re-exported: the lattice namespace offers the observables of its starts)
     BOUNDARIES,
@@ -82,6 +83,7 @@ from .observables import (  # noqa: F401  (re-exported: the lattice namespace of
 )
 from .reports import LatticeStart, LinkReport, _record_of  # noqa: F401  (re-exported)
 from .sites import block_links, site_links  # noqa: F401  (re-exported)
+from .thermal import anisotropy, asymptotic_potential, plane_weights, thermal_spacings  # noqa: F401  (re-exported)
 from .transport import (  # noqa: F401  (re-exported: the transporters and link figures belong to the lattice namespace too)
     LINK_CHUNK,
     LinkStats,
@@ -118,6 +120,7 @@ __all__ = [
     "BOUNDARY_WARN_FRACTION",
     "START_BOUNDARIES",
 ] + _obs.__all__
+__all__ += _th.__all__  # the finite-temperature helpers
 
 _GROUPS = ("su2", "su3", None)
 _METHODS = ("auto", "closed", "magnus")
@@ -132,7 +135,8 @@ class StartSpec:
     Documented seam of the chunked layer (`instantonkit.cluster`): it builds a spec with
     `make`, computes boxes with `block` and assembles the report with `report`.
 
-    field: a field object; shape: (L1, L2, L3, L4); spacing: a; origin: (4,) float64 (site 0);
+    field: a field object; shape: (L1, L2, L3, L4); spacing: a, or the tuple (a1, a2, a3, a4) when they
+    differ (`spacings`: the four as an array; `instantonkit.lattice.thermal`); origin: (4,) float64 (site 0);
     group / embedding / boundary / rtol / method: as in `lattice_links` (boundary as given,
     lists made tuples); n_field: N of the field; n_out: N of the links (3 for 'su3'); window: the layer
     width when a direction is windowed; boundaries: the boundary of each direction as applied.  Build it with `make`, which raises
@@ -141,7 +145,7 @@ class StartSpec:
 
     field: object
     shape: tuple
-    spacing: float
+    spacing: float | tuple
     origin: np.ndarray
     group: str | None
     embedding: tuple
@@ -170,12 +174,14 @@ class StartSpec:
     ):
         field = as_field(field)
         shape = _v.lattice_shape("shape", shape, in_memory=False)  # the local start checks its own array
-        a = _v.positive_float("spacing", spacing)
+        a, av = _v.spacing_value("spacing", spacing), _v.spacings("spacing", spacing)
         if group not in _GROUPS:
             raise ValueError(f"group must be one of {_GROUPS}; found {group!r}")
         boundary = _bd.canonical("boundary", boundary, START_BOUNDARIES)
         _v.choice("method", method, _METHODS)
         rtol = _v.positive_float("rtol", rtol)
+        period = hook(field, "period")  # N_t a_t = beta checked before the potential is traced
+        dirs = _bd.resolve_start(boundary, None if period is None else float(period), shape, av)
         n_field = output_shape(field, "potential")[0][-1]  # memoised per field structure
         if group == "su2" and n_field != 2:
             raise ValueError(f"group 'su2' needs a 2 x 2 (SU(2)) field; found N = {n_field} (use group=None)")
@@ -193,16 +199,20 @@ class StartSpec:
         if group == "su3" and (len(emb) != 2 or emb[0] == emb[1] or not all(0 <= v < 3 for v in emb)):
             raise ValueError(f"embedding must be two distinct indices in 0..2; found {embedding!r}")
         n_out = 3 if group == "su3" else n_field
-        org = resolve_origin(field, shape, a, origin)
-        period = hook(field, "period")
-        dirs = _bd.resolve_start(boundary, None if period is None else float(period), shape, a)
+        org = resolve_origin(field, shape, av, origin)
         width = None
-        if "window" in dirs:
+        if "window" in dirs:  # about the field's constant limit at spatial infinity when it has one (holonomy)
             width = _v.positive_float("window", window)
-            field = window_field(field, shape, a, org, width=width, directions=tuple(d == "window" for d in dirs))
+            wdirs, bg = tuple(d == "window" for d in dirs), _th.asymptotic_potential(field)
+            field = window_field(field, shape, av, org, width=width, directions=wdirs, background=bg)
         return cls(
             field, shape, a, org, group, emb, boundary, float(rtol), method, int(n_field), int(n_out), width, dirs
         )
+
+    @property
+    def spacings(self) -> np.ndarray:
+        """(a1, a2, a3, a4) float64 of the four directions."""
+        return _v.spacings("spacing", self.spacing)
 
     @property
     def links_shape(self) -> tuple:
@@ -216,7 +226,7 @@ class StartSpec:
             lo,
             hi,
             self.origin,
-            self.spacing,
+            self.spacings,
             n_field=self.n_field,
             group=self.group,
             embedding=self.embedding,
@@ -325,7 +335,8 @@ _START_DOC_ARGS = """
     Args:
       field: a field (`instantonkit.engine.fields.Field`) or a callable A(x) -> (4, N, N).
       shape: (L1, L2, L3, L4) positive integers.
-      spacing: a > 0.
+      spacing: a > 0, or four (a1, a2, a3, a4) > 0 in (x1, x2, x3, x4) order (anisotropic, e.g.
+        (a_s, a_s, a_s, a_t) of `instantonkit.lattice.thermal.thermal_spacings`).
       origin: (4,) position of site 0 (default `default_origin`: the field's centre in the
         middle of the central hypercube, so no link touches it).
       group: 'su2' (N = 2), 'su3' (an SU(3) field's own links, e.g. rank-3 UnitaryADHMData; or SU(2)
@@ -334,7 +345,7 @@ _START_DOC_ARGS = """
         ``("window", "window", "window", "periodic")`` (`instantonkit.lattice.boundaries`). A field with a
         period in x4 (``period`` hook) is never windowed across it: the single string 'window' keeps x4
         periodic, an explicit 'window' for x4 is a ValueError, and a periodic x4 needs L4 * a = period
-        (ValueError naming both otherwise).  The choices: 'periodic' (the link from the last site points to site 0; use a field that decays
+        (ValueError naming both otherwise; a4 on an anisotropic lattice).  The choices: 'periodic' (the link from the last site points to site 0; use a field that decays
         fast, e.g. singular gauge; the mismatch is always measured, see `boundary_mismatch`, and
         a `BoundaryActionWarning` is raised when the boundary action exceeds
         BOUNDARY_WARN_FRACTION = 1 % of 8 pi^2), 'window' (the field times a smooth window that takes
@@ -537,7 +548,7 @@ def boundary_mismatch(
     'boundary_action': the wrapped plaquettes' Wilson action itself; and the same per direction mu
     (4-tuples, None for a direction not measured): 'link_mismatch_by_direction',
     'action_error_by_direction', 'boundary_action_by_direction'.
-    directions: four booleans, the wrapped directions to measure (default all).
+    directions: four booleans, the wrapped directions to measure (default all); spacing: one a or four a_i.
     links: (L1, L2, L3, L4, 4, N, N) from `lattice_links` with the same parameters (any array
     with numpy slicing: numpy, memmap, Zarr; only the faces are read).
     """
@@ -545,7 +556,7 @@ def boundary_mismatch(
         links = np.asarray(links)
     shape = tuple(links.shape[:4])
     n = links.shape[-1]
-    a = _v.positive_float("spacing", spacing)
+    a = _v.spacings("spacing", spacing)
     org = resolve_origin(field, shape, a, origin)
     figs: list = [(None, None, None)] * 4  # (mismatch, action error, wrapped action) per direction
     for mu in range(4):
@@ -561,7 +572,7 @@ def boundary_mismatch(
         pts = org + a * g
         others = [nu for nu in range(4) if nu != mu]
         xs = np.repeat(pts, 3, axis=0)
-        ds = np.tile(a * np.eye(4)[others], (pts.shape[0], 1))
+        ds = np.tile(np.eye(4)[others] * a, (pts.shape[0], 1))
         u = project_special_unitary(parallel_transporter(field, xs, ds, method=method, rtol=rtol))
         if group == "su3" and u.shape[-1] == 2:
             u = embed_links(u, 3, embedding)
