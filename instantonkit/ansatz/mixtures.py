@@ -27,9 +27,8 @@ faces, the same count).  ``charge`` and ``pole_count`` show n+ - n- as the const
 integrals (`instantonkit.ansatz.mixture_totals.mixture_totals`) measure the field's own S and Q with error bars.
 
 **Ratio ansatz.**  For objects of one sign the 't Hooft ansatz phi = 1 + sum rho_i^2 / |x - a_i|^2 is
-an exact solution (`ratio_ansatz`; 't Hooft 1976 unpublished, Jackiw, Nohl, Rebbi, Phys. Rev. D 15
-(1977) 1642, from memory) with aligned orientations.  For mixed signs no such exact ratio form exists:
-only the sum ansatz is offered.
+an exact solution (`ratio_ansatz`; 't Hooft 1976 unpublished, Jackiw, Nohl, Rebbi, Phys. Rev. D 15 (1977)
+1642, from memory) with aligned orientations.  For mixed signs only the sum ansatz is offered.
 
 **Torus.**  The singular-gauge tail rho^2 E y / y^4 = -(rho^2 / 2) E d(1 / y^2) is the gradient of the
 four-dimensional Coulomb potential, whose sum over images converges only conditionally (as in Ewald
