@@ -141,11 +141,13 @@ def test_su3_routes_agree_to_the_integral_error():
     assert np.max(np.abs(res.metric - alg)) <= res.error
 
 
-@pytest.mark.parametrize(("k", "rank", "unitary"), [(1, 1, False), (2, 1, False), (3, 1, False), (2, 3, True)])
+@pytest.mark.parametrize(
+    ("k", "rank", "unitary"), [(1, 1, False), (2, 1, False), (3, 1, False), (2, 2, False), (2, 3, True)]
+)
 def test_tangent_space_has_the_moduli_dimension(k, rank, unitary):
-    # 8k for SU(2), 4kN for SU(N) (AHDM 1978; common practice)
-    data = random_unitary_adhm(k, rank, seed=5) if unitary else random_adhm(k, seed=5)
-    want = 4 * k * rank if unitary else 8 * k
+    # 8k for SU(2), 4k(n + 1) for Sp(n), 4kN for SU(N) (AHDM 1978; common practice)
+    data = random_unitary_adhm(k, rank, seed=5) if unitary else random_adhm(k, rank, seed=5)
+    want = 4 * k * rank if unitary else 4 * k * (rank + 1)
     assert mm.tangent_basis(data).shape[0] == want
 
 
@@ -191,7 +193,10 @@ def test_separated_pair_approaches_the_sum_of_two_single_metrics():
         centres = np.array([[0, 0, 0, 0], [distance, 0, 0, 0.0]])
         chart = mm.StandardChart.at(centres, [1.0, 0.8], [[1, 0, 0, 0], [0, 0.6, 0.8, 0]])
         g = mm.moduli_metric(chart).metric
-        singles = [mm.moduli_metric(mm.StandardChart.at(c, r, o)).metric for c, r, o in zip(centres, [1.0, 0.8], [[1, 0, 0, 0], [0, 0.6, 0.8, 0]])]
+        singles = [
+            mm.moduli_metric(mm.StandardChart.at(c, r, o)).metric
+            for c, r, o in zip(centres, [1.0, 0.8], [[1, 0, 0, 0], [0, 0.6, 0.8, 0]])
+        ]
         order = np.r_[0:4, 8, 10:13, 4:8, 9, 13:16]  # (X1, rho1, theta1, X2, rho2, theta2)
         block = np.zeros((16, 16))
         block[:8, :8], block[8:, 8:] = singles

@@ -31,11 +31,13 @@ import functools
 import jax
 import jax.numpy as jnp
 import numpy as np
+from scipy.integrate import solve_ivp
 
 from ..core import _validate
 from ..core import quaternion as qt
 from ..core._config import lean_compiler_options
 from ..core.conventions import INSTANTON_ACTION, point_to_quaternion
+from ..engine.fields import evaluate
 from ..integrals.cubature import final_rule, integrate_adaptive
 from ..integrals.pieces import Layout
 from .moduli import _unit_orientations, solve_constraint_unrolled
@@ -241,8 +243,7 @@ def tangent_basis(data) -> np.ndarray:
 
     The null space of the linearised ADHM constraint (SVD), made horizontal (`tangent.horizontal`) and
     orthonormalised in the flat metric W of `tangent.flat_weights`, so the algebraic metric in these
-    coordinates is 8 pi^2 times the identity.  D = 8k for SU(2), 4k(n + 1) ... for Sp(n) (4kn + 4k), and
-    4kN for SU(N) (Atiyah, Hitchin, Drinfeld, Manin 1978; the dimension count is common practice).
+    coordinates is 8 pi^2 times the identity.  D = 8k for SU(2), 4k(n + 1) for Sp(n) and 4kN for SU(N) (Atiyah, Hitchin, Drinfeld, Manin 1978; the dimension count is common practice).
     """
     data = _check_data(data)
     z = jnp.asarray(pack(data))
@@ -311,7 +312,9 @@ def _scalar_kernel():
 
 @functools.cache
 def _sum_kernel():
-    return jax.jit(lambda data, t, pts, w: jnp.einsum("m,mij->ij", w, jax.vmap(_pointwise, in_axes=(None, None, 0))(data, t, pts)))
+    return jax.jit(
+        lambda data, t, pts, w: jnp.einsum("m,mij->ij", w, jax.vmap(_pointwise, in_axes=(None, None, 0))(data, t, pts))
+    )
 
 
 def _integral(data, t, rtol: float, max_points: int):
@@ -334,8 +337,12 @@ def _integral(data, t, rtol: float, max_points: int):
         return out
 
     centres, scales = data.layout()
-    layout = Layout(np.asarray(centres).reshape(-1, 4), np.asarray(scales, dtype=np.float64), None, "the data's layout()")
-    res, state = integrate_adaptive(density, "zero-mode metric", layout, rtol=rtol, atol=0.0, max_points=max_points, sink=None)
+    layout = Layout(
+        np.asarray(centres).reshape(-1, 4), np.asarray(scales, dtype=np.float64), None, "the data's layout()"
+    )
+    res, state = integrate_adaptive(
+        density, "zero-mode metric", layout, rtol=rtol, atol=0.0, max_points=max_points, sink=None
+    )
     rule = final_rule(state, max_points)
     total = np.zeros((t.shape[0], t.shape[0]))
     for s in range(0, rule.points.shape[0], _CHUNK):
@@ -424,9 +431,10 @@ def _metric_kernels(fn):
         return INSTANTON_ACTION * (h * jnp.asarray(flat_weights(data))) @ h.T
 
     def accel(aux, p, v):
-        gp, dgv = jax.jvp(lambda q: g(aux, q), (p,), (v,))
-        grad = jax.grad(lambda q: v @ g(aux, q) @ v)(p)
-        return -jnp.linalg.solve(gp, dgv @ v - 0.5 * grad)
+        gp = g(aux, p)
+        dg = jax.jacfwd(lambda q: g(aux, q))(p)  # (d, d, d): dg[a, b, c] = d_c g_ab
+        rhs = jnp.einsum("abc,b,c->a", dg, v, v) - 0.5 * jnp.einsum("bca,b,c->a", dg, v, v)
+        return -jnp.linalg.solve(gp, rhs)
 
     lean = lean_compiler_options()
     return jax.jit(g, compiler_options=lean), jax.jit(accel, compiler_options=lean)
@@ -447,12 +455,12 @@ class GeodesicPath:
 
     def densities(self, points) -> np.ndarray:
         """Action densities of the data along the path at points (..., 4) -> (s, ...) float64."""
-        from ..engine.fields import evaluate
-
         return np.stack([np.asarray(evaluate(d, points, "action_density")) for d in self.data])
 
 
-def moduli_geodesic(chart, velocity, *, params=None, t_final: float = 1.0, samples: int = 21, rtol: float = 1e-9) -> GeodesicPath:
+def moduli_geodesic(
+    chart, velocity, *, params=None, t_final: float = 1.0, samples: int = 21, rtol: float = 1e-9
+) -> GeodesicPath:
     """Integrate the geodesic equation of the algebraic moduli-space metric from a point and a velocity.
 
     x''^a = -Gamma^a_bc x'^b x'^c, written as ``g x'' = -(dg[x'] x' - 1/2 grad(x'^T g x'))`` with the
@@ -470,8 +478,6 @@ def moduli_geodesic(chart, velocity, *, params=None, t_final: float = 1.0, sampl
       ValueError for a start that is degenerate or off the constraint surface (as `moduli_metric`),
       shapes that do not match, or a path that runs into a singular metric.
     """
-    from scipy.integrate import solve_ivp
-
     fn, p0 = _resolve(chart, params)
     if fn is None:
         raise TypeError("moduli_geodesic needs a chart (params -> data), not data alone")
@@ -500,4 +506,3 @@ def moduli_geodesic(chart, velocity, *, params=None, t_final: float = 1.0, sampl
     speed2 = np.array([float(v @ np.asarray(g(aux, jnp.asarray(p))) @ v) for p, v in zip(ps, vs)])
     data = tuple(fn(p) for p in ps)
     return GeodesicPath(times, ps, vs, speed2, data)
-
