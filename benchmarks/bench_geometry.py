@@ -35,7 +35,7 @@ def _row(figure, value, unit, ratio, reference):
     return dict(figure=figure, value=value, unit=unit, ratio=ratio, reference=reference)
 
 
-def run(quick: bool = False, k_algebraic: int = 4, rtol: float | None = None) -> list[dict]:
+def run(quick: bool = False, k_algebraic: int = 4, k_integral: int = 2, rtol: float | None = None) -> list[dict]:
     """Rows {figure, value, unit, ratio, reference} (module docstring)."""
     rows = []
     data = ik.random_adhm(k_algebraic, seed=11)
@@ -54,7 +54,7 @@ def run(quick: bool = False, k_algebraic: int = 4, rtol: float | None = None) ->
     )
     rows.append(_row(f"algebraic metric, k = {k_algebraic}, first call", first, "s", first / ALGEBRAIC_GOAL_S, "goal"))
     tol = rtol if rtol is not None else (1e-6 if quick else 1e-8)
-    two = ik.random_adhm(2, seed=3)
+    two = ik.random_adhm(k_integral, seed=3)
     alg = ik.moduli_metric(two).metric
     t0 = time.perf_counter()
     res = ik.moduli_metric(two, route="integral", rtol=tol)
@@ -62,7 +62,7 @@ def run(quick: bool = False, k_algebraic: int = 4, rtol: float | None = None) ->
     diff = float(np.max(np.abs(res.metric - alg)))
     rows.append(
         _row(
-            f"integral metric, k = 2, rtol {tol:g} ({res.evaluations:,} points)",
+            f"integral metric, k = {k_integral}, rtol {tol:g} ({res.evaluations:,} points)",
             took,
             "s",
             took / INTEGRAL_GOAL_S,

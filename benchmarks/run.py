@@ -64,7 +64,7 @@ SMOKE = {
     "bench_limits": {"parts": ("densities",), "points": 4096},
     "bench_cluster": {"parts": ("scaling",), "scaling_size": 4},
     "bench_smoothing": {"size": 4, "parts": ("timing",), "groups": ("su2",)},
-    "bench_geometry": {"k_algebraic": 2, "rtol": 1e-4},
+    "bench_geometry": {"k_algebraic": 2, "k_integral": 1, "rtol": 1e-4},
 }
 
 #: What ``--quick`` aims at on a quiet two-core machine, in seconds (printed, never checked).

@@ -43,7 +43,8 @@ from ..integrals.pieces import Layout
 from .moduli import _unit_orientations, solve_constraint_unrolled
 from .quaternionic import ADHMData
 from .tangent import (
-    _constraint_vector,
+    constraint_jacobian,
+    constraint_rates,
     flat_weights,
     global_gauge_directions,
     horizontal,
@@ -219,23 +220,8 @@ def _raw_tangents(chart, p):
     return data, t
 
 
-def _constraint_jac(data, z):
-    """d constraint / d data at the data, (R, P) (compiled once per data structure)."""
-    return _constraint_jac_kernel()(data, z)
-
-
-@functools.cache
-def _constraint_jac_kernel():
-    jac = lambda data, z: jax.jacfwd(lambda v: _constraint_vector(data, v))(z)  # noqa: E731
-    return jax.jit(jac, compiler_options=lean_compiler_options())
-
-
 def _constraint_rates(data, t) -> np.ndarray:
-    z = jnp.asarray(pack(data))
-    jac = np.asarray(_constraint_jac(data, z))  # (R, P)
-    scale = 1.0 + float(jnp.linalg.norm(z))
-    norms = np.linalg.norm(t, axis=1)
-    return np.max(np.abs(t @ jac.T), axis=1) / (scale * np.where(norms > 0, norms, 1.0))
+    return constraint_rates(data, t)
 
 
 def tangent_basis(data) -> np.ndarray:
@@ -246,8 +232,7 @@ def tangent_basis(data) -> np.ndarray:
     coordinates is 8 pi^2 times the identity.  D = 8k for SU(2), 4k(n + 1) for Sp(n) and 4kN for SU(N) (Atiyah, Hitchin, Drinfeld, Manin 1978; the dimension count is common practice).
     """
     data = _check_data(data)
-    z = jnp.asarray(pack(data))
-    jac = np.asarray(_constraint_jac(data, z))
+    jac = np.asarray(constraint_jacobian(data))
     _, s, vt = np.linalg.svd(jac)
     rank = int(np.sum(s > 1e-10 * max(1.0, float(s[0]))))
     h = np.asarray(horizontal(data, vt[rank:]))
