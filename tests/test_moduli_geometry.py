@@ -134,6 +134,14 @@ def test_k2_routes_agree_to_the_integral_error():
 
 
 @pytest.mark.long
+def test_k3_routes_agree_to_the_integral_error():
+    data = random_adhm(3, seed=2)
+    alg = mm.moduli_metric(data).metric
+    res = mm.moduli_metric(data, route="integral", rtol=1e-7)
+    assert np.max(np.abs(res.metric - alg)) <= res.error
+
+
+@pytest.mark.long
 def test_su3_routes_agree_to_the_integral_error():
     data = random_unitary_adhm(1, 3, seed=4)
     alg = mm.moduli_metric(data).metric

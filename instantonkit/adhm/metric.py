@@ -48,7 +48,7 @@ from .tangent import (
     flat_weights,
     global_gauge_directions,
     horizontal,
-    modes_at,
+    mode_vectors,
     pack,
 )
 from .unitary import UnitaryADHMData
@@ -282,8 +282,8 @@ class MetricResult:
 
 def _pointwise(data, t, x):
     """g_ij(x) = -2 sum_mu Re tr(delta_i A_mu delta_j A_mu) at one point; (d, d)."""
-    m = modes_at(data, t, x)
-    return -2.0 * jnp.real(jnp.einsum("iuab,juba->ij", m, m))
+    y = mode_vectors(data, t, x)
+    return y @ y.T
 
 
 @functools.cache

@@ -263,7 +263,7 @@ _project_jit = jax.jit(_project)
 
 
 def _quat_modes(data: ADHMData, t, x):
-    """delta A_mu of quaternionic data for tangents t (m, P) at one point (4,) -> (m, 4, 2n, 2n)."""
+    """delta A_mu of quaternionic data for tangents t (m, P) at one point (4,) -> (m, 4, n, n, 4) quaternionic."""
     n = data.rank
     dlam, db = _split_quat(data, t)
     dd = jnp.concatenate([dlam, db], axis=1)  # (m, n + k, k, 4)
@@ -275,7 +275,7 @@ def _quat_modes(data: ADHMData, t, x):
     epsbar = qt.qconj(eps)  # (4, 4): conj(e_mu)
     right = qt.qmul(epsbar[:, None, None, :], fub[None])  # conj(e_mu) f b^dag U, (4, k, n, 4)
     xm = qt.qmat_mul(ud[:, None], right[None])  # (m, 4, n, n, 4)
-    return qt.qmat_to_complex(qt.qmat_dagger(xm) - xm)
+    return qt.qmat_dagger(xm) - xm  # quaternionic (m, 4, n, n, 4)
 
 
 def _delta0(b1, b2, i, j):
@@ -312,7 +312,23 @@ def modes_at(data, tangents, x):
     t = jnp.asarray(tangents, dtype=jnp.float64)
     if isinstance(data, UnitaryADHMData):
         return _unitary_modes(data, t, x)
-    return _quat_modes(data, t, x)
+    return qt.qmat_to_complex(_quat_modes(data, t, x))
+
+
+def mode_vectors(data, tangents, x):
+    """Real vectors Y (m, L) of the zero modes at one point with Y Y^T = -2 sum_mu tr(delta_i A_mu delta_j A_mu).
+
+    Anti-Hermitian delta A gives -tr(P Q) = sum_ab Re(P_ab conj(Q_ab)); a quaternionic matrix's complex
+    trace is twice its real trace, and Re(p q-bar) is the dot product of the four components, so
+    Y = 2 delta A (quaternion components) or sqrt(2) (Re, Im) delta A (complex).  Package-internal seam (jax).
+    """
+    x = jnp.asarray(x, dtype=jnp.float64)
+    t = jnp.asarray(tangents, dtype=jnp.float64)
+    m = t.shape[0]
+    if isinstance(data, UnitaryADHMData):
+        da = _unitary_modes(data, t, x).reshape(m, -1)
+        return np.sqrt(2.0) * jnp.concatenate([da.real, da.imag], axis=1)
+    return 2.0 * _quat_modes(data, t, x).reshape(m, -1)
 
 
 @functools.cache
