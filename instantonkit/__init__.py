@@ -24,7 +24,7 @@ from .adhm.metric import (
 )
 from .adhm.moduli import block_sum, bpst, embed_sp, multi_instanton, random_adhm
 from .adhm.quaternionic import ADHMData
-from .adhm.tangent import bosonic_zero_modes
+from .adhm.tangent import bosonic_zero_modes, global_gauge_directions
 from .adhm.unitary import UnitaryADHMData
 from .adhm.unitary_moduli import embed_unitary, from_quaternionic, random_unitary_adhm, unitary_multi_instanton
 from .adhm.zero_modes import zero_mode_density, zero_mode_overlap, zero_modes
@@ -123,6 +123,7 @@ __all__ = [
     "zero_mode_density",
     "zero_mode_overlap",
     "bosonic_zero_modes",
+    "global_gauge_directions",
     "tangent_basis",
     "moduli_metric",
     "moduli_measure",

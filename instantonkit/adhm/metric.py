@@ -167,7 +167,7 @@ def _jac_kernel(fn):
 
 def _check_data(data) -> ADHMData | UnitaryADHMData:
     if not isinstance(data, ADHMData | UnitaryADHMData):
-        raise TypeError(f"the chart must return ADHMData or UnitaryADHMData; found {type(data).__name__}")
+        raise TypeError(f"data (or a chart's value) must be ADHMData or UnitaryADHMData; found {type(data).__name__}")
     sizes = np.asarray(data.sizes())
     scale = max(1.0, float(np.sqrt(np.sum(np.asarray(pack(data)) ** 2))))
     if np.min(sizes) <= _ZERO_SIZE * scale:
@@ -448,8 +448,10 @@ def moduli_geodesic(
 ) -> GeodesicPath:
     """Integrate the geodesic equation of the algebraic moduli-space metric from a point and a velocity.
 
-    x''^a = -Gamma^a_bc x'^b x'^c, written as ``g x'' = -(dg[x'] x' - 1/2 grad(x'^T g x'))`` with the
-    metric's derivatives by jax (jvp and grad); scipy's DOP853 integrates it (rtol, atol = rtol).
+    x''^a = -Gamma^a_bc x'^b x'^c, written as ``g_ab x''^b = -(d_c g_ab - 1/2 d_a g_bc) x'^b x'^c`` with the
+    metric's derivatives d_c g_ab by jax.jacfwd of the algebraic metric (itself a jacobian of the chart);
+    scipy's DOP853 integrates it (rtol, atol = rtol).  Charts can break down (the standard chart where two
+    centres meet): the integration then stops with a ValueError.
 
     Args:
       chart: callable params -> ADHM data (jax-traceable), or a `StandardChart`.
