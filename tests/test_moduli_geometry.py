@@ -23,6 +23,7 @@ from instantonkit.adhm import metric as mm
 from instantonkit.adhm import tangent as tg
 from instantonkit.adhm.moduli import bpst, random_adhm
 from instantonkit.adhm.quaternionic import ADHMData
+from instantonkit.adhm.tangent import global_gauge_directions
 from instantonkit.adhm.unitary_moduli import random_unitary_adhm
 from instantonkit.core import quaternion as qt
 from instantonkit.core.conventions import LEVI_CIVITA, point_to_quaternion
@@ -170,6 +171,25 @@ def test_removing_the_global_gauge_orbit_leaves_rank_8k_minus_3():
     g = mm.moduli_metric(random_adhm(2, seed=6), global_gauge="remove").metric
     ev = np.linalg.eigvalsh(g)
     assert int(np.sum(ev > 1e-8 * ev[-1])) == 13
+
+
+@pytest.mark.parametrize(
+    ("data", "count"), [(K1, 3), (random_adhm(1, 2, seed=0), 10), (random_unitary_adhm(2, 3, seed=0), 8)]
+)
+def test_global_gauge_orbit_has_the_dimension_of_the_group(data, count):
+    # dim SU(2) = 3, dim Sp(2) = 10, dim SU(3) = 8 (common practice)
+    assert np.asarray(global_gauge_directions(data)).shape[0] == count
+
+
+def test_global_gauge_rotation_of_one_instanton_has_norm_16_pi2_rho2():
+    # d Lambda = u Lambda for a unit imaginary u: |dy|^2 = rho^2, so g = 8 pi^2 * 2 rho^2 (DHKM 2002, from memory)
+    t = np.asarray(global_gauge_directions(K1))
+    g = mm.moduli_metric(K1).metric
+    res = mm.moduli_metric(K1)
+    basis = res.tangents
+    coef = np.linalg.lstsq(basis.T, t.T, rcond=None)[0]  # the gauge directions in the chart's coordinates
+    norms = np.einsum("ai,ab,bi->i", coef, g, coef)
+    assert np.max(np.abs(norms - 16 * np.pi**2 * K1_RHO**2)) < 1e-9 * norms[0]
 
 
 def _rotated_chart(chart, orth, q):
