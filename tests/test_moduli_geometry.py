@@ -287,8 +287,18 @@ def test_zero_size_data_is_refused():
     lam = np.zeros((1, 2, 4))
     lam[0, 0, 0] = 1.0
     data = ADHMData(lam, np.array([[[0, 0, 0, 0], [0, 0, 0, 0]], [[0, 0, 0, 0], [2.0, 0, 0, 0]]]))
-    with pytest.raises(ValueError, match="zero-size"):
+    with pytest.raises(ValueError, match="instanton 1 has zero size"):
         mm.moduli_metric(data)
+
+
+def test_point_like_instanton_in_a_rotated_frame_is_refused():
+    # Lambda = [u, u], B = p(a) 1: an O(2) rotation by 45 degrees gives the columns [sqrt 2 u, 0], a zero size
+    lam = np.zeros((1, 2, 4))
+    lam[0, :, 0] = 1.0
+    b = np.zeros((2, 2, 4))
+    b[0, 0] = b[1, 1] = point_to_quaternion(np.array([0.5, 0.0, 0.0, 0.0]))
+    with pytest.raises(ValueError, match="point-like"):
+        mm.moduli_metric(ADHMData(lam, b))
 
 
 def test_coincident_centres_are_refused():
@@ -304,3 +314,10 @@ def test_bad_route_is_refused():
 def test_tangents_of_the_wrong_shape_are_refused():
     with pytest.raises(ValueError, match="tangents must have shape"):
         tg.bosonic_zero_modes(K1, np.zeros((2, 5)), X0)
+
+
+def test_zero_modes_at_a_singular_point_of_the_gauge_name_the_point():
+    # the singular gauge of one instanton is singular at its centre (common practice)
+    t = mm.tangent_basis(K1)[:1]
+    with pytest.raises(ValueError, match="not finite at point 1"):
+        tg.bosonic_zero_modes(K1, t, np.stack([X0, [0.1, 0.2, 0.3, 0.4]]))

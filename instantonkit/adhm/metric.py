@@ -32,6 +32,7 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 from scipy.integrate import solve_ivp
+from scipy.optimize import minimize
 
 from ..core import _validate
 from ..core import quaternion as qt
@@ -176,7 +177,35 @@ def _check_data(data) -> ADHMData | UnitaryADHMData:
             f"degenerate ADHM data: instanton {i} has zero size ({sizes[i]:.3e}); point-like instantons are "
             "singular points of the moduli space, where the metric is not defined"
         )
+    _check_not_point_like(data, scale)
     return data
+
+
+def _gram_numpy(data, x: np.ndarray) -> np.ndarray:
+    """Delta^dag Delta at one point (f^-1; real (k, k) quaternionic, Hermitian complex), in numpy."""
+    if isinstance(data, UnitaryADHMData):
+        return np.asarray(data.gram(x))
+    lam, b = np.asarray(data.lam), np.asarray(data.B)
+    p = np.asarray(point_to_quaternion(x))
+    bp = b - np.eye(data.k)[:, :, None] * (np.asarray(qt.qconj(p)) if data.chirality == -1 else p)
+    return np.einsum("lia,lja->ij", lam, lam) + np.einsum("lia,lja->ij", bp, bp)
+
+
+def _check_not_point_like(data, scale: float) -> None:
+    """Refuse data whose Delta(x) loses rank somewhere (an ideal, point-like instanton in any O(k) / U(k) frame).
+
+    The smallest eigenvalue of Delta^dag Delta(x) is minimised over x from every centre (Nelder-Mead);
+    a minimum below 1e-12 |data|^2 means Delta(x) v = 0 there, where the field is singular.
+    """
+    lowest = lambda x: float(np.linalg.eigvalsh(_gram_numpy(data, np.asarray(x)))[0])  # noqa: E731
+    for c in np.asarray(data.centers()):
+        res = minimize(lowest, c, method="Nelder-Mead", options=dict(xatol=1e-10, fatol=1e-14 * scale**2, maxiter=400))
+        if res.fun <= 1e-12 * scale**2:
+            raise ValueError(
+                "degenerate ADHM data: Delta(x) loses rank at x = "
+                f"{np.round(res.x, 6).tolist()} (smallest eigenvalue of Delta^dag Delta {res.fun:.3e}), a point-like "
+                "(zero-size) instanton; the metric is not defined there"
+            )
 
 
 def _resolve(chart, params):
@@ -184,6 +213,7 @@ def _resolve(chart, params):
     if isinstance(chart, ADHMData | UnitaryADHMData):
         if params is not None:
             raise TypeError("pass params only with a callable chart (params -> data); found data and params")
+        _check_data(chart)
         if isinstance(chart, ADHMData) and chart.rank == 1 and chart.chirality == 1:
             sc = StandardChart.of(chart)
             return sc, sc.params

@@ -353,7 +353,8 @@ def bosonic_zero_modes(data, tangents, points, *, project: bool = True, chunk_si
       (..., m, 4, N, N) complex128: delta A_mu, anti-Hermitian (traceless for complex data).
     Raises:
       TypeError for data of another type; ValueError for tangents of the wrong shape, tangents that
-      leave the constraint surface, degenerate data (`horizontal`) or bad points.
+      leave the constraint surface, degenerate data (`horizontal`), bad points, or modes that are not
+      finite at a point (named).
     """
     data = _check_data(data)
     t = _tangents(data, tangents)
@@ -368,5 +369,12 @@ def bosonic_zero_modes(data, tangents, points, *, project: bool = True, chunk_si
     if project:
         t = np.asarray(horizontal(data, t))
     pts, lead = _validate.points(points)
-    out = run_batched(_kernel(), [pts], chunk, shrink_last=True, args_before=(data, jnp.asarray(t)))
-    return np.asarray(out).reshape(lead + out.shape[1:])
+    out = np.asarray(run_batched(_kernel(), [pts], chunk, shrink_last=True, args_before=(data, jnp.asarray(t))))
+    bad = ~np.isfinite(out.reshape(out.shape[0], -1)).all(axis=1)
+    if np.any(bad):
+        i = int(np.argmax(bad))
+        raise ValueError(
+            f"zero modes are not finite at point {i} = {pts[i].tolist()} (a singular point of the frame's gauge, "
+            f"or degenerate data); {int(bad.sum())} of {len(pts)} points affected"
+        )
+    return out.reshape(lead + out.shape[1:])
