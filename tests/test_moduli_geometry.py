@@ -73,6 +73,16 @@ def test_zero_modes_solve_linearised_self_duality(kind):
     assert np.max(np.abs(df - dual)) < 1e-10
 
 
+def test_anti_instanton_zero_modes_are_anti_self_dual_in_background_gauge():
+    # chirality -1 (conjugate data): the linearised equation is anti-self-duality, delta F + *delta F = 0
+    data = random_adhm(2, seed=1).conjugate()
+    dd = _covariant_derivatives(data, mm.tangent_basis(data), X0)
+    df = dd - np.swapaxes(dd, 1, 2)
+    dual = 0.5 * np.einsum("uvrs,mrsab->muvab", LEVI_CIVITA, df)
+    assert np.max(np.abs(np.einsum("muuab->mab", dd))) < 1e-10
+    assert np.max(np.abs(df + dual)) < 1e-10 < np.max(np.abs(df))
+
+
 def test_unprojected_variations_leave_background_gauge():
     # the O(k) direction matters: a constraint-preserving but not horizontal variation violates D.dA = 0
     data = random_adhm(2, seed=1)
