@@ -293,6 +293,15 @@ def test_chart_leaving_the_constraint_surface_is_refused():
         mm.moduli_metric(off_surface, np.zeros(1))
 
 
+def test_chart_off_the_constraint_surface_at_its_point_is_refused():
+    def off(p):  # B = p(a) with a Lambda whose columns are not orthogonal in the quaternionic sense
+        lam = jnp.array([[[1.0, 0.0, 0.0, 0.0], [0.0, 1.0, 0.0, 0.0]]]) * p[0]
+        return ADHMData(lam, jnp.array([[[0.0, 0, 0, 0], [0, 0, 0, 0]], [[0, 0, 0, 0], [3.0, 0, 0, 0]]]))
+
+    with pytest.raises(ValueError, match="chart.params. gave no valid ADHM data: ADHM constraint violated"):
+        mm.moduli_metric(off, np.array([1.0]))
+
+
 def test_zero_size_data_is_refused():
     lam = np.zeros((1, 2, 4))
     lam[0, 0, 0] = 1.0

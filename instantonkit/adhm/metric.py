@@ -235,12 +235,12 @@ def _raw_tangents(chart, p):
     try:
         data = chart(p)
     except ValueError as err:
-        raise ValueError(f"the chart leaves the ADHM constraint surface at these params: {err}") from err
+        raise ValueError(f"chart(params) gave no valid ADHM data: {err}") from err
     data = _check_data(data)
     fn, aux = _traceable(chart)
     jac = _jac_kernel(fn)(aux, jnp.asarray(p))  # (P, d)
     t = np.asarray(jac).T
-    rates = _constraint_rates(data, t)
+    rates = constraint_rates(data, t)
     if rates.size and np.max(rates) > _CONSTRAINT_RATE:
         i = int(np.argmax(rates))
         raise ValueError(
@@ -248,10 +248,6 @@ def _raw_tangents(chart, p):
             f"relative rate {rates[i]:.3e} (expected <= {_CONSTRAINT_RATE:.0e}); charts must map onto solutions"
         )
     return data, t
-
-
-def _constraint_rates(data, t) -> np.ndarray:
-    return constraint_rates(data, t)
 
 
 def tangent_basis(data) -> np.ndarray:
