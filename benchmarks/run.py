@@ -60,11 +60,11 @@ __all__ = [
 
 #: Extra keyword arguments for ``--smoke``, per module, used only where ``run`` accepts them.
 SMOKE = {
+    "bench_geometry": {"k_algebraic": 2, "k_integral": 1, "rtol": 1e-4},
     "bench_fields": {"points": 1024, "ks": (1,), "ranks": (1,)},
     "bench_limits": {"parts": ("densities",), "points": 4096},
     "bench_cluster": {"parts": ("scaling",), "scaling_size": 4},
     "bench_smoothing": {"size": 4, "parts": ("timing",), "groups": ("su2",)},
-    "bench_geometry": {"k_algebraic": 2, "k_integral": 1, "rtol": 1e-4},
 }
 
 #: What ``--quick`` aims at on a quiet two-core machine, in seconds (printed, never checked).
