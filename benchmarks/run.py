@@ -60,6 +60,7 @@ __all__ = [
 
 #: Extra keyword arguments for ``--smoke``, per module, used only where ``run`` accepts them.
 SMOKE = {
+    "bench_geometry": {"k_algebraic": 2, "k_integral": 1, "rtol": 1e-4},
     "bench_fields": {"points": 1024, "ks": (1,), "ranks": (1,)},
     "bench_limits": {"parts": ("densities",), "points": 4096},
     "bench_cluster": {"parts": ("scaling",), "scaling_size": 4},

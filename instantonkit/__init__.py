@@ -13,8 +13,18 @@ from .core import _config  # noqa: F401, I001  (float64 before anything is trace
 from . import cluster, lattice
 from .adhm import moduli, unitary_moduli
 from .adhm import unitary as unitary_adhm
+from .adhm.metric import (
+    GeodesicPath,
+    MetricResult,
+    StandardChart,
+    moduli_geodesic,
+    moduli_measure,
+    moduli_metric,
+    tangent_basis,
+)
 from .adhm.moduli import block_sum, bpst, embed_sp, multi_instanton, random_adhm
 from .adhm.quaternionic import ADHMData
+from .adhm.tangent import bosonic_zero_modes, global_gauge_directions
 from .adhm.unitary import UnitaryADHMData
 from .adhm.unitary_moduli import embed_unitary, from_quaternionic, random_unitary_adhm, unitary_multi_instanton
 from .adhm.zero_modes import zero_mode_density, zero_mode_overlap, zero_modes
@@ -136,6 +146,15 @@ __all__ = [
     "zero_modes",
     "zero_mode_density",
     "zero_mode_overlap",
+    "bosonic_zero_modes",
+    "global_gauge_directions",
+    "tangent_basis",
+    "moduli_metric",
+    "moduli_measure",
+    "moduli_geodesic",
+    "StandardChart",
+    "MetricResult",
+    "GeodesicPath",
     "find_instantons",
     "find_lattice_instantons",
     "colour_rank",

@@ -5,8 +5,10 @@ Modules (floor 3 of the package; the floors inside are in DEVELOPERS.md):
 * ``_kxk``: Batch-major k x k kernels of ADHM densities: the points on the last axis, so XLA vectorises across them.
 * ``base``: What every realisation of ADHM data offers, and the one constraint solve they share.
 * ``kernels``: Quaternionic kernels of ADHM data and the closed-form links of charge one.
+* ``metric``: The L^2 metric of the instanton moduli space, its volume form, and its geodesics.
 * ``moduli``: ADHM data from moduli: single instantons, well-separated multi-instantons (the constraint solved),
 * ``quaternionic``: ADHM data for SU(2) = Sp(1) and Sp(n) multi-instantons, its validation and its constructors.
+* ``tangent``: Tangent vectors of ADHM data and the bosonic zero modes they give, in closed form.
 * ``unitary``: Complex ADHM data for SU(N) (U(N)) multi-instantons, its validation and fields (constructors: `instantonkit.adhm.unitary_moduli`).
 * ``unitary_moduli``: Complex ADHM data from moduli and from other data.
 * ``zero_mode_phase``: The U(1) phase of the zero modes of complex (SU(N)) ADHM data: the flat part a, its ray integral theta.
