@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import importlib
 
+import jax
 import numpy as np
 import pytest
 from scipy.stats import unitary_group
@@ -45,6 +46,19 @@ def test_sun_parameters_are_the_gauge_invariant_moduli_count(k, n):
     model = UnitaryModel(k, n)
     theta, ctx = _start(model, n)
     assert model.n_params(ctx) == theta.size == 4 * k * n - (n * n - 1)
+
+
+def test_error_vector_is_cut_back_into_the_moduli_it_was_flattened_from():
+    # the propagated errors are one vector in _flat_moduli's order; each key must get its own entries back
+    model = QuaternionicModel(2)
+    o = np.array([[1.0, 0.0, 0.0, 0.0], [0.5, 0.5, 0.5, 0.5]])
+    theta, uref = model.pack(np.array([[0.0, 0, 0, 0], [3.0, 1.0, 0, 0]]), np.array([0.7, 0.9]), o)
+    moduli = jax.jit(model.moduli)(np.asarray(theta), uref)  # a jitted dict comes back with sorted keys
+    flat = np.asarray(exact_fit._flat_moduli(model, np.asarray(theta), uref))
+    back = exact_fit._split_like(flat, moduli)
+    assert list(back) == ["centers", "sizes", "orientations"]
+    for key, value in moduli.items():
+        np.testing.assert_array_equal(back[key], np.asarray(value), err_msg=key)
 
 
 def test_quaternionic_solve_without_equations_returns_the_diagonal():

@@ -136,8 +136,8 @@ class ExactModel(Protocol):
     def data(self, theta, ctx) -> Any:
         """ADHM data of theta (jax-traceable), built through the one constraint solve of `instantonkit.adhm.base`."""
 
-    def host_data(self, theta, ctx) -> Any:
-        """The validated numpy copy of `data` (the constraint checked)."""
+    def host_data(self, data) -> Any:
+        """The validated numpy copy of the model's ``data`` (the constraint checked)."""
 
     def moduli(self, theta, ctx) -> dict:
         """The reported moduli with errors (jax): 'centers' (k, 4), 'sizes' (k,), and possibly more."""
@@ -231,8 +231,7 @@ class QuaternionicModel:
         b, _, _ = solve_quaternionic_constraint(lam, point_to_quaternion(c), steps=UNROLLED_STEPS)
         return ADHMData(lam, b)
 
-    def host_data(self, theta, uref) -> ADHMData:
-        data = self.data(theta, uref)
+    def host_data(self, data) -> ADHMData:
         return ADHMData(np.asarray(data.lam), np.asarray(data.B))  # validated (constraint checked)
 
     def moduli(self, theta, uref) -> dict:
@@ -388,9 +387,8 @@ class UnitaryModel:
         gref, basis = ctx
         return UnitaryADHMData(*unitary_data(theta, gref, basis, self.k, self.n))
 
-    def host_data(self, theta, ctx) -> UnitaryADHMData:
-        gref, basis = ctx
-        b1, b2, i, j = (np.asarray(a) for a in unitary_data(theta, gref, basis, self.k, self.n))
+    def host_data(self, data) -> UnitaryADHMData:
+        b1, b2, i, j = (np.asarray(a) for a in (data.B1, data.B2, data.I, data.J))
         return UnitaryADHMData(b1, b2, i, j)  # validated (both moment maps checked)
 
     def moduli(self, theta, ctx) -> dict:
@@ -417,10 +415,26 @@ _jac = jax.jit(jax.jacfwd(_resid, argnums=1), static_argnums=0)
 
 
 def _flat_moduli(model, theta, ctx):
-    return jnp.concatenate([jnp.ravel(v) for v in model.moduli(theta, ctx).values()])
+    """The reported moduli as one vector, keys in sorted order (the order jax gives a dict's leaves)."""
+    moduli = model.moduli(theta, ctx)
+    return jnp.concatenate([jnp.ravel(moduli[key]) for key in sorted(moduli)])
 
 
 _dmoduli = jax.jit(jax.jacfwd(_flat_moduli, argnums=1), static_argnums=0)
+
+
+def _split_like(vec: np.ndarray, moduli: dict) -> dict:
+    """Inverse of `_flat_moduli`: vec cut into the shapes of ``moduli``; 'centers', 'sizes' first, then sorted."""
+    keys = sorted(moduli)
+    parts = dict(zip(keys, np.split(vec, np.cumsum([np.size(moduli[key]) for key in keys])[:-1])))
+    order = ["centers", "sizes"] + [key for key in keys if key not in ("centers", "sizes")]
+    return {key: parts[key].reshape(np.shape(moduli[key])) for key in order}
+
+
+@partial(jax.jit, static_argnums=0)
+def _at_optimum(model, theta, ctx):
+    """The model's data and reported moduli at theta (compiled once per model shape, not per fit)."""
+    return model.data(theta, ctx), model.moduli(theta, ctx)
 
 
 def _covariance(jmat: np.ndarray, null_rcond: float | None):
@@ -513,11 +527,11 @@ def fit_model(
     cov = cov * (1.0 / smax**2 if noise_known else cost / dof)
     dj = np.asarray(_dmoduli(model, theta, ctx))
     err = np.sqrt(np.abs(np.einsum("ip,pq,iq->i", dj, cov, dj)))
-    moduli = {key: np.asarray(v) for key, v in model.moduli(theta, ctx).items()}
-    ends = np.cumsum([v.size for v in moduli.values()])
-    errors = {key: e.reshape(v.shape) for (key, v), e in zip(moduli.items(), np.split(err, ends[:-1]))}
+    data, moduli_j = _at_optimum(model, theta, ctx)
+    moduli = {key: np.asarray(v) for key, v in moduli_j.items()}
+    errors = _split_like(err, moduli)
     return model.result(
-        data=model.host_data(theta, ctx),
+        data=model.host_data(data),
         centers=moduli["centers"],
         sizes=moduli["sizes"],
         orientations=model.orientations(theta, ctx),
