@@ -216,11 +216,13 @@ _MOVED = {
     "field_protocol": "engine.protocol",
     "fields": "engine.fields",
     "finder": "fit.finder",
+    "fit.moduli_fit": "fit.exact_fit",  # the two exact fits are one module now
+    "fit.unitary_fit": "fit.exact_fit",
     "flux": "integrals.flux",
     "io": "lattice.files",
     "lattice_fit": "fit.lattice_fit",
     "moduli": "adhm.moduli",
-    "moduli_fit": "fit.moduli_fit",
+    "moduli_fit": "fit.exact_fit",
     "observables": "lattice.observables",
     "peaks": "fit.peaks",
     "periodic": "ansatz.periodic",
@@ -233,11 +235,12 @@ _MOVED = {
     "transforms": "engine.transforms",
     "transport": "lattice.transport",
     "unitary_adhm": "adhm.unitary",
-    "unitary_fit": "fit.unitary_fit",
+    "unitary_fit": "fit.exact_fit",
     "unitary_moduli": "adhm.unitary_moduli",
     "zero_mode_phase": "adhm.zero_mode_phase",
     "zero_modes": "adhm.zero_modes",
 }
 for _old, _new in _MOVED.items():
     _sys.modules[f"{__name__}.{_old}"] = _module = _import_module(f".{_new}", __name__)
-    globals().setdefault(_old, _module)  # a public name of the same spelling (the function zero_modes) wins
+    _home, _, _leaf = f"{__name__}.{_old}".rpartition(".")
+    vars(_sys.modules[_home]).setdefault(_leaf, _module)  # a public name of the same spelling (zero_modes) wins

@@ -21,6 +21,7 @@ import pytest
 
 import instantonkit as ik
 from instantonkit.adhm.moduli import solve_constraint_unrolled
+from instantonkit.fit.exact_fit import orientation_basis, unitary_data
 from instantonkit.fit.finder import (
     InstantonFit,
     MixedFit,
@@ -29,7 +30,6 @@ from instantonkit.fit.finder import (
     find_instantons,
 )
 from instantonkit.fit.lattice_fit import find_lattice_instantons
-from instantonkit.fit.unitary_fit import orientation_basis, unitary_data
 
 GRID = np.linspace(-4.0, 4.0, 13)
 LATTICE = np.stack(np.meshgrid(GRID, GRID, GRID, GRID, indexing="ij"), axis=-1).reshape(-1, 4)
@@ -76,7 +76,7 @@ def scattered_around(data, n_per, seed):
 # -- exact model --------------------------------------------------------------------------------------
 
 
-def test_unrolled_constraint_solve_matches_the_numpy_solve_and_its_derivative_keeps_the_constraint():
+def test_unrolled_constraint_solve_matches_the_builders_solve_and_its_derivative_keeps_the_constraint():
     import jax
 
     data = ik.random_adhm(3, seed=4)
@@ -343,7 +343,7 @@ def test_rank_below_two_raises_naming_it():
 
 
 def test_jax_su3_data_map_gives_the_data_of_unitary_multi_instanton():
-    # the exact SU(N) model differentiates through a jax copy of the numpy constraint solve (unitary_fit)
+    # the exact SU(N) model differentiates through the builder's constraint solve, unrolled (exact_fit)
     truth = _genuine_su3()
     centres, sizes, g = _genuine_su3_moduli()
     basis = orientation_basis(g)

@@ -17,8 +17,12 @@ after the residual reaches ``tol`` (the builders), without it it runs a fixed nu
 jax.jvp / jax.jacfwd differentiate (the fits; why unrolled steps give the implicit-function
 derivative: `instantonkit.adhm.moduli.solve_constraint_unrolled`).
 
-The complex moment maps (`unitary_moment_maps`), their 3k^2 real equations and the packing of
-(B1, B2, I, J) into one real vector live here too, so the builder and the fit share one layout.
+Each realisation hands `gauss_newton` its residual here, once: `solve_quaternionic_constraint`
+(the 3k(k-1)/2 real equations Im(Lambda^dag Lambda + B^dag B)_{i<j} = 0 for the off-diagonal of B)
+and `solve_moment_maps` (the 3k^2 real moment-map equations in the packed (B1, B2, I, J)).  The
+builders (`multi_instanton`, `unitary_multi_instanton`, `random_unitary_adhm`) call them with ``tol``
+(jitted, one compilation per shape), the fits (`instantonkit.fit.exact_fit`) without it (traced).
+The packing of (B1, B2, I, J) into one real vector lives here too, so builder and fit share one layout.
 """
 
 from __future__ import annotations
@@ -32,6 +36,7 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
+from ..core import quaternion as qt
 from ..core._config import lean_compiler_options
 
 __all__ = [
@@ -43,6 +48,8 @@ __all__ = [
     "unpack_unitary",
     "unitary_weights",
     "solve_moment_maps",
+    "quaternionic_constraint",
+    "solve_quaternionic_constraint",
 ]
 
 
@@ -209,3 +216,59 @@ def solve_moment_maps(z0, weights, k: int, n: int, *, steps: int, tol: float | N
         return _solve(jnp.asarray(z0), jnp.asarray(weights), 0.0, k=int(k), n=int(n), steps=int(steps), fixed=True)
     fn = _compiled(int(k), int(n), int(steps), False)
     return fn(jnp.asarray(z0), jnp.asarray(weights), jnp.asarray(float(tol)))
+
+
+# -- the quaternionic constraint ----------------------------------------------------------------------
+
+
+def _with_offdiagonal(diag, off):
+    """B (k, k, 4) symmetric with diagonal ``diag`` (k, 4) and upper triangle ``off`` (k(k-1)/2, 4), row-major."""
+    k = diag.shape[0]
+    rows, cols = np.triu_indices(k, 1)
+    b = jnp.zeros((k, k, 4), dtype=diag.dtype).at[np.arange(k), np.arange(k)].set(diag)
+    return b.at[rows, cols].set(off).at[cols, rows].set(off)
+
+
+def quaternionic_constraint(lam, b):
+    """The 3k(k-1)/2 real equations Im(Lambda^dag Lambda + B^dag B)_{i<j} (row-major pairs; jax).
+
+    lam (n, k, 4), b (k, k, 4) symmetric.  For such B the diagonal of the constraint matrix is real
+    and the lower triangle the conjugate of the upper one, so these are all the equations
+    (Atiyah, Hitchin, Drinfeld, Manin, Phys. Lett. A 65 (1978) 185; the count 3k(k-1)/2 from memory).
+    """
+    k = b.shape[0]
+    rows, cols = np.triu_indices(k, 1)
+    c = qt.qmat_mul(qt.qmat_dagger(lam), lam) + qt.qmat_mul(qt.qmat_dagger(b), b)
+    return c[rows, cols, 1:].reshape(-1)
+
+
+def _solve_quaternionic(lam, diag, off0, tol, *, steps: int, fixed: bool):
+    resid = lambda v: quaternionic_constraint(lam, _with_offdiagonal(diag, v.reshape(-1, 4)))  # noqa: E731
+    v, res, it = gauss_newton(resid, off0.reshape(-1), steps=steps, tol=None if fixed else tol)
+    return _with_offdiagonal(diag, v.reshape(-1, 4)), res, it
+
+
+@functools.cache
+def _compiled_quaternionic(steps: int):
+    """The jitted solve with a tolerance (jax compiles once per shape of (Lambda, diag))."""
+    return jax.jit(partial(_solve_quaternionic, steps=steps, fixed=False), compiler_options=lean_compiler_options())
+
+
+def solve_quaternionic_constraint(lam, diag, *, steps: int, tol: float | None = None, start=None):
+    """B with the given diagonal whose off-diagonal solves the quaternionic ADHM constraint, by `gauss_newton`.
+
+    lam (n, k, 4) held fixed; diag (k, 4) the quaternions of B's diagonal; start: None (off-diagonal
+    0) or (k(k-1)/2, 4) the upper triangle to start from (held constant: no derivative flows through
+    it).  Returns (B (k, k, 4) symmetric (jax), max |residual|, steps taken).  ``tol`` None: exactly
+    ``steps`` unit-weight steps traced into the caller (differentiable); otherwise the jitted solve
+    that stops one step after the residual reaches ``tol``.  k = 1 has no equations: B = diag.
+    """
+    lam = jnp.asarray(lam)
+    diag = jnp.asarray(diag)
+    m = diag.shape[0] * (diag.shape[0] - 1) // 2
+    off0 = jnp.zeros((m, 4), dtype=diag.dtype) if start is None else jax.lax.stop_gradient(jnp.asarray(start))
+    if m == 0:
+        return _with_offdiagonal(diag, off0), jnp.asarray(0.0), 0
+    if tol is None:
+        return _solve_quaternionic(lam, diag, off0, 0.0, steps=int(steps), fixed=True)
+    return _compiled_quaternionic(int(steps))(lam, diag, off0, jnp.asarray(float(tol)))

@@ -5,23 +5,23 @@ The data class, its validation and its fields live in `instantonkit.adhm.quatern
 builds data.  ``multi_instanton`` fixes the diagonal of B to the centres and Lambda's columns to the
 sizes and orientations, and solves the 3k(k-1)/2 real equations of the ADHM constraint for the
 off-diagonal part of B by minimum-norm Gauss-Newton steps (the moduli count 8k for SU(2) is checked
-in the tests from the rank of the constraint Jacobian).  `solve_constraint_unrolled` is the same
-iteration written in jax, differentiable (used by `instantonkit.fit.moduli_fit`).
+in the tests from the rank of the constraint Jacobian).  Both the builder and the differentiable
+`solve_constraint_unrolled` (used by `instantonkit.fit.exact_fit`) run the one solve of
+`instantonkit.adhm.base.solve_quaternionic_constraint`: the builder to a tolerance, the fit for a fixed
+number of unrolled steps.
 """
 
 from __future__ import annotations
 
 import dataclasses
 
-import jax
-import jax.numpy as jnp
 import numpy as np
 
 from ..core import _validate
 from ..core import quaternion as qt
 from ..core.conventions import point_to_quaternion
-from .base import gauss_newton
-from .quaternionic import CONSTRAINT_TOL, UNIT_TOL, ADHMData, constraint_matrix
+from .base import solve_quaternionic_constraint
+from .quaternionic import CONSTRAINT_TOL, UNIT_TOL, ADHMData
 
 __all__ = ["bpst", "multi_instanton", "random_adhm", "embed_sp", "block_sum", "solve_constraint_unrolled"]
 
@@ -110,73 +110,14 @@ def bpst(center=(0.0, 0.0, 0.0, 0.0), size: float = 1.0, orientation=(1.0, 0.0, 
     return ADHMData(lam, b)
 
 
-def _offdiag_index(k: int):
-    return [(i, j) for i in range(k) for j in range(i + 1, k)]
-
-
-def _assemble_b(diag: np.ndarray, off: np.ndarray, k: int) -> np.ndarray:
-    b = np.zeros((k, k, 4))
-    b[np.arange(k), np.arange(k)] = diag
-    for m, (i, j) in enumerate(_offdiag_index(k)):
-        b[i, j] = b[j, i] = off[m]
-    return b
-
-
-def _constraint_vector(lam, b, pairs):
-    c = np.asarray(constraint_matrix(lam, b))
-    return np.concatenate([c[i, j, 1:] for (i, j) in pairs]) if pairs else np.zeros(0)
-
-
-def _solve_offdiagonal(lam: np.ndarray, diag: np.ndarray, *, tol: float, max_iter: int = _SOLVER_STEPS):
-    """Solve Im(Lambda^dag Lambda + B^dag B)_{i<j} = 0 for the off-diagonal quaternions of B.
-
-    Gauss-Newton with minimum-norm steps (numpy lstsq) from B_off = 0; the residual is quadratic in
-    B_off, so its Jacobian is the exact linear map E -> Im(B^dag E + E^dag B) on the basis of E.
-    Returns (B, residual, iterations).
-    """
-    k = lam.shape[1]
-    pairs = _offdiag_index(k)
-    m = len(pairs)
-    if m == 0:  # k = 1: no off-diagonal entries and no constraint equations
-        return _assemble_b(diag, np.zeros((0, 4)), k), 0.0, 0
-    off = np.zeros((m, 4))
-    basis = []
-    for p in range(m):
-        for a in range(4):
-            e = np.zeros((m, 4))
-            e[p, a] = 1.0
-            basis.append(_assemble_b(np.zeros((k, 4)), e, k))
-    basis_arr = np.stack(basis)  # (4m, k, k, 4)
-    res = np.inf
-    converged = None  # (B, residual) once within tol; one more step polishes it to rounding level
-    for it in range(max_iter):
-        b = _assemble_b(diag, off, k)
-        r = _constraint_vector(lam, b, pairs)
-        res = float(np.max(np.abs(r))) if r.size else 0.0
-        if converged is not None:
-            return (b, res, it) if res < converged[1] else (converged[0], converged[1], it)
-        if res <= tol:
-            converged = (b, res)
-        bd = np.asarray(qt.qmat_dagger(b))
-        prod = np.asarray(qt.qmat_mul(bd[None], basis_arr))
-        lin = prod + np.asarray(qt.qmat_dagger(prod))
-        jac = np.stack([np.concatenate([lin[c, i, j, 1:] for (i, j) in pairs]) for c in range(4 * m)], axis=1)
-        step, *_ = np.linalg.lstsq(jac, -r, rcond=None)
-        off = off + step.reshape(m, 4)
-        if not np.all(np.isfinite(off)):
-            break
-    if converged is not None:
-        return converged[0], converged[1], max_iter
-    return _assemble_b(diag, off, k), res, max_iter
-
-
 def multi_instanton(centers, sizes, orientations=None, *, rank: int = 1, tol: float = _SOLVE_TOL) -> ADHMData:
     """Exact charge-k Sp(n) ADHM data with given centres, sizes and orientations.
 
     centers: (k, 4) points a_i (the diagonal of B is p(a_i)); sizes: (k,) rho_i > 0 (or one number);
     orientations: None (all 1), (k, 4) unit quaternions, (k, 2, 2) SU(2) matrices, or (k, n, 4)
     quaternionic unit vectors (the directions of the columns of Lambda); rank: n of Sp(n).
-    The 2k(k-1) real off-diagonal entries of B are solved (minimum-norm Gauss-Newton) so that the
+    The 2k(k-1) real off-diagonal entries of B are solved (minimum-norm Gauss-Newton, the one solve
+    of `instantonkit.adhm.base`) so that the
     3k(k-1)/2 real constraint equations hold to ``tol`` (scaled by 1 + max rho^2 + max |a|^2).
 
     Args:
@@ -201,7 +142,8 @@ def multi_instanton(centers, sizes, orientations=None, *, rank: int = 1, tol: fl
     lam = np.swapaxes(u, 0, 1) * r[None, :, None]
     diag = np.asarray(point_to_quaternion(c))
     scale = 1.0 + float(np.max(r) ** 2 + np.max(np.sum(c**2, axis=1)))
-    b, res, it = _solve_offdiagonal(lam, diag, tol=tol * scale)
+    b, res, it = solve_quaternionic_constraint(lam, diag, steps=_SOLVER_STEPS, tol=tol * scale)
+    b, res, it = np.asarray(b), float(res), int(it)
     if not (res <= tol * scale):
         raise ValueError(
             f"could not solve the ADHM constraint for k = {k}: residual {res:.3e} after {it} steps "
@@ -325,9 +267,9 @@ def block_sum(first: ADHMData, second: ADHMData, *, stack_ranks: bool = False, t
 def solve_constraint_unrolled(lam, diag, *, steps: int = UNROLLED_STEPS, start=None):
     """B solving the ADHM constraint for given Lambda and diagonal, by ``steps`` unrolled Gauss-Newton steps in jax.
 
-    The same minimum-norm Gauss-Newton iteration as `multi_instanton` (from ``B_off = 0``, or
-    from ``start`` (m, 4) held constant), written with jax so that jax.jvp / jax.jacfwd / jax.grad
-    differentiate through it.  Each step is ``E <- E - J^T (J J^T)^-1 r(E)`` with r the imaginary
+    The solve of `multi_instanton` (`instantonkit.adhm.base.solve_quaternionic_constraint`, from
+    ``B_off = 0``, or from ``start`` (m, 4) held constant) run for a fixed number of steps, so that
+    jax.jvp / jax.jacfwd / jax.grad differentiate through it.  Each step is ``E <- E - J^T (J J^T)^-1 r(E)`` with r the imaginary
     parts of (Lambda^dag Lambda + B^dag B)_{i<j} and J = dr/dE (exact, r is quadratic in E).
 
     Why unrolled steps give the right derivative: at a converged iterate r = 0, and the derivative of
@@ -340,29 +282,4 @@ def solve_constraint_unrolled(lam, diag, *, steps: int = UNROLLED_STEPS, start=N
 
     lam: (n, k, 4); diag: (k, 4) quaternions of the diagonal of B -> B: (k, k, 4) symmetric (jax).
     """
-    lam = jnp.asarray(lam)
-    diag = jnp.asarray(diag)
-    k = diag.shape[0]
-    pairs = _offdiag_index(k)
-    m = len(pairs)
-    rows = np.array([i for i, _ in pairs], dtype=int)
-    cols = np.array([j for _, j in pairs], dtype=int)
-    base = jnp.zeros((k, k, 4)).at[np.arange(k), np.arange(k)].set(diag)
-
-    def assemble(off):
-        if m == 0:
-            return base
-        return base.at[rows, cols].set(off).at[cols, rows].set(off)
-
-    if m == 0:
-        return base
-
-    def resid(off):
-        c = qt.qmat_mul(qt.qmat_dagger(lam), lam) + qt.qmat_mul(qt.qmat_dagger(assemble(off)), assemble(off))
-        return c[rows, cols, 1:].reshape(-1)
-
-    off = jnp.zeros((m, 4)) if start is None else jax.lax.stop_gradient(jnp.asarray(start))
-    # the one Gauss-Newton iteration of both ADHM realisations (a fori_loop: the traced graph, and the
-    # compile time, stay one step long; jvp/jacfwd go through it)
-    flat, _, _ = gauss_newton(lambda v: resid(v.reshape(m, 4)), off.reshape(-1), steps=int(steps))
-    return assemble(flat.reshape(m, 4))
+    return solve_quaternionic_constraint(lam, diag, steps=int(steps), start=start)[0]

@@ -1,7 +1,7 @@
-"""What the exact-moduli fits share (floor 0): padded samples, the best-of-trials driver, the result record.
+"""What the exact-moduli fit builds on (floor 0): padded samples, the best-of-trials driver, the result record.
 
-Used by `instantonkit.fit.moduli_fit` (SU(2) ADHM data) and `instantonkit.fit.unitary_fit` (SU(N)
-data); each keeps its own parametrisation, residuals and least-squares options.
+Used by the one driver of `instantonkit.fit.exact_fit` for both ADHM realisations (the per-realisation
+parametrisations live there too).
 """
 
 from __future__ import annotations
@@ -18,7 +18,10 @@ __all__ = ["ModuliFit", "padded_samples", "best_of_trials"]
 
 @dataclasses.dataclass(frozen=True)
 class ModuliFit:
-    """The fields every exact-moduli fit reports (the subclasses document their shapes)."""
+    """The fields every exact-moduli fit reports (the subclasses document their shapes).
+
+    null: directions of the parameters the density does not see, dropped from the covariance.
+    """
 
     data: Any
     centers: np.ndarray
@@ -31,6 +34,7 @@ class ModuliFit:
     success: bool
     message: str
     condition: float
+    null: int = 0
 
 
 def padded_samples(pts, s, w, smax: float):

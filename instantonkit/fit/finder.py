@@ -13,13 +13,13 @@ sizes with trivial orientations.
 
 Exact model (``model="exact"``, the default): starting from the superposition fit, the exact SU(2)
 ADHM data (centres, sizes and relative orientations: all 8k - 3 gauge-invariant moduli) are fitted by
-`instantonkit.fit.moduli_fit` to the samples above ``_EXACT_FLOOR`` of the peak (at most
+`instantonkit.fit.exact_fit` (`fit_exact`) to the samples above ``_EXACT_FLOOR`` of the peak (at most
 ``_EXACT_MAX``, the largest); ``data`` is then the fitted ``ADHMData``.  Sp(n > 1) data are not fitted (SU(2) only).
 
 SU(N > 2) (``rank=N``, genuine complex ADHM data).  ``model="exact"`` (the default): starting from the
 superposition fit, exact SU(N) data of well-separated instantons (the construction of
-`instantonkit.adhm.unitary_moduli.unitary_multi_instanton`) are fitted by `instantonkit.fit.unitary_fit`
-to the same samples as for SU(2): centres, sizes and, as nuisance parameters, one relative SU(N)
+`instantonkit.adhm.unitary_moduli.unitary_multi_instanton`) are fitted by `instantonkit.fit.exact_fit`
+(`fit_unitary`) to the same samples as for SU(2): centres, sizes and, as nuisance parameters, one relative SU(N)
 rotation per instanton (the first fixed: the global rotation is gauge; stabiliser directions removed).
 ``data`` = the fitted ``UnitaryADHMData``; ``orientations`` = the fitted representative (k, N, N), which
 is determined only up to gauge and stabilisers (said in ``notes``); systematic = 0 for continuum SU(N)
@@ -52,7 +52,7 @@ from ..core import _validate
 from ..core.conventions import INSTANTON_ACTION
 from ..engine.fields import action_density, as_points
 from ..engine.transforms import PARITY
-from .moduli_fit import fit_exact
+from .exact_fit import fit_exact, fit_unitary
 from .peaks import count_peaks, count_signed_peaks, sample_spacing
 from .results import InstantonFit, MixedFit
 from .superposition import (
@@ -65,7 +65,6 @@ from .superposition import (
     _quad,
     superposition_density,
 )
-from .unitary_fit import fit_unitary
 
 __all__ = [
     "InstantonFit",

@@ -176,7 +176,7 @@ def find_lattice_instantons(
     links, or an SU(2) field embedded in SU(N)) fits SU(2) with model 'exact' by default; r > 2 fits
     SU(r) with model 'superposition' by default (centres and sizes: the clover densities' O((a / rho)^2)
     artefacts exceed the superposition's model error, and the exact SU(r) fit of
-    `instantonkit.fit.unitary_fit`, model='exact', costs 20-50 s on its first call).  The fit's
+    `instantonkit.fit.exact_fit`, model='exact', costs 20-50 s on its first call).  The fit's
     ``notes`` say what was inferred.
 
     Args:
