@@ -61,6 +61,7 @@ __all__ = [
 #: Extra keyword arguments for ``--smoke``, per module, used only where ``run`` accepts them.
 SMOKE = {
     "bench_fields": {"points": 1024, "ks": (1,), "ranks": (1,)},
+    "bench_calorons": {"points": 1024},
     "bench_limits": {"parts": ("densities",), "points": 4096},
     "bench_cluster": {"parts": ("scaling",), "scaling_size": 4},
     "bench_smoothing": {"size": 4, "parts": ("timing",), "groups": ("su2",)},

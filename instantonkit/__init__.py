@@ -50,6 +50,7 @@ from .verification.checks import (
     total_charge,
     verify,
 )
+from .verification.constituents import ball_fractions
 
 __version__ = "0.1.0"
 
@@ -83,6 +84,7 @@ __all__ = [
     "lattice_polyakov_loop",
     "polyakov_average",
     "polyakov_phases",
+    "ball_fractions",
     "save_lattice",
     "load_lattice",
     "check_links",

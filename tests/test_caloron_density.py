@@ -264,3 +264,16 @@ def test_sun_potential_says_what_is_missing():
 def test_ball_fractions_refuse_fields_without_constituents():
     with pytest.raises(ValueError, match="constituents"):
         ball_fractions(ik.bpst_field())
+
+
+@pytest.mark.slow  # the SU(3) kernels of verify: tens of seconds on shared cores
+def test_verify_of_a_densities_only_field_is_inconclusive_naming_the_missing_potential():
+    v = ik.verify(ik.caloron(0.6, 1.0, holonomy=(-1 / 3, 0.0, 1 / 3)))
+    assert v.verdict == "INCONCLUSIVE" and abs(v.charge.value - 1.0) < 1e-6
+    assert any("no potential" in r and "Nahm" in r for r in v.reasons)
+
+
+@pytest.mark.parametrize("kwargs, word", [({"radius": -1.0}, "radii"), ({"n_radial": 0}, "n_radial")])
+def test_ball_fractions_refuse_bad_rules(kwargs, word):
+    with pytest.raises(ValueError, match=word):
+        ball_fractions(ik.caloron(2.0, 1.0, holonomy=0.2), **kwargs)

@@ -6,6 +6,7 @@ import pytest
 
 import instantonkit as ik
 from instantonkit.ansatz.calorons import CaloronField, HolonomyCaloronField
+from instantonkit.core._config import lean_compiler_options
 from instantonkit.engine.fields import action_from_f, field_strength_from_potential, residual_from_f
 from instantonkit.lattice import polyakov as pl
 from instantonkit.lattice.references import field_from_record
@@ -20,7 +21,10 @@ def _kvb(omega, axis=AXIS):
 
 
 #: F of a field by autodiff of its potential; the field is an argument, so one compilation serves every omega.
-_F = jax.jit(lambda field, x: field_strength_from_potential(field.potential)(x))
+#: XLA's lean options (as the engine's derivative kernels): the first call several times shorter.
+_F = jax.jit(
+    lambda field, x: field_strength_from_potential(field.potential)(x), compiler_options=lean_compiler_options()
+)
 
 
 def _autodiff_s(field, pts):
