@@ -127,6 +127,17 @@ def test_zero_holonomy_closed_form_equals_harrington_shepard():
     np.testing.assert_allclose(_s(field, pts), want, rtol=1e-10)
 
 
+def test_small_caloron_approaches_the_bpst_density():
+    # rho << beta: near its core the caloron is a BPST instanton, s = 48 rho^4 / (x^2 + rho^2)^4 (Belavin,
+    # Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85; Kraan, van Baal 1998; from memory), up to
+    # corrections of order (rho / beta)^2.
+    rho, beta = 0.02, 1.0
+    field = HolonomyCaloronField(rho, beta, 0.25, np.zeros(4), AXIS)
+    y = rho * np.random.default_rng(7).normal(size=(6, 4))
+    want = 48 * rho**4 / (np.sum(y**2, axis=1) + rho**2) ** 4
+    np.testing.assert_allclose(_s(field, y), want, rtol=1e-2)
+
+
 def test_charge_density_is_action_density_over_eight_pi_squared():
     field = _kvb(0.3)
     s, q = _sq(field, _points(3, seed=5))
