@@ -288,3 +288,30 @@ def test_verify_of_a_densities_only_field_is_inconclusive_naming_the_missing_pot
 def test_ball_fractions_refuse_bad_rules(kwargs, word):
     with pytest.raises(ValueError, match=word):
         ball_fractions(ik.caloron(2.0, 1.0, holonomy=0.2), **kwargs)
+
+
+# -- the charge as a flux --------------------------------------------------------------------------
+
+
+def test_flux_through_a_sphere_equals_the_volume_integral_inside():
+    # Gauss: int_{B x S^1} s = -1/2 oint n . grad box log psi (s = -1/2 box box log psi, Kraan, van Baal
+    # 1998, from memory); the ball rule of ball_fractions as the volume side.
+    field = _kvb(0.25)
+    pos, nu = field.constituents()
+    volume, _ = ball_fractions(field, radius=0.9)
+    flux = cp.flux_charge(pos[:, :3], nu, BETA, pos[0], 0.9)
+    assert flux == pytest.approx(volume[0], abs=1e-12)
+
+
+@pytest.mark.parametrize("mu", [(-0.25, 0.25), (-0.3, 0.1, 0.2)], ids=["su2", "su3"])
+def test_flux_charge_tends_to_one_with_a_dipole_tail(mu):
+    # Far away log psi ~ sum_m 2 pi nu_m r_m / beta, so the flux at infinity is sum nu_m = 1; the
+    # constituents' magnetic charges add to zero (Kraan, van Baal, Nucl. Phys. B 533 (1998) 627, from
+    # memory), so what lies outside radius R falls like R^-3 (about the nu-weighted centre) and two radii
+    # extrapolate to Q.
+    field = ik.caloron(0.9, BETA, holonomy=mu)
+    pos, nu = field.constituents()
+    centre = nu @ pos[:, :3]
+    q1, q2 = (cp.flux_charge(pos[:, :3], nu, BETA, centre, r) for r in (100.0, 200.0))
+    assert (1 - q2) * 200**3 == pytest.approx((1 - q1) * 100**3, rel=1e-3)
+    assert abs(q2 + (q2 - q1) / 7.0 - 1.0) < 1e-10
