@@ -10,6 +10,7 @@ from instantonkit.ansatz import caloron_psi as cp
 from instantonkit.ansatz.calorons import CaloronField, HolonomyCaloronField
 from instantonkit.ansatz.calorons_sun import SUNCaloronField
 from instantonkit.engine import fields
+from instantonkit.integrals.drivers import ENGINE_CHUNK
 from instantonkit.lattice.references import field_from_record
 from instantonkit.verification.constituents import ball_fractions
 
@@ -23,19 +24,20 @@ def _kvb(omega):
     return HolonomyCaloronField(RHO, BETA, omega, CENTER, AXIS)
 
 
-#: s and q of a field at 8 points, compiled once per field structure (the field is an argument).
-_SQ = jax.jit(lambda field, p: (field.density_batch(p, "action_density"), field.density_batch(p, "charge_density")))
-
-
 def _sq(field, pts):
+    """s and q on a few points, padded to one engine chunk: the kernels that total_charge and
+    ball_fractions compile anyway (one compilation per quantity and field structure)."""
     pts = np.asarray(pts, dtype=np.float64)
-    padded = np.concatenate([pts, np.repeat(pts[:1], 8 - len(pts), axis=0)])
-    s, q = _SQ(field, padded)
-    return np.asarray(s)[: len(pts)], np.asarray(q)[: len(pts)]
+    padded = np.concatenate([pts, np.repeat(pts[:1], ENGINE_CHUNK - len(pts), axis=0)])
+    s = fields.evaluate(field, padded, "action_density", chunk_size=ENGINE_CHUNK)[: len(pts)]
+    q = fields.evaluate(field, padded, "charge_density", chunk_size=ENGINE_CHUNK)[: len(pts)]
+    return s, q
 
 
 def _s(field, pts):
-    return _sq(field, pts)[0]
+    pts = np.asarray(pts, dtype=np.float64)
+    padded = np.concatenate([pts, np.repeat(pts[:1], ENGINE_CHUNK - len(pts), axis=0)])
+    return fields.evaluate(field, padded, "action_density", chunk_size=ENGINE_CHUNK)[: len(pts)]
 
 
 def _points(n, seed=0, spread=1.0):
@@ -144,13 +146,30 @@ def test_charge_density_is_action_density_over_eight_pi_squared():
     np.testing.assert_allclose(q, s / (8 * np.pi**2), rtol=1e-14)
 
 
-def test_sun_field_of_two_eigenphases_equals_the_su2_caloron():
+def test_psi_of_two_constituents_equals_the_su2_closed_form_psi():
+    # 1/2 tr(B_2 B_1) - cos against the SU(2) caloron's own psi (c1 c2 + (r1^2 + r2^2 + d^2)/(2 r1 r2) s1 s2
+    # + d (s1 c2 / r1 + s2 c1 / r2) - cos, Kraan, van Baal 1998, from memory), a separate code path.
     field = _kvb(0.3)
-    pos, _ = field.constituents()
+    pos, nu = field.constituents()
+    pts = _points(6, seed=6, spread=2.0)
+    got = np.asarray(cp.log_psi(pts - [0, 0, 0, CENTER[3]], pos[:, :3], nu, BETA))
+    k = 2 * np.pi * nu / BETA
+    psi = jax.jit(field.psi)
+    want = []
+    for p in pts:
+        r = np.linalg.norm(p[:3] - pos[:, :3], axis=1)
+        scale = np.prod(np.where(k * r >= 1.0, np.exp(-k * r), 1.0))  # the scale of field.psi
+        want.append(np.log(float(psi(p))) - np.log(scale))
+    np.testing.assert_allclose(got, want, rtol=1e-13)
+
+
+def test_sun_field_of_two_eigenphases_has_the_su2_constituents():
+    field = _kvb(0.3)
+    pos, nu = field.constituents()
     two = SUNCaloronField(BETA, [-0.3, 0.3], pos[:, :3], CENTER[3])
-    pts = _points(3, seed=6)
-    got = np.asarray(two.density_batch(jax.numpy.asarray(pts), "action_density"))  # eager: no compilation
-    np.testing.assert_allclose(got, _s(field, pts), rtol=1e-12)
+    got_pos, got_nu = two.constituents()
+    np.testing.assert_allclose(got_pos, pos, atol=1e-15)
+    np.testing.assert_allclose(got_nu, nu, rtol=1e-15)
 
 
 def test_caloron_with_two_eigenphases_and_positions_is_the_su2_field():
@@ -214,7 +233,7 @@ def test_su3_ball_fractions_approach_nu():
     np.testing.assert_allclose(far, want, atol=8e-3)
 
 
-@pytest.mark.slow  # verify compiles the autodiff curvature kernels (about a minute on shared cores)
+@pytest.mark.long  # verify compiles the autodiff curvature kernels (about a minute on shared cores)
 def test_verify_passes_at_1e_10_and_shows_holonomy_and_fractions_as_inputs():
     v = ik.verify(_kvb(0.1), charge_tol=1e-10)
     assert v.passed and abs(v.charge.value - 1.0) < 1e-10
@@ -277,7 +296,7 @@ def test_ball_fractions_refuse_fields_without_constituents():
         ball_fractions(ik.bpst_field())
 
 
-@pytest.mark.slow  # the SU(3) kernels of verify: tens of seconds on shared cores
+@pytest.mark.long  # the SU(3) kernels of verify: about half a minute on shared cores
 def test_verify_of_a_densities_only_field_is_inconclusive_naming_the_missing_potential():
     v = ik.verify(ik.caloron(0.6, 1.0, holonomy=(-1 / 3, 0.0, 1 / 3)))
     assert v.verdict == "INCONCLUSIVE" and abs(v.charge.value - 1.0) < 1e-6

@@ -251,16 +251,11 @@ def caloron_action_density(points, positions, fractions, period):
 
 def log_psi(points, positions, fractions, period):
     """log psi (unscaled: log of the scaled psi minus log sigma) at a batch of points; (m, 4) -> (m,)."""
-    pts = jnp.asarray(points)
-    y = jnp.asarray(positions)
-    nu = jnp.asarray(fractions)
-    n = y.shape[0]
-    ks = [2.0 * np.pi * nu[m] / period for m in range(n)]
-    zs = [jnp.sum((pts[:, :3] - y[m]) ** 2, axis=-1) for m in range(n)]
-    dists = [jnp.sqrt(jnp.sum((y[(m + 1) % n] - y[m]) ** 2)) for m in range(n)]
+    pts, n, ks, zs, _, dists = _geometry(points, positions, fractions, period)
     part, sig = psi_partials(zs, ks, dists, order=0)
-    psi = part[(0,) * n] - jnp.cos(2.0 * np.pi * pts[:, 3] / period) * sig
-    return jnp.log(psi) - jnp.log(sig)
+    zero = (0,) * n
+    psi = part[zero] - jnp.cos(2.0 * np.pi * pts[:, 3] / period) * sig[zero]
+    return jnp.log(psi) - jnp.log(sig[zero])
 
 
 def box_log_psi_gradient(points, positions, fractions, period):
