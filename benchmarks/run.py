@@ -62,6 +62,7 @@ __all__ = [
 SMOKE = {
     "bench_geometry": {"k_algebraic": 2, "k_integral": 1, "rtol": 1e-4},
     "bench_fields": {"points": 1024, "ks": (1,), "ranks": (1,)},
+    "bench_calorons": {"points": 1024},
     "bench_limits": {"parts": ("densities",), "points": 4096},
     "bench_cluster": {"parts": ("scaling",), "scaling_size": 4},
     "bench_smoothing": {"size": 4, "parts": ("timing",), "groups": ("su2",)},

@@ -74,6 +74,7 @@ from .verification.checks import (
     total_charge,
     verify,
 )
+from .verification.constituents import ball_fractions
 
 __version__ = "0.1.0"
 
@@ -108,6 +109,7 @@ __all__ = [
     "polyakov_average",
     "polyakov_phases",
     "thermal_spacings",
+    "ball_fractions",
     "save_lattice",
     "load_lattice",
     "check_links",

@@ -2,7 +2,9 @@
 
 Modules (floor 4 of the package; the floors inside are in DEVELOPERS.md):
 
-* ``calorons``: Calorons: instantons on R^3 x S^1; so far the Harrington-Shepard caloron (trivial holonomy).
+* ``caloron_psi``: Kraan-van Baal's psi of a charge-1 SU(N) caloron and s = -1/2 box box log psi in closed form.
+* ``calorons``: Calorons: instantons on R^3 x S^1: Harrington-Shepard and Kraan-van Baal (SU(2), any holonomy).
+* ``calorons_sun``: SU(N) calorons of charge 1 (Kraan-van Baal): N constituent monopoles, densities in closed form.
 * ``classic``: Classic instanton ansaetze as fields: 't Hooft, Jackiw-Nohl-Rebbi, Harrington-Shepard, BPST.
 * ``mixtures``: Instantons and anti-instantons in the sum ansatz (R^4 and the torus), random ensembles, the ratio ansatz.
 * ``mixture_totals``: The integrated action and charge of a mixture with error bars, beside its count n+ - n-.

@@ -18,6 +18,7 @@ import numpy as np
 from ..core import _validate
 from ..core._pytree import PytreeFields
 from ..core.conventions import PI
+from .caloron_psi import caloron_action_density
 from .scalar import _ETA_BAR, _UNITS_C, _positive_scalar, _ScalarAnsatz
 
 #: Parameters as arrays (numpy, or jax tracers under jit/grad).
@@ -312,8 +313,8 @@ class HolonomyCaloronField(PytreeFields):
     def psi_action_density(self, x):
         """s = -1/2 box box log psi at one point (4,) -> () (Kraan, van Baal 1998, from memory; autodiff of psi).
 
-        Not an engine hook: four derivatives of psi compile slowly, so the engine differentiates the potential;
-        this is the independent route the tests compare it with.
+        Not an engine hook: four derivatives of psi by autodiff compile for minutes; the engine uses the
+        closed form of `density_batch`.
         """
         y = self._local(x)
         args = self._args()
@@ -323,6 +324,38 @@ class HolonomyCaloronField(PytreeFields):
 
         log_psi = lambda v: jnp.log(_kvb_parts(v, *args)[0])  # noqa: E731
         return -0.5 * lap(lap(log_psi))(y)
+
+    def _psi_geometry(self):
+        """(positions (2, 3), fractions (2,)) as jax arrays (traceable): the constituents' data for psi."""
+        d = PI * jnp.asarray(self.size) ** 2 / jnp.asarray(self.period)
+        nu1 = 2.0 * jnp.asarray(self.holonomy)
+        n = jnp.asarray(self.axis)
+        c = jnp.asarray(self.center)[:3]
+        return jnp.stack([c - (1.0 - nu1) * d * n, c + nu1 * d * n]), jnp.stack([nu1, 1.0 - nu1])
+
+    def density_batch(self, points, quantity: str):
+        """Field hook: closed-form s = -1/2 box box log psi (or q = s / 8 pi^2) at a batch; (m, 4) -> (m,).
+
+        Kraan, van Baal, Nucl. Phys. B 533 (1998) 627 (from memory); the derivatives of log psi in closed
+        form (`instantonkit.ansatz.caloron_psi`).  Self-dual, so q = s / (8 pi^2) (conventions module).
+        """
+        pos, frac = self._psi_geometry()
+        pts = jnp.asarray(points) - jnp.concatenate([jnp.zeros(3), jnp.asarray(self.center)[3:]])
+        s = caloron_action_density(pts, pos, frac, jnp.asarray(self.period))
+        return s if quantity == "action_density" else s / (8.0 * PI**2)
+
+    def action_density(self, x):
+        """Field hook: s at one point (4,) -> () (closed form, see `density_batch`)."""
+        return self.density_batch(jnp.asarray(x)[None], "action_density")[0]
+
+    def charge_density(self, x):
+        """Field hook: q = s / (8 pi^2) at one point (4,) -> () (self-dual)."""
+        return self.density_batch(jnp.asarray(x)[None], "charge_density")[0]
+
+    def asymptotic_holonomy(self) -> np.ndarray:
+        """Field hook: mu = (-omega, omega), the eigenphases / 2 pi of the Polyakov loop at spatial infinity."""
+        omega = float(self.holonomy)
+        return np.array([-omega, omega])
 
     def constituents(self):
         """(positions (2, 4), action fractions (2,)): the monopoles at c - (1 - 2 omega) d n and c + 2 omega d n."""

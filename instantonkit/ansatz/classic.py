@@ -60,6 +60,7 @@ from ..core import quaternion as qt
 from ..core._pytree import PytreeFields
 from ..core.conventions import PI, point_to_quaternion
 from .calorons import CaloronField, HolonomyCaloronField
+from .calorons_sun import SUNCaloronField, default_positions, fractions_of, holonomy_eigenphases
 from .scalar import (
     _ETA_BAR,
     _UNITS_C,
@@ -83,6 +84,7 @@ __all__ = [
     "thooft",
     "jnr",
     "caloron",
+    "SUNCaloronField",
     "bpst_field",
     "ANSATZ_COUPLING",
 ]
@@ -389,33 +391,71 @@ def jnr(poles, weights) -> JNRField:
 
 
 def caloron(
-    size, period, center=(0.0, 0.0, 0.0, 0.0), holonomy=0.0, axis=(0.0, 0.0, 1.0)
-) -> CaloronField | HolonomyCaloronField:
-    """SU(2) caloron of size rho, period beta in x4 and holonomy omega about ``center``; charge +1 per period.
+    size, period, center=(0.0, 0.0, 0.0, 0.0), holonomy=0.0, axis=(0.0, 0.0, 1.0), positions=None
+) -> CaloronField | HolonomyCaloronField | SUNCaloronField:
+    """Caloron of size rho, period beta in x4 and holonomy about ``center``; charge +1 per period.
 
-    holonomy = 0 (the default) gives the Harrington-Shepard caloron (`CaloronField`, trivial holonomy);
-    0 < omega <= 1/2 the Kraan-van Baal caloron (`HolonomyCaloronField`) with A_4 -> 2 pi omega u_3 / beta
-    at spatial infinity (1/2 tr P -> cos 2 pi omega) and two constituent monopoles of action fractions
-    2 omega and 1 - 2 omega, a distance pi rho^2 / beta apart along ``axis``.
+    SU(2): holonomy = omega, a number.  omega = 0 (the default) gives the Harrington-Shepard caloron
+    (`CaloronField`, trivial holonomy); 0 < omega <= 1/2 the Kraan-van Baal caloron
+    (`HolonomyCaloronField`) with A_4 -> 2 pi omega u_3 / beta at spatial infinity (1/2 tr P -> cos 2 pi
+    omega) and two constituent monopoles of action fractions 2 omega and 1 - 2 omega, a distance
+    pi rho^2 / beta apart along ``axis``.
+    SU(N): holonomy = (mu_1, ..., mu_N), ascending, summing to 0 (P at infinity ~ diag exp(2 pi i mu_m));
+    N constituents of fractions nu_m = mu_{m+1} - mu_m (nu_N = 1 + mu_1 - mu_N) at ``positions``, or on
+    ``axis`` at neighbour distance pi rho^2 / beta with their nu-weighted mean at ``center``.  N = 2 gives
+    the SU(2) field of omega = mu_2; N >= 3 a `SUNCaloronField` (closed-form densities, no potential).
 
     Args:
-      size: rho > 0, a real number.
+      size: rho > 0, a real number (None when ``positions`` are given).
       period: beta > 0, a real number.
-      center: (4,) float64 point c (for omega > 0 the constituents' centre of mass).
-      holonomy: omega in [0, 1/2], a real number.
-      axis: (3,) non-zero vector, the direction from the first constituent to the second (omega > 0).
+      center: (4,) float64 point c (for nonzero holonomy the constituents' centre of mass; its x4 is the
+        caloron's time).
+      holonomy: omega in [0, 1/2], a real number; or mu, a sequence of N >= 2 real numbers.
+      axis: (3,) non-zero vector, the direction from the first constituent to the second.
+      positions: (N, 3) distinct constituent positions (with a sequence holonomy only).
     Returns:
-      CaloronField (omega = 0) or HolonomyCaloronField, a field of N = 2, periodic in x4.
+      CaloronField, HolonomyCaloronField (N = 2) or SUNCaloronField (N >= 3), periodic in x4.
     Raises:
-      ValueError for rho or beta <= 0 or not finite, omega outside [0, 1/2], a centre not of shape (4,) or a
-      zero axis; TypeError for non-real values.
+      ValueError for rho or beta <= 0 or not finite, omega outside [0, 1/2], eigenphases unordered, not
+      summing to 0 or spread beyond 1, a centre not of shape (4,), a zero axis, coincident positions, or
+      both or neither of size and positions; TypeError for non-real values.
     """
-    omega = _validate.finite_float("holonomy", holonomy)
-    if not 0.0 <= omega <= 0.5:
-        raise ValueError(f"holonomy omega must lie in [0, 1/2]; found {omega!r}")
-    if omega == 0.0:
-        return CaloronField(size, period, center)
-    return HolonomyCaloronField(size, period, np.asarray(omega), center, axis)
+    if np.ndim(holonomy) == 0 and positions is None:
+        omega = _validate.finite_float("holonomy", holonomy)
+        if not 0.0 <= omega <= 0.5:
+            raise ValueError(f"holonomy omega must lie in [0, 1/2]; found {omega!r}")
+        if omega == 0.0:
+            return CaloronField(size, period, center)
+        return HolonomyCaloronField(size, period, np.asarray(omega), center, axis)
+    mu = holonomy_eigenphases(np.atleast_1d(holonomy) if np.ndim(holonomy) else [-holonomy, holonomy])
+    beta = float(_validate.positive_float("period", period))
+    c = _validate.point("center", center)
+    if (positions is None) == (size is None):
+        raise ValueError(
+            "give the constituents either by size (on axis, pi rho^2 / beta apart) or by positions, not "
+            f"{'both' if size is not None else 'neither'}; found size = {size!r}, positions = "
+            f"{None if positions is None else np.asarray(positions).tolist()}"
+        )
+    if positions is None:
+        ax = _validate.real_array("axis", axis, (3,))
+        if not np.linalg.norm(ax) > 0:
+            raise ValueError(f"axis must be a non-zero (3,) vector; found {ax.tolist()}")
+        rho = float(_validate.positive_float("size", size))
+        pos = default_positions(mu, rho, beta, c, ax)
+    else:
+        pos = _validate.real_array("positions", positions, (mu.shape[0], 3), shape_text=f"({mu.shape[0]}, 3)")
+    if mu.shape[0] > 2:
+        return SUNCaloronField(np.asarray(beta), mu, pos, c[3])
+    sep = pos[1] - pos[0]
+    dist = float(np.linalg.norm(sep))
+    if not dist > 0:
+        raise ValueError(f"constituent positions must be distinct; found y_1 = y_2 = {pos[0].tolist()}")
+    nu = fractions_of(mu)
+    centre = np.append(nu @ pos, c[3])
+    rho = float(np.sqrt(dist * beta / np.pi))
+    if mu[1] == 0.0:
+        return CaloronField(np.asarray(rho), np.asarray(beta), centre)
+    return HolonomyCaloronField(np.asarray(rho), np.asarray(beta), np.asarray(float(mu[1])), centre, sep)
 
 
 def bpst_field(

@@ -64,7 +64,11 @@ class FieldHooks(Protocol):
       ``charge``: the instanton number the construction gives (int attribute or property);
       ``pole_count() -> (int, str)``: the charge read off the ansatz's poles, with a description;
       ``constraint_residual() -> float``: the residual of the field's defining constraint (ADHM);
-      ``period``: the period in x4 for fields on R^3 x S^1 (float attribute or property).
+      ``period``: the period in x4 for fields on R^3 x S^1 (float attribute or property);
+      ``asymptotic_holonomy() -> (N,)``: mu_1 <= ... <= mu_N (sum 0) with the Polyakov loop at spatial
+      infinity conjugate to diag(exp(2 pi i mu_m)) (calorons);
+      ``constituents() -> (positions (n, 4), fractions (n,))``: the constituent monopoles of a caloron
+      and their action fractions (summing to the charge per period).
     Other routes and kernels:
       ``log_det(x) -> ()``: log det of the ADHM Gram matrix, for Osborn's density s = -1/2 box box log det;
       ``gram(x) -> (k, k)``: the ADHM Gram matrix itself (real symmetric Delta^dag Delta for quaternionic
@@ -108,6 +112,8 @@ class FieldHooks(Protocol):
     def record(self) -> dict: ...
     def density_batch(self, points: Any, quantity: str) -> Any: ...
     def generator_batch(self, points: Any, dirs: Any) -> Any: ...
+    def asymptotic_holonomy(self) -> np.ndarray: ...
+    def constituents(self) -> tuple[np.ndarray, np.ndarray]: ...
 
 
 #: Names of the optional hooks (methods or attributes), documented in `FieldHooks`.

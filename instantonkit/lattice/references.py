@@ -222,6 +222,12 @@ def _mixture_from_record(rec):
     )
 
 
+def _sun_caloron_from_record(rec):
+    period, holonomy, positions, time = _entries(rec, "period", "holonomy", "positions", "time")
+    center = (0.0, 0.0, 0.0, float(time))
+    return caloron(None, float(period), center, holonomy=_floats(holonomy), positions=_floats(positions))
+
+
 def _complex_entry(rec, name):
     (part,) = _entries(rec, name)
     if not isinstance(part, dict) or set(part) != {"re", "im"}:
@@ -274,6 +280,7 @@ RECORD_KINDS = {
     "caloron": _caloron_from_record,
     "holonomy_caloron": _holonomy_caloron_from_record,
     "mixture": _mixture_from_record,
+    "sun_caloron": _sun_caloron_from_record,
     "translated": lambda rec: translate(_inner(rec), _floats(_entries(rec, "shift")[0])),
     "rotated": lambda rec: rotate(_inner(rec), *(_floats(v) for v in _entries(rec, "left", "right"))),
     "dilated": lambda rec: dilate(_inner(rec), float(_entries(rec, "factor")[0])),
@@ -290,8 +297,9 @@ def field_from_record(record: dict, *, window: bool = True):
       record: dict with a 'kind' in RECORD_KINDS ('adhm': Lambda, B, chirality, gauge, tol;
         'unitary_adhm': B1, B2, I, J as {'re', 'im'} lists, gauge, tol; 'bpst': center, size,
         orientation, gauge; 'thooft': centers, sizes; 'jnr': poles, weights; 'caloron': size, period,
-        center; 'holonomy_caloron': size, period, holonomy, axis, center; 'mixture': centres, sizes,
-        orientations, signs and, on the torus, 'torus' (lo, box, taper); 'translated': field, shift; 'rotated': field, left, right; 'dilated': field, factor;
+        center; 'holonomy_caloron': size, period, holonomy, axis, center; 'sun_caloron': period, holonomy
+        (mu), positions, time; 'mixture': centres, sizes, orientations, signs and, on the torus, 'torus'
+        (lo, box, taper); 'translated': field, shift; 'rotated': field, left, right; 'dilated': field, factor;
         'parity': field; 'gauge_transformed': field, g (a gauge function's record, kind in
         GAUGE_KINDS), where 'field' is the wrapped field's record) and optionally 'window' (lo, box,
         width and, when not all, the windowed directions of `TorusWindow`; 'background' as {'re', 'im'}

@@ -38,6 +38,7 @@ HOW_SURFACE = "flux through S^3"
 HOW_INPUT = "input"
 HOW_CONSTRUCTION = "by construction"
 HOW_FLUX = "Osborn flux + exterior"
+HOW_BALLS = "integral over balls"
 
 
 @dataclasses.dataclass(frozen=True)
@@ -190,6 +191,11 @@ def rule_in_words(rule: str) -> str:
 #: What each "how obtained" entry means (printed under the table for the entries that occur).
 _LEGEND = (
     ("integral", "adaptive quadrature of the density (closed form where the field has one)"),
+    (
+        "integral over balls",
+        "product Gauss rule for s over a ball about each constituent (half the distance to the "
+        "nearest other) times one period",
+    ),
     (
         "autodiff of A on the rule",
         "F = dA - dA + [A, A] by automatic differentiation of the potential on the "

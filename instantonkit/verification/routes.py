@@ -18,6 +18,7 @@ from ..integrals.drivers import (
     Layout,
     integrate,
 )
+from .constituents import constituent_rows
 from .evidence import (
     OsbornField,
     surface_winding,
@@ -54,6 +55,7 @@ def _inputs(field, case: _Case, constraint_tol: float) -> None:
         case.routes.append(
             Route(text, float(count), None, False, None, "the number of poles given as input", HOW_INPUT)
         )
+    case.rows.extend(constituent_rows(field))
 
 
 def _only_potential(field) -> bool:

@@ -205,6 +205,9 @@ def _curvature_findings(case: _Case, field, charge, action, rule, charge_method:
     try:
         case.sample = s = curvature_sample(field, rule.points, rule.weights, case.sign)
     except FieldEvaluationError as err:
+        if isinstance(err.__cause__, NotImplementedError):  # a densities-only field: nothing to differentiate
+            case.doubts.append(f"self-duality unchecked: the field offers no potential ({err.__cause__})")
+            return
         case.failures.append(str(err))
         return
     peak = case.peak
