@@ -47,28 +47,41 @@ def _retrace(d, mu, nu, m, n):
     return size - jnp.real(jnp.sum(left * jnp.conj(right), axis=(-2, -1)))
 
 
-@functools.partial(jax.jit, static_argnames=("pairs", "margin"))
+@functools.partial(jax.jit, static_argnames=("mu", "e"))
+def _long_jit(u, mu: int, e: int):
+    return _long(u, mu, e)
+
+
+def _longs_jit(u, extents):
+    """`_longs` with one small compiled kernel per (direction, extent) (XLA compiles small graphs much faster)."""
+    return {e: [_long_jit(u, mu, e) for mu in range(4)] for e in extents}
+
+
+@functools.partial(jax.jit, static_argnames=("m", "n", "margin"))
+def _pair_traces(dm, dn, m: int, n: int, margin: int):
+    """(12, L1, L2, L3, L4 - 2 margin): N - Re tr W^{m x n}_{mu nu} per ordered plane (dm, dn: long links)."""
+    d = {m: dm, n: dn}
+    done: dict = {}
+    planes = []
+    for mu, nu in ORDERED_PLANES:
+        if m == n and (nu, mu) in done:
+            planes.append(done[(nu, mu)])
+            continue
+        t = _retrace(d, mu, nu, m, n)
+        done[(mu, nu)] = t
+        planes.append(t)
+    res = jnp.stack(planes)
+    return res[..., margin : res.shape[-1] - margin] if margin else res
+
+
 def loop_traces(u, pairs: tuple, margin: int = 0):
     """N - Re tr W^{m x n}_{mu nu}(x) for each (m, n) of ``pairs`` and ordered plane; (len(pairs), 12, L1, L2, L3, L4 - 2 margin).
 
     ``margin`` time slices are dropped at both ends of x4 (a slab's halo).  A square is computed once
-    per unordered plane (its reverse has the same trace).
+    per unordered plane (its reverse has the same trace).  Traceable (flows call it inside their jit).
     """
-    d = _longs(u, _extents(pairs))
-    out = []
-    for m, n in pairs:
-        done: dict = {}
-        planes = []
-        for mu, nu in ORDERED_PLANES:
-            if m == n and (nu, mu) in done:
-                planes.append(done[(nu, mu)])
-                continue
-            t = _retrace(d, mu, nu, m, n)
-            done[(mu, nu)] = t
-            planes.append(t)
-        out.append(jnp.stack(planes))
-    res = jnp.stack(out)
-    return res[..., margin : res.shape[-1] - margin] if margin else res
+    d = _longs_jit(u, _extents(pairs))
+    return jnp.stack([_pair_traces(d[m], d[n], m, n, margin) for m, n in pairs])
 
 
 def _clover_leaves(d, mu, nu, m, n):
@@ -105,27 +118,38 @@ def _charge_of(f):
     return 8.0 * CHARGE_DENSITY_FACTOR * (_retr(f[0], f[5]) - _retr(f[1], f[4]) + _retr(f[2], f[3]))
 
 
-@functools.partial(jax.jit, static_argnames=("pairs", "combine", "margin"))
+@functools.partial(jax.jit, static_argnames=("m", "n", "margin"))
+def _pair_fields_jit(dm, dn, area, m: int, n: int, margin: int):
+    """`_pair_fields` stacked, (6, L1, L2, L3, T, N, N), with ``margin`` time slices dropped at both ends."""
+    f = jnp.stack(_pair_fields({m: dm, n: dn}, m, n, area))
+    return f[:, :, :, :, margin : f.shape[4] - margin] if margin else f
+
+
+@jax.jit
+def _charge_jit(f):
+    return _charge_of([f[p] for p in range(6)])
+
+
 def field_and_charge(u, pairs: tuple, coeffs, area, combine: str, margin: int = 0):
     """The improved field strength F = sum_i c_i F^{(m_i, n_i)} and the charge density q per site.
 
     combine 'field': q from F (Bilson-Thompson, Leinweber, Williams 2003, from memory); 'density':
     q = sum_i c_i q[F^{(m_i, n_i)}] (de Forcrand, Garcia Perez, Stamatescu, Nucl. Phys. B 499 (1997) 409,
-    from memory).  coeffs: (len(pairs),) float; area: (6,) float (a_mu a_nu per plane).
-    Returns (F: (6, L1, L2, L3, T, N, N), q: (L1, L2, L3, T)), T = L4 - 2 margin.
+    from memory).  coeffs: (len(pairs),) float; area: (6,) float (a_mu a_nu per plane).  One compiled
+    kernel per loop pair.  Returns (F: (6, L1, L2, L3, T, N, N), q: (L1, L2, L3, T)), T = L4 - 2 margin.
     """
-    d = _longs(u, _extents(pairs))
-    fields = [_pair_fields(d, m, n, area) for m, n in pairs]
-    total = [sum(coeffs[i] * f[p] for i, f in enumerate(fields)) for p in range(6)]
+    d = _longs_jit(u, _extents(pairs))
+    total = None
+    q = None
+    for i, (m, n) in enumerate(pairs):
+        f = _pair_fields_jit(d[m], d[n], area, m, n, margin)
+        if combine == "density":
+            qi = coeffs[i] * _charge_jit(f)
+            q = qi if q is None else q + qi
+        total = coeffs[i] * f if total is None else total + coeffs[i] * f
     if combine == "field":
-        q = _charge_of(total)
-    else:
-        q = sum(coeffs[i] * _charge_of(f) for i, f in enumerate(fields))
-    fs = jnp.stack(total)
-    if margin:
-        fs = fs[:, :, :, :, margin : fs.shape[4] - margin]
-        q = q[..., margin : q.shape[-1] - margin]
-    return fs, q
+        q = _charge_jit(total)
+    return total, q
 
 
 # -- staples (the force and cooling of an action made of rectangles) ------------------------------------------

@@ -164,11 +164,11 @@ def region_integrals(field, boxes, *, scale: float, nodes: int = 6, thin: int = 
         s, q = evaluate_many(field, pts.reshape(-1, 4), ("action_density", "charge_density"))
         dens[k0 : k0 + x4.size] = np.stack([s, q], axis=-1).reshape(x4.size, g.shape[0], 2)
     dens = dens.reshape(rules[3][0].size, rules[0][0].size, rules[1][0].size, rules[2][0].size, 2)
-    out = np.empty((len(bx), 2))
-    for i, (lo, hi) in enumerate(bx):
-        w = [np.where((rules[d][0] > lo[d]) & (rules[d][0] < hi[d]), rules[d][1], 0.0) for d in range(4)]
-        out[i] = np.einsum("labcq,a,b,c,l->q", dens, w[0], w[1], w[2], w[3])
-    return out
+    w = [
+        np.stack([np.where((rules[d][0] > lo[d]) & (rules[d][0] < hi[d]), rules[d][1], 0.0) for lo, hi in bx])
+        for d in range(4)
+    ]
+    return np.einsum("labcq,ia,ib,ic,il->iq", dens, w[0], w[1], w[2], w[3], optimize=True)
 
 
 def _entry(item):
