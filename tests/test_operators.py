@@ -190,7 +190,7 @@ def test_operator_force_is_minus_the_lie_derivative_of_its_action(rough):
     assert fd == pytest.approx(2.0 * np.real(np.trace(x @ z[site + (mu,)])), rel=1e-6, abs=1e-9)
 
 
-@pytest.mark.slow
+@pytest.mark.long
 def test_wilson_preset_flow_is_the_wilson_flow(rough):
     a, ra = sm.gradient_flow(rough, 0.06, 0.02)
     b, rb = sm.gradient_flow(rough, 0.06, 0.02, action="wilson")
@@ -199,7 +199,7 @@ def test_wilson_preset_flow_is_the_wilson_flow(rough):
     assert rb.operator == "wilson" and np.isnan(rb.eps)
 
 
-@pytest.mark.slow
+@pytest.mark.long
 def test_eps0_preset_cooling_is_the_eps0_cooling(rough):
     # both sweeps use the 8 colours (n_mu mod 2, sum_{nu != mu} n_nu mod 4), so the same updates in the same order
     a, ra = sm.cool(rough, 2, eps=0.0)
