@@ -128,6 +128,12 @@ def test_clover_preset_is_the_clover_field_strength_and_charge(rough):
     assert ops.operator_charge(rough, "clover") == pytest.approx(lat.clover_charge(rough), rel=1e-12, abs=1e-13)
 
 
+def test_two_by_two_operator_is_the_two_by_two_loop_charge_over_16(rough):
+    # loop_clover_charge(size=2) is in lattice units (-> 2^4 Q); the operator's 2x2 clover is divided by its area
+    q = ops.operator_charge(rough, ops.loop_operator({(2, 2): 1}))
+    assert 16.0 * q == pytest.approx(sm.loop_clover_charge(rough, 2), rel=1e-12, abs=1e-13)
+
+
 def test_eps0_density_charge_is_the_improved_charge(open_start):
     u = open_start
     q = ops.operator_charge_density(u, "eps0", boundary="open")

@@ -33,7 +33,7 @@ import numpy as np
 
 from ..core import _validate as _v
 from ..core._atomic import atomic_write
-from ..engine.fields import evaluate_many, hook
+from ..engine.fields import evaluate, evaluate_many, hook
 from .operators import LoopOperator, get_operator, operator_action, operator_charge
 from .rectangles import ORDERED_PLANES
 from .starts import default_origin, lattice_links
@@ -49,7 +49,18 @@ DEFAULT_SCAN_OPERATORS = (
     ("5loop", "charge"),
 )
 #: Columns of a scan table, in order.
-SCAN_COLUMNS = ("operator", "quantity", "rho_over_a", "a_over_rho", "shape", "value", "continuum", "ratio")
+SCAN_COLUMNS = (
+    "operator",
+    "quantity",
+    "rho_over_a",
+    "a_over_rho",
+    "shape",
+    "value",
+    "continuum",
+    "ratio",
+    "sampled",
+    "sampled_ratio",
+)
 _QUANTITIES = ("action", "charge")
 
 
@@ -57,8 +68,9 @@ _QUANTITIES = ("action", "charge")
 class ScanTable:
     """Rows of a scan (one dict per operator and rho/a, keys `SCAN_COLUMNS`) and the fits.
 
-    fits: {(operator, quantity): {'a2': A, 'a4': B}} of ratio = 1 + A (a/rho)^2 + B (a/rho)^4 (least
-    squares; NaN with fewer than two rho/a, solved exactly with two).
+    fits: {(operator, quantity): {'a2': A, 'a4': B, 'a2_sampled': ..., 'a4_sampled': ...}} of
+    ratio = 1 + A (a/rho)^2 + B (a/rho)^4 (least squares; NaN with fewer than two rho/a, solved exactly
+    with two), for the box reference and for the sampled one (`operator_scan`).
     """
 
     rows: tuple
@@ -194,6 +206,26 @@ def _action_boxes(op: LoopOperator, origin, a, shape):
     return out
 
 
+def _sampled(field, op: LoopOperator, qty: str, origin, a, shape) -> float:
+    """The continuum density at the lattice's own points: V sum_x q(x) over the sites whose loops fit (charge), or
+    sum_i c_i sum_{ordered planes} V sum_corners s(centre) / 12 over the loops' centres (action); no quadrature."""
+    idx = np.stack(np.meshgrid(*[np.arange(n) for n in shape], indexing="ij"), axis=-1).reshape(-1, 4)
+    vol = a**4
+    if qty == "charge":
+        big = op.extent
+        keep = np.all((idx >= big) & (idx <= np.asarray(shape) - 1 - big), axis=1)
+        return vol * float(np.sum(evaluate(field, origin + a * idx[keep], "charge_density")))
+    total = 0.0
+    for m, n, c in op.terms:
+        for mu, nu in ORDERED_PLANES:
+            e = np.zeros(4)
+            e[mu], e[nu] = m, n
+            keep = np.all(idx <= np.asarray(shape) - 1 - e, axis=1)
+            pts = origin + a * (idx[keep] + e / 2.0)
+            total += float(c) / 12.0 * vol * float(np.sum(evaluate(field, pts, "action_density")))
+    return total
+
+
 def _charge_box(op: LoopOperator, origin, a, shape):
     big = op.extent
     return origin + a * (big - 0.5), origin + a * (np.asarray(shape) - 1.0 - big + 0.5)
@@ -208,6 +240,7 @@ def operator_scan(
     group: str = "su2",
     smoothing: Callable | None = None,
     nodes: int = 6,
+    sampled: bool = True,
     progress: Callable | None = None,
 ) -> ScanTable:
     """Measure lattice operators on open starts of ``field`` at several rho/a against the continuum in the same box.
@@ -223,6 +256,10 @@ def operator_scan(
         smoothing: links -> links applied to each start before measuring (e.g. a few cooling sweeps);
             the continuum reference stays that of the field itself.
         nodes: Gauss-Legendre nodes of a bulk panel of the continuum integrals.
+        sampled: also compare with the continuum density at the lattice's own points (columns 'sampled',
+            'sampled_ratio'): the same sum without the midpoint rule's O(a^2) face term, which is ~1e-3 for
+            a box reaching 1.8 rho from the centre at a/rho = 0.3 (a charge's sites keep the operator's
+            longest side from every face), so improved operators are judged by their own artefacts.
         progress: progress(done, total) after each rho/a.
     Returns:
         `ScanTable`.
@@ -246,6 +283,8 @@ def operator_scan(
     if smoothing is not None and not callable(smoothing):
         raise TypeError(f"smoothing must be a callable links -> links or None; found {smoothing!r}")
     nodes = _v.positive_int("nodes", nodes)
+    if not isinstance(sampled, bool):
+        raise TypeError(f"sampled must be True or False; found {sampled!r}")
     rows = []
     for step, r in enumerate(rs):
         a = rho / r
@@ -272,6 +311,7 @@ def operator_scan(
             k += len(p)
             fn = operator_action if qty == "action" else operator_charge
             val = fn(links, op, spacing=a, boundary="open")
+            smp = _sampled(field, op, qty, origin, a, shape) if sampled else math.nan
             rows.append(
                 {
                     "operator": op.name,
@@ -282,6 +322,8 @@ def operator_scan(
                     "value": val,
                     "continuum": cont,
                     "ratio": val / cont,
+                    "sampled": smp,
+                    "sampled_ratio": val / smp,
                 }
             )
         if progress is not None:
@@ -289,5 +331,8 @@ def operator_scan(
     fits = {}
     for op, qty in entries:
         sel = [x for x in rows if x["operator"] == op.name and x["quantity"] == qty]
-        fits[(op.name, qty)] = _fit([x["a_over_rho"] for x in sel], [x["ratio"] for x in sel])
+        x = [r["a_over_rho"] for r in sel]
+        fit = _fit(x, [r["ratio"] for r in sel])
+        smp_fit = _fit(x, [r["sampled_ratio"] for r in sel]) if sampled else {"a2": math.nan, "a4": math.nan}
+        fits[(op.name, qty)] = {**fit, "a2_sampled": smp_fit["a2"], "a4_sampled": smp_fit["a4"]}
     return ScanTable(tuple(rows), fits)
