@@ -3,6 +3,7 @@ measurements, anisotropic spacings, flow and cooling with their actions, and bad
 
 from fractions import Fraction
 
+import jax
 import numpy as np
 import pytest
 import scipy.linalg as sla
@@ -216,8 +217,26 @@ def test_eps0_preset_cooling_is_the_eps0_cooling(rough):
 
 @pytest.mark.parametrize("eps", [1.0, 0.0, -1.0])
 def test_operator_flow_frequency_of_the_eps_family_is_max_flow_frequency(eps):
-    # max_flow_frequency is checked against power iteration of the force in tests/test_flow_stability.py
+    # max_flow_frequency is checked against power iteration of the force in tests/test_link_checks.py
     assert st.operator_flow_frequency(ops.epsilon_action(eps)) == pytest.approx(st.max_flow_frequency(eps), rel=1e-12)
+
+
+def test_symanzik_flow_frequency_matches_power_iteration_of_its_force():
+    # the linearised flow X -> -Z(exp(d X)) / d about the trivial field on 4^4 (momenta 0, pi/2, pi) by power
+    # iteration of the operator's own force; 80/3 = 16 (5/3) at p = (pi, pi, pi, pi), where the 1x2 loops' flux
+    # D_2(pi/2)^2 = 4 cos^2(pi/2) vanishes and only the plaquette weight c0 = 5/3 is left
+    op = ops.OPERATOR_PRESETS["symanzik"]
+    assert st.operator_flow_frequency(op) == pytest.approx(80.0 / 3.0, rel=1e-12)
+    w = np.array([float(c) / (m * n) ** 2 for m, n, c in op.terms])
+    force = jax.jit(sm._op_force, static_argnames="pairs")
+    rng = np.random.default_rng(0)
+    x = np.asarray(sm._traceless_antihermitian(rng.normal(size=(4,) * 4 + (4, 2, 2)) + 0j))
+    lam = 0.0
+    for _ in range(40):
+        y = -np.asarray(force(sm._expm_su(1e-7 * x), op.pairs, w)) / 1e-7
+        lam = float(np.linalg.norm(y) / np.linalg.norm(x))
+        x = y / np.linalg.norm(y)
+    assert lam == pytest.approx(80.0 / 3.0, rel=1e-3)
 
 
 def test_dbw2_flow_refuses_a_step_beyond_its_bound(rough):
