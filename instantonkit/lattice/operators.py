@@ -63,7 +63,7 @@ __all__ = [
 ]
 
 #: Links per time slab (bytes, halo included) of the measurements on large lattices.
-SLAB_BYTES = 1 << 27
+SLAB_BYTES = 1 << 28
 #: The longest loop side a set may use (longer loops are not improvement; they would only cost).
 MAX_EXTENT = 8
 #: Relative tolerance of the sum rule sum c = 1 for float coefficients (exact for rationals).
