@@ -67,6 +67,7 @@ SMOKE = {
     "bench_cluster": {"parts": ("scaling",), "scaling_size": 4},
     "bench_smoothing": {"size": 4, "parts": ("timing",), "groups": ("su2",)},
     "bench_mixtures": {"size": 4},
+    "bench_operators": {"size": 4, "flow_size": 4, "presets": (("symanzik", "action"),), "actions": ("symanzik",)},
 }
 
 #: What ``--quick`` aims at on a quiet two-core machine, in seconds (printed, never checked).

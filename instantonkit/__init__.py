@@ -59,7 +59,9 @@ from .fit.lattice_fit import ColourRank, colour_rank, find_lattice_instantons
 from .lattice import files as io
 from .lattice import observables, references, smoothing, transport
 from .lattice.files import load_lattice, save_lattice
+from .lattice.operators import OPERATOR_PRESETS, loop_operator, operator_action, operator_charge
 from .lattice.polyakov import lattice_polyakov_loop, polyakov_average, polyakov_loop, polyakov_phases
+from .lattice.scan import operator_scan
 from .lattice.smoothing import cool, gradient_flow, improved_action, improved_charge, wilson_flow
 from .lattice.starts import average_plaquette, clover_charge, lattice_links, lattice_start, wilson_action
 from .lattice.thermal import thermal_spacings
@@ -179,6 +181,11 @@ __all__ = [
     "cool",
     "improved_action",
     "improved_charge",
+    "OPERATOR_PRESETS",
+    "loop_operator",
+    "operator_action",
+    "operator_charge",
+    "operator_scan",
     "unitary_adhm",
     "unitary_moduli",
     "UnitaryADHMData",

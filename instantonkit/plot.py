@@ -24,7 +24,7 @@ import numpy as np
 
 from .engine import fields as _fields
 
-__all__ = ["density_slice", "slice_panels", "convergence", "QUANTITIES", "AXES"]
+__all__ = ["density_slice", "slice_panels", "convergence", "scan_plot", "QUANTITIES", "AXES"]
 
 #: Axis names of a point (x1, x2, x3, x4); x4 is Euclidean time.
 AXES = ("x1", "x2", "x3", "x4")
@@ -509,4 +509,34 @@ def convergence(
     right.legend(fontsize="small")
     if title is not None:
         fig.suptitle(title)
+    return fig
+
+
+def scan_plot(table, *, ax=None):
+    """Each operator's lattice / continuum ratio of a scan against a/rho, with its fitted 1 + A x^2 + B x^4.
+
+    Args:
+        table: a `instantonkit.lattice.scan.ScanTable`.
+        ax: a matplotlib Axes to draw in (default: a new figure).
+    Returns:
+        the matplotlib Figure.
+    Raises:
+        TypeError: ``table`` is not a scan table (no ``rows`` and ``fits``).
+    """
+    if not (hasattr(table, "rows") and hasattr(table, "fits")):
+        raise TypeError(f"table must be a ScanTable (instantonkit.lattice.scan); found {type(table).__name__}")
+    plt = _pyplot()
+    fig, ax = plt.subplots(figsize=(6.0, 4.0)) if ax is None else (ax.figure, ax)
+    for (name, qty), fit in table.fits.items():
+        sel = [r for r in table.rows if r["operator"] == name and r["quantity"] == qty]
+        x = np.array([r["a_over_rho"] for r in sel])
+        y = np.array([r["ratio"] for r in sel])
+        (line,) = ax.plot(x, y, "o", label=f"{name} {qty}")
+        if np.isfinite(fit["a2"]) and x.size:
+            xs = np.linspace(0.0, float(np.max(x)), 50)
+            ax.plot(xs, 1.0 + fit["a2"] * xs**2 + fit["a4"] * xs**4, "-", color=line.get_color(), lw=0.8)
+    ax.axhline(1.0, color="0.5", lw=0.6)
+    ax.set_xlabel("a / ρ")
+    ax.set_ylabel("lattice / continuum (same box)")
+    ax.legend(fontsize="small")
     return fig

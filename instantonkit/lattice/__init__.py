@@ -6,10 +6,13 @@ Modules (floor 5 of the package; the floors inside are in DEVELOPERS.md):
 * ``files``: Lattice files: numpy ``.npz`` with the generation parameters, and ILDG (LIME records) for SU(3).
 * ``fused``: The fused SU(2) Magnus path of ``transport``: all steps of a link in one compiled kernel.
 * ``magnus``: The Magnus kernels of ``transport``: sixth-order steps, their nodes and batches.
+* ``operators``: Operators made of m x n Wilson loops with coefficients: actions, field strengths, charges.
 * ``observables``: Gauge-invariant observables of lattice link arrays: plaquettes, Wilson action, clover field strength
 * ``polyakov``: Polyakov loops: the continuum loop around the period, and lattice loops of time links.
+* ``rectangles``: Rectangular m x n Wilson loops: their traces, clovers and staples.
 * ``references``: What a lattice start is compared with and rebuilt from.
 * ``reports``: The records of a lattice start: its quality report and the finished start.
+* ``scan``: A scan of lattice operators against a/rho with continuum references in the same box.
 * ``sites``: Links of lattice sites (and of a box of sites), singular points handled in a twin gauge.
 * ``smoothing``: Smoothing of lattice link arrays: gradient flow, cooling, the 1x1 + 2x2 improved action and an
 * ``starts``: Lattice starts: link variables of a continuum field, and gauge-invariant lattice observables.

@@ -62,13 +62,23 @@ from .loops import (  # re-exported: the measurements the flows and cooling driv
     loop_clover_charge,
 )
 from .observables import PLANES  # noqa: F401  (kept importable here)
-from .stability import ACTION_RISE_TOL, RK3_STABILITY, _check_rise, flow_step_bound, max_flow_frequency  # noqa: F401
+from .operators import get_operator
+from .rectangles import colour_period, colours, loop_traces, staple
+from .stability import (  # noqa: F401
+    ACTION_RISE_TOL,
+    RK3_STABILITY,
+    _check_rise,
+    flow_step_bound,
+    max_flow_frequency,
+    operator_flow_frequency,
+)
 
 __all__ = [
     "SmoothingRecord",
     "RK3_STABILITY",
     "max_flow_frequency",
     "flow_step_bound",
+    "operator_flow_frequency",
     "gradient_flow",
     "wilson_flow",
     "cool",
@@ -114,18 +124,45 @@ def _force(u, c1, c2, two: bool):
     )
 
 
-@functools.partial(jax.jit, static_argnames=("two",))
-def _rk3_step(u, h, c1, c2, two: bool):
+def _rk3(u, h, force):
     """One step of Luescher's third-order Runge-Kutta integrator (JHEP 08 (2010) 071, eqs. (C.1)-(C.3),
     from memory; the third order is checked by test_runge_kutta_integrator_is_third_order):
     W1 = exp(Z0/4) W0, W2 = exp(8/9 Z1 - 17/36 Z0) W1, V(t + h) = exp(3/4 Z2 - 8/9 Z1 + 17/36 Z0) W2,
     Z_i = h Z(W_i)."""
-    z0 = h * _force(u, c1, c2, two)
+    z0 = h * force(u)
     w1 = _mm(_expm_su(0.25 * z0), u)
-    z1 = h * _force(w1, c1, c2, two)
+    z1 = h * force(w1)
     w2 = _mm(_expm_su((8.0 / 9.0) * z1 - (17.0 / 36.0) * z0), w1)
-    z2 = h * _force(w2, c1, c2, two)
+    z2 = h * force(w2)
     return _mm(_expm_su(0.75 * z2 - (8.0 / 9.0) * z1 + (17.0 / 36.0) * z0), w2)
+
+
+@functools.partial(jax.jit, static_argnames=("two",))
+def _rk3_step(u, h, c1, c2, two: bool):
+    """`_rk3` with the force of S(eps)."""
+    return _rk3(u, h, lambda v: _force(v, c1, c2, two))
+
+
+def _op_force(u, pairs, weights):
+    """Z(U) = -P_ah(U_mu Sigma_mu) of a loop operator's action (`instantonkit.lattice.rectangles.staple`)."""
+    return jnp.stack(
+        [-_traceless_antihermitian(_mm(u[..., mu, :, :], staple(u, mu, pairs, weights))) for mu in range(4)], axis=4
+    )
+
+
+@functools.partial(jax.jit, static_argnames=("pairs",))
+def _rk3_step_op(u, h, weights, pairs):
+    """`_rk3` with the force of a loop operator's action."""
+    return _rk3(u, h, lambda v: _op_force(v, pairs, weights))
+
+
+@functools.partial(jax.jit, static_argnames=("pairs",))
+def _measure_op(u, weights, pairs):
+    """`_measure` with the driving action of a loop operator: sum_i w_i sum_{x, mu != nu} (N - Re tr W)."""
+    row = _measure(u, 1.0, 0.0, False)
+    tr = loop_traces(u, pairs)
+    s = sum(weights[i] * jnp.sum(tr[i]) for i in range(len(pairs)))
+    return row.at[1].set(s)
 
 
 # -- cooling -----------------------------------------------------------------------------------------------
@@ -186,6 +223,20 @@ def _colours(shape, two: bool) -> np.ndarray:
     return out
 
 
+@functools.partial(jax.jit, static_argnames=("pairs", "ncol", "hits"))
+def _cool_sweep_op(u, cols, weights, pairs, ncol: int, hits: int):
+    """A cooling sweep of a loop operator's action (colours of `instantonkit.lattice.rectangles.colours`)."""
+    for mu in range(4):
+
+        def body(c, v, mu=mu):
+            new = _maximise(v[..., mu, :, :], staple(v, mu, pairs, weights), hits)
+            sel = (cols[mu] == c)[..., None, None]
+            return v.at[..., mu, :, :].set(jnp.where(sel, new, v[..., mu, :, :]))
+
+        u = jax.lax.fori_loop(0, ncol, body, u)
+    return u
+
+
 @functools.partial(jax.jit, static_argnames=("two", "ncol", "hits"))
 def _cool_sweep(u, colours, c1, c2, two: bool, ncol: int, hits: int):
     for mu in range(4):
@@ -214,8 +265,9 @@ class SmoothingRecord:
     """Observables along a flow or a cooling run, one entry per measurement; all (m,) float64.
 
     time: flow time t / a^2 (flow) or sweeps done (cooling); wilson_action: S_W (beta = 2N); action: the
-    driving action S(eps) (= S_W for eps = 1); clover_charge: Q of the 1x1 clover;
-    improved_charge: `improved_charge`; size: `instanton_size` (rho/a).
+    driving action S(eps) (= S_W for eps = 1), or the loop operator's action when one drives the run;
+    clover_charge: Q of the 1x1 clover; improved_charge: `improved_charge`; size: `instanton_size`
+    (rho/a); eps: NaN when a loop operator drives the run; operator: its name ('' for S(eps)).
     """
 
     time: np.ndarray
@@ -226,11 +278,23 @@ class SmoothingRecord:
     size: np.ndarray
     eps: float
     kind: str
+    operator: str = ""
 
     @classmethod
-    def _from(cls, times, rows, eps, kind):
+    def _from(cls, times, rows, eps, kind, operator=""):
         r = np.asarray(rows, dtype=float).reshape(-1, 5)
-        return cls(np.asarray(times, float), r[:, 0], r[:, 1], r[:, 2], r[:, 3], r[:, 4], float(eps), kind)
+        return cls(np.asarray(times, float), r[:, 0], r[:, 1], r[:, 2], r[:, 3], r[:, 4], float(eps), kind, operator)
+
+
+def _driver(eps, action):
+    """(operator or None, c1, c2, two) of ``eps`` / ``action`` (one of them; eps = 1 is the default)."""
+    if action is None:
+        c1, c2 = improved_coefficients(eps)
+        return None, c1, c2, c2 != 0.0
+    if isinstance(eps, bool) or not isinstance(eps, (int, float)) or float(eps) != 1.0:
+        raise ValueError(f"give eps or action, not both: action={action!r} drives the run; found eps={eps!r}")
+    op = get_operator(action)
+    return op, 1.0, 0.0, False
 
 
 def _check_periodic_shape(shape, two: bool, what: str):
@@ -240,7 +304,7 @@ def _check_periodic_shape(shape, two: bool, what: str):
         raise ValueError(f"{what} needs even lattice extents (checkerboard); found shape {tuple(shape)}")
 
 
-def gradient_flow(links, t: float, step: float = 0.01, *, eps: float = 1.0, every: int = 1, progress=None):
+def gradient_flow(links, t: float, step: float = 0.01, *, eps: float = 1.0, action=None, every: int = 1, progress=None):
     """Gradient flow dV/dt = Z(V) V, Z = -g0^2 dS(eps) (module docstring), to flow time ``t`` (units a^2).
 
     Integrated with Luescher's third-order Runge-Kutta scheme (JHEP 08 (2010) 071, appendix C) with
@@ -254,6 +318,9 @@ def gradient_flow(links, t: float, step: float = 0.01, *, eps: float = 1.0, ever
         step: nominal step > 0 (0.01-0.05 is common practice for the Wilson flow); the effective step
             must lie below `flow_step_bound` (0.157 for the Wilson flow).
         eps: the action parameter of `improved_action`.
+        action: instead of eps, a loop operator whose action drives the flow (a preset name such as
+            'symanzik', 'iwasaki', 'dbw2', '5li', a `instantonkit.lattice.operators.LoopOperator` or
+            {(m, n): c}); its step bound is `flow_step_bound(action=...)`.
         every: measure after every ``every`` steps (and at t = 0 and the end).
         progress: None (a line on stderr on a terminal), False, True or progress(done, total) per step.
     Returns:
@@ -268,31 +335,36 @@ def gradient_flow(links, t: float, step: float = 0.01, *, eps: float = 1.0, ever
         raise ValueError(f"t must be >= 0; found {t!r}")
     h = _v.positive_float("step", step)
     every = _v.positive_int("every", every)
-    c1, c2 = improved_coefficients(eps)
+    op, c1, c2, two = _driver(eps, action)
     u = _links(links)
-    two = c2 != 0.0
     steps = math.ceil(tt / h - 1e-9) if tt > 0 else 0
     link_count = float(np.prod(u.shape[:5]))
     _v.bounded_work("t", steps * link_count, f"t / step = {tt:g} / {h:g} = {steps:.3e} steps of {link_count:.0f} links")
     n = int(steps)
     h = tt / n if n else h
-    bound = flow_step_bound(eps)
+    if op is None:
+        bound, lam, what = flow_step_bound(eps), max_flow_frequency(float(eps)), f"eps = {float(eps):g}"
+        step_fn, measure = (lambda v: _rk3_step(v, h, c1, c2, two)), (lambda v: _measure(v, c1, c2, two))
+    else:
+        bound, lam, what = flow_step_bound(action=op), operator_flow_frequency(op), f"the action {op.name!r}"
+        w = jnp.asarray([float(c) / (m * k) ** 2 for m, k, c in op.terms])
+        step_fn, measure = (lambda v: _rk3_step_op(v, h, w, op.pairs)), (lambda v: _measure_op(v, w, op.pairs))
     if n and h > bound:
         raise ValueError(
-            f"step must be below the stability bound {bound:.4f} of the third-order Runge-Kutta flow for eps = "
-            f"{float(eps):g} (h lambda_max <= {RK3_STABILITY:.4f}, lambda_max = {max_flow_frequency(float(eps)):.4g}: "
+            f"step must be below the stability bound {bound:.4f} of the third-order Runge-Kutta flow for {what} "
+            f"(h lambda_max <= {RK3_STABILITY:.4f}, lambda_max = {lam:.4g}: "
             f"flow_step_bound); found an effective step {h:g} (t = {tt:g}, step = {step!r}); use step <= "
             f"{0.25 * bound:.3g} (0.01-0.05 is common practice)"
         )
-    times, rows = [0.0], [_measure(u, c1, c2, two)]
+    times, rows = [0.0], [measure(u)]
     report = _progress.sink(progress, "flow steps")
     for i in range(1, n + 1):
-        u = _rk3_step(u, h, c1, c2, two)
+        u = step_fn(u)
         if report is not None:
             report(i, n)
         if i % every == 0 or i == n:
             times.append(i * h)
-            rows.append(_measure(u, c1, c2, two))
+            rows.append(measure(u))
             _check_rise(
                 float(rows[-2][1]),
                 float(rows[-1][1]),
@@ -300,7 +372,12 @@ def gradient_flow(links, t: float, step: float = 0.01, *, eps: float = 1.0, ever
                 f"between flow times {times[-2]:g} and {times[-1]:g} (step {i} of {n}, step size {h:g})",
                 f"use a smaller step, e.g. step={0.25 * h:.3g}",
             )
-    return np.asarray(u), SmoothingRecord._from(times, [np.asarray(r) for r in rows], eps, "flow")
+    return np.asarray(u), _record(times, rows, eps, "flow", op)
+
+
+def _record(times, rows, eps, kind, op):
+    name = "" if op is None else op.name
+    return SmoothingRecord._from(times, [np.asarray(r) for r in rows], math.nan if op else eps, kind, name)
 
 
 def wilson_flow(links, t: float, step: float = 0.01, *, every: int = 1, progress=None):
@@ -308,7 +385,7 @@ def wilson_flow(links, t: float, step: float = 0.01, *, every: int = 1, progress
     return gradient_flow(links, t, step, eps=1.0, every=every, progress=progress)
 
 
-def cool(links, sweeps: int, *, eps: float = 1.0, hits: int = 3, every: int = 1, progress=None):
+def cool(links, sweeps: int, *, eps: float = 1.0, action=None, hits: int = 3, every: int = 1, progress=None):
     """Plain cooling: every link in turn replaced by the SU(N) matrix that minimises the action with the
     other links fixed, i.e. maximises Re tr(U Sigma) for its staple sum Sigma (SU(2): Sigma^dag normalised;
     SU(N >= 3): ``hits`` Cabibbo-Marinari SU(2)-subgroup passes, see `_maximise`).
@@ -323,6 +400,9 @@ def cool(links, sweeps: int, *, eps: float = 1.0, hits: int = 3, every: int = 1,
         links: (L1, L2, L3, L4, 4, N, N) complex.
         sweeps: number of sweeps >= 1 (sweeps x links x hits at most 1e11 elementary updates).
         eps: the action parameter of `improved_action` (1: Wilson).
+        action: instead of eps, a loop operator whose action is minimised (as in `gradient_flow`); its
+            links are coloured by `instantonkit.lattice.rectangles.colours` (extents divisible by 4 for
+            loops of side 2 or 3).
         hits: subgroup passes per link for N >= 3 (ignored for SU(2), where one step is exact).
         every: measure after every ``every`` sweeps (and before the first and after the last).
         progress: None (a line on stderr on a terminal), False, True or progress(done, total) per sweep.
@@ -339,21 +419,34 @@ def cool(links, sweeps: int, *, eps: float = 1.0, hits: int = 3, every: int = 1,
     link_count = float(np.prod(u.shape[:5]))
     _v.bounded_work("sweeps", sweeps * link_count, f"{sweeps} sweeps of {link_count:.0f} links")
     _v.bounded_work("hits", hits * sweeps * link_count, f"{hits} hits in {sweeps} sweeps of {link_count:.0f} links")
-    c1, c2 = improved_coefficients(eps)
-    two = c2 != 0.0
+    op, c1, c2, two = _driver(eps, action)
     shape = u.shape[:4]
-    _check_periodic_shape(shape, two, "cooling")
-    colours = jnp.asarray(_colours(shape, two))
-    ncol = 8 if two else 2
-    times, rows = [0], [_measure(u, c1, c2, two)]
+    if op is None:
+        _check_periodic_shape(shape, two, "cooling")
+        cols = jnp.asarray(_colours(shape, two))
+        ncol = 8 if two else 2
+        sweep, measure = (lambda v: _cool_sweep(v, cols, c1, c2, two, ncol, hits)), (lambda v: _measure(v, c1, c2, two))
+    else:
+        period = colour_period(op.pairs)
+        if any(s % period for s in shape):
+            raise ValueError(
+                f"cooling with the action {op.name!r} (loops of side up to {op.extent}) needs every lattice extent "
+                f"divisible by {period}; found shape {tuple(shape)}"
+            )
+        arr, ncol = colours(shape, op.pairs)
+        cols = jnp.asarray(arr)
+        w = jnp.asarray([float(c) / (m * k) ** 2 for m, k, c in op.terms])
+        sweep = lambda v: _cool_sweep_op(v, cols, w, op.pairs, ncol, hits)  # noqa: E731
+        measure = lambda v: _measure_op(v, w, op.pairs)  # noqa: E731
+    times, rows = [0], [measure(u)]
     report = _progress.sink(progress, "cooling sweeps")
     for i in range(1, sweeps + 1):
-        u = _cool_sweep(u, colours, c1, c2, two, ncol, hits)
+        u = sweep(u)
         if report is not None:
             report(i, sweeps)
         if i % every == 0 or i == sweeps:
             times.append(i)
-            rows.append(_measure(u, c1, c2, two))
+            rows.append(measure(u))
             _check_rise(
                 float(rows[-2][1]),
                 float(rows[-1][1]),
@@ -362,4 +455,4 @@ def cool(links, sweeps: int, *, eps: float = 1.0, hits: int = 3, every: int = 1,
                 "each cooling update minimises the action with the other links fixed, so the links have left "
                 "SU(N) (check them with instantonkit.check_links)",
             )
-    return np.asarray(u), SmoothingRecord._from(times, [np.asarray(r) for r in rows], eps, "cooling")
+    return np.asarray(u), _record(times, rows, eps, "cooling", op)
