@@ -14,10 +14,9 @@ the Wilson staple of `instantonkit.lattice.loops`.  The flow and cooling are tho
 exponential, the same stability bound, the same maximisation of Re tr(U Sigma~) for cooling (centre
 factors keep the staple sum in the real span of SU(2) for N = 2) on the same checkerboard colours.
 
-The one seam: `smoothing._rk3_step` and `smoothing._cool_sweep` take their staple from `loops` with no way
-to pass another, so the three Runge-Kutta stages and the colour loop are written again here around the
-imported kernels (`_expm_su`, `_maximise`, `_colours`); a force (or staple) argument on those two would
-let this module call them directly.
+The Runge-Kutta stages are `smoothing`'s (`smoothing._rk3` takes the force as an argument); the colour
+loop of a cooling sweep is written here around the imported kernels (`_maximise`, `_colours`), since
+`smoothing`'s sweeps take their staples from `loops` and `operators`.
 """
 
 from __future__ import annotations
@@ -33,7 +32,7 @@ import numpy as np
 from ..core import _progress
 from ..core import _validate as _v
 from .loops import _dag, _links, _mm, _sh, _traceless_antihermitian
-from .smoothing import _check_periodic_shape, _colours, _expm_su, _maximise
+from .smoothing import _check_periodic_shape, _colours, _maximise, _rk3
 from .stability import RK3_STABILITY, _check_rise, flow_step_bound
 from .twist import _twisted_planes, twist_corner, twist_tensor, twisted_clover_charge, twisted_wilson_action
 
@@ -92,20 +91,10 @@ def _force(u, z):
 
 
 @jax.jit
-def _advance(x, u):
-    """exp(X) U with `instantonkit.lattice.smoothing`'s exact SU(N) exponential."""
-    return _mm(_expm_su(x), u)
-
-
 def _rk3_step(u, h, z):
-    """Luescher's third-order Runge-Kutta step (JHEP 08 (2010) 071, eqs. (C.1)-(C.3), from memory), as
-    `instantonkit.lattice.smoothing`, with the twisted force (one compiled force, called three times)."""
-    z0 = h * _force(u, z)
-    w1 = _advance(0.25 * z0, u)
-    z1 = h * _force(w1, z)
-    w2 = _advance((8.0 / 9.0) * z1 - (17.0 / 36.0) * z0, w1)
-    z2 = h * _force(w2, z)
-    return _advance(0.75 * z2 - (8.0 / 9.0) * z1 + (17.0 / 36.0) * z0, w2)
+    """Luescher's third-order Runge-Kutta step with the twisted force: `instantonkit.lattice.smoothing`'s
+    integrator (`smoothing._rk3`, the one written copy of the three stages) driven by `_force`."""
+    return _rk3(u, h, lambda v: _force(v, z))
 
 
 @functools.partial(jax.jit, static_argnames=("hits",))
