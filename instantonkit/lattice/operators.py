@@ -146,9 +146,10 @@ def loop_operator(coefficients, *, name: str = "custom", combine: str = "density
     (exactly for rationals, to `SUM_RULE_RTOL` for floats); zero coefficients are dropped.
 
     Raises:
-        TypeError / ValueError: not a mapping or sequence, a loop that is not two integers in
-        1..`MAX_EXTENT`, a term given twice, a coefficient that is not a finite real number, no term,
-        a sum that is not 1 (naming the sum found), an unknown ``combine``.
+        TypeError: not a mapping or sequence, or a coefficient that is not a real number.
+        ValueError: a loop that is not two integers in 1..`MAX_EXTENT`, a term given twice, a
+            coefficient that is not finite, no term, a sum that is not 1 (naming the sum found),
+            an unknown ``combine``.
     """
     _v.choice("combine", combine, _COMBINE)
     if not isinstance(name, str) or not name:
