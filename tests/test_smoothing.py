@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 import scipy.linalg as sla
-from scipy import integrate, special
+from _references import bpst_box_action
 
 import instantonkit as ik
 from instantonkit.lattice import smoothing as sm
@@ -13,21 +13,6 @@ EIGHT_PI2 = 8.0 * np.pi**2
 
 
 # -- continuum references -------------------------------------------------------------------------------
-
-
-def bpst_box_action(rho, lo, hi):
-    """Integral of the BPST density 48 rho^4 / (x^2 + rho^2)^4 (Belavin, Polyakov, Schwartz, Tyupkin,
-    Phys. Lett. B 59 (1975) 85) over a box, by Schwinger's parametrisation 1/X^4 = (1/3!) int u^3 e^{-uX} du
-    (common practice): one scipy quad over u."""
-    lo, hi = np.asarray(lo, float), np.asarray(hi, float)
-
-    def integrand(u):
-        su = np.sqrt(u)
-        box = np.prod(0.5 * np.sqrt(np.pi / u) * (special.erf(su * hi) - special.erf(su * lo)))
-        return u**3 * np.exp(-u * rho**2) * box
-
-    val, _ = integrate.quad(integrand, 0.0, np.inf, epsabs=0.0, epsrel=1e-12, limit=200)
-    return 8.0 * rho**4 * val
 
 
 def loop_box_action(rho, origin, n, m):
