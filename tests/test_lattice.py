@@ -188,6 +188,8 @@ def test_wrapped_generator_batch_equals_the_contracted_potential():
     assert fields.hook(transforms.gauge_transform(data, lambda x: jnp.eye(2, dtype=complex)), "generator_batch") is None
 
 
+# Sp(2) repeats the SU(2) and SU(N) generator-batch checks above on a third realisation (long run only)
+@pytest.mark.long
 def test_sp2_generator_batch_equals_the_contracted_potential():
     data = ik.random_adhm(2, rank=2, seed=3)
     rng = np.random.default_rng(0)
