@@ -396,7 +396,7 @@ def test_fitted_su3_data_reproduce_the_density_on_and_off_the_samples(su3_exact)
     assert fit.rms < 1e-12 and np.max(np.abs(got - want)) / np.max(want) < 1e-10, fit.rms
 
 
-# the SU(2) k = 1, 2 noise checks above run by default; this SU(3) one in the long run
+# the SU(2) k = 1 noise check above runs by default; this SU(3) one (like SU(2) k = 2) in the long run
 @pytest.mark.long
 def test_with_one_percent_noise_su3_centres_and_sizes_lie_within_their_uncertainties():
     # Gaussian one-sigma errors: |pull| <= 2 holds for 95% of estimates (common practice); we ask >= 90%.
