@@ -43,7 +43,7 @@ from ..core.conventions import E_MU
 from .base import pack_unitary, unitary_moment_maps, unpack_unitary
 from .kernels import real_gram, spd_solve
 from .quaternionic import ADHMData, constraint_matrix
-from .unitary import _S, UnitaryADHMData
+from .unitary import S_MU, UnitaryADHMData
 
 __all__ = [
     "pack",
@@ -295,7 +295,7 @@ def _unitary_modes(data: UnitaryADHMData, t, x):
     h = data.gram(x)  # f^-1, Hermitian (k, k)
     real = jnp.block([[h.real, -h.imag], [h.imag, h.real]])  # the real form of f^-1 acting on (Re, Im)
     ut = u[: 2 * k].reshape(2, k, nn)
-    y = jnp.einsum("mba,bkn->makn", jnp.conj(jnp.asarray(_S)), ut)  # (s_mu^dag (x) 1) b^dag U, (4, 2, k, N)
+    y = jnp.einsum("mba,bkn->makn", jnp.conj(jnp.asarray(S_MU)), ut)  # (s_mu^dag (x) 1) b^dag U, (4, 2, k, N)
     yk = jnp.moveaxis(y, 2, 0).reshape(k, -1)  # k index first
     z = spd_solve(real, jnp.concatenate([yk.real, yk.imag]))
     zk = (z[:k] + 1j * z[k:]).reshape(k, 4, 2, nn)
