@@ -16,6 +16,7 @@ import numpy as np
 import pytest
 
 import instantonkit as ik
+from instantonkit.core import _links
 from instantonkit.fit.lattice_fit import RANK_THRESHOLD, ColourRank, colour_rank, find_lattice_instantons
 from instantonkit.lattice import observables as ob
 
@@ -130,6 +131,15 @@ def test_embedded_su2_links_are_fitted_with_the_exact_su2_model(bpst_links):
     assert float(np.max(np.abs(fit.centers[0] - CENTRES[1]))) < 0.1 * A
     mixed = find_lattice_instantons(u, (1, 0), spacing=A, origin=ORIGIN, boundary="open")
     assert "colour rank 2" in mixed.instantons.notes[0] and "colour rank 2" in mixed.anti_instantons.notes[0]
+
+
+def test_links_are_checked_once_per_call(bpst_links, monkeypatch):
+    # the unitarity pass runs once: the rank and the observables the fit asks for take the checked links as they are
+    calls = []
+    real = _links.unitarity_deviation
+    monkeypatch.setattr(_links, "unitarity_deviation", lambda *a, **kw: calls.append(1) or real(*a, **kw))
+    find_lattice_instantons(bpst_links, 1, spacing=A, origin=ORIGIN, boundary="open")
+    assert len(calls) == 1
 
 
 def test_bad_links_raise_naming_what_was_expected():

@@ -35,7 +35,7 @@ import jax.numpy as jnp
 import numpy as np
 
 from ..core import _validate
-from ..core._links import check_links
+from ..core._links import CheckedLinks, check_links
 from ..core.conventions import ACTION_DENSITY_FACTOR, INSTANTON_ACTION
 from ..engine.fields import action_from_f
 from ..lattice import observables as _obs
@@ -134,7 +134,7 @@ def colour_rank(links, *, spacing: float = 1.0, boundary: str = "periodic", thre
     thr = _validate.positive_float("threshold", threshold)
     if thr >= 1:
         raise ValueError(f"threshold must be in (0, 1); found {thr!r}")
-    f = _obs.clover_field_strength(u, spacing=spacing, boundary=boundary).reshape((-1, 16, n, n))
+    f = _obs.clover_field_strength(CheckedLinks(u), spacing=spacing, boundary=boundary).reshape((-1, 16, n, n))
     p = _tree_transporters(np.asarray(u)).reshape((-1, n, n))
     ok = np.isfinite(f).all(axis=(1, 2, 3))
     f, p = f[ok], p[ok]
@@ -204,7 +204,7 @@ def find_lattice_instantons(
             f"smoothing must be the SmoothingRecord of wilson_flow / gradient_flow / cool or None; found "
             f"{type(smoothing).__name__}"
         )
-    links = check_links(links)
+    links = CheckedLinks(check_links(links))  # checked once: the observables below take them as they are
     if model is not None:
         _validate.choice("model", model, ("exact", "superposition"))
     a = _validate.positive_float("spacing", spacing)
