@@ -7,6 +7,7 @@ import zipfile
 import numpy as np
 import pytest
 
+from instantonkit.core import _validate
 from instantonkit.core._links import check_finite
 from instantonkit.lattice import files as lio
 from instantonkit.lattice import references
@@ -114,6 +115,15 @@ def test_memmap_is_checked_as_it_is_written_in_one_pass(tmp_path, links3, monkey
     monkeypatch.setattr(lio, "_check_finite", _no_second_pass)
     lio.save_lattice(tmp_path / f"m.{fmt}", mm)
     assert np.array_equal(lio.load_lattice(tmp_path / f"m.{fmt}")[0], links3)
+
+
+@pytest.mark.parametrize("fmt", ["npz", "ildg"])
+def test_memmap_larger_than_the_machine_memory_is_refused_before_writing(tmp_path, links3, monkeypatch, fmt):
+    mm = _memmap_of(tmp_path / "u.npy", links3)
+    monkeypatch.setattr(_validate, "machine_memory", lambda: 1000.0)
+    with pytest.raises(ValueError, match=r"links is too large: .* this machine has 1\.000e\+03 bytes"):
+        lio.save_lattice(tmp_path / f"m.{fmt}", mm)
+    assert not (tmp_path / f"m.{fmt}").exists()
 
 
 def test_npz_of_a_memmap_holds_the_members_numpy_savez_writes(tmp_path, links3):

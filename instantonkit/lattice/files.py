@@ -41,6 +41,7 @@ from ..core import _validate as _v
 from ..core._atomic import atomic_write
 from ..core._links import check_finite as _check_finite
 from ..core._links import check_links as _check_link_values
+from ..core._links import links_shape
 
 __all__ = [
     "save_lattice",
@@ -383,7 +384,7 @@ def save_lattice(
         # a lattice start (duck-typed: io sits below lattice)
         metadata = report.as_metadata() if metadata is None else metadata
         links = links.links
-    u = check_links(links)
+    u = links_shape(links)  # shape, dtype, and a size this machine can hold
     if not (_streamed(u) and (format == "npz" or u.shape[-1] == 3)):
         u = _check_finite(u)  # a memory map is checked as it is written: one pass over the file
     if format == "ildg" and u.shape[-1] != 3:
