@@ -1,9 +1,11 @@
-"""Continuum references that several test modules compare lattice quantities with (imported by name;
+"""Continuum references and checks that several test modules share (imported by name;
 tests/ is on the path because it is not a package)."""
 
 import numpy as np
 import scipy.linalg as sla
 from scipy import integrate, special
+
+from instantonkit.lattice import smoothing as sm
 
 
 def bpst_box_action(rho, lo, hi):
@@ -45,3 +47,16 @@ def force_finite_difference(links, force, action, site=(1, 2, 3, 0), mu=2, seed=
 
     fd = (s(h) - s(-h)) / (2 * h)
     return fd, 2.0 * np.real(np.trace(x @ np.asarray(force)[where]))
+
+
+def noisy_links(links, amp, seed):
+    """Links multiplied by exp(amp X), X random traceless anti-Hermitian (a rough configuration; numpy seed ``seed``).
+
+    links: (*dims, 4, N, N) complex128; the same shape back.
+    """
+    rng = np.random.default_rng(seed)
+    n = links.shape[-1]
+    z = rng.normal(size=links.shape) + 1j * rng.normal(size=links.shape)
+    x = 0.5 * (z - np.conj(np.swapaxes(z, -1, -2)))
+    x = x - np.trace(x, axis1=-2, axis2=-1)[..., None, None] * np.eye(n) / n
+    return np.asarray(sm._expm_su(amp * x)) @ links

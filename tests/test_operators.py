@@ -6,7 +6,7 @@ from fractions import Fraction
 import jax
 import numpy as np
 import pytest
-from _references import force_finite_difference
+from _references import force_finite_difference, noisy_links
 
 import instantonkit as ik
 from instantonkit.lattice import operators as ops
@@ -17,20 +17,10 @@ from instantonkit.lattice import starts as lat
 F = Fraction
 
 
-def _noisy(links, amp, seed):
-    """Links multiplied by exp(amp X), X random traceless anti-Hermitian (a rough configuration)."""
-    rng = np.random.default_rng(seed)
-    n = links.shape[-1]
-    z = rng.normal(size=links.shape) + 1j * rng.normal(size=links.shape)
-    x = 0.5 * (z - np.conj(np.swapaxes(z, -1, -2)))
-    x = x - np.trace(x, axis1=-2, axis2=-1)[..., None, None] * np.eye(n) / n
-    return np.asarray(sm._expm_su(amp * x)) @ links
-
-
 @pytest.fixture(scope="module")
 def rough():
     """A rough periodic 4^4 SU(2) lattice (a BPST start times random SU(2) noise)."""
-    return _noisy(lat.lattice_links(ik.bpst(size=1.5), (4,) * 4, 1.0), 0.3, 1)
+    return noisy_links(lat.lattice_links(ik.bpst(size=1.5), (4,) * 4, 1.0), 0.3, 1)
 
 
 @pytest.fixture(scope="module")
