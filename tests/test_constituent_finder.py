@@ -6,6 +6,8 @@ import warnings
 import numpy as np
 import pytest
 from _references import bpst_box_action
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 import instantonkit as ik
 from instantonkit.engine import fields
@@ -125,6 +127,24 @@ def test_overlapping_constituents_give_an_ambiguous_verdict():
     assert res.k == 1 and res.ambiguous and "fewer than n = 2" in res.reasons[0]
     assert res.fractions[0] == pytest.approx(1.0, abs=0.03)  # the whole action per period (a = 0.83 rho: 1.7 % off)
     assert "AMBIGUOUS" in res.summary()
+
+
+@settings(max_examples=3)
+@given(st.tuples(*[st.floats(-1.0, 1.0)] * 3))
+def test_positions_move_with_the_caloron_and_its_samples(shift):
+    # translation invariance: the caloron moved by v, sampled on the grid moved by v, has its constituents at
+    # the old positions plus v
+    v = np.array(shift + (0.0,))
+    base = ik.caloron(1.2, BETA, np.zeros(4), holonomy=0.25)
+    xy, z, t = np.arange(-2.5, 2.6, A_S), np.arange(-4.8, 4.9, A_S), (np.arange(N_T) + 0.5) / N_T
+    pts = np.stack(np.meshgrid(xy, xy, z, t, indexing="ij"), axis=-1)
+
+    def found(field, p):
+        s = fields.evaluate(field, p, "action_density", chunk_size=ENGINE_CHUNK)
+        return find_constituents(p, s, 2, period=BETA).positions
+
+    moved = found(ik.caloron(1.2, BETA, v, holonomy=0.25), pts + v)
+    np.testing.assert_allclose(moved, found(base, pts) + v[:3], atol=1e-9)
 
 
 def test_a_density_without_positive_values_is_refused():
