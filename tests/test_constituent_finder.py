@@ -147,6 +147,23 @@ def test_positions_move_with_the_caloron_and_its_samples(shift):
     np.testing.assert_allclose(moved, found(base, pts) + v[:3], atol=1e-9)
 
 
+@pytest.mark.long  # the SU(3) caloron's density kernel compiles for several seconds (default-suite budget)
+def test_su3_constituents_are_found_with_fractions_near_nu():
+    # holonomy mu = (-0.3, 0.1, 0.2): three constituents of fractions nu_m = mu_{m+1} - mu_m, nu_3 = 1 + mu_1 - mu_3
+    # = (0.4, 0.1, 0.5) (Kraan, van Baal, Phys. Lett. B 435 (1998) 389, from memory), about 20 beta apart; the
+    # box (4 beta beyond them) cuts the tails (total 0.933), so within 0.03 (measured 0.021 to 0.023)
+    field = ik.caloron(2.5, BETA, holonomy=(-0.3, 0.1, 0.2))
+    pos, nu = field.constituents()
+    lo, hi = pos[:, :3].min(axis=0) - 4.0, pos[:, :3].max(axis=0) + 4.0
+    axes = [np.arange(a, b + 1e-9, A_S) for a, b in zip(lo, hi)]
+    pts = np.stack(np.meshgrid(*axes, (np.arange(N_T) + 0.5) / N_T, indexing="ij"), axis=-1)
+    found = find_constituents(pts, fields.evaluate(field, pts, "action_density"), 3, period=BETA)
+    order = [int(np.argmin(np.linalg.norm(pos[:, :3] - p, axis=1))) for p in found.positions]
+    assert sorted(order) == [0, 1, 2] and not found.ambiguous
+    np.testing.assert_allclose(found.positions, pos[order, :3], atol=0.02)
+    np.testing.assert_allclose(found.fractions, nu[order], atol=0.03)
+
+
 def test_a_density_without_positive_values_is_refused():
     pts = _grid(None, 1.0, 1.0)
     with pytest.raises(ValueError, match="no positive value"):
