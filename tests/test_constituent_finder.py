@@ -238,13 +238,15 @@ RANDOM_LINKS = obs.random_gauge((3, 3, 3, 8), 2, seed=3).reshape(3, 3, 3, 2, 4, 
         (RANDOM_LINKS, {"boundary": ("periodic", "periodic", "periodic", "open")}, r"x4 must be 'periodic'"),
         (RANDOM_LINKS, {"period": 1.5}, r"period 1\.5 does not match .* L4 \* a4 = 2 \* 0\.5"),
         (RANDOM_LINKS, {"quantity": "energy"}, r"quantity"),
+        (RANDOM_LINKS, {"n": 0}, r"\bn\b"),
+        (RANDOM_LINKS * 2, {}, r"links"),
     ],
 )
 def test_wrong_lattice_input_is_refused_naming_the_value(links, kw, text):
-    args = {"spacing": 0.5}
+    args = {"n": 2, "spacing": 0.5}
     args.update(kw)
     with pytest.raises((ValueError, TypeError), match=text):
-        find_lattice_constituents(links, 2, **args)
+        find_lattice_constituents(links, args.pop("n"), **args)
 
 
 def test_a_fit_reads_as_a_table():

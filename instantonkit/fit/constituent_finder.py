@@ -387,6 +387,10 @@ def find_lattice_constituents(
       four positive numbers, an open time direction, a period other than L4 a4.
     """
     u = check_links(links)
+    n = _validate.positive_int("n", n)
+    frac_min = _validate.positive_float("min_fraction", min_fraction)
+    if frac_min >= 1:
+        raise ValueError(f"min_fraction must lie in (0, 1); found {frac_min!r}")
     a = _validate.spacings("spacing", spacing)
     dirs = _bd.per_direction("boundary", boundary, _bd.OBSERVABLE_BOUNDARIES)
     if dirs[3] != "periodic":
@@ -414,13 +418,9 @@ def find_lattice_constituents(
     sites = org + a * np.stack(grids, axis=-1)
     if not np.isfinite(dens).all(axis=3).any():
         raise ValueError(f"no site of the {dens.shape} lattice has a complete clover (open faces take them all)")
-    frac_min = _validate.positive_float("min_fraction", min_fraction)
-    if frac_min >= 1:
-        raise ValueError(f"min_fraction must lie in (0, 1); found {frac_min!r}")
     radius = beta / (2.0 * PI) if merge_radius is None else merge_radius
     cell = float(np.prod(a))
     note = f"weights: the cell volume a1 a2 a3 a4 = {cell:.4g}; the {n_t} time slices make one period {beta:g}"
-    n = _validate.positive_int("n", n)
     if not float(np.nanmax(dens)) > 0:
         raise ValueError(
             f"the clover {quantity} density has no positive value (largest {float(np.nanmax(dens))!r}): "
