@@ -293,6 +293,8 @@ def _find(samples: tuple, n, beta, quantity, frac_min, radius, notes) -> Constit
     xyz, sbar, held_at, counts = samples
     if xyz.shape[0] < 2:
         raise ValueError(f"need samples at two or more spatial points; found {xyz.shape[0]}")
+    if n > xyz.shape[0]:
+        raise ValueError(f"n = {n} constituents exceeds the {xyz.shape[0]} spatial points sampled")
     if np.any(counts != counts[0]):
         notes.append(
             f"spatial points carry {int(counts.min())} to {int(counts.max())} time samples: the time average is uneven"
