@@ -10,7 +10,8 @@ Method.  Constituents are static, so the density is averaged over time first: th
 by their spatial point (equal x_vec to the bit, as on a grid or a lattice) and averaged in each group.
 The peaks of this time-averaged density are those of `instantonkit.fit.peaks.count_peaks` (plateaus
 and ties merged), with ``min_fraction`` small by default (``MIN_FRACTION``: a light constituent's peak
-is low, its height scaling as nu^4, about 1/256 of the heavy one's for nu = 0.2 and 0.8) and peaks
+is low, its height scaling roughly as nu^4: measured 1/164 of the heavy one's for nu = 0.2 and 0.8
+at 8 beta apart) and peaks
 merged when closer than beta / (2 pi) (the core radius of a constituent of fraction 1, the smallest
 a constituent has; `merge_radius`).  Each spatial point is given to its nearest peak (a Voronoi
 partition) and the ``n`` peaks holding the most action are the constituents (so a low peak that holds
@@ -22,7 +23,8 @@ Hessian is negative definite and it stays within the fitted points; otherwise th
 note says so).
 
 What the numbers are.  Positions are those of the maxima of the time-averaged action density; the
-constituents' own positions (where the Higgs field A_4 has coinciding eigenvalues) differ from them by
+constituents' own positions (where the two eigenvalues of the Polyakov loop meet, 1/2 tr P = +-1, as
+the field's ``constituents`` hook gives them) differ from them by
 the overlap of the cores, small once the constituents are several beta / (2 pi nu) apart (measured in
 tests/test_constituent_finder.py).  Fractions are Voronoi integrals per period: their sum is the
 action inside the samples (``total``), and each approaches nu_m as the constituents separate, the
@@ -52,7 +54,7 @@ __all__ = ["ConstituentFit", "find_constituents", "find_lattice_constituents"]
 
 _QUANTITIES = ("action", "charge")
 
-#: Candidate peaks above this fraction of the tallest (a light constituent's peak height scales as nu^4).
+#: Candidate peaks above this fraction of the tallest (a light constituent's peak height scales roughly as nu^4).
 MIN_FRACTION = 1e-4
 
 #: Spatial points of the quadratic fit of log s about a peak (3^3 on a grid; a quadratic in 3D has 10 coefficients).
