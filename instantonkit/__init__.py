@@ -54,6 +54,7 @@ from .engine.fields import (
     self_duality_residual,
 )
 from .engine.transforms import anti, dilate, gauge_transform, parity, rotate, translate
+from .fit.constituent_finder import ConstituentFit, find_constituents, find_lattice_constituents
 from .fit.finder import InstantonFit, MixedFit, find_instantons
 from .fit.lattice_fit import ColourRank, colour_rank, find_lattice_instantons
 from .lattice import files as io
@@ -161,6 +162,9 @@ __all__ = [
     "GeodesicPath",
     "find_instantons",
     "find_lattice_instantons",
+    "find_constituents",
+    "find_lattice_constituents",
+    "ConstituentFit",
     "colour_rank",
     "ColourRank",
     "InstantonFit",
