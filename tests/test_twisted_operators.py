@@ -8,9 +8,8 @@ import scipy.linalg as sla
 
 from instantonkit.lattice import observables as obs
 from instantonkit.lattice import operators as ops
-from instantonkit.lattice import rectangles
+from instantonkit.lattice import rectangles, staples
 from instantonkit.lattice import smoothing as sm
-from instantonkit.lattice import staples
 from instantonkit.lattice import twist as tw
 from instantonkit.lattice import twisted_flow as tf
 from instantonkit.lattice import twisted_operators as to
