@@ -201,3 +201,17 @@ def test_flow_and_cooling_refuse_a_bad_spacing(smooth, spacing, err, match):
         sm.cool(smooth, 1, spacing=spacing)
     with pytest.raises(err, match=match):
         st.flow_step_bound(spacing=spacing)
+
+
+@pytest.mark.parametrize(
+    "spacing,match",
+    [
+        ((1.0, 1.0, 1.0), r"spacing must have shape \(4,\); found \(3,\)"),
+        ((1.0, np.nan, 1.0, 1.0), "spacing must be finite"),
+    ],
+)
+def test_operator_charge_and_field_strength_refuse_a_bad_spacing(smooth, spacing, match):
+    with pytest.raises(ValueError, match=match):
+        ops.operator_charge(smooth, "clover", spacing=spacing)
+    with pytest.raises(ValueError, match=match):
+        ops.operator_field_strength(smooth, "5loop", spacing=spacing)
