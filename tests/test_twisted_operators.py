@@ -8,7 +8,7 @@ import scipy.linalg as sla
 
 from instantonkit.lattice import observables as obs
 from instantonkit.lattice import operators as ops
-from instantonkit.lattice import rectangles, staples
+from instantonkit.lattice import rectangles, staples, thermal
 from instantonkit.lattice import smoothing as sm
 from instantonkit.lattice import twist as tw
 from instantonkit.lattice import twisted_flow as tf
@@ -87,6 +87,22 @@ def test_a_zero_twist_gives_the_untwisted_operators_bit_for_bit(rough):
 def test_the_twisted_wilson_preset_is_the_twisted_wilson_action(rough):
     assert to.twisted_operator_action(rough, TWIST, "wilson") == pytest.approx(
         tw.twisted_wilson_action(rough, TWIST), rel=1e-12
+    )
+
+
+def test_the_anisotropic_twisted_wilson_preset_weights_each_twisted_plaquette_by_its_plane(rough):
+    # the anisotropic Wilson action beta sum_p w_p (1 - Re tr U_p / N), w = a_rho a_sigma / (a_mu a_nu)
+    # (instantonkit.lattice.thermal; Karsch, Nucl. Phys. B 205 (1982) 285, from memory), with the twisted plaquettes
+    a = (1.0, 0.8, 1.2, 0.5)
+    want = 4.0 * np.sum((1.0 - tw.twisted_plaquette_traces(rough, TWIST)) * thermal.plane_weights(a))
+    assert to.twisted_operator_action(rough, TWIST, "wilson", spacing=a) == pytest.approx(want, rel=1e-12)
+
+
+def test_stretched_time_keeps_the_twisted_charge(rough):
+    # V q is unchanged by the spacings (every term eps F F holds each direction once; tests/test_operators.py)
+    q = to.twisted_operator_charge(rough, TWIST, "symanzik")
+    assert to.twisted_operator_charge(rough, TWIST, "symanzik", spacing=(1.0, 1.0, 1.0, 1.7)) == pytest.approx(
+        q, rel=1e-12
     )
 
 
