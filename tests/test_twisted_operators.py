@@ -5,6 +5,8 @@ import jax.numpy as jnp
 import numpy as np
 import pytest
 import scipy.linalg as sla
+from hypothesis import given
+from hypothesis import strategies as st
 
 from instantonkit.lattice import observables as obs
 from instantonkit.lattice import operators as ops
@@ -21,6 +23,10 @@ ZERO = np.zeros((4, 4), dtype=int)
 def random_links(shape, n=2, seed=0):
     """Haar-random SU(n) links (`observables.random_gauge` per direction): rough, far from smooth."""
     return np.stack([obs.random_gauge(shape, n, seed=seed + mu) for mu in range(4)], axis=4)
+
+
+#: Haar-random SU(2) links on 4^4 (every twisted loop far from 1).
+RANDOM_4 = random_links((4, 4, 4, 4), 2, seed=5)
 
 
 def perturbed(u, size, seed=0):
@@ -142,6 +148,19 @@ def test_moving_the_twist_by_a_singular_gauge_transformation_leaves_every_twiste
         to.twisted_operator_charge_density(v, TWIST, "symanzik", corner=moved),
         to.twisted_operator_charge_density(rough, TWIST, "symanzik", corner=c),
         atol=1e-13,
+    )
+
+
+@given(st.sampled_from(obs.PLANES), st.tuples(*[st.integers(0, 3)] * 4))
+def test_moving_a_single_plane_twist_leaves_the_twisted_symanzik_action(plane, c):
+    # the same singular gauge transformation for every plane and corner ('t Hooft 1979, from memory): U_mu on the
+    # sheet (c_mu, c_nu) times z = -1 moves the twist from c to c - e_nu; the 1x2 loops of either orientation
+    # that hold the old or the new corner change their factor and their links together
+    u = RANDOM_4
+    twist = {(plane[0] + 1, plane[1] + 1): 1}
+    v, moved = _moved(u, 2, plane, c)
+    assert to.twisted_operator_action(v, twist, "symanzik", corner=moved) == pytest.approx(
+        to.twisted_operator_action(u, twist, "symanzik", corner=c), rel=1e-13
     )
 
 
