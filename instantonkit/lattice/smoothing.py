@@ -314,10 +314,12 @@ def _cool_sweep(u, colours, c1, c2, two: bool, ncol: int, hits: int):
 class SmoothingRecord:
     """Observables along a flow or a cooling run, one entry per measurement; all (m,) float64.
 
-    time: flow time t / a^2 (flow) or sweeps done (cooling); wilson_action: S_W (beta = 2N); action: the
-    driving action S(eps) (= S_W for eps = 1), or the loop operator's action when one drives the run;
-    clover_charge: Q of the 1x1 clover; improved_charge: `improved_charge`; size: `instanton_size`
-    (rho/a); eps: NaN when a loop operator drives the run; operator: its name ('' for S(eps)).
+    time: flow time t / a^2 (flow; in the units of ``t`` when a spacing is given) or sweeps done (cooling);
+    wilson_action: S_W (beta = 2N; with the anisotropic plane weights of `instantonkit.lattice.thermal` on an
+    anisotropic lattice); action: the driving action S(eps) (= S_W for eps = 1), or the loop operator's action
+    when one drives the run; clover_charge: Q of the 1x1 clover; improved_charge: `improved_charge`; size:
+    `instanton_size` (rho/a; NaN on an anisotropic lattice); eps: NaN when a loop operator drives the run;
+    operator: its name ('' for S(eps)).
     """
 
     time: np.ndarray
