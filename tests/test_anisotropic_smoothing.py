@@ -1,6 +1,7 @@
 """Loop operators, flow and cooling on anisotropic lattices (spacing= of instantonkit.lattice.operators,
 instantonkit.lattice.smoothing, instantonkit.lattice.stability)."""
 
+import jax
 import jax.numpy as jnp
 import numpy as np
 import pytest
@@ -159,6 +160,24 @@ def test_anisotropic_wilson_flow_frequency_is_four_times_the_sum_of_inverse_squa
     a = (1.0, 1.0, 1.0, 0.5)
     assert st.operator_flow_frequency("wilson", spacing=a) == pytest.approx(4 * (3 + 4), rel=1e-12)
     assert st.flow_step_bound(spacing=0.5) == pytest.approx(0.25 * st.flow_step_bound(), rel=1e-12)
+
+
+@pytest.mark.long
+def test_anisotropic_symanzik_flow_frequency_matches_power_iteration_of_its_force():
+    # as tests/test_operators.py's isotropic check: at p = (pi, pi, pi, pi) the 1x2 loops' flux vanishes and the
+    # plaquette weight c0 = 5/3 is left, so lambda_max = (5/3) 4 sum 1 / a_mu^2 = 140/3 at (1, 1, 1, 0.5)
+    op = ops.OPERATOR_PRESETS["symanzik"]
+    assert st.operator_flow_frequency(op, spacing=XI2) == pytest.approx(140.0 / 3.0, rel=1e-12)
+    omega = jnp.asarray(staples.staple_weights(op.terms, np.asarray(XI2)))
+    force = jax.jit(sm._w_force, static_argnames="pairs")
+    rng = np.random.default_rng(0)
+    x = np.asarray(sm._traceless_antihermitian(rng.normal(size=(4,) * 4 + (4, 2, 2)) + 0j))
+    lam = 0.0
+    for _ in range(40):
+        y = -np.asarray(force(sm._expm_su(1e-7 * x), op.pairs, omega)) / 1e-7
+        lam = float(np.linalg.norm(y) / np.linalg.norm(x))
+        x = y / np.linalg.norm(y)
+    assert lam == pytest.approx(140.0 / 3.0, rel=1e-3)
 
 
 @pytest.mark.long
