@@ -297,6 +297,21 @@ def test_the_twisted_flow_with_the_wilson_preset_is_the_twisted_wilson_flow():
 
 
 @pytest.mark.long
+def test_the_twisted_flow_in_physical_time_has_the_bits_of_lattice_units():
+    u = perturbed(tw.constant_flux_links((4, 2, 2, 4)), 0.4, seed=1)
+    v1, r1 = tf.twisted_flow(u, TWIST, 0.025, 0.0125, spacing=0.5)
+    v2, r2 = tf.twisted_flow(u, TWIST, 0.1, 0.05)
+    assert np.array_equal(v1, v2) and np.array_equal(r1.time, 0.25 * r2.time)
+
+
+@pytest.mark.long
+def test_an_anisotropic_twisted_flow_lowers_its_action():
+    u = perturbed(tw.constant_flux_links((4, 2, 2, 4)), 0.4, seed=1)
+    _, rec = tf.twisted_flow(u, TWIST, 0.06, 0.02, spacing=(1.0, 1.0, 1.0, 0.5))
+    assert np.all(np.diff(rec.action) < 0) and np.array_equal(rec.action, rec.wilson_action)
+
+
+@pytest.mark.long
 def test_twisted_symanzik_flow_lowers_its_action():
     u = perturbed(tw.constant_flux_links((4, 2, 2, 4)), 0.4, seed=1)
     _, rec = tf.twisted_flow(u, TWIST, 0.1, 0.02, action="symanzik")
