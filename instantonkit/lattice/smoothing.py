@@ -46,6 +46,7 @@ import numpy as np
 from ..core import _progress
 from ..core import _validate as _v
 from ..core.conventions import CHARGE_DENSITY_FACTOR  # noqa: F401  (kept importable here)
+from . import operators as _operators
 from .loops import (  # re-exported: the measurements the flows and cooling drive
     _dag,
     _links,
@@ -62,8 +63,8 @@ from .loops import (  # re-exported: the measurements the flows and cooling driv
     loop_clover_charge,
 )
 from .observables import PLANES  # noqa: F401  (kept importable here)
-from .operators import epsilon_action, get_operator
-from .rectangles import ORDERED_PLANES, colour_period, colours, loop_traces, staple
+from .operators import get_operator
+from .rectangles import colour_period, colours, loop_traces, staple
 from .stability import (  # noqa: F401
     ACTION_RISE_TOL,
     RK3_STABILITY,
@@ -72,7 +73,7 @@ from .stability import (  # noqa: F401
     max_flow_frequency,
     operator_flow_frequency,
 )
-from .staples import staple_weights, weighted_staple
+from .staples import action_weights, plane_loop_sums, staple_weights, weighted_staple
 
 __all__ = [
     "SmoothingRecord",
@@ -183,21 +184,18 @@ def _rk3_step_w(u, h, omega, pairs):
 @functools.partial(jax.jit, static_argnames=("pairs",))
 def _measure_w(u, kappa, wilson_kappa, pairs):
     """The record row on an anisotropic lattice: [S_W, S_op, Q_clover, Q_imp, NaN], the actions with the area
-    weights kappa (len(pairs), 12) and wilson_kappa (12,) per ordered plane (`_aniso_weights`); both charges
-    are sums of V q with V q independent of the spacings (every term eps F F holds each direction once)."""
+    weights kappa (len(pairs), 12) and wilson_kappa (12,) per ordered plane (`instantonkit.lattice.staples.
+    action_weights`); both charges are sums of V q with V q independent of the spacings (every term eps F F
+    holds each direction once)."""
     row = _measure(u, 1.0, 0.0, False)
-    tr = loop_traces(u, pairs)
-    s = sum(jnp.sum(kappa[i][:, None, None, None, None] * tr[i]) for i in range(len(pairs)))
-    sw = jnp.sum(wilson_kappa[:, None, None, None, None] * loop_traces(u, ((1, 1),))[0])
+    s = jnp.sum(kappa * plane_loop_sums(u, pairs))
+    sw = jnp.sum(wilson_kappa * plane_loop_sums(u, ((1, 1),))[0])
     return jnp.stack([sw, s, row[2], row[3], jnp.nan])
 
 
 def _aniso_weights(op, a):
-    """(kappa (len(terms), 12), wilson kappa (12,)): c V / (m n a_mu a_nu)^2 per term and ordered plane
-    (`instantonkit.lattice.operators`; the anisotropic Wilson weights of `instantonkit.lattice.thermal`)."""
-    vol = float(np.prod(a))
-    per = np.array([vol / (a[mu] * a[nu]) ** 2 for mu, nu in ORDERED_PLANES])
-    kappa = np.array([[float(c) / (m * n) ** 2 * w for w in per] for m, n, c in op.terms])
+    """`instantonkit.lattice.staples.action_weights` of a loop operator as jax arrays."""
+    kappa, per = action_weights(op.terms, a)
     return jnp.asarray(kappa), jnp.asarray(per)
 
 
@@ -411,7 +409,7 @@ def gradient_flow(
     n = int(steps)
     h = tt / n if n else h
     if aniso:
-        flow_op = op if op is not None else epsilon_action(float(eps))
+        flow_op = op if op is not None else _operators.epsilon_action(float(eps))
         bound = flow_step_bound(action=flow_op, spacing=a)
         lam = operator_flow_frequency(flow_op, spacing=a)
         what = f"the action {flow_op.name!r} at spacings {a.tolist()}"
@@ -509,7 +507,7 @@ def cool(
     a = _v.spacings("spacing", spacing)
     shape = u.shape[:4]
     if not np.all(a == a[0]):
-        cool_op = op if op is not None else epsilon_action(float(eps))
+        cool_op = op if op is not None else _operators.epsilon_action(float(eps))
         period = colour_period(cool_op.pairs)
         if any(s % period for s in shape):
             raise ValueError(
