@@ -68,6 +68,7 @@ from .lattice.starts import average_plaquette, clover_charge, lattice_links, lat
 from .lattice.thermal import thermal_spacings
 from .lattice.twist import constant_flux_links, twisted_clover_charge, twisted_wilson_action
 from .lattice.twisted_flow import twisted_cool, twisted_flow
+from .lattice.twisted_operators import twisted_operator_action, twisted_operator_charge
 from .verification.checks import (
     DivergentIntegralError,
     FieldEvaluationError,
@@ -203,6 +204,8 @@ __all__ = [
     "twisted_clover_charge",
     "twisted_flow",
     "twisted_cool",
+    "twisted_operator_action",
+    "twisted_operator_charge",
 ]
 
 
