@@ -37,6 +37,8 @@ DEFAULT_VARIANTS = {
     "test_unitary_adhm.py::test_closed_form_density_matches_osborn_and_autodiff": ("3",),
     "test_unitary_zero_modes.py::test_n2_modes_are_the_quaternionic_modes_up_to_the_gauge_relation": ("1",),
     "test_transforms.py::test_wrappers_forward_the_batch_densities_of_the_wrapped_field": ("parity",),
+    "test_lattice.py::test_wrapped_generator_batch_equals_the_contracted_potential": ("window",),
+    "test_lattice.py::test_closed_link_hooks_are_asked_of_the_field_and_forwarded_by_exact_wrappers": ("gauged",),
     "test_unitary_zero_modes.py::test_gram_closed_form_equals_the_modes_and_minus_box_f": ("su3_k3",),
     "test_zero_modes.py::test_dirac_equation_holds_pointwise_by_autodiff": ("bpst", "k2"),
     "test_lattice.py::test_bpst_closed_form_link_equals_magnus_quadrature": ("regular-1",),

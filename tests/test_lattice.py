@@ -167,24 +167,37 @@ def test_unitary_generator_batch_equals_the_contracted_potential(k, gauge):
     assert np.max(np.abs(got - ref)) < 1e-13 * max(1.0, np.max(np.abs(ref)))
 
 
-def test_wrapped_generator_batch_equals_the_contracted_potential():
-    # the wrappers that forward the hook (translation, rotation, dilation, parity; the torus window of
-    # instantonkit.ansatz.periodic) map it exactly as they map the potential; a gauge transformation does not offer it
+def _wrapped_k2(kind):
+    """A wrapper of random charge-2 ADHM data that forwards the generator-batch hook."""
     from instantonkit.ansatz import periodic
     from instantonkit.engine import transforms
 
     data = ik.random_adhm(2, seed=6)
+    return {
+        "translate": lambda: transforms.translate(data, [0.3, -0.2, 0.1, 0.5]),
+        "rotate": lambda: transforms.rotate(data, np.array([0.5, 0.5, -0.5, 0.5]), np.array([0.6, 0.0, 0.8, 0.0])),
+        "dilate": lambda: transforms.dilate(data, 1.7),
+        "parity": lambda: transforms.parity(data),
+        "window": lambda: periodic.window_field(data, (8,) * 4, 0.75, np.full(4, -2.625), width=0.25),
+    }[kind]()
+
+
+@pytest.mark.parametrize("kind", ["translate", "rotate", "dilate", "parity", "window"])
+def test_wrapped_generator_batch_equals_the_contracted_potential(kind):
+    # the wrappers that forward the hook (translation, rotation, dilation, parity; the torus window of
+    # instantonkit.ansatz.periodic) map it exactly as they map the potential
+    field = _wrapped_k2(kind)
     rng = np.random.default_rng(6)
     pts, dirs = rng.uniform(-3.0, 3.0, size=(120, 4)), rng.normal(size=(120, 4))
-    for field in (
-        transforms.translate(data, [0.3, -0.2, 0.1, 0.5]),
-        transforms.rotate(data, np.array([0.5, 0.5, -0.5, 0.5]), np.array([0.6, 0.0, 0.8, 0.0])),
-        transforms.dilate(data, 1.7),
-        transforms.parity(data),
-        periodic.window_field(data, (8,) * 4, 0.75, np.full(4, -2.625), width=0.25),
-    ):
-        ref = np.einsum("mu...,mu->m...", np.asarray(jax.vmap(field.potential)(jnp.asarray(pts))), dirs)
-        assert np.max(np.abs(np.asarray(field.generator_batch(pts, dirs)) - ref)) < 1e-13
+    ref = np.einsum("mu...,mu->m...", np.asarray(jax.vmap(field.potential)(jnp.asarray(pts))), dirs)
+    assert np.max(np.abs(np.asarray(field.generator_batch(pts, dirs)) - ref)) < 1e-13
+
+
+def test_a_gauge_transformation_does_not_offer_the_generator_batch():
+    # a gauge transformation changes the potential by g^-1 dg, which the batch kernel does not know
+    from instantonkit.engine import transforms
+
+    data = ik.random_adhm(2, seed=6)
     assert fields.hook(transforms.gauge_transform(data, lambda x: jnp.eye(2, dtype=complex)), "generator_batch") is None
 
 
@@ -255,26 +268,36 @@ def test_node_batch_is_small_only_for_potentials_that_call_lapack():
     assert transport.node_batch(ik.random_unitary_adhm(2, 3, seed=1)) == transport.NODE_BATCH_PLAIN
 
 
-def test_closed_link_hooks_are_asked_of_the_field_and_forwarded_by_exact_wrappers(segments):
-    # the closed forms of BPSTField and of translated / gauge-transformed charge-1 data against the
-    # Magnus quadrature of their own potentials (no closed form involved on that side)
+def _closed_link_field(kind):
+    """A charge-1 field with a closed-form link: BPSTField itself, or charge-1 data translated or gauge-rotated."""
     import jax.numpy as jnp
 
-    starts, steps = segments
-    orient = np.array([0.5, -0.5, 0.5, 0.5])
-    bf = ik.bpst_field([0.1, -0.2, 0.3, 0.15], 1.1, gauge="singular", orientation=orient)
-    shifted = ik.translate(ik.bpst(size=1.1), [0.2, 0.1, -0.3, 0.05])
-    gauged = ik.gauge_transform(
+    if kind == "bpst_field":
+        return ik.bpst_field([0.1, -0.2, 0.3, 0.15], 1.1, gauge="singular", orientation=np.array([0.5, -0.5, 0.5, 0.5]))
+    if kind == "translated":
+        return ik.translate(ik.bpst(size=1.1), [0.2, 0.1, -0.3, 0.05])
+    return ik.gauge_transform(
         ik.bpst(size=1.1).with_gauge("regular"),
         lambda x: jnp.asarray(ik.quaternion.to_matrix(jnp.array([jnp.cos(0.3 * x[0]), jnp.sin(0.3 * x[0]), 0.0, 0.0]))),
     )
-    for field in (bf, shifted, gauged):
-        assert fields.hook(field, "closed_link") is not None
-        rep = {}
-        closed = lat.parallel_transporter(field, starts, steps, report=rep)
-        quad = lat.parallel_transporter(field, starts, steps, method="magnus", rtol=1e-13)
-        assert rep["method"] == "closed" and np.max(np.abs(closed - quad)) < 1e-12
-    # no closed form: charge 2, Sp(2), and wrappers that cannot map it exactly
+
+
+@pytest.mark.parametrize("kind", ["bpst_field", "translated", "gauged"])
+def test_closed_link_hooks_are_asked_of_the_field_and_forwarded_by_exact_wrappers(segments, kind):
+    # the closed forms of BPSTField and of translated / gauge-transformed charge-1 data against the
+    # Magnus quadrature of their own potentials (no closed form involved on that side)
+    starts, steps = segments
+    field = _closed_link_field(kind)
+    assert fields.hook(field, "closed_link") is not None
+    rep = {}
+    closed = lat.parallel_transporter(field, starts, steps, report=rep)
+    quad = lat.parallel_transporter(field, starts, steps, method="magnus", rtol=1e-13)
+    assert rep["method"] == "closed" and np.max(np.abs(closed - quad)) < 1e-12
+
+
+def test_fields_without_a_closed_form_link_do_not_offer_one(segments):
+    # charge 2, Sp(2), and wrappers that cannot map the charge-1 closed form exactly
+    starts, steps = segments
     two = ik.multi_instanton([[1.0, 0, 0, 0], [-1.0, 0, 0, 0]], [1.0, 1.0])
     for field in (
         two,
