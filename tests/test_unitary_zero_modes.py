@@ -106,7 +106,7 @@ def test_frame_modes_are_the_default_modes_without_the_phase(case):
     psi = zm.zero_modes(data, x, connection="frame")
     theta = zm.u1_phase(data, x)
     np.testing.assert_allclose(zm.zero_modes(data, x), np.exp(1j * theta)[:, None, None, None] * psi, atol=1e-15)
-    a = np.stack([np.asarray(zm.u1_part(data, jnp.asarray(p))) for p in x])  # (P, 4)
+    a = np.asarray(jax.vmap(lambda p: zm.u1_part(data, p))(jnp.asarray(x)))  # (P, 4)
     wrong = np.einsum("pm,pkca,mab->pkcb", a, psi, zm.SIGMA)
     _, scale = zm.dirac_residual(data, x)
     assert float(np.max(np.linalg.norm(wrong.reshape(len(x), -1), axis=1) / scale)) > 1e-4
