@@ -87,8 +87,10 @@ def _plane_traces(ua, ub, loops: tuple):
     return jnp.stack(out)
 
 
-def _clover(da, db, p: int, q: int):
-    """Sum Q of the four p x q loops (p along a) that start and end at x, all oriented a -> b; (La, Lb, B, N, N).
+def _leaves(da, db, p: int, q: int):
+    """The four p x q loops (p along a) that start and end at x, all oriented a -> b, each as (shift, M): the
+    leaf at x is M(x + shift), shift = (s_a, s_b) along the plane's axes (so that leaves of one shift are
+    summed before they are moved).
 
     From the corner products (L, R) of `_corners`, each leaf as a product without inverse pairs:
     (+a, +b): L(x) R(x)^dag; (-a, +b): D^q_b(y + p a) R(y)^dag D^p_a(y), y = x - p a; (-a, -b):
@@ -96,30 +98,50 @@ def _clover(da, db, p: int, q: int):
     """
     dap, dbq = da[p - 1], db[q - 1]
     left, right = _corners(da, db, p, q)
-    out = _mm_nd(left, right)
-    out = out + _sh(_mm(_mm_nd(_sh(dbq, 0, p), right), dap), 0, -p)
-    out = out + _sh(_sh(_mm_dn(right, left), 0, -p), 1, -q)
-    return out + _sh(_mm_nd(_mm_dn(dbq, left), _sh(dap, 1, q)), 1, -q)
+    return (
+        ((0, 0), _mm_nd(left, right)),
+        ((-p, 0), _mm(_mm_nd(_sh(dbq, 0, p), right), dap)),
+        ((-p, -q), _mm_dn(right, left)),
+        ((0, -q), _mm_nd(_mm_dn(dbq, left), _sh(dap, 1, q))),
+    )
+
+
+def _moved_sum(acc: dict):
+    """sum over shifts (s_a, s_b) of acc[shift](x + shift): one shift along a per entry, one along b per
+    distinct s_b (each shift of a block is a pass over it, as costly as a third of a product)."""
+    by_b: dict = {}
+    for (sa, sb), x in acc.items():
+        x = _sh(x, 0, sa)
+        by_b[sb] = by_b[sb] + x if sb in by_b else x
+    out = None
+    for sb in sorted(by_b):
+        x = _sh(by_b[sb], 1, sb)
+        out = x if out is None else out + x
+    return out
 
 
 def _plane_fields(ua, ub, pairs: tuple, scales, summed: bool):
-    """Clover field strengths of the terms in one plane: scale_i P_ah(Q^{m x n} + Q^{n x m}) (a square: Q once).
+    """Clover field strengths of the terms in one plane: scale_i P_ah(Q^{m x n} + Q^{n x m}) (a square: Q once),
+    Q^{p x q} the sum of the four p x q leaves of `_leaves`.
 
     With scale_i = c_i / (8 m n a_mu a_nu) (a square: c_i / (4 m^2 a_mu a_nu)) this is c_i F^{(m, n)}, the
     clover of the m x n loops divided by its area (both orientations averaged), = c_i F + O(a^2) (the
     clover of Bilson-Thompson, Leinweber, Williams, Ann. Phys. 304 (2003) 1, from memory).  summed:
-    (1, La, Lb, B, N, N) the sum over the terms; else (len(pairs), La, Lb, B, N, N).
+    (1, La, Lb, B, N, N) the sum over the terms (P_ah is real-linear: one projection of the weighted
+    sum); else (len(pairs), La, Lb, B, N, N).
     """
     da, db = _plane_longs(ua, ub, max(max(pr) for pr in pairs))
     out = []
+    acc: dict = {}
     for i, (m, n) in enumerate(pairs):
-        q = _clover(da, db, m, n)
-        if m != n:
-            q = q + _clover(da, db, n, m)
-        out.append(scales[i] * q)
-    if summed:  # P_ah is real-linear: one projection of the weighted sum
-        return _ah(sum(out))[None]
-    return jnp.stack([_ah(q) for q in out])
+        for p, q in ((m, n), (n, m)) if m != n else ((m, n),):
+            for key, leaf in _leaves(da, db, p, q):
+                leaf = scales[i] * leaf
+                acc[key] = acc[key] + leaf if key in acc else leaf
+        if not summed:
+            out.append(_ah(_moved_sum(acc)))
+            acc = {}
+    return _ah(_moved_sum(acc))[None] if summed else jnp.stack(out)
 
 
 def _ah(m):
