@@ -466,7 +466,9 @@ def operator_field_strength(links, operator="clover", *, spacing=1.0, boundary="
             dest[...] = -fp.reshape(dest.shape)
     mask = _site_mask(shape, op.extent, opened)
     if mask is not None:
-        out[~mask] = np.nan
+        for mu, nu in PLANES:  # the diagonal F_mu mu stays 0
+            out[~mask, mu, nu] = np.nan
+            out[~mask, nu, mu] = np.nan
     return out
 
 
