@@ -6,7 +6,9 @@ cores), split into the first call (with the compilation of the caloron's Magnus 
 call of the same start (compiled) and one at the looser Magnus target rtol = 1e-10 (about half the
 potential evaluations; the links move by about 1e-10, far below the lattice artefacts), with S_W / 8 pi^2, the clover charge and 1/2 tr of the lattice
 Polyakov loop at the box corner (cos 2 pi omega = 0, Kraan, van Baal, Nucl. Phys. B 533 (1998) 627,
-from memory).  Quick mode (a few seconds): the caloron's kernel alone compiles for about 30 s, so quick
+from memory), and the constituent finder on the links (`ik.find_lattice_constituents`, clover charge
+density): its time and how far the found constituents lie from the field's (the maxima of the density
+sit inside the constituents while the cores overlap: 0.785 beta apart here).  Quick mode (a few seconds): the caloron's kernel alone compiles for about 30 s, so quick
 mode times an anisotropic BPST start (closed-form links, 8^3 x 16, a_s = 2 a_t) and the anisotropic
 Wilson action and clover charge density on it; the caloron figures come from the full run.
 The CPU seconds beside each start tell what a quiet machine would take when the wall time is
@@ -95,6 +97,13 @@ def _caloron_rows(n_t: int = 6, n_s: int = 32, omega: float = 0.25) -> list[dict
         cpus.append(time.process_time() - c0)
     start, loose = starts[1e-12], starts[1e-10]
     diff = float(np.max(np.abs(start.links - loose.links)))
+    t0, c0 = time.perf_counter(), time.process_time()
+    found = ik.find_lattice_constituents(
+        start.links, 2, spacing=a, origin=start.report.origin, quantity="charge", period=beta
+    )
+    t_find, c_find = time.perf_counter() - t0, time.process_time() - c0
+    want = field.constituents()[0][:, :3]
+    off = max(float(np.min(np.linalg.norm(want - p, axis=1))) for p in found.positions)
     tr = 0.5 * np.trace(pl.lattice_polyakov_loop(start.links)[0, 0, 0]).real
     s_w = obs.wilson_action(start.links) / EIGHT_PI2
     q = obs.clover_charge(start.links)
@@ -120,6 +129,16 @@ def _caloron_rows(n_t: int = 6, n_s: int = 32, omega: float = 0.25) -> list[dict
             unit="s",
             ratio=times[2] / 30.0,
             reference=f"ratio: over the 30 s goal; CPU {cpus[2]:.1f} s; links differ by {diff:.1e}",
+        ),
+        dict(
+            figure=f"{label}: constituent finder on the links (clover charge)",
+            value=t_find,
+            unit="s",
+            ratio=off,
+            reference=(
+                f"ratio: largest distance / beta of a found constituent from the field's; CPU {c_find:.1f} s; "
+                f"fractions {', '.join(f'{v:.3f}' for v in found.fractions)} (2 omega, 1 - 2 omega = 0.5)"
+            ),
         ),
         dict(figure=f"{label}: S_W / 8 pi^2", value=s_w, unit="", ratio=None, reference="-> 1 as a -> 0"),
         dict(figure=f"{label}: clover Q", value=q, unit="", ratio=None, reference="1 per period"),

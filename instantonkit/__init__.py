@@ -54,6 +54,7 @@ from .engine.fields import (
     self_duality_residual,
 )
 from .engine.transforms import anti, dilate, gauge_transform, parity, rotate, translate
+from .fit.constituent_finder import ConstituentFit, find_constituents, find_lattice_constituents
 from .fit.finder import InstantonFit, MixedFit, find_instantons
 from .fit.lattice_fit import ColourRank, colour_rank, find_lattice_instantons
 from .lattice import files as io
@@ -67,6 +68,7 @@ from .lattice.starts import average_plaquette, clover_charge, lattice_links, lat
 from .lattice.thermal import thermal_spacings
 from .lattice.twist import constant_flux_links, twisted_clover_charge, twisted_wilson_action
 from .lattice.twisted_flow import twisted_cool, twisted_flow
+from .lattice.twisted_operators import twisted_operator_action, twisted_operator_charge
 from .verification.checks import (
     DivergentIntegralError,
     FieldEvaluationError,
@@ -161,6 +163,9 @@ __all__ = [
     "GeodesicPath",
     "find_instantons",
     "find_lattice_instantons",
+    "find_constituents",
+    "find_lattice_constituents",
+    "ConstituentFit",
     "colour_rank",
     "ColourRank",
     "InstantonFit",
@@ -199,6 +204,8 @@ __all__ = [
     "twisted_clover_charge",
     "twisted_flow",
     "twisted_cool",
+    "twisted_operator_action",
+    "twisted_operator_charge",
 ]
 
 

@@ -262,6 +262,28 @@ ROWS: dict[str, Row] = {
         _call(ik.find_lattice_instantons, links=GOOD_LINKS, k=1),
         {"links": LINKS, "k": COUNT, "spacing": POSITIVE},
     ),
+    "find_lattice_constituents": (
+        _call(ik.find_lattice_constituents, links=GOOD_LINKS, n=1, spacing=1.0),
+        {"links": LINKS, "n": COUNT, "spacing": POSITIVE, "period": POSITIVE},
+    ),
+    "find_constituents": (
+        _call(ik.find_constituents, points=GRID, density=DENSITY, n=1, period=1.0),
+        {
+            "points": _without(POINTS, "absurd"),
+            "density": {
+                "nan": _with(NAN, DENSITY),
+                "inf": _with(INF, DENSITY),
+                "shape": DENSITY[:-1],
+                "dtype_complex": DENSITY.astype(complex),
+                "dtype_str": DENSITY.astype(str),
+                "dtype_bool": DENSITY > 0.5,
+                "empty": np.zeros(0),
+            },
+            "n": COUNT,
+            "period": POSITIVE,
+            "weights": {"nan": _with(NAN, DENSITY), "negative": -DENSITY, "shape": DENSITY[:-1]},
+        },
+    ),
     "find_instantons": (
         _call(ik.find_instantons, points=GRID, density=DENSITY, k=1),
         {
@@ -430,7 +452,11 @@ ROWS: dict[str, Row] = {
 }
 
 # the words a message uses for an argument whose parameter name is not the user's word for it
-WORDS = {("as_field", "obj"): "field", ("find_instantons", "points"): "point"}
+WORDS = {
+    ("as_field", "obj"): "field",
+    ("find_instantons", "points"): "point",
+    ("find_constituents", "points"): "point",
+}
 # an empty list of points gives an empty array of values (numpy's convention), not a number
 EMPTY_IS_EMPTY = {
     "potential",

@@ -266,6 +266,20 @@ def test_grid_values_are_bit_identical_to_the_local_evaluation(tmp_path):
     assert z.shape == shape and _to_rounding(np.asarray(z[...]), ik.action_density(TWO, pts))
 
 
+ANISO = (0.5, 0.5, 0.5, 0.25)  # a thermal lattice's (a_s, a_s, a_s, a_t), xi = 2
+
+
+def test_an_anisotropic_grid_gives_the_local_values_at_origin_plus_a_mu_n_mu(tmp_path):
+    # four spacings as the starts take them (instantonkit.lattice.thermal); the chunks see the same sites
+    shape = (3, 2, 3, 4)
+    z = cluster.evaluate_grid(
+        TWO, shape, ANISO, "charge_density", chunks=(2, 2, 2, 3), store=tmp_path / "g", client="sync"
+    )
+    pts = lat.site_points(shape, ANISO, lat.default_origin(TWO, shape, ANISO))
+    assert _to_rounding(np.asarray(z[...]), ik.charge_density(TWO, pts))
+    assert cluster.store_status(tmp_path / "g").params["spacing"] == list(ANISO)
+
+
 def test_grid_field_strength_keeps_the_trailing_axes():
     field = ik.bpst(size=1.0)
     lazy = cluster.evaluate_grid(field, (2, 2, 3, 2), 0.5, "field_strength", chunks=(1, 2, 2, 2))
@@ -353,6 +367,23 @@ def test_ensemble_members_are_valid_charge_k_data_inside_the_box():
     for m in ens.members:
         assert m.k == 3 and m.constraint_residual() < 1e-12
         assert np.all((np.asarray(m.sizes()) >= 0.5) & (np.asarray(m.sizes()) <= 1.0))  # (L a / 16, L a / 8)
+
+
+def test_an_anisotropic_ensemble_member_is_its_local_start_bit_for_bit(tmp_path):
+    # DEVELOPERS.md, chunked evaluation: the chunked path gives the local bits, for four spacings too
+    shape = (2, 2, 2, 4)
+    ens = cluster.ensemble(
+        1, 1, shape, ANISO, seed=4, rtol=1e-8, chunks=(1, 2, 2, 4), store=tmp_path / "e", client="sync"
+    )
+    local = lat.lattice_links(ens.members[0], shape, ANISO, origin=lat.default_origin(None, shape, ANISO), rtol=1e-8)
+    assert np.array_equal(np.asarray(ens.links[0]), local)
+    assert ens.reports[0].spacings == ANISO and cluster.store_status(tmp_path / "e").params["spacing"] == list(ANISO)
+
+
+def test_an_ensemble_of_four_equal_spacings_is_the_ensemble_of_one():
+    one = cluster.ensemble(1, 1, (2, 2, 2, 2), 0.5, seed=4, rtol=1e-8)
+    four = cluster.ensemble(1, 1, (2, 2, 2, 2), [0.5] * 4, seed=4, rtol=1e-8)
+    assert np.array_equal(one.links.compute(scheduler="sync"), four.links.compute(scheduler="sync"))
 
 
 @pytest.mark.slow

@@ -432,3 +432,14 @@ def test_exact_su2_fit_of_a_genuine_su3_density_is_flagged():
     s = ik.action_density(truth, LATTICE11 * 1.125)
     fit = find_instantons(LATTICE11 * 1.125, s, 2)
     assert fit.ambiguous and any("SU(N > 2)" in r for r in fit.reasons), fit.reasons
+
+
+def test_peaks_closer_than_a_merge_radius_count_once():
+    # two BPST lumps (48 rho^4 / (|x - a|^2 + rho^2)^4, Belavin, Polyakov, Schwartz, Tyupkin 1975) of size 0.5
+    # on sites 3.2 apart: two peaks by the BPST-size rule, one when the merge radius is given as 4
+    c = np.array([[-1.6, 0.0, 0.0, 0.0], [1.6, 0.0, 0.0, 0.0]])
+    s = sum(48 * 0.5**4 / (np.sum((LATTICE11 - a) ** 2, axis=-1) + 0.5**2) ** 4 for a in c)
+    assert count_peaks(LATTICE11, s)[0].shape == (2, 4)
+    assert count_peaks(LATTICE11, s, merge_radius=4.0)[0].shape == (1, 4)
+    with pytest.raises(ValueError, match="merge_radius must be >= 0"):
+        count_peaks(LATTICE11, s, merge_radius=-1.0)

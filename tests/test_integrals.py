@@ -159,7 +159,7 @@ def test_a_budget_below_the_first_round_is_refused_naming_max_points():
 def test_angular_refinement_cannot_talk_the_radial_error_down():
     # common practice: a level difference bounds the coarser level's error only while both levels are what they
     # were when compared; refining this level's angles moves the difference, so the largest one seen is kept
-    piece = cubature._Piece(0, np.zeros(4), 1.0, 4)
+    piece = cubature.Piece(0, np.zeros(4), 1.0, 4)
     piece.prev_value, piece.val = 1.0, np.array([1.0 + 6e-7])
     piece.update_radial_error()
     first = piece.radial_err

@@ -2,10 +2,13 @@
 
 import os
 import struct
+import zipfile
 
 import numpy as np
 import pytest
 
+from instantonkit.core import _validate
+from instantonkit.core._links import check_finite
 from instantonkit.lattice import files as lio
 from instantonkit.lattice import references
 from instantonkit.lattice import starts as lat
@@ -94,6 +97,63 @@ def test_ildg_from_memmap_input(tmp_path, links3):
     mm[:] = links3
     lio.save_lattice(tmp_path / "m.ildg", mm, format="ildg")
     assert np.array_equal(lio.load_lattice(tmp_path / "m.ildg")[0], links3)
+
+
+def _memmap_of(path, links):
+    mm = np.lib.format.open_memmap(path, mode="w+", dtype=np.complex128, shape=links.shape)
+    mm[:] = links
+    return mm
+
+
+def _no_second_pass(*args, **kwargs):
+    raise AssertionError("the memory map was read by a separate check before it was written")
+
+
+@pytest.mark.parametrize("fmt", ["npz", "ildg"])
+def test_memmap_is_checked_as_it_is_written_in_one_pass(tmp_path, links3, monkeypatch, fmt):
+    mm = _memmap_of(tmp_path / "u.npy", links3)
+    monkeypatch.setattr(lio, "_check_finite", _no_second_pass)
+    lio.save_lattice(tmp_path / f"m.{fmt}", mm)
+    assert np.array_equal(lio.load_lattice(tmp_path / f"m.{fmt}")[0], links3)
+
+
+@pytest.mark.parametrize("fmt", ["npz", "ildg"])
+def test_memmap_larger_than_the_machine_memory_is_refused_before_writing(tmp_path, links3, monkeypatch, fmt):
+    mm = _memmap_of(tmp_path / "u.npy", links3)
+    monkeypatch.setattr(_validate, "machine_memory", lambda: 1000.0)
+    with pytest.raises(ValueError, match=r"links is too large: .* this machine has 1\.000e\+03 bytes"):
+        lio.save_lattice(tmp_path / f"m.{fmt}", mm)
+    assert not (tmp_path / f"m.{fmt}").exists()
+
+
+def test_npz_of_a_memmap_holds_the_members_numpy_savez_writes(tmp_path, links3):
+    # reference: numpy.savez of the same arrays (numpy's own npz writer); member order and bytes, not zip timestamps
+    lio.save_lattice(tmp_path / "m.npz", _memmap_of(tmp_path / "u.npy", links3))
+    np.savez(
+        tmp_path / "ref.npz",
+        links=links3,
+        metadata=np.array("{}"),
+        instantonkit_npz_version=np.array(lio._NPZ_VERSION),
+    )
+    with zipfile.ZipFile(tmp_path / "m.npz") as got, zipfile.ZipFile(tmp_path / "ref.npz") as want:
+        assert got.namelist() == want.namelist()
+        assert all(got.read(name) == want.read(name) for name in want.namelist())
+
+
+@pytest.mark.parametrize("fmt", ["npz", "ildg"])
+def test_nan_in_a_memmap_gets_the_error_of_the_check_and_nothing_is_written(tmp_path, links3, fmt):
+    bad = links3.copy()
+    bad[2, 3, 1, 4, 1, 0, 2] = np.nan  # in the last x1 slice and the last time slice: read last
+    bad[1, 0, 0, 4, 3, 2, 2] = np.inf
+    mm = _memmap_of(tmp_path / "u.npy", bad)
+    (tmp_path / "out").mkdir()
+    with pytest.raises(ValueError) as want:
+        check_finite(bad)
+    with pytest.raises(ValueError) as got:
+        lio.save_lattice(tmp_path / "out" / f"m.{fmt}", mm)
+    assert str(got.value) == str(want.value)
+    assert "found 2 NaN or inf entries in 2 of" in str(got.value)
+    assert os.listdir(tmp_path / "out") == []
 
 
 @pytest.mark.parametrize("fmt", ["ildg", "npz"])

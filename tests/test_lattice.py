@@ -85,9 +85,9 @@ def test_magnus_steps_are_sixth_order_against_scipy():
     def run(m):
         w = np.eye(3, dtype=complex)
         for s in range(m):
-            gs = [g((s + node) / m) for node in transport._GL3]
+            gs = [g((s + node) / m) for node in transport.GL3]
             w = w @ np.asarray(
-                transport._expm_antihermitian(jnp.asarray(transport._magnus6(*[jnp.asarray(x) for x in gs], 1.0 / m)))
+                transport.expm_antihermitian(jnp.asarray(transport.magnus6(*[jnp.asarray(x) for x in gs], 1.0 / m)))
             )
         return w
 
@@ -106,7 +106,7 @@ def _u2_callable(c):
 
 
 def test_fused_su2_magnus_links_are_sixth_order_against_scipy():
-    # the quaternion form of the U(2) kernel (transport._fused_links: commutators as cross products, the
+    # the quaternion form of the U(2) kernel (transport.fused_links: commutators as cross products, the
     # trace by the Gauss-Legendre weights) against scipy's DOP853 at rtol 1e-13 on dW/dt = W G(t); order
     # six as for the matrix form (Blanes, Casas, Oteo, Ros, Phys. Rep. 470 (2009) 151, from memory)
     rng = np.random.default_rng(5)
@@ -132,7 +132,7 @@ def test_fused_su2_magnus_links_equal_the_node_batch_path(monkeypatch):
     c = [0.6 * _random_antihermitian(rng, 2) + 0.3j * np.eye(2) for _ in range(3)]
     for field in (ik.random_adhm(3, seed=4), fields.as_field(_u2_callable([jnp.asarray(ci) for ci in c]))):
         fused = transport._magnus_at(field, starts, steps, 4)
-        monkeypatch.setattr(transport, "_FUSED_MAX_STEPS", 0)
+        monkeypatch.setattr(transport, "FUSED_MAX_STEPS", 0)
         plain = transport._magnus_at(field, starts, steps, 4)
         monkeypatch.undo()
         assert np.max(np.abs(fused - plain)) < 1e-13
@@ -242,17 +242,17 @@ def test_transporter_agrees_with_ten_times_finer_quadrature(pair, segments):
 
 def test_node_batch_is_small_only_for_potentials_that_call_lapack():
     # a dispatch rule, no physics: batched small LAPACK calls stalled on CPU beyond ~10^4 matrices per call
-    # (measured, transport._NODE_BATCH), so only potentials whose jaxpr holds a LAPACK primitive get the small
+    # (measured, transport.NODE_BATCH), so only potentials whose jaxpr holds a LAPACK primitive get the small
     # batch; the library's ADHM potentials hold none
     def solving(x):
         v = jnp.linalg.solve(jnp.eye(2) * (1.0 + jnp.sum(x * x)), jnp.ones(2))
         return jnp.stack([1j * jnp.diag(v) * x[i] for i in range(4)])
 
-    assert transport._node_batch(fields.as_field(solving)) == transport._NODE_BATCH
-    assert transport._node_batch(ik.multi_instanton(centers=[[0, 0, 0, 0], [3, 0, 0, 0]], sizes=[1, 1])) == (
-        transport._NODE_BATCH_PLAIN
+    assert transport.node_batch(fields.as_field(solving)) == transport.NODE_BATCH
+    assert transport.node_batch(ik.multi_instanton(centers=[[0, 0, 0, 0], [3, 0, 0, 0]], sizes=[1, 1])) == (
+        transport.NODE_BATCH_PLAIN
     )
-    assert transport._node_batch(ik.random_unitary_adhm(2, 3, seed=1)) == transport._NODE_BATCH_PLAIN
+    assert transport.node_batch(ik.random_unitary_adhm(2, 3, seed=1)) == transport.NODE_BATCH_PLAIN
 
 
 def test_closed_link_hooks_are_asked_of_the_field_and_forwarded_by_exact_wrappers(segments):

@@ -30,13 +30,14 @@ def _kernel_missing() -> str | None:
     return None
 
 
-def test_there_are_four_example_notebooks():
+def test_there_are_five_example_notebooks():
     names = [os.path.basename(p) for p in NOTEBOOKS]
     assert names == [
         "01_handwritten_ansatz.ipynb",
         "02_charge3_adhm.ipynb",
         "03_lattice_start.ipynb",
         "04_zero_modes_and_finder.ipynb",
+        "05_calorons.ipynb",
     ]
 
 

@@ -47,6 +47,7 @@ __all__ = [
     "pack_unitary",
     "unpack_unitary",
     "unitary_weights",
+    "anti_hermitian_basis",
     "solve_moment_maps",
     "quaternionic_constraint",
     "solve_quaternionic_constraint",
@@ -183,6 +184,26 @@ def unpack_unitary(z, k: int, n: int):
         c[s[2] : s[3]].reshape(k, n),
         c[s[3] : s[4]].reshape(n, k),
     )
+
+
+def anti_hermitian_basis(n: int, off_diagonal: float = 1.0) -> np.ndarray:
+    """A basis of u(n), (n^2, n, n) complex128 anti-Hermitian, in the order (a, b) of its entries (common practice).
+
+    a = b: i E_aa; a < b: c (E_ab - E_ba); a > b: i c (E_ab + E_ba), with c = ``off_diagonal`` (1 / sqrt 2 makes
+    the basis orthonormal in the Frobenius inner product).
+    """
+    out = []
+    for a in range(n):
+        for b in range(n):
+            m = np.zeros((n, n), dtype=np.complex128)
+            if a == b:
+                m[a, a] = 1j
+            elif a < b:
+                m[a, b], m[b, a] = off_diagonal, -off_diagonal
+            else:
+                m[a, b], m[b, a] = 1j * off_diagonal, 1j * off_diagonal
+            out.append(m)
+    return np.array(out)
 
 
 def unitary_weights(k: int, n: int, off_b: float, diag_b: float, ij: float) -> np.ndarray:

@@ -41,7 +41,7 @@ from ..core.conventions import INSTANTON_ACTION, point_to_quaternion
 from ..engine.fields import evaluate
 from ..integrals.cubature import final_rule, integrate_adaptive
 from ..integrals.pieces import Layout
-from .moduli import _unit_orientations, solve_constraint_unrolled
+from .moduli import solve_constraint_unrolled, unit_orientations
 from .quaternionic import ADHMData
 from .tangent import (
     constraint_jacobian,
@@ -97,7 +97,7 @@ class StandardChart:
         k = c.shape[0]
         r = _validate.positive_vector("sizes", sizes, k)
         _validate.distinct_points("centers", c, 1e-8 * max(1.0, float(np.max(r))), noun="centers")
-        u = _unit_orientations(orientations, k, 1)[:, 0]
+        u = unit_orientations(orientations, k, 1)[:, 0]
         return cls(u, np.concatenate([c.ravel(), r, np.zeros(3 * k)]))
 
     @classmethod

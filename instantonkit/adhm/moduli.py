@@ -49,7 +49,7 @@ def _check_centers_sizes(centers, sizes):
     return c, r
 
 
-def _unit_orientations(orientations, k: int, rank: int) -> np.ndarray:
+def unit_orientations(orientations, k: int, rank: int) -> np.ndarray:
     """Orientations -> (k, n, 4) quaternionic unit vectors (columns of Lambda, normalised)."""
     if orientations is None:
         o = np.zeros((k, rank, 4))
@@ -104,7 +104,7 @@ def bpst(center=(0.0, 0.0, 0.0, 0.0), size: float = 1.0, orientation=(1.0, 0.0, 
     c = _validate.point("center", center)[None]
     r = np.array([_validate.positive_float("size", size)])
     o = np.asarray(orientation)
-    u = _unit_orientations(o[None] if o.shape == (4,) else o, 1, 1)
+    u = unit_orientations(o[None] if o.shape == (4,) else o, 1, 1)
     lam = r[None, :, None] * np.swapaxes(u, 0, 1)
     b = np.asarray(point_to_quaternion(c))[:, None, :]
     return ADHMData(lam, b)
@@ -138,7 +138,7 @@ def multi_instanton(centers, sizes, orientations=None, *, rank: int = 1, tol: fl
     c, r = _check_centers_sizes(centers, sizes)
     k = c.shape[0]
     _validate.adhm_affordable(k, rank, k_name="centers")
-    u = _unit_orientations(orientations, k, rank)  # (k, n, 4)
+    u = unit_orientations(orientations, k, rank)  # (k, n, 4)
     lam = np.swapaxes(u, 0, 1) * r[None, :, None]
     diag = np.asarray(point_to_quaternion(c))
     scale = 1.0 + float(np.max(r) ** 2 + np.max(np.sum(c**2, axis=1)))

@@ -40,10 +40,10 @@ from ..core import quaternion as qt
 from ..core._batching import run_batched
 from ..core._config import lean_compiler_options
 from ..core.conventions import E_MU
-from .base import pack_unitary, unitary_moment_maps, unpack_unitary
+from .base import anti_hermitian_basis, pack_unitary, unitary_moment_maps, unpack_unitary
 from .kernels import real_gram, spd_solve
 from .quaternionic import ADHMData, constraint_matrix
-from .unitary import _S, UnitaryADHMData
+from .unitary import S_MU, UnitaryADHMData
 
 __all__ = [
     "pack",
@@ -106,17 +106,7 @@ def orbit_directions(data):
     """
     k = data.k
     if isinstance(data, UnitaryADHMData):
-        gens = []
-        for i in range(k):
-            for j in range(k):
-                x = np.zeros((k, k), dtype=np.complex128)
-                if i == j:
-                    x[i, i] = 1j
-                elif i < j:
-                    x[i, j], x[j, i] = 1.0, -1.0
-                else:
-                    x[i, j], x[j, i] = 1j, 1j
-                gens.append(x)
+        gens = anti_hermitian_basis(k)
         b1, b2, ii, jj = (jnp.asarray(a) for a in (data.B1, data.B2, data.I, data.J))
         rows = [pack_unitary(x @ b1 - b1 @ x, x @ b2 - b2 @ x, x @ ii, -jj @ x) for x in map(jnp.asarray, gens)]
         return jnp.stack(rows)
@@ -295,7 +285,7 @@ def _unitary_modes(data: UnitaryADHMData, t, x):
     h = data.gram(x)  # f^-1, Hermitian (k, k)
     real = jnp.block([[h.real, -h.imag], [h.imag, h.real]])  # the real form of f^-1 acting on (Re, Im)
     ut = u[: 2 * k].reshape(2, k, nn)
-    y = jnp.einsum("mba,bkn->makn", jnp.conj(jnp.asarray(_S)), ut)  # (s_mu^dag (x) 1) b^dag U, (4, 2, k, N)
+    y = jnp.einsum("mba,bkn->makn", jnp.conj(jnp.asarray(S_MU)), ut)  # (s_mu^dag (x) 1) b^dag U, (4, 2, k, N)
     yk = jnp.moveaxis(y, 2, 0).reshape(k, -1)  # k index first
     z = spd_solve(real, jnp.concatenate([yk.real, yk.imag]))
     zk = (z[:k] + 1j * z[k:]).reshape(k, 4, 2, nn)

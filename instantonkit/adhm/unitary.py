@@ -70,7 +70,7 @@ def _point_of(z1, z2) -> np.ndarray:
     return np.stack([z2.imag, z2.real, -z1.imag, z1.real], axis=-1)
 
 
-# s_mu = the 2 x 2 matrix with d_mu Delta = b (s_mu (x) 1_k): s(x) = [[-conj z2, z1], [-conj z1, -z2]].
+# s_mu = the 2 x 2 matrix with d_mu Delta = b (s_mu (x) 1_k): s(x) = [[-conj z2, z1], [-conj z1, -z2]] (S_MU below).
 def _make_s() -> np.ndarray:
     s = np.zeros((4, 2, 2), dtype=np.complex128)
     for mu in range(4):
@@ -81,9 +81,10 @@ def _make_s() -> np.ndarray:
     return s
 
 
-_S = _make_s()
+#: s_mu, (4, 2, 2) complex128 (see _make_s); shared with the tangent vectors of the unitary moduli.
+S_MU = _make_s()
 #: S_mu nu = s_mu s_nu^dag - s_nu s_mu^dag, (4, 4, 2, 2): F_mu nu = U^dag b (S_mu nu (x) f) b^dag U.
-_SMN = np.einsum("mab,ncb->mnac", _S, _S.conj()) - np.einsum("nab,mcb->mnac", _S, _S.conj())
+_SMN = np.einsum("mab,ncb->mnac", S_MU, S_MU.conj()) - np.einsum("nab,mcb->mnac", S_MU, S_MU.conj())
 #: T_abcd = sum_mu nu S_mu nu,ab S_mu nu,cd, for the action density from 2k x 2k work.
 _T = np.einsum("mnab,mncd->abcd", _SMN, _SMN)
 
@@ -422,7 +423,7 @@ class UnitaryADHMData(PytreeFields):
         k, n = self.k, self.rank
         u, fdv, linv = self._frame_parts(x)
         fdv = fdv.reshape(2, k, n)
-        s = jnp.asarray(_S) if d is None else jnp.einsum("m,mab->ab", d, jnp.asarray(_S))[None]
+        s = jnp.asarray(S_MU) if d is None else jnp.einsum("m,mab->ab", d, jnp.asarray(S_MU))[None]
         sf = jnp.einsum("mab,bjn->majn", s, fdv).reshape(s.shape[0], 2 * k, n)  # (s_mu (x) f) Delta^dag V0
         return jnp.einsum("ia,min,bn->mab", jnp.conj(u[: 2 * k]), sf, jnp.conj(linv))
 

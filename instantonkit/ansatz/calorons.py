@@ -19,7 +19,7 @@ from ..core import _validate
 from ..core._pytree import PytreeFields
 from ..core.conventions import PI
 from .caloron_psi import caloron_action_density
-from .scalar import _ETA_BAR, _UNITS_C, _positive_scalar, _ScalarAnsatz
+from .scalar import ETA_BAR, UNITS_C, ScalarAnsatz, positive_scalar
 
 #: Parameters as arrays (numpy, or jax tracers under jit/grad).
 Array = jax.Array | np.ndarray
@@ -114,7 +114,7 @@ def _caloron_derivs(x, size, period, center, hessian: bool):
 
 @jax.tree_util.register_pytree_node_class
 @dataclasses.dataclass(frozen=True)
-class CaloronField(_ScalarAnsatz):
+class CaloronField(ScalarAnsatz):
     """Harrington-Shepard caloron: the 't Hooft ansatz with equal instantons at c + n beta e_4, n in Z.
 
     phi = 1 + (pi rho^2/(beta r)) sinh(2 pi r/beta) / (cosh(2 pi r/beta) - cos(2 pi t/beta)), r = |x_vec - c_vec|,
@@ -131,8 +131,8 @@ class CaloronField(_ScalarAnsatz):
     def __post_init__(self):
         if _validate.is_tracer(self.size, self.period, self.center):
             return
-        object.__setattr__(self, "size", _positive_scalar("size", self.size))
-        object.__setattr__(self, "period", _positive_scalar("period", self.period))
+        object.__setattr__(self, "size", positive_scalar("size", self.size))
+        object.__setattr__(self, "period", positive_scalar("period", self.period))
         object.__setattr__(self, "center", _validate.point("center", self.center))
 
     _leaves = ("size", "period", "center")
@@ -254,8 +254,8 @@ class HolonomyCaloronField(PytreeFields):
     def __post_init__(self):
         if _validate.is_tracer(self.size, self.period, self.holonomy, self.center, self.axis):
             return
-        object.__setattr__(self, "size", _positive_scalar("size", self.size))
-        object.__setattr__(self, "period", _positive_scalar("period", self.period))
+        object.__setattr__(self, "size", positive_scalar("size", self.size))
+        object.__setattr__(self, "period", positive_scalar("period", self.period))
         omega = _validate.finite_float("holonomy", self.holonomy)
         if not 0.0 <= omega <= 0.5:
             raise ValueError(f"holonomy omega must lie in [0, 1/2]; found {omega!r}")
@@ -302,11 +302,11 @@ class HolonomyCaloronField(PytreeFields):
         g_im = jax.grad(lambda v: jnp.imag(_kvb_parts(v, size, period, omega)[2]))(y)
         e4 = jnp.array([0.0, 0.0, 0.0, 1.0])
         dchi = g_re + 1j * g_im - (4j * PI * omega / period) * e4 * chi
-        zc = jnp.einsum("mn,n->m", _ETA_BAR[0] - 1j * _ETA_BAR[1], dchi)
+        zc = jnp.einsum("mn,n->m", ETA_BAR[0] - 1j * ETA_BAR[1], dchi)
         coef = jnp.stack([-0.5 * phi * jnp.real(zc), 0.5 * phi * jnp.imag(zc)])
-        coef = jnp.concatenate([coef, -0.5 * jnp.einsum("mn,n->m", _ETA_BAR[2], g_log)[None]], axis=0)
+        coef = jnp.concatenate([coef, -0.5 * jnp.einsum("mn,n->m", ETA_BAR[2], g_log)[None]], axis=0)
         coef = coef + jnp.outer(jnp.array([0.0, 0.0, 2.0 * PI / period]) * omega, e4)
-        a_local = jnp.einsum("am,aij->mij", coef, _UNITS_C)
+        a_local = jnp.einsum("am,aij->mij", coef, UNITS_C)
         rot = jnp.asarray(self.frame)
         return jnp.concatenate([jnp.einsum("mn,nij->mij", rot, a_local[:3]), a_local[3:]], axis=0)
 

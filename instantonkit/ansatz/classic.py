@@ -61,16 +61,7 @@ from ..core._pytree import PytreeFields
 from ..core.conventions import PI, point_to_quaternion
 from .calorons import CaloronField, HolonomyCaloronField
 from .calorons_sun import SUNCaloronField, default_positions, fractions_of, holonomy_eigenphases
-from .scalar import (
-    _ETA_BAR,
-    _UNITS_C,
-    ANSATZ_COUPLING,
-    _pole_sums,
-    _poles,
-    _positive_scalar,
-    _ScalarAnsatz,
-    _spread,
-)
+from .scalar import ANSATZ_COUPLING, ETA_BAR, UNITS_C, ScalarAnsatz, positive_scalar
 
 #: Parameters as arrays (numpy, or jax tracers under jit/grad).
 Array = jax.Array | np.ndarray
@@ -95,11 +86,42 @@ _GAUGES = ("regular", "singular")
 
 # -- validation helpers ---------------------------------------------------------------------------
 
+#: Poles closer than this times max(1, max |coordinate|) count as coinciding (phi would lose a pole).
+_COINCIDENT_POLES = 1e-12
+
+
+def _poles(name: str, value, min_count: int) -> np.ndarray:
+    """(k, 4) float64 distinct points (a single (4,) point promoted), at least ``min_count`` of them."""
+    arr = _validate.points_array(name, value, min_count=min_count, shape_text="(k, 4)")
+    scale = max(1.0, float(np.max(np.abs(arr))))
+    return _validate.distinct_points(name, arr, _COINCIDENT_POLES * scale)
+
+
+def _spread(points: np.ndarray) -> float:
+    return float(np.max(np.linalg.norm(points - points.mean(0), axis=1))) if points.shape[0] > 1 else 0.0
+
+
+def _pole_sums(x, poles, coef, hessian: bool):
+    """sum_i c_i / |x - y_i|^2, its gradient and Hessian; x (4,), poles (k, 4), coef (k,).
+
+    d_mu (1/r^2) = -2 y_mu / r^4,  d_mu d_nu (1/r^2) = -2 delta_mu nu / r^4 + 8 y_mu y_nu / r^6.
+    """
+    y = x[None, :] - poles
+    r2 = jnp.sum(y * y, axis=-1)
+    inv = 1.0 / r2
+    val = jnp.sum(coef * inv)
+    grad = jnp.sum((-2.0 * coef * inv * inv)[:, None] * y, axis=0)
+    if not hessian:
+        return val, grad, None
+    hess = -2.0 * jnp.sum(coef * inv * inv) * jnp.eye(4) + 8.0 * jnp.einsum("k,km,kn->mn", coef * inv**3, y, y)
+    return val, grad, hess
+
+
 #: Accepted deviation of an orientation from SU(2) / from |u| = 1 (float64 rounding is ~1e-16).
 _UNIT_TOL = 1e-10
 
 
-def _unit_quaternion(value) -> np.ndarray:
+def unit_quaternion(value) -> np.ndarray:
     """Orientation as a unit quaternion (4,); accepts (4,) real or an SU(2) matrix (2, 2)."""
     arr = np.asarray(value)
     if np.iscomplexobj(arr):
@@ -120,7 +142,7 @@ def _unit_quaternion(value) -> np.ndarray:
 
 @jax.tree_util.register_pytree_node_class
 @dataclasses.dataclass(frozen=True)
-class ThooftField(_ScalarAnsatz):
+class ThooftField(ScalarAnsatz):
     """'t Hooft ansatz, phi = 1 + sum_i rho_i^2 / |x - a_i|^2 (singular gauge), charge +k.
 
     centers: (k, 4) float64 points a_i (the poles, singular points of the gauge); sizes: (k,) float64 rho_i > 0.
@@ -177,7 +199,7 @@ class ThooftField(_ScalarAnsatz):
 
 @jax.tree_util.register_pytree_node_class
 @dataclasses.dataclass(frozen=True)
-class JNRField(_ScalarAnsatz):
+class JNRField(ScalarAnsatz):
     """Jackiw-Nohl-Rebbi ansatz, phi = sum_i lambda_i^2 / |x - y_i|^2 over k + 1 poles, charge +k.
 
     poles: (k + 1, 4) float64 points y_i (singular points of the gauge); weights: (k + 1,) float64 lambda_i > 0.
@@ -252,8 +274,8 @@ class BPSTField(PytreeFields):
         if _validate.is_tracer(self.center, self.size, self.orientation):
             return
         object.__setattr__(self, "center", _validate.point("center", self.center))
-        object.__setattr__(self, "size", _positive_scalar("size", self.size))
-        object.__setattr__(self, "orientation", _unit_quaternion(self.orientation))
+        object.__setattr__(self, "size", positive_scalar("size", self.size))
+        object.__setattr__(self, "orientation", unit_quaternion(self.orientation))
 
     _leaves = ("center", "size", "orientation")
     _static = ("gauge",)
@@ -277,9 +299,9 @@ class BPSTField(PytreeFields):
         if self.gauge == "regular":
             v = jnp.einsum("amn,n->am", _ETA, y) / (y2 + rho2)
         else:
-            v = rho2 * jnp.einsum("amn,n->am", _ETA_BAR, y) / (y2 * (y2 + rho2))
+            v = rho2 * jnp.einsum("amn,n->am", ETA_BAR, y) / (y2 * (y2 + rho2))
         om = self._omega()
-        a = jnp.einsum("am,aij->mij", v, _UNITS_C)
+        a = jnp.einsum("am,aij->mij", v, UNITS_C)
         return om @ a @ jnp.conj(om.T)
 
     def field_strength(self, x):
@@ -287,7 +309,7 @@ class BPSTField(PytreeFields):
         y = jnp.asarray(x, dtype=jnp.float64) - jnp.asarray(self.center)
         y2 = jnp.sum(y * y)
         rho2 = jnp.asarray(self.size) ** 2
-        f = -2.0 * rho2 / (y2 + rho2) ** 2 * jnp.einsum("amn,aij->mnij", _ETA, _UNITS_C)
+        f = -2.0 * rho2 / (y2 + rho2) ** 2 * jnp.einsum("amn,aij->mnij", _ETA, UNITS_C)
         om = self._omega()
         if self.gauge == "singular":
             h = jnp.conj(qt.to_matrix(point_to_quaternion(y)).T) / jnp.sqrt(y2)  # p-bar(y)/|y|

@@ -63,8 +63,8 @@ from ..core import quaternion as qt
 from ..core._pytree import PytreeFields
 from ..engine.fields import action_from_f, charge_from_f
 from ..engine.transforms import PARITY, anti
-from .classic import ThooftField, _unit_quaternion, thooft
-from .scalar import _ETA_BAR, _UNITS_C
+from .classic import ThooftField, thooft, unit_quaternion
+from .scalar import ETA_BAR, UNITS_C
 
 Array = jax.Array | np.ndarray
 
@@ -114,7 +114,7 @@ def smooth_step_inf(t):
 def _adjoint(orientations):
     """R_i (m, 3, 3) with Omega_i u_b Omega-bar_i = R_i[a, b] u_a (tr u_a u_c = -2 delta_ac)."""
     om = qt.to_matrix(jnp.asarray(orientations))  # (m, 2, 2)
-    rot = jnp.einsum("aij,mjk,bkl,mil->mab", _UNITS_C, om, _UNITS_C, jnp.conj(om))
+    rot = jnp.einsum("aij,mjk,bkl,mil->mab", UNITS_C, om, UNITS_C, jnp.conj(om))
     return -0.5 * jnp.real(rot)
 
 
@@ -176,7 +176,7 @@ class Mixture(PytreeFields):
     # -- per-object geometry (jax) ------------------------------------------------------------------
     def _tensors(self):
         """E_i (m, 3, 4, 4): eta-bar for instantons, eta for anti-instantons."""
-        return jnp.asarray(np.stack([_ETA_BAR if s > 0 else _ETA for s in self.signs]))
+        return jnp.asarray(np.stack([ETA_BAR if s > 0 else _ETA for s in self.signs]))
 
     def _displacements(self, x):
         """y_i (m, 4): x - a_i on R^4, the minimum image on the torus."""
@@ -217,7 +217,7 @@ class Mixture(PytreeFields):
     def potential(self, x):
         """A_mu at one point (4,) -> (4, 2, 2) complex: the sum of the objects' singular-gauge potentials."""
         a, _ = self._colour(x)
-        return jnp.einsum("am,aij->mij", a, _UNITS_C)
+        return jnp.einsum("am,aij->mij", a, UNITS_C)
 
     def field_strength(self, x):
         """F_mu nu (4, 4, 2, 2) at one point: d_mu A_nu - d_nu A_mu (closed form per object) + [A_mu, A_nu]."""
@@ -227,7 +227,7 @@ class Mixture(PytreeFields):
         )  # (m, b, mu, nu): d_mu v^b_nu
         lin = jnp.einsum("iab,ibmn->amn", rot, dv - jnp.swapaxes(dv, 2, 3))
         fcol = lin + 2.0 * jnp.einsum("abc,bm,cn->amn", _EPS3, a, a)
-        return jnp.einsum("amn,aij->mnij", fcol, _UNITS_C)
+        return jnp.einsum("amn,aij->mnij", fcol, UNITS_C)
 
     def action_density(self, x):
         """s = -1/2 sum tr F F (conventions module) from the closed-form F; ()."""
@@ -250,7 +250,7 @@ class Mixture(PytreeFields):
         g, _ = self._radial(y)  # (B, m)
         rotated = jnp.einsum("iab,ibnl->ianl", _adjoint(self.orientations), self._tensors())
         a = jnp.einsum("Bi,ianl,Bil,Bn->Ba", g, rotated, y, jnp.asarray(dirs, dtype=jnp.float64))
-        return jnp.einsum("Ba,aij->Bij", a, _UNITS_C)
+        return jnp.einsum("Ba,aij->Bij", a, UNITS_C)
 
     # -- hooks ----------------------------------------------------------------------------------------
     def hint(self):
@@ -341,7 +341,7 @@ def _orientations(orientations, m: int) -> np.ndarray:
     out = np.empty((m, 4))
     for i in range(m):
         try:
-            out[i] = _unit_quaternion(arr[i])
+            out[i] = unit_quaternion(arr[i])
         except (ValueError, TypeError) as err:
             raise type(err)(f"orientations[{i}]: {err}") from err
     return out
@@ -447,7 +447,7 @@ def instanton_pair(
 
 
 def _orient_list(om) -> np.ndarray:
-    return np.stack([_unit_quaternion(o) for o in om])
+    return np.stack([unit_quaternion(o) for o in om])
 
 
 def torus_mixture(

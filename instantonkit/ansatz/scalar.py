@@ -2,7 +2,7 @@
 
 For a positive harmonic phi the potential is self-dual; F, s and q come in closed form from phi, its
 gradient and Hessian (formulas and sources in `instantonkit.ansatz.classic`).  A subclass of
-`_ScalarAnsatz` gives ``_derivs(x, hessian)`` -> (phi, grad (4,), Hess (4, 4) or None).  Also the
+`ScalarAnsatz` gives ``_derivs(x, hessian)`` -> (phi, grad (4,), Hess (4, 4) or None).  Also the
 argument checks the ansatz constructors share.
 """
 
@@ -20,32 +20,23 @@ from ..core.conventions import LEVI_CIVITA, PI, QUATERNION_BASIS
 ANSATZ_COUPLING = -0.5
 
 
-_ETA_BAR = qt.thooft_eta_bar()  # (3, 4, 4)
+#: 't Hooft's eta-bar symbols, (3, 4, 4).
+ETA_BAR = qt.thooft_eta_bar()
 _EPS3 = np.zeros((3, 3, 3))
 _EPS3[0, 1, 2] = _EPS3[1, 2, 0] = _EPS3[2, 0, 1] = 1.0
 _EPS3[0, 2, 1] = _EPS3[2, 1, 0] = _EPS3[1, 0, 2] = -1.0
-_UNITS_C = QUATERNION_BASIS[1:]  # (3, 2, 2): images of i, j, k
+#: The 2 x 2 images of the quaternion units i, j, k, (3, 2, 2) complex128.
+UNITS_C = QUATERNION_BASIS[1:]
 
 # -- validation helpers ---------------------------------------------------------------------------
 
-#: Poles closer than this times max(1, max |coordinate|) count as coinciding (phi would lose a pole).
-_COINCIDENT_POLES = 1e-12
 
-
-def _poles(name: str, value, min_count: int) -> np.ndarray:
-    """(k, 4) float64 distinct points (a single (4,) point promoted), at least ``min_count`` of them."""
-    arr = _validate.points_array(name, value, min_count=min_count, shape_text="(k, 4)")
-    scale = max(1.0, float(np.max(np.abs(arr))))
-    return _validate.distinct_points(name, arr, _COINCIDENT_POLES * scale)
-
-
-def _positive_scalar(name: str, value) -> np.ndarray:
+def positive_scalar(name: str, value) -> np.ndarray:
     """A number > 0 as a 0-d float64 array (the pytree leaf)."""
     return np.asarray(_validate.positive_float(name, _validate.real_array(name, value, ())))
 
 
-def _spread(points: np.ndarray) -> float:
-    return float(np.max(np.linalg.norm(points - points.mean(0), axis=1))) if points.shape[0] > 1 else 0.0
+_positive_scalar = positive_scalar  # the old spelling, until calorons_sun (being changed elsewhere) imports the new one
 
 
 # -- the scalar-ansatz field (shared closed forms) ------------------------------------------------
@@ -56,13 +47,13 @@ def _components(phi, grad, hess):
     c = ANSATZ_COUPLING
     w = grad / phi
     wmat = hess / phi - jnp.outer(w, w)
-    v = jnp.einsum("amn,n->am", _ETA_BAR, w)
-    d = jnp.einsum("anl,ml->amn", _ETA_BAR, wmat)  # eta-bar_{a nu l} W_mu l
+    v = jnp.einsum("amn,n->am", ETA_BAR, w)
+    d = jnp.einsum("anl,ml->amn", ETA_BAR, wmat)  # eta-bar_{a nu l} W_mu l
     f = c * (d - jnp.swapaxes(d, 1, 2)) + 2.0 * c * c * jnp.einsum("abc,bm,cn->amn", _EPS3, v, v)
     return v, f
 
 
-class _ScalarAnsatz(PytreeFields):
+class ScalarAnsatz(PytreeFields):
     """Field protocol for A_mu = c eta-bar_{a mu nu} d_nu log(phi) u_a; subclasses give ``_derivs``."""
 
     def _derivs(self, x):  # pragma: no cover - abstract
@@ -75,15 +66,15 @@ class _ScalarAnsatz(PytreeFields):
     def potential(self, x):
         """A_mu = -1/2 eta-bar_{a mu nu} d_nu log(phi) u_a at one point (4,) -> (4, 2, 2) complex."""
         phi, grad, _ = self._derivs(jnp.asarray(x, dtype=jnp.float64), hessian=False)
-        v = jnp.einsum("amn,n->am", _ETA_BAR, grad / phi)
-        return ANSATZ_COUPLING * jnp.einsum("am,aij->mij", v, _UNITS_C)
+        v = jnp.einsum("amn,n->am", ETA_BAR, grad / phi)
+        return ANSATZ_COUPLING * jnp.einsum("am,aij->mij", v, UNITS_C)
 
     def _f_components(self, x):
         return _components(*self._derivs(jnp.asarray(x, dtype=jnp.float64)))[1]
 
     def field_strength(self, x):
         """Closed-form F_mu nu from phi, its gradient and Hessian at one point (4,) -> (4, 4, 2, 2) complex."""
-        return jnp.einsum("amn,aij->mnij", self._f_components(x), _UNITS_C)
+        return jnp.einsum("amn,aij->mnij", self._f_components(x), UNITS_C)
 
     def action_density(self, x):
         """s = sum_{a mu nu} (F^a_mu nu)^2 (= -1/2 sum tr F F) at one point (4,) -> ()."""
@@ -93,19 +84,3 @@ class _ScalarAnsatz(PytreeFields):
         """q = 1/(16 pi^2) eps_{mu nu rho sigma} F^a_mu nu F^a_rho sigma at one point (4,) -> ()."""
         f = self._f_components(x)
         return jnp.einsum("mnrs,amn,ars->", LEVI_CIVITA, f, f) / (16.0 * PI**2)
-
-
-def _pole_sums(x, poles, coef, hessian: bool):
-    """sum_i c_i / |x - y_i|^2, its gradient and Hessian; x (4,), poles (k, 4), coef (k,).
-
-    d_mu (1/r^2) = -2 y_mu / r^4,  d_mu d_nu (1/r^2) = -2 delta_mu nu / r^4 + 8 y_mu y_nu / r^6.
-    """
-    y = x[None, :] - poles
-    r2 = jnp.sum(y * y, axis=-1)
-    inv = 1.0 / r2
-    val = jnp.sum(coef * inv)
-    grad = jnp.sum((-2.0 * coef * inv * inv)[:, None] * y, axis=0)
-    if not hessian:
-        return val, grad, None
-    hess = -2.0 * jnp.sum(coef * inv * inv) * jnp.eye(4) + 8.0 * jnp.einsum("k,km,kn->mn", coef * inv**3, y, y)
-    return val, grad, hess

@@ -48,7 +48,7 @@ class Ensemble:
 
 
 def _ensemble_defaults(shape, a, spread, size_range):
-    extent = min(shape) * a
+    extent = float(np.min(np.asarray(shape) * a))  # a: (4,) spacings
     spread = extent / 10.0 if spread is None else float(spread)
     size_range = (extent / 16.0, extent / 8.0) if size_range is None else tuple(float(v) for v in size_range)
     if not (np.isfinite(spread) and spread >= 0):
@@ -99,7 +99,8 @@ def ensemble(
     Member i is ``random_adhm(k, rank, seed=default_rng(member_seed(seed, i)), spread, size_range)``
     in ``gauge``: centres ~ N(0, spread^2) about the lattice middle (default spread: a tenth of the
     shortest extent L a), sizes ~ U(size_range) (default (L a / 16, L a / 8)).  Every member shares
-    the lattice: origin -a (floor(L / 2) - 1/2), so the middle hypercube is centred on 0.  Links as
+    the lattice: origin -a (floor(L / 2) - 1/2), so the middle hypercube is centred on 0.  Spacing:
+    one a or four (a1, a2, a3, a4) per direction (anisotropic lattices; extents L_mu a_mu).  Links as
     in `instantonkit.lattice.starts.lattice_links`; chunks: (c1, c2, c3, c4) per member.  store:
     Zarr directory (resumable; members' ADHM data and seeds in its attributes) or None for a dask
     array.  Rebuild member i from a store with `load_member`.
@@ -111,7 +112,7 @@ def ensemble(
     each periodic member's boundary mismatch to its report (read in this process, member by member).
 
     Args:
-      n: members (>= 1); k: charge (>= 1), or (k_plus, k_minus) for instanton-anti-instanton mixtures; shape: (L1, L2, L3, L4); spacing: a > 0.
+      n: members (>= 1); k: charge (>= 1), or (k_plus, k_minus) for instanton-anti-instanton mixtures; shape: (L1, L2, L3, L4); spacing: a > 0 or four (a1, a2, a3, a4).
       seed, rank, gauge, spread, size_range: the random ADHM data (see above).
       group, embedding, boundary, rtol, method: as in `instantonkit.lattice.starts.lattice_links`.
       chunks, store: as in `instantonkit.cluster.lattice_links` (chunks per member).
@@ -129,7 +130,8 @@ def ensemble(
     counts = _mixed_counts(k, rank) if mixed else None
     k = sum(counts) if counts else _v.positive_int("k (charge)", k)
     shape = _v.lattice_shape("shape", shape, in_memory=False)
-    a = _v.positive_float("spacing", spacing)
+    spacing = _v.spacing_value("spacing", spacing)  # one float, or four when they differ (as starts keep it)
+    a = _v.spacings("spacing", spacing)
     if not mixed:
         _v.adhm_affordable(k, _v.positive_int("rank", rank), k_name="k (charge)")
     # this process holds every member's seed, ADHM data (4 k (k + rank) float64) and start record
@@ -156,7 +158,15 @@ def ensemble(
         )
     specs = [
         StartSpec.make(
-            m, shape, a, origin=origin, group=group, embedding=embedding, boundary=boundary, rtol=rtol, method=method
+            m,
+            shape,
+            spacing,
+            origin=origin,
+            group=group,
+            embedding=embedding,
+            boundary=boundary,
+            rtol=rtol,
+            method=method,
         )
         for m in members
     ]
@@ -172,7 +182,7 @@ def ensemble(
         "spread": spread,
         "size_range": list(size_range),
         "shape": list(shape),
-        "spacing": a,
+        "spacing": list(spacing) if isinstance(spacing, tuple) else spacing,  # as JSON keeps it
         "origin": origin.tolist(),
         "group": group,
         "embedding": list(specs[0].embedding),

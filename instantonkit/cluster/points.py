@@ -171,13 +171,14 @@ def evaluate_grid(
     """``quantity`` of ``field`` on the sites origin + a n of an L1 x L2 x L3 x L4 grid, never holding all points.
 
     shape, spacing, origin: as in `instantonkit.lattice.starts.lattice_links` (default origin puts the
-    field's centre in the middle of the central hypercube).  Returns a ``zarr.Array`` (store given)
+    field's centre in the middle of the central hypercube; spacing one a or four (a1, a2, a3, a4), sites
+    at origin_mu + a_mu n_mu, e.g. the (a_s, a_s, a_s, a_t) of `instantonkit.lattice.thermal.thermal_spacings`).  Returns a ``zarr.Array`` (store given)
     or a dask array of shape (L1, L2, L3, L4, *trailing); values equal
     ``fields.evaluate(field, lattice.site_points(shape, spacing, origin), quantity)`` to rounding.
 
     Args:
       field: a field or a callable A(x).
-      shape: (L1, L2, L3, L4); spacing: a > 0; origin: (4,) or None (the default origin).
+      shape: (L1, L2, L3, L4); spacing: a > 0 or four (a1, a2, a3, a4) > 0; origin: (4,) or None (the default origin).
       quantity, method: as in `evaluate`.
       chunks: (c1, c2, c3, c4) sites per chunk (default about CHUNK_BYTES of result).
       store: Zarr directory or None for a dask array.
@@ -191,21 +192,21 @@ def evaluate_grid(
     check_quantity(quantity)
     field = as_field(field)
     shape = _v.lattice_shape("shape", shape, in_memory=False)
-    a = _v.positive_float("spacing", spacing)
+    a = _v.spacing_value("spacing", spacing)  # one float, or four when they differ (as starts keep it)
     org = resolve_origin(field, shape, a, origin)
     trail, dtype = output_shape(field, quantity, method)
     chunks = (
         default_chunks(shape, value_bytes(trail, dtype)) if chunks is None else check_chunks(chunks, shape, "the grid")
     )
-    task = GridChunk(field, quantity, method, org, a)
+    task = GridChunk(field, quantity, method, org, np.asarray(a) if isinstance(a, tuple) else a)
     params = {
         "field": describe(field),
         "field_probe": probe(field),
-        "domain_probe": domain_probe(field, org, a, shape),
+        "domain_probe": domain_probe(field, org, _v.spacings("spacing", a), shape),
         "quantity": quantity,
         "method": method,
         "shape": list(shape),
-        "spacing": a,
+        "spacing": list(a) if isinstance(a, tuple) else a,  # as JSON keeps it
         "origin": [float(v) for v in org],
     }
     job = Job(

@@ -39,13 +39,13 @@ class MemberChunk:
 
 @dataclasses.dataclass(frozen=True)
 class GridChunk:
-    """A quantity on the sites origin + a n of one box of a grid."""
+    """A quantity on the sites origin + a n of one box of a grid (spacing: one a, or (4,) a_mu per direction)."""
 
     field: object
     quantity: str
     method: str
     origin: np.ndarray
-    spacing: float
+    spacing: float | np.ndarray
 
     def __call__(self, region):
         grids = np.meshgrid(*[np.arange(r.start, r.stop, dtype=np.float64) for r in region], indexing="ij")

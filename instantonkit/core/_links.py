@@ -33,6 +33,7 @@ __all__ = [
     "links_shape",
     "check_finite",
     "check_links",
+    "CheckedLinks",
     "project_links",
     "unitarity_deviation",
 ]
@@ -188,11 +189,26 @@ def check_finite(links, *, name: str = "links"):
     return _finite(links_shape(links, name), name)
 
 
+class CheckedLinks:
+    """Links that passed `check_links` with the default tolerance, held (not an array) for the next package function.
+
+    A function that asks several observables of the same links (the fit of link arrays) checks them once
+    and hands them on in this holder; `check_links` returns the held array without checking again.  Never
+    returned to users; the array is the caller's, unchanged.
+    """
+
+    __slots__ = ("array",)
+
+    def __init__(self, array):
+        self.array = array
+
+
 def check_links(links, *, name: str = "links", tol: float | None = None, project: bool = False):
     """Links after the shape, dtype, finiteness and special-unitarity checks (module docstring).
 
     Args:
-      links: (L1, L2, L3, L4, 4, N, N) complex (numpy array or np.memmap, returned as given).
+      links: (L1, L2, L3, L4, 4, N, N) complex (numpy array or np.memmap, returned as given), or a
+        `CheckedLinks` holder (its array returned without a second check unless ``tol`` or ``project`` is given).
       name: the argument's name in messages.
       tol: largest accepted max(|U^dag U - 1|, |det U - 1|); default `UNITARITY_TOL`.
       project: project onto SU(N) (`project_links`) instead of refusing links beyond ``tol``.
@@ -202,6 +218,10 @@ def check_links(links, *, name: str = "links", tol: float | None = None, project
       ValueError: wrong shape, empty, NaN or inf entries (counted and located), links beyond ``tol``
         (naming the worst link and value); TypeError: a non-complex dtype.
     """
+    if isinstance(links, CheckedLinks):
+        if tol is None and not project:
+            return links.array
+        links = links.array
     u = _finite(links_shape(links, name), name)
     tol = UNITARITY_TOL if tol is None else float(tol)
     if project:

@@ -19,7 +19,7 @@ from ..core._pytree import PytreeFields
 Array = jax.Array | np.ndarray
 
 #: Accepted deviation from unitarity of g(x) and from |q| = 1 of rotation quaternions (float64 rounding is ~1e-16).
-_UNIT_TOL = 1e-10
+UNIT_TOL = 1e-10
 
 
 @jax.tree_util.register_pytree_node_class
@@ -47,7 +47,7 @@ class ConstantGauge(PytreeFields):
         if not np.all(np.isfinite(m)):
             raise ValueError(f"matrix must be finite; found {int(np.sum(~np.isfinite(m)))} non-finite entries")
         dev = float(np.max(np.abs(m @ m.conj().T - np.eye(m.shape[0]))))
-        if dev > _UNIT_TOL:
+        if dev > UNIT_TOL:
             raise ValueError(f"matrix must be unitary; max |g g^dag - 1| = {dev:.3e}")
         object.__setattr__(self, "matrix", m)
 

@@ -30,8 +30,8 @@ from ..core import _validate
 from ..core import quaternion as qt
 from ..core.conventions import E_MU
 from .fields import as_field, hook
-from .gauges import _UNIT_TOL, ConstantGauge
-from .wrapping import _fs, _missing, _q, _s, _Wrapper
+from .gauges import UNIT_TOL, ConstantGauge
+from .wrapping import Wrapper, missing_hook, point_action_density, point_charge_density, point_field_strength
 
 #: A point or parameter array the constructors accept (numpy or jax).
 Array = jax.Array | np.ndarray
@@ -72,7 +72,7 @@ def _is_static(g) -> bool:
 
 @jax.tree_util.register_pytree_node_class
 @dataclasses.dataclass(frozen=True)
-class GaugeTransformed(_Wrapper):
+class GaugeTransformed(Wrapper):
     """The field ``field`` gauge transformed by ``g``: A' = g A g^-1 + g d g^-1, F' = g F g^-1.
 
     g: callable x (4,) -> (N, N) unitary, written with jax.numpy.  A plain function is static pytree
@@ -107,7 +107,7 @@ class GaugeTransformed(_Wrapper):
         gm = np.asarray(self.g(jnp.asarray(_PROBE)))
         if np.all(np.isfinite(gm)):
             dev = float(np.max(np.abs(gm @ gm.conj().T - np.eye(n))))
-            if dev > _UNIT_TOL:
+            if dev > UNIT_TOL:
                 raise ValueError(f"g(x) must be unitary; max |g g^dag - 1| = {dev:.3e} at x = {_PROBE.tolist()}")
 
     def tree_flatten(self):
@@ -137,7 +137,7 @@ class GaugeTransformed(_Wrapper):
         """
         inner = hook(self.field, "record")
         if inner is None:
-            _missing("record")
+            missing_hook("record")
         g = self.g
         g_record = getattr(g, "record", None)
         if callable(g_record):  # a gauge function that records itself (e.g. ConstantGauge)
@@ -169,19 +169,19 @@ class GaugeTransformed(_Wrapper):
         """F'_mu nu = g F_mu nu g^dag at one point -> (4, 4, N, N)."""
         x = jnp.asarray(x, dtype=jnp.float64)
         g = self._g(x)
-        return jnp.einsum("ij,mnjk,kl->mnil", g, _fs(self.field)(x), jnp.conj(g.T))
+        return jnp.einsum("ij,mnjk,kl->mnil", g, point_field_strength(self.field)(x), jnp.conj(g.T))
 
     def action_density(self, x):
-        return _s(self.field, x)
+        return point_action_density(self.field, x)
 
     def charge_density(self, x):
-        return _q(self.field, x)
+        return point_charge_density(self.field, x)
 
     @property
     def closed_link(self):
         """U'(x, d) = g(x) U(x, d) g(x + d)^dag from the wrapped field's closed-form link (when it has one)."""
         if not hasattr(self.field, "closed_link"):
-            _missing("closed_link")
+            missing_hook("closed_link")
 
         def closed_link(x, d):
             x = jnp.asarray(x, dtype=jnp.float64)
@@ -211,7 +211,7 @@ def gauge_transform(field, g) -> GaugeTransformed:
 
 @jax.tree_util.register_pytree_node_class
 @dataclasses.dataclass(frozen=True)
-class Translated(_Wrapper):
+class Translated(Wrapper):
     """The field moved by ``shift`` (4,): A'(x) = A(x - shift), likewise F, s, q."""
 
     field: object
@@ -236,13 +236,13 @@ class Translated(_Wrapper):
         return self.field.potential(self._y(x))
 
     def field_strength(self, x):
-        return _fs(self.field)(self._y(x))
+        return point_field_strength(self.field)(self._y(x))
 
     def action_density(self, x):
-        return _s(self.field, self._y(x))
+        return point_action_density(self.field, self._y(x))
 
     def charge_density(self, x):
-        return _q(self.field, self._y(x))
+        return point_charge_density(self.field, self._y(x))
 
     def _map_hint(self, centre, scale):
         return centre + np.asarray(self.shift), scale
@@ -257,7 +257,7 @@ class Translated(_Wrapper):
     def closed_link(self):
         """U'(x, d) = U(x - shift, d) from the wrapped field's closed-form link (when it has one)."""
         if not hasattr(self.field, "closed_link"):
-            _missing("closed_link")
+            missing_hook("closed_link")
 
         def closed_link(x, d):
             return self.field.closed_link(self._y(x), d)
@@ -294,17 +294,17 @@ def rotation_matrix(left, right):
 
 
 def _unit(name: str, value) -> np.ndarray:
-    """A unit quaternion (4,) float64 (|q| = 1 to _UNIT_TOL), else ValueError naming the deviation."""
+    """A unit quaternion (4,) float64 (|q| = 1 to UNIT_TOL), else ValueError naming the deviation."""
     arr = _validate.point(name, value)
     dev = abs(float(np.linalg.norm(arr)) - 1.0)
-    if dev > _UNIT_TOL:
+    if dev > UNIT_TOL:
         raise ValueError(f"{name} must be a unit quaternion; found | |q| - 1 | = {dev:.3e}")
     return arr
 
 
 @jax.tree_util.register_pytree_node_class
 @dataclasses.dataclass(frozen=True)
-class Rotated(_Wrapper):
+class Rotated(Wrapper):
     """The field rotated by R in SO(4), p(R x) = l p(x) r-bar: A'_mu(x) = R_mu nu A_nu(R^T x).
 
     left, right: (4,) unit quaternions l, r.  F' = R R F(R^T x) on both indices; s, q scalars.
@@ -345,13 +345,13 @@ class Rotated(_Wrapper):
 
     def field_strength(self, x):
         r, y = self._back(x)
-        return jnp.einsum("ma,nb,abij->mnij", r, r, _fs(self.field)(y))
+        return jnp.einsum("ma,nb,abij->mnij", r, r, point_field_strength(self.field)(y))
 
     def action_density(self, x):
-        return _s(self.field, self._back(x)[1])
+        return point_action_density(self.field, self._back(x)[1])
 
     def charge_density(self, x):
-        return _q(self.field, self._back(x)[1])
+        return point_charge_density(self.field, self._back(x)[1])
 
     def _map_hint(self, centre, scale):
         return np.asarray(self.matrix) @ centre, scale
@@ -377,7 +377,7 @@ def rotate(field, left: ArrayLike, right: ArrayLike = (1.0, 0.0, 0.0, 0.0)) -> R
     Returns:
       Rotated, a field with the same N (R = rotation_matrix(l, r)).
     Raises:
-      ValueError for quaternions not of shape (4,), not finite or not of unit length (_UNIT_TOL);
+      ValueError for quaternions not of shape (4,), not finite or not of unit length (UNIT_TOL);
       TypeError for non-real values.
     """
     return Rotated(field, left, right)
@@ -388,7 +388,7 @@ def rotate(field, left: ArrayLike, right: ArrayLike = (1.0, 0.0, 0.0, 0.0)) -> R
 
 @jax.tree_util.register_pytree_node_class
 @dataclasses.dataclass(frozen=True)
-class Dilated(_Wrapper):
+class Dilated(Wrapper):
     """The field dilated about the origin by c > 0: A'(x) = A(x/c)/c, F'(x) = F(x/c)/c^2, s'(x) = s(x/c)/c^4."""
 
     field: object
@@ -417,15 +417,15 @@ class Dilated(_Wrapper):
 
     def field_strength(self, x):
         c, y = self._y(x)
-        return _fs(self.field)(y) / c**2
+        return point_field_strength(self.field)(y) / c**2
 
     def action_density(self, x):
         c, y = self._y(x)
-        return _s(self.field, y) / c**4
+        return point_action_density(self.field, y) / c**4
 
     def charge_density(self, x):
         c, y = self._y(x)
-        return _q(self.field, y) / c**4
+        return point_charge_density(self.field, y) / c**4
 
     def _map_hint(self, centre, scale):
         c = float(self.factor)
@@ -462,7 +462,7 @@ def dilate(field, factor) -> Dilated:
 
 @jax.tree_util.register_pytree_node_class
 @dataclasses.dataclass(frozen=True)
-class ParityImage(_Wrapper):
+class ParityImage(Wrapper):
     """The parity image: A'_mu(x) = P_mu A_mu(Px), P = diag(-1, -1, -1, 1); s'(x) = s(Px), q'(x) = -q(Px).
 
     Turns an instanton (self-dual) into an anti-instanton (anti-self-dual) and back; charge -> -charge.
@@ -486,13 +486,13 @@ class ParityImage(_Wrapper):
         return PARITY[:, None, None] * self.field.potential(self._px(x))
 
     def field_strength(self, x):
-        return (PARITY[:, None] * PARITY[None, :])[:, :, None, None] * _fs(self.field)(self._px(x))
+        return (PARITY[:, None] * PARITY[None, :])[:, :, None, None] * point_field_strength(self.field)(self._px(x))
 
     def action_density(self, x):
-        return _s(self.field, self._px(x))
+        return point_action_density(self.field, self._px(x))
 
     def charge_density(self, x):
-        return -_q(self.field, self._px(x))
+        return -point_charge_density(self.field, self._px(x))
 
     def _map_hint(self, centre, scale):
         return PARITY * centre, scale

@@ -2,7 +2,7 @@
 
 A wrapper offers a hook exactly when the field it wraps does and the subclass can map it (its ``_map_*``
 methods); a hook it cannot map raises ``AttributeError``, so ``fields.hook`` says None.  The per-point
-helpers ``_fs``, ``_s``, ``_q`` give a field's F, s and q by its closed forms when it has them, else by
+helpers ``point_field_strength``, ``point_action_density``, ``point_charge_density`` give a field's F, s and q by its closed forms when it has them, else by
 autodiff of its potential (``fields.field_strength_from_potential``).
 """
 
@@ -19,30 +19,30 @@ from .fields import action_from_f, charge_from_f, field_strength_from_potential,
 # -- per-point helpers for any field ----------------------------------------------------------------
 
 
-def _fs(field):
+def point_field_strength(field):
     """The field's per-point F: its closed form if it has one, else jax.jacfwd of its potential."""
     closed = hook(field, "field_strength")
     return closed if closed is not None else field_strength_from_potential(field.potential)
 
 
-def _s(field, x):
+def point_action_density(field, x):
     """s(x): the field's closed form when it has one, else fields.action_from_f of its F."""
     closed = hook(field, "action_density")
-    return closed(x) if closed is not None else action_from_f(_fs(field)(x))
+    return closed(x) if closed is not None else action_from_f(point_field_strength(field)(x))
 
 
-def _q(field, x):
+def point_charge_density(field, x):
     """q(x): the field's closed form when it has one, else fields.charge_from_f of its F."""
     closed = hook(field, "charge_density")
-    return closed(x) if closed is not None else charge_from_f(_fs(field)(x))
+    return closed(x) if closed is not None else charge_from_f(point_field_strength(field)(x))
 
 
-def _missing(name: str):
+def missing_hook(name: str):
     """Raise AttributeError (so ``hasattr`` is False) when the wrapped field lacks ``name``."""
     raise AttributeError(f"the wrapped field has no {name!r}")
 
 
-class _Wrapper(PytreeFields):
+class Wrapper(PytreeFields):
     """Shared forwarding of ``hint``/``charge``/``period`` through the ``_map_*`` hooks of a subclass."""
 
     field: object
@@ -59,7 +59,7 @@ class _Wrapper(PytreeFields):
     @property
     def hint(self):
         if not hasattr(self.field, "hint"):
-            _missing("hint")
+            missing_hook("hint")
 
         def hint():
             centre, scale = self.field.hint()
@@ -70,13 +70,13 @@ class _Wrapper(PytreeFields):
     @property
     def charge(self):
         if not hasattr(self.field, "charge"):
-            _missing("charge")
+            missing_hook("charge")
         return self._map_charge(self.field.charge)
 
     @property
     def period(self):
         if not hasattr(self.field, "period"):
-            _missing("period")
+            missing_hook("period")
         return self._map_period(self.field.period)
 
     def _map_layout(self, centres, scales):
@@ -87,7 +87,7 @@ class _Wrapper(PytreeFields):
     @property
     def layout(self):
         if not hasattr(self.field, "layout"):
-            _missing("layout")
+            missing_hook("layout")
 
         def layout():
             centres, scales = self.field.layout()
@@ -100,7 +100,7 @@ class _Wrapper(PytreeFields):
     @property
     def pole_count(self):
         if not hasattr(self.field, "pole_count"):
-            _missing("pole_count")
+            missing_hook("pole_count")
 
         def pole_count():
             count, text = self.field.pole_count()
@@ -114,7 +114,7 @@ class _Wrapper(PytreeFields):
     def constraint_residual(self):
         """The wrapped field's constraint residual (gauge, translation, rotation and dilation invariant)."""
         if not hasattr(self.field, "constraint_residual"):
-            _missing("constraint_residual")
+            missing_hook("constraint_residual")
         return self.field.constraint_residual
 
     def describe(self) -> str:
@@ -143,7 +143,7 @@ class _Wrapper(PytreeFields):
         """
         inner = hook(self.field, "record")
         if inner is None:
-            _missing("record")
+            missing_hook("record")
 
         def record():
             return {"kind": self._record_kind, "field": inner(), **self._record_params()}
@@ -164,7 +164,7 @@ class _Wrapper(PytreeFields):
         inner = hook(self.field, "generator_batch")
         to_inner = self._generator_points
         if inner is None or to_inner is None:
-            _missing("generator_batch")
+            missing_hook("generator_batch")
 
         def generator_batch(points, dirs):
             y, e = to_inner(jnp.asarray(points, dtype=jnp.float64), jnp.asarray(dirs, dtype=jnp.float64))
@@ -177,7 +177,7 @@ class _Wrapper(PytreeFields):
         """Field hook: the wrapped field's batch densities at the mapped points (s, q are scalars, q pseudo)."""
         inner = hook(self.field, "density_batch")
         if inner is None:
-            _missing("density_batch")
+            missing_hook("density_batch")
 
         def density_batch(points, quantity: str):
             y, factor, sign = self._batch_points(jnp.asarray(points, dtype=jnp.float64))

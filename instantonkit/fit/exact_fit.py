@@ -38,7 +38,14 @@ import jax.numpy as jnp
 import numpy as np
 import scipy.optimize
 
-from ..adhm.base import pack_unitary, solve_moment_maps, solve_quaternionic_constraint, unitary_weights, unpack_unitary
+from ..adhm.base import (
+    anti_hermitian_basis,
+    pack_unitary,
+    solve_moment_maps,
+    solve_quaternionic_constraint,
+    unitary_weights,
+    unpack_unitary,
+)
 from ..adhm.moduli import UNROLLED_STEPS, multi_instanton
 from ..adhm.quaternionic import ADHMData
 from ..adhm.unitary import UnitaryADHMData, complex_coordinates
@@ -257,18 +264,7 @@ def _haar(n: int, rng) -> np.ndarray:
 
 def _u_basis(n: int) -> np.ndarray:
     """Orthonormal basis of u(n) (Frobenius inner product), (n^2, n, n) anti-Hermitian."""
-    out = []
-    for a in range(n):
-        for b in range(n):
-            m = np.zeros((n, n), dtype=np.complex128)
-            if a == b:
-                m[a, a] = 1j
-            elif a < b:
-                m[a, b], m[b, a] = 1 / np.sqrt(2), -1 / np.sqrt(2)
-            else:
-                m[a, b], m[b, a] = 1j / np.sqrt(2), 1j / np.sqrt(2)
-            out.append(m)
-    return np.array(out)
+    return anti_hermitian_basis(n, 1 / np.sqrt(2))
 
 
 def _stabiliser(n: int) -> np.ndarray:

@@ -35,7 +35,7 @@ import jax.numpy as jnp
 import numpy as np
 
 from ..core import _validate
-from ..core._links import check_links
+from ..core._links import CheckedLinks, check_links
 from ..core.conventions import ACTION_DENSITY_FACTOR, INSTANTON_ACTION
 from ..engine.fields import action_from_f
 from ..lattice import observables as _obs
@@ -110,7 +110,7 @@ def _tree_transporters(u: np.ndarray) -> np.ndarray:
     return p
 
 
-def colour_rank(links, *, spacing: float = 1.0, boundary: str = "periodic", threshold: float = RANK_THRESHOLD):
+def colour_rank(links, *, spacing=1.0, boundary: str = "periodic", threshold: float = RANK_THRESHOLD):
     """The colour rank of a lattice gauge field: N minus the dimension of the common null space of its clover F.
 
     The clover F_mu nu(x) of every site with appreciable action is carried to site 0 along a maximal tree
@@ -119,7 +119,7 @@ def colour_rank(links, *, spacing: float = 1.0, boundary: str = "periodic", thre
 
     Args:
       links: (L1, L2, L3, L4, 4, N, N) complex links, N >= 2.
-      spacing: lattice spacing a > 0.
+      spacing: lattice spacing a > 0, or four (a1, a2, a3, a4) > 0.
       boundary: 'periodic' or 'open' (open: sites whose clovers leave the lattice are skipped).
       threshold: relative singular value in (0, 1) below which a direction is null.
     Returns:
@@ -134,7 +134,7 @@ def colour_rank(links, *, spacing: float = 1.0, boundary: str = "periodic", thre
     thr = _validate.positive_float("threshold", threshold)
     if thr >= 1:
         raise ValueError(f"threshold must be in (0, 1); found {thr!r}")
-    f = _obs.clover_field_strength(u, spacing=spacing, boundary=boundary).reshape((-1, 16, n, n))
+    f = _obs.clover_field_strength(CheckedLinks(u), spacing=spacing, boundary=boundary).reshape((-1, 16, n, n))
     p = _tree_transporters(np.asarray(u)).reshape((-1, n, n))
     ok = np.isfinite(f).all(axis=(1, 2, 3))
     f, p = f[ok], p[ok]
@@ -157,7 +157,7 @@ def find_lattice_instantons(
     links,
     k,
     *,
-    spacing: float = 1.0,
+    spacing=1.0,
     origin=None,
     boundary: str = "periodic",
     quantity: str = "charge",
@@ -182,7 +182,8 @@ def find_lattice_instantons(
     Args:
       links: (L1, L2, L3, L4, 4, N, N) complex links.
       k: as in `find_instantons` (an integer, or (k_plus, k_minus) for quantity='charge').
-      spacing: lattice spacing a > 0.
+      spacing: lattice spacing a > 0, or four (a1, a2, a3, a4) > 0 (anisotropic lattices: sites at
+        origin_mu + a_mu n_mu, clover densities and the Wilson action with the four spacings).
       origin: (4,) position of site 0, default (0, 0, 0, 0).
       boundary: 'periodic' or 'open'.
       quantity: 'charge' or 'action'.
@@ -204,10 +205,10 @@ def find_lattice_instantons(
             f"smoothing must be the SmoothingRecord of wilson_flow / gradient_flow / cool or None; found "
             f"{type(smoothing).__name__}"
         )
-    links = check_links(links)
+    links = CheckedLinks(check_links(links))  # checked once: the observables below take them as they are
     if model is not None:
         _validate.choice("model", model, ("exact", "superposition"))
-    a = _validate.positive_float("spacing", spacing)
+    a = _validate.spacing_value("spacing", spacing)  # one float, or four (a1, a2, a3, a4) when they differ
     org = np.zeros(4) if origin is None else _validate.point("origin", origin)
     if rank is None:
         inferred = colour_rank(links, spacing=a, boundary=boundary)
@@ -225,14 +226,15 @@ def find_lattice_instantons(
         dens = np.where(np.isnan(fmn).any(axis=(4, 5, 6, 7)), np.nan, dens)
     shape = dens.shape
     grids = np.meshgrid(*[np.arange(n, dtype=np.float64) for n in shape], indexing="ij")
-    sites = org + a * np.stack(grids, axis=-1)
+    sites = org + (np.asarray(a) if isinstance(a, tuple) else a) * np.stack(grids, axis=-1)
     ok = np.isfinite(dens)
-    lattice_note = f"; lattice artefacts of the clover density, O((a / rho)^2) with a = {a:g}, are not included"
+    a_text = f"{a:g}" if isinstance(a, float) else "(" + ", ".join(f"{v:g}" for v in a) + ")"
+    lattice_note = f"; lattice artefacts of the clover density, O((a / rho)^2) with a = {a_text}, are not included"
     fit = find_instantons(
         sites[ok], dens[ok], k, quantity=quantity, model=model, rank=rank, _lattice_note=lattice_note, **options
     )
     k_total = sum(k) if isinstance(k, tuple | list) else k
-    s_w = _obs.wilson_action(links, boundary=boundary)
+    s_w = _obs.wilson_action(links, boundary=boundary, spacing=a if isinstance(a, tuple) else None)
 
     def finish(f):
         return _smoothing_systematic(dataclasses.replace(f, notes=f.notes + (note,)), smoothing, s_w, k_total)

@@ -61,20 +61,27 @@ def _neighbour_pairs(pts: np.ndarray):
     return i, j
 
 
-def count_peaks(points, density, *, min_fraction: float = 0.05) -> tuple[np.ndarray, np.ndarray]:
+def count_peaks(
+    points, density, *, min_fraction: float = 0.05, merge_radius: float | None = None
+) -> tuple[np.ndarray, np.ndarray]:
     """Distinct local maxima of sampled density: (centres (p, 4), heights (p,)), tallest first.
 
     A sample is a local maximum when no sample within _PEAK_RADIUS median spacings (the 3^4 stencil of
     a lattice site) exceeds it by more than _TIE_RTOL of the tallest; maxima that touch (a plateau, or
     the tied corners of a hypercube around a lump between sites) are merged into one peak at their
     mean position.  Peaks above ``min_fraction`` of the tallest are then merged when closer than the
-    BPST size of the taller one (rho = (BPST_PEAK / height)^(1/4)).
-    points: (..., 4); density: (...,) with one value per point.
+    BPST size of the taller one (rho = (BPST_PEAK / height)^(1/4)), or than ``merge_radius`` when it is
+    given (lumps that are not BPST-shaped, e.g. a caloron's constituent monopoles).
+    points: (..., 4); density: (...,) with one value per point; merge_radius: None or a length >= 0.
     """
     pts, _ = as_points(points)
     d = _validate.real_array("density", density).reshape(-1)
     if d.shape[0] != pts.shape[0]:
         raise ValueError(f"density must have one value per point ({pts.shape[0]}); found {d.shape[0]}")
+    if merge_radius is not None:
+        merge_radius = _validate.finite_float("merge_radius", merge_radius)
+        if merge_radius < 0:
+            raise ValueError(f"merge_radius must be >= 0; found {merge_radius!r}")
     top = float(np.max(d))
     if top <= 0:
         return np.zeros((0, 4)), np.zeros(0)
@@ -101,7 +108,11 @@ def count_peaks(points, density, *, min_fraction: float = 0.05) -> tuple[np.ndar
     kept: list[int] = []
     for c in range(n_groups):
         rho = (BPST_PEAK / heights[c]) ** 0.25
-        if all(np.linalg.norm(centres[c] - centres[q]) > max(rho, (BPST_PEAK / heights[q]) ** 0.25) for q in kept):
+        if merge_radius is not None:
+            near = [np.linalg.norm(centres[c] - centres[q]) <= merge_radius for q in kept]
+        else:
+            near = [np.linalg.norm(centres[c] - centres[q]) <= max(rho, (BPST_PEAK / heights[q]) ** 0.25) for q in kept]
+        if not any(near):
             kept.append(c)
     return centres[kept], heights[kept]
 

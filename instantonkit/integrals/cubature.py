@@ -7,7 +7,7 @@ of the partition of unity (one per centre) is adaptive in two ways: Gauss-Legend
 node (a shell) its own angular level of a product rule on S^3 (or S^2 x the x4 circle), oriented with
 more nodes in the angle from the neighbour that dominates the shell (quadrature.shell_axes).  Error
 estimates: differences of the last two levels (radially the largest seen at the level), enlarged when
-they converge slowly (``_piece_error``), plus a rounding floor.  `integrate_adaptive` runs one
+they converge slowly (``piece_error``), plus a rounding floor.  `integrate_adaptive` runs one
 integral; `final_rule` gives its final rule as points and weights, for sampling the field there."""
 
 from __future__ import annotations
@@ -21,18 +21,18 @@ import numpy as np
 
 from . import quadrature as _quad
 from . import singular as _sing
-from .decay import _PROBE_RADII, _PROBE_RADIUS, _PROBE_RAYS, _PROBE_SEED, _check_decay
-from .estimates import _piece_error
+from .decay import PROBE_RADII, PROBE_RADIUS, PROBE_RAYS, PROBE_SEED, check_decay
+from .estimates import piece_error
 from .pieces import (
-    _RADIAL_COUNTS,
+    RADIAL_COUNTS,
+    Gluing,
     Layout,
-    _angular_counts,
-    _Gluing,
-    _Piece,
-    _piece_radial_nodes,
-    _shell_orientation,
-    _shell_rule,
-    _shell_size,
+    Piece,
+    angular_counts,
+    piece_radial_nodes,
+    shell_orientation,
+    shell_rule,
+    shell_size,
 )
 from .singular import DivergentIntegralError, SingularDensityError
 
@@ -48,8 +48,8 @@ __all__ = [
     "MAX_ANGULAR_LEVEL",
 ]
 
-#: Finest radial level: the last entry of _RADIAL_COUNTS (256 nodes in u).
-MAX_RADIAL_LEVEL = len(_RADIAL_COUNTS) - 1
+#: Finest radial level: the last entry of RADIAL_COUNTS (256 nodes in u).
+MAX_RADIAL_LEVEL = len(RADIAL_COUNTS) - 1
 
 #: Finest angular level: S^3 parameter 3 + 2 * 20 = 43 (2 * 43^3 = 159,014 points per shell).
 MAX_ANGULAR_LEVEL = 20
@@ -124,7 +124,7 @@ def _greedy(errors: np.ndarray, target: float) -> list[int]:
 class _ShellRequest(NamedTuple):
     """One shell to evaluate: kind 'lo'/'hi' (the first pair of levels of a new shell) or 'up' (next level)."""
 
-    piece: _Piece
+    piece: Piece
     kind: str
     shell: int
     level: int
@@ -133,7 +133,7 @@ class _ShellRequest(NamedTuple):
 class _Plan(NamedTuple):
     """A piece's refinement in one round: kind 'angular' (shells: indices) or 'radial' (shells: initial levels)."""
 
-    piece: _Piece
+    piece: Piece
     kind: str
     shells: Any
 
@@ -151,8 +151,8 @@ class _State:
 
     @classmethod
     def start(cls, layout: Layout) -> _State:
-        g = _Gluing.of(layout)
-        pieces = [_Piece(i, g.centres[i], float(g.radial[i]), layout.dim, layout, g) for i in range(g.centres.shape[0])]
+        g = Gluing.of(layout)
+        pieces = [Piece(i, g.centres[i], float(g.radial[i]), layout.dim, layout, g) for i in range(g.centres.shape[0])]
         return cls(layout, pieces)
 
     @property
@@ -167,7 +167,7 @@ class _State:
 # -- the steps of one integral ---------------------------------------------------------------------------
 
 
-def _new_level_requests(piece: _Piece, lr: int, init) -> list[_ShellRequest]:
+def _new_level_requests(piece: Piece, lr: int, init) -> list[_ShellRequest]:
     """Move ``piece`` to radial level lr; each new shell is evaluated at two angular levels (lo, lo + 1)."""
     piece.set_radial_level(lr, init)
     reqs = []
@@ -183,7 +183,7 @@ def _evaluate(state: _State, density, requests: Sequence[_ShellRequest], extra=N
 
     Returns ([(sum w f, sum |w f|) per request], density at ``extra``); adds the points to the state.
     """
-    chunks = [_shell_rule(q.piece, q.shell, q.level, state.layout) for q in requests]
+    chunks = [shell_rule(q.piece, q.shell, q.level, state.layout) for q in requests]
     sizes = [c[0].shape[0] for c in chunks]
     allpts = [c[0] for c in chunks] + ([extra] if extra is not None else [])
     pts = np.concatenate(allpts) if allpts else np.zeros((0, 4))
@@ -214,20 +214,20 @@ def _apply(requests: Sequence[_ShellRequest], sums) -> None:
             lows[(id(p), j)] = v
         elif kind == "hi":
             v0 = lows[(id(p), j)]
-            p.err[j], p.diff[j] = _piece_error(v - v0, math.nan, mag)
+            p.err[j], p.diff[j] = piece_error(v - v0, math.nan, mag)
             p.val[j], p.mag[j] = v, mag
         else:  # 'up'
-            p.err[j], p.diff[j] = _piece_error(v - p.val[j], p.diff[j], mag)
+            p.err[j], p.diff[j] = piece_error(v - p.val[j], p.diff[j], mag)
             p.val[j], p.mag[j], p.la[j] = v, mag, lev
 
 
-def _level_need(piece: _Piece, lr: int, init, layout: Layout) -> int:
+def _level_need(piece: Piece, lr: int, init, layout: Layout) -> int:
     """Points of moving ``piece`` to radial level lr with initial angular levels ``init`` (lo and hi per shell)."""
-    r_new = _piece_radial_nodes(piece, lr)[0]
-    asp = _shell_orientation(piece, r_new, layout)[1]
+    r_new = piece_radial_nodes(piece, lr)[0]
+    asp = shell_orientation(piece, r_new, layout)[1]
     return sum(
-        _shell_size(int(max(lev - 1, 0)), layout.periodic, int(a))
-        + _shell_size(int(max(lev, 1)), layout.periodic, int(a))
+        shell_size(int(max(lev - 1, 0)), layout.periodic, int(a))
+        + shell_size(int(max(lev, 1)), layout.periodic, int(a))
         for lev, a in zip(init, asp)
     )
 
@@ -239,9 +239,9 @@ def _initial_rounds(state: _State, density, name: str, max_points: int) -> str:
     then stops after level 0 with an infinite error estimate).
     Raises ValueError naming max_points when not even level 0 and the probe fit.
     """
-    radii = _PROBE_RADIUS * state.layout.extent * 2.0 ** np.arange(_PROBE_RADII)  # rays about the mean centre
-    probe = _quad.ray_points(state.layout.centres.mean(axis=0), radii, state.layout.dim, _PROBE_RAYS, _PROBE_SEED)
-    init0 = [np.ones(_piece_radial_nodes(p, 0)[0].shape[0], dtype=int) for p in state.pieces]
+    radii = PROBE_RADIUS * state.layout.extent * 2.0 ** np.arange(PROBE_RADII)  # rays about the mean centre
+    probe = _quad.ray_points(state.layout.centres.mean(axis=0), radii, state.layout.dim, PROBE_RAYS, PROBE_SEED)
+    init0 = [np.ones(piece_radial_nodes(p, 0)[0].shape[0], dtype=int) for p in state.pieces]
     need0 = probe.shape[0] + sum(_level_need(p, 0, i0, state.layout) for p, i0 in zip(state.pieces, init0))
     if need0 > max_points:
         raise ValueError(
@@ -253,7 +253,7 @@ def _initial_rounds(state: _State, density, name: str, max_points: int) -> str:
         reqs0 += _new_level_requests(p, 0, i0)
     res0, probe_vals = _evaluate(state, density, reqs0, probe)
     magnitude = float(sum(mag for q, (_, mag) in zip(reqs0, res0) if q.kind == "hi"))
-    _check_decay(name, probe_vals, radii, state.layout, magnitude)
+    check_decay(name, probe_vals, radii, state.layout, magnitude)
     _apply(reqs0, res0)
     for p in state.pieces:
         p.prev_value = p.value
@@ -275,7 +275,7 @@ def _initial_rounds(state: _State, density, name: str, max_points: int) -> str:
     return ""
 
 
-def _plan_round(state: _State, tol: float) -> tuple[list[_Piece], list[_Plan], int]:
+def _plan_round(state: _State, tol: float) -> tuple[list[Piece], list[_Plan], int]:
     """Choose the pieces that carry the error and how each refines: (chosen, plans, points needed).
 
     A piece refines the angular level of its worst shells while their error is not small beside its
@@ -292,7 +292,7 @@ def _plan_round(state: _State, tol: float) -> tuple[list[_Piece], list[_Plan], i
             idx = [j for j in _greedy(p.err, _REFINE_TARGET * p.angular_err) if p.la[j] < MAX_ANGULAR_LEVEL]
             if idx:  # worst shells all at the finest angular level: refine radially, or nothing is left here
                 plans.append(_Plan(p, "angular", idx))
-                need += sum(_shell_size(int(p.la[j]) + 1, periodic, int(p.aspect[j])) for j in idx)
+                need += sum(shell_size(int(p.la[j]) + 1, periodic, int(p.aspect[j])) for j in idx)
                 continue
         if p.lr < MAX_RADIAL_LEVEL:
             init = p.levels_for(p.lr + 1)
@@ -334,7 +334,7 @@ def _rule_description(state: _State) -> str:
     parts = []
     for p in state.pieces:
         lo, hi = int(p.la.min()), int(p.la.max())
-        n_lo, n_hi = _angular_counts(lo, periodic)[1], _angular_counts(hi, periodic)[1]
+        n_lo, n_hi = angular_counts(lo, periodic)[1], angular_counts(hi, periodic)[1]
         sphere = "S^2 x circle" if periodic else "S^3"
         parts.append(f"{p.r.shape[0]} radial nodes (L = {p.L:.3g}), {sphere} parameter {n_lo}..{n_hi}")
     k = len(state.pieces)
@@ -355,7 +355,7 @@ def final_rule(state: _State, max_points: int) -> _quad.Rule:
     pts, wts = [], []
     for p in state.pieces:
         for j, lev in enumerate(np.minimum(p.la, cap)):
-            a, w = _shell_rule(p, j, int(lev), state.layout)
+            a, w = shell_rule(p, j, int(lev), state.layout)
             pts.append(a)
             wts.append(w)
     desc = _rule_description(state) + (f"; angular levels capped at {cap}" if cap < MAX_ANGULAR_LEVEL else "")
@@ -374,7 +374,7 @@ def integrate_adaptive(
     state = _State.start(layout)
     first = _initial_rounds(state, density, name, max_points)
     converged, message, note, searched, best, stalled = False, "", "", False, math.inf, 0
-    max_rounds = max_points // _shell_size(0, layout.periodic)  # each round evaluates >= 1 shell of >= this
+    max_rounds = max_points // shell_size(0, layout.periodic)  # each round evaluates >= 1 shell of >= this
     while True:
         value, error = state.value, state.error
         tol = max(atol, rtol * abs(value))

@@ -1,7 +1,7 @@
 """The decay probe of the adaptive cubature: a density that falls too slowly at infinity has no estimable integral.
 
 Before the first round `instantonkit.integrals.cubature` evaluates the density along fixed rays far
-outside every lump; `_check_decay` fits the power of its fall (``quadrature.decay_exponent``) and
+outside every lump; `check_decay` fits the power of its fall (``quadrature.decay_exponent``) and
 refuses (``DivergentIntegralError``) a density falling slower than |x|^-(d + 3/4).
 """
 
@@ -13,12 +13,12 @@ from . import quadrature as _quad
 from .pieces import Layout
 from .singular import DivergentIntegralError
 
-#: Decay probe: radii _PROBE_RADIUS x (field extent) x 2^j, j < _PROBE_RADII, far outside every lump.
-_PROBE_RADIUS = 16.0
-_PROBE_RADII = 4
+#: Decay probe: radii PROBE_RADIUS x (field extent) x 2^j, j < PROBE_RADII, far outside every lump.
+PROBE_RADIUS = 16.0
+PROBE_RADII = 4
 #: Decay probe: rays per radius, directions drawn with a fixed seed (the same probe on every run).
-_PROBE_RAYS = 8
-_PROBE_SEED = 12345
+PROBE_RAYS = 8
+PROBE_SEED = 12345
 #: A density falling slower than |x|^-(d + _DECAY_MARGIN) is refused: its tail error is not estimable.
 _DECAY_MARGIN = 0.75
 #: ... and called divergent (rather than too slow) when it falls no faster than |x|^-(d + _DIVERGENCE_MARGIN).
@@ -33,7 +33,7 @@ _PROBE_NOISE = 1e-15
 # -- decay at infinity -----------------------------------------------------------------------------
 
 
-def _check_decay(name: str, values: np.ndarray, radii: np.ndarray, layout: Layout, magnitude: float) -> None:
+def check_decay(name: str, values: np.ndarray, radii: np.ndarray, layout: Layout, magnitude: float) -> None:
     """Raise DivergentIntegralError when the probed density falls slower than |x|^-(d + _DECAY_MARGIN)."""
     dim = layout.dim
     p_exp = _quad.decay_exponent(values, radii, dim, magnitude, zero=_PROBE_ZERO, area=_PROBE_AREA, noise=_PROBE_NOISE)

@@ -9,7 +9,7 @@ own angular level of a product rule on S^3 (or S^2 x the x4 circle), oriented to
 that dominates the shell (`instantonkit.integrals.cubature`).  Refinement goes to the pieces and shells that carry the error
 until it meets ``max(atol, rtol |value|)`` or the ``max_points`` budget is spent (then ``converged`` is
 False and ``message`` says so).  Error estimates are differences of the last two levels, enlarged when
-the levels converge slowly (see ``_piece_error``), plus a rounding floor.
+the levels converge slowly (see ``piece_error``), plus a rounding floor.
 
 Before integrating, the density is sampled along rays at large radius; if it falls no faster than
 about ``|x|^-(d + 1)`` (``d`` = 4, or 3 for periodic fields) the integral diverges or converges too

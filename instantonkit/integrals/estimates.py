@@ -1,7 +1,7 @@
 """The error model of the adaptive cubature (`instantonkit.integrals.cubature`): what two levels of a rule say.
 
 The estimate of the finer of two levels is the difference of their values, enlarged when they converge
-slowly (a geometric tail), plus a rounding floor; see `_piece_error`.
+slowly (a geometric tail), plus a rounding floor; see `piece_error`.
 """
 
 from __future__ import annotations
@@ -24,7 +24,7 @@ _ROUNDING_FLOOR = 64
 # -- levels and error estimates ------------------------------------------------------------------------
 
 
-def _piece_error(diff: float, previous: float, magnitude: float) -> tuple[float, float]:
+def piece_error(diff: float, previous: float, magnitude: float) -> tuple[float, float]:
     """Error estimate of the finer of two levels, and |diff| to remember.
 
     |diff| bounds the error of the coarser level and, when the levels converge fast, generously that

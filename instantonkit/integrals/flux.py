@@ -145,7 +145,7 @@ def exterior_integral(density, centre, radius: float, nt: int, n: int) -> tuple[
     Returns:
       (value, rounding floor).
     """
-    t, wt = _quad._legendre01(nt)
+    t, wt = _quad.legendre01(nt)
     d, w = _quad.sphere3_nodes(n)
     r = radius / t
     wr = wt * radius / t**2 * r**3  # dr = R / t^2 dt, r^3 dr d Omega

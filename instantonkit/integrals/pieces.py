@@ -1,6 +1,6 @@
 """The pieces of the adaptive cubature: the layout, the partition of unity, radial and angular levels, shell rules.
 
-Each piece of the partition of unity (one per centre, `_Gluing`) carries its own radial
+Each piece of the partition of unity (one per centre, `Gluing`) carries its own radial
 Gauss-Legendre level in ``u`` (``r = L u / (1 - u)``, cut into panels about far neighbours' distances)
 and, per radial node (a shell), an angular level of a product rule on S^3 (or S^2 x the x4 circle),
 oriented towards the neighbour that dominates the shell.  How the pieces are refined is
@@ -15,13 +15,13 @@ import math
 import numpy as np
 
 from . import quadrature as _quad
-from .estimates import _piece_error
+from .estimates import piece_error
 
 #: Radial Gauss-Legendre nodes per radial level: slow growth first (most lumps converge by 48-64).
-_RADIAL_COUNTS = (16, 24, 32, 40, 48, 64, 80, 96, 128, 160, 192, 256)
+RADIAL_COUNTS = (16, 24, 32, 40, 48, 64, 80, 96, 128, 160, 192, 256)
 
 
-#: Oriented shell rules and radial panels (see _shell_orientation and _piece_radial_nodes; _ASPECT = 1 and
+#: Oriented shell rules and radial panels (see shell_orientation and piece_radial_nodes; _ASPECT = 1 and
 #: _PANELS = False give the earlier rules, the reference of earlier measurements): aspect, dominance, separation in
 #: rho_j; panel cuts at d_ij -+ _PANEL_HALF_WIDTH rho_j, panels >= _PANEL_MIN_LENGTH in u, >= _PANEL_MIN nodes.
 _ASPECT, _DOMINANCE, _PANEL_SEPARATION = 4, 10.0, 6.0
@@ -63,7 +63,7 @@ class Layout:
         return float(np.max(self.scales) + np.max(np.linalg.norm(self.centres - c0, axis=1)))
 
 
-#: Background gluing (R^4, two or more centres; see _Gluing): OFF by default, measured worse.  Random ADHM data
+#: Background gluing (R^4, two or more centres; see Gluing): OFF by default, measured worse.  Random ADHM data
 #: (seed = k), rtol 1e-10, 0.6-1M points: k = 3 true error 1.8e-8 (plain gluing) vs 3e-8..8.5e-6 (background,
 #: core fraction 0.3..0.7, scale 1..2); k = 4 1.0e-7 vs 1.2e-6..4.8e-5: the background piece takes the lumps'
 #: tails beyond y_i (10-25% of Q) as features of size y_i seen from the mean centre.  Core radius y_i = _CORE_FRACTION x (distance to the nearest other centre), at least rho_i, and
@@ -72,7 +72,7 @@ _BACKGROUND, _CORE_FRACTION, _BACKGROUND_SCALE = False, 0.3, 1.0
 
 
 @dataclasses.dataclass(frozen=True)
-class _Gluing:
+class Gluing:
     """The pieces of the partition of unity: centres (m, 4), scales (m,), log amplitudes (m,) or None, radial scales.
 
     Without a background: one piece per layout centre (weights phi_i = (rho_i / (d^2 + rho_i^2))^4,
@@ -92,7 +92,7 @@ class _Gluing:
     background: bool
 
     @classmethod
-    def of(cls, layout: Layout) -> _Gluing:
+    def of(cls, layout: Layout) -> Gluing:
         c, s = layout.centres, layout.scales
         m = c.shape[0]
         if m == 1 or layout.periodic or not _BACKGROUND:
@@ -117,11 +117,11 @@ class _Gluing:
 
 
 def _radial_count(level: int) -> int:
-    """Radial Gauss-Legendre nodes of radial level l (_RADIAL_COUNTS, the last entry beyond)."""
-    return _RADIAL_COUNTS[min(level, len(_RADIAL_COUNTS) - 1)]
+    """Radial Gauss-Legendre nodes of radial level l (RADIAL_COUNTS, the last entry beyond)."""
+    return RADIAL_COUNTS[min(level, len(RADIAL_COUNTS) - 1)]
 
 
-def _angular_counts(level: int, periodic: bool, aspect: int = 1) -> tuple[int, int, int]:
+def angular_counts(level: int, periodic: bool, aspect: int = 1) -> tuple[int, int, int]:
     """Angular level a -> (n_psi, n_perp, time nodes).
 
     R^4: the isotropic S^3 parameter n = 3 + 2a (aspect 1), or n_perp = 3 + a, n_psi = aspect n_perp
@@ -136,16 +136,16 @@ def _angular_counts(level: int, periodic: bool, aspect: int = 1) -> tuple[int, i
     return aspect * (3 + level), 3 + level, 0
 
 
-def _shell_size(level: int, periodic: bool, aspect: int = 1) -> int:
+def shell_size(level: int, periodic: bool, aspect: int = 1) -> int:
     """Points of one shell at angular level ``level``."""
-    n_psi, n, nt = _angular_counts(level, periodic, aspect)
+    n_psi, n, nt = angular_counts(level, periodic, aspect)
     return 2 * n * n * nt if periodic else 2 * n_psi * n * n
 
 
 # -- the adaptive state ----------------------------------------------------------------------------------
 
 
-class _Piece:
+class Piece:
     """Adaptive state of one piece: radial nodes, and per radial node (shell) its angular level and value.
 
     r, wr: (n,) radial nodes and weights of level ``lr``; la: (n,) angular level per shell; val, mag,
@@ -162,19 +162,19 @@ class _Piece:
 
     def set_radial_level(self, lr: int, init_levels: np.ndarray) -> None:
         self.lr, self.level_diff = lr, 0.0
-        self.r, self.wr = _piece_radial_nodes(self, lr)
+        self.r, self.wr = piece_radial_nodes(self, lr)
         self.la = np.asarray(init_levels, dtype=int)
         n = self.r.shape[0]
         self.val, self.err, self.diff, self.mag = np.zeros(n), np.full(n, math.inf), np.full(n, math.nan), np.zeros(n)
-        self.axis, self.aspect = _shell_orientation(self, self.r, self.layout)
+        self.axis, self.aspect = shell_orientation(self, self.r, self.layout)
 
     def sizes(self, levels) -> int:
         """Points of all shells at angular ``levels`` (n,)."""
-        return sum(_shell_size(int(lev), self.layout.periodic, int(a)) for lev, a in zip(levels, self.aspect))
+        return sum(shell_size(int(lev), self.layout.periodic, int(a)) for lev, a in zip(levels, self.aspect))
 
     def levels_for(self, lr: int) -> np.ndarray:
         """Angular levels for the shells of radial level lr: the larger level of the neighbouring old shells."""
-        r_new = _piece_radial_nodes(self, lr)[0]
+        r_new = piece_radial_nodes(self, lr)[0]
         j = np.clip(np.searchsorted(self.r, r_new), 1, self.r.shape[0] - 1)
         return np.maximum(self.la[j - 1], self.la[j])
 
@@ -204,12 +204,12 @@ class _Piece:
         """
         if np.isfinite(self.prev_value):
             self.level_diff = max(abs(self.value - self.prev_value), self.level_diff)
-            self.radial_err, _ = _piece_error(self.level_diff, self.last_radial_diff, 0.0)
+            self.radial_err, _ = piece_error(self.level_diff, self.last_radial_diff, 0.0)
         else:
             self.radial_err = math.inf
 
 
-def _piece_radial_nodes(piece: _Piece, lr: int) -> tuple[np.ndarray, np.ndarray]:
+def piece_radial_nodes(piece: Piece, lr: int) -> tuple[np.ndarray, np.ndarray]:
     """Radial nodes and weights of piece i at radial level lr (`instantonkit.integrals.quadrature.radial_panel_nodes`).
 
     One centre (or the reference rules, _PANELS False): one Gauss-Legendre rule in u.  Several: the
@@ -232,7 +232,7 @@ def _piece_radial_nodes(piece: _Piece, lr: int) -> tuple[np.ndarray, np.ndarray]
     )
 
 
-def _shell_orientation(piece: _Piece, r: np.ndarray, layout: Layout) -> tuple[np.ndarray, np.ndarray]:
+def shell_orientation(piece: Piece, r: np.ndarray, layout: Layout) -> tuple[np.ndarray, np.ndarray]:
     """Axis (n, 4) and aspect (n,) of the S^3 rules of the shells of radii r (n,) about piece i.
 
     See `instantonkit.integrals.quadrature.shell_axes`; aspect 1 everywhere on R^3 x S^1, for one centre,
@@ -253,13 +253,13 @@ def _shell_orientation(piece: _Piece, r: np.ndarray, layout: Layout) -> tuple[np
     )
 
 
-def _shell_rule(piece: _Piece, j: int, level: int, layout: Layout) -> tuple[np.ndarray, np.ndarray]:
+def shell_rule(piece: Piece, j: int, level: int, layout: Layout) -> tuple[np.ndarray, np.ndarray]:
     """Points (M, 4) and weights (M,) of shell j of ``piece`` at angular level ``level``."""
     period = layout.period
-    _, n, nt = _angular_counts(level, layout.periodic)
+    _, n, nt = angular_counts(level, layout.periodic)
     a, r, wr = piece.centre, piece.r[j], piece.wr[j]
     if period is None:
-        n_psi, n, _ = _angular_counts(level, False, int(piece.aspect[j]))
+        n_psi, n, _ = angular_counts(level, False, int(piece.aspect[j]))
         dirs, wd = (
             _quad.sphere3_oriented(n_psi, n, piece.axis[j]) if layout.centres.shape[0] > 1 else _quad.sphere3_nodes(n)
         )

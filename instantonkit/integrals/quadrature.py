@@ -115,7 +115,7 @@ def _check_scale(name: str, value) -> float:
 
 
 @functools.lru_cache(maxsize=64)
-def _legendre01(n: int) -> tuple[np.ndarray, np.ndarray]:
+def legendre01(n: int) -> tuple[np.ndarray, np.ndarray]:
     """Gauss-Legendre nodes and weights on (0, 1)."""
     t, w = roots_legendre(n)
     return 0.5 * (t + 1.0), 0.5 * w
@@ -128,7 +128,7 @@ def radial_nodes(n: int, scale: float, dim: int) -> tuple[np.ndarray, np.ndarray
     """
     n = _check_count("n", n)
     L = _check_scale("scale", scale)
-    u, wu = _legendre01(n)
+    u, wu = legendre01(n)
     r = L * u / (1.0 - u)
     w = wu * L / (1.0 - u) ** 2 * r ** (dim - 1)
     return r, w
@@ -278,7 +278,7 @@ def radial_panel_nodes(
     keep[-1] = 1.0
     rs, ws = [], []
     for a, b in zip(keep[:-1], keep[1:]):
-        t, wt = _legendre01(max(min_nodes, int(np.ceil(n * (b - a)))))
+        t, wt = legendre01(max(min_nodes, int(np.ceil(n * (b - a)))))
         u = a + (b - a) * t
         r = L * u / (1.0 - u)
         rs.append(r)

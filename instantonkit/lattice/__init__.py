@@ -14,12 +14,14 @@ Modules (floor 5 of the package; the floors inside are in DEVELOPERS.md):
 * ``reports``: The records of a lattice start: its quality report and the finished start.
 * ``scan``: A scan of lattice operators against a/rho with continuum references in the same box.
 * ``sites``: Links of lattice sites (and of a box of sites), singular points handled in a twin gauge.
+* ``staples``: Staples of m x n loops with a weight per (direction, plane) and Z_N phases (anisotropic and twisted flows).
 * ``smoothing``: Smoothing of lattice link arrays: gradient flow, cooling, the 1x1 + 2x2 improved action and an
 * ``starts``: Lattice starts: link variables of a continuum field, and gauge-invariant lattice observables.
 * ``thermal``: Finite-temperature lattices: anisotropic spacings, the anisotropic Wilson weights, a caloron's limit at infinity.
 * ``transport``: Parallel transporters along straight segments: closed forms and sixth-order Magnus steps.
 * ``twist``: Twisted boundary conditions: the twist tensor, twisted observables, the constant-flux links.
-* ``twisted_flow``: Wilson flow and cooling on a twisted torus.
+* ``twisted_flow``: Wilson flow and cooling on a twisted torus (any loop operator's action too).
+* ``twisted_operators``: Loop operators on a twisted torus: action, field strength, charge with the twist's factors.
 """
 
 # ``instantonkit.lattice`` was the module now in ``starts``: its API stays here.

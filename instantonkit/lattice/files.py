@@ -41,6 +41,7 @@ from ..core import _validate as _v
 from ..core._atomic import atomic_write
 from ..core._links import check_finite as _check_finite
 from ..core._links import check_links as _check_link_values
+from ..core._links import links_shape
 
 __all__ = [
     "save_lattice",
@@ -204,7 +205,10 @@ def _save_ildg(fh, u, metadata, lfn, description=None):
     _write_record(fh, "ildg-format", _ildg_xml(shape).encode(), mb=True, me=False)
     fh.write(_lime_header("ildg-binary-data", nbytes, mb=False, me=lfn is None))
     for t in range(shape[3]):  # t slowest; within a time slice (z, y, x, mu, a, b)
-        block = np.asarray(u[:, :, :, t]).transpose(2, 1, 0, 3, 4, 5)
+        block = np.asarray(u[:, :, :, t])
+        if _streamed(u):
+            _finite_block(u, block)
+        block = block.transpose(2, 1, 0, 3, 4, 5)
         fh.write(np.ascontiguousarray(block, dtype=">c16").tobytes())
     fh.write(b"\0" * _pad(nbytes))
     if lfn is not None:
@@ -265,7 +269,40 @@ def _load_ildg(path, mmap: bool):
 def _save_npz(fh, u, metadata, description=None):
     meta = json.dumps(metadata if metadata is not None else {}, sort_keys=True)
     extra = {} if description is None else {"field": np.array(json.dumps(description, sort_keys=True))}
-    np.savez(fh, links=np.asarray(u), metadata=np.array(meta), instantonkit_npz_version=np.array(_NPZ_VERSION), **extra)
+    arrays = {"metadata": np.array(meta), "instantonkit_npz_version": np.array(_NPZ_VERSION), **extra}
+    if not _streamed(u):
+        np.savez(fh, links=np.asarray(u), **arrays)
+        return
+    # what np.savez writes (stored zip members "<name>.npy", zip64), the links streamed in slabs of
+    # whole x1 slices (C order) and checked for finiteness as they are read
+    with zipfile.ZipFile(fh, mode="w", compression=zipfile.ZIP_STORED, allowZip64=True) as zf:
+        with zf.open("links.npy", "w", force_zip64=True) as out:
+            np.lib.format.write_array_header_1_0(out, np.lib.format.header_data_from_array_1_0(u))
+            step = max(1, _SLAB_BYTES // max(1, u[0].nbytes))
+            for i in range(0, u.shape[0], step):
+                out.write(_finite_block(u, np.asarray(u[i : i + step])).tobytes())
+        for name, value in arrays.items():
+            with zf.open(name + ".npy", "w", force_zip64=True) as out:
+                np.lib.format.write_array(out, value, allow_pickle=False)
+
+
+#: Bytes of a memory map read at once when it is written (the links of whole x1 slices).
+_SLAB_BYTES = 1 << 26
+
+
+def _streamed(u) -> bool:
+    """True for links written in slabs and checked for finiteness as they are read: C-ordered memory maps."""
+    return isinstance(u, np.memmap) and u.flags.c_contiguous
+
+
+def _finite_block(u, block):
+    """``block`` (a part of the links ``u`` just read) when finite, else the error of `check_finite` on all of ``u``.
+
+    The error counts every NaN or inf entry of ``u`` and names the first sites, as the check before writing did.
+    """
+    if not np.isfinite(block).all():
+        _check_finite(u)
+    return block
 
 
 def _load_npz(path):
@@ -347,7 +384,9 @@ def save_lattice(
         # a lattice start (duck-typed: io sits below lattice)
         metadata = report.as_metadata() if metadata is None else metadata
         links = links.links
-    u = _check_finite(check_links(links))
+    u = links_shape(links)  # shape, dtype, and a size this machine can hold
+    if not (_streamed(u) and (format == "npz" or u.shape[-1] == 3)):
+        u = _check_finite(u)  # a memory map is checked as it is written: one pass over the file
     if format == "ildg" and u.shape[-1] != 3:
         raise ValueError(
             f"ILDG stores SU(3) links (3 x 3); found {u.shape[-1]} x {u.shape[-1]} (make the start with group='su3')"

@@ -22,22 +22,22 @@ from ..core._pytree import structure_key
 from ..engine.fields import hook
 
 
-def _mm_aos(a, b):
+def mm_aos(a, b):
     """Batched small matrix product written as a broadcast sum (fuses well on CPU); (..., N, N)."""
     return jnp.sum(a[..., :, :, None] * b[..., None, :, :], axis=-2)
 
 
 # -- Magnus steps -------------------------------------------------------------------------------------
 
-_GL3 = (0.5 - math.sqrt(15.0) / 10.0, 0.5, 0.5 + math.sqrt(15.0) / 10.0)
+GL3 = (0.5 - math.sqrt(15.0) / 10.0, 0.5, 0.5 + math.sqrt(15.0) / 10.0)
 
 
 def _rcomm(a, b):
     """Reversed commutator b a - a b: Magnus terms for W' = W G from those for Y' = G Y (transpose)."""
-    return _mm_aos(b, a) - _mm_aos(a, b)
+    return mm_aos(b, a) - mm_aos(a, b)
 
 
-def _magnus6(g1, g2, g3, h):
+def magnus6(g1, g2, g3, h):
     """Sixth-order Magnus exponent of one step for W' = W G from G at the three Gauss-Legendre nodes.
 
     alpha1 = h G2, alpha2 = sqrt(15) h (G3 - G1) / 3, alpha3 = 10 h (G3 - 2 G2 + G1) / 3 and
@@ -55,7 +55,7 @@ def _magnus6(g1, g2, g3, h):
     return a1 + a3 / 12.0 + _rcomm(-20.0 * a1 - a3 + c12, inner) / 240.0
 
 
-def _expm_antihermitian(omega):
+def expm_antihermitian(omega):
     """exp of an anti-Hermitian (N, N) matrix: quaternion exponential for N = 2, eigh otherwise."""
     n = omega.shape[-1]
     if n == 2:
@@ -72,19 +72,19 @@ def _expm_antihermitian(omega):
 #: batched chains of small LAPACK calls (SU(3) frames: Cholesky then inverse, with their derivatives)
 #: idle and unfinished from ~10^4 matrices per call (3 nodes x 4096 links, measured), while 3 x 256
 #: finish; so such a potential is called on at most 768 nodes at a time.
-_NODE_BATCH = 768
+NODE_BATCH = 768
 #: ... and when it calls none (the library's ADHM potentials, closed-form ansaetze): larger calls cost
 #: less per node (measured, charge-2 SU(2) data: 1.67 / 1.43 / 1.25 us per node at 768 / 4096 / 16384).
-_NODE_BATCH_PLAIN = 4096
+NODE_BATCH_PLAIN = 4096
 #: Magnus steps per compiled call of the step kernel: its exponentials use eigh for N > 2 (kept below
 #: the bound above); for N = 2 they are quaternion exponentials and larger calls cost less
 #: (measured: 1.95 / 0.85 us per step at 256 / 2048).
-_STEP_BATCH = 256
-_STEP_BATCH_PLAIN = 2048
+STEP_BATCH = 256
+STEP_BATCH_PLAIN = 2048
 #: Primitives that are LAPACK calls on CPU (a potential using any of them gets the small node batch).
 _LAPACK_PRIMITIVES = ("cholesky", "lu", "eigh", "eig", "svd", "qr", "triangular_solve", "schur", "householder_product")
 #: Node-steps (links x steps) per pass of `_magnus_at`, bounding its temporary memory.
-_PASS_STEPS = 1 << 18
+PASS_STEPS = 1 << 18
 
 
 def _generator(field, x, d):
@@ -103,8 +103,8 @@ def _calls_lapack(jaxpr) -> bool:
 _BATCH_MEMO: dict = {}
 
 
-def _node_batch(field) -> int:
-    """Nodes per potential call for ``field``: _NODE_BATCH_PLAIN unless its potential calls LAPACK.
+def node_batch(field) -> int:
+    """Nodes per potential call for ``field``: NODE_BATCH_PLAIN unless its potential calls LAPACK.
 
     Depends only on the field's structure (its traced potential), so a link's bits do not depend on
     the other links of a call (`instantonkit.core._batching`); memoised per pytree structure.
@@ -113,34 +113,34 @@ def _node_batch(field) -> int:
     hit = _BATCH_MEMO.get(key) if key is not None else None
     if hit is None:
         jaxpr = jax.make_jaxpr(lambda f, x: f.potential(x))(field, jnp.zeros(4))
-        hit = _NODE_BATCH if _calls_lapack(jaxpr.jaxpr) else _NODE_BATCH_PLAIN
+        hit = NODE_BATCH if _calls_lapack(jaxpr.jaxpr) else NODE_BATCH_PLAIN
         if key is not None:
             _BATCH_MEMO[key] = hit
     return hit
 
 
-def _generators(field, pts, dirs):
+def generators(field, pts, dirs):
     """G = A_mu d_mu at a batch of nodes (m, 4), (m, 4) -> (m, N, N): the ``generator_batch`` hook, else vmapped."""
     batch = hook(field, "generator_batch")
     return batch(pts, dirs) if batch is not None else jax.vmap(_generator, in_axes=(None, 0, 0))(field, pts, dirs)
 
 
 @functools.cache
-def _generator_kernel():
-    return jax.jit(_generators)
+def generator_kernel():
+    return jax.jit(generators)
 
 
 def _step_exp(g, h):
     """exp(Omega) of one sixth-order Magnus step from G at its three nodes; g: (3, N, N)."""
-    return _expm_antihermitian(_magnus6(g[0], g[1], g[2], h))
+    return expm_antihermitian(magnus6(g[0], g[1], g[2], h))
 
 
 @functools.cache
-def _step_kernel():
+def step_kernel():
     return jax.jit(jax.vmap(_step_exp, in_axes=(0, None)))
 
 
-def _pairwise_product(e, mul=np.matmul, cat=np.concatenate):
+def pairwise_product(e, mul=np.matmul, cat=np.concatenate):
     """E_1 E_2 ... E_m of factors on axis 1 (e.g. (M, m, N, N)): pairwise products (log2 m rounds, no long
     chain for XLA to fuse), earlier factors left; ``mul``/``cat`` the product and concatenation to use."""
     while e.shape[1] > 1:

@@ -241,9 +241,14 @@ def plaquette_traces(links, *, boundary: str | Sequence[str] = "periodic") -> np
 def _traces(u, boundary):
     """`plaquette_traces` of checked links."""
     n = u.shape[-1]
-    out = np.empty(u.shape[:4] + (6,))
+    return _per_plaquette(u, boundary, lambda ext: np.asarray(_slab_retraces(ext)) / n, np.empty(u.shape[:4] + (6,)))
+
+
+def _per_plaquette(u, boundary, slab_values, out):
+    """``out`` (L1, L2, L3, L4, 6, ...) filled time slab by time slab with ``slab_values(ext)``, NaN for the
+    plaquettes that leave an open lattice."""
     for t0, t1, ext in _slabs(u, 1):
-        out[:, :, :, t0:t1] = np.asarray(_slab_retraces(ext)) / n
+        out[:, :, :, t0:t1] = slab_values(ext)
         if any(_open_directions(boundary)):
             for p, ok in enumerate(_open_mask(u.shape, t0, t1, PLANES, 0, boundary)):
                 out[:, :, :, t0:t1, p][~ok] = np.nan
@@ -269,12 +274,7 @@ def plaquettes(links, *, boundary: str | Sequence[str] = "periodic") -> np.ndarr
     u = _check_links(links)
     _check_boundary(boundary)
     out = np.empty(u.shape[:4] + (6,) + u.shape[-2:], dtype=np.complex128)
-    for t0, t1, ext in _slabs(u, 1):
-        out[:, :, :, t0:t1] = np.asarray(_slab_plaquettes(ext))
-        if any(_open_directions(boundary)):
-            for p, ok in enumerate(_open_mask(u.shape, t0, t1, PLANES, 0, boundary)):
-                out[:, :, :, t0:t1, p][~ok] = np.nan
-    return out
+    return _per_plaquette(u, boundary, lambda ext: np.asarray(_slab_plaquettes(ext)), out)
 
 
 def average_plaquette(links, *, boundary: str | Sequence[str] = "periodic") -> float:

@@ -21,6 +21,17 @@ a = (a1, a2, a3, a4) (cell volume V = a1 a2 a3 a4):
   densities of each F^{(m, n)} (``combine='density'``, de Forcrand, Garcia Perez, Stamatescu,
   Nucl. Phys. B 499 (1997) 409, from memory); Q = sum_x V q.
 
+Anisotropic spacings (derivation). An m x n loop of plane (mu, nu) with m along mu spans m a_mu x n a_nu, its
+flux is the mean of F over that rectangle, m n a_mu a_nu [F + ((m a_mu)^2 d_mu^2 + (n a_nu)^2 d_nu^2) F / 24 +
+...], and the weight c V / (m n a_mu a_nu)^2 (V the cell volume; sum_x V -> int d^4x) makes its leading term c
+(continuum density of the plane). Each term counts both orientations, m along mu and m along nu, with the same
+c, so its a^2 term in plane (mu, nu) is c (m^2 + n^2) / 2 (a_mu^2 d_mu^2 + a_nu^2 d_nu^2) / 24 (times the
+plane's density): the a_mu^2 and the a_nu^2 parts carry the same moment sum c (m^2 + n^2) (the moments of the
+next paragraph), and a set with no isotropic a^2 term has none at any anisotropy; likewise the a^4 parts a_mu^4,
+a_nu^4 carry sum c (m^4 + n^4) and a_mu^2 a_nu^2 carries sum c m^2 n^2. The clovers are divided by the same
+areas and average the two orientations, so the field strength and charge keep their improvement too
+(tests/test_anisotropic_smoothing.py checks the action on a BPST start at a_t = a_s / 2).
+
 Tree-level a-expansion (abelian, smooth fields): the m x n terms differ from the continuum by
 a^2 (m^2 + n^2) X + a^4 [(m^4 + n^4) Y + m^2 n^2 Z] + ..., X, Y, Z not depending on (m, n)
 (the flux of a rectangle is the mean of F over it; common practice), so a set with

@@ -65,7 +65,7 @@ class LinkReport:
         return out
 
 
-def _record_of(field):
+def record_of(field):
     """The field's ``record()``, or an 'unrecordable' record naming its type (so a file says what it held)."""
     rec, kind = hook(field, "record"), type(field).__name__
     why = "it offers no record() hook (a bare callable, a ParametrisedField or a field class of your own); rebuild it by hand, or save with description="

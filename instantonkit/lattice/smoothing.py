@@ -46,6 +46,7 @@ import numpy as np
 from ..core import _progress
 from ..core import _validate as _v
 from ..core.conventions import CHARGE_DENSITY_FACTOR  # noqa: F401  (kept importable here)
+from . import operators as _operators
 from .loops import (  # re-exported: the measurements the flows and cooling drive
     _dag,
     _links,
@@ -72,6 +73,7 @@ from .stability import (  # noqa: F401
     max_flow_frequency,
     operator_flow_frequency,
 )
+from .staples import action_weights, plane_loop_sums, staple_weights, weighted_staple
 
 __all__ = [
     "SmoothingRecord",
@@ -164,6 +166,38 @@ def _measure_op(u, weights, pairs):
     return row.at[1].set(s)
 
 
+def _w_force(u, pairs, omega):
+    """Z(U) of a loop operator's action with a staple weight per (direction, plane) (`instantonkit.lattice.staples`)."""
+    return jnp.stack(
+        [-_traceless_antihermitian(_mm(u[..., mu, :, :], weighted_staple(u, mu, pairs, omega))) for mu in range(4)],
+        axis=4,
+    )
+
+
+@functools.partial(jax.jit, static_argnames=("pairs",))
+def _rk3_step_w(u, h, omega, pairs):
+    """`_rk3` with the force of a loop operator's action on an anisotropic lattice (physical flow time)."""
+    return _rk3(u, h, lambda v: _w_force(v, pairs, omega))
+
+
+@functools.partial(jax.jit, static_argnames=("pairs",))
+def _measure_w(u, kappa, wilson_kappa, pairs):
+    """The record row on an anisotropic lattice: [S_W, S_op, Q_clover, Q_imp, NaN], the actions with the area
+    weights kappa (len(pairs), 12) and wilson_kappa (12,) per ordered plane (`instantonkit.lattice.staples.
+    action_weights`); both charges are sums of V q with V q independent of the spacings (every term eps F F
+    holds each direction once)."""
+    row = _measure(u, 1.0, 0.0, False)
+    s = jnp.sum(kappa * plane_loop_sums(u, pairs))
+    sw = jnp.sum(wilson_kappa * plane_loop_sums(u, ((1, 1),))[0])
+    return jnp.stack([sw, s, row[2], row[3], jnp.nan])
+
+
+def _aniso_weights(op, a):
+    """`instantonkit.lattice.staples.action_weights` of a loop operator as jax arrays."""
+    kappa, per = action_weights(op.terms, a)
+    return jnp.asarray(kappa), jnp.asarray(per)
+
+
 # -- cooling -----------------------------------------------------------------------------------------------
 
 
@@ -236,6 +270,20 @@ def _cool_sweep_op(u, cols, weights, pairs, ncol: int, hits: int):
     return u
 
 
+@functools.partial(jax.jit, static_argnames=("pairs", "ncol", "hits"))
+def _cool_sweep_w(u, cols, omega, pairs, ncol: int, hits: int):
+    """A cooling sweep of a loop operator's action with a staple weight per (direction, plane) (anisotropic)."""
+    for mu in range(4):
+
+        def body(c, v, mu=mu):
+            new = _maximise(v[..., mu, :, :], weighted_staple(v, mu, pairs, omega), hits)
+            sel = (cols[mu] == c)[..., None, None]
+            return v.at[..., mu, :, :].set(jnp.where(sel, new, v[..., mu, :, :]))
+
+        u = jax.lax.fori_loop(0, ncol, body, u)
+    return u
+
+
 @functools.partial(jax.jit, static_argnames=("two", "ncol", "hits"))
 def _cool_sweep(u, colours, c1, c2, two: bool, ncol: int, hits: int):
     for mu in range(4):
@@ -263,10 +311,12 @@ def _cool_sweep(u, colours, c1, c2, two: bool, ncol: int, hits: int):
 class SmoothingRecord:
     """Observables along a flow or a cooling run, one entry per measurement; all (m,) float64.
 
-    time: flow time t / a^2 (flow) or sweeps done (cooling); wilson_action: S_W (beta = 2N); action: the
-    driving action S(eps) (= S_W for eps = 1), or the loop operator's action when one drives the run;
-    clover_charge: Q of the 1x1 clover; improved_charge: `improved_charge`; size: `instanton_size`
-    (rho/a); eps: NaN when a loop operator drives the run; operator: its name ('' for S(eps)).
+    time: flow time t / a^2 (flow; in the units of ``t`` when a spacing is given) or sweeps done (cooling);
+    wilson_action: S_W (beta = 2N; with the anisotropic plane weights of `instantonkit.lattice.thermal` on an
+    anisotropic lattice); action: the driving action S(eps) (= S_W for eps = 1), or the loop operator's action
+    when one drives the run; clover_charge: Q of the 1x1 clover; improved_charge: `improved_charge`; size:
+    `instanton_size` (rho/a; NaN on an anisotropic lattice); eps: NaN when a loop operator drives the run;
+    operator: its name ('' for S(eps)).
     """
 
     time: np.ndarray
@@ -303,31 +353,43 @@ def _check_periodic_shape(shape, two: bool, what: str):
         raise ValueError(f"{what} needs even lattice extents (checkerboard); found shape {tuple(shape)}")
 
 
-def gradient_flow(links, t: float, step: float = 0.01, *, eps: float = 1.0, action=None, every: int = 1, progress=None):
-    """Gradient flow dV/dt = Z(V) V, Z = -g0^2 dS(eps) (module docstring), to flow time ``t`` (units a^2).
+def gradient_flow(
+    links, t: float, step: float = 0.01, *, eps: float = 1.0, action=None, spacing=1.0, every: int = 1, progress=None
+):
+    """Gradient flow dV/dt = Z(V) V, Z = -g0^2 dS(eps) (module docstring), to flow time ``t``.
 
     Integrated with Luescher's third-order Runge-Kutta scheme (JHEP 08 (2010) 071, appendix C) with
     exact exponentials of traceless anti-Hermitian matrices, so the links stay in SU(N) to rounding.
     eps = 1 is the Wilson flow; another eps flows by the improved action S(eps) (2x2 loops included).
     The lattice is periodic.
 
+    Anisotropic lattices (``spacing`` = (a1, a2, a3, a4)): the action is that of `instantonkit.lattice.operators`
+    (each m x n loop of plane (mu, nu) weighted by c V / (m n a_mu a_nu)^2, so S -> the continuum action), and
+    the flow of the continuum field, dB_mu/dt = -dS/dB_mu with links exp(a_mu B_mu), is on the links
+    dV_mu/dt = -(a_mu^2 / V) (dS)_mu V: the variation exp(s X) U_mu(x) is a change s X / a_mu of B_mu over the
+    link's cell of volume V, so dS = (V / a_mu) dS/dB_mu (derivation; the isotropic a = 1 case is Luescher's
+    flow in units a^2).  The staple weights are then c / ((m n)^2 a_nu^2) (`instantonkit.lattice.staples`).
+
     Args:
         links: (L1, L2, L3, L4, 4, N, N) complex.
-        t: flow time >= 0 in lattice units; n = ceil(t / step) equal steps of t / n are taken.
-        step: nominal step > 0 (0.01-0.05 is common practice for the Wilson flow); the effective step
-            must lie below `flow_step_bound` (0.157 for the Wilson flow).
+        t: flow time >= 0 in physical units (a^2 for spacing 1); n = ceil(t / step) equal steps of t / n.
+        step: nominal step > 0 in the units of t (0.01-0.05 a^2 is common practice for the Wilson flow); the
+            effective step must lie below `flow_step_bound` (0.157 a^2 for the Wilson flow).
         eps: the action parameter of `improved_action`.
         action: instead of eps, a loop operator whose action drives the flow (a preset name such as
             'symanzik', 'iwasaki', 'dbw2', '5li', a `instantonkit.lattice.operators.LoopOperator` or
             {(m, n): c}); its step bound is `flow_step_bound(action=...)`.
+        spacing: one a > 0 (t and step in units of length^2: the flow in lattice units runs to t / a^2; the
+            same bits for one number and four equal ones) or four (a1, a2, a3, a4) (anisotropic, above;
+            the record's ``size`` is then NaN).
         every: measure after every ``every`` steps (and at t = 0 and the end).
         progress: None (a line on stderr on a terminal), False, True or progress(done, total) per step.
     Returns:
-        (links (same shape) complex128 numpy, `SmoothingRecord`).
+        (links (same shape) complex128 numpy, `SmoothingRecord`; times in the units of t).
     Raises:
-        ValueError / TypeError on a bad argument, links that are not finite SU(N) matrices, a step beyond
-        `flow_step_bound`, or an action that rises between two measurements (an unstable flow,
-        naming the step, the actions before and after and a smaller step).
+        ValueError / TypeError on a bad argument (spacing: not one or four finite numbers > 0), links that
+        are not finite SU(N) matrices, a step beyond `flow_step_bound`, or an action that rises between two
+        measurements (an unstable flow, naming the step, the actions before and after and a smaller step).
     """
     tt = _v.finite_float("t", t)
     if tt < 0:
@@ -335,13 +397,26 @@ def gradient_flow(links, t: float, step: float = 0.01, *, eps: float = 1.0, acti
     h = _v.positive_float("step", step)
     every = _v.positive_int("every", every)
     op, c1, c2, two = _driver(eps, action)
+    a = _v.spacings("spacing", spacing)
+    aniso = not np.all(a == a[0])
+    scale = 1.0 if aniso else float(a[0]) ** 2  # isotropic: run in lattice units t / a^2
+    tt, h = tt / scale, h / scale
     u = _links(links)
     steps = math.ceil(tt / h - 1e-9) if tt > 0 else 0
     link_count = float(np.prod(u.shape[:5]))
     _v.bounded_work("t", steps * link_count, f"t / step = {tt:g} / {h:g} = {steps:.3e} steps of {link_count:.0f} links")
     n = int(steps)
     h = tt / n if n else h
-    if op is None:
+    if aniso:
+        flow_op = op if op is not None else _operators.epsilon_action(float(eps))
+        bound = flow_step_bound(action=flow_op, spacing=a)
+        lam = operator_flow_frequency(flow_op, spacing=a)
+        what = f"the action {flow_op.name!r} at spacings {a.tolist()}"
+        omega = jnp.asarray(staple_weights(flow_op.terms, a))
+        kappa, wk = _aniso_weights(flow_op, a)
+        step_fn = lambda v: _rk3_step_w(v, h, omega, flow_op.pairs)  # noqa: E731
+        measure = lambda v: _measure_w(v, kappa, wk, flow_op.pairs)  # noqa: E731
+    elif op is None:
         bound, lam, what = flow_step_bound(eps), max_flow_frequency(float(eps)), f"eps = {float(eps):g}"
         step_fn, measure = (lambda v: _rk3_step(v, h, c1, c2, two)), (lambda v: _measure(v, c1, c2, two))
     else:
@@ -350,10 +425,10 @@ def gradient_flow(links, t: float, step: float = 0.01, *, eps: float = 1.0, acti
         step_fn, measure = (lambda v: _rk3_step_op(v, h, w, op.pairs)), (lambda v: _measure_op(v, w, op.pairs))
     if n and h > bound:
         raise ValueError(
-            f"step must be below the stability bound {bound:.4f} of the third-order Runge-Kutta flow for {what} "
-            f"(h lambda_max <= {RK3_STABILITY:.4f}, lambda_max = {lam:.4g}: "
-            f"flow_step_bound); found an effective step {h:g} (t = {tt:g}, step = {step!r}); use step <= "
-            f"{0.25 * bound:.3g} (0.01-0.05 is common practice)"
+            f"step must be below the stability bound {_fmt(bound * scale)} of the third-order Runge-Kutta flow for "
+            f"{what} (h lambda_max <= {RK3_STABILITY:.4f}, lambda_max = {lam / scale:.4g}: "
+            f"flow_step_bound); found an effective step {h * scale:g} (t = {tt * scale:g}, step = {step!r}); use "
+            f"step <= {0.25 * bound * scale:.3g} (0.01-0.05 a^2 is common practice)"
         )
     times, rows = [0.0], [measure(u)]
     report = _progress.sink(progress, "flow steps")
@@ -362,16 +437,20 @@ def gradient_flow(links, t: float, step: float = 0.01, *, eps: float = 1.0, acti
         if report is not None:
             report(i, n)
         if i % every == 0 or i == n:
-            times.append(i * h)
+            times.append(i * h * scale)
             rows.append(measure(u))
             _check_rise(
                 float(rows[-2][1]),
                 float(rows[-1][1]),
                 "flow",
-                f"between flow times {times[-2]:g} and {times[-1]:g} (step {i} of {n}, step size {h:g})",
-                f"use a smaller step, e.g. step={0.25 * h:.3g}",
+                f"between flow times {times[-2]:g} and {times[-1]:g} (step {i} of {n}, step size {h * scale:g})",
+                f"use a smaller step, e.g. step={0.25 * h * scale:.3g}",
             )
     return np.asarray(u), _record(times, rows, eps, "flow", op)
+
+
+def _fmt(x: float) -> str:
+    return f"{x:.4f}" if x >= 0.01 else f"{x:.4g}"
 
 
 def _record(times, rows, eps, kind, op):
@@ -384,7 +463,9 @@ def wilson_flow(links, t: float, step: float = 0.01, *, every: int = 1, progress
     return gradient_flow(links, t, step, eps=1.0, every=every, progress=progress)
 
 
-def cool(links, sweeps: int, *, eps: float = 1.0, action=None, hits: int = 3, every: int = 1, progress=None):
+def cool(
+    links, sweeps: int, *, eps: float = 1.0, action=None, spacing=1.0, hits: int = 3, every: int = 1, progress=None
+):
     """Plain cooling: every link in turn replaced by the SU(N) matrix that minimises the action with the
     other links fixed, i.e. maximises Re tr(U Sigma) for its staple sum Sigma (SU(2): Sigma^dag normalised;
     SU(N >= 3): ``hits`` Cabibbo-Marinari SU(2)-subgroup passes, see `_maximise`).
@@ -402,6 +483,9 @@ def cool(links, sweeps: int, *, eps: float = 1.0, action=None, hits: int = 3, ev
         action: instead of eps, a loop operator whose action is minimised (as in `gradient_flow`); its
             links are coloured by `instantonkit.lattice.rectangles.colours` (extents divisible by 4 for
             loops of side 2 or 3).
+        spacing: one a > 0 (an isotropic lattice: cooling does not depend on a) or four (a1, a2, a3, a4):
+            the action minimised is then the anisotropic one of `gradient_flow` (the action of eps as its
+            1x1 + 2x2 loop set; links coloured as for ``action``; the record's ``size`` NaN).
         hits: subgroup passes per link for N >= 3 (ignored for SU(2), where one step is exact).
         every: measure after every ``every`` sweeps (and before the first and after the last).
         progress: None (a line on stderr on a terminal), False, True or progress(done, total) per sweep.
@@ -419,8 +503,23 @@ def cool(links, sweeps: int, *, eps: float = 1.0, action=None, hits: int = 3, ev
     _v.bounded_work("sweeps", sweeps * link_count, f"{sweeps} sweeps of {link_count:.0f} links")
     _v.bounded_work("hits", hits * sweeps * link_count, f"{hits} hits in {sweeps} sweeps of {link_count:.0f} links")
     op, c1, c2, two = _driver(eps, action)
+    a = _v.spacings("spacing", spacing)
     shape = u.shape[:4]
-    if op is None:
+    if not np.all(a == a[0]):
+        cool_op = op if op is not None else _operators.epsilon_action(float(eps))
+        period = colour_period(cool_op.pairs)
+        if any(s % period for s in shape):
+            raise ValueError(
+                f"cooling with the action {cool_op.name!r} (loops of side up to {cool_op.extent}) needs every lattice "
+                f"extent divisible by {period}; found shape {tuple(shape)}"
+            )
+        arr, ncol = colours(shape, cool_op.pairs)
+        cols = jnp.asarray(arr)
+        omega = jnp.asarray(staple_weights(cool_op.terms, a))
+        kappa, wk = _aniso_weights(cool_op, a)
+        sweep = lambda v: _cool_sweep_w(v, cols, omega, cool_op.pairs, ncol, hits)  # noqa: E731
+        measure = lambda v: _measure_w(v, kappa, wk, cool_op.pairs)  # noqa: E731
+    elif op is None:
         _check_periodic_shape(shape, two, "cooling")
         cols = jnp.asarray(_colours(shape, two))
         ncol = 8 if two else 2

@@ -13,7 +13,7 @@ import numpy as np
 
 from ..core import _validate as _v
 from .loops import improved_coefficients
-from .operators import get_operator
+from .operators import epsilon_action, get_operator
 
 #: Real stability interval [-RK3_STABILITY, 0] of every explicit three-stage third-order Runge-Kutta scheme,
 #: whose stability function on dy/dt = lambda y is R(z) = 1 + z + z^2/2 + z^3/6 (Hairer and Wanner, Solving
@@ -57,10 +57,10 @@ def _dirichlet(m: int, x):
 
 
 @functools.lru_cache(maxsize=64)
-def _operator_frequency(terms: tuple) -> float:
+def _operator_frequency(terms: tuple, a: tuple = (1.0, 1.0, 1.0, 1.0)) -> float:
     p = np.linspace(0.0, np.pi, 17)
     grid = np.stack(np.meshgrid(p, p, p, p, indexing="ij"), axis=-1).reshape(-1, 4)
-    ph = 2.0 * np.sin(grid / 2.0)
+    ph = 2.0 * np.sin(grid / 2.0) / np.asarray(a)
     w = np.zeros((grid.shape[0], 4, 4))
     for m, n, c in terms:
         gm, gn = _dirichlet(m, grid / 2.0) ** 2, _dirichlet(n, grid / 2.0) ** 2
@@ -71,23 +71,35 @@ def _operator_frequency(terms: tuple) -> float:
     return float(np.max(np.linalg.eigvalsh(m_)))
 
 
-def operator_flow_frequency(operator) -> float:
+def operator_flow_frequency(operator, *, spacing=None) -> float:
     """Largest eigenvalue lambda_max of the gradient flow of a loop operator's action linearised about the
-    trivial field (isotropic lattice).
+    trivial field (units 1/a^2 without ``spacing``; with ``spacing`` one a or four (a1, a2, a3, a4): physical
+    units, flow time in units of length^2).
 
     As `max_flow_frequency` with the plane weights of the m x n terms: an m x n loop's flux is
     D_m(p_mu / 2) D_n(p_nu / 2) times the plaquette's, D_m(x) = sin(m x)/sin(x) up to a phase (common
     practice), so W_mu nu = sum_i c_i / (m_i n_i)^2 [G_m(p_mu) G_n(p_nu) + G_n(p_mu) G_m(p_nu)] / 2 with
     G_m = D_m^2.  16 for the Wilson action; the 1x1 + 2x2 set of eps gives `max_flow_frequency(eps)`.
+    Anisotropic spacings: the action is normalised by each loop's area (`instantonkit.lattice.operators`),
+    so for small fields A_mu (links exp(a_mu A_mu)) it is V sum_x (1/2) sum W_mu nu |k_mu A_nu - k_nu A_mu|^2
+    with the lattice momenta k_mu = 2 sin(p_mu / 2) / a_mu, and the same kernel holds with p_mu-hat -> k_mu
+    (16 / a^2 for the isotropic Wilson flow; derivation, no source).
     """
-    return _operator_frequency(get_operator(operator).terms)
+    terms = get_operator(operator).terms
+    if spacing is None:
+        return _operator_frequency(terms)
+    return _operator_frequency(terms, tuple(float(x) for x in _v.spacings("spacing", spacing)))
 
 
-def flow_step_bound(eps: float = 1.0, *, action=None) -> float:
+def flow_step_bound(eps: float = 1.0, *, action=None, spacing=None) -> float:
     """Largest stable step of `gradient_flow`: RK3_STABILITY / `max_flow_frequency` (0.157 for the
     Wilson flow, 0.118 for eps = 0); beyond it the shortest wavelengths grow instead of being damped.
     With ``action`` (a loop operator, `instantonkit.lattice.operators`) the bound of its flow,
-    RK3_STABILITY / `operator_flow_frequency`."""
+    RK3_STABILITY / `operator_flow_frequency`.  With ``spacing`` (one a or four) the bound in physical
+    flow time (length^2) of the flow on that lattice (the action of ``eps`` as its 1x1 + 2x2 loop set)."""
+    if spacing is not None:
+        op = action if action is not None else epsilon_action(_v.finite_float("eps", eps))
+        return RK3_STABILITY / operator_flow_frequency(op, spacing=spacing)
     if action is not None:
         return RK3_STABILITY / operator_flow_frequency(action)
     return RK3_STABILITY / max_flow_frequency(_v.finite_float("eps", eps))

@@ -81,7 +81,7 @@ from .observables import (  # noqa: F401  (re-exported: the lattice namespace of
     random_gauge,
     wilson_action,
 )
-from .reports import LatticeStart, LinkReport, _record_of  # noqa: F401  (re-exported)
+from .reports import LatticeStart, LinkReport, record_of  # noqa: F401  (re-exported)
 from .sites import block_links, site_links  # noqa: F401  (re-exported)
 from .thermal import anisotropy, asymptotic_potential, plane_weights, thermal_spacings  # noqa: F401  (re-exported)
 from .transport import (  # noqa: F401  (re-exported: the transporters and link figures belong to the lattice namespace too)
@@ -276,7 +276,7 @@ class StartSpec:
             seconds=float(seconds),
             boundary_action_fraction=None if err is None else float(err) / _EIGHT_PI2,
             window=self.window,
-            field=_record_of(self.field),
+            field=record_of(self.field),
             potential_evaluations=int(stats.evaluations),
             boundaries=self.boundaries,
             boundary_link_mismatch_by_direction=None if mismatch is None else tuple(mismatch),

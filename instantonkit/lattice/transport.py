@@ -36,21 +36,21 @@ from ..core import _validate as _v
 from ..core import quaternion as qt
 from ..core._batching import run_batched
 from ..engine.fields import as_field, as_points, hook, output_shape
-from .fused import _FUSED_MAX_STEPS, _FUSED_NODES, _fused_kernel, _fused_links  # noqa: F401  (the fused SU(2) path)
+from .fused import FUSED_MAX_STEPS, FUSED_NODES, fused_kernel, fused_links  # noqa: F401  (the fused SU(2) path)
 from .magnus import (  # noqa: F401  (the Magnus kernels; names the tests reach through this module)
-    _GL3,
-    _NODE_BATCH,
-    _NODE_BATCH_PLAIN,
-    _PASS_STEPS,
-    _STEP_BATCH,
-    _STEP_BATCH_PLAIN,
-    _expm_antihermitian,
-    _generator_kernel,
-    _magnus6,
-    _mm_aos,
-    _node_batch,
-    _pairwise_product,
-    _step_kernel,
+    GL3,
+    NODE_BATCH,
+    NODE_BATCH_PLAIN,
+    PASS_STEPS,
+    STEP_BATCH,
+    STEP_BATCH_PLAIN,
+    expm_antihermitian,
+    generator_kernel,
+    magnus6,
+    mm_aos,
+    node_batch,
+    pairwise_product,
+    step_kernel,
 )
 
 __all__ = [
@@ -95,33 +95,33 @@ def _closed_link_of(field, x, d):
 def _magnus_at(field, xs, ds, m):
     """Transporters of (M, 4) segments with m sixth-order Magnus steps; (M, N, N) numpy.
 
-    N = 2 and m <= _FUSED_MAX_STEPS: `_fused_links` in calls of _FUSED_NODES nodes (768 when the
-    potential calls LAPACK, `_node_batch`).  Otherwise the potential is evaluated at all 3 m
+    N = 2 and m <= FUSED_MAX_STEPS: `fused_links` in calls of FUSED_NODES nodes (768 when the
+    potential calls LAPACK, `node_batch`).  Otherwise the potential is evaluated at all 3 m
     Gauss-Legendre nodes of a pass of links in one flat batch (one compiled size per field,
-    `_node_batch`, whatever m or M: no loop inside the kernel, so XLA's per-operation
+    `node_batch`, whatever m or M: no loop inside the kernel, so XLA's per-operation
     overhead is paid once per 768 nodes), then every step's exponential, then the ordered product.
     Each node and step is computed by kernels of fixed batch sizes, so a link's bits do not depend on
     the other links of the call (the rule of `instantonkit.core._batching`).
     """
-    nodes = _node_batch(field)
-    if m <= _FUSED_MAX_STEPS and output_shape(field, "potential")[0][-1] == 2:
-        per_call = max(1, (_FUSED_NODES if nodes == _NODE_BATCH_PLAIN else nodes) // (3 * m))
-        return run_batched(_fused_kernel(m), [xs, ds], per_call, args_before=(field,))
+    nodes = node_batch(field)
+    if m <= FUSED_MAX_STEPS and output_shape(field, "potential")[0][-1] == 2:
+        per_call = max(1, (FUSED_NODES if nodes == NODE_BATCH_PLAIN else nodes) // (3 * m))
+        return run_batched(fused_kernel(m), [xs, ds], per_call, args_before=(field,))
     h = 1.0 / m
-    ts = ((np.arange(m)[:, None] + np.asarray(_GL3)[None, :]) * h).reshape(-1)  # (3 m,)
+    ts = ((np.arange(m)[:, None] + np.asarray(GL3)[None, :]) * h).reshape(-1)  # (3 m,)
     out = None
-    per = max(1, _PASS_STEPS // m)
+    per = max(1, PASS_STEPS // m)
     for lo in range(0, xs.shape[0], per):
         x, d = xs[lo : lo + per], ds[lo : lo + per]
         pts = (x[:, None, :] + ts[None, :, None] * d[:, None, :]).reshape(-1, 4)
         dirs = np.repeat(d, ts.size, axis=0)
-        g = run_batched(_generator_kernel(), [pts, dirs], _node_batch(field), args_before=(field,))
+        g = run_batched(generator_kernel(), [pts, dirs], node_batch(field), args_before=(field,))
         n = g.shape[-1]
         if out is None:
             out = np.empty((xs.shape[0], n, n), dtype=np.complex128)
-        steps = _STEP_BATCH_PLAIN if n == 2 else _STEP_BATCH
-        e = run_batched(_step_kernel(), [g.reshape(-1, 3, n, n)], steps, args_after=(h,))
-        out[lo : lo + per] = _pairwise_product(e.reshape(x.shape[0], m, n, n))
+        steps = STEP_BATCH_PLAIN if n == 2 else STEP_BATCH
+        e = run_batched(step_kernel(), [g.reshape(-1, 3, n, n)], steps, args_after=(h,))
+        out[lo : lo + per] = pairwise_product(e.reshape(x.shape[0], m, n, n))
     return out
 
 
@@ -338,7 +338,7 @@ def _det(u):
 @jax.jit
 def _unitarity_dev(u):
     n = u.shape[-1]
-    gram = _mm_aos(jnp.conj(jnp.swapaxes(u, -1, -2)), u)
+    gram = mm_aos(jnp.conj(jnp.swapaxes(u, -1, -2)), u)
     return jnp.maximum(jnp.max(jnp.abs(gram - jnp.eye(n))), jnp.max(jnp.abs(_det(u) - 1.0)))
 
 

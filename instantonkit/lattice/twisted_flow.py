@@ -17,6 +17,13 @@ factors keep the staple sum in the real span of SU(2) for N = 2) on the same che
 The Runge-Kutta stages are `smoothing`'s (`smoothing._rk3` takes the force as an argument); the colour
 loop of a cooling sweep is written here around the imported kernels (`_maximise`, `_colours`), since
 `smoothing`'s sweeps take their staples from `loops` and `operators`.
+
+Any loop operator's action (``action=``, `instantonkit.lattice.operators`) and anisotropic spacings
+(``spacing=``) drive the same flow and cooling with the staples of `instantonkit.lattice.staples`: every m x n
+loop that holds a twisted corner plaquette carries the twist's factor (`instantonkit.lattice.twisted_operators`
+derives which), so its staples do, and the force in physical flow time has the staple weights
+c / ((m n)^2 a_nu^2) of `instantonkit.lattice.smoothing.gradient_flow`.  The driving action is measured by
+`instantonkit.lattice.twisted_operators.twisted_operator_action`.
 """
 
 from __future__ import annotations
@@ -32,9 +39,13 @@ import numpy as np
 from ..core import _progress
 from ..core import _validate as _v
 from .loops import _dag, _links, _mm, _sh, _traceless_antihermitian
+from .operators import get_operator
+from .rectangles import colour_period, colours
 from .smoothing import _check_periodic_shape, _colours, _maximise, _rk3
-from .stability import RK3_STABILITY, _check_rise, flow_step_bound
+from .stability import RK3_STABILITY, _check_rise, flow_step_bound, operator_flow_frequency
+from .staples import phase_fields, staple_weights, weighted_staple
 from .twist import _twisted_planes, twist_corner, twist_tensor, twisted_clover_charge, twisted_wilson_action
+from .twisted_operators import twisted_operator_action
 
 __all__ = ["TwistedRecord", "twisted_flow", "twisted_cool"]
 
@@ -43,15 +54,20 @@ __all__ = ["TwistedRecord", "twisted_flow", "twisted_cool"]
 class TwistedRecord:
     """Observables along a twisted flow or cooling run, one entry per measurement; all (m,) float64.
 
-    time: flow time t / a^2 (flow) or sweeps done (cooling); wilson_action: the twisted Wilson action
-    (beta = 2N, `instantonkit.lattice.twist.twisted_wilson_action`); clover_charge: the twisted clover
-    charge; kind: 'flow' or 'cooling'.
+    time: flow time (units a^2 for spacing 1; physical units with ``spacing``) or sweeps done (cooling);
+    wilson_action: the twisted Wilson action (beta = 2N, `instantonkit.lattice.twist.twisted_wilson_action`;
+    with the anisotropic plane weights of `instantonkit.lattice.thermal` on an anisotropic lattice);
+    clover_charge: the twisted clover charge; kind: 'flow' or 'cooling'; action: the driving action (the
+    Wilson action, or the loop operator's: `instantonkit.lattice.twisted_operators.twisted_operator_action`);
+    operator: its name ('' for the Wilson action of the default path).
     """
 
     time: np.ndarray
     wilson_action: np.ndarray
     clover_charge: np.ndarray
     kind: str
+    action: np.ndarray | None = None
+    operator: str = ""
 
 
 def _factor_fields(tensor, shape, n, corner):
@@ -111,6 +127,67 @@ def _cool_sweep(u, colours, z, hits: int):
     return u
 
 
+def _op_force(u, pairs, omega, phases):
+    """Z(U) = -P_ah(U_mu Sigma_mu) of a loop operator's twisted action (`instantonkit.lattice.staples`)."""
+    return jnp.stack(
+        [
+            -_traceless_antihermitian(_mm(u[..., mu, :, :], weighted_staple(u, mu, pairs, omega, phases)))
+            for mu in range(4)
+        ],
+        axis=4,
+    )
+
+
+@functools.partial(jax.jit, static_argnames=("pairs",))
+def _rk3_step_op(u, h, omega, phases, pairs):
+    """`smoothing._rk3` with the force of a loop operator's twisted action."""
+    return _rk3(u, h, lambda v: _op_force(v, pairs, omega, phases))
+
+
+@functools.partial(jax.jit, static_argnames=("pairs", "ncol", "hits"))
+def _cool_sweep_op(u, cols, omega, phases, pairs, ncol: int, hits: int):
+    """A cooling sweep of a loop operator's twisted action (colours of `instantonkit.lattice.rectangles.colours`)."""
+    for mu in range(4):
+
+        def body(c, v, mu=mu):
+            new = _maximise(v[..., mu, :, :], weighted_staple(v, mu, pairs, omega, phases), hits)
+            sel = (cols[mu] == c)[..., None, None]
+            return v.at[..., mu, :, :].set(jnp.where(sel, new, v[..., mu, :, :]))
+
+        u = jax.lax.fori_loop(0, ncol, body, u)
+    return u
+
+
+class _Driver:
+    """What a twisted run with ``action=`` or anisotropic ``spacing=`` needs: the operator, weights, phases."""
+
+    def __init__(self, u, tensor, c, action, a):
+        self.op = get_operator("wilson" if action is None else action)
+        self.a = a
+        self.tensor, self.corner = tensor, c
+        n = u.shape[-1]
+        self.omega = jnp.asarray(staple_weights(self.op.terms, a))
+        ph = phase_fields(tensor, u.shape[:4], n, c, self.op.pairs)
+        self.phases = {k: jnp.asarray(v) for k, v in ph.items()}
+
+    def measure(self, u):
+        """(twisted Wilson action, twisted clover charge, driving action)."""
+        v = np.asarray(u)
+        sw = twisted_operator_action(v, self.tensor, "wilson", spacing=self.a, corner=self.corner)
+        q = twisted_clover_charge(v, self.tensor, corner=self.corner)
+        s = (
+            sw
+            if self.op.name == "wilson"
+            else twisted_operator_action(v, self.tensor, self.op, spacing=self.a, corner=self.corner)
+        )
+        return sw, q, s
+
+
+def _record(times, rows, kind, op_name):
+    r = np.asarray(rows, dtype=float).reshape(-1, 3)
+    return TwistedRecord(np.asarray(times, float), r[:, 0], r[:, 1], kind, r[:, 2], op_name)
+
+
 def _prepare(links, twist, corner):
     u = _links(links)
     n = u.shape[-1]
@@ -124,8 +201,20 @@ def _measure(u, tensor, c):
     return twisted_wilson_action(v, tensor, corner=c), twisted_clover_charge(v, tensor, corner=c)
 
 
-def twisted_flow(links, twist, t: float, step: float = 0.01, *, corner=None, every: int = 1, progress=None):
-    """Wilson flow dV/dt = Z(V) V of the twisted Wilson action, to flow time ``t`` (units a^2).
+def twisted_flow(
+    links,
+    twist,
+    t: float,
+    step: float = 0.01,
+    *,
+    action=None,
+    spacing=1.0,
+    corner=None,
+    every: int = 1,
+    progress=None,
+):
+    """Gradient flow dV/dt = Z(V) V of the twisted Wilson action (or of a loop operator's twisted action), to
+    flow time ``t``.
 
     Luescher's third-order Runge-Kutta scheme (as `instantonkit.lattice.smoothing.wilson_flow`) with the
     twisted staple (module docstring); with a zero twist it is the Wilson flow to rounding.
@@ -133,8 +222,14 @@ def twisted_flow(links, twist, t: float, step: float = 0.01, *, corner=None, eve
     Args:
         links: (L1, L2, L3, L4, 4, N, N) complex, periodic.
         twist: the twist tensor (`instantonkit.lattice.twist.twist_tensor`).
-        t: flow time >= 0 in lattice units; n = ceil(t / step) equal steps of t / n.
-        step: nominal step > 0, the effective step below `flow_step_bound` (0.157).
+        t: flow time >= 0 (units a^2 for spacing 1, else physical units); n = ceil(t / step) equal steps.
+        step: nominal step > 0, the effective step below `flow_step_bound` (0.157 a^2 for the Wilson action;
+            ``flow_step_bound(action=..., spacing=...)`` for another).
+        action: None (the twisted Wilson action) or a loop operator (a preset name such as 'symanzik' or
+            '5li', a `instantonkit.lattice.operators.LoopOperator` or {(m, n): c}) whose twisted action
+            (`instantonkit.lattice.twisted_operators.twisted_operator_action`) drives the flow.
+        spacing: one a > 0 or four (a1, a2, a3, a4): the flow of `instantonkit.lattice.smoothing.gradient_flow`
+            in physical time, with the twist.
         corner: the site of the twisted plaquettes (default the last site).
         every: measure after every ``every`` steps (and at t = 0 and the end).
         progress: None (a line on stderr on a terminal), False, True or progress(done, total) per step.
@@ -149,47 +244,70 @@ def twisted_flow(links, twist, t: float, step: float = 0.01, *, corner=None, eve
         raise ValueError(f"t must be >= 0; found {t!r}")
     h = _v.positive_float("step", step)
     every = _v.positive_int("every", every)
+    a = _v.spacings("spacing", spacing)
     u, tensor, c, z = _prepare(links, twist, corner)
+    generic = action is not None or not np.all(a == a[0])
+    scale = 1.0 if generic else float(a[0]) ** 2  # the Wilson path runs in lattice units t / a^2
+    tt, h = tt / scale, h / scale
     steps = math.ceil(tt / h - 1e-9) if tt > 0 else 0
     link_count = float(np.prod(u.shape[:5]))
     _v.bounded_work("t", steps * link_count, f"t / step = {tt:g} / {h:g} = {steps:.3e} steps of {link_count:.0f} links")
     n = int(steps)
     h = tt / n if n else h
-    bound = flow_step_bound(1.0)
+    if generic:
+        drv = _Driver(u, tensor, c, action, a)
+        bound = flow_step_bound(action=drv.op, spacing=a)
+        what = f"the action {drv.op.name!r} (lambda_max = {operator_flow_frequency(drv.op, spacing=a):.4g})"
+        step_fn = lambda v: _rk3_step_op(v, h, drv.omega, drv.phases, drv.op.pairs)  # noqa: E731
+        measure, name = drv.measure, drv.op.name
+    else:
+        bound, what, name = flow_step_bound(1.0), "the Wilson action", ""
+        step_fn = lambda v: _rk3_step(v, h, z)  # noqa: E731
+
+        def measure(v):
+            sw, q = _measure(v, tensor, c)
+            return sw, q, sw
+
     if n and h > bound:
         raise ValueError(
-            f"step must be below the stability bound {bound:.4f} of the third-order Runge-Kutta Wilson flow "
-            f"(h lambda_max <= {RK3_STABILITY:.4f}); found an effective step {h:g} (t = {tt:g}, step = {step!r})"
+            f"step must be below the stability bound {bound * scale:.4g} of the third-order Runge-Kutta flow of "
+            f"{what} (h lambda_max <= {RK3_STABILITY:.4f}); found an effective step {h * scale:g} "
+            f"(t = {tt * scale:g}, step = {step!r})"
         )
-    times, rows = [0.0], [_measure(u, tensor, c)]
+    times, rows = [0.0], [measure(u)]
     report = _progress.sink(progress, "twisted flow steps")
     for i in range(1, n + 1):
-        u = _rk3_step(u, h, z)
+        u = step_fn(u)
         if report is not None:
             report(i, n)
         if i % every == 0 or i == n:
-            times.append(i * h)
-            rows.append(_measure(u, tensor, c))
+            times.append(i * h * scale)
+            rows.append(measure(u))
             _check_rise(
-                rows[-2][0],
-                rows[-1][0],
+                rows[-2][2],
+                rows[-1][2],
                 "twisted flow",
                 f"between flow times {times[-2]:g} and {times[-1]:g} (step {i} of {n})",
-                f"use a smaller step, e.g. step={0.25 * h:.3g}",
+                f"use a smaller step, e.g. step={0.25 * h * scale:.3g}",
             )
-    r = np.asarray(rows, dtype=float).reshape(-1, 2)
-    return np.asarray(u), TwistedRecord(np.asarray(times, float), r[:, 0], r[:, 1], "flow")
+    return np.asarray(u), _record(times, rows, "flow", name)
 
 
-def twisted_cool(links, twist, sweeps: int, *, corner=None, hits: int = 3, every: int = 1, progress=None):
-    """Cooling of the twisted Wilson action: each link in turn maximises Re tr(U Sigma~) (module docstring).
+def twisted_cool(
+    links, twist, sweeps: int, *, action=None, spacing=1.0, corner=None, hits: int = 3, every: int = 1, progress=None
+):
+    """Cooling of the twisted Wilson action (or of a loop operator's twisted action): each link in turn maximises
+    Re tr(U Sigma~) (module docstring).
 
-    As `instantonkit.lattice.smoothing.cool` with eps = 1 (checkerboard sweeps, even extents; SU(N >= 3):
-    ``hits`` Cabibbo-Marinari passes), with the twisted staple.
+    As `instantonkit.lattice.smoothing.cool` (checkerboard sweeps, even extents; SU(N >= 3): ``hits``
+    Cabibbo-Marinari passes), with the twisted staple.
 
     Args:
         links: (L1, L2, L3, L4, 4, N, N) complex, periodic, even extents.
         twist: the twist tensor; sweeps: >= 1; corner: as `twisted_flow`; hits: subgroup passes (N >= 3);
+        action: None (Wilson) or a loop operator, as `twisted_flow` (links coloured by
+            `instantonkit.lattice.rectangles.colours`: extents divisible by 4 for loops of side 2 or 3);
+        spacing: one a > 0 (cooling does not depend on it) or four (a1, a2, a3, a4) (the anisotropic action);
         every: measure every ``every`` sweeps; progress: as `twisted_flow`.
     Returns:
         (links complex128 numpy, `TwistedRecord` with time = sweeps done).
@@ -199,22 +317,42 @@ def twisted_cool(links, twist, sweeps: int, *, corner=None, hits: int = 3, every
     sweeps = _v.positive_int("sweeps", sweeps)
     hits = _v.positive_int("hits", hits)
     every = _v.positive_int("every", every)
+    a = _v.spacings("spacing", spacing)
     u, tensor, c, z = _prepare(links, twist, corner)
     link_count = float(np.prod(u.shape[:5]))
     _v.bounded_work("sweeps", hits * sweeps * link_count, f"{sweeps} sweeps of {link_count:.0f} links")
-    _check_periodic_shape(u.shape[:4], False, "twisted cooling")
-    colours = jnp.asarray(_colours(u.shape[:4], False))
-    times, rows = [0], [_measure(u, tensor, c)]
+    if action is not None or not np.all(a == a[0]):
+        drv = _Driver(u, tensor, c, action, a)
+        period = colour_period(drv.op.pairs)
+        if any(s % period for s in u.shape[:4]):
+            raise ValueError(
+                f"twisted cooling with the action {drv.op.name!r} (loops of side up to {drv.op.extent}) needs every "
+                f"lattice extent divisible by {period}; found shape {tuple(u.shape[:4])}"
+            )
+        arr, ncol = colours(u.shape[:4], drv.op.pairs)
+        cols = jnp.asarray(arr)
+        sweep = lambda v: _cool_sweep_op(v, cols, drv.omega, drv.phases, drv.op.pairs, ncol, hits)  # noqa: E731
+        measure, name = drv.measure, drv.op.name
+    else:
+        _check_periodic_shape(u.shape[:4], False, "twisted cooling")
+        colours_w = jnp.asarray(_colours(u.shape[:4], False))
+        sweep = lambda v: _cool_sweep(v, colours_w, z, hits)  # noqa: E731
+        name = ""
+
+        def measure(v):
+            sw, q = _measure(v, tensor, c)
+            return sw, q, sw
+
+    times, rows = [0], [measure(u)]
     report = _progress.sink(progress, "twisted cooling sweeps")
     for i in range(1, sweeps + 1):
-        u = _cool_sweep(u, colours, z, hits)
+        u = sweep(u)
         if report is not None:
             report(i, sweeps)
         if i % every == 0 or i == sweeps:
             times.append(i)
-            rows.append(_measure(u, tensor, c))
+            rows.append(measure(u))
             _check_rise(
-                rows[-2][0], rows[-1][0], "twisted cooling", f"between sweeps {times[-2]} and {i}", "check the links"
+                rows[-2][2], rows[-1][2], "twisted cooling", f"between sweeps {times[-2]} and {i}", "check the links"
             )
-    r = np.asarray(rows, dtype=float).reshape(-1, 2)
-    return np.asarray(u), TwistedRecord(np.asarray(times, float), r[:, 0], r[:, 1], "cooling")
+    return np.asarray(u), _record(times, rows, "cooling", name)

@@ -72,16 +72,16 @@ from .report import (  # noqa: F401  (kept importable here)
     orientation_mistake,
     signed_offset,
 )
-from .routes import _constraint_value, _inputs, _routes
+from .routes import constraint_value, record_inputs, run_routes
 from .verdicts import (
-    _NO_BUDGET,
-    _action_findings,
-    _Case,
-    _charge_findings,
-    _curvature_findings,
-    _fmt_point,
-    _undecided,
-    _volume_check,
+    NO_BUDGET,
+    Case,
+    action_findings,
+    charge_findings,
+    curvature_findings,
+    fmt_point,
+    is_undecided,
+    volume_check,
 )
 
 __all__ = [
@@ -182,27 +182,27 @@ def verify(
             f"({DEFAULT_MAX_POINTS:,} points a unit of charge) would exceed {_validate.MAX_POINTS:.0e} points; "
             f"found {expected_charge}"
         )
-    case = _Case()
+    case = Case()
     kw = dict(rtol=rtol, atol=atol, max_points=budget, progress=progress)
     charge = action = check = None
     if _periodic_ok(field, layout, case):
         case.peak = _locate(field, layout, case)
         charge, action, rule, check = _integrals(field, layout, charge_method, kw, sample_points, case, charge_tol)
         if charge is not None:
-            _charge_findings(case, charge, expected_charge, declared, charge_tol, budget)
+            charge_findings(case, charge, expected_charge, declared, charge_tol, budget)
         if action is not None:
-            _action_findings(case, action, charge, budget)
+            action_findings(case, action, charge, budget)
         if charge is not None and action is not None and rule is not None:
-            _curvature_findings(case, field, charge, action, rule, charge_method, duality_tol)
-        _inputs(field, case, constraint_tol)
+            curvature_findings(case, field, charge, action, rule, charge_method, duality_tol)
+        record_inputs(field, case, constraint_tol)
         if check is not None and charge is not None:
-            _volume_check(case, check, charge, budget, charge_tol)
+            volume_check(case, check, charge, budget, charge_tol)
         if routes and charge is not None:
-            _routes(case, field, charge, layout, kw, charge_tol, winding, check is not None)
+            run_routes(case, field, charge, layout, kw, charge_tol, winding, check is not None)
     return _report(field, case, charge, action, layout, expected_charge, budget, check)
 
 
-def _report(field, case: _Case, charge, action, layout: Layout, expected, budget: int, check=None) -> Verification:
+def _report(field, case: Case, charge, action, layout: Layout, expected, budget: int, check=None) -> Verification:
     units = None if action is None else action.value / INSTANTON_ACTION
     units_err = None if action is None else action.error / INSTANTON_ACTION
     s = case.sample
@@ -224,7 +224,7 @@ def _report(field, case: _Case, charge, action, layout: Layout, expected, budget
         duality=duality,
         residual_max=None if s is None else s.residual_max,
         residual_mean=None if s is None else s.residual_mean,
-        constraint_residual=_constraint_value(field),
+        constraint_residual=constraint_value(field),
         routes=tuple(case.routes),
         passed=case.verdict == PASSED,
         reasons=tuple(case.failures + case.doubts),
@@ -242,7 +242,7 @@ def _report(field, case: _Case, charge, action, layout: Layout, expected, budget
     )
 
 
-def _periodic_ok(field, layout: Layout, case: _Case) -> bool:
+def _periodic_ok(field, layout: Layout, case: Case) -> bool:
     """Before integrating over one period: are the densities periodic with it?  False (FAILED) if not."""
     if layout.period is None:
         return True
@@ -255,7 +255,7 @@ def _periodic_ok(field, layout: Layout, case: _Case) -> bool:
         return True
     case.failures.append(
         f"the field is not periodic with period {layout.period:g}: its action or charge density at "
-        f"x = {_fmt_point(where)} and at x + {layout.period:g} e_4 differ by {mismatch:.2e} of the largest s sampled"
+        f"x = {fmt_point(where)} and at x + {layout.period:g} e_4 differ by {mismatch:.2e} of the largest s sampled"
     )
     own = _fields.hook(field, "period")
     case.advise(
@@ -266,7 +266,7 @@ def _periodic_ok(field, layout: Layout, case: _Case) -> bool:
     return False
 
 
-def _locate(field, layout: Layout, case: _Case) -> Peak | None:
+def _locate(field, layout: Layout, case: Case) -> Peak | None:
     """Search the action density's peak; advise hints when it lies far from every layout centre."""
     peak = find_peak(field, layout.centres, layout.scales, layout.period)
     if peak is None:
@@ -277,15 +277,15 @@ def _locate(field, layout: Layout, case: _Case) -> Peak | None:
         d = np.linalg.norm(np.column_stack([layout.centres[:, :3] - peak.point[:3], dt]), axis=1) / layout.scales
     if float(np.min(d)) > _FAR:
         case.advise(
-            f"the integrand is poorly resolved: the action density peaks at {_fmt_point(peak.point)} "
+            f"the integrand is poorly resolved: the action density peaks at {fmt_point(peak.point)} "
             f"(s = {peak.value:.3g}, width about {peak.width:.2g}), {float(np.min(d)):.1f} scales from the nearest "
-            f"centre of the layout ({layout.source}); pass center={_fmt_point(peak.point)}, scale={peak.width:.2g} "
+            f"centre of the layout ({layout.source}); pass center={fmt_point(peak.point)}, scale={peak.width:.2g} "
             f"(command line: --center {','.join(f'{v:.3g}' for v in peak.point)} --scale {peak.width:.2g})"
         )
     return peak
 
 
-def _integrals(field, layout: Layout, charge_method: str, kw: dict, sample_points: int, case: _Case, tol: float):
+def _integrals(field, layout: Layout, charge_method: str, kw: dict, sample_points: int, case: Case, tol: float):
     """(charge, action, sampled final rule of the action's volume integral, volume check or None).
 
     ADHM data (``gram`` hook, R^4, charge_method 'auto'): Q and S by Osborn's flux route (precise), and
@@ -313,7 +313,7 @@ def _integrals(field, layout: Layout, charge_method: str, kw: dict, sample_point
             # The check confirms Q to charge_tol (= 4 atol): half of it for its own error bar is enough.
             req = DensityRequest("action_density", name="action (volume check)", atol=2.0 * s_atol)
             outcome = integrate(field, (req,), layout, rule_points=sample_points, **kw)
-            if _undecided(outcome.results[0], charge, tol):  # its error bar too wide to decide: once, 4 x tighter
+            if is_undecided(outcome.results[0], charge, tol):  # its error bar too wide to decide: once, 4 x tighter
                 finer = integrate(
                     field, (dataclasses.replace(req, atol=s_atol / 2.0),), layout, rule_points=sample_points, **kw
                 )
@@ -327,7 +327,7 @@ def _integrals(field, layout: Layout, charge_method: str, kw: dict, sample_point
     except (DivergentIntegralError, FieldEvaluationError) as err:
         case.failures.append(re.sub(r"\|x\|\^--", "|x|^", str(err)))
         if isinstance(err, SingularDensityError):  # more budget or a centre there cannot make it finite
-            case.advice = [a for a in case.advice if "center=" not in a] + [_NO_BUDGET]
+            case.advice = [a for a in case.advice if "center=" not in a] + [NO_BUDGET]
     except ValueError as err:  # a budget below the first round of the rule: nothing converged, say what is needed
         if "max_points must be at least" not in str(err):
             raise

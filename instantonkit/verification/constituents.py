@@ -62,7 +62,7 @@ def ball_fractions(field, radius=None, *, n_radial: int = _RADIAL, n_polar: int 
     nr = _validate.budget("n_radial", n_radial)
     npol = _validate.budget("n_polar", n_polar)
     nt = _validate.budget("n_time", n_time)
-    u, wu = _quad._legendre01(nr)
+    u, wu = _quad.legendre01(nr)
     dirs, wd = _quad.sphere2_nodes(npol)
     t = (np.arange(nt) + 0.5) * beta / nt
     out = np.empty(n)

@@ -31,17 +31,17 @@ from .report import (
     Route,
     Row,
 )
-from .verdicts import _action_route, _Case, _judge, _route_row
+from .verdicts import Case, action_route, judge, route_row
 
 
-def _constraint_value(field) -> float | None:
+def constraint_value(field) -> float | None:
     residual = _fields.hook(field, "constraint_residual")
     return None if residual is None else float(residual())
 
 
-def _inputs(field, case: _Case, constraint_tol: float) -> None:
+def record_inputs(field, case: Case, constraint_tol: float) -> None:
     """Facts of the construction: the constraint residual and pole counts (rows that cannot agree)."""
-    cres = _constraint_value(field)
+    cres = constraint_value(field)
     if cres is not None:
         case.rows.append(
             Row("ADHM constraint residual", cres, None, HOW_CONSTRUCTION, "by construction", "enforced at construction")
@@ -63,7 +63,7 @@ def _only_potential(field) -> bool:
     return all(_fields.hook(field, name) is None for name in _fields.HOOKS if name != "describe")
 
 
-def _osborn_route(case: _Case, field, charge, layout: Layout, kw: dict, tol: float) -> None:
+def _osborn_route(case: Case, field, charge, layout: Layout, kw: dict, tol: float) -> None:
     """Q from the integral of Osborn's density on another rule (shifted centres, larger scales)."""
     name = "Osborn density -1/2 box box log det(D^dag D)"
     shift = 0.1 * layout.scales[:, None] * np.array([0.5, -0.5, 0.5, 0.5])
@@ -75,7 +75,7 @@ def _osborn_route(case: _Case, field, charge, layout: Layout, kw: dict, tol: flo
         res = integrate(OsbornField(field), (req,), other, **kw).results[0]
     except (DivergentIntegralError, FieldEvaluationError) as e:
         case.failures.append(f"the Osborn route failed: {e}")
-        _route_row(case, Route(name, None, None, True, False, str(e), HOW_OTHER_RULE), "DISAGREES")
+        route_row(case, Route(name, None, None, True, False, str(e), HOW_OTHER_RULE), "DISAGREES")
         return
     if not res.converged:
         case.doubts.append(f"the Osborn route did not converge: {res.message}")
@@ -83,7 +83,7 @@ def _osborn_route(case: _Case, field, charge, layout: Layout, kw: dict, tol: flo
         case.advise(
             f"raise the budget (max_points={4 * budget:,}; command line --budget {4 * budget}), or routes=False"
         )
-    _action_route(
+    action_route(
         case,
         res,
         charge,
@@ -98,7 +98,7 @@ def _osborn_route(case: _Case, field, charge, layout: Layout, kw: dict, tol: flo
     )
 
 
-def _routes(case: _Case, field, charge, layout: Layout, kw, tol, winding, checked: bool = False) -> None:
+def run_routes(case: Case, field, charge, layout: Layout, kw, tol, winding, checked: bool = False) -> None:
     """Osborn's density for fields with ``gram`` (unless the volume check ran); the sphere flux for smooth
     and bare potentials."""
     if _fields.hook(field, "gram") is not None and not checked:
@@ -117,10 +117,10 @@ def _routes(case: _Case, field, charge, layout: Layout, kw, tol, winding, checke
     try:
         val, err = surface_winding(field)
     except FieldEvaluationError as e:
-        _route_row(case, Route(name, None, None, bool(smooth), None, str(e), HOW_SURFACE), "undecided")
+        route_row(case, Route(name, None, None, bool(smooth), None, str(e), HOW_SURFACE), "undecided")
         return
-    status = _judge(abs(val - charge.value), err + charge.error, max(tol, 10.0 * err))
+    status = judge(abs(val - charge.value), err + charge.error, max(tol, 10.0 * err))
     if smooth and status == "DISAGREES":
         case.failures.append(f"the sphere flux {val:.10g} +- {err:.1e} disagrees with Q = {charge.value:.10g}")
     agrees = {"agrees": True, "DISAGREES": False}.get(status)
-    _route_row(case, Route(name, val, err, bool(smooth), agrees, note, HOW_SURFACE), status if smooth else "")
+    route_row(case, Route(name, val, err, bool(smooth), agrees, note, HOW_SURFACE), status if smooth else "")

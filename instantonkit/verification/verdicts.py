@@ -1,9 +1,9 @@
 """The verdict rules of ``verify``: what a deviation, its error bar and the tolerance make of a check.
 
 A check is FAILED when its deviation exceeds the tolerance by more than its error bar, PASSED when the
-deviation plus its error bar lies within the tolerance, and undecided otherwise (`_judge`).  The
+deviation plus its error bar lies within the tolerance, and undecided otherwise (`judge`).  The
 findings below turn the integrals (charge, action, the volume check) and the curvature sample into rows,
-failures, doubts and advice on one `_Case`, which `instantonkit.verification.checks` turns into
+failures, doubts and advice on one `Case`, which `instantonkit.verification.checks` turns into
 the report.
 """
 
@@ -39,7 +39,7 @@ from .report import (
     signed_offset,
 )
 
-_NO_BUDGET = "correct the potential at the point named: more budget or a centre there cannot make it integrable"
+NO_BUDGET = "correct the potential at the point named: more budget or a centre there cannot make it integrable"
 
 
 #: A peak this many times higher than the largest s on the sampled rule lies between its shells.
@@ -47,7 +47,7 @@ _BETWEEN = 4.0
 
 
 @dataclasses.dataclass
-class _Case:
+class Case:
     """What verify accumulates: failures (-> FAILED), doubts (-> INCONCLUSIVE), advice and rows."""
 
     failures: list = dataclasses.field(default_factory=list)
@@ -74,33 +74,33 @@ class _Case:
         return FAILED if self.failures else INCONCLUSIVE if self.doubts else PASSED
 
 
-def _judge(deviation: float, error: float, tol: float) -> str:
+def judge(deviation: float, error: float, tol: float) -> str:
     """'agrees' when deviation + error <= tol, 'DISAGREES' when deviation - error > tol, else 'undecided'."""
     if deviation + error <= tol:
         return "agrees"
     return "DISAGREES" if deviation - error > tol else "undecided"
 
 
-def _fmt_point(p) -> str:
+def fmt_point(p) -> str:
     return "(" + ", ".join(f"{float(v):.3g}" for v in np.asarray(p)) + ")"
 
 
-def _undecided(check: IntegralResult, charge: IntegralResult, tol: float) -> bool:
+def is_undecided(check: IntegralResult, charge: IntegralResult, tol: float) -> bool:
     """Whether a converged volume check of S / 8 pi^2 can neither confirm nor refute |Q| to ``tol``."""
     dev = abs(check.value / INSTANTON_ACTION - abs(charge.value))
-    return check.converged and _judge(dev, check.error / INSTANTON_ACTION + charge.error, tol) == "undecided"
+    return check.converged and judge(dev, check.error / INSTANTON_ACTION + charge.error, tol) == "undecided"
 
 
 def _how(res: IntegralResult) -> str:
     return HOW_FLUX if res.route == "osborn" else HOW_INTEGRAL
 
 
-def _route_row(case: _Case, route: Route, status: str) -> None:
+def route_row(case: Case, route: Route, status: str) -> None:
     case.routes.append(route)
     case.rows.append(Row(f"route: {route.name}", route.value, route.error, route.how, status, route.note))
 
 
-def _action_route(case: _Case, res: IntegralResult, charge, tol: float, name: str, how: str, label: str, mismatch):
+def action_route(case: Case, res: IntegralResult, charge, tol: float, name: str, how: str, label: str, mismatch):
     """Add the route row of an action integral ``res`` (S / 8 pi^2, signed by Q) against the charge Q.
 
     An integral that disagrees beyond the error bars fails with ``mismatch(value, error)``, converged or
@@ -108,21 +108,21 @@ def _action_route(case: _Case, res: IntegralResult, charge, tol: float, name: st
     the caller says why and advises).
     """
     val, err = case.sign * res.value / INSTANTON_ACTION, res.error / INSTANTON_ACTION  # s = 8 pi^2 |q|
-    status = _judge(abs(val - charge.value), err + charge.error, tol)  # the error bar decides, whatever the budget
+    status = judge(abs(val - charge.value), err + charge.error, tol)  # the error bar decides, whatever the budget
     if status == "DISAGREES":
         case.failures.append(mismatch(val, err))
     elif res.converged and status == "undecided":
         case.doubts.append(f"{label} {val:.10g} +- {err:.1e} and Q cannot be decided to {tol:.0e}")
     note = "s = 8 pi^2 |q|, sign from Q" + ("" if res.converged else "; NOT converged")
     agrees = {"agrees": True, "DISAGREES": False}.get(status)
-    _route_row(case, Route(name, val, err, True, agrees, note, how), status)
+    route_row(case, Route(name, val, err, True, agrees, note, how), status)
 
 
-def _volume_check(case: _Case, check: IntegralResult, charge: IntegralResult, budget: int, tol: float) -> None:
+def volume_check(case: Case, check: IntegralResult, charge: IntegralResult, budget: int, tol: float) -> None:
     """The volume integral of s against the flux figure of Q: a disagreement beyond the error bars fails."""
     if not check.converged:
         _not_converged(case, "volume check", check, budget)
-    _action_route(
+    action_route(
         case,
         check,
         charge,
@@ -137,18 +137,18 @@ def _volume_check(case: _Case, check: IntegralResult, charge: IntegralResult, bu
     )
 
 
-def _not_converged(case: _Case, what: str, res: IntegralResult, budget: int) -> None:
+def _not_converged(case: Case, what: str, res: IntegralResult, budget: int) -> None:
     case.doubts.append(f"{what} integral not converged: {res.message or 'error above tolerance'}")
     if "density is singular at" in res.message:  # integrable but slow: say so rather than only more budget
         case.advise("the density grows like a power near the point named: check the potential's factor and sign there")
-    if any(_NO_BUDGET in a for a in case.advice):  # a non-integrable point: neither budget nor hints help
+    if any(NO_BUDGET in a for a in case.advice):  # a non-integrable point: neither budget nor hints help
         return
     case.advise(f"raise the budget (max_points={4 * budget:,}; command line --budget {4 * budget})")
     if case.peak is None or not any("poorly resolved" in a for a in case.advice):
         case.advise("or give hints where the action sits (center=..., scale=...; --center, --scale)")
 
 
-def _charge_findings(case: _Case, charge: IntegralResult, expected, declared, tol: float, budget: int) -> None:
+def charge_findings(case: Case, charge: IntegralResult, expected, declared, tol: float, budget: int) -> None:
     """Nearest integer, |Q - n| against tolerance and error bar, the expected and the declared charge."""
     q, e = charge.value, charge.error
     how = _how(charge)
@@ -161,7 +161,7 @@ def _charge_findings(case: _Case, charge: IntegralResult, expected, declared, to
     if n is None:
         case.doubts.append(f"Q = {q:.6g} +- {e:.1e}: the error bar is too wide to name the nearest integer")
     else:
-        case.nearest, status = n, _judge(abs(q - n), e, tol)
+        case.nearest, status = n, judge(abs(q - n), e, tol)
         case.rows.append(Row(signed_offset("Q", n), abs(q - n), e, how, status, f"tolerance {tol:.0e}"))
         if status == "DISAGREES":  # whatever the budget: the error bar is part of the rule
             case.failures.append(
@@ -183,7 +183,7 @@ def _charge_findings(case: _Case, charge: IntegralResult, expected, declared, to
             continue
         off, label = abs(q - int(want)), f"charge {n}" if n is not None else f"Q = {q:.10g} +- {e:.1e}"
         if n is None:
-            case.rows.append(Row(signed_offset("Q", int(want)), off, e, how, _judge(off, e, tol), f"{what} charge"))
+            case.rows.append(Row(signed_offset("Q", int(want)), off, e, how, judge(off, e, tol), f"{what} charge"))
         if off - e > tol:
             flip = orientation_mistake(q, e, int(want), tol)
             case.failures.append(flip or f"{label} differs from {what} {int(want)}")
@@ -191,7 +191,7 @@ def _charge_findings(case: _Case, charge: IntegralResult, expected, declared, to
         case.rows.append(Row("charge declared by the construction", float(declared), None, HOW_INPUT, "input"))
 
 
-def _action_findings(case: _Case, action: IntegralResult, charge, budget: int) -> None:
+def action_findings(case: Case, action: IntegralResult, charge, budget: int) -> None:
     units, err = action.value / INSTANTON_ACTION, action.error / INSTANTON_ACTION
     case.rows.append(
         Row("action S / 8 pi^2", units, err, _how(action), "", "" if action.converged else "NOT converged")
@@ -200,7 +200,7 @@ def _action_findings(case: _Case, action: IntegralResult, charge, budget: int) -
         _not_converged(case, "action", action, budget)
 
 
-def _curvature_findings(case: _Case, field, charge, action, rule, charge_method: str, tol: float) -> None:
+def curvature_findings(case: Case, field, charge, action, rule, charge_method: str, tol: float) -> None:
     """Closed forms vs the potential's curvature; the margin and the residual from that curvature."""
     try:
         case.sample = s = curvature_sample(field, rule.points, rule.weights, case.sign)
@@ -214,8 +214,8 @@ def _curvature_findings(case: _Case, field, charge, action, rule, charge_method:
     if peak is not None and peak.value > _BETWEEN * s.s_max and not any("poorly resolved" in a for a in case.advice):
         case.advise(
             f"the integrand is poorly resolved: the action density peaks between the rule's shells, at "
-            f"{_fmt_point(peak.point)} with s = {peak.value:.3g}, while the largest s on the rule's points is "
-            f"{s.s_max:.3g}; pass center={_fmt_point(peak.point)}, scale={peak.width:.2g} or more budget"
+            f"{fmt_point(peak.point)} with s = {peak.value:.3g}, while the largest s on the rule's points is "
+            f"{s.s_max:.3g}; pass center={fmt_point(peak.point)}, scale={peak.width:.2g} or more budget"
         )
     for name, dev in s.deviations.items():
         ok = dev <= CLOSED_FORM_TOL
@@ -232,7 +232,7 @@ def _curvature_findings(case: _Case, field, charge, action, rule, charge_method:
         if not ok:
             case.failures.append(
                 f"the closed-form {name} is not the curvature of the potential: it differs from the autodiff "
-                f"curvature of A by {dev:.2e} (relative, largest at x = {_fmt_point(s.worst[name])})"
+                f"curvature of A by {dev:.2e} (relative, largest at x = {fmt_point(s.worst[name])})"
             )
     units, u_err = action.value / INSTANTON_ACTION, action.error / INSTANTON_ACTION
     m_int, e_int = units - abs(charge.value), u_err + charge.error
@@ -255,7 +255,7 @@ def _curvature_findings(case: _Case, field, charge, action, rule, charge_method:
         case.margin, case.margin_error, case.margin_how = m_s, e_s, HOW_CURVATURE
     else:
         case.margin, case.margin_error, case.margin_how = m_int, e_int, HOW_INTEGRAL
-    status = _judge(abs(case.margin), case.margin_error, tol)
+    status = judge(abs(case.margin), case.margin_error, tol)
     case.bound = case.margin >= -case.margin_error - 1e-12
     case.saturated = status == "agrees"
     duality = "self-dual" if case.sign > 0 else "anti-self-dual"
