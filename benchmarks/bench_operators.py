@@ -128,7 +128,7 @@ def run(
 ) -> list[dict]:
     """Rows {figure, value, unit, ratio, reference}; size: L of the operator lattice (32 full, 12 quick),
     flow_size: L of the flow lattice (16 full, 8 quick); presets: ((name, 'action' or 'charge'), ...)
-    (default: every preset both ways in the full run, three in the quick run); actions: the flows timed
+    (default: every preset both ways in the full run, five in the quick run); actions: the flows timed
     beside the Wilson flow (default Symanzik and 5Li, quick Symanzik: each compiles for about 10 s)."""
     from instantonkit.lattice import operators as ops
 
