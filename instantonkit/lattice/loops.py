@@ -64,41 +64,57 @@ def _loop(d, mu, nu, m):
     return _mm(_mm(d[mu], _sh(d[nu], mu, m)), _mm(_dag(_sh(d[mu], nu, m)), _dag(d[nu])))
 
 
-def _long_staple(d, mu, m):
-    """Sum over nu != mu of the staples of the long link D_mu(n) in m x m loops (up and down); (L1..L4, N, N)."""
-    out = 0.0
+def _plane_staples(d, mu: int, e: int, f: int, nu: int):
+    """(up, down): the staples of the long link D^e_mu(n) in its two e x f loops of plane (mu, nu) (f along nu),
+    so that each loop's Re tr = Re tr(D^e_mu(n) staple); d: {extent: [D^extent_nu for nu in 0..3]}; (L1..L4, N, N)."""
+    up = _mm(_sh(d[f][nu], mu, e), _mm(_dag(_sh(d[e][mu], nu, f)), _dag(d[f][nu])))
+    dn_nu = _sh(d[f][nu], nu, -f)  # D_nu(n - f nu)
+    down = _mm(_dag(_sh(dn_nu, mu, e)), _mm(_dag(_sh(d[e][mu], nu, -f)), dn_nu))
+    return up, down
+
+
+def _long_staple(d, mu: int, e: int, f: int):
+    """Sum over nu != mu of the up and down staples of D^e_mu(n) in its e x f loops (`_plane_staples`)."""
+    out = []
     for nu in range(4):
-        if nu == mu:
-            continue
-        up = _mm(_sh(d[nu], mu, m), _mm(_dag(_sh(d[mu], nu, m)), _dag(d[nu])))
-        dn_nu = _sh(d[nu], nu, -m)  # D_nu(n - m nu)
-        down = _mm(_dag(_sh(dn_nu, mu, m)), _mm(_dag(_sh(d[mu], nu, -m)), dn_nu))
-        out = out + up + down
-    return out
+        if nu != mu:
+            up, down = _plane_staples(d, mu, e, f, nu)
+            out.append(up + down)
+    return out[0] + out[1] + out[2]
+
+
+def _spread(u, mu: int, e: int, sd):
+    """From a staple sum Sigma_D of the long links D^e_mu to the staple of the single link U_mu(n): the link
+    sits at position k = 0 .. e-1 of D^e_mu(n - k mu) = A_k U_mu(n) B_k and Re tr(D Sigma_D) =
+    Re tr(U B_k Sigma_D A_k); A_0 = B_{e-1} = 1 are not multiplied."""
+    one = u[..., mu, :, :]
+    total = None
+    for k in range(e):
+        a = None  # U_mu(n - k mu) ... U_mu(n - mu)
+        for j in range(k, 0, -1):
+            a = _sh(one, mu, -j) if a is None else _mm(a, _sh(one, mu, -j))
+        b = None  # U_mu(n + mu) ... U_mu(n + (e-1-k) mu)
+        for j in range(1, e - k):
+            b = _sh(one, mu, j) if b is None else _mm(b, _sh(one, mu, j))
+        term = _sh(sd, mu, -k)
+        term = term if b is None else _mm(b, term)
+        term = term if a is None else _mm(term, a)
+        total = term if total is None else total + term
+    return total
+
+
+def _link_staple(u, d, mu: int, e: int, f: int):
+    """Sigma of U_mu(n) in every e x f loop (e along mu, f along nu != mu): the sum of the paths that close
+    each such loop through U_mu(n), so that the loops' share of the action holding U_mu(n) is
+    -2 Re tr(U_mu(n) Sigma) + const (the Wilson staple for e = f = 1).  d: {extent: [D^extent_nu for nu]}
+    holding e and f.  The one staple code of the Wilson, 1x1 + 2x2, m x n and weighted (staples module)
+    actions: `_plane_staples` per plane, `_spread` to the single links."""
+    return _spread(u, mu, e, _long_staple(d, mu, e, f))
 
 
 def _staple(u, mu: int, m: int):
-    """Sigma^(m)_mu(n): the sum of the 7-link (m = 2) or 3-link (m = 1) paths that close every m x m loop
-    through U_mu(n), so that the loops' share of S_m holding U_mu(n) is -2 Re tr(U_mu(n) Sigma) + const.
-
-    The link sits at position k = 0 .. m-1 of the long link D_mu(n - k mu) = A_k U_mu(n) B_k, and
-    Re tr(D Sigma_D) = Re tr(U B_k Sigma_D A_k).
-    """
-    d = [_long(u, nu, m) for nu in range(4)]
-    sd = _long_staple(d, mu, m)
-    one = u[..., mu, :, :]
-    n = one.shape[-1]
-    eye = jnp.broadcast_to(jnp.eye(n, dtype=one.dtype), one.shape)
-    total = 0.0
-    for k in range(m):
-        a = eye
-        for j in range(k, 0, -1):  # U_mu(n - k mu) ... U_mu(n - mu)
-            a = _mm(a, _sh(one, mu, -j))
-        b = eye
-        for j in range(1, m - k):  # U_mu(n + mu) ... U_mu(n + (m-1-k) mu)
-            b = _mm(b, _sh(one, mu, j))
-        total = total + _mm(_mm(b, _sh(sd, mu, -k)), a)
-    return total
+    """Sigma^(m)_mu(n): the staples that close every m x m loop through U_mu(n) (`_link_staple`)."""
+    return _link_staple(u, {m: [_long(u, nu, m) for nu in range(4)]}, mu, m, m)
 
 
 def _total_staple(u, mu, c1, c2, two: bool):

@@ -40,7 +40,9 @@ a^4 term (`LoopOperator.moments`).  For a BPST instanton the Wilson action has S
 (a/rho)^2 + ... (Garcia Perez, Gonzalez-Arroyo, Snippe, van Baal, Nucl. Phys. B 413 (1994) 535, from
 memory), so a set's a^2 coefficient is -(1/10) sum c (m^2 + n^2) (`LoopOperator.action_a2`).
 
-Large lattices are measured in time slabs of about `SLAB_BYTES` of links, so memory stays bounded.
+Measurements go plane by plane: the loops of a plane (mu, nu) never leave it, so the lattice is cut into
+blocks across the two other axes (`CHUNK_SITES` sites, no halo) and one compiled kernel per lattice shape
+computes every loop of the operator on a block; memory beyond the links is one plane's field strength.
 """
 
 from __future__ import annotations
@@ -55,9 +57,10 @@ import numpy as np
 
 from ..core import _validate as _v
 from ..core._links import check_links as _check_links
+from ..core.conventions import CHARGE_DENSITY_FACTOR
 from . import boundaries as _bd
 from .observables import PLANES
-from .rectangles import ORDERED_PLANES, field_and_charge, loop_traces
+from .rectangles import charge_terms, plane_fields, plane_loops, plane_traces
 
 __all__ = [
     "LoopOperator",
@@ -73,8 +76,12 @@ __all__ = [
     "operator_charge",
 ]
 
-#: Links per time slab (bytes, halo included) of the measurements on large lattices.
-SLAB_BYTES = 1 << 28
+#: Sites per block of the measurements (plane by plane, `_plane_chunks`): 2^15 sites are 9.4 MB of SU(3)
+#: links along a plane's two axes, small enough for the cache-bound products (measured in the benchmarks).
+CHUNK_SITES = 1 << 15
+#: Sites per block inside a chunk (the compiled kernel runs over the blocks one after the other, so the
+#: products of a block stay in the cache).
+BLOCK_SITES = 1 << 8
 #: The longest loop side a set may use (longer loops are not improvement; they would only cost).
 MAX_EXTENT = 8
 #: Relative tolerance of the sum rule sum c = 1 for float coefficients (exact for rationals).
@@ -318,41 +325,53 @@ def _prepare(links, operator, spacing, boundary):
     return op, a, opened, u
 
 
-def _slabs(u, margin: int):
-    """Yield (t0, t1, slab, halo): links of times t0 - halo .. t1 - 1 + halo (periodic index) as jax arrays.
-
-    The whole lattice in one piece (halo 0, exact periodic shifts) when it fits in `SLAB_BYTES`; else
-    equal slabs whose core length divides L4."""
-    l4 = u.shape[3]
-    per_t = int(np.prod(u.shape[:3])) * int(np.prod(u.shape[4:])) * 16
-    if per_t * l4 <= SLAB_BYTES or l4 <= 2 * margin + 1:
-        yield 0, l4, jnp.asarray(u, dtype=jnp.complex128), 0
-        return
-    want = max(1, SLAB_BYTES // per_t - 2 * margin)
-    core = max(c for c in range(1, l4 + 1) if l4 % c == 0 and c <= want)
-    for t0 in range(0, l4, core):
-        idx = np.arange(t0 - margin, t0 + core + margin) % l4
-        yield t0, t0 + core, jnp.asarray(np.asarray(u[:, :, :, idx]), dtype=jnp.complex128), margin
+def _plane_perm(mu: int, nu: int) -> tuple:
+    """(mu, nu, r, s): the site axes of plane (mu, nu) first, then the other two in their order."""
+    return (mu, nu) + tuple(r for r in range(4) if r not in (mu, nu))
 
 
-def _corner_mask(shape, t0, t1, ext, opened):
-    """Open directions: corners x with x_d <= L_d - 1 - ext[d]; (L1, L2, L3, t1 - t0) bool (None: all)."""
-    if not any(o and e for o, e in zip(opened, ext)):
-        return None
-    idx = np.meshgrid(*[np.arange(s) for s in shape[:3]], np.arange(t0, t1), indexing="ij", sparse=True)
-    ok = np.ones((shape[0], shape[1], shape[2], t1 - t0), dtype=bool)
-    for d in range(4):
-        if opened[d] and ext[d]:
-            ok = ok & (idx[d] <= shape[d] - 1 - ext[d])
-    return ok
+def _plane_chunks(u, mu: int, nu: int):
+    """Yield (sel, b, x): the links along mu and nu of a chunk of sites in the blocked plane layout of
+    `instantonkit.lattice.rectangles`, x: (c L_s / b, L_mu, L_nu, b, 2, N, N) complex128 numpy.
+
+    With (mu, nu, r, s) = `_plane_perm`, a chunk holds all of L_mu, L_nu, L_s and a run of c along r
+    (``sel`` indexes its sites), cut into blocks of b sites along s (block (i, j): r = r0 + i, s = j b ..
+    j b + b - 1; `_blocks`).  Loops of the plane never leave it, so a chunk needs no halo; b is the
+    largest divisor of L_s with at most `BLOCK_SITES` sites a block, c the largest divisor of L_r with
+    at most `CHUNK_SITES` a chunk (one compiled kernel per lattice shape)."""
+    perm = _plane_perm(mu, nu)
+    shape = u.shape[:4]
+    n = u.shape[-1]
+    r, rs = perm[2], perm[3]
+    plane = shape[mu] * shape[nu]
+    b = max(d for d in range(1, shape[rs] + 1) if shape[rs] % d == 0 and d * plane <= max(BLOCK_SITES, plane))
+    want = max(1, CHUNK_SITES // (plane * shape[rs]))
+    c = max(d for d in range(1, shape[r] + 1) if shape[r] % d == 0 and d <= want)
+    for r0 in range(0, shape[r], c):
+        sel = tuple(slice(r0, r0 + c) if d == r else slice(None) for d in range(4))
+        x = np.empty((c, shape[rs] // b, shape[mu], shape[nu], b, 2, n, n), dtype=np.complex128)
+        for k, d in enumerate((mu, nu)):
+            x[..., k, :, :] = _blocks(u[..., d, :, :], sel, perm, b)
+        yield sel, b, x.reshape(-1, *x.shape[2:])
 
 
-def _site_mask(shape, t0, t1, reach, opened):
-    """Open directions: sites with reach <= x_d <= L_d - 1 - reach; (L1, L2, L3, t1 - t0) bool (None: all)."""
+def _blocks(arr, sel, perm, b: int, lead: int = 0):
+    """The view of ``arr`` at the chunk ``sel`` (site axes after ``lead`` leading axes) in the blocked
+    plane layout (c, L_s / b, *lead, L_mu, L_nu, b, *rest) of `_plane_chunks`."""
+    view = arr[(slice(None),) * lead + sel]
+    axes = tuple(range(lead)) + tuple(lead + p for p in perm) + tuple(range(lead + 4, view.ndim))
+    v = np.transpose(view, axes)  # (*lead, L_mu, L_nu, c, L_s, *rest)
+    v = v.reshape(v.shape[: lead + 3] + (v.shape[lead + 3] // b, b) + v.shape[lead + 4 :])
+    order = (lead + 2, lead + 3) + tuple(range(lead)) + (lead, lead + 1, lead + 4)
+    return np.transpose(v, order + tuple(range(lead + 5, v.ndim)))
+
+
+def _site_mask(shape, reach: int, opened):
+    """Open directions: sites with reach <= x_d <= L_d - 1 - reach; (L1..L4) bool (None: all)."""
     if not any(opened):
         return None
-    idx = np.meshgrid(*[np.arange(s) for s in shape[:3]], np.arange(t0, t1), indexing="ij", sparse=True)
-    ok = np.ones((shape[0], shape[1], shape[2], t1 - t0), dtype=bool)
+    idx = np.meshgrid(*[np.arange(s) for s in shape], indexing="ij", sparse=True)
+    ok = np.ones(tuple(shape), dtype=bool)
     for d in range(4):
         if opened[d]:
             ok = ok & (idx[d] >= reach) & (idx[d] <= shape[d] - 1 - reach)
@@ -378,26 +397,64 @@ def operator_action(links, operator="wilson", *, spacing=1.0, boundary="periodic
     op, a, opened, u = _prepare(links, operator, spacing, boundary)
     shape = u.shape[:4]
     vol = float(np.prod(a))
+    loops = plane_loops(op.pairs)
     total = 0.0
-    for t0, t1, slab, halo in _slabs(u, op.extent):
-        tr = np.asarray(loop_traces(slab, op.pairs, halo))
-        for i, (m, n, c) in enumerate(op.terms):
-            for p, (mu, nu) in enumerate(ORDERED_PLANES):
-                ext = [0, 0, 0, 0]
-                ext[mu], ext[nu] = m, n
-                w = float(c) * vol / (m * n * a[mu] * a[nu]) ** 2
-                mask = _corner_mask(shape, t0, t1, ext, opened)
-                total += w * float(np.sum(tr[i, p]) if mask is None else np.sum(tr[i, p][mask]))
+    for mu, nu in PLANES:
+        parts = [plane_traces(jnp.asarray(x), loops) for _, _, x in _plane_chunks(u, mu, nu)]
+        tr = np.sum([np.asarray(t) for t in parts], axis=0)  # (loops, L_mu, L_nu)
+        ia, ib = np.arange(shape[mu])[:, None], np.arange(shape[nu])[None, :]
+        for m, n, c in op.terms:
+            w = float(c) * vol / (m * n * a[mu] * a[nu]) ** 2
+            for p, q in ((m, n), (n, m)):  # extent p along mu: the ordered plane (mu, nu), then (nu, mu)
+                ok = ((ia <= shape[mu] - 1 - p) | (not opened[mu])) & ((ib <= shape[nu] - 1 - q) | (not opened[nu]))
+                total += w * float(np.sum(np.where(ok, tr[loops.index((p, q))], 0.0)))
     return total
 
 
-def _field_slabs(links, operator, spacing, boundary):
-    op, a, opened, u = _prepare(links, operator, spacing, boundary)
-    area = jnp.asarray([a[mu] * a[nu] for mu, nu in PLANES])
-    coeffs = jnp.asarray(op.coefficients)
-    for t0, t1, slab, halo in _slabs(u, op.extent):
-        f, q = field_and_charge(slab, op.pairs, coeffs, area, op.combine, halo)
-        yield op, a, u, t0, t1, f, q, _site_mask(u.shape[:4], t0, t1, op.extent, opened)
+def _plane_field_chunks(u, op, a, mu: int, nu: int, summed: bool):
+    """Yield (sel, F): the clover field strengths of the operator's terms in plane (mu, nu) on each block
+    of `_plane_chunks` (jax, (1 or len(terms), L_mu, L_nu, B, N, N)): their c_i-weighted sum (summed) or
+    F^{(m_i, n_i)} one by one."""
+    scales = jnp.asarray(
+        [(float(c) if summed else 1.0) / ((8.0 if m != n else 4.0) * m * n * a[mu] * a[nu]) for m, n, c in op.terms]
+    )
+    ahead = None  # one chunk ahead: the next chunk is gathered and dispatched while the kernel runs
+    for sel, b, x in _plane_chunks(u, mu, nu):
+        item = (sel, b, plane_fields(jnp.asarray(x), scales, op.pairs, summed))
+        if ahead is not None:
+            yield ahead
+        ahead = item
+    if ahead is not None:
+        yield ahead
+
+
+#: The planes of the charge density's three products tr F_{mu nu} F_{rho sigma} with their signs eps_{mu nu rho sigma}.
+_COMPLEMENTS = (((0, 1), (2, 3), 1.0), ((0, 2), (1, 3), -1.0), ((0, 3), (1, 2), 1.0))
+
+
+def _charge_density(u, op, a):
+    """q per site, (L1..L4) float64 (periodic shifts; `_site_mask` says which sites to trust).
+
+    q = 8 c sum eps tr F_{mu nu} F_{rho sigma} over the three complementary plane pairs (``combine='field'``),
+    or sum_i c_i of that for each F^{(m_i, n_i)} (``'density'``); the first plane's field of a pair is kept
+    whole, the second's is taken block by block."""
+    shape = u.shape[:4]
+    summed = op.combine == "field"
+    k = 1 if summed else len(op.terms)
+    coeffs = np.ones(1) if summed else op.coefficients
+    f1 = np.empty((k,) + tuple(shape) + u.shape[-2:], dtype=np.complex128)
+    q = np.zeros(shape)
+    for p1, p2, sign in _COMPLEMENTS:
+        perm1, perm2 = _plane_perm(*p1), _plane_perm(*p2)
+        for sel, b, f in _plane_field_chunks(u, op, a, *p1, summed):
+            dest = _blocks(f1, sel, perm1, b, lead=1)
+            dest[...] = np.asarray(f).reshape(dest.shape)
+        w = jnp.asarray(sign * 8.0 * CHARGE_DENSITY_FACTOR * coeffs)
+        for sel, b, f in _plane_field_chunks(u, op, a, *p2, summed):
+            g = np.ascontiguousarray(_blocks(f1, sel, perm2, b, lead=1)).reshape(f.shape)
+            dest = _blocks(q, sel, perm2, b)
+            dest += np.asarray(charge_terms(f, jnp.asarray(g), w)).reshape(dest.shape)
+    return q
 
 
 def operator_field_strength(links, operator="clover", *, spacing=1.0, boundary="periodic") -> np.ndarray:
@@ -406,15 +463,23 @@ def operator_field_strength(links, operator="clover", *, spacing=1.0, boundary="
     Antisymmetric in (mu, nu), anti-Hermitian and traceless; open boundaries: NaN where a loop of the
     operator leaves the lattice.  Arguments as `operator_action`.
     """
-    u0 = _check_links(links)
-    n = u0.shape[-1]
-    out = np.zeros(u0.shape[:4] + (4, 4, n, n), dtype=np.complex128)
-    for _, _, _, t0, t1, f, _, mask in _field_slabs(u0, operator, spacing, boundary):
-        f = np.asarray(f)
-        for p, (mu, nu) in enumerate(PLANES):
-            fp = f[p] if mask is None else np.where(mask[..., None, None], f[p], np.nan)
-            out[:, :, :, t0:t1, mu, nu] = fp
-            out[:, :, :, t0:t1, nu, mu] = -fp
+    op, a, opened, u = _prepare(links, operator, spacing, boundary)
+    shape = u.shape[:4]
+    n = u.shape[-1]
+    out = np.zeros(tuple(shape) + (4, 4, n, n), dtype=np.complex128)
+    for mu, nu in PLANES:
+        perm = _plane_perm(mu, nu)
+        for sel, b, f in _plane_field_chunks(u, op, a, mu, nu, True):
+            fp = np.asarray(f)[:, 0]
+            dest = _blocks(out[..., mu, nu, :, :], sel, perm, b)
+            dest[...] = fp.reshape(dest.shape)
+            dest = _blocks(out[..., nu, mu, :, :], sel, perm, b)
+            dest[...] = -fp.reshape(dest.shape)
+    mask = _site_mask(shape, op.extent, opened)
+    if mask is not None:
+        for mu, nu in PLANES:  # the diagonal F_mu mu stays 0
+            out[~mask, mu, nu] = np.nan
+            out[~mask, nu, mu] = np.nan
     return out
 
 
@@ -425,18 +490,15 @@ def operator_charge_density(links, operator="clover", *, spacing=1.0, boundary="
     whose loops leave the lattice (within the operator's longest side of an open face).  Arguments as
     `operator_action`.
     """
-    u0 = _check_links(links)
-    out = np.empty(u0.shape[:4])
-    for *_, t0, t1, _, q, mask in _field_slabs(u0, operator, spacing, boundary):
-        q = np.asarray(q)
-        out[:, :, :, t0:t1] = q if mask is None else np.where(mask, q, np.nan)
-    return out
+    op, a, opened, u = _prepare(links, operator, spacing, boundary)
+    q = _charge_density(u, op, a)
+    mask = _site_mask(u.shape[:4], op.extent, opened)
+    return q if mask is None else np.where(mask, q, np.nan)
 
 
 def operator_charge(links, operator="clover", *, spacing=1.0, boundary="periodic") -> float:
     """Q = sum_x V q(x) of `operator_charge_density` (open boundaries: the sites whose loops fit)."""
-    total = 0.0
-    for _, a, _, _, _, _, q, mask in _field_slabs(links, operator, spacing, boundary):
-        q = np.asarray(q)
-        total += float(np.prod(a)) * float(np.sum(q) if mask is None else np.sum(q[mask]))
-    return total
+    op, a, opened, u = _prepare(links, operator, spacing, boundary)
+    q = _charge_density(u, op, a)
+    mask = _site_mask(u.shape[:4], op.extent, opened)
+    return float(np.prod(a)) * float(np.sum(q) if mask is None else np.sum(q[mask]))

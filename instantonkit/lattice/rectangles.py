@@ -1,9 +1,9 @@
 """Rectangular m x n Wilson loops of lattice links: their traces, clovers and staples (lattice units).
 
 Links are ``(L1, L2, L3, L4, 4, N, N)`` complex128 (array-of-structures layout, as in
-`instantonkit.lattice.loops`); shifts are periodic (``jnp.roll``), so callers that work on time slabs
-or open lattices keep only the sites whose loops they trust.  An "m x n loop in the ordered plane
-(mu, nu)" has extent m along mu and n along nu:
+`instantonkit.lattice.loops`); shifts are periodic (``jnp.roll``), so callers on open lattices keep only
+the sites whose loops they trust.  An "m x n loop in the ordered plane (mu, nu)" has extent m along mu
+and n along nu:
 
     W^{m x n}_{mu nu}(x) = D^m_mu(x) D^n_nu(x + m mu) D^m_mu(x + n nu)^dag D^n_nu(x)^dag,
 
@@ -12,6 +12,13 @@ W = exp(m n a_mu a_nu F_mu nu + ...) (common practice).  Summing over the twelve
 every geometric square twice (W_{nu mu} = W_{mu nu}^dag for m = n) and every geometric rectangle of
 either orientation once, so N - Re tr W summed over them tends to (m n)^2 (a^4 s) for an isotropic
 lattice (s the action density of the conventions module).
+
+Measurements go plane by plane (the kernels ``plane_*``): the links along mu and nu in the plane layout
+(L_mu, L_nu, B, 2, N, N), B sites across the plane, where every loop of the plane is built from the long
+links and two corner products without leaving it; the operators module cuts the B axis into chunks and
+blocks (no halo is needed) and runs the blocks one after the other, so their products stay in the cache.
+The staples of the flows and cooling come from `instantonkit.lattice.loops` (one staple code for the
+Wilson, the 1x1 + 2x2 and the m x n actions).
 """
 
 from __future__ import annotations
@@ -23,94 +30,149 @@ import jax.numpy as jnp
 import numpy as np
 
 from ..core.conventions import CHARGE_DENSITY_FACTOR
-from .loops import _dag, _long, _mm, _retr, _sh, _traceless_antihermitian
+from .loops import _link_staple, _long, _mm, _retr, _sh
 from .observables import PLANES
 
-#: The twelve ordered planes (mu, nu), mu != nu, in the order of `loop_traces`' second axis.
+#: The twelve ordered planes (mu, nu), mu != nu.
 ORDERED_PLANES = tuple((mu, nu) for mu in range(4) for nu in range(4) if mu != nu)
-
-
-def _longs(u, extents):
-    """{e: [D^e_mu for mu in 0..3]}; each (L1..L4, N, N)."""
-    return {e: [_long(u, mu, e) for mu in range(4)] for e in extents}
 
 
 def _extents(pairs):
     return sorted({e for p in pairs for e in p})
 
 
-def _retrace(d, mu, nu, m, n):
-    """N - Re tr W^{m x n}_{mu nu}(x) at every corner x; (L1..L4) float."""
-    left = _mm(d[m][mu], _sh(d[n][nu], mu, m))
-    right = _mm(d[n][nu], _sh(d[m][mu], nu, n))
-    size = left.shape[-1]
-    return size - jnp.real(jnp.sum(left * jnp.conj(right), axis=(-2, -1)))
+def plane_loops(pairs) -> tuple:
+    """The loops (p, q) (extent p along the plane's first axis, q along its second) of the terms ``pairs``:
+    both orientations of every rectangle, a square once; sorted."""
+    return tuple(sorted({(m, n) for m, n in pairs} | {(n, m) for m, n in pairs}))
 
 
-@functools.partial(jax.jit, static_argnames=("mu", "e"))
-def _long_jit(u, mu: int, e: int):
-    return _long(u, mu, e)
+def _plane_longs(ua, ub, big: int):
+    """The long links D^e along the plane's axes 0 (a) and 1 (b) for e = 1 .. big; lists, ``da[e - 1] = D^e_a``."""
+    da, db = [ua], [ub]
+    for k in range(1, big):
+        da.append(_mm(da[-1], _sh(ua, 0, k)))
+        db.append(_mm(db[-1], _sh(ub, 1, k)))
+    return da, db
 
 
-def _longs_jit(u, extents):
-    """`_longs` with one small compiled kernel per (direction, extent) (XLA compiles small graphs much faster)."""
-    return {e: [_long_jit(u, mu, e) for mu in range(4)] for e in extents}
+def _mm_nd(a, b):
+    """a b^dag without forming b^dag (the conjugate is fused into the product); (..., N, N)."""
+    return jnp.sum(a[..., :, None, :] * jnp.conj(b[..., None, :, :]), axis=-1)
 
 
-@functools.partial(jax.jit, static_argnames=("m", "n", "margin"))
-def _pair_traces(dm, dn, m: int, n: int, margin: int):
-    """(12, L1, L2, L3, L4 - 2 margin): N - Re tr W^{m x n}_{mu nu} per ordered plane (dm, dn: long links)."""
-    d = {m: dm, n: dn}
-    done: dict = {}
-    planes = []
-    for mu, nu in ORDERED_PLANES:
-        if m == n and (nu, mu) in done:
-            planes.append(done[(nu, mu)])
-            continue
-        t = _retrace(d, mu, nu, m, n)
-        done[(mu, nu)] = t
-        planes.append(t)
-    res = jnp.stack(planes)
-    return res[..., margin : res.shape[-1] - margin] if margin else res
+def _mm_dn(a, b):
+    """a^dag b without forming a^dag; (..., N, N)."""
+    return jnp.sum(jnp.conj(a[..., :, :, None]) * b[..., :, None, :], axis=-3)
 
 
-def loop_traces(u, pairs: tuple, margin: int = 0):
-    """N - Re tr W^{m x n}_{mu nu}(x) for each (m, n) of ``pairs`` and ordered plane; (len(pairs), 12, L1, L2, L3, L4 - 2 margin).
+def _corners(da, db, p: int, q: int):
+    """(L, R) at every corner x: L = D^p_a(x) D^q_b(x + p a), R = D^q_b(x) D^p_a(x + q b), so that the p x q
+    loop (p along a) is W = L R^dag."""
+    return _mm(da[p - 1], _sh(db[q - 1], 0, p)), _mm(db[q - 1], _sh(da[p - 1], 1, q))
 
-    ``margin`` time slices are dropped at both ends of x4 (a slab's halo).  A square is computed once
-    per unordered plane (its reverse has the same trace).  Traceable (flows call it inside their jit).
+
+def _plane_traces(ua, ub, loops: tuple):
+    """N - Re tr W^{p x q}(x) of each loop of ``loops`` summed over the transverse axis 2; (len(loops), La, Lb).
+
+    ua, ub: (La, Lb, B, N, N), the links along the plane's two axes (periodic in La and Lb, B sites across).
+    Re tr(L R^dag) is the sum of L * conj(R): two products per loop, the long links shared by all loops.
     """
-    d = _longs_jit(u, _extents(pairs))
-    return jnp.stack([_pair_traces(d[m], d[n], m, n, margin) for m, n in pairs])
-
-
-def _clover_leaves(d, mu, nu, m, n):
-    """Sum of the four m x n loops (m along mu) that start and end at x, all oriented mu -> nu; (L1..L4, N, N)."""
-    dmu, dnu = d[m][mu], d[n][nu]
-    dmu_m = _sh(dmu, mu, -m)  # D_mu(x - m mu)
-    dnu_m = _sh(dnu, nu, -n)  # D_nu(x - n nu)
-    q = _mm(_mm(dmu, _sh(dnu, mu, m)), _mm(_dag(_sh(dmu, nu, n)), _dag(dnu)))
-    q = q + _mm(_mm(dnu, _dag(_sh(dmu_m, nu, n))), _mm(_dag(_sh(dnu, mu, -m)), dmu_m))
-    q = q + _mm(_mm(_dag(dmu_m), _dag(_sh(dnu_m, mu, -m))), _mm(_sh(dmu_m, nu, -n), dnu_m))
-    q = q + _mm(_mm(_dag(dnu_m), _sh(dmu, nu, -n)), _mm(_sh(dnu_m, mu, m), _dag(dmu)))
-    return q
-
-
-def _pair_fields(d, m, n, area):
-    """Clover field strength of the m x n loops, both orientations averaged, in physical units.
-
-    F^{(m, n)}_{mu nu} = [P_ah(Q^{m x n}) + P_ah(Q^{n x m})] / (8 m n a_mu a_nu) (a square: P_ah(Q) / (4 m^2
-    a_mu a_nu)), Q the clover sum of `_clover_leaves`; = F_mu nu + O(a^2) (the clover of Bilson-Thompson,
-    Leinweber, Williams, Ann. Phys. 304 (2003) 1, from memory, normalised by its area).  List of 6 in
-    `PLANES` order; ``area[p]`` = a_mu a_nu.
-    """
+    n = ua.shape[-1]
+    da, db = _plane_longs(ua, ub, max(max(lp) for lp in loops))
     out = []
-    for p, (mu, nu) in enumerate(PLANES):
-        f = _traceless_antihermitian(_clover_leaves(d, mu, nu, m, n))
-        if m != n:
-            f = 0.5 * (f + _traceless_antihermitian(_clover_leaves(d, mu, nu, n, m)))
-        out.append(f / (4.0 * m * n * area[p]))
+    for p, q in loops:
+        left, right = _corners(da, db, p, q)
+        out.append(jnp.sum(n - jnp.real(jnp.sum(left * jnp.conj(right), axis=(-2, -1))), axis=2))
+    return jnp.stack(out)
+
+
+def _leaves(da, db, p: int, q: int):
+    """The four p x q loops (p along a) that start and end at x, all oriented a -> b, each as (shift, M): the
+    leaf at x is M(x + shift), shift = (s_a, s_b) along the plane's axes (so that leaves of one shift are
+    summed before they are moved).
+
+    From the corner products (L, R) of `_corners`, each leaf as a product without inverse pairs:
+    (+a, +b): L(x) R(x)^dag; (-a, +b): D^q_b(y + p a) R(y)^dag D^p_a(y), y = x - p a; (-a, -b):
+    R(z)^dag L(z), z = x - p a - q b; (+a, -b): D^q_b(w)^dag L(w) D^p_a(w + q b)^dag, w = x - q b.
+    """
+    dap, dbq = da[p - 1], db[q - 1]
+    left, right = _corners(da, db, p, q)
+    return (
+        ((0, 0), _mm_nd(left, right)),
+        ((-p, 0), _mm(_mm_nd(_sh(dbq, 0, p), right), dap)),
+        ((-p, -q), _mm_dn(right, left)),
+        ((0, -q), _mm_nd(_mm_dn(dbq, left), _sh(dap, 1, q))),
+    )
+
+
+def _moved_sum(acc: dict):
+    """sum over shifts (s_a, s_b) of acc[shift](x + shift): one shift along a per entry, one along b per
+    distinct s_b (each shift of a block is a pass over it, as costly as a third of a product)."""
+    by_b: dict = {}
+    for (sa, sb), x in acc.items():
+        x = _sh(x, 0, sa)
+        by_b[sb] = by_b[sb] + x if sb in by_b else x
+    out = None
+    for sb in sorted(by_b):
+        x = _sh(by_b[sb], 1, sb)
+        out = x if out is None else out + x
     return out
+
+
+def _plane_fields(ua, ub, pairs: tuple, scales, summed: bool):
+    """Clover field strengths of the terms in one plane: scale_i P_ah(Q^{m x n} + Q^{n x m}) (a square: Q once),
+    Q^{p x q} the sum of the four p x q leaves of `_leaves`.
+
+    With scale_i = c_i / (8 m n a_mu a_nu) (a square: c_i / (4 m^2 a_mu a_nu)) this is c_i F^{(m, n)}, the
+    clover of the m x n loops divided by its area (both orientations averaged), = c_i F + O(a^2) (the
+    clover of Bilson-Thompson, Leinweber, Williams, Ann. Phys. 304 (2003) 1, from memory).  summed:
+    (1, La, Lb, B, N, N) the sum over the terms (P_ah is real-linear: one projection of the weighted
+    sum); else (len(pairs), La, Lb, B, N, N).
+    """
+    da, db = _plane_longs(ua, ub, max(max(pr) for pr in pairs))
+    out = []
+    acc: dict = {}
+    for i, (m, n) in enumerate(pairs):
+        for p, q in ((m, n), (n, m)) if m != n else ((m, n),):
+            for key, leaf in _leaves(da, db, p, q):
+                leaf = scales[i] * leaf
+                acc[key] = acc[key] + leaf if key in acc else leaf
+        if not summed:
+            out.append(_ah(_moved_sum(acc)))
+            acc = {}
+    return _ah(_moved_sum(acc))[None] if summed else jnp.stack(out)
+
+
+def _ah(m):
+    """P_ah(M) = (M - M^dag)/2 - i Im(tr M)/N (the traceless anti-Hermitian part, elementwise); (..., N, N)."""
+    n = m.shape[-1]
+    im_tr = jnp.imag(jnp.sum(jnp.diagonal(m, axis1=-2, axis2=-1), axis=-1))
+    return 0.5 * (m - jnp.conj(jnp.swapaxes(m, -1, -2))) - (1j * im_tr / n)[..., None, None] * jnp.eye(n)
+
+
+@functools.partial(jax.jit, static_argnames=("loops",))
+def plane_traces(x, loops: tuple):
+    """`_plane_traces` of the blocks of a plane chunk, summed over the blocks; (len(loops), La, Lb).
+
+    x: (nb, La, Lb, b, 2, N, N) complex128, blocks of b transverse sites taken one after the other
+    (`jax.lax.map`: each block's products stay in the cache, about 3x faster than whole arrays; measured
+    in the benchmarks).  One compiled kernel per shape and loop set."""
+    return jnp.sum(jax.lax.map(lambda y: _plane_traces(y[..., 0, :, :], y[..., 1, :, :], loops), x), axis=0)
+
+
+@functools.partial(jax.jit, static_argnames=("pairs", "summed"))
+def plane_fields(x, scales, pairs: tuple, summed: bool):
+    """`_plane_fields` of the blocks (as `plane_traces`) of a plane chunk; (nb, 1 or len(pairs), La, Lb, b, N, N).
+
+    x: (nb, La, Lb, b, 2, N, N) complex128; scales: (len(pairs),) float."""
+    return jax.lax.map(lambda y: _plane_fields(y[..., 0, :, :], y[..., 1, :, :], pairs, scales, summed), x)
+
+
+@jax.jit
+def charge_terms(f1, f2, weights):
+    """sum_i w_i Re tr(f1_i f2_i) per site; f1, f2: (nb, k, ..., N, N), weights: (k,) -> (nb, ...)."""
+    return jnp.tensordot(_retr(f1, f2), weights, axes=((1,), (0,)))
 
 
 def _charge_of(f):
@@ -118,74 +180,32 @@ def _charge_of(f):
     return 8.0 * CHARGE_DENSITY_FACTOR * (_retr(f[0], f[5]) - _retr(f[1], f[4]) + _retr(f[2], f[3]))
 
 
-@functools.partial(jax.jit, static_argnames=("m", "n", "margin"))
-def _pair_fields_jit(dm, dn, area, m: int, n: int, margin: int):
-    """`_pair_fields` stacked, (6, L1, L2, L3, T, N, N), with ``margin`` time slices dropped at both ends."""
-    f = jnp.stack(_pair_fields({m: dm, n: dn}, m, n, area))
-    return f[:, :, :, :, margin : f.shape[4] - margin] if margin else f
+def to_plane(u, mu: int, nu: int):
+    """Links (L1..L4, 4, N, N) (traceable) in the layout of plane (mu, nu): (L_mu, L_nu, B, 2, N, N), B the
+    sites of the other two axes in their order."""
+    rest = [r for r in range(4) if r not in (mu, nu)]
+    x = jnp.stack([u[..., mu, :, :], u[..., nu, :, :]], axis=4)
+    x = jnp.transpose(x, (mu, nu, *rest, 4, 5, 6))
+    return x.reshape(x.shape[0], x.shape[1], -1, *x.shape[4:])
 
 
-@jax.jit
-def _charge_jit(f):
-    return _charge_of([f[p] for p in range(6)])
-
-
-def field_and_charge(u, pairs: tuple, coeffs, area, combine: str, margin: int = 0):
-    """The improved field strength F = sum_i c_i F^{(m_i, n_i)} and the charge density q per site.
-
-    combine 'field': q from F (Bilson-Thompson, Leinweber, Williams 2003, from memory); 'density':
-    q = sum_i c_i q[F^{(m_i, n_i)}] (de Forcrand, Garcia Perez, Stamatescu, Nucl. Phys. B 499 (1997) 409,
-    from memory).  coeffs: (len(pairs),) float; area: (6,) float (a_mu a_nu per plane).  One compiled
-    kernel per loop pair.  Returns (F: (6, L1, L2, L3, T, N, N), q: (L1, L2, L3, T)), T = L4 - 2 margin.
-    """
-    d = _longs_jit(u, _extents(pairs))
-    total = None
-    q = None
-    for i, (m, n) in enumerate(pairs):
-        f = _pair_fields_jit(d[m], d[n], area, m, n, margin)
-        if combine == "density":
-            qi = coeffs[i] * _charge_jit(f)
-            q = qi if q is None else q + qi
-        total = coeffs[i] * f if total is None else total + coeffs[i] * f
-    if combine == "field":
-        q = _charge_jit(total)
-    return total, q
+def loop_sums(u, pairs: tuple):
+    """sum_x sum_{mu != nu} (N - Re tr W^{m x n}_{mu nu}(x)) per term (m, n) of ``pairs`` (extent m along mu);
+    (len(pairs),).  Traceable (the flows' measurement calls it inside their jit); periodic lattices."""
+    loops = plane_loops(pairs)
+    tot = jnp.zeros(len(loops))
+    for mu, nu in PLANES:
+        x = to_plane(u, mu, nu)
+        tot = tot + jnp.sum(_plane_traces(x[..., 0, :, :], x[..., 1, :, :], loops), axis=(1, 2))
+    return jnp.stack([tot[loops.index((m, n))] + tot[loops.index((n, m))] for m, n in pairs])
 
 
 # -- staples (the force and cooling of an action made of rectangles) ------------------------------------------
 
 
-def _long_staple(d, mu, e, f):
-    """Sum over nu != mu of the staples of the long link D^e_mu(x) in its e x f loops (f along nu), up and
-    down, so that those loops' Re tr = Re tr(D^e_mu(x) Sigma); list of 3 per nu (L1..L4, N, N)."""
-    out = []
-    for nu in range(4):
-        if nu == mu:
-            continue
-        up = _mm(_sh(d[f][nu], mu, e), _mm(_dag(_sh(d[e][mu], nu, f)), _dag(d[f][nu])))
-        dn_nu = _sh(d[f][nu], nu, -f)  # D_nu(x - f nu)
-        down = _mm(_dag(_sh(dn_nu, mu, e)), _mm(_dag(_sh(d[e][mu], nu, -f)), dn_nu))
-        out.append(up + down)
-    return out[0] + out[1] + out[2]
-
-
-def _link_staple(u, d, mu, e, f):
-    """Sigma of U_mu(x) in every e x f loop (e along mu, f along nu != mu): the link sits at position k of the
-    long link D^e_mu(x - k mu) = A_k U_mu(x) B_k and Re tr(D Sigma_D) = Re tr(U B_k Sigma_D A_k)."""
-    sd = _long_staple(d, mu, e, f)
-    one = u[..., mu, :, :]
-    n = one.shape[-1]
-    eye = jnp.broadcast_to(jnp.eye(n, dtype=one.dtype), one.shape)
-    total = 0.0
-    for k in range(e):
-        a = eye
-        for j in range(k, 0, -1):
-            a = _mm(a, _sh(one, mu, -j))
-        b = eye
-        for j in range(1, e - k):
-            b = _mm(b, _sh(one, mu, j))
-        total = total + _mm(_mm(b, _sh(sd, mu, -k)), a)
-    return total
+def _longs(u, extents):
+    """{e: [D^e_mu for mu in 0..3]}; each (L1..L4, N, N)."""
+    return {e: [_long(u, mu, e) for mu in range(4)] for e in extents}
 
 
 def staple(u, mu: int, pairs: tuple, weights):

@@ -64,7 +64,7 @@ from .loops import (  # re-exported: the measurements the flows and cooling driv
 )
 from .observables import PLANES  # noqa: F401  (kept importable here)
 from .operators import get_operator
-from .rectangles import colour_period, colours, loop_traces, staple
+from .rectangles import colour_period, colours, loop_sums, staple
 from .stability import (  # noqa: F401
     ACTION_RISE_TOL,
     RK3_STABILITY,
@@ -162,8 +162,7 @@ def _rk3_step_op(u, h, weights, pairs):
 def _measure_op(u, weights, pairs):
     """`_measure` with the driving action of a loop operator: sum_i w_i sum_{x, mu != nu} (N - Re tr W)."""
     row = _measure(u, 1.0, 0.0, False)
-    tr = loop_traces(u, pairs)
-    s = sum(weights[i] * jnp.sum(tr[i]) for i in range(len(pairs)))
+    s = jnp.sum(weights * loop_sums(u, pairs))
     return row.at[1].set(s)
 
 

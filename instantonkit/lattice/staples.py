@@ -28,7 +28,7 @@ from __future__ import annotations
 import jax.numpy as jnp
 import numpy as np
 
-from .loops import _dag, _long, _mm, _sh
+from .loops import _long, _mm, _plane_staples, _sh, _spread
 
 
 def orientations(pairs: tuple) -> tuple:
@@ -38,32 +38,12 @@ def orientations(pairs: tuple) -> tuple:
 
 
 def _long_staple(d, mu, e, f, nu, phase):
-    """Staples of the long link D^e_mu(x) in its two e x f loops of plane (mu, nu) (up and down), phased;
-    phase: (L1..L4) complex Z^{e x f}_{mu nu} or None (all 1)."""
-    up = _mm(_sh(d[f][nu], mu, e), _mm(_dag(_sh(d[e][mu], nu, f)), _dag(d[f][nu])))
-    dn_nu = _sh(d[f][nu], nu, -f)  # D_nu(x - f nu)
-    down = _mm(_dag(_sh(dn_nu, mu, e)), _mm(_dag(_sh(d[e][mu], nu, -f)), dn_nu))
+    """Staples of the long link D^e_mu(x) in its two e x f loops of plane (mu, nu) (up and down,
+    `instantonkit.lattice.loops._plane_staples`), phased; phase: (L1..L4) complex Z^{e x f}_{mu nu} or None (all 1)."""
+    up, down = _plane_staples(d, mu, e, f, nu)
     if phase is None:
         return up + down
     return phase[..., None, None] * up + jnp.conj(_sh(phase, nu, -f))[..., None, None] * down
-
-
-def _spread(u, mu, e, sd):
-    """From the staple sum Sigma_D of the long links D^e_mu to the staple of the single link U_mu(x): the link sits
-    at position k of D^e_mu(x - k mu) = A_k U_mu(x) B_k and Re tr(D Sigma_D) = Re tr(U B_k Sigma_D A_k)."""
-    one = u[..., mu, :, :]
-    n = one.shape[-1]
-    eye = jnp.broadcast_to(jnp.eye(n, dtype=one.dtype), one.shape)
-    total = 0.0
-    for k in range(e):
-        a = eye
-        for j in range(k, 0, -1):
-            a = _mm(a, _sh(one, mu, -j))
-        b = eye
-        for j in range(1, e - k):
-            b = _mm(b, _sh(one, mu, j))
-        total = total + _mm(_mm(b, _sh(sd, mu, -k)), a)
-    return total
 
 
 def weighted_staple(u, mu: int, pairs: tuple, omega, phases=None):
