@@ -36,7 +36,9 @@ for the c_m (C^2 each) given u:
 
     Y_m(0) c_m - exp(i x4 L_{m-1}) Y_{m-1}(L_{m-1}) c_{m-1} = i w_m u_m     (m cyclic),
 
-solved for u = e_1, ..., e_N; this gives N zero modes U_0 = (1_N; v), a frame of the zero-mode space
+solved for u = e_1, ..., e_N (Gaussian elimination with partial pivoting written out in jax operations,
+like the Cholesky factor below: LAPACK calls inside the vmapped lattice kernels were seen to hang
+intermittently on the shared machine); this gives N zero modes U_0 = (1_N; v), a frame of the zero-mode space
 wherever no zero mode has u = 0 (where that happens, generically on a set of measure zero, the frame
 and hence the gauge below is singular; the field strength is not).
 
@@ -148,6 +150,48 @@ def nahm_jump_vectors(positions):
     return w / jnp.linalg.norm(w, axis=-1, keepdims=True) * jnp.sqrt(2.0 * d)[:, None]
 
 
+def _solve(mat, rhs):
+    """mat^-1 rhs for a small (n, n) complex matrix, Gaussian elimination with partial pivoting, unrolled.
+
+    Plain jax operations (no LAPACK call): vmapped inside the lattice kernels it stays within XLA.
+    """
+    n = mat.shape[0]
+    a = jnp.concatenate([mat, rhs], axis=1)
+    rows = jnp.arange(n)
+    for k in range(n):
+        piv = jnp.argmax(jnp.where(rows >= k, jnp.abs(a[:, k]), -1.0))
+        rk, rp = a[k], a[piv]
+        a = a.at[piv].set(rk).at[k].set(rp)
+        factor = jnp.where(rows > k, a[:, k] / a[k, k], 0.0)
+        a = a - factor[:, None] * a[k][None, :]
+    x = [None] * n
+    for k in range(n - 1, -1, -1):
+        acc = a[k, n:]
+        for j in range(k + 1, n):
+            acc = acc - a[k, j] * x[j]
+        x[k] = acc / a[k, k]
+    return jnp.stack(x)
+
+
+def _cholesky_inverse(gram):
+    """L^-1 for the Cholesky factor L (lower, positive diagonal) of a small Hermitian positive (n, n) matrix; unrolled."""
+    n = gram.shape[0]
+    low = [[jnp.zeros((), dtype=gram.dtype) for _ in range(n)] for _ in range(n)]
+    for j in range(n):
+        d = gram[j, j] - sum((low[j][k] * jnp.conj(low[j][k]) for k in range(j)), jnp.zeros((), gram.dtype))
+        low[j][j] = jnp.sqrt(jnp.real(d)).astype(gram.dtype)
+        for i in range(j + 1, n):
+            off = gram[i, j] - sum((low[i][k] * jnp.conj(low[j][k]) for k in range(j)), jnp.zeros((), gram.dtype))
+            low[i][j] = off / low[j][j]
+    inv = [[jnp.zeros((), dtype=gram.dtype) for _ in range(n)] for _ in range(n)]
+    for j in range(n):
+        inv[j][j] = 1.0 / low[j][j]
+        for i in range(j + 1, n):
+            acc = sum((low[i][k] * inv[k][j] for k in range(j, i)), jnp.zeros((), gram.dtype))
+            inv[i][j] = -acc / low[i][i]
+    return jnp.stack([jnp.stack(row) for row in inv])
+
+
 def _coefficients(x, positions, lengths, w):
     """c (N, 2, N): the interval coefficients of the N zero modes (column k: u = e_k) at x (4,).
 
@@ -168,7 +212,7 @@ def _coefficients(x, positions, lengths, w):
     prev = (idx - 1) % n
     mat = mat.at[idx, :, prev, :].add(-phase[prev][:, None, None] * end[prev])
     rhs = jnp.zeros((n, 2, n), dtype=jnp.complex128).at[idx, :, idx].set(1j * w)
-    sol = jnp.linalg.solve(mat.reshape(2 * n, 2 * n), rhs.reshape(2 * n, n))
+    sol = _solve(mat.reshape(2 * n, 2 * n), rhs.reshape(2 * n, n))
     return sol.reshape(n, 2, n)
 
 
@@ -201,8 +245,7 @@ def _adhm_gauge_potential(x, positions, lengths, w):
     cc = jnp.conj(c)
     gram = jnp.eye(n, dtype=jnp.complex128) + jnp.einsum("m,mak,mal->kl", gram_w, cc, c)
     k = jnp.einsum("m,mak,umal->ukl", gram_w, cc, dc) + jnp.einsum("mak,umab,mbl->ukl", cc, dmat, c)
-    chol = jnp.linalg.cholesky(gram)
-    inv = jax.scipy.linalg.solve_triangular(chol, jnp.eye(n, dtype=jnp.complex128), lower=True)
+    inv = _cholesky_inverse(gram)
     kt = inv @ k @ jnp.conj(inv).T
     s = kt + jnp.conj(jnp.swapaxes(kt, -1, -2))
     diag = jnp.diagonal(s, axis1=-2, axis2=-1)
