@@ -10,7 +10,9 @@ Rows (see :func:`run`), each with its ratio to a goal or a reference measured in
 * first call (trace + compile + run) of the closed-form density;
 * the charge per period, ``total_charge(field, rtol=0, atol=1e-11)``: seconds, compiled and with the
   first call's compilation, and |Q - 1|, ratio to the goal of 10 s;
-* the SU(3) caloron's closed-form density (``SUNCaloronField``), points per second.
+* the SU(3) caloron's closed-form density (``SUNCaloronField``), points per second;
+* the SU(3) caloron's potential (the Nahm transform, ``fields.potential``), points per second, and its
+  first call (trace + compile + run).
 
 Usage: ``python benchmarks/bench_calorons.py [--quick]``; 10^6 points by default, 10^5 with ``--quick``.
 The machine is often shared: compare the ratios, not the absolute figures.
@@ -35,6 +37,7 @@ from benchmarks.run import best_time  # noqa: E402
 
 FULL_POINTS, QUICK_POINTS = 1_000_000, 100_000
 AUTODIFF_POINTS_FULL, AUTODIFF_POINTS_QUICK = 20_000, 4_000
+POTENTIAL_POINTS_FULL, POTENTIAL_POINTS_QUICK = 100_000, 20_000
 DENSITY_GOAL = 1e6  # points/s
 CHARGE_GOAL_S = 10.0
 
@@ -109,6 +112,22 @@ def run(quick: bool = False, points: int | None = None) -> list[dict]:
         {"figure": "SU(3) caloron s, closed form", "value": n / t3, "unit": "points/s", "ratio": (n / t3) / rate}
     )
     rows[-1]["reference"] = "ratio: to the SU(2) closed form"
+    m3 = min(n, POTENTIAL_POINTS_QUICK if quick else POTENTIAL_POINTS_FULL)
+    t0 = time.perf_counter()
+    fields.potential(su3, pts[:64])
+    first3 = time.perf_counter() - t0
+    fields.potential(su3, pts[:m3])
+    tp = best_time(lambda: fields.potential(su3, pts[:m3]), 1)
+    rows.append(
+        {
+            "figure": "SU(3) caloron potential (Nahm transform)",
+            "value": m3 / tp,
+            "unit": "points/s",
+            "ratio": (m3 / tp) / (n / t3),
+            "reference": f"ratio: to the SU(3) closed-form density; {m3:,} points",
+        }
+    )
+    rows.append({"figure": "SU(3) caloron potential, first call", "value": first3, "unit": "s", "ratio": None})
     return rows
 
 

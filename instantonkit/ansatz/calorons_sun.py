@@ -1,11 +1,12 @@
-"""SU(N) calorons of charge 1 (Kraan-van Baal): N constituent monopoles, densities in closed form.
+"""SU(N) calorons of charge 1 (Kraan-van Baal): N constituent monopoles, densities in closed form, the potential.
 
 Holonomy mu_1 <= ... <= mu_N with sum mu_m = 0 (the Polyakov loop at spatial infinity is conjugate to
 diag(exp(2 pi i mu_m))), constituents at chosen positions y_m with action fractions
 nu_m = mu_{m+1} - mu_m (mu_{N+1} = 1 + mu_1); the action density is s = -1/2 box box log psi with
 psi = 1/2 tr(A_N ... A_1) - cos(2 pi t / beta) (Kraan, van Baal, Phys. Lett. B 435 (1998) 389, from
-memory; closed form in `instantonkit.ansatz.caloron_psi`).  The potential (by the Nahm transform)
-is not built here: the field offers its densities, not ``potential``.
+memory; closed form in `instantonkit.ansatz.caloron_psi`).  The potential, periodic in x4 with
+A_4 -> 2 pi i diag(mu) / beta far from the constituents, is the Nahm transform of piecewise-constant
+Nahm data (`instantonkit.ansatz.caloron_nahm`, where the construction is derived).
 """
 
 from __future__ import annotations
@@ -19,6 +20,7 @@ import numpy as np
 from ..core import _validate
 from ..core._pytree import PytreeFields
 from ..core.conventions import PI
+from .caloron_nahm import caloron_potential_point
 from .caloron_psi import caloron_action_density
 from .scalar import _positive_scalar
 
@@ -72,12 +74,14 @@ def default_positions(mu: np.ndarray, size: float, period: float, center, axis) 
 @jax.tree_util.register_pytree_node_class
 @dataclasses.dataclass(frozen=True)
 class SUNCaloronField(PytreeFields):
-    """Kraan-van Baal SU(N) caloron of charge 1 (densities only): period beta, holonomy mu, N constituents.
+    """Kraan-van Baal SU(N) caloron of charge 1: period beta, holonomy mu, N constituents.
 
     s = -1/2 box box log psi, psi = 1/2 tr(A_N ... A_1) - cos(2 pi (x4 - t0) / beta) with
     A_m = (1/r_m) [[r_m, |y_{m+1} - y_m|], [0, r_{m+1}]] [[cosh, sinh], [sinh, cosh]](2 pi nu_m r_m / beta),
     r_m = |x_vec - y_m|, y_{N+1} = y_1 (Kraan, van Baal, Phys. Lett. B 435 (1998) 389, from memory);
-    self-dual, so q = s / (8 pi^2); Q = +1 per period.  N = 2 is the SU(2) caloron of
+    self-dual, so q = s / (8 pi^2); Q = +1 per period.  The potential by the Nahm transform
+    (`instantonkit.ansatz.caloron_nahm`): periodic in x4, A_4 -> 2 pi i diag(mu) / beta far away, its
+    autodiff s equal to the closed form (tests/test_caloron_nahm.py).  N = 2 is the SU(2) caloron of
     `instantonkit.ansatz.calorons.HolonomyCaloronField` (tests/test_caloron_density.py).
     period: beta > 0; holonomy: mu (N,) ascending, sum 0; positions: (N, 3) distinct points y_m;
     time: t0, the x4 of the caloron's centre.
@@ -123,11 +127,13 @@ class SUNCaloronField(PytreeFields):
         return jnp.append(jnp.diff(mu), 1.0 + mu[0] - mu[-1])
 
     def potential(self, x):
-        """Not available: the SU(N) potential needs the Nahm transform, which this field does not build."""
-        raise NotImplementedError(
-            f"the potential of an SU({self.rank}) caloron is not implemented (it needs the Nahm transform of "
-            "piecewise-constant Nahm data); its action and charge densities are closed forms "
-            "(fields.evaluate(field, points, 'action_density'))"
+        """A_mu at one point (4,) -> (4, N, N) complex128: traceless, anti-Hermitian, periodic in x4.
+
+        The Nahm transform of piecewise-constant Nahm data (`instantonkit.ansatz.caloron_nahm`); in its
+        gauge A(x + beta e_4) = A(x) and A_4 -> 2 pi i diag(mu) / beta at spatial infinity.
+        """
+        return caloron_potential_point(
+            x, jnp.asarray(self.positions), jnp.asarray(self.holonomy), jnp.asarray(self.period), jnp.asarray(self.time)
         )
 
     def density_batch(self, points, quantity: str):

@@ -425,7 +425,8 @@ def caloron(
     SU(N): holonomy = (mu_1, ..., mu_N), ascending, summing to 0 (P at infinity ~ diag exp(2 pi i mu_m));
     N constituents of fractions nu_m = mu_{m+1} - mu_m (nu_N = 1 + mu_1 - mu_N) at ``positions``, or on
     ``axis`` at neighbour distance pi rho^2 / beta with their nu-weighted mean at ``center``.  N = 2 gives
-    the SU(2) field of omega = mu_2; N >= 3 a `SUNCaloronField` (closed-form densities, no potential).
+    the SU(2) field of omega = mu_2; N >= 3 a `SUNCaloronField` (closed-form densities; the potential by
+    the Nahm transform, `instantonkit.ansatz.caloron_nahm`).
 
     Args:
       size: rho > 0, a real number (None when ``positions`` are given).

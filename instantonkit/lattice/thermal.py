@@ -107,7 +107,8 @@ def asymptotic_potential(field) -> np.ndarray | None:
 
     Read from the field's ``record()`` (data, not its class): a Kraan-van Baal caloron (kind
     'holonomy_caloron', its translations and its windows) has B_4 = (2 pi omega / beta) u_3 and
-    B_i = 0 (module docstring); every other field (Harrington-Shepard calorons, fields on R^4, fields
+    B_i = 0 (module docstring), an SU(N) caloron (kind 'sun_caloron') B_4 = 2 pi i diag(mu) / beta;
+    every other field (Harrington-Shepard calorons, fields on R^4, fields
     without a record) None, and a start windows it to zero as before.
     """
     if hook(field, "period") is None:
@@ -118,10 +119,15 @@ def asymptotic_potential(field) -> np.ndarray | None:
     rec = rec_hook()
     while isinstance(rec, dict) and rec.get("kind") == "translated":  # a shift leaves the constant alone
         rec = rec.get("field")
-    if not isinstance(rec, dict) or rec.get("kind") != "holonomy_caloron":
+    if not isinstance(rec, dict) or rec.get("kind") not in ("holonomy_caloron", "sun_caloron"):
         return None
     if isinstance(rec.get("window"), dict) and "background" in rec["window"]:
         return None  # already windowed about its limit: nothing is left at the faces
+    if rec["kind"] == "sun_caloron":  # B_4 = 2 pi i diag(mu) / beta (instantonkit.ansatz.caloron_nahm)
+        mu = np.asarray(rec["holonomy"], dtype=np.float64)
+        sun = np.zeros((4, mu.shape[0], mu.shape[0]), dtype=np.complex128)
+        sun[3] = np.diag(2j * np.pi * mu / float(rec["period"]))
+        return sun
     omega, beta = float(rec["holonomy"]), float(rec["period"])
     if omega == 0.0:
         return None
