@@ -402,6 +402,30 @@ def test_two_closures_of_the_same_code_and_values_share_one_compile():
     np.testing.assert_allclose(other, ref, rtol=1e-10)
 
 
+_REBOUND_SIZE = 0.7
+
+
+def _reads_a_module_global(x):
+    return _charge_one_potential(x, {"rho": _REBOUND_SIZE, "centre": jnp.asarray(CENTER)})
+
+
+def test_a_rebound_module_global_read_by_the_potential_compiles_again():
+    # jax bakes the globals a traced function reads into its kernel: the same function object after
+    # ``_REBOUND_SIZE`` is rebound must give the new field, not the cached kernel's old one (a notebook
+    # cell run again with a new value).  Belavin, Polyakov, Schwartz, Tyupkin, Phys. Lett. B 59 (1975) 85:
+    # s = 48 rho^4/(|x-a|^2+rho^2)^4.
+    global _REBOUND_SIZE
+    pts = CENTER + np.random.default_rng(13).normal(size=(8, 4))
+    r2 = np.sum((pts - CENTER) ** 2, axis=-1)
+    try:
+        for rho in (0.7, 1.3, 0.7):
+            _REBOUND_SIZE = rho
+            got = ik.action_density(_reads_a_module_global, pts)
+            np.testing.assert_allclose(got, 48 * rho**4 / (r2 + rho**2) ** 4, rtol=1e-10)
+    finally:
+        _REBOUND_SIZE = 0.7
+
+
 def test_lean_and_fully_optimised_autodiff_agree_with_the_closed_form():
     from instantonkit.core import _config
 

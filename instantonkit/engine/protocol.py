@@ -198,6 +198,45 @@ def _same_function(f, g, depth: int = 0) -> bool:
     )
 
 
+def _code_names(code: types.CodeType) -> set[str]:
+    """The global (and attribute) names a code object and the code objects nested in it refer to."""
+    names = set(code.co_names)
+    for const in code.co_consts:
+        if isinstance(const, types.CodeType):
+            names |= _code_names(const)
+    return names
+
+
+def _referenced_globals(fn, depth: int = 0) -> tuple:
+    """((name, value), ...) of the module globals ``fn`` reads, as they are bound now.
+
+    jax bakes what a traced function reads from its module into the compiled kernel, so a key by
+    code alone would reuse the kernel of ``lambda x: o.potential(x)`` after ``o`` is rebound (a
+    silently wrong number).  Functions of the same module that ``fn`` calls (or captures) are followed
+    a few levels deep, so a rebound global read by a helper changes the key too.
+    """
+    while isinstance(fn, functools.partial):
+        fn = fn.func
+    if not isinstance(fn, types.FunctionType) or depth > 3:
+        return ()
+    glob = fn.__globals__
+    out: list[tuple] = []
+    for name in sorted(_code_names(fn.__code__)):
+        if name in glob:
+            value = glob[name]
+            out.append((name, value))
+            if isinstance(value, types.FunctionType) and value is not fn and value.__module__ == fn.__module__:
+                out.append((name + "()", _referenced_globals(value, depth + 1)))
+    for i, cell in enumerate(fn.__closure__ or ()):
+        try:
+            value = cell.cell_contents
+        except ValueError:  # an empty cell
+            continue
+        if isinstance(value, types.FunctionType) and value.__module__ == fn.__module__:
+            out.append((f"cell {i}()", _referenced_globals(value, depth + 1)))
+    return tuple(out)
+
+
 class _CodeKey:
     """Static pytree data for a user callable: equal for two closures of the same code and captured values.
 
@@ -206,17 +245,21 @@ class _CodeKey:
     function) compiled anew.  Two callables compare equal here when they surely compute the same:
     the same object, or plain functions with the same code, the same module globals and captured
     values (cells, defaults) that are identical or equal numbers, strings, arrays or such functions
-    (``functools.partial`` likewise).  A closure over a *different* value is a different key and
+    (``functools.partial`` likewise), and in both cases the module globals the code reads bound to the
+    same values (`_referenced_globals`: rebinding ``o`` in ``lambda x: o.potential(x)`` compiles again).  A closure over a *different* value is a different key and
     compiles again: put such parameters in `ParametrisedField` instead.
     """
 
-    __slots__ = ("fn",)
+    __slots__ = ("fn", "globals")
 
     def __init__(self, fn):
         self.fn = fn
+        self.globals = _referenced_globals(fn)
 
     def __eq__(self, other):
-        return isinstance(other, _CodeKey) and _same_value(self.fn, other.fn)
+        return (
+            isinstance(other, _CodeKey) and _same_value(self.fn, other.fn) and _same_value(self.globals, other.globals)
+        )
 
     def __hash__(self):
         fn = self.fn
