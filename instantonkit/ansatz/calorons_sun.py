@@ -22,7 +22,7 @@ from ..core._pytree import PytreeFields
 from ..core.conventions import PI
 from .caloron_nahm import caloron_potential_point
 from .caloron_psi import caloron_action_density
-from .scalar import _positive_scalar
+from .scalar import positive_scalar
 
 #: |sum mu| accepted as zero, and the tolerance of the ordering mu_m <= mu_{m+1}.
 _MU_TOL = 1e-12
@@ -95,7 +95,7 @@ class SUNCaloronField(PytreeFields):
     def __post_init__(self):
         if _validate.is_tracer(self.period, self.holonomy, self.positions, self.time):
             return
-        object.__setattr__(self, "period", _positive_scalar("period", self.period))
+        object.__setattr__(self, "period", positive_scalar("period", self.period))
         mu = holonomy_eigenphases(self.holonomy)
         object.__setattr__(self, "holonomy", mu)
         n = mu.shape[0]

@@ -36,9 +36,6 @@ def positive_scalar(name: str, value) -> np.ndarray:
     return np.asarray(_validate.positive_float(name, _validate.real_array(name, value, ())))
 
 
-_positive_scalar = positive_scalar  # the old spelling, until calorons_sun (being changed elsewhere) imports the new one
-
-
 # -- the scalar-ansatz field (shared closed forms) ------------------------------------------------
 
 
