@@ -60,7 +60,7 @@ from ..core._links import check_links as _check_links
 from ..core.conventions import CHARGE_DENSITY_FACTOR
 from . import boundaries as _bd
 from .observables import PLANES
-from .rectangles import charge_terms, plane_fields, plane_loops, plane_traces
+from .rectangles import charge_terms_packed, pack_metric, plane_fields, plane_fields_packed, plane_loops, plane_traces
 
 __all__ = [
     "LoopOperator",
@@ -411,16 +411,17 @@ def operator_action(links, operator="wilson", *, spacing=1.0, boundary="periodic
     return total
 
 
-def _plane_field_chunks(u, op, a, mu: int, nu: int, summed: bool):
+def _plane_field_chunks(u, op, a, mu: int, nu: int, summed: bool, packed: bool = False):
     """Yield (sel, F): the clover field strengths of the operator's terms in plane (mu, nu) on each block
     of `_plane_chunks` (jax, (1 or len(terms), L_mu, L_nu, B, N, N)): their c_i-weighted sum (summed) or
-    F^{(m_i, n_i)} one by one."""
+    F^{(m_i, n_i)} one by one; packed: each F as N^2 reals (`rectangles.plane_fields_packed`)."""
+    kernel = plane_fields_packed if packed else plane_fields
     scales = jnp.asarray(
         [(float(c) if summed else 1.0) / ((8.0 if m != n else 4.0) * m * n * a[mu] * a[nu]) for m, n, c in op.terms]
     )
     ahead = None  # one chunk ahead: the next chunk is gathered and dispatched while the kernel runs
     for sel, b, x in _plane_chunks(u, mu, nu):
-        item = (sel, b, plane_fields(jnp.asarray(x), scales, op.pairs, summed))
+        item = (sel, b, kernel(jnp.asarray(x), scales, op.pairs, summed))
         if ahead is not None:
             yield ahead
         ahead = item
@@ -437,23 +438,26 @@ def _charge_density(u, op, a):
 
     q = 8 c sum eps tr F_{mu nu} F_{rho sigma} over the three complementary plane pairs (``combine='field'``),
     or sum_i c_i of that for each F^{(m_i, n_i)} (``'density'``); the first plane's field of a pair is kept
-    whole, the second's is taken block by block."""
+    whole, the second's is taken block by block.  The fields travel packed as N^2 reals (half the bytes of
+    the complex matrices; `rectangles.plane_fields_packed`)."""
     shape = u.shape[:4]
+    n = u.shape[-1]
     summed = op.combine == "field"
     k = 1 if summed else len(op.terms)
     coeffs = np.ones(1) if summed else op.coefficients
-    f1 = np.empty((k,) + tuple(shape) + u.shape[-2:], dtype=np.complex128)
+    f1 = np.empty((k,) + tuple(shape) + (n * n,), dtype=np.float64)
+    metric = jnp.asarray(pack_metric(n))
     q = np.zeros(shape)
     for p1, p2, sign in _COMPLEMENTS:
         perm1, perm2 = _plane_perm(*p1), _plane_perm(*p2)
-        for sel, b, f in _plane_field_chunks(u, op, a, *p1, summed):
+        for sel, b, f in _plane_field_chunks(u, op, a, *p1, summed, packed=True):
             dest = _blocks(f1, sel, perm1, b, lead=1)
             dest[...] = np.asarray(f).reshape(dest.shape)
         w = jnp.asarray(sign * 8.0 * CHARGE_DENSITY_FACTOR * coeffs)
-        for sel, b, f in _plane_field_chunks(u, op, a, *p2, summed):
+        for sel, b, f in _plane_field_chunks(u, op, a, *p2, summed, packed=True):
             g = np.ascontiguousarray(_blocks(f1, sel, perm2, b, lead=1)).reshape(f.shape)
             dest = _blocks(q, sel, perm2, b)
-            dest += np.asarray(charge_terms(f, jnp.asarray(g), w)).reshape(dest.shape)
+            dest += np.asarray(charge_terms_packed(f, jnp.asarray(g), w, metric)).reshape(dest.shape)
     return q
 
 

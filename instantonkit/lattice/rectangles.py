@@ -169,10 +169,33 @@ def plane_fields(x, scales, pairs: tuple, summed: bool):
     return jax.lax.map(lambda y: _plane_fields(y[..., 0, :, :], y[..., 1, :, :], pairs, scales, summed), x)
 
 
+def _pack(f):
+    """An anti-Hermitian (..., N, N) as N^2 reals (..., N^2): Im of the diagonal, then Re and Im of the entries
+    above it (the rest follow from F^dag = -F), so that Re tr(F G) = -sum_k g_k pack(F)_k pack(G)_k with the
+    metric g of `_pack_metric` (Re tr(F G) = -sum_ij Re(F_ij conj(G_ij)) for anti-Hermitian F, G)."""
+    n = f.shape[-1]
+    iu = np.triu_indices(n, 1)
+    up = f[..., iu[0], iu[1]]
+    return jnp.concatenate([jnp.imag(jnp.diagonal(f, axis1=-2, axis2=-1)), jnp.real(up), jnp.imag(up)], axis=-1)
+
+
+def pack_metric(n: int) -> np.ndarray:
+    """The metric g of `_pack` for N x N matrices: 1 on the diagonal entries, 2 on the off-diagonal pairs; (N^2,)."""
+    return np.concatenate([np.ones(n), np.full(n * (n - 1), 2.0)])
+
+
+@functools.partial(jax.jit, static_argnames=("pairs", "summed"))
+def plane_fields_packed(x, scales, pairs: tuple, summed: bool):
+    """`plane_fields` with each field packed by `_pack` (half the bytes of the complex matrices, for the
+    charge density's gather across planes); (nb, 1 or len(pairs), La, Lb, b, N^2) float64."""
+    return jax.lax.map(lambda y: _pack(_plane_fields(y[..., 0, :, :], y[..., 1, :, :], pairs, scales, summed)), x)
+
+
 @jax.jit
-def charge_terms(f1, f2, weights):
-    """sum_i w_i Re tr(f1_i f2_i) per site; f1, f2: (nb, k, ..., N, N), weights: (k,) -> (nb, ...)."""
-    return jnp.tensordot(_retr(f1, f2), weights, axes=((1,), (0,)))
+def charge_terms_packed(f1, f2, weights, metric):
+    """sum_i w_i Re tr(F1_i F2_i) per site from packed fields (`_pack`); f1, f2: (nb, k, ..., N^2),
+    weights: (k,), metric: (N^2,) -> (nb, ...)."""
+    return -jnp.tensordot(jnp.sum(f1 * f2 * metric, axis=-1), weights, axes=((1,), (0,)))
 
 
 def _charge_of(f):
