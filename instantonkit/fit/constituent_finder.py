@@ -49,6 +49,7 @@ from ..engine.fields import as_points
 from ..lattice import boundaries as _bd
 from ..lattice import observables as _obs
 from .peaks import count_peaks, sample_spacing
+from .results import verdict_lines
 
 __all__ = ["ConstituentFit", "find_constituents", "find_lattice_constituents"]
 
@@ -114,14 +115,7 @@ class ConstituentFit:
         for i in range(self.k):
             c = " ".join(f"{v:10.4f}" for v in self.positions[i])
             lines.append(f"{i:>3} {c} {self.fractions[i]:10.4f} {self.heights[i]:10.3e}")
-        lines.append(f"errors: {self.error_budget}")
-        lines.extend(f"note: {n}" for n in self.notes)
-        if self.ambiguous:
-            lines.append("AMBIGUOUS result:")
-            lines.extend(f"  - {r}" for r in self.reasons)
-        else:
-            lines.append("result is unambiguous")
-        return "\n".join(lines)
+        return "\n".join(lines + verdict_lines(self, "result"))
 
     def __str__(self) -> str:
         return self.summary()

@@ -8,6 +8,21 @@ from typing import Any
 import numpy as np
 
 
+def verdict_lines(result, noun: str) -> list[str]:
+    """The closing lines of a finder's summary: its error budget, notes and (un)ambiguous verdict with reasons.
+
+    ``result`` offers ``error_budget``, ``notes``, ``ambiguous`` and ``reasons``; ``noun`` names it ("fit").
+    """
+    lines = [f"errors: {result.error_budget}"]
+    lines.extend(f"note: {n}" for n in result.notes)
+    if result.ambiguous:
+        lines.append(f"AMBIGUOUS {noun}:")
+        lines.extend(f"  - {r}" for r in result.reasons)
+    else:
+        lines.append(f"{noun} is unambiguous")
+    return lines
+
+
 @dataclasses.dataclass(frozen=True)
 class InstantonFit:
     """Result of `find_instantons`.
@@ -81,14 +96,7 @@ class InstantonFit:
         if self.explains_noise is not None:
             verdict = "explains" if self.explains_noise else "does NOT explain"
             lines.append(f"chi2/dof = {self.chi2_dof:.3f}: the model {verdict} the density to its noise level")
-        lines.append(f"errors: {self.error_budget}")
-        lines.extend(f"note: {n}" for n in self.notes)
-        if self.ambiguous:
-            lines.append("AMBIGUOUS fit:")
-            lines.extend(f"  - {r}" for r in self.reasons)
-        else:
-            lines.append("fit is unambiguous")
-        return "\n".join(lines)
+        return "\n".join(lines + verdict_lines(self, "fit"))
 
     def __str__(self) -> str:
         return self.summary()
