@@ -43,7 +43,6 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
-from ..core import _progress
 from ..core import _validate as _v
 from ..core.conventions import CHARGE_DENSITY_FACTOR  # noqa: F401  (kept importable here)
 from . import operators as _operators
@@ -71,6 +70,7 @@ from .stability import (  # noqa: F401
     _check_rise,
     flow_step_bound,
     max_flow_frequency,
+    monitored_run,
     operator_flow_frequency,
 )
 from .staples import action_weights, plane_loop_sums, staple_weights, weighted_staple
@@ -430,22 +430,24 @@ def gradient_flow(
             f"flow_step_bound); found an effective step {h * scale:g} (t = {tt * scale:g}, step = {step!r}); use "
             f"step <= {0.25 * bound * scale:.3g} (0.01-0.05 a^2 is common practice)"
         )
-    times, rows = [0.0], [measure(u)]
-    report = _progress.sink(progress, "flow steps")
-    for i in range(1, n + 1):
-        u = step_fn(u)
-        if report is not None:
-            report(i, n)
-        if i % every == 0 or i == n:
-            times.append(i * h * scale)
-            rows.append(measure(u))
-            _check_rise(
-                float(rows[-2][1]),
-                float(rows[-1][1]),
-                "flow",
-                f"between flow times {times[-2]:g} and {times[-1]:g} (step {i} of {n}, step size {h * scale:g})",
-                f"use a smaller step, e.g. step={0.25 * h * scale:.3g}",
-            )
+    u, times, rows = monitored_run(
+        u,
+        step_fn,
+        measure,
+        n,
+        every=every,
+        progress=progress,
+        label="flow steps",
+        time_of=lambda i: i * h * scale,
+        driving=1,
+        check=lambda prev, cur, t0, t1, i: _check_rise(
+            prev,
+            cur,
+            "flow",
+            f"between flow times {t0:g} and {t1:g} (step {i} of {n}, step size {h * scale:g})",
+            f"use a smaller step, e.g. step={0.25 * h * scale:.3g}",
+        ),
+    )
     return np.asarray(u), _record(times, rows, eps, "flow", op)
 
 
@@ -536,21 +538,23 @@ def cool(
         w = jnp.asarray([float(c) / (m * k) ** 2 for m, k, c in op.terms])
         sweep = lambda v: _cool_sweep_op(v, cols, w, op.pairs, ncol, hits)  # noqa: E731
         measure = lambda v: _measure_op(v, w, op.pairs)  # noqa: E731
-    times, rows = [0], [measure(u)]
-    report = _progress.sink(progress, "cooling sweeps")
-    for i in range(1, sweeps + 1):
-        u = sweep(u)
-        if report is not None:
-            report(i, sweeps)
-        if i % every == 0 or i == sweeps:
-            times.append(i)
-            rows.append(measure(u))
-            _check_rise(
-                float(rows[-2][1]),
-                float(rows[-1][1]),
-                "cooling",
-                f"between sweeps {times[-2]} and {i}",
-                "each cooling update minimises the action with the other links fixed, so the links have left "
-                "SU(N) (check them with instantonkit.check_links)",
-            )
+    u, times, rows = monitored_run(
+        u,
+        sweep,
+        measure,
+        sweeps,
+        every=every,
+        progress=progress,
+        label="cooling sweeps",
+        time_of=lambda i: i,
+        driving=1,
+        check=lambda prev, cur, t0, t1, i: _check_rise(
+            prev,
+            cur,
+            "cooling",
+            f"between sweeps {t0} and {i}",
+            "each cooling update minimises the action with the other links fixed, so the links have left "
+            "SU(N) (check them with instantonkit.check_links)",
+        ),
+    )
     return np.asarray(u), _record(times, rows, eps, "cooling", op)

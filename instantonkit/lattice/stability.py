@@ -11,6 +11,7 @@ import functools
 
 import numpy as np
 
+from ..core import _progress
 from ..core import _validate as _v
 from .loops import improved_coefficients
 from .operators import epsilon_action, get_operator
@@ -112,3 +113,24 @@ def _check_rise(prev, cur, kind: str, where: str, advice: str):
             f"the {kind} is unstable: the action S(eps) rose from {prev:.10g} to {cur:.10g} {where}, where it "
             f"must fall; {advice}"
         )
+
+
+def monitored_run(u, update, measure, n: int, *, every: int, progress, label: str, time_of, driving: int, check):
+    """Apply ``update`` n times, measuring after every ``every``-th and the last, and stop when the action rises.
+
+    The one loop of the flows and the cooling runs (plain and twisted): ``measure(u)`` gives a row whose entry
+    ``driving`` is the action the update lowers; ``time_of(i)`` the record's time after i updates;
+    ``check(prev, cur, t_prev, t_cur, i)`` raises on a rise (`_check_rise` with the run's wording).
+    Returns (u, times, rows).
+    """
+    times, rows = [time_of(0)], [measure(u)]
+    report = _progress.sink(progress, label)
+    for i in range(1, n + 1):
+        u = update(u)
+        if report is not None:
+            report(i, n)
+        if i % every == 0 or i == n:
+            times.append(time_of(i))
+            rows.append(measure(u))
+            check(float(rows[-2][driving]), float(rows[-1][driving]), times[-2], times[-1], i)
+    return u, times, rows

@@ -36,13 +36,12 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
-from ..core import _progress
 from ..core import _validate as _v
 from .loops import _dag, _links, _mm, _sh, _traceless_antihermitian
 from .operators import get_operator
 from .rectangles import colour_period, colours
 from .smoothing import _check_periodic_shape, _colours, _maximise, _rk3
-from .stability import RK3_STABILITY, _check_rise, flow_step_bound, operator_flow_frequency
+from .stability import RK3_STABILITY, _check_rise, flow_step_bound, monitored_run, operator_flow_frequency
 from .staples import phase_fields, staple_weights, weighted_staple
 from .twist import _twisted_planes, twist_corner, twist_tensor, twisted_clover_charge, twisted_wilson_action
 from .twisted_operators import twisted_operator_action
@@ -274,22 +273,24 @@ def twisted_flow(
             f"{what} (h lambda_max <= {RK3_STABILITY:.4f}); found an effective step {h * scale:g} "
             f"(t = {tt * scale:g}, step = {step!r})"
         )
-    times, rows = [0.0], [measure(u)]
-    report = _progress.sink(progress, "twisted flow steps")
-    for i in range(1, n + 1):
-        u = step_fn(u)
-        if report is not None:
-            report(i, n)
-        if i % every == 0 or i == n:
-            times.append(i * h * scale)
-            rows.append(measure(u))
-            _check_rise(
-                rows[-2][2],
-                rows[-1][2],
-                "twisted flow",
-                f"between flow times {times[-2]:g} and {times[-1]:g} (step {i} of {n})",
-                f"use a smaller step, e.g. step={0.25 * h * scale:.3g}",
-            )
+    u, times, rows = monitored_run(
+        u,
+        step_fn,
+        measure,
+        n,
+        every=every,
+        progress=progress,
+        label="twisted flow steps",
+        time_of=lambda i: i * h * scale,
+        driving=2,
+        check=lambda prev, cur, t0, t1, i: _check_rise(
+            prev,
+            cur,
+            "twisted flow",
+            f"between flow times {t0:g} and {t1:g} (step {i} of {n})",
+            f"use a smaller step, e.g. step={0.25 * h * scale:.3g}",
+        ),
+    )
     return np.asarray(u), _record(times, rows, "flow", name)
 
 
@@ -343,16 +344,18 @@ def twisted_cool(
             sw, q = _measure(v, tensor, c)
             return sw, q, sw
 
-    times, rows = [0], [measure(u)]
-    report = _progress.sink(progress, "twisted cooling sweeps")
-    for i in range(1, sweeps + 1):
-        u = sweep(u)
-        if report is not None:
-            report(i, sweeps)
-        if i % every == 0 or i == sweeps:
-            times.append(i)
-            rows.append(measure(u))
-            _check_rise(
-                rows[-2][2], rows[-1][2], "twisted cooling", f"between sweeps {times[-2]} and {i}", "check the links"
-            )
+    u, times, rows = monitored_run(
+        u,
+        sweep,
+        measure,
+        sweeps,
+        every=every,
+        progress=progress,
+        label="twisted cooling sweeps",
+        time_of=lambda i: i,
+        driving=2,
+        check=lambda prev, cur, t0, t1, i: _check_rise(
+            prev, cur, "twisted cooling", f"between sweeps {t0} and {i}", "check the links"
+        ),
+    )
     return np.asarray(u), _record(times, rows, "cooling", name)
