@@ -144,6 +144,28 @@ def test_blocks_of_planes_give_the_whole_lattice_result(rough, monkeypatch):
     assert np.max(np.abs(cut[1] - whole[1])) < 1e-12 * np.max(np.abs(whole[1]))
 
 
+def test_chunks_on_several_threads_give_the_same_bits(rough, monkeypatch):
+    # the chunks of a plane run on WORKERS threads and their results are taken in chunk order, so the thread
+    # count changes no bit of a measurement (common practice: a parallel map must not change the answer)
+    monkeypatch.setattr(ops, "CHUNK_SITES", 1)
+
+    def measure():
+        return (
+            ops.operator_action(rough, "5li"),
+            ops.operator_field_strength(rough, "3loop"),
+            ops.operator_charge_density(rough, "5li"),
+            ops.operator_charge_density(rough, "5loop"),
+        )
+
+    monkeypatch.setattr(ops, "WORKERS", 1)
+    one = measure()
+    monkeypatch.setattr(ops, "WORKERS", 3)
+    three = measure()
+    assert one[0] == three[0]
+    for x, y in zip(one[1:], three[1:], strict=True):
+        assert np.array_equal(x, y)
+
+
 # -- anisotropic spacings --------------------------------------------------------------------------------
 
 

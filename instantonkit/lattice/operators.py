@@ -47,9 +47,12 @@ computes every loop of the operator on a block; memory beyond the links is one p
 
 from __future__ import annotations
 
+import collections
 import dataclasses
 import numbers
+import os
 from collections.abc import Mapping, Sequence
+from concurrent.futures import ThreadPoolExecutor
 from fractions import Fraction
 
 import jax.numpy as jnp
@@ -82,6 +85,10 @@ CHUNK_SITES = 1 << 15
 #: Sites per block inside a chunk (the compiled kernel runs over the blocks one after the other, so the
 #: products of a block stay in the cache).
 BLOCK_SITES = 1 << 8
+#: Threads that run the blocks' compiled kernels side by side (one per core this process may use, at most 8):
+#: a kernel over a chunk runs its blocks one after the other on one core (the blocks are too small for
+#: XLA to split), so the chunks of a plane go to the cores in turn (measured in the benchmarks).
+WORKERS = max(1, min(8, len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1))
 #: The longest loop side a set may use (longer loops are not improvement; they would only cost).
 MAX_EXTENT = 8
 #: Relative tolerance of the sum rule sum c = 1 for float coefficients (exact for rationals).
@@ -400,8 +407,8 @@ def operator_action(links, operator="wilson", *, spacing=1.0, boundary="periodic
     loops = plane_loops(op.pairs)
     total = 0.0
     for mu, nu in PLANES:
-        parts = [plane_traces(jnp.asarray(x), loops) for _, _, x in _plane_chunks(u, mu, nu)]
-        tr = np.sum([np.asarray(t) for t in parts], axis=0)  # (loops, L_mu, L_nu)
+        parts = run_chunks(lambda item: np.asarray(plane_traces(jnp.asarray(item[2]), loops)), _plane_chunks(u, mu, nu))
+        tr = np.sum(parts, axis=0)  # (loops, L_mu, L_nu)
         ia, ib = np.arange(shape[mu])[:, None], np.arange(shape[nu])[None, :]
         for m, n, c in op.terms:
             w = float(c) * vol / (m * n * a[mu] * a[nu]) ** 2
@@ -411,22 +418,39 @@ def operator_action(links, operator="wilson", *, spacing=1.0, boundary="periodic
     return total
 
 
-def _plane_field_chunks(u, op, a, mu: int, nu: int, summed: bool, packed: bool = False):
-    """Yield (sel, F): the clover field strengths of the operator's terms in plane (mu, nu) on each block
-    of `_plane_chunks` (jax, (1 or len(terms), L_mu, L_nu, B, N, N)): their c_i-weighted sum (summed) or
+def run_chunks(fn, chunks) -> list:
+    """[fn(c) for c in chunks], the calls spread over `WORKERS` threads, in order.
+
+    The first call runs alone (it compiles the kernel the others share); then at most 2 `WORKERS` chunks
+    are taken from the iterator ahead of the results, so memory stays a few chunks.  ``fn`` runs a
+    compiled kernel (which releases the interpreter lock) and may write into disjoint parts of an array.
+    """
+    it = iter(chunks)
+    first = next(it, None)
+    if first is None:
+        return []
+    out = [fn(first)]
+    if WORKERS == 1:
+        return out + [fn(c) for c in it]
+    with ThreadPoolExecutor(WORKERS) as pool:
+        pending: collections.deque = collections.deque()
+        for c in it:
+            pending.append(pool.submit(fn, c))
+            if len(pending) >= 2 * WORKERS:
+                out.append(pending.popleft().result())
+        out.extend(p.result() for p in pending)
+    return out
+
+
+def _field_kernel(op, a, mu: int, nu: int, summed: bool, packed: bool = False):
+    """x -> the clover field strengths of the operator's terms in plane (mu, nu) on the blocks x of a chunk of
+    `_plane_chunks` (numpy, (nb, 1 or len(terms), L_mu, L_nu, b, N, N)): their c_i-weighted sum (summed) or
     F^{(m_i, n_i)} one by one; packed: each F as N^2 reals (`rectangles.plane_fields_packed`)."""
     kernel = plane_fields_packed if packed else plane_fields
     scales = jnp.asarray(
         [(float(c) if summed else 1.0) / ((8.0 if m != n else 4.0) * m * n * a[mu] * a[nu]) for m, n, c in op.terms]
     )
-    ahead = None  # one chunk ahead: the next chunk is gathered and dispatched while the kernel runs
-    for sel, b, x in _plane_chunks(u, mu, nu):
-        item = (sel, b, kernel(jnp.asarray(x), scales, op.pairs, summed))
-        if ahead is not None:
-            yield ahead
-        ahead = item
-    if ahead is not None:
-        yield ahead
+    return lambda x: np.asarray(kernel(jnp.asarray(x), scales, op.pairs, summed))
 
 
 #: The planes of the charge density's three products tr F_{mu nu} F_{rho sigma} with their signs eps_{mu nu rho sigma}.
@@ -450,14 +474,23 @@ def _charge_density(u, op, a):
     q = np.zeros(shape)
     for p1, p2, sign in _COMPLEMENTS:
         perm1, perm2 = _plane_perm(*p1), _plane_perm(*p2)
-        for sel, b, f in _plane_field_chunks(u, op, a, *p1, summed, packed=True):
-            dest = _blocks(f1, sel, perm1, b, lead=1)
-            dest[...] = np.asarray(f).reshape(dest.shape)
+        fields1, fields2 = _field_kernel(op, a, *p1, summed, True), _field_kernel(op, a, *p2, summed, True)
         w = jnp.asarray(sign * 8.0 * CHARGE_DENSITY_FACTOR * coeffs)
-        for sel, b, f in _plane_field_chunks(u, op, a, *p2, summed, packed=True):
+
+        def keep(item, fields1=fields1, perm1=perm1):
+            sel, b, x = item
+            dest = _blocks(f1, sel, perm1, b, lead=1)
+            dest[...] = fields1(x).reshape(dest.shape)
+
+        def contract(item, fields2=fields2, perm2=perm2, w=w):
+            sel, b, x = item
+            f = fields2(x)
             g = np.ascontiguousarray(_blocks(f1, sel, perm2, b, lead=1)).reshape(f.shape)
             dest = _blocks(q, sel, perm2, b)
-            dest += np.asarray(charge_terms_packed(f, jnp.asarray(g), w, metric)).reshape(dest.shape)
+            dest += np.asarray(charge_terms_packed(f, g, w, metric)).reshape(dest.shape)
+
+        run_chunks(keep, _plane_chunks(u, *p1))
+        run_chunks(contract, _plane_chunks(u, *p2))
     return q
 
 
@@ -472,13 +505,17 @@ def operator_field_strength(links, operator="clover", *, spacing=1.0, boundary="
     n = u.shape[-1]
     out = np.zeros(tuple(shape) + (4, 4, n, n), dtype=np.complex128)
     for mu, nu in PLANES:
-        perm = _plane_perm(mu, nu)
-        for sel, b, f in _plane_field_chunks(u, op, a, mu, nu, True):
-            fp = np.asarray(f)[:, 0]
+        perm, fields = _plane_perm(mu, nu), _field_kernel(op, a, mu, nu, True)
+
+        def write(item, mu=mu, nu=nu, perm=perm, fields=fields):
+            sel, b, x = item
+            fp = fields(x)[:, 0]
             dest = _blocks(out[..., mu, nu, :, :], sel, perm, b)
             dest[...] = fp.reshape(dest.shape)
             dest = _blocks(out[..., nu, mu, :, :], sel, perm, b)
             dest[...] = -fp.reshape(dest.shape)
+
+        run_chunks(write, _plane_chunks(u, mu, nu))
     mask = _site_mask(shape, op.extent, opened)
     if mask is not None:
         for mu, nu in PLANES:  # the diagonal F_mu mu stays 0
