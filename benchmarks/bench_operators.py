@@ -92,7 +92,8 @@ def _flow_rows(size: int, actions) -> list[dict]:
 
     u = jnp.asarray(_links(size, 3, seed=1))
     h = 0.02
-    wilson = _seconds(lambda: sm._rk3_step(u, h, 1.0, 0.0, False).block_until_ready(), 2)
+    pairs, omega = sm._eps_terms(1.0, 0.0, False)
+    wilson = _seconds(lambda: sm._loop_step(u, h, pairs, omega).block_until_ready(), 2)
     rows = [
         {
             "figure": f"su3 {size}^4 Wilson flow RK3 step",
@@ -103,9 +104,8 @@ def _flow_rows(size: int, actions) -> list[dict]:
         }
     ]
     for name in actions:
-        op = ops.get_operator(name)
-        w = jnp.asarray([float(c) / (m * n) ** 2 for m, n, c in op.terms])
-        t = _seconds(lambda op=op, w=w: sm._rk3_step_op(u, h, w, op.pairs).block_until_ready(), 2)
+        pairs, omega, _ = sm._operator_terms(ops.get_operator(name))
+        t = _seconds(lambda pairs=pairs, omega=omega: sm._loop_step(u, h, pairs, omega).block_until_ready(), 2)
         rows.append(
             {
                 "figure": f"su3 {size}^4 {name} flow RK3 step",

@@ -3,7 +3,6 @@ measurements, anisotropic spacings, flow and cooling with their actions, and bad
 
 from fractions import Fraction
 
-import jax
 import numpy as np
 import pytest
 from _references import force_finite_difference, noisy_links
@@ -13,6 +12,8 @@ from instantonkit.lattice import operators as ops
 from instantonkit.lattice import smoothing as sm
 from instantonkit.lattice import stability as st
 from instantonkit.lattice import starts as lat
+from instantonkit.lattice import threads
+from instantonkit.lattice.forces import loop_force
 
 F = Fraction
 
@@ -157,9 +158,9 @@ def test_chunks_on_several_threads_give_the_same_bits(rough, monkeypatch):
             ops.operator_charge_density(rough, "5loop"),
         )
 
-    monkeypatch.setattr(ops, "WORKERS", 1)
+    monkeypatch.setattr(threads, "WORKERS", 1)
     one = measure()
-    monkeypatch.setattr(ops, "WORKERS", 3)
+    monkeypatch.setattr(threads, "WORKERS", 3)
     three = measure()
     assert one[0] == three[0]
     for x, y in zip(one[1:], three[1:], strict=True):
@@ -195,8 +196,8 @@ def test_operator_force_is_minus_the_lie_derivative_of_its_action(rough):
     # Z = -g0^2 dS (Luescher, JHEP 08 (2010) 071, section 2, from memory): d/ds S(exp(s X) U) = 2 tr(X Z), against a
     # central finite difference with scipy's expm on one link, for the tree-level Symanzik action (1x1 and 1x2 loops)
     op = ops.OPERATOR_PRESETS["symanzik"]
-    w = np.array([float(c) / (m * n) ** 2 for m, n, c in op.terms])
-    z = sm._op_force(rough, op.pairs, w)
+    pairs, omega, _ = sm._operator_terms(op)
+    z = loop_force(rough, pairs, omega)
     fd, want = force_finite_difference(rough, z, lambda v: ops.operator_action(v, op))
     assert fd == pytest.approx(want, rel=1e-6, abs=1e-9)
 
@@ -231,13 +232,12 @@ def test_symanzik_flow_frequency_matches_power_iteration_of_its_force():
     # D_2(pi/2)^2 = 4 cos^2(pi/2) vanishes and only the plaquette weight c0 = 5/3 is left
     op = ops.OPERATOR_PRESETS["symanzik"]
     assert st.operator_flow_frequency(op) == pytest.approx(80.0 / 3.0, rel=1e-12)
-    w = np.array([float(c) / (m * n) ** 2 for m, n, c in op.terms])
-    force = jax.jit(sm._op_force, static_argnames="pairs")
+    pairs, omega, _ = sm._operator_terms(op)
     rng = np.random.default_rng(0)
     x = np.asarray(sm._traceless_antihermitian(rng.normal(size=(4,) * 4 + (4, 2, 2)) + 0j))
     lam = 0.0
     for _ in range(40):
-        y = -np.asarray(force(sm._expm_su(1e-7 * x), op.pairs, w)) / 1e-7
+        y = -np.asarray(loop_force(sm._expm_su(1e-7 * x), pairs, omega)) / 1e-7
         lam = float(np.linalg.norm(y) / np.linalg.norm(x))
         x = y / np.linalg.norm(y)
     assert lam == pytest.approx(80.0 / 3.0, rel=1e-3)

@@ -8,6 +8,7 @@ from _references import bpst_box_action, force_finite_difference, noisy_links
 import instantonkit as ik
 from instantonkit.lattice import smoothing as sm
 from instantonkit.lattice import starts as lat
+from instantonkit.lattice.forces import loop_force
 
 EIGHT_PI2 = 8.0 * np.pi**2
 
@@ -76,7 +77,7 @@ def test_force_is_minus_the_lie_derivative_of_the_action(eps):
     # against a central finite difference with scipy's expm on one link of a rough SU(2) lattice
     u = noisy_links(lat.lattice_links(ik.bpst(size=1.5), (4,) * 4, 1.0), 0.3, 1)
     c1, c2 = sm.improved_coefficients(eps)
-    z = sm._force(u, c1, c2, eps != 1.0)
+    z = loop_force(u, *sm._eps_terms(c1, c2, eps != 1.0))
     fd, want = force_finite_difference(u, z, lambda v: sm.improved_action(v, eps))
     assert fd == pytest.approx(want, rel=1e-6, abs=1e-9)
 

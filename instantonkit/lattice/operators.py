@@ -47,12 +47,9 @@ computes every loop of the operator on a block; memory beyond the links is one p
 
 from __future__ import annotations
 
-import collections
 import dataclasses
 import numbers
-import os
 from collections.abc import Mapping, Sequence
-from concurrent.futures import ThreadPoolExecutor
 from fractions import Fraction
 
 import jax.numpy as jnp
@@ -62,6 +59,7 @@ from ..core import _validate as _v
 from ..core._links import check_links as _check_links
 from ..core.conventions import CHARGE_DENSITY_FACTOR
 from . import boundaries as _bd
+from . import threads
 from .observables import PLANES
 from .rectangles import charge_terms_packed, pack_metric, plane_fields, plane_fields_packed, plane_loops, plane_traces
 
@@ -85,10 +83,6 @@ CHUNK_SITES = 1 << 15
 #: Sites per block inside a chunk (the compiled kernel runs over the blocks one after the other, so the
 #: products of a block stay in the cache).
 BLOCK_SITES = 1 << 8
-#: Threads that run the blocks' compiled kernels side by side (one per core this process may use, at most 8):
-#: a kernel over a chunk runs its blocks one after the other on one core (the blocks are too small for
-#: XLA to split), so the chunks of a plane go to the cores in turn (measured in the benchmarks).
-WORKERS = max(1, min(8, len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1))
 #: The longest loop side a set may use (longer loops are not improvement; they would only cost).
 MAX_EXTENT = 8
 #: Relative tolerance of the sum rule sum c = 1 for float coefficients (exact for rationals).
@@ -407,7 +401,9 @@ def operator_action(links, operator="wilson", *, spacing=1.0, boundary="periodic
     loops = plane_loops(op.pairs)
     total = 0.0
     for mu, nu in PLANES:
-        parts = run_chunks(lambda item: np.asarray(plane_traces(jnp.asarray(item[2]), loops)), _plane_chunks(u, mu, nu))
+        parts = threads.run_chunks(
+            lambda item: np.asarray(plane_traces(jnp.asarray(item[2]), loops)), _plane_chunks(u, mu, nu)
+        )
         tr = np.sum(parts, axis=0)  # (loops, L_mu, L_nu)
         ia, ib = np.arange(shape[mu])[:, None], np.arange(shape[nu])[None, :]
         for m, n, c in op.terms:
@@ -416,30 +412,6 @@ def operator_action(links, operator="wilson", *, spacing=1.0, boundary="periodic
                 ok = ((ia <= shape[mu] - 1 - p) | (not opened[mu])) & ((ib <= shape[nu] - 1 - q) | (not opened[nu]))
                 total += w * float(np.sum(np.where(ok, tr[loops.index((p, q))], 0.0)))
     return total
-
-
-def run_chunks(fn, chunks) -> list:
-    """[fn(c) for c in chunks], the calls spread over `WORKERS` threads, in order.
-
-    The first call runs alone (it compiles the kernel the others share); then at most 2 `WORKERS` chunks
-    are taken from the iterator ahead of the results, so memory stays a few chunks.  ``fn`` runs a
-    compiled kernel (which releases the interpreter lock) and may write into disjoint parts of an array.
-    """
-    it = iter(chunks)
-    first = next(it, None)
-    if first is None:
-        return []
-    out = [fn(first)]
-    if WORKERS == 1:
-        return out + [fn(c) for c in it]
-    with ThreadPoolExecutor(WORKERS) as pool:
-        pending: collections.deque = collections.deque()
-        for c in it:
-            pending.append(pool.submit(fn, c))
-            if len(pending) >= 2 * WORKERS:
-                out.append(pending.popleft().result())
-        out.extend(p.result() for p in pending)
-    return out
 
 
 def _field_kernel(op, a, mu: int, nu: int, summed: bool, packed: bool = False):
@@ -489,8 +461,8 @@ def _charge_density(u, op, a):
             dest = _blocks(q, sel, perm2, b)
             dest += np.asarray(charge_terms_packed(f, g, w, metric)).reshape(dest.shape)
 
-        run_chunks(keep, _plane_chunks(u, *p1))
-        run_chunks(contract, _plane_chunks(u, *p2))
+        threads.run_chunks(keep, _plane_chunks(u, *p1))
+        threads.run_chunks(contract, _plane_chunks(u, *p2))
     return q
 
 
@@ -515,7 +487,7 @@ def operator_field_strength(links, operator="clover", *, spacing=1.0, boundary="
             dest = _blocks(out[..., nu, mu, :, :], sel, perm, b)
             dest[...] = -fp.reshape(dest.shape)
 
-        run_chunks(write, _plane_chunks(u, mu, nu))
+        threads.run_chunks(write, _plane_chunks(u, mu, nu))
     mask = _site_mask(shape, op.extent, opened)
     if mask is not None:
         for mu, nu in PLANES:  # the diagonal F_mu mu stays 0

@@ -17,8 +17,9 @@ Measurements go plane by plane (the kernels ``plane_*``): the links along mu and
 (L_mu, L_nu, B, 2, N, N), B sites across the plane, where every loop of the plane is built from the long
 links and two corner products without leaving it; the operators module cuts the B axis into chunks and
 blocks (no halo is needed) and runs the blocks one after the other, so their products stay in the cache.
-The staples of the flows and cooling come from `instantonkit.lattice.loops` (one staple code for the
-Wilson, the 1x1 + 2x2 and the m x n actions).
+The flows' force takes its staples plane by plane as well (``plane_staples``, driven by
+`instantonkit.lattice.forces`); cooling, which updates one direction and colour at a time, takes them from
+`instantonkit.lattice.loops` (one staple code for the Wilson, the 1x1 + 2x2 and the m x n actions).
 """
 
 from __future__ import annotations
@@ -167,6 +168,59 @@ def plane_fields(x, scales, pairs: tuple, summed: bool):
 
     x: (nb, La, Lb, b, 2, N, N) complex128; scales: (len(pairs),) float."""
     return jax.lax.map(lambda y: _plane_fields(y[..., 0, :, :], y[..., 1, :, :], pairs, scales, summed), x)
+
+
+def _spread(da, sums: dict, axis: int):
+    """From the staple sums Sigma_e of the long links D^e(x) along ``axis`` (e: Sigma_e, each (La, Lb, B, N, N))
+    to the staple of the single link U(x): U(x) sits at position k of D^e(x - k) = D^k(x - k) U(x) D^(e-1-k)(x + 1),
+    and Re tr(D^e Sigma_e) = Re tr(U D^(e-1-k)(x + 1) Sigma_e(x - k) D^k(x - k)); the partial products are the
+    long links ``da`` (``da[j - 1] = D^j``), so each position costs one or two products."""
+    out = None
+    for e, sig in sums.items():
+        for k in range(e):
+            t = _sh(sig, axis, -k)
+            if e - 1 - k >= 1:
+                t = _mm(_sh(da[e - 2 - k], axis, 1), t)
+            if k >= 1:
+                t = _mm(t, _sh(da[k - 1], axis, -k))
+            out = t if out is None else out + t
+    return out
+
+
+def _plane_staples(ua, ub, shapes: tuple, wa, wb):
+    """(Sigma_a, Sigma_b): the weighted staple sums of the links along the plane's axes a and b from every loop of
+    ``shapes`` in the plane, so that the loops' share of the action holding U_a(x) is -2 Re tr(U_a(x) Sigma_a(x))
+    + const (as `instantonkit.lattice.staples.weighted_staple`, whose sum over the three planes of a direction
+    this is); each (La, Lb, B, N, N).
+
+    ua, ub: (La, Lb, B, N, N) periodic in La and Lb; shapes: ((p, q), ...) with p along a; wa, wb:
+    (len(shapes),) the weights of the a- and b-staples of each shape.  The p x q loop at corner x is
+    W = L R^dag with the corner products of `_corners`; each long link it holds sees the rest of the loop
+    through one more product: D^p_a(x) (bottom): D^q_b(x + p a) R(x)^dag; D^p_a(x + q b) (top):
+    L(x)^dag D^q_b(x); D^q_b(x) (left): D^p_a(x + q b) L(x)^dag; D^q_b(x + p a) (right): R(x)^dag D^p_a(x)
+    (Re tr W = Re tr W^dag and the cyclic trace).  Six products a shape and site for the staples of both
+    axes, then `_spread` to the single links."""
+    da, db = _plane_longs(ua, ub, max(max(s) for s in shapes))
+    sa: dict = {}
+    sb: dict = {}
+    for i, (p, q) in enumerate(shapes):
+        dap, dbq = da[p - 1], db[q - 1]
+        dbq_p, dap_q = _sh(dbq, 0, p), _sh(dap, 1, q)
+        left, right = _mm(dap, dbq_p), _mm(dbq, dap_q)
+        st_a = wa[i] * (_mm_nd(dbq_p, right) + _sh(_mm_dn(left, dbq), 1, -q))
+        st_b = wb[i] * (_mm_nd(dap_q, left) + _sh(_mm_dn(right, dap), 0, -p))
+        sa[p] = sa[p] + st_a if p in sa else st_a
+        sb[q] = sb[q] + st_b if q in sb else st_b
+    return _spread(da, sa, 0), _spread(db, sb, 1)
+
+
+@functools.partial(jax.jit, static_argnames=("shapes",))
+def plane_staples(x, wa, wb, shapes: tuple):
+    """`_plane_staples` of the blocks of a plane chunk (as `plane_traces`); (nb, La, Lb, b, 2, N, N), the a- and
+    b-staples stacked like the links.  x: (nb, La, Lb, b, 2, N, N) complex128; wa, wb: (len(shapes),) float."""
+    return jax.lax.map(
+        lambda y: jnp.stack(_plane_staples(y[..., 0, :, :], y[..., 1, :, :], shapes, wa, wb), axis=-3), x
+    )
 
 
 def _pack(f):

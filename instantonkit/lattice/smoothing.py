@@ -2,8 +2,10 @@
 improved charge.
 
 Links are arrays ``(L1, L2, L3, L4, 4, N, N)`` complex128 (`instantonkit.lattice.observables`); the
-smoothing routines treat the lattice as periodic (n + L mu_hat = n).  Everything is one vectorised jax
-computation over the lattice in float64 (jnp.roll for the shifts), for SU(2), SU(3) or any SU(N).
+smoothing routines treat the lattice as periodic (n + L mu_hat = n).  Cooling sweeps and measurements are
+vectorised jax computations over the lattice in float64 (jnp.roll for the shifts), for SU(2), SU(3) or any
+SU(N); the flows' force is computed plane by plane on worker threads (`instantonkit.lattice.forces`) between
+the compiled stages of the integrator.
 
 Normalisations (g = 1, beta = 2N, so that every action tends to the continuum action with
 ``int s = 8 pi^2`` for a unit instanton, conventions module):
@@ -46,13 +48,14 @@ import numpy as np
 from ..core import _validate as _v
 from ..core.conventions import CHARGE_DENSITY_FACTOR  # noqa: F401  (kept importable here)
 from . import operators as _operators
+from .forces import loop_force
 from .loops import (  # re-exported: the measurements the flows and cooling drive
     _dag,
     _links,
     _measure,
     _mm,
     _total_staple,
-    _traceless_antihermitian,
+    _traceless_antihermitian,  # noqa: F401  (the tests project forces with it)
     improved_action,
     improved_charge,
     improved_charge_density,
@@ -118,44 +121,46 @@ def _expm_su(x):
 # -- loops and staples ------------------------------------------------------------------------------------
 
 
-def _force(u, c1, c2, two: bool):
-    """Z(U) = -P_ah(U_mu Sigma_mu) for the four directions; (L1..L4, 4, N, N) (module docstring)."""
-    return jnp.stack(
-        [-_traceless_antihermitian(_mm(u[..., mu, :, :], _total_staple(u, mu, c1, c2, two))) for mu in range(4)],
-        axis=4,
-    )
-
-
 def _rk3(u, h, force):
     """One step of Luescher's third-order Runge-Kutta integrator (JHEP 08 (2010) 071, eqs. (C.1)-(C.3),
     from memory; the third order is checked by test_runge_kutta_integrator_is_third_order):
     W1 = exp(Z0/4) W0, W2 = exp(8/9 Z1 - 17/36 Z0) W1, V(t + h) = exp(3/4 Z2 - 8/9 Z1 + 17/36 Z0) W2,
-    Z_i = h Z(W_i)."""
-    z0 = h * force(u)
-    w1 = _mm(_expm_su(0.25 * z0), u)
-    z1 = h * force(w1)
-    w2 = _mm(_expm_su((8.0 / 9.0) * z1 - (17.0 / 36.0) * z0), w1)
-    z2 = h * force(w2)
-    return _mm(_expm_su(0.75 * z2 - (8.0 / 9.0) * z1 + (17.0 / 36.0) * z0), w2)
+    Z_i = h Z(W_i).  ``force`` may be traceable (the step is then traceable) or not (`loop_force`, whose
+    planes run on worker threads: the stages between the forces are compiled by `_advance`)."""
+    z0 = force(u)
+    w1 = _advance(u, (z0,), (0.25 * h,))
+    z1 = force(w1)
+    w2 = _advance(w1, (z0, z1), (-(17.0 / 36.0) * h, (8.0 / 9.0) * h))
+    z2 = force(w2)
+    return _advance(w2, (z0, z1, z2), ((17.0 / 36.0) * h, -(8.0 / 9.0) * h, 0.75 * h))
 
 
-@functools.partial(jax.jit, static_argnames=("two",))
-def _rk3_step(u, h, c1, c2, two: bool):
-    """`_rk3` with the force of S(eps)."""
-    return _rk3(u, h, lambda v: _force(v, c1, c2, two))
+@jax.jit
+def _advance(w, zs, cs):
+    """exp(sum_k c_k Z_k) W, one stage of `_rk3`; zs: Z_k (L1..L4, 4, N, N), cs: the scalars c_k."""
+    x = cs[0] * zs[0]
+    for c, z in zip(cs[1:], zs[1:], strict=True):
+        x = x + c * z
+    return _mm(_expm_su(x), w)
 
 
-def _op_force(u, pairs, weights):
-    """Z(U) = -P_ah(U_mu Sigma_mu) of a loop operator's action (`instantonkit.lattice.rectangles.staple`)."""
-    return jnp.stack(
-        [-_traceless_antihermitian(_mm(u[..., mu, :, :], staple(u, mu, pairs, weights))) for mu in range(4)], axis=4
-    )
+def _loop_step(u, h, pairs: tuple, omega):
+    """`_rk3` with the force of a loop action with staple weights omega (len(pairs), 4, 4) (`loop_force`)."""
+    return _rk3(jnp.asarray(u), h, lambda v: loop_force(v, pairs, omega))
 
 
-@functools.partial(jax.jit, static_argnames=("pairs",))
-def _rk3_step_op(u, h, weights, pairs):
-    """`_rk3` with the force of a loop operator's action."""
-    return _rk3(u, h, lambda v: _op_force(v, pairs, weights))
+def _eps_terms(c1: float, c2: float, two: bool) -> tuple[tuple, np.ndarray]:
+    """(pairs, omega) of S(eps) = c1 S_1 + c2 S_2 for `loop_force`: the 1x1 loops with weight c1 and, with the
+    2x2 loops, those with c2 in every plane (the staple Sigma = c1 Sigma^(1) + c2 Sigma^(2))."""
+    pairs = ((1, 1), (2, 2)) if two else ((1, 1),)
+    w = np.array([c1, c2] if two else [c1], dtype=np.float64)
+    return pairs, np.broadcast_to(w[:, None, None], (len(pairs), 4, 4))
+
+
+def _operator_terms(op) -> tuple[tuple, np.ndarray, jnp.ndarray]:
+    """(pairs, omega, w) of a loop operator's isotropic action: w_i = c_i / (m_i n_i)^2, the same in every plane."""
+    w = np.array([float(c) / (m * k) ** 2 for m, k, c in op.terms])
+    return op.pairs, np.broadcast_to(w[:, None, None], (len(w), 4, 4)), jnp.asarray(w)
 
 
 @functools.partial(jax.jit, static_argnames=("pairs",))
@@ -164,20 +169,6 @@ def _measure_op(u, weights, pairs):
     row = _measure(u, 1.0, 0.0, False)
     s = jnp.sum(weights * loop_sums(u, pairs))
     return row.at[1].set(s)
-
-
-def _w_force(u, pairs, omega):
-    """Z(U) of a loop operator's action with a staple weight per (direction, plane) (`instantonkit.lattice.staples`)."""
-    return jnp.stack(
-        [-_traceless_antihermitian(_mm(u[..., mu, :, :], weighted_staple(u, mu, pairs, omega))) for mu in range(4)],
-        axis=4,
-    )
-
-
-@functools.partial(jax.jit, static_argnames=("pairs",))
-def _rk3_step_w(u, h, omega, pairs):
-    """`_rk3` with the force of a loop operator's action on an anisotropic lattice (physical flow time)."""
-    return _rk3(u, h, lambda v: _w_force(v, pairs, omega))
 
 
 @functools.partial(jax.jit, static_argnames=("pairs",))
@@ -412,17 +403,18 @@ def gradient_flow(
         bound = flow_step_bound(action=flow_op, spacing=a)
         lam = operator_flow_frequency(flow_op, spacing=a)
         what = f"the action {flow_op.name!r} at spacings {a.tolist()}"
-        omega = jnp.asarray(staple_weights(flow_op.terms, a))
+        pairs, omega = flow_op.pairs, staple_weights(flow_op.terms, a)
         kappa, wk = _aniso_weights(flow_op, a)
-        step_fn = lambda v: _rk3_step_w(v, h, omega, flow_op.pairs)  # noqa: E731
         measure = lambda v: _measure_w(v, kappa, wk, flow_op.pairs)  # noqa: E731
     elif op is None:
         bound, lam, what = flow_step_bound(eps), max_flow_frequency(float(eps)), f"eps = {float(eps):g}"
-        step_fn, measure = (lambda v: _rk3_step(v, h, c1, c2, two)), (lambda v: _measure(v, c1, c2, two))
+        pairs, omega = _eps_terms(c1, c2, two)
+        measure = lambda v: _measure(v, c1, c2, two)  # noqa: E731
     else:
         bound, lam, what = flow_step_bound(action=op), operator_flow_frequency(op), f"the action {op.name!r}"
-        w = jnp.asarray([float(c) / (m * k) ** 2 for m, k, c in op.terms])
-        step_fn, measure = (lambda v: _rk3_step_op(v, h, w, op.pairs)), (lambda v: _measure_op(v, w, op.pairs))
+        pairs, omega, w = _operator_terms(op)
+        measure = lambda v: _measure_op(v, w, op.pairs)  # noqa: E731
+    step_fn = lambda v: _loop_step(v, h, pairs, omega)  # noqa: E731
     if n and h > bound:
         raise ValueError(
             f"step must be below the stability bound {_fmt(bound * scale)} of the third-order Runge-Kutta flow for "

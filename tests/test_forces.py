@@ -1,0 +1,79 @@
+"""The force of a loop action computed plane by plane (`instantonkit.lattice.forces.loop_force`).
+
+Its reference is the staple sum of each direction written loop by loop (`instantonkit.lattice.staples.
+weighted_staple`, checked itself against finite differences of the action in tests/test_operators.py and
+tests/test_anisotropic_smoothing.py); the force is Z_mu = -P_ah(U_mu Sigma_mu) (Luescher, JHEP 08 (2010) 071,
+section 2, from memory).
+"""
+
+from __future__ import annotations
+
+import jax.numpy as jnp
+import numpy as np
+import pytest
+from _references import noisy_links
+
+from instantonkit.lattice import forces, staples, threads
+from instantonkit.lattice import operators as ops
+from instantonkit.lattice import smoothing as sm
+
+#: A lattice with four different extents, so that a plane's layout and its way back are checked on every axis.
+SHAPE = (4, 6, 4, 8)
+
+
+def _rough(n: int, seed: int = 3):
+    """Rough SU(n) links on SHAPE (the identity times exp(X), X random and of order one)."""
+    one = np.broadcast_to(np.eye(n, dtype=np.complex128), SHAPE + (4, n, n)).copy()
+    return noisy_links(one, 1.0, seed)
+
+
+def _reference(u, pairs, omega):
+    """Z_mu = -P_ah(U_mu Sigma_mu) with Sigma_mu of `staples.weighted_staple`, direction by direction."""
+    v = jnp.asarray(u)
+    z = [
+        -sm._traceless_antihermitian(sm._mm(v[..., mu, :, :], staples.weighted_staple(v, mu, pairs, jnp.asarray(omega))))
+        for mu in range(4)
+    ]
+    return np.asarray(jnp.stack(z, axis=4))
+
+
+@pytest.mark.parametrize("n", [2, 3])
+@pytest.mark.parametrize("name", ["wilson", "symanzik", "5li"])
+def test_plane_force_equals_the_staples_of_each_direction(name, n):
+    u = _rough(n)
+    pairs, omega, _ = sm._operator_terms(ops.get_operator(name))
+    got = np.asarray(forces.loop_force(u, pairs, omega))
+    assert np.max(np.abs(got - _reference(u, pairs, omega))) < 1e-13
+
+
+def test_plane_force_keeps_a_weight_per_direction_and_plane():
+    # random weights omega_i[mu, nu], different for (mu, nu) and (nu, mu): each staple of a plane takes its own
+    # direction's weight (the anisotropic flows' weights are of this form)
+    u = _rough(3, seed=5)
+    pairs = ops.get_operator("5li").pairs
+    omega = np.random.default_rng(7).uniform(-1.0, 1.0, size=(len(pairs), 4, 4))
+    got = np.asarray(forces.loop_force(u, pairs, omega))
+    assert np.max(np.abs(got - _reference(u, pairs, omega))) < 1e-13
+
+
+def test_plane_force_is_traceless_anti_hermitian():
+    u = _rough(3)
+    pairs, omega, _ = sm._operator_terms(ops.get_operator("symanzik"))
+    z = np.asarray(forces.loop_force(u, pairs, omega))
+    assert np.max(np.abs(z + np.conj(np.swapaxes(z, -1, -2)))) < 1e-14
+    assert np.max(np.abs(np.trace(z, axis1=-2, axis2=-1))) < 1e-14
+
+
+def test_thread_count_and_blocks_change_no_bit_of_the_force(monkeypatch):
+    # the parts of a plane run on WORKERS threads and are summed in their order; blocks cut the transverse sites
+    # only, so neither changes a bit (common practice: a parallel map must not change the answer)
+    u = _rough(2)
+    pairs, omega, _ = sm._operator_terms(ops.get_operator("5li"))
+    monkeypatch.setattr(threads, "WORKERS", 1)
+    one = np.asarray(forces.loop_force(u, pairs, omega))
+    monkeypatch.setattr(threads, "WORKERS", 3)
+    three = np.asarray(forces.loop_force(u, pairs, omega))
+    monkeypatch.setattr(forces, "BLOCK_SITES", 1)
+    small = np.asarray(forces.loop_force(u, pairs, omega))
+    assert np.array_equal(one, three)
+    assert np.array_equal(one, small)
