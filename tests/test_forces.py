@@ -31,7 +31,9 @@ def _reference(u, pairs, omega):
     """Z_mu = -P_ah(U_mu Sigma_mu) with Sigma_mu of `staples.weighted_staple`, direction by direction."""
     v = jnp.asarray(u)
     z = [
-        -sm._traceless_antihermitian(sm._mm(v[..., mu, :, :], staples.weighted_staple(v, mu, pairs, jnp.asarray(omega))))
+        -sm._traceless_antihermitian(
+            sm._mm(v[..., mu, :, :], staples.weighted_staple(v, mu, pairs, jnp.asarray(omega)))
+        )
         for mu in range(4)
     ]
     return np.asarray(jnp.stack(z, axis=4))
@@ -77,3 +79,30 @@ def test_thread_count_and_blocks_change_no_bit_of_the_force(monkeypatch):
     small = np.asarray(forces.loop_force(u, pairs, omega))
     assert np.array_equal(one, three)
     assert np.array_equal(one, small)
+
+
+@pytest.mark.parametrize("value", ["0", "-2", "two", "1.5"])
+def test_a_thread_count_that_is_not_a_positive_integer_is_refused(value):
+    with pytest.raises(ValueError, match=f"INSTANTONKIT_THREADS must be a positive integer.*found {value!r}"):
+        threads._workers_from_env(value)
+
+
+def test_the_thread_count_comes_from_the_environment_or_the_cores():
+    assert threads._workers_from_env("3") == 3
+    assert 1 <= threads._workers_from_env(None) == threads._workers_from_env(" ") <= 8
+
+
+def test_an_error_in_a_chunk_reaches_the_caller_and_stops_the_rest(monkeypatch):
+    # the calls not yet started when a chunk fails are dropped, so a bad chunk costs at most the ones in flight
+    monkeypatch.setattr(threads, "WORKERS", 2)
+    started = []
+
+    def fn(i):
+        started.append(i)
+        if i == 3:
+            raise ValueError("chunk 3 is bad")
+        return i
+
+    with pytest.raises(ValueError, match="chunk 3 is bad"):
+        threads.run_chunks(fn, range(1000))
+    assert len(started) < 20

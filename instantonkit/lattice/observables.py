@@ -44,6 +44,8 @@ __all__ = [
 
 #: The six lattice planes (mu, nu), mu < nu, zero-based; the order of the plane axis of `plaquettes`.
 PLANES = ((0, 1), (0, 2), (0, 3), (1, 2), (1, 3), (2, 3))
+#: The twelve ordered planes (mu, nu), mu != nu (the second axis of `instantonkit.lattice.rectangles.plane_loop_sums`).
+ORDERED_PLANES = tuple((mu, nu) for mu in range(4) for nu in range(4) if mu != nu)
 
 #: The boundary conditions of link arrays: wrap around, or use only what lies inside (per direction too).
 BOUNDARIES = _bd.OBSERVABLE_BOUNDARIES

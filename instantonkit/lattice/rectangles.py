@@ -32,10 +32,7 @@ import numpy as np
 
 from ..core.conventions import CHARGE_DENSITY_FACTOR
 from .loops import _link_staple, _long, _mm, _retr, _sh
-from .observables import PLANES
-
-#: The twelve ordered planes (mu, nu), mu != nu.
-ORDERED_PLANES = tuple((mu, nu) for mu in range(4) for nu in range(4) if mu != nu)
+from .observables import ORDERED_PLANES, PLANES
 
 
 def _extents(pairs):
@@ -266,15 +263,31 @@ def to_plane(u, mu: int, nu: int):
     return x.reshape(x.shape[0], x.shape[1], -1, *x.shape[4:])
 
 
-def loop_sums(u, pairs: tuple):
-    """sum_x sum_{mu != nu} (N - Re tr W^{m x n}_{mu nu}(x)) per term (m, n) of ``pairs`` (extent m along mu);
-    (len(pairs),).  Traceable (the flows' measurement calls it inside their jit); periodic lattices."""
+def plane_loop_sums(u, pairs: tuple):
+    """sum_x (N - Re tr W^{m x n}_{mu nu}(x)) per term (m, n) and ordered plane (m along mu, `ORDERED_PLANES`);
+    (len(pairs), 12).  Traceable (the flows measure their action with it inside their jit); periodic lattices.
+
+    The loops of the ordered plane (mu, nu) with m along mu are those of the unordered plane {mu, nu} of shape
+    (m, n) (mu < nu) or (n, m) (mu > nu), `_plane_traces` of the plane layout."""
     loops = plane_loops(pairs)
-    tot = jnp.zeros(len(loops))
+    per = {}
     for mu, nu in PLANES:
         x = to_plane(u, mu, nu)
-        tot = tot + jnp.sum(_plane_traces(x[..., 0, :, :], x[..., 1, :, :], loops), axis=(1, 2))
-    return jnp.stack([tot[loops.index((m, n))] + tot[loops.index((n, m))] for m, n in pairs])
+        per[(mu, nu)] = jnp.sum(_plane_traces(x[..., 0, :, :], x[..., 1, :, :], loops), axis=(1, 2))
+    rows = []
+    for m, n in pairs:
+        row = [
+            per[(mu, nu)][loops.index((m, n))] if mu < nu else per[(nu, mu)][loops.index((n, m))]
+            for mu, nu in ORDERED_PLANES
+        ]
+        rows.append(jnp.stack(row))
+    return jnp.stack(rows)
+
+
+def loop_sums(u, pairs: tuple):
+    """sum_x sum_{mu != nu} (N - Re tr W^{m x n}_{mu nu}(x)) per term (m, n) of ``pairs`` (extent m along mu);
+    (len(pairs),), the sum of `plane_loop_sums` over the ordered planes."""
+    return jnp.sum(plane_loop_sums(u, pairs), axis=1)
 
 
 # -- staples (the force and cooling of an action made of rectangles) ------------------------------------------

@@ -66,7 +66,7 @@ from .loops import (  # re-exported: the measurements the flows and cooling driv
 )
 from .observables import PLANES  # noqa: F401  (kept importable here)
 from .operators import get_operator
-from .rectangles import colour_period, colours, loop_sums, staple
+from .rectangles import colour_period, colours, loop_sums, plane_loop_sums, staple
 from .stability import (  # noqa: F401
     ACTION_RISE_TOL,
     RK3_STABILITY,
@@ -76,7 +76,7 @@ from .stability import (  # noqa: F401
     monitored_run,
     operator_flow_frequency,
 )
-from .staples import action_weights, plane_loop_sums, staple_weights, weighted_staple
+from .staples import action_weights, staple_weights, weighted_staple
 
 __all__ = [
     "SmoothingRecord",

@@ -28,7 +28,8 @@ from __future__ import annotations
 import jax.numpy as jnp
 import numpy as np
 
-from .loops import _long, _mm, _plane_staples, _sh, _spread
+from .loops import _long, _plane_staples, _sh, _spread
+from .observables import ORDERED_PLANES
 
 
 def orientations(pairs: tuple) -> tuple:
@@ -101,36 +102,13 @@ def phase_fields(tensor, shape, n: int, corner, pairs: tuple) -> dict:
     return out
 
 
-#: The twelve ordered planes (mu, nu), mu != nu (the order of `plane_loop_sums`' second axis).
-ORDERED = tuple((mu, nu) for mu in range(4) for nu in range(4) if mu != nu)
-
-
-def plane_loop_sums(u, pairs: tuple):
-    """sum_x (N - Re tr W^{m x n}_{mu nu}(x)) per term (m, n) and ordered plane (m along mu); (len(pairs), 12).
-
-    Traceable (the anisotropic flows measure their action with it inside their jit); periodic lattices.
-    """
-    n = u.shape[-1]
-    extents = sorted({e for p in pairs for e in p})
-    d = {e: [_long(u, mu, e) for mu in range(4)] for e in extents}
-    rows = []
-    for m, k in pairs:
-        row = []
-        for mu, nu in ORDERED:
-            left = _mm(d[m][mu], _sh(d[k][nu], mu, m))
-            right = _mm(d[k][nu], _sh(d[m][mu], nu, k))
-            row.append(jnp.sum(n - jnp.real(jnp.sum(left * jnp.conj(right), axis=(-2, -1)))))
-        rows.append(jnp.stack(row))
-    return jnp.stack(rows)
-
-
 def action_weights(terms: tuple, a) -> tuple:
     """(kappa (len(terms), 12), Wilson kappa (12,)) float64: c V / (m n a_mu a_nu)^2 per term and ordered plane
     (the area normalisation of `instantonkit.lattice.operators`; for the plaquette the anisotropic Wilson weights
     of `instantonkit.lattice.thermal`), a = (a1, a2, a3, a4)."""
     a = np.asarray(a, dtype=np.float64)
     vol = float(np.prod(a))
-    per = np.array([vol / (a[mu] * a[nu]) ** 2 for mu, nu in ORDERED])
+    per = np.array([vol / (a[mu] * a[nu]) ** 2 for mu, nu in ORDERED_PLANES])
     kappa = np.array([[float(c) / (m * n) ** 2 * w for w in per] for m, n, c in terms])
     return kappa, per
 

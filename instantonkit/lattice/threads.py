@@ -4,6 +4,10 @@ A compiled kernel over a chunk of the lattice runs its cache-sized blocks one af
 blocks are too small for XLA to split), and a kernel call releases the interpreter lock, so the chunks of a
 measurement or of a force go to the cores in turn: `map_chunks` calls a function on each chunk on `WORKERS`
 threads and gives the results back in chunk order, so the thread count changes no bit of a result.
+
+`WORKERS` is one thread per core this process may use (its CPU affinity), at most 8; the environment variable
+``INSTANTONKIT_THREADS`` (read at import, a positive integer) sets it instead, e.g. 1 on a node shared with
+other jobs.  It may also be assigned at run time (``instantonkit.lattice.threads.WORKERS = 1``).
 """
 
 from __future__ import annotations
@@ -13,7 +17,7 @@ import os
 from collections.abc import Callable, Iterable, Iterator
 from concurrent.futures import ThreadPoolExecutor
 
-__all__ = ["WORKERS", "map_chunks", "run_chunks"]
+__all__ = ["WORKERS", "THREADS_ENV", "map_chunks", "run_chunks"]
 
 
 def _cores() -> int:
@@ -23,9 +27,26 @@ def _cores() -> int:
     return os.cpu_count() or 1
 
 
-#: Threads that run chunks side by side: one per core this process may use, at most 8 (measured in the
-#: benchmarks: two threads take a 32^4 SU(3) five-loop charge from 12.1 s to 7.5 s on two cores).
-WORKERS = max(1, min(8, _cores()))
+#: The environment variable that sets `WORKERS` (a positive integer; unset or empty: one per core).
+THREADS_ENV = "INSTANTONKIT_THREADS"
+
+
+def _workers_from_env(value: str | None) -> int:
+    """`WORKERS` from the value of `THREADS_ENV` (None or empty: one per core, at most 8)."""
+    if value is None or not value.strip():
+        return max(1, min(8, _cores()))
+    try:
+        n = int(value)
+    except ValueError:
+        n = 0
+    if n < 1:
+        raise ValueError(f"{THREADS_ENV} must be a positive integer (the worker threads); found {value!r}")
+    return n
+
+
+#: Threads that run chunks side by side (module docstring; measured in the benchmarks: two threads take a
+#: 32^4 SU(3) five-loop charge from 12.1 s to 7.5 s on two cores).
+WORKERS = _workers_from_env(os.environ.get(THREADS_ENV))
 
 
 def map_chunks(fn: Callable, chunks: Iterable) -> Iterator:
@@ -46,7 +67,8 @@ def map_chunks(fn: Callable, chunks: Iterable) -> Iterator:
         for c in it:
             yield fn(c)
         return
-    with ThreadPoolExecutor(workers) as pool:
+    pool = ThreadPoolExecutor(workers)
+    try:
         pending: collections.deque = collections.deque()
         for c in it:
             pending.append(pool.submit(fn, c))
@@ -54,6 +76,8 @@ def map_chunks(fn: Callable, chunks: Iterable) -> Iterator:
                 yield pending.popleft().result()
         while pending:
             yield pending.popleft().result()
+    finally:  # an error, an interrupt or a consumer that stops early: calls not yet started are dropped
+        pool.shutdown(wait=True, cancel_futures=True)
 
 
 def run_chunks(fn: Callable, chunks: Iterable) -> list:
