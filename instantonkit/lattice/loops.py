@@ -83,33 +83,38 @@ def _long_staple(d, mu: int, e: int, f: int):
     return out[0] + out[1] + out[2]
 
 
-def _spread(u, mu: int, e: int, sd):
-    """From a staple sum Sigma_D of the long links D^e_mu to the staple of the single link U_mu(n): the link
-    sits at position k = 0 .. e-1 of D^e_mu(n - k mu) = A_k U_mu(n) B_k and Re tr(D Sigma_D) =
-    Re tr(U B_k Sigma_D A_k); A_0 = B_{e-1} = 1 are not multiplied."""
-    one = u[..., mu, :, :]
-    total = None
-    for k in range(e):
-        a = None  # U_mu(n - k mu) ... U_mu(n - mu)
-        for j in range(k, 0, -1):
-            a = _sh(one, mu, -j) if a is None else _mm(a, _sh(one, mu, -j))
-        b = None  # U_mu(n + mu) ... U_mu(n + (e-1-k) mu)
-        for j in range(1, e - k):
-            b = _sh(one, mu, j) if b is None else _mm(b, _sh(one, mu, j))
-        term = _sh(sd, mu, -k)
-        term = term if b is None else _mm(b, term)
-        term = term if a is None else _mm(term, a)
-        total = term if total is None else total + term
-    return total
+def _spread(da, sums: dict, axis: int):
+    """From the staple sums Sigma_e of the long links D^e(x) along ``axis`` ({e: Sigma_e}, each (..., N, N) with
+    periodic site axes) to the staple of the single link U(x), summed over the e: U(x) sits at position k of
+    D^e(x - k) = D^k(x - k) U(x) D^(e-1-k)(x + 1), and Re tr(D^e Sigma_e) = Re tr(U D^(e-1-k)(x + 1) Sigma_e(x - k)
+    D^k(x - k)); the partial products are the long links ``da`` (``da[j - 1] = D^j`` for j up to the largest
+    e - 1), so each position costs one or two products.  The one spread of the staples of the flows (plane by
+    plane) and of cooling (direction by direction)."""
+    out = None
+    for e, sig in sums.items():
+        for k in range(e):
+            t = _sh(sig, axis, -k)
+            if e - 1 - k >= 1:
+                t = _mm(_sh(da[e - 2 - k], axis, 1), t)
+            if k >= 1:
+                t = _mm(t, _sh(da[k - 1], axis, -k))
+            out = t if out is None else out + t
+    return out
+
+
+def _longs_along(u, d, mu: int, e: int) -> list:
+    """[D^1_mu, ..., D^(e-1)_mu] (the partial products `_spread` needs), from d where it holds them; (L1..L4, N, N)."""
+    return [d[j][mu] if j in d else _long(u, mu, j) for j in range(1, e)]
 
 
 def _link_staple(u, d, mu: int, e: int, f: int):
     """Sigma of U_mu(n) in every e x f loop (e along mu, f along nu != mu): the sum of the paths that close
     each such loop through U_mu(n), so that the loops' share of the action holding U_mu(n) is
     -2 Re tr(U_mu(n) Sigma) + const (the Wilson staple for e = f = 1).  d: {extent: [D^extent_nu for nu]}
-    holding e and f.  The one staple code of the Wilson, 1x1 + 2x2, m x n and weighted (staples module)
-    actions: `_plane_staples` per plane, `_spread` to the single links."""
-    return _spread(u, mu, e, _long_staple(d, mu, e, f))
+    holding e and f.  The staples of cooling (direction by direction) for the Wilson, 1x1 + 2x2, m x n and
+    weighted (staples module) actions: `_plane_staples` per plane, `_spread` to the single links; the flows
+    take theirs plane by plane (`instantonkit.lattice.rectangles.plane_staples`, the same `_spread`)."""
+    return _spread(_longs_along(u, d, mu, e), {e: _long_staple(d, mu, e, f)}, mu)
 
 
 def _staple(u, mu: int, m: int):

@@ -31,7 +31,7 @@ import jax.numpy as jnp
 import numpy as np
 
 from ..core.conventions import CHARGE_DENSITY_FACTOR
-from .loops import _link_staple, _long, _mm, _retr, _sh
+from .loops import _link_staple, _long, _mm, _retr, _sh, _spread
 from .observables import ORDERED_PLANES, PLANES
 
 
@@ -167,24 +167,7 @@ def plane_fields(x, scales, pairs: tuple, summed: bool):
     return jax.lax.map(lambda y: _plane_fields(y[..., 0, :, :], y[..., 1, :, :], pairs, scales, summed), x)
 
 
-def _spread(da, sums: dict, axis: int):
-    """From the staple sums Sigma_e of the long links D^e(x) along ``axis`` (e: Sigma_e, each (La, Lb, B, N, N))
-    to the staple of the single link U(x): U(x) sits at position k of D^e(x - k) = D^k(x - k) U(x) D^(e-1-k)(x + 1),
-    and Re tr(D^e Sigma_e) = Re tr(U D^(e-1-k)(x + 1) Sigma_e(x - k) D^k(x - k)); the partial products are the
-    long links ``da`` (``da[j - 1] = D^j``), so each position costs one or two products."""
-    out = None
-    for e, sig in sums.items():
-        for k in range(e):
-            t = _sh(sig, axis, -k)
-            if e - 1 - k >= 1:
-                t = _mm(_sh(da[e - 2 - k], axis, 1), t)
-            if k >= 1:
-                t = _mm(t, _sh(da[k - 1], axis, -k))
-            out = t if out is None else out + t
-    return out
-
-
-def _plane_staples(ua, ub, shapes: tuple, wa, wb):
+def _block_staples(ua, ub, shapes: tuple, wa, wb):
     """(Sigma_a, Sigma_b): the weighted staple sums of the links along the plane's axes a and b from every loop of
     ``shapes`` in the plane, so that the loops' share of the action holding U_a(x) is -2 Re tr(U_a(x) Sigma_a(x))
     + const (as `instantonkit.lattice.staples.weighted_staple`, whose sum over the three planes of a direction
@@ -213,10 +196,10 @@ def _plane_staples(ua, ub, shapes: tuple, wa, wb):
 
 @functools.partial(jax.jit, static_argnames=("shapes",))
 def plane_staples(x, wa, wb, shapes: tuple):
-    """`_plane_staples` of the blocks of a plane chunk (as `plane_traces`); (nb, La, Lb, b, 2, N, N), the a- and
+    """`_block_staples` of the blocks of a plane chunk (as `plane_traces`); (nb, La, Lb, b, 2, N, N), the a- and
     b-staples stacked like the links.  x: (nb, La, Lb, b, 2, N, N) complex128; wa, wb: (len(shapes),) float."""
     return jax.lax.map(
-        lambda y: jnp.stack(_plane_staples(y[..., 0, :, :], y[..., 1, :, :], shapes, wa, wb), axis=-3), x
+        lambda y: jnp.stack(_block_staples(y[..., 0, :, :], y[..., 1, :, :], shapes, wa, wb), axis=-3), x
     )
 
 

@@ -28,7 +28,7 @@ from __future__ import annotations
 import jax.numpy as jnp
 import numpy as np
 
-from .loops import _long, _plane_staples, _sh, _spread
+from .loops import _long, _longs_along, _plane_staples, _sh, _spread
 from .observables import ORDERED_PLANES
 
 
@@ -72,7 +72,7 @@ def weighted_staple(u, mu: int, pairs: tuple, omega, phases=None):
                     continue
                 ph = None if phases is None else phases[(e, f)][mu, nu]
                 sd = sd + (share * omega[i, mu, nu]) * _long_staple(d, mu, e, f, nu, ph)
-            out = out + _spread(u, mu, e, sd)
+            out = out + _spread(_longs_along(u, d, mu, e), {e: sd}, mu)
     return out
 
 
