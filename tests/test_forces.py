@@ -16,6 +16,7 @@ from _references import noisy_links
 from instantonkit.lattice import forces, staples, threads
 from instantonkit.lattice import operators as ops
 from instantonkit.lattice import smoothing as sm
+from instantonkit.lattice import twist as tw
 
 #: A lattice with four different extents, so that a plane's layout and its way back are checked on every axis.
 SHAPE = (4, 6, 4, 8)
@@ -106,3 +107,23 @@ def test_an_error_in_a_chunk_reaches_the_caller_and_stops_the_rest(monkeypatch):
     with pytest.raises(ValueError, match="chunk 3 is bad"):
         threads.run_chunks(fn, range(1000))
     assert len(started) < 20
+
+
+def test_plane_force_with_centre_factors_equals_the_twisted_staples():
+    # a twist in planes 12 and 34 ('t Hooft, Nucl. Phys. B 153 (1979) 141): every loop that holds a corner plaquette
+    # carries z; the plane kernel takes z, conj(z) per link of the loop, the reference per direction and plane
+    u = _rough(3, seed=11)
+    tensor = tw.twist_tensor({(1, 2): 1, (3, 4): 2}, 3)
+    corner = (1, 2, 3, 5)
+    for name in ("wilson", "5li"):
+        pairs, omega, _ = sm._operator_terms(ops.get_operator(name))
+        ph = staples.phase_fields(tensor, SHAPE, 3, corner, pairs)
+        got = np.asarray(forces.loop_force(u, pairs, omega, ph))
+        v = jnp.asarray(u)
+        want = [
+            -sm._traceless_antihermitian(
+                sm._mm(v[..., mu, :, :], staples.weighted_staple(v, mu, pairs, jnp.asarray(omega), ph))
+            )
+            for mu in range(4)
+        ]
+        assert np.max(np.abs(got - np.asarray(jnp.stack(want, axis=4)))) < 1e-13

@@ -66,6 +66,15 @@ def _plane_blocks(u, a: int, b: int, b_sites: int):
     return jnp.moveaxis(x, 2, 0)
 
 
+@functools.partial(jax.jit, static_argnames=("a", "b", "b_sites"))
+def _phase_blocks(z, a: int, b: int, b_sites: int):
+    """Centre factors (S, L1..L4) of S loop shapes in the blocked plane layout of `_plane_blocks`: (nb, S, La, Lb, b_sites)."""
+    rest = tuple(r for r in range(4) if r not in (a, b))
+    x = jnp.transpose(z, (0, 1 + a, 1 + b, *(1 + r for r in rest)))
+    x = x.reshape(x.shape[0], x.shape[1], x.shape[2], -1, b_sites)
+    return jnp.moveaxis(x, 3, 0)
+
+
 @functools.partial(jax.jit, static_argnames=("a", "b"), donate_argnames=("sigma",))
 def _add_plane(sigma, parts, a: int, b: int):
     """sigma (L1..L4, 4, N, N) plus the staples of plane (a, b) given as the blocked parts of `_plane_blocks`."""
@@ -89,11 +98,13 @@ def _parts(nb: int) -> int:
     return max(d for d in range(1, min(nb, 2 * threads.WORKERS) + 1) if nb % d == 0)
 
 
-def loop_force(u, pairs: tuple, omega):
+def loop_force(u, pairs: tuple, omega, phases=None):
     """Z(U) = -P_ah(U_mu Sigma_mu) of the loop action with staple weights omega; (L1..L4, 4, N, N) complex128 jax.
 
     u: (L1..L4, 4, N, N) complex128 (checked links; periodic); pairs: ((m, n), ...) the terms (m <= n);
-    omega: (len(pairs), 4, 4) float, omega_i[mu, nu] the weight of term i's staples of U_mu in plane (mu, nu).
+    omega: (len(pairs), 4, 4) float, omega_i[mu, nu] the weight of term i's staples of U_mu in plane (mu, nu);
+    phases: None, or on a twisted torus the centre factor of every loop, {(e, f): (4, 4, L1..L4) complex} for
+    each shape of `plane_loops` (`instantonkit.lattice.staples.phase_fields`).
     Not traceable (the planes run on worker threads); the flows call it between their compiled stages.
     """
     u = jnp.asarray(u)
@@ -105,19 +116,22 @@ def loop_force(u, pairs: tuple, omega):
     for a, b in PLANES:
         across = int(np.prod(shape)) // (shape[a] * shape[b])
         wa, wb = (jnp.asarray(w) for w in shape_weights(pairs, omega, a, b))
-        jobs.append((a, b, _block(shape[a] * shape[b], across), wa, wb))
+        z = None if phases is None else jnp.stack([jnp.asarray(phases[s])[a, b] for s in shapes])
+        jobs.append((a, b, _block(shape[a] * shape[b], across), wa, wb, z))
 
     def chunks():
-        for k, (a, b, bs, wa, wb) in enumerate(jobs):
+        for k, (a, b, bs, wa, wb, z) in enumerate(jobs):
             x = _plane_blocks(u, a, b, bs)
+            ph = None if z is None else _phase_blocks(z, a, b, bs)
             n = _parts(x.shape[0])
             step = x.shape[0] // n
             for j in range(n):
-                yield k, j == n - 1, x[j * step : (j + 1) * step], wa, wb
+                part = slice(j * step, (j + 1) * step)
+                yield k, j == n - 1, x[part], wa, wb, None if ph is None else ph[part]
 
     def run(item):
-        k, last, x, wa, wb = item
-        return k, last, plane_staples(x, wa, wb, shapes).block_until_ready()
+        k, last, x, wa, wb, ph = item
+        return k, last, plane_staples(x, wa, wb, shapes, ph).block_until_ready()
 
     done: list = []
     for k, last, r in threads.map_chunks(run, chunks()):

@@ -167,7 +167,7 @@ def plane_fields(x, scales, pairs: tuple, summed: bool):
     return jax.lax.map(lambda y: _plane_fields(y[..., 0, :, :], y[..., 1, :, :], pairs, scales, summed), x)
 
 
-def _block_staples(ua, ub, shapes: tuple, wa, wb):
+def _block_staples(ua, ub, shapes: tuple, wa, wb, ph=None):
     """(Sigma_a, Sigma_b): the weighted staple sums of the links along the plane's axes a and b from every loop of
     ``shapes`` in the plane, so that the loops' share of the action holding U_a(x) is -2 Re tr(U_a(x) Sigma_a(x))
     + const (as `instantonkit.lattice.staples.weighted_staple`, whose sum over the three planes of a direction
@@ -179,7 +179,12 @@ def _block_staples(ua, ub, shapes: tuple, wa, wb):
     through one more product: D^p_a(x) (bottom): D^q_b(x + p a) R(x)^dag; D^p_a(x + q b) (top):
     L(x)^dag D^q_b(x); D^q_b(x) (left): D^p_a(x + q b) L(x)^dag; D^q_b(x + p a) (right): R(x)^dag D^p_a(x)
     (Re tr W = Re tr W^dag and the cyclic trace).  Six products a shape and site for the staples of both
-    axes, then `_spread` to the single links."""
+    axes, then `_spread` to the single links.
+
+    ph: None or (len(shapes), La, Lb, B) complex, the centre factor z(x) of each shape's loop at corner x on a
+    twisted torus (the loop enters the action as Re tr(z W), `instantonkit.lattice.staples.phase_fields`
+    with the plane's (a, b)): the links that W holds (bottom, right) take z, those that W^dag holds (top,
+    left) take conj(z), each of its own loop's corner."""
     da, db = _plane_longs(ua, ub, max(max(s) for s in shapes))
     sa: dict = {}
     sb: dict = {}
@@ -187,20 +192,29 @@ def _block_staples(ua, ub, shapes: tuple, wa, wb):
         dap, dbq = da[p - 1], db[q - 1]
         dbq_p, dap_q = _sh(dbq, 0, p), _sh(dap, 1, q)
         left, right = _mm(dap, dbq_p), _mm(dbq, dap_q)
-        st_a = wa[i] * (_mm_nd(dbq_p, right) + _sh(_mm_dn(left, dbq), 1, -q))
-        st_b = wb[i] * (_mm_nd(dap_q, left) + _sh(_mm_dn(right, dap), 0, -p))
+        bottom, top, lhs, rhs = _mm_nd(dbq_p, right), _mm_dn(left, dbq), _mm_nd(dap_q, left), _mm_dn(right, dap)
+        if ph is not None:
+            z = ph[i][..., None, None]
+            bottom, top, lhs, rhs = z * bottom, jnp.conj(z) * top, jnp.conj(z) * lhs, z * rhs
+        st_a = wa[i] * (bottom + _sh(top, 1, -q))
+        st_b = wb[i] * (lhs + _sh(rhs, 0, -p))
         sa[p] = sa[p] + st_a if p in sa else st_a
         sb[q] = sb[q] + st_b if q in sb else st_b
     return _spread(da, sa, 0), _spread(db, sb, 1)
 
 
 @functools.partial(jax.jit, static_argnames=("shapes",))
-def plane_staples(x, wa, wb, shapes: tuple):
+def plane_staples(x, wa, wb, shapes: tuple, ph=None):
     """`_block_staples` of the blocks of a plane chunk (as `plane_traces`); (nb, La, Lb, b, 2, N, N), the a- and
-    b-staples stacked like the links.  x: (nb, La, Lb, b, 2, N, N) complex128; wa, wb: (len(shapes),) float."""
-    return jax.lax.map(
-        lambda y: jnp.stack(_block_staples(y[..., 0, :, :], y[..., 1, :, :], shapes, wa, wb), axis=-3), x
-    )
+    b-staples stacked like the links.  x: (nb, La, Lb, b, 2, N, N) complex128; wa, wb: (len(shapes),) float;
+    ph: None or the blocks' centre factors (nb, len(shapes), La, Lb, b) complex128."""
+
+    def one(y, z=None):
+        return jnp.stack(_block_staples(y[..., 0, :, :], y[..., 1, :, :], shapes, wa, wb, z), axis=-3)
+
+    if ph is None:
+        return jax.lax.map(one, x)
+    return jax.lax.map(lambda yz: one(*yz), (x, ph))
 
 
 def _pack(f):

@@ -144,9 +144,10 @@ def _advance(w, zs, cs):
     return _mm(_expm_su(x), w)
 
 
-def _loop_step(u, h, pairs: tuple, omega):
-    """`_rk3` with the force of a loop action with staple weights omega (len(pairs), 4, 4) (`loop_force`)."""
-    return _rk3(jnp.asarray(u), h, lambda v: loop_force(v, pairs, omega))
+def _loop_step(u, h, pairs: tuple, omega, phases=None):
+    """`_rk3` with the force of a loop action with staple weights omega (len(pairs), 4, 4) and, on a twisted
+    torus, the loops' centre factors ``phases`` (`loop_force`)."""
+    return _rk3(jnp.asarray(u), h, lambda v: loop_force(v, pairs, omega, phases))
 
 
 def _eps_terms(c1: float, c2: float, two: bool) -> tuple[tuple, np.ndarray]:

@@ -14,12 +14,13 @@ the Wilson staple of `instantonkit.lattice.loops`.  The flow and cooling are tho
 exponential, the same stability bound, the same maximisation of Re tr(U Sigma~) for cooling (centre
 factors keep the staple sum in the real span of SU(2) for N = 2) on the same checkerboard colours.
 
-The Runge-Kutta stages are `smoothing`'s (`smoothing._rk3` takes the force as an argument); the colour
-loop of a cooling sweep is written here around the imported kernels (`_maximise`, `_colours`), since
-`smoothing`'s sweeps take their staples from `loops` and `operators`.
+The flow is `smoothing`'s (`smoothing._loop_step`): its force is that of `instantonkit.lattice.forces`, plane by
+plane, with each loop's centre factor (for the Wilson action the plaquettes' z above); the colour loop of a
+cooling sweep is written here around the imported kernels (`_maximise`, `_colours`) with the staple Sigma~
+above, since `smoothing`'s sweeps take their staples from `loops` and `operators`.
 
 Any loop operator's action (``action=``, `instantonkit.lattice.operators`) and anisotropic spacings
-(``spacing=``) drive the same flow and cooling with the staples of `instantonkit.lattice.staples`: every m x n
+(``spacing=``) drive the same flow and cooling (cooling with the staples of `instantonkit.lattice.staples`): every m x n
 loop that holds a twisted corner plaquette carries the twist's factor (`instantonkit.lattice.twisted_operators`
 derives which), so its staples do, and the force in physical flow time has the staple weights
 c / ((m n)^2 a_nu^2) of `instantonkit.lattice.smoothing.gradient_flow`.  The driving action is measured by
@@ -37,10 +38,10 @@ import jax.numpy as jnp
 import numpy as np
 
 from ..core import _validate as _v
-from .loops import _dag, _links, _mm, _sh, _traceless_antihermitian
+from .loops import _dag, _links, _mm, _sh
 from .operators import get_operator
 from .rectangles import colour_period, colours
-from .smoothing import _check_periodic_shape, _colours, _maximise, _rk3
+from .smoothing import _check_periodic_shape, _colours, _loop_step, _maximise
 from .stability import RK3_STABILITY, _check_rise, flow_step_bound, monitored_run, operator_flow_frequency
 from .staples import phase_fields, staple_weights, weighted_staple
 from .twist import _twisted_planes, twist_corner, twist_tensor, twisted_clover_charge, twisted_wilson_action
@@ -67,6 +68,10 @@ class TwistedRecord:
     kind: str
     action: np.ndarray | None = None
     operator: str = ""
+
+
+#: The staple weights of the twisted Wilson action for `instantonkit.lattice.forces.loop_force`: the plaquettes, weight 1.
+WILSON_OMEGA = np.ones((1, 4, 4))
 
 
 def _factor_fields(tensor, shape, n, corner):
@@ -97,21 +102,6 @@ def _twisted_staple(u, mu: int, z):
     return out
 
 
-@jax.jit
-def _force(u, z):
-    """Z(U) = -P_ah(U_mu Sigma~_mu) for the four directions; (L1..L4, 4, N, N)."""
-    return jnp.stack(
-        [-_traceless_antihermitian(_mm(u[..., mu, :, :], _twisted_staple(u, mu, z))) for mu in range(4)], axis=4
-    )
-
-
-@jax.jit
-def _rk3_step(u, h, z):
-    """Luescher's third-order Runge-Kutta step with the twisted force: `instantonkit.lattice.smoothing`'s
-    integrator (`smoothing._rk3`, the one written copy of the three stages) driven by `_force`."""
-    return _rk3(u, h, lambda v: _force(v, z))
-
-
 @functools.partial(jax.jit, static_argnames=("hits",))
 def _cool_sweep(u, colours, z, hits: int):
     """One exact sequential sweep: direction by direction, checkerboard colour by colour."""
@@ -124,23 +114,6 @@ def _cool_sweep(u, colours, z, hits: int):
 
         u = jax.lax.fori_loop(0, 2, body, u)
     return u
-
-
-def _op_force(u, pairs, omega, phases):
-    """Z(U) = -P_ah(U_mu Sigma_mu) of a loop operator's twisted action (`instantonkit.lattice.staples`)."""
-    return jnp.stack(
-        [
-            -_traceless_antihermitian(_mm(u[..., mu, :, :], weighted_staple(u, mu, pairs, omega, phases)))
-            for mu in range(4)
-        ],
-        axis=4,
-    )
-
-
-@functools.partial(jax.jit, static_argnames=("pairs",))
-def _rk3_step_op(u, h, omega, phases, pairs):
-    """`smoothing._rk3` with the force of a loop operator's twisted action."""
-    return _rk3(u, h, lambda v: _op_force(v, pairs, omega, phases))
 
 
 @functools.partial(jax.jit, static_argnames=("pairs", "ncol", "hits"))
@@ -257,11 +230,11 @@ def twisted_flow(
         drv = _Driver(u, tensor, c, action, a)
         bound = flow_step_bound(action=drv.op, spacing=a)
         what = f"the action {drv.op.name!r} (lambda_max = {operator_flow_frequency(drv.op, spacing=a):.4g})"
-        step_fn = lambda v: _rk3_step_op(v, h, drv.omega, drv.phases, drv.op.pairs)  # noqa: E731
+        step_fn = lambda v: _loop_step(v, h, drv.op.pairs, drv.omega, drv.phases)  # noqa: E731
         measure, name = drv.measure, drv.op.name
     else:
         bound, what, name = flow_step_bound(1.0), "the Wilson action", ""
-        step_fn = lambda v: _rk3_step(v, h, z)  # noqa: E731
+        step_fn = lambda v: _loop_step(v, h, ((1, 1),), WILSON_OMEGA, {(1, 1): z})  # noqa: E731
 
         def measure(v):
             sw, q = _measure(v, tensor, c)
