@@ -1,5 +1,8 @@
-"""Staples of m x n loops with a weight per (direction, plane) and a Z_N phase per loop: the force and cooling of
-a loop operator's action on anisotropic lattices and on twisted tori.
+"""Staples of m x n loops with a weight per (direction, plane) and a Z_N phase per loop: the cooling of a loop
+operator's action on anisotropic lattices and on twisted tori, the weights and phases of every flow's force.
+
+The flows take the same staples plane by plane (`instantonkit.lattice.forces`, checked against `weighted_staple`
+in tests/test_forces.py); cooling updates one direction and colour at a time and takes them here.
 
 Links are ``(L1, L2, L3, L4, 4, N, N)`` complex128, shifts periodic (``jnp.roll``).  The action is
 
@@ -57,7 +60,7 @@ def weighted_staple(u, mu: int, pairs: tuple, omega, phases=None):
         omega: (len(pairs), 4, 4) float staple weights omega_i[mu, nu].
         phases: None (no twist) or {(e, f): (4, 4, L1..L4) complex} for every shape of `orientations`:
             Z^{e x f}_{mu nu}(x) (`phase_fields`).
-    Traceable (the flows and cooling sweeps call it inside their jit).
+    Traceable (the cooling sweeps call it inside their jit).
     """
     shapes = orientations(pairs)
     extents = sorted({e for s in shapes for e in s})
