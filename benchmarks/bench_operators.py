@@ -92,8 +92,7 @@ def _flow_rows(size: int, actions) -> list[dict]:
 
     u = jnp.asarray(_links(size, 3, seed=1))
     h = 0.02
-    pairs, omega = sm._eps_terms(1.0, 0.0, False)
-    wilson = _seconds(lambda: sm._loop_step(u, h, pairs, omega).block_until_ready(), 2)
+    wilson = _seconds(lambda: sm._rk3_step(u, h, 1.0, 0.0, False).block_until_ready(), 2)
     rows = [
         {
             "figure": f"su3 {size}^4 Wilson flow RK3 step",

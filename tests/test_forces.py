@@ -17,6 +17,7 @@ from instantonkit.lattice import forces, staples, threads
 from instantonkit.lattice import operators as ops
 from instantonkit.lattice import smoothing as sm
 from instantonkit.lattice import twist as tw
+from instantonkit.lattice import twisted_flow as tf
 
 #: The lattice of most checks (one compiled plane kernel serves its six planes).
 CUBE = (4, 4, 4, 4)
@@ -129,3 +130,17 @@ def test_plane_force_with_centre_factors_equals_the_twisted_staples():
     ph = staples.phase_fields(tensor, CUBE, 3, (1, 2, 3, 0), pairs)
     got = np.asarray(forces.loop_force(u, pairs, omega, ph))
     assert np.max(np.abs(got - _reference(u, pairs, omega, ph))) < 1e-13
+
+
+def test_the_fused_plaquette_forces_equal_the_plane_force():
+    # the Wilson flows (plain and twisted) run one fused compiled step with their own staples; both must be the
+    # plane force of the plaquettes (with the plaquettes' centre factors on a twisted torus)
+    u = _rough(2, seed=13)
+    ones = np.ones((1, 4, 4))
+    plane = np.asarray(forces.loop_force(u, ((1, 1),), ones))
+    assert np.max(np.abs(np.asarray(sm._force(jnp.asarray(u), 1.0, 0.0, False)) - plane)) < 1e-13
+    tensor = tw.twist_tensor({(1, 2): 1, (3, 4): 1}, 2)
+    ph = staples.phase_fields(tensor, CUBE, 2, (3, 3, 3, 3), ((1, 1),))
+    z = tf._factor_fields(tensor, CUBE, 2, (3, 3, 3, 3))
+    twisted = np.asarray(forces.loop_force(u, ((1, 1),), ones, ph))
+    assert np.max(np.abs(np.asarray(tf._force(jnp.asarray(u), z)) - twisted)) < 1e-13

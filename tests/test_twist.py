@@ -428,12 +428,11 @@ def test_twisted_flow_does_not_raise_the_twisted_action():
 
 
 def test_a_twisted_flow_step_with_zero_twist_is_the_wilson_flow_step():
-    # the step of twisted_flow's Wilson path (the plaquettes with their centre factors, here all 1) against the step
-    # of smoothing.wilson_flow (eps = 1: c1 = 1, c2 = 0), called directly to spare the compilation of the measurements
+    # the kernel of smoothing.wilson_flow (eps = 1: c1 = 1, c2 = 0), called directly to spare the compilation
+    # of its measurements
     u = jnp.asarray(perturbed(tw.constant_flux_links(FLOW_SHAPE), 0.3, seed=2))
     z = tf._factor_fields(ZERO, FLOW_SHAPE, 2, (3, 1, 1, 3))
-    twisted = sm._loop_step(u, 0.05, ((1, 1),), tf.WILSON_OMEGA, {(1, 1): z})
-    np.testing.assert_allclose(twisted, sm._loop_step(u, 0.05, *sm._eps_terms(1.0, 0.0, False)), atol=1e-14)
+    np.testing.assert_allclose(tf._rk3_step(u, 0.05, z), sm._rk3_step(u, 0.05, 1.0, 0.0, False), atol=1e-14)
 
 
 def test_a_twisted_cooling_sweep_with_zero_twist_is_a_cooling_sweep():

@@ -14,9 +14,9 @@ the Wilson staple of `instantonkit.lattice.loops`.  The flow and cooling are tho
 exponential, the same stability bound, the same maximisation of Re tr(U Sigma~) for cooling (centre
 factors keep the staple sum in the real span of SU(2) for N = 2) on the same checkerboard colours.
 
-The flow is `smoothing`'s (`smoothing._loop_step`): its force is that of `instantonkit.lattice.forces`, plane by
-plane, with each loop's centre factor (for the Wilson action the plaquettes' z above); the colour loop of a
-cooling sweep is written here around the imported kernels (`_maximise`, `_colours`) with the staple Sigma~
+The Wilson flow is one compiled step of `smoothing`'s integrator (`smoothing._rk3`) with the staple Sigma~ above;
+a loop operator's or an anisotropic flow is `smoothing._loop_step`, whose force is that of
+`instantonkit.lattice.forces`, plane by plane, with each loop's centre factor; the colour loop of a cooling sweep is written here around the imported kernels (`_maximise`, `_colours`) with the staple Sigma~
 above, since `smoothing`'s sweeps take their staples from `loops` and `operators`.
 
 Any loop operator's action (``action=``, `instantonkit.lattice.operators`) and anisotropic spacings
@@ -38,10 +38,10 @@ import jax.numpy as jnp
 import numpy as np
 
 from ..core import _validate as _v
-from .loops import _dag, _links, _mm, _sh
+from .loops import _dag, _links, _mm, _sh, _traceless_antihermitian
 from .operators import get_operator
 from .rectangles import colour_period, colours
-from .smoothing import _check_periodic_shape, _colours, _loop_step, _maximise
+from .smoothing import _check_periodic_shape, _colours, _loop_step, _maximise, _rk3
 from .stability import RK3_STABILITY, _check_rise, flow_step_bound, monitored_run, operator_flow_frequency
 from .staples import phase_fields, staple_weights, weighted_staple
 from .twist import _twisted_planes, twist_corner, twist_tensor, twisted_clover_charge, twisted_wilson_action
@@ -70,10 +70,6 @@ class TwistedRecord:
     operator: str = ""
 
 
-#: The staple weights of the twisted Wilson action for `instantonkit.lattice.forces.loop_force`: the plaquettes, weight 1.
-WILSON_OMEGA = np.ones((1, 4, 4))
-
-
 def _factor_fields(tensor, shape, n, corner):
     """z_mu nu(n) for ordered pairs as a (4, 4, L1..L4) complex128 array (1 off the corner, z_nu mu = conj z_mu nu)."""
     z = np.ones((4, 4) + tuple(shape), dtype=np.complex128)
@@ -100,6 +96,22 @@ def _twisted_staple(u, mu: int, z):
         zdown = jnp.conj(_sh(z[mu, nu], nu, -1))[..., None, None]
         out = out + zup * up + zdown * down
     return out
+
+
+@jax.jit
+def _force(u, z):
+    """Z(U) = -P_ah(U_mu Sigma~_mu) for the four directions; (L1..L4, 4, N, N) (the twisted Wilson action: one
+    fused compiled step, as `instantonkit.lattice.smoothing._force` for the untwisted one)."""
+    return jnp.stack(
+        [-_traceless_antihermitian(_mm(u[..., mu, :, :], _twisted_staple(u, mu, z))) for mu in range(4)], axis=4
+    )
+
+
+@jax.jit
+def _rk3_step(u, h, z):
+    """Luescher's third-order Runge-Kutta step with the twisted force: `instantonkit.lattice.smoothing`'s
+    integrator (`smoothing._rk3`, the one written copy of the three stages) driven by `_force`."""
+    return _rk3(u, h, lambda v: _force(v, z))
 
 
 @functools.partial(jax.jit, static_argnames=("hits",))
@@ -234,7 +246,7 @@ def twisted_flow(
         measure, name = drv.measure, drv.op.name
     else:
         bound, what, name = flow_step_bound(1.0), "the Wilson action", ""
-        step_fn = lambda v: _loop_step(v, h, ((1, 1),), WILSON_OMEGA, {(1, 1): z})  # noqa: E731
+        step_fn = lambda v: _rk3_step(v, h, z)  # noqa: E731
 
         def measure(v):
             sw, q = _measure(v, tensor, c)
