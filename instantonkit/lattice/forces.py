@@ -10,6 +10,8 @@ directions on a block (`instantonkit.lattice.rectangles.plane_staples`: the corn
 shared by the four long links it holds), and the chunks of blocks run on one thread per core
 (`instantonkit.lattice.threads`).  The result equals the staples of `instantonkit.lattice.staples` to rounding
 (tests/test_forces.py); memory beyond the links is one plane's links and staples at a time and the staple sum.
+The isotropic Wilson flows keep their one fused compiled step (`instantonkit.lattice.smoothing._force`), which
+is faster for the plaquettes alone; tests/test_forces.py ties the two.
 """
 
 from __future__ import annotations

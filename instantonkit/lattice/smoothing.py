@@ -4,8 +4,9 @@ improved charge.
 Links are arrays ``(L1, L2, L3, L4, 4, N, N)`` complex128 (`instantonkit.lattice.observables`); the
 smoothing routines treat the lattice as periodic (n + L mu_hat = n).  Cooling sweeps and measurements are
 vectorised jax computations over the lattice in float64 (jnp.roll for the shifts), for SU(2), SU(3) or any
-SU(N); the flows' force is computed plane by plane on worker threads (`instantonkit.lattice.forces`) between
-the compiled stages of the integrator.
+SU(N), and so is one step of the Wilson flow; the force of an action with longer loops (or on an anisotropic
+lattice) is computed plane by plane on worker threads (`instantonkit.lattice.forces`) between the compiled
+stages of the integrator.
 
 Normalisations (g = 1, beta = 2N, so that every action tends to the continuum action with
 ``int s = 8 pi^2`` for a unit instanton, conventions module):
