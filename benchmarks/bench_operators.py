@@ -89,10 +89,11 @@ def _flow_rows(size: int, actions) -> list[dict]:
 
     from instantonkit.lattice import operators as ops
     from instantonkit.lattice import smoothing as sm
+    from instantonkit.lattice.forces import plane_force
 
     u = jnp.asarray(_links(size, 3, seed=1))
     h = 0.02
-    wilson = _seconds(lambda: sm._rk3_step(u, h, 1.0, 0.0, False).block_until_ready(), 2)
+    wilson = _seconds(lambda: sm._rk3_step(u, h, 1.0).block_until_ready(), 2)
     rows = [
         {
             "figure": f"su3 {size}^4 Wilson flow RK3 step",
@@ -104,7 +105,8 @@ def _flow_rows(size: int, actions) -> list[dict]:
     ]
     for name in actions:
         pairs, omega, _ = sm._operator_terms(ops.get_operator(name))
-        t = _seconds(lambda pairs=pairs, omega=omega: sm._loop_step(u, h, pairs, omega).block_until_ready(), 2)
+        force = plane_force(u.shape[:4], pairs, omega)
+        t = _seconds(lambda force=force: sm._loop_step(u, h, force).block_until_ready(), 2)
         rows.append(
             {
                 "figure": f"su3 {size}^4 {name} flow RK3 step",

@@ -63,7 +63,7 @@ def _timing_rows(size: int, repeat: int, groups, flow_only=(), su2_start=None, p
         colours8 = jnp.asarray(sm._colours(u.shape[:4], True))
         c1, c2 = sm.improved_coefficients(-1.0)
         cases = [
-            ("Wilson flow RK3 step (step 0.02)", lambda v: sm._rk3_step(v, 0.02, 1.0, 0.0, False)),
+            ("Wilson flow RK3 step (step 0.02)", lambda v: sm._rk3_step(v, 0.02, 1.0)),
             ("Wilson cooling sweep", lambda v, colours2=colours2: sm._cool_sweep(v, colours2, 1.0, 0.0, False, 2, 3)),
             (
                 "eps = -1 cooling sweep (8 colours)",

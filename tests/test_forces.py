@@ -69,16 +69,8 @@ def test_plane_force_keeps_a_weight_per_direction_and_plane():
     assert np.max(np.abs(got - _reference(u, pairs, omega))) < 1e-13
 
 
-def test_plane_force_is_traceless_anti_hermitian():
-    u = _rough(3)
-    pairs, omega, _ = sm._operator_terms(ops.get_operator("symanzik"))
-    z = np.asarray(forces.loop_force(u, pairs, omega))
-    assert np.max(np.abs(z + np.conj(np.swapaxes(z, -1, -2)))) < 1e-14
-    assert np.max(np.abs(np.trace(z, axis1=-2, axis2=-1))) < 1e-14
-
-
 def test_thread_count_and_blocks_change_no_bit_of_the_force(monkeypatch):
-    # the parts of a plane run on WORKERS threads and are summed in their order; blocks cut the transverse sites
+    # the parts of a plane run on WORKERS threads and are put back in their order; blocks cut the transverse sites
     # only, so neither changes a bit (common practice: a parallel map must not change the answer).  With one
     # site a block the 4^4 planes have 16 blocks, handed to the threads in parts
     u = _rough(2)
@@ -93,9 +85,9 @@ def test_thread_count_and_blocks_change_no_bit_of_the_force(monkeypatch):
     assert np.array_equal(whole, one)
 
 
-@pytest.mark.parametrize("value", ["0", "-2", "two", "1.5"])
+@pytest.mark.parametrize("value", ["0", "-2", "two", "1.5", "65", "1_0"])
 def test_a_thread_count_that_is_not_a_positive_integer_is_refused(value):
-    with pytest.raises(ValueError, match=f"INSTANTONKIT_THREADS must be a positive integer.*found {value!r}"):
+    with pytest.raises(ValueError, match=f"INSTANTONKIT_THREADS must be a positive integer up to 64.*found {value!r}"):
         threads._workers_from_env(value)
 
 
@@ -120,16 +112,30 @@ def test_an_error_in_a_chunk_reaches_the_caller_and_stops_the_rest(monkeypatch):
     assert len(started) < 20
 
 
-def test_plane_force_with_centre_factors_equals_the_twisted_staples():
+@pytest.mark.parametrize("shape", [CUBE, SHAPE])
+def test_plane_force_with_centre_factors_equals_the_twisted_staples(shape):
     # a twist in planes 12 and 34 ('t Hooft, Nucl. Phys. B 153 (1979) 141): every loop that holds a corner plaquette
     # carries z; the plane kernel takes z, conj(z) per link of the loop, the reference per direction and plane
     # (squares and both orientations of the 1x2 rectangles)
-    u = _rough(3, seed=11)
-    tensor = tw.twist_tensor({(1, 2): 1, (3, 4): 2}, 3)
+    n = 3 if shape == CUBE else 2
+    u = _rough(n, seed=11, shape=shape)
+    tensor = tw.twist_tensor({(1, 2): 1, (3, 4): n - 1}, n)
     pairs, omega, _ = sm._operator_terms(ops.get_operator("symanzik"))
-    ph = staples.phase_fields(tensor, CUBE, 3, (1, 2, 3, 0), pairs)
+    ph = staples.phase_fields(tensor, shape, n, (1, 2, 3, 0), pairs)
     got = np.asarray(forces.loop_force(u, pairs, omega, ph))
     assert np.max(np.abs(got - _reference(u, pairs, omega, ph))) < 1e-13
+
+
+def test_thread_count_changes_no_bit_of_the_twisted_force(monkeypatch):
+    u = _rough(2, seed=17)
+    tensor = tw.twist_tensor({(1, 2): 1}, 2)
+    pairs, omega, _ = sm._operator_terms(ops.get_operator("symanzik"))
+    ph = staples.phase_fields(tensor, CUBE, 2, (3, 3, 3, 3), pairs)
+    monkeypatch.setattr(forces, "BLOCK_SITES", 1)
+    monkeypatch.setattr(threads, "WORKERS", 1)
+    one = np.asarray(forces.loop_force(u, pairs, omega, ph))
+    monkeypatch.setattr(threads, "WORKERS", 2)
+    assert np.array_equal(one, np.asarray(forces.loop_force(u, pairs, omega, ph)))
 
 
 def test_the_fused_plaquette_forces_equal_the_plane_force():
@@ -138,9 +144,49 @@ def test_the_fused_plaquette_forces_equal_the_plane_force():
     u = _rough(2, seed=13)
     ones = np.ones((1, 4, 4))
     plane = np.asarray(forces.loop_force(u, ((1, 1),), ones))
-    assert np.max(np.abs(np.asarray(sm._force(jnp.asarray(u), 1.0, 0.0, False)) - plane)) < 1e-13
+    assert np.max(np.abs(np.asarray(sm._force(jnp.asarray(u), 1.0)) - plane)) < 1e-13
     tensor = tw.twist_tensor({(1, 2): 1, (3, 4): 1}, 2)
     ph = staples.phase_fields(tensor, CUBE, 2, (3, 3, 3, 3), ((1, 1),))
     z = tf._factor_fields(tensor, CUBE, 2, (3, 3, 3, 3))
     twisted = np.asarray(forces.loop_force(u, ((1, 1),), ones, ph))
     assert np.max(np.abs(np.asarray(tf._force(jnp.asarray(u), z)) - twisted)) < 1e-13
+
+
+def test_a_consumer_that_stops_early_drops_the_calls_not_started(monkeypatch):
+    monkeypatch.setattr(threads, "WORKERS", 2)
+    started = []
+
+    def fn(i):
+        started.append(i)
+        return i
+
+    gen = threads.map_chunks(fn, range(1000))
+    assert [next(gen) for _ in range(3)] == [0, 1, 2]
+    gen.close()
+    assert len(started) < 20
+
+
+def test_no_chunks_give_no_results_and_a_none_chunk_is_a_chunk(monkeypatch):
+    monkeypatch.setattr(threads, "WORKERS", 2)
+    assert threads.run_chunks(lambda c: c, []) == []
+    assert threads.run_chunks(lambda c: c, [None, 1, 2]) == [None, 1, 2]
+
+
+@pytest.mark.parametrize(("value", "err"), [(0, ValueError), (-1, ValueError), (65, ValueError), ("2", TypeError)])
+def test_a_bad_thread_count_set_at_run_time_is_refused_before_any_call(monkeypatch, value, err):
+    monkeypatch.setattr(threads, "WORKERS", value)
+    calls = []
+    with pytest.raises(err, match="instantonkit.lattice.threads.WORKERS"):
+        threads.run_chunks(calls.append, range(4))
+    assert calls == []
+
+
+def test_plane_force_refuses_links_weights_and_phases_of_the_wrong_shape():
+    pairs, omega, _ = sm._operator_terms(ops.get_operator("symanzik"))
+    with pytest.raises(ValueError, match=r"omega must have shape \(2, 4, 4\).*found \(2,\)"):
+        forces.plane_force(CUBE, pairs, np.ones(2))
+    with pytest.raises(ValueError, match=r"phases\[\(2, 1\)\] must have shape"):
+        forces.plane_force(CUBE, pairs, omega, {(1, 1): np.ones((4, 4) + CUBE), (1, 2): np.ones((4, 4) + CUBE)})
+    force = forces.plane_force(CUBE, pairs, omega)
+    with pytest.raises(ValueError, match=r"links must have shape .*found \(4, 4, 4, 4, 3, 2, 2\)"):
+        force(_rough(2)[..., :3, :, :])

@@ -432,7 +432,7 @@ def test_a_twisted_flow_step_with_zero_twist_is_the_wilson_flow_step():
     # of its measurements
     u = jnp.asarray(perturbed(tw.constant_flux_links(FLOW_SHAPE), 0.3, seed=2))
     z = tf._factor_fields(ZERO, FLOW_SHAPE, 2, (3, 1, 1, 3))
-    np.testing.assert_allclose(tf._rk3_step(u, 0.05, z), sm._rk3_step(u, 0.05, 1.0, 0.0, False), atol=1e-14)
+    np.testing.assert_allclose(tf._rk3_step(u, 0.05, z), sm._rk3_step(u, 0.05, 1.0), atol=1e-14)
 
 
 def test_a_twisted_cooling_sweep_with_zero_twist_is_a_cooling_sweep():

@@ -9,9 +9,12 @@ into blocks across its two other axes (no halo), a compiled kernel computes the 
 directions on a block (`instantonkit.lattice.rectangles.plane_staples`: the corner products of a loop are
 shared by the four long links it holds), and the chunks of blocks run on one thread per core
 (`instantonkit.lattice.threads`).  The result equals the staples of `instantonkit.lattice.staples` to rounding
-(tests/test_forces.py); memory beyond the links is one plane's links and staples at a time and the staple sum.
-The isotropic Wilson flows keep their one fused compiled step (`instantonkit.lattice.smoothing._force`), which
-is faster for the plaquettes alone; tests/test_forces.py ties the two.
+(tests/test_forces.py).  Memory beyond the links: the staple sum (each plane's staples are added as soon as its
+parts are done) and about two planes' links and staples in the plane layout (the next plane is laid out while
+the last parts of one run).  `plane_force` lays out the weights and centre factors of the
+planes once, for every force of a flow.  The isotropic Wilson flows keep their one fused compiled step
+(`instantonkit.lattice.smoothing._force`), which is faster for the plaquettes alone; tests/test_forces.py
+ties the two.
 """
 
 from __future__ import annotations
@@ -27,14 +30,14 @@ from .loops import _mm, _traceless_antihermitian
 from .observables import PLANES
 from .rectangles import plane_loops, plane_staples
 
-__all__ = ["BLOCK_SITES", "shape_weights", "loop_force"]
+__all__ = ["BLOCK_SITES", "plane_force", "loop_force"]
 
 #: Sites per block of the plane kernel (the block's products stay in the cache; a block is at least one whole
-#: plane, so 16^4 and 32^4 lattices run one plane a block).
+#: plane, so 16^4 and 32^4 lattices run one plane a block; tuned apart from `operators.BLOCK_SITES`).
 BLOCK_SITES = 1 << 8
 
 
-def shape_weights(pairs: tuple, omega, a: int, b: int) -> tuple[np.ndarray, np.ndarray]:
+def _shape_weights(pairs: tuple, omega, a: int, b: int) -> tuple[np.ndarray, np.ndarray]:
     """(wa, wb): the weights of the a- and b-staples of each loop shape of plane (a, b) (`plane_loops` order, p along a).
 
     A shape (p, q) of term i = (m, n) enters Sigma_a with share_i omega_i[a, b] and Sigma_b with share_i
@@ -97,49 +100,75 @@ def _force_of(u, sigma):
 def _parts(nb: int) -> int:
     """Parts of a plane's nb blocks handed to the threads: the largest divisor of nb up to 2 `WORKERS`
     (equal parts share one compiled kernel)."""
-    return max(d for d in range(1, min(nb, 2 * threads.WORKERS) + 1) if nb % d == 0)
+    return max(d for d in range(1, min(nb, 2 * threads.workers()) + 1) if nb % d == 0)
 
 
-def loop_force(u, pairs: tuple, omega, phases=None):
-    """Z(U) = -P_ah(U_mu Sigma_mu) of the loop action with staple weights omega; (L1..L4, 4, N, N) complex128 jax.
+def plane_force(shape, pairs: tuple, omega, phases=None):
+    """The force of the loop action with staple weights omega on lattices of ``shape``: a function u -> Z(U) =
+    -P_ah(U_mu Sigma_mu), (L1..L4, 4, N, N) complex128 jax, with the planes' weights and centre factors laid out once.
 
-    u: (L1..L4, 4, N, N) complex128 (checked links; periodic); pairs: ((m, n), ...) the terms (m <= n);
-    omega: (len(pairs), 4, 4) float, omega_i[mu, nu] the weight of term i's staples of U_mu in plane (mu, nu);
-    phases: None, or on a twisted torus the centre factor of every loop, {(e, f): (4, 4, L1..L4) complex} for
-    each shape of `plane_loops` (`instantonkit.lattice.staples.phase_fields`).
-    Not traceable (the planes run on worker threads); the flows call it between their compiled stages.
+    shape: (L1, L2, L3, L4); pairs: ((m, n), ...) the terms (m <= n); omega: (len(pairs), 4, 4) float,
+    omega_i[mu, nu] the weight of term i's staples of U_mu in plane (mu, nu); phases: None, or on a twisted
+    torus the centre factor of every loop, {(e, f): (4, 4, L1..L4) complex} for each shape of `plane_loops`
+    (`instantonkit.lattice.staples.phase_fields`).  The function takes checked periodic links u (L1..L4, 4, N, N)
+    complex128 and is not traceable (the planes run on worker threads); the flows call it between their compiled
+    stages.
+
+    Raises:
+        ValueError: a shape that is not four positive extents, omega not (len(pairs), 4, 4), phases missing a
+            loop shape or not (4, 4, L1..L4); and, from the function, links not of this shape.
     """
-    u = jnp.asarray(u)
-    shape = u.shape[:4]
+    shape = tuple(int(x) for x in shape)
+    if len(shape) != 4 or min(shape) < 1:
+        raise ValueError(f"shape must be four positive extents (L1, L2, L3, L4); found {shape}")
+    om = np.asarray(omega, dtype=np.float64)
+    if om.shape != (len(pairs), 4, 4):
+        raise ValueError(f"omega must have shape {(len(pairs), 4, 4)} (term, mu, nu); found {om.shape}")
     shapes = plane_loops(pairs)
-
-    sigma = jnp.zeros_like(u)
+    if phases is not None:
+        for sh in shapes:
+            got = None if sh not in phases else np.shape(phases[sh])
+            if got != (4, 4) + shape:
+                raise ValueError(f"phases[{sh}] must have shape {(4, 4) + shape}; found {got}")
     jobs = []
     for a, b in PLANES:
         across = int(np.prod(shape)) // (shape[a] * shape[b])
-        wa, wb = (jnp.asarray(w) for w in shape_weights(pairs, omega, a, b))
-        z = None if phases is None else jnp.stack([jnp.asarray(phases[s])[a, b] for s in shapes])
-        jobs.append((a, b, _block(shape[a] * shape[b], across), wa, wb, z))
+        wa, wb = (jnp.asarray(w) for w in _shape_weights(pairs, om, a, b))
+        z = None if phases is None else jnp.stack([jnp.asarray(phases[sh])[a, b] for sh in shapes])
+        bs = _block(shape[a] * shape[b], across)
+        jobs.append((a, b, bs, wa, wb, None if z is None else _phase_blocks(z, a, b, bs)))
 
-    def chunks():
-        for k, (a, b, bs, wa, wb, z) in enumerate(jobs):
-            x = _plane_blocks(u, a, b, bs)
-            ph = None if z is None else _phase_blocks(z, a, b, bs)
-            n = _parts(x.shape[0])
-            step = x.shape[0] // n
-            for j in range(n):
-                part = slice(j * step, (j + 1) * step)
-                yield k, j == n - 1, x[part], wa, wb, None if ph is None else ph[part]
+    def force(u):
+        u = jnp.asarray(u)
+        if u.ndim != 7 or u.shape[:5] != shape + (4,) or u.shape[5] != u.shape[6]:
+            raise ValueError(f"links must have shape {shape + (4, 'N', 'N')}; found {tuple(u.shape)}")
 
-    def run(item):
-        k, last, x, wa, wb, ph = item
-        return k, last, plane_staples(x, wa, wb, shapes, ph).block_until_ready()
+        def chunks():
+            for k, (a, b, bs, wa, wb, ph) in enumerate(jobs):
+                x = _plane_blocks(u, a, b, bs)
+                n = _parts(x.shape[0])
+                step = x.shape[0] // n
+                for j in range(n):
+                    part = slice(j * step, (j + 1) * step)
+                    yield k, j == n - 1, x[part], wa, wb, None if ph is None else ph[part]
 
-    done: list = []
-    for k, last, r in threads.map_chunks(run, chunks()):
-        done.append(r)
-        if last:
-            a, b = jobs[k][:2]
-            sigma = _add_plane(sigma, tuple(done), a, b)
-            done = []
-    return _force_of(u, sigma)
+        def run(item):
+            k, last, x, wa, wb, ph = item
+            return k, last, plane_staples(x, wa, wb, shapes, ph).block_until_ready()
+
+        sigma = jnp.zeros_like(u)
+        done: list = []
+        for k, last, r in threads.map_chunks(run, chunks()):
+            done.append(r)
+            if last:
+                a, b = jobs[k][:2]
+                sigma = _add_plane(sigma, tuple(done), a, b)
+                done = []
+        return _force_of(u, sigma)
+
+    return force
+
+
+def loop_force(u, pairs: tuple, omega, phases=None):
+    """Z(U) of `plane_force` for one set of links u (L1..L4, 4, N, N) complex128; (L1..L4, 4, N, N) complex128 jax."""
+    return plane_force(np.shape(u)[:4], pairs, omega, phases)(u)

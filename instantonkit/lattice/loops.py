@@ -88,8 +88,8 @@ def _spread(da, sums: dict, axis: int):
     periodic site axes) to the staple of the single link U(x), summed over the e: U(x) sits at position k of
     D^e(x - k) = D^k(x - k) U(x) D^(e-1-k)(x + 1), and Re tr(D^e Sigma_e) = Re tr(U D^(e-1-k)(x + 1) Sigma_e(x - k)
     D^k(x - k)); the partial products are the long links ``da`` (``da[j - 1] = D^j`` for j up to the largest
-    e - 1), so each position costs one or two products.  The one spread of the staples of the flows (plane by
-    plane) and of cooling (direction by direction)."""
+    e - 1), so each position costs one or two products.  The one spread of the staples of the plane-by-plane
+    force and of the direction-by-direction staples (cooling, the Wilson flows' fused step)."""
     out = None
     for e, sig in sums.items():
         for k in range(e):
@@ -111,9 +111,10 @@ def _link_staple(u, d, mu: int, e: int, f: int):
     """Sigma of U_mu(n) in every e x f loop (e along mu, f along nu != mu): the sum of the paths that close
     each such loop through U_mu(n), so that the loops' share of the action holding U_mu(n) is
     -2 Re tr(U_mu(n) Sigma) + const (the Wilson staple for e = f = 1).  d: {extent: [D^extent_nu for nu]}
-    holding e and f.  The staples of cooling (direction by direction) for the Wilson, 1x1 + 2x2, m x n and
-    weighted (staples module) actions: `_plane_staples` per plane, `_spread` to the single links; the flows
-    take theirs plane by plane (`instantonkit.lattice.rectangles.plane_staples`, the same `_spread`)."""
+    holding e and f.  The staples direction by direction (cooling and the isotropic Wilson flows' fused step)
+    for the Wilson, 1x1 + 2x2, m x n and weighted (staples module) actions: `_plane_staples` per plane, `_spread`
+    to the single links; the other flows take theirs plane by plane
+    (`instantonkit.lattice.rectangles.plane_staples`, the same `_spread`)."""
     return _spread(_longs_along(u, d, mu, e), {e: _long_staple(d, mu, e, f)}, mu)
 
 

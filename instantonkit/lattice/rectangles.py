@@ -17,9 +17,10 @@ Measurements go plane by plane (the kernels ``plane_*``): the links along mu and
 (L_mu, L_nu, B, 2, N, N), B sites across the plane, where every loop of the plane is built from the long
 links and two corner products without leaving it; the operators module cuts the B axis into chunks and
 blocks (no halo is needed) and runs the blocks one after the other, so their products stay in the cache.
-The flows' force takes its staples plane by plane as well (``plane_staples``, driven by
-`instantonkit.lattice.forces`); cooling, which updates one direction and colour at a time, takes them from
-`instantonkit.lattice.loops` (one staple code for the Wilson, the 1x1 + 2x2 and the m x n actions).
+The force of a flow whose action has loops longer than the plaquette (or an anisotropic or twisted one) takes
+its staples plane by plane as well (``plane_staples``, driven by `instantonkit.lattice.forces`); cooling, which
+updates one direction and colour at a time, and the isotropic Wilson flows' fused step take them from
+`instantonkit.lattice.loops` direction by direction.
 """
 
 from __future__ import annotations

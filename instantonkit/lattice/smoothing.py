@@ -49,14 +49,14 @@ import numpy as np
 from ..core import _validate as _v
 from ..core.conventions import CHARGE_DENSITY_FACTOR  # noqa: F401  (kept importable here)
 from . import operators as _operators
-from .forces import loop_force
+from .forces import plane_force
 from .loops import (  # re-exported: the measurements the flows and cooling drive
     _dag,
     _links,
     _measure,
     _mm,
     _total_staple,
-    _traceless_antihermitian,  # noqa: F401  (the tests project forces with it)
+    _traceless_antihermitian,
     improved_action,
     improved_charge,
     improved_charge_density,
@@ -122,14 +122,14 @@ def _expm_su(x):
 # -- loops and staples ------------------------------------------------------------------------------------
 
 
-def _force(u, c1, c2, two: bool):
-    """Z(U) = -P_ah(U_mu Sigma_mu) of S(eps) for the four directions, direction by direction on the whole lattice;
-    (L1..L4, 4, N, N) (module docstring).  Traceable: the Wilson flow (c2 = 0) runs it inside one compiled step
+def _force(u, c):
+    """Z(U) = -P_ah(U_mu Sigma_mu) of the plaquette action c S_W, direction by direction on the whole lattice;
+    (L1..L4, 4, N, N) (module docstring).  Traceable: the Wilson flow runs it inside one compiled step
     (`_rk3_step`), which XLA fuses with the integrator's stages; for the plaquettes alone that is faster than
-    the plane-by-plane `loop_force` (16^4 SU(2): 205 against 259 ms a step; SU(3) equal), which every action with
+    the plane-by-plane `plane_force` (16^4 SU(2): 205 against 259 ms a step; SU(3) equal), which every action with
     longer loops takes."""
     return jnp.stack(
-        [-_traceless_antihermitian(_mm(u[..., mu, :, :], _total_staple(u, mu, c1, c2, two))) for mu in range(4)],
+        [-_traceless_antihermitian(_mm(u[..., mu, :, :], _total_staple(u, mu, c, 0.0, False))) for mu in range(4)],
         axis=4,
     )
 
@@ -138,7 +138,7 @@ def _rk3(u, h, force):
     """One step of Luescher's third-order Runge-Kutta integrator (JHEP 08 (2010) 071, eqs. (C.1)-(C.3),
     from memory; the third order is checked by test_runge_kutta_integrator_is_third_order):
     W1 = exp(Z0/4) W0, W2 = exp(8/9 Z1 - 17/36 Z0) W1, V(t + h) = exp(3/4 Z2 - 8/9 Z1 + 17/36 Z0) W2,
-    Z_i = h Z(W_i).  ``force`` may be traceable (the step is then traceable) or not (`loop_force`, whose
+    Z_i = h Z(W_i).  ``force`` may be traceable (the step is then traceable) or not (`plane_force`, whose
     planes run on worker threads: the stages between the forces are compiled by `_advance`)."""
     z0 = force(u)
     w1 = _advance(u, (z0,), (0.25 * h,))
@@ -157,20 +157,19 @@ def _advance(w, zs, cs):
     return _mm(_expm_su(x), w)
 
 
-@functools.partial(jax.jit, static_argnames=("two",))
-def _rk3_step(u, h, c1, c2, two: bool):
-    """`_rk3` with the force of S(eps), one compiled step (the Wilson flow: c1 = 1, c2 = 0)."""
-    return _rk3(u, h, lambda v: _force(v, c1, c2, two))
+@jax.jit
+def _rk3_step(u, h, c):
+    """`_rk3` with the force of the plaquette action c S_W, one compiled step (the Wilson flow: c = 1)."""
+    return _rk3(u, h, lambda v: _force(v, c))
 
 
-def _loop_step(u, h, pairs: tuple, omega, phases=None):
-    """`_rk3` with the force of a loop action with staple weights omega (len(pairs), 4, 4) and, on a twisted
-    torus, the loops' centre factors ``phases`` (`loop_force`)."""
-    return _rk3(jnp.asarray(u), h, lambda v: loop_force(v, pairs, omega, phases))
+def _loop_step(u, h, force):
+    """`_rk3` with a force that is not traceable, e.g. `plane_force` of a loop action."""
+    return _rk3(jnp.asarray(u), h, force)
 
 
 def _eps_terms(c1: float, c2: float, two: bool) -> tuple[tuple, np.ndarray]:
-    """(pairs, omega) of S(eps) = c1 S_1 + c2 S_2 for `loop_force`: the 1x1 loops with weight c1 and, with the
+    """(pairs, omega) of S(eps) = c1 S_1 + c2 S_2 for `plane_force`: the 1x1 loops with weight c1 and, with the
     2x2 loops, those with c2 in every plane (the staple Sigma = c1 Sigma^(1) + c2 Sigma^(2))."""
     pairs = ((1, 1), (2, 2)) if two else ((1, 1),)
     w = np.array([c1, c2] if two else [c1], dtype=np.float64)
@@ -436,9 +435,10 @@ def gradient_flow(
         measure = lambda v: _measure_op(v, w, op.pairs)  # noqa: E731
     if not aniso and pairs == ((1, 1),):  # the plaquettes alone (isotropic): one fused compiled step, `_force`
         wc = float(omega[0, 0, 1])
-        step_fn = lambda v: _rk3_step(v, h, wc, 0.0, False)  # noqa: E731
+        step_fn = lambda v: _rk3_step(v, h, wc)  # noqa: E731
     else:
-        step_fn = lambda v: _loop_step(v, h, pairs, omega)  # noqa: E731
+        force = plane_force(u.shape[:4], pairs, omega)
+        step_fn = lambda v: _loop_step(v, h, force)  # noqa: E731
     if n and h > bound:
         raise ValueError(
             f"step must be below the stability bound {_fmt(bound * scale)} of the third-order Runge-Kutta flow for "

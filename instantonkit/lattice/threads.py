@@ -6,7 +6,7 @@ measurement or of a force go to the cores in turn: `map_chunks` calls a function
 threads and gives the results back in chunk order, so the thread count changes no bit of a result.
 
 `WORKERS` is one thread per core this process may use (its CPU affinity), at most 8; the environment variable
-``INSTANTONKIT_THREADS`` (read at import, a positive integer) sets it instead, e.g. 1 on a node shared with
+``INSTANTONKIT_THREADS`` (read at import, an integer in 1..64) sets it instead, e.g. 1 on a node shared with
 other jobs.  It may also be assigned at run time (``instantonkit.lattice.threads.WORKERS = 1``).
 """
 
@@ -17,7 +17,7 @@ import os
 from collections.abc import Callable, Iterable, Iterator
 from concurrent.futures import ThreadPoolExecutor
 
-__all__ = ["WORKERS", "THREADS_ENV", "map_chunks", "run_chunks"]
+__all__ = ["WORKERS", "THREADS_ENV", "MAX_WORKERS", "workers", "map_chunks", "run_chunks"]
 
 
 def _cores() -> int:
@@ -27,21 +27,22 @@ def _cores() -> int:
     return os.cpu_count() or 1
 
 
-#: The environment variable that sets `WORKERS` (a positive integer; unset or empty: one per core).
+#: The environment variable that sets `WORKERS` (a positive integer up to `MAX_WORKERS`; unset or empty: one per core).
 THREADS_ENV = "INSTANTONKIT_THREADS"
+#: The most worker threads one may ask for (each holds up to two chunks in flight).
+MAX_WORKERS = 64
 
 
 def _workers_from_env(value: str | None) -> int:
     """`WORKERS` from the value of `THREADS_ENV` (None or empty: one per core, at most 8)."""
     if value is None or not value.strip():
         return max(1, min(8, _cores()))
-    try:
-        n = int(value)
-    except ValueError:
-        n = 0
-    if n < 1:
-        raise ValueError(f"{THREADS_ENV} must be a positive integer (the worker threads); found {value!r}")
-    return n
+    text = value.strip()
+    if not text.isdigit() or not 1 <= int(text) <= MAX_WORKERS:
+        raise ValueError(
+            f"{THREADS_ENV} must be a positive integer up to {MAX_WORKERS} (the worker threads); found {value!r}"
+        )
+    return int(text)
 
 
 #: Threads that run chunks side by side (module docstring; measured in the benchmarks: two threads take a
@@ -49,30 +50,49 @@ def _workers_from_env(value: str | None) -> int:
 WORKERS = _workers_from_env(os.environ.get(THREADS_ENV))
 
 
+def workers() -> int:
+    """The checked `WORKERS` (it may be assigned at run time): an int in 1..`MAX_WORKERS`.
+
+    Raises:
+        ValueError / TypeError: naming ``instantonkit.lattice.threads.WORKERS`` and the value found.
+    """
+    n = WORKERS
+    if isinstance(n, bool) or not isinstance(n, int):
+        raise TypeError(f"instantonkit.lattice.threads.WORKERS must be an int; found {type(n).__name__} {n!r}")
+    if not 1 <= n <= MAX_WORKERS:
+        raise ValueError(f"instantonkit.lattice.threads.WORKERS must lie in 1..{MAX_WORKERS}; found {n}")
+    return n
+
+
+_END = object()
+
+
 def map_chunks(fn: Callable, chunks: Iterable) -> Iterator:
     """fn(c) for each c of ``chunks``, computed on `WORKERS` threads and yielded in chunk order.
 
-    The first call runs alone (it compiles the kernel the others share); then at most 2 `WORKERS` chunks are
-    taken from the iterator ahead of the results, so memory stays a few chunks.  ``fn`` runs compiled kernels
-    (which release the interpreter lock) and may write into disjoint parts of an array; an exception in a
-    call is raised here, in the caller's thread.
+    The first call runs alone (it compiles the kernel of its shape, which the others of that shape share;
+    chunks of another shape compile theirs in a worker); then at most 2 `WORKERS` chunks are taken from the
+    iterator ahead of the results, so memory stays a few chunks.  ``fn`` runs compiled kernels (which release
+    the interpreter lock) and may write into disjoint parts of an array; an exception in a call is raised here,
+    in the caller's thread, and the calls not yet started are dropped (so are they when the consumer stops
+    early).  The thread count is checked (`workers`) before the first call.
     """
+    n = workers()
     it = iter(chunks)
-    first = next(it, None)
-    if first is None:
+    first = next(it, _END)
+    if first is _END:
         return
     yield fn(first)
-    workers = WORKERS
-    if workers == 1:
+    if n == 1:
         for c in it:
             yield fn(c)
         return
-    pool = ThreadPoolExecutor(workers)
+    pool = ThreadPoolExecutor(n)
     try:
         pending: collections.deque = collections.deque()
         for c in it:
             pending.append(pool.submit(fn, c))
-            if len(pending) >= 2 * workers:
+            if len(pending) >= 2 * n:
                 yield pending.popleft().result()
         while pending:
             yield pending.popleft().result()

@@ -14,14 +14,15 @@ the Wilson staple of `instantonkit.lattice.loops`.  The flow and cooling are tho
 exponential, the same stability bound, the same maximisation of Re tr(U Sigma~) for cooling (centre
 factors keep the staple sum in the real span of SU(2) for N = 2) on the same checkerboard colours.
 
-The Wilson flow is one compiled step of `smoothing`'s integrator (`smoothing._rk3`) with the staple Sigma~ above;
-a loop operator's or an anisotropic flow is `smoothing._loop_step`, whose force is that of
-`instantonkit.lattice.forces`, plane by plane, with each loop's centre factor; the colour loop of a cooling sweep is written here around the imported kernels (`_maximise`, `_colours`) with the staple Sigma~
-above, since `smoothing`'s sweeps take their staples from `loops` and `operators`.
+The Wilson flow (at spacing 1) is one compiled step of `smoothing`'s integrator (`smoothing._rk3`) with the
+staple Sigma~ above; a loop operator's or an anisotropic flow is `smoothing._loop_step`, whose force is that of
+`instantonkit.lattice.forces`, plane by plane, with each loop's centre factor.  The colour loop of a cooling
+sweep is written here around the imported kernels (`_maximise`, `_colours`) with the staple Sigma~ above, since
+`smoothing`'s sweeps take their staples from `loops` and `operators`.
 
 Any loop operator's action (``action=``, `instantonkit.lattice.operators`) and anisotropic spacings
-(``spacing=``) drive the same flow and cooling (cooling with the staples of `instantonkit.lattice.staples`): every m x n
-loop that holds a twisted corner plaquette carries the twist's factor (`instantonkit.lattice.twisted_operators`
+(``spacing=``) drive the same flow and cooling (cooling with the staples of `instantonkit.lattice.staples`):
+every m x n loop that holds a twisted corner plaquette carries the twist's factor (`instantonkit.lattice.twisted_operators`
 derives which), so its staples do, and the force in physical flow time has the staple weights
 c / ((m n)^2 a_nu^2) of `instantonkit.lattice.smoothing.gradient_flow`.  The driving action is measured by
 `instantonkit.lattice.twisted_operators.twisted_operator_action`.
@@ -38,6 +39,7 @@ import jax.numpy as jnp
 import numpy as np
 
 from ..core import _validate as _v
+from .forces import plane_force
 from .loops import _dag, _links, _mm, _sh, _traceless_antihermitian
 from .operators import get_operator
 from .rectangles import colour_period, colours
@@ -242,7 +244,11 @@ def twisted_flow(
         drv = _Driver(u, tensor, c, action, a)
         bound = flow_step_bound(action=drv.op, spacing=a)
         what = f"the action {drv.op.name!r} (lambda_max = {operator_flow_frequency(drv.op, spacing=a):.4g})"
-        step_fn = lambda v: _loop_step(v, h, drv.op.pairs, drv.omega, drv.phases)  # noqa: E731
+        if drv.op.pairs == ((1, 1),) and np.all(np.asarray(drv.omega) == 1.0):  # the plaquettes at spacing 1
+            step_fn = lambda v: _rk3_step(v, h, z)  # noqa: E731
+        else:
+            force = plane_force(u.shape[:4], drv.op.pairs, drv.omega, drv.phases)
+            step_fn = lambda v: _loop_step(v, h, force)  # noqa: E731
         measure, name = drv.measure, drv.op.name
     else:
         bound, what, name = flow_step_bound(1.0), "the Wilson action", ""
