@@ -360,3 +360,16 @@ def test_wrappers_forward_the_batch_densities_of_the_wrapped_field(wrap):
 
 def test_wrappers_of_a_field_without_batch_densities_have_no_batch_hook():
     assert fl.hook(ik.translate(FIELD, np.ones(4)), "density_batch") is None
+
+
+def test_a_field_with_batch_densities_only_gets_the_per_point_hooks_from_them():
+    # the calorons write their closed-form densities for batches only; the per-point hooks are a batch of one point,
+    # so the engine's per-point path (wrappers, `method="auto"`) and its batch path give the same numbers
+    field = ik.caloron(1.0, 2.0, np.zeros(4), holonomy=0.2, axis=np.array([0.0, 0.0, 1.0]))
+    assert "action_density" not in type(field).__dict__
+    pts = _points(np.random.default_rng(9), n=6, avoid=np.zeros((1, 4)), dist=0.0)
+    for quantity in ("action_density", "charge_density"):
+        one = fl.hook(field, quantity)
+        batch = np.asarray(field.density_batch(jnp.asarray(pts), quantity))
+        assert np.max(np.abs(np.asarray([one(jnp.asarray(p)) for p in pts]) - batch)) <= 1e-13 * np.max(np.abs(batch))
+        assert np.max(np.abs(np.asarray(getattr(fl, quantity)(ik.translate(field, np.zeros(4)), pts)) - batch)) < 1e-12

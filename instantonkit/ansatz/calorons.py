@@ -344,14 +344,6 @@ class HolonomyCaloronField(PytreeFields):
         s = caloron_action_density(pts, pos, frac, jnp.asarray(self.period))
         return s if quantity == "action_density" else s / (8.0 * PI**2)
 
-    def action_density(self, x):
-        """Field hook: s at one point (4,) -> () (closed form, see `density_batch`)."""
-        return self.density_batch(jnp.asarray(x)[None], "action_density")[0]
-
-    def charge_density(self, x):
-        """Field hook: q = s / (8 pi^2) at one point (4,) -> () (self-dual)."""
-        return self.density_batch(jnp.asarray(x)[None], "charge_density")[0]
-
     def asymptotic_holonomy(self) -> np.ndarray:
         """Field hook: mu = (-omega, omega), the eigenphases / 2 pi of the Polyakov loop at spatial infinity."""
         omega = float(self.holonomy)

@@ -142,14 +142,6 @@ class SUNCaloronField(PytreeFields):
         s = caloron_action_density(pts, jnp.asarray(self.positions), self._fractions(), jnp.asarray(self.period))
         return s if quantity == "action_density" else s / (8.0 * PI**2)
 
-    def action_density(self, x):
-        """Field hook: s at one point (4,) -> ()."""
-        return self.density_batch(jnp.asarray(x)[None], "action_density")[0]
-
-    def charge_density(self, x):
-        """Field hook: q = s / (8 pi^2) at one point (4,) -> ()."""
-        return self.density_batch(jnp.asarray(x)[None], "charge_density")[0]
-
     def asymptotic_holonomy(self) -> np.ndarray:
         """Field hook: mu (N,), ascending, summing to 0."""
         return np.asarray(self.holonomy, dtype=np.float64).copy()

@@ -91,7 +91,8 @@ class FieldHooks(Protocol):
       ``density_batch(points, quantity) -> (m,)``: the closed-form ``action_density`` or
       ``charge_density`` at a whole batch of points (m, 4) at once (jax-traceable, equal to the
       per-point closed forms to rounding), used by ``method="auto"`` instead of vmapping them, so a
-      field can lay its work out across points (ADHM data: the batch-major k x k kernels);
+      field can lay its work out across points (ADHM data: the batch-major k x k kernels); a field that
+      offers it and not the per-point density hooks gets those from it (`hook`);
       ``generator_batch(points, dirs) -> (m, N, N)``: A_mu d_mu at a batch (the Magnus links' nodes).
     """
 
@@ -124,14 +125,20 @@ def hook(field, name: str):
     """The field's hook ``name`` (bound method or attribute value), or None when it does not offer it.
 
     Wrappers (`instantonkit.engine.transforms`) offer a hook exactly when the field they wrap does and
-    they can map it; asking is the only way modules learn what a field can do.
+    they can map it; asking is the only way modules learn what a field can do.  A field that offers
+    ``density_batch`` but not the per-point ``action_density`` / ``charge_density`` gets them from it (a batch
+    of one point), so a closed form written for batches is written once.
     """
     if name not in HOOKS:
         raise ValueError(f"unknown field hook {name!r}; the hooks are {HOOKS}")
     try:
         value = getattr(field, name)
     except AttributeError:
-        return None
+        value = None
+    if value is None and name in ("action_density", "charge_density"):
+        batch = hook(field, "density_batch")
+        if batch is not None:
+            return lambda x: batch(jnp.asarray(x)[None], name)[0]
     return value
 
 
