@@ -73,9 +73,11 @@ from .stability import (  # noqa: F401
     RK3_STABILITY,
     _check_rise,
     flow_step_bound,
+    flow_steps,
     max_flow_frequency,
     monitored_run,
     operator_flow_frequency,
+    run_flow,
 )
 from .staples import action_weights, staple_weights, weighted_staple
 
@@ -266,46 +268,38 @@ def _colours(shape, two: bool) -> np.ndarray:
     return out
 
 
-@functools.partial(jax.jit, static_argnames=("pairs", "ncol", "hits"))
-def _cool_sweep_op(u, cols, weights, pairs, ncol: int, hits: int):
-    """A cooling sweep of a loop operator's action (colours of `instantonkit.lattice.rectangles.colours`)."""
+def _colour_sweep(u, colours, ncol: int, hits: int, staple_of):
+    """One exact sequential sweep, direction by direction and colour by colour: the links of direction mu and
+    colour c become the maximisers (`_maximise`) of Re tr(U Sigma) for their staple Sigma = staple_of(v, mu)
+    of the current links v.  The one colour loop of every cooling run (plain and twisted); colours: (4, L1..L4)
+    int in 0..ncol-1 (links of one direction and colour share no loop of the action).  Traceable."""
     for mu in range(4):
 
         def body(c, v, mu=mu):
-            new = _maximise(v[..., mu, :, :], staple(v, mu, pairs, weights), hits)
-            sel = (cols[mu] == c)[..., None, None]
-            return v.at[..., mu, :, :].set(jnp.where(sel, new, v[..., mu, :, :]))
-
-        u = jax.lax.fori_loop(0, ncol, body, u)
-    return u
-
-
-@functools.partial(jax.jit, static_argnames=("pairs", "ncol", "hits"))
-def _cool_sweep_w(u, cols, omega, pairs, ncol: int, hits: int):
-    """A cooling sweep of a loop operator's action with a staple weight per (direction, plane) (anisotropic)."""
-    for mu in range(4):
-
-        def body(c, v, mu=mu):
-            new = _maximise(v[..., mu, :, :], weighted_staple(v, mu, pairs, omega), hits)
-            sel = (cols[mu] == c)[..., None, None]
-            return v.at[..., mu, :, :].set(jnp.where(sel, new, v[..., mu, :, :]))
-
-        u = jax.lax.fori_loop(0, ncol, body, u)
-    return u
-
-
-@functools.partial(jax.jit, static_argnames=("two", "ncol", "hits"))
-def _cool_sweep(u, colours, c1, c2, two: bool, ncol: int, hits: int):
-    for mu in range(4):
-
-        def body(c, v, mu=mu):
-            st = _total_staple(v, mu, c1, c2, two)
-            new = _maximise(v[..., mu, :, :], st, hits)
+            new = _maximise(v[..., mu, :, :], staple_of(v, mu), hits)
             sel = (colours[mu] == c)[..., None, None]
             return v.at[..., mu, :, :].set(jnp.where(sel, new, v[..., mu, :, :]))
 
         u = jax.lax.fori_loop(0, ncol, body, u)
     return u
+
+
+@functools.partial(jax.jit, static_argnames=("pairs", "ncol", "hits"))
+def _cool_sweep_op(u, cols, weights, pairs, ncol: int, hits: int):
+    """A cooling sweep of a loop operator's action (colours of `instantonkit.lattice.rectangles.colours`)."""
+    return _colour_sweep(u, cols, ncol, hits, lambda v, mu: staple(v, mu, pairs, weights))
+
+
+@functools.partial(jax.jit, static_argnames=("pairs", "ncol", "hits"))
+def _cool_sweep_w(u, cols, omega, pairs, ncol: int, hits: int):
+    """A cooling sweep of a loop operator's action with a staple weight per (direction, plane) (anisotropic)."""
+    return _colour_sweep(u, cols, ncol, hits, lambda v, mu: weighted_staple(v, mu, pairs, omega))
+
+
+@functools.partial(jax.jit, static_argnames=("two", "ncol", "hits"))
+def _cool_sweep(u, colours, c1, c2, two: bool, ncol: int, hits: int):
+    """A cooling sweep of S(eps) (colours of `_colours`)."""
+    return _colour_sweep(u, colours, ncol, hits, lambda v, mu: _total_staple(v, mu, c1, c2, two))
 
 
 # -- measurements -------------------------------------------------------------------------------------------
@@ -412,11 +406,7 @@ def gradient_flow(
     scale = 1.0 if aniso else float(a[0]) ** 2  # isotropic: run in lattice units t / a^2
     tt, h = tt / scale, h / scale
     u = _links(links)
-    steps = math.ceil(tt / h - 1e-9) if tt > 0 else 0
-    link_count = float(np.prod(u.shape[:5]))
-    _v.bounded_work("t", steps * link_count, f"t / step = {tt:g} / {h:g} = {steps:.3e} steps of {link_count:.0f} links")
-    n = int(steps)
-    h = tt / n if n else h
+    n, h = flow_steps(tt, h, float(np.prod(u.shape[:5])))
     if aniso:
         flow_op = op if op is not None else _operators.epsilon_action(float(eps))
         bound = flow_step_bound(action=flow_op, spacing=a)
@@ -446,23 +436,8 @@ def gradient_flow(
             f"flow_step_bound); found an effective step {h * scale:g} (t = {tt * scale:g}, step = {step!r}); use "
             f"step <= {0.25 * bound * scale:.3g} (0.01-0.05 a^2 is common practice)"
         )
-    u, times, rows = monitored_run(
-        u,
-        step_fn,
-        measure,
-        n,
-        every=every,
-        progress=progress,
-        label="flow steps",
-        time_of=lambda i: i * h * scale,
-        driving=1,
-        check=lambda prev, cur, t0, t1, i: _check_rise(
-            prev,
-            cur,
-            "flow",
-            f"between flow times {t0:g} and {t1:g} (step {i} of {n}, step size {h * scale:g})",
-            f"use a smaller step, e.g. step={0.25 * h * scale:.3g}",
-        ),
+    u, times, rows = run_flow(
+        u, step_fn, measure, n, h, scale, every=every, progress=progress, label="flow steps", kind="flow", driving=1
     )
     return np.asarray(u), _record(times, rows, eps, "flow", op)
 

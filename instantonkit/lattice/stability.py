@@ -8,6 +8,7 @@ run whose driving action rises between two measurements stops with an error (`_c
 from __future__ import annotations
 
 import functools
+import math
 
 import numpy as np
 
@@ -134,3 +135,39 @@ def monitored_run(u, update, measure, n: int, *, every: int, progress, label: st
             rows.append(measure(u))
             check(float(rows[-2][driving]), float(rows[-1][driving]), times[-2], times[-1], i)
     return u, times, rows
+
+
+def flow_steps(tt: float, h: float, link_count: float) -> tuple[int, float]:
+    """(n, h): n = ceil(tt / h) equal steps of tt / n for flow time tt and nominal step h (both in the run's units),
+    refused first when n steps of ``link_count`` links would be more work than `instantonkit.core._validate.
+    bounded_work` allows (h is returned unchanged for tt = 0)."""
+    steps = math.ceil(tt / h - 1e-9) if tt > 0 else 0
+    _v.bounded_work("t", steps * link_count, f"t / step = {tt:g} / {h:g} = {steps:.3e} steps of {link_count:.0f} links")
+    n = int(steps)
+    return n, (tt / n if n else h)
+
+
+def run_flow(
+    u, step_fn, measure, n: int, h: float, scale: float, *, every: int, progress, label: str, kind: str, driving: int
+):
+    """`monitored_run` of n flow steps of size h (flow time i h scale after i steps, in the units of t): the one
+    loop of the plain and the twisted flows, stopping with an error that names the flow times, the step and a
+    step a quarter as large when the driving action (entry ``driving`` of a measured row) rises."""
+    return monitored_run(
+        u,
+        step_fn,
+        measure,
+        n,
+        every=every,
+        progress=progress,
+        label=label,
+        time_of=lambda i: i * h * scale,
+        driving=driving,
+        check=lambda prev, cur, t0, t1, i: _check_rise(
+            prev,
+            cur,
+            kind,
+            f"between flow times {t0:g} and {t1:g} (step {i} of {n}, step size {h * scale:g})",
+            f"use a smaller step, e.g. step={0.25 * h * scale:.3g}",
+        ),
+    )

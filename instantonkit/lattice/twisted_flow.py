@@ -16,9 +16,8 @@ factors keep the staple sum in the real span of SU(2) for N = 2) on the same che
 
 The Wilson flow (at spacing 1) is one compiled step of `smoothing`'s integrator (`smoothing._rk3`) with the
 staple Sigma~ above; a loop operator's or an anisotropic flow is `smoothing._loop_step`, whose force is that of
-`instantonkit.lattice.forces`, plane by plane, with each loop's centre factor.  The colour loop of a cooling
-sweep is written here around the imported kernels (`_maximise`, `_colours`) with the staple Sigma~ above, since
-`smoothing`'s sweeps take their staples from `loops` and `operators`.
+`instantonkit.lattice.forces`, plane by plane, with each loop's centre factor.  A cooling sweep is `smoothing`'s
+colour loop (`smoothing._colour_sweep`, on the colours of `smoothing._colours`) with the staple Sigma~ above.
 
 Any loop operator's action (``action=``, `instantonkit.lattice.operators`) and anisotropic spacings
 (``spacing=``) drive the same flow and cooling (cooling with the staples of `instantonkit.lattice.staples`):
@@ -32,7 +31,6 @@ from __future__ import annotations
 
 import dataclasses
 import functools
-import math
 
 import jax
 import jax.numpy as jnp
@@ -43,8 +41,16 @@ from .forces import plane_force
 from .loops import _dag, _links, _mm, _sh, _traceless_antihermitian
 from .operators import get_operator
 from .rectangles import colour_period, colours
-from .smoothing import _check_periodic_shape, _colours, _loop_step, _maximise, _rk3
-from .stability import RK3_STABILITY, _check_rise, flow_step_bound, monitored_run, operator_flow_frequency
+from .smoothing import _check_periodic_shape, _colour_sweep, _colours, _loop_step, _rk3
+from .stability import (
+    RK3_STABILITY,
+    _check_rise,
+    flow_step_bound,
+    flow_steps,
+    monitored_run,
+    operator_flow_frequency,
+    run_flow,
+)
 from .staples import phase_fields, staple_weights, weighted_staple
 from .twist import _twisted_planes, twist_corner, twist_tensor, twisted_clover_charge, twisted_wilson_action
 from .twisted_operators import twisted_operator_action
@@ -118,30 +124,14 @@ def _rk3_step(u, h, z):
 
 @functools.partial(jax.jit, static_argnames=("hits",))
 def _cool_sweep(u, colours, z, hits: int):
-    """One exact sequential sweep: direction by direction, checkerboard colour by colour."""
-    for mu in range(4):
-
-        def body(c, v, mu=mu):
-            new = _maximise(v[..., mu, :, :], _twisted_staple(v, mu, z), hits)
-            sel = (colours[mu] == c)[..., None, None]
-            return v.at[..., mu, :, :].set(jnp.where(sel, new, v[..., mu, :, :]))
-
-        u = jax.lax.fori_loop(0, 2, body, u)
-    return u
+    """One exact sequential sweep: direction by direction, checkerboard colour by colour (`smoothing._colour_sweep`)."""
+    return _colour_sweep(u, colours, 2, hits, lambda v, mu: _twisted_staple(v, mu, z))
 
 
 @functools.partial(jax.jit, static_argnames=("pairs", "ncol", "hits"))
 def _cool_sweep_op(u, cols, omega, phases, pairs, ncol: int, hits: int):
     """A cooling sweep of a loop operator's twisted action (colours of `instantonkit.lattice.rectangles.colours`)."""
-    for mu in range(4):
-
-        def body(c, v, mu=mu):
-            new = _maximise(v[..., mu, :, :], weighted_staple(v, mu, pairs, omega, phases), hits)
-            sel = (cols[mu] == c)[..., None, None]
-            return v.at[..., mu, :, :].set(jnp.where(sel, new, v[..., mu, :, :]))
-
-        u = jax.lax.fori_loop(0, ncol, body, u)
-    return u
+    return _colour_sweep(u, cols, ncol, hits, lambda v, mu: weighted_staple(v, mu, pairs, omega, phases))
 
 
 class _Driver:
@@ -235,11 +225,7 @@ def twisted_flow(
     generic = action is not None or not np.all(a == a[0])
     scale = 1.0 if generic else float(a[0]) ** 2  # the Wilson path runs in lattice units t / a^2
     tt, h = tt / scale, h / scale
-    steps = math.ceil(tt / h - 1e-9) if tt > 0 else 0
-    link_count = float(np.prod(u.shape[:5]))
-    _v.bounded_work("t", steps * link_count, f"t / step = {tt:g} / {h:g} = {steps:.3e} steps of {link_count:.0f} links")
-    n = int(steps)
-    h = tt / n if n else h
+    n, h = flow_steps(tt, h, float(np.prod(u.shape[:5])))
     if generic:
         drv = _Driver(u, tensor, c, action, a)
         bound = flow_step_bound(action=drv.op, spacing=a)
@@ -264,23 +250,18 @@ def twisted_flow(
             f"{what} (h lambda_max <= {RK3_STABILITY:.4f}); found an effective step {h * scale:g} "
             f"(t = {tt * scale:g}, step = {step!r})"
         )
-    u, times, rows = monitored_run(
+    u, times, rows = run_flow(
         u,
         step_fn,
         measure,
         n,
+        h,
+        scale,
         every=every,
         progress=progress,
         label="twisted flow steps",
-        time_of=lambda i: i * h * scale,
+        kind="twisted flow",
         driving=2,
-        check=lambda prev, cur, t0, t1, i: _check_rise(
-            prev,
-            cur,
-            "twisted flow",
-            f"between flow times {t0:g} and {t1:g} (step {i} of {n})",
-            f"use a smaller step, e.g. step={0.25 * h * scale:.3g}",
-        ),
     )
     return np.asarray(u), _record(times, rows, "flow", name)
 
