@@ -276,6 +276,21 @@ def caloron_potential_point(x, positions, holonomy, period, time=0.0):
     return a - (jnp.trace(a, axis1=-2, axis2=-1) / n)[:, None, None] * jnp.eye(n)
 
 
+def constituent_positions(positions, n: int, why: str = "") -> np.ndarray:
+    """The N constituent positions y_m, (N, 3) float64, checked: real, finite, one per eigenphase, no two equal.
+
+    Raises ValueError naming the shape found or the first coincident pair (y_a = y_b = value), with ``why``
+    (why coincident constituents are refused) after "must be distinct"."""
+    y = _validate.real_array("positions", positions, (n, 3), shape_text=f"({n}, 3), one per eigenphase")
+    dist = np.linalg.norm(y[:, None] - y[None, :], axis=-1) + np.diag(np.full(n, np.inf))
+    a, b = np.unravel_index(np.argmin(dist), dist.shape)
+    if not dist[a, b] > 0:
+        raise ValueError(
+            f"constituent positions must be distinct{why}; found y_{min(a, b) + 1} = y_{max(a, b) + 1} = {y[a].tolist()}"
+        )
+    return y
+
+
 def _checked(points, positions, holonomy, period, time):
     """The arguments of `caloron_potential` checked (ValueError / TypeError naming the value) as numpy arrays."""
     pts = np.asarray(points)
@@ -291,14 +306,7 @@ def _checked(points, positions, holonomy, period, time):
         )
     if mu[-1] - mu[0] > 1.0 + 1e-12:
         raise ValueError(f"holonomy eigenphases must satisfy mu_N - mu_1 <= 1; found {float(mu[-1] - mu[0])!r}")
-    y = _validate.real_array("positions", positions, (n, 3), shape_text=f"({n}, 3), one per eigenphase")
-    dist = np.linalg.norm(y[:, None] - y[None, :], axis=-1) + np.diag(np.full(n, np.inf))
-    a, b = np.unravel_index(np.argmin(dist), dist.shape)
-    if not dist[a, b] > 0:
-        raise ValueError(
-            f"constituent positions must be distinct (the Nahm data's jump would vanish); found "
-            f"y_{min(a, b) + 1} = y_{max(a, b) + 1} = {y[a].tolist()}"
-        )
+    y = constituent_positions(positions, n, " (the Nahm data's jump would vanish)")
     return pts, y, mu, _validate.positive_float("period", period), _validate.finite_float("time", time)
 
 

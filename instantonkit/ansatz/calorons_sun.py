@@ -20,7 +20,7 @@ import numpy as np
 from ..core import _validate
 from ..core._pytree import PytreeFields
 from ..core.conventions import PI
-from .caloron_nahm import caloron_potential_point
+from .caloron_nahm import caloron_potential_point, constituent_positions
 from .caloron_psi import caloron_action_density
 from .scalar import positive_scalar
 
@@ -99,14 +99,7 @@ class SUNCaloronField(PytreeFields):
         mu = holonomy_eigenphases(self.holonomy)
         object.__setattr__(self, "holonomy", mu)
         n = mu.shape[0]
-        pos = _validate.real_array("positions", self.positions, (n, 3), shape_text=f"({n}, 3), one per eigenphase")
-        dist = np.linalg.norm(pos[:, None] - pos[None, :], axis=-1) + np.diag(np.full(n, np.inf))
-        a, b = np.unravel_index(np.argmin(dist), dist.shape)
-        if not dist[a, b] > 0:
-            raise ValueError(
-                f"constituent positions must be distinct (coincident constituents make psi vanish); "
-                f"found y_{min(a, b) + 1} = y_{max(a, b) + 1} = {pos[a].tolist()}"
-            )
+        pos = constituent_positions(self.positions, n, " (coincident constituents make psi vanish)")
         object.__setattr__(self, "positions", pos)
         object.__setattr__(self, "time", np.asarray(_validate.finite_float("time", self.time), dtype=np.float64))
 

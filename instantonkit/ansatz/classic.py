@@ -59,6 +59,7 @@ from ..core import _validate
 from ..core import quaternion as qt
 from ..core._pytree import PytreeFields
 from ..core.conventions import PI, point_to_quaternion
+from .caloron_nahm import constituent_positions
 from .calorons import CaloronField, HolonomyCaloronField
 from .calorons_sun import SUNCaloronField, default_positions, fractions_of, holonomy_eigenphases
 from .scalar import ANSATZ_COUPLING, ETA_BAR, UNITS_C, ScalarAnsatz, positive_scalar
@@ -466,13 +467,11 @@ def caloron(
         rho = float(_validate.positive_float("size", size))
         pos = default_positions(mu, rho, beta, c, ax)
     else:
-        pos = _validate.real_array("positions", positions, (mu.shape[0], 3), shape_text=f"({mu.shape[0]}, 3)")
+        pos = constituent_positions(positions, mu.shape[0])
     if mu.shape[0] > 2:
         return SUNCaloronField(np.asarray(beta), mu, pos, c[3])
     sep = pos[1] - pos[0]
     dist = float(np.linalg.norm(sep))
-    if not dist > 0:
-        raise ValueError(f"constituent positions must be distinct; found y_1 = y_2 = {pos[0].tolist()}")
     nu = fractions_of(mu)
     centre = np.append(nu @ pos, c[3])
     rho = float(np.sqrt(dist * beta / np.pi))
