@@ -122,6 +122,16 @@ BPST_DATA = ik.bpst()
 UNIT_DATA = ik.unitary_multi_instanton([[0.0, 0.0, 0.0, 0.0]], [1.0], rank=3)
 GRID = np.stack(np.meshgrid(*[np.linspace(-1.0, 1.0, 3)] * 4, indexing="ij"), axis=-1).reshape(-1, 4)
 DENSITY = np.exp(-np.sum(GRID**2, axis=-1))
+#: Bad density samples for the finders (the same kinds for every finder that takes samples).
+BAD_DENSITIES = {
+    "nan": _with(NAN, DENSITY),
+    "inf": _with(INF, DENSITY),
+    "shape": DENSITY[:-1],
+    "dtype_complex": DENSITY.astype(complex),
+    "dtype_str": DENSITY.astype(str),
+    "dtype_bool": DENSITY > 0.5,
+    "empty": np.zeros(0),
+}
 
 # ----------------------------------------------------------------------------------------------- table
 # entry -> (call(tmp, **overrides), {argument: {kind: bad value}})
@@ -270,15 +280,7 @@ ROWS: dict[str, Row] = {
         _call(ik.find_constituents, points=GRID, density=DENSITY, n=1, period=1.0),
         {
             "points": _without(POINTS, "absurd"),
-            "density": {
-                "nan": _with(NAN, DENSITY),
-                "inf": _with(INF, DENSITY),
-                "shape": DENSITY[:-1],
-                "dtype_complex": DENSITY.astype(complex),
-                "dtype_str": DENSITY.astype(str),
-                "dtype_bool": DENSITY > 0.5,
-                "empty": np.zeros(0),
-            },
+            "density": BAD_DENSITIES,
             "n": COUNT,
             "period": POSITIVE,
             "weights": {"nan": _with(NAN, DENSITY), "negative": -DENSITY, "shape": DENSITY[:-1]},
@@ -288,15 +290,7 @@ ROWS: dict[str, Row] = {
         _call(ik.find_instantons, points=GRID, density=DENSITY, k=1),
         {
             "points": _without(POINTS, "absurd"),
-            "density": {
-                "nan": _with(NAN, DENSITY),
-                "inf": _with(INF, DENSITY),
-                "shape": DENSITY[:-1],
-                "dtype_complex": DENSITY.astype(complex),
-                "dtype_str": DENSITY.astype(str),
-                "dtype_bool": DENSITY > 0.5,
-                "empty": np.zeros(0),
-            },
+            "density": BAD_DENSITIES,
             "k": COUNT,
         },
     ),
