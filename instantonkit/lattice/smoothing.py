@@ -77,6 +77,7 @@ from .stability import (  # noqa: F401
     max_flow_frequency,
     monitored_run,
     operator_flow_frequency,
+    run_cooling,
     run_flow,
 )
 from .staples import action_weights, staple_weights, weighted_staple
@@ -266,6 +267,19 @@ def _colours(shape, two: bool) -> np.ndarray:
             rest = (idx.sum(axis=0) - idx[mu]) % 4
             out[mu] = (idx[mu] % 2) * 4 + rest
     return out
+
+
+def _operator_colours(shape, op, what: str):
+    """(colours (4, L1..L4) int32 jax, their number) of `instantonkit.lattice.rectangles.colours` for a loop
+    operator's cooling; ValueError naming the shape when an extent is not a multiple of the colouring's period."""
+    period = colour_period(op.pairs)
+    if any(s % period for s in shape):
+        raise ValueError(
+            f"{what} with the action {op.name!r} (loops of side up to {op.extent}) needs every lattice extent "
+            f"divisible by {period}; found shape {tuple(shape)}"
+        )
+    arr, ncol = colours(shape, op.pairs)
+    return jnp.asarray(arr), ncol
 
 
 def _colour_sweep(u, colours, ncol: int, hits: int, staple_of):
@@ -500,14 +514,7 @@ def cool(
     shape = u.shape[:4]
     if not np.all(a == a[0]):
         cool_op = op if op is not None else _operators.epsilon_action(float(eps))
-        period = colour_period(cool_op.pairs)
-        if any(s % period for s in shape):
-            raise ValueError(
-                f"cooling with the action {cool_op.name!r} (loops of side up to {cool_op.extent}) needs every lattice "
-                f"extent divisible by {period}; found shape {tuple(shape)}"
-            )
-        arr, ncol = colours(shape, cool_op.pairs)
-        cols = jnp.asarray(arr)
+        cols, ncol = _operator_colours(shape, cool_op, "cooling")
         omega = jnp.asarray(staple_weights(cool_op.terms, a))
         kappa, wk = _aniso_weights(cool_op, a)
         sweep = lambda v: _cool_sweep_w(v, cols, omega, cool_op.pairs, ncol, hits)  # noqa: E731
@@ -518,18 +525,11 @@ def cool(
         ncol = 8 if two else 2
         sweep, measure = (lambda v: _cool_sweep(v, cols, c1, c2, two, ncol, hits)), (lambda v: _measure(v, c1, c2, two))
     else:
-        period = colour_period(op.pairs)
-        if any(s % period for s in shape):
-            raise ValueError(
-                f"cooling with the action {op.name!r} (loops of side up to {op.extent}) needs every lattice extent "
-                f"divisible by {period}; found shape {tuple(shape)}"
-            )
-        arr, ncol = colours(shape, op.pairs)
-        cols = jnp.asarray(arr)
+        cols, ncol = _operator_colours(shape, op, "cooling")
         w = jnp.asarray([float(c) / (m * k) ** 2 for m, k, c in op.terms])
         sweep = lambda v: _cool_sweep_op(v, cols, w, op.pairs, ncol, hits)  # noqa: E731
         measure = lambda v: _measure_op(v, w, op.pairs)  # noqa: E731
-    u, times, rows = monitored_run(
+    u, times, rows = run_cooling(
         u,
         sweep,
         measure,
@@ -537,15 +537,9 @@ def cool(
         every=every,
         progress=progress,
         label="cooling sweeps",
-        time_of=lambda i: i,
+        kind="cooling",
         driving=1,
-        check=lambda prev, cur, t0, t1, i: _check_rise(
-            prev,
-            cur,
-            "cooling",
-            f"between sweeps {t0} and {i}",
-            "each cooling update minimises the action with the other links fixed, so the links have left "
-            "SU(N) (check them with instantonkit.check_links)",
-        ),
+        advice="each cooling update minimises the action with the other links fixed, so the links have left "
+        "SU(N) (check them with instantonkit.check_links)",
     )
     return np.asarray(u), _record(times, rows, eps, "cooling", op)

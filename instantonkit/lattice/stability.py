@@ -171,3 +171,23 @@ def run_flow(
             f"use a smaller step, e.g. step={0.25 * h * scale:.3g}",
         ),
     )
+
+
+def run_cooling(
+    u, sweep, measure, sweeps: int, *, every: int, progress, label: str, kind: str, driving: int, advice: str
+):
+    """`monitored_run` of ``sweeps`` cooling sweeps (the record's time is the sweeps done): the one loop of the plain
+    and the twisted cooling, stopping with an error that names the two sweeps and ``advice`` when the driving
+    action (entry ``driving`` of a measured row) rises."""
+    return monitored_run(
+        u,
+        sweep,
+        measure,
+        sweeps,
+        every=every,
+        progress=progress,
+        label=label,
+        time_of=lambda i: i,
+        driving=driving,
+        check=lambda prev, cur, t0, t1, i: _check_rise(prev, cur, kind, f"between sweeps {t0} and {i}", advice),
+    )

@@ -40,15 +40,13 @@ from ..core import _validate as _v
 from .forces import plane_force
 from .loops import _dag, _links, _mm, _sh, _traceless_antihermitian
 from .operators import get_operator
-from .rectangles import colour_period, colours
-from .smoothing import _check_periodic_shape, _colour_sweep, _colours, _loop_step, _rk3
+from .smoothing import _check_periodic_shape, _colour_sweep, _colours, _loop_step, _operator_colours, _rk3
 from .stability import (
     RK3_STABILITY,
-    _check_rise,
     flow_step_bound,
     flow_steps,
-    monitored_run,
     operator_flow_frequency,
+    run_cooling,
     run_flow,
 )
 from .staples import phase_fields, staple_weights, weighted_staple
@@ -296,14 +294,7 @@ def twisted_cool(
     _v.bounded_work("sweeps", hits * sweeps * link_count, f"{sweeps} sweeps of {link_count:.0f} links")
     if action is not None or not np.all(a == a[0]):
         drv = _Driver(u, tensor, c, action, a)
-        period = colour_period(drv.op.pairs)
-        if any(s % period for s in u.shape[:4]):
-            raise ValueError(
-                f"twisted cooling with the action {drv.op.name!r} (loops of side up to {drv.op.extent}) needs every "
-                f"lattice extent divisible by {period}; found shape {tuple(u.shape[:4])}"
-            )
-        arr, ncol = colours(u.shape[:4], drv.op.pairs)
-        cols = jnp.asarray(arr)
+        cols, ncol = _operator_colours(u.shape[:4], drv.op, "twisted cooling")
         sweep = lambda v: _cool_sweep_op(v, cols, drv.omega, drv.phases, drv.op.pairs, ncol, hits)  # noqa: E731
         measure, name = drv.measure, drv.op.name
     else:
@@ -316,7 +307,7 @@ def twisted_cool(
             sw, q = _measure(v, tensor, c)
             return sw, q, sw
 
-    u, times, rows = monitored_run(
+    u, times, rows = run_cooling(
         u,
         sweep,
         measure,
@@ -324,10 +315,8 @@ def twisted_cool(
         every=every,
         progress=progress,
         label="twisted cooling sweeps",
-        time_of=lambda i: i,
+        kind="twisted cooling",
         driving=2,
-        check=lambda prev, cur, t0, t1, i: _check_rise(
-            prev, cur, "twisted cooling", f"between sweeps {t0} and {i}", "check the links"
-        ),
+        advice="check the links",
     )
     return np.asarray(u), _record(times, rows, "cooling", name)
