@@ -60,3 +60,13 @@ def noisy_links(links, amp, seed):
     x = 0.5 * (z - np.conj(np.swapaxes(z, -1, -2)))
     x = x - np.trace(x, axis1=-2, axis2=-1)[..., None, None] * np.eye(n) / n
     return np.asarray(sm._expm_su(amp * x)) @ links
+
+
+def haar_links(shape, n=2, seed=0):
+    """Haar-random SU(n) links (`instantonkit.lattice.observables.random_gauge` per direction): rough, far from smooth.
+
+    shape: (L1, L2, L3, L4); returns (L1..L4, 4, n, n) complex128.
+    """
+    from instantonkit.lattice import observables as obs
+
+    return np.stack([obs.random_gauge(shape, n, seed=seed + mu) for mu in range(4)], axis=4)

@@ -6,6 +6,7 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 import pytest
+from _references import haar_links, noisy_links
 from hypothesis import given
 from hypothesis import strategies as st
 
@@ -19,21 +20,6 @@ from instantonkit.lattice import twisted_flow as tf
 
 TWIST = {(1, 2): 1, (3, 4): 1}
 ZERO = np.zeros((4, 4), dtype=int)
-
-
-def random_links(shape, n=2, seed=0):
-    """Haar-random SU(n) links (`observables.random_gauge` per direction): rough, far from smooth."""
-    return np.stack([obs.random_gauge(shape, n, seed=seed + mu) for mu in range(4)], axis=4)
-
-
-def perturbed(u, size, seed=0):
-    """exp(size X) U with X Gaussian traceless anti-Hermitian per link (a smooth start made rough)."""
-    rng = np.random.default_rng(seed)
-    n = u.shape[-1]
-    x = rng.normal(size=u.shape) + 1j * rng.normal(size=u.shape)
-    x = 0.5 * (x - np.conj(np.swapaxes(x, -1, -2)))
-    x = x - np.trace(x, axis1=-2, axis2=-1)[..., None, None] * np.eye(n) / n
-    return np.asarray(sm._expm_su(jnp.asarray(size * x))) @ u
 
 
 def box_integral(field, quantity, box):
@@ -232,7 +218,7 @@ def test_constant_flux_links_refuse_an_extent_below_two():
 
 
 def test_zero_twist_observables_are_the_untwisted_ones():
-    u = random_links((2, 2, 4, 2), 2, seed=3)
+    u = haar_links((2, 2, 4, 2), 2, seed=3)
     assert tw.twisted_wilson_action(u, ZERO) == pytest.approx(ik.wilson_action(u), rel=1e-13)
     assert tw.twisted_average_plaquette(u, ZERO) == pytest.approx(ik.average_plaquette(u), rel=1e-13)
     np.testing.assert_allclose(
@@ -241,14 +227,14 @@ def test_zero_twist_observables_are_the_untwisted_ones():
 
 
 def test_a_nonzero_twist_changes_the_action_of_rough_links():
-    u = random_links((2, 2, 2, 2), 2, seed=5)
+    u = haar_links((2, 2, 2, 2), 2, seed=5)
     assert abs(tw.twisted_wilson_action(u, TWIST) - ik.wilson_action(u)) > 1e-3
 
 
 @given(st.integers(0, 2**31 - 1))
 def test_twisted_observables_are_invariant_under_lattice_gauge_transformations(seed):
     # z is central: g(n) z U_p g(n)^-1 = z g(n) U_p g(n)^-1 (common practice)
-    u = random_links((2, 2, 2, 2), 3, seed=seed)
+    u = haar_links((2, 2, 2, 2), 3, seed=seed)
     g = obs.random_gauge((2, 2, 2, 2), 3, seed=seed + 7)
     v = obs.gauge_transform_links(u, g)
     twist = {(1, 3): 1, (2, 4): 2, (3, 4): 1}
@@ -263,7 +249,7 @@ def test_a_singular_gauge_transformation_moves_the_twist_and_leaves_every_twiste
     # z_12 and the one at c - e_2 the factor conj(z_12) (planes 13, 14 get z conj(z) = 1): the twist of
     # plane 12 moves from c to c - e_2 ('t Hooft 1979, from memory: only the twist tensor is physical)
     shape = (2, 4, 2, 2)
-    u = random_links(shape, 3, seed=11)
+    u = haar_links(shape, 3, seed=11)
     twist = {(1, 2): 1, (3, 4): 2}
     c = (1, 3, 1, 1)
     v = u.copy()
@@ -285,7 +271,7 @@ def test_a_singular_gauge_transformation_moves_the_twist_and_leaves_every_twiste
 def test_the_memory_bounded_twisted_charge_density_is_the_charge_of_the_twisted_clover():
     # twisted_clover_charge_density recomputes only blocks around the twisted corners; against the
     # density of the full twisted clover field strength, every plane twisted, the corner moved
-    u = random_links((3, 2, 4, 2), 3, seed=13)
+    u = haar_links((3, 2, 4, 2), 3, seed=13)
     twist = {(1, 2): 1, (1, 3): 2, (1, 4): 1, (2, 3): 1, (2, 4): 2, (3, 4): 1}
     f = tw.twisted_clover_field_strength(u, twist, corner=(0, 1, 2, 0))
     q = (
@@ -300,7 +286,7 @@ def test_moving_a_single_plane_twist_leaves_the_twisted_action_in_every_plane(pl
     # the same singular gauge transformation as above, for each plane (mu, nu) and corner: U_mu on the sheet
     # (c_mu, c_nu) times z_mu nu, twist moved from c to c - e_nu ('t Hooft 1979, from memory)
     mu, nu = plane
-    u = random_links((2, 2, 2, 2), 3, seed=17)
+    u = haar_links((2, 2, 2, 2), 3, seed=17)
     twist = {(mu + 1, nu + 1): 2}
     c = [1, 1, 1, 1]
     c[mu], c[nu] = cmu, cnu
@@ -421,7 +407,7 @@ FLOW_SHAPE = (4, 2, 2, 4)
 
 
 def test_twisted_flow_does_not_raise_the_twisted_action():
-    u = perturbed(tw.constant_flux_links(FLOW_SHAPE), 0.4, seed=1)
+    u = noisy_links(tw.constant_flux_links(FLOW_SHAPE), 0.4, seed=1)
     _, rec = tf.twisted_flow(u, TWIST, 0.3, 0.05)
     assert np.all(np.diff(rec.wilson_action) <= 1e-10 * rec.wilson_action[:-1])
     assert rec.wilson_action[-1] < 0.5 * rec.wilson_action[0]
@@ -430,14 +416,14 @@ def test_twisted_flow_does_not_raise_the_twisted_action():
 def test_a_twisted_flow_step_with_zero_twist_is_the_wilson_flow_step():
     # the kernel of smoothing.wilson_flow (eps = 1: c1 = 1, c2 = 0), called directly to spare the compilation
     # of its measurements
-    u = jnp.asarray(perturbed(tw.constant_flux_links(FLOW_SHAPE), 0.3, seed=2))
+    u = jnp.asarray(noisy_links(tw.constant_flux_links(FLOW_SHAPE), 0.3, seed=2))
     z = tf._factor_fields(ZERO, FLOW_SHAPE, 2, (3, 1, 1, 3))
     np.testing.assert_allclose(tf._rk3_step(u, 0.05, z), sm._rk3_step(u, 0.05, 1.0), atol=1e-14)
 
 
 def test_a_twisted_cooling_sweep_with_zero_twist_is_a_cooling_sweep():
     # the kernel of smoothing.cool (eps = 1, checkerboard colours), called directly as above
-    u = jnp.asarray(perturbed(tw.constant_flux_links(FLOW_SHAPE), 0.3, seed=3))
+    u = jnp.asarray(noisy_links(tw.constant_flux_links(FLOW_SHAPE), 0.3, seed=3))
     z = tf._factor_fields(ZERO, FLOW_SHAPE, 2, (3, 1, 1, 3))
     colours = jnp.asarray(sm._colours(FLOW_SHAPE, False))
     expected = sm._cool_sweep(u, colours, 1.0, 0.0, False, 2, 3)
@@ -455,7 +441,7 @@ def test_twisted_flow_commutes_with_moving_the_twist():
         out[3, 1, :, :, 0] *= z
         return out
 
-    u = perturbed(tw.constant_flux_links(FLOW_SHAPE), 0.3, seed=6)
+    u = noisy_links(tw.constant_flux_links(FLOW_SHAPE), 0.3, seed=6)
     a, _ = tf.twisted_flow(u, TWIST, 0.1, 0.05, corner=c)
     b, _ = tf.twisted_flow(move(u), TWIST, 0.1, 0.05, corner=moved)
     np.testing.assert_allclose(b, move(a), atol=1e-13)
@@ -473,7 +459,7 @@ def test_twisted_cooling_of_a_rough_start_ends_near_the_constant_flux():
     # common practice); on the lattice the cooled action may lie a little below the constant-flux links'
     # action (measured: 39.325 against 39.352 on 4 x 4 x 2 x 8), so the check is monotone descent and an
     # end within 2 % of it, with the twisted clover charge near that of the constant flux
-    u = perturbed(tw.constant_flux_links(FLOW_SHAPE), 0.3, seed=4)
+    u = noisy_links(tw.constant_flux_links(FLOW_SHAPE), 0.3, seed=4)
     _, rec = tf.twisted_cool(u, TWIST, 10)
     const = tw.constant_flux_links(FLOW_SHAPE)
     assert np.all(np.diff(rec.wilson_action) <= 0)

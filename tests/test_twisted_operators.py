@@ -5,13 +5,13 @@ import jax.numpy as jnp
 import numpy as np
 import pytest
 import scipy.linalg as sla
+from _references import haar_links, noisy_links
 from hypothesis import given
 from hypothesis import strategies as st
 
 from instantonkit.lattice import observables as obs
 from instantonkit.lattice import operators as ops
 from instantonkit.lattice import rectangles, staples, thermal
-from instantonkit.lattice import smoothing as sm
 from instantonkit.lattice import twist as tw
 from instantonkit.lattice import twisted_flow as tf
 from instantonkit.lattice import twisted_operators as to
@@ -21,29 +21,14 @@ TWIST = {(1, 2): 1, (3, 4): 1}
 ZERO = np.zeros((4, 4), dtype=int)
 
 
-def random_links(shape, n=2, seed=0):
-    """Haar-random SU(n) links (`observables.random_gauge` per direction): rough, far from smooth."""
-    return np.stack([obs.random_gauge(shape, n, seed=seed + mu) for mu in range(4)], axis=4)
-
-
 #: Haar-random SU(2) links on 4^4 (every twisted loop far from 1).
-RANDOM_4 = random_links((4, 4, 4, 4), 2, seed=5)
-
-
-def perturbed(u, size, seed=0):
-    """exp(size X) U with X Gaussian traceless anti-Hermitian per link (a smooth start made rough)."""
-    rng = np.random.default_rng(seed)
-    n = u.shape[-1]
-    x = rng.normal(size=u.shape) + 1j * rng.normal(size=u.shape)
-    x = 0.5 * (x - np.conj(np.swapaxes(x, -1, -2)))
-    x = x - np.trace(x, axis1=-2, axis2=-1)[..., None, None] * np.eye(n) / n
-    return np.asarray(sm._expm_su(jnp.asarray(size * x))) @ u
+RANDOM_4 = haar_links((4, 4, 4, 4), 2, seed=5)
 
 
 @pytest.fixture(scope="module")
 def rough():
     """A rough twisted 4^4 SU(2) lattice: the constant flux times random noise."""
-    return perturbed(tw.constant_flux_links((4, 4, 4, 4)), 0.3, seed=1)
+    return noisy_links(tw.constant_flux_links((4, 4, 4, 4)), 0.3, seed=1)
 
 
 def constant_flux_charge(op, shape):
@@ -169,7 +154,7 @@ def test_moving_a_single_plane_twist_leaves_the_twisted_symanzik_action(plane, c
 def test_moving_the_twist_leaves_twisted_loops_that_wrap_round_the_torus():
     # as above in SU(3), with loops of side 2 on extents 2 (they wrap once round the torus: the edge case of the
     # module's corner rule) and side 3 on extents 4
-    u = random_links((4, 2, 4, 2), 3, seed=11)
+    u = haar_links((4, 2, 4, 2), 3, seed=11)
     twist = {(1, 2): 1, (3, 4): 2}
     c = (1, 1, 3, 1)
     v, moved = _moved(u, 3, (0, 1), c)
@@ -289,7 +274,7 @@ def test_the_twisted_operator_force_is_minus_the_lie_derivative_of_the_twisted_a
 
 @pytest.mark.long
 def test_the_twisted_flow_with_the_wilson_preset_is_the_twisted_wilson_flow():
-    u = perturbed(tw.constant_flux_links((4, 2, 2, 4)), 0.4, seed=1)
+    u = noisy_links(tw.constant_flux_links((4, 2, 2, 4)), 0.4, seed=1)
     v1, r1 = tf.twisted_flow(u, TWIST, 0.1, 0.05)
     v2, r2 = tf.twisted_flow(u, TWIST, 0.1, 0.05, action="wilson")
     assert np.max(np.abs(v1 - v2)) < 1e-13
@@ -299,7 +284,7 @@ def test_the_twisted_flow_with_the_wilson_preset_is_the_twisted_wilson_flow():
 
 @pytest.mark.long
 def test_the_twisted_flow_in_physical_time_has_the_bits_of_lattice_units():
-    u = perturbed(tw.constant_flux_links((4, 2, 2, 4)), 0.4, seed=1)
+    u = noisy_links(tw.constant_flux_links((4, 2, 2, 4)), 0.4, seed=1)
     v1, r1 = tf.twisted_flow(u, TWIST, 0.025, 0.0125, spacing=0.5)
     v2, r2 = tf.twisted_flow(u, TWIST, 0.1, 0.05)
     assert np.array_equal(v1, v2) and np.array_equal(r1.time, 0.25 * r2.time)
@@ -307,14 +292,14 @@ def test_the_twisted_flow_in_physical_time_has_the_bits_of_lattice_units():
 
 @pytest.mark.long
 def test_an_anisotropic_twisted_flow_lowers_its_action():
-    u = perturbed(tw.constant_flux_links((4, 2, 2, 4)), 0.4, seed=1)
+    u = noisy_links(tw.constant_flux_links((4, 2, 2, 4)), 0.4, seed=1)
     _, rec = tf.twisted_flow(u, TWIST, 0.06, 0.02, spacing=(1.0, 1.0, 1.0, 0.5))
     assert np.all(np.diff(rec.action) < 0) and np.array_equal(rec.action, rec.wilson_action)
 
 
 @pytest.mark.long
 def test_twisted_symanzik_flow_lowers_its_action():
-    u = perturbed(tw.constant_flux_links((4, 2, 2, 4)), 0.4, seed=1)
+    u = noisy_links(tw.constant_flux_links((4, 2, 2, 4)), 0.4, seed=1)
     _, rec = tf.twisted_flow(u, TWIST, 0.1, 0.02, action="symanzik")
     assert np.all(np.diff(rec.action) < 0)
 
@@ -323,7 +308,7 @@ def test_twisted_symanzik_flow_lowers_its_action():
 def test_twisted_symanzik_cooling_of_a_rough_start_ends_near_the_constant_flux():
     # L1 L2 = L3 L4: the constant flux is the self-dual minimum of the twisted action, S = 4 pi^2 ('t Hooft 1981,
     # from memory); its Symanzik action on this lattice is constant_flux_action (40.16 on 4^4)
-    u = perturbed(tw.constant_flux_links((4, 4, 4, 4)), 0.4, seed=1)
+    u = noisy_links(tw.constant_flux_links((4, 4, 4, 4)), 0.4, seed=1)
     _, rec = tf.twisted_cool(u, TWIST, 20, action="symanzik", every=5)
     assert np.all(np.diff(rec.action) <= 0)
     target = constant_flux_action(ops.OPERATOR_PRESETS["symanzik"], (4, 4, 4, 4))
@@ -340,7 +325,7 @@ def test_cooling_an_improved_action_on_an_asymmetric_torus_finds_a_fractional_in
     # S_W / 4 pi^2 = 0.962; Q_5li = 0.498, Q_5loop = 0.4997, Q_3loop = 0.501, Q_clover = 0.428; peak q 14 times
     # the mean
     shape = (4, 4, 8, 8)
-    u = perturbed(tw.constant_flux_links(shape), 0.1, seed=0)
+    u = noisy_links(tw.constant_flux_links(shape), 0.1, seed=0)
     cooled, rec = tf.twisted_cool(u, TWIST, 300, action="5li", every=50)
     assert rec.action[0] > 1.9 * 4 * np.pi**2
     assert np.all(np.diff(rec.action) <= 0)
